@@ -1,0 +1,114 @@
+/**
+ * Units at the edges. Protocol and phantom files carry strings such as
+ * "24 cm", "250 Hz/px", "40 mT/m"; this module turns them into SI numbers
+ * (s, m, T, T/m, T/m/s, Hz, rad) with mathjs, and adds the units mathjs lacks
+ * (px, gauss, ppm) once. Nothing inside the simulation sees a unit.
+ */
+import { create, all, type Unit } from "mathjs";
+import { userError, type Origin } from "./errors.js";
+
+export const math = create(all, {});
+math.createUnit("px", { aliases: ["pixel", "pixels"] });
+math.createUnit("gauss", { definition: "1e-4 T", prefixes: "short", aliases: ["Gs"] });
+math.createUnit("ppm", { definition: "1e-6 rad", aliases: [] });
+
+/** The SI unit each kind of quantity is stored in, and a readable example. */
+export const KINDS = {
+  length: { si: "m", example: "\"24 cm\"" },
+  time: { si: "s", example: "\"5 ms\"" },
+  field: { si: "T", example: "\"3 T\"" },
+  gradient: { si: "T/m", example: "\"40 mT/m\"" },
+  slew: { si: "T/m/s", example: "\"150 T/m/s\"" },
+  frequency: { si: "Hz", example: "\"250 Hz\"" },
+  angle: { si: "rad", example: "\"20 deg\"" },
+  pixelBandwidth: { si: "Hz/px", example: "\"250 Hz/px\"" },
+  pixels: { si: "px", example: "\"1.5 px\"" },
+} as const;
+export type QuantityKind = keyof typeof KINDS;
+
+const baseUnits = new Map<QuantityKind, Unit>();
+function baseOf(kind: QuantityKind): Unit {
+  let u = baseUnits.get(kind);
+  if (!u) {
+    u = math.unit(KINDS[kind].si);
+    baseUnits.set(kind, u);
+  }
+  return u;
+}
+
+/** Parses a unit string into a mathjs Unit, or throws a UserError. */
+export function parseUnit(raw: unknown, origin: Origin): Unit {
+  if (typeof raw !== "string") {
+    throw userError(origin, `expected a value with units as a string (e.g. "5 ms"), got ${JSON.stringify(raw)}`);
+  }
+  let u: Unit;
+  try {
+    u = math.unit(raw.trim());
+  } catch {
+    throw userError(origin, `cannot read ${JSON.stringify(raw)} as a number with units`);
+  }
+  if (!u.units || u.units.length === 0 || u.value === null || u.value === undefined) {
+    throw userError(origin, `${JSON.stringify(raw)} has no units; write it like ${"\"5 ms\""}`);
+  }
+  return u;
+}
+
+/** True if the unit string is of the given kind. */
+export function isKind(u: Unit, kind: QuantityKind): boolean {
+  return u.equalBase(baseOf(kind));
+}
+
+/**
+ * Parses `raw` (e.g. "24 cm") as a quantity of `kind` and returns it in SI.
+ * Throws a UserError naming origin if it has no units or the wrong ones.
+ */
+export function quantity(raw: unknown, kind: QuantityKind, origin: Origin): number {
+  const u = parseUnit(raw, origin);
+  if (!isKind(u, kind)) {
+    throw userError(origin, `${JSON.stringify(raw)} is not a ${kind}; expected units like ${KINDS[kind].example}`);
+  }
+  const v = u.toNumber(KINDS[kind].si);
+  if (!Number.isFinite(v)) throw userError(origin, `${JSON.stringify(raw)} is not a finite number`);
+  return v;
+}
+
+/** Like quantity(), and the value must be > 0. */
+export function positive(raw: unknown, kind: QuantityKind, origin: Origin): number {
+  const v = quantity(raw, kind, origin);
+  if (!(v > 0)) throw userError(origin, `must be greater than zero, got ${JSON.stringify(raw)}`);
+  return v;
+}
+
+/** Like quantity(), and the value must be ≥ 0. */
+export function nonNegative(raw: unknown, kind: QuantityKind, origin: Origin): number {
+  const v = quantity(raw, kind, origin);
+  if (!(v >= 0)) throw userError(origin, `must not be negative, got ${JSON.stringify(raw)}`);
+  return v;
+}
+
+/** A plain number (no units) in [min, max]; integer if asked. */
+export function plainNumber(
+  raw: unknown,
+  origin: Origin,
+  opts: { min?: number; max?: number; integer?: boolean } = {},
+): number {
+  if (typeof raw !== "number" || !Number.isFinite(raw)) {
+    throw userError(origin, `expected a plain number, got ${JSON.stringify(raw)}`);
+  }
+  if (opts.integer && !Number.isInteger(raw)) throw userError(origin, `expected a whole number, got ${raw}`);
+  if (opts.min !== undefined && raw < opts.min) throw userError(origin, `must be at least ${opts.min}, got ${raw}`);
+  if (opts.max !== undefined && raw > opts.max) throw userError(origin, `must be at most ${opts.max}, got ${raw}`);
+  return raw;
+}
+
+/** Formats an SI number back with a chosen display unit, e.g. fmt(0.005, "ms") → "5 ms". */
+export function fmt(si: number, display: string, digits = 4): string {
+  const v = math.unit(si, unitSiFor(display)).toNumber(display);
+  return `${Number(v.toPrecision(digits))} ${display}`;
+}
+
+function unitSiFor(display: string): string {
+  const u = math.unit(`1 ${display}`);
+  for (const k of Object.keys(KINDS) as QuantityKind[]) if (isKind(u, k)) return KINDS[k].si;
+  throw new Error(`no SI unit for ${display}`);
+}
