@@ -14,3 +14,17 @@ export const GAMMA_BAR = GAMMA / (2 * Math.PI);
 
 /** Vacuum permeability μ0 (T·m/A), CODATA 2018. */
 export const MU0 = 1.25663706212e-6;
+
+/**
+ * Six-peak fat spectrum: chemical shift relative to water (ppm) and relative
+ * amplitude. Hamilton et al. 2011, "In vivo characterization of the liver fat
+ * ¹H MR spectrum", NMR Biomed 24:784, as used with multi-peak fat modelling by
+ * Yu et al. 2008, MRM 60:1122. Positions and amplitudes are from memory
+ * (consistent with the ratios in the Hamilton abstract: CH₂ 2.1/1.3 ppm slope
+ * 0.172, CH₃/CH₂ 0.125, 8.6 % of the fat signal under the water peak).
+ */
+export const FAT_PEAKS_PPM = [-3.8, -3.4, -2.6, -1.94, -0.39, 0.6] as const;
+export const FAT_PEAKS_AMPLITUDE = [0.087, 0.693, 0.128, 0.004, 0.039, 0.048] as const;
+
+/** Single-peak fat model: the main methylene peak at −3.4 ppm (Hamilton et al. 2011). */
+export const FAT_SINGLE_PPM = -3.4;

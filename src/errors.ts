@@ -7,12 +7,20 @@
 export class UserError extends Error {
   readonly file: string | undefined;
   readonly keyPath: string | undefined;
+  /** The message without the file and key path prefix. */
+  readonly detail: string;
   constructor(message: string, file?: string, keyPath?: string) {
     const where = [file, keyPath].filter((s) => s !== undefined && s !== "").join(": ");
     super(where ? `${where}: ${message}` : message);
     this.name = "UserError";
     this.file = file;
     this.keyPath = keyPath;
+    this.detail = message;
+  }
+
+  /** The same error attributed to a file, if it names none yet. */
+  inFile(file: string): UserError {
+    return this.file ? this : new UserError(this.detail, file, this.keyPath);
   }
 }
 

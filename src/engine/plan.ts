@@ -1,0 +1,206 @@
+/**
+ * The acquisition plan: everything that does not change between TRs or
+ * between chunks, computed once — RF affine maps per isochromat class,
+ * per-axis phase tables per distinct gradient area, the distinct interval
+ * durations, the op list the chunk runner plays, and the fixed chunking.
+ * Every large array lives in a SharedArrayBuffer so workers read it in place.
+ */
+import { GAMMA, GAMMA_BAR } from "../constants.js";
+import type { IsochromatSet } from "../isochromats/index.js";
+import type { Sequence, Vec3 } from "../sequence/types.js";
+import { rfAffine } from "./kernels.js";
+
+/** Isochromats per chunk (approximate; chunks end at column boundaries). Fixed, so results do not depend on the number of workers. */
+export const CHUNK_ISOCHROMATS = 32768;
+
+export type Op =
+  | { t: "rf"; base: number; cos: number; sin: number }
+  | { t: "free"; dur: number; u: number; v: number; w: number }
+  | {
+      t: "adc"; n: number; row: number;
+      /** weight·exp(−i·receiver phase) */
+      cr: number; ci: number;
+      /** per-sample step: duration index and tables for the area G·dwell */
+      stepDur: number; su: number; sv: number; sw: number;
+      /** γ̄·G_read (Hz/m) for the receiver filter, sampled bandwidth (Hz), and whether groups must share w */
+      fRead: number; bwSampled: number; byW: boolean;
+      /** the whole readout as a free interval afterwards */
+      dur: number; u: number; v: number; w: number;
+    }
+  | { t: "spoil" };
+
+export interface EnginePlan {
+  ops: Op[];
+  /** Interleaved (cos, sin) phase tables, all axes, at the offsets the ops name. */
+  tab: Float64Array;
+  /** Distinct interval durations (s). */
+  durations: Float64Array;
+  /** RF class of every isochromat, and 12 numbers per (pulse, class). */
+  rfClass: Int32Array;
+  classes: number;
+  rfMaps: Float64Array;
+  /** Chunk c covers isochromats chunkStart[c] … chunkStart[c+1]−1 (whole columns). */
+  chunkStart: Int32Array;
+  chunks: number;
+  rows: number;
+  read: number;
+  /** Model the receiver anti-alias filter. */
+  receiverFilter: boolean;
+  /** Largest chunk (isochromats), for scratch sizing. */
+  maxChunk: number;
+}
+
+function sharedF64(n: number): Float64Array {
+  return new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8));
+}
+function sharedI32(n: number): Int32Array {
+  return new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4));
+}
+
+/** Moves an isochromat set's arrays into shared memory (once), so workers can read them. */
+export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
+  const f = (a: Float64Array) => {
+    if (a.buffer instanceof SharedArrayBuffer) return a;
+    const s = sharedF64(a.length);
+    s.set(a);
+    return s.subarray(0, a.length);
+  };
+  const i = (a: Int32Array) => {
+    if (a.buffer instanceof SharedArrayBuffer) return a;
+    const s = sharedI32(a.length);
+    s.set(a);
+    return s.subarray(0, a.length);
+  };
+  return {
+    ...iso,
+    iu: i(iso.iu), iv: i(iso.iv), iw: i(iso.iw), x: f(iso.x), y: f(iso.y), z: f(iso.z),
+    m0: f(iso.m0), r1: f(iso.r1), r2: f(iso.r2), df: f(iso.df), tissue: i(iso.tissue), peak: i(iso.peak),
+    colStart: i(iso.colStart),
+  };
+}
+
+/** Builds the plan. `onStage` reports slow preparation steps. */
+export function makePlan(seq: Sequence, iso: IsochromatSet, opts: { receiverFilter: boolean }): EnginePlan {
+  const grids = [iso.uGrid, iso.vGrid, iso.wGrid];
+  // --- phase tables, deduplicated per (axis, area)
+  const tabKeys = new Map<string, number>();
+  const tabList: { axis: number; area: number; offset: number }[] = [];
+  let tabLen = 0;
+  const table = (axis: number, area: number): number => {
+    const key = `${axis}:${area}`;
+    let off = tabKeys.get(key);
+    if (off === undefined) {
+      off = tabLen;
+      tabLen += 2 * grids[axis]!.length;
+      tabKeys.set(key, off);
+      tabList.push({ axis, area, offset: off });
+    }
+    return off;
+  };
+  const durKeys = new Map<number, number>();
+  const dur = (t: number): number => {
+    let k = durKeys.get(t);
+    if (k === undefined) {
+      k = durKeys.size;
+      durKeys.set(t, k);
+    }
+    return k;
+  };
+  const free = (duration: number, area: Vec3) => ({
+    t: "free" as const, dur: dur(duration), u: table(0, area[0]), v: table(1, area[1]), w: table(2, area[2]),
+  });
+
+  // --- RF classes: isochromats with the same (w, Δf, r1, r2) see the same pulse
+  const classKeys = new Map<string, number>();
+  const rfClass = sharedI32(iso.count).subarray(0, iso.count);
+  const classW: number[] = [], classDf: number[] = [], classR1: number[] = [], classR2: number[] = [];
+  for (let i = 0; i < iso.count; i++) {
+    const key = `${iso.iw[i]},${iso.df[i]},${iso.r1[i]},${iso.r2[i]}`;
+    let c = classKeys.get(key);
+    if (c === undefined) {
+      c = classW.length;
+      classKeys.set(key, c);
+      classW.push(iso.wGrid[iso.iw[i]!]!);
+      classDf.push(iso.df[i]!);
+      classR1.push(iso.r1[i]!);
+      classR2.push(iso.r2[i]!);
+    }
+    rfClass[i] = c;
+  }
+  const classes = classW.length;
+  const rfMaps = sharedF64(seq.pulses.length * classes * 12);
+  seq.pulses.forEach((p, pi) => {
+    for (let c = 0; c < classes; c++) {
+      const f = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
+      rfAffine(rfMaps, (pi * classes + c) * 12, p.b1re, p.b1im, p.dt, GAMMA, f, classR1[c]!, classR2[c]!);
+    }
+  });
+
+  // --- ops, with consecutive free intervals merged (exact: areas and durations add)
+  const ops: Op[] = [];
+  let pend: { duration: number; area: Vec3 } | null = null;
+  const flush = () => {
+    if (pend && pend.duration > 0) ops.push(free(pend.duration, pend.area));
+    pend = null;
+  };
+  for (const b of seq.blocks) {
+    if (b.kind === "free") {
+      if (!pend) pend = { duration: 0, area: [0, 0, 0] };
+      pend.duration += b.duration;
+      pend.area = [pend.area[0] + b.area[0], pend.area[1] + b.area[1], pend.area[2] + b.area[2]];
+      continue;
+    }
+    flush();
+    if (b.kind === "rf") {
+      ops.push({ t: "rf", base: b.pulse * classes * 12, cos: Math.cos(b.phase), sin: Math.sin(b.phase) });
+    } else if (b.kind === "spoil") {
+      ops.push({ t: "spoil" });
+    } else {
+      const T = b.samples * b.dwell;
+      const f = free(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
+      ops.push({
+        t: "adc", n: b.samples, row: b.row,
+        cr: b.weight * Math.cos(b.phase), ci: -b.weight * Math.sin(b.phase),
+        stepDur: dur(b.dwell),
+        su: table(0, b.grad[0] * b.dwell), sv: table(1, b.grad[1] * b.dwell), sw: table(2, b.grad[2] * b.dwell),
+        fRead: GAMMA_BAR * b.grad[0], bwSampled: 1 / b.dwell, byW: b.grad[2] !== 0 || b.grad[1] !== 0,
+        dur: f.dur, u: f.u, v: f.v, w: f.w,
+      });
+    }
+  }
+  flush();
+
+  // --- fill the tables: exp(−i2πγ̄·A·coordinate)
+  const tab = sharedF64(tabLen);
+  for (const { axis, area, offset } of tabList) {
+    const g = grids[axis]!;
+    const k = -2 * Math.PI * GAMMA_BAR * area;
+    for (let i = 0; i < g.length; i++) {
+      const th = k * g[i]!;
+      tab[offset + 2 * i] = Math.cos(th);
+      tab[offset + 2 * i + 1] = Math.sin(th);
+    }
+  }
+  const durations = sharedF64(durKeys.size);
+  for (const [t, k] of durKeys) durations[k] = t;
+
+  // --- chunks of whole columns
+  const starts: number[] = [0];
+  let maxChunk = 0;
+  for (let c = 1; c <= iso.columns; c++) {
+    const s = iso.colStart[c]!;
+    if (s - starts[starts.length - 1]! >= CHUNK_ISOCHROMATS || c === iso.columns) {
+      if (s > starts[starts.length - 1]!) {
+        maxChunk = Math.max(maxChunk, s - starts[starts.length - 1]!);
+        starts.push(s);
+      }
+    }
+  }
+  const chunkStart = sharedI32(starts.length).subarray(0, starts.length);
+  chunkStart.set(starts);
+  return {
+    ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
+    rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
+    receiverFilter: opts.receiverFilter, maxChunk,
+  };
+}

@@ -1,0 +1,119 @@
+/**
+ * 8-bit greyscale PNG output with an automatic display window, and the
+ * log-magnitude mapping used to show k-space.
+ */
+import { PNG } from "pngjs";
+
+/** Default upper-window percentile of {@link encodeGrayPng}, in percent. */
+export const DEFAULT_WINDOW_PERCENTILE = 99.5;
+
+/** Relative floor of {@link logMagnitude}: |z| is measured in units of this fraction of max|z|. */
+export const LOG_MAGNITUDE_FLOOR = 1e-3;
+
+/**
+ * The p-th percentile (p in percent, 0..100) of the finite values, with
+ * linear interpolation between order statistics: for the sorted finite values
+ * v[0..n−1], h = (n−1)·p/100 and the result is
+ * v[⌊h⌋] + (h − ⌊h⌋)·(v[⌊h⌋+1] − v[⌊h⌋]) (definition 7 of R. J. Hyndman and
+ * Y. Fan, "Sample quantiles in statistical packages", Am. Stat. 50 (1996)
+ * 361–365; NumPy's default). NaN and ±∞ are ignored; NaN if none is left.
+ * O(n log n) on a copy; the input is not modified.
+ * @throws RangeError if p is outside 0..100.
+ */
+export function percentile(values: ArrayLike<number>, p: number): number {
+  if (!(p >= 0 && p <= 100)) throw new RangeError(`percentile must be in 0..100, got ${p}`);
+  const finite = new Float64Array(values.length);
+  let n = 0;
+  for (let i = 0; i < values.length; i++) {
+    const x = values[i];
+    if (Number.isFinite(x)) finite[n++] = x;
+  }
+  if (n === 0) return NaN;
+  const sorted = finite.subarray(0, n).sort();
+  const h = ((n - 1) * p) / 100;
+  const lo = Math.floor(h);
+  if (lo >= n - 1) return sorted[n - 1];
+  return sorted[lo] + (h - lo) * (sorted[lo + 1] - sorted[lo]);
+}
+
+/** Window options of {@link encodeGrayPng}. */
+export interface GrayPngOptions {
+  /** Value shown black; default 0. */
+  low?: number;
+  /** Value shown white; default the `percentile`-th percentile of the values. */
+  high?: number;
+  /** Percentile (percent) that sets `high` when it is not given; default 99.5. */
+  percentile?: number;
+}
+
+/**
+ * Encodes row-major values [height][width] as an 8-bit greyscale PNG
+ * (colour type 0), row 0 at the top, column 0 at the left. Grey level
+ * g = round(255·(v − low)/(high − low)) clamped to 0..255; NaN is black.
+ * low defaults to 0; high defaults to the given percentile (99.5) of the
+ * values, or their maximum if that is not above low; if the maximum is not
+ * above low either (e.g. an all-zero image) the image is black.
+ * Returns the file bytes and the window actually used.
+ */
+export function encodeGrayPng(
+  values: Float64Array,
+  width: number,
+  height: number,
+  opts: GrayPngOptions = {},
+): { png: Uint8Array; low: number; high: number } {
+  if (!Number.isSafeInteger(width) || width < 1 || !Number.isSafeInteger(height) || height < 1) {
+    throw new RangeError(`PNG size must be positive integers, got ${width}×${height}`);
+  }
+  if (values.length !== width * height) {
+    throw new RangeError(`PNG of ${width}×${height} needs ${width * height} values, got ${values.length}`);
+  }
+  const low = opts.low ?? 0;
+  let high = opts.high ?? percentile(values, opts.percentile ?? DEFAULT_WINDOW_PERCENTILE);
+  if (!(high > low)) {
+    let max = -Infinity;
+    for (let i = 0; i < values.length; i++) {
+      const x = values[i];
+      if (Number.isFinite(x) && x > max) max = x;
+    }
+    high = max;
+  }
+  const grey = Buffer.alloc(width * height);
+  if (high > low && Number.isFinite(high) && Number.isFinite(low)) {
+    const gain = 255 / (high - low);
+    for (let i = 0; i < values.length; i++) {
+      const g = Math.round((values[i] - low) * gain);
+      // NaN fails both comparisons and falls through to 0.
+      grey[i] = g >= 255 ? 255 : g > 0 ? g : 0;
+    }
+  }
+  const png = new PNG({ width, height, colorType: 0, inputColorType: 0, inputHasAlpha: false });
+  png.data = grey;
+  const out = PNG.sync.write(png, { colorType: 0, inputColorType: 0, inputHasAlpha: false });
+  return { png: new Uint8Array(out.buffer, out.byteOffset, out.byteLength), low, high };
+}
+
+/**
+ * Log-magnitude for display of k-space:
+ *   out[i] = log10(1 + |z_i| / (1e-3 · max|z|)),
+ * so 0 maps to 0 and the peak to log10(1001) ≈ 3.0: the three decades below
+ * the peak are shown logarithmically, weaker values fade almost linearly to 0.
+ * All zeros give zeros.
+ * @param out optional output array of the same length (returned).
+ */
+export function logMagnitude(re: Float64Array, im: Float64Array, out = new Float64Array(re.length)): Float64Array {
+  const n = re.length;
+  if (im.length !== n || out.length !== n) throw new RangeError("logMagnitude: re, im and out must have equal lengths");
+  let max = 0;
+  for (let i = 0; i < n; i++) {
+    const a = Math.sqrt(re[i] * re[i] + im[i] * im[i]);
+    out[i] = a;
+    if (a > max) max = a;
+  }
+  if (max === 0) {
+    out.fill(0);
+    return out;
+  }
+  const inv = 1 / (LOG_MAGNITUDE_FLOOR * max);
+  for (let i = 0; i < n; i++) out[i] = Math.log10(1 + out[i] * inv);
+  return out;
+}

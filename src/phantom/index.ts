@@ -1,0 +1,19 @@
+/**
+ * phantom/: the public face of the phantom stage. Load and validate phantom
+ * files, the built-in tissue library, compiled shapes and partial-volume cell
+ * contents for the isochromat sampler. All numbers are SI (m, s, Hz, rad).
+ */
+export type { Bounds, FatModel, Phantom, Tissue } from "./types.js";
+export { loadPhantom, parsePhantom, parseJsonText } from "./load.js";
+export {
+  libraryTissue,
+  libraryNames,
+  libraryAbout,
+  isLibraryTissue,
+  LIBRARY_FIELDS,
+  LIBRARY_FIELD_TOLERANCE,
+  type LibraryLookup,
+} from "./tissues.js";
+export { Shape, makeShape, type ShapeSpec, type ShapeType, type Axis } from "./shapes.js";
+export { cellContents, phantomBounds, DEFAULT_SUB, type CellContents } from "./cells.js";
+export { parseB0, compileB0Expression, B0_SYMBOLS, B0_FUNCTIONS, B0_KINDS, type B0Model } from "./b0.js";

@@ -1,0 +1,284 @@
+/**
+ * Reads a protocol file (JSON, every value with units), applies `extend`
+ * (a bundled preset name or a relative path) and `--set key=value`
+ * overrides, validates every key, and returns the normalized Protocol in SI.
+ */
+import { readFileSync, existsSync, readdirSync } from "node:fs";
+import { dirname, resolve, join } from "node:path";
+import { fileURLToPath } from "node:url";
+import { UserError, userError, joinPath, type Origin } from "../errors.js";
+import { quantity, positive, plainNumber, parseUnit, isKind } from "../units.js";
+import { GAMMA_BAR } from "../constants.js";
+import type { Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis } from "./types.js";
+
+/** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
+export function presetsDir(): string {
+  const here = dirname(fileURLToPath(import.meta.url));
+  // compiled: dist/src/protocol → ../../../src/protocol/presets; source: src/protocol/presets
+  const candidates = [join(here, "presets"), resolve(here, "../../../src/protocol/presets")];
+  for (const c of candidates) if (existsSync(c)) return c;
+  return candidates[0]!;
+}
+
+type Json = null | boolean | number | string | Json[] | { [k: string]: Json };
+type Obj = { [k: string]: Json };
+
+/** Reads JSON with a one-line error naming the file and position. */
+export function readJsonFile(file: string): Json {
+  let text: string;
+  try {
+    text = readFileSync(file, "utf8");
+  } catch {
+    throw new UserError(`cannot read file (does it exist?)`, file);
+  }
+  try {
+    return JSON.parse(text) as Json;
+  } catch (e) {
+    throw new UserError(`malformed JSON: ${(e as Error).message}`, file);
+  }
+}
+
+function isObj(v: Json | undefined): v is Obj {
+  return typeof v === "object" && v !== null && !Array.isArray(v);
+}
+
+function deepMerge(base: Obj, over: Obj): Obj {
+  const out: Obj = { ...base };
+  for (const [k, v] of Object.entries(over)) {
+    const b = out[k];
+    out[k] = isObj(b) && isObj(v) ? deepMerge(b, v) : v;
+  }
+  return out;
+}
+
+/** Resolves the `extend` chain of a protocol file into one merged object. */
+function loadWithExtends(file: string, seen: Set<string> = new Set()): Obj {
+  const json = readJsonFile(file);
+  if (!isObj(json)) throw new UserError("a protocol file must hold a JSON object", file);
+  const ext = json["extend"];
+  if (ext === undefined) return json;
+  if (typeof ext !== "string") throw new UserError(`must name a preset or a file, got ${JSON.stringify(ext)}`, file, "extend");
+  const target = resolvePresetOrFile(ext, dirname(file));
+  if (!target) {
+    throw new UserError(`no preset or file named ${JSON.stringify(ext)}; presets: ${listPresets().join(", ")}`, file, "extend");
+  }
+  if (seen.has(target)) throw new UserError(`extends itself through ${target}`, file, "extend");
+  seen.add(target);
+  const base = loadWithExtends(target, seen);
+  const { extend: _drop, ...rest } = json;
+  return deepMerge(base, rest);
+}
+
+/** Names of the bundled presets. */
+export function listPresets(): string[] {
+  try {
+    return readdirSync(presetsDir())
+      .filter((f) => f.endsWith(".json"))
+      .map((f) => f.replace(/\.json$/, ""))
+      .sort();
+  } catch {
+    return [];
+  }
+}
+
+/** A preset name (e.g. "gre-t1-3t") or a path; returns an absolute path or null. */
+export function resolvePresetOrFile(name: string, relativeTo: string): string | null {
+  const asPath = resolve(relativeTo, name);
+  if (existsSync(asPath)) return asPath;
+  const preset = join(presetsDir(), name.endsWith(".json") ? name : `${name}.json`);
+  if (existsSync(preset)) return preset;
+  return null;
+}
+
+/** Applies one `key.path=value` override; the value is JSON if it parses, else a string. */
+function applySet(obj: Obj, assignment: string): Obj {
+  const eq = assignment.indexOf("=");
+  if (eq <= 0) throw new UserError(`--set expects key=value (e.g. fov.phase="16 cm"), got ${JSON.stringify(assignment)}`);
+  const path = assignment.slice(0, eq).trim().split(".");
+  const raw = assignment.slice(eq + 1).trim();
+  let value: Json;
+  try {
+    value = JSON.parse(raw) as Json;
+  } catch {
+    value = raw.replace(/^["']|["']$/g, "");
+  }
+  const out = deepMerge(obj, {});
+  let cur: Obj = out;
+  for (let i = 0; i < path.length - 1; i++) {
+    const k = path[i]!;
+    const next = cur[k];
+    cur[k] = isObj(next) ? deepMerge(next, {}) : {};
+    cur = cur[k] as Obj;
+  }
+  cur[path[path.length - 1]!] = value;
+  return out;
+}
+
+const TOP_KEYS = [
+  "extend", "name", "description", "sequence", "field", "fov", "matrix", "slice", "phaseDirection",
+  "bandwidth", "te", "tr", "flip", "refocusFlip", "oversampling", "receiverFilter", "hardware",
+  "excitation", "refocusing", "spoiling", "rfSpoilIncrement", "dummyScans", "phaseOrder", "averages",
+  "crusherCycles", "spoilerCycles",
+] as const;
+
+function checkKeys(obj: Obj, allowed: readonly string[], origin: Origin): void {
+  for (const k of Object.keys(obj)) {
+    if (!allowed.includes(k)) {
+      throw userError({ file: origin.file, path: joinPath(origin.path, k) }, `unknown key; allowed here: ${allowed.join(", ")}`);
+    }
+  }
+}
+
+function sub(obj: Obj, key: string, origin: Origin, required = true): Obj | undefined {
+  const v = obj[key];
+  const o = { file: origin.file, path: joinPath(origin.path, key) };
+  if (v === undefined) {
+    if (required) throw userError(o, "is required");
+    return undefined;
+  }
+  if (!isObj(v)) throw userError(o, `must be an object, got ${JSON.stringify(v)}`);
+  return v;
+}
+
+function oneOf<T extends string>(v: Json | undefined, allowed: readonly T[], origin: Origin, dflt?: T): T {
+  if (v === undefined) {
+    if (dflt !== undefined) return dflt;
+    throw userError(origin, `is required; one of ${allowed.join(", ")}`);
+  }
+  if (typeof v !== "string" || !allowed.includes(v as T)) {
+    throw userError(origin, `must be one of ${allowed.join(", ")}, got ${JSON.stringify(v)}`);
+  }
+  return v as T;
+}
+
+/** Fat–water shift used to convert a bandwidth given as a fat shift in pixels: main methylene peak,
+ *  −3.4 ppm relative to water (Hamilton et al. 2011, NMR Biomed 24:784). */
+export const FAT_SHIFT_PPM_FOR_BANDWIDTH = 3.4;
+
+/**
+ * Reads the bandwidth in any of four conventions and returns Hz per pixel:
+ * "250 Hz/px" (per pixel), "64 kHz" (total, = N_read·BW_px), "±32 kHz" (half of the total),
+ * "1.4 px" (target fat–water shift in pixels at the protocol's field).
+ */
+export function parseBandwidth(raw: Json | undefined, nRead: number, fieldT: number, origin: Origin): number {
+  if (typeof raw !== "string") {
+    throw userError(origin, `expected a bandwidth string like "250 Hz/px", "64 kHz", "±32 kHz" or "1.4 px"`);
+  }
+  let s = raw.trim();
+  let half = false;
+  if (s.startsWith("±") || s.startsWith("+-") || s.startsWith("+/-")) {
+    half = true;
+    s = s.replace(/^(±|\+-|\+\/-)\s*/, "");
+  }
+  const u = parseUnit(s, origin);
+  let bwPx: number;
+  if (isKind(u, "pixelBandwidth")) bwPx = u.toNumber("Hz/px");
+  else if (isKind(u, "frequency")) bwPx = (u.toNumber("Hz") * (half ? 2 : 1)) / nRead;
+  else if (isKind(u, "pixels")) {
+    const px = u.toNumber("px");
+    if (!(px > 0)) throw userError(origin, `a fat shift must be greater than 0 px, got ${raw}`);
+    bwPx = (FAT_SHIFT_PPM_FOR_BANDWIDTH * 1e-6 * GAMMA_BAR * fieldT) / px;
+  } else {
+    throw userError(origin, `${JSON.stringify(raw)} is not a bandwidth; write "250 Hz/px", "64 kHz", "±32 kHz" or "1.4 px" (fat shift)`);
+  }
+  if (half && !isKind(u, "frequency")) throw userError(origin, `"±" applies only to a total bandwidth in Hz or kHz`);
+  if (!(bwPx > 0) || !Number.isFinite(bwPx)) throw userError(origin, `bandwidth must be greater than zero, got ${raw}`);
+  return bwPx;
+}
+
+function pulse(obj: Obj | undefined, origin: Origin, dflt: PulseSpec): PulseSpec {
+  if (!obj) return dflt;
+  checkKeys(obj, ["shape", "duration", "tbw", "steps"], origin);
+  const at = (k: string) => ({ file: origin.file, path: joinPath(origin.path, k) });
+  return {
+    shape: oneOf(obj["shape"], ["sinc", "hard"] as const, at("shape"), dflt.shape),
+    duration: obj["duration"] === undefined ? dflt.duration : positive(obj["duration"], "time", at("duration")),
+    tbw: obj["tbw"] === undefined ? dflt.tbw : plainNumber(obj["tbw"], at("tbw"), { min: 1, max: 20 }),
+    steps: obj["steps"] === undefined ? dflt.steps : plainNumber(obj["steps"], at("steps"), { min: 1, max: 100000, integer: true }),
+  };
+}
+
+/**
+ * Loads, merges and validates a protocol. `file` may be a path or a preset name.
+ * Throws UserError naming the file and key path on any bad value.
+ */
+export function loadProtocol(file: string, sets: string[] = []): Protocol {
+  const path = resolvePresetOrFile(file, process.cwd());
+  if (!path) throw new UserError(`no protocol file or preset named ${JSON.stringify(file)}; presets: ${listPresets().join(", ")}`);
+  let obj = loadWithExtends(path);
+  for (const s of sets) obj = applySet(obj, s);
+  return parseProtocolObject(obj, path);
+}
+
+export function parseProtocolObject(obj: Obj, file: string): Protocol {
+  const root: Origin = { file, path: "" };
+  const at = (p: string) => ({ file, path: p });
+  checkKeys(obj, TOP_KEYS, root);
+
+  const sequence = oneOf<SequenceKind>(obj["sequence"], ["gre", "se"], at("sequence"));
+  const field = positive(obj["field"], "field", at("field"));
+  const fovO = sub(obj, "fov", root)!;
+  checkKeys(fovO, ["read", "phase"], at("fov"));
+  const fovRead = positive(fovO["read"], "length", at("fov.read"));
+  const fovPhase = fovO["phase"] === undefined ? fovRead : positive(fovO["phase"], "length", at("fov.phase"));
+  const matO = sub(obj, "matrix", root)!;
+  checkKeys(matO, ["read", "phase"], at("matrix"));
+  const nRead = plainNumber(matO["read"], at("matrix.read"), { min: 1, max: 4096, integer: true });
+  const nPhase = matO["phase"] === undefined ? nRead : plainNumber(matO["phase"], at("matrix.phase"), { min: 1, max: 4096, integer: true });
+
+  const slO = sub(obj, "slice", root)!;
+  checkKeys(slO, ["thickness", "position", "orientation"], at("slice"));
+  const thickness = positive(slO["thickness"], "length", at("slice.thickness"));
+  const position = slO["position"] === undefined ? 0 : quantity(slO["position"], "length", at("slice.position"));
+  const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), "axial");
+  const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
+  const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
+  const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
+
+  const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
+  const te = positive(obj["te"], "time", at("te"));
+  const tr = positive(obj["tr"], "time", at("tr"));
+  const flip = obj["flip"] === undefined ? (sequence === "se" ? Math.PI / 2 : (20 * Math.PI) / 180) : positive(obj["flip"], "angle", at("flip"));
+  const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : positive(obj["refocusFlip"], "angle", at("refocusFlip"));
+
+  const osO = sub(obj, "oversampling", root, false) ?? {};
+  checkKeys(osO, ["read", "phase"], at("oversampling"));
+  const osRead = osO["read"] === undefined ? 2 : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
+  const osPhase = osO["phase"] === undefined ? 0 : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
+  if (!Number.isInteger(osRead * nRead)) throw userError(at("oversampling.read"), `read oversampling × matrix.read must be a whole number of samples`);
+
+  const receiverFilter = obj["receiverFilter"] === undefined ? true : obj["receiverFilter"];
+  if (typeof receiverFilter !== "boolean") throw userError(at("receiverFilter"), "must be true or false");
+
+  const hwO = sub(obj, "hardware", root, false) ?? {};
+  checkKeys(hwO, ["gmax", "slew"], at("hardware"));
+  const gmax = hwO["gmax"] === undefined ? 0.04 : positive(hwO["gmax"], "gradient", at("hardware.gmax"));
+  const slew = hwO["slew"] === undefined ? 150 : positive(hwO["slew"], "slew", at("hardware.slew"));
+
+  const excitation = pulse(sub(obj, "excitation", root, false), at("excitation"), { shape: "sinc", duration: 2e-3, tbw: 4, steps: 200 });
+  const refocusing = pulse(sub(obj, "refocusing", root, false), at("refocusing"), { shape: "sinc", duration: 3e-3, tbw: 4, steps: 200 });
+
+  const spoiling = oneOf(obj["spoiling"], ["ideal", "rf", "none"] as const, at("spoiling"), "ideal");
+  const rfSpoilIncrement = obj["rfSpoilIncrement"] === undefined ? (117 * Math.PI) / 180 : quantity(obj["rfSpoilIncrement"], "angle", at("rfSpoilIncrement"));
+  const dummyScans = obj["dummyScans"] === undefined ? 0 : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
+  const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), "linear");
+  const averages = obj["averages"] === undefined ? 1 : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
+  const crusherCycles = obj["crusherCycles"] === undefined ? 4 : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
+  const spoilerCycles = obj["spoilerCycles"] === undefined ? 4 : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
+
+  return {
+    sequence, field,
+    fov: { read: fovRead, phase: fovPhase },
+    matrix: { read: nRead, phase: nPhase },
+    slice: { thickness, position, orientation },
+    phaseDirection, pixelBandwidth,
+    bandwidthAsGiven: String(obj["bandwidth"] ?? "250 Hz/px"),
+    te, tr, flip, refocusFlip,
+    oversampling: { read: osRead, phase: osPhase },
+    receiverFilter,
+    hardware: { gmax, slew },
+    excitation, refocusing, spoiling, rfSpoilIncrement, dummyScans, phaseOrder, averages,
+    crusherCycles, spoilerCycles,
+  };
+}
+

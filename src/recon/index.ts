@@ -1,0 +1,14 @@
+/** Public face of the recon stage. */
+export {
+  FFTPlan,
+  getPlan,
+  centreIndex,
+  centredLine,
+  fftc1,
+  ifftc1,
+  fft2c,
+  ifft2c,
+  fft3c,
+  ifft3c,
+} from "./fft.js";
+export type { FFTSign } from "./fft.js";

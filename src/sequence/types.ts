@@ -1,0 +1,69 @@
+/**
+ * The Block model. A Sequence is the whole scan flattened into blocks in time
+ * order. Gradients are on the logical axes [read, phase, slice] (T/m; areas in
+ * T·s/m); the protocol's geometry maps them to physical x, y, z.
+ *
+ * Between RF pulses every gradient only rotates spins about z, so a `free`
+ * block needs only its duration and its gradient area (zeroth moment):
+ * precession and relaxation over it are exact in one step.
+ */
+
+export type Vec3 = [number, number, number];
+
+/** A sampled RF pulse with the gradient played during it. */
+export interface RFWaveform {
+  /** Index of this waveform in Sequence.pulses. */
+  id: number;
+  name: string;
+  /** Step length (s); sample s is the field over [s·dt, (s+1)·dt). */
+  dt: number;
+  /** B1 in the rotating frame (T), real and imaginary parts, one value per step. */
+  b1re: Float64Array;
+  b1im: Float64Array;
+  /** Total duration (s) = steps · dt. */
+  duration: number;
+  /** Gradient on the logical slice axis during the pulse (T/m). */
+  gradient: number;
+  /** Nominal flip angle on resonance (rad). */
+  flip: number;
+  /** Time of the pulse's effective centre from its start (s). */
+  centre: number;
+}
+
+export type Block =
+  /** RF pulse `pulse`, played with an extra phase (rad) added to B1. */
+  | { kind: "rf"; pulse: number; phase: number }
+  /** Gradient-only interval: duration (s) and area per logical axis (T·s/m). */
+  | { kind: "free"; duration: number; area: Vec3 }
+  /**
+   * Readout of `samples` points, the first at the block start, spaced `dwell`
+   * (s), under the constant gradient `grad` (T/m). Samples go to k-space row
+   * `row`, multiplied by weight·exp(−i·phase) (receiver phase).
+   * The block lasts samples·dwell.
+   */
+  | { kind: "adc"; samples: number; dwell: number; grad: Vec3; row: number; phase: number; weight: number }
+  /** Ideal spoiling: transverse magnetization is set to zero. */
+  | { kind: "spoil" };
+
+/** A quantity for the report: SI value, display unit and a short meaning. */
+export interface Derived {
+  value: number | string;
+  unit: string;
+  note?: string;
+}
+
+export interface Sequence {
+  name: string;
+  pulses: RFWaveform[];
+  blocks: Block[];
+  /** Acquired k-space grid: rows = partitions × phase lines, each `read` samples. */
+  kspace: { partitions: number; phase: number; read: number };
+  /** Reconstructed matrix after oversampling removal. */
+  image: { partitions: number; phase: number; read: number };
+  /** Index of the read sample at k = 0 and of the phase line at k = 0. */
+  centre: { read: number; phase: number };
+  /** Minimum TE and TR the waveforms allow (s), and the TE/TR played. */
+  timing: { teMin: number; trMin: number; te: number; tr: number; scanTime: number };
+  /** Derived quantities for the report and `isofold protocol`. */
+  derived: Record<string, Derived>;
+}
