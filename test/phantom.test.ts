@@ -351,30 +351,42 @@ describe("cellContents", () => {
       for (let f = 0.03; f < 1; f += 0.07) {
         const cx = (f - 0.5) * d; // the cell [cx − d/2, cx + d/2] has a fraction f at x ≥ 0
         const n = cellContents(ph, cx, 0.01, 0, [d, 0, 0], [0, d, 0], [0, 0, 5 * MM], o, sub);
-        expect(n).toBe(1);
-        expect(o.tissue[0]).toBe(0);
-        expect(Math.abs(o.fraction[0]! - f)).toBeLessThanOrEqual(1 / (sub * sub));
+        expect(n).toBeLessThanOrEqual(1);
+        const got = n === 0 ? 0 : o.fraction[0]!;
+        if (n === 1) expect(o.tissue[0]).toBe(0);
+        expect(Math.abs(got - f)).toBeLessThanOrEqual(1 / (sub * sub));
       }
     }
   });
 
-  test("cellContents at an edge tilted 17° matches the exact clipped area within 1/sub²", () => {
-    const theta = (17 * Math.PI) / 180;
-    const ph = edgePhantom(17);
-    // The tilted left edge passes through the rectangle's rotated corner region; use the edge through the centre's
-    // left side: points p with n·(p − c) ≥ −0.05, n = (cos θ, sin θ), c = (0.05, 0).
-    const nx = Math.cos(theta), ny = Math.sin(theta);
-    const cLine = nx * 0.05 - 0.05;
+  test("cellContents at oblique edges (3°…80°) is unbiased and converges: mean error < 0.002, RMS ≤ 1/sub², max ≤ 0.6/sub against the exact clipped area", () => {
     const d = 1 * MM;
     const o = out();
-    for (const sub of [4, 8]) {
-      for (let s = -0.7; s <= 0.7; s += 0.1) {
-        // cell centre on the line's normal through a point of the edge near (x≈0, y=0.01)
-        const px = (cLine - ny * 0.01) / nx + s * d, py = 0.01;
-        const exact = squareAreaInHalfPlane(px - d / 2, py - d / 2, d, nx, ny, cLine) / (d * d);
-        const n = cellContents(ph, px, py, 0, [d, 0, 0], [0, d, 0], [0, 0, 5 * MM], o, sub);
-        const got = n === 0 ? 0 : o.fraction[0]!;
-        expect(Math.abs(got - exact)).toBeLessThanOrEqual(1 / (sub * sub));
+    for (const deg of [3, 17, 31, 45, 62, 80]) {
+      const theta = (deg * Math.PI) / 180;
+      const ph = edgePhantom(deg);
+      // The rectangle's left edge: n·p ≥ cLine with n = (cos θ, sin θ) (centre (5 cm, 0), half width 5 cm).
+      const nx = Math.cos(theta), ny = Math.sin(theta);
+      const cLine = nx * 0.05 - 0.05;
+      const reach = 0.5 * (nx + ny) * d; // the edge crosses the cell while |offset| < reach
+      for (const sub of [4, 8]) {
+        let sum = 0, sq = 0, max = 0;
+        const m = 400;
+        for (let q = 0; q < m; q++) {
+          const s = -reach + ((q + 0.5) / m) * 2 * reach;
+          // cell centre at signed distance s from the edge, beside the edge point 1 cm from the edge's middle
+          const ex = 0.05 - 0.05 * nx - 0.01 * ny, ey = -0.05 * ny + 0.01 * nx;
+          const px = ex + s * nx, py = ey + s * ny;
+          const exact = squareAreaInHalfPlane(px - d / 2, py - d / 2, d, nx, ny, cLine) / (d * d);
+          const n = cellContents(ph, px, py, 0, [d, 0, 0], [0, d, 0], [0, 0, 5 * MM], o, sub);
+          const err = (n === 0 ? 0 : o.fraction[0]!) - exact;
+          sum += err;
+          sq += err * err;
+          max = Math.max(max, Math.abs(err));
+        }
+        expect(Math.abs(sum / m)).toBeLessThan(0.002);
+        expect(Math.sqrt(sq / m)).toBeLessThanOrEqual(1 / (sub * sub));
+        expect(max).toBeLessThanOrEqual(0.6 / sub);
       }
     }
   });

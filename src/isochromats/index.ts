@@ -197,6 +197,7 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
   const e2 = [axes.phase[0] * dv, axes.phase[1] * dv, axes.phase[2] * dv];
   const e3 = [axes.slice[0] * dw, axes.slice[1] * dw, axes.slice[2] * dw];
   const r = [0, 0, 0];
+  const col: { c: number; ti: number; q: number; m0: number; b0: number; x: number; y: number; z: number }[] = [];
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
 
   for (let a = 0; a < nu; a++) {
@@ -204,6 +205,7 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
     for (let b = 0; b < nv; b++) {
       const v = vGrid[b]!;
       let cachedCount = -1;
+      col.length = 0;
       for (let c = 0; c < nw; c++) {
         const w = wGrid[c]!;
         r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
@@ -219,17 +221,24 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
         const b0 = ph.b0 ? ph.b0(r[0]!, r[1]!, r[2]!) : 0;
         for (let k = 0; k < n; k++) {
           const ti = cell.tissue[k]!;
-          const t = ph.tissues[ti]!;
           const pk = peaks[ti]!;
           for (let q = 0; q < pk.df.length; q++) {
-            const m0 = t.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
+            const m0 = ph.tissues[ti]!.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
             if (m0 === 0) continue;
-            G.iu.push(a); G.iv.push(b); G.iw.push(c);
-            G.x.push(r[0]!); G.y.push(r[1]!); G.z.push(r[2]!);
-            G.m0.push(m0); G.r1.push(inv(t.t1)); G.r2.push(inv(t.t2)); G.df.push(b0 + pk.df[q]!);
-            G.tissue.push(ti); G.peak.push(pk.peak[q]!);
+            col.push({ c, ti, q, m0, b0, x: r[0]!, y: r[1]!, z: r[2]! });
           }
         }
+      }
+      // Order a column by (tissue, peak, w) so that isochromats with identical
+      // readout factors are contiguous and the engine can sum them before the readout.
+      col.sort((p, q) => p.ti - q.ti || p.q - q.q || p.b0 - q.b0 || p.c - q.c);
+      for (const e of col) {
+        const t = ph.tissues[e.ti]!;
+        const pk = peaks[e.ti]!;
+        G.iu.push(a); G.iv.push(b); G.iw.push(e.c);
+        G.x.push(e.x); G.y.push(e.y); G.z.push(e.z);
+        G.m0.push(e.m0); G.r1.push(inv(t.t1)); G.r2.push(inv(t.t2)); G.df.push(e.b0 + pk.df[e.q]!);
+        G.tissue.push(e.ti); G.peak.push(pk.peak[e.q]!);
       }
       if (G.m0.length > colStart[colStart.length - 1]!) colStart.push(G.m0.length);
     }
