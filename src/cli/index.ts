@@ -3,54 +3,11 @@
  * isofold command line. Commands wire the stages; no physics lives here.
  * User errors print one line and exit 2; nothing is written.
  */
-import { Command, InvalidArgumentError, Option } from "commander";
-import { existsSync } from "node:fs";
-import { dirname, join, resolve } from "node:path";
-import { fileURLToPath } from "node:url";
+import { Command } from "commander";
+import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
-import { run, version, defaultIsochromatOptions, SAFETY_NOTE } from "./pipeline.js";
-
-function intArg(name: string, min: number, max: number) {
-  return (v: string): number => {
-    const n = Number(v);
-    if (!Number.isInteger(n) || n < min || n > max) throw new InvalidArgumentError(`${name} must be a whole number from ${min} to ${max}`);
-    return n;
-  };
-}
-function numArg(name: string, min: number, max: number) {
-  return (v: string): number => {
-    const n = Number(v);
-    if (!Number.isFinite(n) || n < min || n > max) throw new InvalidArgumentError(`${name} must be a number from ${min} to ${max}`);
-    return n;
-  };
-}
-function collect(v: string, prev: string[]): string[] {
-  return [...prev, v];
-}
-
-/** Repository root (holds phantoms/), from the compiled file's place: dist/src/cli → ../../.. */
-export function repoRoot(): string {
-  const here = dirname(fileURLToPath(import.meta.url));
-  for (const up of ["../../..", "../.."]) {
-    const r = resolve(here, up);
-    if (existsSync(join(r, "phantoms"))) return r;
-  }
-  return resolve(here, "../../..");
-}
-
-function isoOptions(o: { density: number; sliceIsochromats: number; sliceExtent: number; fatModel: "single" | "multi" }) {
-  return { ...defaultIsochromatOptions(), density: o.density, sliceCount: o.sliceIsochromats, sliceExtent: o.sliceExtent, fatModel: o.fatModel };
-}
-
-function addSimulationOptions(c: Command): Command {
-  return c
-    .option("--seed <n>", "seed for every random choice (noise, perturbations); integer", intArg("--seed", 0, 2 ** 31 - 1), 1)
-    .option("--density <n>", "isochromats per voxel along each in-plane axis (read, phase); 1–16", intArg("--density", 1, 16), 2)
-    .option("--slice-isochromats <n>", "isochromats through the slice profile; 1–4096", intArg("--slice-isochromats", 1, 4096), 12)
-    .option("--slice-extent <k>", "span of the through-slice isochromats, in slice thicknesses (covers the profile's skirts); 0.1–20", numArg("--slice-extent", 0.1, 20), 3)
-    .addOption(new Option("--fat-model <model>", "fat spectrum: single (−3.4 ppm peak) or multi (six-peak)").choices(["single", "multi"]).default("multi"))
-    .option("-q, --quiet", "no progress line on stderr");
-}
+import { run, version, SAFETY_NOTE } from "./pipeline.js";
+import { addSimulationOptions, collect, isoOptions, repoRoot } from "./options.js";
 
 const program = new Command();
 program

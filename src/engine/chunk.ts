@@ -26,6 +26,8 @@ export class ChunkScratch {
   mr: Float64Array; mi: Float64Array; mz: Float64Array;
   d: Float64Array[]; e1: Float64Array[];
   zr: Float64Array; zi: Float64Array; ar: Float64Array; ai: Float64Array; h: Float64Array;
+  /** Per-coil group sums when there are several coils: [coil][group]. */
+  czr: Float64Array; czi: Float64Array;
   groupStart: Int32Array;
   sr: Float64Array; si: Float64Array;
   constructor(plan: EnginePlan) {
@@ -39,11 +41,13 @@ export class ChunkScratch {
     this.zr = new Float64Array(n); this.zi = new Float64Array(n);
     this.ar = new Float64Array(n); this.ai = new Float64Array(n); this.h = new Float64Array(n);
     this.groupStart = new Int32Array(n + 1);
+    this.czr = new Float64Array(plan.sens ? plan.coils * n : 0);
+    this.czi = new Float64Array(plan.sens ? plan.coils * n : 0);
     this.sr = new Float64Array(plan.read); this.si = new Float64Array(plan.read);
   }
 }
 
-/** Runs chunk `c`; adds its signal into outRe/outIm (rows × read, row-major). */
+/** Runs chunk `c`; adds its signal into outRe/outIm ([coil][row][read], row-major). */
 export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe: Float64Array, outIm: Float64Array, s: ChunkScratch): void {
   const i0 = plan.chunkStart[c]!, i1 = plan.chunkStart[c + 1]!, n = i1 - i0;
   const { mr, mi, mz, zr, zi, ar, ai, h, sr, si, groupStart } = s;
@@ -93,17 +97,33 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
       case "adc": {
         if (groupsByW !== (op.byW ? 1 : 0)) makeGroups(op.byW);
         const dstep = s.d[op.stepDur]!;
+        const sens = plan.sens, coils = plan.coils, count = iso.count;
         for (let g = 0; g < groups; g++) {
           const k0 = groupStart[g]!, k1 = groupStart[g + 1]!, i = i0 + k0;
-          let xr = 0, xi = 0;
-          for (let k = k0; k < k1; k++) {
-            xr += mr[k]!;
-            xi += mi[k]!;
-          }
           const w = plan.receiverFilter ? receiverFilter(op.fRead * iso.uGrid[iu[i]!]! + df[i]!, op.bwSampled) : 1;
           h[g] = w;
-          zr[g] = xr * w;
-          zi[g] = xi * w;
+          if (sens === null) {
+            let xr = 0, xi = 0;
+            for (let k = k0; k < k1; k++) {
+              xr += mr[k]!;
+              xi += mi[k]!;
+            }
+            zr[g] = xr * w;
+            zi[g] = xi * w;
+          } else {
+            // Each coil sees Σ M·S(r) over the group: exact, the readout factor is shared.
+            for (let q = 0; q < coils; q++) {
+              let xr = 0, xi = 0;
+              const so = 2 * q * count;
+              for (let k = k0; k < k1; k++) {
+                const sr0 = sens[so + 2 * (i0 + k)]!, si0 = sens[so + 2 * (i0 + k) + 1]!;
+                xr += mr[k]! * sr0 - mi[k]! * si0;
+                xi += mr[k]! * si0 + mi[k]! * sr0;
+              }
+              s.czr[q * n + g] = xr * w;
+              s.czi[q * n + g] = xi * w;
+            }
+          }
           // a = U·V·W·D for one dwell
           const ou = op.su + 2 * iu[i]!, ov = op.sv + 2 * iv[i]!, ow = op.sw + 2 * iw[i]!;
           const ur = tab[ou]!, ui = tab[ou + 1]!, vr = tab[ov]!, vi = tab[ov + 1]!, wr = tab[ow]!, wi = tab[ow + 1]!;
@@ -113,14 +133,17 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
           ar[g] = pr * dr - pi * di;
           ai[g] = pr * di + pi * dr;
         }
-        sr.fill(0, 0, op.n);
-        si.fill(0, 0, op.n);
-        readoutRecurrence(sr, si, op.n, zr, zi, ar, ai, groups);
-        const base = op.row * plan.read;
-        for (let j = 0; j < op.n; j++) {
-          const a = sr[j]!, b = si[j]!;
-          outRe[base + j] = outRe[base + j]! + (a * op.cr - b * op.ci);
-          outIm[base + j] = outIm[base + j]! + (a * op.ci + b * op.cr);
+        for (let q = 0; q < coils; q++) {
+          sr.fill(0, 0, op.n);
+          si.fill(0, 0, op.n);
+          if (sens === null) readoutRecurrence(sr, si, op.n, zr, zi, ar, ai, groups);
+          else readoutRecurrence(sr, si, op.n, s.czr.subarray(q * n, q * n + groups), s.czi.subarray(q * n, q * n + groups), ar, ai, groups);
+          const base = (q * plan.rows + op.row) * plan.read;
+          for (let j = 0; j < op.n; j++) {
+            const a = sr[j]!, b = si[j]!;
+            outRe[base + j] = outRe[base + j]! + (a * op.cr - b * op.ci);
+            outIm[base + j] = outIm[base + j]! + (a * op.ci + b * op.cr);
+          }
         }
         applyFree(mr, mi, mz, m0, iu, iv, iw, i0, i1, tab, op.u, op.v, op.w, s.d[op.dur]!, s.e1[op.dur]!);
         break;

@@ -7,13 +7,15 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
-import { makePlan, shareIsochromats, type EnginePlan } from "./plan.js";
+import { makePlan, type EnginePlan } from "./plan.js";
 
 export { makePlan, shareIsochromats, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
 export { runChunk, ChunkScratch, receiverFilter } from "./chunk.js";
 export * from "./kernels.js";
 
 export interface KSpace {
+  /** Layout [coil][row][read]; rows = partitions × phase lines. */
+  coils: number;
   rows: number;
   read: number;
   re: Float64Array;
@@ -22,6 +24,9 @@ export interface KSpace {
 
 export interface SimulateOptions {
   receiverFilter: boolean;
+  /** Receive coils and their sensitivities per isochromat (see EnginePlan.sens); default one uniform coil. */
+  coils?: number;
+  sens?: Float64Array | null;
   /** Called after each chunk with (done, total). */
   onProgress?: (done: number, total: number) => void;
   /** Only these chunks (for sharding); default all. */
@@ -30,8 +35,8 @@ export interface SimulateOptions {
 
 /** Single-threaded reference run: every chunk in order, partial sums added in chunk order. */
 export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: SimulateOptions): { kspace: KSpace; plan: EnginePlan } {
-  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter });
-  const size = plan.rows * plan.read;
+  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens });
+  const size = plan.coils * plan.rows * plan.read;
   const re = new Float64Array(size), im = new Float64Array(size);
   const pr = new Float64Array(size), pi = new Float64Array(size);
   const scratch = new ChunkScratch(plan);
@@ -46,7 +51,6 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
     }
     opts.onProgress?.(k + 1, list.length);
   });
-  return { kspace: { rows: plan.rows, read: plan.read, re, im }, plan };
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan };
 }
 
-void shareIsochromats;

@@ -48,6 +48,13 @@ export interface EnginePlan {
   receiverFilter: boolean;
   /** Largest chunk (isochromats), for scratch sizing. */
   maxChunk: number;
+  /** Receive coils. With coils = 1 and no sensitivities the coil is uniform (sensitivity 1). */
+  coils: number;
+  /**
+   * Complex receive sensitivity of each coil at each isochromat, interleaved
+   * (re, im), index 2·(coil·count + i); null for one uniform coil.
+   */
+  sens: Float64Array | null;
 }
 
 function sharedF64(n: number): Float64Array {
@@ -80,7 +87,15 @@ export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
 }
 
 /** Builds the plan. `onStage` reports slow preparation steps. */
-export function makePlan(seq: Sequence, iso: IsochromatSet, opts: { receiverFilter: boolean }): EnginePlan {
+export function makePlan(
+  seq: Sequence,
+  iso: IsochromatSet,
+  opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
+): EnginePlan {
+  const coils = opts.coils ?? 1;
+  const sens = opts.sens ?? null;
+  if (sens && sens.length !== 2 * coils * iso.count) throw new Error(`sensitivities: expected ${2 * coils * iso.count} numbers, got ${sens.length}`);
+  if (!sens && coils !== 1) throw new Error("more than one coil needs sensitivities");
   const grids = [iso.uGrid, iso.vGrid, iso.wGrid];
   // --- phase tables, deduplicated per (axis, area)
   const tabKeys = new Map<string, number>();
@@ -201,6 +216,6 @@ export function makePlan(seq: Sequence, iso: IsochromatSet, opts: { receiverFilt
   return {
     ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
     rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
-    receiverFilter: opts.receiverFilter, maxChunk,
+    receiverFilter: opts.receiverFilter, maxChunk, coils, sens,
   };
 }

@@ -3,7 +3,7 @@
  * what fractions. This is the hot function of the isochromat sampler.
  */
 import type { Bounds, Phantom } from "./types.js";
-import type { Shape } from "./shapes.js";
+import { CELL_CROSSES_XY, CELL_INSIDE, CELL_OUTSIDE, type Shape } from "./shapes.js";
 
 /** Default number of sub-samples per cell edge. */
 export const DEFAULT_SUB = 4;
@@ -84,11 +84,12 @@ function pattern(n1: number, n2: number, n3: number): Float64Array {
  * and full edge vectors e1, e2, e3 (m); it is the set c + Σ tᵢ·eᵢ, tᵢ ∈ [−½, ½].
  *
  * Fast path: if no shape boundary comes within the cell's half-diagonal of
- * the centre (conservative distance bounds, see Shape.distanceBound), the
- * cell is one tissue with fraction 1, or empty. Otherwise the cell is
- * sub-sampled with about `sub` points per edge (see pattern(); along an edge
- * that has no x–y extent relative to the others, fewer points are used when
- * only 2D shapes cross the cell) and the points are counted. Fractions
+ * the centre (conservative distance bounds, see Shape.classifyCell; prisms
+ * along z are tested in x–y and z separately), the cell is one tissue with
+ * fraction 1, or empty. Otherwise the cell is sub-sampled with about `sub`
+ * points per edge (see pattern(); when every shape crossing the cell is
+ * constant along z within it, an edge with little x–y extent relative to the
+ * others gets fewer points, down to 1) and the points are counted. Fractions
  * converge as `sub` grows; for an edge parallel to a cell face the error is
  * at most 1/(2N), N the number of sub-samples.
  *
@@ -113,7 +114,7 @@ export function cellContents(
   const e2x = e2[0]!, e2y = e2[1]!, e2z = e2[2]!;
   const e3x = e3[0]!, e3y = e3[1]!, e3z = e3[2]!;
 
-  // Half-diagonals: 3D, and of the projection on x–y (for 2D shapes).
+  // Half-diagonals: 3D, and of the projection on x–y; half extent along z.
   let h3sq = 0, hxysq = 0;
   for (let s = 0; s < 4; s++) {
     const s2 = s & 1 ? -1 : 1, s3 = s & 2 ? -1 : 1;
@@ -123,6 +124,7 @@ export function cellContents(
     if (xy + dz * dz > h3sq) h3sq = xy + dz * dz;
   }
   const h3 = 0.5 * Math.sqrt(h3sq), hxy = 0.5 * Math.sqrt(hxysq);
+  const hz = 0.5 * (Math.abs(e1z) + Math.abs(e2z) + Math.abs(e3z));
 
   // Walk from the last painted shape back: stop at a shape that certainly
   // covers the cell (it hides everything painted before it).
@@ -131,13 +133,11 @@ export function cellContents(
   let base = -1;
   let all2D = true;
   for (let k = shapes.length - 1; k >= 0; k--) {
-    const sh = shapes[k]!;
-    const h = sh.is2D ? hxy : h3;
-    const d = sh.distanceBound(cx, cy, cz);
-    if (d >= h) continue;
-    if (d <= -h) { base = k; break; }
+    const c = shapes[k]!.classifyCell(cx, cy, cz, hxy, hz, h3);
+    if (c === CELL_OUTSIDE) continue;
+    if (c === CELL_INSIDE) { base = k; break; }
     candidates[nCand++] = k;
-    if (!sh.is2D) all2D = false;
+    if (c !== CELL_CROSSES_XY) all2D = false;
   }
   const baseTissue = base >= 0 ? shapes[base]!.tissue : -1;
 

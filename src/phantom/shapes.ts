@@ -41,6 +41,12 @@ const ELLIPSOID = 2;
 const SPHERE = 3;
 const BOX = 4;
 const CYLINDER = 5;
+/** Results of Shape.classifyCell(). */
+export const CELL_OUTSIDE = -1;
+export const CELL_INSIDE = 1;
+export const CELL_CROSSES_XY = 0;
+export const CELL_CROSSES = 2;
+
 const CODES: Record<ShapeType, number> = { ellipse: ELLIPSE, rectangle: RECTANGLE, ellipsoid: ELLIPSOID, sphere: SPHERE, box: BOX, cylinder: CYLINDER };
 
 /** A compiled shape. Construct with makeShape(). */
@@ -77,6 +83,13 @@ export class Shape {
   private readonly minAxis: number;
   /** Cylinder: axis 0 = u, 1 = v, 2 = w; radius in a, half length in c. */
   private readonly axis: number;
+  /** Bounding box (m), for a quick reject. */
+  private readonly x0: number;
+  private readonly x1: number;
+  private readonly y0: number;
+  private readonly y1: number;
+  private readonly z0: number;
+  private readonly z1: number;
 
   constructor(spec: ShapeSpec) {
     this.spec = spec;
@@ -107,6 +120,9 @@ export class Shape {
     this.ib2 = 1 / (b * b);
     this.ic2 = Number.isFinite(c) ? 1 / (c * c) : 0;
     this.minAxis = Math.min(a, b, c);
+    const bb = this.bounds();
+    [this.x0, this.y0, this.z0] = bb.min;
+    [this.x1, this.y1, this.z1] = bb.max;
   }
 
   /** True if the point (m) is inside or on the boundary. */
@@ -192,6 +208,37 @@ export class Shape {
     if (d >= h) return -1;
     if (d <= -h) return 1;
     return 0;
+  }
+
+  /**
+   * Classifies a cell around (x, y, z) that lies within hxy (m) of the point
+   * in x–y, within hz (m) along z, and within h3 (m) in 3D:
+   * CELL_OUTSIDE, CELL_INSIDE, CELL_CROSSES_XY (the boundary may cross the
+   * cell but the shape does not change along z inside it) or CELL_CROSSES.
+   * Prisms along z (2D shapes, boxes, z-cylinders) are tested in x–y and
+   * along z separately, which is much sharper than a ball for thin slices.
+   */
+  classifyCell(x: number, y: number, z: number, hxy: number, hz: number, h3: number): number {
+    if (x + hxy < this.x0 || x - hxy > this.x1 || y + hxy < this.y0 || y - hxy > this.y1 || z + hz < this.z0 || z - hz > this.z1) {
+      return CELL_OUTSIDE;
+    }
+    const code = this.code;
+    if (code === ELLIPSE || code === RECTANGLE) {
+      const d = this.distanceBound(x, y, z);
+      return d >= hxy ? CELL_OUTSIDE : d <= -hxy ? CELL_INSIDE : CELL_CROSSES_XY;
+    }
+    if (code === BOX || (code === CYLINDER && this.axis === 2)) {
+      const dx = x - this.cx, dy = y - this.cy;
+      const u = this.cs * dx + this.sn * dy;
+      const v = this.cs * dy - this.sn * dx;
+      const dxy = code === BOX ? boxSdf2(Math.abs(u) - this.a, Math.abs(v) - this.b) : Math.sqrt(u * u + v * v) - this.a;
+      const dz = Math.abs(z - this.cz) - this.c;
+      if (dxy >= hxy || dz >= hz) return CELL_OUTSIDE;
+      if (dz <= -hz) return dxy <= -hxy ? CELL_INSIDE : CELL_CROSSES_XY;
+      return CELL_CROSSES;
+    }
+    const d = this.distanceBound(x, y, z);
+    return d >= h3 ? CELL_OUTSIDE : d <= -h3 ? CELL_INSIDE : CELL_CROSSES;
   }
 
   /** Axis-aligned bounding box (m); z is ±Infinity for 2D shapes. */
