@@ -186,7 +186,7 @@ describe("parsePhantom bad input", () => {
     j.shapes[0].radius = "5";
     const e = userErrorOf(() => parsePhantom(j, "p.json", 3));
     expect(e.keyPath).toBe("shapes[0].radius");
-    expect(e.message).toMatch(/units/);
+    expect(e.message).toMatch(/"5" has no units; write a length .* like "24 cm"/);
   });
 
   test("parsePhantom rejects a number instead of a string with units (5)", () => {
@@ -194,6 +194,7 @@ describe("parsePhantom bad input", () => {
     j.shapes[0].center[1] = 5;
     const e = userErrorOf(() => parsePhantom(j, "p.json", 3));
     expect(e.keyPath).toBe("shapes[0].center[1]");
+    expect(e.message).toMatch(/5 has no units/);
   });
 
   test("parsePhantom rejects wrong units (\"5 kg\" for a radius, \"800 cm\" for t1)", () => {

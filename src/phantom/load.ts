@@ -9,7 +9,7 @@
  */
 import { readFileSync } from "node:fs";
 import { joinPath, userError, type Origin } from "../errors.js";
-import { plainNumber, positive, quantity } from "../units.js";
+import { KINDS, plainNumber, positive as positiveSI, quantity as quantitySI, type QuantityKind } from "../units.js";
 import { parseB0 } from "./b0.js";
 import { makeShape, type Axis, type Shape, type ShapeSpec, type ShapeType } from "./shapes.js";
 import { isLibraryTissue, libraryNames, libraryTissue } from "./tissues.js";
@@ -253,6 +253,25 @@ function probeB0(fn: (x: number, y: number, z: number) => number, shapes: Shape[
 }
 
 // ---- small validators ----
+
+/**
+ * quantity()/positive() of units.ts, with a unit-less value ("5" or 5)
+ * reported with an example of the right kind ("24 cm", not "5 ms").
+ */
+function quantity(raw: unknown, kind: QuantityKind, o: Origin): number {
+  unitless(raw, kind, o);
+  return quantitySI(raw, kind, o);
+}
+
+function positive(raw: unknown, kind: QuantityKind, o: Origin): number {
+  unitless(raw, kind, o);
+  return positiveSI(raw, kind, o);
+}
+
+function unitless(raw: unknown, kind: QuantityKind, o: Origin): void {
+  const bare = typeof raw === "number" || (typeof raw === "string" && raw.trim() !== "" && Number.isFinite(Number(raw)));
+  if (bare) throw userError(o, `${JSON.stringify(raw)} has no units; write a ${kind} as a string with units, like ${KINDS[kind].example}`);
+}
 
 function at(o: Origin, key: string | number): Origin {
   return { ...o, path: joinPath(o.path === "" ? undefined : o.path, key) };

@@ -37,16 +37,18 @@ interface Relax {
   /** s; computed by the rule when absent */ t2star?: number;
 }
 
-interface LibraryEntry {
+type LibraryEntry = {
   /** What the entry stands for. */
   about: string;
   /** Relative proton density 0..1. */
   pd: number;
-  /** 0 water … 1 fat. */
-  fatFraction: number;
   at1_5: Relax;
   at3: Relax;
-}
+} & (
+  | { species: "water" | "fat"; fatFraction?: undefined }
+  /** Mixed tissue: fraction of the proton density that is fat, 0..1. */
+  | { fatFraction: number; species?: undefined }
+);
 
 /**
  * The library. Sources:
@@ -64,7 +66,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   "water-gel": {
     about: "doped water gel of our own for test objects",
     pd: 1.0, // O: essentially water
-    fatFraction: 0,
+    species: "water",
     // O: design values chosen to resemble a paramagnetically doped gel
     // (relaxivity model 1/Ti = 1/Ti,0 + ri·C, Thangavel & Saritas 2017,
     // Turk J Elec Eng Comp Sci 25:2108); not measured.
@@ -74,7 +76,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   oil: {
     about: "vegetable-type oil for test objects (fat spectrum)",
     pd: 0.9, // M
-    fatFraction: 1,
+    species: "fat",
     // M: typical of a vegetable oil at room temperature, from memory; design values.
     at1_5: { t1: 210 * MS, t2: 75 * MS, t2star: 45 * MS }, // M / O
     at3: { t1: 260 * MS, t2: 70 * MS, t2star: 30 * MS }, // M / O
@@ -82,49 +84,49 @@ const LIBRARY: Record<string, LibraryEntry> = {
   fat: {
     about: "subcutaneous adipose tissue",
     pd: 0.9, // M
-    fatFraction: 1,
+    species: "fat",
     at1_5: { t1: 343 * MS, t2: 58 * MS }, // [dB] subcutaneous fat, M; T2* E
     at3: { t1: 382 * MS, t2: 68 * MS }, // [dB] V; T2* E
   },
   muscle: {
     about: "skeletal muscle (paravertebral)",
     pd: 0.8, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 856 * MS, t2: 27 * MS }, // [dB] paravertebral muscle, M; T2* E
     at3: { t1: 898 * MS, t2: 29 * MS }, // [dB] V; T2* E
   },
   liver: {
     about: "healthy liver",
     pd: 0.75, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 586 * MS, t2: 46 * MS, t2star: 34.8 * MS }, // [dB] M; T2* [Ob] V (R2* 28.72 s⁻¹)
     at3: { t1: 809 * MS, t2: 34 * MS }, // [dB] V; T2* E
   },
   spleen: {
     about: "spleen",
     pd: 0.8, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 1057 * MS, t2: 79 * MS }, // [dB] M; T2* E
     at3: { t1: 1328 * MS, t2: 61 * MS }, // [dB] V; T2* E
   },
   kidney: {
     about: "kidney (cortex)",
     pd: 0.85, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 966 * MS, t2: 87 * MS }, // [dB] kidney cortex, M; T2* E
     at3: { t1: 1142 * MS, t2: 76 * MS }, // [dB] V; T2* E
   },
   "white-matter": {
     about: "cerebral white matter",
     pd: 0.7, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 884 * MS, t2: 80 * MS }, // T1 [St] M; T2 [Br] V; T2* E
     at3: { t1: 1084 * MS, t2: 71 * MS }, // T1 [St] M; T2 [Br] V; T2* E
   },
   "grey-matter": {
     about: "cortical grey matter",
     pd: 0.82, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 1124 * MS, t2: 87 * MS, t2star: 84 * MS }, // T1 [St] M; T2 [Br] frontal GM V; T2* [Pe] M
     // T1 in vivo [Wa] M (the in-vitro [St] 1820 ms is high for in vivo); T2 [Br] V; T2* [Pe] M
     at3: { t1: 1331 * MS, t2: 76 * MS, t2star: 66 * MS },
@@ -132,14 +134,14 @@ const LIBRARY: Record<string, LibraryEntry> = {
   csf: {
     about: "cerebrospinal fluid",
     pd: 1.0, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 4300 * MS, t2: 2200 * MS }, // M (about 4.2–4.5 s and 2.1–2.3 s); T2* E
     at3: { t1: 4400 * MS, t2: 2000 * MS }, // M; T2* E
   },
   blood: {
     about: "arterial blood, static (flow is not modelled)",
     pd: 0.85, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 1441 * MS, t2: 290 * MS }, // [St] human blood, M; T2* E
     at3: { t1: 1841 * MS, t2: 275 * MS }, // T1 [Li] adults V; T2 [St] M; T2* E
   },
@@ -155,7 +157,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   cartilage: {
     about: "hyaline (articular) cartilage",
     pd: 0.7, // M
-    fatFraction: 0,
+    species: "water",
     at1_5: { t1: 1024 * MS, t2: 30 * MS }, // T1 [Go]/[St] M; T2 [St] M low confidence; T2* E
     at3: { t1: 1240 * MS, t2: 36.4 * MS }, // T1 [Go] M low confidence; T2 [Pa] V; T2* E
   },
@@ -214,7 +216,7 @@ export function libraryTissue(name: string, fieldT: number): LibraryLookup | nul
     t1: r.t1,
     t2: r.t2,
     t2star: r.t2star ?? t2starRule(r.t2, table),
-    fatFraction: e.fatFraction,
+    fatFraction: e.fatFraction ?? (e.species === "fat" ? 1 : 0),
   };
   const off = Math.abs(fieldT - table) / table;
   const warning =
