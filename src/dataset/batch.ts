@@ -49,7 +49,7 @@ export function parseVary(items: string[]): VarySpec {
   for (const item of items.flatMap((s) => s.split(",")).map((s) => s.trim()).filter((s) => s !== "")) {
     const eq = item.indexOf("=");
     const key = eq < 0 ? item : item.slice(0, eq).trim();
-    const raw = eq < 0 ? "" : item.slice(eq + 1).trim();
+    const raw = eq < 0 ? "" : item.slice(eq + 1).trim().replace(/^["']|["']$/g, "");
     if (!(VARY_KEYS as readonly string[]).includes(key) || raw === "") {
       throw new UserError(`"${item}" is not understood; write key=value with key one of ${VARY_KEYS.join(", ")}, e.g. position="1 cm",rotation="10 deg",size=10%,t1=10%,b0="20 Hz"`, undefined, "--vary");
     }

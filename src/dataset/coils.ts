@@ -79,17 +79,18 @@ export function loopPlacement(a: CoilArray): { centre: [number, number, number];
  * Complete elliptic integrals K(m) and E(m), parameter m = k² in [0, 1), by
  * the arithmetic–geometric mean (Abramowitz & Stegun 17.6.1–17.6.4):
  * K = π/(2·a_N), E = K·(1 − Σ_n 2^{n−1}·c_n²), c_0² = m. Writes [K, E] to out.
+ * For m near 1 (a point next to the wire) more terms are needed; the loop stops at 64.
  */
 export function ellipticKE(m: number, out: Float64Array | number[]): void {
-  let a = 1, b = Math.sqrt(1 - m), sum = 0.5 * m, pow = 1;
-  for (let n = 0; n < 64; n++) {
-    const c = 0.5 * (a - b);
+  // c_{n+1} = c_n²/(4·a_{n+1}) (A&S 17.6.2) instead of (a_n − b_n)/2: no cancellation, and the loop ends
+  let a = 1, b = Math.sqrt(1 - m), c = Math.sqrt(m), sum = 0.5 * m, pow = 1;
+  for (let n = 0; n < 64 && c > 1e-17 * a; n++) {
     const an = 0.5 * (a + b);
+    c = (c * c) / (4 * an);
     b = Math.sqrt(a * b);
     a = an;
     sum += pow * c * c;
     pow *= 2;
-    if (Math.abs(c) <= 1e-17 * a) break;
   }
   const K = Math.PI / (2 * a);
   out[0] = K;
