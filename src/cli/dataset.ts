@@ -222,7 +222,6 @@ export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: n
   };
   if (plan.noiseLines > 0) files["noise.npy"] = "complex64 [coil, line, read]: noise-only samples from the same distribution as the k-space noise (a prescan)";
   const placement = loopPlacement(array);
-  let done = 0;
   const result = runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), (i) => {
     const { seq, iso: set } = prepare({
       phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
@@ -309,10 +308,8 @@ export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: n
     r.files.set("case.json", JSON.stringify(caseJson, null, 2) + "\n");
     return { files: r.files, params };
   }, (i, skipped) => {
-    done++;
     if (!o.quiet && skipped) process.stderr.write(`case ${i + 1}/${plan.count}: files verified, skipped\n`);
   });
-  void done;
   return { ...result, seconds: (Date.now() - t0) / 1000 };
 }
 
@@ -339,7 +336,9 @@ export function registerDataset(program: Command): void {
       .option("--acs <lines>", "fully sampled centre lines along phase; default min(24, phase lines/4) for undersampling masks")
       .option("--partial-fourier <F>", "fraction of phase lines kept, in (0.5, 1]; the first lines are dropped", "1")
       .option("--count <n>", "number of cases", "1")
-      .option("--vary <list>", 'seeded perturbations per case, e.g. position="1 cm",rotation="10 deg",size=10%,t1=10%,t2=10%,pd=5%,b0="20 Hz" (ranges ±; repeatable)', collect, []),
+      .option("--vary <list>", "seeded perturbations per case, ranges ±, drawn uniformly: position (length, whole object in x and y), rotation (angle about z), " +
+        "size (fraction or %, per shape), t1, t2, pd (fraction or %, per tissue), b0 (Hz: offset and linear field up to this at 10 cm); " +
+        "e.g. position=1cm,rotation=10deg,size=10%,t1=10%,b0=20Hz; repeatable", collect, []),
   );
   cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
   cmd.action((phantom: string, o: DatasetCliOptions) => {
