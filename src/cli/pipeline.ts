@@ -6,7 +6,7 @@ import { createRequire } from "node:module";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
-import { loadPhantom } from "../phantom/index.js";
+import { loadPhantom, type Phantom } from "../phantom/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
 import { simulateSerial } from "../engine/index.js";
@@ -39,6 +39,8 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Changes the loaded phantom before it is sampled (dataset perturbations). */
+  phantomTransform?: (ph: Phantom) => Phantom;
 }
 
 export interface RunResult {
@@ -58,7 +60,8 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
     if (e instanceof UserError) throw e.inFile(o.protocol);
     throw e;
   }
-  const phantom = loadPhantom(o.phantom, protocol.field);
+  const loaded = loadPhantom(o.phantom, protocol.field);
+  const phantom = o.phantomTransform ? o.phantomTransform(loaded) : loaded;
   const axes = logicalAxes(protocol);
   const iso = makeIsochromats(
     phantom,
@@ -81,7 +84,7 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
   return { protocol, seq, iso, phantomFile: o.phantom };
 }
 
-function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
+export function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
   const ax = logicalAxes(p);
   const dx = (p.fov.read / p.matrix.read) * 1e3, dy = (p.fov.phase / p.matrix.phase) * 1e3;
   const cr = Math.floor(p.matrix.read / 2), cp = Math.floor(p.matrix.phase / 2);

@@ -1,0 +1,352 @@
+/**
+ * `isofold dataset`: batches of multi-coil raw k-space with their ground
+ * truth for people who test reconstruction code. Wiring only; the physics is
+ * in src/dataset/.
+ */
+import { Command } from "commander";
+import { readFileSync } from "node:fs";
+import { resolve } from "node:path";
+import { UserError } from "../errors.js";
+import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
+import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
+import { buildSequence } from "../sequence/index.js";
+import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
+import { quantity } from "../units.js";
+import {
+  applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
+  loopPlacement, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, Rng, STREAM,
+  type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
+} from "../dataset/index.js";
+import { addSimulationOptions, collect, isoOptions } from "./options.js";
+import { prepare, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
+import { Progress } from "./progress.js";
+
+export interface DatasetCliOptions {
+  protocol: string;
+  set: string[];
+  out: string;
+  coils: string;
+  coilRows: string;
+  loopRadius?: string;
+  arrayRadius?: string;
+  rowSpacing?: string;
+  noiseCorrelation: string;
+  noiseCovariance?: string;
+  snr?: string;
+  noiseLines: string;
+  mask: string;
+  accel?: string;
+  acs?: string;
+  partialFourier: string;
+  count: string;
+  vary: string[];
+  seed: number;
+  density: number;
+  sliceIsochromats: number;
+  sliceExtent: number;
+  fatModel: "single" | "multi";
+  quiet?: boolean;
+}
+
+function int(raw: string, option: string, min: number, max: number): number {
+  const n = Number(raw);
+  if (!Number.isInteger(n) || n < min || n > max) throw new UserError(`expected a whole number from ${min} to ${max}, got "${raw}"`, undefined, option);
+  return n;
+}
+function num(raw: string, option: string, min: number, max: number, what = "a number"): number {
+  const n = Number(raw);
+  if (raw.trim() === "" || !Number.isFinite(n) || n < min || n > max) throw new UserError(`expected ${what} from ${min} to ${max}, got "${raw}"`, undefined, option);
+  return n;
+}
+function length(raw: string, option: string): number {
+  const v = quantity(raw.replace(/^(-?[0-9.eE+]+)([a-zA-Z])/, "$1 $2"), "length", { path: option });
+  if (!(v > 0)) throw new UserError(`must be greater than zero, got "${raw}"`, undefined, option);
+  return v;
+}
+
+/** Largest in-plane distance (m) of the phantom's bounding box from the z axis, along x or y. */
+function halfExtent(ph: Phantom, fallback: number): number {
+  const b = phantomBounds(ph);
+  const v = [b.min[0], b.max[0], b.min[1], b.max[1]].map((x) => (Number.isFinite(x) ? Math.abs(x) : fallback));
+  return Math.max(...v);
+}
+
+/** Worst distance (m) beyond a loop plane of object points in the slice plane (sampled on a 128×128 grid). */
+function sampledMargin(ph: Phantom, protocol: Protocol, array: CoilArray): number {
+  const ax = logicalAxes(protocol);
+  const b = phantomBounds(ph);
+  const clip = 1.5 * Math.max(protocol.fov.read * protocol.oversampling.read, protocol.fov.phase * (1 + protocol.oversampling.phase));
+  const proj = (d: number[]) => {
+    let lo = 0, hi = 0;
+    for (let k = 0; k < 3; k++) {
+      if (d[k] === 0) continue;
+      lo += Math.min(b.min[k]! * d[k]!, b.max[k]! * d[k]!);
+      hi += Math.max(b.min[k]! * d[k]!, b.max[k]! * d[k]!);
+    }
+    return [Math.max(lo, -clip), Math.min(hi, clip)] as const;
+  };
+  const [u0, u1] = proj(ax.read), [v0, v1] = proj(ax.phase);
+  const xs: number[] = [], ys: number[] = [];
+  const n = 128, w = protocol.slice.position;
+  for (let i = 0; i <= n; i++) {
+    for (let j = 0; j <= n; j++) {
+      const u = u0 + ((u1 - u0) * i) / n, v = v0 + ((v1 - v0) * j) / n;
+      const x = ax.read[0] * u + ax.phase[0] * v + ax.slice[0] * w;
+      const y = ax.read[1] * u + ax.phase[1] * v + ax.slice[1] * w;
+      const z = ax.read[2] * u + ax.phase[2] * v + ax.slice[2] * w;
+      if (ph.shapes.some((s) => ph.tissues[s.tissue]!.pd > 0 && s.contains(x, y, z))) {
+        xs.push(x);
+        ys.push(y);
+      }
+    }
+  }
+  return enclosureMargin(array, xs, ys, xs.length);
+}
+
+interface Plan {
+  protocol: Protocol;
+  phantoms: Phantom[];
+  perturbations: Perturbation[];
+  array: CoilArray;
+  psi: CMatrix;
+  psiSource: string;
+  snr: number | null;
+  noiseLines: number;
+  mask: MaskOptions;
+  count: number;
+  vary: VarySpec;
+}
+
+/** Validates every flag and file before any work; throws UserError. */
+export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
+  const protocol = loadProtocol(o.protocol, o.set);
+  let seq;
+  try {
+    seq = buildSequence(protocol);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(o.protocol);
+    throw e;
+  }
+  const phantom = loadPhantom(phantomFile, protocol.field);
+  const count = int(o.count, "--count", 1, 100000);
+  const vary = parseVary(o.vary);
+  // mask
+  if (!(MASK_KINDS as readonly string[]).includes(o.mask)) throw new UserError(`unknown mask "${o.mask}"; use one of ${MASK_KINDS.join(", ")}`, undefined, "--mask");
+  const kind = o.mask as MaskKind;
+  const phaseLines = seq.image.phase;
+  const mask: MaskOptions = {
+    kind,
+    accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration"),
+    acs: o.acs === undefined ? (kind === "full" ? 0 : Math.min(24, Math.floor(phaseLines / 4))) : int(o.acs, "--acs", 0, Number.MAX_SAFE_INTEGER),
+    partialFourier: num(o.partialFourier, "--partial-fourier", 0, 1, "a fraction"),
+  };
+  checkMaskOptions(mask, seq.image.partitions, seq.image.phase);
+  // coils
+  const nCoils = int(o.coils, "--coils", 1, 256);
+  const rows = int(o.coilRows, "--coil-rows", 1, 64);
+  if (nCoils % rows !== 0) throw new UserError(`${nCoils} coils do not split into ${rows} equal rows; give a multiple of ${rows}`, undefined, "--coils");
+  if (nCoils === 1 && (o.loopRadius || o.arrayRadius || o.rowSpacing || rows > 1)) {
+    throw new UserError("coil geometry options need an array of loops; add --coils N with N ≥ 2 (--coils 1 is the uniform body coil)", undefined, "--coils");
+  }
+  const perturbations: Perturbation[] = [];
+  const phantoms: Phantom[] = [];
+  for (let i = 0; i < count; i++) {
+    const p = drawPerturbation(vary, phantom, Rng.stream(o.seed, i, STREAM.perturb));
+    perturbations.push(p);
+    phantoms.push(applyPerturbation(phantom, p));
+  }
+  let array: CoilArray = { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 };
+  if (nCoils > 1) {
+    const elements = nCoils / rows;
+    const h = halfExtent(phantom, protocol.fov.phase) * (1 + vary.size) + Math.SQRT2 * vary.position;
+    const arrayRadius = o.arrayRadius ? length(o.arrayRadius, "--array-radius") : 1.15 * h + 0.01;
+    const loopRadius = o.loopRadius ? length(o.loopRadius, "--loop-radius") : Math.min((Math.PI * arrayRadius) / elements, 0.8 * arrayRadius);
+    const rowSpacing = o.rowSpacing ? length(o.rowSpacing, "--row-spacing") : 1.8 * loopRadius;
+    const ax = logicalAxes(protocol);
+    array = { elements, rows, loopRadius, arrayRadius, rowSpacing, zCentre: ax.slice[2] * protocol.slice.position };
+    phantoms.forEach((ph, i) => {
+      const m = sampledMargin(ph, protocol, array);
+      if (m >= 0) {
+        throw new UserError(
+          `the coil array of radius ${(arrayRadius * 100).toFixed(1)} cm does not enclose the object${count > 1 ? ` of case ${i}` : ""}: ` +
+            `part of it lies ${(m * 100).toFixed(1)} cm beyond a loop; give a larger --array-radius (at least ${((arrayRadius + m) * 100 + 1).toFixed(0)} cm)`,
+          undefined, "--array-radius",
+        );
+      }
+    });
+  }
+  // noise
+  const C = coilCount(array);
+  let psi: CMatrix, psiSource: string;
+  if (o.noiseCovariance !== undefined) {
+    if (o.noiseCorrelation !== "0") throw new UserError("give either --noise-covariance or --noise-correlation, not both", undefined, "--noise-covariance");
+    psi = readCovariance(o.noiseCovariance, C, "--noise-covariance");
+    psiSource = `file ${resolve(o.noiseCovariance)}`;
+    cholesky(psi, "--noise-covariance");
+  } else {
+    const rho = num(o.noiseCorrelation, "--noise-correlation", -1, 1, "a correlation coefficient");
+    psi = neighbourCovariance(array, rho);
+    psiSource = `ones on the diagonal, ${rho} between neighbouring elements (previous/next loop of a row around the ring, same loop of adjacent rows), 0 elsewhere`;
+    cholesky(psi, "--noise-correlation");
+  }
+  const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
+  const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
+  if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
+  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary };
+}
+
+function round(v: number, d = 9): number {
+  return Number(v.toPrecision(d));
+}
+
+/** Runs the batch; returns the made and skipped case numbers. */
+export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: number[]; skipped: number[]; seconds: number } {
+  const t0 = Date.now();
+  const plan = planDataset(phantomFile, o);
+  const { protocol, array } = plan;
+  const iso = isoOptions(o);
+  const axes = logicalAxes(protocol);
+  const C = coilCount(array);
+  const batchKey = sha256(JSON.stringify({
+    version: version(), phantom: sha256(readFileSync(phantomFile)), protocol, iso, array, psi: [Array.from(plan.psi.re), Array.from(plan.psi.im)],
+    snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed,
+  }));
+  const files: Record<string, string> = {
+    "kspace.npy": "complex64 [coil, partition, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
+    "mask.npy": "uint8 [partition, phase]: 1 where the whole readout line was sampled",
+    "sensitivities.npy": "complex64 [coil, partition, phase, read]: receive sensitivities S_c at the image pixel centres",
+    "truth.npy": "complex64 [2, partition, phase, read]: [0] noise-free image with one uniform coil (S = 1); [1] noise-free coil-combined image Σ_c conj(S_c)·I_c / Σ_c |S_c|² of the simulated coil images I_c",
+    "noise_covariance.npy": "complex64 [coil, coil]: covariance E[n·nᴴ] of the noise added to each k-space sample (σ²·Ψ; all zero when noise-free)",
+    "truth.nii": "NIfTI-1 float32 |truth[0]|, x = read, y = phase, z = partition, voxel sizes in mm, RAS+ affine",
+    "case.json": "this file",
+  };
+  if (plan.noiseLines > 0) files["noise.npy"] = "complex64 [coil, line, read]: noise-only samples from the same distribution as the k-space noise (a prescan)";
+  const placement = loopPlacement(array);
+  const result = runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), (i) => {
+    const { seq, iso: set } = prepare({
+      phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
+      phantomTransform: () => plan.phantoms[i]!,
+    });
+    if (array.elements > 0) {
+      const m = enclosureMargin(array, set.x, set.y, set.count);
+      if (m >= 0) throw new UserError(`the coil array does not enclose the object of case ${i}: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger radius`, undefined, "--array-radius");
+    }
+    const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
+    const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
+    const r = buildCase(seq, set, {
+      axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
+      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
+    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter }, i,
+    (d, t) => progress.update(d, t));
+    progress.done();
+    const p = plan.perturbations[i]!;
+    const params = {
+      perturbation: {
+        shiftM: p.shift.map((v) => round(v)), rotationRad: round(p.rotation), sizeFactor: p.sizeFactor.map((v) => round(v)),
+        t1Factor: p.t1Factor.map((v) => round(v)), t2Factor: p.t2Factor.map((v) => round(v)), pdFactor: p.pdFactor.map((v) => round(v)),
+        b0: { f0Hz: round(p.b0.f0), gxHzPerM: round(p.b0.gx), gyHzPerM: round(p.b0.gy) },
+      },
+      coils: C, mask: plan.mask.kind, acceleration: round(r.info.mask.acceleration, 6), snr: plan.snr, sigma: round(r.info.sigma),
+    };
+    const m = r.info.mask;
+    const caseJson = {
+      tool: { name: "isofold", version: version() },
+      safety: SAFETY_NOTE,
+      case: i,
+      seed: o.seed,
+      random: "xoshiro128** seeded by SplitMix64 from (seed, case, purpose); purposes: perturbation 1, mask 2, noise 3, noise-only lines 4",
+      inputs: { phantom: resolve(phantomFile), protocol: o.protocol, set: o.set },
+      files,
+      axes: {
+        order: "C order (last index fastest); dims [coil, partition, phase, read]",
+        physical: { read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice, frame: "RAS+ (x toward the subject's right, y anterior, z superior)" },
+        index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N",
+        imageGrid: { partitions: r.info.dims.partitions, phase: r.info.dims.phase, read: r.info.dims.read },
+        pixelM: { read: round(dx), phase: round(dy), partition: protocol.slice.thickness },
+        acquiredKspace: r.info.kspaceAcquired,
+      },
+      fftConvention: FFT_CONVENTION_TEXT,
+      kspace: "kspace.npy holds the centred forward DFT (no 1/N; recon/fft.ts fft*c) of each simulated coil image on the image grid, so " +
+        "numpy: coil_images = fftshift(ifftn(ifftshift(kspace, axes=(-3,-2,-1)), axes=(-3,-2,-1)), axes=(-3,-2,-1)) gives the coil images exactly, with no cropping; " +
+        "with one partition the partition axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
+        `${r.info.kspaceAcquired.read} read points (read oversampling ${protocol.oversampling.read}); those were transformed to the image, the central ${r.info.dims.read} kept, and transformed back.`,
+      imageScale: "a voxel full of tissue with PD 1, fully relaxed and tipped by 90°, is about 1 in truth[0]",
+      coils: array.elements === 0
+        ? { kind: "uniform", count: 1, sensitivity: "S = 1 everywhere" }
+        : {
+          kind: "circular loops", count: C, loopsPerRow: array.elements, rows: array.rows,
+          loopRadiusM: round(array.loopRadius), arrayRadiusM: round(array.arrayRadius), rowSpacingM: round(array.rowSpacing), zCentreM: round(array.zCentre),
+          loops: placement.map((l, q) => ({ coil: q, centreM: l.centre.map((v) => round(v)), normal: l.normal.map((v) => round(v)) })),
+          placement: "loop j of row r centred at (R·cosφ, R·sinφ, zc + (r − (rows−1)/2)·rowSpacing), φ = 2πj/loopsPerRow, normal radial; coil index = r·loopsPerRow + j",
+          sensitivity: "S_c(r) = (Bx − i·By)(r)/κ, B = Biot–Savart field per unit current of loop c (exact elliptic-integral form); by reciprocity for Mxy = Mx + i·My precessing as exp(−iω0t)",
+          kappa: round(sensitivityScale(array)),
+          normalisation: "κ makes sqrt(Σ_c |S_c|²) = 1 at the array centre (0, 0, zc)",
+          simulation: "each coil's signal is simulated with S_c applied to every isochromat before the readout (not multiplied in afterwards); sensitivities.npy samples S_c at the pixel centres, so truth[1] differs from truth[0] by the sensitivity variation within a voxel and through the slice profile",
+        },
+      noise: {
+        model: "circularly symmetric complex Gaussian, n = σ·L·z per k-space sample, Ψ = L·Lᴴ, z ~ CN(0, I); independent between samples",
+        psi: { source: plan.psiSource, re: Array.from(plan.psi.re), im: Array.from(plan.psi.im), rows: C },
+        snr: plan.snr,
+        snrDefinition: "SNR = A / (σ/√N): A = mean |truth[0]| over pixels with |truth[0]| ≥ 0.1·max|truth[0]|, N = number of image-grid points; σ/√N is the complex standard deviation (sqrt E|ε|²) of a pixel reconstructed from one coil's noise with Ψ_cc = 1 and full sampling",
+        sigma: r.info.sigma,
+        meanSignalA: r.info.meanSignal,
+        objectPixels: r.info.objectPixels,
+        noiseOnlyLines: plan.noiseLines,
+      },
+      mask: {
+        kind: plan.mask.kind, accelerationNominal: plan.mask.accel, acsLines: plan.mask.acs, partialFourier: plan.mask.partialFourier,
+        sampledFraction: m.sampled, acceleration: m.acceleration,
+        ...(m.density ? { density: "p(y) = min(1, λ·(1 − |y − floor(N/2)|/(N/2))²) outside the ACS lines, 1 inside; λ so that Σp = N/R", densityPerLine: Array.from(m.density, (v) => round(v, 6)) } : {}),
+        ...(m.radius !== null ? { poissonRadiusLines: round(m.radius, 6) } : {}),
+        rule: "see src/dataset/masks.ts: uniform keeps lines with (y − floor(N/2)) mod R = 0 plus the ACS lines [floor(N/2) − floor(ACS/2), … + ACS); partial Fourier removes lines y < N − round(F·N)",
+      },
+      phantom: { name: plan.phantoms[i]!.name, perturbation: params.perturbation, vary: plan.vary, b0: plan.phantoms[i]!.b0Description },
+      protocol: { ...protocol, units: "SI: s, m, T, T/m, T/m/s, Hz, rad" },
+      sequence: { name: seq.name, timing: seq.timing },
+      isochromats: { count: set.count, density: iso.density, sliceCount: iso.sliceCount, sliceExtent: iso.sliceExtent, fatModel: iso.fatModel },
+    };
+    r.files.set("case.json", JSON.stringify(caseJson, null, 2) + "\n");
+    return { files: r.files, params };
+  }, (i, skipped) => {
+    if (!o.quiet && skipped) process.stderr.write(`case ${i + 1}/${plan.count}: files verified, skipped\n`);
+  });
+  return { ...result, seconds: (Date.now() - t0) / 1000 };
+}
+
+export function registerDataset(program: Command): void {
+  const cmd = addSimulationOptions(
+    program
+      .command("dataset")
+      .description("write a batch of multi-coil raw k-space cases with their ground truth (truth image, coil sensitivities, noise covariance, sampling mask) for testing reconstruction code")
+      .argument("<phantom>", "phantom file (JSON), e.g. phantoms/torso-slice.json")
+      .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
+      .option("-s, --set <key=value>", "override a protocol value, repeatable", collect, [])
+      .requiredOption("-o, --out <dir>", "output folder: manifest.jsonl and one case-NNNN/ folder per case; an interrupted batch resumes here")
+      .option("--coils <n>", "receive coils: 1 = one uniform body coil; N ≥ 2 = N circular loops on a cylinder around the z axis", "1")
+      .option("--coil-rows <n>", "rows of loops along z (the loops split equally between rows)", "1")
+      .option("--array-radius <length>", 'distance of the loop centres from the z axis, with units, e.g. "20 cm"; default 1.15 × the object half-extent (plus perturbations) + 1 cm')
+      .option("--loop-radius <length>", 'loop radius with units; default min(π·array radius/loops per row, 0.8·array radius)')
+      .option("--row-spacing <length>", "distance between rows along z with units; default 1.8 × loop radius")
+      .option("--noise-correlation <rho>", "noise correlation coefficient between neighbouring loops (plain number, |rho| < 0.5 for a ring)", "0")
+      .option("--noise-covariance <file>", "coil noise covariance Ψ as .npy [coils, coils] or JSON rows (or {re, im}); Hermitian positive definite")
+      .option("--snr <x>", "target SNR (definition in case.json: mean object signal of the uniform-coil image / noise std of one coil's image); default: no noise")
+      .option("--noise-lines <n>", "noise-only readouts per coil written to noise.npy (needs --snr)", "0")
+      .option("--mask <name>", `sampling mask: ${MASK_KINDS.join(", ")}`, "full")
+      .option("--accel <R>", "acceleration (phase lines, or phase-encoding points for poisson, divided by the number sampled); default 4 for undersampling masks")
+      .option("--acs <lines>", "fully sampled centre lines along phase; default min(24, phase lines/4) for undersampling masks")
+      .option("--partial-fourier <F>", "fraction of phase lines kept, in (0.5, 1]; the first lines are dropped", "1")
+      .option("--count <n>", "number of cases", "1")
+      .option("--vary <list>", "seeded perturbations per case, ranges ±, drawn uniformly: position (length, whole object in x and y), rotation (angle about z), " +
+        "size (fraction or %, per shape), t1, t2, pd (fraction or %, per tissue), b0 (Hz: offset and linear field up to this at 10 cm); " +
+        "e.g. position=1cm,rotation=10deg,size=10%,t1=10%,b0=20Hz; repeatable", collect, []),
+  );
+  cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
+  cmd.action((phantom: string, o: DatasetCliOptions) => {
+    const r = runDataset(phantom, o);
+    const made = r.made.length;
+    console.log(
+      `dataset: ${made} case${made === 1 ? "" : "s"} written, ${r.skipped.length} verified and skipped, in ${resolve(o.out)} ` +
+        `(${r.seconds.toFixed(1)} s${made > 0 ? `, ${(r.seconds / made).toFixed(1)} s per written case` : ""}); see manifest.jsonl and ${caseDirName(0)}/case.json`,
+    );
+  });
+}

@@ -1,0 +1,226 @@
+/**
+ * Batches: seeded perturbations of the phantom per case (--vary), the
+ * manifest (manifest.jsonl: one JSON line per case with its parameters and
+ * the sha256 of every file), and resume: a case whose manifest line has the
+ * same batch key and whose files all exist with the listed checksums is
+ * skipped. Every file is written atomically (io/atomic.ts).
+ *
+ * Perturbations, drawn per case from its own stream (prng.ts), each uniform
+ * on the stated range; a range of 0 leaves the value as it is:
+ *   position=L   whole object shifted by (dx, dy), each in [−L, L]
+ *   rotation=A   whole object rotated about the z axis through the origin by θ ∈ [−A, A]
+ *   size=F       each shape's sizes (radius, semi-axes, size, length) × (1 + f), f ∈ [−F, F], one f per shape
+ *   t1=F, t2=F, pd=F   each tissue's T1, T2 (T2* with it), PD × (1 + f), f ∈ [−F, F] per tissue;
+ *                T2 is then capped at 2·T1 and T2* at T2
+ *   b0=H         adds f0 + gx·x + gy·y (Hz, x and y in m) to the B0 map, with f0, gx·0.1 m and gy·0.1 m each in [−H, H]
+ */
+import { createHash } from "node:crypto";
+import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync } from "node:fs";
+import { join } from "node:path";
+import { UserError } from "../errors.js";
+import { writeFileAtomic, OutputStage } from "../io/atomic.js";
+import { makeShape, type Phantom, type Shape, type ShapeSpec } from "../phantom/index.js";
+import { quantity } from "../units.js";
+import type { Rng } from "./prng.js";
+
+export interface VarySpec {
+  /** m */ position: number;
+  /** rad */ rotation: number;
+  /** fractions */ size: number; t1: number; t2: number; pd: number;
+  /** Hz */ b0: number;
+}
+
+export const VARY_KEYS = ["position", "rotation", "size", "t1", "t2", "pd", "b0"] as const;
+
+export function noVary(): VarySpec {
+  return { position: 0, rotation: 0, size: 0, t1: 0, t2: 0, pd: 0, b0: 0 };
+}
+
+function fraction(raw: string, key: string): number {
+  const m = /^\s*([0-9.eE+-]+)\s*(%?)\s*$/.exec(raw);
+  const v = m ? Number(m[1]) / (m[2] ? 100 : 1) : NaN;
+  if (!Number.isFinite(v) || v < 0 || v >= 1) throw new UserError(`${key}=${raw}: expected a fraction from 0 to below 1 such as 0.1 or 10%`, undefined, "--vary");
+  return v;
+}
+
+/** Parses --vary items "key=value[,key=value…]" (see file header). */
+export function parseVary(items: string[]): VarySpec {
+  const v = noVary();
+  for (const item of items.flatMap((s) => s.split(",")).map((s) => s.trim()).filter((s) => s !== "")) {
+    const eq = item.indexOf("=");
+    const key = eq < 0 ? item : item.slice(0, eq).trim();
+    const raw = eq < 0 ? "" : item.slice(eq + 1).trim().replace(/^["']|["']$/g, "");
+    if (!(VARY_KEYS as readonly string[]).includes(key) || raw === "") {
+      throw new UserError(`"${item}" is not understood; write key=value with key one of ${VARY_KEYS.join(", ")}, e.g. position="1 cm",rotation="10 deg",size=10%,t1=10%,b0="20 Hz"`, undefined, "--vary");
+    }
+    const origin = { path: `--vary ${key}` };
+    const num = (kind: "length" | "angle" | "frequency") => {
+      const x = quantity(raw.replace(/^(-?[0-9.eE+]+)([a-zA-Z])/, "$1 $2"), kind, origin);
+      if (!(x >= 0)) throw new UserError(`${key}=${raw}: the range must not be negative`, undefined, "--vary");
+      return x;
+    };
+    if (key === "position") v.position = num("length");
+    else if (key === "rotation") v.rotation = num("angle");
+    else if (key === "b0") v.b0 = num("frequency");
+    else v[key as "size" | "t1" | "t2" | "pd"] = fraction(raw, key);
+  }
+  return v;
+}
+
+/** The values drawn for one case. */
+export interface Perturbation {
+  /** m */ shift: [number, number];
+  /** rad */ rotation: number;
+  sizeFactor: number[];
+  t1Factor: number[];
+  t2Factor: number[];
+  pdFactor: number[];
+  /** Hz, Hz/m, Hz/m */ b0: { f0: number; gx: number; gy: number };
+}
+
+/** Draws a perturbation in a fixed order (all values drawn even for zero ranges). */
+export function drawPerturbation(v: VarySpec, ph: Phantom, rng: Rng): Perturbation {
+  const u = (r: number) => rng.between(-r, r);
+  const shift: [number, number] = [u(v.position), u(v.position)];
+  const rotation = u(v.rotation);
+  const sizeFactor = ph.shapes.map(() => 1 + u(v.size));
+  const t1Factor = ph.tissues.map(() => 1 + u(v.t1));
+  const t2Factor = ph.tissues.map(() => 1 + u(v.t2));
+  const pdFactor = ph.tissues.map(() => 1 + u(v.pd));
+  const b0 = { f0: u(v.b0), gx: u(v.b0) / 0.1, gy: u(v.b0) / 0.1 };
+  return { shift, rotation, sizeFactor, t1Factor, t2Factor, pdFactor, b0 };
+}
+
+function scaledSpec(s: ShapeSpec, f: number, center: [number, number, number], rotation: number): ShapeSpec {
+  const base = { tissue: s.tissue, center, rotation, ...(s.label !== undefined ? { label: s.label } : {}) };
+  switch (s.type) {
+    case "ellipse": return { ...base, type: s.type, semiAxes: [s.semiAxes[0] * f, s.semiAxes[1] * f] };
+    case "rectangle": return { ...base, type: s.type, size: [s.size[0] * f, s.size[1] * f] };
+    case "ellipsoid": return { ...base, type: s.type, semiAxes: [s.semiAxes[0] * f, s.semiAxes[1] * f, s.semiAxes[2] * f] };
+    case "sphere": return { ...base, type: s.type, radius: s.radius * f };
+    case "box": return { ...base, type: s.type, size: [s.size[0] * f, s.size[1] * f, s.size[2] * f] };
+    case "cylinder": return { ...base, type: s.type, radius: s.radius * f, length: s.length * f, axis: s.axis };
+  }
+}
+
+/** A new phantom with the perturbation applied (the input is not changed). */
+export function applyPerturbation(ph: Phantom, p: Perturbation): Phantom {
+  const c = Math.cos(p.rotation), s = Math.sin(p.rotation);
+  const shapes: Shape[] = ph.shapes.map((sh, i) => {
+    const [x, y, z] = sh.spec.center;
+    const center: [number, number, number] = [c * x - s * y + p.shift[0], s * x + c * y + p.shift[1], z];
+    return makeShape(scaledSpec(sh.spec, p.sizeFactor[i]!, center, (sh.spec.rotation ?? 0) + p.rotation));
+  });
+  const tissues = ph.tissues.map((t, i) => {
+    const t1 = t.t1 * p.t1Factor[i]!;
+    const t2 = Math.min(t.t2 * p.t2Factor[i]!, 2 * t1);
+    const t2star = Math.min(t.t2star * p.t2Factor[i]!, t2);
+    return { ...t, t1, t2, t2star, pd: t.pd * p.pdFactor[i]! };
+  });
+  const { f0, gx, gy } = p.b0;
+  const orig = ph.b0;
+  const linear = f0 !== 0 || gx !== 0 || gy !== 0;
+  const b0 = !linear ? orig : orig ? (x: number, y: number, z: number) => orig(x, y, z) + f0 + gx * x + gy * y : (x: number, y: number) => f0 + gx * x + gy * y;
+  const b0Description = linear ? `${ph.b0Description ?? "0"} + ${f0.toFixed(3)} Hz + ${gx.toFixed(3)} Hz/m·x + ${gy.toFixed(3)} Hz/m·y` : ph.b0Description;
+  return { ...ph, shapes, tissues, b0, b0Description };
+}
+
+// ---- manifest and resume ----
+
+export interface ManifestEntry {
+  case: number;
+  dir: string;
+  /** sha256 of the batch-wide settings plus the case index: a case is reused only under the same key. */
+  key: string;
+  seed: number;
+  params: Record<string, unknown>;
+  /** file name → sha256 (hex). */
+  files: Record<string, string>;
+}
+
+export function sha256(data: Uint8Array | string): string {
+  return createHash("sha256").update(data).digest("hex");
+}
+
+export function caseDirName(i: number): string {
+  return `case-${String(i).padStart(4, "0")}`;
+}
+
+export function readManifest(dir: string): Map<number, ManifestEntry> {
+  const m = new Map<number, ManifestEntry>();
+  const file = join(dir, "manifest.jsonl");
+  if (!existsSync(file)) return m;
+  for (const line of readFileSync(file, "utf8").split("\n")) {
+    if (line.trim() === "") continue;
+    try {
+      const e = JSON.parse(line) as ManifestEntry;
+      if (Number.isInteger(e.case) && typeof e.dir === "string" && e.files) m.set(e.case, e);
+    } catch {
+      /* a damaged line: that case is redone */
+    }
+  }
+  return m;
+}
+
+export function writeManifest(dir: string, entries: Map<number, ManifestEntry>): void {
+  const lines = [...entries.values()].sort((a, b) => a.case - b.case).map((e) => JSON.stringify(e));
+  writeFileAtomic(join(dir, "manifest.jsonl"), lines.join("\n") + "\n");
+}
+
+/** True if every file of the entry exists in its case folder with the listed checksum. */
+export function verifyCase(dir: string, e: ManifestEntry, key: string): boolean {
+  if (e.key !== key) return false;
+  for (const [name, hash] of Object.entries(e.files)) {
+    const f = join(dir, e.dir, name);
+    if (!existsSync(f) || sha256(readFileSync(f)) !== hash) return false;
+  }
+  return Object.keys(e.files).length > 0;
+}
+
+/**
+ * Runs cases 0…count−1 into `dir`, skipping verified ones. makeCase returns
+ * the files of one case (name → bytes) and its manifest parameters. Each case
+ * is staged and published with OutputStage, then the manifest is rewritten
+ * atomically. Returns the numbers of cases made and skipped.
+ */
+export function runBatch(
+  dir: string, count: number, seed: number, keyOf: (i: number) => string,
+  makeCase: (i: number) => { files: Map<string, Uint8Array | string>; params: Record<string, unknown> },
+  onCase?: (i: number, skipped: boolean) => void,
+): { made: number[]; skipped: number[] } {
+  mkdirSync(dir, { recursive: true });
+  const manifest = readManifest(dir);
+  const made: number[] = [], skipped: number[] = [];
+  for (let i = 0; i < count; i++) {
+    const name = caseDirName(i), key = keyOf(i);
+    const old = manifest.get(i);
+    if (old && old.dir === name && verifyCase(dir, old, key)) {
+      skipped.push(i);
+      onCase?.(i, true);
+      continue;
+    }
+    // staging folders of an interrupted earlier run of this case (ours: case-NNNN.<pid>.tmp)
+    for (const f of readdirSync(dir)) {
+      if (new RegExp(`^${name}\\.\\d+\\.tmp$`).test(f)) rmSync(join(dir, f), { recursive: true, force: true });
+    }
+    manifest.delete(i);
+    const { files, params } = makeCase(i);
+    const stage = new OutputStage(join(dir, name));
+    const hashes: Record<string, string> = {};
+    try {
+      for (const [f, bytes] of files) {
+        stage.add(f, bytes);
+        hashes[f] = sha256(bytes);
+      }
+      stage.commit();
+    } catch (e) {
+      stage.abort();
+      throw e;
+    }
+    manifest.set(i, { case: i, dir: name, key, seed, params, files: hashes });
+    writeManifest(dir, manifest);
+    made.push(i);
+    onCase?.(i, false);
+  }
+  return { made, skipped };
+}

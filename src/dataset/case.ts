@@ -1,0 +1,208 @@
+/**
+ * One dataset case: simulate every coil, move to the image grid, build the
+ * truth, sensitivities, noise and mask, and encode the files.
+ *
+ * Data path (all on the image grid, i.e. after oversampling removal):
+ *   I_c   = crop(ifftc(k_c))                 coil images, c = 0 uniform, 1…C array
+ *   truth[0] = I_0                           noise-free image, uniform coil
+ *   truth[1] = Σ_c conj(S_c)·I_c / Σ_c |S_c|²   coil combination with the saved
+ *              sensitivities (SENSE at R = 1 with identity noise covariance,
+ *              K. P. Pruessmann et al., "SENSE: sensitivity encoding for fast
+ *              MRI", Magn. Reson. Med. 42 (1999) 952–962); 0 where Σ|S|² = 0
+ *   kspace_c = (fftc(I_c) + n_c)·mask        n from noise.ts, zero off the mask
+ */
+import { encodeNpy } from "../io/npy.js";
+import { encodeNifti1 } from "../io/nifti.js";
+import { fft2c, fft3c, ifft2c, ifft3c } from "../recon/fft.js";
+import type { IsochromatSet } from "../isochromats/index.js";
+import type { Sequence } from "../sequence/types.js";
+import type { Axes } from "../protocol/geometry.js";
+import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
+import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
+import { makeMask, type Mask, type MaskOptions } from "./masks.js";
+import { Rng, STREAM } from "./prng.js";
+import { simulateCoils } from "./simulate.js";
+
+export interface Dims {
+  partitions: number;
+  phase: number;
+  read: number;
+}
+
+/**
+ * Coil images on the image grid: per coil the centred inverse DFT of the
+ * acquired k-space [rows][read] (over phase and read, and partitions when
+ * there are several), then the central image matrix kept.
+ */
+export function toImageGrid(re: Float64Array, im: Float64Array, coils: number, k: Dims, img: Dims): { re: Float64Array; im: Float64Array } {
+  const kn = k.partitions * k.phase * k.read, n = img.partitions * img.phase * img.read;
+  const out = { re: new Float64Array(coils * n), im: new Float64Array(coils * n) };
+  const offR = Math.floor(k.read / 2) - Math.floor(img.read / 2);
+  const offP = Math.floor(k.phase / 2) - Math.floor(img.phase / 2);
+  for (let c = 0; c < coils; c++) {
+    const r = re.slice(c * kn, (c + 1) * kn), i = im.slice(c * kn, (c + 1) * kn);
+    if (k.partitions > 1) ifft3c(r, i, k.partitions, k.phase, k.read);
+    else ifft2c(r, i, k.phase, k.read);
+    for (let p = 0; p < img.partitions; p++) {
+      for (let y = 0; y < img.phase; y++) {
+        const src = (p * k.phase + y + offP) * k.read + offR, dst = c * n + (p * img.phase + y) * img.read;
+        out.re.set(r.subarray(src, src + img.read), dst);
+        out.im.set(i.subarray(src, src + img.read), dst);
+      }
+    }
+  }
+  return out;
+}
+
+/** Centred forward DFT of each coil's image (in place), the adjoint of the reconstruction without 1/N. */
+export function toKspace(re: Float64Array, im: Float64Array, coils: number, d: Dims): void {
+  const n = d.partitions * d.phase * d.read;
+  for (let c = 0; c < coils; c++) {
+    const r = re.subarray(c * n, (c + 1) * n), i = im.subarray(c * n, (c + 1) * n);
+    if (d.partitions > 1) fft3c(r, i, d.partitions, d.phase, d.read);
+    else fft2c(r, i, d.phase, d.read);
+  }
+}
+
+/**
+ * Physical position (m) of every image pixel centre: index n along an axis
+ * of N points sits at (n − floor(N/2))·Δ; the partition axis at
+ * slice position + (p − floor(P/2))·thickness.
+ */
+export function pixelCentres(axes: Axes, d: Dims, dx: number, dy: number, dz: number, position: number): { x: Float64Array; y: Float64Array; z: Float64Array } {
+  const n = d.partitions * d.phase * d.read;
+  const x = new Float64Array(n), y = new Float64Array(n), z = new Float64Array(n);
+  for (let p = 0; p < d.partitions; p++) {
+    const w = position + (p - Math.floor(d.partitions / 2)) * dz;
+    for (let j = 0; j < d.phase; j++) {
+      const v = (j - Math.floor(d.phase / 2)) * dy;
+      for (let i = 0; i < d.read; i++) {
+        const u = (i - Math.floor(d.read / 2)) * dx, k = (p * d.phase + j) * d.read + i;
+        x[k] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+        y[k] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+        z[k] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+      }
+    }
+  }
+  return { x, y, z };
+}
+
+export interface CaseSettings {
+  array: CoilArray;
+  /** Normalised coil noise covariance Ψ (coils × coils). */
+  psi: CMatrix;
+  /** Target SNR, or null for noise-free k-space. */
+  snr: number | null;
+  /** Noise-only samples per coil to write as noise.npy (0 = none), each a readout of `read` samples. */
+  noiseLines: number;
+  mask: MaskOptions;
+  seed: number;
+  receiverFilter: boolean;
+}
+
+export interface CaseGeometry {
+  axes: Axes;
+  dx: number;
+  dy: number;
+  dz: number;
+  position: number;
+  /** 3×4 voxel → RAS+ mm affine for truth.nii and voxel size (mm). */
+  affine: number[][];
+  voxelMm: [number, number, number];
+}
+
+export interface CaseResult {
+  files: Map<string, Uint8Array | string>;
+  /** Numbers for case.json. */
+  info: {
+    coils: number;
+    dims: Dims;
+    sigma: number;
+    meanSignal: number;
+    objectPixels: number;
+    mask: Mask;
+    kspaceAcquired: Dims;
+  };
+}
+
+/** Runs the simulation and builds every array file of one case (case.json is added by the caller). */
+export function buildCase(
+  seq: Sequence, iso: IsochromatSet, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
+  onProgress?: (done: number, total: number) => void,
+): CaseResult {
+  const img: Dims = seq.image, kd: Dims = seq.kspace;
+  const C = coilCount(s.array);
+  const loops = s.array.elements > 0;
+  const k = simulateCoils(seq, iso, s.array, s.receiverFilter, onProgress);
+  const n = img.partitions * img.phase * img.read;
+  const all = toImageGrid(k.re, k.im, k.coils, kd, img);
+  // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)
+  const truth = { re: new Float64Array(2 * n), im: new Float64Array(2 * n) };
+  truth.re.set(all.re.subarray(0, n));
+  truth.im.set(all.im.subarray(0, n));
+  const coilRe = loops ? all.re.slice(n) : all.re.slice(0, n);
+  const coilIm = loops ? all.im.slice(n) : all.im.slice(0, n);
+  // sensitivities at pixel centres
+  const sens = new Float64Array(2 * C * n);
+  const pc = pixelCentres(geo.axes, img, geo.dx, geo.dy, geo.dz, geo.position);
+  sensitivitiesAt(s.array, pc.x, pc.y, pc.z, n, sens, n, 0);
+  // truth[1] = Σ conj(S)·I / Σ|S|²
+  for (let i = 0; i < n; i++) {
+    let ar = 0, ai = 0, w = 0;
+    for (let c = 0; c < C; c++) {
+      const sr = sens[2 * (c * n + i)]!, si = sens[2 * (c * n + i) + 1]!;
+      const xr = coilRe[c * n + i]!, xi = coilIm[c * n + i]!;
+      ar += sr * xr + si * xi;
+      ai += sr * xi - si * xr;
+      w += sr * sr + si * si;
+    }
+    truth.re[n + i] = w > 0 ? ar / w : 0;
+    truth.im[n + i] = w > 0 ? ai / w : 0;
+  }
+  // k-space on the image grid, noise, mask
+  toKspace(coilRe, coilIm, C, img);
+  const { sigma, meanSignal, objectPixels } = s.snr === null ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr);
+  const L = cholesky(s.psi, "--noise-covariance");
+  if (sigma > 0) addNoise(coilRe, coilIm, C, n, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noise));
+  const mask = makeMask(img.partitions, img.phase, s.mask, Rng.stream(s.seed, caseIndex, STREAM.mask));
+  for (let c = 0; c < C; c++) {
+    for (let p = 0; p < img.partitions; p++) {
+      for (let y = 0; y < img.phase; y++) {
+        if (mask.data[p * img.phase + y]) continue;
+        const o = c * n + (p * img.phase + y) * img.read;
+        coilRe.fill(0, o, o + img.read);
+        coilIm.fill(0, o, o + img.read);
+      }
+    }
+  }
+  const shape = [C, img.partitions, img.phase, img.read];
+  const files = new Map<string, Uint8Array | string>();
+  files.set("kspace.npy", encodeNpy({ dtype: "complex64", shape, data: { re: coilRe, im: coilIm } }));
+  files.set("mask.npy", encodeNpy({ dtype: "uint8", shape: [img.partitions, img.phase], data: mask.data }));
+  const sr = new Float64Array(C * n), si = new Float64Array(C * n);
+  for (let i = 0; i < C * n; i++) {
+    sr[i] = sens[2 * i]!;
+    si[i] = sens[2 * i + 1]!;
+  }
+  files.set("sensitivities.npy", encodeNpy({ dtype: "complex64", shape, data: { re: sr, im: si } }));
+  files.set("truth.npy", encodeNpy({ dtype: "complex64", shape: [2, img.partitions, img.phase, img.read], data: truth }));
+  const cov = { re: new Float64Array(C * C), im: new Float64Array(C * C) };
+  for (let i = 0; i < C * C; i++) {
+    cov.re[i] = sigma * sigma * s.psi.re[i]!;
+    cov.im[i] = sigma * sigma * s.psi.im[i]!;
+  }
+  files.set("noise_covariance.npy", encodeNpy({ dtype: "complex64", shape: [C, C], data: cov }));
+  if (s.noiseLines > 0) {
+    const m = s.noiseLines * img.read;
+    const nr = new Float64Array(C * m), ni = new Float64Array(C * m);
+    addNoise(nr, ni, C, m, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noiseLines));
+    files.set("noise.npy", encodeNpy({ dtype: "complex64", shape: [C, s.noiseLines, img.read], data: { re: nr, im: ni } }));
+  }
+  const mag = new Float32Array(n);
+  for (let i = 0; i < n; i++) mag[i] = Math.hypot(truth.re[i]!, truth.im[i]!);
+  files.set("truth.nii", encodeNifti1({
+    data: mag, dims: [img.read, img.phase, img.partitions], voxelMm: geo.voxelMm, affine: geo.affine,
+    description: "isofold dataset truth: |uniform-coil image|",
+  }));
+  return { files, info: { coils: C, dims: img, sigma, meanSignal, objectPixels, mask, kspaceAcquired: kd } };
+}
