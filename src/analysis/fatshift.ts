@@ -1,0 +1,192 @@
+/**
+ * Fat–water chemical-shift displacement: closed-form predictions and a
+ * measurement on a simulated image.
+ *
+ * Predictions (Bernstein, King & Zhou 2004, ch. 11 and 16; signs derived for
+ * this program's conventions, DESIGN.md: an isochromat at logical position r
+ * with offset Δf precesses at γ̄·G·r + Δf):
+ *   - readout: during a readout gradient G_read > 0 a spin at u appears where
+ *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = (Δf/BW_px)·Δx:
+ *     fat (Δf < 0) moves toward negative read positions;
+ *   - slice: a pulse of centre frequency γ̄·G_slice·w0 excites spins where
+ *     γ̄·G_slice·w + Δf = γ̄·G_slice·w0, so Δw = −Δf/(γ̄·G_slice): fat is
+ *     excited toward positive slice positions for G_slice > 0;
+ *   - phase, EPI only: line n is acquired at TE + (n − c)·esp with
+ *     k_n = (n − c)·Δk_y·s (s = ±1, the blip direction), so the phase
+ *     −2π(k_n·v + Δf·(n − c)·esp) places the spin at v + s·Δf·esp/Δk_y:
+ *     Δv = s·Δf·N_phase·esp pixels (N_phase lines of Δk_y = 1/FOV). With
+ *     spin-warp (one line per excitation) there is no shift along phase.
+ */
+import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
+
+/** A displacement along one logical axis. */
+export interface AxisShift {
+  /** Pixels (signed, along the positive logical axis). */
+  px: number;
+  /** Metres (signed). */
+  m: number;
+  /** Physical direction the fat moves in, e.g. "-x", or "none". */
+  direction: string;
+}
+
+export interface FatShiftInput {
+  /** Main field (T). */
+  fieldT: number;
+  /** Chemical shift of fat relative to water (ppm); default the main methylene peak, −3.4 ppm. */
+  ppm?: number;
+  /** Readout bandwidth per pixel (Hz/px) and the pixel size along read (m). */
+  pixelBandwidth: number;
+  dxRead: number;
+  /** Slice-select gradient (T/m), 0 for a non-selective pulse; slice thickness (m). */
+  sliceGradient: number;
+  /** Phase pixel size (m). */
+  dyPhase: number;
+  /** EPI only: echo spacing (s), phase lines of one image (after any acceleration), blip direction ±1. */
+  echoSpacing?: number;
+  phaseLines?: number;
+  blipSign?: number;
+  /** Physical axis names and signs of the logical axes, e.g. { read: "x", phase: "y", slice: "z" }. */
+  axisNames: { read: string; phase: string; slice: string };
+}
+
+export interface FatShiftPrediction {
+  ppm: number;
+  /** Δf of fat relative to water (Hz). */
+  hz: number;
+  readout: AxisShift;
+  slice: { m: number; direction: string; note: string };
+  phase: AxisShift & { note: string };
+}
+
+function dir(value: number, axis: string): string {
+  if (value === 0 || !Number.isFinite(value)) return "none";
+  return `${value > 0 ? "+" : "-"}${axis}`;
+}
+
+/** Chemical shift (ppm) → Hz at field B0: Δf = ppm·1e−6·γ̄·B0. */
+export function ppmToHz(ppm: number, fieldT: number): number {
+  return ppm * 1e-6 * GAMMA_BAR * fieldT;
+}
+
+/** Amplitude-weighted mean shift of the six-peak fat spectrum (ppm), about −3.0 ppm. */
+export function multiPeakMeanPpm(): number {
+  let s = 0, a = 0;
+  FAT_PEAKS_PPM.forEach((p, k) => {
+    s += p * FAT_PEAKS_AMPLITUDE[k]!;
+    a += FAT_PEAKS_AMPLITUDE[k]!;
+  });
+  return s / a;
+}
+
+/** Readout, slice and (EPI) phase displacement of fat relative to water; see the file comment for the signs. */
+export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
+  const ppm = p.ppm ?? FAT_SINGLE_PPM;
+  const hz = ppmToHz(ppm, p.fieldT);
+  const readPx = hz / p.pixelBandwidth;
+  const sliceM = p.sliceGradient !== 0 ? -hz / (GAMMA_BAR * p.sliceGradient) : 0;
+  const epi = p.echoSpacing !== undefined && p.phaseLines !== undefined;
+  const phasePx = epi ? (p.blipSign ?? 1) * hz * p.phaseLines! * p.echoSpacing! : 0;
+  return {
+    ppm,
+    hz,
+    readout: { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read) },
+    slice: {
+      m: sliceM,
+      direction: dir(sliceM, p.axisNames.slice),
+      note: p.sliceGradient !== 0 ? "Δz = −Δf/(γ̄·G_slice)" : "non-selective excitation: no slice shift",
+    },
+    phase: {
+      px: phasePx,
+      m: phasePx * p.dyPhase,
+      direction: dir(phasePx, p.axisNames.phase),
+      note: epi ? "EPI: Δf·N_phase·echo spacing, sign of the phase blips" : "one line per excitation: no shift along phase",
+    },
+  };
+}
+
+/** Measured displacement of the fat object relative to the water object on an image. */
+export interface FatShiftMeasurement {
+  /** Pixels along read and phase (signed, along the positive logical axes). */
+  readPx: number;
+  phasePx: number;
+  readM: number;
+  phaseM: number;
+  /** Pixels in the water and fat truth regions. */
+  waterPixels: number;
+  fatPixels: number;
+  /** True when each object's search window holds none of the other object (the measurement is clean). */
+  separable: boolean;
+  method: string;
+}
+
+/**
+ * Measures the displacement of fat relative to water on a magnitude image
+ * `mag` [phase][read] (nPhase × nRead) against the ground truth on the same
+ * grid: `pd` (proton density × volume fraction) and `fatFraction` per pixel.
+ * Water region: pd > 0 and fat fraction < 0.5; fat region: fat fraction ≥ 0.5.
+ * For each region the image centroid (magnitude-weighted) is taken in a
+ * window = the region's bounding box grown by `margin` pixels on each side
+ * (3 is enough for blur and ringing), re-centred on the displacement found
+ * until it settles (so the window follows a shifted object and cuts ringing
+ * symmetrically), leaving out pixels of the other region's truth mask; the truth centroid is pd-weighted. Displacement = (image − truth) of
+ * fat minus (image − truth) of water, so a common shift (B0 offset) cancels.
+ * Returns null when either region is empty.
+ */
+const ITERATIONS = 16;
+
+export function measureFatShift(
+  mag: ArrayLike<number>, pd: ArrayLike<number>, fatFraction: ArrayLike<number>,
+  nRead: number, nPhase: number, dx: number, dy: number, margin: number,
+): FatShiftMeasurement | null {
+  const n = nRead * nPhase;
+  const region = new Int8Array(n); // 0 none, 1 water, 2 fat
+  for (let i = 0; i < n; i++) if (pd[i]! > 0) region[i] = fatFraction[i]! >= 0.5 ? 2 : 1;
+  const stats = (r: number) => {
+    let sw = 0, sx = 0, sy = 0, count = 0, x0 = Infinity, x1 = -Infinity, y0 = Infinity, y1 = -Infinity;
+    for (let y = 0; y < nPhase; y++) for (let x = 0; x < nRead; x++) {
+      const i = y * nRead + x;
+      if (region[i] !== r) continue;
+      const w = pd[i]!;
+      sw += w; sx += w * x; sy += w * y; count++;
+      x0 = Math.min(x0, x); x1 = Math.max(x1, x); y0 = Math.min(y0, y); y1 = Math.max(y1, y);
+    }
+    return { count, cx: sx / sw, cy: sy / sw, x0, x1, y0, y1 };
+  };
+  const W = stats(1), F = stats(2);
+  if (W.count === 0 || F.count === 0) return null;
+  let separable = true;
+  const centroid = (s: ReturnType<typeof stats>, other: number) => {
+    let ox = 0, oy = 0;
+    for (let iter = 0; iter < ITERATIONS; iter++) {
+      // window [lo, hi] in pixel units; edge pixels count by the part of them inside it
+      const lx = s.x0 - margin + ox, hx = s.x1 + margin + ox, ly = s.y0 - margin + oy, hy = s.y1 + margin + oy;
+      const rx0 = Math.max(0, Math.floor(lx)), rx1 = Math.min(nRead - 1, Math.ceil(hx));
+      const ry0 = Math.max(0, Math.floor(ly)), ry1 = Math.min(nPhase - 1, Math.ceil(hy));
+      let sw = 0, sx = 0, sy = 0, hit = false;
+      for (let y = ry0; y <= ry1; y++) {
+        const wy = Math.max(0, Math.min(hy, y + 0.5) - Math.max(ly, y - 0.5));
+        if (wy === 0) continue;
+        for (let x = rx0; x <= rx1; x++) {
+          const wx = Math.max(0, Math.min(hx, x + 0.5) - Math.max(lx, x - 0.5));
+          if (wx === 0) continue;
+          const i = y * nRead + x;
+          if (region[i] === other) { hit = true; continue; }
+          const w = mag[i]! * wx * wy;
+          sw += w; sx += w * x; sy += w * y;
+        }
+      }
+      if (hit && iter === ITERATIONS - 1) separable = false;
+      if (!(sw > 0)) return { dx: 0, dy: 0 };
+      ox = sx / sw - s.cx;
+      oy = sy / sw - s.cy;
+    }
+    return { dx: ox, dy: oy };
+  };
+  const dw = centroid(W, 2), df = centroid(F, 1);
+  const readPx = df.dx - dw.dx, phasePx = df.dy - dw.dy;
+  return {
+    readPx, phasePx, readM: readPx * dx, phaseM: phasePx * dy,
+    waterPixels: W.count, fatPixels: F.count, separable,
+    method: "magnitude-weighted centroid of each object (windows re-centred on the result) minus its pd-weighted truth centroid; fat minus water",
+  };
+}
