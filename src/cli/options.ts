@@ -50,7 +50,7 @@ export function addSimulationOptions(c: Command): Command {
     .option(
       "--t2prime-isochromats <n>",
       "isochromats per voxel spreading off-resonance as a Lorentzian of width 1/(π·T2′), 1/T2′ = 1/T2* − 1/T2, so T2* decay " +
-        "and spin-echo refocusing emerge; 1 = off (decay with T2 only); cost grows as n/density²; FID error ≈ 0.8/√n of M0; 1–1024",
+        "and spin-echo refocusing emerge; 1 = off (decay with T2 only); cost grows as n/density²; FID error ≲ 1/√n of M0; 1–1024",
       intArg("--t2prime-isochromats", 1, 1024),
       defaultIsochromatOptions().t2primeIsochromats,
     )

@@ -20,9 +20,9 @@
  * fraction of the initial amplitude, is
  *
  *   N       8     16    32    64    128   256
- *   error   0.33  0.24  0.16  0.10  0.06  0.04
+ *   error   0.33  0.24  0.16  0.10  0.06  0.04   (≲ 1/√N)
  *
- * i.e. about 0.8/√N: the far quantiles carry weight 1/N each and their phases
+ * i.e. at most about 1/√N: the far quantiles carry weight 1/N each and their phases
  * are effectively random once 2πf·t ≫ 1. The error is in the tail of the FID
  * (t ≳ T2′); the first ~0.5·T2′ and the spin-echo peak are much closer. A
  * uniform frequency grid with exact bin weights halves the error at equal N
