@@ -24,7 +24,7 @@ function derivedNumber(seq: Sequence, key: string): number | undefined {
  */
 export function fatShiftReport(
   protocol: Protocol, seq: Sequence, phantom: Phantom, mag: Float64Array, fatModel: "single" | "multi",
-): { report: Record<string, unknown>; truth: TruthMaps } {
+): { report: Record<string, unknown>; truth: TruthMaps; warnings: string[] } {
   const axes = logicalAxes(protocol);
   const nRead = seq.image.read, nPhase = seq.image.phase;
   const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
@@ -68,7 +68,11 @@ export function fatShiftReport(
         }
       : { readout: null, phase: null, reason: "the slice holds no separate water and fat objects (pixels with fat fraction < 0.5 and ≥ 0.5)" },
   };
-  return { report, truth };
+  const warnings: string[] = [];
+  if (measured && !measured.separable) {
+    warnings.push("fat shift: the water and fat objects lie within a few pixels of each other after the shift; the measured shift may be biased");
+  }
+  return { report, truth, warnings };
 }
 
 /** truth-<map>.npy (float32 / int32, shape [phase, read]) and truth-<map>.png for each map. */

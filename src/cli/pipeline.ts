@@ -162,6 +162,7 @@ export function run(o: RunOptions): RunResult {
   };
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
+  (report.warnings as string[]).push(...fx.warnings);
   const files = writeRunFolder(o.out, {
     extra: o.truth ? truthFiles(fx.truth) : undefined,
     kspace: kv,

@@ -10,7 +10,12 @@
  * cell that one tissue fills (partial volume): m0 = PD · fraction ·
  * (1/density²) · (Δw/thickness), so a voxel filled with PD = 1 and an ideal
  * rectangular slice profile reconstructs to 1. A tissue holding fat gives one
- * isochromat per spectral peak, weighted by the peak amplitude.
+ * isochromat per spectral peak, weighted by the peak amplitude. A tissue with
+ * T2* < T2 carries a T2′ spread (spread.ts): N off-resonances from a Lorentzian
+ * of width 1/(πT2′) at deterministic quantiles, the same set in every voxel (so
+ * RF classes stay few), shared among the voxel's d² columns when N allows.
+ * Every isochromat's Δf = B0 model + global offset (shim) + chemical shift +
+ * spread offset.
  *
  * Isochromats sharing an in-plane grid position (a column) are contiguous.
  */
@@ -222,6 +227,10 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
     return { tissue: t.name, t2prime: r > 0 ? 1 / r : Infinity, count: spreadOf[i]!.df.length };
   });
   const offsetHz = opt.offsetHz ?? 0;
+  if (spreadN === 1) {
+    const short = spreads.filter((s) => Number.isFinite(s.t2prime)).map((s) => s.tissue);
+    if (short.length) warnings.push(`T2* below T2 is not modelled (no T2′ spread: --t2prime-isochromats 1) for ${short.join(", ")}; these decay with T2 only`);
+  }
   const wWeight = dw / thickness / (d * d);
 
   const G = {
