@@ -12,6 +12,7 @@ import { fft3c, ifft3c } from "../src/recon/fft.js";
 import { encodeNpy, decodeNpy } from "../src/io/npy.js";
 import { GAMMA_BAR } from "../src/constants.js";
 import { readFileSync } from "node:fs";
+import { parseProtocolObject } from "../src/protocol/index.js";
 import { protocolObject, simulate } from "./effects-helpers.js";
 
 /**
@@ -104,6 +105,36 @@ describe("susceptibility closed forms vs a Fourier dipole calculation", () => {
   }, 30_000);
 });
 
+describe("bad b0 input is a one-line user error naming the key path", () => {
+  const base = () => ({ name: "e", shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["2 cm", "2 cm"], tissue: "water-gel" }] } as Record<string, unknown>);
+  const cases: [unknown, string][] = [
+    [{ susceptibility: { objects: [{ shape: "cube", center: ["0 cm", "0 cm", "0 cm"], radius: "1 cm", deltaChi: "1 ppm" }] } }, "b0.susceptibility.objects[0].shape"],
+    [{ susceptibility: { objects: [{ shape: "sphere", center: ["0 cm", "0 cm", "0 cm"], radius: "1 cm", deltaChi: "9 deg" }] } }, "b0.susceptibility.objects[0].deltaChi"],
+    [{ susceptibility: { objects: [{ shape: "cylinder", center: ["0 cm", "0 cm", "0 cm"], radius: "1 cm", deltaChi: "1 ppm", direction: [0, 0, 0] }] } }, "b0.susceptibility.objects[0].direction"],
+    [{ susceptibility: { objects: [{ shape: "sphere", center: ["0 cm", "0 cm"], radius: "1 cm", deltaChi: "1 ppm" }] } }, "b0.susceptibility.objects[0].center"],
+    [{ fieldMap: { file: "m.npy", origin: ["0 cm", "0 cm", "0 cm"] } }, "b0.fieldMap.spacing"],
+    [{ fieldMap: { file: "m.npy", origin: ["0 cm", "0 cm", "0 cm"], spacing: ["1 mm", "1 mm", "1 mm"], grid: 1 } }, "b0.fieldMap.grid"],
+  ];
+  for (const [b0, path] of cases) {
+    test(`${path}`, () => {
+      const j = base();
+      j.b0 = b0;
+      let err: unknown;
+      try { parsePhantom(j, "p.json", 3, { readArray: () => ({ shape: [2, 2], data: [0, 0, 0, 0] }) }); } catch (e) { err = e; }
+      expect((err as { keyPath?: string }).keyPath).toBe(path);
+    });
+  }
+  test("a field map of the wrong rank or with non-finite values is refused", () => {
+    for (const arr of [{ shape: [4], data: [0, 0, 0, 0] }, { shape: [1, 2], data: [0, NaN] }]) {
+      const j = base();
+      j.b0 = { fieldMap: { file: "m.npy", origin: ["0 cm", "0 cm", "0 cm"], spacing: ["1 mm", "1 mm", "1 mm"] } };
+      let err: unknown;
+      try { parsePhantom(j, "p.json", 3, { readArray: () => arr }); } catch (e) { err = e; }
+      expect((err as { keyPath?: string }).keyPath).toBe("b0.fieldMap.file");
+    }
+  });
+});
+
 describe("field map and shim", () => {
   test("fieldMapSampler interpolates trilinearly and holds edge values outside", () => {
     // a linear map f = 10·i + 100·j + 1000·k is reproduced exactly by trilinear interpolation
@@ -125,6 +156,14 @@ describe("field map and shim", () => {
     const read = (p: string) => { const a = decodeNpy(readFileSync(p), p); return { shape: a.shape, data: a.data as Float32Array }; };
     const ph = parsePhantom(json, join(dir, "p.json"), 3, { readArray: read });
     expect(ph.b0!(0, 0, 0)).toBeCloseTo(26, 6); // midway in x: 25 Hz, plus the expression's 1 Hz
+  });
+
+  test("protocol key shim takes a frequency; anything else is a user error at key path shim", () => {
+    expect(parseProtocolObject(protocolObject({ shim: "-12.5 Hz" }) as never, "p.json").shim).toBe(-12.5);
+    expect(parseProtocolObject(protocolObject({}) as never, "p.json").shim).toBe(0);
+    let err: unknown;
+    try { parseProtocolObject(protocolObject({ shim: "3 mm" }) as never, "p.json"); } catch (e) { err = e; }
+    expect((err as { keyPath?: string }).keyPath).toBe("shim");
   });
 
   test("the shim offset moves water along read by shim/BW_px (Δx_pix = Δf/BW_pix)", () => {
