@@ -63,10 +63,11 @@ describe("readout displacement of fat on simulated images", () => {
       test(`oil vs water at ${field}, ${bw} Hz/px: measured shift = Δf/BW_px within 0.1 px`, () => {
         const r = simulate(waterOilPhantom(), protocolObject({ field, bandwidth: `${bw} Hz/px` }), { t2primeIsochromats: 8 });
         const dx = r.protocol.fov.read / r.protocol.matrix.read;
-        const m = measureFatShift(r.mag, r.truth.pd, r.truth.fatFraction, 32, 32, dx, dx, 3)!;
+        const m = measureFatShift(r.mag, r.truth.pd, r.truth.fatFraction, 32, 32, dx, dx, 3, { factor: 4, pd: r.fine.pd, fatFraction: r.fine.fatFraction })!;
         const expected = (FAT_SINGLE_PPM * 1e-6 * GAMMA_BAR * r.protocol.field) / bw;
         expect(m.separable).toBe(true);
-        expect(Math.abs(m.readPx - expected), `measured ${m.readPx} px, expected ${expected} px`).toBeLessThan(0.1);
+        // required: 0.1 px; the band-limited template measures within a few thousandths here, so 0.02 is checked
+        expect(Math.abs(m.readPx - expected), `measured ${m.readPx} px, expected ${expected} px`).toBeLessThan(0.02);
         expect(Math.abs(m.phasePx)).toBeLessThan(0.05);
         expect(expected).toBeLessThan(-0.6); // the check is not trivially passed by "no shift"
         // the prediction code agrees with the closed form

@@ -20,6 +20,8 @@ export interface SimResult {
   im: Float64Array;
   mag: Float64Array;
   truth: TruthMaps;
+  /** Truth on a 4× finer grid (band-limited template for measureFatShift). */
+  fine: TruthMaps;
 }
 
 /** A protocol object: defaults below, overridden by `over` (shallow per top-level key). */
@@ -49,5 +51,7 @@ export function simulate(phantomJson: unknown, protocol: Record<string, unknown>
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
   const img = reconstructCartesian({ partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im }, seq.image);
   const truth = truthMaps(ph, { axes, nRead: seq.image.read, nPhase: seq.image.phase, dx, dy, thickness: p.slice.thickness, position: p.slice.position, offsetHz: p.shim });
-  return { protocol: p, seq, iso: set, kre: kspace.re, kim: kspace.im, re: img.re, im: img.im, mag: magnitude(img), truth };
+  const F = 4;
+  const fine = truthMaps(ph, { axes, nRead: F * seq.image.read, nPhase: F * seq.image.phase, dx: dx / F, dy: dy / F, thickness: p.slice.thickness, position: p.slice.position, offsetHz: p.shim });
+  return { protocol: p, seq, iso: set, kre: kspace.re, kim: kspace.im, re: img.re, im: img.im, mag: magnitude(img), truth, fine };
 }

@@ -131,7 +131,9 @@ export interface FatShiftMeasurement {
  *      bounding box grown by `margin` pixels, edge pixels counted by the part
  *      inside it), re-centred on the result until it settles, minus the
  *      pd-weighted truth centroid;
- *   2. template fit: the region's truth map, moved by a sub-pixel shift s
+ *   2. template fit: the region's truth map (or, better, the band-limited
+ *      image of a `fine` truth map: its spectrum cropped to the image's
+ *      k-space, so the template has the simulated image's ringing), moved by a sub-pixel shift s
  *      (Fourier shift theorem: spectrum × exp(−i2πk·s)), as magnitude, scaled
  *      by the least-squares factor; s minimizes the squared difference to the
  *      image over the window (golden-section search along read, then phase,
@@ -142,17 +144,24 @@ export interface FatShiftMeasurement {
  * Displacement = fat shift minus water shift, so a common shift (B0 offset)
  * cancels. Returns null when either region is empty.
  */
+/** Truth maps on a grid `factor` times finer than the image along read and phase (same centre convention). */
+export interface FineTruth {
+  factor: number;
+  pd: ArrayLike<number>;
+  fatFraction: ArrayLike<number>;
+}
+
 export function measureFatShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, fatFraction: ArrayLike<number>,
-  nRead: number, nPhase: number, dx: number, dy: number, margin: number,
+  nRead: number, nPhase: number, dx: number, dy: number, margin: number, fine?: FineTruth,
 ): FatShiftMeasurement | null {
   const n = nRead * nPhase;
   const region = new Int8Array(n); // 0 none, 1 water, 2 fat
   for (let i = 0; i < n; i++) if (pd[i]! > 0) region[i] = fatFraction[i]! >= 0.5 ? 2 : 1;
   const W = regionStats(region, pd, 1, nRead, nPhase), F = regionStats(region, pd, 2, nRead, nPhase);
   if (W.count === 0 || F.count === 0) return null;
-  const w = regionShift(mag, pd, region, 1, W, nRead, nPhase, margin);
-  const f = regionShift(mag, pd, region, 2, F, nRead, nPhase, margin);
+  const w = regionShift(mag, pd, region, 1, W, nRead, nPhase, margin, fine);
+  const f = regionShift(mag, pd, region, 2, F, nRead, nPhase, margin, fine);
   const readPx = f.dx - w.dx, phasePx = f.dy - w.dy;
   return {
     readPx, phasePx, readM: readPx * dx, phaseM: phasePx * dy,
@@ -200,7 +209,7 @@ function windowWeights(out: Float64Array, s: RegionStats, ox: number, oy: number
 
 function regionShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, region: Int8Array, r: number, s: RegionStats,
-  nRead: number, nPhase: number, margin: number,
+  nRead: number, nPhase: number, margin: number, fine?: FineTruth,
 ): { dx: number; dy: number; clean: boolean } {
   const n = nRead * nPhase, other = r === 1 ? 2 : 1;
   const win = new Float64Array(n);
@@ -219,8 +228,24 @@ function regionShift(
   }
   // 2. template fit
   const tre = new Float64Array(n), tim = new Float64Array(n);
-  for (let i = 0; i < n; i++) tre[i] = region[i] === r ? pd[i]! : 0;
-  fft2c(tre, tim, nPhase, nRead);
+  if (fine) {
+    // band-limited template: spectrum of the finer truth map cropped to the image's k-space
+    const f = fine.factor, fr = f * nRead, fp = f * nPhase, big = fr * fp;
+    const bre = new Float64Array(big), bim = new Float64Array(big);
+    for (let i = 0; i < big; i++) {
+      const v = fine.pd[i]!;
+      if (v > 0 && (fine.fatFraction[i]! >= 0.5 ? 2 : 1) === r) bre[i] = v;
+    }
+    fft2c(bre, bim, fp, fr);
+    const oR = Math.floor(fr / 2) - Math.floor(nRead / 2), oP = Math.floor(fp / 2) - Math.floor(nPhase / 2);
+    for (let a = 0; a < nPhase; a++) for (let b = 0; b < nRead; b++) {
+      tre[a * nRead + b] = bre[(a + oP) * fr + b + oR]!;
+      tim[a * nRead + b] = bim[(a + oP) * fr + b + oR]!;
+    }
+  } else {
+    for (let i = 0; i < n; i++) tre[i] = region[i] === r ? pd[i]! : 0;
+    fft2c(tre, tim, nPhase, nRead);
+  }
   const wr = new Float64Array(n), wi = new Float64Array(n);
   const cR = Math.floor(nRead / 2), cP = Math.floor(nPhase / 2);
   let clean = true;
