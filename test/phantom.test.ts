@@ -258,13 +258,12 @@ describe("parsePhantom bad input", () => {
     expect(ph.warnings.join()).toMatch(/species is ignored/);
   });
 
-  test("parsePhantom rejects b0 susceptibility and fieldMap: only expression is supported yet", () => {
-    for (const k of ["susceptibility", "fieldMap"]) {
+  test("parsePhantom rejects empty b0 susceptibility and fieldMap objects, naming the missing key", () => {
+    for (const [k, sub] of [["susceptibility", "objects"], ["fieldMap", "file"]] as const) {
       const j = base();
       j.b0 = { [k]: {} };
       const e = userErrorOf(() => parsePhantom(j, "p.json", 3));
-      expect(e.keyPath).toBe(`b0.${k}`);
-      expect(e.message).toMatch(/only "expression" is supported yet/);
+      expect(e.keyPath).toBe(`b0.${k}.${sub}`);
     }
   });
 

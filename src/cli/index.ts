@@ -27,9 +27,10 @@ addSimulationOptions(
     .argument("<phantom>", "phantom file (JSON), e.g. phantoms/two-bottle.json")
     .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="16 cm" --set te="8 ms"', collect, [])
-    .option("-o, --out <dir>", "output folder for the run", "out/run"),
+    .option("-o, --out <dir>", "output folder for the run", "out/run")
+    .option("--truth", "also write the ground-truth maps on the image grid: pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy"),
 ).action((phantom: string, o) => {
-  const r = run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet });
+  const r = run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true });
   console.log(`wrote ${r.files.length} files to ${r.dir} in ${r.seconds.toFixed(1)} s: ${r.files.join(", ")}`);
 });
 

@@ -2,6 +2,7 @@
  * Wires the stages for one run: protocol → phantom → sequence →
  * isochromats → engine → recon → analysis → run folder. No physics here.
  */
+import { readFileSync } from "node:fs";
 import { createRequire } from "node:module";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
@@ -13,6 +14,8 @@ import { simulateSerial } from "../engine/index.js";
 import { reconstructCartesian, magnitude } from "../recon/reconstruct.js";
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
+import { decodeNpy } from "../io/npy.js";
+import { fatShiftReport, truthFiles } from "./effects.js";
 import { Progress } from "./progress.js";
 
 export const SAFETY_NOTE =
@@ -41,6 +44,8 @@ export interface RunOptions {
   quiet?: boolean;
   /** Changes the loaded phantom before it is sampled (dataset perturbations). */
   phantomTransform?: (ph: Phantom) => Phantom;
+  /** Also write the ground-truth maps (truth-*.png / .npy). */
+  truth?: boolean;
 }
 
 export interface RunResult {
@@ -51,7 +56,7 @@ export interface RunResult {
 }
 
 /** Loads and checks every input; throws UserError before any work or file. */
-export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string } {
+export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; phantom: Phantom } {
   const protocol = loadProtocol(o.protocol, o.sets);
   let seq: Sequence;
   try {
@@ -60,7 +65,7 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
     if (e instanceof UserError) throw e.inFile(o.protocol);
     throw e;
   }
-  const loaded = loadPhantom(o.phantom, protocol.field);
+  const loaded = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
   const phantom = o.phantomTransform ? o.phantomTransform(loaded) : loaded;
   const axes = logicalAxes(protocol);
   const iso = makeIsochromats(
@@ -75,13 +80,26 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
       clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
     },
     protocol.field,
-    o.iso,
+    { ...o.iso, offsetHz: protocol.shim },
   );
   if (iso.count === 0) {
     throw new UserError(`no part of the phantom lies in the slice at ${(protocol.slice.position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
   }
   iso.warnings.push(...phantom.warnings);
-  return { protocol, seq, iso, phantomFile: o.phantom };
+  return { protocol, seq, iso, phantomFile: o.phantom, phantom };
+}
+
+/** Reads a real .npy array (field maps) for the phantom stage. */
+function readRealNpy(path: string): { shape: number[]; data: ArrayLike<number> } {
+  let bytes: Uint8Array;
+  try {
+    bytes = readFileSync(path);
+  } catch {
+    throw new UserError(`cannot read the file (does it exist?)`, path);
+  }
+  const a = decodeNpy(bytes, path);
+  if (a.dtype === "complex64" || a.dtype === "complex128") throw new UserError(`expected a real array of Hz values, got ${a.dtype}`, path);
+  return { shape: a.shape, data: a.data as ArrayLike<number> };
 }
 
 export function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
@@ -99,7 +117,7 @@ export function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
 
 export function run(o: RunOptions): RunResult {
   const t0 = Date.now();
-  const { protocol, seq, iso } = prepare(o);
+  const { protocol, seq, iso, phantom } = prepare(o);
   const progress = new Progress("simulating", "iso-TR", o.quiet);
   const trs = seq.blocks.filter((b) => b.kind === "rf").length / seq.pulses.length;
   const { kspace, plan } = simulateSerial(seq, iso, {
@@ -135,15 +153,21 @@ export function run(o: RunOptions): RunResult {
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
       count: iso.count, columns: iso.columns, density: o.iso.density, sliceCount: o.iso.sliceCount,
-      sliceExtent: o.iso.sliceExtent, fatModel: o.iso.fatModel,
-      note: "T2* beyond T2 is not yet modelled by an intravoxel frequency spread; signal decays with T2 plus any B0 the phantom defines",
+      sliceExtent: o.iso.sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
+      t2primeSpread: iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count })),
+      note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines",
     },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: 1 },
     measurements: { imageMax: max },
+    fatShift: null as unknown,
     timingSeconds: seconds,
     warnings: iso.warnings,
   };
+  const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
+  report.fatShift = fx.report;
+  (report.warnings as string[]).push(...fx.warnings);
   const files = writeRunFolder(o.out, {
+    extra: o.truth ? truthFiles(fx.truth) : undefined,
     kspace: kv,
     image: { coils: 1, ...img },
     affine: voxelAffine(protocol, protocol.slice.thickness * 1e3),

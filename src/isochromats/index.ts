@@ -10,13 +10,21 @@
  * cell that one tissue fills (partial volume): m0 = PD · fraction ·
  * (1/density²) · (Δw/thickness), so a voxel filled with PD = 1 and an ideal
  * rectangular slice profile reconstructs to 1. A tissue holding fat gives one
- * isochromat per spectral peak, weighted by the peak amplitude.
+ * isochromat per spectral peak, weighted by the peak amplitude. A tissue with
+ * T2* < T2 carries a T2′ spread (spread.ts): N off-resonances from a Lorentzian
+ * of width 1/(πT2′) at deterministic quantiles, the same set in every voxel (so
+ * RF classes stay few), shared among the voxel's d² columns when N allows.
+ * Every isochromat's Δf = B0 model + global offset (shim) + chemical shift +
+ * spread offset.
  *
  * Isochromats sharing an in-plane grid position (a column) are contiguous.
  */
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
 import { cellContents, phantomBounds, type Phantom } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
+import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
+
+export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, NO_SPREAD, type Spread } from "./spread.js";
 
 export type FatModelChoice = "single" | "multi";
 
@@ -29,10 +37,33 @@ export interface IsochromatOptions {
   sliceExtent: number;
   /** Fat spectrum used unless a tissue says otherwise. */
   fatModel: FatModelChoice;
+  /**
+   * Isochromats per voxel (and per spectral peak) that carry the T2′ spread
+   * (see spread.ts for the accuracy table); 1 = no spread, the tissue then
+   * decays with T2 only plus whatever B0 the phantom defines. 1–1024.
+   */
+  t2primeIsochromats: number;
+  /** Global frequency offset added to every isochromat (Hz), e.g. the protocol's shim offset. */
+  offsetHz: number;
 }
 
+/**
+ * Default T2′ spread size: 16 per voxel (4 per column at the default density 2); the
+ * voxel FID follows exp(−t/T2′) within about 0.24 of M0 over 3·T2′ (table in spread.ts).
+ */
+export const DEFAULT_T2PRIME_ISOCHROMATS = 16;
+
 export function defaultIsochromatOptions(): IsochromatOptions {
-  return { density: 2, sliceCount: 12, sliceExtent: 3, fatModel: "multi" };
+  return { density: 2, sliceCount: 12, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: DEFAULT_T2PRIME_ISOCHROMATS, offsetHz: 0 };
+}
+
+/** The T2′ spread used for one tissue, for reports. */
+export interface TissueSpread {
+  tissue: string;
+  /** T2′ (s), Infinity without spread. */
+  t2prime: number;
+  /** Spread isochromats per voxel and peak. */
+  count: number;
 }
 
 /** Geometry of the sampled region and the voxel grid, in logical coordinates (m). */
@@ -74,6 +105,8 @@ export interface IsochromatSet {
   colStart: Int32Array;
   columns: number;
   warnings: string[];
+  /** T2′ spread per tissue (index as phantom.tissues). */
+  spreads: TissueSpread[];
 }
 
 class Growable {
@@ -185,6 +218,19 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
     (axes.slice[2] === 1 || axes.slice[2] === -1) && !Number.isFinite(bounds.min[2]) && !Number.isFinite(bounds.max[2]);
 
   const peaks = ph.tissues.map((t) => tissuePeaks(t.fatFraction, t.fatModel ?? opt.fatModel, fieldT));
+  // T2′ spread per tissue: the same frequency set in every voxel, so RF classes stay few.
+  const spreadN = Math.max(1, Math.round(opt.t2primeIsochromats ?? DEFAULT_T2PRIME_ISOCHROMATS));
+  const spreadOf: Spread[] = ph.tissues.map((t) => lorentzianSpread(r2prime(t.t2, t.t2star), spreadN));
+  const assign = spreadOf.map((sp) => spreadAssignment(sp, d * d));
+  const spreads: TissueSpread[] = ph.tissues.map((t, i) => {
+    const r = r2prime(t.t2, t.t2star);
+    return { tissue: t.name, t2prime: r > 0 ? 1 / r : Infinity, count: spreadOf[i]!.df.length };
+  });
+  const offsetHz = opt.offsetHz ?? 0;
+  if (spreadN === 1) {
+    const short = spreads.filter((s) => Number.isFinite(s.t2prime)).map((s) => s.tissue);
+    if (short.length) warnings.push(`T2* below T2 is not modelled (no T2′ spread: --t2prime-isochromats 1) for ${short.join(", ")}; these decay with T2 only`);
+  }
   const wWeight = dw / thickness / (d * d);
 
   const G = {
@@ -197,7 +243,8 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
   const e2 = [axes.phase[0] * dv, axes.phase[1] * dv, axes.phase[2] * dv];
   const e3 = [axes.slice[0] * dw, axes.slice[1] * dw, axes.slice[2] * dw];
   const r = [0, 0, 0];
-  const col: { c: number; ti: number; q: number; m0: number; b0: number; x: number; y: number; z: number }[] = [];
+  const col: { c: number; ti: number; q: number; k: number; m0: number; b0: number; x: number; y: number; z: number }[] = [];
+  const mod = (i: number) => ((i % d) + d) % d;
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
 
   for (let a = 0; a < nu; a++) {
@@ -206,6 +253,7 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
       const v = vGrid[b]!;
       let cachedCount = -1;
       col.length = 0;
+      const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
       for (let c = 0; c < nw; c++) {
         const w = wGrid[c]!;
         r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
@@ -222,22 +270,25 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
         for (let k = 0; k < n; k++) {
           const ti = cell.tissue[k]!;
           const pk = peaks[ti]!;
+          const as = assign[ti]![sub]!;
           for (let q = 0; q < pk.df.length; q++) {
             const m0 = ph.tissues[ti]!.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
             if (m0 === 0) continue;
-            col.push({ c, ti, q, m0, b0, x: r[0]!, y: r[1]!, z: r[2]! });
+            for (let j = 0; j < as.bins.length; j++) {
+              col.push({ c, ti, q, k: as.bins[j]!, m0: m0 * as.weight[j]!, b0, x: r[0]!, y: r[1]!, z: r[2]! });
+            }
           }
         }
       }
       // Order a column by (tissue, peak, w) so that isochromats with identical
       // readout factors are contiguous and the engine can sum them before the readout.
-      col.sort((p, q) => p.ti - q.ti || p.q - q.q || p.b0 - q.b0 || p.c - q.c);
+      col.sort((p, q) => p.ti - q.ti || p.q - q.q || p.k - q.k || p.b0 - q.b0 || p.c - q.c);
       for (const e of col) {
         const t = ph.tissues[e.ti]!;
         const pk = peaks[e.ti]!;
         G.iu.push(a); G.iv.push(b); G.iw.push(e.c);
         G.x.push(e.x); G.y.push(e.y); G.z.push(e.z);
-        G.m0.push(e.m0); G.r1.push(inv(t.t1)); G.r2.push(inv(t.t2)); G.df.push(e.b0 + pk.df[e.q]!);
+        G.m0.push(e.m0); G.r1.push(inv(t.t1)); G.r2.push(inv(t.t2)); G.df.push(e.b0 + offsetHz + pk.df[e.q]! + spreadOf[e.ti]!.df[e.k]!);
         G.tissue.push(e.ti); G.peak.push(pk.peak[e.q]!);
       }
       if (G.m0.length > colStart[colStart.length - 1]!) colStart.push(G.m0.length);
@@ -253,5 +304,6 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
     colStart: Int32Array.from(colStart),
     columns: colStart.length - 1,
     warnings,
+    spreads,
   };
 }

@@ -1,13 +1,20 @@
 /**
- * B0 offset models of a phantom file. For now only
- * `{ "expression": "40 * (x / 0.1)^2" }`: Hz as a function of x, y, z in
- * metres, parsed and compiled once with mathjs. The parsed tree is checked
- * against an allow-list before anything is compiled, so an expression can
- * only do arithmetic on x, y, z and constants.
+ * B0 offset models of a phantom file, in Hz at a position (m):
+ *   - `{ "expression": "40 * (x / 0.1)^2" }`: Hz as a function of x, y, z in
+ *     metres, parsed and compiled once with mathjs. The parsed tree is checked
+ *     against an allow-list before anything is compiled, so an expression can
+ *     only do arithmetic on x, y, z and constants;
+ *   - `{ "susceptibility": { "objects": [...] } }`: spheres and infinite
+ *     cylinders of Δχ in a uniform B0 along z, closed forms (susceptibility.ts);
+ *   - `{ "fieldMap": { "file": "map.npy", "origin": [...], "spacing": [...] } }`:
+ *     a measured or computed map in Hz (fieldmap.ts).
+ * Several may be given; their offsets add.
  */
 import type { MathNode } from "mathjs";
 import { joinPath, userError, type Origin } from "../errors.js";
 import { math } from "../units.js";
+import { parseSusceptibility } from "./susceptibility.js";
+import { parseFieldMap } from "./fieldmap.js";
 
 /** Symbols an expression may use. */
 export const B0_SYMBOLS = ["x", "y", "z", "pi", "e"] as const;
@@ -23,7 +30,7 @@ const OPERATORS = new Set(["add", "subtract", "multiply", "divide", "pow", "unar
 const SYMBOLS = new Set<string>(B0_SYMBOLS);
 const FUNCTIONS = new Set<string>(B0_FUNCTIONS);
 
-/** The b0 keys a phantom may have one of; only "expression" works yet. */
+/** The b0 keys a phantom may have; when several are given their offsets add. */
 export const B0_KINDS = ["expression", "susceptibility", "fieldMap"] as const;
 
 /** A compiled B0 model. */
@@ -33,33 +40,67 @@ export interface B0Model {
   description: string;
 }
 
+/** A real array read from a file: C order, shape [nz, ny, nx] or [ny, nx]. */
+export interface RealArray {
+  shape: number[];
+  data: ArrayLike<number>;
+}
+
+/**
+ * What parseB0 needs from outside the phantom stage: the main field (T) for
+ * susceptibility models, and a reader for field-map files (the phantom stage
+ * does not read .npy itself; the caller passes io's decoder in).
+ */
+export interface B0Context {
+  fieldT: number;
+  /** Folder relative file names are resolved against. */
+  baseDir: string;
+  /** Reads an .npy file of real numbers; throws UserError on a bad file. */
+  readArray?: (path: string) => RealArray;
+}
+
 /**
  * Parses the `b0` value of a phantom file (origin.path is its key path,
- * usually "b0"). Throws a UserError naming the key path for anything but
- * `{ "expression": string }` with an allowed expression.
+ * usually "b0"): any of { "expression": …, "susceptibility": …, "fieldMap": … };
+ * their offsets add. Throws a UserError naming the key path.
  */
-export function parseB0(raw: unknown, origin: Origin): B0Model {
+export function parseB0(raw: unknown, origin: Origin, ctx?: B0Context): B0Model {
   if (typeof raw !== "object" || raw === null || Array.isArray(raw)) {
-    throw userError(origin, `expected an object like { "expression": "40 * (x / 0.1)^2" } (Hz, x, y, z in m), got ${JSON.stringify(raw)}`);
+    throw userError(origin, `expected an object with one or more of ${B0_KINDS.join(", ")}, e.g. { "expression": "40 * (x / 0.1)^2" } (Hz, x, y, z in m), got ${JSON.stringify(raw)}`);
   }
   const obj = raw as Record<string, unknown>;
   const keys = Object.keys(obj);
   for (const k of keys) {
     if (!(B0_KINDS as readonly string[]).includes(k)) {
-      throw userError({ ...origin, path: joinPath(origin.path, k) }, `unknown key "${k}"; allowed: ${B0_KINDS.join(", ")} (only "expression" is supported yet)`);
+      throw userError({ ...origin, path: joinPath(origin.path, k) }, `unknown key "${k}"; allowed: ${B0_KINDS.join(", ")}`);
     }
   }
-  for (const k of ["susceptibility", "fieldMap"]) {
-    if (k in obj) {
-      throw userError({ ...origin, path: joinPath(origin.path, k) }, `only "expression" is supported yet; write b0 as { "expression": "..." } giving Hz with x, y, z in metres`);
-    }
+  if (keys.length === 0) throw userError(origin, `empty; give one or more of ${B0_KINDS.join(", ")}`);
+  const parts: B0Model[] = [];
+  if ("expression" in obj) {
+    const exprOrigin = { ...origin, path: joinPath(origin.path, "expression") };
+    parts.push({ fn: compileB0Expression(obj.expression, exprOrigin), description: `expression ${JSON.stringify(obj.expression)} (Hz; x, y, z in m)` });
   }
-  if (!("expression" in obj)) {
-    throw userError(origin, `missing "expression"; write b0 as { "expression": "40 * (x / 0.1)^2" } (Hz, x, y, z in m)`);
+  if ("susceptibility" in obj) {
+    const o = { ...origin, path: joinPath(origin.path, "susceptibility") };
+    if (!ctx) throw new Error("parseB0: a susceptibility model needs the field strength (B0Context)");
+    parts.push(parseSusceptibility(obj.susceptibility, o, ctx.fieldT));
   }
-  const exprOrigin = { ...origin, path: joinPath(origin.path, "expression") };
-  const fn = compileB0Expression(obj.expression, exprOrigin);
-  return { fn, description: `expression ${JSON.stringify(obj.expression)} (Hz; x, y, z in m)` };
+  if ("fieldMap" in obj) {
+    const o = { ...origin, path: joinPath(origin.path, "fieldMap") };
+    if (!ctx) throw new Error("parseB0: a field map needs a B0Context");
+    parts.push(parseFieldMap(obj.fieldMap, o, ctx));
+  }
+  if (parts.length === 1) return parts[0]!;
+  const fns = parts.map((p) => p.fn);
+  return {
+    fn: (x, y, z) => {
+      let v = 0;
+      for (const f of fns) v += f(x, y, z);
+      return v;
+    },
+    description: parts.map((p) => p.description).join(" + "),
+  };
 }
 
 /**

@@ -16,4 +16,7 @@ export {
 } from "./tissues.js";
 export { Shape, makeShape, type ShapeSpec, type ShapeType, type Axis } from "./shapes.js";
 export { cellContents, phantomBounds, DEFAULT_SUB, type CellContents } from "./cells.js";
-export { parseB0, compileB0Expression, B0_SYMBOLS, B0_FUNCTIONS, B0_KINDS, type B0Model } from "./b0.js";
+export { parseB0, compileB0Expression, B0_SYMBOLS, B0_FUNCTIONS, B0_KINDS, type B0Model, type B0Context, type RealArray } from "./b0.js";
+export { chiFieldRatio, parseSusceptibility, type ChiObject } from "./susceptibility.js";
+export { fieldMapSampler, parseFieldMap } from "./fieldmap.js";
+export type { PhantomLoadOptions } from "./load.js";

@@ -8,9 +8,10 @@
  *   - cylinder "axis" may be left out and then is "z".
  */
 import { readFileSync } from "node:fs";
+import { dirname } from "node:path";
 import { joinPath, userError, type Origin } from "../errors.js";
 import { KINDS, plainNumber, positive as positiveSI, quantity as quantitySI, type QuantityKind } from "../units.js";
-import { parseB0 } from "./b0.js";
+import { parseB0, type RealArray } from "./b0.js";
 import { makeShape, type Axis, type Shape, type ShapeSpec, type ShapeType } from "./shapes.js";
 import { isLibraryTissue, libraryNames, libraryTissue } from "./tissues.js";
 import type { FatModel, Phantom, Tissue } from "./types.js";
@@ -36,7 +37,7 @@ const AXES: Axis[] = ["x", "y", "z"];
  * tissue values (see libraryTissue). Throws a UserError for a file that
  * cannot be read or is not valid JSON, naming line and column.
  */
-export function loadPhantom(file: string, fieldT: number): Phantom {
+export function loadPhantom(file: string, fieldT: number, opts: PhantomLoadOptions = {}): Phantom {
   let text: string;
   try {
     text = readFileSync(file, "utf8");
@@ -45,7 +46,12 @@ export function loadPhantom(file: string, fieldT: number): Phantom {
     const why = code === "ENOENT" ? "no such file" : code === "EISDIR" ? "it is a directory" : (err as Error).message;
     throw userError({ file }, `cannot read the phantom file: ${why}`);
   }
-  return parsePhantom(parseJsonText(text, file), file, fieldT);
+  return parsePhantom(parseJsonText(text, file), file, fieldT, opts);
+}
+
+/** Outside help a phantom may need: a reader for field-map (.npy) files. */
+export interface PhantomLoadOptions {
+  readArray?: (path: string) => RealArray;
 }
 
 /** JSON.parse with a UserError that says where (line, column) the text is broken. */
@@ -76,7 +82,7 @@ export function parseJsonText(text: string, file: string): unknown {
  * compiled, library tissues resolved at `fieldT` tesla, b0 compiled).
  * `file` is used in messages only.
  */
-export function parsePhantom(json: unknown, file: string, fieldT: number): Phantom {
+export function parsePhantom(json: unknown, file: string, fieldT: number, opts: PhantomLoadOptions = {}): Phantom {
   if (!(fieldT > 0) || !Number.isFinite(fieldT)) throw new RangeError(`parsePhantom: field strength must be a positive number of tesla, got ${fieldT}`);
   const root: Origin = { file, path: "" };
   const top = expectObject(json, root, "a phantom object with keys name, shapes and optionally description, tissues, b0");
@@ -135,7 +141,7 @@ export function parsePhantom(json: unknown, file: string, fieldT: number): Phant
   let b0Description: string | null = null;
   if (top.b0 !== undefined) {
     const bOrigin = at(root, "b0");
-    const model = parseB0(top.b0, bOrigin);
+    const model = parseB0(top.b0, bOrigin, { fieldT, baseDir: dirname(file), readArray: opts.readArray });
     probeB0(model.fn, shapes);
     b0 = model.fn;
     b0Description = model.description;

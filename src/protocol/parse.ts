@@ -118,7 +118,7 @@ const TOP_KEYS = [
   "extend", "name", "description", "sequence", "field", "fov", "matrix", "slice", "phaseDirection",
   "bandwidth", "te", "tr", "flip", "refocusFlip", "oversampling", "receiverFilter", "hardware",
   "excitation", "refocusing", "spoiling", "rfSpoilIncrement", "dummyScans", "phaseOrder", "averages",
-  "crusherCycles", "spoilerCycles",
+  "crusherCycles", "spoilerCycles", "shim",
 ] as const;
 
 function checkKeys(obj: Obj, allowed: readonly string[], origin: Origin): void {
@@ -266,6 +266,8 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const crusherCycles = obj["crusherCycles"] === undefined ? 4 : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
   const spoilerCycles = obj["spoilerCycles"] === undefined ? 4 : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
 
+  const shim = obj["shim"] === undefined ? 0 : quantity(obj["shim"], "frequency", at("shim"));
+
   return {
     sequence, field,
     fov: { read: fovRead, phase: fovPhase },
@@ -278,7 +280,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
     receiverFilter,
     hardware: { gmax, slew },
     excitation, refocusing, spoiling, rfSpoilIncrement, dummyScans, phaseOrder, averages,
-    crusherCycles, spoilerCycles,
+    crusherCycles, spoilerCycles, shim,
   };
 }
 

@@ -73,4 +73,6 @@ export interface Protocol {
   crusherCycles: number;
   /** Spoiler area at the end of each TR, in cycles across the slice thickness. */
   spoilerCycles: number;
+  /** Shim offset: a global frequency offset (Hz) of every spin from the receiver/transmitter centre frequency. */
+  shim: number;
 }
