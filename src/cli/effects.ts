@@ -55,7 +55,7 @@ export function fatShiftReport(
     note:
       "signed along the positive logical axis (read, phase) or slice normal; direction names the physical axis. " +
       "Predicted for the main methylene peak (−3.4 ppm, Hamilton et al. 2011) and for the amplitude-weighted six-peak mean; " +
-      "with the multi-peak model the measured centroid lies between them. Slice shift is predicted only (a 2D image cannot show it).",
+      "with the multi-peak model each peak makes its own shifted copy, and the copies add with TE-dependent phases, so the measured shift lies near these values but need not equal either; use --fat-model single for a clean comparison. Slice shift is predicted only (a 2D image cannot show it).",
     predicted: {
       readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction },
       slice: { mm: main.slice.m * 1e3, direction: main.slice.direction, note: main.slice.note },
