@@ -8,6 +8,7 @@ import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
 import { addSimulationOptions, collect, isoOptions, repoRoot } from "./options.js";
+import { registerProtocol } from "./protocol.js";
 
 const program = new Command();
 program
@@ -45,6 +46,8 @@ addSimulationOptions(
   console.log(`wrote ${r.files.join(", ")} to ${resolve(r.dir)} in ${r.seconds.toFixed(1)} s`);
   console.log(`look at ${join(r.dir, "image.png")}; the oil bottle sits shifted along the readout by the fat–water shift`);
 });
+
+registerProtocol(program);
 
 async function main(): Promise<void> {
   try {
