@@ -53,19 +53,23 @@ export function buildEpi(p: Protocol): Sequence {
   const before = spin ? lobes([0, 0, crush - exc.areaAfterCentre], p, demand) : null;
   const crushAfter = spin ? lobes([0, 0, crush], p, demand) : null;
 
-  // Echo of the centre line: shot (c − first) mod S, echo index ec.
+  // Echo of the centre line: shot sc = (c − first) mod S, echo index ec.
   const ec = Math.floor((pe.centre - pe.first) / S);
+  const sc = (pe.centre - pe.first) % S;
+  // Echo-time shifting (Feinberg & Oshio 1994, MRM 32:535): shot s starts its train s·ESP/S later,
+  // so line l is read at T_c + (l − c)·ESP/S and the off-resonance phase is linear across all lines.
+  const shift = (s: number) => (s * esp) / S;
   const ro = (e: number) => (e % 2 === 0 ? pos : neg);
   const echoTime = (e: number) => e * esp + ro(e).toEcho; // from the start of the first readout lobe
   // time from the excitation centre to the first readout lobe, minimum
   let teMin: number, startDelay: number, d1 = 0, d2 = 0;
   if (!spin) {
-    teMin = exc.afterCentre + prep.duration + echoTime(ec);
+    teMin = exc.afterCentre + prep.duration + echoTime(ec) + shift(sc);
     requireAtLeast("te", p.te, teMin);
     startDelay = p.te - teMin;
   } else {
     const half1 = exc.afterCentre + before!.duration + ref!.toCentre;
-    const half2 = ref!.afterCentre + Math.max(crushAfter!.duration, 0) + prep.duration + echoTime(ec);
+    const half2 = ref!.afterCentre + crushAfter!.duration + prep.duration + echoTime(ec) + shift(sc);
     teMin = 2 * Math.max(half1, half2);
     requireAtLeast("te", p.te, teMin);
     d1 = p.te / 2 - half1;
@@ -75,8 +79,9 @@ export function buildEpi(p: Protocol): Sequence {
   const spoilArea = p.spoiling === "none" ? 0 : p.spoilerCycles / (GAMMA_BAR * p.slice.thickness);
   const post = lobes([0, (pe.lines - pe.centre) * pe.step, spoilArea], p, demand);
   const trainTime = E * esp - gapExtra;
+  // from the excitation centre to the start of shot 0's train; shot s adds shift(s)
   const toTrain = spin ? p.te / 2 + ref!.afterCentre + crushAfter!.duration + d2 + prep.duration : exc.afterCentre + startDelay + prep.duration;
-  const active = exc.toCentre + toTrain + trainTime + post.duration;
+  const active = exc.toCentre + toTrain + shift(S - 1) + trainTime + post.duration;
   requireAtLeast("tr", p.tr, active, `for ${E} echoes of ${(esp * 1e3).toFixed(3)} ms`);
   const trDelay = p.tr - active;
 
@@ -94,6 +99,7 @@ export function buildEpi(p: Protocol): Sequence {
       pushPulse(blocks, ref!, Math.PI / 2);
       blocks.push({ kind: "free", duration: crushAfter!.duration + d2, area: [0, 0, crush] });
     } else if (startDelay > 0) blocks.push({ kind: "free", duration: startDelay, area: [0, 0, 0] });
+    if (shift(shot) > 0) blocks.push({ kind: "free", duration: shift(shot), area: [0, 0, 0] });
     const line0 = pe.first + shot;
     let peAcc = (line0 - pe.centre) * pe.step;
     blocks.push({ kind: "free", duration: prep.duration, area: [pos.prephaser, peAcc, spin ? 0 : -exc.areaAfterCentre] });
@@ -106,7 +112,7 @@ export function buildEpi(p: Protocol): Sequence {
       if (acq >= 0) {
         blocks.push({ kind: "adc", samples: r.samples, dwell: r.dwell, grad: [g, 0, 0], row: line, phase: 0, weight: 1 / p.averages });
         reversed[line] = r.polarity < 0 ? 1 : 0;
-        echoTimes[line] = p.te + (e - ec) * esp + (r.toEcho - ro(ec).toEcho);
+        echoTimes[line] = p.te + (e - ec) * esp + (r.toEcho - ro(ec).toEcho) + shift(shot) - shift(sc);
         if (acq % p.averages === 0) table.push({ line, area: (line - pe.centre) * pe.step });
       } else blocks.push({ kind: "free", duration: r.flat, area: [g * r.flat, 0, 0] });
       const last = e === E - 1;
