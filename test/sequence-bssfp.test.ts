@@ -40,7 +40,6 @@ describe("bSSFP steady state vs off-resonance (Freeman & Hill 1971; Scheffler & 
   // 1/(2TR) = 100 Hz is the first dark band; 200 Hz = 1/TR is back on a bright peak.
   const offsets = [0, 25, 60, 85, 100, 115, 200];
   const measured = offsets.map(measure);
-  if (process.env.SHOW) console.log(offsets.map((df, i) => `${df}: ${measured[i]!.toFixed(5)} vs ${closedForm(df, tr, te, t1, t2, alpha).toFixed(5)}`).join("\n"));
   it.each(offsets.map((df, i) => [df, i]))("Δf = %d Hz: image value matches the closed form within 1 % of the on-resonance value", (df, i) => {
     const want = closedForm(df, tr, te, t1, t2, alpha);
     const peak = closedForm(0, tr, te, t1, t2, alpha);

@@ -28,7 +28,6 @@ function shiftPx(over: Record<string, unknown>, df: number) {
   const lines = b.seq.kspace.phase;
   const predicted = (df * lines * esp) / p.shots;
   const measured = phaseShift(a.image, b.image, n, m);
-  if (process.env.SHOW) console.log(JSON.stringify(over), df, predicted, measured);
   return { predicted, measured, a, b };
 }
 
