@@ -32,13 +32,17 @@ describe("isofold protocol", () => {
   it("prints the derived table for every preset", async () => {
     for (const preset of listPresets()) {
       const out = await inProcess(preset);
-      for (const key of ["totalBandwidth", "halfBandwidth", "fatShiftRead", "pixelBandwidth", "dwell", "deltaKRead", "kMaxPhase", "teMin", "trMin", "scanTime", "relativeSnr", "peakGradientRead", "phaseEncodeTable", "readoutDuration"]) {
+      for (const key of ["totalBandwidth", "halfBandwidth", "fatShiftRead", "pixelBandwidth", "dwell", "deltaKRead", "kMaxPhase", "teMin", "trMin", "scanTime", "relativeSnr", "peakGradientRead", "phaseEncodeTable", "readoutDuration", "prephaserDuration", "readGradient"]) {
         expect(out, `${preset} lacks ${key}`).toContain(key);
       }
     }
     expect(await inProcess("rare-t2-1.5t")).toMatch(/effectiveTe\s+96 ms/);
     expect(await inProcess("epi-1.5t")).toMatch(/echoSpacing\s+0\.81188 ms/);
     expect(await inProcess("se-t1-multislice-1.5t")).toMatch(/sliceOrder\s+1, 3, 5, 7, 9, 11, 2, 4, 6, 8, 10/);
+  });
+
+  it("--reference: SNR relative to another protocol, here √(48/64) for 6/8 partial Fourier", async () => {
+    expect(await inProcess("epi-se-1.5t", "--reference", "epi-1.5t")).toMatch(/snrVsReference\s+0\.86603/);
   });
 
   it("--json holds SI values, the derived quantities and the phase-encode table", async () => {

@@ -28,7 +28,9 @@ const PROTOCOL_UNITS: Record<string, string> = {
 
 function show(value: number | string, unit: string): string {
   if (typeof value === "string") return value;
-  const [u, f] = DISPLAY[unit] ?? [unit, 1];
+  let [u, f] = DISPLAY[unit] ?? [unit, 1];
+  if (unit === "s" && Math.abs(value) >= 10) [u, f] = ["s", 1];
+  if (unit === "Hz" && Math.abs(value) >= 1e4) [u, f] = ["kHz", 1e-3];
   const v = value * f;
   const txt = Number.isInteger(v) ? String(v) : Number(v.toPrecision(5)).toString();
   return u ? `${txt} ${u}` : txt;
@@ -68,7 +70,8 @@ export function registerProtocol(program: Command): void {
     .argument("<file>", `protocol file (JSON) or bundled preset name (${listPresets().join(", ")})`)
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set te="8 ms"', collect, [])
     .option("--json", "print JSON (SI values) instead of the table")
-    .action((file: string, o: { set: string[]; json?: boolean }) => {
+    .option("--reference <file>", "also state the SNR relative to this protocol (file or preset), ∝ voxel·√(N_avg·N_lines·N_part·T_adc)")
+    .action((file: string, o: { set: string[]; json?: boolean; reference?: string }) => {
       const p = loadProtocol(file, o.set);
       let seq: Sequence;
       try {
@@ -86,6 +89,21 @@ export function registerProtocol(program: Command): void {
         );
       }
       const derived = protocolSummary(p, seq);
+      if (o.reference) {
+        const ref = loadProtocol(o.reference);
+        let rseq: Sequence;
+        try {
+          rseq = buildSequence(ref);
+        } catch (e) {
+          if (e instanceof UserError) throw e.inFile(o.reference);
+          throw e;
+        }
+        derived["snrVsReference"] = {
+          value: (seq.derived["relativeSnr"]!.value as number) / (rseq.derived["relativeSnr"]!.value as number),
+          unit: "",
+          note: `SNR relative to ${o.reference} (same tissue and contrast assumed)`,
+        };
+      }
       const axes = logicalAxes(p);
       if (o.json) {
         process.stdout.write(JSON.stringify({

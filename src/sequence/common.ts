@@ -283,6 +283,7 @@ export function commonDerived(
     readoutDuration: { value: ro.flat, unit: "s", note: "ADC window (= 1/pixel bandwidth without asymmetric echo)" },
     readGradient: { value: ro.gradient, unit: "T/m", note: "G = BW/(γ̄·FOV), signed by the readout polarity" },
     readRamp: { value: ro.ramp, unit: "s" },
+    readLobeDuration: { value: ro.duration, unit: "s", note: "ramp + plateau + ramp" },
     readPrephaserArea: { value: ro.prephaser, unit: "T·s/m" },
     deltaKRead: { value: dkRead, unit: "1/m", note: "Δk = 1/FOV" },
     kMaxRead: { value: (p.matrix.read * dkRead) / 2, unit: "1/m", note: "k_max = N·Δk/2 = 1/(2Δx)" },

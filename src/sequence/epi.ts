@@ -138,6 +138,8 @@ export function buildEpi(p: Protocol): Sequence {
   derived["phasePixelBandwidth"] = { value: 1 / dispPerHz, unit: "Hz/px", note: "shots/(ESP·N_lines): Δy_px = Δf/BW_px,phase (Jezzard & Balaban 1995)" };
   derived["fatShiftPhase"] = { value: 3.4e-6 * GAMMA_BAR * p.field * dispPerHz, unit: "px", note: "fat at 3.4 ppm, along phase" };
   derived["trainDuration"] = { value: trainTime, unit: "s" };
+  derived["prephaserDuration"] = { value: prep.duration, unit: "s" };
+  derived["prephaserReadAmplitude"] = { value: prep.trap[0]!.amplitude, unit: "T/m" };
   derived["teMin"] = { value: teMin, unit: "s" };
   derived["trMin"] = { value: active, unit: "s" };
   derived["scanTime"] = { value: scanTime, unit: "s" };

@@ -134,6 +134,8 @@ export function buildRare(p: Protocol): Sequence {
   derived["teMin"] = { value: espMin, unit: "s", note: "first echo at the shortest echo spacing" };
   derived["trMin"] = { value: active, unit: "s" };
   derived["crusherArea"] = { value: crush, unit: "T·s/m" };
+  derived["prephaserDuration"] = { value: l1.duration, unit: "s", note: "read prephaser before the first refocusing pulse" };
+  derived["prephaserReadAmplitude"] = { value: l1.trap[0]!.amplitude, unit: "T/m" };
   derived["scanTime"] = { value: scanTime, unit: "s" };
   return {
     name: "2D RARE (fast spin echo)",
