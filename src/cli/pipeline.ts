@@ -120,13 +120,18 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
       protocol.field,
       isoOpts,
     );
-    if (iso.count === 0) {
+    if (iso.count === 0 && ms.positions.length === 1) {
       throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
     }
+    if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
     slices.push({ position, seq, iso });
   }
-  return { protocol, seq: slices[0]!.seq, iso: slices[0]!.iso, phantomFile: o.phantom, slices };
+  if (slices.every((sl) => sl.iso.count === 0)) {
+    throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, o.protocol, "slice.position");
+  }
+  const first = slices.find((sl) => sl.iso.count > 0)!;
+  return { protocol, seq: first.seq, iso: first.iso, phantomFile: o.phantom, slices };
 }
 
 /** 3×4 voxel → RAS+ (mm) affine; `spacingMm` and `firstMm` place index 0 and the step along the slice axis. */
