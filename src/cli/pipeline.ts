@@ -88,6 +88,9 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
   const phantom = loadPhantom(o.phantom, protocol.field);
   const axes = logicalAxes(protocol);
   const isoOpts = isoOptionsFor(protocol, o.iso);
+  const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
+    ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
+    : null;
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
     const p = { ...protocol, slice: { ...protocol.slice, position } };
@@ -125,6 +128,7 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
     }
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
+    if (raised && slices.length === 0) iso.warnings.push(raised);
     slices.push({ position, seq, iso });
   }
   if (slices.every((sl) => sl.iso.count === 0)) {

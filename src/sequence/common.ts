@@ -110,14 +110,12 @@ export function readoutPlan(p: Protocol, opts: { polarity?: 1 | -1; symmetric?: 
 }
 
 /** Ramp-up, (pre-plateau), ADC, ramp-down of the readout, writing row `row`. */
-export function pushReadout(blocks: Block[], ro: ReadoutPlan, row: number, phase: number, weight: number, extraDown: Vec3 = [0, 0, 0]): void {
+export function pushReadout(blocks: Block[], ro: ReadoutPlan, row: number, phase: number, weight: number): void {
   const g = ro.gradient;
   if (ro.ramp > 0) blocks.push({ kind: "free", duration: ro.ramp, area: [(g * ro.ramp) / 2, 0, 0] });
   if (ro.preFlat > 0) blocks.push({ kind: "free", duration: ro.preFlat, area: [g * ro.preFlat, 0, 0] });
   blocks.push({ kind: "adc", samples: ro.samples, dwell: ro.dwell, grad: [g, 0, 0], row, phase, weight });
-  if (ro.ramp > 0 || extraDown[1] !== 0 || extraDown[2] !== 0) {
-    blocks.push({ kind: "free", duration: ro.ramp, area: [(g * ro.ramp) / 2 + extraDown[0], extraDown[1], extraDown[2]] });
-  }
+  if (ro.ramp > 0) blocks.push({ kind: "free", duration: ro.ramp, area: [(g * ro.ramp) / 2, 0, 0] });
 }
 
 /** The readout lobe played without sampling (dummy TRs): same duration and area. */

@@ -94,6 +94,9 @@ export interface Sequence {
   phaseTable: { line: number; area: number }[];
   /** Time of one TR's active part (s), for multi-slice packing: excitation to the end of the last gradient. */
   activeTime: number;
-  /** Acquired rows in order with their echo time (s) from excitation, where it varies along the train (RARE, EPI). */
+  /**
+   * Echo time (s) of each phase line of the full grid — excitation centre to the line's k = 0 sample —
+   * where it varies along an echo train (RARE, EPI); NaN for lines not acquired.
+   */
   echoTimes?: Float64Array;
 }
