@@ -99,3 +99,31 @@ describe("3D spoiled gradient echo: a sphere reconstructs as a sphere", () => {
     for (let q = 0; q < 10; q++) expect(Math.abs(part[q]! - part[19 - q]!)).toBeLessThan(0.02 * centre);
   });
 });
+
+describe("multi-slice: each slice is its own run at its own position, stacked in spatial order", () => {
+  it("slices at z = −2, 0, +2 cm through a sphere of radius 3 cm centred at z = 0.5 cm show discs of radius √(R² − (z − 0.5 cm)²), in that order", async () => {
+    const { mkdtempSync, writeFileSync, readFileSync } = await import("node:fs");
+    const { tmpdir } = await import("node:os");
+    const { join } = await import("node:path");
+    const { run, defaultIsochromatOptions } = await import("../src/cli/pipeline.js");
+    const { decodeNpy } = await import("../src/io/npy.js");
+    const dir = mkdtempSync(join(tmpdir(), "isofold-ms-"));
+    const phFile = join(dir, "sphere.json"), prFile = join(dir, "ms.json");
+    writeFileSync(phFile, JSON.stringify({ name: "sphere", tissues: { gel: { pd: 1, t1: "20 ms", t2: "20 ms", t2star: "20 ms", species: "water" } },
+      shapes: [{ shape: "sphere", center: ["0 cm", "0 cm", "0.5 cm"], radius: "3 cm", tissue: "gel" }] }));
+    writeFileSync(prFile, JSON.stringify({ sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 32, phase: 32 },
+      slice: { thickness: "2 mm", position: "0 mm", orientation: "axial" }, slices: { count: 3, gap: "18 mm", order: "interleaved" },
+      bandwidth: "250 Hz/px", te: "6 ms", tr: "100 ms", flip: "90 deg", excitation: { shape: "sinc", duration: "2 ms", tbw: 4 } }));
+    run({ phantom: phFile, protocol: prFile, sets: [], out: join(dir, "run"), seed: 1, iso: { ...defaultIsochromatOptions(), density: 1, sliceCount: 12, sliceExtent: 3 }, quiet: true });
+    const img = decodeNpy(readFileSync(join(dir, "run", "image.npy")));
+    expect(img.shape).toEqual([1, 3, 32, 32]);
+    const re = img.data.re as Float64Array | Float32Array, im = img.data.im as Float64Array | Float32Array;
+    const radiiPx = [-2, 0, 2].map((z) => Math.sqrt(9 - (z - 0.5) ** 2) / 0.5);
+    for (let s = 0; s < 3; s++) {
+      const o = s * 1024;
+      const row = Array.from({ length: 32 }, (_, x) => Math.hypot(re[o + 16 * 32 + x]!, im[o + 16 * 32 + x]!));
+      const width = halfMaxWidth(row, 0.5 * row[16]!);
+      expect(Math.abs(width / 2 - radiiPx[s]!)).toBeLessThan(0.5);
+    }
+  }, 20000);
+});
