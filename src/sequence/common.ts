@@ -12,6 +12,7 @@
 import { GAMMA_BAR } from "../constants.js";
 import { UserError } from "../errors.js";
 import type { Protocol, PulseSpec } from "../protocol/types.js";
+import { logicalAxes } from "../protocol/geometry.js";
 import { makePulse } from "./rf.js";
 import { minTrapezoid, rampTime, type Trapezoid } from "./trapezoid.js";
 import type { Block, Derived, RFWaveform, Vec3 } from "./types.js";
@@ -314,10 +315,33 @@ export function commonDerived(
   return d;
 }
 
-/** Peak gradient and slew per logical axis vs the hardware, with margin = 1 − demand/limit. */
+/**
+ * Peak gradient and slew per logical axis vs the hardware, with margin = 1 − demand/limit. The limits
+ * are applied per logical axis; for an oblique slice the bound on a physical axis is reported beside them.
+ */
 export function demandDerived(p: Protocol, demand: Demand): Record<string, Derived> {
   const out: Record<string, Derived> = {};
   const names = ["Read", "Phase", "Slice"];
+  const ax = logicalAxes(p);
+  if (ax.angle !== 0) {
+    // oblique: a physical axis carries Σ_l |axis_l[k]|·G_l at most (lobes on different logical axes may coincide)
+    let worst = 0, worstSlew = 0;
+    for (let k = 0; k < 3; k++) {
+      const dirs = [ax.read, ax.phase, ax.slice];
+      let g = 0, sl = 0;
+      for (let l = 0; l < 3; l++) {
+        g += Math.abs(dirs[l]![k]!) * demand.gradient[l]!;
+        sl += Math.abs(dirs[l]![k]!) * demand.slew[l]!;
+      }
+      worst = Math.max(worst, g);
+      worstSlew = Math.max(worstSlew, sl);
+    }
+    out["peakGradientPhysicalBound"] = {
+      value: worst, unit: "T/m",
+      note: `oblique: upper bound on one physical axis; ${worst > p.hardware.gmax ? "may exceed" : "within"} gmax if lobes coincide`,
+    };
+    out["peakSlewPhysicalBound"] = { value: worstSlew, unit: "T/m/s", note: `${worstSlew > p.hardware.slew ? "may exceed" : "within"} slew` };
+  }
   for (let a = 0; a < 3; a++) {
     out[`peakGradient${names[a]}`] = {
       value: demand.gradient[a]!, unit: "T/m",
