@@ -67,6 +67,9 @@ const CASES: [string, Record<string, unknown>][] = [
   ["GE-EPI", { sequence: "epi", te: "30 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
   ["SE-EPI, partial Fourier", { sequence: "epi", epiEcho: "spin", te: "60 ms", tr: "500 ms", bandwidth: "2000 Hz/px", partialFourier: { phase: 0.75 } }],
   ["GE-EPI, 4 shots", { sequence: "epi", shots: 4, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
+  ["GE-EPI, 2 shots, negative first line, asymmetric echo", { sequence: "epi", shots: 2, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px", readoutPolarity: "negative", partialFourier: { read: 0.8 } }],
+  ["bSSFP, negative readout, 3 dummies", { sequence: "bssfp", te: "3 ms", tr: "6 ms", bandwidth: "600 Hz/px", readoutPolarity: "negative", dummyScans: 3 }],
+  ["3D GRE, partial Fourier in phase, odd partitions", { sequence: "gre3d", matrix: { partitions: 7 }, slice: { thickness: "3 mm" }, partialFourier: { phase: 0.7 } }],
 ];
 
 describe("block walk: k = 0 at the centre line's echo sample, at TE (direct sum over blocks)", () => {
