@@ -18,7 +18,7 @@ import {
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
-import { prepare, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
+import { prepare, readRealNpy, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
 import { Progress } from "./progress.js";
 
 export interface DatasetCliOptions {
@@ -120,6 +120,12 @@ interface Plan {
 /** Validates every flag and file before any work; throws UserError. */
 export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const protocol = loadProtocol(o.protocol, o.set);
+  if (protocol.slices.count > 1) {
+    throw new UserError(`datasets hold one slice or one 3D slab; set slices.count to 1 (or use a 3D protocol)`, o.protocol, "slices.count");
+  }
+  if (protocol.partialFourier.phase < 1 || protocol.partialFourier.read < 1) {
+    throw new UserError(`datasets apply partial Fourier as a sampling mask; set partialFourier to 1 and pass --partial-fourier instead`, o.protocol, "partialFourier");
+  }
   let seq;
   try {
     seq = buildSequence(protocol);
@@ -127,7 +133,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     if (e instanceof UserError) throw e.inFile(o.protocol);
     throw e;
   }
-  const phantom = loadPhantom(phantomFile, protocol.field);
+  const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const count = int(o.count, "--count", 1, 100000);
   const vary = parseVary(o.vary);
   // mask
@@ -235,7 +241,7 @@ export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: n
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
     const r = buildCase(seq, set, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
-      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
+      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter }, i,
     (d, t) => progress.update(d, t));
     progress.done();

@@ -9,6 +9,7 @@ import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
 import { addSimulationOptions, collect, isoOptions, repoRoot } from "./options.js";
 import { registerDataset } from "./dataset.js";
+import { registerProtocol } from "./protocol.js";
 
 const program = new Command();
 program
@@ -49,6 +50,7 @@ addSimulationOptions(
 });
 
 registerDataset(program);
+registerProtocol(program);
 
 async function main(): Promise<void> {
   try {

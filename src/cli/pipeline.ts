@@ -6,12 +6,12 @@ import { readFileSync } from "node:fs";
 import { createRequire } from "node:module";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
-import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
+import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../protocol/index.js";
 import { loadPhantom, type Phantom } from "../phantom/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
 import { simulateSerial } from "../engine/index.js";
-import { reconstructCartesian, magnitude } from "../recon/reconstruct.js";
+import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon/reconstruct.js";
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { decodeNpy } from "../io/npy.js";
@@ -55,42 +55,101 @@ export interface RunResult {
   report: Record<string, unknown>;
 }
 
-/** Loads and checks every input; throws UserError before any work or file. */
-export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; phantom: Phantom } {
-  const protocol = loadProtocol(o.protocol, o.sets);
-  let seq: Sequence;
-  try {
-    seq = buildSequence(protocol);
-  } catch (e) {
-    if (e instanceof UserError) throw e.inFile(o.protocol);
-    throw e;
+/** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
+export interface SliceRun {
+  position: number;
+  seq: Sequence;
+  iso: IsochromatSet;
+}
+
+/**
+ * Isochromat options for a protocol. A crusher or spoiler of c cycles across
+ * the slice is only simulated faithfully when the through-slice isochromats
+ * resolve it: with n isochromats per thickness, Σ exp(i2π·c·w/thickness)
+ * vanishes only if c·m/n is not a whole number for the pathway orders m that
+ * matter, so n ≥ 4c + 1 with refocusing pulses (echo-train pathways mix up to
+ * ~4 crusher orders) and n ≥ 2c + 1 with non-ideal spoiling.
+ * 3D: the through-slab grid covers M partitions (the N of the slab plus a
+ * margin of ⌈N/8⌉ on each side for the slab profile's skirts, which then wrap
+ * along partitions as on a scanner), at least `density` isochromats per
+ * partition, weighted per partition thickness.
+ */
+export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
+  const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
+  let perThk = 0;
+  if (refocused) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
+  if (p.spoiling !== "ideal" && p.sequence !== "bssfp") perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
+  if (p.sequence !== "gre3d") {
+    return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
   }
+  const n = p.matrix.partitions;
+  const m = n + 2 * Math.ceil(n / 8);
+  const per = Math.max(iso.density, perThk);
+  return { ...iso, sliceCount: m * per, sliceExtent: m };
+}
+
+/** Loads and checks every input; throws UserError before any work or file. */
+export function prepare(o: RunOptions): {
+  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom;
+} {
+  const protocol = loadProtocol(o.protocol, o.sets);
+  const ms = slicePositions(protocol);
   const loaded = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
   const phantom = o.phantomTransform ? o.phantomTransform(loaded) : loaded;
   const axes = logicalAxes(protocol);
-  const iso = makeIsochromats(
-    phantom,
-    {
-      axes,
-      dx: protocol.fov.read / protocol.matrix.read,
-      dy: protocol.fov.phase / protocol.matrix.phase,
-      thickness: protocol.slice.thickness,
-      position: protocol.slice.position,
-      clipRead: protocol.fov.read * protocol.oversampling.read,
-      clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
-    },
-    protocol.field,
-    { ...o.iso, offsetHz: protocol.shim },
-  );
-  if (iso.count === 0) {
-    throw new UserError(`no part of the phantom lies in the slice at ${(protocol.slice.position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
+  const isoOpts = { ...isoOptionsFor(protocol, o.iso), offsetHz: protocol.shim };
+  const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
+    ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
+    : null;
+  const slices: SliceRun[] = [];
+  for (const position of ms.positions) {
+    const p = { ...protocol, slice: { ...protocol.slice, position } };
+    let seq: Sequence;
+    try {
+      seq = buildSequence(p);
+    } catch (e) {
+      if (e instanceof UserError) throw e.inFile(o.protocol);
+      throw e;
+    }
+    if (ms.positions.length > 1 && ms.positions.length * seq.activeTime > protocol.tr + 1e-9) {
+      const maxN = Math.floor((protocol.tr + 1e-9) / seq.activeTime);
+      throw new UserError(
+        `${ms.positions.length} slices of ${(seq.activeTime * 1e3).toFixed(2)} ms each do not fit in tr ${(protocol.tr * 1e3).toFixed(2)} ms; ` +
+          `set tr to at least ${(Math.ceil(ms.positions.length * seq.activeTime * 1e5) / 1e2).toFixed(2)} ms or slices.count to at most ${maxN}`,
+        o.protocol, "slices.count",
+      );
+    }
+    const iso = makeIsochromats(
+      phantom,
+      {
+        axes,
+        dx: protocol.fov.read / protocol.matrix.read,
+        dy: protocol.fov.phase / protocol.matrix.phase,
+        thickness: protocol.slice.thickness,
+        position,
+        clipRead: protocol.fov.read * protocol.oversampling.read,
+        clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
+      },
+      protocol.field,
+      isoOpts,
+    );
+    if (iso.count === 0 && ms.positions.length === 1) {
+      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
+    }
+    if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
+    iso.warnings.push(...phantom.warnings);
+    if (raised && slices.length === 0) iso.warnings.push(raised);
+    slices.push({ position, seq, iso });
   }
-  iso.warnings.push(...phantom.warnings);
-  return { protocol, seq, iso, phantomFile: o.phantom, phantom };
+  if (slices.every((sl) => sl.iso.count === 0)) {
+    throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, o.protocol, "slice.position");
+  }
+  const first = slices.find((sl) => sl.iso.count > 0)!;
+  return { protocol, seq: first.seq, iso: first.iso, phantomFile: o.phantom, slices, phantom };
 }
 
 /** Reads a real .npy array (field maps) for the phantom stage. */
-function readRealNpy(path: string): { shape: number[]; data: ArrayLike<number> } {
+export function readRealNpy(path: string): { shape: number[]; data: ArrayLike<number> } {
   let bytes: Uint8Array;
   try {
     bytes = readFileSync(path);
@@ -102,36 +161,64 @@ function readRealNpy(path: string): { shape: number[]; data: ArrayLike<number> }
   return { shape: a.shape, data: a.data as ArrayLike<number> };
 }
 
-export function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
+/** 3×4 voxel → RAS+ (mm) affine; `spacingMm` and `firstMm` place index 0 and the step along the slice axis. */
+export function voxelAffine(p: Protocol, spacingMm: number, firstMm: number): number[][] {
   const ax = logicalAxes(p);
   const dx = (p.fov.read / p.matrix.read) * 1e3, dy = (p.fov.phase / p.matrix.phase) * 1e3;
   const cr = Math.floor(p.matrix.read / 2), cp = Math.floor(p.matrix.phase / 2);
-  const pos = p.slice.position * 1e3;
   const rows: number[][] = [];
   for (let k = 0; k < 3; k++) {
-    const a = ax.read[k]! * dx, b = ax.phase[k]! * dy, c = ax.slice[k]! * sliceThicknessMm;
-    rows.push([a, b, c, -cr * a - cp * b + ax.slice[k]! * pos]);
+    const a = ax.read[k]! * dx, b = ax.phase[k]! * dy, c = ax.slice[k]! * spacingMm;
+    rows.push([a, b, c, -cr * a - cp * b + ax.slice[k]! * firstMm]);
   }
   return rows;
 }
 
 export function run(o: RunOptions): RunResult {
   const t0 = Date.now();
-  const { protocol, seq, iso, phantom } = prepare(o);
+  const { protocol, seq, iso, slices, phantom } = prepare(o);
   const progress = new Progress("simulating", "iso-TR", o.quiet);
-  const trs = seq.blocks.filter((b) => b.kind === "rf").length / seq.pulses.length;
-  const { kspace, plan } = simulateSerial(seq, iso, {
-    receiverFilter: protocol.receiverFilter,
-    onProgress: (d, t) => progress.update(d, t, (iso.count * trs * d) / t),
+  // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
+  const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
+  let plan: ReturnType<typeof simulateSerial>["plan"] | null = null;
+  let isoTotal = 0;
+  slices.forEach((sl, k) => {
+    const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / sl.seq.pulses.length;
+    const res = simulateSerial(sl.seq, sl.iso, {
+      receiverFilter: protocol.receiverFilter,
+      onProgress: (d, t) => progress.update(k * t + d, slices.length * t, (sl.iso.count * trs * d) / t),
+    });
+    plan = res.plan;
+    isoTotal += sl.iso.count;
+    const acq = { partitions: sl.seq.kspace.partitions, phase: sl.seq.kspace.phase, read: sl.seq.kspace.read, re: res.kspace.re, im: res.kspace.im };
+    const grid = toGrid(acq, sl.seq.grid);
+    kParts.push(grid);
+    iParts.push(reconstructGrid(grid, sl.seq.grid, sl.seq.image));
   });
   progress.done();
-  const kv: Volume = { coils: 1, partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
-  const img = reconstructCartesian(kv, seq.image);
+  const stack = (parts: ComplexVolume[]): Volume => {
+    const per = parts[0]!.re.length;
+    const re = new Float64Array(per * parts.length), im = new Float64Array(per * parts.length);
+    parts.forEach((v, k) => {
+      re.set(v.re, k * per);
+      im.set(v.im, k * per);
+    });
+    return { coils: 1, partitions: parts[0]!.partitions * parts.length, phase: parts[0]!.phase, read: parts[0]!.read, re, im };
+  };
+  const kv = stack(kParts);
+  const img = stack(iParts);
   const mag = magnitude(img);
   let max = 0;
   for (const v of mag) if (v > max) max = v;
   const seconds = (Date.now() - t0) / 1000;
   const axes = logicalAxes(protocol);
+  const ms = slicePositions(protocol);
+  const threeD = seq.grid.threeD;
+  const thkMm = protocol.slice.thickness * 1e3;
+  const spacingMm = threeD ? thkMm : ms.spacing * 1e3;
+  const firstMm = threeD
+    ? (protocol.slice.position + (protocol.matrix.partitions % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.partitions / 2) * protocol.slice.thickness) * 1e3
+    : ms.positions[0]! * 1e3;
   const report: Record<string, unknown> = {
     tool: { name: "isofold", version: version() },
     created: new Date().toISOString(),
@@ -139,29 +226,40 @@ export function run(o: RunOptions): RunResult {
     seed: o.seed,
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
     protocol: { ...protocol, units: "SI: s, m, T, T/m, T/m/s, Hz, rad" },
-    sequence: { name: seq.name, timing: seq.timing, derived: seq.derived },
+    sequence: {
+      name: seq.name, timing: seq.timing, derived: seq.derived, phaseTable: seq.phaseTable,
+      readoutReversedRows: seq.grid.reversed ? "rows read under a negative readout gradient are stored reversed (k ascending) in kspace.npy" : "none",
+    },
     geometry: {
       read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice,
+      axes: { read: axes.read, phase: axes.phase, slice: axes.slice },
+      oblique: axes.angle === 0 ? "none" : `tilted ${((axes.angle * 180) / Math.PI).toFixed(2)} deg about the ${axes.tiltAxis} axis`,
       frame: "phantom coordinates are RAS+ (x toward the subject's right, y anterior, z superior)",
+      slices: threeD ? "one 3D slab" : {
+        count: ms.positions.length, positions: ms.positions, acquisitionOrder: ms.order,
+        model: "each slice simulated as its own run over its own isochromats with the TR shared; cross-talk between slices (excitation of neighbours by the slice profile's skirts) is not simulated",
+      },
     },
     axes: {
       kspace: ["coil", "partition", "phase", "read"],
       image: ["coil", "partition", "phase", "read"],
-      index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry",
+      index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the partition axis holds 3D partitions or the slices in spatial order",
+      kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
       png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
-      count: iso.count, columns: iso.columns, density: o.iso.density, sliceCount: o.iso.sliceCount,
-      sliceExtent: o.iso.sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
+      count: isoTotal, columns: iso.columns, density: o.iso.density, sliceCount: isoOptionsFor(protocol, o.iso).sliceCount,
+      sliceExtent: isoOptionsFor(protocol, o.iso).sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
       t2primeSpread: iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count })),
-      note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines",
+      note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
+        (threeD ? "; 3D: through-slab grid of `density` isochromats per partition over the slab plus ⌈N/8⌉ partitions each side" : ""),
     },
-    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: 1 },
+    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: 1, runs: slices.length },
     measurements: { imageMax: max },
     fatShift: null as unknown,
     timingSeconds: seconds,
-    warnings: iso.warnings,
+    warnings: slices.flatMap((s) => s.iso.warnings),
   };
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
@@ -169,9 +267,9 @@ export function run(o: RunOptions): RunResult {
   const files = writeRunFolder(o.out, {
     extra: o.truth ? truthFiles(fx.truth) : undefined,
     kspace: kv,
-    image: { coils: 1, ...img },
-    affine: voxelAffine(protocol, protocol.slice.thickness * 1e3),
-    voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, protocol.slice.thickness * 1e3],
+    image: img,
+    affine: voxelAffine(protocol, spacingMm, firstMm),
+    voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     report,
   });
   return { dir: o.out, files, seconds, report };

@@ -13,9 +13,10 @@
  */
 import { encodeNpy } from "../io/npy.js";
 import { encodeNifti1 } from "../io/nifti.js";
-import { fft2c, fft3c, ifft2c, ifft3c } from "../recon/fft.js";
+import { fft2c, fft3c } from "../recon/fft.js";
+import { reconstructGrid, toGrid } from "../recon/reconstruct.js";
 import type { IsochromatSet } from "../isochromats/index.js";
-import type { Sequence } from "../sequence/types.js";
+import type { KGrid, Sequence } from "../sequence/types.js";
 import type { Axes } from "../protocol/geometry.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
@@ -30,26 +31,19 @@ export interface Dims {
 }
 
 /**
- * Coil images on the image grid: per coil the centred inverse DFT of the
- * acquired k-space [rows][read] (over phase and read, and partitions when
- * there are several), then the central image matrix kept.
+ * Coil images on the image grid: per coil the sequence's own reconstruction
+ * (acquired rows onto the full k-space grid — reversed rows turned round —
+ * then the centred inverse DFT over phase and read, and partitions for 3D,
+ * and the central image matrix kept), as for a simulate run.
  */
-export function toImageGrid(re: Float64Array, im: Float64Array, coils: number, k: Dims, img: Dims): { re: Float64Array; im: Float64Array } {
+export function toImageGrid(re: Float64Array, im: Float64Array, coils: number, k: Dims, img: Dims, grid: KGrid): { re: Float64Array; im: Float64Array } {
   const kn = k.partitions * k.phase * k.read, n = img.partitions * img.phase * img.read;
   const out = { re: new Float64Array(coils * n), im: new Float64Array(coils * n) };
-  const offR = Math.floor(k.read / 2) - Math.floor(img.read / 2);
-  const offP = Math.floor(k.phase / 2) - Math.floor(img.phase / 2);
   for (let c = 0; c < coils; c++) {
-    const r = re.slice(c * kn, (c + 1) * kn), i = im.slice(c * kn, (c + 1) * kn);
-    if (k.partitions > 1) ifft3c(r, i, k.partitions, k.phase, k.read);
-    else ifft2c(r, i, k.phase, k.read);
-    for (let p = 0; p < img.partitions; p++) {
-      for (let y = 0; y < img.phase; y++) {
-        const src = (p * k.phase + y + offP) * k.read + offR, dst = c * n + (p * img.phase + y) * img.read;
-        out.re.set(r.subarray(src, src + img.read), dst);
-        out.im.set(i.subarray(src, src + img.read), dst);
-      }
-    }
+    const acq = { ...k, re: re.subarray(c * kn, (c + 1) * kn), im: im.subarray(c * kn, (c + 1) * kn) };
+    const v = reconstructGrid(toGrid(acq, grid), grid, img);
+    out.re.set(v.re, c * n);
+    out.im.set(v.im, c * n);
   }
   return out;
 }
@@ -135,7 +129,7 @@ export function buildCase(
   const loops = s.array.elements > 0;
   const k = simulateCoils(seq, iso, s.array, s.receiverFilter, onProgress);
   const n = img.partitions * img.phase * img.read;
-  const all = toImageGrid(k.re, k.im, k.coils, kd, img);
+  const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)
   const truth = { re: new Float64Array(2 * n), im: new Float64Array(2 * n) };
   truth.re.set(all.re.subarray(0, n));

@@ -7,9 +7,11 @@ import { readFileSync, existsSync, readdirSync } from "node:fs";
 import { dirname, resolve, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { UserError, userError, joinPath, type Origin } from "../errors.js";
-import { quantity, positive, plainNumber, parseUnit, isKind } from "../units.js";
+import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
 import { GAMMA_BAR } from "../constants.js";
-import type { Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis } from "./types.js";
+import type {
+  Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis, SliceOrder, PartialFourierRecon, EchoOrder,
+} from "./types.js";
 
 /** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
 export function presetsDir(): string {
@@ -118,8 +120,19 @@ const TOP_KEYS = [
   "extend", "name", "description", "sequence", "field", "fov", "matrix", "slice", "phaseDirection",
   "bandwidth", "te", "tr", "flip", "refocusFlip", "oversampling", "receiverFilter", "hardware",
   "excitation", "refocusing", "spoiling", "rfSpoilIncrement", "dummyScans", "phaseOrder", "averages",
-  "crusherCycles", "spoilerCycles", "shim",
+  "crusherCycles", "spoilerCycles", "shim", "slices", "readoutPolarity", "partialFourier", "ssfpPreparation",
+  "echoTrainLength", "echoSpacing", "echoOrder", "shots", "epiEcho",
 ] as const;
+
+/** Sequence names a protocol may use, with what each is. */
+export const SEQUENCES: Record<SequenceKind, string> = {
+  gre: "2D spoiled gradient echo",
+  se: "2D spin echo",
+  gre3d: "3D spoiled gradient echo (slab excitation, phase encoding in two directions)",
+  bssfp: "2D balanced steady-state free precession",
+  rare: "2D RARE / fast spin echo (echo train)",
+  epi: "2D echo-planar imaging (single-shot or segmented, gradient or spin echo)",
+};
 
 function checkKeys(obj: Obj, allowed: readonly string[], origin: Origin): void {
   for (const k of Object.keys(obj)) {
@@ -215,22 +228,34 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const at = (p: string) => ({ file, path: p });
   checkKeys(obj, TOP_KEYS, root);
 
-  const sequence = oneOf<SequenceKind>(obj["sequence"], ["gre", "se"], at("sequence"));
+  const sequence = oneOf<SequenceKind>(obj["sequence"], Object.keys(SEQUENCES) as SequenceKind[], at("sequence"));
   const field = positive(obj["field"], "field", at("field"));
   const fovO = sub(obj, "fov", root)!;
   checkKeys(fovO, ["read", "phase"], at("fov"));
   const fovRead = positive(fovO["read"], "length", at("fov.read"));
   const fovPhase = fovO["phase"] === undefined ? fovRead : positive(fovO["phase"], "length", at("fov.phase"));
   const matO = sub(obj, "matrix", root)!;
-  checkKeys(matO, ["read", "phase"], at("matrix"));
+  checkKeys(matO, ["read", "phase", "partitions"], at("matrix"));
   const nRead = plainNumber(matO["read"], at("matrix.read"), { min: 1, max: 4096, integer: true });
   const nPhase = matO["phase"] === undefined ? nRead : plainNumber(matO["phase"], at("matrix.phase"), { min: 1, max: 4096, integer: true });
+  const nPart = matO["partitions"] === undefined ? 1 : plainNumber(matO["partitions"], at("matrix.partitions"), { min: 1, max: 1024, integer: true });
+  if (sequence === "gre3d" && nPart < 2) throw userError(at("matrix.partitions"), `a 3D sequence needs at least 2 partitions, got ${nPart}; e.g. "partitions": 16`);
+  if (sequence !== "gre3d" && nPart !== 1) throw userError(at("matrix.partitions"), `only the 3D sequence (gre3d) encodes partitions; remove it or use "sequence": "gre3d"`);
 
   const slO = sub(obj, "slice", root)!;
-  checkKeys(slO, ["thickness", "position", "orientation"], at("slice"));
+  checkKeys(slO, ["thickness", "position", "orientation", "angle", "tiltAxis"], at("slice"));
   const thickness = positive(slO["thickness"], "length", at("slice.thickness"));
   const position = slO["position"] === undefined ? 0 : quantity(slO["position"], "length", at("slice.position"));
   const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), "axial");
+  const angle = slO["angle"] === undefined ? 0 : quantity(slO["angle"], "angle", at("slice.angle"));
+  if (Math.abs(angle) > (60 * Math.PI) / 180) throw userError(at("slice.angle"), `an oblique tilt must be within ±60 deg of the orientation, got ${String(slO["angle"])}; choose the nearer orientation`);
+  const tiltAxis = oneOf(slO["tiltAxis"], ["read", "phase"] as const, at("slice.tiltAxis"), "read");
+  const msO = sub(obj, "slices", root, false) ?? {};
+  checkKeys(msO, ["count", "gap", "order"], at("slices"));
+  const sliceCount = msO["count"] === undefined ? 1 : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
+  const sliceGap = msO["gap"] === undefined ? 0 : nonNegative(msO["gap"], "length", at("slices.gap"));
+  const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), "interleaved");
+  if (sequence === "gre3d" && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.partitions instead of several slices`);
   const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
   const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
   const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
@@ -238,7 +263,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
   const te = positive(obj["te"], "time", at("te"));
   const tr = positive(obj["tr"], "time", at("tr"));
-  const flip = obj["flip"] === undefined ? (sequence === "se" ? Math.PI / 2 : (20 * Math.PI) / 180) : positive(obj["flip"], "angle", at("flip"));
+  const flip = obj["flip"] === undefined ? (sequence === "se" || sequence === "rare" || sequence === "epi" ? Math.PI / 2 : (20 * Math.PI) / 180) : positive(obj["flip"], "angle", at("flip"));
   const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : positive(obj["refocusFlip"], "angle", at("refocusFlip"));
 
   const osO = sub(obj, "oversampling", root, false) ?? {};
@@ -246,6 +271,13 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const osRead = osO["read"] === undefined ? 2 : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
   const osPhase = osO["phase"] === undefined ? 0 : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
   if (!Number.isInteger(osRead * nRead)) throw userError(at("oversampling.read"), `read oversampling × matrix.read must be a whole number of samples`);
+
+  const polarity = oneOf(obj["readoutPolarity"], ["positive", "negative"] as const, at("readoutPolarity"), "positive");
+  const pfO = sub(obj, "partialFourier", root, false) ?? {};
+  checkKeys(pfO, ["phase", "read", "method"], at("partialFourier"));
+  const pfPhase = pfO["phase"] === undefined ? 1 : plainNumber(pfO["phase"], at("partialFourier.phase"), { min: 0.5, max: 1 });
+  const pfRead = pfO["read"] === undefined ? 1 : plainNumber(pfO["read"], at("partialFourier.read"), { min: 0.5, max: 1 });
+  const pfMethod = oneOf<PartialFourierRecon>(pfO["method"], ["zero-fill", "homodyne"], at("partialFourier.method"), "homodyne");
 
   const receiverFilter = obj["receiverFilter"] === undefined ? true : obj["receiverFilter"];
   if (typeof receiverFilter !== "boolean") throw userError(at("receiverFilter"), "must be true or false");
@@ -263,6 +295,12 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const dummyScans = obj["dummyScans"] === undefined ? 0 : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
   const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), "linear");
   const averages = obj["averages"] === undefined ? 1 : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
+  const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), "half-alpha");
+  const echoTrainLength = obj["echoTrainLength"] === undefined ? (sequence === "rare" ? 8 : 1) : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
+  const echoSpacing = obj["echoSpacing"] === undefined ? 0 : positive(obj["echoSpacing"], "time", at("echoSpacing"));
+  const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), "linear");
+  const shots = obj["shots"] === undefined ? 1 : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
+  const epiEcho = oneOf(obj["epiEcho"], ["gradient", "spin"] as const, at("epiEcho"), "gradient");
   const crusherCycles = obj["crusherCycles"] === undefined ? 4 : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
   const spoilerCycles = obj["spoilerCycles"] === undefined ? 4 : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
 
@@ -271,16 +309,19 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   return {
     sequence, field,
     fov: { read: fovRead, phase: fovPhase },
-    matrix: { read: nRead, phase: nPhase },
-    slice: { thickness, position, orientation },
-    phaseDirection, pixelBandwidth,
+    matrix: { read: nRead, phase: nPhase, partitions: nPart },
+    slice: { thickness, position, orientation, angle, tiltAxis },
+    slices: { count: sliceCount, gap: sliceGap, order: sliceOrder },
+    phaseDirection, readoutPolarity: polarity === "positive" ? 1 : -1, pixelBandwidth,
     bandwidthAsGiven: String(obj["bandwidth"] ?? "250 Hz/px"),
     te, tr, flip, refocusFlip,
     oversampling: { read: osRead, phase: osPhase },
     receiverFilter,
+    partialFourier: { phase: pfPhase, read: pfRead, method: pfMethod },
     hardware: { gmax, slew },
     excitation, refocusing, spoiling, rfSpoilIncrement, dummyScans, phaseOrder, averages,
     crusherCycles, spoilerCycles, shim,
+    ssfpPreparation, echoTrainLength, echoSpacing, echoOrder, shots, epiEcho,
   };
 }
 

@@ -12,3 +12,5 @@ export {
   ifft3c,
 } from "./fft.js";
 export type { FFTSign } from "./fft.js";
+export { toGrid, reconstructGrid, reconstructCartesian, magnitude, type ComplexVolume } from "./reconstruct.js";
+export { homodynePlane, homodyneWeights } from "./partial-fourier.js";

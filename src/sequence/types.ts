@@ -52,6 +52,28 @@ export interface Derived {
   note?: string;
 }
 
+/**
+ * How the acquired k-space maps onto the full Cartesian grid the recon
+ * transforms. Rows are partitions × phase lines of the full grid (lines a
+ * partial-Fourier scan skips stay zero). Acquired sample j of row r goes to
+ * column offset + j, or offset + (samples − 1 − j) when reversed[r] = 1 (the
+ * row was read under a negative readout gradient, so its samples run from
+ * +k to −k in time).
+ */
+export interface KGrid {
+  /** Columns of the full grid (read matrix × oversampling). */
+  read: number;
+  offset: number;
+  /** One flag per row; null when no row is reversed. */
+  reversed: Uint8Array | null;
+  /** Partial Fourier: acquired fractions and the recon of the missing part. */
+  partialFourier: { phase: number; read: number; method: "zero-fill" | "homodyne" };
+  /** First acquired phase line (lines below it are zero). */
+  phaseFirst: number;
+  /** Transform along partitions (3D) or treat them as separate slices. */
+  threeD: boolean;
+}
+
 export interface Sequence {
   name: string;
   pulses: RFWaveform[];
@@ -66,4 +88,15 @@ export interface Sequence {
   timing: { teMin: number; trMin: number; te: number; tr: number; scanTime: number };
   /** Derived quantities for the report and `isofold protocol`. */
   derived: Record<string, Derived>;
+  /** Acquired → full-grid map for the recon. */
+  grid: KGrid;
+  /** Phase-encode table: line index and phase-encode area (T·s/m) in acquisition order (first partition for 3D). */
+  phaseTable: { line: number; area: number }[];
+  /** Time of one TR's active part (s), for multi-slice packing: excitation to the end of the last gradient. */
+  activeTime: number;
+  /**
+   * Echo time (s) of each phase line of the full grid — excitation centre to the line's k = 0 sample —
+   * where it varies along an echo train (RARE, EPI); NaN for lines not acquired.
+   */
+  echoTimes?: Float64Array;
 }

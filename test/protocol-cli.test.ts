@@ -1,0 +1,62 @@
+/**
+ * `isofold protocol`: the derived table for every bundled preset (the
+ * command's action run in-process through commander), --json and the
+ * one-line error with exit code 2 from the compiled CLI.
+ */
+import { describe, expect, it, vi } from "vitest";
+import { spawnSync } from "node:child_process";
+import { resolve } from "node:path";
+import { Command } from "commander";
+import { registerProtocol } from "../src/cli/protocol.js";
+import { listPresets } from "../src/protocol/index.js";
+
+const CLI = resolve(__dirname, "../dist/src/cli/index.js");
+
+async function inProcess(...args: string[]): Promise<string> {
+  const program = new Command();
+  program.exitOverride();
+  registerProtocol(program);
+  let out = "";
+  const log = vi.spyOn(console, "log").mockImplementation((...a: unknown[]) => void (out += a.join(" ") + "\n"));
+  const write = vi.spyOn(process.stdout, "write").mockImplementation((s: string | Uint8Array) => ((out += String(s)), true));
+  try {
+    await program.parseAsync(["node", "isofold", "protocol", ...args]);
+  } finally {
+    log.mockRestore();
+    write.mockRestore();
+  }
+  return out;
+}
+
+describe("isofold protocol", () => {
+  it("prints the derived table for every preset", async () => {
+    for (const preset of listPresets()) {
+      const out = await inProcess(preset);
+      for (const key of ["totalBandwidth", "halfBandwidth", "fatShiftRead", "pixelBandwidth", "dwell", "deltaKRead", "kMaxPhase", "teMin", "trMin", "scanTime", "relativeSnr", "peakGradientRead", "phaseEncodeTable", "readoutDuration", "prephaserDuration", "readGradient"]) {
+        expect(out, `${preset} lacks ${key}`).toContain(key);
+      }
+    }
+    expect(await inProcess("rare-t2-1.5t")).toMatch(/effectiveTe\s+96 ms/);
+    expect(await inProcess("epi-1.5t")).toMatch(/echoSpacing\s+0\.81188 ms/);
+    expect(await inProcess("se-t1-multislice-1.5t")).toMatch(/sliceOrder\s+1, 3, 5, 7, 9, 11, 2, 4, 6, 8, 10/);
+  });
+
+  it("--reference: SNR relative to another protocol, here √(48/64) for 6/8 partial Fourier", async () => {
+    expect(await inProcess("epi-se-1.5t", "--reference", "epi-1.5t")).toMatch(/snrVsReference\s+0\.86603/);
+  });
+
+  it("--json holds SI values, the derived quantities and the phase-encode table", async () => {
+    const o = JSON.parse(await inProcess("rare-t2-1.5t", "--json", "--set", "te=80 ms"));
+    expect(o.derived.effectiveTe.value).toBeCloseTo(0.08, 12);
+    expect(o.phaseTable.length).toBe(128);
+    expect(o.protocol.te).toBeCloseTo(0.08, 12);
+  });
+
+  it("compiled CLI, impossible protocol: exit 2, one line on stderr naming the key and a value that works, nothing on stdout", () => {
+    const r = spawnSync(process.execPath, [CLI, "protocol", "se-t1-multislice-1.5t", "--set", "slices.count=40"], { encoding: "utf8" });
+    expect(r.status).toBe(2);
+    expect(r.stdout).toBe("");
+    expect(r.stderr.trim().split("\n")).toHaveLength(1);
+    expect(r.stderr).toMatch(/slices\.count: 40 slices .* do not fit .* or slices\.count to at most 25/);
+  }, 30000);
+});
