@@ -9,7 +9,10 @@ import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
 import { loadPhantom } from "../phantom/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { simulateSerial } from "../engine/index.js";
+import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
+import { countChunks } from "../engine/plan.js";
+import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
+import { inputHash, writePartial } from "./partial.js";
 import { reconstructCartesian, magnitude } from "../recon/reconstruct.js";
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
@@ -39,6 +42,12 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Engine worker threads (default: available cores). */
+  workers?: number;
+  /** Run only shard i of n (0 ≤ i < n) and write a partial k-space instead of a run folder. */
+  shard?: [number, number];
+  /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
+  maxMemory?: number;
 }
 
 export interface RunResult {
@@ -46,6 +55,15 @@ export interface RunResult {
   files: string[];
   seconds: number;
   report: Record<string, unknown>;
+}
+
+/** What the run folder needs besides k-space: enough to rebuild it in a merge. */
+export interface RunContext {
+  protocol: Protocol;
+  seq: Sequence;
+  o: RunOptions;
+  isoSummary: { count: number; columns: number; warnings: string[] };
+  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number };
 }
 
 /** Loads and checks every input; throws UserError before any work or file. */
@@ -60,20 +78,17 @@ export function prepare(o: RunOptions): { protocol: Protocol; seq: Sequence; iso
   }
   const phantom = loadPhantom(o.phantom, protocol.field);
   const axes = logicalAxes(protocol);
-  const iso = makeIsochromats(
-    phantom,
-    {
-      axes,
-      dx: protocol.fov.read / protocol.matrix.read,
-      dy: protocol.fov.phase / protocol.matrix.phase,
-      thickness: protocol.slice.thickness,
-      position: protocol.slice.position,
-      clipRead: protocol.fov.read * protocol.oversampling.read,
-      clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
-    },
-    protocol.field,
-    o.iso,
-  );
+  const geo = {
+    axes,
+    dx: protocol.fov.read / protocol.matrix.read,
+    dy: protocol.fov.phase / protocol.matrix.phase,
+    thickness: protocol.slice.thickness,
+    position: protocol.slice.position,
+    clipRead: protocol.fov.read * protocol.oversampling.read,
+    clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
+  };
+  checkMemory(estimateMemory(phantom, geo, protocol.field, o.iso, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), o.iso);
+  const iso = makeIsochromats(phantom, geo, protocol.field, o.iso);
   if (iso.count === 0) {
     throw new UserError(`no part of the phantom lies in the slice at ${(protocol.slice.position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
   }
@@ -94,17 +109,50 @@ function voxelAffine(p: Protocol, sliceThicknessMm: number): number[][] {
   return rows;
 }
 
-export function run(o: RunOptions): RunResult {
-  const t0 = Date.now();
-  const { protocol, seq, iso } = prepare(o);
-  const progress = new Progress("simulating", "iso-TR", o.quiet);
-  const trs = seq.blocks.filter((b) => b.kind === "rf").length / seq.pulses.length;
-  const { kspace, plan } = simulateSerial(seq, iso, {
-    receiverFilter: protocol.receiverFilter,
-    onProgress: (d, t) => progress.update(d, t, (iso.count * trs * d) / t),
-  });
-  progress.done();
-  const kv: Volume = { coils: 1, partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
+/**
+ * Runs the engine on a worker pool. Ctrl-C (SIGINT) or SIGTERM stops the
+ * workers at once; the promise then rejects with AbortedError and nothing
+ * has been written.
+ */
+async function simulateStage(
+  p: { seq: Sequence; iso: IsochromatSet; protocol: Protocol },
+  o: RunOptions,
+  extra: { blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void },
+): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+  const progress = new Progress(o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating", "iso-TR", o.quiet);
+  const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
+  const ac = new AbortController();
+  const stop = () => ac.abort();
+  process.once("SIGINT", stop);
+  process.once("SIGTERM", stop);
+  let isoInRange = p.iso.count;
+  try {
+    return await simulateParallel(p.seq, p.iso, {
+      receiverFilter: p.protocol.receiverFilter,
+      workers: o.workers ?? defaultWorkers(),
+      signal: ac.signal,
+      blocks: extra.blocks,
+      onBlock: extra.onBlock,
+      onPlan: (plan) => {
+        extra.onPlan?.(plan);
+        if (extra.blocks) {
+          const [c0, c1] = blockChunks(plan.chunks, extra.blocks[0], extra.blocks[1]);
+          isoInRange = plan.chunkStart[c1]! - plan.chunkStart[c0]!;
+        }
+      },
+      onProgress: (d, t) => progress.update(d, t, (isoInRange * trs * d) / t),
+    });
+  } finally {
+    progress.done();
+    process.off("SIGINT", stop);
+    process.off("SIGTERM", stop);
+  }
+}
+
+/** Reconstructs k-space and writes the run folder (atomically); shared by simulate and merge. */
+export function finish(ctx: RunContext, kspace: KSpace, t0: number): RunResult {
+  const { protocol, seq, o } = ctx;
+  const kv: Volume = { coils: kspace.coils, partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
   const img = reconstructCartesian(kv, seq.image);
   const mag = magnitude(img);
   let max = 0;
@@ -131,23 +179,72 @@ export function run(o: RunOptions): RunResult {
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
-      count: iso.count, columns: iso.columns, density: o.iso.density, sliceCount: o.iso.sliceCount,
+      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: o.iso.density, sliceCount: o.iso.sliceCount,
       sliceExtent: o.iso.sliceExtent, fatModel: o.iso.fatModel,
       note: "T2* beyond T2 is not yet modelled by an intravoxel frequency spread; signal decays with T2 plus any B0 the phantom defines",
     },
-    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: 1 },
+    engine: {
+      ...ctx.engine,
+      order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
+    },
     measurements: { imageMax: max },
     timingSeconds: seconds,
-    warnings: iso.warnings,
+    warnings: ctx.isoSummary.warnings,
   };
   const files = writeRunFolder(o.out, {
     kspace: kv,
-    image: { coils: 1, ...img },
+    image: { coils: kspace.coils, ...img },
     affine: voxelAffine(protocol, protocol.slice.thickness * 1e3),
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, protocol.slice.thickness * 1e3],
     report,
   });
   return { dir: o.out, files, seconds, report };
+}
+
+/** One run: prepare, simulate on the worker pool, then the run folder — or, with o.shard, a partial k-space. */
+export async function run(o: RunOptions): Promise<RunResult> {
+  const t0 = Date.now();
+  const p = prepare(o);
+  const workers = o.workers ?? defaultWorkers();
+  if (o.shard) return runShard(p, o, t0);
+  const { kspace, plan } = await simulateStage(p, o, {});
+  const ctx: RunContext = {
+    protocol: p.protocol, seq: p.seq, o,
+    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers },
+  };
+  return finish(ctx, kspace, t0);
+}
+
+async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number): Promise<RunResult> {
+  const [i, n] = o.shard!;
+  const total = blockCount(countChunks(p.iso));
+  const blocks = shardBlocks(total, i, n);
+  const nb = blocks[1] - blocks[0];
+  let bre = new Float64Array(0), bim = new Float64Array(0);
+  const { kspace, plan } = await simulateStage(p, o, {
+    blocks,
+    onPlan: (plan) => {
+      const size = plan.coils * plan.rows * plan.read;
+      bre = new Float64Array(nb * size);
+      bim = new Float64Array(nb * size);
+    },
+    onBlock: (b, re, im) => {
+      bre.set(re, (b - blocks[0]) * re.length);
+      bim.set(im, (b - blocks[0]) * im.length);
+    },
+  });
+  const files = writePartial(o.out, {
+    shard: [i, n], blocks, totalBlocks: total, chunks: plan.chunks,
+    shape: [nb, kspace.coils, p.seq.kspace.partitions, p.seq.kspace.phase, p.seq.kspace.read],
+    re: bre, im: bim,
+    inputHash: inputHash(p.protocol, o),
+    inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso },
+    protocol: p.protocol,
+    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
+  });
+  return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
 export { defaultIsochromatOptions };

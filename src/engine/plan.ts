@@ -9,6 +9,7 @@ import { GAMMA, GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
 import { rfAffine } from "./kernels.js";
+import { f64Words, TupleIndex } from "./hash.js";
 
 /** Isochromats per chunk (approximate; chunks end at column boundaries). Fixed, so results do not depend on the number of workers. */
 export const CHUNK_ISOCHROMATS = 32768;
@@ -55,12 +56,28 @@ export interface EnginePlan {
    * (re, im), index 2·(coil·count + i); null for one uniform coil.
    */
   sens: Float64Array | null;
+  /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
+  rf: RfSpec;
 }
 
-function sharedF64(n: number): Float64Array {
+/** What the RF maps are computed from: per-class parameters and the pulses. */
+export interface RfSpec {
+  classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array;
+  pulses: { b1re: Float64Array; b1im: Float64Array; dt: number; gradient: number }[];
+}
+
+/** A shared copy of `a` (or `a` itself if it is shared already). */
+export function shareF64(a: Float64Array): Float64Array {
+  if (a.buffer instanceof SharedArrayBuffer) return a;
+  const s = sharedF64(a.length);
+  s.set(a);
+  return s.subarray(0, a.length);
+}
+
+export function sharedF64(n: number): Float64Array {
   return new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8));
 }
-function sharedI32(n: number): Int32Array {
+export function sharedI32(n: number): Int32Array {
   return new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4));
 }
 
@@ -86,8 +103,11 @@ export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
   };
 }
 
-/** Builds the plan. `onStage` reports slow preparation steps. */
-export function makePlan(
+/**
+ * Builds the plan without filling the RF maps (rfMaps is allocated, zero):
+ * call {@link fillRfMaps} over all classes, on one thread or split among workers.
+ */
+export function planLayout(
   seq: Sequence,
   iso: IsochromatSet,
   opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
@@ -125,31 +145,14 @@ export function makePlan(
     t: "free" as const, dur: dur(duration), u: table(0, area[0]), v: table(1, area[1]), w: table(2, area[2]),
   });
 
-  // --- RF classes: isochromats with the same (w, Δf, r1, r2) see the same pulse
-  const classKeys = new Map<string, number>();
-  const rfClass = sharedI32(iso.count).subarray(0, iso.count);
-  const classW: number[] = [], classDf: number[] = [], classR1: number[] = [], classR2: number[] = [];
-  for (let i = 0; i < iso.count; i++) {
-    const key = `${iso.iw[i]},${iso.df[i]},${iso.r1[i]},${iso.r2[i]}`;
-    let c = classKeys.get(key);
-    if (c === undefined) {
-      c = classW.length;
-      classKeys.set(key, c);
-      classW.push(iso.wGrid[iso.iw[i]!]!);
-      classDf.push(iso.df[i]!);
-      classR1.push(iso.r1[i]!);
-      classR2.push(iso.r2[i]!);
-    }
-    rfClass[i] = c;
-  }
-  const classes = classW.length;
+  // --- RF classes: isochromats with the same (w, Δf, r1, r2), bitwise, see the same pulse
+  const cls = rfClasses(iso);
+  const rfClass = cls.rfClass, classes = cls.classes;
   const rfMaps = sharedF64(seq.pulses.length * classes * 12);
-  seq.pulses.forEach((p, pi) => {
-    for (let c = 0; c < classes; c++) {
-      const f = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
-      rfAffine(rfMaps, (pi * classes + c) * 12, p.b1re, p.b1im, p.dt, GAMMA, f, classR1[c]!, classR2[c]!);
-    }
-  });
+  const rf: RfSpec = {
+    classW: cls.classW, classDf: cls.classDf, classR1: cls.classR1, classR2: cls.classR2,
+    pulses: seq.pulses.map((p) => ({ b1re: p.b1re, b1im: p.b1im, dt: p.dt, gradient: p.gradient })),
+  };
 
   // --- ops, with consecutive free intervals merged (exact: areas and durations add)
   const ops: Op[] = [];
@@ -200,22 +203,100 @@ export function makePlan(
   for (const [t, k] of durKeys) durations[k] = t;
 
   // --- chunks of whole columns
-  const starts: number[] = [0];
+  const starts = chunkStarts(iso);
   let maxChunk = 0;
-  for (let c = 1; c <= iso.columns; c++) {
-    const s = iso.colStart[c]!;
-    if (s - starts[starts.length - 1]! >= CHUNK_ISOCHROMATS || c === iso.columns) {
-      if (s > starts[starts.length - 1]!) {
-        maxChunk = Math.max(maxChunk, s - starts[starts.length - 1]!);
-        starts.push(s);
-      }
-    }
-  }
+  for (let c = 0; c + 1 < starts.length; c++) maxChunk = Math.max(maxChunk, starts[c + 1]! - starts[c]!);
   const chunkStart = sharedI32(starts.length).subarray(0, starts.length);
   chunkStart.set(starts);
   return {
     ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
     rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
-    receiverFilter: opts.receiverFilter, maxChunk, coils, sens,
+    receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
   };
+}
+
+/** Builds the plan and fills every RF map on this thread. */
+export function makePlan(
+  seq: Sequence,
+  iso: IsochromatSet,
+  opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
+): EnginePlan {
+  const plan = planLayout(seq, iso, opts);
+  fillRfMaps(plan, 0, plan.classes);
+  return plan;
+}
+
+/**
+ * Fills the RF affine maps of classes c0 … c1−1 for every pulse (see
+ * {@link rfAffine}): the effective offset during pulse p is
+ * f = γ̄·G_slice·w + Δf (Hz). Pure per class, so class ranges can be filled
+ * on different threads into the shared rfMaps.
+ */
+export function fillRfMaps(plan: EnginePlan, c0: number, c1: number): void {
+  const { classW, classDf, classR1, classR2, pulses } = plan.rf;
+  for (let pi = 0; pi < pulses.length; pi++) {
+    const p = pulses[pi]!;
+    const base = pi * plan.classes;
+    for (let c = c0; c < c1; c++) {
+      const f = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
+      rfAffine(plan.rfMaps, (base + c) * 12, p.b1re, p.b1im, p.dt, GAMMA, f, classR1[c]!, classR2[c]!);
+    }
+  }
+}
+
+/**
+ * RF classes by numeric hashing of the bits of (iw, Δf, r1, r2); ids in
+ * first-seen order. Returns the class of each isochromat (shared memory) and
+ * each class's slice coordinate w (m), Δf (Hz), r1, r2 (1/s).
+ */
+export function rfClasses(iso: IsochromatSet): {
+  rfClass: Int32Array; classes: number; classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array;
+} {
+  const index = new TupleIndex(7, 1024);
+  const key = new Uint32Array(7);
+  const rfClass = sharedI32(iso.count).subarray(0, iso.count);
+  const { iw, df, r1, r2 } = iso;
+  for (let i = 0; i < iso.count; i++) {
+    key[0] = iw[i]!;
+    f64Words(df[i]!, key, 1);
+    f64Words(r1[i]!, key, 3);
+    f64Words(r2[i]!, key, 5);
+    rfClass[i] = index.id(key, 0);
+  }
+  const classes = index.size, k = index.keys;
+  const classW = sharedF64(classes), classDf = sharedF64(classes), classR1 = sharedF64(classes), classR2 = sharedF64(classes);
+  const w2 = new Uint32Array(2), f2 = new Float64Array(w2.buffer);
+  const word = (c: number, o: number) => {
+    w2[0] = k[c * 7 + o]!;
+    w2[1] = k[c * 7 + o + 1]!;
+    return f2[0]!;
+  };
+  for (let c = 0; c < classes; c++) {
+    classW[c] = iso.wGrid[k[c * 7]!]!;
+    classDf[c] = word(c, 1);
+    classR1[c] = word(c, 3);
+    classR2[c] = word(c, 5);
+  }
+  return { rfClass, classes, classW, classDf, classR1, classR2 };
+}
+
+/**
+ * Chunk boundaries: runs of whole columns, each closed once it holds at least
+ * CHUNK_ISOCHROMATS isochromats (the last takes the rest). A function of the
+ * isochromat set alone, so it is the same for any number of workers or shards.
+ */
+export function chunkStarts(iso: IsochromatSet): number[] {
+  const starts: number[] = [0];
+  for (let c = 1; c <= iso.columns; c++) {
+    const s = iso.colStart[c]!;
+    if (s - starts[starts.length - 1]! >= CHUNK_ISOCHROMATS || c === iso.columns) {
+      if (s > starts[starts.length - 1]!) starts.push(s);
+    }
+  }
+  return starts;
+}
+
+/** Number of chunks of an isochromat set. */
+export function countChunks(iso: IsochromatSet): number {
+  return chunkStarts(iso).length - 1;
 }
