@@ -11,11 +11,11 @@ import { fillRfMaps, makePlan, planLayout, shareIsochromats, type EnginePlan } f
 import { EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 
-export { makePlan, planLayout, fillRfMaps, rfClasses, shareIsochromats, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
+export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
 export { EnginePool, AbortedError, workerPath } from "./pool.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
-export { runChunk, ChunkScratch, receiverFilter } from "./chunk.js";
+export { runChunk, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
 
 export interface KSpace {
@@ -36,6 +36,8 @@ export interface SimulateOptions {
   onProgress?: (done: number, total: number) => void;
   /** Only these blocks [b0, b1) of BLOCK_CHUNKS chunks (for sharding); default all. */
   blocks?: [number, number];
+  /** Isochromats per chunk (default CHUNK_ISOCHROMATS). */
+  chunkIsochromats?: number;
   /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
 }
@@ -59,7 +61,7 @@ function chunkRange(plan: EnginePlan, blocks?: [number, number]): [number, numbe
  * fixed order of sum.ts (chunk order within blocks, then block order).
  */
 export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: SimulateOptions): { kspace: KSpace; plan: EnginePlan } {
-  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens });
+  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
   const size = plan.coils * plan.rows * plan.read;
   const re = new Float64Array(size), im = new Float64Array(size);
   const pr = new Float64Array(size), pi = new Float64Array(size);
@@ -87,7 +89,7 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
  */
 export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan }> {
   const shared = shareIsochromats(iso);
-  const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens });
+  const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
   opts.onPlan?.(plan);
   const pool = new EnginePool(plan, shared, Math.max(1, opts.workers));
   try {

@@ -11,8 +11,21 @@ import type { Sequence, Vec3 } from "../sequence/types.js";
 import { rfAffine } from "./kernels.js";
 import { f64Words, TupleIndex } from "./hash.js";
 
-/** Isochromats per chunk (approximate; chunks end at column boundaries). Fixed, so results do not depend on the number of workers. */
-export const CHUNK_ISOCHROMATS = 32768;
+/**
+ * Isochromats per chunk (approximate; chunks end at column boundaries).
+ * Fixed, so results do not depend on the number of workers: 32768, or the
+ * environment variable ISOFOLD_CHUNK_ISOCHROMATS (64 … 2^24; for tests and
+ * tuning — the chunking is part of a result's definition, and shards of one
+ * run must share it; partial.json records it).
+ */
+export const CHUNK_ISOCHROMATS = chunkSetting(process.env["ISOFOLD_CHUNK_ISOCHROMATS"]);
+
+function chunkSetting(v: string | undefined): number {
+  if (v === undefined || v === "") return 32768;
+  const n = Number(v);
+  if (!Number.isInteger(n) || n < 64 || n > 2 ** 24) throw new Error(`ISOFOLD_CHUNK_ISOCHROMATS must be a whole number from 64 to ${2 ** 24}, got "${v}"`);
+  return n;
+}
 
 export type Op =
   | { t: "rf"; base: number; cos: number; sin: number }
@@ -58,6 +71,16 @@ export interface EnginePlan {
   sens: Float64Array | null;
   /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
   rf: RfSpec;
+}
+
+export interface PlanOptions {
+  /** Model the receiver anti-alias filter. */
+  receiverFilter: boolean;
+  /** Receive coils (default 1) and their sensitivities (see EnginePlan.sens; default none = uniform). */
+  coils?: number;
+  sens?: Float64Array | null;
+  /** Isochromats per chunk (default CHUNK_ISOCHROMATS); part of the result's definition. */
+  chunkIsochromats?: number;
 }
 
 /** What the RF maps are computed from: per-class parameters and the pulses. */
@@ -110,7 +133,7 @@ export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
 export function planLayout(
   seq: Sequence,
   iso: IsochromatSet,
-  opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
+  opts: PlanOptions,
 ): EnginePlan {
   const coils = opts.coils ?? 1;
   const sens = opts.sens ?? null;
@@ -203,7 +226,7 @@ export function planLayout(
   for (const [t, k] of durKeys) durations[k] = t;
 
   // --- chunks of whole columns
-  const starts = chunkStarts(iso);
+  const starts = chunkStarts(iso, opts.chunkIsochromats);
   let maxChunk = 0;
   for (let c = 0; c + 1 < starts.length; c++) maxChunk = Math.max(maxChunk, starts[c + 1]! - starts[c]!);
   const chunkStart = sharedI32(starts.length).subarray(0, starts.length);
@@ -219,7 +242,7 @@ export function planLayout(
 export function makePlan(
   seq: Sequence,
   iso: IsochromatSet,
-  opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
+  opts: PlanOptions,
 ): EnginePlan {
   const plan = planLayout(seq, iso, opts);
   fillRfMaps(plan, 0, plan.classes);
@@ -285,11 +308,11 @@ export function rfClasses(iso: IsochromatSet): {
  * CHUNK_ISOCHROMATS isochromats (the last takes the rest). A function of the
  * isochromat set alone, so it is the same for any number of workers or shards.
  */
-export function chunkStarts(iso: IsochromatSet): number[] {
+export function chunkStarts(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number[] {
   const starts: number[] = [0];
   for (let c = 1; c <= iso.columns; c++) {
     const s = iso.colStart[c]!;
-    if (s - starts[starts.length - 1]! >= CHUNK_ISOCHROMATS || c === iso.columns) {
+    if (s - starts[starts.length - 1]! >= size || c === iso.columns) {
       if (s > starts[starts.length - 1]!) starts.push(s);
     }
   }
@@ -297,6 +320,6 @@ export function chunkStarts(iso: IsochromatSet): number[] {
 }
 
 /** Number of chunks of an isochromat set. */
-export function countChunks(iso: IsochromatSet): number {
-  return chunkStarts(iso).length - 1;
+export function countChunks(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number {
+  return chunkStarts(iso, size).length - 1;
 }
