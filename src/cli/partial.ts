@@ -12,7 +12,7 @@ import { UserError } from "../errors.js";
 import { OutputStage } from "../io/atomic.js";
 import { decodeNpy, encodeNpy } from "../io/npy.js";
 import type { Protocol } from "../protocol/index.js";
-import { BLOCK_CHUNKS, CHUNK_ISOCHROMATS } from "../engine/index.js";
+import { BLOCK_CHUNKS, CHUNK_ISOCHROMATS, readoutKernelName } from "../engine/index.js";
 import type { IsochromatOptions } from "../isochromats/index.js";
 
 export const PARTIAL_FORMAT = "isofold partial k-space";
@@ -37,10 +37,10 @@ export interface PartialMeta {
   engine: { chunks: number; rfClasses: number; ops: number; workers: number };
 }
 
-/** sha256 over what determines the k-space bits: normalised protocol, phantom file bytes, isochromat options, chunking, seed. */
+/** sha256 over what determines the k-space bits: normalised protocol, phantom file bytes, isochromat options, chunking, readout kernel, seed. */
 export function inputHash(protocol: Protocol, o: { phantom: string; iso: IsochromatOptions; seed: number }): string {
   const h = createHash("sha256");
-  h.update(JSON.stringify({ protocol, iso: o.iso, seed: o.seed, chunk: CHUNK_ISOCHROMATS, block: BLOCK_CHUNKS }));
+  h.update(JSON.stringify({ protocol, iso: o.iso, seed: o.seed, chunk: CHUNK_ISOCHROMATS, block: BLOCK_CHUNKS, kernel: readoutKernelName() }));
   h.update(readFileSync(o.phantom));
   return h.digest("hex");
 }

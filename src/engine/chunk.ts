@@ -4,7 +4,8 @@
  * chunk gives the same bits on any thread.
  */
 import type { IsochromatSet } from "../isochromats/index.js";
-import { applyFree, applyRf, applySpoil, readoutRecurrence } from "./kernels.js";
+import { applyFree, applyRf, applySpoil } from "./kernels.js";
+import { readoutRecurrenceFast } from "./wasm.js";
 import type { EnginePlan } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
 
@@ -142,7 +143,7 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
           }
           sr.fill(0, 0, op.n);
           si.fill(0, 0, op.n);
-          readoutRecurrence(sr, si, op.n, zr, zi, ar, ai, live);
+          readoutRecurrenceFast(sr, si, op.n, zr, zi, ar, ai, live);
           const base = (q * plan.rows + op.row) * plan.read;
           for (let j = 0; j < op.n; j++) {
             const a = sr[j]!, b = si[j]!;
