@@ -4,9 +4,12 @@
  * chunk gives the same bits on any thread.
  */
 import type { IsochromatSet } from "../isochromats/index.js";
-import { applyFree, applyRf, applySpoil } from "./kernels.js";
+import { applyFree, applyRf } from "./kernels.js";
 import { readoutRecurrenceFast } from "./wasm.js";
-import type { EnginePlan } from "./plan.js";
+import type { EnginePlan, Op } from "./plan.js";
+
+/** Isochromats per cache sub-block (state and factors of one sub-block stay in L2 across a segment's ops). */
+export const SUB_BLOCK = 2048;
 import { f64Words, TupleIndex } from "./hash.js";
 
 /**
@@ -40,7 +43,7 @@ export class ChunkScratch {
       this.d.push(new Float64Array(2 * n));
       this.e1.push(new Float64Array(n));
     }
-    this.zr = new Float64Array(n); this.zi = new Float64Array(n);
+    this.zr = new Float64Array(plan.coils * n); this.zi = new Float64Array(plan.coils * n);
     this.ar = new Float64Array(n); this.ai = new Float64Array(n); this.h = new Float64Array(n);
     this.groupOf = new Int32Array(n); this.groupFirst = new Int32Array(n); this.liveOf = new Int32Array(n);
     this.groupIndex = new TupleIndex(7, 4096); this.key = new Uint32Array(7);
@@ -74,87 +77,119 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
   // folds a whole chunk's columns of one read position into one group.
   let groups = 0;
   let groupsByW = -1;
-  const tab = plan.tab, rfClass = plan.rfClass, maps = plan.rfMaps;
-  for (const op of plan.ops) {
-    switch (op.t) {
-      case "rf":
-        applyRf(mr, mi, mz, m0, rfClass, i0, i1, maps, op.base, op.cos, op.sin);
-        break;
-      case "free":
-        applyFree(mr, mi, mz, m0, iu, iv, iw, i0, i1, tab, op.u, op.v, op.w, s.d[op.dur]!, s.e1[op.dur]!);
-        break;
-      case "spoil":
-        applySpoil(mr, mi, n);
-        break;
-      case "adc": {
-        if (groupsByW !== (op.byW ? 1 : 0)) {
-          groupsByW = op.byW ? 1 : 0;
-          groups = readoutGroups(iso, i0, i1, op.byW, s);
+  const tab = plan.tab, rfClass = plan.rfClass, maps = plan.rfMaps, ops = plan.ops;
+  const sens = plan.sens, coils = plan.coils, count = iso.count;
+  const groupOf = s.groupOf, first = s.groupFirst, liveOf = s.liveOf;
+  // The ops are played segment by segment — a segment is the ops up to and
+  // including the next readout — and each segment over sub-blocks of
+  // SUB_BLOCK isochromats, so a sub-block's state stays in cache across the
+  // segment's ops. Every op but the readout recurrence acts per isochromat,
+  // and readout sums are accumulated in isochromat order, so the result is
+  // bitwise that of playing each op over the whole chunk.
+  let trailing: Extract<Op, { t: "adc" }> | null = null;
+  let o = 0;
+  while (o < ops.length) {
+    let end = o;
+    while (end < ops.length && ops[end]!.t !== "adc") end++;
+    const adc = end < ops.length ? (ops[end] as Extract<Op, { t: "adc" }>) : null;
+    let live = 0;
+    if (adc) {
+      if (groupsByW !== (adc.byW ? 1 : 0)) {
+        groupsByW = adc.byW ? 1 : 0;
+        groups = readoutGroups(iso, i0, i1, adc.byW, s);
+      }
+      // per-group receiver filter weight and factor a = U·V·W·D for one dwell;
+      // groups the filter removes (weight 0) are dropped: they add exactly nothing
+      const dstep = s.d[adc.stepDur]!;
+      for (let g = 0; g < groups; g++) {
+        const k0 = first[g]!, i = i0 + k0;
+        const w = plan.receiverFilter ? receiverFilter(adc.fRead * iso.uGrid[iu[i]!]! + df[i]!, adc.bwSampled) : 1;
+        if (w === 0) {
+          liveOf[g] = -1;
+          continue;
         }
-        const dstep = s.d[op.stepDur]!;
-        const sens = plan.sens, coils = plan.coils, count = iso.count;
-        const groupOf = s.groupOf, first = s.groupFirst;
-        // per-group receiver filter weight and factor a = U·V·W·D for one dwell;
-        // groups the filter removes (weight 0) are dropped: they add exactly nothing
-        let live = 0;
-        for (let g = 0; g < groups; g++) {
-          const k0 = first[g]!, i = i0 + k0;
-          const w = plan.receiverFilter ? receiverFilter(op.fRead * iso.uGrid[iu[i]!]! + df[i]!, op.bwSampled) : 1;
-          if (w === 0) {
-            s.liveOf[g] = -1;
-            continue;
-          }
-          s.liveOf[g] = live;
-          h[live] = w;
-          const ou = op.su + 2 * iu[i]!, ov = op.sv + 2 * iv[i]!, ow = op.sw + 2 * iw[i]!;
-          const ur = tab[ou]!, ui = tab[ou + 1]!, vr = tab[ov]!, vi = tab[ov + 1]!, wr = tab[ow]!, wi = tab[ow + 1]!;
-          const uvr = ur * vr - ui * vi, uvi = ur * vi + ui * vr;
-          const pr = uvr * wr - uvi * wi, pi = uvr * wi + uvi * wr;
-          const dr = dstep[2 * k0]!, di = dstep[2 * k0 + 1]!;
-          ar[live] = pr * dr - pi * di;
-          ai[live] = pr * di + pi * dr;
-          live++;
+        liveOf[g] = live;
+        h[live] = w;
+        const ou = adc.su + 2 * iu[i]!, ov = adc.sv + 2 * iv[i]!, ow = adc.sw + 2 * iw[i]!;
+        const ur = tab[ou]!, ui = tab[ou + 1]!, vr = tab[ov]!, vi = tab[ov + 1]!, wr = tab[ow]!, wi = tab[ow + 1]!;
+        const uvr = ur * vr - ui * vi, uvi = ur * vi + ui * vr;
+        const pr = uvr * wr - uvi * wi, pi = uvr * wi + uvi * wr;
+        const dr = dstep[2 * k0]!, di = dstep[2 * k0 + 1]!;
+        ar[live] = pr * dr - pi * di;
+        ai[live] = pr * di + pi * dr;
+        live++;
+      }
+      zr.fill(0, 0, coils * live);
+      zi.fill(0, 0, coils * live);
+    }
+    for (let k0 = 0; k0 < n; k0 += SUB_BLOCK) {
+      const k1 = Math.min(n, k0 + SUB_BLOCK), a0 = i0 + k0, a1 = i0 + k1;
+      if (trailing) applyFree(mr, mi, mz, m0, iu, iv, iw, a0, a1, tab, trailing.u, trailing.v, trailing.w, s.d[trailing.dur]!, s.e1[trailing.dur]!, k0);
+      for (let q = o; q < end; q++) {
+        const op = ops[q]!;
+        switch (op.t) {
+          case "rf":
+            applyRf(mr, mi, mz, m0, rfClass, a0, a1, maps, op.base, op.cos, op.sin, k0);
+            break;
+          case "free":
+            applyFree(mr, mi, mz, m0, iu, iv, iw, a0, a1, tab, op.u, op.v, op.w, s.d[op.dur]!, s.e1[op.dur]!, k0);
+            break;
+          case "spoil":
+            mr.fill(0, k0, k1);
+            mi.fill(0, k0, k1);
+            break;
+          default:
+            break;
         }
+      }
+      if (!adc) continue;
+      // z_g = Σ_{k in g} M_k (·S_q(r_k) with coil sensitivities), in isochromat order; [coil][live group]
+      if (sens === null) {
+        for (let k = k0; k < k1; k++) {
+          const g = liveOf[groupOf[k]!]!;
+          if (g < 0) continue;
+          zr[g] = zr[g]! + mr[k]!;
+          zi[g] = zi[g]! + mi[k]!;
+        }
+      } else {
         for (let q = 0; q < coils; q++) {
-          // z_g = weight_g · Σ_{k in g} M_k (·S_q(r_k) with coil sensitivities), summed in isochromat order
-          zr.fill(0, 0, live);
-          zi.fill(0, 0, live);
-          const liveOf = s.liveOf;
-          if (sens === null) {
-            for (let k = 0; k < n; k++) {
-              const g = liveOf[groupOf[k]!]!;
-              if (g < 0) continue;
-              zr[g] = zr[g]! + mr[k]!;
-              zi[g] = zi[g]! + mi[k]!;
-            }
-          } else {
-            const so = 2 * q * count;
-            for (let k = 0; k < n; k++) {
-              const g = liveOf[groupOf[k]!]!;
-              if (g < 0) continue;
-              const sr0 = sens[so + 2 * (i0 + k)]!, si0 = sens[so + 2 * (i0 + k) + 1]!;
-              zr[g] = zr[g]! + (mr[k]! * sr0 - mi[k]! * si0);
-              zi[g] = zi[g]! + (mr[k]! * si0 + mi[k]! * sr0);
-            }
-          }
-          for (let g = 0; g < live; g++) {
-            zr[g] = zr[g]! * h[g]!;
-            zi[g] = zi[g]! * h[g]!;
-          }
-          sr.fill(0, 0, op.n);
-          si.fill(0, 0, op.n);
-          readoutRecurrenceFast(sr, si, op.n, zr, zi, ar, ai, live);
-          const base = (q * plan.rows + op.row) * plan.read;
-          for (let j = 0; j < op.n; j++) {
-            const a = sr[j]!, b = si[j]!;
-            outRe[base + j] = outRe[base + j]! + (a * op.cr - b * op.ci);
-            outIm[base + j] = outIm[base + j]! + (a * op.ci + b * op.cr);
+          const so = 2 * q * count, zo = q * live;
+          for (let k = k0; k < k1; k++) {
+            const g = liveOf[groupOf[k]!]!;
+            if (g < 0) continue;
+            const sr0 = sens[so + 2 * (i0 + k)]!, si0 = sens[so + 2 * (i0 + k) + 1]!;
+            zr[zo + g] = zr[zo + g]! + (mr[k]! * sr0 - mi[k]! * si0);
+            zi[zo + g] = zi[zo + g]! + (mr[k]! * si0 + mi[k]! * sr0);
           }
         }
-        applyFree(mr, mi, mz, m0, iu, iv, iw, i0, i1, tab, op.u, op.v, op.w, s.d[op.dur]!, s.e1[op.dur]!);
-        break;
       }
     }
+    trailing = null;
+    if (adc) {
+      for (let q = 0; q < coils; q++) {
+        const zo = q * live;
+        for (let g = 0; g < live; g++) {
+          zr[zo + g] = zr[zo + g]! * h[g]!;
+          zi[zo + g] = zi[zo + g]! * h[g]!;
+        }
+        sr.fill(0, 0, adc.n);
+        si.fill(0, 0, adc.n);
+        readoutRecurrenceFast(sr, si, adc.n, q === 0 ? zr : zr.subarray(zo), q === 0 ? zi : zi.subarray(zo), ar, ai, live);
+        const base = (q * plan.rows + adc.row) * plan.read;
+        for (let j = 0; j < adc.n; j++) {
+          const x = sr[j]!, y = si[j]!;
+          outRe[base + j] = outRe[base + j]! + (x * adc.cr - y * adc.ci);
+          outIm[base + j] = outIm[base + j]! + (x * adc.ci + y * adc.cr);
+        }
+      }
+      // the readout's own duration, as a free interval, opens the next segment
+      trailing = adc;
+    }
+    o = end + 1;
+  }
+  if (trailing) {
+    const t = trailing;
+    applyFree(mr, mi, mz, m0, iu, iv, iw, i0, i1, tab, t.u, t.v, t.w, s.d[t.dur]!, s.e1[t.dur]!, 0);
   }
 }
 

@@ -11,15 +11,16 @@
 /**
  * RF pulse as an affine map per isochromat class: M ← Rz(φ)·(A·Rz(−φ)·M + b·m0).
  * `maps` holds 12 numbers per class: A row-major (9) then b (3).
- * `base` is the offset of this pulse's first class in `maps`.
+ * `base` is the offset of this pulse's first class in `maps`. The state of
+ * isochromat i is at index k0 + i − i0 of mr, mi, mz.
  */
 export function applyRf(
   mr: Float64Array, mi: Float64Array, mz: Float64Array,
   m0: Float64Array, cls: Int32Array, i0: number, i1: number,
-  maps: Float64Array, base: number, cosPhi: number, sinPhi: number,
+  maps: Float64Array, base: number, cosPhi: number, sinPhi: number, k0 = 0,
 ): void {
   for (let i = i0; i < i1; i++) {
-    const k = i - i0;
+    const k = k0 + i - i0;
     const o = base + cls[i]! * 12;
     const x0 = mr[k]!, y0 = mi[k]!, z = mz[k]!, m = m0[i]!;
     // into the pulse frame: rotate by −φ
@@ -40,16 +41,17 @@ export function applyRf(
  * Mxy ← Mxy · U[iu]·V[iv]·W[iw] · D[i], Mz ← Mz·E1[i] + m0·(1 − E1[i]).
  * U, V, W are interleaved (cos, sin) tables of exp(−i2πγ̄·A·coordinate) per
  * grid index; D (interleaved) and E1 are the chunk-local relaxation and
- * off-resonance factors for this duration.
+ * off-resonance factors for this duration. The state (and d, e1) of
+ * isochromat i is at index k0 + i − i0.
  */
 export function applyFree(
   mr: Float64Array, mi: Float64Array, mz: Float64Array,
   m0: Float64Array, iu: Int32Array, iv: Int32Array, iw: Int32Array, i0: number, i1: number,
   tab: Float64Array, offU: number, offV: number, offW: number,
-  d: Float64Array, e1: Float64Array,
+  d: Float64Array, e1: Float64Array, k0 = 0,
 ): void {
   for (let i = i0; i < i1; i++) {
-    const k = i - i0;
+    const k = k0 + i - i0;
     const ou = offU + 2 * iu[i]!, ov = offV + 2 * iv[i]!, ow = offW + 2 * iw[i]!;
     const ur = tab[ou]!, ui = tab[ou + 1]!, vr = tab[ov]!, vi = tab[ov + 1]!, wr = tab[ow]!, wi = tab[ow + 1]!;
     const uvr = ur * vr - ui * vi, uvi = ur * vi + ui * vr;
