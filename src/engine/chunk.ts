@@ -4,7 +4,7 @@
  * chunk gives the same bits on any thread.
  */
 import type { IsochromatSet } from "../isochromats/index.js";
-import { applyFree, applyRf } from "./kernels.js";
+import { applyFree, applyRelax, applyRf } from "./kernels.js";
 import { readoutRecurrenceFast } from "./wasm.js";
 import type { EnginePlan, Op } from "./plan.js";
 
@@ -86,7 +86,6 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
   // segment's ops. Every op but the readout recurrence acts per isochromat,
   // and readout sums are accumulated in isochromat order, so the result is
   // bitwise that of playing each op over the whole chunk.
-  let trailing: Extract<Op, { t: "adc" }> | null = null;
   let o = 0;
   while (o < ops.length) {
     let end = o;
@@ -124,7 +123,6 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
     }
     for (let k0 = 0; k0 < n; k0 += SUB_BLOCK) {
       const k1 = Math.min(n, k0 + SUB_BLOCK), a0 = i0 + k0, a1 = i0 + k1;
-      if (trailing) applyFree(mr, mi, mz, m0, iu, iv, iw, a0, a1, tab, trailing.u, trailing.v, trailing.w, s.d[trailing.dur]!, s.e1[trailing.dur]!, k0);
       for (let q = o; q < end; q++) {
         const op = ops[q]!;
         switch (op.t) {
@@ -137,6 +135,9 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
           case "spoil":
             mr.fill(0, k0, k1);
             mi.fill(0, k0, k1);
+            break;
+          case "relax":
+            applyRelax(mz, m0, a0, a1, s.e1[op.dur]!, k0);
             break;
           default:
             break;
@@ -164,7 +165,6 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
         }
       }
     }
-    trailing = null;
     if (adc) {
       for (let q = 0; q < coils; q++) {
         const zo = q * live;
@@ -182,14 +182,8 @@ export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe:
           outIm[base + j] = outIm[base + j]! + (x * adc.ci + y * adc.cr);
         }
       }
-      // the readout's own duration, as a free interval, opens the next segment
-      trailing = adc;
     }
     o = end + 1;
-  }
-  if (trailing) {
-    const t = trailing;
-    applyFree(mr, mi, mz, m0, iu, iv, iw, i0, i1, tab, t.u, t.v, t.w, s.d[t.dur]!, s.e1[t.dur]!, 0);
   }
 }
 

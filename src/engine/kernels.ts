@@ -66,6 +66,18 @@ export function applyFree(
   }
 }
 
+/**
+ * Longitudinal relaxation only (the transverse part is zero, after a spoil):
+ * Mz ← Mz·E1[k] + m0·(1 − E1[k]), state index k = k0 + i − i0.
+ */
+export function applyRelax(mz: Float64Array, m0: Float64Array, i0: number, i1: number, e1: Float64Array, k0 = 0): void {
+  for (let i = i0; i < i1; i++) {
+    const k = k0 + i - i0;
+    const e = e1[k]!;
+    mz[k] = mz[k]! * e + m0[i]! * (1 - e);
+  }
+}
+
 /** Ideal spoiling: Mxy ← 0. */
 export function applySpoil(mr: Float64Array, mi: Float64Array, n: number): void {
   mr.fill(0, 0, n);

@@ -38,10 +38,11 @@ export type Op =
       stepDur: number; su: number; sv: number; sw: number;
       /** γ̄·G_read (Hz/m) for the receiver filter, sampled bandwidth (Hz), and whether groups must share w */
       fRead: number; bwSampled: number; byW: boolean;
-      /** the whole readout as a free interval afterwards */
-      dur: number; u: number; v: number; w: number;
+      /** (the readout's duration as a free interval is in the ops after it) */
     }
-  | { t: "spoil" };
+  | { t: "spoil" }
+  /** Mz relaxation over a duration with the transverse part zero (after a spoil): Mz ← Mz·E1 + m0·(1 − E1). */
+  | { t: "relax"; dur: number };
 
 export interface EnginePlan {
   ops: Op[];
@@ -178,35 +179,52 @@ export function planLayout(
   };
 
   // --- ops, with consecutive free intervals merged (exact: areas and durations add)
+  // Exact rewrites: consecutive free intervals merge (areas and durations
+  // add); the readout's own duration joins the free intervals after it; and
+  // an ideal spoil makes every free interval between the last readout or RF
+  // before it and the next readout or RF after it act on Mz only — the
+  // transverse part is discarded by the spoil or zero after it — so they
+  // become one spoil followed by one Mz relaxation over their total duration.
   const ops: Op[] = [];
   let pend: { duration: number; area: Vec3 } | null = null;
+  let spoiled = false;
   const flush = () => {
-    if (pend && pend.duration > 0) ops.push(free(pend.duration, pend.area));
+    if (spoiled) {
+      ops.push({ t: "spoil" });
+      if (pend && pend.duration > 0) ops.push({ t: "relax", dur: dur(pend.duration) });
+    } else if (pend && pend.duration > 0) {
+      ops.push(free(pend.duration, pend.area));
+    }
     pend = null;
+    spoiled = false;
+  };
+  const addFree = (duration: number, area: Vec3) => {
+    if (!pend) pend = { duration: 0, area: [0, 0, 0] };
+    pend.duration += duration;
+    pend.area = [pend.area[0] + area[0], pend.area[1] + area[1], pend.area[2] + area[2]];
   };
   for (const b of seq.blocks) {
     if (b.kind === "free") {
-      if (!pend) pend = { duration: 0, area: [0, 0, 0] };
-      pend.duration += b.duration;
-      pend.area = [pend.area[0] + b.area[0], pend.area[1] + b.area[1], pend.area[2] + b.area[2]];
+      addFree(b.duration, b.area);
+      continue;
+    }
+    if (b.kind === "spoil") {
+      spoiled = true;
       continue;
     }
     flush();
     if (b.kind === "rf") {
       ops.push({ t: "rf", base: b.pulse * classes * 12, cos: Math.cos(b.phase), sin: Math.sin(b.phase) });
-    } else if (b.kind === "spoil") {
-      ops.push({ t: "spoil" });
     } else {
-      const T = b.samples * b.dwell;
-      const f = free(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
       ops.push({
         t: "adc", n: b.samples, row: b.row,
         cr: b.weight * Math.cos(b.phase), ci: -b.weight * Math.sin(b.phase),
         stepDur: dur(b.dwell),
         su: table(0, b.grad[0] * b.dwell), sv: table(1, b.grad[1] * b.dwell), sw: table(2, b.grad[2] * b.dwell),
         fRead: GAMMA_BAR * b.grad[0], bwSampled: 1 / b.dwell, byW: b.grad[2] !== 0 || b.grad[1] !== 0,
-        dur: f.dur, u: f.u, v: f.v, w: f.w,
       });
+      const T = b.samples * b.dwell;
+      addFree(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
     }
   }
   flush();
