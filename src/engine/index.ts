@@ -7,11 +7,11 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
-import { fillRfMaps, makePlan, planLayout, shareIsochromats, type EnginePlan } from "./plan.js";
+import { fillRfMaps, makePlan, planLayout, shareEngineArrays, type EnginePlan } from "./plan.js";
 import { EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 
-export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
+export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, shareEngineArrays, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
 export { EnginePool, AbortedError, workerPath } from "./pool.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
@@ -89,7 +89,7 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
  * partials summed in the fixed order on this thread.
  */
 export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan }> {
-  const shared = shareIsochromats(iso);
+  const shared = shareEngineArrays(iso);
   const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
   opts.onPlan?.(plan);
   const pool = new EnginePool(plan, shared, Math.max(1, opts.workers));

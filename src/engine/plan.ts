@@ -107,24 +107,31 @@ export function sharedI32(n: number): Int32Array {
 
 /** Moves an isochromat set's arrays into shared memory (once), so workers can read them. */
 export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
-  const f = (a: Float64Array) => {
-    if (a.buffer instanceof SharedArrayBuffer) return a;
-    const s = sharedF64(a.length);
-    s.set(a);
-    return s.subarray(0, a.length);
+  return {
+    ...shareEngineArrays(iso),
+    x: shareF64(iso.x), y: shareF64(iso.y), z: shareF64(iso.z),
+    tissue: shareI32(iso.tissue), peak: shareI32(iso.peak), colStart: shareI32(iso.colStart),
   };
-  const i = (a: Int32Array) => {
-    if (a.buffer instanceof SharedArrayBuffer) return a;
-    const s = sharedI32(a.length);
-    s.set(a);
-    return s.subarray(0, a.length);
-  };
+}
+
+/**
+ * Shares only the arrays the engine reads (iu, iv, iw, m0, r1, r2, df); the
+ * others stay as they are. Cheaper than {@link shareIsochromats} for large sets.
+ */
+export function shareEngineArrays(iso: IsochromatSet): IsochromatSet {
   return {
     ...iso,
-    iu: i(iso.iu), iv: i(iso.iv), iw: i(iso.iw), x: f(iso.x), y: f(iso.y), z: f(iso.z),
-    m0: f(iso.m0), r1: f(iso.r1), r2: f(iso.r2), df: f(iso.df), tissue: i(iso.tissue), peak: i(iso.peak),
-    colStart: i(iso.colStart),
+    iu: shareI32(iso.iu), iv: shareI32(iso.iv), iw: shareI32(iso.iw),
+    m0: shareF64(iso.m0), r1: shareF64(iso.r1), r2: shareF64(iso.r2), df: shareF64(iso.df),
   };
+}
+
+/** A shared copy of `a` (or `a` itself if it is shared already). */
+export function shareI32(a: Int32Array): Int32Array {
+  if (a.buffer instanceof SharedArrayBuffer) return a;
+  const s = sharedI32(a.length);
+  s.set(a);
+  return s.subarray(0, a.length);
 }
 
 /**
