@@ -19,7 +19,7 @@ import { fileURLToPath } from "node:url";
 import { isMainThread, parentPort, Worker, workerData } from "node:worker_threads";
 import { GAMMA } from "../src/constants.js";
 import { readoutRecurrence, rfAffine } from "../src/engine/kernels.js";
-import { readoutRecurrenceFast, wasmKernel } from "../src/engine/wasm.js";
+import { readoutRecurrenceFast, rfAffineMany, wasmKernel } from "../src/engine/wasm.js";
 
 const GROUPS = 65536, SAMPLES = 256, LINES = 16;
 const RF_ISO = 65536, RF_STEPS = 200;
@@ -67,19 +67,23 @@ function sinc(): { re: Float64Array; im: Float64Array; dt: number } {
 }
 
 /** RF maps for isochromats i0 … i1−1, each at its own offset (−5 … 5 kHz); returns seconds. */
-function rfRun(i0: number, i1: number): number {
+function rfRun(kind: "scalar" | "wasm", i0: number, i1: number): number {
   const { re, im, dt } = sinc();
-  const out = new Float64Array((i1 - i0) * 12);
-  for (let i = i0; i < Math.min(i1, i0 + 256); i++) rfAffine(out, 0, re, im, dt, GAMMA, 0, 1, 10); // warm-up
+  const n = i1 - i0, out = new Float64Array(n * 12);
+  const f = new Float64Array(n), r1 = new Float64Array(n).fill(1), r2 = new Float64Array(n).fill(10);
+  for (let i = i0; i < i1; i++) f[i - i0] = -5000 + (10000 * i) / RF_ISO;
+  rfAffineMany(out, 0, Math.min(n, 256), f, r1, r2, re, im, dt, GAMMA); // warm-up
+  for (let i = 0; i < Math.min(n, 256); i++) rfAffine(out, 0, re, im, dt, GAMMA, f[i]!, 1, 10);
   const t = performance.now();
-  for (let i = i0; i < i1; i++) rfAffine(out, (i - i0) * 12, re, im, dt, GAMMA, -5000 + (10000 * i) / RF_ISO, 1, 10);
+  if (kind === "wasm") rfAffineMany(out, 0, n, f, r1, r2, re, im, dt, GAMMA);
+  else for (let i = 0; i < n; i++) rfAffine(out, i * 12, re, im, dt, GAMMA, f[i]!, 1, 10);
   return (performance.now() - t) / 1000;
 }
 
-type Job = { kind: "readout-scalar" | "readout-wasm" | "rf"; a: number; b: number };
+type Job = { kind: "readout-scalar" | "readout-wasm" | "rf-scalar" | "rf-wasm"; a: number; b: number };
 
 function runJob(j: Job): number {
-  if (j.kind === "rf") return rfRun(j.a, j.b);
+  if (j.kind === "rf-scalar" || j.kind === "rf-wasm") return rfRun(j.kind === "rf-wasm" ? "wasm" : "scalar", j.a, j.b);
   return readoutRun(j.kind === "readout-wasm" ? "wasm" : "scalar", j.a, j.b);
 }
 
@@ -154,11 +158,14 @@ async function main(): Promise<void> {
     console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "scalar TS"} | 2 workers | ${g(rWork / median(two))} iso-samples/s |`);
   }
   const fWork = RF_ISO * RF_STEPS;
-  const rf1: number[] = [], rf2: number[] = [];
-  for (let k = 0; k < 5; k++) rf1.push(runJob({ kind: "rf", a: 0, b: RF_ISO }));
-  for (let k = 0; k < 5; k++) rf2.push(await twoWorkers("rf", RF_ISO));
-  console.log(`| RF map, ${RF_STEPS}-step sinc, ${RF_ISO} isochromats of distinct frequency | 1 | ${g(fWork / median(rf1))} iso-steps/s |`);
-  console.log(`| RF map | 2 workers | ${g(fWork / median(rf2))} iso-steps/s |`);
+  for (const kind of ["rf-scalar", "rf-wasm"] as const) {
+    const rf1: number[] = [], rf2: number[] = [];
+    for (let k = 0; k < 5; k++) rf1.push(runJob({ kind, a: 0, b: RF_ISO }));
+    for (let k = 0; k < 5; k++) rf2.push(await twoWorkers(kind, RF_ISO));
+    const label = kind === "rf-wasm" ? "WebAssembly SIMD, 2 classes per lane pair" : "scalar TS";
+    console.log(`| RF map ${label}, ${RF_STEPS}-step sinc, ${RF_ISO} isochromats of distinct frequency | 1 | ${g(fWork / median(rf1))} iso-steps/s |`);
+    console.log(`| RF map ${label} | 2 workers | ${g(fWork / median(rf2))} iso-steps/s |`);
+  }
   console.log("");
   console.log(`| end to end (run(): prepare, simulate, recon, write) | isochromats | workers | seconds (median of ${runs}) | peak RSS |`);
   console.log("| --- | --- | --- | --- | --- |");

@@ -15,7 +15,7 @@ export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillR
 export { EnginePool, AbortedError, workerPath } from "./pool.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
-export { readoutRecurrenceFast, wasmKernel, readoutKernelName } from "./wasm.js";
+export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
 export { runChunk, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
 

@@ -8,7 +8,7 @@
 import { GAMMA, GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
-import { rfAffine } from "./kernels.js";
+import { rfAffineMany } from "./wasm.js";
 import { f64Words, TupleIndex } from "./hash.js";
 
 /**
@@ -282,13 +282,12 @@ export function makePlan(
  */
 export function fillRfMaps(plan: EnginePlan, c0: number, c1: number): void {
   const { classW, classDf, classR1, classR2, pulses } = plan.rf;
+  if (c1 <= c0) return;
+  const f = new Float64Array(c1 - c0);
   for (let pi = 0; pi < pulses.length; pi++) {
     const p = pulses[pi]!;
-    const base = pi * plan.classes;
-    for (let c = c0; c < c1; c++) {
-      const f = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
-      rfAffine(plan.rfMaps, (base + c) * 12, p.b1re, p.b1im, p.dt, GAMMA, f, classR1[c]!, classR2[c]!);
-    }
+    for (let c = c0; c < c1; c++) f[c - c0] = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
+    rfAffineMany(plan.rfMaps, (pi * plan.classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA);
   }
 }
 
