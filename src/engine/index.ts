@@ -92,13 +92,14 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
   const shared = shareEngineArrays(iso);
   const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
   opts.onPlan?.(plan);
-  const pool = new EnginePool(plan, shared, Math.max(1, opts.workers));
+  const [c0, c1] = chunkRange(plan, opts.blocks);
+  // no more workers than chunks (nor than RF class ranges when those are filled in parallel)
+  const pool = new EnginePool(plan, shared, Math.max(1, Math.min(opts.workers, Math.max(c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? opts.workers : 1))));
   try {
     if (plan.classes >= PARALLEL_RF_CLASSES && pool.size > 1) await pool.fillRfMaps(plan.classes, opts.signal);
     else fillRfMaps(plan, 0, plan.classes);
     const size = plan.coils * plan.rows * plan.read;
     const re = new Float64Array(size), im = new Float64Array(size);
-    const [c0, c1] = chunkRange(plan, opts.blocks);
     const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
       opts.onBlock?.(b, bre, bim);
       addInto(re, im, bre, bim);

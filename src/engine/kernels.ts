@@ -19,6 +19,18 @@ export function applyRf(
   m0: Float64Array, cls: Int32Array, i0: number, i1: number,
   maps: Float64Array, base: number, cosPhi: number, sinPhi: number, k0 = 0,
 ): void {
+  if (cosPhi === 1 && sinPhi === 0) {
+    // zero pulse phase: no frame rotation (the same numbers as the general path with cos 1, sin 0)
+    for (let i = i0; i < i1; i++) {
+      const k = k0 + i - i0;
+      const o = base + cls[i]! * 12;
+      const x = mr[k]!, y = mi[k]!, z = mz[k]!, m = m0[i]!;
+      mr[k] = maps[o]! * x + maps[o + 1]! * y + maps[o + 2]! * z + maps[o + 9]! * m;
+      mi[k] = maps[o + 3]! * x + maps[o + 4]! * y + maps[o + 5]! * z + maps[o + 10]! * m;
+      mz[k] = maps[o + 6]! * x + maps[o + 7]! * y + maps[o + 8]! * z + maps[o + 11]! * m;
+    }
+    return;
+  }
   for (let i = i0; i < i1; i++) {
     const k = k0 + i - i0;
     const o = base + cls[i]! * 12;
