@@ -190,9 +190,9 @@ function directBloch(seq: Sequence, iso: IsochromatSet, filter: boolean, coils: 
 }
 
 /** A small case: the two-bottle phantom (water and oil: several spectral peaks, so several Δf per column). */
-function smallCase(sets: string[] = []) {
+function smallCase(sets: string[] = [], protocol = "gre-demo-1.5t") {
   return prepare({
-    phantom: "phantoms/two-bottle.json", protocol: "gre-demo-1.5t",
+    phantom: "phantoms/two-bottle.json", protocol,
     sets: ["matrix.read=16", "matrix.phase=16", "dummyScans=2", ...sets],
     out: "/tmp/unused", seed: 1, iso: { density: 1, sliceCount: 3, sliceExtent: 3, fatModel: "multi" }, workers: 1,
   });
@@ -201,6 +201,21 @@ function smallCase(sets: string[] = []) {
 describe("chunk runner", () => {
   test("k-space equals a direct per-isochromat Bloch simulation within 1e-9 relative (RF classes, readout groups, filter)", () => {
     const p = smallCase();
+    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    const d = directBloch(p.seq, p.iso, true, 1, null);
+    expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
+  }, 60_000);
+
+  test.each([["spoiling=rf"], ["spoiling=none"]])("GRE with %s (RF phases, no ideal spoil): k-space equals the direct simulation within 1e-9 relative", (set) => {
+    const p = smallCase([set]);
+    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    const d = directBloch(p.seq, p.iso, true, 1, null);
+    expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
+  }, 60_000);
+
+  test("spin echo (two pulses per TR): k-space equals the direct per-isochromat Bloch simulation within 1e-9 relative", () => {
+    const p = smallCase([], "se-t2-1.5t");
+    expect(p.seq.pulses.length).toBe(2);
     const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true });
     const d = directBloch(p.seq, p.iso, true, 1, null);
     expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
