@@ -12,7 +12,7 @@ import { EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 
 export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, shareEngineArrays, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
-export { EnginePool, AbortedError, workerPath } from "./pool.js";
+export { EnginePool, AbortedError, workerPath, PARALLEL_RF_CLASSES } from "./pool.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";

@@ -275,9 +275,11 @@ export function wasmRfKernel(): RfKernel | null {
 
 /**
  * RF affine maps (see rfAffine) of `count` classes at offsets f[k] (Hz) and
- * rates r1[k], r2[k] (1/s), written to out at o0 + 12·k. Pairs of classes
- * whose largest step angle is at most 1 rad run on the SIMD kernel; others
- * (and an odd last class) on the scalar rfAffine.
+ * rates r1[k], r2[k] (1/s), written to out at o0 + 12·k. A class whose
+ * largest step angle is at most 1 rad runs on the SIMD kernel (paired with
+ * the next such class, or with itself), any other on the scalar rfAffine.
+ * SIMD lanes do not interact, so each class's bits depend on that class
+ * alone — not on its partner nor on how classes are split among threads.
  */
 export function rfAffineMany(
   out: Float64Array, o0: number, count: number,
@@ -286,57 +288,67 @@ export function rfAffineMany(
 ): void {
   const k = wasmRfKernel();
   const n = b1re.length;
-  let k0 = 0;
-  if (k !== null && n > 0) {
-    const P = 2 * n; // pair block after the steps, in f64 words
-    const need = (P + 2 * 38) * 8;
-    if (k.memory.buffer.byteLength < need) {
-      k.memory.grow(Math.ceil((need - k.memory.buffer.byteLength) / 65536));
-      k.f64 = new Float64Array(k.memory.buffer);
+  if (k === null || n === 0) {
+    for (let c = 0; c < count; c++) rfAffine(out, o0 + 12 * c, b1re, b1im, dt, gamma, f[c]!, r1[c]!, r2[c]!);
+    return;
+  }
+  const P = 2 * n; // pair block after the steps, in f64 words
+  const need = (P + 2 * 38) * 8;
+  if (k.memory.buffer.byteLength < need) {
+    k.memory.grow(Math.ceil((need - k.memory.buffer.byteLength) / 65536));
+    k.f64 = new Float64Array(k.memory.buffer);
+  }
+  const m = k.f64;
+  let b1max = 0;
+  for (let s = 0; s < n; s++) {
+    const wx = -gamma * b1re[s]!, wy = -gamma * b1im[s]!;
+    m[2 * s] = wx;
+    m[2 * s + 1] = wy;
+    b1max = Math.max(b1max, wx * wx + wy * wy);
+  }
+  for (let q = 0; q < 9; q++) {
+    m[P + 2 * (20 + q)] = m[P + 2 * (20 + q) + 1] = SIN_C[q]!;
+    m[P + 2 * (29 + q)] = m[P + 2 * (29 + q) + 1] = COS_C[q]!;
+  }
+  const lim = 1 / (dt * dt);
+  const lane = [0, 0], e2 = [0, 0], e1 = [0, 0], rec = [0, 0];
+  const runPair = (cA: number, cB: number) => {
+    lane[0] = cA;
+    lane[1] = cB;
+    for (let l = 0; l < 2; l++) {
+      const c = lane[l]!, wz = -2 * Math.PI * f[c]!;
+      e2[l] = Math.exp((-r2[c]! * dt) / 2);
+      e1[l] = Math.exp((-r1[c]! * dt) / 2);
+      rec[l] = 1 - e1[l]!;
+      const E2 = e2[l]! * e2[l]!, E1 = e1[l]! * e1[l]!, REC = 1 - E1;
+      const vals = [wz, wz * wz, E2, E1, REC, dt, 1, 1e-300];
+      for (let q = 0; q < 8; q++) m[P + 2 * q + l] = vals[q]!;
+      // start so that the first full relaxation gives diag(e2, e2, e1) and b = (0, 0, rec)
+      const st = [1 / e2[l]!, 0, 0, 0, 1 / e2[l]!, 0, 0, 0, 1 / e1[l]!, 0, 0, (rec[l]! - REC) / E1];
+      for (let q = 0; q < 12; q++) m[P + 2 * (8 + q) + l] = st[q]!;
     }
-    const m = k.f64;
-    let b1max = 0;
-    for (let s = 0; s < n; s++) {
-      const wx = -gamma * b1re[s]!, wy = -gamma * b1im[s]!;
-      m[2 * s] = wx;
-      m[2 * s + 1] = wy;
-      b1max = Math.max(b1max, wx * wx + wy * wy);
+    k.rf(0, n, P * 8);
+    for (let l = 0; l < (cA === cB ? 1 : 2); l++) {
+      const o = o0 + 12 * lane[l]!, a = e2[l]!, b = e1[l]!;
+      for (let q = 0; q < 6; q++) out[o + q] = m[P + 2 * (8 + q) + l]! * a;
+      for (let q = 6; q < 9; q++) out[o + q] = m[P + 2 * (8 + q) + l]! * b;
+      out[o + 9] = m[P + 2 * 17 + l]! * a;
+      out[o + 10] = m[P + 2 * 18 + l]! * a;
+      out[o + 11] = m[P + 2 * 19 + l]! * b + rec[l]!;
     }
-    for (let q = 0; q < 9; q++) {
-      m[P + 2 * (20 + q)] = m[P + 2 * (20 + q) + 1] = SIN_C[q]!;
-      m[P + 2 * (29 + q)] = m[P + 2 * (29 + q) + 1] = COS_C[q]!;
+  };
+  let held = -1;
+  for (let c = 0; c < count; c++) {
+    const wz = 2 * Math.PI * f[c]!;
+    if (b1max + wz * wz > lim) {
+      rfAffine(out, o0 + 12 * c, b1re, b1im, dt, gamma, f[c]!, r1[c]!, r2[c]!);
+      continue;
     }
-    const lim = 1 / (dt * dt);
-    for (; k0 + 2 <= count; k0 += 2) {
-      const wzA = -2 * Math.PI * f[k0]!, wzB = -2 * Math.PI * f[k0 + 1]!;
-      if (b1max + wzA * wzA > lim || b1max + wzB * wzB > lim) {
-        rfAffine(out, o0 + 12 * k0, b1re, b1im, dt, gamma, f[k0]!, r1[k0]!, r2[k0]!);
-        rfAffine(out, o0 + 12 * (k0 + 1), b1re, b1im, dt, gamma, f[k0 + 1]!, r1[k0 + 1]!, r2[k0 + 1]!);
-        continue;
-      }
-      const e2 = [0, 0], e1 = [0, 0], rec = [0, 0];
-      for (let l = 0; l < 2; l++) {
-        const c = k0 + l, wz = l === 0 ? wzA : wzB;
-        e2[l] = Math.exp((-r2[c]! * dt) / 2);
-        e1[l] = Math.exp((-r1[c]! * dt) / 2);
-        rec[l] = 1 - e1[l]!;
-        const E2 = e2[l]! * e2[l]!, E1 = e1[l]! * e1[l]!, REC = 1 - E1;
-        const vals = [wz, wz * wz, E2, E1, REC, dt, 1, 1e-300];
-        for (let q = 0; q < 8; q++) m[P + 2 * q + l] = vals[q]!;
-        // start so that the first full relaxation gives diag(e2, e2, e1) and b = (0, 0, rec)
-        const st = [1 / e2[l]!, 0, 0, 0, 1 / e2[l]!, 0, 0, 0, 1 / e1[l]!, 0, 0, (rec[l]! - REC) / E1];
-        for (let q = 0; q < 12; q++) m[P + 2 * (8 + q) + l] = st[q]!;
-      }
-      k.rf(0, n, P * 8);
-      for (let l = 0; l < 2; l++) {
-        const o = o0 + 12 * (k0 + l), a = e2[l]!, b = e1[l]!;
-        for (let q = 0; q < 6; q++) out[o + q] = m[P + 2 * (8 + q) + l]! * a;
-        for (let q = 6; q < 9; q++) out[o + q] = m[P + 2 * (8 + q) + l]! * b;
-        out[o + 9] = m[P + 2 * 17 + l]! * a;
-        out[o + 10] = m[P + 2 * 18 + l]! * a;
-        out[o + 11] = m[P + 2 * 19 + l]! * b + rec[l]!;
-      }
+    if (held < 0) held = c;
+    else {
+      runPair(held, c);
+      held = -1;
     }
   }
-  for (; k0 < count; k0++) rfAffine(out, o0 + 12 * k0, b1re, b1im, dt, gamma, f[k0]!, r1[k0]!, r2[k0]!);
+  if (held >= 0) runPair(held, held);
 }
