@@ -7,9 +7,11 @@ import { Command } from "commander";
 import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
-import { addSimulationOptions, collect, isoOptions, repoRoot } from "./options.js";
+import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } from "./options.js";
 import { registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
+import { registerMerge } from "./merge.js";
+import { AbortedError } from "../engine/index.js";
 
 const program = new Command();
 program
@@ -30,8 +32,12 @@ addSimulationOptions(
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="16 cm" --set te="8 ms"', collect, [])
     .option("-o, --out <dir>", "output folder for the run", "out/run")
     .option("--truth", "also write the ground-truth maps on the image grid: pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy"),
-).action((phantom: string, o) => {
-  const r = run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true });
+).action(async (phantom: string, o) => {
+  const r = await run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o) });
+  if (o.shard) {
+    console.log(`shard ${o.shard[0]}/${o.shard[1]}: wrote ${r.files.join(", ")} to ${r.dir} in ${r.seconds.toFixed(1)} s; combine the shards with: isofold merge <shard folders...> --out <dir>`);
+    return;
+  }
   console.log(`wrote ${r.files.length} files to ${r.dir} in ${r.seconds.toFixed(1)} s: ${r.files.join(", ")}`);
 });
 
@@ -40,10 +46,11 @@ addSimulationOptions(
     .command("demo")
     .description("run a bundled protocol on the bundled two-bottle phantom and say where the files are")
     .option("-o, --out <dir>", "output folder", "out/demo"),
-).action((o) => {
+).action(async (o) => {
   const root = repoRoot();
   const phantom = join(root, "phantoms", "two-bottle.json");
-  const r = run({ phantom, protocol: "gre-demo-1.5t", sets: [], out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet });
+  if (o.shard) throw new UserError("--shard: demo writes a whole run; use simulate --shard i/N");
+  const r = await run({ phantom, protocol: "gre-demo-1.5t", sets: [], out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, ...engineOptions(o) });
   console.log(`demo: 2D spoiled gradient echo of ${phantom} at 1.5 T`);
   console.log(`wrote ${r.files.join(", ")} to ${resolve(r.dir)} in ${r.seconds.toFixed(1)} s`);
   console.log(`look at ${join(r.dir, "image.png")}; the oil bottle sits shifted along the readout by the fat–water shift`);
@@ -51,6 +58,7 @@ addSimulationOptions(
 
 registerDataset(program);
 registerProtocol(program);
+registerMerge(program);
 
 async function main(): Promise<void> {
   try {
@@ -59,6 +67,10 @@ async function main(): Promise<void> {
     if (e instanceof UserError) {
       process.stderr.write(`isofold: error: ${e.message}\n`);
       process.exit(2);
+    }
+    if (e instanceof AbortedError) {
+      process.stderr.write("isofold: interrupted; workers stopped, no output written\n");
+      process.exit(130);
     }
     throw e;
   }

@@ -54,6 +54,22 @@ export function addSimulationOptions(c: Command): Command {
       intArg("--t2prime-isochromats", 1, 1024),
       defaultIsochromatOptions().t2primeIsochromats,
     )
+    .option("--workers <n>", "engine worker threads; default: the cores available", intArg("--workers", 1, 256))
+    .option("--shard <i/N>", "run only shard i of N (0 ≤ i < N) and write a partial k-space (partial.npy, partial.json) for `isofold merge`", shardArg)
+    .option("--max-memory <GiB>", "refuse runs whose estimated memory exceeds this many GiB; default 80 % of the machine's memory", numArg("--max-memory", 0.001, 1e6))
     .option("-q, --quiet", "no progress line on stderr");
+}
+
+/** Parses --shard "i/N": 0 ≤ i < N. */
+export function shardArg(v: string): [number, number] {
+  const m = /^(\d+)\/(\d+)$/.exec(v.trim());
+  const i = m ? Number(m[1]) : NaN, n = m ? Number(m[2]) : NaN;
+  if (!m || !(n >= 1) || !(i < n) || n > 1e6) throw new InvalidArgumentError("--shard must be i/N with whole numbers 0 ≤ i < N, e.g. 0/4 … 3/4");
+  return [i, n];
+}
+
+/** Engine options of a parsed simulating command. */
+export function engineOptions(o: { workers?: number; shard?: [number, number]; maxMemory?: number }) {
+  return { workers: o.workers, shard: o.shard, maxMemory: o.maxMemory !== undefined ? o.maxMemory * 2 ** 30 : undefined };
 }
 

@@ -10,7 +10,10 @@ import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../pro
 import { loadPhantom, type Phantom } from "../phantom/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { simulateSerial } from "../engine/index.js";
+import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
+import { countChunks } from "../engine/plan.js";
+import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
+import { inputHash, writePartial } from "./partial.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon/reconstruct.js";
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
@@ -46,6 +49,12 @@ export interface RunOptions {
   phantomTransform?: (ph: Phantom) => Phantom;
   /** Also write the ground-truth maps (truth-*.png / .npy). */
   truth?: boolean;
+  /** Engine worker threads (default: available cores). */
+  workers?: number;
+  /** Run only shard i of n (0 ≤ i < n) and write a partial k-space instead of a run folder. */
+  shard?: [number, number];
+  /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
+  maxMemory?: number;
 }
 
 export interface RunResult {
@@ -53,6 +62,17 @@ export interface RunResult {
   files: string[];
   seconds: number;
   report: Record<string, unknown>;
+}
+
+/** What the run folder needs besides k-space: enough to rebuild it in a merge. */
+export interface RunContext {
+  protocol: Protocol;
+  o: RunOptions;
+  phantom: Phantom;
+  /** Sequence of each engine run (one per slice, or one for a 3D slab), in spatial order. */
+  seqs: Sequence[];
+  isoSummary: { count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[] };
+  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
 }
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
@@ -119,20 +139,18 @@ export function prepare(o: RunOptions): {
         o.protocol, "slices.count",
       );
     }
-    const iso = makeIsochromats(
-      phantom,
-      {
-        axes,
-        dx: protocol.fov.read / protocol.matrix.read,
-        dy: protocol.fov.phase / protocol.matrix.phase,
-        thickness: protocol.slice.thickness,
-        position,
-        clipRead: protocol.fov.read * protocol.oversampling.read,
-        clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
-      },
-      protocol.field,
-      isoOpts,
-    );
+    const geo = {
+      axes,
+      dx: protocol.fov.read / protocol.matrix.read,
+      dy: protocol.fov.phase / protocol.matrix.phase,
+      thickness: protocol.slice.thickness,
+      position,
+      clipRead: protocol.fov.read * protocol.oversampling.read,
+      clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
+    };
+    // slices run one after another: one slice's isochromats and k-space must fit
+    if (slices.length === 0) checkMemory(estimateMemory(phantom, geo, protocol.field, isoOpts, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), isoOpts);
+    const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
       throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
     }
@@ -174,28 +192,132 @@ export function voxelAffine(p: Protocol, spacingMm: number, firstMm: number): nu
   return rows;
 }
 
-export function run(o: RunOptions): RunResult {
-  const t0 = Date.now();
-  const { protocol, seq, iso, slices, phantom } = prepare(o);
-  const progress = new Progress("simulating", "iso-TR", o.quiet);
-  // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
-  const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
-  let plan: ReturnType<typeof simulateSerial>["plan"] | null = null;
-  let isoTotal = 0;
-  slices.forEach((sl, k) => {
-    const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / sl.seq.pulses.length;
-    const res = simulateSerial(sl.seq, sl.iso, {
-      receiverFilter: protocol.receiverFilter,
-      onProgress: (d, t) => progress.update(k * t + d, slices.length * t, (sl.iso.count * trs * d) / t),
+/**
+ * Runs the engine on a worker pool. Ctrl-C (SIGINT) or SIGTERM stops the
+ * workers at once; the promise then rejects with AbortedError and nothing
+ * has been written.
+ */
+async function simulateStage(
+  p: { seq: Sequence; iso: IsochromatSet; protocol: Protocol },
+  o: RunOptions,
+  extra: {
+    blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void;
+    label?: string;
+  },
+): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+  const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
+  const progress = new Progress(label, "iso-TR", o.quiet);
+  const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
+  const ac = new AbortController();
+  const stop = () => ac.abort();
+  process.once("SIGINT", stop);
+  process.once("SIGTERM", stop);
+  let isoInRange = p.iso.count;
+  try {
+    return await simulateParallel(p.seq, p.iso, {
+      receiverFilter: p.protocol.receiverFilter,
+      workers: o.workers ?? defaultWorkers(),
+      signal: ac.signal,
+      blocks: extra.blocks,
+      onBlock: extra.onBlock,
+      onPlan: (plan) => {
+        extra.onPlan?.(plan);
+        if (extra.blocks) {
+          const [c0, c1] = blockChunks(plan.chunks, extra.blocks[0], extra.blocks[1]);
+          isoInRange = plan.chunkStart[c1]! - plan.chunkStart[c0]!;
+        }
+      },
+      onProgress: (d, t) => progress.update(d, t, (isoInRange * trs * d) / t),
     });
+  } finally {
+    progress.done();
+    process.off("SIGINT", stop);
+    process.off("SIGTERM", stop);
+  }
+}
+
+function spreadSummary(iso: IsochromatSet): RunContext["isoSummary"]["spreads"] {
+  return iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count }));
+}
+
+/** One run: prepare, simulate every slice on the worker pool, then the run folder — or, with o.shard, a partial k-space. */
+export async function run(o: RunOptions): Promise<RunResult> {
+  const t0 = Date.now();
+  const p = prepare(o);
+  const workers = o.workers ?? defaultWorkers();
+  if (o.shard) {
+    if (p.slices.length > 1) {
+      throw new UserError(`--shard splits one engine run; this protocol has ${p.slices.length} slices: run each slice (slice.position) as its own sharded job, or use slices.count 1`, o.protocol, "slices.count");
+    }
+    return runShard(p, o, t0);
+  }
+  // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
+  const kspaces: KSpace[] = [];
+  let plan: EnginePlan | null = null;
+  let count = 0;
+  for (let k = 0; k < p.slices.length; k++) {
+    const sl = p.slices[k]!;
+    if (sl.iso.count === 0) {
+      kspaces.push({ coils: 1, rows: sl.seq.kspace.partitions * sl.seq.kspace.phase, read: sl.seq.kspace.read, re: new Float64Array(sl.seq.kspace.partitions * sl.seq.kspace.phase * sl.seq.kspace.read), im: new Float64Array(sl.seq.kspace.partitions * sl.seq.kspace.phase * sl.seq.kspace.read) });
+      continue;
+    }
+    const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
+    const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
-    isoTotal += sl.iso.count;
-    const acq = { partitions: sl.seq.kspace.partitions, phase: sl.seq.kspace.phase, read: sl.seq.kspace.read, re: res.kspace.re, im: res.kspace.im };
-    const grid = toGrid(acq, sl.seq.grid);
-    kParts.push(grid);
-    iParts.push(reconstructGrid(grid, sl.seq.grid, sl.seq.image));
+    count += sl.iso.count;
+    kspaces.push(res.kspace);
+  }
+  const ctx: RunContext = {
+    protocol: p.protocol, o, phantom: p.phantom, seqs: p.slices.map((s) => s.seq),
+    isoSummary: { count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso) },
+    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
+  };
+  return finish(ctx, kspaces, t0);
+}
+
+async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number): Promise<RunResult> {
+  const [i, n] = o.shard!;
+  const total = blockCount(countChunks(p.iso));
+  const blocks = shardBlocks(total, i, n);
+  const nb = blocks[1] - blocks[0];
+  let bre = new Float64Array(0), bim = new Float64Array(0);
+  const { kspace, plan } = await simulateStage(p, o, {
+    blocks,
+    onPlan: (plan) => {
+      const size = plan.coils * plan.rows * plan.read;
+      bre = new Float64Array(nb * size);
+      bim = new Float64Array(nb * size);
+    },
+    onBlock: (b, re, im) => {
+      bre.set(re, (b - blocks[0]) * re.length);
+      bim.set(im, (b - blocks[0]) * im.length);
+    },
   });
-  progress.done();
+  const files = writePartial(o.out, {
+    shard: [i, n], blocks, totalBlocks: total, chunks: plan.chunks,
+    shape: [nb, kspace.coils, p.seq.kspace.partitions, p.seq.kspace.phase, p.seq.kspace.read],
+    re: bre, im: bim,
+    inputHash: inputHash(p.protocol, o),
+    inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
+    protocol: p.protocol,
+    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
+  });
+  return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
+}
+
+/** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); shared by simulate and merge. */
+export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
+  const { protocol, o, phantom } = ctx;
+  const seq = ctx.seqs[0]!;
+  const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
+  kspaces.forEach((k, idx) => {
+    const s = ctx.seqs[idx]!;
+    const acq = { partitions: s.kspace.partitions, phase: s.kspace.phase, read: s.kspace.read, re: k.re, im: k.im };
+    const grid = toGrid(acq, s.grid);
+    kParts.push(grid);
+    iParts.push(reconstructGrid(grid, s.grid, s.image));
+  });
   const stack = (parts: ComplexVolume[]): Volume => {
     const per = parts[0]!.re.length;
     const re = new Float64Array(per * parts.length), im = new Float64Array(per * parts.length);
@@ -249,17 +371,20 @@ export function run(o: RunOptions): RunResult {
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
-      count: isoTotal, columns: iso.columns, density: o.iso.density, sliceCount: isoOptionsFor(protocol, o.iso).sliceCount,
+      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: o.iso.density, sliceCount: isoOptionsFor(protocol, o.iso).sliceCount,
       sliceExtent: isoOptionsFor(protocol, o.iso).sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
-      t2primeSpread: iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count })),
+      t2primeSpread: ctx.isoSummary.spreads,
       note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
         (threeD ? "; 3D: through-slab grid of `density` isochromats per partition over the slab plus ⌈N/8⌉ partitions each side" : ""),
     },
-    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: 1, runs: slices.length },
+    engine: {
+      ...ctx.engine,
+      order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
+    },
     measurements: { imageMax: max },
     fatShift: null as unknown,
     timingSeconds: seconds,
-    warnings: slices.flatMap((s) => s.iso.warnings),
+    warnings: [...ctx.isoSummary.warnings],
   };
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;

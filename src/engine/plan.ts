@@ -8,10 +8,24 @@
 import { GAMMA, GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
-import { rfAffine } from "./kernels.js";
+import { rfAffineMany } from "./wasm.js";
+import { f64Words, TupleIndex } from "./hash.js";
 
-/** Isochromats per chunk (approximate; chunks end at column boundaries). Fixed, so results do not depend on the number of workers. */
-export const CHUNK_ISOCHROMATS = 32768;
+/**
+ * Isochromats per chunk (approximate; chunks end at column boundaries).
+ * Fixed, so results do not depend on the number of workers: 32768, or the
+ * environment variable ISOFOLD_CHUNK_ISOCHROMATS (64 … 2^24; for tests and
+ * tuning — the chunking is part of a result's definition, and shards of one
+ * run must share it; partial.json records it).
+ */
+export const CHUNK_ISOCHROMATS = chunkSetting(process.env["ISOFOLD_CHUNK_ISOCHROMATS"]);
+
+function chunkSetting(v: string | undefined): number {
+  if (v === undefined || v === "") return 32768;
+  const n = Number(v);
+  if (!Number.isInteger(n) || n < 64 || n > 2 ** 24) throw new Error(`ISOFOLD_CHUNK_ISOCHROMATS must be a whole number from 64 to ${2 ** 24}, got "${v}"`);
+  return n;
+}
 
 export type Op =
   | { t: "rf"; base: number; cos: number; sin: number }
@@ -24,10 +38,11 @@ export type Op =
       stepDur: number; su: number; sv: number; sw: number;
       /** γ̄·G_read (Hz/m) for the receiver filter, sampled bandwidth (Hz), and whether groups must share w */
       fRead: number; bwSampled: number; byW: boolean;
-      /** the whole readout as a free interval afterwards */
-      dur: number; u: number; v: number; w: number;
+      /** (the readout's duration as a free interval is in the ops after it) */
     }
-  | { t: "spoil" };
+  | { t: "spoil" }
+  /** Mz relaxation over a duration with the transverse part zero (after a spoil): Mz ← Mz·E1 + m0·(1 − E1). */
+  | { t: "relax"; dur: number };
 
 export interface EnginePlan {
   ops: Op[];
@@ -55,42 +70,78 @@ export interface EnginePlan {
    * (re, im), index 2·(coil·count + i); null for one uniform coil.
    */
   sens: Float64Array | null;
+  /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
+  rf: RfSpec;
 }
 
-function sharedF64(n: number): Float64Array {
+export interface PlanOptions {
+  /** Model the receiver anti-alias filter. */
+  receiverFilter: boolean;
+  /** Receive coils (default 1) and their sensitivities (see EnginePlan.sens; default none = uniform). */
+  coils?: number;
+  sens?: Float64Array | null;
+  /** Isochromats per chunk (default CHUNK_ISOCHROMATS); part of the result's definition. */
+  chunkIsochromats?: number;
+}
+
+/** What the RF maps are computed from: per-class parameters and the pulses. */
+export interface RfSpec {
+  classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array;
+  pulses: { b1re: Float64Array; b1im: Float64Array; dt: number; gradient: number }[];
+}
+
+/** A shared copy of `a` (or `a` itself if it is shared already). */
+export function shareF64(a: Float64Array): Float64Array {
+  if (a.buffer instanceof SharedArrayBuffer) return a;
+  const s = sharedF64(a.length);
+  s.set(a);
+  return s.subarray(0, a.length);
+}
+
+export function sharedF64(n: number): Float64Array {
   return new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8));
 }
-function sharedI32(n: number): Int32Array {
+export function sharedI32(n: number): Int32Array {
   return new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4));
 }
 
 /** Moves an isochromat set's arrays into shared memory (once), so workers can read them. */
 export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
-  const f = (a: Float64Array) => {
-    if (a.buffer instanceof SharedArrayBuffer) return a;
-    const s = sharedF64(a.length);
-    s.set(a);
-    return s.subarray(0, a.length);
-  };
-  const i = (a: Int32Array) => {
-    if (a.buffer instanceof SharedArrayBuffer) return a;
-    const s = sharedI32(a.length);
-    s.set(a);
-    return s.subarray(0, a.length);
-  };
   return {
-    ...iso,
-    iu: i(iso.iu), iv: i(iso.iv), iw: i(iso.iw), x: f(iso.x), y: f(iso.y), z: f(iso.z),
-    m0: f(iso.m0), r1: f(iso.r1), r2: f(iso.r2), df: f(iso.df), tissue: i(iso.tissue), peak: i(iso.peak),
-    colStart: i(iso.colStart),
+    ...shareEngineArrays(iso),
+    x: shareF64(iso.x), y: shareF64(iso.y), z: shareF64(iso.z),
+    tissue: shareI32(iso.tissue), peak: shareI32(iso.peak), colStart: shareI32(iso.colStart),
   };
 }
 
-/** Builds the plan. `onStage` reports slow preparation steps. */
-export function makePlan(
+/**
+ * Shares only the arrays the engine reads (iu, iv, iw, m0, r1, r2, df); the
+ * others stay as they are. Cheaper than {@link shareIsochromats} for large sets.
+ */
+export function shareEngineArrays(iso: IsochromatSet): IsochromatSet {
+  return {
+    ...iso,
+    iu: shareI32(iso.iu), iv: shareI32(iso.iv), iw: shareI32(iso.iw),
+    m0: shareF64(iso.m0), r1: shareF64(iso.r1), r2: shareF64(iso.r2), df: shareF64(iso.df),
+  };
+}
+
+/** A shared copy of `a` (or `a` itself if it is shared already). */
+export function shareI32(a: Int32Array): Int32Array {
+  if (a.buffer instanceof SharedArrayBuffer) return a;
+  const s = sharedI32(a.length);
+  s.set(a);
+  return s.subarray(0, a.length);
+}
+
+/**
+ * Builds the plan without filling the RF maps (rfMaps is allocated, zero):
+ * call {@link fillRfMaps} over all classes, on one thread or split among workers.
+ */
+export function planLayout(
   seq: Sequence,
   iso: IsochromatSet,
-  opts: { receiverFilter: boolean; coils?: number; sens?: Float64Array | null },
+  opts: PlanOptions,
 ): EnginePlan {
   const coils = opts.coils ?? 1;
   const sens = opts.sens ?? null;
@@ -125,62 +176,62 @@ export function makePlan(
     t: "free" as const, dur: dur(duration), u: table(0, area[0]), v: table(1, area[1]), w: table(2, area[2]),
   });
 
-  // --- RF classes: isochromats with the same (w, Δf, r1, r2) see the same pulse
-  const classKeys = new Map<string, number>();
-  const rfClass = sharedI32(iso.count).subarray(0, iso.count);
-  const classW: number[] = [], classDf: number[] = [], classR1: number[] = [], classR2: number[] = [];
-  for (let i = 0; i < iso.count; i++) {
-    const key = `${iso.iw[i]},${iso.df[i]},${iso.r1[i]},${iso.r2[i]}`;
-    let c = classKeys.get(key);
-    if (c === undefined) {
-      c = classW.length;
-      classKeys.set(key, c);
-      classW.push(iso.wGrid[iso.iw[i]!]!);
-      classDf.push(iso.df[i]!);
-      classR1.push(iso.r1[i]!);
-      classR2.push(iso.r2[i]!);
-    }
-    rfClass[i] = c;
-  }
-  const classes = classW.length;
+  // --- RF classes: isochromats with the same (w, Δf, r1, r2), bitwise, see the same pulse
+  const cls = rfClasses(iso);
+  const rfClass = cls.rfClass, classes = cls.classes;
   const rfMaps = sharedF64(seq.pulses.length * classes * 12);
-  seq.pulses.forEach((p, pi) => {
-    for (let c = 0; c < classes; c++) {
-      const f = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
-      rfAffine(rfMaps, (pi * classes + c) * 12, p.b1re, p.b1im, p.dt, GAMMA, f, classR1[c]!, classR2[c]!);
-    }
-  });
+  const rf: RfSpec = {
+    classW: cls.classW, classDf: cls.classDf, classR1: cls.classR1, classR2: cls.classR2,
+    pulses: seq.pulses.map((p) => ({ b1re: p.b1re, b1im: p.b1im, dt: p.dt, gradient: p.gradient })),
+  };
 
   // --- ops, with consecutive free intervals merged (exact: areas and durations add)
+  // Exact rewrites: consecutive free intervals merge (areas and durations
+  // add); the readout's own duration joins the free intervals after it; and
+  // an ideal spoil makes every free interval between the last readout or RF
+  // before it and the next readout or RF after it act on Mz only — the
+  // transverse part is discarded by the spoil or zero after it — so they
+  // become one spoil followed by one Mz relaxation over their total duration.
   const ops: Op[] = [];
   let pend: { duration: number; area: Vec3 } | null = null;
+  let spoiled = false;
   const flush = () => {
-    if (pend && pend.duration > 0) ops.push(free(pend.duration, pend.area));
+    if (spoiled) {
+      ops.push({ t: "spoil" });
+      if (pend && pend.duration > 0) ops.push({ t: "relax", dur: dur(pend.duration) });
+    } else if (pend && pend.duration > 0) {
+      ops.push(free(pend.duration, pend.area));
+    }
     pend = null;
+    spoiled = false;
+  };
+  const addFree = (duration: number, area: Vec3) => {
+    if (!pend) pend = { duration: 0, area: [0, 0, 0] };
+    pend.duration += duration;
+    pend.area = [pend.area[0] + area[0], pend.area[1] + area[1], pend.area[2] + area[2]];
   };
   for (const b of seq.blocks) {
     if (b.kind === "free") {
-      if (!pend) pend = { duration: 0, area: [0, 0, 0] };
-      pend.duration += b.duration;
-      pend.area = [pend.area[0] + b.area[0], pend.area[1] + b.area[1], pend.area[2] + b.area[2]];
+      addFree(b.duration, b.area);
+      continue;
+    }
+    if (b.kind === "spoil") {
+      spoiled = true;
       continue;
     }
     flush();
     if (b.kind === "rf") {
       ops.push({ t: "rf", base: b.pulse * classes * 12, cos: Math.cos(b.phase), sin: Math.sin(b.phase) });
-    } else if (b.kind === "spoil") {
-      ops.push({ t: "spoil" });
     } else {
-      const T = b.samples * b.dwell;
-      const f = free(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
       ops.push({
         t: "adc", n: b.samples, row: b.row,
         cr: b.weight * Math.cos(b.phase), ci: -b.weight * Math.sin(b.phase),
         stepDur: dur(b.dwell),
         su: table(0, b.grad[0] * b.dwell), sv: table(1, b.grad[1] * b.dwell), sw: table(2, b.grad[2] * b.dwell),
         fRead: GAMMA_BAR * b.grad[0], bwSampled: 1 / b.dwell, byW: b.grad[2] !== 0 || b.grad[1] !== 0,
-        dur: f.dur, u: f.u, v: f.v, w: f.w,
       });
+      const T = b.samples * b.dwell;
+      addFree(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
     }
   }
   flush();
@@ -200,22 +251,99 @@ export function makePlan(
   for (const [t, k] of durKeys) durations[k] = t;
 
   // --- chunks of whole columns
-  const starts: number[] = [0];
+  const starts = chunkStarts(iso, opts.chunkIsochromats);
   let maxChunk = 0;
-  for (let c = 1; c <= iso.columns; c++) {
-    const s = iso.colStart[c]!;
-    if (s - starts[starts.length - 1]! >= CHUNK_ISOCHROMATS || c === iso.columns) {
-      if (s > starts[starts.length - 1]!) {
-        maxChunk = Math.max(maxChunk, s - starts[starts.length - 1]!);
-        starts.push(s);
-      }
-    }
-  }
+  for (let c = 0; c + 1 < starts.length; c++) maxChunk = Math.max(maxChunk, starts[c + 1]! - starts[c]!);
   const chunkStart = sharedI32(starts.length).subarray(0, starts.length);
   chunkStart.set(starts);
   return {
     ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
     rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
-    receiverFilter: opts.receiverFilter, maxChunk, coils, sens,
+    receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
   };
+}
+
+/** Builds the plan and fills every RF map on this thread. */
+export function makePlan(
+  seq: Sequence,
+  iso: IsochromatSet,
+  opts: PlanOptions,
+): EnginePlan {
+  const plan = planLayout(seq, iso, opts);
+  fillRfMaps(plan, 0, plan.classes);
+  return plan;
+}
+
+/**
+ * Fills the RF affine maps of classes c0 … c1−1 for every pulse (see
+ * {@link rfAffine}): the effective offset during pulse p is
+ * f = γ̄·G_slice·w + Δf (Hz). Pure per class, so class ranges can be filled
+ * on different threads into the shared rfMaps.
+ */
+export function fillRfMaps(plan: EnginePlan, c0: number, c1: number): void {
+  const { classW, classDf, classR1, classR2, pulses } = plan.rf;
+  if (c1 <= c0) return;
+  const f = new Float64Array(c1 - c0);
+  for (let pi = 0; pi < pulses.length; pi++) {
+    const p = pulses[pi]!;
+    for (let c = c0; c < c1; c++) f[c - c0] = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
+    rfAffineMany(plan.rfMaps, (pi * plan.classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA);
+  }
+}
+
+/**
+ * RF classes by numeric hashing of the bits of (iw, Δf, r1, r2); ids in
+ * first-seen order. Returns the class of each isochromat (shared memory) and
+ * each class's slice coordinate w (m), Δf (Hz), r1, r2 (1/s).
+ */
+export function rfClasses(iso: IsochromatSet): {
+  rfClass: Int32Array; classes: number; classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array;
+} {
+  const index = new TupleIndex(7, 1024);
+  const key = new Uint32Array(7);
+  const rfClass = sharedI32(iso.count).subarray(0, iso.count);
+  const { iw, df, r1, r2 } = iso;
+  for (let i = 0; i < iso.count; i++) {
+    key[0] = iw[i]!;
+    f64Words(df[i]!, key, 1);
+    f64Words(r1[i]!, key, 3);
+    f64Words(r2[i]!, key, 5);
+    rfClass[i] = index.id(key, 0);
+  }
+  const classes = index.size, k = index.keys;
+  const classW = sharedF64(classes), classDf = sharedF64(classes), classR1 = sharedF64(classes), classR2 = sharedF64(classes);
+  const w2 = new Uint32Array(2), f2 = new Float64Array(w2.buffer);
+  const word = (c: number, o: number) => {
+    w2[0] = k[c * 7 + o]!;
+    w2[1] = k[c * 7 + o + 1]!;
+    return f2[0]!;
+  };
+  for (let c = 0; c < classes; c++) {
+    classW[c] = iso.wGrid[k[c * 7]!]!;
+    classDf[c] = word(c, 1);
+    classR1[c] = word(c, 3);
+    classR2[c] = word(c, 5);
+  }
+  return { rfClass, classes, classW, classDf, classR1, classR2 };
+}
+
+/**
+ * Chunk boundaries: runs of whole columns, each closed once it holds at least
+ * CHUNK_ISOCHROMATS isochromats (the last takes the rest). A function of the
+ * isochromat set alone, so it is the same for any number of workers or shards.
+ */
+export function chunkStarts(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number[] {
+  const starts: number[] = [0];
+  for (let c = 1; c <= iso.columns; c++) {
+    const s = iso.colStart[c]!;
+    if (s - starts[starts.length - 1]! >= size || c === iso.columns) {
+      if (s > starts[starts.length - 1]!) starts.push(s);
+    }
+  }
+  return starts;
+}
+
+/** Number of chunks of an isochromat set. */
+export function countChunks(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number {
+  return chunkStarts(iso, size).length - 1;
 }

@@ -10,9 +10,9 @@
 import { UserError } from "../errors.js";
 
 /** Element types isofold writes. */
-export type NpyDtype = "complex64" | "float32" | "float64" | "uint8" | "int32";
-/** Element types isofold reads (NpyDtype plus double-precision complex). */
-export type NpyReadDtype = NpyDtype | "complex128";
+export type NpyDtype = "complex64" | "complex128" | "float32" | "float64" | "uint8" | "int32";
+/** Element types isofold reads (the same as it writes). */
+export type NpyReadDtype = NpyDtype;
 
 /** Separate real and imaginary parts of a complex array, same length. */
 export interface ComplexData {
@@ -22,7 +22,7 @@ export interface ComplexData {
 
 /** An array to write: complex64 takes {re, im}; the real types any numeric array-like. */
 export type NpyInput =
-  | { dtype: "complex64"; shape: number[]; data: ComplexData }
+  | { dtype: "complex64" | "complex128"; shape: number[]; data: ComplexData }
   | { dtype: "float32" | "float64" | "uint8" | "int32"; shape: number[]; data: ArrayLike<number> };
 
 /** An array read from a file (C order). */
@@ -37,6 +37,7 @@ const MAGIC = [0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59]; // \x93NUMPY
 
 const DESCR: Record<NpyDtype, string> = {
   complex64: "<c8",
+  complex128: "<c16",
   float32: "<f4",
   float64: "<f8",
   uint8: "|u1",
@@ -72,21 +73,21 @@ function shapeLiteral(shape: readonly number[]): string {
  * Encodes an array as a version 1.0 `.npy` file: magic "\x93NUMPY", version
  * 1.0, uint16 LE header length, header dict padded with spaces and ended by
  * "\n" so that the preamble (magic + version + length + header) is a multiple
- * of 64 bytes, then the data little-endian in C order. descr is '<c8', '<f4',
+ * of 64 bytes, then the data little-endian in C order. descr is '<c8', '<c16', '<f4',
  * '<f8', '|u1' or '<i4'. complex64 interleaves re/im rounded to float32.
  * Version 2.0 (uint32 header length) is used only if the header exceeds 65535 bytes.
  * @throws RangeError if the data length differs from the product of the shape.
  */
 export function encodeNpy(arr: NpyInput): Uint8Array {
   const count = shapeSize(arr.shape);
-  if (arr.dtype === "complex64") {
+  if (arr.dtype === "complex64" || arr.dtype === "complex128") {
     if (arr.data.re.length !== count || arr.data.im.length !== count) {
       throw new RangeError(
-        `complex64 npy of shape [${arr.shape.join(", ")}] needs ${count} values, got re ${arr.data.re.length}, im ${arr.data.im.length}`,
+        `${arr.dtype} npy of shape [${arr.shape.join(", ")}] needs ${count} values, got re ${arr.data.re.length}, im ${arr.data.im.length}`,
       );
     }
-  } else if (arr.data.length !== count) {
-    throw new RangeError(`${arr.dtype} npy of shape [${arr.shape.join(", ")}] needs ${count} values, got ${arr.data.length}`);
+  } else if ((arr.data as ArrayLike<number>).length !== count) {
+    throw new RangeError(`${arr.dtype} npy of shape [${arr.shape.join(", ")}] needs ${count} values, got ${(arr.data as ArrayLike<number>).length}`);
   }
   const dict = `{'descr': '${DESCR[arr.dtype]}', 'fortran_order': False, 'shape': ${shapeLiteral(arr.shape)}, }`;
   let version = 1;
@@ -116,6 +117,14 @@ export function encodeNpy(arr: NpyInput): Uint8Array {
       for (let i = 0; i < count; i++, p += 8) {
         view.setFloat32(p, re[i], true);
         view.setFloat32(p + 4, im[i], true);
+      }
+      break;
+    }
+    case "complex128": {
+      const { re, im } = arr.data;
+      for (let i = 0; i < count; i++, p += 16) {
+        view.setFloat64(p, re[i]!, true);
+        view.setFloat64(p + 8, im[i]!, true);
       }
       break;
     }

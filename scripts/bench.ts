@@ -1,0 +1,199 @@
+/**
+ * `npm run bench`: engine throughput and end-to-end times, as a table on
+ * stdout. Kernels: the readout recurrence (iso-samples/s) on 65,536 groups ×
+ * 256 samples × LINES lines, and the RF map of a 200-step sinc (iso-steps/s)
+ * on 65,536 isochromats of distinct frequency, on 1 thread and on 2 worker
+ * threads. End to end: `run()` of 2D GRE on the torso phantom at 128² and
+ * 256², 1 and 4 isochromats per voxel (density 1 and 2, one through-slice
+ * isochromat), 1 and 2 workers, each in a fresh process (peak RSS from
+ * resourceUsage().maxRSS); and the target case, 256², density 2, 16
+ * through-slice isochromats, 2 workers. Medians of several runs.
+ * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
+ * skip the target cases. Benchmarks are never tests.
+ */
+import { spawnSync } from "node:child_process";
+import { mkdtempSync, rmSync } from "node:fs";
+import { tmpdir, availableParallelism, cpus } from "node:os";
+import { join } from "node:path";
+import { fileURLToPath } from "node:url";
+import { isMainThread, parentPort, Worker, workerData } from "node:worker_threads";
+import { GAMMA } from "../src/constants.js";
+import { readoutRecurrence, rfAffine } from "../src/engine/kernels.js";
+import { readoutRecurrenceFast, rfAffineMany, wasmKernel } from "../src/engine/wasm.js";
+
+const GROUPS = 65536, SAMPLES = 256, LINES = 16;
+const RF_ISO = 65536, RF_STEPS = 200;
+const SELF = fileURLToPath(import.meta.url);
+
+function median(xs: number[]): number {
+  const s = [...xs].sort((a, b) => a - b);
+  return s.length % 2 ? s[(s.length - 1) / 2]! : (s[s.length / 2 - 1]! + s[s.length / 2]!) / 2;
+}
+
+/** Readout inputs for groups g0 … g1−1 (deterministic). */
+function readoutInputs(g0: number, g1: number) {
+  const n = g1 - g0;
+  const zr = new Float64Array(n), zi = new Float64Array(n), ar = new Float64Array(n), ai = new Float64Array(n);
+  for (let k = 0; k < n; k++) {
+    const g = g0 + k;
+    zr[k] = Math.cos(g * 0.37);
+    zi[k] = Math.sin(g * 0.11);
+    const th = (2 * Math.PI * ((g * 0.618034) % 1)) - Math.PI, r = Math.exp(-1e-4 * (g % 97));
+    ar[k] = r * Math.cos(th);
+    ai[k] = r * Math.sin(th);
+  }
+  return { zr, zi, ar, ai, n };
+}
+
+/** Runs LINES readouts over the given groups; returns seconds. */
+function readoutRun(kind: "scalar" | "wasm", g0: number, g1: number): number {
+  const { zr, zi, ar, ai, n } = readoutInputs(g0, g1);
+  const sr = new Float64Array(SAMPLES), si = new Float64Array(SAMPLES);
+  const f = kind === "wasm" ? readoutRecurrenceFast : readoutRecurrence;
+  f(sr, si, SAMPLES, zr, zi, ar, ai, Math.min(n, 1024)); // warm-up
+  const t = performance.now();
+  for (let l = 0; l < LINES; l++) f(sr, si, SAMPLES, zr, zi, ar, ai, n);
+  return (performance.now() - t) / 1000;
+}
+
+function sinc(): { re: Float64Array; im: Float64Array; dt: number } {
+  const re = new Float64Array(RF_STEPS), im = new Float64Array(RF_STEPS), dt = 1e-5;
+  for (let s = 0; s < RF_STEPS; s++) {
+    const x = ((s - RF_STEPS / 2 + 0.5) / (RF_STEPS / 8)) * Math.PI;
+    const hann = 0.5 + 0.5 * Math.cos((Math.PI * (s - RF_STEPS / 2 + 0.5)) / (RF_STEPS / 2));
+    re[s] = 2e-5 * hann * Math.sin(x) / x;
+  }
+  return { re, im, dt };
+}
+
+/** RF maps for isochromats i0 … i1−1, each at its own offset (−5 … 5 kHz); returns seconds. */
+function rfRun(kind: "scalar" | "wasm", i0: number, i1: number): number {
+  const { re, im, dt } = sinc();
+  const n = i1 - i0, out = new Float64Array(n * 12);
+  const f = new Float64Array(n), r1 = new Float64Array(n).fill(1), r2 = new Float64Array(n).fill(10);
+  for (let i = i0; i < i1; i++) f[i - i0] = -5000 + (10000 * i) / RF_ISO;
+  rfAffineMany(out, 0, Math.min(n, 256), f, r1, r2, re, im, dt, GAMMA); // warm-up
+  for (let i = 0; i < Math.min(n, 256); i++) rfAffine(out, 0, re, im, dt, GAMMA, f[i]!, 1, 10);
+  const t = performance.now();
+  if (kind === "wasm") rfAffineMany(out, 0, n, f, r1, r2, re, im, dt, GAMMA);
+  else for (let i = 0; i < n; i++) rfAffine(out, i * 12, re, im, dt, GAMMA, f[i]!, 1, 10);
+  return (performance.now() - t) / 1000;
+}
+
+type Job = { kind: "readout-scalar" | "readout-wasm" | "rf-scalar" | "rf-wasm"; a: number; b: number };
+
+function runJob(j: Job): number {
+  if (j.kind === "rf-scalar" || j.kind === "rf-wasm") return rfRun(j.kind === "rf-wasm" ? "wasm" : "scalar", j.a, j.b);
+  return readoutRun(j.kind === "readout-wasm" ? "wasm" : "scalar", j.a, j.b);
+}
+
+/** Wall time of the job split in two halves on two workers (started together). */
+async function twoWorkers(kind: Job["kind"], total: number): Promise<number> {
+  const half = total / 2;
+  const ws = [0, 1].map((k) => new Worker(SELF, { workerData: { kind, a: k * half, b: (k + 1) * half } satisfies Job }));
+  await Promise.all(ws.map((w) => new Promise((r) => w.once("message", r)))); // ready
+  const t = performance.now();
+  ws.forEach((w) => w.postMessage("go"));
+  await Promise.all(ws.map((w) => new Promise((r) => w.once("message", r))));
+  const s = (performance.now() - t) / 1000;
+  await Promise.all(ws.map((w) => w.terminate()));
+  return s;
+}
+
+interface E2E {
+  phantom: string; protocol: string; matrix: number; density: number; slice: number; workers: number;
+}
+
+/** Child mode: one run() in this fresh process; prints JSON. */
+async function e2eChild(c: E2E): Promise<void> {
+  const { run } = await import("../src/cli/pipeline.js");
+  const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
+  try {
+    const t = performance.now();
+    const r = await run({
+      phantom: c.phantom, protocol: c.protocol, sets: [`matrix.read=${c.matrix}`, `matrix.phase=${c.matrix}`], out, seed: 1, quiet: true,
+      // no T2′ spread: the engine target counts 2×2 in-plane × 16 through-slice isochromats per voxel
+      iso: { density: c.density, sliceCount: c.slice, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 1, offsetHz: 0 }, workers: c.workers,
+    });
+    const seconds = (performance.now() - t) / 1000;
+    const iso = (r.report["isochromats"] as { count: number }).count;
+    process.stdout.write(JSON.stringify({ seconds, iso, maxRssKiB: process.resourceUsage().maxRSS }) + "\n");
+  } finally {
+    rmSync(out, { recursive: true, force: true });
+  }
+}
+
+function e2e(c: E2E, runs: number): { seconds: number; iso: number; maxRssMiB: number; runs: number } {
+  const ts: number[] = [];
+  let iso = 0, rss = 0;
+  for (let k = 0; k < runs; k++) {
+    const r = spawnSync(process.execPath, [SELF, "--e2e", JSON.stringify(c)], { encoding: "utf8", maxBuffer: 1 << 24 });
+    if (r.status !== 0) throw new Error(`bench case failed: ${r.stderr}`);
+    const j = JSON.parse(r.stdout.trim().split("\n").pop()!) as { seconds: number; iso: number; maxRssKiB: number };
+    ts.push(j.seconds);
+    iso = j.iso;
+    rss = Math.max(rss, j.maxRssKiB / 1024);
+  }
+  return { seconds: median(ts), iso, maxRssMiB: rss, runs };
+}
+
+function g(x: number): string {
+  if (x >= 1e9) return `${(x / 1e9).toFixed(2)} G`;
+  if (x >= 1e6) return `${(x / 1e6).toFixed(1)} M`;
+  return `${(x / 1e3).toFixed(1)} k`;
+}
+
+async function main(): Promise<void> {
+  const runs = Number(process.env["BENCH_RUNS"] ?? 3);
+  console.log(`isofold bench — ${cpus()[0]?.model ?? "cpu"}, ${availableParallelism()} cores, Node ${process.versions.node}; WebAssembly SIMD readout: ${wasmKernel() ? "yes" : "no (scalar fallback)"}`);
+  console.log("");
+  console.log("| kernel | threads | throughput (median of 5) |");
+  console.log("| --- | --- | --- |");
+  const rWork = GROUPS * SAMPLES * LINES;
+  for (const kind of ["readout-scalar", "readout-wasm"] as const) {
+    const one: number[] = [];
+    for (let k = 0; k < 5; k++) one.push(runJob({ kind, a: 0, b: GROUPS }));
+    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "scalar TS (4 groups in locals)"}, ${GROUPS} groups × ${SAMPLES} samples × ${LINES} lines | 1 | ${g(rWork / median(one))} iso-samples/s |`);
+    const two: number[] = [];
+    for (let k = 0; k < 5; k++) two.push(await twoWorkers(kind, GROUPS));
+    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "scalar TS"} | 2 workers | ${g(rWork / median(two))} iso-samples/s |`);
+  }
+  const fWork = RF_ISO * RF_STEPS;
+  for (const kind of ["rf-scalar", "rf-wasm"] as const) {
+    const rf1: number[] = [], rf2: number[] = [];
+    for (let k = 0; k < 5; k++) rf1.push(runJob({ kind, a: 0, b: RF_ISO }));
+    for (let k = 0; k < 5; k++) rf2.push(await twoWorkers(kind, RF_ISO));
+    const label = kind === "rf-wasm" ? "WebAssembly SIMD, 2 classes per lane pair" : "scalar TS";
+    console.log(`| RF map ${label}, ${RF_STEPS}-step sinc, ${RF_ISO} isochromats of distinct frequency | 1 | ${g(fWork / median(rf1))} iso-steps/s |`);
+    console.log(`| RF map ${label} | 2 workers | ${g(fWork / median(rf2))} iso-steps/s |`);
+  }
+  console.log("");
+  console.log(`| end to end (run(): prepare, simulate, recon, write) | isochromats | workers | seconds (median of ${runs}) | peak RSS |`);
+  console.log("| --- | --- | --- | --- | --- |");
+  const phantom = "phantoms/torso-slice.json", protocol = "gre-t1-3t";
+  for (const matrix of [128, 256]) {
+    for (const density of [1, 2]) {
+      for (const workers of [1, 2]) {
+        const r = e2e({ phantom, protocol, matrix, density, slice: 1, workers }, runs);
+        console.log(`| GRE ${matrix}², torso, ${density * density} per voxel (1 through-slice) | ${r.iso.toLocaleString("en")} | ${workers} | ${r.seconds.toFixed(2)} | ${r.maxRssMiB.toFixed(0)} MiB |`);
+      }
+    }
+  }
+  if (process.env["BENCH_TARGET"] !== "0") {
+    for (const ph of ["phantoms/disc.json", phantom]) {
+      const r = e2e({ phantom: ph, protocol, matrix: 256, density: 2, slice: 16, workers: 2 }, ph === phantom ? 1 : runs);
+      console.log(`| target: GRE 256², ${ph.replace("phantoms/", "").replace(".json", "")}, 2×2 in-plane × 16 through-slice | ${r.iso.toLocaleString("en")} | 2 | ${r.seconds.toFixed(2)}${r.runs === 1 ? " (1 run)" : ""} | ${r.maxRssMiB.toFixed(0)} MiB |`);
+    }
+  }
+}
+
+if (!isMainThread) {
+  const j = workerData as Job;
+  runJob({ ...j, b: Math.min(j.b, j.a + 1024) }); // warm-up
+  parentPort!.postMessage("ready");
+  parentPort!.once("message", () => parentPort!.postMessage(runJob(j)));
+} else if (process.argv[2] === "--e2e") {
+  await e2eChild(JSON.parse(process.argv[3]!) as E2E);
+} else {
+  await main();
+}

@@ -1,0 +1,81 @@
+/**
+ * Memory estimate before the isochromats are made, and the refusal of a run
+ * that would not fit. The isochromat count is estimated by sampling the
+ * phantom on a coarse grid (the real sampler, fewer cells) and scaling.
+ */
+import { availableParallelism, totalmem } from "node:os";
+import { UserError } from "../errors.js";
+import { makeIsochromats, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
+import type { Phantom } from "../phantom/index.js";
+import type { Sequence } from "../sequence/types.js";
+import { CHUNK_ISOCHROMATS } from "../engine/index.js";
+
+/** Default engine workers: the cores Node may use. */
+export function defaultWorkers(): number {
+  return availableParallelism();
+}
+
+/** Default memory limit (bytes): 80 % of the machine's memory. */
+export function defaultMemoryLimit(): number {
+  return 0.8 * totalmem();
+}
+
+/**
+ * Peak bytes per isochromat: while the sampler grows its twelve float64
+ * columns (capacity up to 2× the count: 192 B) and copies them out (76 B),
+ * then the shared copies for the workers (76 B) and the RF class (4 B)
+ * while the sampler's arrays are still referenced. Rounded up.
+ */
+export const BYTES_PER_ISOCHROMAT = 350;
+
+/** Per-worker scratch: state, relaxation factors per duration, readout groups (≈ 40 float64 per chunk isochromat). */
+export const WORKER_SCRATCH_BYTES = CHUNK_ISOCHROMATS * 8 * 48;
+
+export interface MemoryEstimate {
+  isochromats: number;
+  bytes: number;
+  isochromatBytes: number;
+  kspaceBytes: number;
+  workerBytes: number;
+}
+
+/** Estimated isochromat count: the real sampler on a grid coarser by f in-plane, density 1, ≤ 4 through-slice, scaled up. */
+export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): number {
+  const f = Math.max(1, Math.ceil(matrix / 64));
+  const sc = Math.min(iso.sliceCount, 4);
+  const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc });
+  return Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc));
+}
+
+/** Bytes a run needs at its peak: isochromats, k-space (total, block sum, partials in flight), worker scratch. */
+export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1): MemoryEstimate {
+  const matrix = Math.max(seq.kspace.read, seq.kspace.phase);
+  const n = estimateIsochromats(ph, geo, fieldT, iso, matrix);
+  const ks = coils * seq.kspace.partitions * seq.kspace.phase * seq.kspace.read * 16;
+  const isochromatBytes = n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
+  const kspaceBytes = ks * (4 + 3 * workers + 4);
+  const workerBytes = workers * WORKER_SCRATCH_BYTES;
+  return { isochromats: n, bytes: isochromatBytes + kspaceBytes + workerBytes, isochromatBytes, kspaceBytes, workerBytes };
+}
+
+function gib(b: number): string {
+  return `${(b / 2 ** 30).toFixed(1)} GiB`;
+}
+
+/** Throws a UserError with the estimate and what would fit when the estimate exceeds `limit` bytes. */
+export function checkMemory(e: MemoryEstimate, limit: number, iso: IsochromatOptions): void {
+  if (e.bytes <= limit) return;
+  const room = limit - e.kspaceBytes - e.workerBytes;
+  const fit = Math.max(0, Math.floor(room / (e.isochromatBytes / Math.max(1, e.isochromats))));
+  const r = fit / Math.max(1, e.isochromats);
+  const ways: string[] = [];
+  const d = Math.floor(iso.density * Math.sqrt(r));
+  if (d >= 1 && d < iso.density) ways.push(`--density ${d}`);
+  const s = Math.floor(iso.sliceCount * r);
+  if (s >= 1 && s < iso.sliceCount) ways.push(`--slice-isochromats ${s}`);
+  const how = ways.length > 0 ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}` : "; lower --density, --slice-isochromats or the matrix";
+  throw new UserError(
+    `--max-memory: the run needs an estimated ${gib(e.bytes)} (${e.isochromats.toLocaleString("en")} isochromats × ${BYTES_PER_ISOCHROMAT} B, ` +
+      `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}${how}`,
+  );
+}

@@ -1,0 +1,167 @@
+/**
+ * A worker_threads pool over the plan's fixed chunks. The plan and the
+ * isochromat arrays live in SharedArrayBuffers and are read in place by every
+ * worker; each chunk's partial k-space comes back to the main thread, which
+ * adds partials in the fixed order of sum.ts. So 1, 2 or N workers give
+ * bitwise the same k-space, and so does a sharded run merged later.
+ */
+import { existsSync } from "node:fs";
+import { dirname, join } from "node:path";
+import { fileURLToPath } from "node:url";
+import { Worker } from "node:worker_threads";
+import type { IsochromatSet } from "../isochromats/index.js";
+import type { EnginePlan } from "./plan.js";
+import type { WorkerReply, WorkerRequest } from "./worker.js";
+
+/** Below this many RF classes the maps are filled on the main thread (cheaper than a round trip). */
+export const PARALLEL_RF_CLASSES = 2048;
+
+/** Path of the compiled worker: beside this file when running compiled, else dist/src/engine/worker.js of the package. */
+export function workerPath(): string {
+  const here = fileURLToPath(import.meta.url);
+  if (here.endsWith(".js")) return join(dirname(here), "worker.js");
+  let d = dirname(here);
+  for (let up = 0; up < 6; up++) {
+    const p = join(d, "dist", "src", "engine", "worker.js");
+    if (existsSync(p)) return p;
+    d = dirname(d);
+  }
+  throw new Error("compiled engine worker not found (run tsc first): dist/src/engine/worker.js");
+}
+
+/** The isochromat fields a worker reads (all shared). */
+function workerIso(iso: IsochromatSet): Partial<IsochromatSet> {
+  const { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df } = iso;
+  for (const a of [iu, iv, iw, m0, r1, r2, df]) {
+    if (!(a.buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareIsochromats)");
+  }
+  return { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df };
+}
+
+export class AbortedError extends Error {
+  constructor() {
+    super("interrupted");
+  }
+}
+
+export class EnginePool {
+  private readonly workers: Worker[] = [];
+  private failure: Error | null = null;
+  private onFail: ((e: Error) => void) | null = null;
+  private terminated = false;
+
+  constructor(plan: EnginePlan, iso: IsochromatSet, count: number) {
+    const path = workerPath();
+    const data = { plan, iso: workerIso(iso) };
+    for (let k = 0; k < count; k++) {
+      const w = new Worker(path, { workerData: data });
+      w.on("error", (e) => this.fail(e));
+      w.on("exit", (code) => {
+        if (!this.terminated && code !== 0) this.fail(new Error(`engine worker exited with code ${code}`));
+      });
+      this.workers.push(w);
+    }
+  }
+
+  get size(): number {
+    return this.workers.length;
+  }
+
+  private fail(e: Error): void {
+    if (this.failure) return;
+    this.failure = e;
+    this.onFail?.(e);
+  }
+
+  /** Stops every worker at once (mid-chunk too). */
+  async terminate(): Promise<void> {
+    if (this.terminated) return;
+    this.terminated = true;
+    await Promise.all(this.workers.map((w) => w.terminate()));
+  }
+
+  /**
+   * Sends `jobs` to the workers, at most one outstanding per worker, and
+   * calls onReply for each reply. `ready(job)` may hold a job back (to bound
+   * memory while the in-order sum waits); held jobs are retried after each reply.
+   */
+  private schedule<J>(jobs: J[], req: (j: J) => WorkerRequest, onReply: (r: WorkerReply) => void, ready: (j: J) => boolean, signal?: AbortSignal): Promise<void> {
+    return new Promise<void>((resolve, reject) => {
+      let next = 0, outstanding = 0, finished = false;
+      const idle: Worker[] = [...this.workers];
+      const handlers = new Map<Worker, (r: WorkerReply) => void>();
+      const cleanup = () => {
+        finished = true;
+        for (const [w, h] of handlers) w.off("message", h);
+        signal?.removeEventListener("abort", onAbort);
+        this.onFail = null;
+      };
+      const stop = (e: Error) => {
+        if (finished) return;
+        cleanup();
+        reject(e);
+      };
+      const onAbort = () => stop(new AbortedError());
+      this.onFail = stop;
+      if (this.failure) return stop(this.failure);
+      if (signal?.aborted) return onAbort();
+      signal?.addEventListener("abort", onAbort);
+      const pump = () => {
+        while (idle.length > 0 && next < jobs.length && ready(jobs[next]!)) {
+          const w = idle.pop()!;
+          outstanding++;
+          w.postMessage(req(jobs[next++]!));
+        }
+        if (next === jobs.length && outstanding === 0) {
+          cleanup();
+          resolve();
+        }
+      };
+      for (const w of this.workers) {
+        const h = (r: WorkerReply) => {
+          if (finished) return;
+          outstanding--;
+          idle.push(w);
+          try {
+            onReply(r);
+          } catch (e) {
+            return stop(e as Error);
+          }
+          pump();
+        };
+        handlers.set(w, h);
+        w.on("message", h);
+      }
+      pump();
+    });
+  }
+
+  /** Fills the plan's RF maps, split into class ranges among the workers. */
+  fillRfMaps(classes: number, signal?: AbortSignal): Promise<void> {
+    const per = Math.max(256, Math.ceil(classes / (8 * this.workers.length)));
+    const jobs: [number, number][] = [];
+    for (let c = 0; c < classes; c += per) jobs.push([c, Math.min(classes, c + per)]);
+    return this.schedule(jobs, ([c0, c1]) => ({ t: "maps", c0, c1 }), () => {}, () => true, signal);
+  }
+
+  /**
+   * Runs chunks c0 … c1−1; each partial is handed to onChunk(c, re, im) as
+   * it arrives (any order). At most `window` chunks past `waitingFor()` are
+   * handed out, so held partials stay bounded.
+   */
+  runChunks(c0: number, c1: number, onChunk: (c: number, re: Float64Array, im: Float64Array) => void, waitingFor: () => number, signal?: AbortSignal): Promise<void> {
+    const jobs: number[] = [];
+    for (let c = c0; c < c1; c++) jobs.push(c);
+    const window = 2 * this.workers.length + 4;
+    return this.schedule(
+      jobs,
+      (c) => ({ t: "chunk", c }),
+      (r) => {
+        if (r.t !== "chunk") throw new Error("engine pool: unexpected reply");
+        onChunk(r.c, new Float64Array(r.re), new Float64Array(r.im));
+      },
+      (c) => c < waitingFor() + window,
+      signal,
+    );
+  }
+}
