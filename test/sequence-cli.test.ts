@@ -34,9 +34,9 @@ const CASES: [string, string, string[], number[]][] = [
 describe("every scheme writes a run folder through the simulate pipeline", () => {
   const dir = mkdtempSync(join(tmpdir(), "isofold-seq-"));
   for (const [preset, ph, extra, shape] of CASES) {
-    it(`${preset} on ${ph}`, () => {
+    it(`${preset} on ${ph}`, async () => {
       const out = join(dir, preset);
-      const r = run({
+      const r = await run({
         phantom: join(ROOT, "phantoms", `${ph}.json`), protocol: preset, sets: [...small, ...extra], out, seed: 1,
         iso: { ...defaultIsochromatOptions(), density: 1 }, quiet: true,
       });

@@ -114,7 +114,7 @@ describe("multi-slice: each slice is its own run at its own position, stacked in
     writeFileSync(prFile, JSON.stringify({ sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 32, phase: 32 },
       slice: { thickness: "2 mm", position: "0 mm", orientation: "axial" }, slices: { count: 3, gap: "18 mm", order: "interleaved" },
       bandwidth: "250 Hz/px", te: "6 ms", tr: "100 ms", flip: "90 deg", excitation: { shape: "sinc", duration: "2 ms", tbw: 4 } }));
-    run({ phantom: phFile, protocol: prFile, sets: [], out: join(dir, "run"), seed: 1, iso: { ...defaultIsochromatOptions(), density: 1, sliceCount: 12, sliceExtent: 3 }, quiet: true });
+    await run({ phantom: phFile, protocol: prFile, sets: [], out: join(dir, "run"), seed: 1, iso: { ...defaultIsochromatOptions(), density: 1, sliceCount: 12, sliceExtent: 3 }, quiet: true });
     const img = decodeNpy(readFileSync(join(dir, "run", "image.npy")));
     expect(img.shape).toEqual([1, 3, 32, 32]);
     const re = img.data.re as Float64Array | Float32Array, im = img.data.im as Float64Array | Float32Array;
