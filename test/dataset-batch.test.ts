@@ -50,7 +50,7 @@ describe("dataset batches", () => {
     expect(Math.abs(p.b0.gx * 0.1)).toBeLessThanOrEqual(20);
   });
 
-  it("runBatch skips cases whose files match the manifest and redoes a damaged one", () => {
+  it("runBatch skips cases whose files match the manifest and redoes a damaged one", async () => {
     const dir = mkdtempSync(join(tmpdir(), "isofold-batch-"));
     try {
       const calls: number[] = [];
@@ -58,15 +58,15 @@ describe("dataset batches", () => {
         calls.push(i);
         return { files: new Map<string, Uint8Array | string>([["a.txt", `case ${i}`], ["b.bin", Uint8Array.of(i, 1, 2)]]), params: { i } };
       };
-      expect(runBatch(dir, 3, 1, (i) => `k${i}`, make)).toEqual({ made: [0, 1, 2], skipped: [] });
+      expect(await runBatch(dir, 3, 1, (i) => `k${i}`, make)).toEqual({ made: [0, 1, 2], skipped: [] });
       const manifest = readFileSync(join(dir, "manifest.jsonl"), "utf8");
       writeFileSync(join(dir, "case-0001", "a.txt"), "damaged");
       calls.length = 0;
-      expect(runBatch(dir, 3, 1, (i) => `k${i}`, make)).toEqual({ made: [1], skipped: [0, 2] });
+      expect(await runBatch(dir, 3, 1, (i) => `k${i}`, make)).toEqual({ made: [1], skipped: [0, 2] });
       expect(calls).toEqual([1]);
       expect(readFileSync(join(dir, "manifest.jsonl"), "utf8")).toBe(manifest);
       // other settings (another key) redo every case
-      expect(runBatch(dir, 3, 1, (i) => `other${i}`, make).made).toEqual([0, 1, 2]);
+      expect((await runBatch(dir, 3, 1, (i) => `other${i}`, make)).made).toEqual([0, 1, 2]);
     } finally {
       rmSync(dir, { recursive: true, force: true });
     }

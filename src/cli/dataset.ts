@@ -20,8 +20,12 @@ import {
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
 import { prepare, readRealNpy, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
 import { Progress } from "./progress.js";
+import { defaultWorkers } from "./memory.js";
 
 export interface DatasetCliOptions {
+  /** Engine worker threads (from the shared simulation options). */
+  workers?: number;
+  shard?: [number, number];
   protocol: string;
   set: string[];
   out: string;
@@ -119,6 +123,7 @@ interface Plan {
 
 /** Validates every flag and file before any work; throws UserError. */
 export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
+  if (o.shard) throw new UserError("--shard splits one simulate run; a dataset batch runs its cases one after another on the worker pool (use --workers)", undefined, "--shard");
   const protocol = loadProtocol(o.protocol, o.set);
   if (protocol.slices.count > 1) {
     throw new UserError(`datasets hold one slice or one 3D slab; set slices.count to 1 (or use a 3D protocol)`, o.protocol, "slices.count");
@@ -206,7 +211,7 @@ function round(v: number, d = 9): number {
 }
 
 /** Runs the batch; returns the made and skipped case numbers. */
-export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: number[]; skipped: number[]; seconds: number } {
+export async function runDataset(phantomFile: string, o: DatasetCliOptions): Promise<{ made: number[]; skipped: number[]; seconds: number }> {
   const t0 = Date.now();
   const plan = planDataset(phantomFile, o);
   const { protocol, array } = plan;
@@ -228,7 +233,7 @@ export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: n
   };
   if (plan.noiseLines > 0) files["noise.npy"] = "complex64 [coil, line, read]: noise-only samples from the same distribution as the k-space noise (a prescan)";
   const placement = loopPlacement(array);
-  const result = runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), (i) => {
+  const result = await runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), async (i) => {
     const { seq, iso: set } = prepare({
       phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
       phantomTransform: () => plan.phantoms[i]!,
@@ -239,10 +244,10 @@ export function runDataset(phantomFile: string, o: DatasetCliOptions): { made: n
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-    const r = buildCase(seq, set, {
+    const r = await buildCase(seq, set, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
-    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter }, i,
+    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers() }, i,
     (d, t) => progress.update(d, t));
     progress.done();
     const p = plan.perturbations[i]!;
@@ -347,8 +352,8 @@ export function registerDataset(program: Command): void {
         "e.g. position=1cm,rotation=10deg,size=10%,t1=10%,b0=20Hz; repeatable", collect, []),
   );
   cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
-  cmd.action((phantom: string, o: DatasetCliOptions) => {
-    const r = runDataset(phantom, o);
+  cmd.action(async (phantom: string, o: DatasetCliOptions) => {
+    const r = await runDataset(phantom, o);
     const made = r.made.length;
     console.log(
       `dataset: ${made} case${made === 1 ? "" : "s"} written, ${r.skipped.length} verified and skipped, in ${resolve(o.out)} ` +

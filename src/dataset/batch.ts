@@ -183,11 +183,17 @@ export function verifyCase(dir: string, e: ManifestEntry, key: string): boolean 
  * is staged and published with OutputStage, then the manifest is rewritten
  * atomically. Returns the numbers of cases made and skipped.
  */
-export function runBatch(
+/** The files and parameters of one case, as makeCase returns them. */
+export interface CaseFiles {
+  files: Map<string, Uint8Array | string>;
+  params: Record<string, unknown>;
+}
+
+export async function runBatch(
   dir: string, count: number, seed: number, keyOf: (i: number) => string,
-  makeCase: (i: number) => { files: Map<string, Uint8Array | string>; params: Record<string, unknown> },
+  makeCase: (i: number) => CaseFiles | Promise<CaseFiles>,
   onCase?: (i: number, skipped: boolean) => void,
-): { made: number[]; skipped: number[] } {
+): Promise<{ made: number[]; skipped: number[] }> {
   mkdirSync(dir, { recursive: true });
   const manifest = readManifest(dir);
   const made: number[] = [], skipped: number[] = [];
@@ -204,7 +210,7 @@ export function runBatch(
       if (new RegExp(`^${name}\\.\\d+\\.tmp$`).test(f)) rmSync(join(dir, f), { recursive: true, force: true });
     }
     manifest.delete(i);
-    const { files, params } = makeCase(i);
+    const { files, params } = await makeCase(i);
     const stage = new OutputStage(join(dir, name));
     const hashes: Record<string, string> = {};
     try {

@@ -92,6 +92,8 @@ export interface CaseSettings {
   mask: MaskOptions;
   seed: number;
   receiverFilter: boolean;
+  /** Engine worker threads. */
+  workers: number;
 }
 
 export interface CaseGeometry {
@@ -120,14 +122,14 @@ export interface CaseResult {
 }
 
 /** Runs the simulation and builds every array file of one case (case.json is added by the caller). */
-export function buildCase(
+export async function buildCase(
   seq: Sequence, iso: IsochromatSet, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
   onProgress?: (done: number, total: number) => void,
-): CaseResult {
+): Promise<CaseResult> {
   const img: Dims = seq.image, kd: Dims = seq.kspace;
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
-  const k = simulateCoils(seq, iso, s.array, s.receiverFilter, onProgress);
+  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress);
   const n = img.partitions * img.phase * img.read;
   const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)

@@ -4,10 +4,10 @@
  * isochromat before the readout (exact). Isochromats are simulated in blocks
  * of whole columns so that the sensitivity array (2·coils·isochromats
  * numbers) stays within SENS_BUDGET; the signal is linear in the
- * isochromats, so block k-spaces add. (When the engine's worker pool lands,
- * swap simulateSerial for it here.)
+ * isochromats, so block k-spaces add. Each block runs on the engine's worker
+ * pool (bitwise the same k-space for any number of workers).
  */
-import { simulateSerial, type KSpace } from "../engine/index.js";
+import { simulateParallel, type KSpace } from "../engine/index.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
@@ -33,12 +33,12 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
  * k-space [coil][row][read] for coil 0 = uniform (S = 1) and coils 1…C of
  * the array (C = coilCount; for the uniform array only coil 0).
  */
-export function simulateCoils(
-  seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean,
+export async function simulateCoils(
+  seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-): KSpace {
+): Promise<KSpace> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (C === 1) return simulateSerial(seq, iso, { receiverFilter, onProgress }).kspace;
+  if (C === 1) return (await simulateParallel(seq, iso, { receiverFilter, workers, onProgress })).kspace;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
   let c0 = 0;
@@ -50,19 +50,20 @@ export function simulateCoils(
   }
   const rows = seq.kspace.partitions * seq.kspace.phase, read = seq.kspace.read;
   const re = new Float64Array(C * rows * read), im = new Float64Array(C * rows * read);
-  blocks.forEach(([a, b], k) => {
+  for (let k = 0; k < blocks.length; k++) {
+    const [a, b] = blocks[k]!;
     const sub = subsetColumns(iso, a, b);
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace } = simulateSerial(seq, sub, {
-      receiverFilter, coils: C, sens,
+    const { kspace } = await simulateParallel(seq, sub, {
+      receiverFilter, coils: C, sens, workers,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     for (let i = 0; i < re.length; i++) {
       re[i] = re[i]! + kspace.re[i]!;
       im[i] = im[i]! + kspace.im[i]!;
     }
-  });
+  }
   return { coils: C, rows, read, re, im };
 }
