@@ -109,26 +109,18 @@ export interface IsochromatSet {
   spreads: TissueSpread[];
 }
 
-class Growable {
-  data: Float64Array;
-  length = 0;
-  constructor(cap = 1 << 16) {
-    this.data = new Float64Array(cap);
-  }
-  push(v: number): void {
-    if (this.length === this.data.length) {
-      const d = new Float64Array(this.data.length * 2);
-      d.set(this.data);
-      this.data = d;
-    }
-    this.data[this.length++] = v;
-  }
-  f64(): Float64Array {
-    return this.data.slice(0, this.length);
-  }
-  i32(): Int32Array {
-    return Int32Array.from(this.data.subarray(0, this.length));
-  }
+interface IsoArrays {
+  iu: Int32Array; iv: Int32Array; iw: Int32Array;
+  x: Float64Array; y: Float64Array; z: Float64Array;
+  m0: Float64Array; r1: Float64Array; r2: Float64Array; df: Float64Array;
+  tissue: Int32Array; peak: Int32Array;
+}
+
+/** The per-isochromat arrays, each on a SharedArrayBuffer of its own. */
+function allocate(n: number): IsoArrays {
+  const f = () => new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8)).subarray(0, n);
+  const i = () => new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4)).subarray(0, n);
+  return { iu: i(), iv: i(), iw: i(), x: f(), y: f(), z: f(), m0: f(), r1: f(), r2: f(), df: f(), tissue: i(), peak: i() };
 }
 
 /** Spectral peaks (Hz offset, amplitude) of one tissue at field B0. */
@@ -233,74 +225,80 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
   }
   const wWeight = dw / thickness / (d * d);
 
-  const G = {
-    iu: new Growable(), iv: new Growable(), iw: new Growable(), x: new Growable(), y: new Growable(), z: new Growable(),
-    m0: new Growable(), r1: new Growable(), r2: new Growable(), df: new Growable(), tissue: new Growable(), peak: new Growable(),
-  };
-  const colStart: number[] = [0];
-  const cell = { tissue: new Int32Array(16), fraction: new Float64Array(16) };
+  const cell = { tissue: new Int32Array(Math.max(16, ph.tissues.length)), fraction: new Float64Array(Math.max(16, ph.tissues.length)) };
   const e1 = [axes.read[0] * du, axes.read[1] * du, axes.read[2] * du];
   const e2 = [axes.phase[0] * dv, axes.phase[1] * dv, axes.phase[2] * dv];
   const e3 = [axes.slice[0] * dw, axes.slice[1] * dw, axes.slice[2] * dw];
   const r = [0, 0, 0];
-  const col: { c: number; ti: number; q: number; k: number; m0: number; b0: number; x: number; y: number; z: number }[] = [];
   const mod = (i: number) => ((i % d) + d) % d;
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
+  const r1Of = ph.tissues.map((t) => inv(t.t1)), r2Of = ph.tissues.map((t) => inv(t.t2));
 
-  for (let a = 0; a < nu; a++) {
-    const u = uGrid[a]!;
-    for (let b = 0; b < nv; b++) {
-      const v = vGrid[b]!;
-      let cachedCount = -1;
-      col.length = 0;
-      const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
-      for (let c = 0; c < nw; c++) {
-        const w = wGrid[c]!;
-        r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
-        r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
-        r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
-        let n: number;
-        if (sliceInvariant && cachedCount >= 0) n = cachedCount;
-        else {
-          n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
-          cachedCount = n;
-        }
-        if (n === 0) continue;
-        const b0 = ph.b0 ? ph.b0(r[0]!, r[1]!, r[2]!) : 0;
-        for (let k = 0; k < n; k++) {
-          const ti = cell.tissue[k]!;
-          const pk = peaks[ti]!;
-          const as = assign[ti]![sub]!;
-          for (let q = 0; q < pk.df.length; q++) {
-            const m0 = ph.tissues[ti]!.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
-            if (m0 === 0) continue;
-            for (let j = 0; j < as.bins.length; j++) {
-              col.push({ c, ti, q, k: as.bins[j]!, m0: m0 * as.weight[j]!, b0, x: r[0]!, y: r[1]!, z: r[2]! });
+  // Two passes over the grid: the first counts, so the arrays are allocated
+  // once at their final size (in shared memory, which the engine's workers
+  // read in place); the second fills them.
+  let A: IsoArrays | null = null;
+  const colStart: number[] = [0];
+  let at = 0;
+  for (let pass = 0; pass < 2; pass++) {
+    if (pass === 1) A = allocate(at);
+    at = 0;
+    for (let a = 0; a < nu; a++) {
+      const u = uGrid[a]!;
+      for (let b = 0; b < nv; b++) {
+        const v = vGrid[b]!;
+        const startAt = at;
+        let cachedCount = -1;
+        const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
+        // The engine finds readout groups and RF classes by hashing, so the order
+        // within a column is free: w outermost, then tissue, peak and T2′ bin.
+        for (let c = 0; c < nw; c++) {
+          const w = wGrid[c]!;
+          r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+          r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+          r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+          let n: number;
+          if (sliceInvariant && cachedCount >= 0) n = cachedCount;
+          else {
+            n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
+            cachedCount = n;
+          }
+          if (n === 0) continue;
+          const b0 = A && ph.b0 ? ph.b0(r[0]!, r[1]!, r[2]!) + offsetHz : offsetHz;
+          for (let k = 0; k < n; k++) {
+            const ti = cell.tissue[k]!;
+            const t = ph.tissues[ti]!;
+            const pk = peaks[ti]!;
+            const as = assign[ti]![sub]!;
+            const bins = as.bins, weight = as.weight;
+            const sdf = spreadOf[ti]!.df;
+            for (let q = 0; q < pk.df.length; q++) {
+              const m0 = t.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
+              if (m0 === 0) continue;
+              if (!A) {
+                at += bins.length;
+                continue;
+              }
+              for (let j = 0; j < bins.length; j++) {
+                A.iu[at] = a; A.iv[at] = b; A.iw[at] = c;
+                A.x[at] = r[0]!; A.y[at] = r[1]!; A.z[at] = r[2]!;
+                A.m0[at] = m0 * weight[j]!; A.r1[at] = r1Of[ti]!; A.r2[at] = r2Of[ti]!;
+                A.df[at] = b0 + pk.df[q]! + sdf[bins[j]!]!;
+                A.tissue[at] = ti; A.peak[at] = pk.peak[q]!;
+                at++;
+              }
             }
           }
         }
+        if (pass === 0 && at > startAt) colStart.push(at);
       }
-      // Order a column by (tissue, peak, w) so that isochromats with identical
-      // readout factors are contiguous and the engine can sum them before the readout.
-      col.sort((p, q) => p.ti - q.ti || p.q - q.q || p.k - q.k || p.b0 - q.b0 || p.c - q.c);
-      for (const e of col) {
-        const t = ph.tissues[e.ti]!;
-        const pk = peaks[e.ti]!;
-        G.iu.push(a); G.iv.push(b); G.iw.push(e.c);
-        G.x.push(e.x); G.y.push(e.y); G.z.push(e.z);
-        G.m0.push(e.m0); G.r1.push(inv(t.t1)); G.r2.push(inv(t.t2)); G.df.push(e.b0 + offsetHz + pk.df[e.q]! + spreadOf[e.ti]!.df[e.k]!);
-        G.tissue.push(e.ti); G.peak.push(pk.peak[e.q]!);
-      }
-      if (G.m0.length > colStart[colStart.length - 1]!) colStart.push(G.m0.length);
     }
   }
+  const G = A!;
   return {
-    count: G.m0.length,
+    count: at,
     uGrid, vGrid, wGrid,
-    iu: G.iu.i32(), iv: G.iv.i32(), iw: G.iw.i32(),
-    x: G.x.f64(), y: G.y.f64(), z: G.z.f64(),
-    m0: G.m0.f64(), r1: G.r1.f64(), r2: G.r2.f64(), df: G.df.f64(),
-    tissue: G.tissue.i32(), peak: G.peak.i32(),
+    ...G,
     colStart: Int32Array.from(colStart),
     columns: colStart.length - 1,
     warnings,
