@@ -21,12 +21,11 @@ export function defaultMemoryLimit(): number {
 }
 
 /**
- * Peak bytes per isochromat: while the sampler grows its twelve float64
- * columns (capacity up to 2× the count: 192 B) and copies them out (76 B),
- * then the shared copies for the workers (76 B) and the RF class (4 B)
- * while the sampler's arrays are still referenced. Rounded up.
+ * Peak bytes per isochromat: the sampler's twelve arrays, allocated once at
+ * their final size in shared memory (76 B), the RF class (4 B), and the
+ * plan's per-isochromat indices and slack for the garbage collector. Rounded up.
  */
-export const BYTES_PER_ISOCHROMAT = 350;
+export const BYTES_PER_ISOCHROMAT = 160;
 
 /** Per-worker scratch: state, relaxation factors per duration, readout groups (≈ 40 float64 per chunk isochromat). */
 export const WORKER_SCRATCH_BYTES = CHUNK_ISOCHROMATS * 8 * 48;
@@ -43,8 +42,10 @@ export interface MemoryEstimate {
 export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): number {
   const f = Math.max(1, Math.ceil(matrix / 64));
   const sc = Math.min(iso.sliceCount, 4);
-  const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc });
-  return Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc));
+  const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
+  // a voxel's T2′ spread of n values is shared among its density² columns (at least one value each)
+  const spread = Math.max(1, Math.ceil((iso.t2primeIsochromats ?? 1) / (iso.density * iso.density)));
+  return Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc) * spread);
 }
 
 /** Bytes a run needs at its peak: isochromats, k-space (total, block sum, partials in flight), worker scratch. */
