@@ -90,7 +90,7 @@ describe("isofold simulate / merge", () => {
 
   test("a run over the memory limit is refused with the estimate and what would fit, writing nothing", () => {
     const out = join(tmp, "toobig");
-    const r = cli([...CASE, "--density", "4", "--max-memory", "0.005", "-o", out]);
+    const r = cli([...CASE, "--density", "4", "--max-memory", "0.001", "-o", out]);
     expect(r.status).toBe(2);
     expect(r.stderr.trim().split("\n")).toHaveLength(1);
     expect(r.stderr).toMatch(/estimated .* GiB .* isochromats/);
