@@ -44,9 +44,10 @@ function baseOf(kind: QuantityKind): Unit {
 }
 
 /** Parses a unit string into a mathjs Unit, or throws a UserError. */
-export function parseUnit(raw: unknown, origin: Origin): Unit {
+export function parseUnit(raw: unknown, origin: Origin, kind?: QuantityKind): Unit {
+  const example = kind ? KINDS[kind].example : "\"5 ms\"";
   if (typeof raw !== "string") {
-    throw userError(origin, `expected a value with units as a string (e.g. "5 ms"), got ${JSON.stringify(raw)}`);
+    throw userError(origin, `expected a value with units as a string (e.g. ${example}), got ${JSON.stringify(raw)}`);
   }
   let u: Unit;
   try {
@@ -55,7 +56,7 @@ export function parseUnit(raw: unknown, origin: Origin): Unit {
     throw userError(origin, `cannot read ${JSON.stringify(raw)} as a number with units`);
   }
   if (!u.units || u.units.length === 0 || u.value === null || u.value === undefined) {
-    throw userError(origin, `${JSON.stringify(raw)} has no units; write it like ${"\"5 ms\""}`);
+    throw userError(origin, `${JSON.stringify(raw)} has no units; write it like ${example}`);
   }
   return u;
 }
@@ -70,7 +71,7 @@ export function isKind(u: Unit, kind: QuantityKind): boolean {
  * Throws a UserError naming origin if it has no units or the wrong ones.
  */
 export function quantity(raw: unknown, kind: QuantityKind, origin: Origin): number {
-  const u = parseUnit(raw, origin);
+  const u = parseUnit(raw, origin, kind);
   if (!isKind(u, kind)) {
     throw userError(origin, `${JSON.stringify(raw)} is not a ${kind}; expected units like ${KINDS[kind].example}`);
   }

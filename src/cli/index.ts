@@ -3,7 +3,7 @@
  * isofold command line. Commands wire the stages; no physics lives here.
  * User errors print one line and exit 2; nothing is written.
  */
-import { Command } from "commander";
+import { Command, CommanderError } from "commander";
 import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
@@ -21,7 +21,9 @@ program
       "fills k-space, reconstructs by FFT and writes PNG, NumPy (.npy), NIfTI and a JSON report.\n" + SAFETY_NOTE,
   )
   .version(version())
-  .showHelpAfterError("(run with --help for usage)");
+  .showHelpAfterError("(run with --help for usage)")
+  // usage errors (a bad or missing option) exit 2 like every other user error
+  .exitOverride();
 
 addSimulationOptions(
   program
@@ -64,6 +66,10 @@ async function main(): Promise<void> {
   try {
     await program.parseAsync(process.argv);
   } catch (e) {
+    if (e instanceof CommanderError) {
+      // commander has printed its message; help and version end with exit code 0
+      process.exit(e.exitCode === 0 ? 0 : 2);
+    }
     if (e instanceof UserError) {
       process.stderr.write(`isofold: error: ${e.message}\n`);
       process.exit(2);
