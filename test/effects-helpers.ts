@@ -2,6 +2,7 @@
  * Small in-process pipeline for the effects tests: protocol object → sequence
  * → isochromats → engine → image, plus the truth maps on the image grid.
  */
+import assert from "node:assert/strict";
 import { parsePhantom } from "../src/phantom/index.js";
 import { parseProtocolObject, logicalAxes, type Protocol } from "../src/protocol/index.js";
 import { buildSequence, type Sequence } from "../src/sequence/index.js";
@@ -48,6 +49,8 @@ export function simulate(phantomJson: unknown, protocol: Record<string, unknown>
     axes, dx, dy, thickness: p.slice.thickness, position: p.slice.position,
     clipRead: p.fov.read * p.oversampling.read, clipPhase: 1.5 * p.fov.phase,
   }, p.field, opt);
+  // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
+  assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
   const img = reconstructCartesian({ partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im }, seq.image);
   const truth = truthMaps(ph, { axes, nRead: seq.image.read, nPhase: seq.image.phase, dx, dy, thickness: p.slice.thickness, position: p.slice.position, offsetHz: p.shim });

@@ -1,4 +1,5 @@
 /** Shared test helpers: temporary input files and a small in-process simulation. */
+import assert from "node:assert/strict";
 import { mkdtempSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -36,6 +37,8 @@ export function simulate(protocol: Record<string, unknown>, phantom: Record<stri
     phantom: phFile, protocol: pFile, sets, out: join(dir, "out"), seed: 1,
     iso: { ...defaultIsochromatOptions(), ...iso },
   });
+  // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
+  assert.ok(prep.iso.count > 0, "the test phantom puts no isochromat in the slice");
   const { kspace, plan } = simulateSerial(prep.seq, prep.iso, { receiverFilter: prep.protocol.receiverFilter });
   let m0 = 0;
   for (let i = 0; i < prep.iso.count; i++) m0 += prep.iso.m0[i]!;

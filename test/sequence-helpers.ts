@@ -3,6 +3,7 @@
  * object (over a small base), a phantom from JSON, and a serial simulation
  * with the pipeline's isochromat options and the grid reconstruction.
  */
+import assert from "node:assert/strict";
 import { parseProtocolObject, type Protocol } from "../src/protocol/index.js";
 import { parsePhantom, type Phantom } from "../src/phantom/index.js";
 import { buildSequence, type Sequence } from "../src/sequence/index.js";
@@ -76,6 +77,8 @@ export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOption
     p.field,
     opts,
   );
+  // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
+  assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
   const kacq = { partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
   const kgrid = toGrid(kacq, seq.grid);
