@@ -220,7 +220,16 @@ export function loadProtocol(file: string, sets: string[] = []): Protocol {
   if (!path) throw new UserError(`no protocol file or preset named ${JSON.stringify(file)}; presets: ${listPresets().join(", ")}`);
   let obj = loadWithExtends(path);
   for (const s of sets) obj = applySet(obj, s);
-  return parseProtocolObject(obj, path);
+  try {
+    return parseProtocolObject(obj, path);
+  } catch (e) {
+    // a bad value that came from --set is named as such, not as the file's
+    const keys = sets.map((s) => s.slice(0, Math.max(0, s.indexOf("="))).trim());
+    if (e instanceof UserError && e.keyPath && keys.some((k) => e.keyPath === k || e.keyPath!.startsWith(`${k}.`))) {
+      throw new UserError(e.detail, `--set ${e.keyPath}`);
+    }
+    throw e;
+  }
 }
 
 export function parseProtocolObject(obj: Obj, file: string): Protocol {
