@@ -2,7 +2,7 @@
  * Built-in tissue library: T1, T2, T2* and relative proton density at 1.5 T
  * and 3 T, so phantom files can say `"tissue": "muscle"`.
  *
- * Status of each value (as in /work/shared/REFERENCES.md):
+ * Status of each value:
  *   V  checked against a published copy of the cited source;
  *   M  recalled from memory, the cited paper not re-read; plausible, not exact;
  *   E  estimate by the stated rule, not a measurement;
