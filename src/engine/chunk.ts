@@ -231,8 +231,21 @@ class SpoiledScratch {
   d: Float64Array[]; e1: Float64Array[];
   /** Accumulated in-plane phase factors since the last pulse, per read and per phase grid index (interleaved). */
   ua: Float64Array; va: Float64Array;
+  /**
+   * Slots: the isochromats of one column and one readout group — start in
+   * mem, group, pattern. A pattern is a slot's list of (local class, m0),
+   * bitwise; slots of one pattern have the same sum Σ m0·P_c.
+   * patFirst/patLen: the mem range of a representative slot of each pattern.
+   */
+  slotStart: Int32Array; slotGroup: Int32Array; slotPat: Int32Array;
+  patFirst: Int32Array; patLen: Int32Array; sumR: Float64Array; sumI: Float64Array;
+  /** Slot members (chunk-local indices, slot by slot); slot of each isochromat; fill counters. */
+  mem: Int32Array; memSlot: Int32Array; fill: Int32Array;
   constructor(plan: EnginePlan, iso: IsochromatSet) {
     const n = plan.maxChunk;
+    this.mem = new Int32Array(n); this.memSlot = new Int32Array(n); this.fill = new Int32Array(n);
+    this.slotStart = new Int32Array(n + 1); this.slotGroup = new Int32Array(n); this.slotPat = new Int32Array(n);
+    this.patFirst = new Int32Array(n); this.patLen = new Int32Array(n); this.sumR = new Float64Array(n); this.sumI = new Float64Array(n);
     this.localOf = new Int32Array(plan.classes).fill(-1);
     this.lc = new Int32Array(n); this.firstOf = new Int32Array(n);
     this.mz = new Float64Array(n); this.pr = new Float64Array(n); this.pi = new Float64Array(n);
@@ -301,22 +314,20 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
       e1[l] = Math.exp(-t * r1[i]!);
     }
   }
-  // also the general path's per-isochromat D for the readout groups' per-dwell factor
-  const readoutDur = new Set<number>();
-  for (const op of ops) if (op.t === "adc") readoutDur.add(op.stepDur);
-  for (const q of readoutDur) {
-    const t = plan.durations[q]!, d = s.d[q]!;
-    for (let k = 0; k < n; k++) {
-      const i = i0 + k;
-      const e2 = Math.exp(-t * r2[i]!), th = -2 * Math.PI * df[i]! * t;
-      d[2 * k] = e2 * Math.cos(th);
-      d[2 * k + 1] = e2 * Math.sin(th);
-    }
+  // the read and phase grid indices present in the chunk: the in-plane factors are kept for these only
+  let u0 = nu, u1 = 0, v0 = nv, v1 = 0;
+  for (let i = i0; i < i1; i++) {
+    const a = iu[i]!, b = iv[i]!;
+    if (a < u0) u0 = a;
+    if (a >= u1) u1 = a + 1;
+    if (b < v0) v0 = b;
+    if (b >= v1) v1 = b + 1;
   }
   mz.fill(1, 0, nc);
   let active = false;
-  let groups = 0, groupsByW = -1;
+  let groups = 0, groupsByW = -1, slots = 0, pats = 0;
   const groupOf = s.groupOf, liveOf = s.liveOf, zr = s.zr, zi = s.zi;
+  const { slotStart, slotGroup, slotPat, patFirst, patLen, sumR, sumI, mem } = f;
   for (let o = 0; o < ops.length; o++) {
     const op = ops[o]!;
     switch (op.t) {
@@ -331,11 +342,11 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
           pr[l] = x * cs - y * sn;
           pi[l] = x * sn + y * cs;
         }
-        for (let j = 0; j < nu; j++) {
+        for (let j = u0; j < u1; j++) {
           ua[2 * j] = 1;
           ua[2 * j + 1] = 0;
         }
-        for (let j = 0; j < nv; j++) {
+        for (let j = v0; j < v1; j++) {
           va[2 * j] = 1;
           va[2 * j + 1] = 0;
         }
@@ -357,12 +368,12 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
           pr[l] = xr * qr - xi * qi;
           pi[l] = xr * qi + xi * qr;
         }
-        for (let j = 0; j < nu; j++) {
+        for (let j = u0; j < u1; j++) {
           const xr = ua[2 * j]!, xi = ua[2 * j + 1]!, tr = tab[op.u + 2 * j]!, ti = tab[op.u + 2 * j + 1]!;
           ua[2 * j] = xr * tr - xi * ti;
           ua[2 * j + 1] = xr * ti + xi * tr;
         }
-        for (let j = 0; j < nv; j++) {
+        for (let j = v0; j < v1; j++) {
           const xr = va[2 * j]!, xi = va[2 * j + 1]!, tr = tab[op.v + 2 * j]!, ti = tab[op.v + 2 * j + 1]!;
           va[2 * j] = xr * tr - xi * ti;
           va[2 * j + 1] = xr * ti + xi * tr;
@@ -386,8 +397,51 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
         if (groupsByW !== (op.byW ? 1 : 0)) {
           groupsByW = op.byW ? 1 : 0;
           groups = readoutGroups(iso, i0, i1, op.byW, s);
+          [slots, pats] = spoiledSlots(iso, i0, n, f, groupOf);
+        }
+        {
+          // the per-dwell D = exp(−t·r2)·exp(−i2πΔf·t) of each group's first isochromat (the general path's formula)
+          const t = plan.durations[op.stepDur]!, d = s.d[op.stepDur]!, first = s.groupFirst;
+          for (let g = 0; g < groups; g++) {
+            const k = first[g]!, i = i0 + k;
+            const e2 = Math.exp(-t * r2[i]!), th = -2 * Math.PI * df[i]! * t;
+            d[2 * k] = e2 * Math.cos(th);
+            d[2 * k + 1] = e2 * Math.sin(th);
+          }
         }
         const live = adcGroups(plan, iso, i0, op, groups, s);
+        if (sens === null) {
+          // Σ m0·P_c once per pattern, then z_g += S_pattern·Ua[iu]·Va[iv] once per slot
+          for (let p = 0; p < pats; p++) {
+            const k0 = patFirst[p]!, k1 = k0 + patLen[p]!;
+            let xr = 0, xi = 0;
+            for (let j = k0; j < k1; j++) {
+              const k = mem[j]!, l = lc[k]!, m = m0[i0 + k]!;
+              xr += pr[l]! * m;
+              xi += pi[l]! * m;
+            }
+            sumR[p] = xr;
+            sumI[p] = xi;
+          }
+          let lu = -1, lv = -1, cr = 0, ci = 0;
+          for (let q = 0; q < slots; q++) {
+            const g = liveOf[slotGroup[q]!]!;
+            if (g < 0) continue;
+            const i = i0 + mem[slotStart[q]!]!, a = iu[i]!, b = iv[i]!;
+            if (a !== lu || b !== lv) {
+              lu = a;
+              lv = b;
+              const ur = ua[2 * a]!, ui = ua[2 * a + 1]!, vr = va[2 * b]!, vi = va[2 * b + 1]!;
+              cr = ur * vr - ui * vi;
+              ci = ur * vi + ui * vr;
+            }
+            const p = slotPat[q]!, xr = sumR[p]!, xi = sumI[p]!;
+            zr[g] = zr[g]! + (xr * cr - xi * ci);
+            zi[g] = zi[g]! + (xr * ci + xi * cr);
+          }
+          adcOutput(plan, op, live, outRe, outIm, s);
+          break;
+        }
         // z_g = Σ_{i∈g} m0_i·P_c·Ua[iu]·Va[iv] (·S_q(r_i)), in isochromat order; [coil][live group]
         let lu = -1, lv = -1, cr = 0, ci = 0;
         for (let k = 0; k < n; k++) {
@@ -421,6 +475,71 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
       }
     }
   }
+}
+
+/**
+ * Splits chunk isochromats 0 … n−1 into slots (the isochromats of one column
+ * and one readout group; members listed in f.mem, slot q at
+ * mem[slotStart[q] … slotStart[q+1]−1], in isochromat order; slots in
+ * first-seen order) and numbers the slots' patterns (list of local class and
+ * m0 bits) in first-seen order; see SpoiledScratch. Returns [slots, patterns].
+ */
+function spoiledSlots(iso: IsochromatSet, i0: number, n: number, f: SpoiledScratch, groupOf: Int32Array): [number, number] {
+  const { iu, iv, m0 } = iso;
+  const { lc, slotStart, slotGroup, slotPat, patFirst, patLen, mem, memSlot, fill } = f;
+  const index = new Map<string, number>();
+  const m0Bits = new Float64Array(1), m0Words = new Uint32Array(m0Bits.buffer);
+  let slots = 0, pos = 0;
+  let k = 0;
+  while (k < n) {
+    const a = iu[i0 + k]!, b = iv[i0 + k]!;
+    let e = k + 1;
+    while (e < n && iu[i0 + e] === a && iv[i0 + e] === b) e++;
+    // the column's slots, one per readout group, in first-seen order
+    const s0 = slots;
+    for (let j = k; j < e; j++) {
+      const g = groupOf[j]!;
+      let q = s0;
+      while (q < slots && slotGroup[q] !== g) q++;
+      if (q === slots) {
+        slotGroup[q] = g;
+        fill[q] = 0;
+        slots++;
+      }
+      memSlot[j] = q;
+      fill[q] = fill[q]! + 1;
+    }
+    for (let q = s0; q < slots; q++) {
+      const c = fill[q]!;
+      slotStart[q] = pos;
+      fill[q] = pos;
+      pos += c;
+    }
+    for (let j = k; j < e; j++) {
+      const q = memSlot[j]!;
+      mem[fill[q]!] = j;
+      fill[q] = fill[q]! + 1;
+    }
+    for (let q = s0; q < slots; q++) {
+      const m1 = q + 1 < slots ? slotStart[q + 1]! : pos;
+      let key = "";
+      for (let j = slotStart[q]!; j < m1; j++) {
+        m0Bits[0] = m0[i0 + mem[j]!]!;
+        key += `${lc[mem[j]!]!}:${m0Words[0]!}:${m0Words[1]!},`;
+      }
+      let p = index.get(key);
+      if (p === undefined) {
+        p = index.size;
+        index.set(key, p);
+        patFirst[p] = slotStart[q]!;
+        patLen[p] = m1 - slotStart[q]!;
+      }
+      slotPat[q] = p;
+    }
+    k = e;
+  }
+  slotStart[slots] = pos;
+  return [slots, index.size];
 }
 
 /**
