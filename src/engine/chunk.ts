@@ -275,8 +275,12 @@ const spoiledScratch = new WeakMap<ChunkScratch, SpoiledScratch>();
  * W·D depends on the class and U, V on the read and phase grid index alone.
  * So the readout group sums are z_g = Σ_{i∈g} m0_i·P_{c(i)}·Ua[iu_i]·Va[iv_i]
  * with P_c = T_c·Π W·D and Ua, Va the products of the U and V tables since
- * the pulse: per isochromat and readout one complex product, instead of the
- * pulse, interval and relaxation updates of every isochromat every TR.
+ * the pulse. Within a column (one iu, iv) Ua·Va is common, so per slot
+ * (column × readout group) z_g += (Σ_slot m0·P_c)·Ua·Va, and slots with
+ * bitwise the same list of (class, m0) — a pattern — share the inner sum,
+ * computed once per pattern and readout (with coil sensitivities: one term
+ * per isochromat). This replaces the pulse, interval and relaxation updates
+ * of every isochromat every TR.
  */
 export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number, outRe: Float64Array, outIm: Float64Array, s: ChunkScratch): void {
   const i0 = plan.chunkStart[c]!, i1 = plan.chunkStart[c + 1]!, n = i1 - i0;
