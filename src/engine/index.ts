@@ -11,12 +11,12 @@ import { fillRfMaps, makePlan, planLayout, shareEngineArrays, type EnginePlan } 
 import { EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 
-export { makePlan, planLayout, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, shareEngineArrays, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
+export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, shareEngineArrays, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
 export { EnginePool, AbortedError, workerPath, PARALLEL_RF_CLASSES } from "./pool.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
-export { runChunk, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
+export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
 
 export interface KSpace {
@@ -39,6 +39,8 @@ export interface SimulateOptions {
   blocks?: [number, number];
   /** Isochromats per chunk (default CHUNK_ISOCHROMATS). */
   chunkIsochromats?: number;
+  /** Play every op per isochromat even where an exact shortcut applies (the oracle; default false). */
+  general?: boolean;
   /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
 }
@@ -62,7 +64,7 @@ function chunkRange(plan: EnginePlan, blocks?: [number, number]): [number, numbe
  * fixed order of sum.ts (chunk order within blocks, then block order).
  */
 export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: SimulateOptions): { kspace: KSpace; plan: EnginePlan } {
-  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
+  const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats, general: opts.general });
   const size = plan.coils * plan.rows * plan.read;
   const re = new Float64Array(size), im = new Float64Array(size);
   const pr = new Float64Array(size), pi = new Float64Array(size);
@@ -90,7 +92,7 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
  */
 export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan }> {
   const shared = shareEngineArrays(iso);
-  const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats });
+  const plan = planLayout(seq, shared, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats, general: opts.general });
   opts.onPlan?.(plan);
   const [c0, c1] = chunkRange(plan, opts.blocks);
   // no more workers than chunks (nor than RF class ranges when those are filled in parallel)

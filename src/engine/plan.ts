@@ -72,6 +72,12 @@ export interface EnginePlan {
   sens: Float64Array | null;
   /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
   rf: RfSpec;
+  /**
+   * Play the ideally spoiled shortcut (chunk.ts, runChunkSpoiled): every run
+   * of ops between ideal spoils holds at most one RF pulse, so Mxy is zero
+   * before every pulse and Mz there is m0 times a function of the RF class.
+   */
+  spoiledFast: boolean;
 }
 
 export interface PlanOptions {
@@ -82,6 +88,8 @@ export interface PlanOptions {
   sens?: Float64Array | null;
   /** Isochromats per chunk (default CHUNK_ISOCHROMATS); part of the result's definition. */
   chunkIsochromats?: number;
+  /** Play every op per isochromat even where an exact shortcut applies (the oracle; default false). */
+  general?: boolean;
 }
 
 /** What the RF maps are computed from: per-class parameters and the pulses. */
@@ -260,7 +268,25 @@ export function planLayout(
     ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
     rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
     receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
+    spoiledFast: !(opts.general ?? false) && spoiledUnits(ops),
   };
+}
+
+/**
+ * Whether every run of ops between ideal spoils (and before the first) holds
+ * at most one RF pulse. Then the transverse magnetization is zero before every
+ * pulse (it starts at zero and each spoil zeroes it), so before each pulse an
+ * isochromat's state is (0, 0, m0·mz_c) with mz_c a function of its RF class
+ * alone — the condition of the spoiled shortcut. Spin echoes, RF-spoiled and
+ * balanced sequences (two or more pulses without an ideal spoil between) fail it.
+ */
+export function spoiledUnits(ops: Op[]): boolean {
+  let pulses = 0;
+  for (const op of ops) {
+    if (op.t === "spoil") pulses = 0;
+    else if (op.t === "rf" && ++pulses > 1) return false;
+  }
+  return true;
 }
 
 /** Builds the plan and fills every RF map on this thread. */

@@ -1,0 +1,107 @@
+/**
+ * The ideally spoiled shortcut of the chunk runner (engine/chunk.ts,
+ * runChunkSpoiled) against the general path that plays every op on every
+ * isochromat (forced with `general: true`; that path is itself checked
+ * against a direct per-isochromat Bloch simulation in engine.test.ts). The
+ * shortcut is exact in exact arithmetic, so the two agree to rounding.
+ */
+import { readFileSync } from "node:fs";
+import { join } from "node:path";
+import { describe, expect, test } from "vitest";
+import { prepare } from "../src/cli/pipeline.js";
+import { simulateParallel, simulateSerial } from "../src/engine/index.js";
+import type { IsochromatOptions } from "../src/isochromats/index.js";
+import { tempDir, writeJson } from "./helpers.js";
+
+function relL2(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: ArrayLike<number>, bIm: ArrayLike<number>): number {
+  let num = 0, den = 0;
+  for (let i = 0; i < aRe.length; i++) {
+    num += (aRe[i]! - bRe[i]!) ** 2 + (aIm[i]! - bIm[i]!) ** 2;
+    den += bRe[i]! ** 2 + bIm[i]! ** 2;
+  }
+  return Math.sqrt(num / den);
+}
+
+/** The two-bottle phantom (water gel and oil: several fat peaks), optionally with a B0 expression (Hz, x in m). */
+function phantomFile(b0?: string): string {
+  if (!b0) return "phantoms/two-bottle.json";
+  const j = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;
+  j["b0"] = { expression: b0 };
+  return writeJson(tempDir(), "phantom.json", j);
+}
+
+function prep(sets: string[], opts: { protocol?: string; b0?: string; iso?: Partial<IsochromatOptions> } = {}) {
+  return prepare({
+    phantom: phantomFile(opts.b0), protocol: opts.protocol ?? "gre-demo-1.5t",
+    sets: ["matrix.read=16", "matrix.phase=16", "dummyScans=3", ...sets],
+    out: join(tempDir(), "out"), seed: 1,
+    iso: { density: 1, sliceCount: 5, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 1, offsetHz: 0, ...opts.iso }, workers: 1,
+  });
+}
+
+function fastVsGeneral(p: ReturnType<typeof prep>) {
+  const fast = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256 });
+  const gen = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256, general: true });
+  return { fast, gen, err: relL2(fast.kspace.re, fast.kspace.im, gen.kspace.re, gen.kspace.im) };
+}
+
+describe("ideally spoiled shortcut", () => {
+  test.each([
+    ["2D GRE, ideal spoiling, sinc pulse, 5 through-slice isochromats", [] as string[], {}],
+    ["with a T2′ spread (3 isochromats per tissue and peak)", [], { iso: { t2primeIsochromats: 3 } }],
+    ["with B0 varying along x (RF classes per read position)", [], { b0: "150 * x / 0.05" }],
+    ["with the oil bottle's fat peaks at 3 T, TE 7 ms, flip 60°, B0 along x and y, T2′ spread", ["field=3 T", "te=7 ms", "flip=60 deg"], { b0: "80 * x / 0.05 - 30 * y / 0.05", iso: { t2primeIsochromats: 2 } }],
+  ])("%s: k-space equals the general path within 1e-10 relative L2", (_name, sets, opts) => {
+    const p = prep(["spoiling=ideal", ...sets], opts);
+    const { fast, gen, err } = fastVsGeneral(p);
+    expect(fast.plan.spoiledFast).toBe(true);
+    expect(gen.plan.spoiledFast).toBe(false);
+    expect(fast.plan.chunks).toBeGreaterThan(2);
+    // (a test that can fail: the k-space is not all zeros, and the fat makes several Δf per column)
+    expect(gen.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(new Set(p.iso.df).size).toBeGreaterThan(1);
+    // exact in exact arithmetic; the shortcut only reorders the floating-point sums
+    expect(err).toBeLessThan(1e-10);
+  }, 60_000);
+
+  test("with coil sensitivities: each coil equals the general path within 1e-10 relative L2", () => {
+    const p = prep(["spoiling=ideal", "receiverFilter=false"]);
+    const coils = 2, sens = new Float64Array(2 * coils * p.iso.count);
+    let seed = 7;
+    for (let k = 0; k < sens.length; k++) {
+      seed = (seed * 1103515245 + 12345) % 2147483648;
+      sens[k] = seed / 2147483648 - 0.5;
+    }
+    const fast = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens });
+    const gen = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens, general: true });
+    expect(fast.plan.spoiledFast).toBe(true);
+    expect(relL2(fast.kspace.re, fast.kspace.im, gen.kspace.re, gen.kspace.im)).toBeLessThan(1e-10);
+  }, 60_000);
+
+  test("on the fast path, 1 and 2 workers give bitwise the serial k-space", async () => {
+    const p = prep(["spoiling=ideal"], { b0: "150 * x / 0.05", iso: { t2primeIsochromats: 2 } });
+    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, chunkIsochromats: 256 });
+    expect(serial.plan.spoiledFast).toBe(true);
+    for (const workers of [1, 2]) {
+      const { kspace, plan } = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, chunkIsochromats: 256 });
+      expect(plan.spoiledFast).toBe(true);
+      expect(plan.chunks).toBeGreaterThan(2);
+      expect(Buffer.from(kspace.re.buffer).equals(Buffer.from(serial.kspace.re.buffer))).toBe(true);
+      expect(Buffer.from(kspace.im.buffer).equals(Buffer.from(serial.kspace.im.buffer))).toBe(true);
+    }
+  }, 60_000);
+
+  test.each([
+    ["spin echo (two pulses per TR)", [] as string[], "se-t2-1.5t"],
+    ["RF-spoiled GRE (no ideal spoil)", ["spoiling=rf"], "gre-demo-1.5t"],
+    ["bSSFP", [], "bssfp-1.5t"],
+  ])("%s does not take the shortcut and gives the general path's bits", (_name, sets, protocol) => {
+    const p = prep(sets, { protocol });
+    const a = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter });
+    const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, general: true });
+    expect(a.plan.spoiledFast).toBe(false);
+    expect(a.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(Buffer.from(a.kspace.re.buffer).equals(Buffer.from(b.kspace.re.buffer))).toBe(true);
+    expect(Buffer.from(a.kspace.im.buffer).equals(Buffer.from(b.kspace.im.buffer))).toBe(true);
+  }, 60_000);
+});
