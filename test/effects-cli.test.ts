@@ -45,3 +45,21 @@ describe("two-bottle phantom at 3 T: oil shifted along read by the predicted pix
     }, 60_000);
   }
 });
+
+describe("EPI fat shift along phase", () => {
+  test("the report predicts Δf·N_phase·echo spacing along phase and does not claim a measurement when the shift can wrap", () => {
+    // EPI displacement along phase: Δy_pix = Δf·N_pe·esp (Jezzard & Balaban 1995; Bernstein, King & Zhou 2004 §16.1).
+    const out = mkdtempSync(join(tmpdir(), "isofold-fx-epi-"));
+    run(["simulate", join(ROOT, "phantoms", "two-bottle.json"), "-p", "epi-1.5t", "--set", "field=3 T",
+      "--fat-model", "single", "--t2prime-isochromats", "1", "--density", "1", "-q", "-o", out]);
+    const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
+    const esp = rep.sequence.derived.echoSpacing.value as number;
+    const n = rep.sequence.derived.phaseLines.value as number;
+    const df = -3.4e-6 * 42.577478518e6 * 3; // Hamilton et al. 2011 methylene shift, CODATA 2018 γ̄
+    expect(rep.fatShift.predicted.phase.px).toBeCloseTo(df * n * esp, 6);
+    // |Δy| is over a quarter of the 64 lines here: the fat image may wrap, so no measured value is given
+    expect(Math.abs(df * n * esp)).toBeGreaterThan(n / 4);
+    expect(rep.fatShift.measured.phase).toBeNull();
+    expect(rep.fatShift.measured.reason).toMatch(/exceeds a quarter of the matrix/);
+  }, 60_000);
+});

@@ -40,14 +40,20 @@ export function fatShiftReport(
   };
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
   const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
-  const margin = 3;
+  // the search window around each object must reach the shifted fat image
+  const predicted = Math.max(Math.abs(main.readout.px), Math.abs(main.phase.px), Math.abs(mean.readout.px), Math.abs(mean.phase.px));
+  const margin = 3 + Math.ceil(predicted);
+  // a shift beyond a quarter of the matrix lets the fat image wrap or land on other objects: not measured
+  const tooFar = Math.abs(main.readout.px) > nRead / 4 || Math.abs(main.phase.px) > nPhase / 4;
   const plane = mag.subarray(Math.floor(seq.image.partitions / 2) * nRead * nPhase, (Math.floor(seq.image.partitions / 2) + 1) * nRead * nPhase);
   // a finer truth grid gives the measurement a band-limited template (see measureFatShift)
   const factor = Math.max(1, Math.min(4, Math.floor(1024 / Math.max(nRead, nPhase))));
   const fine = factor > 1
     ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: 0 })
     : truth;
-  const measured = measureFatShift(plane, truth.pd, truth.fatFraction, nRead, nPhase, dx, dy, margin, { factor, pd: fine.pd, fatFraction: fine.fatFraction });
+  const measured = tooFar
+    ? null
+    : measureFatShift(plane, truth.pd, truth.fatFraction, nRead, nPhase, dx, dy, margin, { factor, pd: fine.pd, fatFraction: fine.fatFraction });
   const side = (px: number | undefined, m: number | undefined) => (px === undefined ? null : { px, mm: (m ?? 0) * 1e3 });
   const report: Record<string, unknown> = {
     fatModel,
@@ -71,7 +77,12 @@ export function fatShiftReport(
           fatPixels: measured.fatPixels,
           method: measured.method,
         }
-      : { readout: null, phase: null, reason: "the slice holds no separate water and fat objects (pixels with fat fraction < 0.5 and ≥ 0.5)" },
+      : {
+          readout: null, phase: null,
+          reason: tooFar
+            ? `the predicted shift (${main.readout.px.toFixed(1)} px along read, ${main.phase.px.toFixed(1)} px along phase) exceeds a quarter of the matrix, so the fat image may wrap or overlap other objects; not measured`
+            : "the slice holds no separate water and fat objects (pixels with fat fraction < 0.5 and ≥ 0.5)",
+        },
   };
   const warnings: string[] = [];
   if (measured && !measured.separable) {
