@@ -108,15 +108,3 @@ export function plainNumber(
   if (opts.max !== undefined && raw > opts.max) throw userError(origin, `must be at most ${opts.max}, got ${raw}`);
   return raw;
 }
-
-/** Formats an SI number back with a chosen display unit, e.g. fmt(0.005, "ms") → "5 ms". */
-export function fmt(si: number, display: string, digits = 4): string {
-  const v = math.unit(si, unitSiFor(display)).toNumber(display);
-  return `${Number(v.toPrecision(digits))} ${display}`;
-}
-
-function unitSiFor(display: string): string {
-  const u = math.unit(`1 ${display}`);
-  for (const k of Object.keys(KINDS) as QuantityKind[]) if (isKind(u, k)) return KINDS[k].si;
-  throw new Error(`no SI unit for ${display}`);
-}

@@ -11,16 +11,7 @@ import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
 import { simulateParallel, simulateSerial } from "../src/engine/index.js";
 import type { IsochromatOptions } from "../src/isochromats/index.js";
-import { tempDir, writeJson } from "./helpers.js";
-
-function relL2(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: ArrayLike<number>, bIm: ArrayLike<number>): number {
-  let num = 0, den = 0;
-  for (let i = 0; i < aRe.length; i++) {
-    num += (aRe[i]! - bRe[i]!) ** 2 + (aIm[i]! - bIm[i]!) ** 2;
-    den += bRe[i]! ** 2 + bIm[i]! ** 2;
-  }
-  return Math.sqrt(num / den);
-}
+import { relL2, tempDir, writeJson } from "./helpers.js";
 
 /** The two-bottle phantom (water gel and oil: several fat peaks), optionally with a B0 expression (Hz, x in m). */
 function phantomFile(b0?: string): string {

@@ -5,6 +5,7 @@
  * sensitivities) against a per-isochromat Bloch simulation written from the
  * Bloch equations, and the worker pool against the serial run (bitwise).
  */
+import { relL2 } from "./helpers.js";
 import { describe, expect, test } from "vitest";
 import { GAMMA, GAMMA_BAR } from "../src/constants.js";
 import { prepare } from "../src/cli/pipeline.js";
@@ -22,15 +23,6 @@ function rng(seed: number): () => number {
     s = (Math.imul(s, 1664525) + 1013904223) >>> 0;
     return s / 2 ** 32;
   };
-}
-
-function relL2(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: ArrayLike<number>, bIm: ArrayLike<number>): number {
-  let num = 0, den = 0;
-  for (let i = 0; i < aRe.length; i++) {
-    num += (aRe[i]! - bRe[i]!) ** 2 + (aIm[i]! - bIm[i]!) ** 2;
-    den += bRe[i]! ** 2 + bIm[i]! ** 2;
-  }
-  return Math.sqrt(num / den);
 }
 
 describe("readout kernels", () => {

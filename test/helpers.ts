@@ -52,3 +52,13 @@ export function centreSample(r: ReturnType<typeof simulate>): { re: number; im: 
   const re = r.kspace.re[i]!, im = r.kspace.im[i]!;
   return { re, im, abs: Math.hypot(re, im) };
 }
+
+/** Relative L2 error ‖a − b‖/‖b‖ of complex vectors given as re/im parts. */
+export function relL2(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: ArrayLike<number>, bIm: ArrayLike<number>): number {
+  let num = 0, den = 0;
+  for (let i = 0; i < aRe.length; i++) {
+    num += (aRe[i]! - bRe[i]!) ** 2 + (aIm[i]! - bIm[i]!) ** 2;
+    den += bRe[i]! ** 2 + bIm[i]! ** 2;
+  }
+  return Math.sqrt(num / den);
+}
