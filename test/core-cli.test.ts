@@ -39,7 +39,7 @@ describe("isofold simulate", () => {
     expect(r.stderr).toBe("");
     expect(r.code).toBe(0);
     expect(readdirSync(out).sort()).toEqual(["image.nii", "image.npy", "image.png", "kspace.npy", "kspace.png", "report.json"]);
-    // NumPy format read by npyjs (an independent reader): complex64 '<c8', [coils, partitions, phase, read]
+    // NumPy format read by npyjs (an independent reader): complex64 '<c8', [coils, slice, phase, read]
     const k = new npyjs().parse(ab(readFileSync(join(out, "kspace.npy"))));
     expect(k.dtype).toBe("c8");
     expect(k.shape).toEqual([1, 1, 30, 80]);

@@ -114,7 +114,7 @@ describe("phase wrap", () => {
       },
       ph, { density: 2, sliceCount: 1 },
     );
-    const img = reconstructCartesian({ partitions: 1, phase: r.seq.kspace.phase, read: r.seq.kspace.read, re: r.kspace.re, im: r.kspace.im }, r.seq.image);
+    const img = reconstructCartesian({ slice: 1, phase: r.seq.kspace.phase, read: r.seq.kspace.read, re: r.kspace.re, im: r.kspace.im }, r.seq.image);
     const mag = magnitude(img);
     // centroid of the rows within 2.5 cm of the brightest row (ringing elsewhere wraps circularly)
     const rows = new Float64Array(32);

@@ -24,7 +24,7 @@ describe("sampling masks", () => {
     expect(m.acceleration).toBeCloseTo(32 / count, 12);
   });
 
-  it("random mask: stated density sums to N/R and the empirical line frequency over 4000 partitions matches it within 5 standard errors", () => {
+  it("random mask: stated density sums to N/R and the empirical line frequency over 4000 slice-encoding steps matches it within 5 standard errors", () => {
     const N = 48, R = 3, acs = 6, P = 4000;
     const p = randomDensity(N, R, acs);
     expect(p.reduce((a, b) => a + b, 0)).toBeCloseTo(N / R, 9);

@@ -52,7 +52,7 @@ export function simulate(phantomJson: unknown, protocol: Record<string, unknown>
   // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
   assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
-  const img = reconstructCartesian({ partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im }, seq.image);
+  const img = reconstructCartesian({ slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im }, seq.image);
   const truth = truthMaps(ph, { axes, nRead: seq.image.read, nPhase: seq.image.phase, dx, dy, thickness: p.slice.thickness, position: p.slice.position, offsetHz: p.shim });
   const F = 4;
   const fine = truthMaps(ph, { axes, nRead: F * seq.image.read, nPhase: F * seq.image.phase, dx: dx / F, dy: dy / F, thickness: p.slice.thickness, position: p.slice.position, offsetHz: p.shim });

@@ -81,7 +81,7 @@ function voxelSignal(t2: number, t2star: number, n: number, echo: null | number,
   blocks.push({ kind: "adc", samples, dwell, grad: [0, 0, 0], row: 0, phase: 0, weight: 1 });
   const seq: Sequence = {
     name: "test", pulses: [hard(0, Math.PI / 2), hard(1, Math.PI)], blocks,
-    kspace: { partitions: 1, phase: 1, read: samples }, image: { partitions: 1, phase: 1, read: samples },
+    kspace: { slice: 1, phase: 1, read: samples }, image: { slice: 1, phase: 1, read: samples },
     centre: { read: 0, phase: 0 }, timing: { teMin: 0, trMin: 0, te: 0, tr: 1, scanTime: 1 }, derived: {},
   };
   const { kspace } = simulateSerial(seq, iso, { receiverFilter: false });

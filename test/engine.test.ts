@@ -119,7 +119,7 @@ describe("TupleIndex", () => {
  * k-space [coil][row][read] (sensitivity S per coil if given).
  */
 function directBloch(seq: Sequence, iso: IsochromatSet, filter: boolean, coils: number, sens: Float64Array | null): { re: Float64Array; im: Float64Array } {
-  const rows = seq.kspace.partitions * seq.kspace.phase, read = seq.kspace.read;
+  const rows = seq.kspace.slice * seq.kspace.phase, read = seq.kspace.read;
   const re = new Float64Array(coils * rows * read), im = new Float64Array(coils * rows * read);
   for (let i = 0; i < iso.count; i++) {
     const u = iso.uGrid[iso.iu[i]!]!, v = iso.vGrid[iso.iv[i]!]!, w = iso.wGrid[iso.iw[i]!]!;

@@ -87,10 +87,19 @@ describe("impossible protocols: one line naming the quantity and what would work
     const e = errorOf(() => buildSequence(proto({ slice: { thickness: "0.5 mm" }, excitation: { shape: "sinc", duration: "1 ms", tbw: 8 }, hardware: { gmax: "20 mT/m" } })));
     expect(e.message).toMatch(/at least 9\.39 mm/); // (8/1 ms)/(γ̄·20 mT/m)
   });
-  it("shots that do not divide the lines, partitions in 2D, unknown keys and sequences", () => {
+  it("matrix.partitions, the old name of matrix.slice, is still read for this release with a deprecation warning; both at once are refused", () => {
+    const old = proto({ sequence: "gre3d", matrix: { read: 32, phase: 32, partitions: 8 } });
+    expect(old.matrix.slice).toBe(8);
+    expect(old.warnings.join("\n")).toMatch(/matrix\.partitions is deprecated.*"slice": 8/);
+    const now = proto({ sequence: "gre3d", matrix: { read: 32, phase: 32, slice: 8 } });
+    expect(now.matrix.slice).toBe(8);
+    expect(now.warnings).toEqual([]);
+    expect(errorOf(() => proto({ sequence: "gre3d", matrix: { read: 32, slice: 8, partitions: 8 } })).message).toMatch(/once, as matrix\.slice/);
+  });
+  it("shots that do not divide the lines, slice-encoding steps in 2D, unknown keys and sequences", () => {
     expect(errorOf(() => buildSequence(proto({ sequence: "epi", shots: 5, te: "30 ms", tr: "1 s", bandwidth: "2000 Hz/px" }))).message).toMatch(/shots that divide 32/);
-    expect(errorOf(() => proto({ matrix: { partitions: 8 } })).keyPath).toBe("matrix.partitions");
-    expect(errorOf(() => proto({ sequence: "gre3d" })).message).toMatch(/at least 2 partitions/);
+    expect(errorOf(() => proto({ matrix: { slice: 8 } })).keyPath).toBe("matrix.slice");
+    expect(errorOf(() => proto({ sequence: "gre3d" })).message).toMatch(/at least 2 slice-encoding steps/);
     expect(errorOf(() => proto({ sequence: "spiral" })).message).toMatch(/one of gre, se, gre3d, bssfp, rare, epi/);
     expect(errorOf(() => proto({ partialFourier: { phase: 0.3 } })).keyPath).toBe("partialFourier.phase");
     expect(errorOf(() => proto({ slice: { angle: "75 deg" } })).keyPath).toBe("slice.angle");

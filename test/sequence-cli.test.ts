@@ -2,7 +2,7 @@
  * Each encoding scheme runs through the CLI's simulate pipeline (the function
  * the `simulate` command calls) on a bundled phantom and preset, with small
  * matrices via --set, and writes the run folder; kspace.npy has the contract
- * shape [coils, partitions, phase, read]. The compiled binary itself is
+ * shape [coils, slice, phase, read]. The compiled binary itself is
  * exercised in protocol-cli.test.ts.
  */
 import { describe, expect, it } from "vitest";
@@ -22,7 +22,7 @@ function npyShape(file: string): number[] {
 
 const small = ["matrix.read=32", "matrix.phase=32"];
 const CASES: [string, string, string[], number[]][] = [
-  ["gre3d-t1-1.5t", "two-bottle", ["matrix.partitions=8", "slice.thickness=10 mm"], [1, 8, 32, 64]],
+  ["gre3d-t1-1.5t", "two-bottle", ["matrix.slice=8", "slice.thickness=10 mm"], [1, 8, 32, 64]],
   ["bssfp-1.5t", "disc", [], [1, 1, 32, 64]],
   ["rare-t2-1.5t", "two-bottle", [], [1, 1, 32, 64]],
   ["epi-1.5t", "two-bottle", [], [1, 1, 32, 64]],

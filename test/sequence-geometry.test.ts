@@ -80,12 +80,12 @@ describe("oblique slice: an axial section tilted 30° about read through a z-cyl
 });
 
 describe("3D spoiled gradient echo: a sphere reconstructs as a sphere", () => {
-  it("radius 3.5 cm from the half-maximum widths along read, phase and partition, within half a voxel", () => {
+  it("radius 3.5 cm from the half-maximum widths along read, phase and slice-encoding step, within half a voxel", () => {
     const ph = phantom({ tissues: { gel }, shapes: [{ shape: "sphere", center: ["0 cm", "0 cm", "0 cm"], radius: "3.5 cm", tissue: "gel" }] });
-    const p = proto({ sequence: "gre3d", matrix: { read: 32, phase: 32, partitions: 20 }, slice: { thickness: "5 mm" }, tr: "60 ms", te: "4 ms" });
+    const p = proto({ sequence: "gre3d", matrix: { read: 32, phase: 32, slice: 20 }, slice: { thickness: "5 mm" }, tr: "60 ms", te: "4 ms" });
     const r = simulate(p, ph, { density: 1 });
     const N = 20, plane = 32 * 32;
-    // the sphere centre: read/phase index 16; partitions tile the slab, centre between partitions 9 and 10
+    // the sphere centre: read/phase index 16; slice-encoding steps tile the slab, centre between slice-encoding steps 9 and 10
     const centre = 0.5 * (r.mag[9 * plane + 16 * 32 + 16]! + r.mag[10 * plane + 16 * 32 + 16]!);
     const level = 0.5 * centre;
     const row = Array.from({ length: 32 }, (_, x) => 0.5 * (r.mag[9 * plane + 16 * 32 + x]! + r.mag[10 * plane + 16 * 32 + x]!));
@@ -95,7 +95,7 @@ describe("3D spoiled gradient echo: a sphere reconstructs as a sphere", () => {
     expect(Math.abs(halfMaxWidth(row, level) / 2 - radius)).toBeLessThan(0.5);
     expect(Math.abs(halfMaxWidth(col, level) / 2 - radius)).toBeLessThan(0.5);
     expect(Math.abs(halfMaxWidth(part, level) / 2 - radius)).toBeLessThan(0.5);
-    // centred along partitions between 9 and 10: the profile is symmetric about 9.5
+    // centred along slice-encoding steps between 9 and 10: the profile is symmetric about 9.5
     for (let q = 0; q < 10; q++) expect(Math.abs(part[q]! - part[19 - q]!)).toBeLessThan(0.02 * centre);
   });
 });

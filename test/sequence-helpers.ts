@@ -80,7 +80,7 @@ export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOption
   // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
   assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
-  const kacq = { partitions: seq.kspace.partitions, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
+  const kacq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
   const kgrid = toGrid(kacq, seq.grid);
   const image = reconstructGrid(kgrid, seq.grid, seq.image);
   return { seq, iso: set, kacq, kgrid, image, mag: magnitude(image) };

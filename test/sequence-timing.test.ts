@@ -60,7 +60,7 @@ const CASES: [string, Record<string, unknown>][] = [
   ["2D GRE", { sequence: "gre", excitation: { shape: "sinc", duration: "2 ms", tbw: 4 } }],
   ["2D GRE, negative readout, asymmetric echo", { sequence: "gre", readoutPolarity: "negative", partialFourier: { read: 0.7 } }],
   ["2D SE", { sequence: "se", te: "20 ms", excitation: { shape: "sinc", duration: "2 ms", tbw: 4 }, refocusing: { shape: "sinc", duration: "3 ms", tbw: 4 } }],
-  ["3D GRE", { sequence: "gre3d", matrix: { partitions: 8 }, slice: { thickness: "2 mm" } }],
+  ["3D GRE", { sequence: "gre3d", matrix: { slice: 8 }, slice: { thickness: "2 mm" } }],
   ["bSSFP", { sequence: "bssfp", te: "3 ms", tr: "6 ms", bandwidth: "600 Hz/px", excitation: { shape: "sinc", duration: "1 ms", tbw: 2 } }],
   ["RARE linear", { sequence: "rare", te: "40 ms", tr: "1000 ms", echoTrainLength: 8 }],
   ["RARE centric", { sequence: "rare", te: "8 ms", tr: "1000 ms", echoTrainLength: 8, echoOrder: "centric", echoSpacing: "8 ms" }],
@@ -69,7 +69,7 @@ const CASES: [string, Record<string, unknown>][] = [
   ["GE-EPI, 4 shots", { sequence: "epi", shots: 4, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
   ["GE-EPI, 2 shots, negative first line, asymmetric echo", { sequence: "epi", shots: 2, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px", readoutPolarity: "negative", partialFourier: { read: 0.8 } }],
   ["bSSFP, negative readout, 3 dummies", { sequence: "bssfp", te: "3 ms", tr: "6 ms", bandwidth: "600 Hz/px", readoutPolarity: "negative", dummyScans: 3 }],
-  ["3D GRE, partial Fourier in phase, odd partitions", { sequence: "gre3d", matrix: { partitions: 7 }, slice: { thickness: "3 mm" }, partialFourier: { phase: 0.7 } }],
+  ["3D GRE, partial Fourier in phase, odd slice-encoding steps", { sequence: "gre3d", matrix: { slice: 7 }, slice: { thickness: "3 mm" }, partialFourier: { phase: 0.7 } }],
 ];
 
 describe("block walk: k = 0 at the centre line's echo sample, at TE (direct sum over blocks)", () => {
@@ -85,11 +85,11 @@ describe("block walk: k = 0 at the centre line's echo sample, at TE (direct sum 
       const dkRead = 1 / (p.fov.read * p.oversampling.read);
       for (const e of centreRows) {
         const part = Math.floor(e.row / lines);
-        const nPart = seq.kspace.partitions;
+        const nPart = seq.kspace.slice;
         // read and phase: k = 0 at the echo sample, to 1e-6 of a k step
         expect(Math.abs(GAMMA_BAR * e.k[0]) / dkRead).toBeLessThan(1e-6);
         expect(Math.abs(GAMMA_BAR * e.k[1]) * p.fov.phase).toBeLessThan(1e-6);
-        // slice: rephased (2D), or the partition's own k for 3D
+        // slice: rephased (2D), or the slice-encoding step's own k for 3D
         const kPart = nPart > 1 ? (part - Math.floor(nPart / 2)) / (nPart * p.slice.thickness) : 0;
         expect(Math.abs(GAMMA_BAR * e.k[2] - kPart) * p.slice.thickness).toBeLessThan(1e-6);
         if (nPart === 1 || part === Math.floor(nPart / 2)) expect(e.time).toBeCloseTo(seq.timing.te, 9);

@@ -151,7 +151,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     acs: o.acs === undefined ? (kind === "full" ? 0 : Math.min(24, Math.floor(phaseLines / 4))) : int(o.acs, "--acs", 0, Number.MAX_SAFE_INTEGER),
     partialFourier: num(o.partialFourier, "--partial-fourier", 0, 1, "a fraction"),
   };
-  checkMaskOptions(mask, seq.image.partitions, seq.image.phase);
+  checkMaskOptions(mask, seq.image.slice, seq.image.phase);
   // coils
   const nCoils = int(o.coils, "--coils", 1, 256);
   const rows = int(o.coilRows, "--coil-rows", 1, 64);
@@ -223,12 +223,12 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed,
   }));
   const files: Record<string, string> = {
-    "kspace.npy": "complex64 [coil, partition, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
-    "mask.npy": "uint8 [partition, phase]: 1 where the whole readout line was sampled",
-    "sensitivities.npy": "complex64 [coil, partition, phase, read]: receive sensitivities S_c at the image pixel centres",
-    "truth.npy": "complex64 [2, partition, phase, read]: [0] noise-free image with one uniform coil (S = 1); [1] noise-free coil-combined image Σ_c conj(S_c)·I_c / Σ_c |S_c|² of the simulated coil images I_c",
+    "kspace.npy": "complex64 [coil, slice, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
+    "mask.npy": "uint8 [slice, phase]: 1 where the whole readout line was sampled",
+    "sensitivities.npy": "complex64 [coil, slice, phase, read]: receive sensitivities S_c at the image pixel centres",
+    "truth.npy": "complex64 [2, slice, phase, read]: [0] noise-free image with one uniform coil (S = 1); [1] noise-free coil-combined image Σ_c conj(S_c)·I_c / Σ_c |S_c|² of the simulated coil images I_c",
     "noise_covariance.npy": "complex64 [coil, coil]: covariance E[n·nᴴ] of the noise added to each k-space sample (σ²·Ψ; all zero when noise-free)",
-    "truth.nii": "NIfTI-1 float32 |truth[0]|, x = read, y = phase, z = partition, voxel sizes in mm, RAS+ affine",
+    "truth.nii": "NIfTI-1 float32 |truth[0]|, x = read, y = phase, z = slice-encoding step, voxel sizes in mm, RAS+ affine",
     "case.json": "this file",
   };
   if (plan.noiseLines > 0) files["noise.npy"] = "complex64 [coil, line, read]: noise-only samples from the same distribution as the k-space noise (a prescan)";
@@ -269,17 +269,17 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       inputs: { phantom: resolve(phantomFile), protocol: o.protocol, set: o.set },
       files,
       axes: {
-        order: "C order (last index fastest); dims [coil, partition, phase, read]",
+        order: "C order (last index fastest); dims [coil, slice, phase, read]",
         physical: { read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice, frame: "RAS+ (x toward the subject's right, y anterior, z superior)" },
         index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N",
-        imageGrid: { partitions: r.info.dims.partitions, phase: r.info.dims.phase, read: r.info.dims.read },
-        pixelM: { read: round(dx), phase: round(dy), partition: protocol.slice.thickness },
+        imageGrid: { slice: r.info.dims.slice, phase: r.info.dims.phase, read: r.info.dims.read },
+        pixelM: { read: round(dx), phase: round(dy), slice: protocol.slice.thickness },
         acquiredKspace: r.info.kspaceAcquired,
       },
       fftConvention: FFT_CONVENTION_TEXT,
       kspace: "kspace.npy holds the centred forward DFT (no 1/N; recon/fft.ts fft*c) of each simulated coil image on the image grid, so " +
         "numpy: coil_images = fftshift(ifftn(ifftshift(kspace, axes=(-3,-2,-1)), axes=(-3,-2,-1)), axes=(-3,-2,-1)) gives the coil images exactly, with no cropping; " +
-        "with one partition the partition axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
+        "with one slice-encoding step the slice axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
         `${r.info.kspaceAcquired.read} read points (read oversampling ${protocol.oversampling.read}); those were transformed to the image, the central ${r.info.dims.read} kept, and transformed back.`,
       imageScale: "a voxel full of tissue with PD 1, fully relaxed and tipped by 90°, is about 1 in truth[0]",
       coils: array.elements === 0

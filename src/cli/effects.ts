@@ -45,7 +45,7 @@ export function fatShiftReport(
   const margin = 3 + Math.ceil(predicted);
   // a shift beyond a quarter of the matrix lets the fat image wrap or land on other objects: not measured
   const tooFar = Math.abs(main.readout.px) > nRead / 4 || Math.abs(main.phase.px) > nPhase / 4;
-  const plane = mag.subarray(Math.floor(seq.image.partitions / 2) * nRead * nPhase, (Math.floor(seq.image.partitions / 2) + 1) * nRead * nPhase);
+  const plane = mag.subarray(Math.floor(seq.image.slice / 2) * nRead * nPhase, (Math.floor(seq.image.slice / 2) + 1) * nRead * nPhase);
   // a finer truth grid gives the measurement a band-limited template (see measureFatShift)
   const factor = Math.max(1, Math.min(4, Math.floor(1024 / Math.max(nRead, nPhase))));
   const fine = factor > 1

@@ -52,7 +52,7 @@ export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: numbe
 export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1): MemoryEstimate {
   const matrix = Math.max(seq.kspace.read, seq.kspace.phase);
   const n = estimateIsochromats(ph, geo, fieldT, iso, matrix);
-  const ks = coils * seq.kspace.partitions * seq.kspace.phase * seq.kspace.read * 16;
+  const ks = coils * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * 16;
   const isochromatBytes = n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
   const kspaceBytes = ks * (4 + 3 * workers + 4);
   const workerBytes = workers * WORKER_SCRATCH_BYTES;

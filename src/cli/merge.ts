@@ -42,8 +42,8 @@ export function mergeParts(paths: string[], out: string): MergeResult {
   if (at !== first.totalBlocks) {
     throw new UserError(`missing blocks ${at}–${first.totalBlocks - 1} of ${first.totalBlocks}: add the remaining shards (of ${first.shard[1]})`, parts[parts.length - 1]!.source, "blocks");
   }
-  const [, coils, partitions, phase, read] = first.shape as [number, number, number, number, number];
-  const size = coils * partitions * phase * read;
+  const [, coils, sliceSteps, phase, read] = first.shape as [number, number, number, number, number];
+  const size = coils * sliceSteps * phase * read;
   const re = new Float64Array(size), im = new Float64Array(size);
   for (const p of parts) {
     const nb = p.meta.blocks[1] - p.meta.blocks[0];
@@ -51,7 +51,7 @@ export function mergeParts(paths: string[], out: string): MergeResult {
   }
   const protocol = first.protocol;
   const seq = buildSequence(protocol);
-  const kspace: KSpace = { coils, rows: partitions * phase, read, re, im };
+  const kspace: KSpace = { coils, rows: sliceSteps * phase, read, re, im };
   const ctx: RunContext = {
     protocol, seqs: [seq],
     phantom: loadPhantom(first.inputs.phantom, protocol.field, { readArray: readRealNpy }),

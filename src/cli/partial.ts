@@ -1,6 +1,6 @@
 /**
  * Partial k-space of one shard: partial.npy holds the shard's block sums,
- * complex128 of shape [blocks, coil, partition, phase, read]; partial.json
+ * complex128 of shape [blocks, coil, slice, phase, read]; partial.json
  * names the shard, its blocks and chunks, the inputs, and a hash of the
  * normalised protocol, the phantom file's bytes, the isochromat options and
  * the engine's chunking, so that a merge only adds parts of one run.

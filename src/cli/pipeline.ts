@@ -89,10 +89,10 @@ export interface SliceRun {
  * vanishes only if c·m/n is not a whole number for the pathway orders m that
  * matter, so n ≥ 4c + 1 with refocusing pulses (echo-train pathways mix up to
  * ~4 crusher orders) and n ≥ 2c + 1 with non-ideal spoiling.
- * 3D: the through-slab grid covers M partitions (the N of the slab plus a
+ * 3D: the through-slab grid covers M slice-encoding steps (the N of the slab plus a
  * margin of ⌈N/8⌉ on each side for the slab profile's skirts, which then wrap
- * along partitions as on a scanner), at least `density` isochromats per
- * partition, weighted per partition thickness.
+ * along slice-encoding steps as on a scanner), at least `density` isochromats per
+ * slice-encoding step, weighted per slice-encoding step thickness.
  */
 export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
   const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
@@ -102,7 +102,7 @@ export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOp
   if (p.sequence !== "gre3d") {
     return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
   }
-  const n = p.matrix.partitions;
+  const n = p.matrix.slice;
   const m = n + 2 * Math.ceil(n / 8);
   const per = Math.max(iso.density, perThk);
   return { ...iso, sliceCount: m * per, sliceExtent: m };
@@ -258,7 +258,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   for (let k = 0; k < p.slices.length; k++) {
     const sl = p.slices[k]!;
     if (sl.iso.count === 0) {
-      kspaces.push({ coils: 1, rows: sl.seq.kspace.partitions * sl.seq.kspace.phase, read: sl.seq.kspace.read, re: new Float64Array(sl.seq.kspace.partitions * sl.seq.kspace.phase * sl.seq.kspace.read), im: new Float64Array(sl.seq.kspace.partitions * sl.seq.kspace.phase * sl.seq.kspace.read) });
+      kspaces.push({ coils: 1, rows: sl.seq.kspace.slice * sl.seq.kspace.phase, read: sl.seq.kspace.read, re: new Float64Array(sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read), im: new Float64Array(sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read) });
       continue;
     }
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
@@ -295,7 +295,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   });
   const files = writePartial(o.out, {
     shard: [i, n], blocks, totalBlocks: total, chunks: plan.chunks,
-    shape: [nb, kspace.coils, p.seq.kspace.partitions, p.seq.kspace.phase, p.seq.kspace.read],
+    shape: [nb, kspace.coils, p.seq.kspace.slice, p.seq.kspace.phase, p.seq.kspace.read],
     re: bre, im: bim,
     inputHash: inputHash(p.protocol, o),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
@@ -313,7 +313,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
   const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
   kspaces.forEach((k, idx) => {
     const s = ctx.seqs[idx]!;
-    const acq = { partitions: s.kspace.partitions, phase: s.kspace.phase, read: s.kspace.read, re: k.re, im: k.im };
+    const acq = { slice: s.kspace.slice, phase: s.kspace.phase, read: s.kspace.read, re: k.re, im: k.im };
     const grid = toGrid(acq, s.grid);
     kParts.push(grid);
     iParts.push(reconstructGrid(grid, s.grid, s.image));
@@ -325,7 +325,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       re.set(v.re, k * per);
       im.set(v.im, k * per);
     });
-    return { coils: 1, partitions: parts[0]!.partitions * parts.length, phase: parts[0]!.phase, read: parts[0]!.read, re, im };
+    return { coils: 1, slice: parts[0]!.slice * parts.length, phase: parts[0]!.phase, read: parts[0]!.read, re, im };
   };
   const kv = stack(kParts);
   const img = stack(iParts);
@@ -339,7 +339,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
   const thkMm = protocol.slice.thickness * 1e3;
   const spacingMm = threeD ? thkMm : ms.spacing * 1e3;
   const firstMm = threeD
-    ? (protocol.slice.position + (protocol.matrix.partitions % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.partitions / 2) * protocol.slice.thickness) * 1e3
+    ? (protocol.slice.position + (protocol.matrix.slice % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.slice / 2) * protocol.slice.thickness) * 1e3
     : ms.positions[0]! * 1e3;
   const report: Record<string, unknown> = {
     tool: { name: "isofold", version: version() },
@@ -363,9 +363,9 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       },
     },
     axes: {
-      kspace: ["coil", "partition", "phase", "read"],
-      image: ["coil", "partition", "phase", "read"],
-      index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the partition axis holds 3D partitions or the slices in spatial order",
+      kspace: ["coil", "slice", "phase", "read"],
+      image: ["coil", "slice", "phase", "read"],
+      index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
       kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
       png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
     },
@@ -375,7 +375,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       sliceExtent: isoOptionsFor(protocol, o.iso).sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
       t2primeSpread: ctx.isoSummary.spreads,
       note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
-        (threeD ? "; 3D: through-slab grid of `density` isochromats per partition over the slab plus ⌈N/8⌉ partitions each side" : ""),
+        (threeD ? "; 3D: through-slab grid of `density` isochromats per slice-encoding step over the slab plus ⌈N/8⌉ slice-encoding steps each side" : ""),
     },
     engine: {
       ...ctx.engine,
@@ -384,7 +384,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
     measurements: { imageMax: max },
     fatShift: null as unknown,
     timingSeconds: seconds,
-    warnings: [...ctx.isoSummary.warnings],
+    warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
   };
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;

@@ -25,7 +25,7 @@ import { Rng, STREAM } from "./prng.js";
 import { simulateCoils } from "./simulate.js";
 
 export interface Dims {
-  partitions: number;
+  slice: number;
   phase: number;
   read: number;
 }
@@ -33,11 +33,11 @@ export interface Dims {
 /**
  * Coil images on the image grid: per coil the sequence's own reconstruction
  * (acquired rows onto the full k-space grid — reversed rows turned round —
- * then the centred inverse DFT over phase and read, and partitions for 3D,
+ * then the centred inverse DFT over phase and read, and slice-encoding steps for 3D,
  * and the central image matrix kept), as for a simulate run.
  */
 export function toImageGrid(re: Float64Array, im: Float64Array, coils: number, k: Dims, img: Dims, grid: KGrid): { re: Float64Array; im: Float64Array } {
-  const kn = k.partitions * k.phase * k.read, n = img.partitions * img.phase * img.read;
+  const kn = k.slice * k.phase * k.read, n = img.slice * img.phase * img.read;
   const out = { re: new Float64Array(coils * n), im: new Float64Array(coils * n) };
   for (let c = 0; c < coils; c++) {
     const acq = { ...k, re: re.subarray(c * kn, (c + 1) * kn), im: im.subarray(c * kn, (c + 1) * kn) };
@@ -50,24 +50,24 @@ export function toImageGrid(re: Float64Array, im: Float64Array, coils: number, k
 
 /** Centred forward DFT of each coil's image (in place), the adjoint of the reconstruction without 1/N. */
 export function toKspace(re: Float64Array, im: Float64Array, coils: number, d: Dims): void {
-  const n = d.partitions * d.phase * d.read;
+  const n = d.slice * d.phase * d.read;
   for (let c = 0; c < coils; c++) {
     const r = re.subarray(c * n, (c + 1) * n), i = im.subarray(c * n, (c + 1) * n);
-    if (d.partitions > 1) fft3c(r, i, d.partitions, d.phase, d.read);
+    if (d.slice > 1) fft3c(r, i, d.slice, d.phase, d.read);
     else fft2c(r, i, d.phase, d.read);
   }
 }
 
 /**
  * Physical position (m) of every image pixel centre: index n along an axis
- * of N points sits at (n − floor(N/2))·Δ; the partition axis at
+ * of N points sits at (n − floor(N/2))·Δ; the slice axis at
  * slice position + (p − floor(P/2))·thickness.
  */
 export function pixelCentres(axes: Axes, d: Dims, dx: number, dy: number, dz: number, position: number): { x: Float64Array; y: Float64Array; z: Float64Array } {
-  const n = d.partitions * d.phase * d.read;
+  const n = d.slice * d.phase * d.read;
   const x = new Float64Array(n), y = new Float64Array(n), z = new Float64Array(n);
-  for (let p = 0; p < d.partitions; p++) {
-    const w = position + (p - Math.floor(d.partitions / 2)) * dz;
+  for (let p = 0; p < d.slice; p++) {
+    const w = position + (p - Math.floor(d.slice / 2)) * dz;
     for (let j = 0; j < d.phase; j++) {
       const v = (j - Math.floor(d.phase / 2)) * dy;
       for (let i = 0; i < d.read; i++) {
@@ -130,7 +130,7 @@ export async function buildCase(
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
   const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress);
-  const n = img.partitions * img.phase * img.read;
+  const n = img.slice * img.phase * img.read;
   const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)
   const truth = { re: new Float64Array(2 * n), im: new Float64Array(2 * n) };
@@ -160,9 +160,9 @@ export async function buildCase(
   const { sigma, meanSignal, objectPixels } = s.snr === null ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr);
   const L = cholesky(s.psi, "--noise-covariance");
   if (sigma > 0) addNoise(coilRe, coilIm, C, n, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noise));
-  const mask = makeMask(img.partitions, img.phase, s.mask, Rng.stream(s.seed, caseIndex, STREAM.mask));
+  const mask = makeMask(img.slice, img.phase, s.mask, Rng.stream(s.seed, caseIndex, STREAM.mask));
   for (let c = 0; c < C; c++) {
-    for (let p = 0; p < img.partitions; p++) {
+    for (let p = 0; p < img.slice; p++) {
       for (let y = 0; y < img.phase; y++) {
         if (mask.data[p * img.phase + y]) continue;
         const o = c * n + (p * img.phase + y) * img.read;
@@ -171,17 +171,17 @@ export async function buildCase(
       }
     }
   }
-  const shape = [C, img.partitions, img.phase, img.read];
+  const shape = [C, img.slice, img.phase, img.read];
   const files = new Map<string, Uint8Array | string>();
   files.set("kspace.npy", encodeNpy({ dtype: "complex64", shape, data: { re: coilRe, im: coilIm } }));
-  files.set("mask.npy", encodeNpy({ dtype: "uint8", shape: [img.partitions, img.phase], data: mask.data }));
+  files.set("mask.npy", encodeNpy({ dtype: "uint8", shape: [img.slice, img.phase], data: mask.data }));
   const sr = new Float64Array(C * n), si = new Float64Array(C * n);
   for (let i = 0; i < C * n; i++) {
     sr[i] = sens[2 * i]!;
     si[i] = sens[2 * i + 1]!;
   }
   files.set("sensitivities.npy", encodeNpy({ dtype: "complex64", shape, data: { re: sr, im: si } }));
-  files.set("truth.npy", encodeNpy({ dtype: "complex64", shape: [2, img.partitions, img.phase, img.read], data: truth }));
+  files.set("truth.npy", encodeNpy({ dtype: "complex64", shape: [2, img.slice, img.phase, img.read], data: truth }));
   const cov = { re: new Float64Array(C * C), im: new Float64Array(C * C) };
   for (let i = 0; i < C * C; i++) {
     cov.re[i] = sigma * sigma * s.psi.re[i]!;
@@ -197,7 +197,7 @@ export async function buildCase(
   const mag = new Float32Array(n);
   for (let i = 0; i < n; i++) mag[i] = Math.hypot(truth.re[i]!, truth.im[i]!);
   files.set("truth.nii", encodeNifti1({
-    data: mag, dims: [img.read, img.phase, img.partitions], voxelMm: geo.voxelMm, affine: geo.affine,
+    data: mag, dims: [img.read, img.phase, img.slice], voxelMm: geo.voxelMm, affine: geo.affine,
     description: "isofold dataset truth: |uniform-coil image|",
   }));
   return { files, info: { coils: C, dims: img, sigma, meanSignal, objectPixels, mask, kspaceAcquired: kd } };

@@ -1,27 +1,27 @@
 /**
- * Cartesian sampling masks over the phase-encoding plane [partitions, phase]:
- * 1 = the whole readout line at (partition, phase line) is sampled. Index
+ * Cartesian sampling masks over the phase-encoding plane [slice-encoding steps, phase]:
+ * 1 = the whole readout line at (slice-encoding step, phase line) is sampled. Index
  * c = floor(N/2) is k = 0 along each axis (recon/fft.ts convention).
  *
  * - full: every line.
  * - uniform: phase line y is sampled when (y − c) is a multiple of R (so
  *   k = 0 is always sampled), plus the fully sampled centre (ACS) on every
- *   partition.
+ *   slice-encoding step.
  * - random (variable density): outside the centre, line y is sampled
  *   independently with probability p(y) = min(1, λ·(1 − d)²),
  *   d = |y − c|/(N/2) ∈ [0, 1]; λ is found by bisection so that the expected
- *   number of lines (centre included, p = 1 there) is N/R. Partitions draw
+ *   number of lines (centre included, p = 1 there) is N/R. Slice-encoding steps draw
  *   independently from the same density (polynomial variable density in the
  *   spirit of M. Lustig, D. Donoho, J. M. Pauly, "Sparse MRI", Magn. Reson.
  *   Med. 58 (2007) 1182–1195).
  * - poisson: Poisson-disc sampling over both phase directions: points are
  *   taken in a seeded random order and kept if no kept point lies closer than
- *   r (in grid steps; Euclidean over (partition, phase)); every point is
+ *   r (in grid steps; Euclidean over (slice-encoding step, phase)); every point is
  *   tried, so the pattern is maximal (dart throwing, R. L. Cook, "Stochastic
  *   sampling in computer graphics", ACM Trans. Graph. 5 (1986) 51–72). The
- *   centre block (ACS lines × min(ACS, partitions) partitions) is taken first
+ *   centre block (ACS lines × min(ACS, slice-encoding steps) slice-encoding steps) is taken first
  *   and fully. r is found by bisection so that the count is nearest N·P/R.
- *   With one partition it is a Poisson-disc pattern over the phase lines.
+ *   With one slice-encoding step it is a Poisson-disc pattern over the phase lines.
  * - partial Fourier F ∈ (0.5, 1] (any mask): phase lines y < N − round(F·N)
  *   (the first, negative-k lines) are removed.
  */
@@ -42,9 +42,9 @@ export interface MaskOptions {
 }
 
 export interface Mask {
-  partitions: number;
+  slice: number;
   phase: number;
-  /** uint8 [partitions][phase]. */
+  /** uint8 [slice-encoding steps][phase]. */
   data: Uint8Array;
   /** Per phase line sampling probability (random mask only). */
   density: Float64Array | null;
@@ -56,9 +56,9 @@ export interface Mask {
 }
 
 /** Checks mask options against the grid; UserErrors name the option. */
-export function checkMaskOptions(o: MaskOptions, partitions: number, phase: number): void {
+export function checkMaskOptions(o: MaskOptions, sliceSteps: number, phase: number): void {
   if (!MASK_KINDS.includes(o.kind)) throw new UserError(`unknown mask "${o.kind}"; use one of ${MASK_KINDS.join(", ")}`, undefined, "--mask");
-  const lines = o.kind === "poisson" ? partitions * phase : phase;
+  const lines = o.kind === "poisson" ? sliceSteps * phase : phase;
   if (!(o.accel >= 1) || !Number.isFinite(o.accel)) throw new UserError(`acceleration must be a number ≥ 1, got ${o.accel}`, undefined, "--accel");
   if (o.kind === "full" && o.accel !== 1) throw new UserError(`acceleration ${o.accel} needs an undersampling mask; add --mask uniform, random or poisson`, undefined, "--accel");
   if (o.accel > lines) throw new UserError(`acceleration ${o.accel} is larger than the ${lines} ${o.kind === "poisson" ? "phase-encoding points" : "phase lines"} of the matrix; use at most ${lines}`, undefined, "--accel");
@@ -102,14 +102,14 @@ export function randomDensity(n: number, accel: number, acs: number): Float64Arr
 }
 
 /** Builds the mask; the rng is used by random and poisson only. */
-export function makeMask(partitions: number, phase: number, o: MaskOptions, rng: Rng): Mask {
-  const data = new Uint8Array(partitions * phase);
+export function makeMask(sliceSteps: number, phase: number, o: MaskOptions, rng: Rng): Mask {
+  const data = new Uint8Array(sliceSteps * phase);
   const c = Math.floor(phase / 2), a0 = acsStart(phase, o.acs);
   let density: Float64Array | null = null;
   let radius: number | null = null;
   if (o.kind === "full") data.fill(1);
   else if (o.kind === "uniform") {
-    for (let p = 0; p < partitions; p++) {
+    for (let p = 0; p < sliceSteps; p++) {
       for (let y = 0; y < phase; y++) {
         const onGrid = (((y - c) % o.accel) + o.accel) % o.accel === 0;
         data[p * phase + y] = onGrid || (y >= a0 && y < a0 + o.acs) ? 1 : 0;
@@ -117,19 +117,19 @@ export function makeMask(partitions: number, phase: number, o: MaskOptions, rng:
     }
   } else if (o.kind === "random") {
     density = randomDensity(phase, o.accel, o.acs);
-    for (let p = 0; p < partitions; p++) {
+    for (let p = 0; p < sliceSteps; p++) {
       for (let y = 0; y < phase; y++) data[p * phase + y] = rng.uniform() < density[y]! ? 1 : 0;
     }
   } else {
-    radius = poissonDisc(data, partitions, phase, o, rng);
+    radius = poissonDisc(data, sliceSteps, phase, o, rng);
   }
   if (o.partialFourier < 1) {
     const first = phase - Math.round(o.partialFourier * phase);
-    for (let p = 0; p < partitions; p++) for (let y = 0; y < first; y++) data[p * phase + y] = 0;
+    for (let p = 0; p < sliceSteps; p++) for (let y = 0; y < first; y++) data[p * phase + y] = 0;
   }
   let count = 0;
   for (const v of data) count += v;
-  return { partitions, phase, data, density, radius, sampled: count / data.length, acceleration: count > 0 ? data.length / count : Infinity };
+  return { slice: sliceSteps, phase, data, density, radius, sampled: count / data.length, acceleration: count > 0 ? data.length / count : Infinity };
 }
 
 /** Fills `data` with the Poisson-disc pattern of file header; returns r. */

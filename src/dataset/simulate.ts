@@ -48,7 +48,7 @@ export async function simulateCoils(
       c0 = c;
     }
   }
-  const rows = seq.kspace.partitions * seq.kspace.phase, read = seq.kspace.read;
+  const rows = seq.kspace.slice * seq.kspace.phase, read = seq.kspace.read;
   const re = new Float64Array(C * rows * read), im = new Float64Array(C * rows * read);
   for (let k = 0; k < blocks.length; k++) {
     const [a, b] = blocks[k]!;

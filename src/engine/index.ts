@@ -1,6 +1,6 @@
 /**
  * The engine stage: Bloch propagation of an isochromat set through a
- * sequence, chunk by chunk, into k-space [partitions·phase rows][read].
+ * sequence, chunk by chunk, into k-space [slice-encoding step·phase rows][read].
  * Chunk results are summed in chunk order, so the result is bitwise the
  * same however the chunks are shared among threads.
  */
@@ -20,7 +20,7 @@ export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilte
 export * from "./kernels.js";
 
 export interface KSpace {
-  /** Layout [coil][row][read]; rows = partitions × phase lines. */
+  /** Layout [coil][row][read]; rows = slice-encoding steps × phase lines. */
   coils: number;
   rows: number;
   read: number;

@@ -266,7 +266,7 @@ export function planLayout(
   chunkStart.set(starts);
   return {
     ops, tab, durations, rfClass, classes, rfMaps, chunkStart, chunks: starts.length - 1,
-    rows: seq.kspace.partitions * seq.kspace.phase, read: seq.kspace.read,
+    rows: seq.kspace.slice * seq.kspace.phase, read: seq.kspace.read,
     receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
     spoiledFast: !(opts.general ?? false) && spoiledUnits(ops),
   };

@@ -10,7 +10,7 @@ import { encodeGrayPng, logMagnitude } from "./png.js";
 
 export interface Volume {
   coils: number;
-  partitions: number;
+  slice: number;
   phase: number;
   read: number;
   re: Float64Array;
@@ -20,7 +20,7 @@ export interface Volume {
 export interface RunFolderInput {
   kspace: Volume;
   image: Volume;
-  /** 3×4 affine (mm) from voxel (read, phase, partition) index to RAS+ position. */
+  /** 3×4 affine (mm) from voxel (read, phase, slice-encoding step) index to RAS+ position. */
   affine: number[][];
   voxelMm: [number, number, number];
   report: Record<string, unknown>;
@@ -29,13 +29,13 @@ export interface RunFolderInput {
 }
 
 function shape(v: Volume): number[] {
-  return [v.coils, v.partitions, v.phase, v.read];
+  return [v.coils, v.slice, v.phase, v.read];
 }
 
-/** Magnitude of the first coil's central partition, row-major [phase][read]. */
+/** Magnitude of the first coil's central slice-encoding step, row-major [phase][read]. */
 function centralPlaneMagnitude(v: Volume, log: boolean): Float64Array {
   const plane = v.phase * v.read;
-  const p = Math.floor(v.partitions / 2);
+  const p = Math.floor(v.slice / 2);
   const re = v.re.subarray(p * plane, (p + 1) * plane);
   const im = v.im.subarray(p * plane, (p + 1) * plane);
   if (log) return logMagnitude(re, im);
@@ -54,12 +54,12 @@ export function writeRunFolder(dir: string, r: RunFolderInput): string[] {
     const png = encodeGrayPng(mag, r.image.read, r.image.phase);
     stage.add("image.png", png.png);
     stage.add("kspace.png", encodeGrayPng(centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase, { percentile: 100 }).png);
-    // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = partition
-    const n = r.image.partitions * r.image.phase * r.image.read;
+    // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
+    const n = r.image.slice * r.image.phase * r.image.read;
     const data = new Float32Array(n);
     for (let i = 0; i < n; i++) data[i] = Math.hypot(r.image.re[i]!, r.image.im[i]!);
     stage.add("image.nii", encodeNifti1({
-      data, dims: [r.image.read, r.image.phase, r.image.partitions], voxelMm: r.voxelMm, affine: r.affine,
+      data, dims: [r.image.read, r.image.phase, r.image.slice], voxelMm: r.voxelMm, affine: r.affine,
       description: "isofold simulated magnitude image",
     }));
     for (const [name, bytes] of r.extra ?? []) stage.add(name, bytes);

@@ -236,6 +236,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const root: Origin = { file, path: "" };
   const at = (p: string) => ({ file, path: p });
   checkKeys(obj, TOP_KEYS, root);
+  const warnings: string[] = [];
 
   const sequence = oneOf<SequenceKind>(obj["sequence"], Object.keys(SEQUENCES) as SequenceKind[], at("sequence"));
   const field = positive(obj["field"], "field", at("field"));
@@ -244,12 +245,17 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const fovRead = positive(fovO["read"], "length", at("fov.read"));
   const fovPhase = fovO["phase"] === undefined ? fovRead : positive(fovO["phase"], "length", at("fov.phase"));
   const matO = sub(obj, "matrix", root)!;
-  checkKeys(matO, ["read", "phase", "partitions"], at("matrix"));
+  checkKeys(matO, ["read", "phase", "slice", "partitions"], at("matrix"));
   const nRead = plainNumber(matO["read"], at("matrix.read"), { min: 1, max: 4096, integer: true });
   const nPhase = matO["phase"] === undefined ? nRead : plainNumber(matO["phase"], at("matrix.phase"), { min: 1, max: 4096, integer: true });
-  const nPart = matO["partitions"] === undefined ? 1 : plainNumber(matO["partitions"], at("matrix.partitions"), { min: 1, max: 1024, integer: true });
-  if (sequence === "gre3d" && nPart < 2) throw userError(at("matrix.partitions"), `a 3D sequence needs at least 2 partitions, got ${nPart}; e.g. "partitions": 16`);
-  if (sequence !== "gre3d" && nPart !== 1) throw userError(at("matrix.partitions"), `only the 3D sequence (gre3d) encodes partitions; remove it or use "sequence": "gre3d"`);
+  // "partitions" is the old name of matrix.slice (the count of slice-encoding steps of a 3D
+  // slab); accepted for this release with a deprecation warning.
+  if (matO["partitions"] !== undefined && matO["slice"] !== undefined) throw userError(at("matrix.partitions"), `give the slice-encoding steps once, as matrix.slice; "partitions" is its old name`);
+  const sliceKey = matO["partitions"] !== undefined ? "partitions" : "slice";
+  if (sliceKey === "partitions") warnings.push(`matrix.partitions is deprecated and will be removed in the next release; write "matrix": { "slice": ${String(matO["partitions"])} } (the number of slice-encoding steps)`);
+  const nSlice = matO[sliceKey] === undefined ? 1 : plainNumber(matO[sliceKey], at(`matrix.${sliceKey}`), { min: 1, max: 1024, integer: true });
+  if (sequence === "gre3d" && nSlice < 2) throw userError(at(`matrix.${sliceKey}`), `a 3D sequence needs at least 2 slice-encoding steps, got ${nSlice}; e.g. "matrix": { "slice": 16 }`);
+  if (sequence !== "gre3d" && nSlice !== 1) throw userError(at(`matrix.${sliceKey}`), `only the 3D sequence (gre3d) encodes along the slice; remove matrix.${sliceKey} or use "sequence": "gre3d"`);
 
   const slO = sub(obj, "slice", root)!;
   checkKeys(slO, ["thickness", "position", "orientation", "angle", "tiltAxis"], at("slice"));
@@ -264,7 +270,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const sliceCount = msO["count"] === undefined ? 1 : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
   const sliceGap = msO["gap"] === undefined ? 0 : nonNegative(msO["gap"], "length", at("slices.gap"));
   const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), "interleaved");
-  if (sequence === "gre3d" && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.partitions instead of several slices`);
+  if (sequence === "gre3d" && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
   const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
   const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
   const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
@@ -318,7 +324,8 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   return {
     sequence, field,
     fov: { read: fovRead, phase: fovPhase },
-    matrix: { read: nRead, phase: nPhase, partitions: nPart },
+    matrix: { read: nRead, phase: nPhase, slice: nSlice },
+    warnings,
     slice: { thickness, position, orientation, angle, tiltAxis },
     slices: { count: sliceCount, gap: sliceGap, order: sliceOrder },
     phaseDirection, readoutPolarity: polarity === "positive" ? 1 : -1, pixelBandwidth,

@@ -30,10 +30,12 @@ export interface Protocol {
   field: number;
   /** Field of view along the logical read and phase axes (m). */
   fov: { read: number; phase: number };
-  /** Reconstructed matrix (pixels); partitions > 1 only for 3D sequences. */
-  matrix: { read: number; phase: number; partitions: number };
+  /** Reconstructed matrix (pixels); slice > 1 (slice-encoding steps) only for 3D sequences. */
+  matrix: { read: number; phase: number; slice: number };
+  /** Warnings raised while reading the protocol (deprecated keys, …); reported with the run. */
+  warnings: string[];
   slice: {
-    /** Slice thickness (m); for 3D the partition thickness (the slab is partitions × thickness). */
+    /** Slice thickness (m); for 3D the slice-encoding step thickness (the slab is slice-encoding steps × thickness). */
     thickness: number;
     /** Slice (or slab) centre along the slice normal (m). */
     position: number;

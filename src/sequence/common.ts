@@ -252,20 +252,20 @@ export function requireAtLeast(key: string, value: number, minimum: number, why 
 }
 
 /**
- * Relative SNR ∝ voxel volume · √(N_avg · N_lines · N_partitions · T_adc)
+ * Relative SNR ∝ voxel volume · √(N_avg · N_lines · N_slice-encoding · T_adc)
  * (Edelstein et al. 1986, MRM 3:604; with T_adc = N_read/BW per line), with
  * the counts actually acquired. Reference: 1 × 1 × 5 mm voxel, 256 lines of
  * 4 ms (256 samples at 250 Hz/px), one average, 2D.
  */
-export function relativeSnr(voxel: number, averages: number, lines: number, partitions: number, tAdc: number): number {
+export function relativeSnr(voxel: number, averages: number, lines: number, sliceSteps: number, tAdc: number): number {
   const ref = 1e-3 * 1e-3 * 5e-3 * Math.sqrt(256 * 4e-3);
-  return (voxel * Math.sqrt(averages * lines * partitions * tAdc)) / ref;
+  return (voxel * Math.sqrt(averages * lines * sliceSteps * tAdc)) / ref;
 }
 export const SNR_REFERENCE = "2D, 1×1×5 mm voxel, 256 phase lines, 256 read samples at 250 Hz/px (4 ms per line), 1 average";
 
 /** Derived quantities every Cartesian sequence reports. */
 export function commonDerived(
-  p: Protocol, ro: ReadoutPlan, pe: PhasePlan, exc: SliceSelect, demand: Demand, partitions = 1,
+  p: Protocol, ro: ReadoutPlan, pe: PhasePlan, exc: SliceSelect, demand: Demand, sliceSteps = 1,
 ): Record<string, Derived> {
   const dkRead = 1 / p.fov.read;
   const dkPhase = 1 / p.fov.phase;
@@ -298,7 +298,7 @@ export function commonDerived(
       note: `largest area ${(maxPhaseArea(pe) * 1e6).toFixed(3)} mT·ms/m`,
     },
     sliceGradient: { value: exc.pulse.gradient, unit: "T/m" },
-    rfBandwidth: { value: exc.pulse.gradient * GAMMA_BAR * (partitions > 1 ? partitions * p.slice.thickness : p.slice.thickness), unit: "Hz" },
+    rfBandwidth: { value: exc.pulse.gradient * GAMMA_BAR * (sliceSteps > 1 ? sliceSteps * p.slice.thickness : p.slice.thickness), unit: "Hz" },
     fatShiftSlice: {
       value: exc.pulse.gradient > 0 ? fatHz / (GAMMA_BAR * exc.pulse.gradient) : 0,
       unit: "m",
@@ -306,7 +306,7 @@ export function commonDerived(
     },
     voxelVolume: { value: voxel, unit: "m^3" },
     relativeSnr: {
-      value: relativeSnr(voxel, p.averages, pe.acquired, partitions, ro.flat),
+      value: relativeSnr(voxel, p.averages, pe.acquired, sliceSteps, ro.flat),
       unit: "",
       note: `∝ voxel·√(N_avg·N_lines·N_part·T_adc) (Edelstein et al. 1986), relative to ${SNR_REFERENCE}`,
     },

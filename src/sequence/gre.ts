@@ -1,17 +1,17 @@
 /**
  * Spoiled gradient echo, Cartesian, 2D or 3D. One TR:
  *   slice- (slab-) select ramp, excitation, ramp | delay | slice rephaser +
- *   partition encode + phase encode + read prephaser (concurrent) | readout |
- *   phase and partition rewinders + slice spoiler | delay to TR | ideal spoil (if chosen).
+ *   slice-encoding step encode + phase encode + read prephaser (concurrent) | readout |
+ *   phase and slice-encoding step rewinders + slice spoiler | delay to TR | ideal spoil (if chosen).
  * TE runs from the excitation's centre to the k = 0 sample; TR from one
  * excitation centre to the next.
  *
- * 3D: the slab is partitions × slice.thickness; partition encoding steps
+ * 3D: the slab is slice-encoding steps × slice.thickness; slice-encoding step encoding steps
  * ΔA = 1/(γ̄·slab) (FOV = 1/Δk, Bernstein et al. 2004 ch. 11); row =
- * partition·phaseLines + line, partitions in the outer loop. The receiver
- * phase −2π·k_p·w_c references partition ⌊N/2⌋ to w_c, the centre of that
- * partition when the N partitions tile the slab [position ± slab/2], so the
- * centred FFT puts partition n at w_c + (n − ⌊N/2⌋)·thickness.
+ * slice-encoding step·phaseLines + line, slice-encoding steps in the outer loop. The receiver
+ * phase −2π·k_p·w_c references slice-encoding step ⌊N/2⌋ to w_c, the centre of that
+ * slice-encoding step when the N slice-encoding steps tile the slab [position ± slab/2], so the
+ * centred FFT puts slice-encoding step n at w_c + (n − ⌊N/2⌋)·thickness.
  */
 import type { Protocol } from "../protocol/types.js";
 import { GAMMA_BAR } from "../constants.js";
@@ -27,7 +27,7 @@ export function buildGre(p: Protocol): Sequence {
   const ro = readoutPlan(p);
   demand.add(0, ro.gradient, ro.ramp);
   const pe = phasePlan(p);
-  const nPart = threeD ? p.matrix.partitions : 1;
+  const nPart = threeD ? p.matrix.slice : 1;
   const slab = nPart * p.slice.thickness;
   const exc = sliceSelect(p, 0, "excitation", p.excitation, p.flip, slab, p.slice.position, demand);
   const partStep = threeD ? 1 / (GAMMA_BAR * slab) : 0;
@@ -77,18 +77,18 @@ export function buildGre(p: Protocol): Sequence {
   derived["prephaserReadAmplitude"] = { value: prep.trap[0]!.amplitude, unit: "T/m" };
   derived["prephaserReadRamp"] = { value: prep.trap[0]!.ramp, unit: "s" };
   if (threeD) {
-    derived["slabThickness"] = { value: slab, unit: "m", note: "partitions × slice.thickness" };
-    derived["deltaKPartition"] = { value: 1 / slab, unit: "1/m", note: "Δk = 1/slab" };
-    derived["kMaxPartition"] = { value: nPart / slab / 2, unit: "1/m" };
-    derived["partitionStepArea"] = { value: partStep, unit: "T·s/m", note: "ΔA = 1/(γ̄·slab)" };
+    derived["slabThickness"] = { value: slab, unit: "m", note: "slice-encoding steps × slice.thickness" };
+    derived["deltaKSliceEncoding"] = { value: 1 / slab, unit: "1/m", note: "Δk = 1/slab" };
+    derived["kMaxSliceEncoding"] = { value: nPart / slab / 2, unit: "1/m" };
+    derived["sliceEncodingStepArea"] = { value: partStep, unit: "T·s/m", note: "ΔA = 1/(γ̄·slab)" };
   }
   derived["scanTime"] = { value: scanTime, unit: "s", note: `(${p.dummyScans} dummy + ${nPart * perPart} acquired TRs) × TR` };
   return {
     name: threeD ? "3D spoiled gradient echo" : "2D spoiled gradient echo",
     pulses: [exc.pulse],
     blocks,
-    kspace: { partitions: nPart, phase: pe.lines, read: ro.samples },
-    image: { partitions: nPart, phase: p.matrix.phase, read: p.matrix.read },
+    kspace: { slice: nPart, phase: pe.lines, read: ro.samples },
+    image: { slice: nPart, phase: p.matrix.phase, read: p.matrix.read },
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin, te: p.te, tr: p.tr, scanTime },
     derived,

@@ -54,7 +54,7 @@ export interface Derived {
 
 /**
  * How the acquired k-space maps onto the full Cartesian grid the recon
- * transforms. Rows are partitions × phase lines of the full grid (lines a
+ * transforms. Rows are slice-encoding steps × phase lines of the full grid (lines a
  * partial-Fourier scan skips stay zero). Acquired sample j of row r goes to
  * column offset + j, or offset + (samples − 1 − j) when reversed[r] = 1 (the
  * row was read under a negative readout gradient, so its samples run from
@@ -70,7 +70,7 @@ export interface KGrid {
   partialFourier: { phase: number; read: number; method: "zero-fill" | "homodyne" };
   /** First acquired phase line (lines below it are zero). */
   phaseFirst: number;
-  /** Transform along partitions (3D) or treat them as separate slices. */
+  /** Transform along slice-encoding steps (3D) or treat them as separate slices. */
   threeD: boolean;
 }
 
@@ -78,10 +78,10 @@ export interface Sequence {
   name: string;
   pulses: RFWaveform[];
   blocks: Block[];
-  /** Acquired k-space grid: rows = partitions × phase lines, each `read` samples. */
-  kspace: { partitions: number; phase: number; read: number };
+  /** Acquired k-space grid: rows = slice-encoding steps × phase lines, each `read` samples. */
+  kspace: { slice: number; phase: number; read: number };
   /** Reconstructed matrix after oversampling removal. */
-  image: { partitions: number; phase: number; read: number };
+  image: { slice: number; phase: number; read: number };
   /** Index of the read sample at k = 0 and of the phase line at k = 0. */
   centre: { read: number; phase: number };
   /** Minimum TE and TR the waveforms allow (s), and the TE/TR played. */
@@ -90,7 +90,7 @@ export interface Sequence {
   derived: Record<string, Derived>;
   /** Acquired → full-grid map for the recon. */
   grid: KGrid;
-  /** Phase-encode table: line index and phase-encode area (T·s/m) in acquisition order (first partition for 3D). */
+  /** Phase-encode table: line index and phase-encode area (T·s/m) in acquisition order (first slice-encoding step for 3D). */
   phaseTable: { line: number; area: number }[];
   /** Time of one TR's active part (s), for multi-slice packing: excitation to the end of the last gradient. */
   activeTime: number;
