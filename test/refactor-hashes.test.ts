@@ -1,0 +1,70 @@
+/**
+ * Refactor guard: sha256 of kspace.npy for the demo protocol and for every
+ * bundled preset on the bundled two-bottle phantom at a small size, through
+ * the command line's run() (one worker). A refactor must leave these bytes
+ * alone.
+ *
+ * KSPACE_SHA256 below is the one place these hashes live. They were recorded
+ * by the code as it stood before the library-API refactor (issue 10). A
+ * physics correction that changes k-space legitimately updates the table, with
+ * a line in the commit message saying which presets changed and why.
+ */
+import { createHash } from "node:crypto";
+import { readdirSync, readFileSync } from "node:fs";
+import { join, resolve } from "node:path";
+import { describe, expect, it } from "vitest";
+import { run, defaultIsochromatOptions } from "../src/cli/pipeline.js";
+import { tempDir } from "./helpers.js";
+
+const ROOT = resolve(import.meta.dirname, "..");
+const PHANTOM = join(ROOT, "phantoms", "two-bottle.json");
+
+/** Small size for every case: 32×32 in-plane, 8 slice-encoding steps in 3D, 3 slices for multi-slice. */
+const SMALL: Record<string, string[]> = {
+  "gre3d-t1-1.5t": ["matrix.slice=8"],
+  "se-t1-multislice-1.5t": ["slices.count=3"],
+};
+
+export const KSPACE_SHA256: Record<string, string> = {
+  // recorded 2026-12-02 on main at 2e373f8, before the refactor of issue 10
+  "bssfp-1.5t": "6878c1ac8d898f2d63aa2b62f109ab7d59e2f821a90013ec8ea1da9ed7f08875",
+  "epi-1.5t": "6a49abb8f915a4d742eec08b51a580e2688bdb6d6f2785fddb170815663a8604",
+  "epi-4shot-3t": "7b2e3d79f5c4aea9d8615de61cc7d5511f6ea1b402cdd0650b9e3cdb76d34816",
+  "epi-se-1.5t": "e3325f3dc097d075c2816aeb2d5b71915fdd6228378c1f5d4bad3786eed23900",
+  "gre-demo-1.5t": "ce9cc826adc16f9b355896056298be32a9bdf22b2a7191ad2b48325201895eb2",
+  "gre-t1-3t": "199fb28f5f3dae928fe4de32d88f26ea015f3d5f85075469f92cb59f87f3635c",
+  "gre3d-t1-1.5t": "26148794a9b7f3071430c446889718fbf73350ff22345c05cb874731554b2a9a",
+  "rare-t2-1.5t": "5102c119cf2169b02e32be7f37d29e6f8d653e0f10ce9f4d0e3c7cf47ad47e78",
+  "se-t1-multislice-1.5t": "25c59eaf2a589fdebbb40655f7aaa96e24010f831a28f3ffdda27a7c5e468ca5",
+  "se-t2-1.5t": "e2505600ceb03d625343bf9ce0c0cd6d0c6000953d07cc4c07280833b39acd81",
+  demo: "092888f3fbd9d36f4a153f7f3fb1141804ac2ee728c8ce9389beddfedb8eeedf",
+};
+
+const presets = readdirSync(join(ROOT, "src", "protocol", "presets")).filter((f) => f.endsWith(".json")).map((f) => f.replace(/\.json$/, "")).sort();
+
+const SMALL_ISO = { ...defaultIsochromatOptions(), density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 1 };
+
+async function kspaceHash(protocol: string, sets: string[], iso = SMALL_ISO): Promise<string> {
+  const out = join(tempDir(), "run");
+  await run({ phantom: PHANTOM, protocol, sets, out, seed: 1, quiet: true, workers: 1, iso });
+  return createHash("sha256").update(readFileSync(join(out, "kspace.npy"))).digest("hex");
+}
+
+describe("kspace.npy bytes are unchanged by refactoring", () => {
+  it("covers every bundled preset", () => {
+    expect(Object.keys(KSPACE_SHA256).filter((k) => k !== "demo").sort()).toEqual(presets);
+  });
+  for (const name of presets) {
+    it(name, async () => {
+      const h = await kspaceHash(name, ["matrix.read=32", "matrix.phase=32", ...(SMALL[name] ?? [])]);
+      if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH ${name} ${h}`);
+      expect(h).toBe(KSPACE_SHA256[name]);
+    });
+  }
+  // the demo's own isochromat options (density 2, 12 through the slice, T2′ spread of 16) at 32×32
+  it("demo (gre-demo-1.5t on two-bottle, default isochromat options, 32×32)", async () => {
+    const h = await kspaceHash("gre-demo-1.5t", ["matrix.read=32", "matrix.phase=32"], defaultIsochromatOptions());
+    if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH demo ${h}`);
+    expect(h).toBe(KSPACE_SHA256.demo);
+  });
+});
