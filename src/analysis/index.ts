@@ -4,3 +4,4 @@
  */
 export { predictFatShift, measureFatShift, ppmToHz, multiPeakMeanPpm, type FatShiftInput, type FatShiftPrediction, type FatShiftMeasurement, type FineTruth, type AxisShift } from "./fatshift.js";
 export { truthMaps, type TruthMaps, type TruthGrid } from "./truth.js";
+export { fatShiftReport } from "./report.js";

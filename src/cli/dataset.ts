@@ -7,8 +7,9 @@ import { Command } from "commander";
 import { readFileSync } from "node:fs";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
-import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
-import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
+import { logicalAxes, type Protocol } from "../protocol/index.js";
+import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
+import { phantomBounds, type Phantom } from "../phantom/index.js";
 import { buildSequence } from "../sequence/index.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
@@ -17,8 +18,8 @@ import {
   loopPlacement, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, Rng, STREAM,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
-import { addSimulationOptions, collect, isoOptions } from "./options.js";
-import { prepare, readRealNpy, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
+import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
+import { prepare, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { defaultWorkers } from "./memory.js";
 
@@ -247,7 +248,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     const r = await buildCase(seq, set, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
-    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers() }, i,
+    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() } }, i,
     (d, t) => progress.update(d, t));
     progress.done();
     const p = plan.perturbations[i]!;

@@ -1,29 +1,31 @@
 /**
- * Wires the stages for one run: protocol → phantom → sequence →
- * isochromats → engine → recon → analysis → run folder. No physics here.
+ * The command line's side of a run: reads the input files, calls the
+ * library's simulate() (src/api.ts) with the Node worker pool, and writes the
+ * run folder — or, with --shard, runs a block range and writes a partial
+ * k-space. No physics here.
  */
-import { readFileSync } from "node:fs";
 import { createRequire } from "node:module";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
-import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../protocol/index.js";
-import { loadPhantom, type Phantom } from "../phantom/index.js";
-import { buildSequence, type Sequence } from "../sequence/index.js";
-import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
+import type { Protocol } from "../protocol/index.js";
+import type { Phantom } from "../phantom/index.js";
+import type { Sequence } from "../sequence/index.js";
+import { defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
+import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
+import {
+  assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, voxelAffine, SAFETY_NOTE,
+  type EngineSummary, type IsochromatSummary, type SimulateInput, type SimulateResult, type SliceRun,
+} from "../api.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
-import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon/reconstruct.js";
-import { writeRunFolder, type Volume } from "../io/run-folder.js";
-import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
-import { decodeNpy } from "../io/npy.js";
-import { fatShiftReport, truthFiles } from "./effects.js";
+import { writeRunFolder } from "../io/run-folder.js";
+import { truthFiles } from "./effects.js";
+import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
+import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
 
-export const SAFETY_NOTE =
-  "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
-  "defer to the scanner's own safety system, local regulations and licensed practice.";
+export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, type SliceRun };
 
 export function version(): string {
   const require = createRequire(import.meta.url);
@@ -71,127 +73,46 @@ export interface RunContext {
   phantom: Phantom;
   /** Sequence of each engine run (one per slice, or one for a 3D slab), in spatial order. */
   seqs: Sequence[];
-  isoSummary: { count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[] };
-  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
+  isoSummary: IsochromatSummary;
+  engine: EngineSummary;
 }
 
-/** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
-export interface SliceRun {
-  position: number;
-  seq: Sequence;
-  iso: IsochromatSet;
-}
-
-/**
- * Isochromat options for a protocol. A crusher or spoiler of c cycles across
- * the slice is only simulated faithfully when the through-slice isochromats
- * resolve it: with n isochromats per thickness, Σ exp(i2π·c·w/thickness)
- * vanishes only if c·m/n is not a whole number for the pathway orders m that
- * matter, so n ≥ 4c + 1 with refocusing pulses (echo-train pathways mix up to
- * ~4 crusher orders) and n ≥ 2c + 1 with non-ideal spoiling.
- * 3D: the through-slab grid covers M slice-encoding steps (the N of the slab plus a
- * margin of ⌈N/8⌉ on each side for the slab profile's skirts, which then wrap
- * along slice-encoding steps as on a scanner), at least `density` isochromats per
- * slice-encoding step, weighted per slice-encoding step thickness.
- */
-export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
-  const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
-  let perThk = 0;
-  if (refocused) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
-  if (p.spoiling !== "ideal" && p.sequence !== "bssfp") perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
-  if (p.sequence !== "gre3d") {
-    return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
-  }
-  const n = p.matrix.slice;
-  const m = n + 2 * Math.ceil(n / 8);
-  const per = Math.max(iso.density, perThk);
-  return { ...iso, sliceCount: m * per, sliceExtent: m };
+/** The library input of a command-line run: files read here, everything else passed through. */
+function libraryInput(o: RunOptions): SimulateInput {
+  const protocol = loadProtocol(o.protocol, o.sets);
+  const phantom = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
+  const workers = o.workers ?? defaultWorkers();
+  return {
+    parsedProtocol: protocol, parsedPhantom: phantom, sets: o.sets, protocolName: o.protocol, phantomName: o.phantom,
+    phantomTransform: o.phantomTransform, iso: o.iso, seed: o.seed, workers,
+    chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
+    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers), o.maxMemory ?? defaultMemoryLimit(), e.iso),
+    inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
+    version: version(),
+  };
 }
 
 /** Loads and checks every input; throws UserError before any work or file. */
 export function prepare(o: RunOptions): {
   protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom;
 } {
-  const protocol = loadProtocol(o.protocol, o.sets);
-  const ms = slicePositions(protocol);
-  const loaded = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
-  const phantom = o.phantomTransform ? o.phantomTransform(loaded) : loaded;
-  const axes = logicalAxes(protocol);
-  const isoOpts = { ...isoOptionsFor(protocol, o.iso), offsetHz: protocol.shim };
-  const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
-    ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
-    : null;
-  const slices: SliceRun[] = [];
-  for (const position of ms.positions) {
-    const p = { ...protocol, slice: { ...protocol.slice, position } };
-    let seq: Sequence;
-    try {
-      seq = buildSequence(p);
-    } catch (e) {
-      if (e instanceof UserError) throw e.inFile(o.protocol);
-      throw e;
-    }
-    if (ms.positions.length > 1 && ms.positions.length * seq.activeTime > protocol.tr + 1e-9) {
-      const maxN = Math.floor((protocol.tr + 1e-9) / seq.activeTime);
-      throw new UserError(
-        `${ms.positions.length} slices of ${(seq.activeTime * 1e3).toFixed(2)} ms each do not fit in tr ${(protocol.tr * 1e3).toFixed(2)} ms; ` +
-          `set tr to at least ${(Math.ceil(ms.positions.length * seq.activeTime * 1e5) / 1e2).toFixed(2)} ms or slices.count to at most ${maxN}`,
-        o.protocol, "slices.count",
-      );
-    }
-    const geo = {
-      axes,
-      dx: protocol.fov.read / protocol.matrix.read,
-      dy: protocol.fov.phase / protocol.matrix.phase,
-      thickness: protocol.slice.thickness,
-      position,
-      clipRead: protocol.fov.read * protocol.oversampling.read,
-      clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
-    };
-    // slices run one after another: one slice's isochromats and k-space must fit
-    if (slices.length === 0) checkMemory(estimateMemory(phantom, geo, protocol.field, isoOpts, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), isoOpts);
-    const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
-    if (iso.count === 0 && ms.positions.length === 1) {
-      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
-    }
-    if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
-    iso.warnings.push(...phantom.warnings);
-    if (raised && slices.length === 0) iso.warnings.push(raised);
-    slices.push({ position, seq, iso });
-  }
-  if (slices.every((sl) => sl.iso.count === 0)) {
-    throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, o.protocol, "slice.position");
-  }
-  const first = slices.find((sl) => sl.iso.count > 0)!;
-  return { protocol, seq: first.seq, iso: first.iso, phantomFile: o.phantom, slices, phantom };
+  const p = prepareSimulation(libraryInput(o));
+  return { protocol: p.protocol, seq: p.first.seq, iso: p.first.iso, phantomFile: o.phantom, slices: p.slices, phantom: p.phantom };
 }
 
-/** Reads a real .npy array (field maps) for the phantom stage. */
-export function readRealNpy(path: string): { shape: number[]; data: ArrayLike<number> } {
-  let bytes: Uint8Array;
+/** Ctrl-C (SIGINT) or SIGTERM aborts the returned signal while `body` runs; the engine then stops its workers at once. */
+async function interruptible<T>(body: (signal: AbortSignal) => Promise<T>): Promise<T> {
+  const ac = new AbortController();
+  const stop = () => ac.abort();
+  process.once("SIGINT", stop);
+  process.once("SIGTERM", stop);
   try {
-    bytes = readFileSync(path);
-  } catch {
-    throw new UserError(`cannot read the file (does it exist?)`, path);
+    return await body(ac.signal);
+  } finally {
+    process.off("SIGINT", stop);
+    process.off("SIGTERM", stop);
   }
-  const a = decodeNpy(bytes, path);
-  if (a.dtype === "complex64" || a.dtype === "complex128") throw new UserError(`expected a real array of Hz values, got ${a.dtype}`, path);
-  return { shape: a.shape, data: a.data as ArrayLike<number> };
 }
-
-/** 3×4 voxel → RAS+ (mm) affine; `spacingMm` and `firstMm` place index 0 and the step along the slice axis. */
-export function voxelAffine(p: Protocol, spacingMm: number, firstMm: number): number[][] {
-  const ax = logicalAxes(p);
-  const dx = (p.fov.read / p.matrix.read) * 1e3, dy = (p.fov.phase / p.matrix.phase) * 1e3;
-  const cr = Math.floor(p.matrix.read / 2), cp = Math.floor(p.matrix.phase / 2);
-  const rows: number[][] = [];
-  for (let k = 0; k < 3; k++) {
-    const a = ax.read[k]! * dx, b = ax.phase[k]! * dy, c = ax.slice[k]! * spacingMm;
-    rows.push([a, b, c, -cr * a - cp * b + ax.slice[k]! * firstMm]);
-  }
-  return rows;
-}
-
 /**
  * Runs the engine on a worker pool. Ctrl-C (SIGINT) or SIGTERM stops the
  * workers at once; the promise then rejects with AbortedError and nothing
@@ -208,16 +129,13 @@ async function simulateStage(
   const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
   const progress = new Progress(label, "iso-TR", o.quiet);
   const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
-  const ac = new AbortController();
-  const stop = () => ac.abort();
-  process.once("SIGINT", stop);
-  process.once("SIGTERM", stop);
   let isoInRange = p.iso.count;
   try {
-    return await simulateParallel(p.seq, p.iso, {
+    return await interruptible((signal) => simulateParallel(p.seq, p.iso, {
       receiverFilter: p.protocol.receiverFilter,
       workers: o.workers ?? defaultWorkers(),
-      signal: ac.signal,
+      chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
+      signal,
       blocks: extra.blocks,
       onBlock: extra.onBlock,
       onPlan: (plan) => {
@@ -228,56 +146,56 @@ async function simulateStage(
         }
       },
       onProgress: (d, t) => progress.update(d, t, (isoInRange * trs * d) / t),
-    });
+    }));
   } finally {
     progress.done();
-    process.off("SIGINT", stop);
-    process.off("SIGTERM", stop);
   }
 }
 
-function spreadSummary(iso: IsochromatSet): RunContext["isoSummary"]["spreads"] {
-  return iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count }));
-}
-
-/** One run: prepare, simulate every slice on the worker pool, then the run folder — or, with o.shard, a partial k-space. */
+/** One run: simulate() on the worker pool, then the run folder — or, with o.shard, a partial k-space. */
 export async function run(o: RunOptions): Promise<RunResult> {
   const t0 = Date.now();
-  const p = prepare(o);
-  const workers = o.workers ?? defaultWorkers();
   if (o.shard) {
+    const p = prepare(o);
     if (p.slices.length > 1) {
       throw new UserError(`--shard splits one engine run; this protocol has ${p.slices.length} slices: run each slice (slice.position) as its own sharded job, or use slices.count 1`, o.protocol, "slices.count");
     }
     return runShard(p, o, t0);
   }
-  // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
-  const kspaces: KSpace[] = [];
-  let plan: EnginePlan | null = null;
-  let count = 0;
-  for (let k = 0; k < p.slices.length; k++) {
-    const sl = p.slices[k]!;
-    if (sl.iso.count === 0) {
-      kspaces.push({ coils: 1, rows: sl.seq.kspace.slice * sl.seq.kspace.phase, read: sl.seq.kspace.read, re: new Float64Array(sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read), im: new Float64Array(sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read) });
-      continue;
-    }
-    const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
-    const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
-    plan = res.plan;
-    count += sl.iso.count;
-    kspaces.push(res.kspace);
+  const input = libraryInput(o);
+  let progress: Progress | null = null;
+  let current = -1;
+  let r: SimulateResult;
+  try {
+    r = await interruptible((signal) => simulate({
+      ...input, signal, executor: nodeExecutor(input.workers!),
+      onProgress: (e) => {
+        if (e.slice !== current) {
+          progress?.done();
+          current = e.slice;
+          progress = new Progress(e.slices > 1 ? `simulating slice ${e.slice + 1}/${e.slices}` : "simulating", "iso-TR", o.quiet);
+        }
+        progress!.update(e.done, e.total, e.isochromatTRs);
+      },
+    }));
+  } finally {
+    (progress as Progress | null)?.done();
   }
-  const ctx: RunContext = {
-    protocol: p.protocol, o, phantom: p.phantom, seqs: p.slices.map((s) => s.seq),
-    isoSummary: { count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso) },
-    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
-  };
-  return finish(ctx, kspaces, t0);
+  return write(o, r, t0);
+}
+
+/** Writes the run folder of a result (atomically). */
+function write(o: RunOptions, r: SimulateResult, t0: number): RunResult {
+  const files = writeRunFolder(o.out, {
+    extra: o.truth ? truthFiles(r.truth) : undefined,
+    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
+  });
+  return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };
 }
 
 async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number): Promise<RunResult> {
   const [i, n] = o.shard!;
-  const total = blockCount(countChunks(p.iso));
+  const total = blockCount(countChunks(p.iso, chunkIsochromatsFromEnv()));
   const blocks = shardBlocks(total, i, n);
   const nb = blocks[1] - blocks[0];
   let bre = new Float64Array(0), bim = new Float64Array(0);
@@ -306,98 +224,15 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
-/** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); shared by simulate and merge. */
+/** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); used by merge. */
 export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
-  const { protocol, o, phantom } = ctx;
-  const seq = ctx.seqs[0]!;
-  const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
-  kspaces.forEach((k, idx) => {
-    const s = ctx.seqs[idx]!;
-    const acq = { slice: s.kspace.slice, phase: s.kspace.phase, read: s.kspace.read, re: k.re, im: k.im };
-    const grid = toGrid(acq, s.grid);
-    kParts.push(grid);
-    iParts.push(reconstructGrid(grid, s.grid, s.image));
-  });
-  const stack = (parts: ComplexVolume[]): Volume => {
-    const per = parts[0]!.re.length;
-    const re = new Float64Array(per * parts.length), im = new Float64Array(per * parts.length);
-    parts.forEach((v, k) => {
-      re.set(v.re, k * per);
-      im.set(v.im, k * per);
-    });
-    return { coils: 1, slice: parts[0]!.slice * parts.length, phase: parts[0]!.phase, read: parts[0]!.read, re, im };
-  };
-  const kv = stack(kParts);
-  const img = stack(iParts);
-  const mag = magnitude(img);
-  let max = 0;
-  for (const v of mag) if (v > max) max = v;
-  const seconds = (Date.now() - t0) / 1000;
-  const axes = logicalAxes(protocol);
-  const ms = slicePositions(protocol);
-  const threeD = seq.grid.threeD;
-  const thkMm = protocol.slice.thickness * 1e3;
-  const spacingMm = threeD ? thkMm : ms.spacing * 1e3;
-  const firstMm = threeD
-    ? (protocol.slice.position + (protocol.matrix.slice % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.slice / 2) * protocol.slice.thickness) * 1e3
-    : ms.positions[0]! * 1e3;
-  const report: Record<string, unknown> = {
-    tool: { name: "isofold", version: version() },
-    created: new Date().toISOString(),
-    safety: SAFETY_NOTE,
-    seed: o.seed,
+  const { o } = ctx;
+  const r = assembleResult({
+    protocol: ctx.protocol, phantom: ctx.phantom, seqs: ctx.seqs, iso: o.iso, seed: o.seed,
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
-    protocol: { ...protocol, units: "SI: s, m, T, T/m, T/m/s, Hz, rad" },
-    sequence: {
-      name: seq.name, timing: seq.timing, derived: seq.derived, phaseTable: seq.phaseTable,
-      readoutReversedRows: seq.grid.reversed ? "rows read under a negative readout gradient are stored reversed (k ascending) in kspace.npy" : "none",
-    },
-    geometry: {
-      read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice,
-      axes: { read: axes.read, phase: axes.phase, slice: axes.slice },
-      oblique: axes.angle === 0 ? "none" : `tilted ${((axes.angle * 180) / Math.PI).toFixed(2)} deg about the ${axes.tiltAxis} axis`,
-      frame: "phantom coordinates are RAS+ (x toward the subject's right, y anterior, z superior)",
-      slices: threeD ? "one 3D slab" : {
-        count: ms.positions.length, positions: ms.positions, acquisitionOrder: ms.order,
-        model: "each slice simulated as its own run over its own isochromats with the TR shared; cross-talk between slices (excitation of neighbours by the slice profile's skirts) is not simulated",
-      },
-    },
-    axes: {
-      kspace: ["coil", "slice", "phase", "read"],
-      image: ["coil", "slice", "phase", "read"],
-      index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
-      kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
-      png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
-    },
-    fftConvention: FFT_CONVENTION_TEXT,
-    isochromats: {
-      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: o.iso.density, sliceCount: isoOptionsFor(protocol, o.iso).sliceCount,
-      sliceExtent: isoOptionsFor(protocol, o.iso).sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
-      t2primeSpread: ctx.isoSummary.spreads,
-      note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
-        (threeD ? "; 3D: through-slab grid of `density` isochromats per slice-encoding step over the slab plus ⌈N/8⌉ slice-encoding steps each side" : ""),
-    },
-    engine: {
-      ...ctx.engine,
-      order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
-    },
-    measurements: { imageMax: max },
-    fatShift: null as unknown,
-    timingSeconds: seconds,
-    warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
-  };
-  const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
-  report.fatShift = fx.report;
-  (report.warnings as string[]).push(...fx.warnings);
-  const files = writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth) : undefined,
-    kspace: kv,
-    image: img,
-    affine: voxelAffine(protocol, spacingMm, firstMm),
-    voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
-    report,
-  });
-  return { dir: o.out, files, seconds, report };
+    isoSummary: ctx.isoSummary, engine: ctx.engine, version: version(), t0,
+  }, kspaces);
+  return write(o, r, t0);
 }
 
 export { defaultIsochromatOptions };

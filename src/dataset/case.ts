@@ -94,6 +94,8 @@ export interface CaseSettings {
   receiverFilter: boolean;
   /** Engine worker threads. */
   workers: number;
+  /** Engine chunk size and kernel choice (defaults: CHUNK_ISOCHROMATS, WebAssembly where available). */
+  engine?: { chunkIsochromats?: number; wasm?: boolean };
 }
 
 export interface CaseGeometry {
@@ -129,7 +131,7 @@ export async function buildCase(
   const img: Dims = seq.image, kd: Dims = seq.kspace;
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
-  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress);
+  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress, s.engine);
   const n = img.slice * img.phase * img.read;
   const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)

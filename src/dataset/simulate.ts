@@ -7,7 +7,7 @@
  * isochromats, so block k-spaces add. Each block runs on the engine's worker
  * pool (bitwise the same k-space for any number of workers).
  */
-import { simulateParallel, type KSpace } from "../engine/index.js";
+import { simulateParallel, type KSpace } from "../engine/node.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
@@ -36,9 +36,10 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
 export async function simulateCoils(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
+  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
 ): Promise<KSpace> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (C === 1) return (await simulateParallel(seq, iso, { receiverFilter, workers, onProgress })).kspace;
+  if (C === 1) return (await simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine })).kspace;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
   let c0 = 0;
@@ -57,7 +58,7 @@ export async function simulateCoils(
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
     const { kspace } = await simulateParallel(seq, sub, {
-      receiverFilter, coils: C, sens, workers,
+      receiverFilter, coils: C, sens, workers, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     for (let i = 0; i < re.length; i++) {

@@ -118,8 +118,10 @@ interface IsoArrays {
 
 /** The per-isochromat arrays, each on a SharedArrayBuffer of its own. */
 function allocate(n: number): IsoArrays {
-  const f = () => new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8)).subarray(0, n);
-  const i = () => new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4)).subarray(0, n);
+  // shared memory where the JavaScript engine has it (browsers: cross-origin isolated pages only)
+  const buf = (bytes: number) => (typeof SharedArrayBuffer === "function" ? new SharedArrayBuffer(bytes) : new ArrayBuffer(bytes));
+  const f = () => new Float64Array(buf(Math.max(1, n) * 8)).subarray(0, n);
+  const i = () => new Int32Array(buf(Math.max(1, n) * 4)).subarray(0, n);
   return { iu: i(), iv: i(), iw: i(), x: f(), y: f(), z: f(), m0: f(), r1: f(), r2: f(), df: f(), tissue: i(), peak: i() };
 }
 

@@ -3,9 +3,6 @@
  * (a bundled preset name or a relative path) and `--set key=value`
  * overrides, validates every key, and returns the normalized Protocol in SI.
  */
-import { readFileSync, existsSync, readdirSync } from "node:fs";
-import { dirname, resolve, join } from "node:path";
-import { fileURLToPath } from "node:url";
 import { UserError, userError, joinPath, type Origin } from "../errors.js";
 import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
 import { GAMMA_BAR } from "../constants.js";
@@ -13,31 +10,27 @@ import type {
   Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis, SliceOrder, PartialFourierRecon, EchoOrder,
 } from "./types.js";
 
-/** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
-export function presetsDir(): string {
-  const here = dirname(fileURLToPath(import.meta.url));
-  // compiled: dist/src/protocol → ../../../src/protocol/presets; source: src/protocol/presets
-  const candidates = [join(here, "presets"), resolve(here, "../../../src/protocol/presets")];
-  for (const c of candidates) if (existsSync(c)) return c;
-  return candidates[0]!;
-}
-
 type Json = null | boolean | number | string | Json[] | { [k: string]: Json };
 type Obj = { [k: string]: Json };
 
-/** Reads JSON with a one-line error naming the file and position. */
-export function readJsonFile(file: string): Json {
-  let text: string;
-  try {
-    text = readFileSync(file, "utf8");
-  } catch {
-    throw new UserError(`cannot read file (does it exist?)`, file);
-  }
-  try {
-    return JSON.parse(text) as Json;
-  } catch (e) {
-    throw new UserError(`malformed JSON: ${(e as Error).message}`, file);
-  }
+/**
+ * Where `extend` names are looked up: the protocol object a name stands for
+ * (a bundled preset, or a file relative to `from`) and the source name it is
+ * reported under, or null. The command line reads files (cli/inputs.ts); a
+ * web page may look names up in its own table.
+ */
+export type ProtocolResolver = (name: string, from: string) => { source: string; json: unknown } | null;
+
+/** What parseProtocol needs besides the object. */
+export interface ProtocolInput {
+  /** Name of the object in messages (a file path or a preset name); default "protocol". */
+  source?: string;
+  /** `key.path=value` overrides applied after `extend`, in order (the CLI's --set). */
+  sets?: string[];
+  /** Resolves `extend`; without one a protocol that extends another is refused. */
+  resolve?: ProtocolResolver;
+  /** Preset names offered in the message when `extend` names nothing. */
+  presets?: string[];
 }
 
 function isObj(v: Json | undefined): v is Obj {
@@ -53,43 +46,22 @@ function deepMerge(base: Obj, over: Obj): Obj {
   return out;
 }
 
-/** Resolves the `extend` chain of a protocol file into one merged object. */
-function loadWithExtends(file: string, seen: Set<string> = new Set()): Obj {
-  const json = readJsonFile(file);
-  if (!isObj(json)) throw new UserError("a protocol file must hold a JSON object", file);
-  const ext = json["extend"];
-  if (ext === undefined) return json;
+/** Resolves the `extend` chain of a protocol object into one merged object. */
+function mergeExtends(json: unknown, file: string, o: ProtocolInput, seen: Set<string> = new Set()): Obj {
+  if (!isObj(json as Json)) throw new UserError("a protocol file must hold a JSON object", file);
+  const obj = json as Obj;
+  const ext = obj["extend"];
+  if (ext === undefined) return obj;
   if (typeof ext !== "string") throw new UserError(`must name a preset or a file, got ${JSON.stringify(ext)}`, file, "extend");
-  const target = resolvePresetOrFile(ext, dirname(file));
+  const target = o.resolve ? o.resolve(ext, file) : null;
   if (!target) {
-    throw new UserError(`no preset or file named ${JSON.stringify(ext)}; presets: ${listPresets().join(", ")}`, file, "extend");
+    throw new UserError(`no preset or file named ${JSON.stringify(ext)}; presets: ${(o.presets ?? []).join(", ")}`, file, "extend");
   }
-  if (seen.has(target)) throw new UserError(`extends itself through ${target}`, file, "extend");
-  seen.add(target);
-  const base = loadWithExtends(target, seen);
-  const { extend: _drop, ...rest } = json;
+  if (seen.has(target.source)) throw new UserError(`extends itself through ${target.source}`, file, "extend");
+  seen.add(target.source);
+  const base = mergeExtends(target.json, target.source, o, seen);
+  const { extend: _drop, ...rest } = obj;
   return deepMerge(base, rest);
-}
-
-/** Names of the bundled presets. */
-export function listPresets(): string[] {
-  try {
-    return readdirSync(presetsDir())
-      .filter((f) => f.endsWith(".json"))
-      .map((f) => f.replace(/\.json$/, ""))
-      .sort();
-  } catch {
-    return [];
-  }
-}
-
-/** A preset name (e.g. "gre-t1-3t") or a path; returns an absolute path or null. */
-export function resolvePresetOrFile(name: string, relativeTo: string): string | null {
-  const asPath = resolve(relativeTo, name);
-  if (existsSync(asPath)) return asPath;
-  const preset = join(presetsDir(), name.endsWith(".json") ? name : `${name}.json`);
-  if (existsSync(preset)) return preset;
-  return null;
 }
 
 /** Applies one `key.path=value` override; the value is JSON if it parses, else a string. */
@@ -212,16 +184,19 @@ function pulse(obj: Obj | undefined, origin: Origin, dflt: PulseSpec): PulseSpec
 }
 
 /**
- * Loads, merges and validates a protocol. `file` may be a path or a preset name.
- * Throws UserError naming the file and key path on any bad value.
+ * Protocol object (as read from a protocol file) → Protocol in SI: applies
+ * `extend` through `o.resolve`, then the `--set`-style overrides `o.sets`,
+ * then validates every key. Reads no file. Throws UserError naming the
+ * source and key path on any bad value (a bad value that came from a set is
+ * named as `--set key`).
  */
-export function loadProtocol(file: string, sets: string[] = []): Protocol {
-  const path = resolvePresetOrFile(file, process.cwd());
-  if (!path) throw new UserError(`no protocol file or preset named ${JSON.stringify(file)}; presets: ${listPresets().join(", ")}`);
-  let obj = loadWithExtends(path);
+export function parseProtocol(json: unknown, o: ProtocolInput = {}): Protocol {
+  const source = o.source ?? "protocol";
+  const sets = o.sets ?? [];
+  let obj = mergeExtends(json, source, o);
   for (const s of sets) obj = applySet(obj, s);
   try {
-    return parseProtocolObject(obj, path);
+    return parseProtocolObject(obj, source);
   } catch (e) {
     // a bad value that came from --set is named as such, not as the file's
     const keys = sets.map((s) => s.slice(0, Math.max(0, s.indexOf("="))).trim());
