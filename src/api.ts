@@ -305,13 +305,15 @@ export interface SimulateResult {
   runs: KSpace[];
 }
 
-/** Reconstructs the k-space of every engine run, stacks them and builds the report; shared by simulate and the CLI's merge. */
-export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): SimulateResult {
-  const { protocol, phantom } = ctx;
-  const seq = ctx.seqs[0]!;
+/**
+ * The k-space of every engine run on its full Cartesian grid and its image
+ * (sequence by sequence: acquired rows → grid, then FFT), stacked along the
+ * slice axis in the order of `seqs`.
+ */
+export function reconstructRuns(seqs: Sequence[], kspaces: KSpace[]): { kspace: Volume; image: Volume } {
   const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
   kspaces.forEach((k, idx) => {
-    const s = ctx.seqs[idx]!;
+    const s = seqs[idx]!;
     const acq = { slice: s.kspace.slice, phase: s.kspace.phase, read: s.kspace.read, re: k.re, im: k.im };
     const grid = toGrid(acq, s.grid);
     kParts.push(grid);
@@ -326,8 +328,14 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
     });
     return { coils: 1, slice: parts[0]!.slice * parts.length, phase: parts[0]!.phase, read: parts[0]!.read, re, im };
   };
-  const kv = stack(kParts);
-  const img = stack(iParts);
+  return { kspace: stack(kParts), image: stack(iParts) };
+}
+
+/** Reconstructs the k-space of every engine run, stacks them and builds the report; shared by simulate and the CLI's merge. */
+export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): SimulateResult {
+  const { protocol, phantom } = ctx;
+  const seq = ctx.seqs[0]!;
+  const { kspace: kv, image: img } = reconstructRuns(ctx.seqs, kspaces);
   const mag = magnitude(img);
   let max = 0;
   for (const v of mag) if (v > max) max = v;
