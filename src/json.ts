@@ -68,7 +68,7 @@ export function checkJsonStructure(text: string, where: string | undefined): voi
         if (first !== undefined) {
           throw userError(
             { file: where, path: childPath(top) },
-            `duplicate key "${key}" at ${lineCol(text, start)} (first at ${lineCol(text, first)}); JSON readers keep only one of them, so give each key once`,
+            `duplicate key ${JSON.stringify(key)} at ${lineCol(text, start)} (first at ${lineCol(text, first)}); JSON readers keep only one of them, so give each key once`,
           );
         }
         top.keys.set(key, start);

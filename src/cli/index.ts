@@ -22,7 +22,10 @@ program
       "fills k-space, reconstructs by FFT and writes PNG, NumPy (.npy), NIfTI and a JSON report.\n" + SAFETY_NOTE,
   )
   .version(version())
-  .showHelpAfterError("(run with --help for usage)")
+  // usage errors are one line like every other user error
+  .configureOutput({
+    outputError: (str, write) => write(`isofold: ${str.trim().replace(/\s*\n\s*/g, " ")} (run with --help for usage)\n`),
+  })
   // usage errors (a bad or missing option) exit 2 like every other user error
   .exitOverride();
 
