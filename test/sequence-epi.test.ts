@@ -39,7 +39,7 @@ describe("EPI displacement along phase = Δf·N·ESP/shots pixels (Jezzard & Bal
       expect(Math.abs(r.measured - r.predicted)).toBeLessThan(0.2);
     }
   });
-  it("single-shot spin echo with 6/8 partial Fourier (homodyne), Δf = +50 Hz", () => {
+  it("single-shot spin echo with partial Fourier, 0.75 of the phase lines (homodyne), Δf = +50 Hz", () => {
     const r = shiftPx({ te: "50 ms", epiEcho: "spin", partialFourier: { phase: 0.75 } }, 50);
     expect(Math.abs(r.measured - r.predicted)).toBeLessThan(0.2);
   });
