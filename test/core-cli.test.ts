@@ -112,7 +112,7 @@ describe("bad input", () => {
       expect(r.stderr).not.toMatch(/\bat .*\.js:\d+/); // no stack trace
       expect(existsSync(out)).toBe(false);
       expect(readdirSync(dir).filter((f) => f.startsWith("run"))).toEqual([]);
-    }, 20000);
+    }, 60_000);
   }
 });
 
