@@ -16,11 +16,24 @@ import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Execu
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
+import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
 
 export const SAFETY_NOTE =
   "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
   "defer to the scanner's own safety system, local regulations and licensed practice.";
+
+/**
+ * The tissues of a run with their values (SI) and where each value comes from:
+ * library tissues give the status of each value (checked against the source,
+ * recalled from memory, estimated by a rule, our own design value).
+ */
+export function tissueReport(phantom: Phantom): Record<string, unknown>[] {
+  return phantom.tissues.map((t) => ({
+    name: t.name, pd: t.pd, t1: t.t1, t2: t.t2, t2star: t.t2star, fatFraction: t.fatFraction,
+    source: t.source ?? "given in the phantom file",
+  }));
+}
 
 /** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
 export interface Volume {
@@ -159,6 +172,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > asked.sliceCount
     ? `through-slice isochromats raised from ${asked.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
     : null;
+  const remarks = samplingRemarks(phantom, protocol, asked.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
     const p = { ...protocol, slice: { ...protocol.slice, position } };
@@ -182,10 +196,12 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     if (slices.length === 0) input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq });
     const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
-      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, protocolName, "slice.position");
+      const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
+      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, protocolName, "slice.position");
     }
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
+    if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (raised && slices.length === 0) iso.warnings.push(raised);
     slices.push({ position, seq, iso });
   }
@@ -388,6 +404,11 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
     engine: {
       ...ctx.engine,
       order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
+    },
+    tissues: {
+      units: "pd relative to pure water; t1, t2, t2star in s; fatFraction 0..1",
+      note: "library values for the nearer table (1.5 T or 3 T); `source` says, for each value, whether it was checked against the published source, recalled from memory, estimated by a rule or is a design value of our own",
+      list: tissueReport(phantom),
     },
     measurements: { imageMax: max },
     fatShift: null as unknown,

@@ -10,6 +10,7 @@ import { UserError, userError } from "../errors.js";
 import { parseProtocol, type Protocol, type ProtocolResolver } from "../protocol/index.js";
 import { parseJsonText, parsePhantom, type Phantom, type PhantomLoadOptions } from "../phantom/index.js";
 import { decodeNpy } from "../io/npy.js";
+import { parseJsonStrict } from "../json.js";
 
 /** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
 export function presetsDir(): string {
@@ -30,11 +31,7 @@ export function readJsonFile(file: string): Json {
   } catch {
     throw new UserError(`cannot read file (does it exist?)`, file);
   }
-  try {
-    return JSON.parse(text) as Json;
-  } catch (e) {
-    throw new UserError(`malformed JSON: ${(e as Error).message}`, file);
-  }
+  return parseJsonStrict(text, file) as Json;
 }
 
 /** Names of the bundled presets. */

@@ -14,7 +14,7 @@ import { defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } 
 import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
 import {
-  assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, voxelAffine, SAFETY_NOTE,
+  assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
   type EngineSummary, type IsochromatSummary, type SimulateInput, type SimulateResult, type SliceRun,
 } from "../api.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
@@ -25,7 +25,15 @@ import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
 import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
 
-export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, type SliceRun };
+export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, type SliceRun };
+
+/**
+ * Prints each warning of a run on stderr, one line each, prefixed "warning:"
+ * (also with --quiet: -q silences progress only). Duplicates print once.
+ */
+export function printWarnings(warnings: readonly string[]): void {
+  for (const w of new Set(warnings)) process.stderr.write(`warning: ${w}\n`);
+}
 
 export function version(): string {
   const require = createRequire(import.meta.url);
@@ -190,6 +198,7 @@ function write(o: RunOptions, r: SimulateResult, t0: number): RunResult {
     extra: o.truth ? truthFiles(r.truth) : undefined,
     kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
   });
+  printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };
 }
 
@@ -221,6 +230,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
   });
+  printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
