@@ -10,7 +10,7 @@
 import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
-import { buildSequence, type Sequence } from "./sequence/index.js";
+import { buildSequence, sequenceDefinition, type Sequence } from "./sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsoGeometry, type IsochromatOptions, type IsochromatSet } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Executor, type KSpace } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
@@ -133,11 +133,11 @@ export interface Prepared {
  * slice-encoding step, weighted per slice-encoding step thickness.
  */
 export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
-  const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
+  const def = sequenceDefinition(p.sequence);
   let perThk = 0;
-  if (refocused) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
-  if (p.spoiling !== "ideal" && p.sequence !== "bssfp") perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
-  if (p.sequence !== "gre3d") {
+  if (def.refocuses(p)) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
+  if (p.spoiling !== "ideal" && def.spoils) perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
+  if (!def.threeD) {
     return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
   }
   const n = p.matrix.slice;
@@ -169,7 +169,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const phantom = input.phantomTransform ? input.phantomTransform(loaded) : loaded;
   const asked: IsochromatOptions = { ...defaultIsochromatOptions(), ...input.iso };
   const isoOpts = { ...isoOptionsFor(protocol, asked), offsetHz: protocol.shim };
-  const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > asked.sliceCount
+  const raised = !sequenceDefinition(protocol.sequence).threeD && isoOpts.sliceCount > asked.sliceCount
     ? `through-slice isochromats raised from ${asked.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
     : null;
   const remarks = samplingRemarks(phantom, protocol, asked.density);

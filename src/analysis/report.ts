@@ -10,11 +10,6 @@ import type { Phantom } from "../phantom/index.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
 import type { Sequence } from "../sequence/index.js";
 
-function derivedNumber(seq: Sequence, key: string): number | undefined {
-  const d = seq.derived[key];
-  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
-}
-
 /**
  * Predicted (readout, slice, EPI phase) and measured fat–water displacement
  * for report.json, and the truth maps they used. EPI: the sequence's derived
@@ -30,11 +25,12 @@ export function fatShiftReport(
   const truth = truthMaps(phantom, {
     axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
   });
-  const esp = derivedNumber(seq, "echoSpacing");
+  const q = seq.quantities;
+  const esp = q.echoSpacing;
   const base = {
     fieldT: protocol.field, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
-    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
-    ...(esp !== undefined ? { echoSpacing: esp, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? nPhase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 } : {}),
+    sliceGradient: q.sliceGradient,
+    ...(esp !== undefined ? { echoSpacing: esp, phaseLines: q.phaseLinesEffective ?? nPhase, blipSign: q.phaseBlipSign ?? 1 } : {}),
     axisNames: axes.names,
   };
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });

@@ -7,6 +7,7 @@ import { UserError, userError, joinPath, type Origin } from "../errors.js";
 import { checkJsonStructure, parseJsonStrict } from "../json.js";
 import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
 import { GAMMA_BAR } from "../constants.js";
+import { SEQUENCE_DEFINITIONS, sequenceDefinition } from "../sequence/registry.js";
 import type {
   Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis, SliceOrder, PartialFourierRecon, EchoOrder,
 } from "./types.js";
@@ -112,14 +113,7 @@ const TOP_KEYS = [
 ] as const;
 
 /** Sequence names a protocol may use, with what each is. */
-export const SEQUENCES: Record<SequenceKind, string> = {
-  gre: "2D spoiled gradient echo",
-  se: "2D spin echo",
-  gre3d: "3D spoiled gradient echo (slab excitation, phase encoding in two directions)",
-  bssfp: "2D balanced steady-state free precession",
-  rare: "2D RARE / fast spin echo (echo train)",
-  epi: "2D echo-planar imaging (single-shot or segmented, gradient or spin echo)",
-};
+export const SEQUENCES: Record<SequenceKind, string> = Object.fromEntries(SEQUENCE_DEFINITIONS.map((d) => [d.name, d.description]));
 
 function checkKeys(obj: Obj, allowed: readonly string[], origin: Origin): void {
   for (const k of Object.keys(obj)) {
@@ -244,7 +238,8 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   checkKeys(obj, TOP_KEYS, root);
   const warnings: string[] = [];
 
-  const sequence = oneOf<SequenceKind>(obj["sequence"], Object.keys(SEQUENCES) as SequenceKind[], at("sequence"));
+  const sequence = oneOf<SequenceKind>(obj["sequence"], SEQUENCE_DEFINITIONS.map((d) => d.name), at("sequence"));
+  const def = sequenceDefinition(sequence);
   const field = positive(obj["field"], "field", at("field"));
   const fovO = sub(obj, "fov", root)!;
   checkKeys(fovO, ["read", "phase"], at("fov"));
@@ -260,8 +255,8 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const sliceKey = matO["partitions"] !== undefined ? "partitions" : "slice";
   if (sliceKey === "partitions") warnings.push(`matrix.partitions is deprecated and will be removed in the next release; write "matrix": { "slice": ${String(matO["partitions"])} } (the number of slice-encoding steps)`);
   const nSlice = matO[sliceKey] === undefined ? 1 : plainNumber(matO[sliceKey], at(`matrix.${sliceKey}`), { min: 1, max: 1024, integer: true });
-  if (sequence === "gre3d" && nSlice < 2) throw userError(at(`matrix.${sliceKey}`), `a 3D sequence needs at least 2 slice-encoding steps, got ${nSlice}; e.g. "matrix": { "slice": 16 }`);
-  if (sequence !== "gre3d" && nSlice !== 1) throw userError(at(`matrix.${sliceKey}`), `only the 3D sequence (gre3d) encodes along the slice; remove matrix.${sliceKey} or use "sequence": "gre3d"`);
+  if (def.threeD && nSlice < 2) throw userError(at(`matrix.${sliceKey}`), `a 3D sequence needs at least 2 slice-encoding steps, got ${nSlice}; e.g. "matrix": { "slice": 16 }`);
+  if (!def.threeD && nSlice !== 1) throw userError(at(`matrix.${sliceKey}`), `only the 3D sequence (gre3d) encodes along the slice; remove matrix.${sliceKey} or use "sequence": "gre3d"`);
 
   const slO = sub(obj, "slice", root)!;
   checkKeys(slO, ["thickness", "position", "orientation", "angle", "tiltAxis"], at("slice"));
@@ -276,7 +271,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const sliceCount = msO["count"] === undefined ? 1 : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
   const sliceGap = msO["gap"] === undefined ? 0 : nonNegative(msO["gap"], "length", at("slices.gap"));
   const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), "interleaved");
-  if (sequence === "gre3d" && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
+  if (def.threeD && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
   const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
   const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
   const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
@@ -284,7 +279,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
   const te = positive(obj["te"], "time", at("te"));
   const tr = positive(obj["tr"], "time", at("tr"));
-  const flip = obj["flip"] === undefined ? (sequence === "se" || sequence === "rare" || sequence === "epi" ? Math.PI / 2 : (20 * Math.PI) / 180) : flipAngle(obj["flip"], at("flip"));
+  const flip = obj["flip"] === undefined ? def.defaults.flip : flipAngle(obj["flip"], at("flip"));
   const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : flipAngle(obj["refocusFlip"], at("refocusFlip"));
 
   const osO = sub(obj, "oversampling", root, false) ?? {};
@@ -317,7 +312,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), "linear");
   const averages = obj["averages"] === undefined ? 1 : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
   const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), "half-alpha");
-  const echoTrainLength = obj["echoTrainLength"] === undefined ? (sequence === "rare" ? 8 : 1) : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
+  const echoTrainLength = obj["echoTrainLength"] === undefined ? def.defaults.echoTrainLength : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
   const echoSpacing = obj["echoSpacing"] === undefined ? 0 : positive(obj["echoSpacing"], "time", at("echoSpacing"));
   const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), "linear");
   const shots = obj["shots"] === undefined ? 1 : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
