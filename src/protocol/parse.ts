@@ -6,7 +6,7 @@
 import { UserError, userError, joinPath, type Origin } from "../errors.js";
 import { checkJsonStructure, parseJsonStrict } from "../json.js";
 import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
-import { GAMMA_BAR } from "../constants.js";
+import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { SEQUENCE_DEFINITIONS, sequenceDefinition } from "../sequence/registry.js";
 import type {
   Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis, SliceOrder, PartialFourierRecon, EchoOrder,
@@ -147,7 +147,7 @@ function oneOf<T extends string>(v: Json | undefined, allowed: readonly T[], ori
 
 /** Fat–water shift used to convert a bandwidth given as a fat shift in pixels: main methylene peak,
  *  −3.4 ppm relative to water (Hamilton et al. 2011, NMR Biomed 24:784). */
-export const FAT_SHIFT_PPM_FOR_BANDWIDTH = 3.4;
+export const FAT_SHIFT_PPM_FOR_BANDWIDTH = -FAT_SINGLE_PPM;
 
 /**
  * Reads the bandwidth in any of four conventions and returns Hz per pixel:
@@ -189,6 +189,27 @@ function pulse(obj: Obj | undefined, origin: Origin, dflt: PulseSpec): PulseSpec
     duration: obj["duration"] === undefined ? dflt.duration : positive(obj["duration"], "time", at("duration")),
     tbw: obj["tbw"] === undefined ? dflt.tbw : plainNumber(obj["tbw"], at("tbw"), { min: 1, max: 20 }),
     steps: obj["steps"] === undefined ? dflt.steps : plainNumber(obj["steps"], at("steps"), { min: 1, max: 100000, integer: true }),
+  };
+}
+
+/**
+ * Every default of an optional protocol key, in SI, for a sequence (flip
+ * angle and echo train length come from the sequence's own declaration).
+ * The one place protocol defaults live.
+ */
+export function protocolDefaults(sequence: SequenceKind) {
+  const def = sequenceDefinition(sequence);
+  return {
+    orientation: "axial" as Orientation, tiltAxis: "read" as const, sliceCount: 1, sliceGap: 0, sliceOrder: "interleaved" as SliceOrder,
+    bandwidth: "250 Hz/px", flip: def.defaults.flip, refocusFlip: Math.PI,
+    oversampling: { read: 2, phase: 0 }, readoutPolarity: "positive" as const,
+    partialFourier: { phase: 1, read: 1, method: "homodyne" as PartialFourierRecon },
+    receiverFilter: true, hardware: { gmax: 0.04, slew: 150 },
+    excitation: { shape: "sinc", duration: 2e-3, tbw: 4, steps: 200 } as PulseSpec,
+    refocusing: { shape: "sinc", duration: 3e-3, tbw: 4, steps: 200 } as PulseSpec,
+    spoiling: "ideal" as const, rfSpoilIncrement: (117 * Math.PI) / 180, dummyScans: 0, phaseOrder: "linear" as const, averages: 1,
+    ssfpPreparation: "half-alpha" as const, echoTrainLength: def.defaults.echoTrainLength, echoSpacing: 0, echoOrder: "linear" as EchoOrder,
+    shots: 1, epiEcho: "gradient" as const, crusherCycles: 4, spoilerCycles: 4, shim: 0,
   };
 }
 
@@ -240,6 +261,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
 
   const sequence = oneOf<SequenceKind>(obj["sequence"], SEQUENCE_DEFINITIONS.map((d) => d.name), at("sequence"));
   const def = sequenceDefinition(sequence);
+  const D = protocolDefaults(sequence);
   const field = positive(obj["field"], "field", at("field"));
   const fovO = sub(obj, "fov", root)!;
   checkKeys(fovO, ["read", "phase"], at("fov"));
@@ -262,65 +284,65 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   checkKeys(slO, ["thickness", "position", "orientation", "angle", "tiltAxis"], at("slice"));
   const thickness = positive(slO["thickness"], "length", at("slice.thickness"));
   const position = slO["position"] === undefined ? 0 : quantity(slO["position"], "length", at("slice.position"));
-  const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), "axial");
+  const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), D.orientation);
   const angle = slO["angle"] === undefined ? 0 : quantity(slO["angle"], "angle", at("slice.angle"));
   if (Math.abs(angle) > (60 * Math.PI) / 180) throw userError(at("slice.angle"), `an oblique tilt must be within ±60 deg of the orientation, got ${String(slO["angle"])}; choose the nearer orientation`);
-  const tiltAxis = oneOf(slO["tiltAxis"], ["read", "phase"] as const, at("slice.tiltAxis"), "read");
+  const tiltAxis = oneOf(slO["tiltAxis"], ["read", "phase"] as const, at("slice.tiltAxis"), D.tiltAxis);
   const msO = sub(obj, "slices", root, false) ?? {};
   checkKeys(msO, ["count", "gap", "order"], at("slices"));
-  const sliceCount = msO["count"] === undefined ? 1 : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
-  const sliceGap = msO["gap"] === undefined ? 0 : nonNegative(msO["gap"], "length", at("slices.gap"));
-  const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), "interleaved");
+  const sliceCount = msO["count"] === undefined ? D.sliceCount : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
+  const sliceGap = msO["gap"] === undefined ? D.sliceGap : nonNegative(msO["gap"], "length", at("slices.gap"));
+  const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), D.sliceOrder);
   if (def.threeD && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
   const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
   const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
   const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
 
-  const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
+  const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? D.bandwidth, nRead, field, at("bandwidth"));
   const te = positive(obj["te"], "time", at("te"));
   const tr = positive(obj["tr"], "time", at("tr"));
-  const flip = obj["flip"] === undefined ? def.defaults.flip : flipAngle(obj["flip"], at("flip"));
-  const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : flipAngle(obj["refocusFlip"], at("refocusFlip"));
+  const flip = obj["flip"] === undefined ? D.flip : flipAngle(obj["flip"], at("flip"));
+  const refocusFlip = obj["refocusFlip"] === undefined ? D.refocusFlip : flipAngle(obj["refocusFlip"], at("refocusFlip"));
 
   const osO = sub(obj, "oversampling", root, false) ?? {};
   checkKeys(osO, ["read", "phase"], at("oversampling"));
-  const osRead = osO["read"] === undefined ? 2 : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
-  const osPhase = osO["phase"] === undefined ? 0 : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
+  const osRead = osO["read"] === undefined ? D.oversampling.read : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
+  const osPhase = osO["phase"] === undefined ? D.oversampling.phase : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
   if (!Number.isInteger(osRead * nRead)) throw userError(at("oversampling.read"), `read oversampling × matrix.read must be a whole number of samples`);
 
-  const polarity = oneOf(obj["readoutPolarity"], ["positive", "negative"] as const, at("readoutPolarity"), "positive");
+  const polarity = oneOf(obj["readoutPolarity"], ["positive", "negative"] as const, at("readoutPolarity"), D.readoutPolarity);
   const pfO = sub(obj, "partialFourier", root, false) ?? {};
   checkKeys(pfO, ["phase", "read", "method"], at("partialFourier"));
-  const pfPhase = pfO["phase"] === undefined ? 1 : plainNumber(pfO["phase"], at("partialFourier.phase"), { min: 0.5, max: 1 });
-  const pfRead = pfO["read"] === undefined ? 1 : plainNumber(pfO["read"], at("partialFourier.read"), { min: 0.5, max: 1 });
-  const pfMethod = oneOf<PartialFourierRecon>(pfO["method"], ["zero-fill", "homodyne"], at("partialFourier.method"), "homodyne");
+  const pfPhase = pfO["phase"] === undefined ? D.partialFourier.phase : plainNumber(pfO["phase"], at("partialFourier.phase"), { min: 0.5, max: 1 });
+  const pfRead = pfO["read"] === undefined ? D.partialFourier.read : plainNumber(pfO["read"], at("partialFourier.read"), { min: 0.5, max: 1 });
+  const pfMethod = oneOf<PartialFourierRecon>(pfO["method"], ["zero-fill", "homodyne"], at("partialFourier.method"), D.partialFourier.method);
 
-  const receiverFilter = obj["receiverFilter"] === undefined ? true : obj["receiverFilter"];
+  const receiverFilter = obj["receiverFilter"] === undefined ? D.receiverFilter : obj["receiverFilter"];
   if (typeof receiverFilter !== "boolean") throw userError(at("receiverFilter"), "must be true or false");
 
   const hwO = sub(obj, "hardware", root, false) ?? {};
   checkKeys(hwO, ["gmax", "slew"], at("hardware"));
-  const gmax = hwO["gmax"] === undefined ? 0.04 : positive(hwO["gmax"], "gradient", at("hardware.gmax"));
-  const slew = hwO["slew"] === undefined ? 150 : positive(hwO["slew"], "slew", at("hardware.slew"));
+  const gmax = hwO["gmax"] === undefined ? D.hardware.gmax : positive(hwO["gmax"], "gradient", at("hardware.gmax"));
+  const slew = hwO["slew"] === undefined ? D.hardware.slew : positive(hwO["slew"], "slew", at("hardware.slew"));
 
-  const excitation = pulse(sub(obj, "excitation", root, false), at("excitation"), { shape: "sinc", duration: 2e-3, tbw: 4, steps: 200 });
-  const refocusing = pulse(sub(obj, "refocusing", root, false), at("refocusing"), { shape: "sinc", duration: 3e-3, tbw: 4, steps: 200 });
+  const excitation = pulse(sub(obj, "excitation", root, false), at("excitation"), D.excitation);
+  const refocusing = pulse(sub(obj, "refocusing", root, false), at("refocusing"), D.refocusing);
 
-  const spoiling = oneOf(obj["spoiling"], ["ideal", "rf", "none"] as const, at("spoiling"), "ideal");
-  const rfSpoilIncrement = obj["rfSpoilIncrement"] === undefined ? (117 * Math.PI) / 180 : quantity(obj["rfSpoilIncrement"], "angle", at("rfSpoilIncrement"));
-  const dummyScans = obj["dummyScans"] === undefined ? 0 : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
-  const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), "linear");
-  const averages = obj["averages"] === undefined ? 1 : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
-  const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), "half-alpha");
-  const echoTrainLength = obj["echoTrainLength"] === undefined ? def.defaults.echoTrainLength : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
-  const echoSpacing = obj["echoSpacing"] === undefined ? 0 : positive(obj["echoSpacing"], "time", at("echoSpacing"));
-  const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), "linear");
-  const shots = obj["shots"] === undefined ? 1 : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
-  const epiEcho = oneOf(obj["epiEcho"], ["gradient", "spin"] as const, at("epiEcho"), "gradient");
-  const crusherCycles = obj["crusherCycles"] === undefined ? 4 : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
-  const spoilerCycles = obj["spoilerCycles"] === undefined ? 4 : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
+  const spoiling = oneOf(obj["spoiling"], ["ideal", "rf", "none"] as const, at("spoiling"), D.spoiling);
+  const rfSpoilIncrement = obj["rfSpoilIncrement"] === undefined ? D.rfSpoilIncrement : quantity(obj["rfSpoilIncrement"], "angle", at("rfSpoilIncrement"));
+  const dummyScans = obj["dummyScans"] === undefined ? D.dummyScans : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
+  const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), D.phaseOrder);
+  const averages = obj["averages"] === undefined ? D.averages : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
+  const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), D.ssfpPreparation);
+  const echoTrainLength = obj["echoTrainLength"] === undefined ? D.echoTrainLength : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
+  const echoSpacing = obj["echoSpacing"] === undefined ? D.echoSpacing : positive(obj["echoSpacing"], "time", at("echoSpacing"));
+  const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), D.echoOrder);
+  const shots = obj["shots"] === undefined ? D.shots : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
+  const epiEcho = oneOf(obj["epiEcho"], ["gradient", "spin"] as const, at("epiEcho"), D.epiEcho);
+  const crusherCycles = obj["crusherCycles"] === undefined ? D.crusherCycles : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
+  const spoilerCycles = obj["spoilerCycles"] === undefined ? D.spoilerCycles : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
 
-  const shim = obj["shim"] === undefined ? 0 : quantity(obj["shim"], "frequency", at("shim"));
+  const shim = obj["shim"] === undefined ? D.shim : quantity(obj["shim"], "frequency", at("shim"));
 
   return {
     sequence, field,
@@ -330,7 +352,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
     slice: { thickness, position, orientation, angle, tiltAxis },
     slices: { count: sliceCount, gap: sliceGap, order: sliceOrder },
     phaseDirection, readoutPolarity: polarity === "positive" ? 1 : -1, pixelBandwidth,
-    bandwidthAsGiven: String(obj["bandwidth"] ?? "250 Hz/px"),
+    bandwidthAsGiven: String(obj["bandwidth"] ?? D.bandwidth),
     te, tr, flip, refocusFlip,
     oversampling: { read: osRead, phase: osPhase },
     receiverFilter,

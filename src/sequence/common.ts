@@ -9,7 +9,7 @@
  * increasing order in time; polarity −1 in decreasing order (its samples are
  * stored in time order and the recon reverses the row, see Sequence.grid).
  */
-import { GAMMA_BAR } from "../constants.js";
+import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { UserError } from "../errors.js";
 import type { Protocol, PulseSpec } from "../protocol/types.js";
 import { logicalAxes } from "../protocol/geometry.js";
@@ -17,8 +17,8 @@ import { makePulse } from "./rf.js";
 import { minTrapezoid, rampTime, type Trapezoid } from "./trapezoid.js";
 import type { Block, Derived, RFWaveform, Vec3 } from "./types.js";
 
-/** Fat–water offset used in reports: main methylene peak −3.4 ppm (Hamilton et al. 2011, NMR Biomed 24:784). */
-export const FAT_PPM = 3.4;
+/** Fat–water offset used in reports (ppm, magnitude): the main methylene peak, FAT_SINGLE_PPM (constants.ts). */
+export const FAT_PPM = -FAT_SINGLE_PPM;
 
 /** Peak gradient amplitude and slew demanded on each logical axis [read, phase, slice]. */
 export class Demand {

@@ -21,7 +21,7 @@ import type { Protocol } from "../protocol/types.js";
 import { GAMMA_BAR } from "../constants.js";
 import { UserError } from "../errors.js";
 import {
-  commonDerived, Demand, lobes, phasePlan, pushPulse, readoutPlan, requireAtLeast, sliceSelect,
+  commonDerived, Demand, FAT_PPM, lobes, phasePlan, pushPulse, readoutPlan, requireAtLeast, sliceSelect,
 } from "./common.js";
 import { minTrapezoid } from "./trapezoid.js";
 import type { Block, Sequence, SequenceDefinition } from "./types.js";
@@ -136,7 +136,7 @@ export function buildEpi(p: Protocol): Sequence {
   derived["phaseBlipArea"] = { value: S * pe.step, unit: "T·s/m" };
   derived["phaseBlipDuration"] = { value: blip.duration, unit: "s" };
   derived["phasePixelBandwidth"] = { value: 1 / dispPerHz, unit: "Hz/px", note: "shots/(ESP·N_lines): Δy_px = Δf/BW_px,phase (Jezzard & Balaban 1995)" };
-  derived["fatShiftPhase"] = { value: 3.4e-6 * GAMMA_BAR * p.field * dispPerHz, unit: "px", note: "fat at 3.4 ppm, along phase" };
+  derived["fatShiftPhase"] = { value: FAT_PPM * 1e-6 * GAMMA_BAR * p.field * dispPerHz, unit: "px", note: `fat at ${FAT_PPM} ppm, along phase` };
   derived["trainDuration"] = { value: trainTime, unit: "s" };
   derived["prephaserDuration"] = { value: prep.duration, unit: "s" };
   derived["prephaserReadAmplitude"] = { value: prep.trap[0]!.amplitude, unit: "T/m" };
