@@ -11,6 +11,8 @@ import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } fr
 import { registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
+import { registerCheck } from "./check.js";
+import { registerValidate } from "./validate.js";
 import { AbortedError } from "../engine/index.js";
 
 const program = new Command();
@@ -61,6 +63,8 @@ addSimulationOptions(
 registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
+registerCheck(program);
+registerValidate(program);
 
 async function main(): Promise<void> {
   try {
