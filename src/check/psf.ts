@@ -9,8 +9,9 @@
  * w(u) = e^{a·u + b} on [u0, u1], each piece integrates in closed form:
  *   ∫ e^{(a + i2πx)u + b} du = e^b·(e^{z·u1} − e^{z·u0})/z,  z = a + i2πx.
  * Uniform weighting gives the sinc, FWHM 1.2067 px; a decay e^{−t/T2*} over a
- * readout of T_acq gives a = −T_acq/T2*, and for T2* ≪ T_acq the Lorentzian
- * width T_acq/(π·T2*) px.
+ * readout of T_acq gives a = −T_acq/T2*, and for T2* ≪ T_acq |h| is the
+ * magnitude of a one-sided (complex) Lorentzian, 1/|β + i2πx| with
+ * β = T_acq/T2*, of FWHM √3·T_acq/(π·T2*) px.
  * A sampled window (one weight per line, e.g. an echo train) is the discrete
  * sum h(y) = Σ_n w_n·e^{i2π(n − c)y/L}.
  */

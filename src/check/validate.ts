@@ -14,6 +14,7 @@ import { logicalAxes, parseProtocolObject, type Protocol } from "../protocol/ind
 import type { ComplexVolume } from "../recon/reconstruct.js";
 import { buildSequence, makePulse, type Sequence } from "../sequence/index.js";
 import { checkProtocol } from "./index.js";
+import { fwhm, fwhmGradientEcho } from "./psf.js";
 import { foldedSignal } from "./measure.js";
 
 /** What a case needs from a simulation of a protocol on a phantom. */
@@ -114,6 +115,26 @@ export function phaseShiftPx(a: { re: ArrayLike<number>; im: ArrayLike<number> }
   return (-Math.atan2(si, sr) * nPhase) / (2 * Math.PI);
 }
 
+/** bSSFP image value at Δf (% of the on-resonance closed form) against Freeman–Hill in the elliptical form (Xiang & Hoff 2014). */
+function bssfp(sim: Simulator, df: number): { expected: number; measured: number } {
+  const tr = 5e-3, te = 2.5e-3, t1 = 0.2, t2 = 0.05, alpha = (40 * Math.PI) / 180;
+  const closed = (f: number): number => {
+    const e1 = Math.exp(-tr / t1), e2 = Math.exp(-tr / t2);
+    const d = 1 - e1 * Math.cos(alpha) - e2 * e2 * (e1 - Math.cos(alpha));
+    const m = ((1 - e1) * Math.sin(alpha)) / d, a = e2, b = (e2 * (1 - e1) * (1 + Math.cos(alpha))) / d;
+    const th = 2 * Math.PI * f * tr + Math.PI;
+    return ((m * Math.hypot(1 - a * Math.cos(th), -a * Math.sin(th))) / (1 - b * Math.cos(th))) * Math.exp(-te / t2);
+  };
+  const p = proto({
+    sequence: "bssfp", tr: "5 ms", te: "2.5 ms", flip: "40 deg", bandwidth: "500 Hz/px", dummyScans: 400,
+    matrix: { read: 16, phase: 16 }, ssfpPreparation: "half-alpha", excitation: { shape: "hard", duration: "0.05 ms", steps: 10 },
+  });
+  const s = sim(p, phantom(disc("6 cm", gel("200 ms", "50 ms"), ["0 cm", "0 cm"], String(df)), 1.5), { density: 1, sliceCount: 1, sliceExtent: 1 });
+  let v = 0, n = 0;
+  for (let y = 6; y <= 10; y++) for (let x = 6; x <= 10; x++) { v += s.mag[y * 16 + x]!; n++; }
+  return { expected: (100 * closed(df)) / closed(0), measured: (100 * (v / n)) / closed(0) };
+}
+
 interface Case {
   check: string;
   source: string;
@@ -142,6 +163,28 @@ export const CASES: Case[] = [
     run: (sim) => {
       const s = sim(proto({ sequence: "se", te: "20 ms", tr: "500 ms", flip: "90 deg", dummyScans: 4 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
       const TE = 0.02, TR = 0.5;
+      const want = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
+      return { expected: 100, measured: (100 * centre(s)) / m0(s) / want };
+    },
+  },
+  {
+    check: "spoiled gradient echo vs Ernst equation (α = 70°)",
+    source: "Ernst & Anderson 1966, Rev Sci Instrum 37:93",
+    unit: "% of expected", tolerance: 0.2,
+    run: (sim) => {
+      const T1 = 0.8, T2 = 0.09, TR = 0.02, TE = 0.003, a = (70 * Math.PI) / 180, E1 = Math.exp(-TR / T1);
+      const s = sim(proto({ dummyScans: 300, flip: "70 deg" }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
+      const ernst = ((Math.sin(a) * (1 - E1)) / (1 - E1 * Math.cos(a))) * Math.exp(-TE / T2);
+      return { expected: 100, measured: (100 * centre(s)) / m0(s) / ernst };
+    },
+  },
+  {
+    check: "spin echo amplitude (TE 100 ms, TR 300 ms)",
+    source: "Hahn 1950, Phys Rev 80:580; Haacke et al. 1999, ch. 8",
+    unit: "% of expected", tolerance: 0.5,
+    run: (sim) => {
+      const s = sim(proto({ sequence: "se", te: "100 ms", tr: "300 ms", flip: "90 deg", dummyScans: 4 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
+      const TE = 0.1, TR = 0.3;
       const want = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
       return { expected: 100, measured: (100 * centre(s)) / m0(s) / want };
     },
@@ -257,23 +300,49 @@ export const CASES: Case[] = [
     check: "bSSFP signal at Δf = 60 Hz vs Freeman–Hill (TR 5 ms, α 40°)",
     source: "Freeman & Hill 1971, JMR 4:366",
     unit: "% of on-resonance", tolerance: 1,
+    run: (sim) => bssfp(sim, 60),
+  },
+  {
+    check: "bSSFP dark band at Δf = 1/(2TR) = 100 Hz vs Freeman–Hill",
+    source: "Freeman & Hill 1971, JMR 4:366",
+    unit: "% of on-resonance", tolerance: 1,
+    run: (sim) => bssfp(sim, 100),
+  },
+  {
+    check: "EPI, 4 interleaved shots, Δf = +300 Hz: Δf·N·ESP/shots",
+    source: "Jezzard & Balaban 1995, MRM 34:65",
+    unit: "px", tolerance: 0.2,
     run: (sim) => {
-      const tr = 5e-3, te = 2.5e-3, t1 = 0.2, t2 = 0.05, alpha = (40 * Math.PI) / 180;
-      const closed = (df: number): number => {
-        const e1 = Math.exp(-tr / t1), e2 = Math.exp(-tr / t2);
-        const d = 1 - e1 * Math.cos(alpha) - e2 * e2 * (e1 - Math.cos(alpha));
-        const m = ((1 - e1) * Math.sin(alpha)) / d, a = e2, b = (e2 * (1 - e1) * (1 + Math.cos(alpha))) / d;
-        const th = 2 * Math.PI * df * tr + Math.PI;
-        return ((m * Math.hypot(1 - a * Math.cos(th), -a * Math.sin(th))) / (1 - b * Math.cos(th))) * Math.exp(-te / t2);
+      const p = proto({ sequence: "epi", matrix: { read: 32, phase: 32 }, tr: "500 ms", te: "20 ms", flip: "90 deg", bandwidth: "2000 Hz/px", shots: 4, dummyScans: 1, excitation: { shape: "hard", duration: "0.1 ms", steps: 20 } });
+      const d = (df: number) => phantom(disc("2.5 cm", gel("2000 ms", "2000 ms"), ["0 cm", "0 cm"], String(df)), 1.5);
+      const a = sim(p, d(0), { density: 1, sliceCount: 1, sliceExtent: 1 }), b = sim(p, d(300), { density: 1, sliceCount: 1, sliceExtent: 1 });
+      const esp = b.seq.derived["echoSpacing"]!.value as number;
+      return { expected: (300 * b.seq.kspace.phase * esp) / p.shots, measured: phaseShiftPx(a.image, b.image, 32, 32) };
+    },
+  },
+  {
+    check: "isofold check: T2* readout blur, PSF FWHM (T2* 3 ms, 10 ms readout)",
+    source: "exponentially weighted sampling window (Haacke et al. 1999, ch. 13) against the simulated k-space",
+    unit: "px", tolerance: 0.2,
+    run: (sim) => {
+      const t2s = 0.003;
+      const ph = phantom({
+        tissues: { t: { pd: 1, t1: "300 ms", t2: "100 ms", t2star: "3 ms", species: "water" } },
+        shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["0.5 mm", "5 cm"], tissue: "t" }],
+      }, 3);
+      const p = proto({ field: "3 T", fov: { read: "6.4 cm", phase: "6.4 cm" }, matrix: { read: 64, phase: 4 }, bandwidth: "100 Hz/px", te: "8 ms", tr: "50 ms", flip: "90 deg", excitation: { shape: "hard", duration: "0.1 ms", steps: 4 } });
+      const s = sim(p, ph, { density: 1, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: 64 });
+      const nAcq = s.seq.kspace.read, c = s.seq.centre.read, row = s.seq.centre.phase;
+      const h = (x: number) => {
+        let a = 0, b = 0;
+        for (let j = 0; j < nAcq; j++) {
+          const th = (2 * Math.PI * (j - c) * x) / nAcq, co = Math.cos(th), si = Math.sin(th);
+          const re = s.kacq.re[row * nAcq + j]!, im = s.kacq.im[row * nAcq + j]!;
+          a += re * co - im * si; b += re * si + im * co;
+        }
+        return Math.hypot(a, b);
       };
-      const p = proto({
-        sequence: "bssfp", tr: "5 ms", te: "2.5 ms", flip: "40 deg", bandwidth: "500 Hz/px", dummyScans: 400,
-        matrix: { read: 16, phase: 16 }, ssfpPreparation: "half-alpha", excitation: { shape: "hard", duration: "0.05 ms", steps: 10 },
-      });
-      const s = sim(p, phantom(disc("6 cm", gel("200 ms", "50 ms"), ["0 cm", "0 cm"], "60"), 1.5), { density: 1, sliceCount: 1, sliceExtent: 1 });
-      let v = 0, n = 0;
-      for (let y = 6; y <= 10; y++) for (let x = 6; x <= 10; x++) { v += s.mag[y * 16 + x]!; n++; }
-      return { expected: (100 * closed(60)) / closed(0), measured: (100 * (v / n)) / closed(0) };
+      return { expected: fwhmGradientEcho(1 / p.pixelBandwidth, t2s), measured: fwhm(h) };
     },
   },
   {
