@@ -357,7 +357,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
         tissue: ph.tissues[sh.tissue]!.name,
         from,
         beyondEdge: a.beyond,
-        landsPx: lands ? [Math.ceil(displayedIndex(lo, M) - 1e-9), Math.floor(displayedIndex(hi, M) + 1e-9)] : null,
+        landsPx: lands ? [Math.ceil(displayedIndex(lo, M) - 1e-9) + 0, Math.floor(displayedIndex(hi, M) + 1e-9) + 0] : null,
         landsM: lands ? [lo * d, hi * d] : null,
         landsRows: a.rows.size,
         roiPixels: a.roi,

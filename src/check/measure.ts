@@ -25,7 +25,7 @@ export interface FoldedMeasurement {
  * Folded pixels: the truth (unfolded phantom on the image grid) is empty within
  * one pixel (so blur, ringing and small shifts next to an object do not count)
  * and the magnitude exceeds `fraction` of the median magnitude over the
- * phantom's pixels.
+ * phantom's pixels (of the largest magnitude when none lies in the image).
  */
 export function foldedSignal(
   mag: ArrayLike<number>, pd: ArrayLike<number>, nR: number, nP: number, inRoi: (col: number, row: number) => boolean, fraction = 0.3,
@@ -33,7 +33,10 @@ export function foldedSignal(
   const vals: number[] = [];
   for (let i = 0; i < nR * nP; i++) if (pd[i]! > 0) vals.push(mag[i]!);
   vals.sort((a, b) => a - b);
-  const level = vals.length ? vals[Math.floor(vals.length / 2)]! : 0;
+  // no phantom in the image (everything folds in from outside): judge against the brightest pixel
+  let max = 0;
+  for (let i = 0; i < nR * nP; i++) max = Math.max(max, mag[i]!);
+  const level = vals.length ? vals[Math.floor(vals.length / 2)]! : max;
   const near = (r: number, c: number): boolean => {
     for (let a = -1; a <= 1; a++) for (let b = -1; b <= 1; b++) {
       const rr = r + a, cc = c + b;
