@@ -23,12 +23,14 @@ export interface FoldedMeasurement {
 
 /**
  * Folded pixels: the truth (unfolded phantom on the image grid) is empty within
- * one pixel (so blur, ringing and small shifts next to an object do not count)
+ * `reach` pixels (default 1: blur and ringing next to an object do not count;
+ * pass the predicted fat shift and distortion so that shifted signal does not either)
  * and the magnitude exceeds `fraction` of the median magnitude over the
  * phantom's pixels (of the largest magnitude when none lies in the image).
  */
 export function foldedSignal(
   mag: ArrayLike<number>, pd: ArrayLike<number>, nR: number, nP: number, inRoi: (col: number, row: number) => boolean, fraction = 0.3,
+  reach: { read: number; phase: number } = { read: 1, phase: 1 },
 ): FoldedMeasurement {
   const vals: number[] = [];
   for (let i = 0; i < nR * nP; i++) if (pd[i]! > 0) vals.push(mag[i]!);
@@ -38,7 +40,7 @@ export function foldedSignal(
   for (let i = 0; i < nR * nP; i++) max = Math.max(max, mag[i]!);
   const level = vals.length ? vals[Math.floor(vals.length / 2)]! : max;
   const near = (r: number, c: number): boolean => {
-    for (let a = -1; a <= 1; a++) for (let b = -1; b <= 1; b++) {
+    for (let a = -reach.phase; a <= reach.phase; a++) for (let b = -reach.read; b <= reach.read; b++) {
       const rr = r + a, cc = c + b;
       if (rr >= 0 && rr < nP && cc >= 0 && cc < nR && pd[rr * nR + cc]! > 0) return true;
     }
@@ -53,6 +55,31 @@ export function foldedSignal(
     if (!(m > fraction * level) || near(r, c)) continue;
     rows.add(r);
     if (roi) { roiPixels++; roiFolded += m * m; }
+  }
+  const list = [...rows].sort((a, b) => a - b);
+  return {
+    rows: rows.size, firstRow: list.length ? list[0]! : null, lastRow: list.length ? list[list.length - 1]! : null,
+    roiPixels, roiEnergyFraction: roiAll > 0 ? roiFolded / roiAll : 0, level,
+  };
+}
+
+/**
+ * Folded signal as the difference between the image and a reference image of
+ * the same scan with enough phase oversampling that nothing folds: pixels
+ * where |image − reference| exceeds `fraction` of `level`.
+ */
+export function foldedByDifference(
+  mag: ArrayLike<number>, diff: ArrayLike<number>, level: number, nR: number, nP: number, inRoi: (col: number, row: number) => boolean, fraction = 0.3,
+): FoldedMeasurement {
+  const rows = new Set<number>();
+  let roiPixels = 0, roiFolded = 0, roiAll = 0;
+  for (let r = 0; r < nP; r++) for (let c = 0; c < nR; c++) {
+    const i = r * nR + c, d = diff[i]!;
+    const roi = inRoi(c, r);
+    if (roi) { roiAll += mag[i]! * mag[i]!; roiFolded += d * d; }
+    if (!(d > fraction * level)) continue;
+    rows.add(r);
+    if (roi) roiPixels++;
   }
   const list = [...rows].sort((a, b) => a - b);
   return {
@@ -88,13 +115,16 @@ const UP = 8;
 /**
  * Edge-spread width along read on a complex image [phase][read]: the row and
  * column of the largest magnitude step between neighbours (away from the
- * borders); the row is interpolated 8× (zero-padded in k-space) and the 10–90 %
+ * borders, among the steps `ok` accepts); the row is interpolated 8× (zero-padded in k-space) and the 10–90 %
  * rise measured between plateaus 3 px either side.
  */
-export function edgeWidthImage(re: ArrayLike<number>, im: ArrayLike<number>, nR: number, nP: number): { row: number; col: number; brightCol: number; width: number } | null {
+export function edgeWidthImage(
+  re: ArrayLike<number>, im: ArrayLike<number>, nR: number, nP: number, ok: (row: number, brightCol: number, darkCol: number) => boolean = () => true,
+): { row: number; col: number; brightCol: number; width: number } | null {
   let best = 0, br = -1, bc = -1;
   for (let r = 0; r < nP; r++) for (let c = 4; c < nR - 5; c++) {
     const m0 = Math.hypot(re[r * nR + c]!, im[r * nR + c]!), m1 = Math.hypot(re[r * nR + c + 1]!, im[r * nR + c + 1]!);
+    if (!(m1 > m0 ? ok(r, c + 1, c) : ok(r, c, c + 1))) continue;
     if (Math.abs(m1 - m0) > best) { best = Math.abs(m1 - m0); br = r; bc = c; }
   }
   if (br < 0) return null;

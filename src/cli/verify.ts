@@ -9,7 +9,7 @@ import { join } from "node:path";
 import { tmpdir } from "node:os";
 import { fatShiftInputFor, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { parseRoi, type CheckResult } from "../check/index.js";
-import { edgeWidthImage, edgeWidthPredicted, foldedSignal, meanReadShift } from "../check/measure.js";
+import { edgeWidthImage, edgeWidthPredicted, foldedByDifference, foldedSignal, meanReadShift } from "../check/measure.js";
 import { simulateParallel, simulateSerial } from "../engine/index.js";
 import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 import { logicalAxes, toPhysical } from "../protocol/index.js";
@@ -50,16 +50,21 @@ export async function verifyCheck(
   phantomFile: string, o: CheckCliOptions, result: CheckResult, extra: { workers?: number; iso?: Partial<IsochromatOptions> } = {},
 ): Promise<VerifyResult> {
   const t0 = Date.now();
-  const prep = prepare({
-    phantom: phantomFile, protocol: o.protocol, sets: o.set ?? [], out: join(tmpdir(), "isofold-verify-unused"), seed: 1,
-    iso: { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }, quiet: true,
-  });
+  const once = async (sets: string[]) => {
+    const prep = prepare({
+      phantom: phantomFile, protocol: o.protocol, sets, out: join(tmpdir(), "isofold-verify-unused"), seed: 1,
+      iso: { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }, quiet: true,
+    });
+    const mid = prep.slices[Math.floor(prep.slices.length / 2)]!;
+    const sl = mid.iso.count > 0 ? mid : prep.slices.find((s) => s.iso.count > 0)!;
+    const workers = extra.workers ?? defaultWorkers();
+    const { kspace } = workers <= 1
+      ? simulateSerial(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter })
+      : await simulateParallel(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, workers });
+    return { prep, sl, kspace };
+  };
+  const { prep, sl, kspace } = await once(o.set ?? []);
   const { protocol: p, phantom } = prep;
-  const sl = prep.slices[Math.floor(prep.slices.length / 2)]!.iso.count > 0 ? prep.slices[Math.floor(prep.slices.length / 2)]! : prep.slices.find((s) => s.iso.count > 0)!;
-  const workers = extra.workers ?? defaultWorkers();
-  const { kspace } = workers <= 1
-    ? simulateSerial(sl.seq, sl.iso, { receiverFilter: p.receiverFilter })
-    : await simulateParallel(sl.seq, sl.iso, { receiverFilter: p.receiverFilter, workers });
   const seq = sl.seq;
   const grid = toGrid({ slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im }, seq.grid);
   const img = reconstructGrid(grid, seq.grid, seq.image);
@@ -88,18 +93,42 @@ export async function verifyCheck(
     toPhysical(axes, u, v, position, xyz);
     return roiShape.contains(xyz[0]!, xyz[1]!, xyz[2]!);
   };
-  const fold = foldedSignal(mag, truth.pd, nR, nP, inRoi);
+  // shifted (fat, B0) signal next to an object is not folded signal
+  const px = (key: string) => Math.abs(((result.items.find((i) => i.key === key)?.detail ?? {}) as { px?: number }).px ?? 0);
+  const reach = {
+    read: 1 + Math.ceil(Math.max(px("fatShiftRead"), px("distortionRead"))),
+    phase: 1 + Math.ceil(Math.max(px("fatShiftPhase"), px("distortionPhase"))),
+  };
+  const wp0 = result.wrap.phase;
+  let fold = foldedSignal(mag, truth.pd, nR, nP, inRoi, 0.3, reach);
+  let how = `rows holding signal where the phantom has none within ${reach.read} px along read and ${reach.phase} px along phase`;
+  if (wp0.folded.length > 0 && wp0.minOversampling !== null && wp0.minOversampling > p.oversampling.phase) {
+    // a reference scan with enough phase oversampling that nothing folds: folded signal = |image − reference|
+    const ref = await once([...(o.set ?? []), `oversampling.phase=${wp0.minOversampling}`]);
+    const rs = ref.sl.seq;
+    const rimg = reconstructGrid(toGrid({ slice: rs.kspace.slice, phase: rs.kspace.phase, read: rs.kspace.read, re: ref.kspace.re, im: ref.kspace.im }, rs.grid), rs.grid, rs.image);
+    const diff = new Float64Array(nR * nP);
+    for (let i = 0; i < nR * nP; i++) diff[i] = Math.hypot(plane.re[i]! - rimg.re[mid * nR * nP + i]!, plane.im[i]! - rimg.im[mid * nR * nP + i]!);
+    fold = foldedByDifference(mag, diff, fold.level, nR, nP, inRoi);
+    how = `rows where the image differs from a fold-free reference (phase oversampling ${(wp0.minOversampling * 100).toFixed(0)} %)`;
+  }
   const wp = result.wrap.phase;
   const landed = wp.folded.filter((f) => f.landsPx);
   const pLo = landed.length ? Math.min(...landed.map((f) => f.landsPx![0])) : null;
   const pHi = landed.length ? Math.max(...landed.map((f) => f.landsPx![1])) : null;
-  rows.push(row("folded rows along phase", wp.rows, fold.rows, "rows of the image holding signal where the phantom has none (above 30 % of the object's median)"));
+  rows.push(row("folded rows along phase", wp.rows, fold.rows, `${how}, above 30 % of the object's median`));
   rows.push(row("folded band: first row", pLo, fold.firstRow, "displayed row index"));
   rows.push(row("folded band: last row", pHi, fold.lastRow, "displayed row index"));
   rows.push(row("folded pixels in the ROI", wp.roiPixels, fold.roiPixels, `folded signal energy in the ROI: ${(fold.roiEnergyFraction * 100).toFixed(1)} % of the ROI's image energy (measured)`));
 
   // blur: edge spread along read at the steepest edge
-  const edge = edgeWidthImage(plane.re, plane.im, nR, nP);
+  // a water edge against empty space, 4 px clear of anything else along the row (fat edges carry the spectrum's copies)
+  const clear = (r: number, c0: number, dir: number) => {
+    for (let k = 0; k < 4; k++) { const c = c0 + dir * k; if (c < 0 || c >= nR || truth.pd[r * nR + c]! > 0) return false; }
+    return true;
+  };
+  const edge = edgeWidthImage(plane.re, plane.im, nR, nP, (r, b, d) =>
+    truth.pd[r * nR + b]! > 0 && truth.fatFraction[r * nR + b]! < 0.5 && clear(r, d, d - b));
   if (edge) {
     const lbl = truth.label[edge.row * nR + edge.brightCol]!;
     const tissue = lbl > 0 ? phantom.tissues.find((t) => t.name === truth.labels[lbl - 1]) ?? null : null;
