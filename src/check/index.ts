@@ -97,7 +97,7 @@ export interface CheckOptions {
   thresholds?: Record<string, Threshold>;
   /** Reference protocol's sequence for the relative SNR (default: the built-in reference of `relativeSnr`). */
   reference?: { name: string; seq: Sequence } | null;
-  /** Points per in-plane axis at most when sampling the phantom (default 400). */
+  /** Points per in-plane axis at most when sampling the phantom (default 320). */
   maxPoints?: number;
 }
 
@@ -162,9 +162,22 @@ interface Sampling {
   planes: SlabPlane[];
 }
 
+const BOXES = new WeakMap<Phantom, Float64Array>();
+
 /** Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1. */
 function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
+  let box = BOXES.get(ph);
+  if (!box) {
+    box = new Float64Array(ph.shapes.length * 6);
+    ph.shapes.forEach((sh, k) => {
+      const b = sh.bounds();
+      box!.set([b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]], k * 6);
+    });
+    BOXES.set(ph, box);
+  }
   for (let s = ph.shapes.length - 1; s >= 0; s--) {
+    const o = s * 6;
+    if (x < box[o]! || x > box[o + 1]! || y < box[o + 2]! || y > box[o + 3]! || z < box[o + 4]! || z > box[o + 5]!) continue;
     const sh = ph.shapes[s]!;
     if (sh.contains(x, y, z)) return ph.tissues[sh.tissue]!.pd > 0 ? s : -1;
   }
@@ -216,7 +229,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- planes through the imaged slab ----
   const planes: SlabPlane[] = [];
   if (threeD) {
-    const n = Math.min(Ms, 6);
+    const n = Math.min(Ms, 3);
     for (let k = 0; k < n; k++) {
       const step = n === 1 ? Math.floor(Ms / 2) : Math.round((k * (Ms - 1)) / (n - 1));
       planes.push({ w: p.slice.position + (step - Math.floor(Ms / 2)) * p.slice.thickness });
@@ -228,7 +241,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   }
   const clipU = p.fov.read * p.oversampling.read, clipV = 1.5 * p.fov.phase * (1 + p.oversampling.phase);
   const [u0, u1, v0, v1] = logicalBounds(ph, axes, clipU, clipV);
-  const maxPts = opts.maxPoints ?? 400;
+  const maxPts = opts.maxPoints ?? 320;
   const hu = Math.max(dx / 4, (u1 - u0) / maxPts), hv = Math.max(dy / 4, (v1 - v0) / maxPts);
   const sampling: Sampling = { hu, hv, u0, u1, v0, v1, planes };
 
@@ -261,14 +274,15 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   let vMinAt: [number, number] = [0, 0], vMaxAt: [number, number] = [0, 0];
   let dfMin = Infinity, dfMax = -Infinity, dfSum = 0, nSig = 0;
   type Acc = { lo: number; hi: number; beyond: number; roi: number; rows: Set<number> };
-  const phaseAcc = new Map<string, Acc>(), readAcc = new Map<string, Acc>();
+  const phaseAcc = new Map<number, Acc>(), readAcc = new Map<number, Acc>();
   const phaseRows = new Set<number>(), readRows = new Set<number>();
   let phaseRoi = 0, readRoi = 0;
   const filterDim = new Set<number>();
   const fOn = p.receiverFilter;
   // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/chunk.ts)
   const filterEdgePx = 0.42 * Lr;
-  const acc = (m: Map<string, Acc>, key: string): Acc => {
+  // key: 2·shape + (1 when leaving toward the positive side)
+  const acc = (m: Map<number, Acc>, key: number): Acc => {
     let a = m.get(key);
     if (!a) { a = { lo: Infinity, hi: -Infinity, beyond: 0, roi: 0, rows: new Set() }; m.set(key, a); }
     return a;
@@ -293,12 +307,10 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
         uMin = Math.min(uMin, u); uMax = Math.max(uMax, u);
         const df = (ph.b0 ? ph.b0(xyz[0]!, xyz[1]!, xyz[2]!) : 0) + p.shim;
         dfMin = Math.min(dfMin, df); dfMax = Math.max(dfMax, df); dfSum += df; nSig++;
-        const label = sh.label || `shape ${s + 1} (${sh.type})`;
         // phase
         const pv = v / dy;
         if (!insideAcquired(pv, Lp)) {
-          const side = pv > 0 ? `+${names.phase}` : `-${names.phase}`;
-          const a = acc(phaseAcc, `${s}\u0000${side}`);
+          const a = acc(phaseAcc, 2 * s + (pv > 0 ? 1 : 0));
           a.beyond = Math.max(a.beyond, pv > 0 ? (pv - edgeHiP) * dy : (edgeLoP - pv) * dy);
           const f = foldPx(pv, Lp);
           if (insideDisplayed(f, Mp)) {
@@ -311,8 +323,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
         // read (folds only without the receiver filter)
         const pu = u / dx;
         if (!fOn && !insideAcquired(pu, Lr)) {
-          const side = pu > 0 ? `+${names.read}` : `-${names.read}`;
-          const a = acc(readAcc, `${s}\u0000${side}`);
+          const a = acc(readAcc, 2 * s + (pu > 0 ? 1 : 0));
           a.beyond = Math.max(a.beyond, pu > 0 ? (pu - edgeHiR) * dx : (edgeLoR - pu) * dx);
           const f = foldPx(pu, Lr);
           if (insideDisplayed(f, Mr)) {
@@ -343,10 +354,10 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   if (vMax < v1) vMax = refine(vMax, vMaxAt, 1);
   if (vMin > v0) vMin = refine(vMin, vMinAt, -1);
 
-  const foldedList = (m: Map<string, Acc>, d: number, M: number): FoldedShape[] => {
+  const foldedList = (m: Map<number, Acc>, d: number, M: number, axisName: string): FoldedShape[] => {
     const out: FoldedShape[] = [];
     for (const [key, a] of m) {
-      const [s, from] = key.split("\u0000") as [string, string];
+      const s = Math.floor(key / 2), from = `${key % 2 ? "+" : "-"}${axisName}`;
       const sh = ph.shapes[Number(s)]!;
       const lands = Number.isFinite(a.lo);
       // the sampled positions are within half a sampling step of the true landing edges
@@ -385,7 +396,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
 
   // ---- wrap along phase ----
   const fovAcqP = Lp * dy;
-  const phaseFolded = foldedList(phaseAcc, dy, Mp);
+  const phaseFolded = foldedList(phaseAcc, dy, Mp, names.phase);
   const minFov = minFovNoWrap(vMin, vMax, Mp, Lp);
   const minOs = minOversamplingNoWrap(vMin, vMax, Mp, p.fov.phase);
   const phaseWrap: AxisWrap = {
@@ -417,7 +428,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     phaseRoi > 0 ? `folded signal covers ~${f1(phaseRoi)} px of the ROI (${roiText})` : `no folded signal lands in the ROI (${roiText})`));
 
   // ---- wrap along read ----
-  const readFolded = foldedList(readAcc, dx, Mr);
+  const readFolded = foldedList(readAcc, dx, Mr, names.read);
   const uAbs = Math.max(Math.abs(uMin), Math.abs(uMax));
   const readWrap: AxisWrap = {
     axis: "read", direction: names.read, fov: p.fov.read, fovAcquired: Lr * dx, extent: [uMin, uMax],
@@ -586,15 +597,15 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
   // sample the phantom coarsely in planes beyond the slab, one slab width on each side
   const slab = Ms * t;
   const xyz = [0, 0, 0];
-  const nu = 48, nv = 48;
+  const nu = 32, nv = 32;
   let worst = 0;
   const folded: FoldedShape[] = [];
   const rows = new Set<number>();
   let wMin = Infinity, wMax = -Infinity;
   const edgeHi = Ls - Math.floor(Ls / 2) - 0.5, edgeLo = -Math.floor(Ls / 2) - 0.5;
   const perSide = new Map<string, { beyond: number; lo: number; hi: number; exc: number; shape: string; tissue: string }>();
-  for (let k = -2 * Ms; k <= 2 * Ms; k++) {
-    const dw = (k / 2) * t;
+  for (let k = -3 * Ms; k <= 3 * Ms; k++) {
+    const dw = (k / 4) * t * 2;
     const w = p.slice.position + dw;
     const e = pulse.gradient !== 0 ? profile(dw) : 1;
     for (let a = 0; a <= nu; a++) for (let b = 0; b <= nv; b++) {
@@ -608,7 +619,7 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
       worst = Math.max(worst, e);
       const sh = ph.shapes[o]!;
       const side = pw > 0 ? `+${axes.names.slice}` : `-${axes.names.slice}`;
-      const key = `${o}\u0000${side}`;
+      const key = `${o}\u0000${side}`; // only for folding points (few)
       const f = foldPx(pw, Ls);
       const idx = Math.round(displayedIndex(f, Ms));
       rows.add(idx);
