@@ -604,8 +604,8 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
   let wMin = Infinity, wMax = -Infinity;
   const edgeHi = Ls - Math.floor(Ls / 2) - 0.5, edgeLo = -Math.floor(Ls / 2) - 0.5;
   const perSide = new Map<string, { beyond: number; lo: number; hi: number; exc: number; shape: string; tissue: string }>();
-  for (let k = -3 * Ms; k <= 3 * Ms; k++) {
-    const dw = (k / 4) * t * 2;
+  for (let k = -2 * Ms; k <= 2 * Ms; k++) {
+    const dw = (k * t) / 2;
     const w = p.slice.position + dw;
     const e = pulse.gradient !== 0 ? profile(dw) : 1;
     for (let a = 0; a <= nu; a++) for (let b = 0; b <= nv; b++) {
