@@ -65,6 +65,8 @@ registerProtocol(program);
 registerMerge(program);
 registerCheck(program);
 registerValidate(program);
+// the safety note closes every subcommand's --help
+for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 
 async function main(): Promise<void> {
   try {
