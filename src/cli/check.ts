@@ -10,7 +10,7 @@ import { loadPhantom } from "../phantom/index.js";
 import { loadProtocol, type Protocol } from "../protocol/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
-import { readRealNpy } from "./pipeline.js";
+import { printWarnings, readRealNpy } from "./pipeline.js";
 import { verifyCheck, type VerifyRow } from "./verify.js";
 
 export interface CheckCliOptions {
@@ -41,6 +41,7 @@ export function runCheck(phantomFile: string, o: CheckCliOptions): { result: Che
   const reference = o.reference ? { name: o.reference, seq: sequenceOf(loadProtocol(o.reference), o.reference) } : null;
   const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const result = checkProtocol(phantom, protocol, seq, { roi, roiText: o.roi, thresholds, reference });
+  result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
   return { result, protocol, seq };
 }
 
@@ -86,7 +87,8 @@ export function registerCheck(program: Command): void {
     .option("--json", "print JSON (SI values in detail fields) instead of the table")
     .option("--verify", "also simulate the protocol (in-process, small) and print predicted and measured values side by side")
     .action(async (phantomFile: string, o: CheckCliOptions) => {
-      const { result } = runCheck(phantomFile, o);
+      const { result, protocol } = runCheck(phantomFile, o);
+      printWarnings(protocol.warnings);
       const verify = o.verify ? await verifyCheck(phantomFile, o, result) : null;
       if (o.json) {
         process.stdout.write(JSON.stringify({ ...result, ...(verify ? { verify } : {}) }, null, 2) + "\n");
