@@ -84,7 +84,7 @@ export function registerCheck(program: Command): void {
     .option("--roi <shape>", `region of interest: one shape in the phantom's syntax, e.g. '{"shape":"ellipse","center":["0 cm","0 cm"],"semiAxes":["5 cm","4 cm"]}' (default: the central half of the FOV)`)
     .option("--threshold <key=watch,problem>", "change a threshold, repeatable: key=watch,problem or key.watch=value, with the key's unit, e.g. fatShiftRead=0.5 px,1 px", collect, [])
     .option("--reference <file>", "protocol (file or preset) the relative SNR is stated against (default: the built-in reference of `isofold protocol`)")
-    .option("--json", "print JSON (SI values in detail fields) instead of the table")
+    .option("--json", "print JSON instead of the table (item values in their unit; detail fields name theirs: px, mm, Hz; wrap positions and FOVs in m)")
     .option("--verify", "also simulate the protocol (in-process, small) and print predicted and measured values side by side")
     .action(async (phantomFile: string, o: CheckCliOptions) => {
       const { result, protocol } = runCheck(phantomFile, o);
