@@ -147,6 +147,18 @@ describe("check values on hand-computable cases", () => {
     expect(itemOf(r, "gradientHeadroom").reason).toMatch(/not a nerve-stimulation, SAR or acoustic check/);
   });
 
+  it("read wrap only without the receiver filter: a bar at x 13.9…15.1 cm, FOV 8 cm × 2 oversampling lands on columns 8…12", () => {
+    // acquired read grid 64 × 2.5 mm (edge at 31.5 px = 7.875 cm); 55.6…60.4 px − 64 = −8.4…−3.6 px → column centres 16 − 8 … 16 − 4
+    const ph = { name: "r", tissues: { gel }, shapes: [{ shape: "rectangle", label: "side bar", center: ["14.5 cm", "0 cm"], size: ["1.2 cm", "2 cm"], tissue: "gel" }, { shape: "ellipse", center: ["0 cm", "0 cm"], semiAxes: ["1 cm", "1 cm"], tissue: "gel" }] };
+    const off = run(ph, proto({ receiverFilter: false }));
+    const f = off.wrap.read.folded.find((x) => x.landsPx)!;
+    expect(f.shape).toBe("side bar");
+    expect(f.from).toBe("+x");
+    expect(f.landsPx).toEqual([8, 12]);
+    expect(itemOf(off, "wrapRead").value).toBe(5);
+    expect(itemOf(run(ph, proto()), "wrapRead").value).toBe(0); // the filter removes it
+  });
+
   it("3D: a phantom shorter than the slab does not fold along slice encoding; one longer does", () => {
     const p3 = proto({ sequence: "gre3d", matrix: { read: 16, phase: 16, slice: 8 }, slice: { thickness: "4 mm" }, excitation: { shape: "sinc", duration: "1 ms", steps: 40 } });
     const cyl = (len: string) => ({ name: "c", tissues: { gel }, shapes: [{ shape: "cylinder", center: ["0 cm", "0 cm", "0 cm"], radius: "2 cm", length: len, axis: "z", tissue: "gel" }] });
