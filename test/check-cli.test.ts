@@ -73,5 +73,5 @@ describe("isofold validate (CLI)", () => {
     const t = cli("validate");
     expect(t.stdout).toMatch(/^check\s+source\s+expected\s+measured\s+tolerance\s+result/);
     expect(t.stdout).toContain(`${CASES.length} of ${CASES.length} checks pass`);
-  }, 60_000);
+  });
 });
