@@ -233,3 +233,21 @@ describe("wrap prediction against simulated images", () => {
     expect(join(dir)).toBeTruthy();
   });
 });
+
+describe("validate can fail", () => {
+  it("a simulator that returns a wrong image fails every simulated case; the closed-form-only cases still pass", async () => {
+    const { runValidation, CASES } = await import("../src/check/validate.js");
+    // the right pipeline with k-space and image scaled by 1.1 (10 % too much signal, nothing moved)
+    const rows = runValidation((p, ph, iso) => {
+      const s = simulateSmall(p, ph, iso);
+      for (const a of [s.kacq.re, s.kacq.im, s.image.re, s.image.im, s.mag]) for (let i = 0; i < a.length; i++) a[i] = a[i]! * 1.1;
+      return s;
+    });
+    expect(rows).toHaveLength(CASES.length);
+    const byName = (n: string) => rows.find((r) => r.check.includes(n))!;
+    expect(byName("Ernst equation (α = 30°)").pass).toBe(false);
+    expect(byName("spin echo amplitude (TE 20").pass).toBe(false);
+    expect(byName("jinc").pass).toBe(false);
+    expect(byName("hard pulse").pass).toBe(true);
+  });
+});
