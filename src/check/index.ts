@@ -129,10 +129,10 @@ export function parseRoi(text: string): Shape {
   }
 }
 
-function item(key: string, group: CheckGroup, label: string, value: number | null, thresholds: Record<string, Threshold>, reason: string, detail?: Record<string, unknown>, verdictOverride?: Verdict): CheckItem {
+function item(key: string, group: CheckGroup, label: string, value: number | null, thresholds: Record<string, Threshold>, reason: string, detail?: Record<string, unknown>): CheckItem {
   const t = thresholds[key] ?? DEFAULT_THRESHOLDS[key]!;
   return {
-    key, group, label, value, unit: t.unit, verdict: verdictOverride ?? judge(value, t),
+    key, group, label, value, unit: t.unit, verdict: judge(value, t),
     threshold: { ...t, text: thresholdText(t) }, reason, ...(detail ? { detail } : {}),
   };
 }
