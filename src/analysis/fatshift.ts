@@ -87,18 +87,18 @@ function derivedNumber(seq: Sequence, key: string): number | undefined {
 }
 
 /**
- * The prediction inputs of a protocol and its sequence (everything but the
- * ppm): one place for report.json, `isofold check` and `isofold validate`.
- * EPI: the sequence's derived `echoSpacing` (s) switches on the phase
- * prediction, with `phaseBlipSign` (±1, default +1) and
+ * The prediction inputs of a protocol and its built sequence, for a chemical
+ * shift `ppm`: one place for report.json, `isofold check` and `isofold
+ * validate`. EPI only: the sequence's derived `echoSpacing` (s) switches on
+ * the phase prediction, with `phaseBlipSign` (±1, default +1) and
  * `phaseLinesEffective` (default the image's phase matrix).
  */
-export function fatShiftInputFor(protocol: Protocol, seq: Sequence): Omit<FatShiftInput, "ppm"> {
+export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
   const axes = logicalAxes(protocol);
   const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
   const esp = derivedNumber(seq, "echoSpacing");
   return {
-    fieldT: protocol.field, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
+    fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
     sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
     ...(esp !== undefined && protocol.sequence === "epi"
       ? { echoSpacing: esp, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? seq.image.phase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 }
@@ -108,7 +108,7 @@ export function fatShiftInputFor(protocol: Protocol, seq: Sequence): Omit<FatShi
 }
 
 /** Displacement of a spin at off-resonance `hz` (Hz) relative to one on resonance: the fat-shift closed forms at the equivalent ppm. */
-export function predictOffResonanceShift(input: Omit<FatShiftInput, "ppm">, hz: number): FatShiftPrediction {
+export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatShiftPrediction {
   return predictFatShift({ ...input, ppm: hz / (1e-6 * GAMMA_BAR * input.fieldT) });
 }
 

@@ -10,7 +10,7 @@
  * time), the sequence's per-line echo times; wrap from ./wrap.ts, blur from
  * ./psf.ts.
  */
-import { fatShiftInputFor, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift } from "../analysis/index.js";
+import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift } from "../analysis/index.js";
 import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { UserError } from "../errors.js";
 import { parsePhantom, type Phantom, type Shape } from "../phantom/index.js";
@@ -224,7 +224,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   const Ms = seq.image.slice;
   const notes: string[] = [];
   const items: CheckItem[] = [];
-  const fatIn = fatShiftInputFor(p, seq);
+  const fatIn = fatShiftInput(p, seq);
 
   // ---- planes through the imaged slab ----
   const planes: SlabPlane[] = [];

@@ -3,7 +3,7 @@
  * analysis stage (predictions, measurement, truth maps) and encodes the truth
  * files. No physics here.
  */
-import { fatShiftInputFor, predictFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
+import { fatShiftInput, predictFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
@@ -26,7 +26,7 @@ export function fatShiftReport(
   const truth = truthMaps(phantom, {
     axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
   });
-  const base = fatShiftInputFor(protocol, seq);
+  const base = fatShiftInput(protocol, seq);
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
   const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
   // the search window around each object must reach the shifted fat image

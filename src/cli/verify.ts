@@ -7,7 +7,7 @@
  */
 import { join } from "node:path";
 import { tmpdir } from "node:os";
-import { fatShiftInputFor, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
+import { fatShiftInput, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { parseRoi, type CheckResult } from "../check/index.js";
 import { edgeWidthImage, edgeWidthPredicted, foldedByDifference, foldedSignal, meanReadShift } from "../check/measure.js";
 import { simulateParallel, simulateSerial } from "../engine/index.js";
@@ -140,7 +140,7 @@ export async function verifyCheck(
   // mean displacement along read from B0 (centroid against the truth, weighted per tissue)
   const dRead = result.items.find((i) => i.key === "distortionRead")!;
   const dfMean = (dRead.detail as { dfMeanHz: number }).dfMeanHz;
-  const predMean = predictOffResonanceShift(fatShiftInputFor(p, seq), dfMean).readout.px;
+  const predMean = predictOffResonanceShift(fatShiftInput(p, seq), dfMean).readout.px;
   const measMean = meanReadShift(mag, truth.pd, truth.label, truth.fatFraction, nR, nP);
   rows.push(row("mean displacement along read (B0)", predMean, measMean, "water pixels: image centroid minus truth centroid (truth weighted by each tissue's mean image value); predicted at the mean Δf"));
 
