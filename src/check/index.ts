@@ -184,28 +184,29 @@ function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
   return -1;
 }
 
-function logicalBounds(ph: Phantom, axes: Axes, clipU: number, clipV: number): [number, number, number, number] {
-  let u0 = Infinity, u1 = -Infinity, v0 = Infinity, v1 = -Infinity;
+/**
+ * Extent of the phantom along the logical read and phase axes (m): every
+ * shape's full extent (far-out tissue folds too); only a direction in which a
+ * shape is unbounded (2D shapes are prisms along z) is cut at ±clip.
+ */
+function logicalBounds(ph: Phantom, axes: Axes, clipU: number, clipV: number): [number, number, number, number, boolean] {
+  let u0 = Infinity, u1 = -Infinity, v0 = Infinity, v1 = -Infinity, cut = false;
   for (const sh of ph.shapes) {
     const b = sh.bounds();
     for (let k = 0; k < 8; k++) {
       const c = [k & 1 ? b.max[0] : b.min[0], k & 2 ? b.max[1] : b.min[1], k & 4 ? b.max[2] : b.min[2]];
-      // infinite 2D prisms: bound by the clip along that direction
-      const u = dotClip(axes.read, c, clipU), v = dotClip(axes.phase, c, clipV);
+      let u = 0, v = 0, infU = false, infV = false;
+      for (let i = 0; i < 3; i++) {
+        const x = c[i]!;
+        if (axes.read[i] !== 0) { if (Number.isFinite(x)) u += axes.read[i]! * x; else infU = true; }
+        if (axes.phase[i] !== 0) { if (Number.isFinite(x)) v += axes.phase[i]! * x; else infV = true; }
+      }
+      if (infU) { cut = true; u = Math.sign(axes.read[2]!) * Math.sign(c[2]!) * clipU; }
+      if (infV) { cut = true; v = Math.sign(axes.phase[2]!) * Math.sign(c[2]!) * clipV; }
       u0 = Math.min(u0, u); u1 = Math.max(u1, u); v0 = Math.min(v0, v); v1 = Math.max(v1, v);
     }
   }
-  return [Math.max(u0, -clipU), Math.min(u1, clipU), Math.max(v0, -clipV), Math.min(v1, clipV)];
-}
-
-function dotClip(a: readonly number[], c: number[], clip: number): number {
-  let s = 0;
-  for (let i = 0; i < 3; i++) {
-    if (a[i] === 0) continue;
-    const v = c[i]!;
-    s += a[i]! * (Number.isFinite(v) ? v : Math.sign(v) * clip * 10);
-  }
-  return s;
+  return [u0, u1, v0, v1, cut];
 }
 
 /**
@@ -240,7 +241,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     for (let k = 0; k < n; k++) planes.push({ w: pos[n === 1 ? Math.floor(pos.length / 2) : Math.round((k * (pos.length - 1)) / (n - 1))]! });
   }
   const clipU = p.fov.read * p.oversampling.read, clipV = 1.5 * p.fov.phase * (1 + p.oversampling.phase);
-  const [u0, u1, v0, v1] = logicalBounds(ph, axes, clipU, clipV);
+  const [u0, u1, v0, v1, cut] = logicalBounds(ph, axes, clipU, clipV);
   const maxPts = opts.maxPoints ?? 320;
   const hu = Math.max(dx / 4, (u1 - u0) / maxPts), hv = Math.max(dy / 4, (v1 - v0) / maxPts);
   const sampling: Sampling = { hu, hv, u0, u1, v0, v1, planes };
@@ -559,7 +560,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     `peak ${f1(s.peak)} T/m/s on the ${s.axis} axis of ${f1(p.hardware.slew)} T/m/s entered; against the hardware values entered only, not a nerve-stimulation, SAR or acoustic check`));
 
   if (axes.angle !== 0) notes.push("oblique slice: positions are along the tilted logical axes; direction names are those of the un-tilted orientation");
-  if (v1 >= clipV || v0 <= -clipV) notes.push(`the phantom reaches beyond ±${cm(clipV)} along phase; the check (like a simulation) considers only signal within it`);
+  if (cut) notes.push(`shapes unbounded along z (2D shapes) reach across the FOV; they are considered within ±${cm(clipU)} along read and ±${cm(clipV)} along phase`);
   notes.push(`phantom sampled every ${mm(hu)} × ${mm(hv)} in ${planes.length} plane${planes.length > 1 ? "s" : ""} of the ${threeD ? "slab" : "slice stack"}; landing positions are good to about half a sampling step`);
 
   return {
