@@ -3,7 +3,7 @@
  * phase) and measured fat–water displacement, with the truth maps they used.
  * No file is read or written here.
  */
-import { predictFatShift, measureFatShift, multiPeakMeanPpm } from "./fatshift.js";
+import { fatShiftInput, predictFatShift, measureFatShift, multiPeakMeanPpm } from "./fatshift.js";
 import { truthMaps, type TruthMaps } from "./truth.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import type { Phantom } from "../phantom/index.js";
@@ -25,14 +25,7 @@ export function fatShiftReport(
   const truth = truthMaps(phantom, {
     axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
   });
-  const q = seq.quantities;
-  const esp = q.echoSpacing;
-  const base = {
-    fieldT: protocol.field, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
-    sliceGradient: q.sliceGradient,
-    ...(esp !== undefined ? { echoSpacing: esp, phaseLines: q.phaseLinesEffective ?? nPhase, blipSign: q.phaseBlipSign ?? 1 } : {}),
-    axisNames: axes.names,
-  };
+  const base = fatShiftInput(protocol, seq);
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
   const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
   // the search window around each object must reach the shifted fat image
