@@ -124,18 +124,9 @@ export function sharedI32(n: number): Int32Array {
   return new Int32Array(sharedBuffer(Math.max(1, n) * 4));
 }
 
-/** Moves an isochromat set's arrays into shared memory (once), so workers can read them. */
-export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
-  return {
-    ...shareEngineArrays(iso),
-    x: shareF64(iso.x), y: shareF64(iso.y), z: shareF64(iso.z),
-    tissue: shareI32(iso.tissue), peak: shareI32(iso.peak), colStart: shareI32(iso.colStart),
-  };
-}
-
 /**
  * Shares only the arrays the engine reads (iu, iv, iw, m0, r1, r2, df); the
- * others stay as they are. Cheaper than {@link shareIsochromats} for large sets.
+ * others stay as they are.
  */
 export function shareEngineArrays(iso: IsochromatSet): IsochromatSet {
   return {

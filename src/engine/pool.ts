@@ -42,7 +42,7 @@ export function workerPath(): string {
 function workerIso(iso: IsochromatSet): Partial<IsochromatSet> {
   const { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df } = iso;
   for (const a of [iu, iv, iw, m0, r1, r2, df]) {
-    if (!(a.buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareIsochromats)");
+    if (!(a.buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareEngineArrays)");
   }
   return { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df };
 }
