@@ -8,7 +8,7 @@
  * pool (bitwise the same k-space for any number of workers).
  */
 import { simulateParallel, type KSpace } from "../engine/node.js";
-import type { IsochromatSet } from "../isochromats/index.js";
+import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 
@@ -20,13 +20,8 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
   const s0 = iso.colStart[c0]!, s1 = iso.colStart[c1]!;
   const colStart = new Int32Array(c1 - c0 + 1);
   for (let k = 0; k <= c1 - c0; k++) colStart[k] = iso.colStart[c0 + k]! - s0;
-  const f = <T extends Float64Array | Int32Array>(a: T): T => a.subarray(s0, s1) as T;
-  return {
-    ...iso, count: s1 - s0,
-    iu: f(iso.iu), iv: f(iso.iv), iw: f(iso.iw), x: f(iso.x), y: f(iso.y), z: f(iso.z),
-    m0: f(iso.m0), r1: f(iso.r1), r2: f(iso.r2), df: f(iso.df), tissue: f(iso.tissue), peak: f(iso.peak),
-    colStart, columns: c1 - c0,
-  };
+  const views = mapIsochromatArrays(iso, [...ISOCHROMAT_INT_ARRAYS, ...ISOCHROMAT_FLOAT_ARRAYS], (a) => a.subarray(s0, s1) as typeof a);
+  return { ...views, count: s1 - s0, colStart, columns: c1 - c0 };
 }
 
 /**

@@ -7,6 +7,7 @@
  */
 import { GAMMA, GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
+import { ENGINE_ARRAYS, mapIsochromatArrays } from "../isochromats/fields.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
 import { rfAffineMany } from "./wasm.js";
 import { f64Words, TupleIndex } from "./hash.js";
@@ -129,11 +130,7 @@ export function sharedI32(n: number): Int32Array {
  * others stay as they are.
  */
 export function shareEngineArrays(iso: IsochromatSet): IsochromatSet {
-  return {
-    ...iso,
-    iu: shareI32(iso.iu), iv: shareI32(iso.iv), iw: shareI32(iso.iw),
-    m0: shareF64(iso.m0), r1: shareF64(iso.r1), r2: shareF64(iso.r2), df: shareF64(iso.df),
-  };
+  return mapIsochromatArrays(iso, ENGINE_ARRAYS, (a) => (a instanceof Int32Array ? shareI32(a) : shareF64(a as Float64Array)) as typeof a);
 }
 
 /** A shared copy of `a` (or `a` itself if it is shared already). */

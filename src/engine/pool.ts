@@ -12,6 +12,7 @@ import { dirname, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { Worker } from "node:worker_threads";
 import type { IsochromatSet } from "../isochromats/index.js";
+import { ENGINE_ARRAYS } from "../isochromats/fields.js";
 import type { Sequence } from "../sequence/types.js";
 import { AbortedError, simulateWith, type Executor, type ExecutorSession, type KSpace, type RunOptions } from "./executor.js";
 import type { EnginePlan } from "./plan.js";
@@ -40,11 +41,12 @@ export function workerPath(): string {
 
 /** The isochromat fields a worker reads (all shared). */
 function workerIso(iso: IsochromatSet): Partial<IsochromatSet> {
-  const { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df } = iso;
-  for (const a of [iu, iv, iw, m0, r1, r2, df]) {
-    if (!(a.buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareEngineArrays)");
+  const out: Record<string, unknown> = { count: iso.count, uGrid: iso.uGrid, vGrid: iso.vGrid, wGrid: iso.wGrid };
+  for (const k of ENGINE_ARRAYS) {
+    if (!(iso[k].buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareEngineArrays)");
+    out[k] = iso[k];
   }
-  return { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df };
+  return out as Partial<IsochromatSet>;
 }
 
 export class EnginePool implements ExecutorSession {
