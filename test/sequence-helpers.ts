@@ -11,7 +11,7 @@ import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type
 import { logicalAxes } from "../src/protocol/geometry.js";
 import { simulateSerial } from "../src/engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../src/recon/reconstruct.js";
-import { isoOptionsFor } from "../src/cli/pipeline.js";
+import { isoOptionsFor, sampledLimits } from "../src/cli/pipeline.js";
 
 type Obj = Record<string, unknown>;
 
@@ -71,8 +71,7 @@ export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOption
       dy: p.fov.phase / p.matrix.phase,
       thickness: p.slice.thickness,
       position: p.slice.position,
-      clipRead: p.fov.read * p.oversampling.read,
-      clipPhase: 1.5 * p.fov.phase * (1 + p.oversampling.phase),
+      ...sampledLimits(p),
     },
     p.field,
     opts,
