@@ -11,7 +11,7 @@ import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type
 import { logicalAxes } from "../src/protocol/geometry.js";
 import { simulateSerial } from "../src/engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../src/recon/reconstruct.js";
-import { isoOptionsFor, sampledLimits } from "../src/cli/pipeline.js";
+import { isoOptionsFor, sampledLimits, slabCoverage } from "../src/cli/pipeline.js";
 
 type Obj = Record<string, unknown>;
 
@@ -62,7 +62,8 @@ export interface SimResult {
 
 export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}): SimResult {
   const seq = buildSequence(p);
-  const opts = isoOptionsFor(p, { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso });
+  const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
+  const opts = isoOptionsFor(p, { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso }, seq, steps);
   const set = makeIsochromats(
     ph,
     {
