@@ -60,10 +60,12 @@ export interface SimResult {
   mag: Float64Array;
 }
 
-export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}): SimResult {
+/** With `exact`, iso.sliceCount is used as given (no automatic raise), e.g. to show what a coarse grid does. */
+export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}, exact = false): SimResult {
   const seq = buildSequence(p);
   const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
-  const opts = isoOptionsFor(p, { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso }, seq, steps);
+  const given = { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso };
+  const opts = exact ? given : isoOptionsFor(p, given, seq, steps);
   const set = makeIsochromats(
     ph,
     {

@@ -21,8 +21,8 @@ export interface SliceConvergence {
   tissues: number;
 }
 
-/** Default tolerance of the half-step check (relative L2 change of the probe signal). */
-export const SLICE_CONVERGENCE_TOLERANCE = 0.01;
+/** Default tolerance of the half-step check (relative L2 change of the probe signal); the centre probe overstates the image-wide error about 2–3× (test/through-slice.test.ts). */
+export const SLICE_CONVERGENCE_TOLERANCE = 0.02;
 
 export function checkSliceConvergence(
   seq: Sequence,
