@@ -95,6 +95,16 @@ export function multiPeakMeanPpm(): number {
   return s / a;
 }
 
+function derivedNumber(seq: Sequence, key: string): number | undefined {
+  const d = seq.derived[key];
+  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
+}
+
+/** Displacement of a spin at off-resonance `hz` (Hz) relative to one on resonance: the fat-shift closed forms at the equivalent ppm. */
+export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatShiftPrediction {
+  return predictFatShift({ ...input, ppm: hz / (1e-6 * GAMMA_BAR * input.fieldT) });
+}
+
 /** Readout, slice and (EPI) phase displacement of fat relative to water; see the file comment for the signs. */
 export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
   const ppm = p.ppm ?? FAT_SINGLE_PPM;
@@ -119,11 +129,6 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
       note: epi ? PHASE_SHIFT_FORMULA : "one line per excitation: no shift along phase",
     },
   };
-}
-
-function derivedNumber(seq: Sequence, key: string): number | undefined {
-  const d = seq.derived[key];
-  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
 }
 
 /**
