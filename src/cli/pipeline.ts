@@ -18,7 +18,8 @@ import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { decodeNpy } from "../io/npy.js";
-import { fatShiftReport, truthFiles } from "./effects.js";
+import { fatCentroid, fatShiftReport, truthFiles } from "./effects.js";
+import { displayTransform } from "../report/index.js";
 import { Progress } from "./progress.js";
 
 export const SAFETY_NOTE =
@@ -307,7 +308,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
 }
 
 /** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); shared by simulate and merge. */
-export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
+export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Promise<RunResult> {
   const { protocol, o, phantom } = ctx;
   const seq = ctx.seqs[0]!;
   const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
@@ -367,7 +368,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       image: ["coil", "slice", "phase", "read"],
       index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
       kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
-      png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
+      png: "image.png, kspace.png and truth-*.png are in display orientation (see the display section), not in array index order",
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
@@ -389,8 +390,10 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
   (report.warnings as string[]).push(...fx.warnings);
-  const files = writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth) : undefined,
+  const dRead = protocol.fov.read / protocol.matrix.read, dPhase = protocol.fov.phase / protocol.matrix.phase;
+  const files = await writeRunFolder(o.out, {
+    extra: o.truth ? truthFiles(fx.truth, displayTransform(axes)) : undefined,
+    fatCentroid: fatCentroid(fx.truth, dRead, dPhase),
     kspace: kv,
     image: img,
     affine: voxelAffine(protocol, spacingMm, firstMm),
