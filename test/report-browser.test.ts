@@ -33,7 +33,7 @@ function variance(png: Buffer): number {
 
 function simulate(out: string, sets: string[]): Record<string, unknown> {
   const r = spawnSync(process.execPath, [CLI, "simulate", join(ROOT, "phantoms/two-bottle.json"), "--protocol", "gre-demo-1.5t",
-    "--set", "matrix.read=64", "--set", "matrix.phase=64", ...sets.flatMap((s) => ["--set", s]), "--t2prime-isochromats", "1", "--workers", "1", "-q", "--out", out],
+    "--set", "matrix.read=64", "--set", "matrix.phase=64", ...sets.flatMap((s) => ["--set", s]), "--t2prime-isochromats", "1", "--density", "1", "--workers", "1", "-q", "--out", out],
   { encoding: "utf8" });
   if (r.status !== 0) throw new Error(`simulate failed: ${r.stderr}`);
   return JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as Record<string, unknown>;
@@ -74,6 +74,33 @@ describe("report.html in a browser", () => {
     copyFileSync(path, join(SHOTS, name));
     return buf;
   }
+
+  it("sweep.html shows the csv's values, the impossible point and the plots", async () => {
+    const out = join(dir, "sweep");
+    const r = spawnSync(process.execPath, [CLI, "sweep", join(ROOT, "phantoms/two-bottle.json"), "-p", "gre-demo-1.5t",
+      "--set", "matrix.read=32", "--set", "matrix.phase=32", "--vary", "te=5ms..8ms:2", "--vary", "bandwidth=100Hz/px..200Hz/px:2",
+      "--t2prime-isochromats", "1", "--density", "1", "--workers", "1", "-q", "-o", out], { encoding: "utf8" });
+    expect(r.stderr).toBe("");
+    const lines = readFileSync(join(out, "sweep.csv"), "utf8").trim().split("\n").map((l) => l.split(","));
+    const head = lines[0]!;
+    const col = head.indexOf("fatShiftReadPredicted (px)");
+    const page = await ctx.newPage();
+    await page.goto(pathToFileURL(join(out, "sweep.html")).href);
+    for (const row of lines.slice(1)) {
+      const tr = page.locator(`#sweep-table tr[data-point="${row[0]}"]`);
+      expect(await tr.locator("td").nth(1).innerText()).toBe(row[1]);
+      if (row[1] === "done") {
+        expect(Number(await tr.locator('td[data-key="fatShiftReadPredicted"]').innerText())).toBeCloseTo(Number(row[col]), 3);
+      }
+    }
+    expect(await page.locator("#impossible li").count()).toBe(lines.slice(1).filter((l) => l[1] === "impossible").length);
+    expect(await page.locator("#plots svg.marks").count()).toBeGreaterThanOrEqual(2);
+    const shot = await shoot(page, "sweep-page.png");
+    expect(variance(shot)).toBeGreaterThan(100);
+    expect(variance(await shoot(page, "sweep-montage.png", "#montage img"))).toBeGreaterThan(100);
+    await page.close();
+    expect(requests.filter((u) => !u.startsWith("file:") && !u.startsWith("data:"))).toEqual([]);
+  });
 
   for (const phase of ["y", "x"] as const) {
     it(`shows report.json's values, orientation letters and switchable overlays (phase along ${phase})`, async () => {

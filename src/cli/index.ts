@@ -11,6 +11,7 @@ import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } fr
 import { registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
+import { registerSweep } from "./sweep.js";
 import { AbortedError } from "../engine/index.js";
 
 const program = new Command();
@@ -61,6 +62,7 @@ addSimulationOptions(
 registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
+registerSweep(program);
 
 async function main(): Promise<void> {
   try {

@@ -183,7 +183,7 @@ function comparisons(rows: ComparisonRow[], note?: string): string {
     `</tbody></table>${note ? `<p class="note">${escapeHtml(note)}</p>` : ""}</section>`;
 }
 
-const STYLE = `
+export const STYLE = `
 body{font-family:system-ui,sans-serif;margin:1.5em auto;max-width:1200px;padding:0 1em;color:#1d1d1d;background:#fafafa}
 h1{font-size:1.5em;margin-bottom:.2em} h2{font-size:1.15em;border-bottom:1px solid #bbb;padding-bottom:.2em;margin-top:1.6em}
 .safety{border:2px solid #a33;background:#fff3f0;padding:.5em .8em;font-weight:600}

@@ -7,3 +7,7 @@ export { vegaLiteSvg, lineSpec } from "./plots.js";
 export type { Series } from "./plots.js";
 export { runReportHtml, runReportPage, defaultRoi, rectToDisplay } from "./run-report.js";
 export type { RunReportInput, LogicalRect } from "./run-report.js";
+export { montage, drawText, textWidth, glyphPixel, GLYPH_W, GLYPH_H, GLYPH_ADVANCE } from "./montage.js";
+export type { Tile } from "./montage.js";
+export { renderSweepHtml } from "./sweep-html.js";
+export type { SweepColumn, SweepRow, SweepPage } from "./sweep-html.js";

@@ -2,8 +2,11 @@
  * Plots as SVG: a vega-lite specification compiled to vega and rendered
  * headless by vega's own SVG renderer (`View.toSVG()`); no canvas, no network.
  */
-import * as vega from "vega";
-import * as vl from "vega-lite";
+import type * as VegaModule from "vega";
+import type * as VegaLiteModule from "vega-lite";
+
+// loaded on first use: the command line starts without them
+let libs: Promise<[typeof VegaModule, typeof VegaLiteModule]> | null = null;
 
 export interface Series {
   name: string;
@@ -12,7 +15,9 @@ export interface Series {
 
 /** Renders a vega-lite specification to an SVG string. Data must be inline (no URLs are loaded). */
 export async function vegaLiteSvg(spec: Record<string, unknown>): Promise<string> {
-  const compiled = vl.compile(spec as unknown as vl.TopLevelSpec).spec;
+  libs ??= Promise.all([import("vega"), import("vega-lite")]);
+  const [vega, vl] = await libs;
+  const compiled = vl.compile(spec as unknown as VegaLiteModule.TopLevelSpec).spec;
   // a loader that refuses every request: the report must not depend on the network or files
   const loader = vega.loader();
   loader.load = async (uri: string) => {
