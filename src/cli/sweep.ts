@@ -227,7 +227,7 @@ export async function runSweep(o: SweepOptions): Promise<{ files: string[]; done
       title: `isofold sweep of ${o.protocol} on ${o.phantom.split("/").pop()}`,
       subtitle: `Varied: ${o.varies.map((v) => v.raw).join("; ")}. ${done.length} of ${rows.length} points simulated; simulated images, not scans.`,
       safety: SAFETY_NOTE,
-      params, metrics, rows, montage: mpng,
+      params, metrics, rows, montage: mpng, montageSize: { width: mt.width, height: mt.height },
       montageNote: `Each tile is a point's image.png (display orientation as in its report), labelled with its number and values; a crossed tile is an impossible point. Columns follow ${o.varies[0]!.key}.`,
       plots, warnings: [...warnings],
       footer: `Made by isofold ${version()}. Self-contained page: montage inline, plots rendered by vega from vega-lite specifications, no network.`,

@@ -30,6 +30,8 @@ export interface SweepPage {
   metrics: SweepColumn[];
   rows: SweepRow[];
   montage: Uint8Array | null;
+  /** Montage size in pixels; shown at twice that (pixelated), at most the page width. */
+  montageSize?: { width: number; height: number };
   montageNote: string;
   plots: { title: string; svg: string }[];
   warnings: string[];
@@ -55,7 +57,7 @@ tr.impossible td{color:#888}
 <header><h1>${escapeHtml(p.title)}</h1><p>${escapeHtml(p.subtitle)}</p><p class="safety" id="safety">${escapeHtml(p.safety)}</p></header>
 <section id="points"><h2>Points</h2><table id="sweep-table"><thead><tr>${head}</tr></thead><tbody>${body}</tbody></table></section>
 <section id="impossible"><h2>Impossible points (skipped)</h2>${impossible.length ? `<ul>${impossible.map((r) => `<li>point ${r.point}: ${escapeHtml(r.reason ?? "")}</li>`).join("")}</ul>` : "<p>none</p>"}</section>
-<section id="montage" class="montage"><h2>Montage</h2>${p.montage ? `<img src="data:image/png;base64,${Buffer.from(p.montage).toString("base64")}" alt="montage of the simulated images">` : "<p>no point was simulated</p>"}<p class="note">${escapeHtml(p.montageNote)}</p></section>
+<section id="montage" class="montage"><h2>Montage</h2>${p.montage ? `<img src="data:image/png;base64,${Buffer.from(p.montage).toString("base64")}"${p.montageSize ? ` style="width:${2 * p.montageSize.width}px"` : ""} alt="montage of the simulated images">` : "<p>no point was simulated</p>"}<p class="note">${escapeHtml(p.montageNote)}</p></section>
 <section id="plots"><h2>Metrics against the varied parameters</h2><div class="plots">${p.plots.map((x) => `<div class="plot" title="${escapeHtml(x.title)}">${x.svg}</div>`).join("")}</div></section>
 <section id="warnings"><h2>Warnings</h2>${p.warnings.length ? `<ul class="warnings">${p.warnings.map((w) => `<li>${escapeHtml(w)}</li>`).join("")}</ul>` : "<p>none</p>"}</section>
 <footer>${escapeHtml(p.footer)}</footer>
