@@ -63,6 +63,8 @@ registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
 registerSweep(program);
+// the safety note closes every subcommand's --help
+for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 
 async function main(): Promise<void> {
   try {

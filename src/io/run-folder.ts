@@ -1,9 +1,9 @@
 /**
- * The run folder: image.png, kspace.png, kspace.npy, image.npy, image.nii,
- * report.json, report.html — all staged under temporary names and renamed
- * together, so a killed run leaves no file under a final name. The PNGs (and
- * report.html) are in display orientation (report/display.ts); the arrays
- * keep their index order.
+ * The run folder contract (DEVELOPERS.md, Files): image.png, kspace.png,
+ * kspace.npy, image.npy, image.nii, report.json, report.html — all staged
+ * under temporary names and renamed together, so a killed run leaves no file
+ * under a final name. The PNGs (and report.html) are in display orientation
+ * (report/display.ts); the arrays keep their index order.
  */
 import { OutputStage } from "./atomic.js";
 import { encodeNpy } from "./npy.js";
