@@ -66,6 +66,8 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Leave the run's warnings to the caller (in the result's report) instead of printing them (sweep). */
+  keepWarnings?: boolean;
   /** Changes the loaded phantom before it is sampled (dataset perturbations). */
   phantomTransform?: (ph: Phantom) => Phantom;
   /** Also write the ground-truth maps (truth-*.png / .npy). */
@@ -426,7 +428,7 @@ export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Pr
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     report,
   });
-  printWarnings(report.warnings as string[]);
+  if (!o.keepWarnings) printWarnings(report.warnings as string[]);
   return { dir: o.out, files, seconds, report };
 }
 

@@ -17,7 +17,7 @@ import { decodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
 import { OutputStage } from "../io/atomic.js";
 import { lineSpec, montage, renderSweepHtml, vegaLiteSvg, type SweepColumn, type SweepRow, type Tile } from "../report/index.js";
-import { readRealNpy, run, SAFETY_NOTE, version, type RunOptions } from "./pipeline.js";
+import { printWarnings, readRealNpy, run, SAFETY_NOTE, version, type RunOptions } from "./pipeline.js";
 import { addSimulationOptions, collect, engineOptions, isoOptions } from "./options.js";
 
 /** One --vary: the key, the unit the ends were written in, and the values of the grid along it. */
@@ -164,7 +164,7 @@ export async function runSweep(o: SweepOptions): Promise<{ files: string[]; done
     const params = Object.fromEntries(o.varies.map((v, k) => [v.key, p[k]!]));
     const labels = o.varies.map((v, k) => `${v.key}=${p[k]}${v.unit ? ` ${v.unit}` : ""}`);
     try {
-      const r = await run({ ...o.base, phantom: o.phantom, protocol: o.protocol, sets, out: join(o.out, name), quiet: true });
+      const r = await run({ ...o.base, phantom: o.phantom, protocol: o.protocol, sets, out: join(o.out, name), quiet: true, keepWarnings: true });
       const rm = roiMean(join(r.dir, "image.npy"));
       rows.push({ point: i + 1, status: "done", params, metrics: Object.fromEntries(METRICS.map((m) => [m.key, m.get(r.report, rm)])), link: `${name}/report.html` });
       for (const w of (r.report.warnings as string[]) ?? []) warnings.add(w);
@@ -233,6 +233,7 @@ export async function runSweep(o: SweepOptions): Promise<{ files: string[]; done
       footer: `Made by isofold ${version()}. Self-contained page: montage inline, plots rendered by vega from vega-lite specifications, no network.`,
     }));
     stage.commit();
+    printWarnings([...warnings]);
     return { files: stage.staged, done: done.length, impossible: rows.length - done.length, dir: o.out };
   } catch (e) {
     stage.abort();
