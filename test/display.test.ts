@@ -94,11 +94,15 @@ describe("image.png in display orientation, image.npy in index order", () => {
       const ph = writeJson(dir, "marker.json", phantom);
       const out = join(dir, "run");
       const r = spawnSync(process.execPath, [CLI, "simulate", ph, "-p", "gre-demo-1.5t", "--set", "matrix.read=32", "--set", "matrix.phase=32",
-        "--set", `phaseDirection=${phase}`, "--t2prime-isochromats", "1", "--density", "1", "--workers", "1", "-q", "-o", out], { encoding: "utf8" });
+        "--set", `phaseDirection=${phase}`, "--t2prime-isochromats", "1", "--density", "1", "--workers", "1", "--truth", "-q", "-o", out], { encoding: "utf8" });
       expect(r.stderr).not.toMatch(/error/);
       expect(r.status).toBe(0);
       const q = quadrants(readFileSync(join(out, "image.png")));
       expect(q[0]).toBeGreaterThan(10 * Math.max(q[1]!, q[2]!, q[3]!));
+      // the ground-truth pictures are turned the same way
+      const qt = quadrants(readFileSync(join(out, "truth-pd.png")));
+      expect(qt[0]).toBeGreaterThan(0);
+      expect(Math.max(qt[1]!, qt[2]!, qt[3]!)).toBe(0);
       const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
       expect(rep.display.rows).toBe("anterior→posterior");
       expect(rep.display.cols).toBe("right→left");
