@@ -20,6 +20,7 @@ import {
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
 import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
 import { Progress } from "./progress.js";
+import { withOutputDir } from "../io/outpath.js";
 import { defaultWorkers } from "./memory.js";
 
 export interface DatasetCliOptions {
@@ -364,7 +365,7 @@ export function registerDataset(program: Command): void {
   );
   cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
   cmd.action(async (phantom: string, o: DatasetCliOptions) => {
-    const r = await runDataset(phantom, o);
+    const r = await withOutputDir(o.out, () => runDataset(phantom, o));
     const made = r.made.length;
     console.log(
       `dataset: ${made} case${made === 1 ? "" : "s"} written, ${r.skipped.length} verified and skipped, in ${resolve(o.out)} ` +

@@ -16,6 +16,7 @@ import { loadPhantom } from "../phantom/index.js";
 import { decodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
 import { OutputStage } from "../io/atomic.js";
+import { withOutputDir } from "../io/outpath.js";
 import { lineSpec, montage, renderSweepHtml, vegaLiteSvg, type SweepColumn, type SweepRow, type Tile } from "../report/index.js";
 import { printWarnings, readRealNpy, run, SAFETY_NOTE, version, type RunOptions } from "./pipeline.js";
 import { addSimulationOptions, collect, engineOptions, isoOptions } from "./options.js";
@@ -254,11 +255,12 @@ export function registerSweep(program: Command): void {
   ).action(async (phantom: string, o) => {
     if (o.shard) throw new UserError("--shard: a sweep runs whole points; shard a single simulate run instead");
     const varies = (o.vary as string[]).map(parseVary);
-    const r = await runSweep({
+    validateSweep(phantom, o.protocol, o.set, varies);
+    const r = await withOutputDir(o.out, () => runSweep({
       phantom, protocol: o.protocol, sets: o.set, varies, out: o.out,
       base: { seed: o.seed, iso: isoOptions(o), ...engineOptions(o) },
       log: o.quiet ? undefined : (l) => process.stderr.write(l + "\n"),
-    });
+    }));
     console.log(`sweep: ${r.done} points simulated, ${r.impossible} impossible and skipped; wrote ${r.files.join(", ")} and a run folder per point to ${r.dir}`);
   });
 }
