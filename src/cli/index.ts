@@ -13,6 +13,7 @@ import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
 import { registerCheck } from "./check.js";
 import { registerValidate } from "./validate.js";
+import { registerSweep } from "./sweep.js";
 import { AbortedError } from "../engine/index.js";
 import { EXIT_WRITE_FAILED, OutputWriteError, withOutputDir } from "../io/outpath.js";
 
@@ -69,6 +70,7 @@ registerProtocol(program);
 registerMerge(program);
 registerCheck(program);
 registerValidate(program);
+registerSweep(program);
 // the safety note closes every subcommand's --help
 for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 

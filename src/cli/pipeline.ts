@@ -19,7 +19,8 @@ import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { decodeNpy } from "../io/npy.js";
-import { fatShiftReport, truthFiles } from "./effects.js";
+import { fatCentroid, fatShiftReport, truthFiles } from "./effects.js";
+import { displayTransform } from "../report/index.js";
 import { Progress } from "./progress.js";
 import { samplingRemarks } from "./sampling.js";
 
@@ -67,6 +68,8 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Leave the run's warnings to the caller (in the result's report) instead of printing them (sweep). */
+  keepWarnings?: boolean;
   /** Changes the loaded phantom before it is sampled (dataset perturbations). */
   phantomTransform?: (ph: Phantom) => Phantom;
   /** Also write the ground-truth maps (truth-*.png / .npy). */
@@ -472,7 +475,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
 }
 
 /** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); shared by simulate and merge. */
-export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
+export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Promise<RunResult> {
   const { protocol, o, phantom } = ctx;
   const seq = ctx.seqs[0]!;
   const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
@@ -532,7 +535,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       image: ["coil", "slice", "phase", "read"],
       index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
       kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
-      png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
+      png: "image.png, kspace.png and truth-*.png are in display orientation (see the display section), not in array index order",
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
@@ -570,15 +573,17 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
   (report.warnings as string[]).push(...fx.warnings);
-  const files = writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth) : undefined,
+  const dRead = protocol.fov.read / protocol.matrix.read, dPhase = protocol.fov.phase / protocol.matrix.phase;
+  const files = await writeRunFolder(o.out, {
+    extra: o.truth ? truthFiles(fx.truth, displayTransform(axes)) : undefined,
+    fatCentroid: fatCentroid(fx.truth, dRead, dPhase),
     kspace: kv,
     image: img,
     affine: voxelAffine(protocol, spacingMm, firstMm),
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     report,
   });
-  printWarnings(report.warnings as string[]);
+  if (!o.keepWarnings) printWarnings(report.warnings as string[]);
   return { dir: o.out, files, seconds, report };
 }
 
