@@ -14,7 +14,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, Rng, STREAM,
+  loopPlacement, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
@@ -50,6 +50,7 @@ export interface DatasetCliOptions {
   sliceExtent: number;
   fatModel: "single" | "multi";
   quiet?: boolean;
+  format: string;
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -119,6 +120,7 @@ interface Plan {
   mask: MaskOptions;
   count: number;
   vary: VarySpec;
+  format: DatasetFormat;
 }
 
 /** Validates every flag and file before any work; throws UserError. */
@@ -140,6 +142,8 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   }
   const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const count = int(o.count, "--count", 1, 100000);
+  const format = (o.format ?? "both") as DatasetFormat;
+  if (!(DATASET_FORMATS as readonly string[]).includes(format)) throw new UserError(`unknown format "${o.format}"; use one of ${DATASET_FORMATS.join(", ")}`, undefined, "--format");
   const vary = parseVary(o.vary);
   // mask
   if (!(MASK_KINDS as readonly string[]).includes(o.mask)) throw new UserError(`unknown mask "${o.mask}"; use one of ${MASK_KINDS.join(", ")}`, undefined, "--mask");
@@ -203,7 +207,25 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
-  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary };
+  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary, format };
+}
+
+const RAW_H5_TEXT = "ISMRMRD (HDF5: dataset/xml header, dataset/data one record per readout): noise-only readouts first (--noise-lines), then every sampled line as acquired with read oversampling kept; relation to kspace.npy under rawH5";
+
+/** How raw.h5 relates to kspace.npy, for case.json (the construction is in src/dataset/raw.ts). */
+function rawH5Relation(p: Protocol, M: number, N: number): Record<string, unknown> {
+  return {
+    readSamples: M, readOversampling: p.oversampling.read, imageRead: N,
+    relation: `per coil and sampled line (slice-encoding step e2 = kspace_encode_step_2, phase line e1 = kspace_encode_step_1): ` +
+      `ifftc_M(raw line)[x + ${Math.floor(M / 2) - Math.floor(N / 2)}] = ifftc_N(kspace.npy[c, e2, e1, :])[x] for x = 0…${N - 1}, ` +
+      `ifftc the centred inverse DFT with 1/n (fftConvention); so raw samples are about M/N = ${(M / N).toFixed(3)} times the kspace.npy samples, ` +
+      `the oversampled margin of the read field of view holds the object and independent noise of the same per-pixel variance`,
+    noise: "per raw sample σ²·M/N·Ψ (the sampled bandwidth is M/N times wider at the same readout duration); inside the read field of view the noise is exactly that of kspace.npy; noise-only readouts relate to noise.npy the same way",
+    lines: "one acquisition per sampled line of mask.npy (dropped lines are absent); phase oversampling removed (lines on the image phase grid); averages combined; reversed readouts turned round into k-space order",
+    frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated)",
+    recon: "ismrmrd_recon_cartesian_2d (2D, full sampling) gives M·N_phase × the root-sum-of-squares of the kspace.npy coil images: it uses an unnormalised inverse FFT",
+    flags: "first/last in encode step 1 per slice-encoding step; first/last in encode step 2, slice, average and repetition on the first/last imaging readout; last in measurement; ACS lines: parallel calibration, plus parallel calibration and imaging when the line also belongs to the undersampled pattern (uniform: the lattice; random, poisson: every ACS line)",
+  };
 }
 
 function round(v: number, d = 9): number {
@@ -220,7 +242,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const C = coilCount(array);
   const batchKey = sha256(JSON.stringify({
     version: version(), phantom: sha256(readFileSync(phantomFile)), protocol, iso, array, psi: [Array.from(plan.psi.re), Array.from(plan.psi.im)],
-    snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed,
+    snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed, format: plan.format,
   }));
   const files: Record<string, string> = {
     "kspace.npy": "complex64 [coil, slice, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
@@ -232,6 +254,11 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     "case.json": "this file",
   };
   if (plan.noiseLines > 0) files["noise.npy"] = "complex64 [coil, line, read]: noise-only samples from the same distribution as the k-space noise (a prescan)";
+  if (plan.format === "ismrmrd") {
+    delete files["kspace.npy"];
+    delete files["noise.npy"];
+  }
+  if (plan.format !== "npy") files["raw.h5"] = RAW_H5_TEXT;
   const placement = loopPlacement(array);
   const result = await runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), async (i) => {
     const { seq, iso: set } = prepare({
@@ -247,7 +274,10 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     const r = await buildCase(seq, set, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
-    }, { array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers() }, i,
+    }, {
+      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(),
+      format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
+    }, i,
     (d, t) => progress.update(d, t));
     progress.done();
     const p = plan.perturbations[i]!;
@@ -281,6 +311,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
         "numpy: coil_images = fftshift(ifftn(ifftshift(kspace, axes=(-3,-2,-1)), axes=(-3,-2,-1)), axes=(-3,-2,-1)) gives the coil images exactly, with no cropping; " +
         "with one slice-encoding step the slice axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
         `${r.info.kspaceAcquired.read} read points (read oversampling ${protocol.oversampling.read}); those were transformed to the image, the central ${r.info.dims.read} kept, and transformed back.`,
+      ...(plan.format !== "npy" ? { rawH5: rawH5Relation(protocol, seq.grid.read, r.info.dims.read) } : {}),
       imageScale: "a voxel full of tissue with PD 1, fully relaxed and tipped by 90°, is about 1 in truth[0]",
       coils: array.elements === 0
         ? { kind: "uniform", count: 1, sensitivity: "S = 1 everywhere" }
@@ -347,6 +378,7 @@ export function registerDataset(program: Command): void {
       .option("--acs <lines>", "fully sampled centre lines along phase; default min(24, phase lines/4) for undersampling masks")
       .option("--partial-fourier <F>", "fraction of phase lines kept, in (0.5, 1]; the first lines are dropped", "1")
       .option("--count <n>", "number of cases", "1")
+      .option("--format <name>", "raw k-space container: npy (kspace.npy), ismrmrd (raw.h5, the ISMRM raw-data standard) or both", "both")
       .option("--vary <list>", "seeded perturbations per case, ranges ±, drawn uniformly: position (length, whole object in x and y), rotation (angle about z), " +
         "size (fraction or %, per shape), t1, t2, pd (fraction or %, per tissue), b0 (Hz: offset and linear field up to this at 10 cm); " +
         "e.g. position=1cm,rotation=10deg,size=10%,t1=10%,b0=20Hz; repeatable", collect, []),
