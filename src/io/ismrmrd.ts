@@ -171,7 +171,11 @@ export interface IsmrmrdHeader {
 
 const num = (v: number) => Number(v.toPrecision(7)).toString();
 
-/** The XML header (element order as ismrmrd.xsd requires). */
+/**
+ * The XML header (element order as ismrmrd.xsd requires). No <version>: the
+ * C library compares it with its own schema version (8 for library 1.8) and
+ * refuses others, while the element is optional in the schema.
+ */
 export function ismrmrdXml(h: IsmrmrdHeader): string {
   const space = (s: IsmrmrdHeader["encoded"]) =>
     `<matrixSize><x>${s.x}</x><y>${s.y}</y><z>${s.z}</z></matrixSize>` +
@@ -181,7 +185,6 @@ export function ismrmrdXml(h: IsmrmrdHeader): string {
   return [
     `<?xml version="1.0" encoding="UTF-8"?>`,
     `<ismrmrdHeader xmlns="http://www.ismrm.org/ISMRMRD" xmlns:xs="http://www.w3.org/2001/XMLSchema">`,
-    `<version>1</version>`,
     `<acquisitionSystemInformation><systemFieldStrength_T>${num(h.fieldT)}</systemFieldStrength_T><receiverChannels>${h.channels}</receiverChannels></acquisitionSystemInformation>`,
     `<experimentalConditions><H1resonanceFrequency_Hz>${Math.round(h.h1Hz)}</H1resonanceFrequency_Hz></experimentalConditions>`,
     `<encoding>`,
