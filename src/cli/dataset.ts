@@ -5,7 +5,7 @@
  */
 import { Command } from "commander";
 import { readFileSync } from "node:fs";
-import { resolve } from "node:path";
+import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
 import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
@@ -14,7 +14,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, mergeDatasetParts, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
@@ -51,6 +51,7 @@ export interface DatasetCliOptions {
   fatModel: "single" | "multi";
   quiet?: boolean;
   format: string;
+  cases?: string;
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -121,6 +122,8 @@ interface Plan {
   count: number;
   vary: VarySpec;
   format: DatasetFormat;
+  /** Cases A … B−1 only (--cases A:B), or null for all. */
+  range: [number, number] | null;
 }
 
 /** Validates every flag and file before any work; throws UserError. */
@@ -142,6 +145,15 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   }
   const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const count = int(o.count, "--count", 1, 100000);
+  let range: [number, number] | null = null;
+  if (o.cases !== undefined) {
+    const m = /^\s*(\d+)\s*:\s*(\d+)\s*$/.exec(o.cases);
+    const a = m ? Number(m[1]) : NaN, b = m ? Number(m[2]) : NaN;
+    if (!m || !(a < b) || b > count) {
+      throw new UserError(`"${o.cases}" is not a range of cases within --count ${count}; write A:B with 0 ≤ A < B ≤ ${count} (cases A … B−1), e.g. 0:${Math.min(count, 10)}`, undefined, "--cases");
+    }
+    range = [a, b];
+  }
   const format = (o.format ?? "both") as DatasetFormat;
   if (!(DATASET_FORMATS as readonly string[]).includes(format)) throw new UserError(`unknown format "${o.format}"; use one of ${DATASET_FORMATS.join(", ")}`, undefined, "--format");
   const vary = parseVary(o.vary);
@@ -207,7 +219,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
-  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary, format };
+  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary, format, range };
 }
 
 const RAW_H5_TEXT = "ISMRMRD (HDF5: dataset/xml header, dataset/data one record per readout): noise-only readouts first (--noise-lines), then every sampled line as acquired with read oversampling kept; relation to kspace.npy under rawH5";
@@ -351,7 +363,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     return { files: r.files, params };
   }, (i, skipped) => {
     if (!o.quiet && skipped) process.stderr.write(`case ${i + 1}/${plan.count}: files verified, skipped\n`);
-  });
+  }, { ...(plan.range ? { range: plan.range } : {}), batch: batchKey });
   return { ...result, seconds: (Date.now() - t0) / 1000 };
 }
 
@@ -378,18 +390,32 @@ export function registerDataset(program: Command): void {
       .option("--acs <lines>", "fully sampled centre lines along phase; default min(24, phase lines/4) for undersampling masks")
       .option("--partial-fourier <F>", "fraction of phase lines kept, in (0.5, 1]; the first lines are dropped", "1")
       .option("--count <n>", "number of cases", "1")
+      .option("--cases <A:B>", "make only cases A … B−1 of the --count, with the seeds they have in the whole batch, and write manifest-A-B.jsonl (for job arrays; join the parts with isofold dataset-merge)")
       .option("--format <name>", "raw k-space container: npy (kspace.npy), ismrmrd (raw.h5, the ISMRM raw-data standard) or both", "both")
       .option("--vary <list>", "seeded perturbations per case, ranges ±, drawn uniformly: position (length, whole object in x and y), rotation (angle about z), " +
         "size (fraction or %, per shape), t1, t2, pd (fraction or %, per tissue), b0 (Hz: offset and linear field up to this at 10 cm); " +
         "e.g. position=1cm,rotation=10deg,size=10%,t1=10%,b0=20Hz; repeatable", collect, []),
   );
+  // a batch is split by cases (--cases), not by shards; the command refuses --shard, so the help does not list it
+  cmd.options.find((x) => x.long === "--shard")?.hideHelp();
   cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
   cmd.action(async (phantom: string, o: DatasetCliOptions) => {
     const r = await runDataset(phantom, o);
     const made = r.made.length;
+    const range = o.cases !== undefined ? o.cases.split(":").map((v) => Number(v.trim())) : null;
     console.log(
       `dataset: ${made} case${made === 1 ? "" : "s"} written, ${r.skipped.length} verified and skipped, in ${resolve(o.out)} ` +
-        `(${r.seconds.toFixed(1)} s${made > 0 ? `, ${(r.seconds / made).toFixed(1)} s per written case` : ""}); see manifest.jsonl and ${caseDirName(0)}/case.json`,
+        `(${r.seconds.toFixed(1)} s${made > 0 ? `, ${(r.seconds / made).toFixed(1)} s per written case` : ""}); ` +
+        (range ? `see manifest-${range[0]}-${range[1]}.jsonl; when every part is done: isofold dataset-merge ${o.out}` : `see manifest.jsonl and ${caseDirName(0)}/case.json`),
     );
+  });
+  const merge = program
+    .command("dataset-merge")
+    .description("join the parts of one dataset batch made with --cases A:B (their manifest-A-B.jsonl in one folder) into manifest.jsonl, after checking for gaps, overlaps, other settings and damaged files")
+    .argument("<folder>", "the --out folder the parts wrote to");
+  merge.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
+  merge.action((folder: string) => {
+    const r = mergeDatasetParts(resolve(folder));
+    console.log(`dataset-merge: ${r.parts.length} part${r.parts.length === 1 ? "" : "s"} (${r.parts.join(", ")}) hold all ${r.count} cases; wrote ${join(resolve(folder), "manifest.jsonl")}`);
   });
 }
