@@ -193,7 +193,7 @@ describe("isofold dataset", () => {
     const c = filesOf(Cdir);
     expect(Buffer.compare(c.get("case-0000/noise.npy")!, a.get("case-0000/noise.npy")!)).not.toBe(0);
     expect(Buffer.compare(c.get("case-0000/kspace.npy")!, a.get("case-0000/kspace.npy")!)).not.toBe(0);
-  }, 30000);
+  }, 60000);
 
   it("an interrupted batch resumes: verified cases are skipped, a damaged case is redone to the same bytes", async () => {
     truncateSync(join(B, "case-0001", "kspace.npy"), 100);

@@ -14,7 +14,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, mergeDatasetParts, neighbourCovariance, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, mergeDatasetParts, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
@@ -52,6 +52,8 @@ export interface DatasetCliOptions {
   quiet?: boolean;
   format: string;
   cases?: string;
+  noiseModel: string;
+  snrReference?: string;
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -124,6 +126,8 @@ interface Plan {
   format: DatasetFormat;
   /** Cases A … B−1 only (--cases A:B), or null for all. */
   range: [number, number] | null;
+  /** --noise-model physical: the reference protocol (SNR = snr there on this phantom). */
+  reference: Protocol | null;
 }
 
 /** Validates every flag and file before any work; throws UserError. */
@@ -219,7 +223,17 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
-  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary, format, range };
+  let reference: Protocol | null = null;
+  if (o.noiseModel !== "snr" && o.noiseModel !== "physical") throw new UserError(`unknown noise model "${o.noiseModel}"; use snr (the SNR of this protocol) or physical (scaled from --snr-reference)`, undefined, "--noise-model");
+  if (o.noiseModel === "physical") {
+    if (o.snrReference === undefined || snr === null) {
+      throw new UserError("the physical noise model needs a reference: add --snr-reference <protocol> --snr X (the SNR the reference protocol has on this phantom)", undefined, "--noise-model");
+    }
+    reference = loadProtocol(o.snrReference, []);
+  } else if (o.snrReference !== undefined) {
+    throw new UserError("--snr-reference sets the physical noise model's reference; add --noise-model physical, or drop it", undefined, "--snr-reference");
+  }
+  return { protocol, phantoms, perturbations, array, psi, psiSource, snr, noiseLines, mask, count, vary, format, range, reference };
 }
 
 const RAW_H5_TEXT = "ISMRMRD (HDF5: dataset/xml header, dataset/data one record per readout): noise-only readouts first (--noise-lines), then every sampled line as acquired with read oversampling kept; relation to kspace.npy under rawH5";
@@ -244,6 +258,46 @@ function round(v: number, d = 9): number {
   return Number(v.toPrecision(d));
 }
 
+/** The factors of the physical noise model of a protocol (noise.ts). */
+function snrFactorsOf(p: Protocol, seq: { kspace: { slice: number; phase: number } }): SnrFactors {
+  return {
+    voxel: (p.fov.read / p.matrix.read) * (p.fov.phase / p.matrix.phase) * p.slice.thickness,
+    acquisition: p.averages * seq.kspace.phase * seq.kspace.slice / p.pixelBandwidth,
+    field: p.field,
+  };
+}
+
+/**
+ * σ of the physical noise model: the reference protocol is simulated once on
+ * the unperturbed phantom (one uniform coil) for its mean object signal A_ref,
+ * then σ follows from the factors (noise.ts physicalSigma).
+ */
+async function physicalNoise(phantomFile: string, reference: Protocol, refName: string, snr: number, protocol: Protocol, iso: ReturnType<typeof isoOptions>, o: DatasetCliOptions) {
+  const ref = prepare({ phantom: phantomFile, protocol: refName, sets: [], out: o.out, seed: o.seed, iso, quiet: true });
+  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers());
+  const img = ref.seq.image;
+  const v = toImageGrid(k.re, k.im, 1, ref.seq.kspace, img, ref.seq.grid);
+  const meanSignal = snrSigma(v.re, v.im, 1).meanSignal;
+  const refFactors = snrFactorsOf(reference, ref.seq);
+  const seq = buildSequence(protocol);
+  const own = snrFactorsOf(protocol, seq);
+  const points = seq.image.slice * seq.image.phase * seq.image.read;
+  const sigma = physicalSigma({ meanSignal, snr, factors: refFactors }, own, points);
+  return {
+    sigma,
+    report: {
+      reference: { protocol: refName, snr, meanSignalA: meanSignal, voxelM3: refFactors.voxel, samplingTimeS: refFactors.acquisition, fieldT: refFactors.field },
+      own: { voxelM3: own.voxel, samplingTimeS: own.acquisition, fieldT: own.field },
+      rule: "σ_img = σ/√N = (A_ref/SNR_ref) · (V_ref·√T_ref·B0_ref^β) / (V·√T·B0^β); V voxel volume of the image grid, T = averages × phase lines (with phase oversampling) × slice-encoding steps × readout duration (1/pixel bandwidth); " +
+        "the reference simulated once on the unperturbed phantom with one uniform coil; per coil the noise covariance is σ²·Ψ",
+      fieldExponent: FIELD_EXPONENT,
+      fieldExponentSource: "β = 1: sample-noise-dominated regime (D. I. Hoult, R. E. Richards, J. Magn. Reson. 24 (1976) 71–85); common practice at clinical field strengths",
+      volumeTimeSource: "SNR ∝ voxel volume · √(total sampling time) (W. A. Edelstein et al., Magn. Reson. Med. 3 (1986) 604–618); common practice",
+      snrRatioToReference: (snrFactor(own) / snrFactor(refFactors)),
+    },
+  };
+}
+
 /** Runs the batch; returns the made and skipped case numbers. */
 export async function runDataset(phantomFile: string, o: DatasetCliOptions): Promise<{ made: number[]; skipped: number[]; seconds: number }> {
   const t0 = Date.now();
@@ -255,7 +309,9 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const batchKey = sha256(JSON.stringify({
     version: version(), phantom: sha256(readFileSync(phantomFile)), protocol, iso, array, psi: [Array.from(plan.psi.re), Array.from(plan.psi.im)],
     snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed, format: plan.format,
+    ...(plan.reference ? { reference: plan.reference } : {}),
   }));
+  const physical = plan.reference ? await physicalNoise(phantomFile, plan.reference, o.snrReference!, plan.snr!, protocol, iso, o) : null;
   const files: Record<string, string> = {
     "kspace.npy": "complex64 [coil, slice, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
     "mask.npy": "uint8 [slice, phase]: 1 where the whole readout line was sampled",
@@ -288,6 +344,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
       array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(),
+      ...(physical ? { sigma: physical.sigma } : {}),
       format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
     }, i,
     (d, t) => progress.update(d, t));
@@ -300,6 +357,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
         b0: { f0Hz: round(p.b0.f0), gxHzPerM: round(p.b0.gx), gyHzPerM: round(p.b0.gy) },
       },
       coils: C, mask: plan.mask.kind, acceleration: round(r.info.mask.acceleration, 6), snr: plan.snr, sigma: round(r.info.sigma),
+      ...(physical ? { noiseModel: "physical" } : {}),
     };
     const m = r.info.mask;
     const caseJson = {
@@ -340,7 +398,9 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       noise: {
         model: "circularly symmetric complex Gaussian, n = σ·L·z per k-space sample, Ψ = L·Lᴴ, z ~ CN(0, I); independent between samples",
         psi: { source: plan.psiSource, re: Array.from(plan.psi.re), im: Array.from(plan.psi.im), rows: C },
-        snr: plan.snr,
+        noiseModel: physical ? "physical: σ scaled from the reference protocol (see physical)" : "snr: σ from the SNR of this protocol (--snr)",
+        ...(physical ? { physical: { ...physical.report, snrResulting: round(r.info.meanSignal / (r.info.sigma / Math.sqrt(r.info.dims.slice * r.info.dims.phase * r.info.dims.read)), 6) } } : {}),
+        snr: physical ? null : plan.snr,
         snrDefinition: "SNR = A / (σ/√N): A = mean |truth[0]| over pixels with |truth[0]| ≥ 0.1·max|truth[0]|, N = number of image-grid points; σ/√N is the complex standard deviation (sqrt E|ε|²) of a pixel reconstructed from one coil's noise with Ψ_cc = 1 and full sampling",
         sigma: r.info.sigma,
         meanSignalA: r.info.meanSignal,
@@ -384,6 +444,8 @@ export function registerDataset(program: Command): void {
       .option("--noise-correlation <rho>", "noise correlation coefficient between neighbouring loops (plain number, |rho| < 0.5 for a ring)", "0")
       .option("--noise-covariance <file>", "coil noise covariance Ψ as .npy [coils, coils] or JSON rows (or {re, im}); Hermitian positive definite")
       .option("--snr <x>", "target SNR (definition in case.json: mean object signal of the uniform-coil image / noise std of one coil's image); default: no noise")
+      .option("--noise-model <name>", "snr: --snr is this protocol's SNR; physical: --snr is the SNR of --snr-reference on this phantom, and this protocol's noise follows from voxel volume, √(sampling time) and field strength", "snr")
+      .option("--snr-reference <protocol>", "reference protocol (file or preset) of the physical noise model, simulated once on the unperturbed phantom with one uniform coil")
       .option("--noise-lines <n>", "noise-only readouts per coil written to noise.npy (needs --snr)", "0")
       .option("--mask <name>", `sampling mask: ${MASK_KINDS.join(", ")}`, "full")
       .option("--accel <R>", "acceleration (phase lines, or phase-encoding points for poisson, divided by the number sampled); default 4 for undersampling masks")

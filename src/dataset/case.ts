@@ -92,6 +92,8 @@ export interface CaseSettings {
   psi: CMatrix;
   /** Target SNR, or null for noise-free k-space. */
   snr: number | null;
+  /** σ set by the physical noise model (overrides snr). */
+  sigma?: number;
   /** Noise-only samples per coil to write as noise.npy (0 = none), each a readout of `read` samples. */
   noiseLines: number;
   mask: MaskOptions;
@@ -172,7 +174,9 @@ export async function buildCase(
   }
   // k-space on the image grid, noise, mask
   toKspace(coilRe, coilIm, C, img);
-  const { sigma, meanSignal, objectPixels } = s.snr === null ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr);
+  const stats = s.snr === null && s.sigma === undefined ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr ?? 1);
+  const { meanSignal, objectPixels } = stats;
+  const sigma = s.sigma ?? stats.sigma;
   const L = cholesky(s.psi, "--noise-covariance");
   if (sigma > 0) {
     // noise drawn into its own buffer, then added: the same sums as adding in place (0 + a = a exactly)
