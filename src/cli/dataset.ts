@@ -54,6 +54,7 @@ export interface DatasetCliOptions {
   cases?: string;
   noiseModel: string;
   snrReference?: string;
+  exact?: boolean;
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -170,6 +171,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration"),
     acs: o.acs === undefined ? (kind === "full" ? 0 : Math.min(24, Math.floor(phaseLines / 4))) : int(o.acs, "--acs", 0, Number.MAX_SAFE_INTEGER),
     partialFourier: num(o.partialFourier, "--partial-fourier", 0, 1, "a fraction"),
+    ...(o.exact ? { exact: true } : {}),
   };
   checkMaskOptions(mask, seq.image.slice, seq.image.phase);
   // coils
@@ -412,6 +414,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
         sampledFraction: m.sampled, acceleration: m.acceleration,
         ...(m.density ? { density: "p(y) = min(1, λ·(1 − |y − floor(N/2)|/(N/2))²) outside the ACS lines, 1 inside; λ so that Σp = N/R", densityPerLine: Array.from(m.density, (v) => round(v, 6)) } : {}),
         ...(m.radius !== null ? { poissonRadiusLines: round(m.radius, 6) } : {}),
+        ...(plan.mask.exact ? { exact: "round(N/R) lines per slice-encoding step: the ACS lines plus lines drawn without replacement with weights p(y) (keys u^(1/p), Efraimidis and Spirakis 2006)" } : {}),
         rule: "see src/dataset/masks.ts: uniform keeps lines with (y − floor(N/2)) mod R = 0 plus the ACS lines [floor(N/2) − floor(ACS/2), … + ACS); partial Fourier removes lines y < N − round(F·N)",
       },
       phantom: { name: plan.phantoms[i]!.name, perturbation: params.perturbation, vary: plan.vary, b0: plan.phantoms[i]!.b0Description },
@@ -450,6 +453,7 @@ export function registerDataset(program: Command): void {
       .option("--mask <name>", `sampling mask: ${MASK_KINDS.join(", ")}`, "full")
       .option("--accel <R>", "acceleration (phase lines, or phase-encoding points for poisson, divided by the number sampled); default 4 for undersampling masks")
       .option("--acs <lines>", "fully sampled centre lines along phase; default min(24, phase lines/4) for undersampling masks")
+      .option("--exact", "with --mask random: exactly round(N/R) lines per slice-encoding step instead of N/R on average")
       .option("--partial-fourier <F>", "fraction of phase lines kept, in (0.5, 1]; the first lines are dropped", "1")
       .option("--count <n>", "number of cases", "1")
       .option("--cases <A:B>", "make only cases A … B−1 of the --count, with the seeds they have in the whole batch, and write manifest-A-B.jsonl (for job arrays; join the parts with isofold dataset-merge)")
