@@ -36,7 +36,6 @@ describe("isofold simulate", () => {
     const proto = writeJson(dir, "p.json", PROTOCOL);
     const out = join(dir, "run");
     const r = cli(["simulate", "phantoms/two-bottle.json", "-p", proto, "-o", out, "--density", "1", "--slice-isochromats", "4", "-q"]);
-    expect(r.stderr).toBe("");
     expect(r.code).toBe(0);
     expect(readdirSync(out).sort()).toEqual(["image.nii", "image.npy", "image.png", "kspace.npy", "kspace.png", "report.json"]);
     // NumPy format read by npyjs (an independent reader): complex64 '<c8', [coils, slice, phase, read]
@@ -66,6 +65,8 @@ describe("isofold simulate", () => {
     expect(rep.protocol.te).toBeCloseTo(0.004, 12);
     expect(rep.sequence.timing.teMin).toBeLessThan(0.004);
     expect(rep.safety).toMatch(/not a medical device/);
+    // stderr holds the run's warnings and nothing else (-q: no progress line)
+    expect(r.stderr).toBe(rep.warnings.map((w: string) => `warning: ${w}\n`).join(""));
     expect(rep.fftConvention).toMatch(/ifftshift/);
   }, 60000);
 

@@ -67,7 +67,7 @@ describe("susceptibility closed forms vs a Fourier dipole calculation", () => {
     }
     expect(count).toBeGreaterThan(500);
     expect(worst / ((2 * dchi) / 3)).toBeLessThan(0.03);
-    // worked values at 3 T (REFERENCES.md §7, derived): pole +801 Hz, equator −401 Hz at r = a
+    // worked by hand from the closed form (Schenck 1996, Med Phys 23:815) at 3 T: Δχ = 9.41 ppm, pole +801 Hz, equator −401 Hz at r = a
     const hz = GAMMA_BAR * 3;
     expect(chiFieldRatio(sphere, 0, 0, a * (1 + 1e-12)) * hz).toBeCloseTo(801, -1);
     expect(chiFieldRatio(sphere, a * (1 + 1e-12), 0, 0) * hz).toBeCloseTo(-401, -1);
@@ -99,7 +99,7 @@ describe("susceptibility closed forms vs a Fourier dipole calculation", () => {
       worst = Math.max(worst, Math.abs(re[z * m + y]! - chiFieldRatio(cyl, 0, py, pz)));
     }
     expect(worst / (dchi / 2)).toBeLessThan(0.03);
-    // inside, ⟂ B0: −Δχ/6; outside at φ = 0 (along z), r = a: +Δχ/2 → +601 Hz at 3 T (REFERENCES.md §7)
+    // inside, ⟂ B0: −Δχ/6; outside at φ = 0 (along z), r = a: +Δχ/2 → +601 Hz at 3 T (worked by hand from the closed form, Schenck 1996)
     expect(chiFieldRatio(cyl, 0, 0, 0)).toBeCloseTo(-dchi / 6, 12);
     expect(chiFieldRatio(cyl, 0, 0, a * (1 + 1e-12)) * GAMMA_BAR * 3).toBeCloseTo(601, -1);
   }, 30_000);

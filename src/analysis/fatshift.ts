@@ -3,7 +3,7 @@
  * measurement on a simulated image.
  *
  * Predictions (Bernstein, King & Zhou 2004, ch. 11 and 16; signs derived for
- * this program's conventions, DESIGN.md: an isochromat at logical position r
+ * this program's conventions (DEVELOPERS.md, Physics conventions): an isochromat at logical position r
  * with offset Δf precesses at γ̄·G·r + Δf):
  *   - readout: during a readout gradient G_read > 0 a spin at u appears where
  *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = (Δf/BW_px)·Δx:

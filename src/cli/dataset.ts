@@ -18,7 +18,7 @@ import {
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
-import { prepare, readRealNpy, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
+import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { defaultWorkers } from "./memory.js";
 
@@ -330,11 +330,16 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   }
   if (plan.format !== "npy") files["raw.h5"] = RAW_H5_TEXT;
   const placement = loopPlacement(array);
+  /** Warnings already printed on stderr in this batch (each prints once). */
+  const printed = new Set<string>();
   const result = await runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), async (i) => {
-    const { seq, iso: set } = prepare({
+    const { seq, iso: set, phantom: casePhantom } = prepare({
       phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
       phantomTransform: () => plan.phantoms[i]!,
     });
+    const warnings = [...protocol.warnings, ...set.warnings];
+    printWarnings(warnings.filter((w) => !printed.has(w)));
+    for (const w of warnings) printed.add(w);
     if (array.elements > 0) {
       const m = enclosureMargin(array, set.x, set.y, set.count);
       if (m >= 0) throw new UserError(`the coil array does not enclose the object of case ${i}: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger radius`, undefined, "--array-radius");
@@ -421,6 +426,12 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       protocol: { ...protocol, units: "SI: s, m, T, T/m, T/m/s, Hz, rad" },
       sequence: { name: seq.name, timing: seq.timing },
       isochromats: { count: set.count, density: iso.density, sliceCount: iso.sliceCount, sliceExtent: iso.sliceExtent, fatModel: iso.fatModel },
+      tissues: {
+        units: "pd relative to pure water; t1, t2, t2star in s (after this case's perturbation); fatFraction 0..1",
+        note: "`source` says, for each library value, whether it was checked against the published source, recalled from memory, estimated by a rule or is a design value of our own",
+        list: tissueReport(casePhantom),
+      },
+      warnings,
     };
     r.files.set("case.json", JSON.stringify(caseJson, null, 2) + "\n");
     return { files: r.files, params };

@@ -61,6 +61,8 @@ addSimulationOptions(
 registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
+// the safety note closes every subcommand's --help
+for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 
 async function main(): Promise<void> {
   try {

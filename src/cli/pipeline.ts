@@ -25,6 +25,26 @@ export const SAFETY_NOTE =
   "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
   "defer to the scanner's own safety system, local regulations and licensed practice.";
 
+/**
+ * Prints each warning of a run on stderr, one line each, prefixed "warning:"
+ * (also with --quiet: -q silences progress only). Duplicates print once.
+ */
+export function printWarnings(warnings: readonly string[]): void {
+  for (const w of new Set(warnings)) process.stderr.write(`warning: ${w}\n`);
+}
+
+/**
+ * The tissues of a run with their values (SI) and where each value comes from:
+ * library tissues give the status of each value (checked against the source,
+ * recalled from memory, estimated by a rule, our own design value).
+ */
+export function tissueReport(phantom: Phantom): Record<string, unknown>[] {
+  return phantom.tissues.map((t) => ({
+    name: t.name, pd: t.pd, t1: t.t1, t2: t.t2, t2star: t.t2star, fatFraction: t.fatFraction,
+    source: t.source ?? "given in the phantom file",
+  }));
+}
+
 export function version(): string {
   const require = createRequire(import.meta.url);
   for (const p of ["../../package.json", "../../../package.json"]) {
@@ -303,6 +323,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
   });
+  printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
@@ -381,6 +402,11 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       ...ctx.engine,
       order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
     },
+    tissues: {
+      units: "pd relative to pure water; t1, t2, t2star in s; fatFraction 0..1",
+      note: "library values for the nearer table (1.5 T or 3 T); `source` says, for each value, whether it was checked against the published source, recalled from memory, estimated by a rule or is a design value of our own",
+      list: tissueReport(phantom),
+    },
     measurements: { imageMax: max },
     fatShift: null as unknown,
     timingSeconds: seconds,
@@ -397,6 +423,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     report,
   });
+  printWarnings(report.warnings as string[]);
   return { dir: o.out, files, seconds, report };
 }
 

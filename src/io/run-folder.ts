@@ -1,5 +1,5 @@
 /**
- * The run folder contract (DESIGN.md): image.png, kspace.png, kspace.npy,
+ * The run folder contract (DEVELOPERS.md, Files): image.png, kspace.png, kspace.npy,
  * image.npy, image.nii, report.json — all staged under temporary names and
  * renamed together, so a killed run leaves no file under a final name.
  */

@@ -1,5 +1,5 @@
 /**
- * Phantom files (phantoms/NAME.json, contract in DESIGN.md): read, validate
+ * Phantom files (phantoms/NAME.json, keys in README.md and DEVELOPERS.md): read, validate
  * and compile into a Phantom with SI numbers. Every problem is a UserError
  * naming the file, the key path and what is allowed.
  *
