@@ -14,11 +14,13 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, mergeDatasetParts, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, mergeDatasetParts, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
-import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE } from "./pipeline.js";
+import { encodeNpy } from "../io/npy.js";
+import { encodeGrayPng } from "../io/png.js";
+import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { defaultWorkers } from "./memory.js";
 
@@ -112,6 +114,50 @@ function sampledMargin(ph: Phantom, protocol: Protocol, array: CoilArray): numbe
   return enclosureMargin(array, xs, ys, xs.length);
 }
 
+export interface CoilCliOptions {
+  coils: string;
+  coilRows: string;
+  loopRadius?: string;
+  arrayRadius?: string;
+  rowSpacing?: string;
+}
+
+/**
+ * The receive array of --coils and the loop options (uniform coil for 1):
+ * defaults from the phantom's extent (plus perturbation ranges); every
+ * phantom in `phantoms` must lie inside the loops.
+ */
+export function planCoilArray(o: CoilCliOptions, phantom: Phantom, protocol: Protocol, vary: VarySpec, phantoms: Phantom[]): CoilArray {
+  const nCoils = int(o.coils, "--coils", 1, 256);
+  const rows = int(o.coilRows, "--coil-rows", 1, 64);
+  if (nCoils % rows !== 0) throw new UserError(`${nCoils} coils do not split into ${rows} equal rows; give a multiple of ${rows}`, undefined, "--coils");
+  if (nCoils === 1 && (o.loopRadius || o.arrayRadius || o.rowSpacing || rows > 1)) {
+    throw new UserError("coil geometry options need an array of loops; add --coils N with N ≥ 2 (--coils 1 is the uniform body coil)", undefined, "--coils");
+  }
+  let array: CoilArray = { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 };
+  if (nCoils > 1) {
+    const elements = nCoils / rows;
+    const h = halfExtent(phantom, protocol.fov.phase) * (1 + vary.size) + Math.SQRT2 * vary.position;
+    const arrayRadius = o.arrayRadius ? length(o.arrayRadius, "--array-radius") : 1.15 * h + 0.01;
+    const loopRadius = o.loopRadius ? length(o.loopRadius, "--loop-radius") : Math.min((Math.PI * arrayRadius) / elements, 0.8 * arrayRadius);
+    const rowSpacing = o.rowSpacing ? length(o.rowSpacing, "--row-spacing") : 1.8 * loopRadius;
+    const ax = logicalAxes(protocol);
+    array = { elements, rows, loopRadius, arrayRadius, rowSpacing, zCentre: ax.slice[2] * protocol.slice.position };
+    const count = phantoms.length;
+    phantoms.forEach((ph, i) => {
+      const m = sampledMargin(ph, protocol, array);
+      if (m >= 0) {
+        throw new UserError(
+          `the coil array of radius ${(arrayRadius * 100).toFixed(1)} cm does not enclose the object${count > 1 ? ` of case ${i}` : ""}: ` +
+            `part of it lies ${(m * 100).toFixed(1)} cm beyond a loop; give a larger --array-radius (at least ${((arrayRadius + m) * 100 + 1).toFixed(0)} cm)`,
+          undefined, "--array-radius",
+        );
+      }
+    });
+  }
+  return array;
+}
+
 interface Plan {
   protocol: Protocol;
   phantoms: Phantom[];
@@ -174,13 +220,6 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     ...(o.exact ? { exact: true } : {}),
   };
   checkMaskOptions(mask, seq.image.slice, seq.image.phase);
-  // coils
-  const nCoils = int(o.coils, "--coils", 1, 256);
-  const rows = int(o.coilRows, "--coil-rows", 1, 64);
-  if (nCoils % rows !== 0) throw new UserError(`${nCoils} coils do not split into ${rows} equal rows; give a multiple of ${rows}`, undefined, "--coils");
-  if (nCoils === 1 && (o.loopRadius || o.arrayRadius || o.rowSpacing || rows > 1)) {
-    throw new UserError("coil geometry options need an array of loops; add --coils N with N ≥ 2 (--coils 1 is the uniform body coil)", undefined, "--coils");
-  }
   const perturbations: Perturbation[] = [];
   const phantoms: Phantom[] = [];
   for (let i = 0; i < count; i++) {
@@ -188,26 +227,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     perturbations.push(p);
     phantoms.push(applyPerturbation(phantom, p));
   }
-  let array: CoilArray = { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 };
-  if (nCoils > 1) {
-    const elements = nCoils / rows;
-    const h = halfExtent(phantom, protocol.fov.phase) * (1 + vary.size) + Math.SQRT2 * vary.position;
-    const arrayRadius = o.arrayRadius ? length(o.arrayRadius, "--array-radius") : 1.15 * h + 0.01;
-    const loopRadius = o.loopRadius ? length(o.loopRadius, "--loop-radius") : Math.min((Math.PI * arrayRadius) / elements, 0.8 * arrayRadius);
-    const rowSpacing = o.rowSpacing ? length(o.rowSpacing, "--row-spacing") : 1.8 * loopRadius;
-    const ax = logicalAxes(protocol);
-    array = { elements, rows, loopRadius, arrayRadius, rowSpacing, zCentre: ax.slice[2] * protocol.slice.position };
-    phantoms.forEach((ph, i) => {
-      const m = sampledMargin(ph, protocol, array);
-      if (m >= 0) {
-        throw new UserError(
-          `the coil array of radius ${(arrayRadius * 100).toFixed(1)} cm does not enclose the object${count > 1 ? ` of case ${i}` : ""}: ` +
-            `part of it lies ${(m * 100).toFixed(1)} cm beyond a loop; give a larger --array-radius (at least ${((arrayRadius + m) * 100 + 1).toFixed(0)} cm)`,
-          undefined, "--array-radius",
-        );
-      }
-    });
-  }
+  const array = planCoilArray(o, phantom, protocol, vary, phantoms);
   // noise
   const C = coilCount(array);
   let psi: CMatrix, psiSource: string;
@@ -443,18 +463,13 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
 
 export function registerDataset(program: Command): void {
   const cmd = addSimulationOptions(
-    program
+    addCoilOptions(program
       .command("dataset")
       .description("write a batch of multi-coil raw k-space cases with their ground truth (truth image, coil sensitivities, noise covariance, sampling mask) for testing reconstruction code")
       .argument("<phantom>", "phantom file (JSON), e.g. phantoms/torso-slice.json")
       .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
       .option("-s, --set <key=value>", "override a protocol value, repeatable", collect, [])
-      .requiredOption("-o, --out <dir>", "output folder: manifest.jsonl and one case-NNNN/ folder per case; an interrupted batch resumes here")
-      .option("--coils <n>", "receive coils: 1 = one uniform body coil; N ≥ 2 = N circular loops on a cylinder around the z axis", "1")
-      .option("--coil-rows <n>", "rows of loops along z (the loops split equally between rows)", "1")
-      .option("--array-radius <length>", 'distance of the loop centres from the z axis, with units, e.g. "20 cm"; default 1.15 × the object half-extent (plus perturbations) + 1 cm')
-      .option("--loop-radius <length>", 'loop radius with units; default min(π·array radius/loops per row, 0.8·array radius)')
-      .option("--row-spacing <length>", "distance between rows along z with units; default 1.8 × loop radius")
+      .requiredOption("-o, --out <dir>", "output folder: manifest.jsonl and one case-NNNN/ folder per case; an interrupted batch resumes here"), "")
       .option("--noise-correlation <rho>", "noise correlation coefficient between neighbouring loops (plain number, |rho| < 0.5 for a ring)", "0")
       .option("--noise-covariance <file>", "coil noise covariance Ψ as .npy [coils, coils] or JSON rows (or {re, im}); Hermitian positive definite")
       .option("--snr <x>", "target SNR (definition in case.json: mean object signal of the uniform-coil image / noise std of one coil's image); default: no noise")
@@ -495,4 +510,91 @@ export function registerDataset(program: Command): void {
     const r = mergeDatasetParts(resolve(folder));
     console.log(`dataset-merge: ${r.parts.length} part${r.parts.length === 1 ? "" : "s"} (${r.parts.join(", ")}) hold all ${r.count} cases; wrote ${join(resolve(folder), "manifest.jsonl")}`);
   });
+}
+
+/** The receive-coil options shared by `dataset` and `simulate`. */
+export function addCoilOptions(c: Command, what: string): Command {
+  return c
+    .option("--coils <n>", `receive coils: 1 = one uniform body coil; N ≥ 2 = N circular loops on a cylinder around the z axis${what}`, "1")
+    .option("--coil-rows <n>", "rows of loops along z (the loops split equally between rows)", "1")
+    .option("--array-radius <length>", 'distance of the loop centres from the z axis, with units, e.g. "20 cm"; default 1.15 × the object half-extent (plus perturbations) + 1 cm')
+    .option("--loop-radius <length>", "loop radius with units; default min(π·array radius/loops per row, 0.8·array radius)")
+    .option("--row-spacing <length>", "distance between rows along z with units; default 1.8 × loop radius");
+}
+
+/**
+ * simulate --coils N: the engine runs the uniform coil and every loop in one
+ * pass (dataset/simulate.ts); the run folder gets the uniform coil's
+ * k-space and image as usual, plus coil-images.npy, sensitivities.npy,
+ * coils.png (each coil's magnitude, side by side) and coil-rss.png (the
+ * root-sum-of-squares, which shows the coil shading). Undefined for one coil.
+ */
+export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: number; quiet?: boolean; shard?: unknown }): RunOptions["coilRun"] {
+  const probe = { ...o };
+  if (probe.coils === "1" && !probe.loopRadius && !probe.arrayRadius && !probe.rowSpacing && probe.coilRows === "1") return undefined;
+  if (o.shard) throw new UserError("--coils runs every coil in one pass; it does not split into shards: drop --shard", undefined, "--coils");
+  return async ({ seq, iso, protocol }) => {
+    if (protocol.slices.count > 1) throw new UserError("--coils simulates one slice or one 3D slab; set slices.count to 1", undefined, "--coils");
+    const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
+    const array = planCoilArray(o, phantom, protocol, parseVary([]), [phantom]);
+    if (array.elements === 0) throw new UserError("one coil is the uniform coil of a normal run; give --coils N with N ≥ 2", undefined, "--coils");
+    const m = enclosureMargin(array, iso.x, iso.y, iso.count);
+    if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
+    const progress = new Progress("simulating coils", "chunk", o.quiet);
+    const { kspace, plan } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t));
+    progress.done();
+    const C = coilCount(array), img = seq.image, n = img.slice * img.phase * img.read;
+    const all = toImageGrid(kspace.re, kspace.im, C + 1, seq.kspace, img, seq.grid);
+    const coilRe = all.re.slice(n), coilIm = all.im.slice(n);
+    const axes = logicalAxes(protocol);
+    const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
+    const pc = pixelCentres(axes, img, dx, dy, protocol.slice.thickness, protocol.slice.position);
+    const sens = new Float64Array(2 * C * n);
+    sensitivitiesAt(array, pc.x, pc.y, pc.z, n, sens, n, 0);
+    const shape = [C, img.slice, img.phase, img.read];
+    const files = new Map<string, Uint8Array>();
+    files.set("coil-images.npy", encodeNpy({ dtype: "complex64", shape, data: { re: coilRe, im: coilIm } }));
+    const sr = new Float64Array(C * n), si = new Float64Array(C * n);
+    for (let i = 0; i < C * n; i++) { sr[i] = sens[2 * i]!; si[i] = sens[2 * i + 1]!; }
+    files.set("sensitivities.npy", encodeNpy({ dtype: "complex64", shape, data: { re: sr, im: si } }));
+    // pictures of the central slice-encoding step: RSS, and the coils side by side (same window for all)
+    const P = img.slice, pz = Math.floor(P / 2), plane = img.phase * img.read;
+    const rss = new Float64Array(plane);
+    for (let c = 0; c < C; c++) {
+      for (let i = 0; i < plane; i++) rss[i] += coilRe[c * n + pz * plane + i]! ** 2 + coilIm[c * n + pz * plane + i]! ** 2;
+    }
+    for (let i = 0; i < plane; i++) rss[i] = Math.sqrt(rss[i]!);
+    files.set("coil-rss.png", encodeGrayPng(rss, img.read, img.phase).png);
+    const cols = Math.ceil(Math.sqrt(C)), rowsN = Math.ceil(C / cols);
+    const W = cols * img.read, H = rowsN * img.phase, mosaic = new Float64Array(W * H);
+    for (let c = 0; c < C; c++) {
+      const ox = (c % cols) * img.read, oy = Math.floor(c / cols) * img.phase;
+      for (let y = 0; y < img.phase; y++) {
+        for (let x = 0; x < img.read; x++) {
+          const k = c * n + pz * plane + y * img.read + x;
+          mosaic[(oy + y) * W + ox + x] = Math.hypot(coilRe[k]!, coilIm[k]!);
+        }
+      }
+    }
+    files.set("coils.png", encodeGrayPng(mosaic, W, H).png);
+    const rows = seq.kspace.slice * seq.kspace.phase, read = seq.kspace.read;
+    const k0 = { coils: 1, rows, read, re: kspace.re.slice(0, rows * read), im: kspace.im.slice(0, rows * read) };
+    const placement = loopPlacement(array);
+    return {
+      kspace: k0, plan, files,
+      report: {
+        kind: "circular loops", count: C, loopsPerRow: array.elements, rows: array.rows,
+        loopRadiusM: round(array.loopRadius), arrayRadiusM: round(array.arrayRadius), rowSpacingM: round(array.rowSpacing), zCentreM: round(array.zCentre),
+        loops: placement.map((l, q) => ({ coil: q, centreM: l.centre.map((v) => round(v)), normal: l.normal.map((v) => round(v)) })),
+        sensitivity: "S_c(r) = (Bx − i·By)(r)/κ, B = Biot–Savart field per unit current of loop c; κ makes sqrt(Σ_c |S_c|²) = 1 at the array centre",
+        files: {
+          "coil-images.npy": "complex64 [coil, slice, phase, read]: each coil's image on the image grid (sensitivity applied to every isochromat before the readout)",
+          "sensitivities.npy": "complex64 [coil, slice, phase, read]: S_c at the pixel centres",
+          "coil-rss.png": "root-sum-of-squares of the coil images (central slice-encoding step): the coil shading",
+          "coils.png": `each coil's magnitude side by side, ${cols} per row, coil 0 top left, one window for all`,
+        },
+        uniformCoil: "image.png, image.npy and kspace.npy are the uniform coil (S = 1), simulated in the same pass; its k-space can differ from a run without --coils in the last bits (isochromats summed in column blocks)",
+      },
+    };
+  };
 }
