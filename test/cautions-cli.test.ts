@@ -38,7 +38,7 @@ describe("safety note", () => {
       expect(r.code, c).toBe(0);
       expect(unwrap(r.stdout), `isofold ${c} --help`).toMatch(SAFETY);
     }
-  }, 30_000);
+  }, 60_000);
 
   it("protocol: the table carries the note and says what the headroom is not; --json has safety and headroom", () => {
     const t = cli(["protocol", "gre-demo-1.5t"]);
@@ -61,7 +61,7 @@ describe("safety note", () => {
       expect(o.headroom.slew[axis]).toBeCloseTo(1 - o.derived[`peakSlew${name}`].value / 100, 12);
       expect(o.headroom.gradient[axis]).toBeLessThanOrEqual(1);
     }
-  }, 30_000);
+  }, 60_000);
 });
 
 describe("warnings reach the console", () => {
@@ -75,7 +75,7 @@ describe("warnings reach the console", () => {
     expect(report.warnings.some((w) => /T2\* below T2 is not modelled/.test(w))).toBe(true);
     const lines = r.stderr.trim().split("\n");
     expect(lines).toEqual([...new Set(report.warnings)].map((w) => `warning: ${w}`));
-  }, 30_000);
+  }, 60_000);
 
   it("protocol: the deprecation warning of matrix.partitions is printed on stderr and listed in --json", () => {
     const dir = tempDir();
@@ -85,7 +85,7 @@ describe("warnings reach the console", () => {
     expect(r.stderr).toMatch(/^warning: matrix\.partitions is deprecated.*"slice": 8/);
     expect(r.stderr.trim().split("\n")).toHaveLength(1);
     expect(JSON.parse(r.stdout).warnings).toEqual([r.stderr.trim().replace(/^warning: /, "")]);
-  }, 30_000);
+  }, 60_000);
 });
 
 describe("report.json says where each tissue value comes from, as the library does", () => {
@@ -117,7 +117,7 @@ describe("report.json says where each tissue value comes from, as the library do
     expect(r2.code).toBe(0);
     const rep2 = JSON.parse(readFileSync(join(dir, "run2", "report.json"), "utf8"));
     expect(rep2.tissues.list).toEqual([{ name: "gel", pd: 1, t1: 0.8, t2: 0.09, t2star: 0.045, fatFraction: 0, source: "given in the phantom file" }]);
-  }, 30_000);
+  }, 60_000);
 });
 
 describe("tissue library statuses", () => {

@@ -5,7 +5,7 @@
  * byte-identical to the one-run manifest.
  */
 import { afterAll, describe, expect, it } from "vitest";
-import { spawnSync } from "node:child_process";
+import { spawn, spawnSync } from "node:child_process";
 import { cpSync, existsSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
@@ -41,6 +41,15 @@ function cli(args: string[]): { status: number | null; stderr: string; stdout: s
   return { status: r.status, stderr: r.stderr, stdout: r.stdout };
 }
 
+function cliAsync(args: string[]): Promise<{ status: number | null; stderr: string }> {
+  return new Promise((done) => {
+    const p = spawn(process.execPath, [CLI, ...args], { stdio: ["ignore", "ignore", "pipe"] });
+    let stderr = "";
+    p.stderr.on("data", (b: Buffer) => (stderr += b.toString()));
+    p.on("close", (status) => done({ status, stderr }));
+  });
+}
+
 function tree(dir: string): string[] {
   return readdirSync(dir, { recursive: true }).map(String).sort();
 }
@@ -50,10 +59,12 @@ describe("dataset parts (--cases) and dataset-merge", () => {
 
   it("parts 0:1 and 1:3 give the files of the one-run batch byte for byte; the merged manifest equals the one-run manifest", async () => {
     await here(["-o", whole]);
-    await here(["-o", parts, "--cases", "1:3"]);
-    await here(["-o", parts, "--cases", "0:1"]);
+    // the two parts run at the same time into one folder, as array jobs on a shared file system do
+    const both = await Promise.all([["1:3"], ["0:1"]].map(([c]) => cliAsync(["dataset", ...BASE, "-o", parts, "--cases", c!])));
+    for (const r of both) expect(r.status, r.stderr).toBe(0);
     expect(existsSync(join(parts, "manifest-0-1.jsonl")) && existsSync(join(parts, "manifest-1-3.jsonl"))).toBe(true);
     expect(existsSync(join(parts, "manifest.jsonl"))).toBe(false);
+    expect(readdirSync(parts).filter((f) => f.endsWith(".lock"))).toEqual([]);
     for (const c of ["case-0000", "case-0001", "case-0002"]) {
       for (const f of readdirSync(join(whole, c))) {
         expect(readFileSync(join(parts, c, f)).equals(readFileSync(join(whole, c, f))), `${c}/${f}`).toBe(true);

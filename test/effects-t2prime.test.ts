@@ -161,5 +161,5 @@ describe("T2* blurring along the readout", () => {
     expect(closed).toBeGreaterThan(1.3 * sharp); // the decay really broadens the PSF
     // Lorentzian limit, |one-sided complex Lorentzian| FWHM √3·T_acq/(π·T2*) px (derived from the Lorentzian line shape; common practice), here a coarse bound
     expect(sim).toBeLessThan((Math.sqrt(3) * 0.01) / (Math.PI * t2s) + sharp);
-  }, 30_000);
+  }, 60_000);
 });

@@ -58,5 +58,5 @@ describe("isofold protocol", () => {
     expect(r.stdout).toBe("");
     expect(r.stderr.trim().split("\n")).toHaveLength(1);
     expect(r.stderr).toMatch(/slices\.count: 40 slices .* do not fit .* or slices\.count to at most 25/);
-  }, 30000);
+  }, 60_000);
 });

@@ -50,6 +50,6 @@ describe("every scheme writes a run folder through the simulate pipeline", () =>
       expect(img.length).toBeGreaterThan(8 * shape[1]! * 32 * 32);
       max = rep.measurements.imageMax;
       expect(max).toBeGreaterThan(0);
-    }, 20000);
+    }, 60_000);
   }
 });

@@ -125,5 +125,5 @@ describe("multi-slice: each slice is its own run at its own position, stacked in
       const width = halfMaxWidth(row, 0.5 * row[16]!);
       expect(Math.abs(width / 2 - radiiPx[s]!)).toBeLessThan(0.5);
     }
-  }, 20000);
+  }, 60_000);
 });

@@ -22,6 +22,7 @@ import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
 import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
+import { withOutputDir } from "../io/outpath.js";
 import { defaultWorkers } from "./memory.js";
 
 export interface DatasetCliOptions {
@@ -492,7 +493,12 @@ export function registerDataset(program: Command): void {
   cmd.options.find((x) => x.long === "--shard")?.hideHelp();
   cmd.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
   cmd.action(async (phantom: string, o: DatasetCliOptions) => {
-    const r = await runDataset(phantom, o);
+    // parts of one batch (--cases A:B) run at the same time into one folder: each locks its own range
+    // (<out>/.cases-A-B.lock); a whole batch, and dataset-merge, lock the folder (<out>.lock)
+    const part = o.cases !== undefined ? /^\s*(\d+)\s*:\s*(\d+)\s*$/.exec(o.cases) : null;
+    const r = part
+      ? await withOutputDir(join(o.out, `.cases-${Number(part[1])}-${Number(part[2])}`), () => runDataset(phantom, o), "--out")
+      : await withOutputDir(o.out, () => runDataset(phantom, o));
     const made = r.made.length;
     const range = o.cases !== undefined ? o.cases.split(":").map((v) => Number(v.trim())) : null;
     console.log(
@@ -506,8 +512,8 @@ export function registerDataset(program: Command): void {
     .description("join the parts of one dataset batch made with --cases A:B (their manifest-A-B.jsonl in one folder) into manifest.jsonl, after checking for gaps, overlaps, other settings and damaged files")
     .argument("<folder>", "the --out folder the parts wrote to");
   merge.exitOverride((err) => process.exit(err.exitCode === 0 ? 0 : 2));
-  merge.action((folder: string) => {
-    const r = mergeDatasetParts(resolve(folder));
+  merge.action(async (folder: string) => {
+    const r = await withOutputDir(folder, () => mergeDatasetParts(resolve(folder)), "dataset-merge");
     console.log(`dataset-merge: ${r.parts.length} part${r.parts.length === 1 ? "" : "s"} (${r.parts.join(", ")}) hold all ${r.count} cases; wrote ${join(resolve(folder), "manifest.jsonl")}`);
   });
 }

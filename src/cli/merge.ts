@@ -10,6 +10,7 @@ import { addInto, type KSpace } from "../engine/index.js";
 import { loadPhantom } from "../phantom/index.js";
 import { finish, readRealNpy, type RunContext } from "./pipeline.js";
 import { readPartial } from "./partial.js";
+import { withOutputDir } from "../io/outpath.js";
 
 export interface MergeResult {
   dir: string;
@@ -72,8 +73,8 @@ export function registerMerge(program: Command): void {
     .description("add the partial k-spaces of the shards of one run (simulate --shard i/N) and write the normal run folder")
     .argument("<parts...>", "shard output folders (or their partial.json)")
     .option("-o, --out <dir>", "output folder for the merged run", "out/run")
-    .action((parts: string[], o: { out: string }) => {
-      const r = mergeParts(parts, o.out);
+    .action(async (parts: string[], o: { out: string }) => {
+      const r = await withOutputDir(o.out, () => mergeParts(parts, o.out));
       console.log(`merged ${parts.length} parts; wrote ${r.files.length} files to ${r.dir} in ${r.seconds.toFixed(1)} s: ${r.files.join(", ")}`);
     });
 }

@@ -20,6 +20,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { decodeNpy } from "../io/npy.js";
 import { fatShiftReport, truthFiles } from "./effects.js";
 import { Progress } from "./progress.js";
+import { samplingRemarks } from "./sampling.js";
 
 export const SAFETY_NOTE =
   "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
@@ -145,6 +146,7 @@ export function prepare(o: RunOptions): {
   const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
     ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
     : null;
+  const remarks = samplingRemarks(phantom, protocol, o.iso.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
     const p = { ...protocol, slice: { ...protocol.slice, position } };
@@ -176,10 +178,12 @@ export function prepare(o: RunOptions): {
     if (slices.length === 0) checkMemory(estimateMemory(phantom, geo, protocol.field, isoOpts, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), isoOpts);
     const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
-      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
+      const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
+      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, o.protocol, "slice.position");
     }
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
+    if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (raised && slices.length === 0) iso.warnings.push(raised);
     slices.push({ position, seq, iso });
   }
