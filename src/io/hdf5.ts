@@ -27,6 +27,7 @@ export type H5Type =
   | { kind: "array"; base: H5Type; dims: number[] }
   | { kind: "compound"; members: { name: string; type: H5Type }[] }
   | { kind: "vlen"; base: H5Type }
+  /** Variable-length string, ASCII character set (as the ISMRMRD C library writes its header). */
   | { kind: "vlenString" };
 
 /** Size in bytes of one element as stored in the file (variable-length: 4-byte length + heap address + index). */

@@ -13,7 +13,7 @@
  * ismrmrd_recon_cartesian_2d). HDF5 compound members are matched by name, so
  * we store them packed.
  */
-import { writeHdf5, memberOffsets, type H5Type } from "./hdf5.js";
+import { writeHdf5, memberOffsets, typeSize, type H5Type } from "./hdf5.js";
 
 const u16: H5Type = { kind: "int", size: 2, signed: false };
 const u32: H5Type = { kind: "int", size: 4, signed: false };
@@ -103,7 +103,8 @@ export interface Acquisition {
 export function encodeIsmrmrd(xml: string, acqs: Acquisition[]): Uint8Array {
   const hoff = memberOffsets(ACQUISITION_HEADER);
   const ioff = memberOffsets(ENCODING_COUNTERS as H5Type & { kind: "compound" });
-  const size = 340 + 32;
+  const aoff = memberOffsets(ACQUISITION);
+  const size = typeSize(ACQUISITION), trajAt = aoff.get("traj")!, dataAt = aoff.get("data")!;
   const data = new Uint8Array(acqs.length * size);
   const dv = new DataView(data.buffer);
   const vlen: { at: number; count: number; payload: Uint8Array }[] = [];
@@ -140,8 +141,8 @@ export function encodeIsmrmrd(xml: string, acqs: Acquisition[]): Uint8Array {
       f[2 * k] = a.re[k]!;
       f[2 * k + 1] = a.im[k]!;
     }
-    vlen.push({ at: b + 340, count: 0, payload: new Uint8Array(0) });
-    vlen.push({ at: b + 356, count: 2 * n, payload: new Uint8Array(f.buffer) });
+    vlen.push({ at: b + trajAt, count: 0, payload: new Uint8Array(0) });
+    vlen.push({ at: b + dataAt, count: 2 * n, payload: new Uint8Array(f.buffer) });
   });
   const x = new TextEncoder().encode(xml);
   return writeHdf5({
@@ -203,5 +204,5 @@ export function ismrmrdXml(h: IsmrmrdHeader): string {
     `<sequenceParameters><TR>${num(h.trMs)}</TR><TE>${num(h.teMs)}</TE><flipAngle_deg>${num(h.flipDeg)}</flipAngle_deg></sequenceParameters>`,
     `<userParameters><userParameterString><name>isofold</name><value>${esc(h.comment)}</value></userParameterString></userParameters>`,
     `</ismrmrdHeader>`,
-  ].filter((s) => s !== "").join("\n") + "\n";
+  ].filter((s) => s !== "").join("\n").replace(/[^\x00-\x7f]/gu, (c) => `&#${c.codePointAt(0)};`) + "\n"; // ASCII, as the string type says
 }
