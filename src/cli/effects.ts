@@ -3,18 +3,13 @@
  * analysis stage (predictions, measurement, truth maps) and encodes the truth
  * files. No physics here.
  */
-import { predictFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
+import { fatShiftInput, predictFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
 import type { Phantom } from "../phantom/index.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
 import type { Sequence } from "../sequence/index.js";
-
-function derivedNumber(seq: Sequence, key: string): number | undefined {
-  const d = seq.derived[key];
-  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
-}
 
 /**
  * Predicted (readout, slice, EPI phase) and measured fat–water displacement
@@ -31,13 +26,7 @@ export function fatShiftReport(
   const truth = truthMaps(phantom, {
     axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
   });
-  const esp = derivedNumber(seq, "echoSpacing");
-  const base = {
-    fieldT: protocol.field, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
-    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
-    ...(esp !== undefined ? { echoSpacing: esp, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? nPhase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 } : {}),
-    axisNames: axes.names,
-  };
+  const base = fatShiftInput(protocol, seq);
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
   const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
   // the search window around each object must reach the shifted fat image

@@ -11,6 +11,8 @@ import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } fr
 import { addCoilOptions, coilRunFor, registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
+import { registerCheck } from "./check.js";
+import { registerValidate } from "./validate.js";
 import { AbortedError } from "../engine/index.js";
 import { EXIT_WRITE_FAILED, OutputWriteError, withOutputDir } from "../io/outpath.js";
 
@@ -69,6 +71,8 @@ addSimulationOptions(
 registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
+registerCheck(program);
+registerValidate(program);
 // the safety note closes every subcommand's --help
 for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 
