@@ -82,6 +82,8 @@ export interface RunOptions {
   maxMemory?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;
+  /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
+  coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
 
 export interface RunResult {
@@ -104,6 +106,8 @@ export interface RunContext {
     sampling?: IsoSampling; extent?: SampledExtent; notes?: string[];
   };
   engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
+  /** Files and report of simulate --coils. */
+  coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
@@ -418,6 +422,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
   const kspaces: KSpace[] = [];
   let plan: EnginePlan | null = null;
+  let coils: RunContext["coils"];
   let count = 0;
   for (let k = 0; k < p.slices.length; k++) {
     const sl = p.slices[k]!;
@@ -426,7 +431,12 @@ export async function run(o: RunOptions): Promise<RunResult> {
       continue;
     }
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
-    const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
+    let res: { kspace: KSpace; plan: EnginePlan };
+    if (o.coilRun) {
+      const r = await o.coilRun({ seq: sl.seq, iso: sl.iso, protocol: p.protocol });
+      coils = { files: r.files, report: r.report };
+      res = r;
+    } else res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
     count += sl.iso.count;
     kspaces.push(res.kspace);
@@ -438,6 +448,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
       sampling: p.sampling, extent: p.iso.extent, notes: [...new Set(p.slices.flatMap((s) => s.iso.notes))],
     },
     engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
+    ...(coils ? { coils } : {}),
   };
   return finish(ctx, kspaces, t0);
 }
@@ -570,12 +581,13 @@ export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Pr
     timingSeconds: seconds,
     warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
   };
+  if (ctx.coils) report.coils = ctx.coils.report;
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
   (report.warnings as string[]).push(...fx.warnings);
   const dRead = protocol.fov.read / protocol.matrix.read, dPhase = protocol.fov.phase / protocol.matrix.phase;
   const files = await writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth, displayTransform(axes)) : undefined,
+    extra: o.truth || ctx.coils ? new Map([...(o.truth ? truthFiles(fx.truth, displayTransform(axes)) : []), ...(ctx.coils?.files ?? [])]) : undefined,
     fatCentroid: fatCentroid(fx.truth, dRead, dPhase),
     kspace: kv,
     image: img,
