@@ -11,11 +11,13 @@ import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, type Sequence } from "./sequence/index.js";
-import { makeIsochromats, defaultIsochromatOptions, type IsoGeometry, type IsochromatOptions, type IsochromatSet } from "./isochromats/index.js";
+import { makeIsochromats, defaultIsochromatOptions, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Executor, type KSpace } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
+import { isoOptionsFor, sampledLimits, slabCoverage, type IsoSampling } from "./sampling.js";
+import { checkSliceConvergence } from "./engine/index.js";
 import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
 
@@ -92,6 +94,12 @@ export interface SimulateInput {
   onProgress?: (p: SimulateProgress) => void;
   /** Called once with the first slice's sampling inputs before any isochromat is made (the CLI's memory check). */
   beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence }) => void;
+  /** Use iso.sliceCount as given, without raising it for the coherence pathways (studies of a coarse grid; default false). */
+  exactSliceCount?: boolean;
+  /** Run the a-posteriori through-slice convergence check on one probe column (default true). */
+  convergenceCheck?: boolean;
+  /** Replaces the engine for each slice (the CLI's simulate --coils); its files and report join the result. */
+  runEngine?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files?: Map<string, Uint8Array>; report?: Record<string, unknown> }>;
   /** Recorded in report.inputs (default: the names and sets). */
   inputs?: Record<string, unknown>;
   /** Recorded in report.tool.version (default "unknown"). */
@@ -99,6 +107,8 @@ export interface SimulateInput {
   /** Worker count recorded in report.engine (default the executor's session size is not known here: 1). */
   workers?: number;
 }
+
+export { isoOptionsFor, sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling } from "./sampling.js";
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
 export interface SliceRun {
@@ -118,32 +128,8 @@ export interface Prepared {
   first: SliceRun;
   protocolName: string;
   phantomName: string;
-}
-
-/**
- * Isochromat options for a protocol. A crusher or spoiler of c cycles across
- * the slice is only simulated faithfully when the through-slice isochromats
- * resolve it: with n isochromats per thickness, Σ exp(i2π·c·w/thickness)
- * vanishes only if c·m/n is not a whole number for the pathway orders m that
- * matter, so n ≥ 4c + 1 with refocusing pulses (echo-train pathways mix up to
- * ~4 crusher orders) and n ≥ 2c + 1 with non-ideal spoiling.
- * 3D: the through-slab grid covers M slice-encoding steps (the N of the slab plus a
- * margin of ⌈N/8⌉ on each side for the slab profile's skirts, which then wrap
- * along slice-encoding steps as on a scanner), at least `density` isochromats per
- * slice-encoding step, weighted per slice-encoding step thickness.
- */
-export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
-  const def = sequenceDefinition(p.sequence);
-  let perThk = 0;
-  if (def.refocuses(p)) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
-  if (p.spoiling !== "ideal" && def.spoils) perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
-  if (!def.threeD) {
-    return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
-  }
-  const n = p.matrix.slice;
-  const m = n + 2 * Math.ceil(n / 8);
-  const per = Math.max(iso.density, perThk);
-  return { ...iso, sliceCount: m * per, sliceExtent: m };
+  /** How the isochromat grid was chosen (report). */
+  sampling: IsoSampling;
 }
 
 /** The sampling geometry of one slice at `position` (m). */
@@ -154,8 +140,7 @@ export function isoGeometry(protocol: Protocol, position: number): IsoGeometry {
     dy: protocol.fov.phase / protocol.matrix.phase,
     thickness: protocol.slice.thickness,
     position,
-    clipRead: protocol.fov.read * protocol.oversampling.read,
-    clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
+    ...sampledLimits(protocol),
   };
 }
 
@@ -168,10 +153,30 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const loaded = input.parsedPhantom ?? parsePhantom(input.phantom, phantomName, protocol.field, { readArray: input.readArray });
   const phantom = input.phantomTransform ? input.phantomTransform(loaded) : loaded;
   const asked: IsochromatOptions = { ...defaultIsochromatOptions(), ...input.iso };
-  const isoOpts = { ...isoOptionsFor(protocol, asked), offsetHz: protocol.shim };
-  const raised = !sequenceDefinition(protocol.sequence).threeD && isoOpts.sliceCount > asked.sliceCount
-    ? `through-slice isochromats raised from ${asked.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
-    : null;
+  let seq0: Sequence;
+  try {
+    seq0 = buildSequence(protocol);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(protocolName);
+    throw e;
+  }
+  const threeD = sequenceDefinition(protocol.sequence).threeD;
+  const slab = threeD ? slabCoverage(protocol, seq0, phantom) : null;
+  const chosen = isoOptionsFor(protocol, asked, seq0, slab?.steps);
+  const isoOpts = { ...(input.exactSliceCount ? { ...chosen, sliceCount: asked.sliceCount, sliceExtent: asked.sliceExtent } : chosen), offsetHz: protocol.shim };
+  const sampling: IsoSampling = {
+    sliceCount: isoOpts.sliceCount, sliceExtent: isoOpts.sliceExtent, pathwayMoment: isoOpts.pathwayMoment, pathwayOrder: isoOpts.pathwayOrder,
+    notes: [], convergence: null,
+  };
+  if (!threeD && isoOpts.sliceCount > asked.sliceCount) {
+    sampling.notes.push(
+      `through-slice isochromats raised from ${asked.sliceCount} to ${isoOpts.sliceCount}: coherence pathways reach the ADC with up to ` +
+        `${isoOpts.pathwayMoment.toFixed(1)} cycles per slice thickness (crushers, spoilers, the refocusing pulses' own slice-select lobes, ` +
+        `echo-train pathways up to order ${isoOpts.pathwayOrder}), and no aliased copy may land where the slice profiles carry signal`,
+    );
+  }
+  if (slab?.note) sampling.notes.push(slab.note);
+  const slabWarning = slab?.warning ?? null;
   const remarks = samplingRemarks(phantom, protocol, asked.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
@@ -202,14 +207,26 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
-    if (raised && slices.length === 0) iso.warnings.push(raised);
+    if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
     slices.push({ position, seq, iso });
   }
   if (slices.every((sl) => sl.iso.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");
   }
   const first = slices.find((sl) => sl.iso.count > 0)!;
-  return { protocol, phantom, iso: asked, slices, first, protocolName, phantomName };
+  if (!threeD && input.convergenceCheck !== false) {
+    // a-posteriori check of the through-slice grid on one probe column (engine/convergence.ts)
+    const axes = logicalAxes(protocol);
+    const c = checkSliceConvergence(first.seq, phantom.tissues, { axes, thickness: protocol.slice.thickness, position: first.position, offsetHz: protocol.shim }, isoOpts.sliceCount, isoOpts.sliceExtent);
+    sampling.convergence = { relativeChange: c.relativeChange, tolerance: c.tolerance, converged: c.converged, method: "probe column (in-plane centre, each tissue) on the through-slice grid and on the grid shifted by half a step; relative L2 change of every ADC sample" };
+    if (!c.converged) {
+      first.iso.warnings.push(
+        `through-slice sampling may not be converged: the signal changes by ${(100 * c.relativeChange).toFixed(2)} % (tolerance ${(100 * c.tolerance).toFixed(1)} %) ` +
+          `when the ${isoOpts.sliceCount} through-slice isochromats are shifted by half a step; raise --slice-isochromats (e.g. to ${2 * isoOpts.sliceCount})`,
+      );
+    }
+  }
+  return { protocol, phantom, iso: asked, slices, first, protocolName, phantomName, sampling };
 }
 
 /** Isochromat summary for the report. */
@@ -218,6 +235,10 @@ export interface IsochromatSummary {
   columns: number;
   warnings: string[];
   spreads: { tissue: string; t2prime: number | null; isochromats: number }[];
+  /** How the grid was chosen and what it covers (absent in partials of older versions). */
+  sampling?: IsoSampling;
+  extent?: SampledExtent;
+  notes?: string[];
 }
 
 /** Engine summary for the report. */
@@ -235,11 +256,12 @@ export function spreadSummary(iso: IsochromatSet): IsochromatSummary["spreads"] 
 }
 
 /** Runs the engine on every slice of a prepared simulation, one after another (cross-talk between slices is not simulated). */
-export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{ kspaces: KSpace[]; isoSummary: IsochromatSummary; engine: EngineSummary }> {
+export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{ kspaces: KSpace[]; isoSummary: IsochromatSummary; engine: EngineSummary; coils?: AssembleContext["coils"] }> {
   const executor = input.executor ?? serialExecutor();
   const kspaces: KSpace[] = [];
   let plan: EnginePlan | null = null;
   let count = 0;
+  let coils: AssembleContext["coils"];
   for (let k = 0; k < prep.slices.length; k++) {
     const sl = prep.slices[k]!;
     const n = sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read;
@@ -248,7 +270,12 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
       continue;
     }
     const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, sl.seq.pulses.length);
-    const res = await simulateWith(executor, sl.seq, sl.iso, {
+    let res: { kspace: KSpace; plan: EnginePlan };
+    if (input.runEngine) {
+      const r = await input.runEngine({ seq: sl.seq, iso: sl.iso, protocol: prep.protocol });
+      coils = { files: r.files ?? new Map(), report: r.report ?? {} };
+      res = r;
+    } else res = await simulateWith(executor, sl.seq, sl.iso, {
       receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: input.chunkIsochromats, wasm: input.wasm, signal: input.signal,
       onProgress: input.onProgress
         ? (done, total) => input.onProgress!({ slice: k, slices: prep.slices.length, done, total, isochromatTRs: (sl.iso.count * trs * done) / total })
@@ -260,8 +287,12 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
   }
   return {
     kspaces,
-    isoSummary: { count, columns: prep.first.iso.columns, warnings: prep.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(prep.first.iso) },
+    isoSummary: {
+      count, columns: prep.first.iso.columns, warnings: prep.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(prep.first.iso),
+      sampling: prep.sampling, extent: prep.first.iso.extent, notes: [...new Set(prep.slices.flatMap((s) => s.iso.notes))],
+    },
     engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: input.workers ?? 1, runs: prep.slices.length },
+    ...(coils ? { coils } : {}),
   };
 }
 
@@ -293,6 +324,8 @@ export interface AssembleContext {
   version?: string;
   /** Start time (ms since the epoch) for report.timingSeconds. */
   t0: number;
+  /** Files and report of a coil run (the CLI's simulate --coils). */
+  coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
 
 /** The result of a simulation. */
@@ -319,6 +352,8 @@ export interface SimulateResult {
   sequences: Sequence[];
   /** Per engine run k-space as acquired, [coil][row][read]. */
   runs: KSpace[];
+  /** Extra files a coil run made (the CLI writes them beside the run's). */
+  coilFiles?: Map<string, Uint8Array>;
 }
 
 /**
@@ -364,7 +399,7 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
   const firstMm = threeD
     ? (protocol.slice.position + (protocol.matrix.slice % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.slice / 2) * protocol.slice.thickness) * 1e3
     : ms.positions[0]! * 1e3;
-  const used = isoOptionsFor(protocol, ctx.iso);
+
   const report: Record<string, unknown> = {
     tool: { name: "isofold", version: ctx.version ?? "unknown" },
     created: new Date().toISOString(),
@@ -391,12 +426,23 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
       image: [...VOLUME_AXES],
       index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
       kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
-      png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
+      png: "image.png, kspace.png and truth-*.png are in display orientation (see the display section), not in array index order",
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
-      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: ctx.iso.density, sliceCount: used.sliceCount,
-      sliceExtent: used.sliceExtent, fatModel: ctx.iso.fatModel, t2primeIsochromats: ctx.iso.t2primeIsochromats,
+      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: ctx.iso.density,
+      sliceCount: ctx.isoSummary.sampling?.sliceCount ?? isoOptionsFor(protocol, ctx.iso, seq).sliceCount,
+      sliceExtent: ctx.isoSummary.sampling?.sliceExtent ?? isoOptionsFor(protocol, ctx.iso, seq).sliceExtent,
+      sampledExtent: ctx.isoSummary.extent ?? null,
+      sampledExtentNote: "range (m) of the isochromat grid along read, phase and slice (logical axes, slice centred on the first slice): every shape's full extent along phase; along read where the receiver filter passes signal, everywhere without it",
+      throughSlice: ctx.isoSummary.sampling
+        ? {
+            pathwayMoment: ctx.isoSummary.sampling.pathwayMoment, pathwayOrder: ctx.isoSummary.sampling.pathwayOrder,
+            unit: "cycles per slice thickness", convergence: ctx.isoSummary.sampling.convergence,
+          }
+        : null,
+      notes: [...(ctx.isoSummary.sampling?.notes ?? []), ...(ctx.isoSummary.notes ?? [])],
+      fatModel: ctx.iso.fatModel, t2primeIsochromats: ctx.iso.t2primeIsochromats,
       t2primeSpread: ctx.isoSummary.spreads,
       note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
         (threeD ? "; 3D: through-slab grid of `density` isochromats per slice-encoding step over the slab plus ⌈N/8⌉ slice-encoding steps each side" : ""),
@@ -415,6 +461,7 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
     timingSeconds: seconds,
     warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
   };
+  if (ctx.coils) report.coils = ctx.coils.report;
   const fx = fatShiftReport(protocol, seq, phantom, mag, ctx.iso.fatModel);
   report.fatShift = fx.report;
   const warnings = report.warnings as string[];
@@ -424,6 +471,7 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
     affine: voxelAffine(protocol, spacingMm, firstMm),
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     truth: fx.truth, protocol, phantom, sequences: ctx.seqs, runs: kspaces,
+    ...(ctx.coils ? { coilFiles: ctx.coils.files } : {}),
   };
 }
 
@@ -442,6 +490,6 @@ export async function simulate(input: SimulateInput): Promise<SimulateResult> {
     protocol: prep.protocol, phantom: prep.phantom, seqs: prep.slices.map((s) => s.seq), iso: prep.iso,
     seed: input.seed ?? 1,
     inputs: input.inputs ?? { phantom: prep.phantomName, protocol: prep.protocolName, set: input.sets ?? [] },
-    isoSummary: run.isoSummary, engine: run.engine, version: input.version, t0,
+    isoSummary: run.isoSummary, engine: run.engine, version: input.version, t0, ...(run.coils ? { coils: run.coils } : {}),
   }, run.kspaces);
 }

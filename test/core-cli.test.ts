@@ -37,7 +37,7 @@ describe("isofold simulate", () => {
     const out = join(dir, "run");
     const r = cli(["simulate", "phantoms/two-bottle.json", "-p", proto, "-o", out, "--density", "1", "--slice-isochromats", "4", "-q"]);
     expect(r.code).toBe(0);
-    expect(readdirSync(out).sort()).toEqual(["image.nii", "image.npy", "image.png", "kspace.npy", "kspace.png", "report.json"]);
+    expect(readdirSync(out).sort()).toEqual(["image.nii", "image.npy", "image.png", "kspace.npy", "kspace.png", "report.html", "report.json"]);
     // NumPy format read by npyjs (an independent reader): complex64 '<c8', [coils, slice, phase, read]
     const k = new npyjs().parse(ab(readFileSync(join(out, "kspace.npy"))));
     expect(k.dtype).toBe("c8");

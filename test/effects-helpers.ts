@@ -35,9 +35,9 @@ export function protocolObject(over: Record<string, unknown>): Record<string, un
   };
 }
 
-/** The tests' one pipeline (helpers.ts runPipeline; one isochromat through the slice unless `iso` says otherwise), plus the truth maps on the image grid. */
+/** The tests' one pipeline (helpers.ts runPipeline; one isochromat through the slice unless `iso` says otherwise, as given), plus the truth maps on the image grid. */
 export function simulate(phantomJson: unknown, protocol: Record<string, unknown>, iso: Partial<IsochromatOptions> = {}): SimResult {
-  const r = runPipeline(protocol, phantomJson, { sliceCount: 1, sliceExtent: 1, ...iso });
+  const r = runPipeline(protocol, phantomJson, { sliceCount: 1, sliceExtent: 1, ...iso }, [], { exact: true });
   const p = r.protocol, seq = r.seq, ph = r.phantom;
   const axes = logicalAxes(p);
   const dx = p.fov.read / p.matrix.read, dy = p.fov.phase / p.matrix.phase;

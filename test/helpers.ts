@@ -66,10 +66,16 @@ function isParsedPhantom(p: unknown): p is Phantom {
 /**
  * Simulates a protocol (object as in a file, or parsed) on a phantom (object
  * or parsed) in this thread: isochromat options are defaultIsochromatOptions()
- * overridden by `iso`, then raised by the pipeline where crushers need it.
+ * overridden by `iso`, then raised by the pipeline where coherence pathways
+ * need it (unless `opts.exact`). No convergence probe (tests check convergence
+ * themselves).
  */
-export function runPipeline(protocol: Record<string, unknown> | Protocol, phantom: unknown, iso: Partial<IsochromatOptions> = {}, sets: string[] = []): PipelineResult {
+export function runPipeline(
+  protocol: Record<string, unknown> | Protocol, phantom: unknown, iso: Partial<IsochromatOptions> = {}, sets: string[] = [],
+  opts: { exact?: boolean } = {},
+): PipelineResult {
   const prep = prepareSimulation({
+    exactSliceCount: opts.exact === true, convergenceCheck: false,
     ...(isParsedProtocol(protocol) ? { parsedProtocol: protocol } : { protocol }),
     ...(isParsedPhantom(phantom) ? { parsedPhantom: phantom } : { phantom }),
     protocolName: "test-protocol.json", phantomName: "test-phantom.json", sets,

@@ -57,9 +57,13 @@ export interface SimResult {
   mag: Float64Array;
 }
 
-/** The tests' one pipeline (helpers.ts runPipeline) at density 1 and one isochromat through the slice unless `iso` says otherwise (raised where crushers need it). */
-export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}): SimResult {
-  const r = runPipeline(p, ph, { density: 1, sliceCount: 1, sliceExtent: 1, ...iso });
+/**
+ * The tests' one pipeline (helpers.ts runPipeline) at density 1 and one isochromat through the slice unless `iso` says
+ * otherwise, raised where coherence pathways need it; with `exact`, iso.sliceCount is used as given (no automatic
+ * raise), e.g. to show what a coarse grid does.
+ */
+export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}, exact = false): SimResult {
+  const r = runPipeline(p, ph, { density: 1, sliceCount: 1, sliceExtent: 1, ...iso }, [], { exact });
   return { seq: r.seq, iso: r.iso, kacq: r.kacq, kgrid: r.kgrid, image: r.image, mag: r.mag };
 }
 

@@ -19,7 +19,7 @@ export interface MergeResult {
 }
 
 /** Checks that the parts belong to one run and cover every block once; returns the merged k-space and the run context. */
-export function mergeParts(paths: string[], out: string): MergeResult {
+export async function mergeParts(paths: string[], out: string): Promise<MergeResult> {
   const t0 = Date.now();
   if (paths.length === 0) throw new UserError("merge: name at least one shard folder");
   const parts = paths.map(readPartial);
@@ -63,7 +63,7 @@ export function mergeParts(paths: string[], out: string): MergeResult {
     isoSummary: { ...first.isoSummary, spreads: first.isoSummary.spreads ?? [] },
     engine: { ...first.engine, shards: first.shard[1] },
   };
-  const r = finish(ctx, [kspace], t0);
+  const r = await finish(ctx, [kspace], t0);
   return { dir: r.dir, files: r.files, seconds: r.seconds };
 }
 

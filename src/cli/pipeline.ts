@@ -15,17 +15,20 @@ import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, t
 import { countChunks } from "../engine/plan.js";
 import {
   assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
+  sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling,
   type EngineSummary, type IsochromatSummary, type SimulateInput, type SimulateResult, type SliceRun,
 } from "../api.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
 import { writeRunFolder } from "../io/run-folder.js";
-import { truthFiles } from "./effects.js";
+import { fatCentroid, truthFiles } from "./effects.js";
+import { displayTransform } from "../report/index.js";
+import { logicalAxes } from "../protocol/index.js";
 import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
 import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
 
-export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, type SliceRun };
+export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling, type SliceRun };
 
 /**
  * Prints each warning of a run on stderr, one line each, prefixed "warning:"
@@ -55,6 +58,8 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Leave the run's warnings to the caller (in the result's report) instead of printing them (sweep). */
+  keepWarnings?: boolean;
   /** Changes the loaded phantom before it is sampled (dataset perturbations). */
   phantomTransform?: (ph: Phantom) => Phantom;
   /** Also write the ground-truth maps (truth-*.png / .npy). */
@@ -65,6 +70,10 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
+  /** Run the a-posteriori through-slice convergence check (default true). */
+  convergenceCheck?: boolean;
+  /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
+  coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
 
 export interface RunResult {
@@ -83,6 +92,8 @@ export interface RunContext {
   seqs: Sequence[];
   isoSummary: IsochromatSummary;
   engine: EngineSummary;
+  /** Files and report of simulate --coils. */
+  coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
 
 /** The library input of a command-line run: files read here, everything else passed through. */
@@ -92,7 +103,8 @@ function libraryInput(o: RunOptions): SimulateInput {
   const workers = o.workers ?? defaultWorkers();
   return {
     parsedProtocol: protocol, parsedPhantom: phantom, sets: o.sets, protocolName: o.protocol, phantomName: o.phantom,
-    phantomTransform: o.phantomTransform, iso: o.iso, seed: o.seed, workers,
+    phantomTransform: o.phantomTransform, iso: o.iso, seed: o.seed, workers, convergenceCheck: o.convergenceCheck,
+    ...(o.coilRun ? { runEngine: o.coilRun } : {}),
     chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
     beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers), o.maxMemory ?? defaultMemoryLimit(), e.iso),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
@@ -102,10 +114,10 @@ function libraryInput(o: RunOptions): SimulateInput {
 
 /** Loads and checks every input; throws UserError before any work or file. */
 export function prepare(o: RunOptions): {
-  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom;
+  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom; sampling: IsoSampling;
 } {
   const p = prepareSimulation(libraryInput(o));
-  return { protocol: p.protocol, seq: p.first.seq, iso: p.first.iso, phantomFile: o.phantom, slices: p.slices, phantom: p.phantom };
+  return { protocol: p.protocol, seq: p.first.seq, iso: p.first.iso, phantomFile: o.phantom, slices: p.slices, phantom: p.phantom, sampling: p.sampling };
 }
 
 /** Ctrl-C (SIGINT) or SIGTERM aborts the returned signal while `body` runs; the engine then stops its workers at once. */
@@ -192,13 +204,16 @@ export async function run(o: RunOptions): Promise<RunResult> {
   return write(o, r, t0);
 }
 
-/** Writes the run folder of a result (atomically). */
-function write(o: RunOptions, r: SimulateResult, t0: number): RunResult {
-  const files = writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(r.truth) : undefined,
+/** Writes the run folder of a result (atomically): PNGs in display orientation, truth maps and coil files when asked. */
+async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunResult> {
+  const p = r.protocol;
+  const dRead = p.fov.read / p.matrix.read, dPhase = p.fov.phase / p.matrix.phase;
+  const files = await writeRunFolder(o.out, {
+    extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
+    fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
   });
-  printWarnings(r.warnings);
+  if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };
 }
 
@@ -227,7 +242,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputHash: inputHash(p.protocol, o),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
-    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
+    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso), sampling: p.sampling, extent: p.iso.extent, notes: p.iso.notes },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
   });
   printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
@@ -235,12 +250,12 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
 }
 
 /** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); used by merge. */
-export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
+export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Promise<RunResult> {
   const { o } = ctx;
   const r = assembleResult({
     protocol: ctx.protocol, phantom: ctx.phantom, seqs: ctx.seqs, iso: o.iso, seed: o.seed,
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
-    isoSummary: ctx.isoSummary, engine: ctx.engine, version: version(), t0,
+    isoSummary: ctx.isoSummary, engine: ctx.engine, version: version(), t0, ...(ctx.coils ? { coils: ctx.coils } : {}),
   }, kspaces);
   return write(o, r, t0);
 }

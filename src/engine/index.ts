@@ -62,4 +62,4 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
   }
   return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan };
 }
-
+export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";

@@ -4,7 +4,7 @@ import type { Sequence } from "./types.js";
 
 export * from "./types.js";
 export { minTrapezoid, GRAD_RASTER } from "./trapezoid.js";
-export { makePulse } from "./rf.js";
+export { makePulse, profileReach as pulseProfileReach } from "./rf.js";
 export { readoutPlan, phasePlan, relativeSnr, SNR_REFERENCE } from "./common.js";
 export { SEQUENCE_DEFINITIONS, sequenceDefinition } from "./registry.js";
 
@@ -12,3 +12,4 @@ export { SEQUENCE_DEFINITIONS, sequenceDefinition } from "./registry.js";
 export function buildSequence(p: Protocol): Sequence {
   return sequenceDefinition(p.sequence).build(p);
 }
+export { pathwayMoments, aliasFreeCount, type PathwayMoments } from "./pathways.js";

@@ -53,6 +53,8 @@ export interface SequenceQuantities {
   sliceGradient: number;
   /** Time between successive echoes of an echo train (s); absent without a train. */
   echoSpacing?: number;
+  /** EPI: time between adjacent phase-encoding lines, echo spacing / shots (s); sets the phase-direction shift. */
+  effectiveEchoSpacing?: number;
   /** Phase lines per shot seen by the EPI phase blips (default matrix.phase) and the blip sign (±1, default +1). */
   phaseLinesEffective?: number;
   phaseBlipSign?: number;
