@@ -26,17 +26,20 @@ const SMALL: Record<string, string[]> = {
 };
 
 export const KSPACE_SHA256: Record<string, string> = {
-  // recorded 2026-12-02 on main at 2e373f8, before the refactor of issue 10
+  // recorded 2026-12-02 on main at 2e373f8, before the refactor of issue 10. Updated for the physics
+  // corrections merged from main at 62adb87..ae22ab8 (through-slice count from the coherence pathways, 3D slab
+  // coverage, the epi-se preset): epi-se-1.5t, gre3d-t1-1.5t, rare-t2-1.5t, se-t1-multislice-1.5t and se-t2-1.5t,
+  // each equal to the hash main's own code gives at ae22ab8; the other six are unchanged.
   "bssfp-1.5t": "6878c1ac8d898f2d63aa2b62f109ab7d59e2f821a90013ec8ea1da9ed7f08875",
   "epi-1.5t": "6a49abb8f915a4d742eec08b51a580e2688bdb6d6f2785fddb170815663a8604",
   "epi-4shot-3t": "7b2e3d79f5c4aea9d8615de61cc7d5511f6ea1b402cdd0650b9e3cdb76d34816",
-  "epi-se-1.5t": "e3325f3dc097d075c2816aeb2d5b71915fdd6228378c1f5d4bad3786eed23900",
+  "epi-se-1.5t": "820a94b22cf0804de5c802ad729355aef0d48d5aad0231759b2d74e623f45ba0",
   "gre-demo-1.5t": "ce9cc826adc16f9b355896056298be32a9bdf22b2a7191ad2b48325201895eb2",
   "gre-t1-3t": "199fb28f5f3dae928fe4de32d88f26ea015f3d5f85075469f92cb59f87f3635c",
-  "gre3d-t1-1.5t": "26148794a9b7f3071430c446889718fbf73350ff22345c05cb874731554b2a9a",
-  "rare-t2-1.5t": "5102c119cf2169b02e32be7f37d29e6f8d653e0f10ce9f4d0e3c7cf47ad47e78",
-  "se-t1-multislice-1.5t": "25c59eaf2a589fdebbb40655f7aaa96e24010f831a28f3ffdda27a7c5e468ca5",
-  "se-t2-1.5t": "e2505600ceb03d625343bf9ce0c0cd6d0c6000953d07cc4c07280833b39acd81",
+  "gre3d-t1-1.5t": "d6ac9e8aba28f3f6af43ee054acd2df6698bbbbf70f92abb01f4c7b47b9bff85",
+  "rare-t2-1.5t": "64cf33e8138214b6c38256c785429484afd0585dd536b3f87c4e82f03f73c8d9",
+  "se-t1-multislice-1.5t": "c48e70f6087669e3e4364ef1bb03734afd3d4bd51f8277a29c130e8b60aae4f3",
+  "se-t2-1.5t": "20c432733d5ddc01e2a13efa3e5cd05d9dab36a6daea494d8c2d5c1a718b294a",
   demo: "092888f3fbd9d36f4a153f7f3fb1141804ac2ee728c8ce9389beddfedb8eeedf",
 };
 
