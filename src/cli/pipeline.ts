@@ -10,7 +10,7 @@ import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../pro
 import { loadPhantom, type Phantom } from "../phantom/index.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
+import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/index.js";
 import { countChunks } from "../engine/plan.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
@@ -55,6 +55,9 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
+  /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
+  readout?: "fast" | "direct";
+  tolerance?: number;
 }
 
 export interface RunResult {
@@ -72,7 +75,7 @@ export interface RunContext {
   /** Sequence of each engine run (one per slice, or one for a 3D slab), in spatial order. */
   seqs: Sequence[];
   isoSummary: { count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[] };
-  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
+  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number; readout?: ReadoutReport | ReadoutReport[] };
 }
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
@@ -204,7 +207,7 @@ async function simulateStage(
     blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void;
     label?: string;
   },
-): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
   const progress = new Progress(label, "iso-TR", o.quiet);
   const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
@@ -217,6 +220,7 @@ async function simulateStage(
     return await simulateParallel(p.seq, p.iso, {
       receiverFilter: p.protocol.receiverFilter,
       workers: o.workers ?? defaultWorkers(),
+      readout: o.readout, tolerance: o.tolerance,
       signal: ac.signal,
       blocks: extra.blocks,
       onBlock: extra.onBlock,
@@ -255,6 +259,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   const kspaces: KSpace[] = [];
   let plan: EnginePlan | null = null;
   let count = 0;
+  const readouts: ReadoutReport[] = [];
   for (let k = 0; k < p.slices.length; k++) {
     const sl = p.slices[k]!;
     if (sl.iso.count === 0) {
@@ -264,13 +269,17 @@ export async function run(o: RunOptions): Promise<RunResult> {
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
     const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
+    readouts.push(res.readout);
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }
   const ctx: RunContext = {
     protocol: p.protocol, o, phantom: p.phantom, seqs: p.slices.map((s) => s.seq),
     isoSummary: { count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso) },
-    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
+    engine: {
+      chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length,
+      readout: readouts.length === 1 ? readouts[0]! : readouts,
+    },
   };
   return finish(ctx, kspaces, t0);
 }
@@ -281,7 +290,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   const blocks = shardBlocks(total, i, n);
   const nb = blocks[1] - blocks[0];
   let bre = new Float64Array(0), bim = new Float64Array(0);
-  const { kspace, plan } = await simulateStage(p, o, {
+  const { kspace, plan, readout } = await simulateStage(p, o, {
     blocks,
     onPlan: (plan) => {
       const size = plan.coils * plan.rows * plan.read;
@@ -301,7 +310,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
-    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
