@@ -397,10 +397,7 @@ export interface FastResult {
 export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number): FastResult | string {
   const pre = fastPrecheck(plan);
   if (pre) return pre;
-  const T = (globalThis as unknown as { __T?: Record<string, number> }).__T; let tm = performance.now();
-  const mark = (k: string) => { if (T) { const n = performance.now(); T[k] = (T[k] ?? 0) + n - tm; tm = n; } };
   const h = classHistory(seq, plan, iso);
-  mark('history');
   if (typeof h === "string") return h;
   const { adcs, P, classIw, mass } = h;
   const C = plan.classes, coils = plan.coils, sens = plan.sens;
@@ -473,7 +470,6 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
   const G = project(A, Pl, NA, C); // G[c·R + r]
   const R = A.length;
-  mark('lineBasis');
   // --- time factor over distinct (R2, Δf)
   const { classDf, classR2 } = plan.rf;
   const keyIndex = new Map<string, number>();
@@ -509,7 +505,6 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const B = pivotedBasis(ey, ns, K, tolTime, MAX_SEGMENTS);
   if (!B) return `the (R2, Δf) spread needs more than ${MAX_SEGMENTS} time segments at tolerance ${tolerance}: not covered by the fast operator`;
   const L = B.length;
-  mark('timeBasis');
   const Ck = project(B, E, ns, K); // C[k·L + l]
   // --- pre-phases (per grid index), post-phases (per sample, per line)
   const nu = uGrid.length, nv = vGrid.length;
@@ -552,7 +547,6 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const X: Float64Array[] = [];
   for (let q = 0; q < coils * L; q++) X.push(new Float64Array(2 * grid));
   const colUsed = new Uint8Array(Mu);
-  const accR = new Float64Array(K * coils), accI = new Float64Array(K * coils);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
   const { iu, iv, m0, colStart } = iso;
   const rfClass = plan.rfClass, count = iso.count;
@@ -561,9 +555,21 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
-  // Z[n][a]: phase-transformed lines; acc[n][j]: Σ_l B_l(j)·F_l(n, j) of one rank and coil
-  const Z = new Float64Array(2 * NA * Mu);
-  const acc = new Float64Array(2 * NA * ns);
+  // Z[q·L + l][n][a]: phase-transformed lines summed over the ranks; acc[j]: Σ_l B_l(j)·F_l(n, j) of one line
+  const Z: Float64Array[] = [];
+  for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
+  const acc = new Float64Array(2 * ns);
+  const readLine = (q: number, l: number, k: number) => {
+    dftU.inp.set(Z[q * L + l]!.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
+    dftU.run();
+    const out = dftU.out;
+    for (let j = 0; j < ns; j++) {
+      const cj = colIdx[j]!, fr = out[2 * cj]!, fi = out[2 * cj + 1]!;
+      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+      acc[2 * j] = acc[2 * j]! + (fr * br - fi * bi);
+      acc[2 * j + 1] = acc[2 * j + 1]! + (fr * bi + fi * br);
+    }
+  };
   const maxAbs = (v: Float64Array) => {
     let m = 0;
     for (let k = 0; k < v.length; k += 2) m = Math.max(m, Math.hypot(v[k]!, v[k + 1]!));
@@ -574,62 +580,97 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/4 of the norm of the rank-0 k-space; skipped pairs are counted.
   let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
-  for (let r = 0; r < R; r++) {
-    for (const x of X) {
-      for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
-    }
-    colUsed.fill(0);
-    for (let col = 0; col < iso.columns; col++) {
-      const i0 = colStart[col]!, i1 = colStart[col + 1]!;
-      if (i1 <= i0) continue;
-      let nt = 0;
-      for (let i = i0; i < i1; i++) {
-        const c = rfClass[i]!, k = keyOf[c]!, m = m0[i]!;
-        const gr = G[2 * (c * R + r)]! * m, gi = G[2 * (c * R + r) + 1]! * m;
-        if (!seen[k]) {
-          seen[k] = 1;
-          touched[nt++] = k;
-        }
-        if (sens === null) {
-          accR[k] = accR[k]! + gr;
-          accI[k] = accI[k]! + gi;
-        } else {
-          for (let q = 0; q < coils; q++) {
-            const so = 2 * (q * count + i), s0 = sens[so]!, s1 = sens[so + 1]!, o = k * coils + q;
-            accR[o] = accR[o]! + (gr * s0 - gi * s1);
-            accI[o] = accI[o]! + (gr * s1 + gi * s0);
-          }
-        }
+  // One pass over the isochromats: per column and (R2, Δf) key, the R rank
+  // weights Σ m0·G_r(c)·S_q (times the pre-phases and the receiver filter),
+  // stored as pairs (grid index, key, weights).
+  let cap = Math.max(1024, Math.min(iso.count, 1 << 20));
+  let pairP = new Int32Array(cap), pairK = new Int32Array(cap), pairW = new Float64Array(2 * cap * coils * R);
+  let np = 0;
+  const accR = new Float64Array(K * coils * R), accI = new Float64Array(K * coils * R);
+  for (let col = 0; col < iso.columns; col++) {
+    const i0 = colStart[col]!, i1 = colStart[col + 1]!;
+    if (i1 <= i0) continue;
+    let nt = 0;
+    for (let i = i0; i < i1; i++) {
+      const c = rfClass[i]!, k = keyOf[c]!, m = m0[i]!;
+      if (!seen[k]) {
+        seen[k] = 1;
+        touched[nt++] = k;
       }
-      const a = iu[i0]!, b = iv[i0]!;
-      const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
-      const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
-      const ca = a % Mu, p = 2 * (ca * Mv + (b % Mv));
-      colUsed[ca] = 1;
-      const u = uGrid[a]!;
-      for (let t = 0; t < nt; t++) {
-        const k = touched[t]!;
-        seen[k] = 0;
-        const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
+      if (sens === null) {
+        const o = k * R, g = 2 * c * R;
+        for (let r = 0; r < R; r++) {
+          accR[o + r] = accR[o + r]! + G[g + 2 * r]! * m;
+          accI[o + r] = accI[o + r]! + G[g + 2 * r + 1]! * m;
+        }
+      } else {
         for (let q = 0; q < coils; q++) {
-          const o = k * coils + q;
-          const zr = accR[o]!, zi = accI[o]!;
-          accR[o] = 0;
-          accI[o] = 0;
-          if (hk === 0) continue;
-          const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-          for (let l = 0; l < L; l++) {
-            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[q * L + l]!;
-            xg[p] = xg[p]! + (wr * cr - wi * ci);
-            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * R, g = 2 * c * R;
+          for (let r = 0; r < R; r++) {
+            const gr = G[g + 2 * r]!, gi = G[g + 2 * r + 1]!;
+            accR[o + r] = accR[o + r]! + (gr * s0 - gi * s1);
+            accI[o + r] = accI[o + r]! + (gr * s1 + gi * s0);
           }
         }
       }
     }
-    mark('fold');
+    const a = iu[i0]!, b = iv[i0]!;
+    const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
+    const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
+    const ca = a % Mu, p = 2 * (ca * Mv + (b % Mv));
+    const u = uGrid[a]!;
+    for (let t = 0; t < nt; t++) {
+      const k = touched[t]!;
+      seen[k] = 0;
+      const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
+      const o0 = k * coils * R;
+      if (hk === 0) {
+        accR.fill(0, o0, o0 + coils * R);
+        accI.fill(0, o0, o0 + coils * R);
+        continue;
+      }
+      if (np === cap) {
+        cap *= 2;
+        const p2 = new Int32Array(cap), k2 = new Int32Array(cap), w2 = new Float64Array(2 * cap * coils * R);
+        p2.set(pairP);
+        k2.set(pairK);
+        w2.set(pairW);
+        pairP = p2;
+        pairK = k2;
+        pairW = w2;
+      }
+      pairP[np] = p;
+      pairK[np] = k;
+      const wo = 2 * np * coils * R;
+      for (let x = 0; x < coils * R; x++) {
+        const zr = accR[o0 + x]!, zi = accI[o0 + x]!;
+        accR[o0 + x] = 0;
+        accI[o0 + x] = 0;
+        pairW[wo + 2 * x] = (zr * pr0 - zi * pi0) * hk;
+        pairW[wo + 2 * x + 1] = (zr * pi0 + zi * pr0) * hk;
+      }
+      np++;
+    }
+  }
+  for (let k = 0; k < np; k++) colUsed[Math.floor(pairP[k]! / (2 * Mv))] = 1;
+  for (let r = 0; r < R; r++) {
+    if (r > 0) {
+      for (const x of X) {
+        for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
+      }
+    }
+    for (let t = 0; t < np; t++) {
+      const p = pairP[t]!, k = pairK[t]!, wo = 2 * t * coils * R;
+      for (let q = 0; q < coils; q++) {
+        const wr = pairW[wo + 2 * (q * R + r)]!, wi = pairW[wo + 2 * (q * R + r) + 1]!;
+        for (let l = 0; l < L; l++) {
+          const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[q * L + l]!;
+          xg[p] = xg[p]! + (wr * cr - wi * ci);
+          xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+        }
+      }
+    }
     for (let q = 0; q < coils; q++) {
-      acc.fill(0);
-      let any = false;
       for (let l = 0; l < L; l++) {
         const xg = X[q * L + l]!;
         if (budget >= 0) {
@@ -646,56 +687,53 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
           }
         }
         kept++;
-        any = true;
-        // phase-axis DFT of every used read column; keep the sampled lines
-        Z.fill(0);
+        // phase-axis DFT of every used read column; the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]
+        const z = Z[q * L + l]!;
         for (let a = 0; a < Mu; a++) {
           if (!colUsed[a]) continue;
           dftV.inp.set(xg.subarray(2 * a * Mv, 2 * (a + 1) * Mv));
           dftV.run();
+          const out = dftV.out;
           for (let k = 0; k < NA; k++) {
-            Z[2 * (k * Mu + a)] = dftV.out[2 * mLine[k]!]!;
-            Z[2 * (k * Mu + a) + 1] = dftV.out[2 * mLine[k]! + 1]!;
+            const fr = out[2 * mLine[k]!]!, fi = out[2 * mLine[k]! + 1]!;
+            const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
+            z[o] = z[o]! + (fr * cr - fi * ci);
+            z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
           }
-        }
-        // read-axis DFT of each line; keep the samples, times B_l(j)
-        for (let k = 0; k < NA; k++) {
-          dftU.inp.set(Z.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
-          dftU.run();
-          const out = dftU.out;
-          for (let j = 0; j < ns; j++) {
-            const cj = colIdx[j]!, fr = out[2 * cj]!, fi = out[2 * cj + 1]!;
-            const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!, o = 2 * (k * ns + j);
-            acc[o] = acc[o]! + (fr * br - fi * bi);
-            acc[o + 1] = acc[o + 1]! + (fr * bi + fi * br);
-          }
-        }
-      }
-      if (!any) continue;
-      for (let k = 0; k < NA; k++) {
-        const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!;
-        const ob = (q * plan.rows + lineRow[k]!) * plan.read;
-        for (let j = 0; j < ns; j++) {
-          const xr = acc[2 * (k * ns + j)]!, xi = acc[2 * (k * ns + j) + 1]!;
-          re[ob + j] = re[ob + j]! + (xr * cr - xi * ci);
-          im[ob + j] = im[ob + j]! + (xr * ci + xi * cr);
         }
       }
     }
     if (r === 0) {
+      // the norm of the rank-0 k-space sets the budget of the skipped pairs
       let n2 = 0;
-      for (let k = 0; k < re.length; k++) n2 += re[k]! * re[k]! + im[k]! * im[k]!;
+      for (let q = 0; q < coils; q++) {
+        for (let k = 0; k < NA; k++) {
+          acc.fill(0);
+          for (let l = 0; l < L; l++) readLine(q, l, k);
+          for (let j = 0; j < 2 * ns; j++) n2 += acc[j]! * acc[j]!;
+        }
+      }
       budget = ((tolerance / 4) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
     }
   }
-  mark('fft');
+  // read-axis DFT of each line, times B_l(j), summed over l into the rows
+  for (let q = 0; q < coils; q++) {
+    for (let k = 0; k < NA; k++) {
+      acc.fill(0);
+      for (let l = 0; l < L; l++) readLine(q, l, k);
+      const ob = (q * plan.rows + lineRow[k]!) * plan.read;
+      for (let j = 0; j < ns; j++) {
+        re[ob + j] = re[ob + j]! + acc[2 * j]!;
+        im[ob + j] = im[ob + j]! + acc[2 * j + 1]!;
+      }
+    }
+  }
   const report: ReadoutReport = {
     ...base,
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
     segments: L, lineRank: R, grid: [Mv, Mu], pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
   report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, re, im);
-  mark('estimate');
   return { re, im, report };
 }
 
