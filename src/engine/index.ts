@@ -73,19 +73,36 @@ function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: Simu
   const requested = opts.readout ?? "fast";
   const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}) } });
   if (requested === "direct") return direct();
-  if (opts.blocks) return direct("sharded runs use the direct operator (block sums)");
   if (opts.general) return direct("the general path was forced (general: true)");
   const r = fastReadout(seq, plan, iso, tolerance);
   if (typeof r === "string") return direct(r);
   const est = r.report.estimate?.relL2 ?? 0;
   if (!(est <= tolerance)) return direct(`the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance}`);
+  // no −0 (so adding the zero block sums of a sharded run keeps the bits)
+  for (let k = 0; k < r.re.length; k++) {
+    r.re[k] = r.re[k]! + 0;
+    r.im[k] = r.im[k]! + 0;
+  }
+  let re = r.re, im = r.im;
+  if (opts.blocks) {
+    // Sharded: every shard computes the same fast k-space (and the same
+    // decision); block 0 carries all of it, every other block is zero, so the
+    // merged shards equal the single run bit for bit.
+    const zr = new Float64Array(re.length), zi = new Float64Array(re.length);
+    for (let b = opts.blocks[0]; b < opts.blocks[1]; b++) opts.onBlock?.(b, b === 0 ? re : zr, b === 0 ? im : zi);
+    if (opts.blocks[0] > 0 || opts.blocks[1] <= 0) {
+      re = zr;
+      im = zi;
+    }
+    r.report.sharding = "the shard holding block 0 carries the whole fast k-space; the other shards' blocks are zero";
+  }
   opts.onProgress?.(1, 1);
-  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: r.re, im: r.im }, readout: r.report };
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, readout: r.report };
 }
 
 /** Whether a fast attempt is worth filling the RF maps for on this thread first. */
 function fastWanted(plan: EnginePlan, opts: SimulateOptions): boolean {
-  return (opts.readout ?? "fast") === "fast" && !opts.blocks && !opts.general && fastPrecheck(plan) === null;
+  return (opts.readout ?? "fast") === "fast" && !opts.general && fastPrecheck(plan) === null;
 }
 
 export interface ParallelOptions extends SimulateOptions {
@@ -179,9 +196,7 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
 
 /** The report of a direct run when the fast operator was asked for but not tried. */
 function directReason(plan: EnginePlan, opts: SimulateOptions, r: ReadoutReport): ReadoutReport {
-  const fallback = opts.blocks
-    ? "sharded runs use the direct operator (block sums)"
-    : opts.general
+  const fallback = opts.general
       ? "the general path was forced (general: true)"
       : fastPrecheck(plan) ?? "direct operator";
   return { ...r, requested: "fast", fallback };
