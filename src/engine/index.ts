@@ -8,7 +8,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { fillRfMaps, makePlan, planLayout, shareEngineArrays, type EnginePlan } from "./plan.js";
-import { EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
+import { AbortedError, EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
 
@@ -162,7 +162,11 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
   if (fastWanted(plan, opts)) {
     filled = true;
     fillRfMaps(plan, 0, plan.classes);
+    if (opts.signal?.aborted) throw new AbortedError();
     const f = tryFast(seq, shared, plan, opts);
+    // let a pending interrupt (SIGINT) arrive before the result is used
+    await new Promise((r) => setImmediate(r));
+    if (opts.signal?.aborted) throw new AbortedError();
     if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
     readout = f.readout;
   } else {
