@@ -9,7 +9,8 @@
  * tolerance; its a-posteriori estimate must bound the true error; where it
  * does not apply it must say so and give the direct operator's bits.
  */
-import { readFileSync } from "node:fs";
+import { spawnSync } from "node:child_process";
+import { existsSync, readFileSync } from "node:fs";
 import { join } from "node:path";
 import fc from "fast-check";
 import { describe, expect, test } from "vitest";
@@ -174,5 +175,40 @@ describe("property: random small phantoms and protocols", () => {
       ),
       { numRuns: 8, seed: 11 },
     );
+  }, 60_000);
+});
+
+describe("isofold simulate --readout / --tolerance", () => {
+  const CLI = join(process.cwd(), "dist", "src", "cli", "index.js");
+  const CASE = ["simulate", "phantoms/two-bottle.json", "-p", "gre-demo-1.5t", "--set", "matrix.read=16", "--set", "matrix.phase=16",
+    "--set", "dummyScans=2", "--density", "1", "--slice-isochromats", "3", "--t2prime-isochromats", "1", "--workers", "1", "-q"];
+  const run = (args: string[]) => spawnSync(process.execPath, [CLI, ...CASE, ...args], { encoding: "utf8" });
+
+  test("report.json states the operator, L, the kernel width and the estimate; direct on request; a bad tolerance exits 2 writing nothing", () => {
+    const dir = tempDir();
+    const f = run(["-o", join(dir, "fast"), "--tolerance", "1e-8"]);
+    expect(f.stderr).toBe("");
+    expect(f.status).toBe(0);
+    const rf = JSON.parse(readFileSync(join(dir, "fast", "report.json"), "utf8")) as { engine: { readout: { operator: string; tolerance: number; segments: number; kernelWidth: null; estimate: { relL2: number } } } };
+    expect(rf.engine.readout.operator).toBe("fast");
+    expect(rf.engine.readout.tolerance).toBe(1e-8);
+    expect(rf.engine.readout.segments).toBeGreaterThan(0);
+    expect(rf.engine.readout.kernelWidth).toBeNull();
+    expect(rf.engine.readout.estimate.relL2).toBeLessThan(1e-8);
+    const d = run(["-o", join(dir, "direct"), "--readout", "direct"]);
+    expect(d.status).toBe(0);
+    const rd = JSON.parse(readFileSync(join(dir, "direct", "report.json"), "utf8")) as { engine: { readout: { operator: string } } };
+    expect(rd.engine.readout.operator).toBe("direct");
+    // the two k-spaces (.npy, float64 complex) agree within the fast tolerance
+    const a = readFileSync(join(dir, "fast", "kspace.npy")), b = readFileSync(join(dir, "direct", "kspace.npy"));
+    expect(a.length).toBe(b.length);
+    const off = a.length - 16 * 32 * 16; // [1, 1, 16, 32] complex128 at the end of the file
+    const fa = new Float64Array(a.buffer.slice(a.byteOffset + off, a.byteOffset + a.length));
+    const fb = new Float64Array(b.buffer.slice(b.byteOffset + off, b.byteOffset + b.length));
+    expect(relL2(fa, new Float64Array(fa.length), fb, new Float64Array(fb.length))).toBeLessThan(1e-8);
+    const bad = run(["-o", join(dir, "bad"), "--tolerance", "2"]);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr.split("\n")[0]).toMatch(/--tolerance must be a number from 1e-12 to 0\.1/);
+    expect(existsSync(join(dir, "bad"))).toBe(false);
   }, 60_000);
 });
