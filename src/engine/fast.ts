@@ -551,10 +551,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const X: Float64Array[] = [];
   for (let q = 0; q < coils * L; q++) X.push(new Float64Array(2 * grid));
   const colUsed = new Uint8Array(Mu);
-  const touched = new Int32Array(K), seen = new Uint8Array(K);
-  const { iu, iv, m0, colStart } = iso;
-  const rfClass = plan.rfClass, count = iso.count;
-  const filt = plan.receiverFilter, fRead = a0.op.fRead, bw = a0.op.bwSampled;
+  const fRead = a0.op.fRead, bw = a0.op.bwSampled;
   const dftU = new Dft(Mu), dftV = new Dft(Mv);
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
@@ -584,78 +581,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/6 of the norm of the rank-0 k-space; skipped pairs are counted.
   let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
-  // One pass over the isochromats: per column and (R2, Δf) key, the R rank
-  // weights Σ m0·G_r(c)·S_q (times the pre-phases and the receiver filter),
-  // stored as pairs (grid index, key, weights).
-  let cap = Math.max(1024, Math.min(iso.count, 1 << 20));
-  let pairP = new Int32Array(cap), pairK = new Int32Array(cap), pairW = new Float64Array(2 * cap * coils * R);
-  let np = 0;
-  const accR = new Float64Array(K * coils * R), accI = new Float64Array(K * coils * R);
-  for (let col = 0; col < iso.columns; col++) {
-    const i0 = colStart[col]!, i1 = colStart[col + 1]!;
-    if (i1 <= i0) continue;
-    let nt = 0;
-    for (let i = i0; i < i1; i++) {
-      const c = rfClass[i]!, k = keyOf[c]!, m = m0[i]!;
-      if (!seen[k]) {
-        seen[k] = 1;
-        touched[nt++] = k;
-      }
-      if (sens === null) {
-        const o = k * R, g = 2 * c * R;
-        for (let r = 0; r < R; r++) {
-          accR[o + r] = accR[o + r]! + G[g + 2 * r]! * m;
-          accI[o + r] = accI[o + r]! + G[g + 2 * r + 1]! * m;
-        }
-      } else {
-        for (let q = 0; q < coils; q++) {
-          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * R, g = 2 * c * R;
-          for (let r = 0; r < R; r++) {
-            const gr = G[g + 2 * r]!, gi = G[g + 2 * r + 1]!;
-            accR[o + r] = accR[o + r]! + (gr * s0 - gi * s1);
-            accI[o + r] = accI[o + r]! + (gr * s1 + gi * s0);
-          }
-        }
-      }
-    }
-    const a = iu[i0]!, b = iv[i0]!;
-    const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
-    const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
-    const ca = a % Mu, p = 2 * (ca * Mv + (b % Mv));
-    const u = uGrid[a]!;
-    for (let t = 0; t < nt; t++) {
-      const k = touched[t]!;
-      seen[k] = 0;
-      const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
-      const o0 = k * coils * R;
-      if (hk === 0) {
-        accR.fill(0, o0, o0 + coils * R);
-        accI.fill(0, o0, o0 + coils * R);
-        continue;
-      }
-      if (np === cap) {
-        cap *= 2;
-        const p2 = new Int32Array(cap), k2 = new Int32Array(cap), w2 = new Float64Array(2 * cap * coils * R);
-        p2.set(pairP);
-        k2.set(pairK);
-        w2.set(pairW);
-        pairP = p2;
-        pairK = k2;
-        pairW = w2;
-      }
-      pairP[np] = p;
-      pairK[np] = k;
-      const wo = 2 * np * coils * R;
-      for (let x = 0; x < coils * R; x++) {
-        const zr = accR[o0 + x]!, zi = accI[o0 + x]!;
-        accR[o0 + x] = 0;
-        accI[o0 + x] = 0;
-        pairW[wo + 2 * x] = (zr * pr0 - zi * pi0) * hk;
-        pairW[wo + 2 * x + 1] = (zr * pi0 + zi * pr0) * hk;
-      }
-      np++;
-    }
-  }
+  const { pairP, pairK, pairW, np } = isochromatPass(iso, plan, G, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw);
   for (let k = 0; k < np; k++) colUsed[Math.floor(pairP[k]! / (2 * Mv))] = 1;
   for (let r = 0; r < R; r++) {
     if (r > 0) {
@@ -663,17 +589,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
         for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
       }
     }
-    for (let t = 0; t < np; t++) {
-      const p = pairP[t]!, k = pairK[t]!, wo = 2 * t * coils * R;
-      for (let q = 0; q < coils; q++) {
-        const wr = pairW[wo + 2 * (q * R + r)]!, wi = pairW[wo + 2 * (q * R + r) + 1]!;
-        for (let l = 0; l < L; l++) {
-          const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[q * L + l]!;
-          xg[p] = xg[p]! + (wr * cr - wi * ci);
-          xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
-        }
-      }
-    }
+    foldRank(r, np, pairP, pairK, pairW, coils, R, L, Ck, X);
     for (let q = 0; q < coils; q++) {
       for (let l = 0; l < L; l++) {
         const xg = X[q * L + l]!;
@@ -692,19 +608,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
         }
         kept++;
         // phase-axis DFT of every used read column; the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]
-        const z = Z[q * L + l]!;
-        for (let a = 0; a < Mu; a++) {
-          if (!colUsed[a]) continue;
-          dftV.inp.set(xg.subarray(2 * a * Mv, 2 * (a + 1) * Mv));
-          dftV.run();
-          const out = dftV.out;
-          for (let k = 0; k < NA; k++) {
-            const fr = out[2 * mLine[k]!]!, fi = out[2 * mLine[k]! + 1]!;
-            const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
-            z[o] = z[o]! + (fr * cr - fi * ci);
-            z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
-          }
-        }
+        phaseTransform(xg, Z[q * L + l]!, colUsed, Mu, Mv, dftV, NA, mLine, AL, r, R);
       }
     }
     if (r === 0) {
@@ -739,6 +643,130 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   };
   report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, re, im);
   return { re, im, report };
+}
+
+
+/**
+ * One pass over the isochromats: per column and (R2, Δf) key, the R rank
+ * weights Σ m0·G_r(c)·S_q times the pre-phases and the receiver filter, as
+ * pairs (folded grid offset, key, weights [coil][rank]).
+ */
+function isochromatPass(
+  iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, keyOf: Int32Array, keyDf: number[], K: number,
+  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number,
+): { pairP: Int32Array; pairK: Int32Array; pairW: Float64Array; np: number } {
+  const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
+  const { iu, iv, m0, colStart, uGrid } = iso;
+  const CR = coils * R;
+  let cap = Math.max(1024, Math.min(iso.count, 4 * iso.columns));
+  let pairP = new Int32Array(cap), pairK = new Int32Array(cap), pairW = new Float64Array(2 * cap * CR);
+  let np = 0;
+  const accR = new Float64Array(K * CR), accI = new Float64Array(K * CR);
+  const touched = new Int32Array(K), seen = new Uint8Array(K);
+  for (let col = 0; col < iso.columns; col++) {
+    const i0 = colStart[col]!, i1 = colStart[col + 1]!;
+    if (i1 <= i0) continue;
+    let nt = 0;
+    for (let i = i0; i < i1; i++) {
+      const c = rfClass[i]!, k = keyOf[c]!, m = m0[i]!;
+      if (seen[k] === 0) {
+        seen[k] = 1;
+        touched[nt++] = k;
+      }
+      const g = 2 * c * R;
+      if (sens === null) {
+        const o = k * R;
+        for (let r = 0; r < R; r++) {
+          accR[o + r] = accR[o + r]! + G[g + 2 * r]! * m;
+          accI[o + r] = accI[o + r]! + G[g + 2 * r + 1]! * m;
+        }
+      } else {
+        for (let q = 0; q < coils; q++) {
+          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * R;
+          for (let r = 0; r < R; r++) {
+            const gr = G[g + 2 * r]!, gi = G[g + 2 * r + 1]!;
+            accR[o + r] = accR[o + r]! + (gr * s0 - gi * s1);
+            accI[o + r] = accI[o + r]! + (gr * s1 + gi * s0);
+          }
+        }
+      }
+    }
+    const a = iu[i0]!, b = iv[i0]!;
+    const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
+    const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
+    const p = 2 * ((a % Mu) * Mv + (b % Mv));
+    const u = uGrid[a]!;
+    for (let t = 0; t < nt; t++) {
+      const k = touched[t]!;
+      seen[k] = 0;
+      const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
+      const o0 = k * CR;
+      if (hk === 0) {
+        accR.fill(0, o0, o0 + CR);
+        accI.fill(0, o0, o0 + CR);
+        continue;
+      }
+      if (np === cap) {
+        cap *= 2;
+        const p2 = new Int32Array(cap), k2 = new Int32Array(cap), w2 = new Float64Array(2 * cap * CR);
+        p2.set(pairP);
+        k2.set(pairK);
+        w2.set(pairW);
+        pairP = p2;
+        pairK = k2;
+        pairW = w2;
+      }
+      pairP[np] = p;
+      pairK[np] = k;
+      const wo = 2 * np * CR;
+      for (let x = 0; x < CR; x++) {
+        const zr = accR[o0 + x]!, zi = accI[o0 + x]!;
+        accR[o0 + x] = 0;
+        accI[o0 + x] = 0;
+        pairW[wo + 2 * x] = (zr * pr0 - zi * pi0) * hk;
+        pairW[wo + 2 * x + 1] = (zr * pi0 + zi * pr0) * hk;
+      }
+      np++;
+    }
+  }
+  return { pairP, pairK, pairW, np };
+}
+
+/** X[q·L + l][p] += w_{q,r}·C_l(k) over the pairs, for rank r. */
+function foldRank(r: number, np: number, pairP: Int32Array, pairK: Int32Array, pairW: Float64Array, coils: number, R: number, L: number, Ck: Float64Array, X: Float64Array[]): void {
+  for (let q = 0; q < coils; q++) {
+    for (let l = 0; l < L; l++) {
+      const xg = X[q * L + l]!;
+      for (let t = 0; t < np; t++) {
+        const p = pairP[t]!, k = pairK[t]!, wo = 2 * ((t * coils + q) * R + r);
+        const wr = pairW[wo]!, wi = pairW[wo + 1]!;
+        const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!;
+        xg[p] = xg[p]! + (wr * cr - wi * ci);
+        xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+      }
+    }
+  }
+}
+
+/**
+ * Phase-axis DFT of every used read column of grid xg (column-major, Mv per
+ * column); the sampled lines, times AL[n][r] (c_n·post-phase·A_r(n)), added
+ * into z[n][a].
+ */
+function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, Mu: number, Mv: number, dft: Dft, NA: number, mLine: Int32Array, AL: Float64Array, r: number, R: number): void {
+  const inp = dft.inp, out = dft.out;
+  for (let a = 0; a < Mu; a++) {
+    if (colUsed[a] === 0) continue;
+    const o0 = 2 * a * Mv;
+    for (let k = 0; k < 2 * Mv; k++) inp[k] = xg[o0 + k]!;
+    dft.run();
+    for (let k = 0; k < NA; k++) {
+      const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
+      const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
+      z[o] = z[o]! + (fr * cr - fi * ci);
+      z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
+    }
+  }
 }
 
 /** A small seeded generator (mulberry32, common practice) for the sample subset. */
