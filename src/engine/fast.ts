@@ -82,8 +82,12 @@ const MAX_CLASS_LINES = 1 << 23;
 /** Largest line rank and number of time segments before the operator gives up (the direct one is then cheaper). */
 const MAX_RANK = 24;
 const MAX_SEGMENTS = 48;
+/** Bytes of folded grids held at once (ranks per pass over the isochromats follow from it). */
+const GRID_BYTES = 512 * 2 ** 20;
 /** Samples of the a-posteriori estimate and its seed. */
 export const ESTIMATE_SAMPLES = 16;
+/** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
+export const ESTIMATE_ROWS = 4;
 /** The estimate is this margin times the relative L2 error on the sample subset. */
 export const ESTIMATE_MARGIN = 2;
 export const ESTIMATE_SEED = 20031;
@@ -548,9 +552,12 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   // --- per rank: fold into grids X[q][l], transform, accumulate
   // Folded grids, column-major (read index a outer, phase index b inner): X[q·L + l][2·(a·Mv + b)].
   const grid = Mu * Mv;
+  // ranks folded per pass over the isochromats: as many as GRID_BYTES of grids allow
+  const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
   const X: Float64Array[] = [];
-  for (let q = 0; q < coils * L; q++) X.push(new Float64Array(2 * grid));
+  for (let q = 0; q < perPass * coils * L; q++) X.push(new Float64Array(2 * grid));
   const colUsed = new Uint8Array(Mu);
+  for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
   const fRead = a0.op.fRead, bw = a0.op.bwSampled;
   const dftU = new Dft(Mu), dftV = new Dft(Mv);
   const colIdx = new Int32Array(ns);
@@ -581,18 +588,19 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/6 of the norm of the rank-0 k-space; skipped pairs are counted.
   let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
-  const { pairP, pairK, pairW, np } = isochromatPass(iso, plan, G, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw);
-  for (let k = 0; k < np; k++) colUsed[Math.floor(pairP[k]! / (2 * Mv))] = 1;
   for (let r = 0; r < R; r++) {
-    if (r > 0) {
-      for (const x of X) {
-        for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
+    const r0 = r - (r % perPass);
+    if (r === r0) {
+      if (r > 0) {
+        for (const x of X) {
+          for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
+        }
       }
+      foldPass(iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
     }
-    foldRank(r, np, pairP, pairK, pairW, coils, R, L, Ck, X);
     for (let q = 0; q < coils; q++) {
       for (let l = 0; l < L; l++) {
-        const xg = X[q * L + l]!;
+        const xg = X[((r - r0) * coils + q) * L + l]!;
         if (budget >= 0) {
           let n2 = 0;
           for (let a = 0; a < Mu; a++) {
@@ -641,27 +649,25 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
     segments: L, lineRank: R, grid: [Mv, Mu], pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
-  report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, re, im);
+  report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
   return { re, im, report };
 }
 
 
 /**
- * One pass over the isochromats: per column and (R2, Δf) key, the R rank
- * weights Σ m0·G_r(c)·S_q times the pre-phases and the receiver filter, as
- * pairs (folded grid offset, key, weights [coil][rank]).
+ * One pass over the isochromats for ranks r0 … r1−1: per column and (R2, Δf)
+ * key the rank weights Σ m0·G_r(c)·S_q, times the pre-phases and the
+ * receiver filter, folded into the grids X[((r − r0)·coils + q)·L + l] with
+ * the segment coefficients C_l(key).
  */
-function isochromatPass(
-  iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, keyOf: Int32Array, keyDf: number[], K: number,
-  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number,
-): { pairP: Int32Array; pairK: Int32Array; pairW: Float64Array; np: number } {
+function foldPass(
+  iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
+  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+): void {
   const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
   const { iu, iv, m0, colStart, uGrid } = iso;
-  const CR = coils * R;
-  let cap = Math.max(1024, Math.min(iso.count, 4 * iso.columns));
-  let pairP = new Int32Array(cap), pairK = new Int32Array(cap), pairW = new Float64Array(2 * cap * CR);
-  let np = 0;
-  const accR = new Float64Array(K * CR), accI = new Float64Array(K * CR);
+  const W = r1 - r0, CW = coils * W;
+  const accR = new Float64Array(K * CW), accI = new Float64Array(K * CW);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
   for (let col = 0; col < iso.columns; col++) {
     const i0 = colStart[col]!, i1 = colStart[col + 1]!;
@@ -673,17 +679,17 @@ function isochromatPass(
         seen[k] = 1;
         touched[nt++] = k;
       }
-      const g = 2 * c * R;
+      const g = 2 * (c * R + r0);
       if (sens === null) {
-        const o = k * R;
-        for (let r = 0; r < R; r++) {
+        const o = k * W;
+        for (let r = 0; r < W; r++) {
           accR[o + r] = accR[o + r]! + G[g + 2 * r]! * m;
           accI[o + r] = accI[o + r]! + G[g + 2 * r + 1]! * m;
         }
       } else {
         for (let q = 0; q < coils; q++) {
-          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * R;
-          for (let r = 0; r < R; r++) {
+          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * W;
+          for (let r = 0; r < W; r++) {
             const gr = G[g + 2 * r]!, gi = G[g + 2 * r + 1]!;
             accR[o + r] = accR[o + r]! + (gr * s0 - gi * s1);
             accI[o + r] = accI[o + r]! + (gr * s1 + gi * s0);
@@ -700,49 +706,22 @@ function isochromatPass(
       const k = touched[t]!;
       seen[k] = 0;
       const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
-      const o0 = k * CR;
-      if (hk === 0) {
-        accR.fill(0, o0, o0 + CR);
-        accI.fill(0, o0, o0 + CR);
-        continue;
-      }
-      if (np === cap) {
-        cap *= 2;
-        const p2 = new Int32Array(cap), k2 = new Int32Array(cap), w2 = new Float64Array(2 * cap * CR);
-        p2.set(pairP);
-        k2.set(pairK);
-        w2.set(pairW);
-        pairP = p2;
-        pairK = k2;
-        pairW = w2;
-      }
-      pairP[np] = p;
-      pairK[np] = k;
-      const wo = 2 * np * CR;
-      for (let x = 0; x < CR; x++) {
-        const zr = accR[o0 + x]!, zi = accI[o0 + x]!;
-        accR[o0 + x] = 0;
-        accI[o0 + x] = 0;
-        pairW[wo + 2 * x] = (zr * pr0 - zi * pi0) * hk;
-        pairW[wo + 2 * x + 1] = (zr * pi0 + zi * pr0) * hk;
-      }
-      np++;
-    }
-  }
-  return { pairP, pairK, pairW, np };
-}
-
-/** X[q·L + l][p] += w_{q,r}·C_l(k) over the pairs, for rank r. */
-function foldRank(r: number, np: number, pairP: Int32Array, pairK: Int32Array, pairW: Float64Array, coils: number, R: number, L: number, Ck: Float64Array, X: Float64Array[]): void {
-  for (let q = 0; q < coils; q++) {
-    for (let l = 0; l < L; l++) {
-      const xg = X[q * L + l]!;
-      for (let t = 0; t < np; t++) {
-        const p = pairP[t]!, k = pairK[t]!, wo = 2 * ((t * coils + q) * R + r);
-        const wr = pairW[wo]!, wi = pairW[wo + 1]!;
-        const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!;
-        xg[p] = xg[p]! + (wr * cr - wi * ci);
-        xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+      const o0 = k * CW;
+      for (let q = 0; q < coils; q++) {
+        for (let r = 0; r < W; r++) {
+          const o = o0 + q * W + r;
+          const zr = accR[o]!, zi = accI[o]!;
+          accR[o] = 0;
+          accI[o] = 0;
+          if (hk === 0) continue;
+          const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
+          const xb = (r * coils + q) * L;
+          for (let l = 0; l < L; l++) {
+            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
+            xg[p] = xg[p]! + (wr * cr - wi * ci);
+            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+          }
+        }
       }
     }
   }
@@ -783,76 +762,105 @@ function mulberry32(seed: number): () => number {
 
 /**
  * A-posteriori error estimate: the direct sum over every isochromat, with the
- * exact per-class transverse state and exact phase factors (no line factor,
- * no time segmentation, no FFT), on a seeded random subset of (row, sample),
+ * exact per-class transverse state and exact phase and decay factors (no line
+ * factor, no time segmentation, no FFT), on a seeded random subset of samples
+ * — ESTIMATE_ROWS rows, ESTIMATE_SAMPLES / ESTIMATE_ROWS samples in each —
  * against the fast result: ESTIMATE_MARGIN × the relative L2 error on the
  * subset, all coils (the margin covers the sampling of the subset).
  */
 function estimate(
   plan: EnginePlan, iso: IsochromatSet, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+  keyOf: Int32Array, keyDf: number[], keyR2: number[],
   re: Float64Array, im: Float64Array,
 ): { samples: number; seed: number; relL2: number } {
   const rnd = mulberry32(ESTIMATE_SEED);
-  const C = plan.classes, coils = plan.coils, sens = plan.sens, count = iso.count;
-  const S = Math.min(ESTIMATE_SAMPLES, actN.length * ns);
-  // samples: (row, j); every active readout of that row contributes
-  const rows: number[] = [], js: number[] = [];
-  for (let s = 0; s < S; s++) {
-    const k = Math.floor(rnd() * actN.length), j = Math.floor(rnd() * ns);
-    rows.push(h.adcs[actN[k]!]!.op.row);
-    js.push(j);
+  const C = plan.classes, coils = plan.coils, sens = plan.sens, count = iso.count, K = keyDf.length;
+  // rows (distinct, each with its readouts' ky) and samples j per row
+  const allRows = [...new Set(actN.map((n) => h.adcs[n]!.op.row))];
+  const NR = Math.min(ESTIMATE_ROWS, allRows.length), PJ = Math.min(ESTIMATE_SAMPLES / ESTIMATE_ROWS, ns);
+  const rows: number[] = [];
+  while (rows.length < NR) {
+    const r = allRows[Math.floor(rnd() * allRows.length)]!;
+    if (!rows.includes(r)) rows.push(r);
   }
-  const { classDf, classR2 } = plan.rf;
-  // Pd[c·S + s] = Σ_{readouts n of the row} c_n·P_c(n)·exp(−j·Δt·λ_c) (the ky phase is per row; all readouts of a row share it)
-  const Pd = new Float64Array(2 * C * S);
-  const kyRow = new Float64Array(S);
-  for (let s = 0; s < S; s++) {
+  const S = NR * PJ, js: number[] = [], kyRow = new Float64Array(NR);
+  for (let s = 0; s < S; s++) js.push(Math.floor(rnd() * ns));
+  // Pr[c·NR + w] = Σ_{readouts n of row w} c_n·P_c(n) (all readouts of a row share its ky)
+  const Pr = new Float64Array(2 * C * NR);
+  for (let w = 0; w < NR; w++) {
     for (let k = 0; k < actN.length; k++) {
       const n = actN[k]!, op = h.adcs[n]!.op;
-      if (op.row !== rows[s]) continue;
-      kyRow[s] = ky[k]!;
-      const t = js[s]! * dwell;
+      if (op.row !== rows[w]) continue;
+      kyRow[w] = ky[k]!;
       for (let c = 0; c < C; c++) {
-        const e = Math.exp(-t * classR2[c]!), th = -TWO_PI * classDf[c]! * t;
-        const dr = e * Math.cos(th), di = e * Math.sin(th);
-        const pr = h.P[2 * (n * C + c)]!, pi = h.P[2 * (n * C + c) + 1]!;
-        const xr = pr * dr - pi * di, xi = pr * di + pi * dr;
-        Pd[2 * (c * S + s)] = Pd[2 * (c * S + s)]! + (xr * op.cr - xi * op.ci);
-        Pd[2 * (c * S + s) + 1] = Pd[2 * (c * S + s) + 1]! + (xr * op.ci + xi * op.cr);
+        const pr = h.P[2 * (n * C + c)]!, pi = h.P[2 * (n * C + c) + 1]!, o = 2 * (c * NR + w);
+        Pr[o] = Pr[o]! + (pr * op.cr - pi * op.ci);
+        Pr[o + 1] = Pr[o + 1]! + (pr * op.ci + pi * op.cr);
       }
     }
   }
+  // decay per key and sample: exp(−j·Δt·(R2 + i2πΔf))
+  const dec = new Float64Array(2 * K * S);
+  for (let k = 0; k < K; k++) {
+    for (let s = 0; s < S; s++) {
+      const t = js[s]! * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
+      dec[2 * (k * S + s)] = e * Math.cos(th);
+      dec[2 * (k * S + s) + 1] = e * Math.sin(th);
+    }
+  }
   const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
-  const filt = plan.receiverFilter;
+  const filt = plan.receiverFilter, rfClass = plan.rfClass;
   const a0 = h.adcs[actN[0]!]!.op;
   const tot = new Float64Array(2 * S * coils), col = new Float64Array(2 * S * coils);
-  const rfClass = plan.rfClass;
+  const CN = coils * NR;
+  const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
+  const touched = new Int32Array(K), seen = new Uint8Array(K);
   for (let cc = 0; cc < iso.columns; cc++) {
     const i0 = colStart[cc]!, i1 = colStart[cc + 1]!;
     if (i1 <= i0) continue;
-    col.fill(0);
     const u = uGrid[iu[i0]!]!;
+    let nt = 0;
     for (let i = i0; i < i1; i++) {
-      const c = rfClass[i]!;
-      const w = m0[i]! * (filt ? receiverFilter(a0.fRead * u + df[i]!, a0.bwSampled) : 1);
-      if (w === 0) continue;
+      const c = rfClass[i]!, k = keyOf[c]!;
+      const m = m0[i]! * (filt ? receiverFilter(a0.fRead * u + df[i]!, a0.bwSampled) : 1);
+      if (seen[k] === 0) {
+        seen[k] = 1;
+        touched[nt++] = k;
+      }
       for (let q = 0; q < coils; q++) {
-        let s0 = 1, s1 = 0;
+        let wr = m, wi = 0;
         if (sens) {
-          s0 = sens[2 * (q * count + i)]!;
-          s1 = sens[2 * (q * count + i) + 1]!;
+          wr = m * sens[2 * (q * count + i)]!;
+          wi = m * sens[2 * (q * count + i) + 1]!;
         }
-        const wr = w * s0, wi = w * s1;
+        const o = (k * coils + q) * NR;
+        for (let w = 0; w < NR; w++) {
+          const pr = Pr[2 * (c * NR + w)]!, pi = Pr[2 * (c * NR + w) + 1]!;
+          accR[o + w] = accR[o + w]! + (wr * pr - wi * pi);
+          accI[o + w] = accI[o + w]! + (wr * pi + wi * pr);
+        }
+      }
+    }
+    col.fill(0);
+    for (let t = 0; t < nt; t++) {
+      const k = touched[t]!;
+      seen[k] = 0;
+      for (let q = 0; q < coils; q++) {
+        const o = (k * coils + q) * NR;
         for (let s = 0; s < S; s++) {
-          const pr = Pd[2 * (c * S + s)]!, pi = Pd[2 * (c * S + s) + 1]!, o = 2 * (q * S + s);
-          col[o] = col[o]! + (wr * pr - wi * pi);
-          col[o + 1] = col[o + 1]! + (wr * pi + wi * pr);
+          const w = Math.floor(s / PJ), xr = accR[o + w]!, xi = accI[o + w]!;
+          const dr = dec[2 * (k * S + s)]!, di = dec[2 * (k * S + s) + 1]!, oc = 2 * (q * S + s);
+          col[oc] = col[oc]! + (xr * dr - xi * di);
+          col[oc + 1] = col[oc + 1]! + (xr * di + xi * dr);
         }
+        accR.fill(0, o, o + NR);
+        accI.fill(0, o, o + NR);
       }
     }
     const v = vGrid[iv[i0]!]!;
     for (let s = 0; s < S; s++) {
-      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[s]! * v), er = Math.cos(th), ei = Math.sin(th);
+      const w = Math.floor(s / PJ);
+      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
       for (let q = 0; q < coils; q++) {
         const o = 2 * (q * S + s), xr = col[o]!, xi = col[o + 1]!;
         tot[o] = tot[o]! + (xr * er - xi * ei);
@@ -863,7 +871,7 @@ function estimate(
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
-      const o = (q * plan.rows + rows[s]!) * plan.read + js[s]!;
+      const o = (q * plan.rows + rows[Math.floor(s / PJ)]!) * plan.read + js[s]!;
       const dr = tot[2 * (q * S + s)]!, di = tot[2 * (q * S + s) + 1]!;
       num += (re[o]! - dr) ** 2 + (im[o]! - di) ** 2;
       den += dr * dr + di * di;
