@@ -169,7 +169,8 @@ describe("property: random small phantoms and protocols", () => {
             { phantom: writeJson(tempDir(), "ph.json", ph), iso: { density: c.density, sliceCount: 3, t2primeIsochromats: c.spread } },
           );
           const { fast, err } = both(p, { receiverFilter: c.filter });
-          if (fast.readout.operator !== "fast") return false;
+          // a result the estimate rejects is replaced by the direct one (bitwise, err 0): never silently wrong
+          if (fast.readout.operator !== "fast") return /a-posteriori error estimate/.test(fast.readout.fallback ?? "") && err === 0;
           return err < 1e-6 && fast.readout.estimate!.relL2 >= err;
         },
       ),

@@ -62,6 +62,8 @@ export interface ReadoutReport {
   method?: string;
   /** How a sharded run splits the fast result. */
   sharding?: string;
+  /** Each factor (line rank, time segments, skipped grids) was truncated at tolerance/split. */
+  split?: number;
   /** Time segments L. */
   segments?: number;
   /** Rank of the line factor R. */
@@ -89,7 +91,7 @@ export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
 export const ESTIMATE_ROWS = 4;
 /** The estimate is this margin times the relative L2 error on the sample subset. */
-export const ESTIMATE_MARGIN = 2;
+export const ESTIMATE_MARGIN = 3;
 export const ESTIMATE_SEED = 20031;
 
 // ---------------------------------------------------------------------------
@@ -398,11 +400,12 @@ export interface FastResult {
 }
 
 /**
- * The fast operator for the plan (RF maps filled). Returns the k-space
+ * The fast operator for the plan (RF maps filled), each factor truncated at
+ * tolerance/split (in norms weighted by magnetization). Returns the k-space
  * [coil][row][read] and what it did, or a string saying why it does not
  * apply (the caller then runs the direct operator).
  */
-export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number): FastResult | string {
+export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): FastResult | string {
   const pre = fastPrecheck(plan);
   if (pre) return pre;
   const h = classHistory(seq, plan, iso);
@@ -462,7 +465,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   if (Mu * Mv * coils * 16 * 4 > 2 ** 31) return `the folded grid ${Mv}×${Mu} × ${coils} coils is too large for the fast operator`;
   const NA = act.length;
   // --- line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), weighted by each class's magnetization
-  const tolLine = tolerance / 6, tolTime = tolerance / 6;
+  const tolLine = tolerance / split, tolTime = tolerance / split;
   const Pl = new Float64Array(2 * NA * C);
   const y = new Float64Array(2 * NA * C);
   for (let c = 0; c < C; c++) {
@@ -586,7 +589,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
   // Pairs (rank r, segment l) are transformed unless their contribution's bound
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
-  // tolerance/6 of the norm of the rank-0 k-space; skipped pairs are counted.
+  // tolerance/split of the norm of the rank-0 k-space; skipped pairs are counted.
   let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
   for (let r = 0; r < R; r++) {
     const r0 = r - (r % perPass);
@@ -629,7 +632,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
           for (let j = 0; j < 2 * ns; j++) n2 += acc[j]! * acc[j]!;
         }
       }
-      budget = ((tolerance / 6) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
+      budget = ((tolerance / split) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
     }
   }
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
@@ -647,7 +650,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const report: ReadoutReport = {
     ...base,
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
-    segments: L, lineRank: R, grid: [Mv, Mu], pairs: { transformed: kept, skipped, skippedBound: skippedBound },
+    segments: L, lineRank: R, grid: [Mv, Mu], split, pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
   report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
   return { re, im, report };
