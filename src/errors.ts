@@ -11,7 +11,7 @@ export class UserError extends Error {
   readonly detail: string;
   constructor(message: string, file?: string, keyPath?: string) {
     const where = [file, keyPath].filter((s) => s !== undefined && s !== "").join(": ");
-    super(where ? `${where}: ${message}` : message);
+    super(oneLine(where ? `${where}: ${message}` : message));
     this.name = "UserError";
     this.file = file;
     this.keyPath = keyPath;
@@ -22,6 +22,15 @@ export class UserError extends Error {
   inFile(file: string): UserError {
     return this.file ? this : new UserError(this.detail, file, this.keyPath);
   }
+}
+
+/**
+ * A user error is printed as one line: line breaks and other control
+ * characters (from key names or values in a file) are shown escaped.
+ */
+function oneLine(s: string): string {
+  // eslint-disable-next-line no-control-regex
+  return s.replace(/[\u0000-\u001f\u007f\u2028\u2029]/g, (c) => (c === "\n" ? "\\n" : c === "\t" ? " " : `\\u${c.charCodeAt(0).toString(16).padStart(4, "0")}`));
 }
 
 /** Where a value came from, for error messages. */

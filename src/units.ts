@@ -7,6 +7,7 @@
 import { createRequire } from "node:module";
 import type { Unit, MathJsStatic, FactoryFunctionMap } from "mathjs";
 import { userError, type Origin } from "./errors.js";
+import { describeValue } from "./json.js";
 
 // mathjs's single-file build loads about four times faster than its many ES modules,
 // which matters for a command-line tool's start-up; the API is the same.
@@ -47,16 +48,16 @@ function baseOf(kind: QuantityKind): Unit {
 export function parseUnit(raw: unknown, origin: Origin, kind?: QuantityKind): Unit {
   const example = kind ? KINDS[kind].example : "\"5 ms\"";
   if (typeof raw !== "string") {
-    throw userError(origin, `expected a value with units as a string (e.g. ${example}), got ${JSON.stringify(raw)}`);
+    throw userError(origin, `expected a value with units as a string (e.g. ${example}), got ${describeValue(raw, 80)}`);
   }
   let u: Unit;
   try {
     u = math.unit(raw.trim());
   } catch {
-    throw userError(origin, `cannot read ${JSON.stringify(raw)} as a number with units`);
+    throw userError(origin, `cannot read ${describeValue(raw, 80)} as a number with units`);
   }
   if (!u.units || u.units.length === 0 || u.value === null || u.value === undefined) {
-    throw userError(origin, `${JSON.stringify(raw)} has no units; write it like ${example}`);
+    throw userError(origin, `${describeValue(raw, 80)} has no units; write it like ${example}`);
   }
   return u;
 }
@@ -73,24 +74,24 @@ export function isKind(u: Unit, kind: QuantityKind): boolean {
 export function quantity(raw: unknown, kind: QuantityKind, origin: Origin): number {
   const u = parseUnit(raw, origin, kind);
   if (!isKind(u, kind)) {
-    throw userError(origin, `${JSON.stringify(raw)} is not a ${kind}; expected units like ${KINDS[kind].example}`);
+    throw userError(origin, `${describeValue(raw, 80)} is not a ${kind}; expected units like ${KINDS[kind].example}`);
   }
   const v = u.toNumber(KINDS[kind].si);
-  if (!Number.isFinite(v)) throw userError(origin, `${JSON.stringify(raw)} is not a finite number`);
+  if (!Number.isFinite(v)) throw userError(origin, `${describeValue(raw, 80)} is not a finite number`);
   return v;
 }
 
 /** Like quantity(), and the value must be > 0. */
 export function positive(raw: unknown, kind: QuantityKind, origin: Origin): number {
   const v = quantity(raw, kind, origin);
-  if (!(v > 0)) throw userError(origin, `must be greater than zero, got ${JSON.stringify(raw)}`);
+  if (!(v > 0)) throw userError(origin, `must be greater than zero, got ${describeValue(raw, 80)}`);
   return v;
 }
 
 /** Like quantity(), and the value must be ≥ 0. */
 export function nonNegative(raw: unknown, kind: QuantityKind, origin: Origin): number {
   const v = quantity(raw, kind, origin);
-  if (!(v >= 0)) throw userError(origin, `must not be negative, got ${JSON.stringify(raw)}`);
+  if (!(v >= 0)) throw userError(origin, `must not be negative, got ${describeValue(raw, 80)}`);
   return v;
 }
 
@@ -101,7 +102,7 @@ export function plainNumber(
   opts: { min?: number; max?: number; integer?: boolean } = {},
 ): number {
   if (typeof raw !== "number" || !Number.isFinite(raw)) {
-    throw userError(origin, `expected a plain number, got ${JSON.stringify(raw)}`);
+    throw userError(origin, `expected a plain number, got ${describeValue(raw, 80)}`);
   }
   if (opts.integer && !Number.isInteger(raw)) throw userError(origin, `expected a whole number, got ${raw}`);
   if (opts.min !== undefined && raw < opts.min) throw userError(origin, `must be at least ${opts.min}, got ${raw}`);

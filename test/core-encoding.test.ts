@@ -128,5 +128,5 @@ describe("phase wrap", () => {
       s += m;
     }
     expect(sy / s).toBeCloseTo(0.1 - 0.16, 3); // within 0.5 mm of −6 cm
-  }, 30000);
+  }, 60_000);
 });

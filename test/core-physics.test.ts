@@ -36,7 +36,7 @@ describe("spoiled gradient echo", () => {
       const ernst = (Math.sin(a) * (1 - E1)) / (1 - E1 * Math.cos(a)) * Math.exp(-TE / T2);
       const s = centreSample(r).abs / r.m0Total;
       expect(Math.abs(s / ernst - 1)).toBeLessThan(2e-3);
-    }, 30000);
+    }, 60_000);
   }
   it("the Ernst angle gives the largest signal of the flip angles tried", () => {
     const sig = (deg: number) => {
@@ -46,7 +46,7 @@ describe("spoiled gradient echo", () => {
     const at = sig(ernstAngle), below = sig(ernstAngle - 3), above = sig(ernstAngle + 3);
     expect(at).toBeGreaterThan(below);
     expect(at).toBeGreaterThan(above);
-  }, 30000);
+  }, 60_000);
 });
 
 describe("spin echo", () => {
@@ -61,7 +61,7 @@ describe("spin echo", () => {
       const TE = teMs / 1000, TR = trMs / 1000;
       const expected = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
       expect(Math.abs(centreSample(r).abs / r.m0Total / expected - 1)).toBeLessThan(5e-3);
-    }, 30000);
+    }, 60_000);
   }
 
   it("refocuses a static field inhomogeneity that dephases the gradient echo", () => {
@@ -81,7 +81,7 @@ describe("spin echo", () => {
     const greRatio = centreSample(gre(inhom)).abs / centreSample(gre()).abs;
     expect(Math.abs(seRatio - 1)).toBeLessThan(2e-4);
     expect(greRatio).toBeLessThan(0.5);
-  }, 30000);
+  }, 60_000);
 });
 
 describe("RF pulses", () => {

@@ -133,7 +133,7 @@ describe("isofold dataset", () => {
     const d = relDiff(truth1, truth0);
     expect(d).toBeLessThan(0.05);
     expect(d).toBeGreaterThan(0);
-  }, 30000);
+  }, 60_000);
 
   const A = join(tmp, "a"), B = join(tmp, "b"), Cdir = join(tmp, "c");
   const batch = ["--coils", "4", "--noise-correlation", "0.2", "--snr", "30", "--noise-lines", "64", "--mask", "random", "--accel", "2", "--acs", "6",
@@ -182,7 +182,7 @@ describe("isofold dataset", () => {
       for (let x = 0; x < 32; x++) e += Math.abs(k.data[2 * (y * 32 + x)]!) + Math.abs(k.data[2 * (y * 32 + x) + 1]!);
       expect(e > 0).toBe(mask.data[y] === 1);
     }
-  }, 30000);
+  }, 60_000);
 
   it("the same seed gives byte-identical files and manifest (two processes); another seed gives different noise", async () => {
     expect(run([...batch, "--seed", "5", "-o", B]).status).toBe(0);
@@ -193,7 +193,7 @@ describe("isofold dataset", () => {
     const c = filesOf(Cdir);
     expect(Buffer.compare(c.get("case-0000/noise.npy")!, a.get("case-0000/noise.npy")!)).not.toBe(0);
     expect(Buffer.compare(c.get("case-0000/kspace.npy")!, a.get("case-0000/kspace.npy")!)).not.toBe(0);
-  }, 30000);
+  }, 60_000);
 
   it("an interrupted batch resumes: verified cases are skipped, a damaged case is redone to the same bytes", async () => {
     truncateSync(join(B, "case-0001", "kspace.npy"), 100);
@@ -212,7 +212,7 @@ describe("isofold dataset", () => {
     expect(readFileSync(join(B, "manifest.jsonl"), "utf8")).toBe(manifest);
     const a = filesOf(A), b = filesOf(B);
     for (const [name, bytes] of a) expect([name, Buffer.compare(bytes, b.get(name)!)]).toEqual([name, 0]);
-  }, 30000);
+  }, 60_000);
 
   it("bad input through the CLI: one-line error naming the option, exit 2, nothing written", () => {
     const cases: [string[], string][] = [
@@ -228,7 +228,7 @@ describe("isofold dataset", () => {
       expect(r.stderr).not.toMatch(/\n\s+at /);
       expect(existsSync(out)).toBe(false);
     });
-  }, 30000);
+  }, 60_000);
 
   it("bad input: each invalid option is a UserError naming it, before anything is written", async () => {
     const badCov = join(tmp, "bad-cov.json");
@@ -250,5 +250,5 @@ describe("isofold dataset", () => {
       expect((err as Error).message).not.toContain("\n");
       expect(existsSync(out)).toBe(false);
     }
-  }, 30000);
+  }, 60_000);
 });

@@ -23,7 +23,7 @@ describe("fat spectrum constants", () => {
   test("six-peak amplitudes agree with the ratios in the Hamilton et al. 2011 abstract", () => {
     // Hamilton et al. 2011 abstract: CH2 2.1 vs 1.3 ppm slope 0.172; CH3 0.9 vs 1.3 ppm slope 0.125;
     // 8.6 % of fat signal under the water peak (4.2 and 5.3 ppm). Tolerances: the slopes are regression
-    // slopes over subjects, the model's ratios are 0.185 and 0.126 (REFERENCES.md §2b, from memory).
+    // slopes over subjects, the model's ratios are 0.185 and 0.126 (the six amplitudes are from memory of Hamilton et al. 2011, Table 1 not re-read).
     const a = (ppm: number) => FAT_PEAKS_AMPLITUDE[FAT_PEAKS_PPM.indexOf(ppm as never)]!;
     expect(a(-2.6) / a(-3.4)).toBeCloseTo(0.172, 1);
     expect(a(-3.8) / a(-3.4)).toBeCloseTo(0.125, 2);
@@ -32,8 +32,8 @@ describe("fat spectrum constants", () => {
   });
 
   test("fat–water shift in Hz at 1.5 T and 3 T from γ̄ (CODATA 2018)", () => {
-    // γp/2π = 42.577 478 518 MHz/T (CODATA 2018, Tiesinga et al. 2021); 3.4 ppm → −217.1 Hz at 1.5 T, −434.3 Hz at 3 T
-    // (REFERENCES.md §2a, derived).
+    // γp/2π = 42.577 478 518 MHz/T (CODATA 2018, Tiesinga et al. 2021, Rev Mod Phys 93:025010); 3.4 ppm
+    // (Hamilton et al. 2011) → −3.4e-6 × γ̄ × B0 = −217.1 Hz at 1.5 T, −434.3 Hz at 3 T, worked by hand.
     expect(GAMMA_BAR).toBeCloseTo(42.577478518e6, 0);
     expect(ppmToHz(FAT_SINGLE_PPM, 1.5)).toBeCloseTo(-217.1, 1);
     expect(ppmToHz(FAT_SINGLE_PPM, 3)).toBeCloseTo(-434.3, 1);
@@ -56,7 +56,7 @@ function waterOilPhantom() {
 }
 
 describe("readout displacement of fat on simulated images", () => {
-  // Bernstein, King & Zhou 2004 ch. 11 / REFERENCES.md §5: Δx_pix = Δf / BW_pix. Sign derived in
+  // Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences, ch. 11: Δx_pix = Δf / BW_pix. Sign derived in
   // analysis/fatshift.ts: with a positive readout gradient fat (lower frequency) lands at negative read positions.
   for (const field of ["1.5 T", "3 T"]) {
     for (const bw of [130, 310]) {
@@ -80,7 +80,7 @@ describe("readout displacement of fat on simulated images", () => {
 });
 
 describe("slice-direction displacement of fat", () => {
-  // Δz = Δf/(γ̄·G_slice) in magnitude (Bernstein et al. 2004; REFERENCES.md §5); sign derived in
+  // Δz = Δf/(γ̄·G_slice) in magnitude (Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences, ch. 11); sign derived in
   // analysis/fatshift.ts: the pulse excites where γ̄·G·w + Δf = γ̄·G·w0, so fat moves to +w for G > 0.
   for (const field of ["1.5 T", "3 T"]) {
     test(`excitation profile of fat is displaced by −Δf/(γ̄·G_slice) at ${field}`, () => {
@@ -112,9 +112,9 @@ describe("slice-direction displacement of fat", () => {
 });
 
 describe("in-phase and opposed-phase echo times", () => {
-  // Two-compartment single-peak model (REFERENCES.md §2d; common practice): TE_OP = 1/(2|Δf|),
-  // TE_IP = 1/|Δf| ≈ 2.3/4.6 ms at 1.5 T and 1.15/2.3 ms at 3 T. The T2* decay is divided out first
-  // (REFERENCES.md §4 pitfall).
+  // Two-compartment single-peak model (Dixon 1984, Radiology 153:189; common practice): TE_OP = 1/(2|Δf|),
+  // TE_IP = 1/|Δf| ≈ 2.3/4.6 ms at 1.5 T and 1.15/2.3 ms at 3 T. The T2* decay is divided out first, else
+  // it moves the extrema (common practice).
   const phantom = {
     name: "half-fat",
     tissues: { mix: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "30 ms", fatFraction: 0.5, fatModel: "single" } },
@@ -153,7 +153,7 @@ describe("in-phase and opposed-phase echo times", () => {
 
 describe("multi-peak fat: in-phase and opposed-phase signal of a fat fraction 0.5 voxel", () => {
   // Multi-peak signal model (Yu et al. 2008, MRM 60:1122): S(TE) ∝ |(1 − ff) + ff·Σ_k a_k·exp(−i2πΔf_k·TE)|,
-  // with the six-peak spectrum: the fat signal never fully cancels or realigns (REFERENCES.md §2d caution).
+  // with the six-peak spectrum: the fat signal never fully cancels or realigns (Yu et al. 2008, same paper).
   const tissue = (ff: number) => ({
     name: "v", tissues: { v: { pd: 1, t1: "300 ms", t2: "40 ms", t2star: "40 ms", fatFraction: ff, fatModel: "multi" } },
     shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["6 cm", "6 cm"], tissue: "v" }],
@@ -181,5 +181,5 @@ describe("multi-peak fat: in-phase and opposed-phase signal of a fat fraction 0.
       if (te === 1.15) expect(model).toBeGreaterThan(0.08); // no full cancellation at the opposed-phase TE
       if (te === 2.3) expect(model).toBeLessThan(0.97); // no full realignment in phase
     }
-  }, 30_000);
+  }, 60_000);
 });

@@ -1,6 +1,7 @@
 import { describe, expect, it } from "vitest";
 import { PNG } from "pngjs";
-import { encodeGrayPng, logMagnitude, percentile } from "../src/io/png.js";
+import { crc32 as zlibCrc32 } from "node:zlib";
+import { crc32, encodeGrayPng, insertTextChunks, logMagnitude, percentile, SIMULATED_NOTE } from "../src/io/png.js";
 
 /** Decodes a PNG and returns its size, colour type and the grey level of every pixel (red channel). */
 function decode(bytes: Uint8Array): { width: number; height: number; colorType: number; grey: number[] } {
@@ -128,5 +129,54 @@ describe("logMagnitude", () => {
     const r = logMagnitude(new Float64Array(3), new Float64Array(3), out);
     expect(r).toBe(out);
     expect(Array.from(out)).toEqual([0, 0, 0]);
+  });
+});
+
+/** Walks the chunks of a PNG file (PNG specification 5.3): type, data, stored CRC. */
+function chunks(bytes: Uint8Array): { type: string; data: Uint8Array; crc: number; body: Uint8Array }[] {
+  const out = [];
+  const dv = new DataView(bytes.buffer, bytes.byteOffset, bytes.byteLength);
+  let o = 8;
+  while (o < bytes.length) {
+    const len = dv.getUint32(o);
+    const type = String.fromCharCode(...bytes.subarray(o + 4, o + 8));
+    out.push({ type, data: bytes.subarray(o + 8, o + 8 + len), crc: dv.getUint32(o + 8 + len), body: bytes.subarray(o + 4, o + 8 + len) });
+    o += 12 + len;
+  }
+  return out;
+}
+
+describe("PNG text chunks", () => {
+  it("crc32 gives the CRC-32 check value 0xCBF43926 of '123456789' and agrees with node:zlib on random bytes", () => {
+    // check value of CRC-32/ISO-HDLC (the PNG CRC) in the published CRC catalogue (Greg Cook, "Catalogue of parametrised CRC algorithms")
+    expect(crc32(new TextEncoder().encode("123456789"))).toBe(0xcbf43926);
+    const b = Uint8Array.from({ length: 1000 }, (_, i) => (i * 7919 + 13) & 0xff);
+    expect(crc32(b)).toBe(zlibCrc32(b));
+  });
+
+  it("every encoded PNG carries a tEXt 'Description' chunk saying it is simulated, after IHDR, with a correct CRC", () => {
+    const { png } = encodeGrayPng(Float64Array.from({ length: 12 }, (_, i) => i), 4, 3, { high: 11, text: { Software: "isofold test" } });
+    const c = chunks(png);
+    expect(c[0]!.type).toBe("IHDR");
+    expect(c[c.length - 1]!.type).toBe("IEND");
+    const text = c.filter((k) => k.type === "tEXt").map((k) => {
+      const nul = k.data.indexOf(0);
+      return [String.fromCharCode(...k.data.subarray(0, nul)), String.fromCharCode(...k.data.subarray(nul + 1))];
+    });
+    expect(Object.fromEntries(text)).toEqual({ Description: SIMULATED_NOTE, Software: "isofold test" });
+    expect(SIMULATED_NOTE).toMatch(/simulated/i);
+    expect(SIMULATED_NOTE).toMatch(/not a scan/i);
+    for (const k of c) expect(k.crc).toBe(zlibCrc32(k.body)); // node:zlib's CRC-32 as the reference
+    // pngjs (which checks chunk CRCs) still reads the pixels
+    expect(decode(png).grey).toEqual(Array.from({ length: 12 }, (_, i) => Math.round((255 * i) / 11)));
+  });
+
+  it("insertTextChunks rejects bad keywords and text outside Latin-1", () => {
+    const { png } = encodeGrayPng(new Float64Array(4), 2, 2);
+    expect(() => insertTextChunks(png, { "": "x" })).toThrow(RangeError);
+    expect(() => insertTextChunks(png, { " lead": "x" })).toThrow(RangeError);
+    expect(() => insertTextChunks(png, { ["k".repeat(80)]: "x" })).toThrow(RangeError);
+    expect(() => insertTextChunks(png, { Comment: "arrow →" })).toThrow(RangeError);
+    expect(() => insertTextChunks(new Uint8Array(40), { Comment: "x" })).toThrow(RangeError);
   });
 });

@@ -1,7 +1,7 @@
 /**
  * Balanced SSFP steady state versus off-resonance, on simulated images, against
  * the closed form of Freeman & Hill 1971 (JMR 4:366) in the elliptical form
- * (Xiang & Hoff 2014, MRM 71:927; REFERENCES.md §4):
+ * (Xiang & Hoff 2014, MRM 71:927):
  *   I(θ) = M·(1 − a·e^{iθ})/(1 − b·cosθ), θ = 2πΔf·TR + π (alternating RF),
  *   M = M0(1 − E1)sinα/D, a = E2, b = E2(1 − E1)(1 + cosα)/D,
  *   D = 1 − E1cosα − E2²(E1 − cosα);

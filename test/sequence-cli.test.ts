@@ -40,8 +40,8 @@ describe("every scheme writes a run folder through the simulate pipeline", () =>
         phantom: join(ROOT, "phantoms", `${ph}.json`), protocol: preset, sets: [...small, ...extra], out, seed: 1,
         iso: { ...defaultIsochromatOptions(), density: 1 }, quiet: true,
       });
-      for (const f of ["image.png", "kspace.png", "kspace.npy", "image.npy", "image.nii", "report.json"]) expect(existsSync(join(out, f))).toBe(true);
-      expect(r.files).toHaveLength(6);
+      for (const f of ["image.png", "kspace.png", "kspace.npy", "image.npy", "image.nii", "report.json", "report.html"]) expect(existsSync(join(out, f))).toBe(true);
+      expect(r.files).toHaveLength(7);
       expect(npyShape(join(out, "kspace.npy"))).toEqual(shape);
       const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
       expect(rep.sequence.derived.scanTime.value).toBeGreaterThan(0);
@@ -50,6 +50,6 @@ describe("every scheme writes a run folder through the simulate pipeline", () =>
       expect(img.length).toBeGreaterThan(8 * shape[1]! * 32 * 32);
       max = rep.measurements.imageMax;
       expect(max).toBeGreaterThan(0);
-    }, 20000);
+    }, 60_000);
   }
 });

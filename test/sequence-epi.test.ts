@@ -1,7 +1,7 @@
 /**
  * EPI off-resonance displacement along phase, measured on simulated images,
  * against Δy_px = Δf·N_lines·ESP/shots = Δf/BW_px,phase (Jezzard & Balaban
- * 1995, MRM 34:65; Bernstein et al. 2004 §16.1; REFERENCES.md §5). A compact
+ * 1995, MRM 34:65; Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences, §16.1). A compact
  * disc with a uniform B0 offset; the displacement is the shift of the
  * image along phase between Δf and Δf = 0, measured by phase correlation
  * (sub-pixel; a magnitude centroid is biased by the ringing tails that wrap
@@ -39,7 +39,7 @@ describe("EPI displacement along phase = Δf·N·ESP/shots pixels (Jezzard & Bal
       expect(Math.abs(r.measured - r.predicted)).toBeLessThan(0.2);
     }
   });
-  it("single-shot spin echo with 6/8 partial Fourier (homodyne), Δf = +50 Hz", () => {
+  it("single-shot spin echo with partial Fourier, 0.75 of the phase lines (homodyne), Δf = +50 Hz", () => {
     const r = shiftPx({ te: "50 ms", epiEcho: "spin", partialFourier: { phase: 0.75 } }, 50);
     expect(Math.abs(r.measured - r.predicted)).toBeLessThan(0.2);
   });

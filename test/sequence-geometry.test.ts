@@ -1,6 +1,6 @@
 /**
  * Geometry on simulated images, against the encoding relations of
- * Bernstein, King & Zhou 2004 ch. 11 (REFERENCES.md §5): FOV = 1/Δk and the
+ * Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences, ch. 11: FOV = 1/Δk and the
  * periodic image x′ = x − n·FOV (phase always; read only without the
  * receiver's anti-alias filter); Δx_pix = Δf/BW_pix along read with the sign
  * of the readout polarity; a 3D sphere keeps its radius along all three axes;
@@ -125,5 +125,5 @@ describe("multi-slice: each slice is its own run at its own position, stacked in
       const width = halfMaxWidth(row, 0.5 * row[16]!);
       expect(Math.abs(width / 2 - radiiPx[s]!)).toBeLessThan(0.5);
     }
-  }, 20000);
+  }, 60_000);
 });

@@ -38,7 +38,7 @@ describe("homodyne weights (Noll et al. 1991)", () => {
 describe("partial Fourier on simulated images", () => {
   const common = { tr: "100 ms", te: "6 ms", matrix: { read: 32, phase: 32 } };
   const full = simulate(proto(common), ph).mag;
-  it("phase 5/8: homodyne error < ½ of zero-fill error, and < 6 % of the full-k image", () => {
+  it("partial Fourier, 0.625 of the phase lines: homodyne error < ½ of zero-fill error, and < 6 % of the full-k image", () => {
     const zf = simulate(proto({ ...common, partialFourier: { phase: 0.625, method: "zero-fill" } }), ph);
     const hd = simulate(proto({ ...common, partialFourier: { phase: 0.625, method: "homodyne" } }), ph);
     expect(zf.seq.grid.phaseFirst).toBe(12);

@@ -3,9 +3,9 @@
  * k = 0 on all three axes at the echo sample of the centre line, at time TE
  * after the excitation centre; the balanced SSFP TR has zero net gradient
  * moment on every axis; the EPI echo spacing equals the spacing of the ADC
- * windows and 2·ramp + (N+1)·dwell; derived quantities follow the handbook
+ * windows and 2·ramp + (N+1)·dwell; derived quantities follow the k-space
  * relations (Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences,
- * ch. 11 and §16.1; worked values in REFERENCES.md §5).
+ * ch. 11 and §16.1), checked on numbers of our own.
  */
 import { describe, expect, it } from "vitest";
 import { buildSequence, minTrapezoid, type Sequence } from "../src/sequence/index.js";
@@ -64,12 +64,12 @@ const CASES: [string, Record<string, unknown>][] = [
   ["bSSFP", { sequence: "bssfp", te: "3 ms", tr: "6 ms", bandwidth: "600 Hz/px", excitation: { shape: "sinc", duration: "1 ms", tbw: 2 } }],
   ["RARE linear", { sequence: "rare", te: "40 ms", tr: "1000 ms", echoTrainLength: 8 }],
   ["RARE centric", { sequence: "rare", te: "8 ms", tr: "1000 ms", echoTrainLength: 8, echoOrder: "centric", echoSpacing: "8 ms" }],
-  ["GE-EPI", { sequence: "epi", te: "30 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
-  ["SE-EPI, partial Fourier", { sequence: "epi", epiEcho: "spin", te: "60 ms", tr: "500 ms", bandwidth: "2000 Hz/px", partialFourier: { phase: 0.75 } }],
-  ["GE-EPI, 4 shots", { sequence: "epi", shots: 4, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
-  ["GE-EPI, 2 shots, negative first line, asymmetric echo", { sequence: "epi", shots: 2, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px", readoutPolarity: "negative", partialFourier: { read: 0.8 } }],
+  ["gradient-echo EPI", { sequence: "epi", te: "30 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
+  ["spin-echo EPI, partial Fourier (0.75 of the phase lines)", { sequence: "epi", epiEcho: "spin", te: "60 ms", tr: "500 ms", bandwidth: "2000 Hz/px", partialFourier: { phase: 0.75 } }],
+  ["gradient-echo EPI, 4 shots", { sequence: "epi", shots: 4, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px" }],
+  ["gradient-echo EPI, 2 shots, negative first line, asymmetric echo", { sequence: "epi", shots: 2, te: "20 ms", tr: "500 ms", bandwidth: "2000 Hz/px", readoutPolarity: "negative", partialFourier: { read: 0.8 } }],
   ["bSSFP, negative readout, 3 dummies", { sequence: "bssfp", te: "3 ms", tr: "6 ms", bandwidth: "600 Hz/px", readoutPolarity: "negative", dummyScans: 3 }],
-  ["3D GRE, partial Fourier in phase, odd slice-encoding steps", { sequence: "gre3d", matrix: { slice: 7 }, slice: { thickness: "3 mm" }, partialFourier: { phase: 0.7 } }],
+  ["3D GRE, partial Fourier (0.7 of the phase lines), odd slice-encoding steps", { sequence: "gre3d", matrix: { slice: 7 }, slice: { thickness: "3 mm" }, partialFourier: { phase: 0.7 } }],
 ];
 
 describe("block walk: k = 0 at the centre line's echo sample, at TE (direct sum over blocks)", () => {
@@ -84,15 +84,15 @@ describe("block walk: k = 0 at the centre line's echo sample, at TE (direct sum 
       expect(centreRows.length).toBeGreaterThan(0);
       const dkRead = 1 / (p.fov.read * p.oversampling.read);
       for (const e of centreRows) {
-        const part = Math.floor(e.row / lines);
-        const nPart = seq.kspace.slice;
+        const step = Math.floor(e.row / lines);
+        const nSteps = seq.kspace.slice;
         // read and phase: k = 0 at the echo sample, to 1e-6 of a k step
         expect(Math.abs(GAMMA_BAR * e.k[0]) / dkRead).toBeLessThan(1e-6);
         expect(Math.abs(GAMMA_BAR * e.k[1]) * p.fov.phase).toBeLessThan(1e-6);
         // slice: rephased (2D), or the slice-encoding step's own k for 3D
-        const kPart = nPart > 1 ? (part - Math.floor(nPart / 2)) / (nPart * p.slice.thickness) : 0;
-        expect(Math.abs(GAMMA_BAR * e.k[2] - kPart) * p.slice.thickness).toBeLessThan(1e-6);
-        if (nPart === 1 || part === Math.floor(nPart / 2)) expect(e.time).toBeCloseTo(seq.timing.te, 9);
+        const kStep = nSteps > 1 ? (step - Math.floor(nSteps / 2)) / (nSteps * p.slice.thickness) : 0;
+        expect(Math.abs(GAMMA_BAR * e.k[2] - kStep) * p.slice.thickness).toBeLessThan(1e-6);
+        if (nSteps === 1 || step === Math.floor(nSteps / 2)) expect(e.time).toBeCloseTo(seq.timing.te, 9);
       }
       // every row's k along phase matches its line: k_phase = (line − c)/FOV_acq
       for (const e of echoes) {
@@ -129,19 +129,25 @@ describe("balanced SSFP: zero net moment per TR (Scheffler & Lehnhardt 2003: ful
   });
 });
 
-describe("derived quantities vs handbook relations (Bernstein et al. 2004 ch. 11; REFERENCES.md §5 worked values)", () => {
-  it("±31.25 kHz over 256 samples: dwell 16 µs, total 62.5 kHz; FOV 256 mm: G_read 5.73 mT/m, ΔA_pe 0.0917 mT·ms/m", () => {
-    const p = proto({ fov: { read: "256 mm", phase: "256 mm" }, matrix: { read: 256, phase: 256 }, bandwidth: "±31.25 kHz", oversampling: { read: 1 } });
+describe("derived quantities vs the k-space relations (Bernstein, King & Zhou 2004, Handbook of MRI Pulse Sequences, ch. 11)", () => {
+  // Numbers of our own: ±20 kHz over 160 read samples, read FOV 200 mm, phase FOV 150 mm.
+  // Closed forms: dwell Δt = 1/BW_total; BW_total = 2 × half; BW_px = BW_total/N; FOV = 1/Δk; k_max = 1/(2Δx);
+  // G_read = BW_total/(γ̄·FOV_read); ΔA_pe = 1/(γ̄·FOV_phase); γ̄ = 42.577478518 MHz/T (CODATA 2018).
+  it("±20 kHz over 160 samples: dwell 25 µs, total 40 kHz, 250 Hz/px; FOV 200 × 150 mm: G_read 4.697 mT/m, ΔA_pe 0.15658 mT·ms/m", () => {
+    const gammaBar = 42.577478518e6; // Hz/T, CODATA 2018
+    const p = proto({ fov: { read: "200 mm", phase: "150 mm" }, matrix: { read: 160, phase: 120 }, bandwidth: "±20 kHz", oversampling: { read: 1 } });
     const d = buildSequence(p).derived;
-    expect(d["dwell"]!.value as number).toBeCloseTo(16e-6, 12); // Δt = 1/(2 × 31.25 kHz)
-    expect(d["totalBandwidth"]!.value as number).toBeCloseTo(62500, 6);
-    expect(d["halfBandwidth"]!.value as number).toBeCloseTo(31250, 6);
-    expect(d["pixelBandwidth"]!.value as number).toBeCloseTo(62500 / 256, 9);
-    expect((d["readGradient"]!.value as number) * 1e3).toBeCloseTo(5.73, 2); // G = BW/(γ̄·FOV)
-    expect((d["phaseStepArea"]!.value as number) * 1e6).toBeCloseTo(0.0917, 4); // ΔA = 1/(γ̄·FOV)
-    expect(d["deltaKRead"]!.value as number).toBeCloseTo(1 / 0.256, 9); // FOV = 1/Δk
-    expect(d["kMaxRead"]!.value as number).toBeCloseTo(1 / (2 * 0.001), 6); // k_max = 1/(2Δx)
-    expect(d["readoutDuration"]!.value as number).toBeCloseTo(256 * 16e-6, 12);
+    expect(d["dwell"]!.value as number).toBeCloseTo(25e-6, 12); // 1/(2 × 20 kHz)
+    expect(d["totalBandwidth"]!.value as number).toBeCloseTo(40000, 6);
+    expect(d["halfBandwidth"]!.value as number).toBeCloseTo(20000, 6);
+    expect(d["pixelBandwidth"]!.value as number).toBeCloseTo(250, 9); // 40 kHz / 160
+    expect((d["readGradient"]!.value as number) / (40000 / (gammaBar * 0.2))).toBeCloseTo(1, 6);
+    expect((d["readGradient"]!.value as number) * 1e3).toBeCloseTo(4.697, 3); // the same, worked by hand
+    expect((d["phaseStepArea"]!.value as number) / (1 / (gammaBar * 0.15))).toBeCloseTo(1, 6);
+    expect((d["phaseStepArea"]!.value as number) * 1e6).toBeCloseTo(0.15658, 5);
+    expect(d["deltaKRead"]!.value as number).toBeCloseTo(1 / 0.2, 9); // 5 m⁻¹
+    expect(d["kMaxRead"]!.value as number).toBeCloseTo(1 / (2 * 0.00125), 6); // Δx = 1.25 mm → 400 m⁻¹
+    expect(d["readoutDuration"]!.value as number).toBeCloseTo(160 * 25e-6, 12); // 4 ms
   });
 
   it("fat-shift bandwidth: 1.4 px at 1.5 T is 3.4 ppm·γ̄·B0/1.4 Hz/px (Δx_pix = Δf/BW_pix)", () => {

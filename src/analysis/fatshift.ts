@@ -3,7 +3,7 @@
  * measurement on a simulated image.
  *
  * Predictions (Bernstein, King & Zhou 2004, ch. 11 and 16; signs derived for
- * this program's conventions, DESIGN.md: an isochromat at logical position r
+ * this program's conventions (DEVELOPERS.md, Physics conventions): an isochromat at logical position r
  * with offset Δf precesses at γ̄·G·r + Δf):
  *   - readout: during a readout gradient G_read > 0 a spin at u appears where
  *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = (Δf/BW_px)·Δx:
@@ -19,6 +19,8 @@
  */
 import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { fft2c, ifft2c } from "../recon/fft.js";
+import { logicalAxes, type Protocol } from "../protocol/index.js";
+import type { Sequence } from "../sequence/index.js";
 
 /** A displacement along one logical axis. */
 export interface AxisShift {
@@ -77,6 +79,37 @@ export function multiPeakMeanPpm(): number {
     a += FAT_PEAKS_AMPLITUDE[k]!;
   });
   return s / a;
+}
+
+function derivedNumber(seq: Sequence, key: string): number | undefined {
+  const d = seq.derived[key];
+  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
+}
+
+/**
+ * The prediction inputs of a protocol and its built sequence, for a chemical
+ * shift `ppm`: one place for report.json, `isofold check` and `isofold
+ * validate`. EPI only: the sequence's derived `echoSpacing` (s) switches on
+ * the phase prediction, with `phaseBlipSign` (±1, default +1) and
+ * `phaseLinesEffective` (default the image's phase matrix).
+ */
+export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
+  const axes = logicalAxes(protocol);
+  const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
+  const esp = derivedNumber(seq, "echoSpacing");
+  return {
+    fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
+    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
+    ...(esp !== undefined && protocol.sequence === "epi"
+      ? { echoSpacing: esp, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? seq.image.phase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 }
+      : {}),
+    axisNames: axes.names,
+  };
+}
+
+/** Displacement of a spin at off-resonance `hz` (Hz) relative to one on resonance: the fat-shift closed forms at the equivalent ppm. */
+export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatShiftPrediction {
+  return predictFatShift({ ...input, ppm: hz / (1e-6 * GAMMA_BAR * input.fieldT) });
 }
 
 /** Readout, slice and (EPI) phase displacement of fat relative to water; see the file comment for the signs. */

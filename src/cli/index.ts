@@ -8,10 +8,14 @@ import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
 import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } from "./options.js";
-import { registerDataset } from "./dataset.js";
+import { addCoilOptions, coilRunFor, registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
+import { registerCheck } from "./check.js";
+import { registerValidate } from "./validate.js";
+import { registerSweep } from "./sweep.js";
 import { AbortedError } from "../engine/index.js";
+import { EXIT_WRITE_FAILED, OutputWriteError, withOutputDir } from "../io/outpath.js";
 
 const program = new Command();
 program
@@ -21,12 +25,15 @@ program
       "fills k-space, reconstructs by FFT and writes PNG, NumPy (.npy), NIfTI and a JSON report.\n" + SAFETY_NOTE,
   )
   .version(version())
-  .showHelpAfterError("(run with --help for usage)")
+  // usage errors are one line like every other user error
+  .configureOutput({
+    outputError: (str, write) => write(`isofold: ${str.trim().replace(/\s*\n\s*/g, " ")} (run with --help for usage)\n`),
+  })
   // usage errors (a bad or missing option) exit 2 like every other user error
   .exitOverride();
 
 addSimulationOptions(
-  program
+  addCoilOptions(program
     .command("simulate")
     .description("simulate one protocol on one phantom and write a run folder")
     .argument("<phantom>", "phantom file (JSON), e.g. phantoms/two-bottle.json")
@@ -34,8 +41,12 @@ addSimulationOptions(
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="16 cm" --set te="8 ms"', collect, [])
     .option("-o, --out <dir>", "output folder for the run", "out/run")
     .option("--truth", "also write the ground-truth maps on the image grid: pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy"),
+  "; the run folder then also holds each coil's image (coil-images.npy, coils.png), the sensitivities and their root-sum-of-squares (coil-rss.png)"),
 ).action(async (phantom: string, o) => {
-  const r = await run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o) });
+  const r = await withOutputDir(o.out, () => run({
+    phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o),
+    coilRun: coilRunFor(phantom, o),
+  }));
   if (o.shard) {
     console.log(`shard ${o.shard[0]}/${o.shard[1]}: wrote ${r.files.join(", ")} to ${r.dir} in ${r.seconds.toFixed(1)} s; combine the shards with: isofold merge <shard folders...> --out <dir>`);
     return;
@@ -52,7 +63,7 @@ addSimulationOptions(
   const root = repoRoot();
   const phantom = join(root, "phantoms", "two-bottle.json");
   if (o.shard) throw new UserError("--shard: demo writes a whole run; use simulate --shard i/N");
-  const r = await run({ phantom, protocol: "gre-demo-1.5t", sets: [], out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, ...engineOptions(o) });
+  const r = await withOutputDir(o.out, () => run({ phantom, protocol: "gre-demo-1.5t", sets: [], out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, ...engineOptions(o) }));
   console.log(`demo: 2D spoiled gradient echo of ${phantom} at 1.5 T`);
   console.log(`wrote ${r.files.join(", ")} to ${resolve(r.dir)} in ${r.seconds.toFixed(1)} s`);
   console.log(`look at ${join(r.dir, "image.png")}; the oil bottle sits shifted along the readout by the fat–water shift`);
@@ -61,6 +72,11 @@ addSimulationOptions(
 registerDataset(program);
 registerProtocol(program);
 registerMerge(program);
+registerCheck(program);
+registerValidate(program);
+registerSweep(program);
+// the safety note closes every subcommand's --help
+for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 
 async function main(): Promise<void> {
   try {
@@ -73,6 +89,10 @@ async function main(): Promise<void> {
     if (e instanceof UserError) {
       process.stderr.write(`isofold: error: ${e.message}\n`);
       process.exit(2);
+    }
+    if (e instanceof OutputWriteError) {
+      process.stderr.write(`isofold: error: ${e.message}\n`);
+      process.exit(EXIT_WRITE_FAILED);
     }
     if (e instanceof AbortedError) {
       process.stderr.write("isofold: interrupted; workers stopped, no output written\n");

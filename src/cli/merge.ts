@@ -10,6 +10,7 @@ import { addInto, type KSpace } from "../engine/index.js";
 import { loadPhantom } from "../phantom/index.js";
 import { finish, readRealNpy, type RunContext } from "./pipeline.js";
 import { readPartial } from "./partial.js";
+import { withOutputDir } from "../io/outpath.js";
 
 export interface MergeResult {
   dir: string;
@@ -18,7 +19,7 @@ export interface MergeResult {
 }
 
 /** Checks that the parts belong to one run and cover every block once; returns the merged k-space and the run context. */
-export function mergeParts(paths: string[], out: string): MergeResult {
+export async function mergeParts(paths: string[], out: string): Promise<MergeResult> {
   const t0 = Date.now();
   if (paths.length === 0) throw new UserError("merge: name at least one shard folder");
   const parts = paths.map(readPartial);
@@ -62,7 +63,7 @@ export function mergeParts(paths: string[], out: string): MergeResult {
     isoSummary: { ...first.isoSummary, spreads: first.isoSummary.spreads ?? [] },
     engine: { ...first.engine, shards: first.shard[1] },
   };
-  const r = finish(ctx, [kspace], t0);
+  const r = await finish(ctx, [kspace], t0);
   return { dir: r.dir, files: r.files, seconds: r.seconds };
 }
 
@@ -72,8 +73,8 @@ export function registerMerge(program: Command): void {
     .description("add the partial k-spaces of the shards of one run (simulate --shard i/N) and write the normal run folder")
     .argument("<parts...>", "shard output folders (or their partial.json)")
     .option("-o, --out <dir>", "output folder for the merged run", "out/run")
-    .action((parts: string[], o: { out: string }) => {
-      const r = mergeParts(parts, o.out);
+    .action(async (parts: string[], o: { out: string }) => {
+      const r = await withOutputDir(o.out, () => mergeParts(parts, o.out));
       console.log(`merged ${parts.length} parts; wrote ${r.files.length} files to ${r.dir} in ${r.seconds.toFixed(1)} s: ${r.files.join(", ")}`);
     });
 }

@@ -18,12 +18,34 @@ import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon
 import { writeRunFolder, type Volume } from "../io/run-folder.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { decodeNpy } from "../io/npy.js";
-import { fatShiftReport, truthFiles } from "./effects.js";
+import { fatCentroid, fatShiftReport, truthFiles } from "./effects.js";
+import { displayTransform } from "../report/index.js";
 import { Progress } from "./progress.js";
+import { samplingRemarks } from "./sampling.js";
 
 export const SAFETY_NOTE =
   "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
   "defer to the scanner's own safety system, local regulations and licensed practice.";
+
+/**
+ * Prints each warning of a run on stderr, one line each, prefixed "warning:"
+ * (also with --quiet: -q silences progress only). Duplicates print once.
+ */
+export function printWarnings(warnings: readonly string[]): void {
+  for (const w of new Set(warnings)) process.stderr.write(`warning: ${w}\n`);
+}
+
+/**
+ * The tissues of a run with their values (SI) and where each value comes from:
+ * library tissues give the status of each value (checked against the source,
+ * recalled from memory, estimated by a rule, our own design value).
+ */
+export function tissueReport(phantom: Phantom): Record<string, unknown>[] {
+  return phantom.tissues.map((t) => ({
+    name: t.name, pd: t.pd, t1: t.t1, t2: t.t2, t2star: t.t2star, fatFraction: t.fatFraction,
+    source: t.source ?? "given in the phantom file",
+  }));
+}
 
 export function version(): string {
   const require = createRequire(import.meta.url);
@@ -45,6 +67,8 @@ export interface RunOptions {
   seed: number;
   iso: IsochromatOptions;
   quiet?: boolean;
+  /** Leave the run's warnings to the caller (in the result's report) instead of printing them (sweep). */
+  keepWarnings?: boolean;
   /** Changes the loaded phantom before it is sampled (dataset perturbations). */
   phantomTransform?: (ph: Phantom) => Phantom;
   /** Also write the ground-truth maps (truth-*.png / .npy). */
@@ -58,6 +82,8 @@ export interface RunOptions {
   /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
   readout?: "fast" | "direct";
   tolerance?: number;
+  /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
+  coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
 
 export interface RunResult {
@@ -76,6 +102,8 @@ export interface RunContext {
   seqs: Sequence[];
   isoSummary: { count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[] };
   engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number; readout?: ReadoutReport | ReadoutReport[] };
+  /** Files and report of simulate --coils. */
+  coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
@@ -124,6 +152,7 @@ export function prepare(o: RunOptions): {
   const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
     ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
     : null;
+  const remarks = samplingRemarks(phantom, protocol, o.iso.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
     const p = { ...protocol, slice: { ...protocol.slice, position } };
@@ -155,10 +184,12 @@ export function prepare(o: RunOptions): {
     if (slices.length === 0) checkMemory(estimateMemory(phantom, geo, protocol.field, isoOpts, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), isoOpts);
     const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
-      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm; move slice.position`, o.protocol, "slice.position");
+      const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
+      throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, o.protocol, "slice.position");
     }
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
+    if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (raised && slices.length === 0) iso.warnings.push(raised);
     slices.push({ position, seq, iso });
   }
@@ -258,6 +289,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
   const kspaces: KSpace[] = [];
   let plan: EnginePlan | null = null;
+  let coils: RunContext["coils"];
   let count = 0;
   const readouts: ReadoutReport[] = [];
   for (let k = 0; k < p.slices.length; k++) {
@@ -267,9 +299,14 @@ export async function run(o: RunOptions): Promise<RunResult> {
       continue;
     }
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
-    const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
+    let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport };
+    if (o.coilRun) {
+      const r = await o.coilRun({ seq: sl.seq, iso: sl.iso, protocol: p.protocol });
+      coils = { files: r.files, report: r.report };
+      res = r;
+    } else res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
-    readouts.push(res.readout);
+    if (res.readout) readouts.push(res.readout);
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }
@@ -278,8 +315,9 @@ export async function run(o: RunOptions): Promise<RunResult> {
     isoSummary: { count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso) },
     engine: {
       chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length,
-      readout: readouts.length === 1 ? readouts[0]! : readouts,
+      readout: readouts.length === 0 ? undefined : readouts.length === 1 ? readouts[0]! : readouts,
     },
+    ...(coils ? { coils } : {}),
   };
   return finish(ctx, kspaces, t0);
 }
@@ -312,11 +350,12 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
+  printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
 /** Reconstructs the k-space of every engine run, stacks them and writes the run folder (atomically); shared by simulate and merge. */
-export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResult {
+export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Promise<RunResult> {
   const { protocol, o, phantom } = ctx;
   const seq = ctx.seqs[0]!;
   const kParts: ComplexVolume[] = [], iParts: ComplexVolume[] = [];
@@ -376,7 +415,7 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       image: ["coil", "slice", "phase", "read"],
       index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named in geometry; the slice axis holds 3D slice-encoding steps or the slices in spatial order",
       kspaceGrid: "kspace.npy is the full Cartesian grid (read oversampling kept; lines and samples not acquired by partial Fourier are zero)",
-      png: "image.png and kspace.png: readout horizontal (left → right = increasing index), phase vertical (top row = index 0)",
+      png: "image.png, kspace.png and truth-*.png are in display orientation (see the display section), not in array index order",
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
@@ -390,22 +429,31 @@ export function finish(ctx: RunContext, kspaces: KSpace[], t0: number): RunResul
       ...ctx.engine,
       order: `chunk partials summed in chunk order within blocks of ${BLOCK_CHUNKS} chunks, block sums in block order: bitwise the same for any number of workers or shards`,
     },
+    tissues: {
+      units: "pd relative to pure water; t1, t2, t2star in s; fatFraction 0..1",
+      note: "library values for the nearer table (1.5 T or 3 T); `source` says, for each value, whether it was checked against the published source, recalled from memory, estimated by a rule or is a design value of our own",
+      list: tissueReport(phantom),
+    },
     measurements: { imageMax: max },
     fatShift: null as unknown,
     timingSeconds: seconds,
     warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
   };
+  if (ctx.coils) report.coils = ctx.coils.report;
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
   (report.warnings as string[]).push(...fx.warnings);
-  const files = writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth) : undefined,
+  const dRead = protocol.fov.read / protocol.matrix.read, dPhase = protocol.fov.phase / protocol.matrix.phase;
+  const files = await writeRunFolder(o.out, {
+    extra: o.truth || ctx.coils ? new Map([...(o.truth ? truthFiles(fx.truth, displayTransform(axes)) : []), ...(ctx.coils?.files ?? [])]) : undefined,
+    fatCentroid: fatCentroid(fx.truth, dRead, dPhase),
     kspace: kv,
     image: img,
     affine: voxelAffine(protocol, spacingMm, firstMm),
     voxelMm: [(protocol.fov.read / protocol.matrix.read) * 1e3, (protocol.fov.phase / protocol.matrix.phase) * 1e3, spacingMm],
     report,
   });
+  if (!o.keepWarnings) printWarnings(report.warnings as string[]);
   return { dir: o.out, files, seconds, report };
 }
 

@@ -8,6 +8,26 @@ import { UserError } from "../errors.js";
 import { listPresets, loadProtocol, logicalAxes, slicePositions, SEQUENCES, type Protocol } from "../protocol/index.js";
 import { buildSequence, type Derived, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
+import { printWarnings, SAFETY_NOTE } from "./pipeline.js";
+
+/** What the gradient and slew headroom is, and what it is not. */
+export const HEADROOM_NOTE =
+  "headroom = 1 − peak demand / the hardware value entered (hardware.gmax, hardware.slew), per logical axis; " +
+  "it checks the protocol against those two numbers only and is no nerve-stimulation, SAR or acoustic-noise check";
+
+/** Gradient and slew headroom per logical axis (fractions of the values entered) from the derived peaks. */
+export function headroom(p: Protocol, derived: Record<string, Derived>): Record<string, unknown> {
+  const axes = ["Read", "Phase", "Slice"] as const;
+  const frac = (key: string, limit: number) =>
+    Object.fromEntries(axes.map((a) => [a.toLowerCase(), 1 - ((derived[`${key}${a}`]?.value as number | undefined) ?? NaN) / limit]));
+  return {
+    against: { gmax: p.hardware.gmax, slew: p.hardware.slew, units: "T/m, T/m/s (as entered in the protocol)" },
+    gradient: frac("peakGradient", p.hardware.gmax),
+    slew: frac("peakSlew", p.hardware.slew),
+    units: "fraction of the value entered (0.25 = 25 % left; below 0 = over the limit)",
+    note: HEADROOM_NOTE,
+  };
+}
 
 /** SI unit → display unit and factor. */
 const DISPLAY: Record<string, [string, number]> = {
@@ -66,11 +86,11 @@ export function protocolSummary(p: Protocol, seq: Sequence): Record<string, Deri
 export function registerProtocol(program: Command): void {
   program
     .command("protocol")
-    .description("print a protocol normalized to SI, with every quantity derived from it (timing, k-space, gradients, SNR); no simulation")
+    .description("print a protocol normalized to SI, with every quantity derived from it (timing, k-space, gradients and their headroom against the hardware values entered, SNR); no simulation")
     .argument("<file>", `protocol file (JSON) or bundled preset name (${listPresets().join(", ")})`)
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set te="8 ms"', collect, [])
     .option("--json", "print JSON (SI values) instead of the table")
-    .option("--reference <file>", "also state the SNR relative to this protocol (file or preset), ∝ voxel·√(N_avg·N_lines·N_part·T_adc)")
+    .option("--reference <file>", "also state the SNR relative to this protocol (file or preset), ∝ voxel·√(N_avg·N_lines·N_slice·T_adc), N_slice = slice-encoding steps")
     .action((file: string, o: { set: string[]; json?: boolean; reference?: string }) => {
       const p = loadProtocol(file, o.set);
       let seq: Sequence;
@@ -105,9 +125,11 @@ export function registerProtocol(program: Command): void {
         };
       }
       const axes = logicalAxes(p);
+      printWarnings(p.warnings);
       if (o.json) {
         process.stdout.write(JSON.stringify({
-          protocol: p, sequence: seq.name, timing: seq.timing, derived, phaseTable: seq.phaseTable,
+          safety: SAFETY_NOTE,
+          protocol: p, sequence: seq.name, timing: seq.timing, derived, headroom: headroom(p, derived), warnings: p.warnings, phaseTable: seq.phaseTable,
           geometry: { read: axes.read, phase: axes.phase, slice: axes.slice, slicePositions: ms.positions, sliceOrder: ms.order },
         }, null, 2) + "\n");
         return;
@@ -120,11 +142,14 @@ export function registerProtocol(program: Command): void {
       const drows: string[][] = [["derived", "value", "note"]];
       for (const [k, d] of Object.entries(derived)) drows.push([k, show(d.value, d.unit), d.note ?? ""]);
       console.log(`${seq.name} (${SEQUENCES[p.sequence]})`);
+      console.log(SAFETY_NOTE);
       console.log(`axes: read ${axes.names.read}, phase ${axes.names.phase}, slice ${axes.names.slice}` +
         (axes.angle ? `, tilted ${((axes.angle * 180) / Math.PI).toFixed(2)} deg about ${axes.tiltAxis}` : ""));
       console.log("");
       console.log(table(rows));
       console.log("");
       console.log(table(drows));
+      console.log("");
+      console.log(`gradient and slew ${HEADROOM_NOTE}`);
     });
 }

@@ -2,7 +2,7 @@
  * Bloch kernels. Out-parameter style: every function takes preallocated typed
  * arrays, loads values into locals, and allocates nothing.
  *
- * Conventions (DESIGN.md): Mxy = Mx + i·My. Free precession over t at offset
+ * Conventions (DEVELOPERS.md, Physics conventions): Mxy = Mx + i·My. Free precession over t at offset
  * Δf (Hz) multiplies Mxy by exp(−i2πΔf·t)·exp(−t/T2); Mz relaxes to M0 with
  * T1. A gradient area A (T·s/m) adds the phase −2π·γ̄·A·r. The state of
  * isochromat i of a chunk lives at index i − i0 of mr, mi, mz.

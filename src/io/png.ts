@@ -44,11 +44,77 @@ export interface GrayPngOptions {
   high?: number;
   /** Percentile (percent) that sets `high` when it is not given; default 99.5. */
   percentile?: number;
+  /** More tEXt entries (keyword → Latin-1 text) besides {@link SIMULATED_NOTE}. */
+  text?: Record<string, string>;
+}
+
+/** tEXt entry every PNG of isofold carries (keyword "Description", a keyword the PNG specification predefines). */
+export const SIMULATED_NOTE =
+  "Simulated image computed by isofold from a numeric phantom; not a scan of a person or object, not for diagnosis.";
+
+let crcTable: Uint32Array | null = null;
+
+/**
+ * CRC-32 of the PNG specification (ISO/IEC 15948:2003 annex D; ITU-T V.42
+ * polynomial 0xEDB88320, reflected, initial and final XOR 0xFFFFFFFF).
+ */
+export function crc32(bytes: Uint8Array, crc = 0): number {
+  if (!crcTable) {
+    crcTable = new Uint32Array(256);
+    for (let n = 0; n < 256; n++) {
+      let c = n;
+      for (let k = 0; k < 8; k++) c = c & 1 ? 0xedb88320 ^ (c >>> 1) : c >>> 1;
+      crcTable[n] = c >>> 0;
+    }
+  }
+  let c = (crc ^ 0xffffffff) >>> 0;
+  for (let i = 0; i < bytes.length; i++) c = crcTable[(c ^ bytes[i]!) & 0xff]! ^ (c >>> 8);
+  return (c ^ 0xffffffff) >>> 0;
+}
+
+/**
+ * Inserts tEXt chunks (keyword, NUL, text; both Latin-1) right after IHDR.
+ * Keywords are 1–79 printable Latin-1 characters without leading, trailing
+ * or double spaces (PNG specification 11.3.4.3).
+ * @throws RangeError on a bad keyword, a character outside Latin-1 or a file that does not start with a PNG signature and IHDR.
+ */
+export function insertTextChunks(png: Uint8Array, entries: Record<string, string>): Uint8Array {
+  const SIG = [137, 80, 78, 71, 13, 10, 26, 10];
+  if (png.length < 33 || SIG.some((b, i) => png[i] !== b) || String.fromCharCode(...png.subarray(12, 16)) !== "IHDR") {
+    throw new RangeError("insertTextChunks: not a PNG starting with IHDR");
+  }
+  const ihdrEnd = 8 + 12 + ((png[8]! << 24) | (png[9]! << 16) | (png[10]! << 8) | png[11]!);
+  const chunks: Uint8Array[] = [];
+  for (const [key, text] of Object.entries(entries)) {
+    if (!/^[\x21-\x7e\xa1-\xff](?:[\x21-\x7e\xa1-\xff]| (?! ))*$/.test(key) || key.length > 79 || key.endsWith(" ")) {
+      throw new RangeError(`insertTextChunks: bad keyword ${JSON.stringify(key)}`);
+    }
+    if (/[^\n\x20-\x7e\xa1-\xff]/.test(text)) throw new RangeError(`insertTextChunks: text of ${key} is not printable Latin-1`);
+    const len = key.length + 1 + text.length;
+    const c = new Uint8Array(12 + len);
+    const dv = new DataView(c.buffer);
+    dv.setUint32(0, len);
+    const body = "tEXt" + key + "\0" + text;
+    for (let i = 0; i < body.length; i++) c[4 + i] = body.charCodeAt(i);
+    dv.setUint32(8 + len, crc32(c.subarray(4, 8 + len)));
+    chunks.push(c);
+  }
+  const total = png.length + chunks.reduce((a, c) => a + c.length, 0);
+  const out = new Uint8Array(total);
+  out.set(png.subarray(0, ihdrEnd), 0);
+  let o = ihdrEnd;
+  for (const c of chunks) {
+    out.set(c, o);
+    o += c.length;
+  }
+  out.set(png.subarray(ihdrEnd), o);
+  return out;
 }
 
 /**
  * Encodes row-major values [height][width] as an 8-bit greyscale PNG
- * (colour type 0), row 0 at the top, column 0 at the left. Grey level
+ * (colour type 0), row 0 at the top, column 0 at the left, with a tEXt
+ * chunk saying it is simulated ({@link SIMULATED_NOTE}) and any `text`. Grey level
  * g = round(255·(v − low)/(high − low)) clamped to 0..255; NaN is black.
  * low defaults to 0; high defaults to the given percentile (99.5) of the
  * values, or their maximum if that is not above low; if the maximum is not
@@ -89,7 +155,8 @@ export function encodeGrayPng(
   const png = new PNG({ width, height, colorType: 0, inputColorType: 0, inputHasAlpha: false });
   png.data = grey;
   const out = PNG.sync.write(png, { colorType: 0, inputColorType: 0, inputHasAlpha: false });
-  return { png: new Uint8Array(out.buffer, out.byteOffset, out.byteLength), low, high };
+  const bytes = insertTextChunks(new Uint8Array(out.buffer, out.byteOffset, out.byteLength), { Description: SIMULATED_NOTE, ...opts.text });
+  return { png: bytes, low, high };
 }
 
 /**

@@ -1,12 +1,16 @@
 /**
- * The run folder contract (DESIGN.md): image.png, kspace.png, kspace.npy,
- * image.npy, image.nii, report.json — all staged under temporary names and
- * renamed together, so a killed run leaves no file under a final name.
+ * The run folder contract (DEVELOPERS.md, Files): image.png, kspace.png,
+ * kspace.npy, image.npy, image.nii, report.json, report.html — all staged
+ * under temporary names and renamed together, so a killed run leaves no file
+ * under a final name. The PNGs (and report.html) are in display orientation
+ * (report/display.ts); the arrays keep their index order.
  */
 import { OutputStage } from "./atomic.js";
 import { encodeNpy } from "./npy.js";
 import { encodeNifti1 } from "./nifti.js";
 import { encodeGrayPng, logMagnitude } from "./png.js";
+import { displayTransform, toDisplay, type DisplayTransform, type Vec3 } from "../report/display.js";
+import { runReportHtml, type CheckItem, type LogicalRect } from "../report/index.js";
 
 export interface Volume {
   coils: number;
@@ -26,6 +30,34 @@ export interface RunFolderInput {
   report: Record<string, unknown>;
   /** Extra files (name → bytes), e.g. ground-truth maps. */
   extra?: Map<string, Uint8Array>;
+  /** For report.html: fat-fraction-weighted centre of the fat (m along read, phase), ROI, wrap landing zones, check lines. */
+  fatCentroid?: { u: number; v: number } | null;
+  roi?: LogicalRect;
+  folds?: LogicalRect[];
+  checks?: CheckItem[];
+}
+
+/** Logical axes (RAS+ unit vectors) from the columns of the voxel affine. */
+export function axesFromAffine(affine: number[][]): { read: Vec3; phase: Vec3; slice: Vec3 } {
+  const col = (j: number): Vec3 => {
+    const v: Vec3 = [affine[0]![j]!, affine[1]![j]!, affine[2]![j]!];
+    const n = Math.hypot(...v);
+    return n > 0 ? [v[0] / n, v[1] / n, v[2] / n] : v;
+  };
+  return { read: col(0), phase: col(1), slice: col(2) };
+}
+
+/** The report.json `display` section of a transform. */
+export function displaySection(t: DisplayTransform, files: string[]): Record<string, unknown> {
+  return {
+    convention: t.convention, orientation: t.orientation, rows: t.rows, cols: t.cols,
+    horizontal: t.horizontal, vertical: t.vertical,
+    letters: t.letters,
+    fromArray: { transpose: t.transpose, flipRows: t.flipRows, flipCols: t.flipCols,
+      meaning: "display = array plane [phase][read], transposed first if transpose (columns then follow phase), then rows and/or columns reversed" },
+    files,
+    arrays: ".npy and NIfTI files keep their documented index order (axes section); only pictures are turned",
+  };
 }
 
 function shape(v: Volume): number[] {
@@ -44,16 +76,19 @@ function centralPlaneMagnitude(v: Volume, log: boolean): Float64Array {
   return out;
 }
 
-/** Writes the run folder atomically; returns the list of files written. */
-export function writeRunFolder(dir: string, r: RunFolderInput): string[] {
+/** Writes the run folder atomically; resolves to the list of files written. */
+export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<string[]> {
   const stage = new OutputStage(dir);
   try {
     stage.add("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
     stage.add("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
-    const mag = centralPlaneMagnitude(r.image, false);
-    const png = encodeGrayPng(mag, r.image.read, r.image.phase);
+    const t = displayTransform(axesFromAffine(r.affine));
+    const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+    const png = encodeGrayPng(mag.values, mag.width, mag.height);
     stage.add("image.png", png.png);
-    stage.add("kspace.png", encodeGrayPng(centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase, { percentile: 100 }).png);
+    const kmag = toDisplay(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
+    const kpng = encodeGrayPng(kmag.values, kmag.width, kmag.height, { percentile: 100 }).png;
+    stage.add("kspace.png", kpng);
     // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
     const n = r.image.slice * r.image.phase * r.image.read;
     const data = new Float32Array(n);
@@ -64,7 +99,16 @@ export function writeRunFolder(dir: string, r: RunFolderInput): string[] {
     }));
     for (const [name, bytes] of r.extra ?? []) stage.add(name, bytes);
     (r.report as { window?: unknown }).window = { imagePng: { low: png.low, high: png.high } };
+    const pngs = ["image.png", "kspace.png", ...[...(r.extra?.keys() ?? [])].filter((n) => n.endsWith(".png"))];
+    r.report.display = displaySection(t, pngs);
     stage.add("report.json", JSON.stringify(r.report, null, 2) + "\n");
+    stage.add("report.html", await runReportHtml({
+      report: r.report, display: t,
+      image: { png: png.png, values: mag.values, width: mag.width, height: mag.height },
+      kspace: { png: kpng, width: kmag.width, height: kmag.height },
+      grid: { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 },
+      fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
+    }));
     stage.commit();
     return stage.staged;
   } catch (e) {

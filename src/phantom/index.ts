@@ -9,10 +9,12 @@ export {
   libraryTissue,
   libraryNames,
   libraryAbout,
+  librarySources,
   isLibraryTissue,
   LIBRARY_FIELDS,
   LIBRARY_FIELD_TOLERANCE,
   type LibraryLookup,
+  type TissueSources,
 } from "./tissues.js";
 export { Shape, makeShape, type ShapeSpec, type ShapeType, type Axis } from "./shapes.js";
 export { cellContents, phantomBounds, DEFAULT_SUB, type CellContents } from "./cells.js";

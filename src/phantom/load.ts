@@ -1,5 +1,5 @@
 /**
- * Phantom files (phantoms/NAME.json, contract in DESIGN.md): read, validate
+ * Phantom files (phantoms/NAME.json, keys in README.md and DEVELOPERS.md): read, validate
  * and compile into a Phantom with SI numbers. Every problem is a UserError
  * naming the file, the key path and what is allowed.
  *
@@ -10,6 +10,7 @@
 import { readFileSync } from "node:fs";
 import { dirname } from "node:path";
 import { joinPath, userError, type Origin } from "../errors.js";
+import { describeValue, parseJsonStrict } from "../json.js";
 import { KINDS, plainNumber, positive as positiveSI, quantity as quantitySI, type QuantityKind } from "../units.js";
 import { parseB0, type RealArray } from "./b0.js";
 import { makeShape, type Axis, type Shape, type ShapeSpec, type ShapeType } from "./shapes.js";
@@ -54,27 +55,9 @@ export interface PhantomLoadOptions {
   readArray?: (path: string) => RealArray;
 }
 
-/** JSON.parse with a UserError that says where (line, column) the text is broken. */
+/** JSON.parse with a UserError that says where (line, column) the text is broken; duplicate keys and deep nesting are errors too (json.ts). */
 export function parseJsonText(text: string, file: string): unknown {
-  const body = text.charCodeAt(0) === 0xfeff ? text.slice(1) : text;
-  try {
-    return JSON.parse(body);
-  } catch (err) {
-    const msg = (err as Error).message;
-    const m = /position (\d+)/.exec(msg);
-    let where = "";
-    if (m) {
-      const pos = Number(m[1]);
-      const before = body.slice(0, pos);
-      const line = before.split("\n").length;
-      const col = pos - before.lastIndexOf("\n");
-      where = ` at line ${line}, column ${col}`;
-    } else if (/end of JSON input/i.test(msg)) {
-      where = " at the end (the file stops early)";
-    }
-    const detail = msg.replace(/\s*in JSON at position \d+.*$/, "").replace(/^JSON\.parse: /, "");
-    throw userError({ file }, `not valid JSON${where}: ${detail} (JSON allows no comments or trailing commas)`);
-  }
+  return parseJsonStrict(text, file);
 }
 
 /**
@@ -131,7 +114,7 @@ export function parsePhantom(json: unknown, file: string, fieldT: number, opts: 
   // Shapes, in painting order.
   const sOrigin = at(root, "shapes");
   if (top.shapes === undefined) throw userError(sOrigin, `missing; a phantom needs a list of shapes (${SHAPE_TYPES.join(", ")})`);
-  if (!Array.isArray(top.shapes)) throw userError(sOrigin, `expected a list of shapes, got ${JSON.stringify(top.shapes)}`);
+  if (!Array.isArray(top.shapes)) throw userError(sOrigin, `expected a list of shapes, got ${describe(top.shapes)}`);
   if (top.shapes.length === 0) throw userError(sOrigin, `the list is empty; a phantom needs at least one shape (${SHAPE_TYPES.join(", ")})`);
   const shapes: Shape[] = top.shapes.map((raw, i) => parseShape(raw, at(sOrigin, i), resolveTissue));
 
@@ -160,7 +143,11 @@ function parseTissue(tName: string, raw: unknown, o: Origin, warnings: string[])
   const t1 = positive(t.t1, "time", at(o, "t1"));
   const t2 = positive(t.t2, "time", at(o, "t2"));
   const t2star = positive(t.t2star, "time", at(o, "t2star"));
+  // One pool of spins has T2 ≤ 2·T1 (Traficante 1991, "Relaxation: can T2 be longer than T1?",
+  // Concepts in Magnetic Resonance 3:171–177; from memory). T1 < T2 ≤ 2·T1 is allowed by that bound but
+  // is not seen in tissue, where T2 < T1: a warning, not an error, so that such values can still be studied.
   if (t2 > 2 * t1) throw userError(at(o, "t2"), `T2 (${t.t2}) cannot exceed 2·T1 (${t.t1}); physically T2 ≤ 2·T1`);
+  if (t2 > t1) warnings.push(`tissue "${tName}": T2 (${t.t2}) is longer than T1 (${t.t1}); allowed up to 2·T1 by the physics, but no tissue shows it (check the values)`);
   if (t2star > t2) throw userError(at(o, "t2star"), `T2* (${t.t2star}) cannot be longer than T2 (${t.t2})`);
 
   let fatFraction: number;
@@ -276,7 +263,7 @@ function positive(raw: unknown, kind: QuantityKind, o: Origin): number {
 
 function unitless(raw: unknown, kind: QuantityKind, o: Origin): void {
   const bare = typeof raw === "number" || (typeof raw === "string" && raw.trim() !== "" && Number.isFinite(Number(raw)));
-  if (bare) throw userError(o, `${JSON.stringify(raw)} has no units; write a ${kind} as a string with units, like ${KINDS[kind].example}`);
+  if (bare) throw userError(o, `${describe(raw)} has no units; write a ${kind} as a string with units, like ${KINDS[kind].example}`);
 }
 
 function at(o: Origin, key: string | number): Origin {
@@ -320,9 +307,7 @@ function lengths(raw: unknown, o: Origin, counts: number[], mustBePositive: bool
 }
 
 function describe(raw: unknown): string {
-  if (raw === undefined) return "nothing";
-  const s = JSON.stringify(raw);
-  return s.length > 60 ? `${s.slice(0, 57)}...` : s;
+  return describeValue(raw);
 }
 
 /** ` (did you mean "x"?)` for a close match, else "". */

@@ -18,6 +18,10 @@
  *
  * Proton densities are approximate water contents relative to pure water,
  * from memory (M); they are the same at both fields.
+ *
+ * Each entry carries the status and source of every value (`src`), so a
+ * report can say which values were checked, recalled or estimated
+ * (librarySources).
  */
 import type { Tissue } from "./types.js";
 
@@ -37,9 +41,21 @@ interface Relax {
   /** s; computed by the rule when absent */ t2star?: number;
 }
 
+/** Status letter of a value (see the header) and the key of its source in SOURCES, if any. */
+type Cite = `${"V" | "M" | "E" | "O"}${"" | `:${string}`}`;
+
+interface RelaxSources {
+  t1: Cite;
+  t2: Cite;
+  /** Absent: the T2* rule (E). */
+  t2star?: Cite;
+}
+
 type LibraryEntry = {
   /** What the entry stands for. */
   about: string;
+  /** Status and source of each value: pd, fat fraction (mixed tissues) and the relaxation times of each table. */
+  src: { pd: Cite; fatFraction?: Cite; at1_5: RelaxSources; at3: RelaxSources };
   /** Relative proton density 0..1. */
   pd: number;
   at1_5: Relax;
@@ -61,10 +77,24 @@ type LibraryEntry = {
  *   [Li]  Li et al. 2017, MRM 77:2296 (in vivo arterial blood T1, 3 T): V.
  *   [Go]  Gold et al. 2004, AJR 183:343 (knee, 1.5 vs 3 T): M, low confidence.
  *   [Pa]  Pai, Li, Majumdar 2008, MRI 26:1215 (MSK at 3 T): V.
+ * A value's status can differ from its paper's (e.g. [dB] at 1.5 T is M);
+ * `src` of each entry gives the status of every value.
  */
+const SOURCES: Record<string, string> = {
+  dB: "de Bazelaire et al. 2004, Radiology 230:652–659",
+  St: "Stanisz et al. 2005, Magn Reson Med 54:507–512",
+  Wa: "Wansapura et al. 1999, J Magn Reson Imaging 9:531",
+  Br: "brain T2 by GESSE at 1.5/3/7 T, Magn Reson Med 2010;64(5):1440–1445",
+  Pe: "Peters et al. 2007, Magn Reson Imaging 25:748",
+  Ob: "Obrzut et al. 2020, Sci Rep 10:17887",
+  Li: "Li et al. 2017, Magn Reson Med 77:2296",
+  Go: "Gold et al. 2004, AJR 183:343",
+  Pa: "Pai, Li & Majumdar 2008, Magn Reson Imaging 26:1215",
+};
 const LIBRARY: Record<string, LibraryEntry> = {
   "water-gel": {
     about: "doped water gel of our own for test objects",
+    src: { pd: "O", at1_5: { t1: "O", t2: "O", t2star: "O" }, at3: { t1: "O", t2: "O", t2star: "O" } },
     pd: 1.0, // O: essentially water
     species: "water",
     // O: design values chosen to resemble a paramagnetically doped gel
@@ -75,6 +105,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   oil: {
     about: "vegetable-type oil for test objects (fat spectrum)",
+    src: { pd: "M", at1_5: { t1: "M", t2: "M", t2star: "O" }, at3: { t1: "M", t2: "M", t2star: "O" } },
     pd: 0.9, // M
     species: "fat",
     // M: typical of a vegetable oil at room temperature, from memory; design values.
@@ -83,6 +114,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   fat: {
     about: "subcutaneous adipose tissue",
+    src: { pd: "M", at1_5: { t1: "M:dB", t2: "M:dB" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.9, // M
     species: "fat",
     at1_5: { t1: 343 * MS, t2: 58 * MS }, // [dB] subcutaneous fat, M; T2* E
@@ -90,6 +122,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   muscle: {
     about: "skeletal muscle (paravertebral)",
+    src: { pd: "M", at1_5: { t1: "M:dB", t2: "M:dB" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.8, // M
     species: "water",
     at1_5: { t1: 856 * MS, t2: 27 * MS }, // [dB] paravertebral muscle, M; T2* E
@@ -97,6 +130,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   liver: {
     about: "healthy liver",
+    src: { pd: "M", at1_5: { t1: "M:dB", t2: "M:dB", t2star: "V:Ob" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.75, // M
     species: "water",
     at1_5: { t1: 586 * MS, t2: 46 * MS, t2star: 34.8 * MS }, // [dB] M; T2* [Ob] V (R2* 28.72 s⁻¹)
@@ -104,6 +138,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   spleen: {
     about: "spleen",
+    src: { pd: "M", at1_5: { t1: "M:dB", t2: "M:dB" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.8, // M
     species: "water",
     at1_5: { t1: 1057 * MS, t2: 79 * MS }, // [dB] M; T2* E
@@ -111,6 +146,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   kidney: {
     about: "kidney (cortex)",
+    src: { pd: "M", at1_5: { t1: "M:dB", t2: "M:dB" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.85, // M
     species: "water",
     at1_5: { t1: 966 * MS, t2: 87 * MS }, // [dB] kidney cortex, M; T2* E
@@ -118,6 +154,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   "white-matter": {
     about: "cerebral white matter",
+    src: { pd: "M", at1_5: { t1: "M:St", t2: "V:Br" }, at3: { t1: "M:St", t2: "V:Br" } },
     pd: 0.7, // M
     species: "water",
     at1_5: { t1: 884 * MS, t2: 80 * MS }, // T1 [St] M; T2 [Br] V; T2* E
@@ -125,6 +162,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   "grey-matter": {
     about: "cortical grey matter",
+    src: { pd: "M", at1_5: { t1: "M:St", t2: "V:Br", t2star: "M:Pe" }, at3: { t1: "M:Wa", t2: "V:Br", t2star: "M:Pe" } },
     pd: 0.82, // M
     species: "water",
     at1_5: { t1: 1124 * MS, t2: 87 * MS, t2star: 84 * MS }, // T1 [St] M; T2 [Br] frontal GM V; T2* [Pe] M
@@ -133,6 +171,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   csf: {
     about: "cerebrospinal fluid",
+    src: { pd: "M", at1_5: { t1: "M", t2: "M" }, at3: { t1: "M", t2: "M" } },
     pd: 1.0, // M
     species: "water",
     at1_5: { t1: 4300 * MS, t2: 2200 * MS }, // M (about 4.2–4.5 s and 2.1–2.3 s); T2* E
@@ -140,6 +179,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   blood: {
     about: "arterial blood, static (flow is not modelled)",
+    src: { pd: "M", at1_5: { t1: "M:St", t2: "M:St" }, at3: { t1: "V:Li", t2: "M:St" } },
     pd: 0.85, // M
     species: "water",
     at1_5: { t1: 1441 * MS, t2: 290 * MS }, // [St] human blood, M; T2* E
@@ -147,6 +187,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   "bone-marrow": {
     about: "adult vertebral (lumbar) bone marrow, water and fat mixed",
+    src: { pd: "M", fatFraction: "M", at1_5: { t1: "M:dB", t2: "M:dB" }, at3: { t1: "V:dB", t2: "V:dB" } },
     pd: 0.85, // M
     // M: adult lumbar marrow fat fraction is typically 30–50 %, from memory.
     // T1/T2 below are those measured on the mixture and apply to both parts.
@@ -156,6 +197,7 @@ const LIBRARY: Record<string, LibraryEntry> = {
   },
   cartilage: {
     about: "hyaline (articular) cartilage",
+    src: { pd: "M", at1_5: { t1: "M:Go", t2: "M:St" }, at3: { t1: "M:Go", t2: "V:Pa" } },
     pd: 0.7, // M
     species: "water",
     at1_5: { t1: 1024 * MS, t2: 30 * MS }, // T1 [Go]/[St] M; T2 [St] M low confidence; T2* E
@@ -168,7 +210,8 @@ export const LIBRARY_FIELDS = [1.5, 3] as const;
 
 /**
  * Relative distance from a table field within which that table is used
- * without a warning (covers 1.494 T and 2.89 T systems).
+ * without a warning: a system's true field differs from its nominal 1.5 T or
+ * 3 T by a few percent.
  */
 export const LIBRARY_FIELD_TOLERANCE = 0.05;
 
@@ -185,6 +228,43 @@ export function isLibraryTissue(name: string): boolean {
 /** One-line description of a library tissue, or undefined. */
 export function libraryAbout(name: string): string | undefined {
   return isLibraryTissue(name) ? LIBRARY[name]!.about : undefined;
+}
+
+/** Plain-words status and source of one library value (see the header), e.g. "checked against …". */
+function describeCite(c: Cite, rule?: string): string {
+  const [status, key] = c.split(":") as [string, string | undefined];
+  const ref = key ? SOURCES[key]! : undefined;
+  switch (status) {
+    case "V":
+      return `checked against the published source: ${ref}`;
+    case "M":
+      return ref ? `recalled from memory, source not re-read: ${ref}` : "recalled from memory, no source cited";
+    case "E":
+      return `estimated by a rule, not measured${rule ? `: ${rule}` : ""}`;
+    default:
+      return "design value of our own for a test material, not measured";
+  }
+}
+
+/** Status and source of each value of a library tissue (keys pd, t1, t2, t2star and, for mixed tissues, fatFraction). */
+export type TissueSources = Record<string, string>;
+
+/**
+ * Where each value of library tissue `name` in table `table` (1.5 or 3 T)
+ * comes from, in plain words; null for an unknown name.
+ */
+export function librarySources(name: string, table: 1.5 | 3): TissueSources | null {
+  if (!isLibraryTissue(name)) return null;
+  const e = LIBRARY[name]!;
+  const r = table === 1.5 ? e.src.at1_5 : e.src.at3;
+  const out: TissueSources = {
+    pd: describeCite(e.src.pd),
+    t1: describeCite(r.t1),
+    t2: describeCite(r.t2),
+    t2star: describeCite(r.t2star ?? "E", `T2* = 1/(1/T2 + R2′), R2′ = ${R2_PRIME[table]} s⁻¹ at ${table} T`),
+  };
+  if (e.src.fatFraction) out["fatFraction"] = describeCite(e.src.fatFraction);
+  return out;
 }
 
 /** Result of a library look-up. */
@@ -217,6 +297,7 @@ export function libraryTissue(name: string, fieldT: number): LibraryLookup | nul
     t2: r.t2,
     t2star: r.t2star ?? t2starRule(r.t2, table),
     fatFraction: e.fatFraction ?? (e.species === "fat" ? 1 : 0),
+    source: librarySources(name, table)!,
   };
   const off = Math.abs(fieldT - table) / table;
   const warning =

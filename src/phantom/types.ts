@@ -23,6 +23,8 @@ export interface Tissue {
   fatFraction: number;
   /** Fat spectrum model for the fat part; undefined = the simulator default. */
   fatModel?: FatModel;
+  /** Library tissues: status and source of each value in plain words (pd, t1, t2, t2star, fatFraction); undefined for a tissue given in the phantom file. */
+  source?: Record<string, string>;
 }
 
 /** Axis-aligned bounds (m); z may be ±Infinity for 2D shapes. */

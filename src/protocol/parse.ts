@@ -7,6 +7,7 @@ import { readFileSync, existsSync, readdirSync } from "node:fs";
 import { dirname, resolve, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { UserError, userError, joinPath, type Origin } from "../errors.js";
+import { checkJsonStructure, parseJsonStrict } from "../json.js";
 import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
 import { GAMMA_BAR } from "../constants.js";
 import type {
@@ -33,22 +34,27 @@ export function readJsonFile(file: string): Json {
   } catch {
     throw new UserError(`cannot read file (does it exist?)`, file);
   }
-  try {
-    return JSON.parse(text) as Json;
-  } catch (e) {
-    throw new UserError(`malformed JSON: ${(e as Error).message}`, file);
-  }
+  return parseJsonStrict(text, file) as Json;
 }
 
 function isObj(v: Json | undefined): v is Obj {
   return typeof v === "object" && v !== null && !Array.isArray(v);
 }
 
+/** Sets an own property, also for the key "__proto__" (plain assignment would change the prototype instead). */
+function setOwn(o: Obj, k: string, v: Json): void {
+  Object.defineProperty(o, k, { value: v, enumerable: true, writable: true, configurable: true });
+}
+
+function ownValue(o: Obj, k: string): Json | undefined {
+  return Object.prototype.hasOwnProperty.call(o, k) ? o[k] : undefined;
+}
+
 function deepMerge(base: Obj, over: Obj): Obj {
   const out: Obj = { ...base };
   for (const [k, v] of Object.entries(over)) {
-    const b = out[k];
-    out[k] = isObj(b) && isObj(v) ? deepMerge(b, v) : v;
+    const b = ownValue(out, k);
+    setOwn(out, k, isObj(b) && isObj(v) ? deepMerge(b, v) : v);
   }
   return out;
 }
@@ -96,23 +102,28 @@ export function resolvePresetOrFile(name: string, relativeTo: string): string | 
 function applySet(obj: Obj, assignment: string): Obj {
   const eq = assignment.indexOf("=");
   if (eq <= 0) throw new UserError(`--set expects key=value (e.g. fov.phase="16 cm"), got ${JSON.stringify(assignment)}`);
-  const path = assignment.slice(0, eq).trim().split(".");
+  const key = assignment.slice(0, eq).trim();
+  const path = key.split(".");
+  if (path.some((k) => k.trim() === "")) throw new UserError(`--set ${key}: a key path is names joined by dots, e.g. fov.phase="16 cm"`);
   const raw = assignment.slice(eq + 1).trim();
   let value: Json;
+  let parsed = true;
   try {
     value = JSON.parse(raw) as Json;
   } catch {
+    parsed = false;
     value = raw.replace(/^["']|["']$/g, "");
   }
+  if (parsed) checkJsonStructure(raw, `--set ${key}`);
   const out = deepMerge(obj, {});
   let cur: Obj = out;
   for (let i = 0; i < path.length - 1; i++) {
     const k = path[i]!;
-    const next = cur[k];
-    cur[k] = isObj(next) ? deepMerge(next, {}) : {};
-    cur = cur[k] as Obj;
+    const next = ownValue(cur, k);
+    setOwn(cur, k, isObj(next) ? deepMerge(next, {}) : {});
+    cur = ownValue(cur, k) as Obj;
   }
-  cur[path[path.length - 1]!] = value;
+  setOwn(cur, path[path.length - 1]!, value);
   return out;
 }
 
@@ -212,6 +223,22 @@ function pulse(obj: Obj | undefined, origin: Origin, dflt: PulseSpec): PulseSpec
 }
 
 /**
+ * A flip angle: greater than 0 and at most 180 deg. Above 180 deg the
+ * rotation equals one of 360 deg minus the angle about the opposite axis
+ * (a rotation's angle is defined modulo 360 deg), so the value is rejected
+ * rather than reinterpreted: the user says which one is meant.
+ */
+function flipAngle(raw: Json | undefined, o: Origin): number {
+  const v = positive(raw, "angle", o);
+  if (v > Math.PI * (1 + 1e-12)) {
+    const deg = (v * 180) / Math.PI;
+    const alt = 360 - (((deg % 360) + 360) % 360);
+    throw userError(o, `${String(raw)} is above 180 deg; give a flip angle from above 0 to 180 deg${alt > 0 && alt < 180 ? ` (${Number(alt.toPrecision(6))} deg is the same rotation about the opposite axis)` : ""}`);
+  }
+  return v;
+}
+
+/**
  * Loads, merges and validates a protocol. `file` may be a path or a preset name.
  * Throws UserError naming the file and key path on any bad value.
  */
@@ -278,8 +305,8 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
   const te = positive(obj["te"], "time", at("te"));
   const tr = positive(obj["tr"], "time", at("tr"));
-  const flip = obj["flip"] === undefined ? (sequence === "se" || sequence === "rare" || sequence === "epi" ? Math.PI / 2 : (20 * Math.PI) / 180) : positive(obj["flip"], "angle", at("flip"));
-  const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : positive(obj["refocusFlip"], "angle", at("refocusFlip"));
+  const flip = obj["flip"] === undefined ? (sequence === "se" || sequence === "rare" || sequence === "epi" ? Math.PI / 2 : (20 * Math.PI) / 180) : flipAngle(obj["flip"], at("flip"));
+  const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : flipAngle(obj["refocusFlip"], at("refocusFlip"));
 
   const osO = sub(obj, "oversampling", root, false) ?? {};
   checkKeys(osO, ["read", "phase"], at("oversampling"));

@@ -308,7 +308,7 @@ export function commonDerived(
     relativeSnr: {
       value: relativeSnr(voxel, p.averages, pe.acquired, sliceSteps, ro.flat),
       unit: "",
-      note: `∝ voxel·√(N_avg·N_lines·N_part·T_adc) (Edelstein et al. 1986), relative to ${SNR_REFERENCE}`,
+      note: `∝ voxel·√(N_avg·N_lines·N_slice·T_adc), N_slice = slice-encoding steps (Edelstein et al. 1986), relative to ${SNR_REFERENCE}`,
     },
   };
   Object.assign(d, demandDerived(p, demand));
@@ -316,8 +316,9 @@ export function commonDerived(
 }
 
 /**
- * Peak gradient and slew per logical axis vs the hardware, with margin = 1 − demand/limit. The limits
- * are applied per logical axis; for an oblique slice the bound on a physical axis is reported beside them.
+ * Peak gradient and slew per logical axis vs the hardware values entered (hardware.gmax, hardware.slew),
+ * with headroom = 1 − demand/limit. The limits are applied per logical axis; for an oblique slice the bound
+ * on a physical axis is reported beside them. Headroom is no nerve-stimulation, SAR or acoustic-noise check.
  */
 export function demandDerived(p: Protocol, demand: Demand): Record<string, Derived> {
   const out: Record<string, Derived> = {};
@@ -345,11 +346,11 @@ export function demandDerived(p: Protocol, demand: Demand): Record<string, Deriv
   for (let a = 0; a < 3; a++) {
     out[`peakGradient${names[a]}`] = {
       value: demand.gradient[a]!, unit: "T/m",
-      note: `margin ${((1 - demand.gradient[a]! / p.hardware.gmax) * 100).toFixed(0)} % of gmax`,
+      note: `headroom ${((1 - demand.gradient[a]! / p.hardware.gmax) * 100).toFixed(0)} % against the gmax entered`,
     };
     out[`peakSlew${names[a]}`] = {
       value: demand.slew[a]!, unit: "T/m/s",
-      note: `margin ${((1 - demand.slew[a]! / p.hardware.slew) * 100).toFixed(0)} % of slew`,
+      note: `headroom ${((1 - demand.slew[a]! / p.hardware.slew) * 100).toFixed(0)} % against the slew rate entered`,
     };
   }
   return out;

@@ -57,7 +57,7 @@ export function buildGre(p: Protocol): Sequence {
     const part = acq >= 0 ? Math.floor(acq / perPart) : partCentre;
     const line = acq >= 0 ? pe.order[Math.floor((acq % perPart) / p.averages)]! : pe.centre;
     const peArea = (line - pe.centre) * pe.step;
-    const kp = (part - partCentre) / slab; // partition k (1/m)
+    const kp = (part - partCentre) / slab; // slice-encoding k (1/m)
     const partArea = (part - partCentre) * partStep;
     const phase = p.spoiling === "rf" ? rfSpoilPhase(n, p.rfSpoilIncrement) : 0;
     pushPulse(blocks, exc, phase);

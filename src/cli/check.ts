@@ -1,0 +1,109 @@
+/**
+ * `isofold check <phantom> --protocol <file>`: closed-form answers (src/check)
+ * printed as a table or JSON; `--verify` also simulates and measures
+ * (src/cli/verify.ts). No physics here.
+ */
+import type { Command } from "commander";
+import { checkProtocol, parseRoi, parseThresholds, type CheckItem, type CheckResult } from "../check/index.js";
+import { UserError } from "../errors.js";
+import { loadPhantom } from "../phantom/index.js";
+import { loadProtocol, type Protocol } from "../protocol/index.js";
+import { buildSequence, type Sequence } from "../sequence/index.js";
+import { collect } from "./options.js";
+import { printWarnings, readRealNpy } from "./pipeline.js";
+import { verifyCheck, type VerifyRow } from "./verify.js";
+
+export interface CheckCliOptions {
+  protocol: string;
+  set: string[];
+  roi?: string;
+  json?: boolean;
+  threshold: string[];
+  reference?: string;
+  verify?: boolean;
+}
+
+function sequenceOf(p: Protocol, file: string): Sequence {
+  try {
+    return buildSequence(p);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(file);
+    throw e;
+  }
+}
+
+/** Loads the inputs and runs the check; every input problem is a UserError before any output. */
+export function runCheck(phantomFile: string, o: CheckCliOptions): { result: CheckResult; protocol: Protocol; seq: Sequence } {
+  const thresholds = parseThresholds(o.threshold ?? []);
+  const roi = o.roi !== undefined ? parseRoi(o.roi) : null;
+  const protocol = loadProtocol(o.protocol, o.set ?? []);
+  const seq = sequenceOf(protocol, o.protocol);
+  const reference = o.reference ? { name: o.reference, seq: sequenceOf(loadProtocol(o.reference), o.reference) } : null;
+  const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
+  const result = checkProtocol(phantom, protocol, seq, { roi, roiText: o.roi, thresholds, reference });
+  result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
+  return { result, protocol, seq };
+}
+
+function fmt(v: number | null, unit: string): string {
+  if (v === null || Number.isNaN(v)) return "—";
+  const a = Math.abs(v);
+  const t = a !== 0 && (a >= 1e4 || a < 1e-3) ? v.toExponential(2) : a >= 100 ? v.toFixed(0) : a >= 10 ? v.toFixed(1) : v.toFixed(2);
+  return unit ? (unit === "%" ? `${t} %` : `${t} ${unit}`) : t;
+}
+
+function table(rows: string[][]): string {
+  const w = rows[0]!.map((_, c) => Math.max(...rows.map((r) => (r[c] ?? "").length)));
+  return rows.map((r) => r.map((x, c) => (c === r.length - 1 ? x : x.padEnd(w[c]!))).join("  ").trimEnd()).join("\n");
+}
+
+export function checkTable(items: CheckItem[]): string {
+  const rows = [["check", "value", "verdict", "threshold", "reason"]];
+  for (const it of items) rows.push([it.label, fmt(it.value, it.unit), it.verdict, it.threshold.text, it.reason]);
+  return table(rows);
+}
+
+function verifyTable(rows: VerifyRow[]): string {
+  const out = [["quantity", "predicted", "measured", "difference", "note"]];
+  for (const r of rows) {
+    out.push([r.quantity, r.predicted, r.measured, r.difference, r.note]);
+  }
+  return table(out);
+}
+
+export function registerCheck(program: Command): void {
+  program
+    .command("check")
+    .description(
+      "answer from closed forms, without simulating (under a second): fat shift, wrap, blur, distortion and cost, " +
+        "each with a verdict (fine / watch / problem) against a stated threshold; --verify also simulates and compares",
+    )
+    .argument("<phantom>", "phantom file (JSON), e.g. phantoms/torso-slice.json")
+    .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
+    .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="26 cm"', collect, [])
+    .option("--roi <shape>", `region of interest: one shape in the phantom's syntax, e.g. '{"shape":"ellipse","center":["0 cm","0 cm"],"semiAxes":["5 cm","4 cm"]}' (default: the central half of the FOV)`)
+    .option("--threshold <key=watch,problem>", "change a threshold, repeatable: key=watch,problem or key.watch=value, with the key's unit, e.g. fatShiftRead=0.5 px,1 px", collect, [])
+    .option("--reference <file>", "protocol (file or preset) the relative SNR is stated against (default: the built-in reference of `isofold protocol`)")
+    .option("--json", "print JSON instead of the table (item values in their unit; detail fields name theirs: px, mm, Hz; wrap positions and FOVs in m)")
+    .option("--verify", "also simulate the protocol (in-process, small) and print predicted and measured values side by side")
+    .action(async (phantomFile: string, o: CheckCliOptions) => {
+      const { result, protocol } = runCheck(phantomFile, o);
+      printWarnings(protocol.warnings);
+      const verify = o.verify ? await verifyCheck(phantomFile, o, result) : null;
+      if (o.json) {
+        process.stdout.write(JSON.stringify({ ...result, ...(verify ? { verify } : {}) }, null, 2) + "\n");
+        return;
+      }
+      console.log(`${result.sequence}; read ${result.axes.read}, phase ${result.axes.phase}, slice ${result.axes.slice}; ROI: ${result.roi}`);
+      console.log("");
+      console.log(checkTable(result.items));
+      for (const n of result.notes) console.log(`note: ${n}`);
+      if (verify) {
+        console.log("");
+        console.log(`verify (simulated in ${verify.seconds.toFixed(1)} s):`);
+        console.log(verifyTable(verify.rows));
+      }
+      console.log("");
+      console.log(result.safety);
+    });
+}

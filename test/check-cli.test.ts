@@ -1,0 +1,77 @@
+/**
+ * `isofold check` and `isofold validate` from the compiled CLI: the table and
+ * JSON a user sees, validate's exit status and rows, and bad input (one line
+ * on stderr, exit 2, nothing on stdout).
+ */
+import { describe, expect, it } from "vitest";
+import { spawnSync } from "node:child_process";
+import { resolve } from "node:path";
+import { CASES } from "../src/check/validate.js";
+import { DEFAULT_THRESHOLDS } from "../src/check/index.js";
+
+const CLI = resolve(__dirname, "../dist/src/cli/index.js");
+const PHANTOM = resolve(__dirname, "../phantoms/torso-slice.json");
+const cli = (...args: string[]) => spawnSync(process.execPath, [CLI, ...args], { encoding: "utf8", timeout: 55_000 });
+
+describe("isofold check (CLI)", () => {
+  it("prints value, unit, verdict, threshold and reason per line, and says it is not a safety check", () => {
+    const r = cli("check", PHANTOM, "-p", "gre-t1-3t", "--set", "phaseDirection=x", "--set", 'fov.phase="26 cm"');
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stdout).toMatch(/wrap along phase: rows hit\s+\d+(\.\d+)? px\s+problem\s+watch > 0 px, problem > 8 px\s+.*no fold with fov\.phase ≥ \d+\.\d cm/);
+    expect(r.stdout).toMatch(/fat shift along read\s+1\.74 px\s+watch/); // 434.3 Hz / 250 Hz/px
+    expect(r.stdout).toMatch(/not a nerve-stimulation, SAR \(RF heating\) or acoustic-noise check/);
+  });
+
+  it("--json: every item has key, value, unit, verdict, stated threshold and reason; --threshold changes a verdict", () => {
+    const r = cli("check", PHANTOM, "-p", "epi-1.5t", "--json", "--threshold", "fatShiftPhase=20 px,30 px", "--threshold", "scanTime.watch=1 s");
+    expect(r.status, r.stderr).toBe(0);
+    const j = JSON.parse(r.stdout) as { items: { key: string; verdict: string; unit: string; reason: string; threshold: { text: string } }[] };
+    for (const it of j.items) {
+      expect(Object.keys(DEFAULT_THRESHOLDS)).toContain(it.key);
+      expect(["fine", "watch", "problem"]).toContain(it.verdict);
+      expect(it.threshold.text).toMatch(/^watch [<>] .*, problem [<>] /);
+      expect(it.reason.length).toBeGreaterThan(10);
+    }
+    expect(j.items.find((i) => i.key === "fatShiftPhase")!.verdict).toBe("fine"); // 11.3 px < 20 px
+    expect(j.items.find((i) => i.key === "scanTime")!.verdict).toBe("watch"); // 3 s > 1 s
+  });
+
+  const bad: [string, string[], RegExp][] = [
+    ["unknown threshold key", ["--threshold", "fatShift=1 px,2 px"], /unknown key "fatShift"; known keys: fatShiftRead/],
+    ["threshold without its unit", ["--threshold", "fatShiftRead=1,2"], /has no unit; fatShiftRead is in px/],
+    ["problem below watch", ["--threshold", "fatShiftRead=2 px,1 px"], /problem level/],
+    ["ROI outside the FOV", ["--roi", '{"shape":"ellipse","center":["40 cm","0 cm"],"semiAxes":["2 cm","2 cm"]}'], /ROI lies outside the FOV/],
+    ["ROI that is not JSON", ["--roi", "{shape: ellipse}"], /--roi: not valid JSON/],
+    ["ROI of an unknown shape", ["--roi", '{"shape":"blob","center":["0 cm","0 cm"]}'], /--roi: .*"blob" is not allowed/],
+  ];
+  for (const [name, args, msg] of bad) {
+    it(`bad input: ${name} → one line, exit 2`, () => {
+      const r = cli("check", PHANTOM, "-p", "gre-t1-3t", ...args);
+      expect(r.status).toBe(2);
+      expect(r.stdout).toBe("");
+      expect(r.stderr.trim().split("\n")).toHaveLength(1);
+      expect(r.stderr).toMatch(msg);
+    });
+  }
+});
+
+describe("isofold validate (CLI)", () => {
+  it("exits 0 on this build and lists every check with source, expected, measured, tolerance and pass", () => {
+    const r = cli("validate", "--json");
+    expect(r.status, r.stderr + r.stdout).toBe(0);
+    const j = JSON.parse(r.stdout) as { checks: { check: string; source: string; expected: number; measured: number; tolerance: number; pass: boolean }[]; failed: number };
+    expect(j.failed).toBe(0);
+    expect(j.checks.map((c) => c.check)).toEqual(CASES.map((c) => c.check));
+    for (const c of j.checks) {
+      expect(c.pass).toBe(true);
+      expect(Math.abs(c.measured - c.expected)).toBeLessThanOrEqual(c.tolerance);
+      expect(c.source.length).toBeGreaterThan(5);
+    }
+    for (const name of ["Ernst", "spin echo", "jinc", "fat shift", "wrap", "EPI", "bSSFP"]) {
+      expect(j.checks.some((c) => c.check.includes(name)), name).toBe(true);
+    }
+    const t = cli("validate");
+    expect(t.stdout).toMatch(/^check\s+source\s+expected\s+measured\s+tolerance\s+result/);
+    expect(t.stdout).toContain(`${CASES.length} of ${CASES.length} checks pass`);
+  });
+});
