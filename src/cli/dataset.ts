@@ -20,7 +20,7 @@ import {
 import { addSimulationOptions, collect, isoOptions } from "./options.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
-import { prepare, printWarnings, readRealNpy, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
+import { prepare, printWarnings, readRealNpy, sampledLimits, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { withOutputDir } from "../io/outpath.js";
 import { defaultWorkers } from "./memory.js";
@@ -87,17 +87,19 @@ function halfExtent(ph: Phantom, fallback: number): number {
 function sampledMargin(ph: Phantom, protocol: Protocol, array: CoilArray): number {
   const ax = logicalAxes(protocol);
   const b = phantomBounds(ph);
-  const clip = 1.5 * Math.max(protocol.fov.read * protocol.oversampling.read, protocol.fov.phase * (1 + protocol.oversampling.phase));
-  const proj = (d: number[]) => {
+  // the same limits the isochromat sampler uses (pipeline sampledLimits)
+  const lim = sampledLimits(protocol);
+  const proj = (d: number[], clipAt: number, unbounded: number) => {
     let lo = 0, hi = 0;
     for (let k = 0; k < 3; k++) {
       if (d[k] === 0) continue;
       lo += Math.min(b.min[k]! * d[k]!, b.max[k]! * d[k]!);
       hi += Math.max(b.min[k]! * d[k]!, b.max[k]! * d[k]!);
     }
+    const clip = Number.isFinite(lo) && Number.isFinite(hi) ? clipAt : Math.min(clipAt, unbounded);
     return [Math.max(lo, -clip), Math.min(hi, clip)] as const;
   };
-  const [u0, u1] = proj(ax.read), [v0, v1] = proj(ax.phase);
+  const [u0, u1] = proj(ax.read, lim.clipRead, lim.unboundedRead), [v0, v1] = proj(ax.phase, lim.clipPhase, lim.unboundedPhase);
   const xs: number[] = [], ys: number[] = [];
   const n = 128, w = protocol.slice.position;
   for (let i = 0; i <= n; i++) {

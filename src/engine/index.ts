@@ -214,3 +214,4 @@ function directReason(plan: EnginePlan, opts: SimulateOptions, r: ReadoutReport)
       : fastPrecheck(plan) ?? "direct operator";
   return { ...r, requested: "fast", fallback };
 }
+export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";
