@@ -12,7 +12,7 @@ import { parseProtocol, logicalAxes, slicePositions, type Protocol, type Protoco
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, type Sequence } from "./sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
-import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Executor, type KSpace } from "./engine/index.js";
+import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
@@ -89,6 +89,10 @@ export interface SimulateInput {
   chunkIsochromats?: number;
   /** WebAssembly SIMD kernels where available (default true). */
   wasm?: boolean;
+  /** Readout operator: "fast" (default, exact to `tolerance`, falls back to "direct" saying why) or "direct" (the oracle). */
+  readout?: ReadoutChoice;
+  /** Relative L2 error of k-space allowed to the fast readout operator (default 1e-6). */
+  tolerance?: number;
   /** Aborting stops the engine; simulate then rejects with AbortedError. */
   signal?: AbortSignal;
   onProgress?: (p: SimulateProgress) => void;
@@ -249,6 +253,8 @@ export interface EngineSummary {
   workers: number;
   shards?: number;
   runs?: number;
+  /** What the readout operator did (one report per engine run when there are several). */
+  readout?: ReadoutReport | ReadoutReport[];
 }
 
 export function spreadSummary(iso: IsochromatSet): IsochromatSummary["spreads"] {
@@ -262,6 +268,7 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
   let plan: EnginePlan | null = null;
   let count = 0;
   let coils: AssembleContext["coils"];
+  const readouts: ReadoutReport[] = [];
   for (let k = 0; k < prep.slices.length; k++) {
     const sl = prep.slices[k]!;
     const n = sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read;
@@ -270,18 +277,20 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
       continue;
     }
     const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, sl.seq.pulses.length);
-    let res: { kspace: KSpace; plan: EnginePlan };
+    let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport };
     if (input.runEngine) {
       const r = await input.runEngine({ seq: sl.seq, iso: sl.iso, protocol: prep.protocol });
       coils = { files: r.files ?? new Map(), report: r.report ?? {} };
       res = r;
     } else res = await simulateWith(executor, sl.seq, sl.iso, {
       receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: input.chunkIsochromats, wasm: input.wasm, signal: input.signal,
+      readout: input.readout, tolerance: input.tolerance,
       onProgress: input.onProgress
         ? (done, total) => input.onProgress!({ slice: k, slices: prep.slices.length, done, total, isochromatTRs: (sl.iso.count * trs * done) / total })
         : undefined,
     });
     plan = res.plan;
+    if (res.readout) readouts.push(res.readout);
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }
@@ -291,7 +300,10 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
       count, columns: prep.first.iso.columns, warnings: prep.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(prep.first.iso),
       sampling: prep.sampling, extent: prep.first.iso.extent, notes: [...new Set(prep.slices.flatMap((s) => s.iso.notes))],
     },
-    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: input.workers ?? 1, runs: prep.slices.length },
+    engine: {
+      chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: input.workers ?? 1, runs: prep.slices.length,
+      readout: readouts.length === 0 ? undefined : readouts.length === 1 ? readouts[0]! : readouts,
+    },
     ...(coils ? { coils } : {}),
   };
 }

@@ -11,7 +11,7 @@ import type { Protocol } from "../protocol/index.js";
 import type { Phantom } from "../phantom/index.js";
 import type { Sequence } from "../sequence/index.js";
 import { defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
+import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
 import {
   assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
@@ -72,6 +72,9 @@ export interface RunOptions {
   maxMemory?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;
+  /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
+  readout?: "fast" | "direct";
+  tolerance?: number;
   /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
   coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
@@ -104,6 +107,7 @@ function libraryInput(o: RunOptions): SimulateInput {
   return {
     parsedProtocol: protocol, parsedPhantom: phantom, sets: o.sets, protocolName: o.protocol, phantomName: o.phantom,
     phantomTransform: o.phantomTransform, iso: o.iso, seed: o.seed, workers, convergenceCheck: o.convergenceCheck,
+    readout: o.readout, tolerance: o.tolerance,
     ...(o.coilRun ? { runEngine: o.coilRun } : {}),
     chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
     beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers), o.maxMemory ?? defaultMemoryLimit(), e.iso),
@@ -145,7 +149,7 @@ async function simulateStage(
     blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void;
     label?: string;
   },
-): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
   const progress = new Progress(label, "iso-TR", o.quiet);
   const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
@@ -155,6 +159,7 @@ async function simulateStage(
       receiverFilter: p.protocol.receiverFilter,
       workers: o.workers ?? defaultWorkers(),
       chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
+      readout: o.readout, tolerance: o.tolerance,
       signal,
       blocks: extra.blocks,
       onBlock: extra.onBlock,
@@ -223,7 +228,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   const blocks = shardBlocks(total, i, n);
   const nb = blocks[1] - blocks[0];
   let bre = new Float64Array(0), bim = new Float64Array(0);
-  const { kspace, plan } = await simulateStage(p, o, {
+  const { kspace, plan, readout } = await simulateStage(p, o, {
     blocks,
     onPlan: (plan) => {
       const size = plan.coils * plan.rows * plan.read;
@@ -243,7 +248,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso), sampling: p.sampling, extent: p.iso.extent, notes: p.iso.notes },
-    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
   printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };

@@ -7,7 +7,8 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
-import { chunkRange, type KSpace } from "./executor.js";
+import { chunkRange, tryFast, type KSpace } from "./executor.js";
+import type { ReadoutChoice, ReadoutReport } from "./fast.js";
 import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BlockSummer } from "./sum.js";
 
@@ -18,6 +19,7 @@ export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
 export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
+export { fastReadout, pivotedBasis, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface SimulateOptions {
   receiverFilter: boolean;
@@ -36,14 +38,31 @@ export interface SimulateOptions {
   wasm?: boolean;
   /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
+  /**
+   * Readout operator: "fast" (default; engine/fast.ts, exact to `tolerance`,
+   * falls back to "direct" where it does not apply, saying why) or "direct"
+   * (every isochromat through the readout recurrence; the oracle).
+   */
+  readout?: ReadoutChoice;
+  /** Relative L2 error of k-space allowed to the fast operator (default 1e-6). */
+  tolerance?: number;
+}
+
+/** Result of a simulation: k-space, the plan, and what the readout operator did. */
+export interface SimulateResult {
+  kspace: KSpace;
+  plan: EnginePlan;
+  readout: ReadoutReport;
 }
 
 /**
  * Single-threaded reference run: every chunk in order, partials added in the
  * fixed order of sum.ts (chunk order within blocks, then block order).
  */
-export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: SimulateOptions): { kspace: KSpace; plan: EnginePlan } {
+export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: SimulateOptions): SimulateResult {
   const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats, general: opts.general, wasm: opts.wasm });
+  const f = tryFast(seq, iso, plan, opts);
+  if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
   const size = plan.coils * plan.rows * plan.read;
   const re = new Float64Array(size), im = new Float64Array(size);
   const pr = new Float64Array(size), pi = new Float64Array(size);
@@ -60,6 +79,6 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
     summer.add(c, pr, pi);
     opts.onProgress?.(c - c0 + 1, c1 - c0);
   }
-  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan };
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan, readout: f.readout };
 }
 export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";

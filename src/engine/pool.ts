@@ -16,6 +16,7 @@ import { ENGINE_ARRAYS } from "../isochromats/fields.js";
 import type { Sequence } from "../sequence/types.js";
 import { AbortedError, simulateWith, type Executor, type ExecutorSession, type KSpace, type RunOptions } from "./executor.js";
 import type { EnginePlan } from "./plan.js";
+import type { ReadoutReport } from "./fast.js";
 import type { WorkerReply, WorkerRequest } from "./worker.js";
 
 export { AbortedError, PARALLEL_RF_CLASSES } from "./executor.js";
@@ -192,6 +193,6 @@ export interface ParallelOptions extends RunOptions {
  * filled in parallel, chunks are scheduled dynamically and their partials
  * summed in the fixed order on this thread.
  */
-export function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+export function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   return simulateWith(nodeExecutor(opts.workers), seq, iso, opts);
 }
