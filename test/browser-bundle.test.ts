@@ -36,9 +36,9 @@ describe("the library runs in a browser", () => {
     expect(inputs.some((f) => f.endsWith("src/api.ts"))).toBe(true);
     const code = r.outputFiles[0]!.text;
 
-    // a bare context: ECMAScript built-ins and WebAssembly only, and no SharedArrayBuffer
-    // (a page that is not cross-origin isolated): the arrays fall back to ordinary buffers
-    const sandbox: Record<string, unknown> = {};
+    // a bare context: ECMAScript built-ins, WebAssembly and a timer (as every page has), and no
+    // SharedArrayBuffer (a page that is not cross-origin isolated): the arrays fall back to ordinary buffers
+    const sandbox: Record<string, unknown> = { setTimeout };
     runInNewContext("delete globalThis.SharedArrayBuffer", sandbox);
     runInNewContext(`${code}\nglobalThis.isofold = isofold;`, sandbox);
     expect(runInNewContext("typeof process + typeof require + typeof Buffer + typeof SharedArrayBuffer + typeof WebAssembly", sandbox))

@@ -43,7 +43,8 @@ describe("simulate()", () => {
   });
 
   test("serial, 1 and 2 worker threads and simulateSerial give the same k-space bits; wasm off agrees to 1e-12", async () => {
-    const small = { ...INPUT, chunkIsochromats: 64 };
+    // the direct readout operator, so the chunks really run on the executors (the fast one runs on the calling thread)
+    const small = { ...INPUT, chunkIsochromats: 64, readout: "direct" as const };
     const serial = await simulate({ ...small, executor: serialExecutor() });
     for (const w of [1, 2]) {
       const par = await simulate({ ...small, executor: nodeExecutor(w) });
@@ -59,14 +60,17 @@ describe("simulate()", () => {
 
   test("progress reaches the total; an aborted signal rejects with AbortedError", async () => {
     let last = { done: 0, total: -1 };
-    await simulate({ ...INPUT, chunkIsochromats: 64, onProgress: (p) => { last = p; } });
+    const direct = { ...INPUT, readout: "direct" as const };
+    await simulate({ ...direct, chunkIsochromats: 64, onProgress: (p) => { last = p; } });
     expect(last.done).toBe(last.total);
     const ac = new AbortController();
-    const stop = simulate({ ...INPUT, chunkIsochromats: 64, signal: ac.signal, onProgress: (p) => { if (p.done === 2) ac.abort(); } });
+    const stop = simulate({ ...direct, chunkIsochromats: 64, signal: ac.signal, onProgress: (p) => { if (p.done === 2) ac.abort(); } });
     await expect(stop).rejects.toBeInstanceOf(AbortedError);
     const pre = new AbortController();
     pre.abort();
-    await expect(simulate({ ...INPUT, signal: pre.signal, executor: nodeExecutor(2) })).rejects.toBeInstanceOf(AbortedError);
+    await expect(simulate({ ...direct, signal: pre.signal, executor: nodeExecutor(2) })).rejects.toBeInstanceOf(AbortedError);
+    // the fast readout operator checks the signal too
+    await expect(simulate({ ...INPUT, signal: pre.signal })).rejects.toBeInstanceOf(AbortedError);
   });
 
   test("overrides apply and a bad one is a UserError naming the override", async () => {
@@ -86,6 +90,7 @@ describe("simulate()", () => {
     const r = await simulate(INPUT);
     const direct = simulateSerial(prep.first.seq, prep.first.iso, { receiverFilter: true });
     expect(Buffer.from(direct.kspace.re.buffer).equals(Buffer.from(r.runs[0]!.re.buffer))).toBe(true);
+    expect((r.report.engine as { readout: { operator: string } }).readout.operator).toBe(direct.readout.operator);
   });
 });
 
