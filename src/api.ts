@@ -20,6 +20,7 @@ import { isoOptionsFor, sampledLimits, slabCoverage, type IsoSampling } from "./
 import { checkSliceConvergence } from "./engine/index.js";
 import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
+import type { Volume } from "./io/run-folder.js";
 
 export const SAFETY_NOTE =
   "isofold is not a medical device. It does not model RF heating (SAR), peripheral nerve stimulation or acoustic noise; " +
@@ -37,15 +38,8 @@ export function tissueReport(phantom: Phantom): Record<string, unknown>[] {
   }));
 }
 
-/** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
-export interface Volume {
-  coils: number;
-  slice: number;
-  phase: number;
-  read: number;
-  re: Float64Array;
-  im: Float64Array;
-}
+/** A complex volume [coil][slice][phase][read]: the one definition is the run folder's. */
+export type { Volume };
 
 /** Axis names of the k-space and image volumes, outermost first. */
 export const VOLUME_AXES = ["coil", "slice", "phase", "read"] as const;

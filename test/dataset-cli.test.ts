@@ -11,6 +11,7 @@ import npyjs from "npyjs";
 import { Command } from "commander";
 import { registerDataset } from "../src/cli/dataset.js";
 import * as nifti from "nifti-reader-js";
+import { datasetInProcess } from "./helpers.js";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -29,17 +30,7 @@ function run(args: string[]): { status: number | null; stdout: string; stderr: s
 }
 
 /** The same command in this process (no start-up cost); throws what the command throws. */
-async function runHere(args: string[]): Promise<void> {
-  const program = new Command();
-  registerDataset(program);
-  const log = console.log;
-  console.log = () => {};
-  try {
-    await program.parseAsync(["dataset", ...BASE, ...args], { from: "user" });
-  } finally {
-    console.log = log;
-  }
-}
+const runHere = (args: string[]): Promise<void> => datasetInProcess([...BASE, ...args]);
 
 function npy(file: string): { dtype: string; shape: number[]; data: ArrayLike<number> } {
   const b = readFileSync(file);

@@ -10,8 +10,7 @@ import { cpSync, existsSync, mkdtempSync, readdirSync, readFileSync, rmSync, wri
 import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import { Command } from "commander";
-import { registerDataset } from "../src/cli/dataset.js";
+import { datasetInProcess } from "./helpers.js";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -24,17 +23,7 @@ const BASE = [
   "--slice-isochromats", "2", "-q", "--snr", "20", "--count", "3", "--vary", "position=2mm,t1=10%",
 ];
 
-async function here(args: string[]): Promise<void> {
-  const program = new Command();
-  registerDataset(program);
-  const log = console.log;
-  console.log = () => {};
-  try {
-    await program.parseAsync(["dataset", ...BASE, ...args], { from: "user" });
-  } finally {
-    console.log = log;
-  }
-}
+const here = (args: string[]): Promise<void> => datasetInProcess([...BASE, ...args]);
 
 function cli(args: string[]): { status: number | null; stderr: string; stdout: string } {
   const r = spawnSync(process.execPath, [CLI, ...args], { encoding: "utf8" });

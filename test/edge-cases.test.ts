@@ -9,12 +9,11 @@ import { existsSync, readFileSync, writeFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { UserError } from "../src/errors.js";
 import { checkJsonStructure, MAX_DEPTH, parseJsonStrict } from "../src/json.js";
 import { loadPhantom, loadProtocol } from "../src/cli/inputs.js";
 import { readRealNpy } from "../src/cli/pipeline.js";
 import { decodeNpy, encodeNpy } from "../src/io/npy.js";
-import { tempDir, writeJson } from "./helpers.js";
+import { tempDir, userErrorOf, writeJson } from "./helpers.js";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
@@ -29,16 +28,6 @@ const disc = (extra: Record<string, unknown> = {}, tissue: Record<string, unknow
   shapes: [{ shape: "ellipse", center: ["0 cm", "0 cm"], semiAxes: ["2 cm", "2 cm"], tissue: "gel" }], ...extra,
 });
 
-/** The thrown error of f, which must be a UserError. */
-function userErrorOf(f: () => unknown): UserError {
-  try {
-    f();
-  } catch (e) {
-    expect(e).toBeInstanceOf(UserError);
-    return e as UserError;
-  }
-  throw new Error("expected a UserError, nothing was thrown");
-}
 
 function cli(args: string[]) {
   const r = spawnSync(process.execPath, [CLI, ...args], { cwd: ROOT, encoding: "utf8", timeout: 30_000 });

@@ -11,6 +11,7 @@ import { buildSequence } from "../src/sequence/index.js";
 import { rfAffine } from "../src/engine/index.js";
 import { GAMMA } from "../src/constants.js";
 import { protocolObject, simulate } from "./effects-helpers.js";
+import { waterOilBars } from "../src/check/validate.js";
 
 describe("fat spectrum constants", () => {
   test("main methylene peak is −3.4 ppm from water and the largest six-peak amplitude", () => {
@@ -40,19 +41,9 @@ describe("fat spectrum constants", () => {
   });
 });
 
-/** Water rectangle above (+y), oil rectangle below (−y), same x extent; 2D. */
+/** The water–oil bars of `isofold validate` (one definition, src/check/validate.ts), named for these tests. */
 function waterOilPhantom() {
-  return {
-    name: "water-oil-bars",
-    tissues: {
-      water: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "water" },
-      oil: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "fat", fatModel: "single" },
-    },
-    shapes: [
-      { shape: "rectangle", center: ["0.3 cm", "1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "water" },
-      { shape: "rectangle", center: ["0.3 cm", "-1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "oil" },
-    ],
-  };
+  return { name: "water-oil-bars", ...waterOilBars() };
 }
 
 describe("readout displacement of fat on simulated images", () => {

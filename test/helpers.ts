@@ -16,6 +16,37 @@ import { magnitude } from "../src/recon/reconstruct.js";
 import type { Protocol } from "../src/protocol/index.js";
 import type { Phantom } from "../src/phantom/index.js";
 import type { Sequence } from "../src/sequence/index.js";
+import { expect } from "vitest";
+import { UserError } from "../src/errors.js";
+
+/** The thrown error of f, which must be a UserError. */
+export function userErrorOf(f: () => unknown): UserError {
+  try {
+    f();
+  } catch (e) {
+    expect(e).toBeInstanceOf(UserError);
+    return e as UserError;
+  }
+  throw new Error("expected a UserError, nothing was thrown");
+}
+
+/**
+ * `isofold dataset <args>` in this process (no start-up cost), its stdout
+ * silenced; throws what the command throws. Loaded on first use, so tests
+ * that never call it do not load the command line.
+ */
+export async function datasetInProcess(args: string[]): Promise<void> {
+  const [{ Command }, { registerDataset }] = await Promise.all([import("commander"), import("../src/cli/dataset.js")]);
+  const program = new Command();
+  registerDataset(program);
+  const log = console.log;
+  console.log = () => {};
+  try {
+    await program.parseAsync(["dataset", ...args], { from: "user" });
+  } finally {
+    console.log = log;
+  }
+}
 
 export function tempDir(prefix = "isofold-test-"): string {
   return mkdtempSync(join(tmpdir(), prefix));

@@ -10,11 +10,10 @@ import { spawn, spawnSync } from "node:child_process";
 import { existsSync, mkdirSync, readdirSync, readFileSync, statSync, writeFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { describe, expect, it } from "vitest";
-import { UserError } from "../src/errors.js";
 import { checkOutputDir, lockOutputDir } from "../src/io/outpath.js";
 import { decodeNpy } from "../src/io/npy.js";
 import { Rng } from "../src/dataset/prng.js";
-import { tempDir, writeJson } from "./helpers.js";
+import { tempDir, userErrorOf, writeJson } from "./helpers.js";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
@@ -29,15 +28,6 @@ function oneLine(stderr: string): string {
   const lines = stderr.split("\n").filter((l) => l !== "");
   expect(lines, stderr).toHaveLength(1);
   return lines[0]!;
-}
-function userErrorOf(f: () => unknown): UserError {
-  try {
-    f();
-  } catch (e) {
-    expect(e).toBeInstanceOf(UserError);
-    return e as UserError;
-  }
-  throw new Error("expected a UserError");
 }
 /** PID of a process that has ended. */
 function deadPid(): number {

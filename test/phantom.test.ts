@@ -2,7 +2,7 @@ import { mkdtempSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { describe, expect, test } from "vitest";
-import { UserError } from "../src/errors.js";
+import { userErrorOf } from "./helpers.js";
 import {
   cellContents,
   compileB0Expression,
@@ -29,16 +29,6 @@ function base(): Record<string, any> {
   };
 }
 
-/** Runs fn, expects a UserError, returns it. */
-function userErrorOf(fn: () => unknown): UserError {
-  try {
-    fn();
-  } catch (e) {
-    expect(e).toBeInstanceOf(UserError);
-    return e as UserError;
-  }
-  throw new Error("expected a UserError, nothing was thrown");
-}
 
 function out(n = 8) {
   return { tissue: new Int32Array(n), fraction: new Float64Array(n) };

@@ -97,32 +97,5 @@ export function halfMaxWidth(profile: ArrayLike<number>, level: number): number 
   return right - left;
 }
 
-/**
- * Sub-pixel shift of image b relative to image a along phase, by phase correlation (Kuglin & Hines 1975):
- * the cross-power spectrum along phase, C(m) = Σ_read FFT_y(b)·conj(FFT_y(a)), turns by −2π·Δ/N per
- * frequency step; Δ comes from the mean step arg Σ_m C(m+1)·conj(C(m)) over |m| ≤ N/4, which needs no
- * phase unwrapping (direct DFT, no library).
- */
-export function phaseShift(a: { re: Float64Array; im: Float64Array }, b: { re: Float64Array; im: Float64Array }, nPhase: number, nRead: number): number {
-  const M = Math.floor(nPhase / 4);
-  const cr = new Float64Array(2 * M + 1), ci = new Float64Array(2 * M + 1);
-  for (let m = -M; m <= M; m++) {
-    for (let x = 0; x < nRead; x++) {
-      let ar = 0, ai = 0, br = 0, bi = 0;
-      for (let y = 0; y < nPhase; y++) {
-        const th = (-2 * Math.PI * m * y) / nPhase, c = Math.cos(th), s = Math.sin(th);
-        const i = y * nRead + x;
-        ar += a.re[i]! * c - a.im[i]! * s; ai += a.re[i]! * s + a.im[i]! * c;
-        br += b.re[i]! * c - b.im[i]! * s; bi += b.re[i]! * s + b.im[i]! * c;
-      }
-      cr[m + M] += br * ar + bi * ai;
-      ci[m + M] += bi * ar - br * ai;
-    }
-  }
-  let sr = 0, si = 0;
-  for (let k = 0; k < 2 * M; k++) {
-    sr += cr[k + 1]! * cr[k]! + ci[k + 1]! * ci[k]!;
-    si += ci[k + 1]! * cr[k]! - cr[k + 1]! * ci[k]!;
-  }
-  return (-Math.atan2(si, sr) * nPhase) / (2 * Math.PI);
-}
+/** Phase-correlation shift along phase (Kuglin & Hines 1975): the one in src/check/measure.ts, which `isofold validate` uses. */
+export { phaseShiftPx as phaseShift } from "../src/check/measure.js";

@@ -1,8 +1,9 @@
 /**
  * Measurements on simulated images for `isofold check --verify` and the
  * check's tests: folded signal (where the phantom has none), edge-spread
- * width along read, mean displacement along read; and the edge-spread width
- * the check's sampling-window model predicts.
+ * width along read, mean displacement along read; the edge-spread width
+ * the check's sampling-window model predicts; and, for `isofold validate` and
+ * the tests alike, Bessel J1 and the phase-correlation shift along phase.
  */
 import type { Tissue } from "../phantom/index.js";
 import type { Protocol } from "../protocol/index.js";
@@ -217,4 +218,45 @@ export function meanReadShift(
     if (grown && !(pd[i]! > 0 && fatFraction[i]! >= 0.5)) { iw += mag[i]!; ix += mag[i]! * c; }
   }
   return tw > 0 && iw > 0 ? ix / iw - tx / tw : null;
+}
+
+/** Bessel J1 from Bessel's integral J1(x) = (1/π)∫₀^π cos(τ − x·sinτ) dτ (Watson 1944, §2.2), Simpson rule over n (even) intervals. */
+export function besselJ1(x: number, n = 200): number {
+  const h = Math.PI / n;
+  let s = 0;
+  for (let i = 0; i <= n; i++) {
+    const t = i * h, f = Math.cos(t - x * Math.sin(t));
+    s += (i === 0 || i === n ? 1 : i % 2 ? 4 : 2) * f;
+  }
+  return (s * h) / 3 / Math.PI;
+}
+
+/**
+ * Sub-pixel shift of image b relative to image a along phase, by phase correlation (Kuglin & Hines 1975):
+ * the cross-power spectrum along phase, C(m) = Σ_read FFT_y(b)·conj(FFT_y(a)), turns by −2π·Δ/N per
+ * frequency step; Δ comes from the mean step arg Σ_m C(m+1)·conj(C(m)) over |m| ≤ N/4, which needs no
+ * phase unwrapping (direct DFT, no library). Images are [phase][read], read fastest.
+ */
+export function phaseShiftPx(a: { re: ArrayLike<number>; im: ArrayLike<number> }, b: { re: ArrayLike<number>; im: ArrayLike<number> }, nPhase: number, nRead: number): number {
+  const M = Math.floor(nPhase / 4);
+  const cr = new Float64Array(2 * M + 1), ci = new Float64Array(2 * M + 1);
+  for (let m = -M; m <= M; m++) {
+    for (let x = 0; x < nRead; x++) {
+      let ar = 0, ai = 0, br = 0, bi = 0;
+      for (let y = 0; y < nPhase; y++) {
+        const th = (-2 * Math.PI * m * y) / nPhase, c = Math.cos(th), s = Math.sin(th);
+        const i = y * nRead + x;
+        ar += a.re[i]! * c - a.im[i]! * s; ai += a.re[i]! * s + a.im[i]! * c;
+        br += b.re[i]! * c - b.im[i]! * s; bi += b.re[i]! * s + b.im[i]! * c;
+      }
+      cr[m + M] += br * ar + bi * ai;
+      ci[m + M] += bi * ar - br * ai;
+    }
+  }
+  let sr = 0, si = 0;
+  for (let k = 0; k < 2 * M; k++) {
+    sr += cr[k + 1]! * cr[k]! + ci[k + 1]! * ci[k]!;
+    si += ci[k + 1]! * cr[k]! - cr[k + 1]! * ci[k]!;
+  }
+  return (-Math.atan2(si, sr) * nPhase) / (2 * Math.PI);
 }

@@ -15,7 +15,7 @@ import type { ComplexVolume } from "../recon/reconstruct.js";
 import { buildSequence, makePulse, type Sequence } from "../sequence/index.js";
 import { checkProtocol } from "./index.js";
 import { fwhm, fwhmGradientEcho } from "./psf.js";
-import { foldedSignal } from "./measure.js";
+import { besselJ1, foldedSignal, phaseShiftPx } from "./measure.js";
 
 /** What a case needs from a simulation of a protocol on a phantom. */
 export interface SimOutput {
@@ -69,6 +69,20 @@ const disc = (r: string, t: Obj, center: [string, string] = ["0 cm", "0 cm"], b0
   tissues: { t }, shapes: [{ shape: "ellipse", center, semiAxes: [r, r], tissue: "t" }], ...(b0 !== undefined ? { b0: { expression: b0 } } : {}),
 });
 
+/** Water rectangle above (+y), oil rectangle below (−y), same x extent (2D phantom tissues and shapes; no name). */
+export function waterOilBars(): Obj {
+  return {
+    tissues: {
+      water: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "water" },
+      oil: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "fat", fatModel: "single" },
+    },
+    shapes: [
+      { shape: "rectangle", center: ["0.3 cm", "1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "water" },
+      { shape: "rectangle", center: ["0.3 cm", "-1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "oil" },
+    ],
+  };
+}
+
 function centre(s: SimOutput): number {
   const i = s.seq.centre.phase * s.kacq.read + s.seq.centre.read;
   return Math.hypot(s.kacq.re[i]!, s.kacq.im[i]!);
@@ -77,42 +91,6 @@ function m0(s: SimOutput): number {
   let t = 0;
   for (let i = 0; i < s.iso.count; i++) t += s.iso.m0[i]!;
   return t;
-}
-
-/** Bessel J1 from Bessel's integral J1(x) = (1/π)∫₀^π cos(τ − x·sinτ) dτ (Watson 1944, §2.2), Simpson rule. */
-function besselJ1(x: number): number {
-  const n = 200, h = Math.PI / n;
-  let s = 0;
-  for (let i = 0; i <= n; i++) {
-    const t = i * h, f = Math.cos(t - x * Math.sin(t));
-    s += (i === 0 || i === n ? 1 : i % 2 ? 4 : 2) * f;
-  }
-  return (s * h) / 3 / Math.PI;
-}
-
-/** Sub-pixel shift of b relative to a along phase by phase correlation (Kuglin & Hines 1975), direct DFT over |m| ≤ N/4. */
-export function phaseShiftPx(a: { re: ArrayLike<number>; im: ArrayLike<number> }, b: { re: ArrayLike<number>; im: ArrayLike<number> }, nPhase: number, nRead: number): number {
-  const M = Math.floor(nPhase / 4);
-  const cr = new Float64Array(2 * M + 1), ci = new Float64Array(2 * M + 1);
-  for (let m = -M; m <= M; m++) {
-    for (let x = 0; x < nRead; x++) {
-      let ar = 0, ai = 0, br = 0, bi = 0;
-      for (let y = 0; y < nPhase; y++) {
-        const th = (-2 * Math.PI * m * y) / nPhase, c = Math.cos(th), s = Math.sin(th);
-        const i = y * nRead + x;
-        ar += a.re[i]! * c - a.im[i]! * s; ai += a.re[i]! * s + a.im[i]! * c;
-        br += b.re[i]! * c - b.im[i]! * s; bi += b.re[i]! * s + b.im[i]! * c;
-      }
-      cr[m + M] += br * ar + bi * ai;
-      ci[m + M] += bi * ar - br * ai;
-    }
-  }
-  let sr = 0, si = 0;
-  for (let k = 0; k < 2 * M; k++) {
-    sr += cr[k + 1]! * cr[k]! + ci[k + 1]! * ci[k]!;
-    si += ci[k + 1]! * cr[k]! - cr[k + 1]! * ci[k]!;
-  }
-  return (-Math.atan2(si, sr) * nPhase) / (2 * Math.PI);
 }
 
 /** bSSFP image value at Δf (% of the on-resonance closed form) against Freeman–Hill in the elliptical form (Xiang & Hoff 2014). */
@@ -156,52 +134,42 @@ interface Case {
   run: (sim: Simulator) => { expected: number; measured: number };
 }
 
+/** Spoiled gradient echo at flip `deg` (TR 20 ms, TE 3 ms) against the Ernst equation times e^(−TE/T2). */
+function ernstCase(deg: number): Case {
+  return {
+    check: `spoiled gradient echo vs Ernst equation (α = ${deg}°)`,
+    source: "Ernst & Anderson 1966, Rev Sci Instrum 37:93",
+    unit: "% of expected", tolerance: 0.2,
+    run: (sim) => {
+      const T1 = 0.8, T2 = 0.09, TR = 0.02, TE = 0.003, a = (deg * Math.PI) / 180, E1 = Math.exp(-TR / T1);
+      const s = sim(proto({ dummyScans: 300, flip: `${deg} deg` }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
+      const ernst = ((Math.sin(a) * (1 - E1)) / (1 - E1 * Math.cos(a))) * Math.exp(-TE / T2);
+      return { expected: 100, measured: (100 * centre(s)) / m0(s) / ernst };
+    },
+  };
+}
+
+/** Spin echo (90°, TE and TR in ms) against 1 − 2e^(−(TR−TE/2)/T1) + e^(−TR/T1), times e^(−TE/T2). */
+function spinEchoCase(teMs: number, trMs: number): Case {
+  return {
+    check: `spin echo amplitude (TE ${teMs} ms, TR ${trMs} ms)`,
+    source: "Hahn 1950, Phys Rev 80:580; Haacke et al. 1999, ch. 8",
+    unit: "% of expected", tolerance: 0.5,
+    run: (sim) => {
+      const s = sim(proto({ sequence: "se", te: `${teMs} ms`, tr: `${trMs} ms`, flip: "90 deg", dummyScans: 4 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
+      const TE = teMs / 1000, TR = trMs / 1000;
+      const want = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
+      return { expected: 100, measured: (100 * centre(s)) / m0(s) / want };
+    },
+  };
+}
+
 /** The cases, in the order the table lists them. Tolerances are those of the test suite. */
 export const CASES: Case[] = [
-  {
-    check: "spoiled gradient echo vs Ernst equation (α = 30°)",
-    source: "Ernst & Anderson 1966, Rev Sci Instrum 37:93",
-    unit: "% of expected", tolerance: 0.2,
-    run: (sim) => {
-      const T1 = 0.8, T2 = 0.09, TR = 0.02, TE = 0.003, a = Math.PI / 6, E1 = Math.exp(-TR / T1);
-      const s = sim(proto({ dummyScans: 300 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
-      const ernst = ((Math.sin(a) * (1 - E1)) / (1 - E1 * Math.cos(a))) * Math.exp(-TE / T2);
-      return { expected: 100, measured: (100 * centre(s)) / m0(s) / ernst };
-    },
-  },
-  {
-    check: "spin echo amplitude (TE 20 ms, TR 500 ms)",
-    source: "Hahn 1950, Phys Rev 80:580; Haacke et al. 1999, ch. 8",
-    unit: "% of expected", tolerance: 0.5,
-    run: (sim) => {
-      const s = sim(proto({ sequence: "se", te: "20 ms", tr: "500 ms", flip: "90 deg", dummyScans: 4 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
-      const TE = 0.02, TR = 0.5;
-      const want = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
-      return { expected: 100, measured: (100 * centre(s)) / m0(s) / want };
-    },
-  },
-  {
-    check: "spoiled gradient echo vs Ernst equation (α = 70°)",
-    source: "Ernst & Anderson 1966, Rev Sci Instrum 37:93",
-    unit: "% of expected", tolerance: 0.2,
-    run: (sim) => {
-      const T1 = 0.8, T2 = 0.09, TR = 0.02, TE = 0.003, a = (70 * Math.PI) / 180, E1 = Math.exp(-TR / T1);
-      const s = sim(proto({ dummyScans: 300, flip: "70 deg" }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
-      const ernst = ((Math.sin(a) * (1 - E1)) / (1 - E1 * Math.cos(a))) * Math.exp(-TE / T2);
-      return { expected: 100, measured: (100 * centre(s)) / m0(s) / ernst };
-    },
-  },
-  {
-    check: "spin echo amplitude (TE 100 ms, TR 300 ms)",
-    source: "Hahn 1950, Phys Rev 80:580; Haacke et al. 1999, ch. 8",
-    unit: "% of expected", tolerance: 0.5,
-    run: (sim) => {
-      const s = sim(proto({ sequence: "se", te: "100 ms", tr: "300 ms", flip: "90 deg", dummyScans: 4 }), phantom(disc("4 cm", gel("800 ms", "90 ms")), 1.5), { density: 1, sliceCount: 1 });
-      const TE = 0.1, TR = 0.3;
-      const want = (1 - 2 * Math.exp(-(TR - TE / 2) / 0.8) + Math.exp(-TR / 0.8)) * Math.exp(-TE / 0.09);
-      return { expected: 100, measured: (100 * centre(s)) / m0(s) / want };
-    },
-  },
+  ernstCase(30),
+  spinEchoCase(20, 500),
+  ernstCase(70),
+  spinEchoCase(100, 300),
   {
     check: "k-space of a uniform disc vs its jinc (relative L2, inner half)",
     source: "Bracewell, The Fourier Transform and Its Applications (disc transform a·J1(2πak)/k)",
@@ -238,16 +206,7 @@ export const CASES: Case[] = [
     source: "Bernstein, King & Zhou 2004, ch. 11; Hamilton et al. 2011 (−3.4 ppm)",
     unit: "px", tolerance: 0.1,
     run: (sim) => {
-      const ph = phantom({
-        tissues: {
-          water: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "water" },
-          oil: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "fat", fatModel: "single" },
-        },
-        shapes: [
-          { shape: "rectangle", center: ["0.3 cm", "1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "water" },
-          { shape: "rectangle", center: ["0.3 cm", "-1.5 cm"], size: ["3.1 cm", "1.6 cm"], tissue: "oil" },
-        ],
-      }, 3);
+      const ph = phantom(waterOilBars(), 3);
       const p = proto({ field: "3 T", fov: { read: "8 cm", phase: "8 cm" }, matrix: { read: 32, phase: 32 }, bandwidth: "130 Hz/px", te: "6 ms", tr: "30 ms", excitation: { shape: "hard", duration: "0.1 ms", steps: 4 } });
       const s = sim(p, ph, { density: 2, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: 8 });
       const axes = logicalAxes(p), dx = 0.08 / 32;

@@ -21,11 +21,13 @@ const u64: H5Type = { kind: "int", size: 8, signed: false };
 const i32: H5Type = { kind: "int", size: 4, signed: true };
 const f32: H5Type = { kind: "float", size: 4 };
 const arr = (base: H5Type, n: number): H5Type => ({ kind: "array", base, dims: [n] });
+/** Consecutive members of one type, in the order given. */
+const same = (type: H5Type, ...names: string[]) => names.map((name) => ({ name, type }));
 
 export const ENCODING_COUNTERS: H5Type = {
   kind: "compound",
   members: [
-    ...["kspace_encode_step_1", "kspace_encode_step_2", "average", "slice", "contrast", "phase", "repetition", "set", "segment"].map((name) => ({ name, type: u16 })),
+    ...same(u16, "kspace_encode_step_1", "kspace_encode_step_2", "average", "slice", "contrast", "phase", "repetition", "set", "segment"),
     { name: "user", type: arr(u16, 8) },
   ],
 };
@@ -35,25 +37,13 @@ export const ACQUISITION_HEADER: H5Type & { kind: "compound" } = {
   members: [
     { name: "version", type: u16 },
     { name: "flags", type: u64 },
-    { name: "measurement_uid", type: u32 },
-    { name: "scan_counter", type: u32 },
-    { name: "acquisition_time_stamp", type: u32 },
+    ...same(u32, "measurement_uid", "scan_counter", "acquisition_time_stamp"),
     { name: "physiology_time_stamp", type: arr(u32, 3) },
-    { name: "number_of_samples", type: u16 },
-    { name: "available_channels", type: u16 },
-    { name: "active_channels", type: u16 },
+    ...same(u16, "number_of_samples", "available_channels", "active_channels"),
     { name: "channel_mask", type: arr(u64, 16) },
-    { name: "discard_pre", type: u16 },
-    { name: "discard_post", type: u16 },
-    { name: "center_sample", type: u16 },
-    { name: "encoding_space_ref", type: u16 },
-    { name: "trajectory_dimensions", type: u16 },
+    ...same(u16, "discard_pre", "discard_post", "center_sample", "encoding_space_ref", "trajectory_dimensions"),
     { name: "sample_time_us", type: f32 },
-    { name: "position", type: arr(f32, 3) },
-    { name: "read_dir", type: arr(f32, 3) },
-    { name: "phase_dir", type: arr(f32, 3) },
-    { name: "slice_dir", type: arr(f32, 3) },
-    { name: "patient_table_position", type: arr(f32, 3) },
+    ...same(arr(f32, 3), "position", "read_dir", "phase_dir", "slice_dir", "patient_table_position"),
     { name: "idx", type: ENCODING_COUNTERS },
     { name: "user_int", type: arr(i32, 8) },
     { name: "user_float", type: arr(f32, 8) },

@@ -12,6 +12,7 @@ import { encodeGrayPng, logMagnitude } from "./png.js";
 import { displayTransform, toDisplay, type DisplayTransform, type Vec3 } from "../report/display.js";
 import { runReportHtml, type CheckItem, type LogicalRect } from "../report/index.js";
 
+/** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
 export interface Volume {
   coils: number;
   slice: number;

@@ -27,49 +27,49 @@ export function buildGre(p: Protocol): Sequence {
   const ro = readoutPlan(p);
   demand.add(0, ro.gradient, ro.ramp);
   const pe = phasePlan(p);
-  const nPart = threeD ? p.matrix.slice : 1;
-  const slab = nPart * p.slice.thickness;
+  const nSlice = threeD ? p.matrix.slice : 1;
+  const slab = nSlice * p.slice.thickness;
   const exc = sliceSelect(p, 0, "excitation", p.excitation, p.flip, slab, p.slice.position, demand);
-  const partStep = threeD ? 1 / (GAMMA_BAR * slab) : 0;
-  const partCentre = Math.floor(nPart / 2);
-  const maxPart = Math.max(partCentre, nPart - 1 - partCentre) * partStep;
-  const wc = p.slice.position + (threeD && nPart % 2 === 0 ? p.slice.thickness / 2 : 0);
+  const sliceStep = threeD ? 1 / (GAMMA_BAR * slab) : 0;
+  const sliceCentre = Math.floor(nSlice / 2);
+  const maxSliceArea = Math.max(sliceCentre, nSlice - 1 - sliceCentre) * sliceStep;
+  const wc = p.slice.position + (threeD && nSlice % 2 === 0 ? p.slice.thickness / 2 : 0);
 
   const maxPe = maxPhaseArea(pe);
-  const prep = lobes([ro.prephaser, maxPe, Math.abs(exc.areaAfterCentre) + maxPart], p, demand);
+  const prep = lobes([ro.prephaser, maxPe, Math.abs(exc.areaAfterCentre) + maxSliceArea], p, demand);
   const teMin = exc.afterCentre + prep.duration + ro.toEcho;
   requireAtLeast("te", p.te, teMin);
   const teDelay = p.te - teMin;
 
   const spoilArea = p.spoiling === "none" ? 0 : p.spoilerCycles / (GAMMA_BAR * p.slice.thickness);
-  const post = lobes([0, maxPe, spoilArea + maxPart], p, demand);
+  const post = lobes([0, maxPe, spoilArea + maxSliceArea], p, demand);
   const active = exc.duration + teDelay + prep.duration + ro.duration + post.duration;
   const trMin = active;
   requireAtLeast("tr", p.tr, trMin, `at te ${(p.te * 1e3).toFixed(2)} ms`);
   const trDelay = p.tr - active;
 
   const blocks: Block[] = [];
-  const perPart = pe.acquired * p.averages;
-  const total = p.dummyScans + nPart * perPart;
-  const rows = nPart * pe.lines;
+  const perSlice = pe.acquired * p.averages;
+  const total = p.dummyScans + nSlice * perSlice;
+  const rows = nSlice * pe.lines;
   for (let n = 0; n < total; n++) {
     const acq = n - p.dummyScans;
-    const part = acq >= 0 ? Math.floor(acq / perPart) : partCentre;
-    const line = acq >= 0 ? pe.order[Math.floor((acq % perPart) / p.averages)]! : pe.centre;
+    const slice = acq >= 0 ? Math.floor(acq / perSlice) : sliceCentre;
+    const line = acq >= 0 ? pe.order[Math.floor((acq % perSlice) / p.averages)]! : pe.centre;
     const peArea = (line - pe.centre) * pe.step;
-    const kp = (part - partCentre) / slab; // slice-encoding k (1/m)
-    const partArea = (part - partCentre) * partStep;
+    const kp = (slice - sliceCentre) / slab; // slice-encoding k (1/m)
+    const sliceArea = (slice - sliceCentre) * sliceStep;
     const phase = p.spoiling === "rf" ? rfSpoilPhase(n, p.rfSpoilIncrement) : 0;
     pushPulse(blocks, exc, phase);
     if (teDelay > 0) blocks.push({ kind: "free", duration: teDelay, area: [0, 0, 0] });
-    blocks.push({ kind: "free", duration: prep.duration, area: [ro.prephaser, peArea, -exc.areaAfterCentre + partArea] });
-    if (acq >= 0) pushReadout(blocks, ro, part * pe.lines + line, phase - 2 * Math.PI * kp * wc * (threeD ? 1 : 0), 1 / p.averages);
+    blocks.push({ kind: "free", duration: prep.duration, area: [ro.prephaser, peArea, -exc.areaAfterCentre + sliceArea] });
+    if (acq >= 0) pushReadout(blocks, ro, slice * pe.lines + line, phase - 2 * Math.PI * kp * wc * (threeD ? 1 : 0), 1 / p.averages);
     else pushReadoutSilent(blocks, ro);
-    blocks.push({ kind: "free", duration: post.duration, area: [0, -peArea, spoilArea - partArea] });
+    blocks.push({ kind: "free", duration: post.duration, area: [0, -peArea, spoilArea - sliceArea] });
     if (trDelay > 0) blocks.push({ kind: "free", duration: trDelay, area: [0, 0, 0] });
     if (p.spoiling === "ideal") blocks.push({ kind: "spoil" });
   }
-  const derived = commonDerived(p, ro, pe, exc, demand, nPart);
+  const derived = commonDerived(p, ro, pe, exc, demand, nSlice);
   const scanTime = total * p.tr;
   derived["teMin"] = { value: teMin, unit: "s" };
   derived["trMin"] = { value: trMin, unit: "s", note: "at the TE chosen" };
@@ -79,16 +79,16 @@ export function buildGre(p: Protocol): Sequence {
   if (threeD) {
     derived["slabThickness"] = { value: slab, unit: "m", note: "slice-encoding steps × slice.thickness" };
     derived["deltaKSliceEncoding"] = { value: 1 / slab, unit: "1/m", note: "Δk = 1/slab" };
-    derived["kMaxSliceEncoding"] = { value: nPart / slab / 2, unit: "1/m" };
-    derived["sliceEncodingStepArea"] = { value: partStep, unit: "T·s/m", note: "ΔA = 1/(γ̄·slab)" };
+    derived["kMaxSliceEncoding"] = { value: nSlice / slab / 2, unit: "1/m" };
+    derived["sliceEncodingStepArea"] = { value: sliceStep, unit: "T·s/m", note: "ΔA = 1/(γ̄·slab)" };
   }
-  derived["scanTime"] = { value: scanTime, unit: "s", note: `(${p.dummyScans} dummy + ${nPart * perPart} acquired TRs) × TR` };
+  derived["scanTime"] = { value: scanTime, unit: "s", note: `(${p.dummyScans} dummy + ${nSlice * perSlice} acquired TRs) × TR` };
   return {
     name: threeD ? "3D spoiled gradient echo" : "2D spoiled gradient echo",
     pulses: [exc.pulse],
     blocks,
-    kspace: { slice: nPart, phase: pe.lines, read: ro.samples },
-    image: { slice: nPart, phase: p.matrix.phase, read: p.matrix.read },
+    kspace: { slice: nSlice, phase: pe.lines, read: ro.samples },
+    image: { slice: nSlice, phase: p.matrix.phase, read: p.matrix.read },
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin, te: p.te, tr: p.tr, scanTime },
     derived,
