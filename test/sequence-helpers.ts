@@ -8,18 +8,10 @@ import { parsePhantom, type Phantom } from "../src/phantom/index.js";
 import type { Sequence } from "../src/sequence/index.js";
 import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
 import type { ComplexVolume } from "../src/recon/reconstruct.js";
+import { merge } from "../src/check/validate.js";
 import { runPipeline } from "./helpers.js";
 
 type Obj = Record<string, unknown>;
-
-function merge(a: Obj, b: Obj): Obj {
-  const out: Obj = { ...a };
-  for (const [k, v] of Object.entries(b)) {
-    const x = out[k];
-    out[k] = x && v && typeof x === "object" && typeof v === "object" && !Array.isArray(v) ? merge(x as Obj, v as Obj) : v;
-  }
-  return out;
-}
 
 export const BASE: Obj = {
   sequence: "gre",
