@@ -80,8 +80,8 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
-  /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
-  readout?: "fast" | "direct";
+  /** Readout operator (default auto: the cheaper by predicted cost; fast falls back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
+  readout?: "auto" | "fast" | "direct";
   tolerance?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;

@@ -10,7 +10,7 @@ import { ChunkScratch, runChunk } from "./chunk.js";
 import { fillRfMaps, makePlan, planLayout, shareEngineArrays, type EnginePlan } from "./plan.js";
 import { AbortedError, EnginePool, PARALLEL_RF_CLASSES } from "./pool.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
-import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
+import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, resolveReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
 
 export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareIsochromats, shareEngineArrays, CHUNK_ISOCHROMATS, type EnginePlan } from "./plan.js";
 export { EnginePool, AbortedError, workerPath, PARALLEL_RF_CLASSES } from "./pool.js";
@@ -19,7 +19,7 @@ export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
 export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
-export { fastReadout, pivotedBasis, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutReport, type FastResult } from "./fast.js";
+export { fastReadout, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface KSpace {
   /** Layout [coil][row][read]; rows = slice-encoding steps × phase lines. */
@@ -46,9 +46,11 @@ export interface SimulateOptions {
   /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
   /**
-   * Readout operator: "fast" (default; engine/fast.ts, exact to `tolerance`,
-   * falls back to "direct" where it does not apply, saying why) or "direct"
-   * (every isochromat through the readout recurrence; the oracle).
+   * Readout operator: "auto" (default: the cheaper of the two by a cost
+   * predicted from the plan, engine/fast.ts predictReadoutCosts), "fast"
+   * (engine/fast.ts, exact to `tolerance`, falls back to "direct" where it
+   * does not apply, saying why) or "direct" (every isochromat through the
+   * readout recurrence; the oracle).
    */
   readout?: ReadoutChoice;
   /** Relative L2 error of k-space allowed to the fast operator (default 1e-6). */
@@ -70,10 +72,13 @@ export interface SimulateResult {
  */
 function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: SimulateOptions): { kspace: KSpace | null; readout: ReadoutReport } {
   const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
-  const requested = opts.readout ?? "fast";
-  const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}) } });
+  const requested = opts.readout ?? "auto";
+  const sel = opts.general ? { use: "direct" as const } : resolveReadout(seq, plan, iso, requested, tolerance);
+  const auto = sel.costs ? { choice: sel.use, predicted: sel.costs } : {};
+  const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}), ...auto } });
   if (requested === "direct") return direct();
   if (opts.general) return direct("the general path was forced (general: true)");
+  if (sel.use === "direct") return direct(sel.costs?.fastMs === null ? fastPrecheck(plan) ?? undefined : undefined);
   // the factors' truncation is set from norms weighted by magnetization; where the
   // signal cancels (e.g. T2′ dephasing) the k-space error is relatively larger:
   // the a-posteriori estimate decides, tightening the truncation twice before giving up
@@ -87,6 +92,7 @@ function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: Simu
   }
   if (typeof r === "string") return direct(r);
   if (!(est <= tolerance)) return direct(`the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`);
+  Object.assign(r.report, { requested }, auto);
   // no −0 (so adding the zero block sums of a sharded run keeps the bits)
   for (let k = 0; k < r.re.length; k++) {
     r.re[k] = r.re[k]! + 0;
@@ -110,8 +116,8 @@ function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: Simu
 }
 
 /** Whether a fast attempt is worth filling the RF maps for on this thread first. */
-function fastWanted(plan: EnginePlan, opts: SimulateOptions): boolean {
-  return (opts.readout ?? "fast") === "fast" && !opts.general && fastPrecheck(plan) === null;
+function fastWanted(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: SimulateOptions): boolean {
+  return !opts.general && fastPrecheck(plan) === null && resolveReadout(seq, plan, iso, opts.readout ?? "auto", opts.tolerance ?? DEFAULT_TOLERANCE).use === "fast";
 }
 
 export interface ParallelOptions extends SimulateOptions {
@@ -168,7 +174,7 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
   // the fast operator runs on this thread (no workers spawned)
   let readout: ReadoutReport;
   let filled = false;
-  if (fastWanted(plan, opts)) {
+  if (fastWanted(seq, shared, plan, opts)) {
     filled = true;
     fillRfMaps(plan, 0, plan.classes);
     if (opts.signal?.aborted) throw new AbortedError();
@@ -179,8 +185,8 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
     if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
     readout = f.readout;
   } else {
-    readout = tryFast(seq, shared, plan, { ...opts, readout: "direct" }).readout;
-    if ((opts.readout ?? "fast") === "fast") readout = directReason(plan, opts, readout);
+    readout = tryFast(seq, shared, plan, opts.readout === "fast" ? { ...opts, readout: "direct" } : opts).readout;
+    if (opts.readout === "fast") readout = directReason(plan, opts, readout);
   }
   const [c0, c1] = chunkRange(plan, opts.blocks);
   // no more workers than chunks (nor than RF class ranges when those are filled in parallel)
