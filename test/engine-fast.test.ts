@@ -207,6 +207,15 @@ describe("isofold simulate --readout / --tolerance", () => {
     const fa = new Float64Array(a.buffer.slice(a.byteOffset + off, a.byteOffset + a.length));
     const fb = new Float64Array(b.buffer.slice(b.byteOffset + off, b.byteOffset + b.length));
     expect(relL2(fa, new Float64Array(fa.length), fb, new Float64Array(fb.length))).toBeLessThan(1e-8);
+    // the default, auto: the choice and both predicted costs in report.json
+    const au = run(["-o", join(dir, "auto")]);
+    expect(au.status).toBe(0);
+    const ra = JSON.parse(readFileSync(join(dir, "auto", "report.json"), "utf8")) as { engine: { readout: { operator: string; requested: string; choice: string; predicted: { directMs: number; fastMs: number } } } };
+    expect(ra.engine.readout.requested).toBe("auto");
+    expect(ra.engine.readout.choice).toBe(ra.engine.readout.operator);
+    expect(ra.engine.readout.predicted.directMs).toBeGreaterThan(0);
+    expect(ra.engine.readout.predicted.fastMs).toBeGreaterThan(0);
+    expect(ra.engine.readout.operator).toBe(ra.engine.readout.predicted.fastMs < ra.engine.readout.predicted.directMs ? "fast" : "direct");
     const bad = run(["-o", join(dir, "bad"), "--tolerance", "2"]);
     expect(bad.status).toBe(2);
     expect(bad.stderr.split("\n")[0]).toMatch(/--tolerance must be a number from 1e-12 to 0\.1/);
