@@ -968,17 +968,23 @@ const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCos
  * cheaper one. What dominates each:
  *
  * - Direct (spoiled shortcut, chunk.ts runChunkSpoiled): per chunk and active
- *   readout, one recurrence of ns samples per readout group and coil (the
- *   group is the distinct (read index, Δf, R2) in the chunk), plus one term
- *   per slot (column × group) — or, with coil sensitivities, per isochromat
- *   and coil. directUnits = lines·Σ_chunks(groups·ns·coils + slots or count·coils).
- * - Fast: one pass over the isochromats per line rank (count·coils·R), the
- *   folds of each column's (Δf, R2) keys into the grids (slots·coils·R·L),
- *   the grids held (allocated and zeroed: min(R, per pass)·L·coils·Mu·Mv),
- *   the phase-axis FFTs (R·L·coils·used columns·Mv·log2 Mv), the read-axis
- *   FFTs and sums (2·coils·lines·L·(Mu·log2 Mu + ns)), the class playback
- *   and factor bases (classes·ops + lines·classes·R + ns·keys·L) and the
- *   a-posteriori estimate (count·coils·4 + slots·coils·16 + columns·16·4).
+ *   readout, one recurrence step per readout group, sample and coil (the
+ *   group is the distinct (read index, Δf, R2) in the chunk; counted on up
+ *   to COST_SAMPLE_CHUNKS evenly spaced chunks and scaled by isochromats);
+ *   plus, weighted W_DIRECT.perTerm, one term per slot (column × group) and
+ *   readout — per isochromat and coil with coil sensitivities —, the class
+ *   updates per op (chunk classes × ops) and the one-off grouping of each
+ *   isochromat (GROUPING_UNITS).
+ * - Fast (ns per unit W_FAST): the isochromat work — one pass per line rank
+ *   (count·coils·R), the folds of each column's (Δf, R2) keys into the grids
+ *   ((columns + slots)·coils·R·L) and the a-posteriori estimate —; the grid
+ *   work — grids held (allocated and first touched: min(R, per pass)·L·coils·
+ *   Mu·Mv) and the per-pair norms and strided accumulation of the phase-
+ *   transformed lines (R·L·coils·used columns·(Mv + lines)) —; the FFTs
+ *   (R·L·coils·used columns·DFT(Mv) + 2·coils·lines·L·(DFT(Mu) + ns), a
+ *   Bluestein length costing its three power-of-two transforms); and the
+ *   class work (class playback classes·ops, line factor 4·lines·classes·R,
+ *   time factor ns·keys·L).
  *   R and L are not known before the run; they are bounded:
  *   L ≤ ⌈2·T·span(Δf) + T·span(R2)⌉ + ⌈log10(split/tolerance)⌉ (time–bandwidth
  *   product of the decay curves over the readout duration T, plus a term per
@@ -986,7 +992,8 @@ const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCos
  *   on the count of significant prolate functions ≈ 2WT + O(log 1/ε)) and
  *   R ≤ 1 + ⌈log10(split/tolerance)⌉ (steady state plus the transient's
  *   decades). Both were at or above the measured R and L on the calibration
- *   cases (measured R 4–8, L 7–12 at tolerance 1e-6).
+ *   cases (measured R 3–8, L 7–13 at tolerance 1e-6); the a-posteriori
+ *   estimate's retries (split 80, 800) are not counted.
  * A bound that is too high only makes "auto" choose the direct operator (the
  * oracle) more often.
  */
@@ -1076,7 +1083,7 @@ export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: Isochr
     costs = {
       directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (fastUnits * FAST_NS_PER_UNIT) / 1e6, directUnits, fastUnits,
       lineRankBound: R, segmentsBound: L, groups, slots,
-      model: "direct: lines·(groups·samples·coils + slots); fast: R·L grid folds and FFTs with R, L bounded from the tolerance and the (Δf, R2) spread (engine/fast.ts predictReadoutCosts)",
+      model: "direct: lines × readout groups × samples × coils (+ slots, classes, grouping); fast: isochromat passes and folds × R·L, R·L grids and their FFTs, class playback; R, L bounded from the tolerance and the (Δf, R2) spread (engine/fast.ts predictReadoutCosts)",
     };
   }
   costCache.set(plan, { tolerance, costs });
