@@ -12,7 +12,8 @@
  */
 import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
-import { DEFAULT_TOLERANCE, makePlan, predictReadoutCosts, simulateParallel, simulateSerial, type SimulateResult } from "../src/engine/index.js";
+import { DEFAULT_TOLERANCE, makePlan, predictReadoutCosts, simulateSerial } from "../src/engine/index.js";
+import { simulateParallel } from "../src/engine/node.js";
 import type { IsochromatOptions } from "../src/isochromats/index.js";
 import { tempDir } from "./helpers.js";
 import { join } from "node:path";
@@ -24,7 +25,8 @@ function prep(phantom: string, protocol: string, sets: string[], iso: Partial<Is
   });
 }
 
-const same = (a: SimulateResult, b: SimulateResult) =>
+type Run = { kspace: { re: Float64Array; im: Float64Array } };
+const same = (a: Run, b: Run) =>
   Buffer.from(a.kspace.re.buffer).equals(Buffer.from(b.kspace.re.buffer)) && Buffer.from(a.kspace.im.buffer).equals(Buffer.from(b.kspace.im.buffer));
 
 describe("readout auto: the cheaper operator by predicted cost", () => {
