@@ -1,0 +1,158 @@
+/**
+ * The previewer's run of one protocol on one phantom, inside the page's Web
+ * Worker: the CLI's own readers and validators (through an in-memory file
+ * table), the same sequence, isochromats, engine kernels, summation order and
+ * reconstruction as `isofold simulate`, and the closed-form `check`. No file
+ * leaves the page. Only the middle slice of a multi-slice protocol is run.
+ */
+import { prepare, isoOptionsFor, defaultIsochromatOptions, SAFETY_NOTE } from "../cli/pipeline.js";
+import { UserError } from "../errors.js";
+import { makePlan, ChunkScratch, runChunk, BlockSummer, addInto } from "../engine/index.js";
+import { toGrid, reconstructGrid, magnitude } from "../recon/reconstruct.js";
+import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
+import { FAT_SINGLE_PPM } from "../constants.js";
+import { checkProtocol, type CheckResult } from "../check/index.js";
+import { logicalAxes, type Protocol } from "../protocol/index.js";
+import { displayTransform, type DisplayTransform } from "../report/display.js";
+import { encodeNpy } from "../io/npy.js";
+import type { IsochromatOptions } from "../isochromats/index.js";
+import { putFile } from "./shims/vfs.js";
+
+export type Quality = "preview" | "full";
+
+export interface RunRequest {
+  /** Preset name, or a path under /inputs/ put into the file table with putInput. */
+  protocol: string;
+  phantom: string;
+  sets: string[];
+  fatModel: "single" | "multi";
+  quality: Quality;
+}
+
+export interface RunOutput {
+  quality: Quality;
+  protocol: Protocol;
+  nRead: number;
+  nPhase: number;
+  /** Image plane [phase][read] magnitude (display turned in the page), k-space plane magnitude [phase][readAcquired]. */
+  image: Float64Array;
+  kmag: Float64Array;
+  kRead: number;
+  kPhase: number;
+  display: DisplayTransform;
+  fatShift: Record<string, unknown>;
+  check: CheckResult | null;
+  warnings: string[];
+  isochromats: number;
+  engineMs: number;
+  iso: IsochromatOptions;
+  /** Full volumes for export (complex64 .npy bytes). */
+  kspaceNpy: Uint8Array;
+  imageNpy: Uint8Array;
+  slicesRun: string;
+  derived: Record<string, unknown>;
+}
+
+export const PHANTOM_DIR = "/phantoms";
+export const INPUT_DIR = "/inputs";
+/** Where the core looks for presets under the bundle's import.meta.url (see build-preview.ts). */
+export const PRESET_DIR = "/src/protocol/presets";
+
+export function putPreset(name: string, text: string): void {
+  putFile(`${PRESET_DIR}/${name}.json`, text);
+}
+export function putPhantom(name: string, text: string): string {
+  const p = `${PHANTOM_DIR}/${name}.json`;
+  putFile(p, text);
+  return p;
+}
+export function putInput(name: string, text: string): string {
+  const p = `${INPUT_DIR}/${name.replace(/[^A-Za-z0-9._-]/g, "_")}`;
+  putFile(p, text);
+  return p;
+}
+
+/** Isochromat options of each quality: preview is density 1, few through-slice isochromats and no T2′ spread. */
+export function qualityOptions(q: Quality, fatModel: "single" | "multi"): IsochromatOptions {
+  const d = defaultIsochromatOptions();
+  if (q === "full") return { ...d, fatModel };
+  return { ...d, density: 1, sliceCount: 3, sliceExtent: 3, t2primeIsochromats: 1, fatModel };
+}
+
+export class Cancelled extends Error {}
+
+/** Runs one request; `stop()` is asked between engine chunks and a true answer throws Cancelled. */
+export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): RunOutput {
+  const iso = qualityOptions(req.quality, req.fatModel);
+  const prep = prepare({ phantom: req.phantom, protocol: req.protocol, sets: req.sets, out: "", seed: 1, iso, workers: 1, maxMemory: 2 * 2 ** 30 });
+  const protocol = prep.protocol;
+  const mid = prep.slices.length > 1 ? prep.slices[Math.floor(prep.slices.length / 2)]! : prep.slices[0]!;
+  const seq = mid.seq;
+  let check: CheckResult | null = null;
+  if (req.quality === "preview") {
+    check = checkProtocol(prep.phantom, protocol, seq, {});
+  }
+  const t0 = performance.now();
+  // the serial engine run of engine/index.ts (simulateSerial), chunk by chunk so a newer edit can stop it
+  const plan = makePlan(seq, mid.iso, { receiverFilter: protocol.receiverFilter });
+  const size = plan.coils * plan.rows * plan.read;
+  const re = new Float64Array(size), im = new Float64Array(size);
+  const pr = new Float64Array(size), pi = new Float64Array(size);
+  if (mid.iso.count > 0) {
+    const scratch = new ChunkScratch(plan);
+    const summer = new BlockSummer(size, 0, plan.chunks, (_b, bre, bim) => addInto(re, im, bre, bim));
+    for (let c = 0; c < plan.chunks; c++) {
+      if (stop()) throw new Cancelled();
+      pr.fill(0);
+      pi.fill(0);
+      runChunk(plan, mid.iso, c, pr, pi, scratch);
+      summer.add(c, pr, pi);
+      onProgress(c + 1, plan.chunks);
+    }
+  }
+  const engineMs = performance.now() - t0;
+  const acq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re, im };
+  const grid = toGrid(acq, seq.grid);
+  const img = reconstructGrid(grid, seq.grid, seq.image);
+  const mag = magnitude(img);
+  const nRead = seq.image.read, nPhase = seq.image.phase;
+  const plane = Math.floor(seq.image.slice / 2);
+  const image = mag.slice(plane * nRead * nPhase, (plane + 1) * nRead * nPhase);
+  const kRead = grid.read, kPhase = grid.phase, kp = Math.floor(grid.slice / 2);
+  const kmag = new Float64Array(kRead * kPhase);
+  for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(grid.re[kp * kRead * kPhase + i]!, grid.im[kp * kRead * kPhase + i]!);
+  const base = fatShiftInput(protocol, seq);
+  const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
+  const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
+  const fatShift = {
+    fatModel: req.fatModel,
+    fatHz: main.hz,
+    predicted: {
+      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction },
+      slice: { mm: main.slice.m * 1e3, direction: main.slice.direction },
+      phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction },
+      multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px },
+    },
+  };
+  const vol = (v: { slice: number; phase: number; read: number; re: Float64Array; im: Float64Array }) =>
+    encodeNpy({ dtype: "complex64", shape: [1, v.slice, v.phase, v.read], data: { re: v.re, im: v.im } });
+  return {
+    quality: req.quality, protocol, nRead, nPhase, image, kmag, kRead, kPhase,
+    display: displayTransform(logicalAxes(protocol)),
+    fatShift, check,
+    warnings: [...new Set([...protocol.warnings, ...mid.iso.warnings])],
+    isochromats: mid.iso.count, engineMs,
+    iso: isoOptionsFor(protocol, iso),
+    kspaceNpy: vol(grid), imageNpy: vol(img),
+    derived: seq.derived as Record<string, unknown>,
+    slicesRun: prep.slices.length > 1 ? `middle slice (${Math.floor(prep.slices.length / 2) + 1} of ${prep.slices.length}) only` : "the one slice",
+  };
+}
+
+/** A user error as the CLI prints it (without the "isofold: error: " prefix), with its key path. */
+export function userMessage(e: unknown): { message: string; key: string | null } | null {
+  if (e instanceof UserError) return { message: e.message, key: e.keyPath ?? null };
+  return null;
+}
+
+export { SAFETY_NOTE };
