@@ -243,7 +243,7 @@ function drawProfile(): void {
   for (let c = 0; c < width; c++) max = Math.max(max, values[r * width + c]!);
   const pts: string[] = [];
   for (let c = 0; c < width; c++) pts.push(`${(10 + (280 * c) / Math.max(1, width - 1)).toFixed(1)},${(150 - (140 * values[r * width + c]!) / (max || 1)).toFixed(1)}`);
-  svg.innerHTML = `<polyline fill="none" stroke="#246" stroke-width="1.5" points="${pts.join(" ")}"/><text x="10" y="12" font-size="10">max ${num(max)} (a fully relaxed voxel tipped 90° ≈ 1)</text>`;
+  svg.innerHTML = `<polyline fill="none" stroke="#246" stroke-width="1.5" points="${pts.join(" ")}"/><text x="10" y="12" font-size="10">max ${num(max)}</text>`;
 }
 
 function numbersTable(o: RunOutput): void {
@@ -318,7 +318,10 @@ function show(o: RunOutput, g: number): void {
   for (const side of ["top", "bottom", "left", "right"] as const) $(`l-${side}`).textContent = o.display.letters[side];
   $("orient").textContent = `${o.display.orientation}; rows ${o.display.rows}, columns ${o.display.cols}`;
   const slider = $("c-row") as HTMLInputElement;
-  if (Number(slider.max) !== plane.height - 1) slider.value = String(Math.floor(plane.height / 2));
+  if (Number(slider.max) !== plane.height - 1) {
+    slider.max = String(plane.height - 1);
+    slider.value = String(Math.floor(plane.height / 2));
+  }
   drawOverlays();
   drawProfile();
   numbersTable(o);
@@ -394,6 +397,7 @@ async function main(): Promise<void> {
   if (cfg.given.protocol) addInput(cfg.given.protocol.name.slice(5), JSON.stringify(cfg.given.protocol.object));
   if (cfg.given.phantom) addInput(cfg.given.phantom.name.slice(5), JSON.stringify(cfg.given.phantom.object));
   readUrl(cfg);
+  $("controls").addEventListener("submit", (e) => e.preventDefault());
   const pSel = $("c-protocol") as HTMLSelectElement, phSel = $("c-phantom") as HTMLSelectElement;
   for (const n of cfg.presets) pSel.append(new Option(n, n));
   if (cfg.given.protocol) pSel.append(new Option(cfg.given.protocol.name, cfg.given.protocol.name));
