@@ -75,7 +75,7 @@ describe("isofold preview in a browser", () => {
     const errors: string[] = [];
     page.on("pageerror", (e) => errors.push(e.message));
     await page.goto(`${base}?${query}`);
-    await page.waitForFunction(() => (window as any).__preview?.painted > 0 || (window as any).__preview?.error, null, { timeout: 40_000 });
+    await page.waitForFunction(() => ((window as any).__preview?.painted > 0 && (window as any).__preview?.checked > 0) || (window as any).__preview?.error, null, { timeout: 40_000 });
     expect(errors).toEqual([]);
     expect(await page.evaluate(() => (window as any).__preview.error?.message ?? null)).toBeNull();
     return page;
@@ -87,7 +87,7 @@ describe("isofold preview in a browser", () => {
     await page.waitForFunction((g) => (window as any).__preview.gen > g, before);
     return page.evaluate(() => (window as any).__preview.gen as number);
   }
-  const painted = (page: Page, g: number) => page.waitForFunction((n) => (window as any).__preview.painted >= n, g, { timeout: 30_000 });
+  const painted = (page: Page, g: number) => page.waitForFunction((n) => (window as any).__preview.painted >= n && (window as any).__preview.checked >= n, g, { timeout: 30_000 });
   const text = async (page: Page, key: string) => (await page.locator(`#views [data-key="${key}"]`).first().textContent()) ?? "";
 
   it("the server refuses paths outside its own files", async () => {

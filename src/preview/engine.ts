@@ -45,6 +45,8 @@ export interface RunOutput {
   warnings: string[];
   isochromats: number;
   engineMs: number;
+  /** Milliseconds of each step in the worker: prepare (read, validate, sample isochromats), engine, recon (and analysis). */
+  timings: Record<string, number>;
   iso: IsochromatOptions;
   /** Full volumes for export (complex64 .npy bytes). */
   kspaceNpy: Uint8Array;
@@ -81,18 +83,30 @@ export function qualityOptions(q: Quality, fatModel: "single" | "multi"): Isochr
 
 export class Cancelled extends Error {}
 
+let lastPrepared: { phantom: Parameters<typeof checkProtocol>[0]; protocol: Protocol; seq: Parameters<typeof checkProtocol>[2] } | null = null;
+
+/** `isofold check` (default thresholds and ROI) on the inputs of the last run. */
+export function checkLast(): CheckResult | null {
+  if (!lastPrepared) return null;
+  const c = checkProtocol(lastPrepared.phantom, lastPrepared.protocol, lastPrepared.seq, {});
+  c.notes.push(...lastPrepared.protocol.warnings.map((w) => `protocol: ${w}`), ...lastPrepared.phantom.warnings.map((w) => `phantom: ${w}`));
+  return c;
+}
+
 /** Runs one request; `stop()` is asked between engine chunks and a true answer throws Cancelled. */
 export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): RunOutput {
+  const tStart = performance.now();
+  const timings: Record<string, number> = {};
   const iso = qualityOptions(req.quality, req.fatModel);
   const prep = prepare({ phantom: req.phantom, protocol: req.protocol, sets: req.sets, out: "", seed: 1, iso, workers: 1, maxMemory: 2 * 2 ** 30 });
   const protocol = prep.protocol;
   const mid = prep.slices.length > 1 ? prep.slices[Math.floor(prep.slices.length / 2)]! : prep.slices[0]!;
   const seq = mid.seq;
-  let check: CheckResult | null = null;
-  if (req.quality === "preview") {
-    check = checkProtocol(prep.phantom, protocol, seq, {});
-  }
+  const check: CheckResult | null = null;
+  // the closed-form check of this edit runs after its image is painted (see checkLast)
+  lastPrepared = { phantom: prep.phantom, protocol, seq };
   const t0 = performance.now();
+  timings.prepare = t0 - tStart;
   // the serial engine run of engine/index.ts (simulateSerial), chunk by chunk so a newer edit can stop it
   const plan = makePlan(seq, mid.iso, { receiverFilter: protocol.receiverFilter });
   const size = plan.coils * plan.rows * plan.read;
@@ -111,6 +125,8 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
     }
   }
   const engineMs = performance.now() - t0;
+  timings.engine = engineMs;
+  const t1 = performance.now();
   const acq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re, im };
   const grid = toGrid(acq, seq.grid);
   const img = reconstructGrid(grid, seq.grid, seq.image);
@@ -141,7 +157,7 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
     display: displayTransform(logicalAxes(protocol)),
     fatShift, check,
     warnings: [...new Set([...protocol.warnings, ...mid.iso.warnings])],
-    isochromats: mid.iso.count, engineMs,
+    isochromats: mid.iso.count, engineMs, timings: { ...timings, recon: performance.now() - t1 },
     iso: isoOptionsFor(protocol, iso),
     kspaceNpy: vol(grid), imageNpy: vol(img),
     derived: seq.derived as Record<string, unknown>,

@@ -307,6 +307,8 @@ function checksTable(o: RunOutput): void {
 }
 
 function show(o: RunOutput, g: number): void {
+  // the refined result of an edit keeps the check that came with its preview
+  if (o.quality === "full" && last && !o.check) o.check = last.check;
   last = o;
   for (const e of document.querySelectorAll<HTMLElement>("#settings .error")) e.textContent = "";
   $("general-error").textContent = "";
@@ -326,6 +328,7 @@ function show(o: RunOutput, g: number): void {
   drawProfile();
   numbersTable(o);
   if (o.check) checksTable(o);
+  else $("checks").querySelector("tbody")!.innerHTML = `<tr><td colspan="4">checking…</td></tr>`;
   const w = $("warnings");
   w.innerHTML = "";
   for (const s of [...o.warnings, `simulated: ${o.slicesRun}`]) {
@@ -335,7 +338,7 @@ function show(o: RunOutput, g: number): void {
   }
   syncControls();
   $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread)" : "default quality";
-  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, engine ${o.engineMs.toFixed(0)} ms`;
+  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   (window as any).__preview.shown = g;
   (window as any).__preview.quality = o.quality;
   if (o.quality === "preview") {
@@ -461,6 +464,12 @@ async function main(): Promise<void> {
     if (m.t === "ready") { run(performance.now()); return; }
     if (m.gen !== gen) return;
     if (m.t === "result") show(m.out as RunOutput, m.gen);
+    else if (m.t === "check" && last && m.check) {
+      last.check = m.check;
+      checksTable(last);
+      drawOverlays();
+      (window as any).__preview.checked = m.gen;
+    }
     else if (m.t === "error") { if (m.quality === "preview") showError(m); else $("progress-wrap").hidden = true; }
     else if (m.t === "progress") {
       $("progress-wrap").hidden = false;

@@ -5,7 +5,7 @@
  * posts it when memory cannot be shared); work for an older edit stops at the
  * next engine chunk.
  */
-import { Cancelled, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
+import { Cancelled, checkLast, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
 
 declare const self: { postMessage(m: unknown, transfer?: Transferable[]): void; onmessage: ((ev: MessageEvent) => void) | null };
 
@@ -25,6 +25,7 @@ function runOne(gen: number, req: RunRequest): boolean {
       if (req.quality === "full") self.postMessage({ t: "progress", gen, done, total });
     });
     self.postMessage({ t: "result", gen, out }, [out.image.buffer as ArrayBuffer, out.kmag.buffer as ArrayBuffer, out.kspaceNpy.buffer as ArrayBuffer, out.imageNpy.buffer as ArrayBuffer]);
+    if (req.quality === "preview" && current() === gen) self.postMessage({ t: "check", gen, check: checkLast() });
     return true;
   } catch (e) {
     if (e instanceof Cancelled) return false;
