@@ -10,6 +10,7 @@ import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type
 import { simulateSerial } from "../src/engine/index.js";
 import { reconstructCartesian, magnitude } from "../src/recon/reconstruct.js";
 import { truthMaps, type TruthMaps } from "../src/analysis/index.js";
+import { sampledLimits } from "../src/cli/pipeline.js";
 
 export interface SimResult {
   protocol: Protocol;
@@ -47,7 +48,7 @@ export function simulate(phantomJson: unknown, protocol: Record<string, unknown>
   const opt = { ...defaultIsochromatOptions(), sliceCount: 1, sliceExtent: 1, ...iso, offsetHz: p.shim };
   const set = makeIsochromats(ph, {
     axes, dx, dy, thickness: p.slice.thickness, position: p.slice.position,
-    clipRead: p.fov.read * p.oversampling.read, clipPhase: 1.5 * p.fov.phase,
+    ...sampledLimits(p),
   }, p.field, opt);
   // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
   assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");

@@ -38,6 +38,14 @@ describe("isofold protocol", () => {
     }
     expect(await inProcess("rare-t2-1.5t")).toMatch(/effectiveTe\s+96 ms/);
     expect(await inProcess("epi-1.5t")).toMatch(/echoSpacing\s+0\.81188 ms/);
+    // one slice-shift formula, with its sign, shared with report.json (analysis SLICE_SHIFT_FORMULA)
+    expect(await inProcess("se-t2-1.5t")).toMatch(/fatShiftSlice\s+\S+ mm\s+Δz = −Δf\/\(γ̄·G_slice\)/);
+    // 4-shot EPI: effective echo spacing ESP/4 and the phase shift Δf·N·ESP/shots (Jezzard & Balaban 1995)
+    const four = await inProcess("epi-4shot-3t");
+    const esp = Number(/\bechoSpacing\s+([\d.]+) ms\s+2·ramp/.exec(four)![1]);
+    const eff = Number(/effectiveEchoSpacing\s+([\d.]+) ms/.exec(four)![1]);
+    expect(eff).toBeCloseTo(esp / 4, 4);
+    expect(four).toMatch(/fatShiftPhase\s+-?[\d.]+ px\s+EPI: Δy = s_blip·Δf·N_phase·ESP\/shots/);
     expect(await inProcess("se-t1-multislice-1.5t")).toMatch(/sliceOrder\s+1, 3, 5, 7, 9, 11, 2, 4, 6, 8, 10/);
   });
 

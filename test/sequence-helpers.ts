@@ -11,7 +11,7 @@ import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type
 import { logicalAxes } from "../src/protocol/geometry.js";
 import { simulateSerial } from "../src/engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../src/recon/reconstruct.js";
-import { isoOptionsFor } from "../src/cli/pipeline.js";
+import { isoOptionsFor, sampledLimits, slabCoverage } from "../src/cli/pipeline.js";
 
 type Obj = Record<string, unknown>;
 
@@ -60,9 +60,12 @@ export interface SimResult {
   mag: Float64Array;
 }
 
-export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}): SimResult {
+/** With `exact`, iso.sliceCount is used as given (no automatic raise), e.g. to show what a coarse grid does. */
+export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}, exact = false): SimResult {
   const seq = buildSequence(p);
-  const opts = isoOptionsFor(p, { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso });
+  const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
+  const given = { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso };
+  const opts = exact ? given : isoOptionsFor(p, given, seq, steps);
   const set = makeIsochromats(
     ph,
     {
@@ -71,8 +74,7 @@ export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOption
       dy: p.fov.phase / p.matrix.phase,
       thickness: p.slice.thickness,
       position: p.slice.position,
-      clipRead: p.fov.read * p.oversampling.read,
-      clipPhase: 1.5 * p.fov.phase * (1 + p.oversampling.phase),
+      ...sampledLimits(p),
     },
     p.field,
     opts,

@@ -5,17 +5,22 @@
  * Predictions (Bernstein, King & Zhou 2004, ch. 11 and 16; signs derived for
  * this program's conventions (DEVELOPERS.md, Physics conventions): an isochromat at logical position r
  * with offset Δf precesses at γ̄·G·r + Δf):
- *   - readout: during a readout gradient G_read > 0 a spin at u appears where
- *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = (Δf/BW_px)·Δx:
- *     fat (Δf < 0) moves toward negative read positions;
+ *   - readout: during a readout gradient G_read a spin at u appears where
+ *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = s_r·(Δf/BW_px)·Δx
+ *     with s_r = sign(G_read) (the protocol's readout polarity): with a
+ *     positive read gradient fat (Δf < 0) moves toward negative read
+ *     positions, with a negative one toward positive positions;
  *   - slice: a pulse of centre frequency γ̄·G_slice·w0 excites spins where
  *     γ̄·G_slice·w + Δf = γ̄·G_slice·w0, so Δw = −Δf/(γ̄·G_slice): fat is
  *     excited toward positive slice positions for G_slice > 0;
- *   - phase, EPI only: line n is acquired at TE + (n − c)·esp with
+ *   - phase, EPI only: line n is acquired at TE + (n − c)·τ with
  *     k_n = (n − c)·Δk_y·s (s = ±1, the blip direction), so the phase
- *     −2π(k_n·v + Δf·(n − c)·esp) places the spin at v + s·Δf·esp/Δk_y:
- *     Δv = s·Δf·N_phase·esp pixels (N_phase lines of Δk_y = 1/FOV). With
- *     spin-warp (one line per excitation) there is no shift along phase.
+ *     −2π(k_n·v + Δf·(n − c)·τ) places the spin at v + s·Δf·τ/Δk_y:
+ *     Δv = s·Δf·N_phase·τ pixels (N_phase lines of Δk_y = 1/FOV), where τ is
+ *     the time per phase-encoding step, the effective echo spacing ESP/shots
+ *     of an interleaved (echo-time shifted) EPI (Jezzard & Balaban 1995;
+ *     Feinberg & Oshio 1994). With spin-warp (one line per excitation) there
+ *     is no shift along phase.
  */
 import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { fft2c, ifft2c } from "../recon/fft.js";
@@ -24,6 +29,8 @@ import type { Sequence } from "../sequence/index.js";
 
 /** A displacement along one logical axis. */
 export interface AxisShift {
+  /** The closed form used. */
+  note?: string;
   /** Pixels (signed, along the positive logical axis). */
   px: number;
   /** Metres (signed). */
@@ -39,13 +46,15 @@ export interface FatShiftInput {
   ppm?: number;
   /** Readout bandwidth per pixel (Hz/px) and the pixel size along read (m). */
   pixelBandwidth: number;
+  /** Sign of the read gradient during the echo (the protocol's readout polarity); default +1. */
+  readSign?: number;
   dxRead: number;
   /** Slice-select gradient (T/m), 0 for a non-selective pulse; slice thickness (m). */
   sliceGradient: number;
   /** Phase pixel size (m). */
   dyPhase: number;
-  /** EPI only: echo spacing (s), phase lines of one image (after any acceleration), blip direction ±1. */
-  echoSpacing?: number;
+  /** EPI only: time per phase-encoding step (s) = echo spacing / shots (see effectiveEchoSpacing), phase lines of one image, blip direction ±1. */
+  effectiveEchoSpacing?: number;
   phaseLines?: number;
   blipSign?: number;
   /** Physical axis names and signs of the logical axes, e.g. { read: "x", phase: "y", slice: "z" }. */
@@ -60,6 +69,11 @@ export interface FatShiftPrediction {
   slice: { m: number; direction: string; note: string };
   phase: AxisShift & { note: string };
 }
+
+/** The three closed forms, written once (report.json, the protocol table and checks all quote these). */
+export const READ_SHIFT_FORMULA = "Δx = sign(G_read)·Δf/BW_px pixels";
+export const SLICE_SHIFT_FORMULA = "Δz = −Δf/(γ̄·G_slice)";
+export const PHASE_SHIFT_FORMULA = "EPI: Δy = s_blip·Δf·N_phase·ESP/shots pixels (ESP/shots = effective echo spacing)";
 
 function dir(value: number, axis: string): string {
   if (value === 0 || !Number.isFinite(value)) return "none";
@@ -86,27 +100,6 @@ function derivedNumber(seq: Sequence, key: string): number | undefined {
   return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
 }
 
-/**
- * The prediction inputs of a protocol and its built sequence, for a chemical
- * shift `ppm`: one place for report.json, `isofold check` and `isofold
- * validate`. EPI only: the sequence's derived `echoSpacing` (s) switches on
- * the phase prediction, with `phaseBlipSign` (±1, default +1) and
- * `phaseLinesEffective` (default the image's phase matrix).
- */
-export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
-  const axes = logicalAxes(protocol);
-  const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-  const esp = derivedNumber(seq, "echoSpacing");
-  return {
-    fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, dxRead: dx, dyPhase: dy,
-    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
-    ...(esp !== undefined && protocol.sequence === "epi"
-      ? { echoSpacing: esp, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? seq.image.phase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 }
-      : {}),
-    axisNames: axes.names,
-  };
-}
-
 /** Displacement of a spin at off-resonance `hz` (Hz) relative to one on resonance: the fat-shift closed forms at the equivalent ppm. */
 export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatShiftPrediction {
   return predictFatShift({ ...input, ppm: hz / (1e-6 * GAMMA_BAR * input.fieldT) });
@@ -116,26 +109,51 @@ export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatS
 export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
   const ppm = p.ppm ?? FAT_SINGLE_PPM;
   const hz = ppmToHz(ppm, p.fieldT);
-  const readPx = hz / p.pixelBandwidth;
+  const readPx = (p.readSign ?? 1) * hz / p.pixelBandwidth;
   const sliceM = p.sliceGradient !== 0 ? -hz / (GAMMA_BAR * p.sliceGradient) : 0;
-  const epi = p.echoSpacing !== undefined && p.phaseLines !== undefined;
-  const phasePx = epi ? (p.blipSign ?? 1) * hz * p.phaseLines! * p.echoSpacing! : 0;
+  const epi = p.effectiveEchoSpacing !== undefined && p.phaseLines !== undefined;
+  const phasePx = epi ? (p.blipSign ?? 1) * hz * p.phaseLines! * p.effectiveEchoSpacing! : 0;
   return {
     ppm,
     hz,
-    readout: { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read) },
+    readout: { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_FORMULA },
     slice: {
       m: sliceM,
       direction: dir(sliceM, p.axisNames.slice),
-      note: p.sliceGradient !== 0 ? "Δz = −Δf/(γ̄·G_slice)" : "non-selective excitation: no slice shift",
+      note: p.sliceGradient !== 0 ? SLICE_SHIFT_FORMULA : "non-selective excitation: no slice shift",
     },
     phase: {
       px: phasePx,
       m: phasePx * p.dyPhase,
       direction: dir(phasePx, p.axisNames.phase),
-      note: epi ? "EPI: Δf·N_phase·echo spacing, sign of the phase blips" : "one line per excitation: no shift along phase",
+      note: epi ? PHASE_SHIFT_FORMULA : "one line per excitation: no shift along phase",
     },
   };
+}
+
+/**
+ * The prediction inputs of a protocol and its built sequence: readout
+ * polarity, slice-select gradient of the excitation and, for EPI, the
+ * sequence's `effectiveEchoSpacing` (ESP/shots, the one source of that
+ * quantity), `phaseLinesEffective` (default matrix.phase) and `phaseBlipSign`
+ * (default +1). Shared by report.json, the `protocol` table and checks.
+ */
+export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
+  const tau = derivedNumber(seq, "effectiveEchoSpacing");
+  return {
+    fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, readSign: protocol.readoutPolarity,
+    dxRead: protocol.fov.read / protocol.matrix.read, dyPhase: protocol.fov.phase / protocol.matrix.phase,
+    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
+    ...(tau !== undefined
+      ? { effectiveEchoSpacing: tau, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? seq.image.phase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 }
+      : {}),
+    axisNames: logicalAxes(protocol).names,
+  };
+}
+
+/** predictFatShift(fatShiftInput(protocol, seq, ppm)). */
+export function predictProtocolFatShift(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftPrediction {
+  return predictFatShift(fatShiftInput(protocol, seq, ppm));
 }
 
 /** Measured displacement of the fat object relative to the water object on an image. */

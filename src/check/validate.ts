@@ -5,7 +5,7 @@
  * injected (the CLI wires prepare's isochromat options and the engine), so
  * these cases stay free of command-line plumbing.
  */
-import { measureFatShift, truthMaps } from "../analysis/index.js";
+import { fatShiftInput, measureFatShift, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { FAT_SINGLE_PPM, GAMMA, GAMMA_BAR } from "../constants.js";
 import { rfAffine } from "../engine/kernels.js";
 import type { IsochromatOptions, IsochromatSet } from "../isochromats/index.js";
@@ -133,6 +133,19 @@ function bssfp(sim: Simulator, df: number): { expected: number; measured: number
   let v = 0, n = 0;
   for (let y = 6; y <= 10; y++) for (let x = 6; x <= 10; x++) { v += s.mag[y * 16 + x]!; n++; }
   return { expected: (100 * closed(df)) / closed(0), measured: (100 * (v / n)) / closed(0) };
+}
+
+/** Images of a marker 1.6 × FOV off centre and of the same marker at its folded place; measured = 100 · Σ|far| / Σ|near|. */
+function farWrap(sim: Simulator, p: Protocol, at: (v: string) => [string, string]): { expected: number; measured: number } {
+  const fov = p.fov.phase, x = 1.6 * fov, folded = x - fov * Math.round(x / fov);
+  const ph = (v: number) => phantom({
+    tissues: { t: gel("500 ms", "80 ms") },
+    shapes: [{ shape: "ellipse", center: at(`${(v * 100).toFixed(6)} cm`), semiAxes: ["1.2 cm", "1.2 cm"], tissue: "t" }],
+  }, 1.5);
+  const far = sim(p, ph(x), { density: 1, sliceCount: 1, sliceExtent: 1 }), near = sim(p, ph(folded), { density: 1, sliceCount: 1, sliceExtent: 1 });
+  let a = 0, b = 0;
+  for (let i = 0; i < far.mag.length; i++) { a += far.mag[i]!; b += near.mag[i]!; }
+  return { expected: 100, measured: (100 * a) / b };
 }
 
 interface Case {
@@ -263,6 +276,61 @@ export const CASES: Case[] = [
         w += m;
       }
       return { expected: 100 - 160, measured: sy / w };
+    },
+  },
+  {
+    check: "far wrap along phase: marker 1.6 × FOV off folds to −0.4 × FOV at full amplitude (image vs marker placed there)",
+    source: "Nyquist folding x' = x − FOV·round(x/FOV), Δk = 1/FOV (common practice)",
+    unit: "%", tolerance: 0.1,
+    run: (sim) => {
+      const p = proto({ matrix: { read: 16, phase: 16 } });
+      return farWrap(sim, p, (v) => ["0 cm", v]);
+    },
+  },
+  {
+    check: "far wrap along read, receiver filter off, read oversampling 1: marker 1.6 × FOV off, full amplitude",
+    source: "Nyquist folding x' = x − FOV·round(x/FOV) of the sampled readout (common practice)",
+    unit: "%", tolerance: 0.1,
+    run: (sim) => {
+      const p = proto({ matrix: { read: 16, phase: 16 }, oversampling: { read: 1, phase: 0 }, receiverFilter: false });
+      return farWrap(sim, p, (v) => [v, "0 cm"]);
+    },
+  },
+  {
+    check: "spin echo, refocusing tbw 8 over 6 ms, 4-cycle crushers: automatic through-slice count vs 1200 (relative L2 of k-space)",
+    source: "aliasing of a sampled Fourier integral (Poisson summation) of the pathway moments 2c + tbw (Hennig 1988, J Magn Reson 78:397)",
+    unit: "%", tolerance: 1,
+    run: (sim) => {
+      const p = proto({
+        sequence: "se", te: "40 ms", tr: "300 ms", crusherCycles: 4, matrix: { read: 4, phase: 4 }, oversampling: { read: 1, phase: 0 },
+        refocusing: { shape: "sinc", duration: "6 ms", tbw: 8, steps: 100 }, excitation: { shape: "sinc", duration: "2 ms", tbw: 4, steps: 100 },
+      });
+      const ph = phantom(disc("6 cm", gel("800 ms", "80 ms")), 1.5);
+      const a = sim(p, ph, { density: 1, sliceCount: 12, sliceExtent: 3, t2primeIsochromats: 1 });
+      const ref = sim(p, ph, { density: 1, sliceCount: 1200, sliceExtent: 3, t2primeIsochromats: 1 });
+      let num = 0, den = 0;
+      for (let i = 0; i < a.kacq.re.length; i++) {
+        num += (a.kacq.re[i]! - ref.kacq.re[i]!) ** 2 + (a.kacq.im[i]! - ref.kacq.im[i]!) ** 2;
+        den += ref.kacq.re[i]! ** 2 + ref.kacq.im[i]! ** 2;
+      }
+      return { expected: 0, measured: 100 * Math.sqrt(num / den) };
+    },
+  },
+  {
+    check: "readout shift under a negative read gradient, Δf = −250 Hz at 125 Hz/px: the report's prediction sign(G_read)·Δf/BW_px vs the image",
+    source: "Bernstein, King & Zhou 2004, ch. 11 (sign derived in analysis/fatshift.ts)",
+    unit: "px", tolerance: 0.1,
+    run: (sim) => {
+      const p = proto({ matrix: { read: 32, phase: 32 }, bandwidth: "125 Hz/px", readoutPolarity: "negative", te: "8 ms", tr: "50 ms" });
+      const d = (df: number) => phantom(disc("2.5 cm", gel("2000 ms", "2000 ms"), ["0.3 cm", "-0.2 cm"], String(df)), 1.5);
+      const a = sim(p, d(0), { density: 1, sliceCount: 1, sliceExtent: 1 }), b = sim(p, d(-250), { density: 1, sliceCount: 1, sliceExtent: 1 });
+      const tr = (v: ComplexVolume) => {
+        const re = new Float64Array(32 * 32), im = new Float64Array(32 * 32);
+        for (let y = 0; y < 32; y++) for (let x = 0; x < 32; x++) { re[x * 32 + y] = v.re[y * 32 + x]!; im[x * 32 + y] = v.im[y * 32 + x]!; }
+        return { re, im };
+      };
+      // expected: the prediction report.json and `isofold check` print (= sign(G_read)·Δf/BW_px = +2 px here)
+      return { expected: predictOffResonanceShift(fatShiftInput(p, b.seq), -250).readout.px, measured: phaseShiftPx(tr(a.image), tr(b.image), 32, 32) };
     },
   },
   {

@@ -3,7 +3,7 @@
  * analysis stage (predictions, measurement, truth maps) and encodes the truth
  * files. No physics here.
  */
-import { fatShiftInput, predictFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
+import { predictProtocolFatShift, measureFatShift, multiPeakMeanPpm, truthMaps, type TruthMaps } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
@@ -14,9 +14,8 @@ import { toDisplay, type DisplayTransform } from "../report/index.js";
 
 /**
  * Predicted (readout, slice, EPI phase) and measured fat–water displacement
- * for report.json, and the truth maps they used. EPI: the sequence's derived
- * `echoSpacing` (s) switches on the phase prediction, with `phaseBlipSign`
- * (±1, default +1) and `phaseLinesEffective` (default matrix.phase).
+ * for report.json, and the truth maps they used; the predictions come from
+ * analysis' predictProtocolFatShift (EPI: the sequence's effectiveEchoSpacing).
  */
 export function fatShiftReport(
   protocol: Protocol, seq: Sequence, phantom: Phantom, mag: Float64Array, fatModel: "single" | "multi",
@@ -27,9 +26,8 @@ export function fatShiftReport(
   const truth = truthMaps(phantom, {
     axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
   });
-  const base = fatShiftInput(protocol, seq);
-  const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
-  const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
+  const main = predictProtocolFatShift(protocol, seq, FAT_SINGLE_PPM);
+  const mean = predictProtocolFatShift(protocol, seq, multiPeakMeanPpm());
   // the search window around each object must reach the shifted fat image
   const predicted = Math.max(Math.abs(main.readout.px), Math.abs(main.phase.px), Math.abs(mean.readout.px), Math.abs(mean.phase.px));
   const margin = 3 + Math.ceil(predicted);
@@ -53,7 +51,7 @@ export function fatShiftReport(
       "Predicted for the main methylene peak (−3.4 ppm, Hamilton et al. 2011) and for the amplitude-weighted six-peak mean; " +
       "with the multi-peak model each peak makes its own shifted copy, and the copies add with TE-dependent phases, so the measured shift lies near these values but need not equal either; use --fat-model single for a clean comparison. Slice shift is predicted only (a 2D image cannot show it).",
     predicted: {
-      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction },
+      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, note: main.readout.note },
       slice: { mm: main.slice.m * 1e3, direction: main.slice.direction, note: main.slice.note },
       phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction, note: main.phase.note },
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px, sliceMm: mean.slice.m * 1e3 },

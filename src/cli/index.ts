@@ -8,7 +8,7 @@ import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { run, version, SAFETY_NOTE } from "./pipeline.js";
 import { addSimulationOptions, collect, engineOptions, isoOptions, repoRoot } from "./options.js";
-import { registerDataset } from "./dataset.js";
+import { addCoilOptions, coilRunFor, registerDataset } from "./dataset.js";
 import { registerProtocol } from "./protocol.js";
 import { registerMerge } from "./merge.js";
 import { registerCheck } from "./check.js";
@@ -34,7 +34,7 @@ program
   .exitOverride();
 
 addSimulationOptions(
-  program
+  addCoilOptions(program
     .command("simulate")
     .description("simulate one protocol on one phantom and write a run folder")
     .argument("<phantom>", "phantom file (JSON), e.g. phantoms/two-bottle.json")
@@ -42,8 +42,12 @@ addSimulationOptions(
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="16 cm" --set te="8 ms"', collect, [])
     .option("-o, --out <dir>", "output folder for the run", "out/run")
     .option("--truth", "also write the ground-truth maps on the image grid: pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy"),
+  "; the run folder then also holds each coil's image (coil-images.npy, coils.png), the sensitivities and their root-sum-of-squares (coil-rss.png)"),
 ).action(async (phantom: string, o) => {
-  const r = await withOutputDir(o.out, () => run({ phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o) }));
+  const r = await withOutputDir(o.out, () => run({
+    phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o),
+    coilRun: coilRunFor(phantom, o),
+  }));
   if (o.shard) {
     console.log(`shard ${o.shard[0]}/${o.shard[1]}: wrote ${r.files.join(", ")} to ${r.dir} in ${r.seconds.toFixed(1)} s; combine the shards with: isofold merge <shard folders...> --out <dir>`);
     return;

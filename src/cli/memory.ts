@@ -32,6 +32,8 @@ export const WORKER_SCRATCH_BYTES = CHUNK_ISOCHROMATS * 8 * 48;
 
 export interface MemoryEstimate {
   isochromats: number;
+  /** Range (m) of the sampled grid along read and phase, from the coarse sampling. */
+  extent?: { read: [number, number]; phase: [number, number] };
   bytes: number;
   isochromatBytes: number;
   kspaceBytes: number;
@@ -40,23 +42,27 @@ export interface MemoryEstimate {
 
 /** Estimated isochromat count: the real sampler on a grid coarser by f in-plane, density 1, ≤ 4 through-slice, scaled up. */
 export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): number {
+  return estimateSampling(ph, geo, fieldT, iso, matrix).count;
+}
+
+function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): { count: number; extent: { read: [number, number]; phase: [number, number] } } {
   const f = Math.max(1, Math.ceil(matrix / 64));
   const sc = Math.min(iso.sliceCount, 4);
   const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
   // a voxel's T2′ spread of n values is shared among its density² columns (at least one value each)
   const spread = Math.max(1, Math.ceil((iso.t2primeIsochromats ?? 1) / (iso.density * iso.density)));
-  return Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc) * spread);
+  return { count: Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc) * spread), extent: { read: coarse.extent.read, phase: coarse.extent.phase } };
 }
 
 /** Bytes a run needs at its peak: isochromats, k-space (total, block sum, partials in flight), worker scratch. */
 export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1): MemoryEstimate {
   const matrix = Math.max(seq.kspace.read, seq.kspace.phase);
-  const n = estimateIsochromats(ph, geo, fieldT, iso, matrix);
+  const { count: n, extent } = estimateSampling(ph, geo, fieldT, iso, matrix);
   const ks = coils * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * 16;
   const isochromatBytes = n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
   const kspaceBytes = ks * (4 + 3 * workers + 4);
   const workerBytes = workers * WORKER_SCRATCH_BYTES;
-  return { isochromats: n, bytes: isochromatBytes + kspaceBytes + workerBytes, isochromatBytes, kspaceBytes, workerBytes };
+  return { isochromats: n, extent, bytes: isochromatBytes + kspaceBytes + workerBytes, isochromatBytes, kspaceBytes, workerBytes };
 }
 
 function gib(b: number): string {
@@ -74,9 +80,11 @@ export function checkMemory(e: MemoryEstimate, limit: number, iso: IsochromatOpt
   if (d >= 1 && d < iso.density) ways.push(`--density ${d}`);
   const s = Math.floor(iso.sliceCount * r);
   if (s >= 1 && s < iso.sliceCount) ways.push(`--slice-isochromats ${s}`);
+  const cm = (r: [number, number]) => `${(r[0] * 100).toFixed(1)} … ${(r[1] * 100).toFixed(1)} cm`;
+  const span = e.extent ? ` over read ${cm(e.extent.read)} and phase ${cm(e.extent.phase)} (every shape's whole extent, so tissue outside the FOV wraps)` : "";
   const how = ways.length > 0 ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}` : "; lower --density, --slice-isochromats or the matrix";
   throw new UserError(
-    `--max-memory: the run needs an estimated ${gib(e.bytes)} (${e.isochromats.toLocaleString("en")} isochromats × ${BYTES_PER_ISOCHROMAT} B, ` +
+    `--max-memory: the run needs an estimated ${gib(e.bytes)} (${e.isochromats.toLocaleString("en")} isochromats × ${BYTES_PER_ISOCHROMAT} B${span}, ` +
       `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}${how}`,
   );
 }

@@ -33,7 +33,10 @@ export interface PartialMeta {
   inputHash: string;
   inputs: { phantom: string; protocol: string; sets: string[]; seed: number; iso: IsochromatOptions; truth?: boolean };
   protocol: Protocol;
-  isoSummary: { count: number; columns: number; warnings: string[]; spreads?: { tissue: string; t2prime: number | null; isochromats: number }[] };
+  isoSummary: {
+    count: number; columns: number; warnings: string[]; spreads?: { tissue: string; t2prime: number | null; isochromats: number }[];
+    sampling?: import("./pipeline.js").IsoSampling; extent?: import("../isochromats/index.js").SampledExtent; notes?: string[];
+  };
   engine: { chunks: number; rfClasses: number; ops: number; workers: number };
 }
 

@@ -7,11 +7,12 @@ import { createRequire } from "node:module";
 import { resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../protocol/index.js";
-import { loadPhantom, type Phantom } from "../phantom/index.js";
-import { buildSequence, type Sequence } from "../sequence/index.js";
-import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
+import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
+import { aliasFreeCount, buildSequence, pathwayMoments, pulseProfileReach, type Sequence } from "../sequence/index.js";
+import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "../isochromats/index.js";
 import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
 import { countChunks } from "../engine/plan.js";
+import { checkSliceConvergence } from "../engine/index.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../recon/reconstruct.js";
@@ -79,6 +80,10 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
+  /** Run the a-posteriori through-slice convergence check (default true). */
+  convergenceCheck?: boolean;
+  /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
+  coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
 
 export interface RunResult {
@@ -95,8 +100,14 @@ export interface RunContext {
   phantom: Phantom;
   /** Sequence of each engine run (one per slice, or one for a 3D slab), in spatial order. */
   seqs: Sequence[];
-  isoSummary: { count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[] };
+  isoSummary: {
+    count: number; columns: number; warnings: string[]; spreads: { tissue: string; t2prime: number | null; isochromats: number }[];
+    /** How the grid was chosen and what it covers (absent in partials of older versions). */
+    sampling?: IsoSampling; extent?: SampledExtent; notes?: string[];
+  };
   engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
+  /** Files and report of simulate --coils. */
+  coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
 
 /** One slice (or the 3D slab) to simulate: its sequence and isochromats. */
@@ -107,44 +118,97 @@ export interface SliceRun {
 }
 
 /**
- * Isochromat options for a protocol. A crusher or spoiler of c cycles across
- * the slice is only simulated faithfully when the through-slice isochromats
- * resolve it: with n isochromats per thickness, Σ exp(i2π·c·w/thickness)
- * vanishes only if c·m/n is not a whole number for the pathway orders m that
- * matter, so n ≥ 4c + 1 with refocusing pulses (echo-train pathways mix up to
- * ~4 crusher orders) and n ≥ 2c + 1 with non-ideal spoiling.
+ * Pathway order followed when choosing the through-slice count
+ * (sequence/pathways.ts): twice the refocusing pulses per TR, at least 4
+ * (pathways carried across TRs), at most 8 (cost). Measured on
+ * test/through-slice.test.ts: a 4-echo train converges to < 0.1 % at order 8,
+ * to about 1 % at order 4.
+ */
+export function pathwayOrder(seq: Sequence): number {
+  let exc = 0, ref = 0;
+  for (const b of seq.blocks) {
+    if (b.kind !== "rf") continue;
+    if (b.pulse === 0) exc++;
+    else if (seq.pulses[b.pulse]!.flip > Math.PI / 2 + 1e-9) ref++;
+  }
+  const perTr = exc > 0 ? Math.round(ref / exc) : 0;
+  return Math.min(8, Math.max(4, 2 * perTr));
+}
+
+/**
+ * Reach (cycles per thickness) of the slice profiles' spectra: an aliased
+ * pathway copy closer to zero than this still adds signal. Three times the
+ * largest pulse time-bandwidth product (the profile's transition band is
+ * thickness/tbw wide), at least 4; found on the convergence tests of
+ * test/through-slice.test.ts (SE, RARE, bSSFP, tbw 2–8).
+ */
+export function profileReach(maxPulseTbw: number): number {
+  return Math.max(4, 3 * maxPulseTbw);
+}
+
+/**
+ * Isochromat options for a protocol. A coherence pathway that reaches an ADC
+ * with a through-slice moment of K cycles per thickness (crushers, spoilers,
+ * the refocusing pulses' own slice-select lobes, higher orders of echo
+ * trains: sequence/pathways.ts) is only simulated faithfully when the
+ * through-slice grid does not alias it back near zero: with ρ isochromats per
+ * thickness the grid sums it as if it had the moments K − m·ρ. The count is
+ * the smallest that keeps every such copy (m ≠ 0) of every pathway moment
+ * farther than the profile reach from zero (aliasFreeCount), and at least
+ * the requested count.
  * 3D: the through-slab grid covers M slice-encoding steps (the N of the slab plus a
  * margin of ⌈N/8⌉ on each side for the slab profile's skirts, which then wrap
  * along slice-encoding steps as on a scanner), at least `density` isochromats per
- * slice-encoding step, weighted per slice-encoding step thickness.
+ * slice-encoding step (and 2K + 1 for a spoiler moment K per step), weighted per
+ * slice-encoding step thickness.
  */
-export function isoOptionsFor(p: Protocol, iso: IsochromatOptions): IsochromatOptions {
-  const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
-  let perThk = 0;
-  if (refocused) perThk = Math.max(perThk, 4 * Math.ceil(p.crusherCycles) + 1);
-  if (p.spoiling !== "ideal" && p.sequence !== "bssfp") perThk = Math.max(perThk, 2 * Math.ceil(p.spoilerCycles) + 1);
+export function isoOptionsFor(p: Protocol, iso: IsochromatOptions, seq?: Sequence, slabSteps?: number): IsochromatOptions & { pathwayMoment: number; pathwayOrder: number } {
+  const s = seq ?? buildSequence(p);
+  const order = pathwayOrder(s);
+  const pm = pathwayMoments(s, p.slice.thickness, order);
+  const K = pm.maxMoment;
   if (p.sequence !== "gre3d") {
-    return { ...iso, sliceCount: Math.max(iso.sliceCount, Math.ceil(perThk * iso.sliceExtent)) };
+    const moments = pm.moments.filter((k) => k > 0.5);
+    const n = moments.length ? aliasFreeCount(moments, profileReach(pm.maxPulseTbw), iso.sliceExtent, iso.sliceCount) : iso.sliceCount;
+    return { ...iso, sliceCount: Math.max(iso.sliceCount, n), pathwayMoment: K, pathwayOrder: order };
   }
   const n = p.matrix.slice;
-  const m = n + 2 * Math.ceil(n / 8);
-  const per = Math.max(iso.density, perThk);
-  return { ...iso, sliceCount: m * per, sliceExtent: m };
+  const m = slabSteps ?? n + 2 * Math.ceil(n / 8);
+  const per = Math.max(iso.density, Math.ceil(2 * K + 1 - 1e-9));
+  return { ...iso, sliceCount: m * per, sliceExtent: m, pathwayMoment: K, pathwayOrder: order };
 }
 
 /** Loads and checks every input; throws UserError before any work or file. */
 export function prepare(o: RunOptions): {
-  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom;
+  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom; sampling: IsoSampling;
 } {
   const protocol = loadProtocol(o.protocol, o.sets);
   const ms = slicePositions(protocol);
   const loaded = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
   const phantom = o.phantomTransform ? o.phantomTransform(loaded) : loaded;
   const axes = logicalAxes(protocol);
-  const isoOpts = { ...isoOptionsFor(protocol, o.iso), offsetHz: protocol.shim };
-  const raised = protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount
-    ? `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount} so the ${protocol.crusherCycles}-cycle crushers / ${protocol.spoilerCycles}-cycle spoilers are resolved`
-    : null;
+  let seq0: Sequence;
+  try {
+    seq0 = buildSequence(protocol);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(o.protocol);
+    throw e;
+  }
+  const slab = protocol.sequence === "gre3d" ? slabCoverage(protocol, seq0, phantom) : null;
+  const isoOpts = { ...isoOptionsFor(protocol, o.iso, seq0, slab?.steps), offsetHz: protocol.shim };
+  const sampling: IsoSampling = {
+    sliceCount: isoOpts.sliceCount, sliceExtent: isoOpts.sliceExtent, pathwayMoment: isoOpts.pathwayMoment, pathwayOrder: isoOpts.pathwayOrder,
+    notes: [], convergence: null,
+  };
+  if (protocol.sequence !== "gre3d" && isoOpts.sliceCount > o.iso.sliceCount) {
+    sampling.notes.push(
+      `through-slice isochromats raised from ${o.iso.sliceCount} to ${isoOpts.sliceCount}: coherence pathways reach the ADC with up to ` +
+        `${isoOpts.pathwayMoment.toFixed(1)} cycles per slice thickness (crushers, spoilers, the refocusing pulses' own slice-select lobes, ` +
+        `echo-train pathways up to order ${isoOpts.pathwayOrder}), and no aliased copy may land where the slice profiles carry signal`,
+    );
+  }
+  if (slab?.note) sampling.notes.push(slab.note);
+  const slabWarning = slab?.warning ?? null;
   const remarks = samplingRemarks(phantom, protocol, o.iso.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
@@ -170,8 +234,7 @@ export function prepare(o: RunOptions): {
       dy: protocol.fov.phase / protocol.matrix.phase,
       thickness: protocol.slice.thickness,
       position,
-      clipRead: protocol.fov.read * protocol.oversampling.read,
-      clipPhase: 1.5 * protocol.fov.phase * (1 + protocol.oversampling.phase),
+      ...sampledLimits(protocol),
     };
     // slices run one after another: one slice's isochromats and k-space must fit
     if (slices.length === 0) checkMemory(estimateMemory(phantom, geo, protocol.field, isoOpts, seq, o.workers ?? defaultWorkers()), o.maxMemory ?? defaultMemoryLimit(), isoOpts);
@@ -183,14 +246,92 @@ export function prepare(o: RunOptions): {
     if (iso.count === 0) iso.warnings.push(`the slice at ${(position * 1e3).toFixed(1)} mm holds no part of the phantom; its image is empty`);
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
-    if (raised && slices.length === 0) iso.warnings.push(raised);
+    if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
     slices.push({ position, seq, iso });
   }
   if (slices.every((sl) => sl.iso.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, o.protocol, "slice.position");
   }
   const first = slices.find((sl) => sl.iso.count > 0)!;
-  return { protocol, seq: first.seq, iso: first.iso, phantomFile: o.phantom, slices, phantom };
+  if (protocol.sequence !== "gre3d" && o.convergenceCheck !== false) {
+    // a-posteriori check of the through-slice grid on one probe column (engine/convergence.ts)
+    const c = checkSliceConvergence(first.seq, phantom.tissues, { axes, thickness: protocol.slice.thickness, position: first.position, offsetHz: protocol.shim }, isoOpts.sliceCount, isoOpts.sliceExtent);
+    sampling.convergence = { relativeChange: c.relativeChange, tolerance: c.tolerance, converged: c.converged, method: "probe column (in-plane centre, each tissue) on the through-slice grid and on the grid shifted by half a step; relative L2 change of every ADC sample" };
+    if (!c.converged) {
+      first.iso.warnings.push(
+        `through-slice sampling may not be converged: the signal changes by ${(100 * c.relativeChange).toFixed(2)} % (tolerance ${(100 * c.tolerance).toFixed(1)} %) ` +
+          `when the ${isoOpts.sliceCount} through-slice isochromats are shifted by half a step; raise --slice-isochromats (e.g. to ${2 * isoOpts.sliceCount})`,
+      );
+    }
+  }
+  return { protocol, seq: first.seq, iso: first.iso, phantomFile: o.phantom, slices, phantom, sampling };
+}
+
+/** How the isochromat grid was chosen, for report.json. */
+export interface IsoSampling {
+  sliceCount: number;
+  sliceExtent: number;
+  /** Largest through-slice moment (cycles per thickness) of a followed pathway at an ADC, and the order followed. */
+  pathwayMoment: number;
+  pathwayOrder: number;
+  notes: string[];
+  convergence: { relativeChange: number; tolerance: number; converged: boolean; method: string } | null;
+}
+
+/**
+ * In-plane sampling limits (isochromats/IsoGeometry): along phase every
+ * shape's full extent (no anti-alias filter acts on phase encoding); along
+ * read, with the receiver filter, out to the sampled FOV (os·FOV, twice the
+ * filter's Nyquist edge, leaving room for off-resonance of up to
+ * ½·N·os·BW_px Hz), without it everywhere. 2D shapes on a tilted plane are
+ * unbounded in-plane: they are cut at 1.5 × the acquired FOV, with a warning.
+ */
+export function sampledLimits(p: Protocol): { clipRead: number; clipPhase: number; unboundedRead: number; unboundedPhase: number; readStopBand: boolean } {
+  const readFov = p.fov.read * p.oversampling.read;
+  return {
+    clipRead: p.receiverFilter ? readFov : Infinity,
+    clipPhase: Infinity,
+    unboundedRead: 1.5 * readFov,
+    unboundedPhase: 1.5 * p.fov.phase * (1 + p.oversampling.phase),
+    readStopBand: p.receiverFilter,
+  };
+}
+
+/**
+ * 3D: slice-encoding steps the through-slab grid covers, at least the slab plus
+ * ⌈N/8⌉ steps each side, and out to every shape's extent along the slab
+ * normal where the excitation still reaches (small-tip profile ≥ 1e-3 of its
+ * centre; all of it for a non-selective pulse), so tissue outside the slab
+ * wraps along slice encoding as on a scanner. Same parity as N.
+ */
+export function slabCoverage(p: Protocol, seq: Sequence, ph: Phantom): { steps: number; note?: string; warning?: string } {
+  const n = p.matrix.slice, thk = p.slice.thickness;
+  const m0 = n + 2 * Math.ceil(n / 8);
+  const ax = logicalAxes(p);
+  const b = phantomBounds(ph);
+  let lo = 0, hi = 0;
+  for (let k = 0; k < 3; k++) {
+    const d = ax.slice[k]!;
+    if (d === 0) continue;
+    lo += Math.min(b.min[k]! * d, b.max[k]! * d);
+    hi += Math.max(b.min[k]! * d, b.max[k]! * d);
+  }
+  const pos = p.slice.position;
+  const objectHalf = Math.max(Math.abs(lo - pos), Math.abs(hi - pos));
+  const exc = seq.pulses[0]!;
+  const cap = 8 * m0 * thk; // beyond this a 2D (infinite) phantom is cut
+  const reach = pulseProfileReach(exc, pos, Math.min(objectHalf, cap));
+  const half = Math.min(objectHalf, reach, cap);
+  const need = Math.ceil(((2 * half) / thk - n) / 2);
+  const steps = Math.max(m0, n + 2 * Math.max(0, need));
+  const cm = (x: number) => `${(x * 100).toFixed(1)} cm`;
+  const out: { steps: number; note?: string; warning?: string } = { steps };
+  if (steps > m0) out.note = `3D: the through-slab grid covers ${steps} slice-encoding steps (±${cm((steps * thk) / 2)}) so excited tissue outside the slab wraps along slice encoding`;
+  if (objectHalf > (steps * thk) / 2 + 1e-9 && reach > (steps * thk) / 2) {
+    out.warning = `3D: the phantom reaches ${Number.isFinite(objectHalf) ? cm(objectHalf) : "infinitely far (2D shapes)"} from the slab centre along the slab normal, where the ` +
+      `${exc.gradient === 0 ? "non-selective " : ""}excitation still acts, but is sampled only within ±${cm((steps * thk) / 2)}: tissue beyond that does not wrap into the image; use shapes of finite length`;
+  }
+  return out;
 }
 
 /** Reads a real .npy array (field maps) for the phantom stage. */
@@ -281,6 +422,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   // Each slice is its own engine run over its own isochromats, TR shared; cross-talk between slices is not simulated.
   const kspaces: KSpace[] = [];
   let plan: EnginePlan | null = null;
+  let coils: RunContext["coils"];
   let count = 0;
   for (let k = 0; k < p.slices.length; k++) {
     const sl = p.slices[k]!;
@@ -289,15 +431,24 @@ export async function run(o: RunOptions): Promise<RunResult> {
       continue;
     }
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
-    const res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
+    let res: { kspace: KSpace; plan: EnginePlan };
+    if (o.coilRun) {
+      const r = await o.coilRun({ seq: sl.seq, iso: sl.iso, protocol: p.protocol });
+      coils = { files: r.files, report: r.report };
+      res = r;
+    } else res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }
   const ctx: RunContext = {
     protocol: p.protocol, o, phantom: p.phantom, seqs: p.slices.map((s) => s.seq),
-    isoSummary: { count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso) },
+    isoSummary: {
+      count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso),
+      sampling: p.sampling, extent: p.iso.extent, notes: [...new Set(p.slices.flatMap((s) => s.iso.notes))],
+    },
     engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
+    ...(coils ? { coils } : {}),
   };
   return finish(ctx, kspaces, t0);
 }
@@ -327,7 +478,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputHash: inputHash(p.protocol, o),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
-    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso) },
+    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso), sampling: p.sampling, extent: p.iso.extent, notes: p.iso.notes },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
   });
   printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
@@ -399,8 +550,19 @@ export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Pr
     },
     fftConvention: FFT_CONVENTION_TEXT,
     isochromats: {
-      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: o.iso.density, sliceCount: isoOptionsFor(protocol, o.iso).sliceCount,
-      sliceExtent: isoOptionsFor(protocol, o.iso).sliceExtent, fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
+      count: ctx.isoSummary.count, columns: ctx.isoSummary.columns, density: o.iso.density,
+      sliceCount: ctx.isoSummary.sampling?.sliceCount ?? isoOptionsFor(protocol, o.iso, seq).sliceCount,
+      sliceExtent: ctx.isoSummary.sampling?.sliceExtent ?? isoOptionsFor(protocol, o.iso, seq).sliceExtent,
+      sampledExtent: ctx.isoSummary.extent ?? null,
+      sampledExtentNote: "range (m) of the isochromat grid along read, phase and slice (logical axes, slice centred on the first slice): every shape's full extent along phase; along read where the receiver filter passes signal, everywhere without it",
+      throughSlice: ctx.isoSummary.sampling
+        ? {
+            pathwayMoment: ctx.isoSummary.sampling.pathwayMoment, pathwayOrder: ctx.isoSummary.sampling.pathwayOrder,
+            unit: "cycles per slice thickness", convergence: ctx.isoSummary.sampling.convergence,
+          }
+        : null,
+      notes: [...(ctx.isoSummary.sampling?.notes ?? []), ...(ctx.isoSummary.notes ?? [])],
+      fatModel: o.iso.fatModel, t2primeIsochromats: o.iso.t2primeIsochromats,
       t2primeSpread: ctx.isoSummary.spreads,
       note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
         (threeD ? "; 3D: through-slab grid of `density` isochromats per slice-encoding step over the slab plus ⌈N/8⌉ slice-encoding steps each side" : ""),
@@ -419,12 +581,13 @@ export async function finish(ctx: RunContext, kspaces: KSpace[], t0: number): Pr
     timingSeconds: seconds,
     warnings: [...protocol.warnings, ...ctx.isoSummary.warnings],
   };
+  if (ctx.coils) report.coils = ctx.coils.report;
   const fx = fatShiftReport(protocol, seq, phantom, mag, o.iso.fatModel);
   report.fatShift = fx.report;
   (report.warnings as string[]).push(...fx.warnings);
   const dRead = protocol.fov.read / protocol.matrix.read, dPhase = protocol.fov.phase / protocol.matrix.phase;
   const files = await writeRunFolder(o.out, {
-    extra: o.truth ? truthFiles(fx.truth, displayTransform(axes)) : undefined,
+    extra: o.truth || ctx.coils ? new Map([...(o.truth ? truthFiles(fx.truth, displayTransform(axes)) : []), ...(ctx.coils?.files ?? [])]) : undefined,
     fatCentroid: fatCentroid(fx.truth, dRead, dPhase),
     kspace: kv,
     image: img,

@@ -8,6 +8,7 @@ import { UserError } from "../errors.js";
 import { listPresets, loadProtocol, logicalAxes, slicePositions, SEQUENCES, type Protocol } from "../protocol/index.js";
 import { buildSequence, type Derived, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
+import { predictProtocolFatShift } from "../analysis/index.js";
 import { printWarnings, SAFETY_NOTE } from "./pipeline.js";
 
 /** What the gradient and slew headroom is, and what it is not. */
@@ -79,6 +80,12 @@ export function protocolSummary(p: Protocol, seq: Sequence): Record<string, Deri
     d["sliceOrder"] = { value: ms.order.map((k) => k + 1).join(", "), unit: "", note: `${p.slices.order}, spatial indices from 1` };
     d["slicesPerTr"] = { value: Math.floor((p.tr + 1e-9) / seq.activeTime), unit: "slices", note: `at ${(seq.activeTime * 1e3).toFixed(2)} ms each` };
   }
+  // fat–water shifts: the analysis stage's predictions (the same numbers and formulas as report.json)
+  const fx = predictProtocolFatShift(p, seq);
+  const fat = `fat ${fx.ppm} ppm (Hamilton et al. 2011), Δf = ${fx.hz.toFixed(1)} Hz`;
+  d["fatShiftRead"] = { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; toward ${fx.readout.direction}; ${fat}` };
+  d["fatShiftSlice"] = { value: fx.slice.m, unit: "m", note: `${fx.slice.note}; toward ${fx.slice.direction}; ${fat}` };
+  if (fx.phase.px !== 0) d["fatShiftPhase"] = { value: fx.phase.px, unit: "px", note: `${fx.phase.note}; toward ${fx.phase.direction}; ${fat}` };
   d["activeTime"] = { value: seq.activeTime, unit: "s", note: "per TR per slice: excitation to the end of the last gradient" };
   return d;
 }

@@ -2,8 +2,8 @@
  * Remarks on how the phantom meets the sampling grid, made before a run:
  * shapes finer than the isochromat spacing (they can fall between the sample
  * points and vanish, or appear at a neighbouring point), and an object wider
- * than the field of view (it folds over along phase; along read only the span
- * the isochromat grid covers is simulated). Wiring only: the sizes come from
+ * than the field of view (it folds over along phase; along read the receiver
+ * filter removes it, or without the filter it folds over too). Wiring only: the sizes come from
  * the phantom's shape bounds and the protocol's geometry.
  */
 import type { Phantom } from "../phantom/index.js";
@@ -53,8 +53,12 @@ export function samplingRemarks(ph: Phantom, p: Protocol, density: number): Samp
   if (wPhase > fovPhase * (1 + 1e-9)) {
     fov.push(`the object spans ${(wPhase * 1e2).toPrecision(3)} cm along phase (${ax.names.phase}), more than the ${(fovPhase * 1e2).toPrecision(3)} cm the phase encoding covers: the parts outside fold over (wrap) into the image`);
   }
-  if (wRead > p.fov.read * (1 + 1e-9)) {
-    fov.push(`the object spans ${(wRead * 1e2).toPrecision(3)} cm along read (${ax.names.read}), more than the read FOV of ${(p.fov.read * 1e2).toPrecision(3)} cm: only ${(p.fov.read * p.oversampling.read * 1e2).toPrecision(3)} cm around the centre (FOV × read oversampling) is simulated, the receiver filter removes the rest`);
+  const sampled = p.fov.read * p.oversampling.read;
+  if (wRead > sampled * (1 + 1e-9)) {
+    fov.push(`the object spans ${(wRead * 1e2).toPrecision(3)} cm along read (${ax.names.read}), more than the sampled read FOV of ${(sampled * 1e2).toPrecision(3)} cm (FOV × read oversampling): ` +
+      (p.receiverFilter
+        ? "the receiver filter removes the signal from outside it"
+        : "with the receiver filter off the parts outside fold over (wrap) into the image"));
   }
   return { fine, fov, spacing };
 }

@@ -12,16 +12,16 @@ import type { Phantom } from "../phantom/index.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
 import { magnitude, reconstructGrid, toGrid } from "../recon/reconstruct.js";
 import { buildSequence } from "../sequence/index.js";
-import { isoOptionsFor, SAFETY_NOTE } from "./pipeline.js";
+import { isoOptionsFor, sampledLimits, slabCoverage, SAFETY_NOTE } from "./pipeline.js";
 
-/** Protocol + phantom → image, as a run does it (isochromat options raised for crushers and spoilers), one slice. */
+/** Protocol + phantom → image, as a run does it (through-slice count from the pathway moments, the run's sampled extent), one slice. */
 export function simulateSmall(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions>): SimOutput {
   const seq = buildSequence(p);
-  const opts = { ...isoOptionsFor(p, { ...defaultIsochromatOptions(), ...iso }), offsetHz: p.shim };
+  const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
+  const opts = { ...isoOptionsFor(p, { ...defaultIsochromatOptions(), ...iso }, seq, steps), offsetHz: p.shim };
   const set = makeIsochromats(ph, {
     axes: logicalAxes(p), dx: p.fov.read / p.matrix.read, dy: p.fov.phase / p.matrix.phase,
-    thickness: p.slice.thickness, position: p.slice.position,
-    clipRead: p.fov.read * p.oversampling.read, clipPhase: 1.5 * p.fov.phase * (1 + p.oversampling.phase),
+    thickness: p.slice.thickness, position: p.slice.position, ...sampledLimits(p),
   }, p.field, opts);
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
   const kacq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };

@@ -136,6 +136,9 @@ export interface ManifestEntry {
   params: Record<string, unknown>;
   /** file name → sha256 (hex). */
   files: Record<string, string>;
+  /** sha256 of the batch-wide settings (without the case index), and the batch size: parts of one batch share both. */
+  batch?: string;
+  count?: number;
 }
 
 export function sha256(data: Uint8Array | string): string {
@@ -146,9 +149,14 @@ export function caseDirName(i: number): string {
   return `case-${String(i).padStart(4, "0")}`;
 }
 
-export function readManifest(dir: string): Map<number, ManifestEntry> {
+/** Manifest file of a batch (all cases) or of the part with cases A … B−1 (`--cases A:B`). */
+export function manifestName(range?: [number, number]): string {
+  return range ? `manifest-${range[0]}-${range[1]}.jsonl` : "manifest.jsonl";
+}
+
+export function readManifest(dir: string, name = "manifest.jsonl"): Map<number, ManifestEntry> {
   const m = new Map<number, ManifestEntry>();
-  const file = join(dir, "manifest.jsonl");
+  const file = join(dir, name);
   if (!existsSync(file)) return m;
   for (const line of readFileSync(file, "utf8").split("\n")) {
     if (line.trim() === "") continue;
@@ -162,9 +170,9 @@ export function readManifest(dir: string): Map<number, ManifestEntry> {
   return m;
 }
 
-export function writeManifest(dir: string, entries: Map<number, ManifestEntry>): void {
+export function writeManifest(dir: string, entries: Map<number, ManifestEntry>, name = "manifest.jsonl"): void {
   const lines = [...entries.values()].sort((a, b) => a.case - b.case).map((e) => JSON.stringify(e));
-  writeFileAtomic(join(dir, "manifest.jsonl"), lines.join("\n") + "\n");
+  writeFileAtomic(join(dir, name), lines.join("\n") + "\n");
 }
 
 /** True if every file of the entry exists in its case folder with the listed checksum. */
@@ -193,25 +201,28 @@ export async function runBatch(
   dir: string, count: number, seed: number, keyOf: (i: number) => string,
   makeCase: (i: number) => CaseFiles | Promise<CaseFiles>,
   onCase?: (i: number, skipped: boolean) => void,
+  part?: { range?: [number, number]; batch?: string },
 ): Promise<{ made: number[]; skipped: number[] }> {
   mkdirSync(dir, { recursive: true });
-  const manifest = readManifest(dir);
+  const name = manifestName(part?.range);
+  const manifest = readManifest(dir, name);
   const made: number[] = [], skipped: number[] = [];
-  for (let i = 0; i < count; i++) {
-    const name = caseDirName(i), key = keyOf(i);
+  const [from, to] = part?.range ?? [0, count];
+  for (let i = from; i < to; i++) {
+    const folder = caseDirName(i), key = keyOf(i);
     const old = manifest.get(i);
-    if (old && old.dir === name && verifyCase(dir, old, key)) {
+    if (old && old.dir === folder && verifyCase(dir, old, key)) {
       skipped.push(i);
       onCase?.(i, true);
       continue;
     }
     // staging folders of an interrupted earlier run of this case (ours: case-NNNN.<pid>.tmp)
     for (const f of readdirSync(dir)) {
-      if (new RegExp(`^${name}\\.\\d+\\.tmp$`).test(f)) rmSync(join(dir, f), { recursive: true, force: true });
+      if (new RegExp(`^${folder}\\.\\d+\\.tmp$`).test(f)) rmSync(join(dir, f), { recursive: true, force: true });
     }
     manifest.delete(i);
     const { files, params } = await makeCase(i);
-    const stage = new OutputStage(join(dir, name));
+    const stage = new OutputStage(join(dir, folder));
     const hashes: Record<string, string> = {};
     try {
       for (const [f, bytes] of files) {
@@ -223,10 +234,60 @@ export async function runBatch(
       stage.abort();
       throw e;
     }
-    manifest.set(i, { case: i, dir: name, key, seed, params, files: hashes });
-    writeManifest(dir, manifest);
+    manifest.set(i, { case: i, dir: folder, key, seed, params, files: hashes, ...(part?.batch ? { batch: part.batch, count } : {}) });
+    writeManifest(dir, manifest, name);
     made.push(i);
     onCase?.(i, false);
   }
   return { made, skipped };
+}
+
+/**
+ * Joins the parts of one batch made with --cases A:B (their manifest-A-B.jsonl
+ * files in `dir`) into manifest.jsonl. Refuses, before writing anything:
+ * no parts; parts of other batches (settings hash or batch size differ);
+ * overlapping ranges; gaps (cases 0 … count−1 not all covered); a part that
+ * lacks cases of its range (not finished: run it again); a case whose files
+ * are missing or do not match their checksums.
+ */
+export function mergeDatasetParts(dir: string): { parts: string[]; count: number } {
+  let names: string[];
+  try {
+    names = readdirSync(dir);
+  } catch {
+    throw new UserError(`cannot read the folder ${dir}; give the --out folder of the dataset parts`, undefined, "dataset-merge");
+  }
+  const parts = names
+    .map((f) => ({ f, m: /^manifest-(\d+)-(\d+)\.jsonl$/.exec(f) }))
+    .filter((x) => x.m)
+    .map((x) => ({ file: x.f, from: Number(x.m![1]), to: Number(x.m![2]) }))
+    .sort((a, b) => a.from - b.from || a.to - b.to);
+  if (parts.length === 0) throw new UserError(`${dir} holds no part manifests (manifest-A-B.jsonl, written by isofold dataset --cases A:B)`, undefined, "dataset-merge");
+  const all = new Map<number, ManifestEntry>();
+  let batch: string | undefined, count: number | undefined, first = "";
+  let at = 0;
+  for (const p of parts) {
+    const m = readManifest(dir, p.file);
+    for (const e of m.values()) {
+      if (e.batch === undefined || e.count === undefined) throw new UserError(`${p.file}: case ${e.case} has no batch settings; make the part again with this version of isofold`, undefined, "dataset-merge");
+      if (batch === undefined) { batch = e.batch; count = e.count; first = p.file; }
+      if (e.batch !== batch || e.count !== count) {
+        throw new UserError(`${p.file} was made with other settings than ${first} (seed, protocol, phantom, coils, noise, mask, format, --count or version differ); merge only the parts of one batch`, undefined, "dataset-merge");
+      }
+      if (e.case < p.from || e.case >= p.to) throw new UserError(`${p.file} lists case ${e.case}, outside its range ${p.from}:${p.to}`, undefined, "dataset-merge");
+    }
+    if (p.from < at) throw new UserError(`${p.file} (cases ${p.from}–${p.to - 1}) overlaps another part that covers up to case ${at - 1}; remove one of them`, undefined, "dataset-merge");
+    if (p.from > at) throw new UserError(`cases ${at}–${p.from - 1} are missing: no part covers them; run isofold dataset … --cases ${at}:${p.from}`, undefined, "dataset-merge");
+    for (let i = p.from; i < p.to; i++) {
+      const e = m.get(i);
+      if (!e) throw new UserError(`${p.file} lacks case ${i}: that part did not finish; run it again with --cases ${p.from}:${p.to}`, undefined, "dataset-merge");
+      if (!verifyCase(dir, e, e.key)) throw new UserError(`the files of case ${i} (${e.dir}) are missing or do not match their checksums in ${p.file}; run isofold dataset … --cases ${p.from}:${p.to} again`, undefined, "dataset-merge");
+      all.set(i, e);
+    }
+    at = p.to;
+  }
+  if (count === undefined) throw new UserError(`the part manifests in ${dir} are empty; run the parts first`, undefined, "dataset-merge");
+  if (at !== count) throw new UserError(`cases ${at}–${count - 1} of ${count} are missing: run isofold dataset … --cases ${at}:${count}`, undefined, "dataset-merge");
+  writeManifest(dir, all);
+  return { parts: parts.map((p) => p.file), count };
 }

@@ -23,6 +23,11 @@ import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
 import { makeMask, type Mask, type MaskOptions } from "./masks.js";
 import { Rng, STREAM } from "./prng.js";
 import { simulateCoils } from "./simulate.js";
+import { addRawNoise, rawFile, rawSignal, type RawContext } from "./raw.js";
+
+/** Which raw k-space containers a case gets: kspace.npy (+ noise.npy), raw.h5 (ISMRMRD), or both. */
+export type DatasetFormat = "npy" | "ismrmrd" | "both";
+export const DATASET_FORMATS = ["npy", "ismrmrd", "both"] as const;
 
 export interface Dims {
   slice: number;
@@ -87,6 +92,8 @@ export interface CaseSettings {
   psi: CMatrix;
   /** Target SNR, or null for noise-free k-space. */
   snr: number | null;
+  /** σ set by the physical noise model (overrides snr). */
+  sigma?: number;
   /** Noise-only samples per coil to write as noise.npy (0 = none), each a readout of `read` samples. */
   noiseLines: number;
   mask: MaskOptions;
@@ -94,6 +101,12 @@ export interface CaseSettings {
   receiverFilter: boolean;
   /** Engine worker threads. */
   workers: number;
+  /** Raw containers to write (default both). */
+  format?: DatasetFormat;
+  /** Needed for raw.h5. */
+  raw?: RawContext;
+  /** Text for the raw.h5 header's user parameter "isofold". */
+  rawComment?: string;
 }
 
 export interface CaseGeometry {
@@ -131,6 +144,10 @@ export async function buildCase(
   const loops = s.array.elements > 0;
   const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress);
   const n = img.slice * img.phase * img.read;
+  const format = s.format ?? "both";
+  const wantRaw = format !== "npy";
+  if (wantRaw && !s.raw) throw new Error("buildCase: raw.h5 needs the raw context");
+  const raw = wantRaw ? rawSignal(k.re, k.im, loops ? 1 : 0, C, kd, img, seq.grid) : null;
   const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)
   const truth = { re: new Float64Array(2 * n), im: new Float64Array(2 * n) };
@@ -157,9 +174,20 @@ export async function buildCase(
   }
   // k-space on the image grid, noise, mask
   toKspace(coilRe, coilIm, C, img);
-  const { sigma, meanSignal, objectPixels } = s.snr === null ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr);
+  const stats = s.snr === null && s.sigma === undefined ? { sigma: 0, meanSignal: 0, objectPixels: 0 } : snrSigma(truth.re.subarray(0, n), truth.im.subarray(0, n), s.snr ?? 1);
+  const { meanSignal, objectPixels } = stats;
+  const sigma = s.sigma ?? stats.sigma;
   const L = cholesky(s.psi, "--noise-covariance");
-  if (sigma > 0) addNoise(coilRe, coilIm, C, n, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noise));
+  if (sigma > 0) {
+    // noise drawn into its own buffer, then added: the same sums as adding in place (0 + a = a exactly)
+    const nr = new Float64Array(C * n), ni = new Float64Array(C * n);
+    addNoise(nr, ni, C, n, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noise));
+    for (let i = 0; i < C * n; i++) {
+      coilRe[i] = coilRe[i]! + nr[i]!;
+      coilIm[i] = coilIm[i]! + ni[i]!;
+    }
+    if (raw) addRawNoise(raw.re, raw.im, nr, ni, C, img.slice * img.phase, img.read, raw.read, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.rawMargin));
+  }
   const mask = makeMask(img.slice, img.phase, s.mask, Rng.stream(s.seed, caseIndex, STREAM.mask));
   for (let c = 0; c < C; c++) {
     for (let p = 0; p < img.slice; p++) {
@@ -173,7 +201,7 @@ export async function buildCase(
   }
   const shape = [C, img.slice, img.phase, img.read];
   const files = new Map<string, Uint8Array | string>();
-  files.set("kspace.npy", encodeNpy({ dtype: "complex64", shape, data: { re: coilRe, im: coilIm } }));
+  if (format !== "ismrmrd") files.set("kspace.npy", encodeNpy({ dtype: "complex64", shape, data: { re: coilRe, im: coilIm } }));
   files.set("mask.npy", encodeNpy({ dtype: "uint8", shape: [img.slice, img.phase], data: mask.data }));
   const sr = new Float64Array(C * n), si = new Float64Array(C * n);
   for (let i = 0; i < C * n; i++) {
@@ -188,12 +216,19 @@ export async function buildCase(
     cov.im[i] = sigma * sigma * s.psi.im[i]!;
   }
   files.set("noise_covariance.npy", encodeNpy({ dtype: "complex64", shape: [C, C], data: cov }));
+  let noiseRaw: { re: Float64Array; im: Float64Array; lines: number } | null = null;
   if (s.noiseLines > 0) {
     const m = s.noiseLines * img.read;
     const nr = new Float64Array(C * m), ni = new Float64Array(C * m);
     addNoise(nr, ni, C, m, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.noiseLines));
-    files.set("noise.npy", encodeNpy({ dtype: "complex64", shape: [C, s.noiseLines, img.read], data: { re: nr, im: ni } }));
+    if (format !== "ismrmrd") files.set("noise.npy", encodeNpy({ dtype: "complex64", shape: [C, s.noiseLines, img.read], data: { re: nr, im: ni } }));
+    if (raw) {
+      const M = raw.read;
+      noiseRaw = { re: new Float64Array(C * s.noiseLines * M), im: new Float64Array(C * s.noiseLines * M), lines: s.noiseLines };
+      addRawNoise(noiseRaw.re, noiseRaw.im, nr, ni, C, s.noiseLines, img.read, M, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.rawNoiseLinesMargin));
+    }
   }
+  if (raw) files.set("raw.h5", rawFile(s.raw!, raw, noiseRaw, C, img, mask, s.rawComment ?? "isofold dataset case"));
   const mag = new Float32Array(n);
   for (let i = 0; i < n; i++) mag[i] = Math.hypot(truth.re[i]!, truth.im[i]!);
   files.set("truth.nii", encodeNifti1({

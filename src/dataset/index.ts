@@ -10,3 +10,4 @@ export * from "./masks.js";
 export * from "./simulate.js";
 export * from "./case.js";
 export * from "./batch.js";
+export * from "./raw.js";

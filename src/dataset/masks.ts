@@ -22,6 +22,11 @@
  *   centre block (ACS lines × min(ACS, slice-encoding steps) slice-encoding steps) is taken first
  *   and fully. r is found by bisection so that the count is nearest N·P/R.
  *   With one slice-encoding step it is a Poisson-disc pattern over the phase lines.
+ * - random with exact: per slice-encoding step exactly round(N/R) lines: the
+ *   ACS lines, and the rest drawn without replacement from the other lines
+ *   (those partial Fourier keeps) with weights p(y), by the keys u^(1/p)
+ *   (P. S. Efraimidis, P. G. Spirakis, "Weighted random sampling with a
+ *   reservoir", Inf. Process. Lett. 97 (2006) 181–185): the largest keys win.
  * - partial Fourier F ∈ (0.5, 1] (any mask): phase lines y < N − round(F·N)
  *   (the first, negative-k lines) are removed.
  */
@@ -39,6 +44,8 @@ export interface MaskOptions {
   acs: number;
   /** Partial Fourier fraction of phase lines kept, (0.5, 1]. */
   partialFourier: number;
+  /** random only: exactly round(N/R) lines per slice-encoding step (ACS included) instead of N/R on average. */
+  exact?: boolean;
 }
 
 export interface Mask {
@@ -69,6 +76,13 @@ export function checkMaskOptions(o: MaskOptions, sliceSteps: number, phase: numb
     throw new UserError(`${o.acs} centre lines already exceed the ${(phase / o.accel).toFixed(1)} lines that acceleration ${o.accel} allows; use fewer --acs lines or a lower --accel`, undefined, "--acs");
   }
   if (!(o.partialFourier > 0.5 && o.partialFourier <= 1)) throw new UserError(`partial Fourier fraction must be in (0.5, 1], got ${o.partialFourier}`, undefined, "--partial-fourier");
+  if (o.exact) {
+    if (o.kind !== "random") throw new UserError(`--exact applies to --mask random (uniform and poisson are not drawn line by line); drop --exact or use --mask random`, undefined, "--exact");
+    const kept = Math.round(o.partialFourier * phase);
+    if (Math.round(phase / o.accel) > kept) {
+      throw new UserError(`acceleration ${o.accel} needs ${Math.round(phase / o.accel)} lines but partial Fourier ${o.partialFourier} keeps only ${kept}; use a higher --accel or a larger --partial-fourier`, undefined, "--exact");
+    }
+  }
 }
 
 /** First ACS line index along an axis of n points with `acs` lines. */
@@ -114,6 +128,25 @@ export function makeMask(sliceSteps: number, phase: number, o: MaskOptions, rng:
         const onGrid = (((y - c) % o.accel) + o.accel) % o.accel === 0;
         data[p * phase + y] = onGrid || (y >= a0 && y < a0 + o.acs) ? 1 : 0;
       }
+    }
+  } else if (o.kind === "random" && o.exact) {
+    density = randomDensity(phase, o.accel, o.acs);
+    const first = phase - Math.round(o.partialFourier * phase), want = Math.round(phase / o.accel);
+    const key = new Float64Array(phase);
+    for (let p = 0; p < sliceSteps; p++) {
+      let have = 0;
+      const free: number[] = [];
+      for (let y = 0; y < phase; y++) {
+        key[y] = rng.uniform(); // one draw per line, always, so the stream does not depend on the ACS
+        if (y >= a0 && y < a0 + o.acs) {
+          if (y >= first) { data[p * phase + y] = 1; have++; }
+        } else if (y >= first && density[y]! > 0) {
+          key[y] = Math.pow(key[y]!, 1 / density[y]!);
+          free.push(y);
+        }
+      }
+      free.sort((a, b) => key[b]! - key[a]! || a - b);
+      for (let k = 0; k < Math.min(free.length, Math.max(0, want - have)); k++) data[p * phase + free[k]!] = 1;
     }
   } else if (o.kind === "random") {
     density = randomDensity(phase, o.accel, o.acs);

@@ -194,3 +194,42 @@ export function snrSigma(truthRe: Float64Array, truthIm: Float64Array, snr: numb
   const A = count > 0 ? sum / count : 0;
   return { sigma: (A * Math.sqrt(n)) / snr, meanSignal: A, objectPixels: count };
 }
+
+/**
+ * Physical noise model: the quantities of a protocol that set the image SNR
+ * of one coil (Ψ_cc = 1) for a given object, apart from the signal itself.
+ *   SNR ∝ V · √T_acq · B0^β,  T_acq = averages × phase lines × slice-encoding steps × readout duration
+ * (voxel volume times the square root of the total sampling time: W. A.
+ * Edelstein, G. H. Glover, C. J. Hardy, R. W. Redington, "The intrinsic
+ * signal-to-noise ratio in NMR imaging", Magn. Reson. Med. 3 (1986) 604–618,
+ * from memory; common practice). β = FIELD_EXPONENT = 1: sample-noise-dominated regime of
+ * D. I. Hoult and R. E. Richards, "The signal-to-noise ratio of the nuclear
+ * magnetic resonance experiment", J. Magn. Reson. 24 (1976) 71–85, the usual
+ * assumption at clinical field strengths (common practice).
+ */
+export const FIELD_EXPONENT = 1;
+
+export interface SnrFactors {
+  /** Voxel volume (m³) of the image grid. */
+  voxel: number;
+  /** Total sampling time (s): averages × phase lines (with phase oversampling) × slice-encoding steps × readout duration. */
+  acquisition: number;
+  /** B0 (T). */
+  field: number;
+}
+
+export function snrFactor(f: SnrFactors): number {
+  return f.voxel * Math.sqrt(f.acquisition) * f.field ** FIELD_EXPONENT;
+}
+
+/**
+ * σ (per k-space sample on the image grid of `points` points, as in snrSigma)
+ * of a protocol, given the reference: its mean object signal A_ref, its SNR
+ * and its factors. The image noise of one coil, σ_img = σ/√N, scales as
+ * 1/snrFactor; at the reference σ_img,ref = A_ref/SNR_ref. The noise does not
+ * depend on the case's own signal (contrast), only on how it is sampled.
+ */
+export function physicalSigma(ref: { meanSignal: number; snr: number; factors: SnrFactors }, own: SnrFactors, points: number): number {
+  const sigmaImgRef = ref.meanSignal / ref.snr;
+  return sigmaImgRef * (snrFactor(ref.factors) / snrFactor(own)) * Math.sqrt(points);
+}

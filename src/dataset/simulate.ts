@@ -7,7 +7,7 @@
  * isochromats, so block k-spaces add. Each block runs on the engine's worker
  * pool (bitwise the same k-space for any number of workers).
  */
-import { simulateParallel, type KSpace } from "../engine/index.js";
+import { simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
@@ -37,8 +37,17 @@ export async function simulateCoils(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
 ): Promise<KSpace> {
+  return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress)).kspace;
+}
+
+/** simulateCoils, also returning the engine plan (of the last block) for reports. */
+export async function simulateCoilsPlanned(
+  seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
+  onProgress?: (done: number, total: number) => void,
+): Promise<{ kspace: KSpace; plan: EnginePlan }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (C === 1) return (await simulateParallel(seq, iso, { receiverFilter, workers, onProgress })).kspace;
+  if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress });
+  let plan: EnginePlan | null = null;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
   let c0 = 0;
@@ -56,14 +65,15 @@ export async function simulateCoils(
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace } = await simulateParallel(seq, sub, {
+    const { kspace, plan: p } = await simulateParallel(seq, sub, {
       receiverFilter, coils: C, sens, workers,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
+    plan = p;
     for (let i = 0; i < re.length; i++) {
       re[i] = re[i]! + kspace.re[i]!;
       im[i] = im[i]! + kspace.im[i]!;
     }
   }
-  return { coils: C, rows, read, re, im };
+  return { kspace: { coils: C, rows, read, re, im }, plan: plan! };
 }

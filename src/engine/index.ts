@@ -117,3 +117,4 @@ export async function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: 
     await pool.terminate();
   }
 }
+export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";

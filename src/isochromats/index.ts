@@ -74,9 +74,27 @@ export interface IsoGeometry {
   dy: number;
   thickness: number;
   position: number;
-  /** Limits (m) along read and phase beyond which the object is not sampled (clipped infinite shapes). */
+  /**
+   * Half-extents (m) along read and phase beyond which the object is not
+   * sampled; Infinity samples every shape's full extent (so tissue outside the
+   * FOV wraps as on a scanner). A finite limit that cuts tissue adds a warning
+   * naming the shapes and the extent left out, unless `readStopBand` says the
+   * read limit lies where the receiver filter passes nothing (then a note).
+   */
   clipRead: number;
   clipPhase: number;
+  /** Half-extents (m) used for shapes that are unbounded along read / phase (2D shapes on a tilted plane); default: the clip, or 1.5 m. */
+  unboundedRead?: number;
+  unboundedPhase?: number;
+  /** The read clip is where the receiver filter stops all signal (tissue beyond it cannot contribute). */
+  readStopBand?: boolean;
+}
+
+/** Sampled range (m) along each logical axis, for reports. */
+export interface SampledExtent {
+  read: [number, number];
+  phase: [number, number];
+  slice: [number, number];
 }
 
 /** The isochromats, structure of arrays. */
@@ -105,6 +123,10 @@ export interface IsochromatSet {
   colStart: Int32Array;
   columns: number;
   warnings: string[];
+  /** Facts about the sampling that lose no signal (e.g. tissue beyond the receiver filter's stop band). */
+  notes: string[];
+  /** Range of the isochromat grid along read, phase and slice (m). */
+  extent: SampledExtent;
   /** T2′ spread per tissue (index as phantom.tissues). */
   spreads: TissueSpread[];
 }
@@ -178,16 +200,34 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
   const bounds = phantomBounds(ph);
   let [u0, u1] = project(bounds, axes.read);
   let [v0, v1] = project(bounds, axes.phase);
-  if (!Number.isFinite(u0) || !Number.isFinite(u1) || u0 < -geo.clipRead || u1 > geo.clipRead) {
-    if (!Number.isFinite(u0) || !Number.isFinite(u1)) warnings.push(`the phantom is unbounded along read; sampled only within ±${(geo.clipRead * 100).toFixed(1)} cm`);
-    u0 = Math.max(u0, -geo.clipRead);
-    u1 = Math.min(u1, geo.clipRead);
-  }
-  if (!Number.isFinite(v0) || !Number.isFinite(v1) || v0 < -geo.clipPhase || v1 > geo.clipPhase) {
-    if (!Number.isFinite(v0) || !Number.isFinite(v1)) warnings.push(`the phantom is unbounded along phase; sampled only within ±${(geo.clipPhase * 100).toFixed(1)} cm`);
-    v0 = Math.max(v0, -geo.clipPhase);
-    v1 = Math.min(v1, geo.clipPhase);
-  }
+  const notes: string[] = [];
+  const cm = (x: number) => `${(x * 100).toFixed(1)} cm`;
+  /** Shapes whose projection on `dir` reaches beyond ±lim, by label or kind and index. */
+  const beyond = (dir: number[], lim: number): string[] =>
+    ph.shapes.flatMap((sh, i) => {
+      const [a, b] = project(sh.bounds(), dir);
+      return a < -lim || b > lim ? [sh.label ? `"${sh.label}"` : `${sh.type} #${i + 1} (${ph.tissues[sh.tissue]?.name ?? "?"})`] : [];
+    });
+  const limit = (name: "read" | "phase", lo: number, hi: number, clip: number, unbounded: number | undefined, dir: number[], stopBand: boolean): [number, number] => {
+    if (!(lo < hi)) return [lo, hi];
+    let lim = clip;
+    const open = !Number.isFinite(lo) || !Number.isFinite(hi);
+    if (open) lim = Math.min(lim, unbounded ?? (Number.isFinite(clip) ? clip : 1.5));
+    if (lo >= -lim && hi <= lim) return [lo, hi];
+    const shapes = beyond(dir, lim).join(", ");
+    const reach = open ? "unbounded" : `${cm(lo)} … ${cm(hi)}`;
+    if (stopBand && !open) {
+      notes.push(`along ${name} the phantom reaches ${reach}; sampled within ±${cm(lim)}, where the receiver filter still passes signal (${shapes} extend beyond it)`);
+    } else {
+      warnings.push(
+        `along ${name} the phantom reaches ${reach} but is sampled only within ±${cm(lim)}: tissue of ${shapes} beyond that is left out and cannot wrap into the image` +
+          (open ? " (a 2D shape is infinite along z: use 3D shapes of finite length)" : ""),
+      );
+    }
+    return [Math.max(lo, -lim), Math.min(hi, lim)];
+  };
+  [u0, u1] = limit("read", u0, u1, geo.clipRead, geo.unboundedRead, axes.read, geo.readStopBand === true);
+  [v0, v1] = limit("phase", v0, v1, geo.clipPhase, geo.unboundedPhase, axes.phase, false);
   // Grid index i ↦ u = (i + 0.5)·du − dx/2, so the d isochromats of pixel n sit symmetrically about n·dx.
   const iu0 = Math.floor((u0 + dx / 2) / du) - 1;
   const iu1 = Math.ceil((u1 + dx / 2) / du) + 1;
@@ -302,6 +342,48 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
     colStart: Int32Array.from(colStart),
     columns: colStart.length - 1,
     warnings,
+    notes,
+    extent: {
+      read: [nu > 0 ? uGrid[0]! - du / 2 : 0, nu > 0 ? uGrid[nu - 1]! + du / 2 : 0],
+      phase: [nv > 0 ? vGrid[0]! - dv / 2 : 0, nv > 0 ? vGrid[nv - 1]! + dv / 2 : 0],
+      slice: [position - span / 2, position + span / 2],
+    },
     spreads,
+  };
+}
+
+/**
+ * One column of isochromats at the in-plane centre (u = v = 0), `sliceCount`
+ * through the slice over `sliceExtent` thicknesses, shifted by `shift` grid
+ * steps (e.g. ½ for the half-step check), one isochromat per tissue per w on
+ * resonance plus `offsetHz`. A probe for checks of the through-slice
+ * sampling; m0 = pd·Δw/thickness, so an ideal rectangular slice gives pd.
+ */
+export function probeColumn(
+  tissues: { pd: number; t1: number; t2: number }[], axes: Axes, thickness: number, position: number,
+  sliceCount: number, sliceExtent: number, offsetHz: number, shift = 0,
+): IsochromatSet {
+  const nw = sliceCount, nt = tissues.length, n = nw * nt;
+  const A = allocate(n);
+  const span = sliceExtent * thickness, dw = span / nw;
+  const wGrid = new Float64Array(nw);
+  for (let i = 0; i < nw; i++) wGrid[i] = position - span / 2 + (i + 0.5 + shift) * dw;
+  const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
+  let at = 0;
+  for (let c = 0; c < nw; c++) {
+    for (let t = 0; t < nt; t++) {
+      const w = wGrid[c]!;
+      A.iu[at] = 0; A.iv[at] = 0; A.iw[at] = c;
+      A.x[at] = axes.slice[0] * w; A.y[at] = axes.slice[1] * w; A.z[at] = axes.slice[2] * w;
+      A.m0[at] = (tissues[t]!.pd * dw) / thickness; A.r1[at] = inv(tissues[t]!.t1); A.r2[at] = inv(tissues[t]!.t2);
+      A.df[at] = offsetHz; A.tissue[at] = t; A.peak[at] = 0;
+      at++;
+    }
+  }
+  return {
+    count: n, uGrid: new Float64Array([0]), vGrid: new Float64Array([0]), wGrid, ...A,
+    colStart: Int32Array.from([0, n]), columns: 1, warnings: [], notes: [],
+    extent: { read: [0, 0], phase: [0, 0], slice: [wGrid[0]! - dw / 2, wGrid[nw - 1]! + dw / 2] },
+    spreads: tissues.map((_, i) => ({ tissue: String(i), t2prime: Infinity, count: 1 })),
   };
 }

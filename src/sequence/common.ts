@@ -17,9 +17,6 @@ import { makePulse } from "./rf.js";
 import { minTrapezoid, rampTime, type Trapezoid } from "./trapezoid.js";
 import type { Block, Derived, RFWaveform, Vec3 } from "./types.js";
 
-/** Fat–water offset used in reports: main methylene peak −3.4 ppm (Hamilton et al. 2011, NMR Biomed 24:784). */
-export const FAT_PPM = 3.4;
-
 /** Peak gradient amplitude and slew demanded on each logical axis [read, phase, slice]. */
 export class Demand {
   gradient: Vec3 = [0, 0, 0];
@@ -270,13 +267,11 @@ export function commonDerived(
   const dkRead = 1 / p.fov.read;
   const dkPhase = 1 / p.fov.phase;
   const bwTotal = p.pixelBandwidth * p.matrix.read;
-  const fatHz = FAT_PPM * 1e-6 * GAMMA_BAR * p.field;
   const voxel = (p.fov.read / p.matrix.read) * (p.fov.phase / p.matrix.phase) * p.slice.thickness;
   const d: Record<string, Derived> = {
     pixelBandwidth: { value: p.pixelBandwidth, unit: "Hz/px", note: `as given: ${p.bandwidthAsGiven}` },
     totalBandwidth: { value: bwTotal, unit: "Hz", note: "matrix.read × pixel bandwidth" },
     halfBandwidth: { value: bwTotal / 2, unit: "Hz", note: "± half of the total bandwidth" },
-    fatShiftRead: { value: fatHz / p.pixelBandwidth, unit: "px", note: `fat–water shift along read at ${FAT_PPM} ppm (Hamilton et al. 2011)` },
     sampledBandwidth: { value: 1 / ro.dwell, unit: "Hz", note: "1/dwell, with read oversampling" },
     dwell: { value: ro.dwell, unit: "s", note: "time between acquired readout samples (1/sampled bandwidth)" },
     readoutDuration: { value: ro.flat, unit: "s", note: "ADC window (= 1/pixel bandwidth without asymmetric echo)" },
@@ -299,11 +294,6 @@ export function commonDerived(
     },
     sliceGradient: { value: exc.pulse.gradient, unit: "T/m" },
     rfBandwidth: { value: exc.pulse.gradient * GAMMA_BAR * (sliceSteps > 1 ? sliceSteps * p.slice.thickness : p.slice.thickness), unit: "Hz" },
-    fatShiftSlice: {
-      value: exc.pulse.gradient > 0 ? fatHz / (GAMMA_BAR * exc.pulse.gradient) : 0,
-      unit: "m",
-      note: `Δz = Δf/(γ̄·G_slice), fat at ${FAT_PPM} ppm`,
-    },
     voxelVolume: { value: voxel, unit: "m^3" },
     relativeSnr: {
       value: relativeSnr(voxel, p.averages, pe.acquired, sliceSteps, ro.flat),

@@ -129,14 +129,15 @@ export function buildEpi(p: Protocol): Sequence {
   }
   const derived = commonDerived(p, pos, pe, exc, demand);
   const scanTime = total * p.tr;
-  const dispPerHz = (esp * pe.lines) / S;
+  // time per phase-encoding step: shot s reads lines s, s + S, … staggered by ESP/S (echo-time shifting)
+  const tau = esp / S;
   derived["echoSpacing"] = { value: esp, unit: "s", note: "2·ramp + (N+1)·dwell (+ blip excess), from the trapezoids" };
+  derived["effectiveEchoSpacing"] = { value: tau, unit: "s", note: "ESP/shots: time between adjacent phase-encoding lines; sets the phase-direction shift and distortion" };
   derived["echoesPerShot"] = { value: E, unit: "echoes" };
   derived["shots"] = { value: S, unit: "excitations" };
   derived["phaseBlipArea"] = { value: S * pe.step, unit: "T·s/m" };
   derived["phaseBlipDuration"] = { value: blip.duration, unit: "s" };
-  derived["phasePixelBandwidth"] = { value: 1 / dispPerHz, unit: "Hz/px", note: "shots/(ESP·N_lines): Δy_px = Δf/BW_px,phase (Jezzard & Balaban 1995)" };
-  derived["fatShiftPhase"] = { value: 3.4e-6 * GAMMA_BAR * p.field * dispPerHz, unit: "px", note: "fat at 3.4 ppm, along phase" };
+  derived["phasePixelBandwidth"] = { value: 1 / (tau * pe.lines), unit: "Hz/px", note: "1/(N_lines·ESP/shots): Δy_px = Δf/BW_px,phase (Jezzard & Balaban 1995)" };
   derived["trainDuration"] = { value: trainTime, unit: "s" };
   derived["prephaserDuration"] = { value: prep.duration, unit: "s" };
   derived["prephaserReadAmplitude"] = { value: prep.trap[0]!.amplitude, unit: "T/m" };

@@ -8,7 +8,7 @@ import type { Sequence } from "./types.js";
 
 export * from "./types.js";
 export { minTrapezoid, GRAD_RASTER } from "./trapezoid.js";
-export { makePulse } from "./rf.js";
+export { makePulse, profileReach as pulseProfileReach } from "./rf.js";
 export { readoutPlan, phasePlan, relativeSnr, SNR_REFERENCE } from "./common.js";
 
 /** Builds the Sequence a protocol describes. */
@@ -27,3 +27,4 @@ export function buildSequence(p: Protocol): Sequence {
       return buildEpi(p);
   }
 }
+export { pathwayMoments, aliasFreeCount, type PathwayMoments } from "./pathways.js";

@@ -59,3 +59,33 @@ export function makePulse(
   }
   return { id, name, dt, b1re, b1im, duration: spec.duration, gradient, flip, centre };
 }
+
+/**
+ * Reach of a pulse's slice profile (m from the slice centre): the largest
+ * distance, searched out to `limit`, at which the small-tip profile
+ * |Σ B1(t)·exp(i2πγ̄G·w·t)·dt| (Fourier transform of the waveform; Pauly,
+ * Nishimura & Macovski 1989, J Magn Reson 81:43) is still at least `level` of
+ * its value at the centre. Infinity for a non-selective pulse (G = 0).
+ */
+export function profileReach(pulse: RFWaveform, position: number, limit: number, level = 1e-3): number {
+  if (pulse.gradient === 0) return Infinity;
+  const resp = (w: number, sign: number): number => {
+    const f = GAMMA_BAR * pulse.gradient * w;
+    let re = 0, im = 0;
+    for (let s = 0; s < pulse.b1re.length; s++) {
+      const th = sign * 2 * Math.PI * f * (s + 0.5) * pulse.dt;
+      const c = Math.cos(th), sn = Math.sin(th);
+      re += pulse.b1re[s]! * c - pulse.b1im[s]! * sn;
+      im += pulse.b1re[s]! * sn + pulse.b1im[s]! * c;
+    }
+    return Math.hypot(re, im);
+  };
+  const sign = resp(position, 1) >= resp(position, -1) ? 1 : -1;
+  const peak = resp(position, sign);
+  const step = 1 / (4 * GAMMA_BAR * Math.abs(pulse.gradient) * pulse.duration); // a quarter of the profile's finest detail
+  let reach = 0;
+  for (let d = 0; d <= limit; d += step) {
+    if (resp(position + d, sign) >= level * peak || resp(position - d, sign) >= level * peak) reach = d;
+  }
+  return reach;
+}

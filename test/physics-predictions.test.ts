@@ -1,0 +1,85 @@
+/**
+ * The closed-form shift predictions report.json and the `protocol` table use
+ * (analysis: fatShiftInput / predictProtocolFatShift), checked against the
+ * shift of simulated images. An off-resonance Δf is given as a uniform B0
+ * offset and handed to the prediction as the equivalent chemical shift
+ * ppm = Δf/(γ̄·B0), so the predicted number is the one the report prints.
+ * Shifts are measured between the Δf image and the Δf = 0 image by phase
+ * correlation (Kuglin & Hines 1975, helper in sequence-helpers.ts).
+ */
+import { describe, expect, it } from "vitest";
+import { GAMMA_BAR } from "../src/constants.js";
+import { fatShiftInput, predictFatShift, predictProtocolFatShift } from "../src/analysis/index.js";
+import { buildSequence } from "../src/sequence/index.js";
+import type { ComplexVolume } from "../src/recon/reconstruct.js";
+import { phantom, phaseShift, proto, simulate, tissue } from "./sequence-helpers.js";
+
+const disc = (df: number) =>
+  phantom({
+    tissues: { gel: tissue("2000 ms", "2000 ms") },
+    shapes: [{ shape: "ellipse", center: ["0.3 cm", "-0.2 cm"], semiAxes: ["2.5 cm", "2.5 cm"], tissue: "gel" }],
+    b0: { expression: String(df) },
+  });
+
+/** The [phase][read] image transposed to [read][phase], so phaseShift measures along read. */
+function transpose(v: ComplexVolume, nPhase: number, nRead: number): { re: Float64Array; im: Float64Array } {
+  const re = new Float64Array(nPhase * nRead), im = new Float64Array(nPhase * nRead);
+  for (let y = 0; y < nPhase; y++) for (let x = 0; x < nRead; x++) {
+    re[x * nPhase + y] = v.re[y * nRead + x]!;
+    im[x * nPhase + y] = v.im[y * nRead + x]!;
+  }
+  return { re, im };
+}
+
+const ppmOf = (df: number, fieldT: number) => (df / (GAMMA_BAR * fieldT)) * 1e6;
+
+describe("readout shift carries the sign of the read gradient: Δx = sign(G_read)·Δf/BW_px pixels", () => {
+  // Closed form: a spin at u with offset Δf is read at γ̄G·u + Δf, so it appears at u + Δf/(γ̄G);
+  // |γ̄G|·Δx = BW_px (Bernstein, King & Zhou 2004, ch. 11); the sign follows G.
+  for (const polarity of ["positive", "negative"]) {
+    for (const phaseDirection of ["y", "x"]) {
+      const readAxis = phaseDirection === "y" ? "x" : "y";
+      it(`readout polarity ${polarity}, readout along ${readAxis}: measured = predicted within 0.1 px`, () => {
+        const df = -250, bw = 125; // −2 px at a positive read gradient
+        const p = proto({ readoutPolarity: polarity, phaseDirection, bandwidth: `${bw} Hz/px` });
+        const a = simulate(p, disc(0)), b = simulate(p, disc(df));
+        const n = p.matrix.phase, m = p.matrix.read;
+        const measured = phaseShift(transpose(a.image, n, m), transpose(b.image, n, m), m, n);
+        const pred = predictProtocolFatShift(p, b.seq, ppmOf(df, p.field));
+        const sign = polarity === "positive" ? 1 : -1;
+        expect(pred.readout.px).toBeCloseTo((sign * df) / bw, 9);
+        expect(pred.readout.direction).toBe(`${sign * df > 0 ? "+" : "-"}${readAxis}`);
+        expect(Math.abs(measured - pred.readout.px), `measured ${measured} px, predicted ${pred.readout.px} px`).toBeLessThan(0.1);
+      });
+    }
+  }
+});
+
+describe("EPI phase-direction shift uses the effective echo spacing ESP/shots", () => {
+  // Closed form: Δy = Δf·N_lines·ESP/shots pixels (Jezzard & Balaban 1995, MRM 34:65; echo-time shifting of
+  // interleaved shots, Feinberg & Oshio 1994, MRM 32:535); the prediction reads the sequence's effectiveEchoSpacing.
+  for (const shots of [1, 2, 4]) {
+    it(`${shots} shot(s): report prediction = ESP/shots form = measured shift within 0.2 px`, () => {
+      const df = 150;
+      const p = proto({ sequence: "epi", tr: "500 ms", te: "30 ms", bandwidth: "2000 Hz/px", shots, dummyScans: shots > 1 ? 1 : 0 });
+      const a = simulate(p, disc(0)), b = simulate(p, disc(df));
+      const esp = b.seq.derived["echoSpacing"]!.value as number;
+      expect(b.seq.derived["effectiveEchoSpacing"]!.value).toBeCloseTo(esp / shots, 15);
+      const input = fatShiftInput(p, b.seq, ppmOf(df, p.field));
+      expect(input.effectiveEchoSpacing).toBeCloseTo(esp / shots, 15);
+      const pred = predictFatShift(input);
+      const closed = (df * p.matrix.phase * esp) / shots;
+      expect(pred.phase.px).toBeCloseTo(closed, 9);
+      const measured = phaseShift(a.image, b.image, p.matrix.phase, p.matrix.read);
+      expect(Math.abs(closed)).toBeGreaterThan(0.5);
+      expect(Math.abs(measured - pred.phase.px), `measured ${measured} px, predicted ${pred.phase.px} px`).toBeLessThan(0.2);
+    });
+  }
+  it("no phase-direction prediction for spin-warp echo trains (RARE has an echo spacing but one line per echo)", () => {
+    // Each RARE echo is refocused: off-resonance phase does not build up along the phase-encoding order
+    const p = proto({ sequence: "rare", tr: "2000 ms", te: "40 ms", echoTrainLength: 4, refocusing: { shape: "hard", duration: "0.2 ms", steps: 20 } });
+    const pred = predictProtocolFatShift(p, buildSequence(p));
+    expect(pred.phase.px).toBe(0);
+    expect(pred.readout.px).toBeLessThan(0);
+  });
+});
