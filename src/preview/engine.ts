@@ -12,6 +12,9 @@ import { toGrid, reconstructGrid, magnitude } from "../recon/reconstruct.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
+import { loadPhantom } from "../phantom/index.js";
+import { loadProtocol } from "../protocol/index.js";
+import { buildSequence } from "../sequence/index.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
 import { displayTransform, type DisplayTransform } from "../report/display.js";
 import { encodeNpy } from "../io/npy.js";
@@ -83,14 +86,20 @@ export function qualityOptions(q: Quality, fatModel: "single" | "multi"): Isochr
 
 export class Cancelled extends Error {}
 
-let lastPrepared: { phantom: Parameters<typeof checkProtocol>[0]; protocol: Protocol; seq: Parameters<typeof checkProtocol>[2] } | null = null;
-
-/** `isofold check` (default thresholds and ROI) on the inputs of the last run. */
-export function checkLast(): CheckResult | null {
-  if (!lastPrepared) return null;
-  const c = checkProtocol(lastPrepared.phantom, lastPrepared.protocol, lastPrepared.seq, {});
-  c.notes.push(...lastPrepared.protocol.warnings.map((w) => `protocol: ${w}`), ...lastPrepared.phantom.warnings.map((w) => `phantom: ${w}`));
-  return c;
+/** `isofold check` with its default thresholds and ROI on the request's inputs (as cli/check.ts runCheck, without its option parsing). */
+export function checkRequest(req: RunRequest): CheckResult {
+  const protocol = loadProtocol(req.protocol, req.sets);
+  let seq;
+  try {
+    seq = buildSequence(protocol);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(req.protocol);
+    throw e;
+  }
+  const phantom = loadPhantom(req.phantom, protocol.field);
+  const result = checkProtocol(phantom, protocol, seq, {});
+  result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
+  return result;
 }
 
 /** Runs one request; `stop()` is asked between engine chunks and a true answer throws Cancelled. */
@@ -102,9 +111,8 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
   const protocol = prep.protocol;
   const mid = prep.slices.length > 1 ? prep.slices[Math.floor(prep.slices.length / 2)]! : prep.slices[0]!;
   const seq = mid.seq;
+  // the closed-form check of this edit runs in the other worker (see checkRequest)
   const check: CheckResult | null = null;
-  // the closed-form check of this edit runs after its image is painted (see checkLast)
-  lastPrepared = { phantom: prep.phantom, protocol, seq };
   const t0 = performance.now();
   timings.prepare = t0 - tStart;
   // the serial engine run of engine/index.ts (simulateSerial), chunk by chunk so a newer edit can stop it
@@ -157,7 +165,7 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
     display: displayTransform(logicalAxes(protocol)),
     fatShift, check,
     warnings: [...new Set([...protocol.warnings, ...mid.iso.warnings])],
-    isochromats: mid.iso.count, engineMs, timings: { ...timings, recon: performance.now() - t1 },
+    isochromats: mid.iso.count, engineMs, timings: { ...timings, recon: performance.now() - t1, total: performance.now() - tStart },
     iso: isoOptionsFor(protocol, iso),
     kspaceNpy: vol(grid), imageNpy: vol(img),
     derived: seq.derived as Record<string, unknown>,

@@ -46,10 +46,13 @@ let gen = 0;
 let shared: Int32Array | null = null;
 let last: RunOutput | null = null;
 const editStart = new Map<number, number>();
-const latencies: { gen: number; ms: number; matrix: number }[] = [];
+const latencies: { gen: number; ms: number; matrix: number; worker: number; show: number }[] = [];
 (window as any).__preview = { latencies, get last() { return last; }, get gen() { return gen; }, shown: 0 };
 
+// one worker answers edits at preview quality, a second refines the newest result to default quality on the other core
 const worker = new Worker("worker.js", { type: "module" });
+const refiner = new Worker("worker.js", { type: "module" });
+let lastReq: Record<string, unknown> | null = null;
 
 function readUrl(cfg: Config): void {
   const q = new URLSearchParams(location.search);
@@ -82,10 +85,11 @@ function run(t0: number): void {
   gen += 1;
   editStart.set(gen, t0);
   if (shared) Atomics.store(shared, 0, gen);
-  else worker.postMessage({ t: "latest", gen });
+  else for (const w of [worker, refiner]) w.postMessage({ t: "latest", gen });
   writeUrl();
   $("progress-wrap").hidden = true;
-  worker.postMessage({ t: "run", gen, refine: true, req: { protocol: protocolPath(state.protocol), phantom: phantomPath(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview" } });
+  lastReq = { protocol: protocolPath(state.protocol), phantom: phantomPath(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview" };
+  worker.postMessage({ t: "run", gen, refine: false, req: lastReq });
 }
 
 function buildControls(): void {
@@ -307,6 +311,7 @@ function checksTable(o: RunOutput): void {
 }
 
 function show(o: RunOutput, g: number): void {
+  const tShow = performance.now();
   // the refined result of an edit keeps the check that came with its preview
   if (o.quality === "full" && last && !o.check) o.check = last.check;
   last = o;
@@ -341,6 +346,7 @@ function show(o: RunOutput, g: number): void {
   $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   (window as any).__preview.shown = g;
   (window as any).__preview.quality = o.quality;
+  const showMs = performance.now() - tShow;
   if (o.quality === "preview") {
     const t0 = editStart.get(g);
     // after the frame that paints the new image
@@ -348,7 +354,7 @@ function show(o: RunOutput, g: number): void {
       if (t0 === undefined) return;
       const ms = performance.now() - t0;
       performance.measure(`edit-to-paint-${g}`, { start: t0, end: t0 + ms });
-      latencies.push({ gen: g, ms, matrix: o.nRead * o.nPhase });
+      latencies.push({ gen: g, ms, matrix: o.nRead * o.nPhase, worker: o.timings.total ?? NaN, show: showMs });
       const s = [...latencies.slice(-50)].map((l) => l.ms).sort((a, b) => a - b);
       setText($("latency"), `edit → painted image: ${ms.toFixed(0)} ms (median of last ${s.length}: ${s[Math.floor(s.length / 2)]!.toFixed(0)} ms)`);
       (window as any).__preview.painted = g;
@@ -395,8 +401,11 @@ async function main(): Promise<void> {
     sab = new SharedArrayBuffer(4);
     shared = new Int32Array(sab);
   }
+  refiner.postMessage({ t: "init", presets, phantoms, gen: sab });
   worker.postMessage({ t: "init", presets, phantoms, gen: sab });
-  const addInput = (name: string, text: string) => worker.postMessage({ t: "input", name: name.replace(/[^A-Za-z0-9._-]/g, "_"), text });
+  const addInput = (name: string, text: string) => {
+    for (const w of [worker, refiner]) w.postMessage({ t: "input", name: name.replace(/[^A-Za-z0-9._-]/g, "_"), text });
+  };
   if (cfg.given.protocol) addInput(cfg.given.protocol.name.slice(5), JSON.stringify(cfg.given.protocol.object));
   if (cfg.given.phantom) addInput(cfg.given.phantom.name.slice(5), JSON.stringify(cfg.given.phantom.object));
   readUrl(cfg);
@@ -459,11 +468,17 @@ async function main(): Promise<void> {
   $("x-kspace").addEventListener("click", () => last && download("kspace.npy", new Blob([last.kspaceNpy as BlobPart])));
   $("x-image").addEventListener("click", () => last && download("image.npy", new Blob([last.imageNpy as BlobPart])));
 
-  worker.onmessage = (ev: MessageEvent) => {
+  const onMessage = (ev: MessageEvent) => {
     const m = ev.data;
-    if (m.t === "ready") { run(performance.now()); return; }
+    if (m.t === "ready") {
+      if (ev.target === worker) run(performance.now());
+      return;
+    }
     if (m.gen !== gen) return;
-    if (m.t === "result") show(m.out as RunOutput, m.gen);
+    if (m.t === "result") {
+      show(m.out as RunOutput, m.gen);
+      if (ev.target === worker && lastReq) refiner.postMessage({ t: "run", gen: m.gen, refine: false, req: { ...lastReq, quality: "full" } });
+    }
     else if (m.t === "check" && last && m.check) {
       last.check = m.check;
       checksTable(last);
@@ -476,6 +491,8 @@ async function main(): Promise<void> {
       ($("progress") as HTMLProgressElement).value = m.done / m.total;
     }
   };
+  worker.onmessage = onMessage;
+  refiner.onmessage = onMessage;
 }
 
 void main();

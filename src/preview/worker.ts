@@ -5,7 +5,7 @@
  * posts it when memory cannot be shared); work for an older edit stops at the
  * next engine chunk.
  */
-import { Cancelled, checkLast, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
+import { Cancelled, checkRequest, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
 
 declare const self: { postMessage(m: unknown, transfer?: Transferable[]): void; onmessage: ((ev: MessageEvent) => void) | null };
 
@@ -21,11 +21,15 @@ export type ToWorker =
 
 function runOne(gen: number, req: RunRequest): boolean {
   try {
+    if (req.quality === "full") {
+      // the refining worker first answers the closed-form check of the edit
+      self.postMessage({ t: "check", gen, check: checkRequest(req) });
+      if (current() !== gen) return false;
+    }
     const out = runPreview(req, () => current() !== gen, (done, total) => {
       if (req.quality === "full") self.postMessage({ t: "progress", gen, done, total });
     });
     self.postMessage({ t: "result", gen, out }, [out.image.buffer as ArrayBuffer, out.kmag.buffer as ArrayBuffer, out.kspaceNpy.buffer as ArrayBuffer, out.imageNpy.buffer as ArrayBuffer]);
-    if (req.quality === "preview" && current() === gen) self.postMessage({ t: "check", gen, check: checkLast() });
     return true;
   } catch (e) {
     if (e instanceof Cancelled) return false;
