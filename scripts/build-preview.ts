@@ -41,7 +41,7 @@ export async function buildPreview(): Promise<void> {
     // where the core's modules think they live: presets resolve to /src/protocol/presets in the worker's file table
     define: { "import.meta.url": JSON.stringify("file:///isofold/src/protocol/parse.js") },
   });
-  await build({ ...common, entryPoints: [join(src, "main.ts")], outfile: join(out, "app.js"), format: "esm" });
+  await build({ ...common, entryPoints: [join(src, "main.ts")], outfile: join(out, "app.js"), format: "esm", plugins: [shims] });
   copyFileSync(join(src, "index.html"), join(out, "index.html"));
   copyFileSync(join(src, "style.css"), join(out, "style.css"));
 }

@@ -14,6 +14,7 @@ import { request } from "node:http";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
 import { chromium, type BrowserContext, type Page } from "playwright-core";
+import { PNG } from "pngjs";
 import { decodeNpy } from "../src/io/npy.js";
 
 const ROOT = resolve(__dirname, "..");
@@ -158,6 +159,12 @@ describe("isofold preview in a browser", () => {
     const [dl2] = await Promise.all([page.waitForEvent("download"), page.click("#x-protocol")]);
     const protoFile = join(dir, "protocol.json");
     await dl2.saveAs(protoFile);
+    const [dl3] = await Promise.all([page.waitForEvent("download"), page.click("#x-png")]);
+    const pngFile = join(dir, "image.png");
+    await dl3.saveAs(pngFile);
+    const png = PNG.sync.read(readFileSync(pngFile));
+    expect([png.width, png.height]).toEqual([32, 32]);
+    expect(readFileSync(pngFile).toString("latin1")).toContain("Simulated image computed by isofold");
     await page.screenshot({ path: join(SHOTS, "preview-export.png"), fullPage: true });
     await page.close();
     const out = join(dir, "cli");

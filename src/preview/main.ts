@@ -6,6 +6,7 @@
  */
 import { toDisplay, displayPoint, type DisplayTransform } from "../report/display.js";
 import type { RunOutput } from "./engine.js";
+import { insertTextChunks, SIMULATED_NOTE } from "../io/png.js";
 
 interface Config {
   safety: string;
@@ -445,6 +446,7 @@ async function main(): Promise<void> {
   };
   $("c-file").addEventListener("change", (ev) => { const f = ($("c-file") as HTMLInputElement).files?.[0]; if (f) void takeFile(f, ev.timeStamp); });
   const drop = $("drop");
+  drop.addEventListener("keydown", (e) => { if (e.key === "Enter" || e.key === " ") { e.preventDefault(); $("c-file").click(); } });
   drop.addEventListener("dragover", (e) => { e.preventDefault(); drop.classList.add("over"); });
   drop.addEventListener("dragleave", () => drop.classList.remove("over"));
   drop.addEventListener("drop", (e) => { e.preventDefault(); drop.classList.remove("over"); const f = e.dataTransfer?.files[0]; if (f) void takeFile(f, e.timeStamp); });
@@ -464,7 +466,12 @@ async function main(): Promise<void> {
     }
     download("protocol.json", new Blob([JSON.stringify(over, null, 2) + "\n"], { type: "application/json" }));
   });
-  $("x-png").addEventListener("click", () => ($("image") as HTMLCanvasElement).toBlob((b) => b && download("image.png", b), "image/png"));
+  // like every PNG of isofold, the exported image says in a tEXt chunk that it is simulated
+  $("x-png").addEventListener("click", () => ($("image") as HTMLCanvasElement).toBlob(async (b) => {
+    if (!b) return;
+    const bytes = insertTextChunks(new Uint8Array(await b.arrayBuffer()), { Description: SIMULATED_NOTE, Software: "isofold previewer" });
+    download("image.png", new Blob([bytes as BlobPart], { type: "image/png" }));
+  }, "image/png"));
   $("x-kspace").addEventListener("click", () => last && download("kspace.npy", new Blob([last.kspaceNpy as BlobPart])));
   $("x-image").addEventListener("click", () => last && download("image.npy", new Blob([last.imageNpy as BlobPart])));
 
