@@ -8,7 +8,7 @@
  * Screenshots: /tmp/isofold-shots/preview-*.png.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
-import { existsSync, mkdirSync, mkdtempSync, readFileSync, rmSync } from "node:fs";
+import { existsSync, mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { spawn, spawnSync, type ChildProcess } from "node:child_process";
 import { request } from "node:http";
 import { tmpdir } from "node:os";
@@ -145,6 +145,32 @@ describe("isofold preview in a browser", () => {
     expect(Number(await text(page, "protocol.pixelBandwidth"))).toBeCloseTo(130, 6);
     expect(await page.locator("#c-protocol").inputValue()).toBe("gre-t1-3t");
     await page.screenshot({ path: join(SHOTS, "preview-url.png"), fullPage: true });
+    await page.close();
+  });
+
+  it("a phantom file chosen in the page is read by the phantom validators and never sent to the server", async () => {
+    const page = await open("protocol=gre-demo-1.5t&phantom=two-bottle&set=matrix.read%3D32&set=matrix.phase%3D32");
+    const sent: string[] = [];
+    page.on("request", (r) => sent.push(`${r.method()} ${r.url()}`));
+    const bad = { name: "bad", shapes: [{ shape: "sphere", center: ["0 cm", "0 cm", "0 cm"], radius: "3", tissue: "water-gel" }] };
+    const g0 = await page.evaluate(() => (window as any).__preview.gen as number);
+    await page.locator("#c-file").setInputFiles({ name: "bad-phantom.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(bad)) });
+    await page.waitForFunction((g) => (window as any).__preview.error?.gen > g, g0);
+    const msg = (await page.locator("#general-error").textContent()) ?? "";
+    const file = join(dir, "bad-phantom.json");
+    writeFileSync(file, JSON.stringify(bad));
+    const cli = spawnSync(process.execPath, [CLI, "check", file, "-p", "gre-demo-1.5t"], { encoding: "utf8" });
+    expect(cli.status).toBe(2);
+    expect(msg).toContain("shapes[0].radius");
+    expect(cli.stderr).toContain(msg.slice(msg.indexOf("shapes[0].radius")));
+    const good = { ...bad, name: "one-sphere", shapes: [{ ...bad.shapes[0], radius: "3 cm" }] };
+    const g1 = await page.evaluate(() => (window as any).__preview.gen as number);
+    await page.locator("#c-file").setInputFiles({ name: "one-sphere.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(good)) });
+    await painted(page, g1 + 1);
+    expect(await page.locator("#c-phantom").inputValue()).toBe("file:one-sphere.json");
+    expect(page.url()).toContain("phantom=file%3Aone-sphere.json");
+    expect(sent.filter((r) => !r.startsWith("GET ") || !r.startsWith(`GET ${base}`))).toEqual([]);
+    await page.screenshot({ path: join(SHOTS, "preview-dropped.png"), fullPage: true });
     await page.close();
   });
 
