@@ -7,9 +7,14 @@
  * 256², 1 and 4 isochromats per voxel (density 1 and 2, one through-slice
  * isochromat), 1 and 2 workers, each in a fresh process (peak RSS from
  * resourceUsage().maxRSS); and the target case, 256², density 2, 16
- * through-slice isochromats, 2 workers. Medians of several runs.
+ * through-slice isochromats, 2 workers. Medians of several runs. Then the
+ * fast readout operator against the direct one: the 128² demo in-process
+ * after warm-up (default and preview quality), the 256² torso gre-t1-3t with
+ * default options (time, peak RSS; the direct case once) and the throughput
+ * of the 256² disc.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
- * skip the target cases. Benchmarks are never tests.
+ * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone,
+ * BENCH_DIRECT=0 to skip the 256² direct run. Benchmarks are never tests.
  */
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
@@ -102,6 +107,8 @@ async function twoWorkers(kind: Job["kind"], total: number): Promise<number> {
 
 interface E2E {
   phantom: string; protocol: string; matrix: number; density: number; slice: number; workers: number;
+  /** Readout operator (default fast) and T2′ spread size (default 1 = none). */
+  readout?: "fast" | "direct"; t2prime?: number;
 }
 
 /** Child mode: one run() in this fresh process; prints JSON. */
@@ -113,28 +120,106 @@ async function e2eChild(c: E2E): Promise<void> {
     const r = await run({
       phantom: c.phantom, protocol: c.protocol, sets: [`matrix.read=${c.matrix}`, `matrix.phase=${c.matrix}`], out, seed: 1, quiet: true,
       // no T2′ spread: the engine target counts 2×2 in-plane × 16 through-slice isochromats per voxel
-      iso: { density: c.density, sliceCount: c.slice, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 1, offsetHz: 0 }, workers: c.workers,
+      iso: { density: c.density, sliceCount: c.slice, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: c.t2prime ?? 1, offsetHz: 0 }, workers: c.workers,
+      readout: c.readout ?? "fast",
     });
     const seconds = (performance.now() - t) / 1000;
-    const iso = (r.report["isochromats"] as { count: number }).count;
-    process.stdout.write(JSON.stringify({ seconds, iso, maxRssKiB: process.resourceUsage().maxRSS }) + "\n");
+    const iso = (r.report["isochromats"] as { count: number; columns: number }).count;
+    const columns = (r.report["isochromats"] as { count: number; columns: number }).columns;
+    const readout = (r.report["engine"] as { readout: unknown }).readout;
+    const seq = r.report["sequence"] as { derived?: Record<string, unknown> };
+    void seq;
+    process.stdout.write(JSON.stringify({ seconds, iso, columns, readout, maxRssKiB: process.resourceUsage().maxRSS }) + "\n");
   } finally {
     rmSync(out, { recursive: true, force: true });
   }
 }
 
-function e2e(c: E2E, runs: number): { seconds: number; iso: number; maxRssMiB: number; runs: number } {
+function e2e(c: E2E, runs: number): { seconds: number; iso: number; columns: number; readout: unknown; maxRssMiB: number; runs: number } {
   const ts: number[] = [];
-  let iso = 0, rss = 0;
+  let iso = 0, rss = 0, columns = 0;
+  let readout: unknown = null;
   for (let k = 0; k < runs; k++) {
     const r = spawnSync(process.execPath, [SELF, "--e2e", JSON.stringify(c)], { encoding: "utf8", maxBuffer: 1 << 24 });
     if (r.status !== 0) throw new Error(`bench case failed: ${r.stderr}`);
-    const j = JSON.parse(r.stdout.trim().split("\n").pop()!) as { seconds: number; iso: number; maxRssKiB: number };
+    const j = JSON.parse(r.stdout.trim().split("\n").pop()!) as { seconds: number; iso: number; columns: number; readout: unknown; maxRssKiB: number };
     ts.push(j.seconds);
     iso = j.iso;
+    columns = j.columns;
+    readout = j.readout;
     rss = Math.max(rss, j.maxRssKiB / 1024);
   }
-  return { seconds: median(ts), iso, maxRssMiB: rss, runs };
+  return { seconds: median(ts), iso, columns, readout, maxRssMiB: rss, runs };
+}
+
+/** One line about a run's readout operator (report.json engine.readout). */
+function readoutNote(r: unknown): string {
+  const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number }; fallback?: string } | null;
+  if (!o) return "";
+  if (o.operator !== "fast") return `${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
+  return `fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}`;
+}
+
+/**
+ * In-process engine time of the 128² two-bottle demo (gre-demo-1.5t) after a
+ * warm-up run: prepare() outside the timing, then the engine alone
+ * (simulateSerial: no process start-up, no worker spawn); median of `runs`.
+ */
+async function demoInProcess(iso: { density: number; sliceCount: number; t2primeIsochromats: number }, readout: "fast" | "direct", runs: number): Promise<{ ms: number; iso: number; note: string }> {
+  const { prepare } = await import("../src/cli/pipeline.js");
+  const { simulateSerial } = await import("../src/engine/index.js");
+  const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
+  try {
+    const p = prepare({
+      phantom: "phantoms/two-bottle.json", protocol: "gre-demo-1.5t", sets: [], out, seed: 1,
+      iso: { ...iso, sliceExtent: 3, fatModel: "multi", offsetHz: 0 }, workers: 1,
+    });
+    let note = "";
+    simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout }); // warm-up
+    const ts: number[] = [];
+    for (let k = 0; k < runs; k++) {
+      const t = performance.now();
+      const r = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout });
+      ts.push(performance.now() - t);
+      note = readoutNote(r.readout);
+    }
+    return { ms: median(ts), iso: p.iso.count, note };
+  } finally {
+    rmSync(out, { recursive: true, force: true });
+  }
+}
+
+/** The fast readout operator against the direct one (issue targets: ratios in one run). */
+async function fastRows(runs: number): Promise<void> {
+  console.log("");
+  console.log("| fast readout operator | isochromats | fast | direct | ratio | readout |");
+  console.log("| --- | --- | --- | --- | --- | --- |");
+  // 128² demo, in-process after warm-up: default quality and preview quality
+  for (const [label, q] of [
+    ["default quality (density 2, 12 through-slice, T2′ spread 16)", { density: 2, sliceCount: 12, t2primeIsochromats: 16 }],
+    ["preview quality (density 1, 3 through-slice, no T2′ spread)", { density: 1, sliceCount: 3, t2primeIsochromats: 1 }],
+  ] as const) {
+    const f = await demoInProcess(q, "fast", 5);
+    const d = await demoInProcess(q, "direct", 1);
+    console.log(`| 128² two-bottle demo, engine in-process after warm-up, ${label} | ${f.iso.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms (1 run) | ${(d.ms / f.ms).toFixed(1)}× | ${f.note} |`);
+  }
+  // 256² torso gre-t1-3t, default options, fresh processes, 2 workers (the direct case once: ~80 s)
+  const torso: E2E = { phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t", matrix: 256, density: 2, slice: 12, t2prime: 16, workers: 2 };
+  const tf = e2e({ ...torso, readout: "fast" }, 1);
+  const td = process.env["BENCH_DIRECT"] === "0" ? null : e2e({ ...torso, readout: "direct" }, 1);
+  console.log(
+    `| 256² torso gre-t1-3t, default options, whole run (fresh process, 2 workers) | ${tf.iso.toLocaleString("en")} | ${tf.seconds.toFixed(1)} s, ${tf.maxRssMiB.toFixed(0)} MiB | ` +
+      `${td ? `${td.seconds.toFixed(1)} s, ${td.maxRssMiB.toFixed(0)} MiB` : "skipped (BENCH_DIRECT=0)"} | ${td ? `${(td.seconds / tf.seconds).toFixed(1)}× time, ${(td.maxRssMiB / tf.maxRssMiB).toFixed(1)}× memory` : "—"} | ${readoutNote(tf.readout)} |`,
+  );
+  // whole-simulation throughput of the 256² disc: in-plane isochromats × readout samples / wall time
+  const disc: E2E = { phantom: "phantoms/disc.json", protocol: "gre-t1-3t", matrix: 256, density: 2, slice: 16, workers: 2 };
+  const df = e2e({ ...disc, readout: "fast" }, runs);
+  const samples = 256 * 512; // 256 lines × 512 samples (read oversampling 2)
+  const inPlane = df.iso / 16;
+  console.log(
+    `| 256² disc GRE, 2×2 in-plane × 16 through-slice, whole run (2 workers), throughput = in-plane isochromats × readout samples / wall time | ${df.iso.toLocaleString("en")} (${Math.round(inPlane).toLocaleString("en")} in-plane) | ` +
+      `${df.seconds.toFixed(2)} s: ${g((inPlane * samples) / df.seconds)} iso-samples/s (all isochromats: ${g((df.iso * samples) / df.seconds)}) | — | — | ${readoutNote(df.readout)} |`,
+  );
 }
 
 function g(x: number): string {
@@ -145,6 +230,10 @@ function g(x: number): string {
 
 async function main(): Promise<void> {
   const runs = Number(process.env["BENCH_RUNS"] ?? 3);
+  if (process.env["BENCH_ONLY"] === "fast") {
+    await fastRows(runs);
+    return;
+  }
   console.log(`isofold bench — ${cpus()[0]?.model ?? "cpu"}, ${availableParallelism()} cores, Node ${process.versions.node}; WebAssembly SIMD readout: ${wasmKernel() ? "yes" : "no (scalar fallback)"}`);
   console.log("");
   console.log("| kernel | threads | throughput (median of 5) |");
@@ -185,6 +274,7 @@ async function main(): Promise<void> {
       console.log(`| target: GRE 256², ${ph.replace("phantoms/", "").replace(".json", "")}, 2×2 in-plane × 16 through-slice | ${r.iso.toLocaleString("en")} | 2 | ${r.seconds.toFixed(2)}${r.runs === 1 ? " (1 run)" : ""} | ${r.maxRssMiB.toFixed(0)} MiB |`);
     }
   }
+  await fastRows(runs);
 }
 
 if (!isMainThread) {

@@ -69,7 +69,7 @@ describe("isofold simulate / merge", () => {
   test("a run stopped by SIGINT mid-way exits 130 and leaves no file under a final name", async () => {
     const out = join(tmp, "interrupted");
     const args = [CLI, "simulate", "phantoms/torso-slice.json", "-p", "gre-demo-1.5t", "--set", "matrix.read=64", "--set", "matrix.phase=64",
-      "--slice-isochromats", "8", "--workers", "2", "-o", out];
+      "--slice-isochromats", "8", "--workers", "2", "--readout", "direct", "-o", out];
     const child = spawn(process.execPath, args, { env });
     let stderr = "";
     const code = await new Promise<number | null>((resolve) => {

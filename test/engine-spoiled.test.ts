@@ -4,6 +4,8 @@
  * isochromat (forced with `general: true`; that path is itself checked
  * against a direct per-isochromat Bloch simulation in engine.test.ts). The
  * shortcut is exact in exact arithmetic, so the two agree to rounding.
+ * (The direct readout operator throughout: the fast one, engine/fast.ts, is
+ * checked against it in engine-fast.test.ts.)
  */
 import { readFileSync } from "node:fs";
 import { join } from "node:path";
@@ -31,7 +33,7 @@ function prep(sets: string[], opts: { protocol?: string; b0?: string; iso?: Part
 }
 
 function fastVsGeneral(p: ReturnType<typeof prep>) {
-  const fast = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256 });
+  const fast = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256, readout: "direct" });
   const gen = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256, general: true });
   return { fast, gen, err: relL2(fast.kspace.re, fast.kspace.im, gen.kspace.re, gen.kspace.im) };
 }
@@ -63,7 +65,7 @@ describe("ideally spoiled shortcut", () => {
       seed = (seed * 1103515245 + 12345) % 2147483648;
       sens[k] = seed / 2147483648 - 0.5;
     }
-    const fast = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens });
+    const fast = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens, readout: "direct" });
     const gen = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens, general: true });
     expect(fast.plan.spoiledFast).toBe(true);
     expect(relL2(fast.kspace.re, fast.kspace.im, gen.kspace.re, gen.kspace.im)).toBeLessThan(1e-10);
@@ -71,10 +73,10 @@ describe("ideally spoiled shortcut", () => {
 
   test("on the fast path, 1 and 2 workers give bitwise the serial k-space", async () => {
     const p = prep(["spoiling=ideal"], { b0: "150 * x / 0.05", iso: { t2primeIsochromats: 2 } });
-    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, chunkIsochromats: 256 });
+    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, chunkIsochromats: 256, readout: "direct" });
     expect(serial.plan.spoiledFast).toBe(true);
     for (const workers of [1, 2]) {
-      const { kspace, plan } = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, chunkIsochromats: 256 });
+      const { kspace, plan } = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, chunkIsochromats: 256, readout: "direct" });
       expect(plan.spoiledFast).toBe(true);
       expect(plan.chunks).toBeGreaterThan(2);
       expect(Buffer.from(kspace.re.buffer).equals(Buffer.from(serial.kspace.re.buffer))).toBe(true);

@@ -204,9 +204,13 @@ function smallCase(sets: string[] = [], protocol = "gre-demo-1.5t", density = 1)
 describe("chunk runner", () => {
   test("k-space equals a direct per-isochromat Bloch simulation within 1e-9 relative (RF classes, readout groups, filter)", () => {
     const p = smallCase();
-    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true, readout: "direct" });
     const d = directBloch(p.seq, p.iso, true, 1, null);
     expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
+    // the default (fast) readout operator: within its tolerance of the per-isochromat Bloch simulation
+    const f = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    expect(f.readout.operator).toBe("fast");
+    expect(relL2(f.kspace.re, f.kspace.im, d.re, d.im)).toBeLessThan(1e-6);
   }, 60_000);
 
   test.each([["spoiling=rf"], ["spoiling=none"]])("GRE with %s (RF phases, no ideal spoil): k-space equals the direct simulation within 1e-9 relative", (set) => {
@@ -229,9 +233,12 @@ describe("chunk runner", () => {
     const r = rng(11);
     const coils = 2, sens = new Float64Array(2 * coils * p.iso.count);
     for (let k = 0; k < sens.length; k++) sens[k] = r() - 0.5;
-    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens });
+    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens, readout: "direct" });
     const d = directBloch(p.seq, p.iso, false, coils, sens);
     expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
+    const f = simulateSerial(p.seq, p.iso, { receiverFilter: false, coils, sens });
+    expect(f.readout.operator).toBe("fast");
+    expect(relL2(f.kspace.re, f.kspace.im, d.re, d.im)).toBeLessThan(1e-6);
   }, 60_000);
 
   test("a chunk's k-space does not depend on the scratch's history (same bits when re-run)", () => {
@@ -270,9 +277,9 @@ describe("summation order and shards", () => {
     const df = new Float64Array(p.iso.df);
     for (let i = 0; i < df.length; i++) df[i] = df[i]! + ((i * 7919) % 1000) * 0.37 - 150;
     const iso = { ...p.iso, df };
-    const serial = simulateSerial(p.seq, iso, { receiverFilter: true }).kspace;
+    const serial = simulateSerial(p.seq, iso, { receiverFilter: true, readout: "direct" }).kspace;
     for (const workers of [2, 3]) {
-      const { kspace, plan } = await simulateParallel(p.seq, iso, { receiverFilter: true, workers });
+      const { kspace, plan } = await simulateParallel(p.seq, iso, { receiverFilter: true, workers, readout: "direct" });
       expect(plan.classes).toBeGreaterThanOrEqual(PARALLEL_RF_CLASSES);
       expect(Buffer.from(kspace.re.buffer).equals(Buffer.from(serial.re.buffer))).toBe(true);
       expect(Buffer.from(kspace.im.buffer).equals(Buffer.from(serial.im.buffer))).toBe(true);
@@ -282,10 +289,10 @@ describe("summation order and shards", () => {
   test("the worker pool with 1, 2 and 3 workers gives bitwise the serial k-space", async () => {
     const p = smallCase(["matrix.read=32", "matrix.phase=32"]);
     const chunkIsochromats = 64;
-    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, chunkIsochromats }).kspace;
+    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, chunkIsochromats, readout: "direct" }).kspace;
     expect(serial.re.some((x) => x !== 0)).toBe(true);
     for (const workers of [1, 2, 3]) {
-      const { kspace, plan } = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, chunkIsochromats });
+      const { kspace, plan } = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, chunkIsochromats, readout: "direct" });
       expect(plan.chunks).toBeGreaterThan(2 * BLOCK_CHUNKS);
       expect(Buffer.from(kspace.re.buffer).equals(Buffer.from(serial.re.buffer))).toBe(true);
       expect(Buffer.from(kspace.im.buffer).equals(Buffer.from(serial.im.buffer))).toBe(true);

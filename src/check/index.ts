@@ -540,7 +540,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   const ref = opts.reference ?? null;
   const snrRel = ref ? snr / (ref.seq.derived["relativeSnr"]!.value as number) : snr;
   items.push(item("snr", "cost", "relative SNR", snrRel, th,
-    `∝ voxel·√(N_avg·N_lines·N_part·T_adc) (Edelstein et al. 1986), relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
+    `∝ voxel·√(N_avg·N_lines·N_slice·T_adc) (Edelstein et al. 1986), relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
   const scan = seq.timing.scanTime;
   items.push(item("scanTime", "cost", "scan time", scan, th, `${scan >= 60 ? `${Math.floor(scan / 60)} min ${(scan % 60).toFixed(0)} s` : `${f1(scan)} s`} (${seq.derived["scanTime"]?.note ?? "from the sequence timing"})`));
   const headroom = (kind: "Gradient" | "Slew", limit: number): { margin: number; axis: string; peak: number } => {

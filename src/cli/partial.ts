@@ -12,7 +12,7 @@ import { UserError } from "../errors.js";
 import { OutputStage } from "../io/atomic.js";
 import { decodeNpy, encodeNpy } from "../io/npy.js";
 import type { Protocol } from "../protocol/index.js";
-import { BLOCK_CHUNKS, CHUNK_ISOCHROMATS, readoutKernelName } from "../engine/index.js";
+import { BLOCK_CHUNKS, CHUNK_ISOCHROMATS, readoutKernelName, type ReadoutReport } from "../engine/index.js";
 import type { IsochromatOptions } from "../isochromats/index.js";
 
 export const PARTIAL_FORMAT = "isofold partial k-space";
@@ -37,7 +37,7 @@ export interface PartialMeta {
     count: number; columns: number; warnings: string[]; spreads?: { tissue: string; t2prime: number | null; isochromats: number }[];
     sampling?: import("./pipeline.js").IsoSampling; extent?: import("../isochromats/index.js").SampledExtent; notes?: string[];
   };
-  engine: { chunks: number; rfClasses: number; ops: number; workers: number };
+  engine: { chunks: number; rfClasses: number; ops: number; workers: number; readout?: ReadoutReport };
 }
 
 /** sha256 over what determines the k-space bits: normalised protocol, phantom file bytes, isochromat options, chunking, readout kernel, seed. */

@@ -10,7 +10,7 @@ import { loadProtocol, logicalAxes, slicePositions, type Protocol } from "../pro
 import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
 import { aliasFreeCount, buildSequence, pathwayMoments, pulseProfileReach, type Sequence } from "../sequence/index.js";
 import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "../isochromats/index.js";
-import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
+import { blockChunks, blockCount, BLOCK_CHUNKS, shardBlocks, simulateParallel, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/index.js";
 import { countChunks } from "../engine/plan.js";
 import { checkSliceConvergence } from "../engine/index.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
@@ -80,6 +80,9 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
+  /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
+  readout?: "fast" | "direct";
+  tolerance?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;
   /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
@@ -105,7 +108,7 @@ export interface RunContext {
     /** How the grid was chosen and what it covers (absent in partials of older versions). */
     sampling?: IsoSampling; extent?: SampledExtent; notes?: string[];
   };
-  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number };
+  engine: { chunks: number; rfClasses: number; ops: number; workers: number; shards?: number; runs?: number; readout?: ReadoutReport | ReadoutReport[] };
   /** Files and report of simulate --coils. */
   coils?: { files: Map<string, Uint8Array>; report: Record<string, unknown> };
 }
@@ -372,7 +375,7 @@ async function simulateStage(
     blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void;
     label?: string;
   },
-): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
   const progress = new Progress(label, "iso-TR", o.quiet);
   const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
@@ -385,6 +388,7 @@ async function simulateStage(
     return await simulateParallel(p.seq, p.iso, {
       receiverFilter: p.protocol.receiverFilter,
       workers: o.workers ?? defaultWorkers(),
+      readout: o.readout, tolerance: o.tolerance,
       signal: ac.signal,
       blocks: extra.blocks,
       onBlock: extra.onBlock,
@@ -424,6 +428,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   let plan: EnginePlan | null = null;
   let coils: RunContext["coils"];
   let count = 0;
+  const readouts: ReadoutReport[] = [];
   for (let k = 0; k < p.slices.length; k++) {
     const sl = p.slices[k]!;
     if (sl.iso.count === 0) {
@@ -431,13 +436,14 @@ export async function run(o: RunOptions): Promise<RunResult> {
       continue;
     }
     const label = p.slices.length > 1 ? `simulating slice ${k + 1}/${p.slices.length}` : undefined;
-    let res: { kspace: KSpace; plan: EnginePlan };
+    let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport };
     if (o.coilRun) {
       const r = await o.coilRun({ seq: sl.seq, iso: sl.iso, protocol: p.protocol });
       coils = { files: r.files, report: r.report };
       res = r;
     } else res = await simulateStage({ seq: sl.seq, iso: sl.iso, protocol: p.protocol }, o, { label });
     plan = res.plan;
+    if (res.readout) readouts.push(res.readout);
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }
@@ -447,7 +453,10 @@ export async function run(o: RunOptions): Promise<RunResult> {
       count, columns: p.iso.columns, warnings: p.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(p.iso),
       sampling: p.sampling, extent: p.iso.extent, notes: [...new Set(p.slices.flatMap((s) => s.iso.notes))],
     },
-    engine: { chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length },
+    engine: {
+      chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers, runs: p.slices.length,
+      readout: readouts.length === 0 ? undefined : readouts.length === 1 ? readouts[0]! : readouts,
+    },
     ...(coils ? { coils } : {}),
   };
   return finish(ctx, kspaces, t0);
@@ -459,7 +468,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   const blocks = shardBlocks(total, i, n);
   const nb = blocks[1] - blocks[0];
   let bre = new Float64Array(0), bim = new Float64Array(0);
-  const { kspace, plan } = await simulateStage(p, o, {
+  const { kspace, plan, readout } = await simulateStage(p, o, {
     blocks,
     onPlan: (plan) => {
       const size = plan.coils * plan.rows * plan.read;
@@ -479,7 +488,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
     isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso), sampling: p.sampling, extent: p.iso.extent, notes: p.iso.notes },
-    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers() },
+    engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
   printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };

@@ -1,0 +1,884 @@
+/**
+ * The fast readout operator: k-space of an ideally spoiled 2D Cartesian
+ * sequence at a cost that grows with the image grid, not with isochromats ×
+ * readout samples. The direct operator (chunk.ts) stays the oracle.
+ *
+ * For static spins and linear gradients a readout sample of coil q is
+ *
+ *   s_q(n, j) = c_n · Σ_i S_q(r_i)·h_i·m0_i·P_{c(i)}(n) · exp(−i2π(kx_j·u_i + ky_n·v_i)) · exp(−j·Δt·λ_i),
+ *
+ * with n the readout (line), j the sample, c(i) the RF class, P_c(n) the
+ * transverse state per unit m0 of class c at the start of readout n without
+ * the in-plane factors (the spoiled shortcut's P_c: exact, one number per
+ * class), h_i the receiver filter and λ = R2 + i2πΔf.
+ *
+ * Three exact-to-tolerance factorizations make it fast:
+ * - Line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), a low-rank split of the (lines ×
+ *   classes) matrix by pivoted Gram–Schmidt (rank-revealing QR, Businger &
+ *   Golub 1965) weighted by each class's magnetization; in steady state the
+ *   rank is 1, the approach to it adds a few.
+ * - Time factor: exp(−j·Δt·λ) ≈ Σ_l B_l(j)·C_l(λ) over the (R2, Δf) values
+ *   present: time segmentation (Noll, Meyer, Pauly, Nishimura & Macovski 1991,
+ *   IEEE TMI 10:629) with least-squares interpolators (Sutton, Noll & Fessler
+ *   2003, IEEE TMI 22:178): the B_l are an orthonormal basis of the weighted
+ *   decay curves chosen by the same pivoted Gram–Schmidt, C_l the
+ *   least-squares coefficients. L follows from the tolerance.
+ * - Spatial factor: isochromats lie on the sub-voxel grid u = u0 + a·du,
+ *   v = v0 + b·dv, and Cartesian k steps by Δkx·du = ±1/Mu, Δky·dv = 1/Mv
+ *   (whole numbers Mu, Mv), so Σ_{a,b} exp(−i2π(kx·u + ky·v))·X(a, b) is an
+ *   exact DFT of the grid folded modulo (Mv, Mu): an FFT, no interpolation.
+ *   Isochromats sharing a grid position and (R2, Δf) fold into one weight per
+ *   (line rank, segment) first; coil sensitivities multiply the weights.
+ *
+ * The cost is one pass over the isochromats per line rank, R·L·coils FFTs of
+ * the folded grid and R·L products per sample. Cases the operator does not
+ * cover (not ideally spoiled, oblique readout gradients, non-Cartesian or
+ * varying readouts, many RF classes) are refused with a reason; the caller
+ * then runs the direct operator and says so.
+ */
+import FFT from "fft.js";
+import { GAMMA_BAR } from "../constants.js";
+import type { IsochromatSet } from "../isochromats/index.js";
+import type { Sequence } from "../sequence/types.js";
+import type { EnginePlan, Op } from "./plan.js";
+import { receiverFilter } from "./chunk.js";
+
+/** Which readout operator to use. */
+export type ReadoutChoice = "fast" | "direct";
+
+/** Default tolerance of the fast operator: relative L2 error of k-space. */
+export const DEFAULT_TOLERANCE = 1e-6;
+
+/** What the readout operator did, for report.json. */
+export interface ReadoutReport {
+  /** Operator used. */
+  operator: ReadoutChoice;
+  /** Operator asked for. */
+  requested: ReadoutChoice;
+  /** Target relative L2 error of k-space (fast operator). */
+  tolerance: number;
+  /** Why the direct operator ran although the fast one was asked for. */
+  fallback?: string;
+  method?: string;
+  /** How a sharded run splits the fast result. */
+  sharding?: string;
+  /** Each factor (line rank, time segments, skipped grids) was truncated at tolerance/split. */
+  split?: number;
+  /** Time segments L. */
+  segments?: number;
+  /** Rank of the line factor R. */
+  lineRank?: number;
+  /** (rank, segment, coil) grids transformed and skipped as below the tolerance (with the sum of the skipped ones' bounds). */
+  pairs?: { transformed: number; skipped: number; skippedBound: number };
+  /** DFT lengths of the folded grid [phase, read]. */
+  grid?: [number, number];
+  /** Non-uniform FFT kernel width (none: every position is on the DFT grid). */
+  kernelWidth?: number | null;
+  /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_MARGIN × the subset's relative L2 error). */
+  estimate?: { samples: number; seed: number; relL2: number };
+}
+
+const TWO_PI = 2 * Math.PI;
+/** Largest (classes × readouts) the line factor handles (memory: 16 B each). */
+const MAX_CLASS_LINES = 1 << 23;
+/** Largest line rank and number of time segments before the operator gives up (the direct one is then cheaper). */
+const MAX_RANK = 24;
+const MAX_SEGMENTS = 48;
+/** Bytes of folded grids held at once (ranks per pass over the isochromats follow from it). */
+const GRID_BYTES = 512 * 2 ** 20;
+/** Samples of the a-posteriori estimate and its seed. */
+export const ESTIMATE_SAMPLES = 16;
+/** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
+export const ESTIMATE_ROWS = 4;
+/** The estimate is this margin times the relative L2 error on the sample subset. */
+export const ESTIMATE_MARGIN = 3;
+export const ESTIMATE_SEED = 20031;
+
+// ---------------------------------------------------------------------------
+// DFT of any length: fft.js for powers of two, Bluestein's chirp-z otherwise
+// (Bluestein 1970, IEEE Trans. Audio Electroacoust. 18:451).
+
+class Dft {
+  readonly n: number;
+  private readonly core: FFT | null;
+  private readonly m: number;
+  private readonly chirp: Float64Array;
+  private readonly kern: Float64Array;
+  private readonly a: Float64Array;
+  private readonly b: Float64Array;
+  /** Interleaved input and output, length 2n. */
+  readonly inp: Float64Array;
+  readonly out: Float64Array;
+  constructor(n: number) {
+    this.n = n;
+    this.inp = new Float64Array(2 * n);
+    this.out = new Float64Array(2 * n);
+    const pow2 = n >= 2 && (n & (n - 1)) === 0;
+    if (n === 1 || pow2) {
+      this.core = n === 1 ? null : new FFT(n);
+      this.m = 0;
+      this.chirp = this.kern = this.a = this.b = new Float64Array(0);
+      return;
+    }
+    let m = 2;
+    while (m < 2 * n - 1) m *= 2;
+    this.m = m;
+    this.core = new FFT(m);
+    // w[j] = exp(−iπ j²/n); X[k] = w[k]·Σ_j (x[j]·w[j])·conj(w[k − j])
+    this.chirp = new Float64Array(2 * n);
+    for (let j = 0; j < n; j++) {
+      const ang = (Math.PI * ((j * j) % (2 * n))) / n;
+      this.chirp[2 * j] = Math.cos(ang);
+      this.chirp[2 * j + 1] = -Math.sin(ang);
+    }
+    const k = new Float64Array(2 * m);
+    for (let j = 0; j < n; j++) {
+      const br = this.chirp[2 * j]! / m, bi = -this.chirp[2 * j + 1]! / m;
+      k[2 * j] = br;
+      k[2 * j + 1] = bi;
+      if (j > 0) {
+        k[2 * (m - j)] = br;
+        k[2 * (m - j) + 1] = bi;
+      }
+    }
+    this.kern = new Float64Array(2 * m);
+    this.core.transform(this.kern, k);
+    this.a = new Float64Array(2 * m);
+    this.b = new Float64Array(2 * m);
+  }
+  /** out[k] = Σ_j inp[j]·exp(−i2π jk/n). */
+  run(): void {
+    const n = this.n;
+    if (n === 1) {
+      this.out[0] = this.inp[0]!;
+      this.out[1] = this.inp[1]!;
+      return;
+    }
+    if (this.m === 0) {
+      this.core!.transform(this.out, this.inp);
+      return;
+    }
+    const { a, b, chirp, kern } = this;
+    a.fill(0);
+    for (let j = 0; j < n; j++) {
+      const xr = this.inp[2 * j]!, xi = this.inp[2 * j + 1]!, wr = chirp[2 * j]!, wi = chirp[2 * j + 1]!;
+      a[2 * j] = xr * wr - xi * wi;
+      a[2 * j + 1] = xr * wi + xi * wr;
+    }
+    this.core!.transform(b, a);
+    for (let j = 0; j < this.m; j++) {
+      const xr = b[2 * j]!, xi = b[2 * j + 1]!, kr = kern[2 * j]!, ki = kern[2 * j + 1]!;
+      b[2 * j] = xr * kr - xi * ki;
+      b[2 * j + 1] = xr * ki + xi * kr;
+    }
+    // inverse by conjugation: ifft(x)·m = conj(fft(conj(x))); the 1/m is in the kernel
+    for (let j = 0; j < this.m; j++) b[2 * j + 1] = -b[2 * j + 1]!;
+    this.core!.transform(a, b);
+    for (let j = 0; j < n; j++) {
+      const yr = a[2 * j]!, yi = -a[2 * j + 1]!, wr = chirp[2 * j]!, wi = chirp[2 * j + 1]!;
+      this.out[2 * j] = yr * wr - yi * wi;
+      this.out[2 * j + 1] = yr * wi + yi * wr;
+    }
+  }
+}
+
+// ---------------------------------------------------------------------------
+// Pivoted Gram–Schmidt: an orthonormal basis of weighted complex vectors.
+
+/**
+ * Columns y_c (length m, interleaved, c = 0 … count−1, in `y`, overwritten
+ * with residuals). Adds the column of largest residual norm to the basis,
+ * orthogonalizes (twice, for stability) and stops once the residual's
+ * Frobenius norm is at most tol × the initial one. Returns the basis
+ * (interleaved, m per vector) or null when more than maxRank are needed.
+ */
+export function pivotedBasis(y: Float64Array, m: number, count: number, tol: number, maxRank: number): Float64Array[] | null {
+  const norm2 = new Float64Array(count);
+  let total = 0;
+  for (let c = 0; c < count; c++) {
+    let s = 0;
+    for (let k = 0; k < 2 * m; k++) s += y[c * 2 * m + k]! ** 2;
+    norm2[c] = s;
+    total += s;
+  }
+  const basis: Float64Array[] = [];
+  if (total === 0) return basis;
+  for (;;) {
+    let rest = 0, best = -1, bestN = -1;
+    for (let c = 0; c < count; c++) {
+      rest += norm2[c]!;
+      if (norm2[c]! > bestN) {
+        bestN = norm2[c]!;
+        best = c;
+      }
+    }
+    if (rest <= tol * tol * total) return basis;
+    if (basis.length >= maxRank || bestN <= 0) return null;
+    const q = new Float64Array(2 * m);
+    for (let k = 0; k < 2 * m; k++) q[k] = y[best * 2 * m + k]!;
+    for (let pass = 0; pass < 2; pass++) {
+      for (const b of basis) {
+        let pr = 0, pi = 0;
+        for (let k = 0; k < m; k++) {
+          pr += b[2 * k]! * q[2 * k]! + b[2 * k + 1]! * q[2 * k + 1]!;
+          pi += b[2 * k]! * q[2 * k + 1]! - b[2 * k + 1]! * q[2 * k]!;
+        }
+        for (let k = 0; k < m; k++) {
+          q[2 * k] = q[2 * k]! - (b[2 * k]! * pr - b[2 * k + 1]! * pi);
+          q[2 * k + 1] = q[2 * k + 1]! - (b[2 * k]! * pi + b[2 * k + 1]! * pr);
+        }
+      }
+    }
+    let nq = 0;
+    for (let k = 0; k < 2 * m; k++) nq += q[k]! ** 2;
+    nq = Math.sqrt(nq);
+    if (!(nq > 0)) return null;
+    for (let k = 0; k < 2 * m; k++) q[k] = q[k]! / nq;
+    basis.push(q);
+    for (let c = 0; c < count; c++) {
+      if (norm2[c] === 0) continue;
+      const o = c * 2 * m;
+      let pr = 0, pi = 0;
+      for (let k = 0; k < m; k++) {
+        pr += q[2 * k]! * y[o + 2 * k]! + q[2 * k + 1]! * y[o + 2 * k + 1]!;
+        pi += q[2 * k]! * y[o + 2 * k + 1]! - q[2 * k + 1]! * y[o + 2 * k]!;
+      }
+      let s = 0;
+      for (let k = 0; k < m; k++) {
+        const r = y[o + 2 * k]! - (q[2 * k]! * pr - q[2 * k + 1]! * pi);
+        const i = y[o + 2 * k + 1]! - (q[2 * k]! * pi + q[2 * k + 1]! * pr);
+        y[o + 2 * k] = r;
+        y[o + 2 * k + 1] = i;
+        s += r * r + i * i;
+      }
+      norm2[c] = s;
+    }
+  }
+}
+
+/** coef[c·R + r] = basis_r^H · x_c for columns x_c (length m, interleaved) of `x`. */
+function project(basis: Float64Array[], x: Float64Array, m: number, count: number): Float64Array {
+  const R = basis.length, coef = new Float64Array(2 * count * R);
+  for (let c = 0; c < count; c++) {
+    const o = c * 2 * m;
+    for (let r = 0; r < R; r++) {
+      const b = basis[r]!;
+      let pr = 0, pi = 0;
+      for (let k = 0; k < m; k++) {
+        pr += b[2 * k]! * x[o + 2 * k]! + b[2 * k + 1]! * x[o + 2 * k + 1]!;
+        pi += b[2 * k]! * x[o + 2 * k + 1]! - b[2 * k + 1]! * x[o + 2 * k]!;
+      }
+      coef[2 * (c * R + r)] = pr;
+      coef[2 * (c * R + r) + 1] = pi;
+    }
+  }
+  return coef;
+}
+
+// ---------------------------------------------------------------------------
+// Class playback: P_c(n) for every class and readout (the spoiled shortcut's numbers).
+
+type Adc = Extract<Op, { t: "adc" }>;
+
+interface History {
+  /** Readout ops in order, with their block's gradient areas since the last pulse (T·s/m) and gradient·dwell. */
+  adcs: { op: Adc; area: [number, number, number]; step: [number, number, number]; dwell: number; active: boolean }[];
+  /** P[n·C + c] (interleaved) for readout n, class c. */
+  P: Float64Array;
+  /** Class of each: grid index iw, magnetization Σ m0. */
+  classIw: Int32Array;
+  mass: Float64Array;
+}
+
+function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): History | string {
+  const C = plan.classes;
+  const adcBlocks: { area: [number, number, number]; step: [number, number, number]; dwell: number }[] = [];
+  {
+    let acc: [number, number, number] = [0, 0, 0];
+    for (const b of seq.blocks) {
+      if (b.kind === "rf") acc = [0, 0, 0];
+      else if (b.kind === "free") acc = [acc[0] + b.area[0], acc[1] + b.area[1], acc[2] + b.area[2]];
+      else if (b.kind === "adc") {
+        adcBlocks.push({ area: [...acc], step: [b.grad[0] * b.dwell, b.grad[1] * b.dwell, b.grad[2] * b.dwell], dwell: b.dwell });
+        const T = b.samples * b.dwell;
+        acc = [acc[0] + b.grad[0] * T, acc[1] + b.grad[1] * T, acc[2] + b.grad[2] * T];
+      }
+    }
+  }
+  const nAdc = plan.ops.filter((o) => o.t === "adc").length;
+  if (nAdc !== adcBlocks.length) return "internal: readouts of the plan and the sequence differ";
+  if (C * nAdc > MAX_CLASS_LINES) return `${C.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
+  const classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
+  const { rfClass } = plan;
+  for (let i = 0; i < iso.count; i++) {
+    const c = rfClass[i]!;
+    if (classIw[c]! < 0) classIw[c] = iso.iw[i]!;
+    mass[c] = mass[c]! + Math.abs(iso.m0[i]!);
+  }
+  const { classDf, classR1, classR2 } = plan.rf;
+  const D: Float64Array[] = [], E1: Float64Array[] = [];
+  for (let q = 0; q < plan.durations.length; q++) {
+    const t = plan.durations[q]!, d = new Float64Array(2 * C), e = new Float64Array(C);
+    for (let c = 0; c < C; c++) {
+      const e2 = Math.exp(-t * classR2[c]!), th = -2 * Math.PI * classDf[c]! * t;
+      d[2 * c] = e2 * Math.cos(th);
+      d[2 * c + 1] = e2 * Math.sin(th);
+      e[c] = Math.exp(-t * classR1[c]!);
+    }
+    D.push(d);
+    E1.push(e);
+  }
+  const mz = new Float64Array(C).fill(1), pr = new Float64Array(C), pi = new Float64Array(C);
+  const P = new Float64Array(2 * C * nAdc);
+  const maps = plan.rfMaps, tab = plan.tab;
+  const adcs: History["adcs"] = [];
+  let active = false;
+  for (const op of plan.ops) {
+    switch (op.t) {
+      case "rf":
+        for (let c = 0; c < C; c++) {
+          const b = op.base + c * 12, z = mz[c]!;
+          const x = maps[b + 2]! * z + maps[b + 9]!, y = maps[b + 5]! * z + maps[b + 10]!;
+          mz[c] = maps[b + 8]! * z + maps[b + 11]!;
+          pr[c] = x * op.cos - y * op.sin;
+          pi[c] = x * op.sin + y * op.cos;
+        }
+        active = true;
+        break;
+      case "free": {
+        const d = D[op.dur]!, e1 = E1[op.dur]!;
+        for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
+        if (!active) break;
+        for (let c = 0; c < C; c++) {
+          const ow = op.w + 2 * Math.max(0, classIw[c]!);
+          const wr = tab[ow]!, wi = tab[ow + 1]!, dr = d[2 * c]!, di = d[2 * c + 1]!;
+          const qr = wr * dr - wi * di, qi = wr * di + wi * dr, xr = pr[c]!, xi = pi[c]!;
+          pr[c] = xr * qr - xi * qi;
+          pi[c] = xr * qi + xi * qr;
+        }
+        break;
+      }
+      case "relax": {
+        const e1 = E1[op.dur]!;
+        for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
+        break;
+      }
+      case "spoil":
+        active = false;
+        break;
+      case "adc": {
+        const n = adcs.length, blk = adcBlocks[n]!;
+        adcs.push({ op, area: blk.area, step: blk.step, dwell: blk.dwell, active });
+        if (active) {
+          for (let c = 0; c < C; c++) {
+            P[2 * (n * C + c)] = pr[c]!;
+            P[2 * (n * C + c) + 1] = pi[c]!;
+          }
+        }
+        break;
+      }
+    }
+  }
+  return { adcs, P, classIw, mass };
+}
+
+/** A reason the fast operator cannot apply, found from the plan alone (before the RF maps are filled), or null. */
+export function fastPrecheck(plan: EnginePlan): string | null {
+  if (!plan.spoiledFast) return "not an ideally spoiled sequence (two or more pulses between ideal spoils): the fast operator covers ideally spoiled Cartesian readouts so far";
+  let nAdc = 0;
+  for (const o of plan.ops) if (o.t === "adc") nAdc++;
+  if (plan.classes * nAdc > MAX_CLASS_LINES) return `${plan.classes.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
+  return null;
+}
+
+// ---------------------------------------------------------------------------
+
+export interface FastResult {
+  re: Float64Array;
+  im: Float64Array;
+  report: ReadoutReport;
+}
+
+/**
+ * The fast operator for the plan (RF maps filled), each factor truncated at
+ * tolerance/split (in norms weighted by magnetization). Returns the k-space
+ * [coil][row][read] and what it did, or a string saying why it does not
+ * apply (the caller then runs the direct operator).
+ */
+export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): FastResult | string {
+  const pre = fastPrecheck(plan);
+  if (pre) return pre;
+  const h = classHistory(seq, plan, iso);
+  if (typeof h === "string") return h;
+  const { adcs, P, classIw, mass } = h;
+  const C = plan.classes, coils = plan.coils, sens = plan.sens;
+  const act = adcs.map((a, n) => ({ ...a, n })).filter((a) => a.active);
+  const re = new Float64Array(coils * plan.rows * plan.read), im = new Float64Array(re.length);
+  const base: ReadoutReport = { operator: "fast", requested: "fast", tolerance, method: "", kernelWidth: null };
+  if (act.length === 0) return { re, im, report: { ...base, method: "no readout sees transverse magnetization", segments: 0, lineRank: 0, estimate: { samples: 0, seed: ESTIMATE_SEED, relL2: 0 } } };
+  // --- one readout shape: samples, dwell, read step, filter; read gradient only; common read prephasing
+  const a0 = act[0]!;
+  const ns = a0.op.n, dwell = a0.dwell, stepU = a0.step[0];
+  for (const a of act) {
+    if (a.op.byW || a.step[1] !== 0 || a.step[2] !== 0) return "the readout gradient has a phase or slice part (oblique readout): not covered by the fast operator yet";
+    if (a.op.n !== ns || a.dwell !== dwell || a.step[0] !== stepU || a.op.fRead !== a0.op.fRead || a.op.bwSampled !== a0.op.bwSampled) {
+      return "readouts differ in samples, dwell or read gradient (e.g. EPI): not covered by the fast operator yet";
+    }
+  }
+  const dkx = GAMMA_BAR * stepU;
+  const kx0 = GAMMA_BAR * a0.area[0];
+  for (const a of act) {
+    if (Math.abs(GAMMA_BAR * a.area[0] - kx0) > 1e-9 * Math.abs(dkx)) return "readouts start at different read positions in k-space (e.g. EPI): not covered by the fast operator yet";
+  }
+  const { uGrid, vGrid } = iso;
+  // --- DFT lengths: Δkx·du = ±1/Mu and Δky·dv·(line offsets) = m/Mv with whole Mu, Mv (else the grid is not a DFT grid)
+  let Mu = 1, su = 1;
+  if (uGrid.length > 1) {
+    const du = uGrid[1]! - uGrid[0]!, x = 1 / (Math.abs(dkx) * du);
+    Mu = Math.round(x);
+    su = dkx < 0 ? -1 : 1;
+    if (!(dkx !== 0) || !(Mu >= 1) || Math.abs(x - Mu) > 1e-7 || Mu > 1 << 22) return `read sampling step × grid step is not 1/whole number (${x}): not covered by the fast operator`;
+  }
+  const ky = act.map((a) => GAMMA_BAR * a.area[1]);
+  const kyRef = ky[0]!;
+  const mLine = new Int32Array(act.length);
+  let Mv = 1;
+  if (vGrid.length > 1) {
+    const dv = vGrid[1]! - vGrid[0]!;
+    let step = Infinity;
+    for (const k of ky) {
+      const d = Math.abs(k - kyRef) * dv;
+      if (d > 1e-12 && d < step) step = d;
+    }
+    if (Number.isFinite(step)) {
+      const x = 1 / step;
+      Mv = Math.round(x);
+      if (!(Mv >= 1) || Math.abs(x - Mv) > 1e-7 || Mv > 1 << 22) return `phase-encoding step × grid step is not 1/whole number (${x}): not covered by the fast operator`;
+      for (let k = 0; k < ky.length; k++) {
+        const m = (ky[k]! - kyRef) * dv * Mv;
+        const r = Math.round(m);
+        if (Math.abs(m - r) > 1e-7) return "phase-encoding steps are not on one lattice: not covered by the fast operator";
+        mLine[k] = ((r % Mv) + Mv) % Mv;
+      }
+    }
+  }
+  if (Mu * Mv * coils * 16 * 4 > 2 ** 31) return `the folded grid ${Mv}×${Mu} × ${coils} coils is too large for the fast operator`;
+  const NA = act.length;
+  // --- line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), weighted by each class's magnetization
+  const tolLine = tolerance / split, tolTime = tolerance / split;
+  const Pl = new Float64Array(2 * NA * C);
+  const y = new Float64Array(2 * NA * C);
+  for (let c = 0; c < C; c++) {
+    for (let k = 0; k < NA; k++) {
+      const n = act[k]!.n, o = 2 * (n * C + c), t = 2 * (c * NA + k);
+      Pl[t] = P[o]!;
+      Pl[t + 1] = P[o + 1]!;
+      y[t] = P[o]! * mass[c]!;
+      y[t + 1] = P[o + 1]! * mass[c]!;
+    }
+  }
+  const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK);
+  if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
+  const G = project(A, Pl, NA, C); // G[c·R + r]
+  const R = A.length;
+  // --- time factor over distinct (R2, Δf)
+  const { classDf, classR2 } = plan.rf;
+  const keyIndex = new Map<string, number>();
+  const keyOf = new Int32Array(C);
+  const keyDf: number[] = [], keyR2: number[] = [], keyW: number[] = [];
+  for (let c = 0; c < C; c++) {
+    const s = `${classDf[c]}|${classR2[c]}`;
+    let k = keyIndex.get(s);
+    if (k === undefined) {
+      k = keyDf.length;
+      keyIndex.set(s, k);
+      keyDf.push(classDf[c]!);
+      keyR2.push(classR2[c]!);
+      keyW.push(0);
+    }
+    keyOf[c] = k;
+    let p2 = 0;
+    for (let r = 0; r < R; r++) p2 += G[2 * (c * R + r)]! ** 2 + G[2 * (c * R + r) + 1]! ** 2;
+    keyW[k] = keyW[k]! + mass[c]! * Math.sqrt(p2);
+  }
+  const K = keyDf.length;
+  const E = new Float64Array(2 * ns * K), ey = new Float64Array(2 * ns * K);
+  for (let k = 0; k < K; k++) {
+    for (let j = 0; j < ns; j++) {
+      const t = j * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
+      const o = 2 * (k * ns + j);
+      E[o] = e * Math.cos(th);
+      E[o + 1] = e * Math.sin(th);
+      ey[o] = E[o]! * keyW[k]!;
+      ey[o + 1] = E[o + 1]! * keyW[k]!;
+    }
+  }
+  const B = pivotedBasis(ey, ns, K, tolTime, MAX_SEGMENTS);
+  if (!B) return `the (R2, Δf) spread needs more than ${MAX_SEGMENTS} time segments at tolerance ${tolerance}: not covered by the fast operator`;
+  const L = B.length;
+  const Ck = project(B, E, ns, K); // C[k·L + l]
+  // --- pre-phases (per grid index), post-phases (per sample, per line)
+  const nu = uGrid.length, nv = vGrid.length;
+  const preU = new Float64Array(2 * nu), preV = new Float64Array(2 * nv);
+  for (let a = 0; a < nu; a++) {
+    const th = -TWO_PI * kx0 * uGrid[a]!;
+    preU[2 * a] = Math.cos(th);
+    preU[2 * a + 1] = Math.sin(th);
+  }
+  for (let b = 0; b < nv; b++) {
+    const th = -TWO_PI * kyRef * vGrid[b]!;
+    preV[2 * b] = Math.cos(th);
+    preV[2 * b + 1] = Math.sin(th);
+  }
+  // per sample j and segment l: B_l(j)·exp(−i2π j·Δkx·u0)
+  const BL = new Float64Array(2 * ns * L);
+  for (let j = 0; j < ns; j++) {
+    const th = -TWO_PI * j * dkx * uGrid[0]!, cr = Math.cos(th), ci = Math.sin(th);
+    for (let l = 0; l < L; l++) {
+      const br = B[l]![2 * j]!, bi = B[l]![2 * j + 1]!;
+      BL[2 * (j * L + l)] = br * cr - bi * ci;
+      BL[2 * (j * L + l) + 1] = br * ci + bi * cr;
+    }
+  }
+  // per active line and rank r: c_n·exp(−i2π(ky_n − ky_ref)·v0)·A_r(n)
+  const AL = new Float64Array(2 * NA * R);
+  for (let k = 0; k < NA; k++) {
+    const op = act[k]!.op, th = -TWO_PI * (ky[k]! - kyRef) * vGrid[0]!;
+    const pr0 = Math.cos(th), pi0 = Math.sin(th);
+    const cr = pr0 * op.cr - pi0 * op.ci, ci = pr0 * op.ci + pi0 * op.cr;
+    for (let r = 0; r < R; r++) {
+      const ar = A[r]![2 * k]!, ai = A[r]![2 * k + 1]!;
+      AL[2 * (k * R + r)] = ar * cr - ai * ci;
+      AL[2 * (k * R + r) + 1] = ar * ci + ai * cr;
+    }
+  }
+  // --- per rank: fold into grids X[q][l], transform, accumulate
+  // Folded grids, column-major (read index a outer, phase index b inner): X[q·L + l][2·(a·Mv + b)].
+  const grid = Mu * Mv;
+  // ranks folded per pass over the isochromats: as many as GRID_BYTES of grids allow
+  const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
+  const X: Float64Array[] = [];
+  for (let q = 0; q < perPass * coils * L; q++) X.push(new Float64Array(2 * grid));
+  const colUsed = new Uint8Array(Mu);
+  for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
+  const fRead = a0.op.fRead, bw = a0.op.bwSampled;
+  const dftU = new Dft(Mu), dftV = new Dft(Mv);
+  const colIdx = new Int32Array(ns);
+  for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
+  const lineRow = act.map((a) => a.op.row);
+  // Z[q·L + l][n][a]: phase-transformed lines summed over the ranks; acc[j]: Σ_l B_l(j)·F_l(n, j) of one line
+  const Z: Float64Array[] = [];
+  for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
+  const acc = new Float64Array(2 * ns);
+  const readLine = (q: number, l: number, k: number) => {
+    dftU.inp.set(Z[q * L + l]!.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
+    dftU.run();
+    const out = dftU.out;
+    for (let j = 0; j < ns; j++) {
+      const cj = colIdx[j]!, fr = out[2 * cj]!, fi = out[2 * cj + 1]!;
+      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+      acc[2 * j] = acc[2 * j]! + (fr * br - fi * bi);
+      acc[2 * j + 1] = acc[2 * j + 1]! + (fr * bi + fi * br);
+    }
+  };
+  const maxAbs = (v: Float64Array) => {
+    let m = 0;
+    for (let k = 0; k < v.length; k += 2) m = Math.max(m, Math.hypot(v[k]!, v[k + 1]!));
+    return m;
+  };
+  const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
+  // Pairs (rank r, segment l) are transformed unless their contribution's bound
+  // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
+  // tolerance/split of the norm of the rank-0 k-space; skipped pairs are counted.
+  let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
+  for (let r = 0; r < R; r++) {
+    const r0 = r - (r % perPass);
+    if (r === r0) {
+      if (r > 0) {
+        for (const x of X) {
+          for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
+        }
+      }
+      foldPass(iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
+    }
+    for (let q = 0; q < coils; q++) {
+      for (let l = 0; l < L; l++) {
+        const xg = X[((r - r0) * coils + q) * L + l]!;
+        if (budget >= 0) {
+          let n2 = 0;
+          for (let a = 0; a < Mu; a++) {
+            if (!colUsed[a]) continue;
+            for (let k = 2 * a * Mv; k < 2 * (a + 1) * Mv; k++) n2 += xg[k]! * xg[k]!;
+          }
+          const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2);
+          if (bound <= budget) {
+            skipped++;
+            skippedBound += bound;
+            continue;
+          }
+        }
+        kept++;
+        // phase-axis DFT of every used read column; the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]
+        phaseTransform(xg, Z[q * L + l]!, colUsed, Mu, Mv, dftV, NA, mLine, AL, r, R);
+      }
+    }
+    if (r === 0) {
+      // the norm of the rank-0 k-space sets the budget of the skipped pairs
+      let n2 = 0;
+      for (let q = 0; q < coils; q++) {
+        for (let k = 0; k < NA; k++) {
+          acc.fill(0);
+          for (let l = 0; l < L; l++) readLine(q, l, k);
+          for (let j = 0; j < 2 * ns; j++) n2 += acc[j]! * acc[j]!;
+        }
+      }
+      budget = ((tolerance / split) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
+    }
+  }
+  // read-axis DFT of each line, times B_l(j), summed over l into the rows
+  for (let q = 0; q < coils; q++) {
+    for (let k = 0; k < NA; k++) {
+      acc.fill(0);
+      for (let l = 0; l < L; l++) readLine(q, l, k);
+      const ob = (q * plan.rows + lineRow[k]!) * plan.read;
+      for (let j = 0; j < ns; j++) {
+        re[ob + j] = re[ob + j]! + acc[2 * j]!;
+        im[ob + j] = im[ob + j]! + acc[2 * j + 1]!;
+      }
+    }
+  }
+  const report: ReadoutReport = {
+    ...base,
+    method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
+    segments: L, lineRank: R, grid: [Mv, Mu], split, pairs: { transformed: kept, skipped, skippedBound: skippedBound },
+  };
+  report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
+  return { re, im, report };
+}
+
+
+/**
+ * One pass over the isochromats for ranks r0 … r1−1: per column and (R2, Δf)
+ * key the rank weights Σ m0·G_r(c)·S_q, times the pre-phases and the
+ * receiver filter, folded into the grids X[((r − r0)·coils + q)·L + l] with
+ * the segment coefficients C_l(key).
+ */
+function foldPass(
+  iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
+  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+): void {
+  const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
+  const { iu, iv, m0, colStart, uGrid } = iso;
+  const W = r1 - r0, CW = coils * W;
+  const accR = new Float64Array(K * CW), accI = new Float64Array(K * CW);
+  const touched = new Int32Array(K), seen = new Uint8Array(K);
+  for (let col = 0; col < iso.columns; col++) {
+    const i0 = colStart[col]!, i1 = colStart[col + 1]!;
+    if (i1 <= i0) continue;
+    let nt = 0;
+    for (let i = i0; i < i1; i++) {
+      const c = rfClass[i]!, k = keyOf[c]!, m = m0[i]!;
+      if (seen[k] === 0) {
+        seen[k] = 1;
+        touched[nt++] = k;
+      }
+      const g = 2 * (c * R + r0);
+      if (sens === null) {
+        const o = k * W;
+        for (let r = 0; r < W; r++) {
+          accR[o + r] = accR[o + r]! + G[g + 2 * r]! * m;
+          accI[o + r] = accI[o + r]! + G[g + 2 * r + 1]! * m;
+        }
+      } else {
+        for (let q = 0; q < coils; q++) {
+          const so = 2 * (q * count + i), s0 = sens[so]! * m, s1 = sens[so + 1]! * m, o = (k * coils + q) * W;
+          for (let r = 0; r < W; r++) {
+            const gr = G[g + 2 * r]!, gi = G[g + 2 * r + 1]!;
+            accR[o + r] = accR[o + r]! + (gr * s0 - gi * s1);
+            accI[o + r] = accI[o + r]! + (gr * s1 + gi * s0);
+          }
+        }
+      }
+    }
+    const a = iu[i0]!, b = iv[i0]!;
+    const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
+    const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
+    const p = 2 * ((a % Mu) * Mv + (b % Mv));
+    const u = uGrid[a]!;
+    for (let t = 0; t < nt; t++) {
+      const k = touched[t]!;
+      seen[k] = 0;
+      const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
+      const o0 = k * CW;
+      for (let q = 0; q < coils; q++) {
+        for (let r = 0; r < W; r++) {
+          const o = o0 + q * W + r;
+          const zr = accR[o]!, zi = accI[o]!;
+          accR[o] = 0;
+          accI[o] = 0;
+          if (hk === 0) continue;
+          const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
+          const xb = (r * coils + q) * L;
+          for (let l = 0; l < L; l++) {
+            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
+            xg[p] = xg[p]! + (wr * cr - wi * ci);
+            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+          }
+        }
+      }
+    }
+  }
+}
+
+/**
+ * Phase-axis DFT of every used read column of grid xg (column-major, Mv per
+ * column); the sampled lines, times AL[n][r] (c_n·post-phase·A_r(n)), added
+ * into z[n][a].
+ */
+function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, Mu: number, Mv: number, dft: Dft, NA: number, mLine: Int32Array, AL: Float64Array, r: number, R: number): void {
+  const inp = dft.inp, out = dft.out;
+  for (let a = 0; a < Mu; a++) {
+    if (colUsed[a] === 0) continue;
+    const o0 = 2 * a * Mv;
+    for (let k = 0; k < 2 * Mv; k++) inp[k] = xg[o0 + k]!;
+    dft.run();
+    for (let k = 0; k < NA; k++) {
+      const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
+      const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
+      z[o] = z[o]! + (fr * cr - fi * ci);
+      z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
+    }
+  }
+}
+
+/** A small seeded generator (mulberry32, common practice) for the sample subset. */
+function mulberry32(seed: number): () => number {
+  let a = seed >>> 0;
+  return () => {
+    a = (a + 0x6d2b79f5) >>> 0;
+    let t = a;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}
+
+/**
+ * A-posteriori error estimate: the direct sum over every isochromat, with the
+ * exact per-class transverse state and exact phase and decay factors (no line
+ * factor, no time segmentation, no FFT), on a seeded random subset of samples
+ * — ESTIMATE_ROWS rows, ESTIMATE_SAMPLES / ESTIMATE_ROWS samples in each —
+ * against the fast result: ESTIMATE_MARGIN × the relative L2 error on the
+ * subset, all coils (the margin covers the sampling of the subset).
+ */
+function estimate(
+  plan: EnginePlan, iso: IsochromatSet, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+  keyOf: Int32Array, keyDf: number[], keyR2: number[],
+  re: Float64Array, im: Float64Array,
+): { samples: number; seed: number; relL2: number } {
+  const rnd = mulberry32(ESTIMATE_SEED);
+  const C = plan.classes, coils = plan.coils, sens = plan.sens, count = iso.count, K = keyDf.length;
+  // rows (distinct, each with its readouts' ky) and samples j per row
+  const allRows = [...new Set(actN.map((n) => h.adcs[n]!.op.row))];
+  const NR = Math.min(ESTIMATE_ROWS, allRows.length), PJ = Math.min(ESTIMATE_SAMPLES / ESTIMATE_ROWS, ns);
+  const rows: number[] = [];
+  while (rows.length < NR) {
+    const r = allRows[Math.floor(rnd() * allRows.length)]!;
+    if (!rows.includes(r)) rows.push(r);
+  }
+  const S = NR * PJ, js: number[] = [], kyRow = new Float64Array(NR);
+  for (let s = 0; s < S; s++) js.push(Math.floor(rnd() * ns));
+  // Pr[c·NR + w] = Σ_{readouts n of row w} c_n·P_c(n) (all readouts of a row share its ky)
+  const Pr = new Float64Array(2 * C * NR);
+  for (let w = 0; w < NR; w++) {
+    for (let k = 0; k < actN.length; k++) {
+      const n = actN[k]!, op = h.adcs[n]!.op;
+      if (op.row !== rows[w]) continue;
+      kyRow[w] = ky[k]!;
+      for (let c = 0; c < C; c++) {
+        const pr = h.P[2 * (n * C + c)]!, pi = h.P[2 * (n * C + c) + 1]!, o = 2 * (c * NR + w);
+        Pr[o] = Pr[o]! + (pr * op.cr - pi * op.ci);
+        Pr[o + 1] = Pr[o + 1]! + (pr * op.ci + pi * op.cr);
+      }
+    }
+  }
+  // decay per key and sample: exp(−j·Δt·(R2 + i2πΔf))
+  const dec = new Float64Array(2 * K * S);
+  for (let k = 0; k < K; k++) {
+    for (let s = 0; s < S; s++) {
+      const t = js[s]! * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
+      dec[2 * (k * S + s)] = e * Math.cos(th);
+      dec[2 * (k * S + s) + 1] = e * Math.sin(th);
+    }
+  }
+  const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
+  const filt = plan.receiverFilter, rfClass = plan.rfClass;
+  const a0 = h.adcs[actN[0]!]!.op;
+  const tot = new Float64Array(2 * S * coils), col = new Float64Array(2 * S * coils);
+  const CN = coils * NR;
+  const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
+  const touched = new Int32Array(K), seen = new Uint8Array(K);
+  for (let cc = 0; cc < iso.columns; cc++) {
+    const i0 = colStart[cc]!, i1 = colStart[cc + 1]!;
+    if (i1 <= i0) continue;
+    const u = uGrid[iu[i0]!]!;
+    let nt = 0;
+    for (let i = i0; i < i1; i++) {
+      const c = rfClass[i]!, k = keyOf[c]!;
+      const m = m0[i]! * (filt ? receiverFilter(a0.fRead * u + df[i]!, a0.bwSampled) : 1);
+      if (seen[k] === 0) {
+        seen[k] = 1;
+        touched[nt++] = k;
+      }
+      for (let q = 0; q < coils; q++) {
+        let wr = m, wi = 0;
+        if (sens) {
+          wr = m * sens[2 * (q * count + i)]!;
+          wi = m * sens[2 * (q * count + i) + 1]!;
+        }
+        const o = (k * coils + q) * NR;
+        for (let w = 0; w < NR; w++) {
+          const pr = Pr[2 * (c * NR + w)]!, pi = Pr[2 * (c * NR + w) + 1]!;
+          accR[o + w] = accR[o + w]! + (wr * pr - wi * pi);
+          accI[o + w] = accI[o + w]! + (wr * pi + wi * pr);
+        }
+      }
+    }
+    col.fill(0);
+    for (let t = 0; t < nt; t++) {
+      const k = touched[t]!;
+      seen[k] = 0;
+      for (let q = 0; q < coils; q++) {
+        const o = (k * coils + q) * NR;
+        for (let s = 0; s < S; s++) {
+          const w = Math.floor(s / PJ), xr = accR[o + w]!, xi = accI[o + w]!;
+          const dr = dec[2 * (k * S + s)]!, di = dec[2 * (k * S + s) + 1]!, oc = 2 * (q * S + s);
+          col[oc] = col[oc]! + (xr * dr - xi * di);
+          col[oc + 1] = col[oc + 1]! + (xr * di + xi * dr);
+        }
+        accR.fill(0, o, o + NR);
+        accI.fill(0, o, o + NR);
+      }
+    }
+    const v = vGrid[iv[i0]!]!;
+    for (let s = 0; s < S; s++) {
+      const w = Math.floor(s / PJ);
+      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
+      for (let q = 0; q < coils; q++) {
+        const o = 2 * (q * S + s), xr = col[o]!, xi = col[o + 1]!;
+        tot[o] = tot[o]! + (xr * er - xi * ei);
+        tot[o + 1] = tot[o + 1]! + (xr * ei + xi * er);
+      }
+    }
+  }
+  let num = 0, den = 0;
+  for (let q = 0; q < coils; q++) {
+    for (let s = 0; s < S; s++) {
+      const o = (q * plan.rows + rows[Math.floor(s / PJ)]!) * plan.read + js[s]!;
+      const dr = tot[2 * (q * S + s)]!, di = tot[2 * (q * S + s) + 1]!;
+      num += (re[o]! - dr) ** 2 + (im[o]! - di) ** 2;
+      den += dr * dr + di * di;
+    }
+  }
+  return { samples: S * coils, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 };
+}
