@@ -192,6 +192,7 @@ describe("isofold preview in a browser", () => {
     expect([png.width, png.height]).toEqual([32, 32]);
     expect(readFileSync(pngFile).toString("latin1")).toContain("Simulated image computed by isofold");
     await page.screenshot({ path: join(SHOTS, "preview-export.png"), fullPage: true });
+    const operator = await page.evaluate(() => (window as any).__preview.last.readout as string);
     await page.close();
     const out = join(dir, "cli");
     // the exported protocol loads back with --protocol
@@ -209,6 +210,8 @@ describe("isofold preview in a browser", () => {
     expect(den).toBeGreaterThan(0);
     expect(Math.sqrt(num / den)).toBeLessThanOrEqual(1e-6);
     // same operator and kernels: the bytes agree
+    const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as { engine: { readout: { operator: string } } };
+    expect(operator).toBe(rep.engine.readout.operator);
     expect(Buffer.compare(readFileSync(file), readFileSync(join(out, "kspace.npy")))).toBe(0);
   });
 });

@@ -7,7 +7,7 @@
  */
 import { prepare, isoOptionsFor, defaultIsochromatOptions, SAFETY_NOTE } from "../cli/pipeline.js";
 import { UserError } from "../errors.js";
-import { makePlan, ChunkScratch, runChunk, BlockSummer, addInto } from "../engine/index.js";
+import { simulateSerial } from "../engine/index.js";
 import { toGrid, reconstructGrid, magnitude } from "../recon/reconstruct.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
@@ -48,6 +48,8 @@ export interface RunOutput {
   warnings: string[];
   isochromats: number;
   engineMs: number;
+  /** Readout operator that ran ("fast" or "direct"). */
+  readout: string;
   /** Milliseconds of each step in the worker: prepare (read, validate, sample isochromats), engine, recon (and analysis). */
   timings: Record<string, number>;
   iso: IsochromatOptions;
@@ -105,6 +107,7 @@ export function checkRequest(req: RunRequest): CheckResult {
 /** Runs one request; `stop()` is asked between engine chunks and a true answer throws Cancelled. */
 export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): RunOutput {
   const tStart = performance.now();
+  let readout = "";
   const timings: Record<string, number> = {};
   const iso = qualityOptions(req.quality, req.fatModel);
   const prep = prepare({ phantom: req.phantom, protocol: req.protocol, sets: req.sets, out: "", seed: 1, iso, workers: 1, maxMemory: 2 * 2 ** 30 });
@@ -115,23 +118,21 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
   const check: CheckResult | null = null;
   const t0 = performance.now();
   timings.prepare = t0 - tStart;
-  // the serial engine run of engine/index.ts (simulateSerial), chunk by chunk so a newer edit can stop it
-  const plan = makePlan(seq, mid.iso, { receiverFilter: protocol.receiverFilter });
-  const size = plan.coils * plan.rows * plan.read;
-  const re = new Float64Array(size), im = new Float64Array(size);
-  const pr = new Float64Array(size), pi = new Float64Array(size);
-  if (mid.iso.count > 0) {
-    const scratch = new ChunkScratch(plan);
-    const summer = new BlockSummer(size, 0, plan.chunks, (_b, bre, bim) => addInto(re, im, bre, bim));
-    for (let c = 0; c < plan.chunks; c++) {
-      if (stop()) throw new Cancelled();
-      pr.fill(0);
-      pi.fill(0);
-      runChunk(plan, mid.iso, c, pr, pi, scratch);
-      summer.add(c, pr, pi);
-      onProgress(c + 1, plan.chunks);
-    }
-  }
+  // the engine as `simulate` runs it (engine/index.ts simulateSerial: the fast readout operator, or the direct one where
+  // it does not apply, bitwise the same as the worker pool); a newer edit stops the direct path between chunks
+  if (stop()) throw new Cancelled();
+  const sim = mid.iso.count > 0
+    ? simulateSerial(seq, mid.iso, {
+      receiverFilter: protocol.receiverFilter,
+      onProgress: (done, total) => {
+        if (stop()) throw new Cancelled();
+        onProgress(done, total);
+      },
+    })
+    : null;
+  const size = seq.kspace.slice * seq.kspace.phase * seq.kspace.read;
+  const re = sim ? sim.kspace.re : new Float64Array(size), im = sim ? sim.kspace.im : new Float64Array(size);
+  readout = sim ? sim.readout.operator : "none";
   const engineMs = performance.now() - t0;
   timings.engine = engineMs;
   const t1 = performance.now();
@@ -165,7 +166,7 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
     display: displayTransform(logicalAxes(protocol)),
     fatShift, check,
     warnings: [...new Set([...protocol.warnings, ...mid.iso.warnings])],
-    isochromats: mid.iso.count, engineMs, timings: { ...timings, recon: performance.now() - t1, total: performance.now() - tStart },
+    isochromats: mid.iso.count, engineMs, readout, timings: { ...timings, recon: performance.now() - t1, total: performance.now() - tStart },
     iso: isoOptionsFor(protocol, iso),
     kspaceNpy: vol(grid), imageNpy: vol(img),
     derived: seq.derived as Record<string, unknown>,

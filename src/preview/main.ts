@@ -344,7 +344,7 @@ function show(o: RunOutput, g: number): void {
   }
   syncControls();
   $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread)" : "default quality";
-  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
+  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   (window as any).__preview.shown = g;
   (window as any).__preview.quality = o.quality;
   const showMs = performance.now() - tShow;
