@@ -484,7 +484,12 @@ async function main(): Promise<void> {
     if (m.gen !== gen) return;
     if (m.t === "result") {
       show(m.out as RunOutput, m.gen);
-      if (ev.target === worker && lastReq) refiner.postMessage({ t: "run", gen: m.gen, refine: false, req: { ...lastReq, quality: "full" } });
+      if (ev.target === worker && lastReq) {
+        refiner.postMessage({ t: "run", gen: m.gen, refine: false, req: { ...lastReq, quality: "full" } });
+        // indeterminate until the refining worker reports chunks (the fast readout reports none until it is done)
+        $("progress-wrap").hidden = false;
+        $("progress").removeAttribute("value");
+      }
     }
     else if (m.t === "check" && last && m.check) {
       last.check = m.check;
