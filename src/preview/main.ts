@@ -54,6 +54,8 @@ const latencies: { gen: number; ms: number; matrix: number; worker: number; show
 const worker = new Worker("worker.js", { type: "module" });
 const refiner = new Worker("worker.js", { type: "module" });
 let lastReq: Record<string, unknown> | null = null;
+/** Protocol objects of files (named on the command line or chosen in the page), for the protocol export. */
+const fileProtocols = new Map<string, unknown>();
 
 function readUrl(cfg: Config): void {
   const q = new URLSearchParams(location.search);
@@ -441,7 +443,7 @@ async function main(): Promise<void> {
     if (![...sel.options].some((o) => o.value === name)) sel.append(new Option(name, name));
     sel.value = name;
     if (sel === phSel) state.phantom = name;
-    else { state.protocol = name; state.sets.clear(); }
+    else { state.protocol = name; state.sets.clear(); fileProtocols.set(name, obj); }
     run(t0);
   };
   $("c-file").addEventListener("change", (ev) => { const f = ($("c-file") as HTMLInputElement).files?.[0]; if (f) void takeFile(f, ev.timeStamp); });
@@ -455,7 +457,7 @@ async function main(): Promise<void> {
 
   $("x-protocol").addEventListener("click", () => {
     const base = state.protocol.startsWith("file:") ? null : state.protocol;
-    const over: Record<string, any> = base ? { extend: base } : { ...(cfg.given.protocol?.object as object) };
+    const over: Record<string, any> = base ? { extend: base } : structuredClone(fileProtocols.get(state.protocol) ?? {});
     for (const [k, v] of state.sets) {
       const path = k.split(".");
       let cur = over;
