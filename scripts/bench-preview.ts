@@ -39,7 +39,7 @@ const ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
   args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
 });
 console.log(`previewer edit-to-paint latency, ${PHANTOM} with ${PROTOCOL}, ${EDITS} bandwidth edits per size, preview quality (density 1, 3 through-slice isochromats, no T2′ spread)`);
-console.log("matrix   median ms   p90 ms   min ms   max ms   worker prepare/engine/recon = total ms; page drawing ms (medians)");
+console.log("matrix   median ms   p90 ms   min ms   max ms   in the worker simulate()/analysis = total ms; page drawing ms (medians)");
 try {
   for (const n of [64, 128, 256]) {
     const page = await ctx.newPage();
@@ -47,7 +47,7 @@ try {
     page.on("pageerror", (e) => console.error("page error:", e.message));
     await page.waitForFunction(() => (window as any).__preview?.painted > 0, null, { timeout: 60_000 }).catch(async (e) => { console.error(await page.evaluate(() => JSON.stringify({ e: (window as any).__preview?.error, s: document.getElementById("status")?.textContent, u: location.href }))); throw e; });
     const ms: number[] = [];
-    const steps: Record<string, number[]> = { prepare: [], engine: [], recon: [], total: [], show: [] };
+    const steps: Record<string, number[]> = { simulate: [], analysis: [], total: [], show: [] };
     for (let i = 0; i < EDITS; i++) {
       const bw = 120 + 10 * (i % 12);
       const g0 = await page.evaluate(() => (window as any).__preview.gen as number);
@@ -63,7 +63,7 @@ try {
       for (const k of Object.keys(steps)) steps[k]!.push((r.t as Record<string, number>)[k] ?? NaN);
     }
     const med = (xs: number[]) => pct(xs, 50);
-    console.log(`${`${n}²`.padEnd(8)} ${med(ms).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ${med(steps.prepare!).toFixed(0)}/${med(steps.engine!).toFixed(0)}/${med(steps.recon!).toFixed(0)} = ${med(steps.total!).toFixed(0)}; page drawing ${med(steps.show!).toFixed(0)}`);
+    console.log(`${`${n}²`.padEnd(8)} ${med(ms).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ${med(steps.simulate!).toFixed(0)}/${med(steps.analysis!).toFixed(0)} = ${med(steps.total!).toFixed(0)}; page drawing ${med(steps.show!).toFixed(0)}`);
     await page.close();
   }
 } finally {

@@ -1,8 +1,9 @@
 /**
- * Builds the previewer page into dist/preview/ with esbuild: the page script,
- * the engine worker (the core bundled for the browser; Node built-ins the core
- * still imports are replaced by the small stand-ins of src/preview/shims,
- * which exist only in this bundle), index.html and style.css.
+ * Builds the previewer page into dist/preview/ with esbuild: the engine worker
+ * (the library core bundled for the browser: any Node built-in it pulled in
+ * fails the build), the page script, index.html and style.css. The page script
+ * uses only the PNG text-chunk helpers of io/png.ts; the PNG encoder that file
+ * also imports (pngjs, Node streams) is replaced by a stub that throws.
  */
 import { build, type Plugin } from "esbuild";
 import { copyFileSync, mkdirSync } from "node:fs";
@@ -13,35 +14,26 @@ const root = resolve(dirname(fileURLToPath(import.meta.url)), "../..");
 const src = join(root, "src/preview");
 const out = join(root, "dist/preview");
 
-const SHIM: Record<string, string> = {
-  "node:fs": "shims/vfs.ts", fs: "shims/vfs.ts",
-  "node:path": "shims/path.ts", path: "shims/path.ts",
-  "node:module": "shims/module.ts",
-  "node:url": "shims/misc.ts", "node:os": "shims/misc.ts", "node:worker_threads": "shims/misc.ts", "node:crypto": "shims/misc.ts",
-  "node:child_process": "shims/misc.ts", "node:zlib": "shims/misc.ts", "node:util": "shims/misc.ts", pngjs: "shims/misc.ts",
-};
-
-const shims: Plugin = {
-  name: "isofold-preview-shims",
-  setup(b) {
-    b.onResolve({ filter: /^(node:.*|fs|path|pngjs)$/ }, (a) => {
-      const f = SHIM[a.path];
-      if (!f) return { errors: [{ text: `the previewer bundle has no stand-in for ${a.path} (imported by ${a.importer})` }] };
-      return { path: join(src, f) };
-    });
-  },
-};
+/** Fails the build on any Node built-in; `stubs` names the modules replaced by src/preview/stub.ts instead. */
+function browserOnly(stubs: string[]): Plugin {
+  return {
+    name: "isofold-browser-only",
+    setup(b) {
+      b.onResolve({ filter: /^(node:.*|fs|path|os|url|module|crypto|zlib|stream|util|events|worker_threads|child_process|pngjs)$/ }, (a) => {
+        if (stubs.includes(a.path)) return { path: join(src, "stub.ts") };
+        return { errors: [{ text: `${a.path} is a Node module: the previewer bundle must not pull it in (imported by ${a.importer})` }] };
+      });
+    },
+  };
+}
 
 export async function buildPreview(): Promise<void> {
   mkdirSync(out, { recursive: true });
   const common = { bundle: true, platform: "browser" as const, target: "es2022", logLevel: "warning" as const, legalComments: "none" as const, minify: true, sourcemap: false };
   await build({
-    ...common, entryPoints: [join(src, "worker.ts")], outfile: join(out, "worker.js"), format: "esm", plugins: [shims],
-    inject: [join(src, "shims/process.ts")],
-    // where the core's modules think they live: presets resolve to /src/protocol/presets in the worker's file table
-    define: { "import.meta.url": JSON.stringify("file:///isofold/src/protocol/parse.js") },
+    ...common, entryPoints: [join(src, "worker.ts")], outfile: join(out, "worker.js"), format: "esm", plugins: [browserOnly([])],
   });
-  await build({ ...common, entryPoints: [join(src, "main.ts")], outfile: join(out, "app.js"), format: "esm", plugins: [shims] });
+  await build({ ...common, entryPoints: [join(src, "main.ts")], outfile: join(out, "app.js"), format: "esm", plugins: [browserOnly(["pngjs"])] });
   copyFileSync(join(src, "index.html"), join(out, "index.html"));
   copyFileSync(join(src, "style.css"), join(out, "style.css"));
 }

@@ -4,14 +4,15 @@
  * (s, m, T, T/m, T/m/s, Hz, rad) with mathjs, and adds the units mathjs lacks
  * (px, gauss, ppm) once. Nothing inside the simulation sees a unit.
  */
-import { createRequire } from "node:module";
 import type { Unit, MathJsStatic, FactoryFunctionMap } from "mathjs";
+import mathjsBundle from "mathjs/lib/browser/math.js";
 import { userError, type Origin } from "./errors.js";
 import { describeValue } from "./json.js";
 
 // mathjs's single-file build loads about four times faster than its many ES modules,
-// which matters for a command-line tool's start-up; the API is the same.
-const mathjs = createRequire(import.meta.url)("mathjs/lib/browser/math.js") as {
+// which matters for a command-line tool's start-up; the API is the same. It is a
+// CommonJS/UMD file: Node, esbuild and browsers' bundlers all import it as a default export.
+const mathjs = mathjsBundle as unknown as {
   create: (f: FactoryFunctionMap, c: object) => MathJsStatic;
   all: FactoryFunctionMap;
 };

@@ -15,7 +15,7 @@ import { join } from "node:path";
 import fc from "fast-check";
 import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
-import { pivotedBasis, simulateParallel, simulateSerial } from "../src/engine/index.js";
+import { pivotedBasis, simulateParallel, simulateSerial } from "../src/engine/node.js";
 import type { IsochromatOptions } from "../src/isochromats/index.js";
 import { discPhantom, relL2, tempDir, writeJson } from "./helpers.js";
 

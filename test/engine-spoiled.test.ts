@@ -11,7 +11,7 @@ import { readFileSync } from "node:fs";
 import { join } from "node:path";
 import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
-import { simulateParallel, simulateSerial } from "../src/engine/index.js";
+import { simulateParallel, simulateSerial } from "../src/engine/node.js";
 import type { IsochromatOptions } from "../src/isochromats/index.js";
 import { relL2, tempDir, writeJson } from "./helpers.js";
 

@@ -12,7 +12,7 @@ import { prepare } from "../src/cli/pipeline.js";
 import {
   BLOCK_CHUNKS, ChunkScratch, blockCount, f64Words, makePlan, readoutRecurrence, receiverFilter, runChunk,
   PARALLEL_RF_CLASSES, readoutRecurrenceFast, rfAffine, rfAffineMany, wasmRfKernel, shardBlocks, simulateParallel, simulateSerial, TupleIndex, wasmKernel,
-} from "../src/engine/index.js";
+} from "../src/engine/node.js";
 import type { IsochromatSet } from "../src/isochromats/index.js";
 import type { Sequence } from "../src/sequence/types.js";
 

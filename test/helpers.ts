@@ -1,11 +1,21 @@
-/** Shared test helpers: temporary input files and a small in-process simulation. */
+/**
+ * Shared test helpers: temporary input files and the one in-process
+ * pipeline of the tests (runPipeline), which is the library's own —
+ * prepareSimulation (parse, sequence, isochromat options and geometry of the
+ * pipeline), the serial engine, reconstructRuns — so a test simulates what
+ * the command line and simulate() do.
+ */
 import assert from "node:assert/strict";
 import { mkdtempSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { prepare } from "../src/cli/pipeline.js";
-import { simulateSerial } from "../src/engine/index.js";
-import { defaultIsochromatOptions, type IsochromatOptions } from "../src/isochromats/index.js";
+import { prepareSimulation, reconstructRuns, type Volume } from "../src/api.js";
+import { simulateSerial, type EnginePlan, type KSpace } from "../src/engine/index.js";
+import { defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../src/isochromats/index.js";
+import { magnitude } from "../src/recon/reconstruct.js";
+import type { Protocol } from "../src/protocol/index.js";
+import type { Phantom } from "../src/phantom/index.js";
+import type { Sequence } from "../src/sequence/index.js";
 
 export function tempDir(prefix = "isofold-test-"): string {
   return mkdtempSync(join(tmpdir(), prefix));
@@ -28,21 +38,63 @@ export function discPhantom(radiusCm: number, tissue: Record<string, unknown>, b
   };
 }
 
-/** Runs protocol + phantom objects through prepare() and the serial engine. */
-export function simulate(protocol: Record<string, unknown>, phantom: Record<string, unknown>, iso: Partial<IsochromatOptions> = {}, sets: string[] = []) {
-  const dir = tempDir();
-  const pFile = writeJson(dir, "protocol.json", protocol);
-  const phFile = writeJson(dir, "phantom.json", phantom);
-  const prep = prepare({
-    phantom: phFile, protocol: pFile, sets, out: join(dir, "out"), seed: 1,
+export interface PipelineResult {
+  protocol: Protocol;
+  phantom: Phantom;
+  /** Sequence and isochromats of the first slice holding any (the one simulated). */
+  seq: Sequence;
+  iso: IsochromatSet;
+  /** Engine k-space as acquired [coil][row][read], and the plan. */
+  kspace: KSpace;
+  plan: EnginePlan;
+  /** Σ m0 of the simulated isochromats. */
+  m0Total: number;
+  /** Acquired k-space as a volume, the full grid, the image and |image|. */
+  kacq: Volume;
+  kgrid: Volume;
+  image: Volume;
+  mag: Float64Array;
+}
+
+function isParsedProtocol(p: unknown): p is Protocol {
+  return typeof (p as Protocol).pixelBandwidth === "number";
+}
+function isParsedPhantom(p: unknown): p is Phantom {
+  return Array.isArray((p as Phantom).tissues) && typeof (p as Phantom).fieldT === "number";
+}
+
+/**
+ * Simulates a protocol (object as in a file, or parsed) on a phantom (object
+ * or parsed) in this thread: isochromat options are defaultIsochromatOptions()
+ * overridden by `iso`, then raised by the pipeline where coherence pathways
+ * need it (unless `opts.exact`). No convergence probe (tests check convergence
+ * themselves).
+ */
+export function runPipeline(
+  protocol: Record<string, unknown> | Protocol, phantom: unknown, iso: Partial<IsochromatOptions> = {}, sets: string[] = [],
+  opts: { exact?: boolean } = {},
+): PipelineResult {
+  const prep = prepareSimulation({
+    exactSliceCount: opts.exact === true, convergenceCheck: false,
+    ...(isParsedProtocol(protocol) ? { parsedProtocol: protocol } : { protocol }),
+    ...(isParsedPhantom(phantom) ? { parsedPhantom: phantom } : { phantom }),
+    protocolName: "test-protocol.json", phantomName: "test-phantom.json", sets,
     iso: { ...defaultIsochromatOptions(), ...iso },
   });
+  const { seq, iso: set } = prep.first;
   // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
-  assert.ok(prep.iso.count > 0, "the test phantom puts no isochromat in the slice");
-  const { kspace, plan } = simulateSerial(prep.seq, prep.iso, { receiverFilter: prep.protocol.receiverFilter });
+  assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
+  const { kspace, plan } = simulateSerial(seq, set, { receiverFilter: prep.protocol.receiverFilter });
   let m0 = 0;
-  for (let i = 0; i < prep.iso.count; i++) m0 += prep.iso.m0[i]!;
-  return { ...prep, kspace, plan, m0Total: m0, dir };
+  for (let i = 0; i < set.count; i++) m0 += set.m0[i]!;
+  const { kspace: kgrid, image } = reconstructRuns([seq], [kspace]);
+  const kacq: Volume = { coils: kspace.coils, slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
+  return { protocol: prep.protocol, phantom: prep.phantom, seq, iso: set, kspace, plan, m0Total: m0, kacq, kgrid, image, mag: magnitude(image) };
+}
+
+/** runPipeline with protocol and phantom objects (the core tests' name). */
+export function simulate(protocol: Record<string, unknown>, phantom: Record<string, unknown>, iso: Partial<IsochromatOptions> = {}, sets: string[] = []): PipelineResult {
+  return runPipeline(protocol, phantom, iso, sets);
 }
 
 /** The k-space sample at k = 0 (complex) of a 2D run. */

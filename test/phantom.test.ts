@@ -8,12 +8,12 @@ import {
   compileB0Expression,
   libraryNames,
   libraryTissue,
-  loadPhantom,
   makeShape,
   parsePhantom,
   phantomBounds,
   type Phantom,
 } from "../src/phantom/index.js";
+import { loadPhantom } from "../src/cli/inputs.js";
 
 const PHANTOMS = join(import.meta.dirname, "..", "phantoms");
 const BUNDLED = ["two-bottle", "torso-slice", "edge-grid", "disc"];

@@ -8,7 +8,7 @@ import { spawnSync } from "node:child_process";
 import { resolve } from "node:path";
 import { Command } from "commander";
 import { registerProtocol } from "../src/cli/protocol.js";
-import { listPresets } from "../src/protocol/index.js";
+import { listPresets } from "../src/cli/inputs.js";
 
 const CLI = resolve(__dirname, "../dist/src/cli/index.js");
 

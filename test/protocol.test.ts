@@ -4,7 +4,8 @@
  * name the limiting quantity and a value that works.
  */
 import { describe, expect, it } from "vitest";
-import { listPresets, loadProtocol, logicalAxes, slicePositions } from "../src/protocol/index.js";
+import { logicalAxes, slicePositions } from "../src/protocol/index.js";
+import { listPresets, loadProtocol } from "../src/cli/inputs.js";
 import { buildSequence } from "../src/sequence/index.js";
 import { UserError } from "../src/errors.js";
 import { proto } from "./sequence-helpers.js";

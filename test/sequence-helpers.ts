@@ -3,15 +3,12 @@
  * object (over a small base), a phantom from JSON, and a serial simulation
  * with the pipeline's isochromat options and the grid reconstruction.
  */
-import assert from "node:assert/strict";
 import { parseProtocolObject, type Protocol } from "../src/protocol/index.js";
 import { parsePhantom, type Phantom } from "../src/phantom/index.js";
-import { buildSequence, type Sequence } from "../src/sequence/index.js";
-import { makeIsochromats, defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../src/isochromats/index.js";
-import { logicalAxes } from "../src/protocol/geometry.js";
-import { simulateSerial } from "../src/engine/index.js";
-import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "../src/recon/reconstruct.js";
-import { isoOptionsFor, sampledLimits, slabCoverage } from "../src/cli/pipeline.js";
+import type { Sequence } from "../src/sequence/index.js";
+import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
+import type { ComplexVolume } from "../src/recon/reconstruct.js";
+import { runPipeline } from "./helpers.js";
 
 type Obj = Record<string, unknown>;
 
@@ -60,32 +57,14 @@ export interface SimResult {
   mag: Float64Array;
 }
 
-/** With `exact`, iso.sliceCount is used as given (no automatic raise), e.g. to show what a coarse grid does. */
+/**
+ * The tests' one pipeline (helpers.ts runPipeline) at density 1 and one isochromat through the slice unless `iso` says
+ * otherwise, raised where coherence pathways need it; with `exact`, iso.sliceCount is used as given (no automatic
+ * raise), e.g. to show what a coarse grid does.
+ */
 export function simulate(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions> = {}, exact = false): SimResult {
-  const seq = buildSequence(p);
-  const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
-  const given = { ...defaultIsochromatOptions(), density: 1, sliceCount: 1, sliceExtent: 1, ...iso };
-  const opts = exact ? given : isoOptionsFor(p, given, seq, steps);
-  const set = makeIsochromats(
-    ph,
-    {
-      axes: logicalAxes(p),
-      dx: p.fov.read / p.matrix.read,
-      dy: p.fov.phase / p.matrix.phase,
-      thickness: p.slice.thickness,
-      position: p.slice.position,
-      ...sampledLimits(p),
-    },
-    p.field,
-    opts,
-  );
-  // a test phantom that misses the slice would compare zeros with zeros: fail loudly instead
-  assert.ok(set.count > 0, "the test phantom puts no isochromat in the slice");
-  const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
-  const kacq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
-  const kgrid = toGrid(kacq, seq.grid);
-  const image = reconstructGrid(kgrid, seq.grid, seq.image);
-  return { seq, iso: set, kacq, kgrid, image, mag: magnitude(image) };
+  const r = runPipeline(p, ph, { density: 1, sliceCount: 1, sliceExtent: 1, ...iso }, [], { exact });
+  return { seq: r.seq, iso: r.iso, kacq: r.kacq, kgrid: r.kgrid, image: r.image, mag: r.mag };
 }
 
 /** Magnitude-weighted centroid (pixels) of a [phase][read] plane along both axes, over values above `floor`·max. */

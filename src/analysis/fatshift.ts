@@ -95,10 +95,6 @@ export function multiPeakMeanPpm(): number {
   return s / a;
 }
 
-function derivedNumber(seq: Sequence, key: string): number | undefined {
-  const d = seq.derived[key];
-  return d && typeof d.value === "number" && Number.isFinite(d.value) ? d.value : undefined;
-}
 
 /** Displacement of a spin at off-resonance `hz` (Hz) relative to one on resonance: the fat-shift closed forms at the equivalent ppm. */
 export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatShiftPrediction {
@@ -139,13 +135,14 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
  * (default +1). Shared by report.json, the `protocol` table and checks.
  */
 export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
-  const tau = derivedNumber(seq, "effectiveEchoSpacing");
+  const q = seq.quantities;
+  const tau = q.effectiveEchoSpacing;
   return {
     fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, readSign: protocol.readoutPolarity,
     dxRead: protocol.fov.read / protocol.matrix.read, dyPhase: protocol.fov.phase / protocol.matrix.phase,
-    sliceGradient: derivedNumber(seq, "sliceGradient") ?? 0,
+    sliceGradient: q.sliceGradient,
     ...(tau !== undefined
-      ? { effectiveEchoSpacing: tau, phaseLines: derivedNumber(seq, "phaseLinesEffective") ?? seq.image.phase, blipSign: derivedNumber(seq, "phaseBlipSign") ?? 1 }
+      ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.image.phase, blipSign: q.phaseBlipSign ?? 1 }
       : {}),
     axisNames: logicalAxes(protocol).names,
   };

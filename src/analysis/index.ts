@@ -4,3 +4,4 @@
  */
 export { predictFatShift, fatShiftInput, predictProtocolFatShift, predictOffResonanceShift, READ_SHIFT_FORMULA, SLICE_SHIFT_FORMULA, PHASE_SHIFT_FORMULA, measureFatShift, ppmToHz, multiPeakMeanPpm, type FatShiftInput, type FatShiftPrediction, type FatShiftMeasurement, type FineTruth, type AxisShift } from "./fatshift.js";
 export { truthMaps, type TruthMaps, type TruthGrid } from "./truth.js";
+export { fatShiftReport } from "./report.js";

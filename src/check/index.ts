@@ -14,6 +14,7 @@ import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceSh
 import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import { UserError } from "../errors.js";
 import { parsePhantom, type Phantom, type Shape } from "../phantom/index.js";
+import { sequenceDefinition } from "../sequence/index.js";
 import { logicalAxes, slicePositions, toPhysical, type Axes, type Protocol } from "../protocol/index.js";
 import type { Sequence } from "../sequence/index.js";
 import { fwhmGradientEcho, fwhmSampled, fwhmSpinEcho, SINC_FWHM } from "./psf.js";
@@ -461,7 +462,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- blur ----
   const present = [...tissuesPresent].map((k) => ph.tissues[k]!);
   const tAcq = 1 / p.pixelBandwidth;
-  const refocused = p.sequence === "se" || p.sequence === "rare" || (p.sequence === "epi" && p.epiEcho === "spin");
+  const refocused = sequenceDefinition(p.sequence).refocuses(p);
   let worstRead = { fw: 0, name: "", t2s: 0 };
   for (const t of present) {
     const t2p = t.t2star < t.t2 ? 1 / (1 / t.t2star - 1 / t.t2) : Infinity;

@@ -6,8 +6,8 @@
 import type { Command } from "commander";
 import { checkProtocol, parseRoi, parseThresholds, type CheckItem, type CheckResult } from "../check/index.js";
 import { UserError } from "../errors.js";
-import { loadPhantom } from "../phantom/index.js";
-import { loadProtocol, type Protocol } from "../protocol/index.js";
+import type { Protocol } from "../protocol/index.js";
+import { loadPhantom, loadProtocol } from "./inputs.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
 import { printWarnings, readRealNpy } from "./pipeline.js";

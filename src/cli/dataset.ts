@@ -7,8 +7,9 @@ import { Command } from "commander";
 import { readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
-import { loadProtocol, logicalAxes, type Protocol } from "../protocol/index.js";
-import { loadPhantom, phantomBounds, type Phantom } from "../phantom/index.js";
+import { logicalAxes, type Protocol } from "../protocol/index.js";
+import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
+import { phantomBounds, type Phantom } from "../phantom/index.js";
 import { buildSequence } from "../sequence/index.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
@@ -17,10 +18,10 @@ import {
   loopPlacement, mergeDatasetParts, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
-import { addSimulationOptions, collect, isoOptions } from "./options.js";
+import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
-import { prepare, printWarnings, readRealNpy, sampledLimits, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
+import { prepare, printWarnings, sampledLimits, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { withOutputDir } from "../io/outpath.js";
 import { defaultWorkers } from "./memory.js";
@@ -373,7 +374,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
-      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(),
+      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() },
       ...(physical ? { sigma: physical.sigma } : {}),
       format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
     }, i,

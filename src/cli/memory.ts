@@ -8,7 +8,7 @@ import { UserError } from "../errors.js";
 import { makeIsochromats, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
 import type { Phantom } from "../phantom/index.js";
 import type { Sequence } from "../sequence/types.js";
-import { CHUNK_ISOCHROMATS } from "../engine/index.js";
+import { chunkIsochromatsFromEnv } from "./options.js";
 
 /** Default engine workers: the cores Node may use. */
 export function defaultWorkers(): number {
@@ -28,7 +28,7 @@ export function defaultMemoryLimit(): number {
 export const BYTES_PER_ISOCHROMAT = 160;
 
 /** Per-worker scratch: state, relaxation factors per duration, readout groups (≈ 40 float64 per chunk isochromat). */
-export const WORKER_SCRATCH_BYTES = CHUNK_ISOCHROMATS * 8 * 48;
+export const WORKER_SCRATCH_BYTES = chunkIsochromatsFromEnv() * 8 * 48;
 
 export interface MemoryEstimate {
   isochromats: number;

@@ -7,8 +7,8 @@ import type { Command } from "commander";
 import { UserError } from "../errors.js";
 import { buildSequence } from "../sequence/index.js";
 import { addInto, type KSpace } from "../engine/index.js";
-import { loadPhantom } from "../phantom/index.js";
-import { finish, readRealNpy, type RunContext } from "./pipeline.js";
+import { loadPhantom, readRealNpy } from "./inputs.js";
+import { finish, type RunContext } from "./pipeline.js";
 import { readPartial } from "./partial.js";
 import { withOutputDir } from "../io/outpath.js";
 

@@ -5,7 +5,26 @@ import { Command, InvalidArgumentError, Option } from "commander";
 import { existsSync } from "node:fs";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import { defaultIsochromatOptions } from "./pipeline.js";
+import { defaultIsochromatOptions } from "../isochromats/index.js";
+import { CHUNK_ISOCHROMATS } from "../engine/index.js";
+
+/**
+ * Isochromats per engine chunk: CHUNK_ISOCHROMATS, or the environment
+ * variable ISOFOLD_CHUNK_ISOCHROMATS (64 … 2^24; for tests and tuning — the
+ * chunking is part of a result's definition; partial.json records it).
+ */
+export function chunkIsochromatsFromEnv(env: Record<string, string | undefined> = process.env): number {
+  const v = env["ISOFOLD_CHUNK_ISOCHROMATS"];
+  if (v === undefined || v === "") return CHUNK_ISOCHROMATS;
+  const n = Number(v);
+  if (!Number.isInteger(n) || n < 64 || n > 2 ** 24) throw new Error(`ISOFOLD_CHUNK_ISOCHROMATS must be a whole number from 64 to ${2 ** 24}, got "${v}"`);
+  return n;
+}
+
+/** The WebAssembly SIMD kernels are used unless the environment sets ISOFOLD_NO_WASM (to anything but ""). */
+export function wasmFromEnv(env: Record<string, string | undefined> = process.env): boolean {
+  return !env["ISOFOLD_NO_WASM"];
+}
 
 export function intArg(name: string, min: number, max: number) {
   return (v: string): number => {

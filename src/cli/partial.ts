@@ -12,7 +12,8 @@ import { UserError } from "../errors.js";
 import { OutputStage } from "../io/atomic.js";
 import { decodeNpy, encodeNpy } from "../io/npy.js";
 import type { Protocol } from "../protocol/index.js";
-import { BLOCK_CHUNKS, CHUNK_ISOCHROMATS, readoutKernelName, type ReadoutReport } from "../engine/index.js";
+import { BLOCK_CHUNKS, readoutKernelName, type ReadoutReport } from "../engine/index.js";
+import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import type { IsochromatOptions } from "../isochromats/index.js";
 
 export const PARTIAL_FORMAT = "isofold partial k-space";
@@ -43,7 +44,7 @@ export interface PartialMeta {
 /** sha256 over what determines the k-space bits: normalised protocol, phantom file bytes, isochromat options, chunking, readout kernel, seed. */
 export function inputHash(protocol: Protocol, o: { phantom: string; iso: IsochromatOptions; seed: number }): string {
   const h = createHash("sha256");
-  h.update(JSON.stringify({ protocol, iso: o.iso, seed: o.seed, chunk: CHUNK_ISOCHROMATS, block: BLOCK_CHUNKS, kernel: readoutKernelName() }));
+  h.update(JSON.stringify({ protocol, iso: o.iso, seed: o.seed, chunk: chunkIsochromatsFromEnv(), block: BLOCK_CHUNKS, kernel: readoutKernelName(wasmFromEnv()) }));
   h.update(readFileSync(o.phantom));
   return h.digest("hex");
 }
@@ -54,7 +55,7 @@ export function writePartial(
   p: Omit<PartialMeta, "format" | "version" | "blockChunks" | "chunkIsochromats"> & { re: Float64Array; im: Float64Array },
 ): string[] {
   const { re, im, ...rest } = p;
-  const meta: PartialMeta = { format: PARTIAL_FORMAT, version: PARTIAL_VERSION, blockChunks: BLOCK_CHUNKS, chunkIsochromats: CHUNK_ISOCHROMATS, ...rest };
+  const meta: PartialMeta = { format: PARTIAL_FORMAT, version: PARTIAL_VERSION, blockChunks: BLOCK_CHUNKS, chunkIsochromats: chunkIsochromatsFromEnv(), ...rest };
   const stage = new OutputStage(dir);
   try {
     stage.add("partial.npy", encodeNpy({ dtype: "complex128", shape: p.shape, data: { re, im } }));

@@ -12,11 +12,10 @@ import { existsSync, readdirSync, readFileSync } from "node:fs";
 import { basename, dirname, extname, join, resolve } from "node:path";
 import { spawn } from "node:child_process";
 import { UserError } from "../errors.js";
-import { loadPhantom } from "../phantom/index.js";
-import { loadProtocol, presetsDir, resolvePresetOrFile } from "../protocol/index.js";
+import { loadPhantom, loadProtocol, presetsDir, readRealNpy, resolvePresetOrFile } from "./inputs.js";
+import { SAFETY_NOTE } from "../api.js";
 import { parseJsonStrict } from "../json.js";
 import { intArg, repoRoot } from "./options.js";
-import { readRealNpy, SAFETY_NOTE } from "./pipeline.js";
 
 const TYPES: Record<string, string> = {
   ".html": "text/html; charset=utf-8",

@@ -5,7 +5,8 @@
  */
 import type { Command } from "commander";
 import { UserError } from "../errors.js";
-import { listPresets, loadProtocol, logicalAxes, slicePositions, SEQUENCES, type Protocol } from "../protocol/index.js";
+import { logicalAxes, slicePositions, SEQUENCES, type Protocol } from "../protocol/index.js";
+import { listPresets, loadProtocol } from "./inputs.js";
 import { buildSequence, type Derived, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
 import { predictProtocolFatShift } from "../analysis/index.js";

@@ -2,30 +2,25 @@
  * `isofold validate`: runs the closed-form checks of src/check/validate.ts on
  * small cases and prints check, published source, expected, measured,
  * tolerance and pass/fail; exit 1 if any fails. Wiring only: the simulation
- * uses the pipeline's isochromat options and the serial engine.
+ * goes through the library's prepareSimulation and reconstructRuns with the serial engine.
  */
 import type { Command } from "commander";
 import { runValidation, type SimOutput, type ValidationRow } from "../check/validate.js";
 import { simulateSerial } from "../engine/index.js";
-import { defaultIsochromatOptions, makeIsochromats, type IsochromatOptions } from "../isochromats/index.js";
+import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 import type { Phantom } from "../phantom/index.js";
-import { logicalAxes, type Protocol } from "../protocol/index.js";
-import { magnitude, reconstructGrid, toGrid } from "../recon/reconstruct.js";
-import { buildSequence } from "../sequence/index.js";
-import { isoOptionsFor, sampledLimits, slabCoverage, SAFETY_NOTE } from "./pipeline.js";
+import type { Protocol } from "../protocol/index.js";
+import { magnitude } from "../recon/reconstruct.js";
+import { prepareSimulation, reconstructRuns } from "../api.js";
+import { SAFETY_NOTE } from "./pipeline.js";
 
 /** Protocol + phantom → image, as a run does it (through-slice count from the pathway moments, the run's sampled extent), one slice. */
 export function simulateSmall(p: Protocol, ph: Phantom, iso: Partial<IsochromatOptions>): SimOutput {
-  const seq = buildSequence(p);
-  const steps = p.sequence === "gre3d" ? slabCoverage(p, seq, ph).steps : undefined;
-  const opts = { ...isoOptionsFor(p, { ...defaultIsochromatOptions(), ...iso }, seq, steps), offsetHz: p.shim };
-  const set = makeIsochromats(ph, {
-    axes: logicalAxes(p), dx: p.fov.read / p.matrix.read, dy: p.fov.phase / p.matrix.phase,
-    thickness: p.slice.thickness, position: p.slice.position, ...sampledLimits(p),
-  }, p.field, opts);
+  const prep = prepareSimulation({ parsedProtocol: p, parsedPhantom: ph, iso: { ...defaultIsochromatOptions(), ...iso }, convergenceCheck: false });
+  const { seq, iso: set } = prep.first;
   const { kspace } = simulateSerial(seq, set, { receiverFilter: p.receiverFilter });
   const kacq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re: kspace.re, im: kspace.im };
-  const image = reconstructGrid(toGrid(kacq, seq.grid), seq.grid, seq.image);
+  const { image } = reconstructRuns([seq], [kspace]);
   return { seq, iso: set, kacq, image, mag: magnitude(image) };
 }
 

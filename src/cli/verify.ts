@@ -10,12 +10,13 @@ import { tmpdir } from "node:os";
 import { fatShiftInput, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { parseRoi, type CheckResult } from "../check/index.js";
 import { edgeWidthImage, edgeWidthPredicted, foldedByDifference, foldedSignal, meanReadShift } from "../check/measure.js";
-import { simulateParallel, simulateSerial } from "../engine/index.js";
+import { simulateParallel, simulateSerial } from "../engine/node.js";
 import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 import { logicalAxes, toPhysical } from "../protocol/index.js";
 import { magnitude, reconstructGrid, toGrid } from "../recon/reconstruct.js";
 import { fatShiftReport } from "./effects.js";
 import { defaultWorkers } from "./memory.js";
+import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { prepare } from "./pipeline.js";
 import type { CheckCliOptions } from "./check.js";
 
@@ -59,8 +60,8 @@ export async function verifyCheck(
     const sl = mid.iso.count > 0 ? mid : prep.slices.find((s) => s.iso.count > 0)!;
     const workers = extra.workers ?? defaultWorkers();
     const { kspace } = workers <= 1
-      ? simulateSerial(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter })
-      : await simulateParallel(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, workers });
+      ? simulateSerial(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() })
+      : await simulateParallel(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, workers, chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() });
     return { prep, sl, kspace };
   };
   const { prep, sl, kspace } = await once(o.set ?? []);

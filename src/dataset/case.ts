@@ -101,6 +101,8 @@ export interface CaseSettings {
   receiverFilter: boolean;
   /** Engine worker threads. */
   workers: number;
+  /** Engine chunk size and kernel choice (defaults: CHUNK_ISOCHROMATS, WebAssembly where available). */
+  engine?: { chunkIsochromats?: number; wasm?: boolean };
   /** Raw containers to write (default both). */
   format?: DatasetFormat;
   /** Needed for raw.h5. */
@@ -142,7 +144,7 @@ export async function buildCase(
   const img: Dims = seq.image, kd: Dims = seq.kspace;
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
-  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress);
+  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress, s.engine);
   const n = img.slice * img.phase * img.read;
   const format = s.format ?? "both";
   const wantRaw = format !== "npy";

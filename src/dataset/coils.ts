@@ -37,9 +37,9 @@
  * with one real κ for all coils such that sqrt(Σ_c |S_c|²) = 1 at the array
  * centre (0, 0, zc). The uniform "body" coil has S = 1 everywhere.
  */
+import { MU0 } from "../constants.js";
 
-/** Vacuum permeability μ0 (N/A²), CODATA 2018 value 1.25663706212e−6. */
-export const MU0 = 1.25663706212e-6;
+export { MU0 };
 
 /** A coil array; `elements` = 0 means the single uniform coil. */
 export interface CoilArray {

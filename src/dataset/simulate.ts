@@ -7,8 +7,8 @@
  * isochromats, so block k-spaces add. Each block runs on the engine's worker
  * pool (bitwise the same k-space for any number of workers).
  */
-import { simulateParallel, type EnginePlan, type KSpace } from "../engine/index.js";
-import type { IsochromatSet } from "../isochromats/index.js";
+import { simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
+import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 
@@ -20,13 +20,8 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
   const s0 = iso.colStart[c0]!, s1 = iso.colStart[c1]!;
   const colStart = new Int32Array(c1 - c0 + 1);
   for (let k = 0; k <= c1 - c0; k++) colStart[k] = iso.colStart[c0 + k]! - s0;
-  const f = <T extends Float64Array | Int32Array>(a: T): T => a.subarray(s0, s1) as T;
-  return {
-    ...iso, count: s1 - s0,
-    iu: f(iso.iu), iv: f(iso.iv), iw: f(iso.iw), x: f(iso.x), y: f(iso.y), z: f(iso.z),
-    m0: f(iso.m0), r1: f(iso.r1), r2: f(iso.r2), df: f(iso.df), tissue: f(iso.tissue), peak: f(iso.peak),
-    colStart, columns: c1 - c0,
-  };
+  const views = mapIsochromatArrays(iso, [...ISOCHROMAT_INT_ARRAYS, ...ISOCHROMAT_FLOAT_ARRAYS], (a) => a.subarray(s0, s1) as typeof a);
+  return { ...views, count: s1 - s0, colStart, columns: c1 - c0 };
 }
 
 /**
@@ -36,17 +31,19 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
 export async function simulateCoils(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
+  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
 ): Promise<KSpace> {
-  return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress)).kspace;
+  return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress, engine)).kspace;
 }
 
 /** simulateCoils, also returning the engine plan (of the last block) for reports. */
 export async function simulateCoilsPlanned(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
+  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
 ): Promise<{ kspace: KSpace; plan: EnginePlan }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress });
+  if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
   let plan: EnginePlan | null = null;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
@@ -66,7 +63,7 @@ export async function simulateCoilsPlanned(
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
     const { kspace, plan: p } = await simulateParallel(seq, sub, {
-      receiverFilter, coils: C, sens, workers,
+      receiverFilter, coils: C, sens, workers, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     plan = p;

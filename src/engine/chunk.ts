@@ -209,7 +209,7 @@ function adcOutput(plan: EnginePlan, adc: Extract<Op, { t: "adc" }>, live: numbe
     }
     sr.fill(0, 0, adc.n);
     si.fill(0, 0, adc.n);
-    readoutRecurrenceFast(sr, si, adc.n, q === 0 ? zr : zr.subarray(zo), q === 0 ? zi : zi.subarray(zo), ar, ai, live);
+    readoutRecurrenceFast(sr, si, adc.n, q === 0 ? zr : zr.subarray(zo), q === 0 ? zi : zi.subarray(zo), ar, ai, live, plan.wasm);
     const base = (q * plan.rows + adc.row) * plan.read;
     for (let j = 0; j < adc.n; j++) {
       const x = sr[j]!, y = si[j]!;

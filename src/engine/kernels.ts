@@ -90,12 +90,6 @@ export function applyRelax(mz: Float64Array, m0: Float64Array, i0: number, i1: n
   }
 }
 
-/** Ideal spoiling: Mxy ← 0. */
-export function applySpoil(mr: Float64Array, mi: Float64Array, n: number): void {
-  mr.fill(0, 0, n);
-  mi.fill(0, 0, n);
-}
-
 /**
  * Readout recurrence over groups: for each group g with start value z_g and
  * per-sample factor a_g, s[j] += z_g·a_g^j for j = 0 … n−1.

@@ -7,24 +7,32 @@
  */
 import { GAMMA, GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
+import { ENGINE_ARRAYS, mapIsochromatArrays } from "../isochromats/fields.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
 import { rfAffineMany } from "./wasm.js";
 import { f64Words, TupleIndex } from "./hash.js";
 
 /**
- * Isochromats per chunk (approximate; chunks end at column boundaries).
- * Fixed, so results do not depend on the number of workers: 32768, or the
- * environment variable ISOFOLD_CHUNK_ISOCHROMATS (64 … 2^24; for tests and
- * tuning — the chunking is part of a result's definition, and shards of one
- * run must share it; partial.json records it).
+ * Default isochromats per chunk (approximate; chunks end at column
+ * boundaries). Fixed, so results do not depend on the number of workers; the
+ * `chunkIsochromats` option changes it (64 … 2^24; for tests and tuning — the
+ * chunking is part of a result's definition, and shards of one run must share
+ * it; partial.json records it). The command line reads it from the
+ * environment variable ISOFOLD_CHUNK_ISOCHROMATS.
  */
-export const CHUNK_ISOCHROMATS = chunkSetting(process.env["ISOFOLD_CHUNK_ISOCHROMATS"]);
+export const CHUNK_ISOCHROMATS = 32768;
 
-function chunkSetting(v: string | undefined): number {
-  if (v === undefined || v === "") return 32768;
-  const n = Number(v);
-  if (!Number.isInteger(n) || n < 64 || n > 2 ** 24) throw new Error(`ISOFOLD_CHUNK_ISOCHROMATS must be a whole number from 64 to ${2 ** 24}, got "${v}"`);
-  return n;
+/** Whether this JavaScript engine has SharedArrayBuffer (browsers only in cross-origin isolated pages). */
+export const HAS_SHARED_MEMORY = typeof SharedArrayBuffer === "function";
+
+/** `bytes` of shared memory where available, else an ordinary ArrayBuffer (workers then get copies). */
+export function sharedBuffer(bytes: number): ArrayBufferLike {
+  return HAS_SHARED_MEMORY ? new SharedArrayBuffer(bytes) : new ArrayBuffer(bytes);
+}
+
+/** Whether a buffer is shared memory. */
+export function isShared(b: ArrayBufferLike): boolean {
+  return HAS_SHARED_MEMORY && b instanceof SharedArrayBuffer;
 }
 
 export type Op =
@@ -78,6 +86,8 @@ export interface EnginePlan {
    * before every pulse and Mz there is m0 times a function of the RF class.
    */
   spoiledFast: boolean;
+  /** Use the WebAssembly SIMD kernels where available (see PlanOptions.wasm). */
+  wasm: boolean;
 }
 
 export interface PlanOptions {
@@ -90,6 +100,8 @@ export interface PlanOptions {
   chunkIsochromats?: number;
   /** Play every op per isochromat even where an exact shortcut applies (the oracle; default false). */
   general?: boolean;
+  /** Use the WebAssembly SIMD kernels where available (default true; false = the TypeScript kernels, the oracle). */
+  wasm?: boolean;
 }
 
 /** What the RF maps are computed from: per-class parameters and the pulses. */
@@ -100,43 +112,30 @@ export interface RfSpec {
 
 /** A shared copy of `a` (or `a` itself if it is shared already). */
 export function shareF64(a: Float64Array): Float64Array {
-  if (a.buffer instanceof SharedArrayBuffer) return a;
+  if (isShared(a.buffer)) return a;
   const s = sharedF64(a.length);
   s.set(a);
   return s.subarray(0, a.length);
 }
 
 export function sharedF64(n: number): Float64Array {
-  return new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8));
+  return new Float64Array(sharedBuffer(Math.max(1, n) * 8));
 }
 export function sharedI32(n: number): Int32Array {
-  return new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4));
-}
-
-/** Moves an isochromat set's arrays into shared memory (once), so workers can read them. */
-export function shareIsochromats(iso: IsochromatSet): IsochromatSet {
-  return {
-    ...shareEngineArrays(iso),
-    x: shareF64(iso.x), y: shareF64(iso.y), z: shareF64(iso.z),
-    tissue: shareI32(iso.tissue), peak: shareI32(iso.peak), colStart: shareI32(iso.colStart),
-  };
+  return new Int32Array(sharedBuffer(Math.max(1, n) * 4));
 }
 
 /**
  * Shares only the arrays the engine reads (iu, iv, iw, m0, r1, r2, df); the
- * others stay as they are. Cheaper than {@link shareIsochromats} for large sets.
+ * others stay as they are.
  */
 export function shareEngineArrays(iso: IsochromatSet): IsochromatSet {
-  return {
-    ...iso,
-    iu: shareI32(iso.iu), iv: shareI32(iso.iv), iw: shareI32(iso.iw),
-    m0: shareF64(iso.m0), r1: shareF64(iso.r1), r2: shareF64(iso.r2), df: shareF64(iso.df),
-  };
+  return mapIsochromatArrays(iso, ENGINE_ARRAYS, (a) => (a instanceof Int32Array ? shareI32(a) : shareF64(a as Float64Array)) as typeof a);
 }
 
 /** A shared copy of `a` (or `a` itself if it is shared already). */
 export function shareI32(a: Int32Array): Int32Array {
-  if (a.buffer instanceof SharedArrayBuffer) return a;
+  if (isShared(a.buffer)) return a;
   const s = sharedI32(a.length);
   s.set(a);
   return s.subarray(0, a.length);
@@ -269,6 +268,7 @@ export function planLayout(
     rows: seq.kspace.slice * seq.kspace.phase, read: seq.kspace.read,
     receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
     spoiledFast: !(opts.general ?? false) && spoiledUnits(ops),
+    wasm: opts.wasm ?? true,
   };
 }
 
@@ -313,7 +313,7 @@ export function fillRfMaps(plan: EnginePlan, c0: number, c1: number): void {
   for (let pi = 0; pi < pulses.length; pi++) {
     const p = pulses[pi]!;
     for (let c = c0; c < c1; c++) f[c - c0] = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
-    rfAffineMany(plan.rfMaps, (pi * plan.classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA);
+    rfAffineMany(plan.rfMaps, (pi * plan.classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA, plan.wasm);
   }
 }
 

@@ -1,50 +1,56 @@
 /**
- * A worker_threads pool over the plan's fixed chunks. The plan and the
+ * The Node executor: a worker_threads pool over the plan's fixed chunks. The plan and the
  * isochromat arrays live in SharedArrayBuffers and are read in place by every
  * worker; each chunk's partial k-space comes back to the main thread, which
  * adds partials in the fixed order of sum.ts. So 1, 2 or N workers give
  * bitwise the same k-space, and so does a sharded run merged later.
  */
-import { existsSync } from "node:fs";
+import { mkdtempSync } from "node:fs";
+import { createRequire } from "node:module";
+import { tmpdir } from "node:os";
 import { dirname, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { Worker } from "node:worker_threads";
 import type { IsochromatSet } from "../isochromats/index.js";
+import { ENGINE_ARRAYS } from "../isochromats/fields.js";
+import type { Sequence } from "../sequence/types.js";
+import { AbortedError, simulateWith, type Executor, type ExecutorSession, type KSpace, type RunOptions } from "./executor.js";
 import type { EnginePlan } from "./plan.js";
+import type { ReadoutReport } from "./fast.js";
 import type { WorkerReply, WorkerRequest } from "./worker.js";
 
-/** Below this many RF classes the maps are filled on the main thread (cheaper than a round trip). */
-export const PARALLEL_RF_CLASSES = 2048;
+export { AbortedError, PARALLEL_RF_CLASSES } from "./executor.js";
 
-/** Path of the compiled worker: beside this file when running compiled, else dist/src/engine/worker.js of the package. */
+let sourceWorker: string | null = null;
+
+/**
+ * Path of the worker script. Compiled: worker.js beside this file. Running
+ * the TypeScript sources (vitest): worker.ts and what it imports, bundled
+ * now with esbuild (a development dependency) into a temporary file, so tests
+ * run the code under test and never a stale dist/ build.
+ */
 export function workerPath(): string {
   const here = fileURLToPath(import.meta.url);
   if (here.endsWith(".js")) return join(dirname(here), "worker.js");
-  let d = dirname(here);
-  for (let up = 0; up < 6; up++) {
-    const p = join(d, "dist", "src", "engine", "worker.js");
-    if (existsSync(p)) return p;
-    d = dirname(d);
-  }
-  throw new Error("compiled engine worker not found (run tsc first): dist/src/engine/worker.js");
+  if (sourceWorker) return sourceWorker;
+  const esbuild = createRequire(import.meta.url)("esbuild") as { buildSync: (o: object) => unknown };
+  const out = join(mkdtempSync(join(tmpdir(), "isofold-worker-")), "worker.mjs");
+  esbuild.buildSync({ entryPoints: [join(dirname(here), "worker.ts")], bundle: true, platform: "node", format: "esm", outfile: out, logLevel: "error" });
+  sourceWorker = out;
+  return out;
 }
 
 /** The isochromat fields a worker reads (all shared). */
 function workerIso(iso: IsochromatSet): Partial<IsochromatSet> {
-  const { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df } = iso;
-  for (const a of [iu, iv, iw, m0, r1, r2, df]) {
-    if (!(a.buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareIsochromats)");
+  const out: Record<string, unknown> = { count: iso.count, uGrid: iso.uGrid, vGrid: iso.vGrid, wGrid: iso.wGrid };
+  for (const k of ENGINE_ARRAYS) {
+    if (!(iso[k].buffer instanceof SharedArrayBuffer)) throw new Error("engine pool: isochromat arrays must be shared (shareEngineArrays)");
+    out[k] = iso[k];
   }
-  return { count, uGrid, vGrid, wGrid, iu, iv, iw, m0, r1, r2, df };
+  return out as Partial<IsochromatSet>;
 }
 
-export class AbortedError extends Error {
-  constructor() {
-    super("interrupted");
-  }
-}
-
-export class EnginePool {
+export class EnginePool implements ExecutorSession {
   private readonly workers: Worker[] = [];
   private failure: Error | null = null;
   private onFail: ((e: Error) => void) | null = null;
@@ -71,6 +77,11 @@ export class EnginePool {
     if (this.failure) return;
     this.failure = e;
     this.onFail?.(e);
+  }
+
+  /** Stops every worker at once (mid-chunk too). */
+  close(): Promise<void> {
+    return this.terminate();
   }
 
   /** Stops every worker at once (mid-chunk too). */
@@ -164,4 +175,24 @@ export class EnginePool {
       signal,
     );
   }
+}
+
+/** The Node executor: up to `workers` worker threads per engine run (never more than there are jobs). */
+export function nodeExecutor(workers: number): Executor {
+  return { open: (plan, iso, jobs) => new EnginePool(plan, iso, Math.max(1, Math.min(workers, jobs))) };
+}
+
+export interface ParallelOptions extends RunOptions {
+  /** Worker threads (≥ 1). */
+  workers: number;
+}
+
+/**
+ * The same result as simulateSerial, bitwise, on a pool of worker threads:
+ * the isochromats are moved to shared memory, RF maps of many classes are
+ * filled in parallel, chunks are scheduled dynamically and their partials
+ * summed in the fixed order on this thread.
+ */
+export function simulateParallel(seq: Sequence, iso: IsochromatSet, opts: ParallelOptions): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
+  return simulateWith(nodeExecutor(opts.workers), seq, iso, opts);
 }

@@ -87,11 +87,11 @@ interface Kernel {
 
 let kernel: Kernel | null | undefined;
 
-/** The SIMD kernel of this thread, or null where WebAssembly SIMD is unavailable (or ISOFOLD_NO_WASM is set). */
-export function wasmKernel(): Kernel | null {
+/** The SIMD kernel of this thread, or null where WebAssembly SIMD is unavailable or `enabled` is false (the engine's `wasm` option). */
+export function wasmKernel(enabled = true): Kernel | null {
+  if (!enabled) return null;
   if (kernel !== undefined) return kernel;
   kernel = null;
-  if (process.env["ISOFOLD_NO_WASM"]) return kernel;
   try {
     const inst = new WebAssembly.Instance(new WebAssembly.Module(readoutModule()), {});
     const e = inst.exports as unknown as { readout: Kernel["readout"]; memory: WebAssembly.Memory };
@@ -110,9 +110,9 @@ export function wasmKernel(): Kernel | null {
  */
 export function readoutRecurrenceFast(
   sr: Float64Array, si: Float64Array, n: number,
-  zr: Float64Array, zi: Float64Array, ar: Float64Array, ai: Float64Array, groups: number,
+  zr: Float64Array, zi: Float64Array, ar: Float64Array, ai: Float64Array, groups: number, useWasm = true,
 ): void {
-  const k = groups > 0 && n > 1 ? wasmKernel() : null;
+  const k = groups > 0 && n > 1 ? wasmKernel(useWasm) : null;
   if (k === null) {
     readoutRecurrence(sr, si, n, zr, zi, ar, ai, groups);
     return;
@@ -148,8 +148,8 @@ export function readoutRecurrenceFast(
 }
 
 /** Names of the readout and RF kernels this thread uses; part of a result's definition (recorded for shards). */
-export function readoutKernelName(): string {
-  return (wasmKernel() ? "readout wasm-simd-f64x2" : "readout scalar") + (wasmRfKernel() ? ", rf wasm-simd-f64x2" : ", rf scalar");
+export function readoutKernelName(useWasm = true): string {
+  return (wasmKernel(useWasm) ? "readout wasm-simd-f64x2" : "readout scalar") + (wasmRfKernel(useWasm) ? ", rf wasm-simd-f64x2" : ", rf scalar");
 }
 
 // ---------------------------------------------------------------------------
@@ -258,11 +258,11 @@ interface RfKernel {
 }
 let rfKernel: RfKernel | null | undefined;
 
-/** The SIMD RF kernel of this thread, or null (no WebAssembly SIMD, or ISOFOLD_NO_WASM set). */
-export function wasmRfKernel(): RfKernel | null {
+/** The SIMD RF kernel of this thread, or null (no WebAssembly SIMD, or `enabled` false). */
+export function wasmRfKernel(enabled = true): RfKernel | null {
+  if (!enabled) return null;
   if (rfKernel !== undefined) return rfKernel;
   rfKernel = null;
-  if (process.env["ISOFOLD_NO_WASM"]) return rfKernel;
   try {
     const inst = new WebAssembly.Instance(new WebAssembly.Module(rfModule()), {});
     const e = inst.exports as unknown as { rf: RfKernel["rf"]; memory: WebAssembly.Memory };
@@ -284,9 +284,9 @@ export function wasmRfKernel(): RfKernel | null {
 export function rfAffineMany(
   out: Float64Array, o0: number, count: number,
   f: ArrayLike<number>, r1: ArrayLike<number>, r2: ArrayLike<number>,
-  b1re: Float64Array, b1im: Float64Array, dt: number, gamma: number,
+  b1re: Float64Array, b1im: Float64Array, dt: number, gamma: number, useWasm = true,
 ): void {
-  const k = wasmRfKernel();
+  const k = wasmRfKernel(useWasm);
   const n = b1re.length;
   if (k === null || n === 0) {
     for (let c = 0; c < count; c++) rfAffine(out, o0 + 12 * c, b1re, b1im, dt, gamma, f[c]!, r1[c]!, r2[c]!);

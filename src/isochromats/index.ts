@@ -22,8 +22,10 @@
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
 import { cellContents, phantomBounds, type Phantom } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
+import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
 
+export { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, ENGINE_ARRAYS, mapIsochromatArrays } from "./fields.js";
 export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, NO_SPREAD, type Spread } from "./spread.js";
 
 export type FatModelChoice = "single" | "multi";
@@ -131,19 +133,17 @@ export interface IsochromatSet {
   spreads: TissueSpread[];
 }
 
-interface IsoArrays {
-  iu: Int32Array; iv: Int32Array; iw: Int32Array;
-  x: Float64Array; y: Float64Array; z: Float64Array;
-  m0: Float64Array; r1: Float64Array; r2: Float64Array; df: Float64Array;
-  tissue: Int32Array; peak: Int32Array;
-}
 
 /** The per-isochromat arrays, each on a SharedArrayBuffer of its own. */
 function allocate(n: number): IsoArrays {
-  const f = () => new Float64Array(new SharedArrayBuffer(Math.max(1, n) * 8)).subarray(0, n);
-  const i = () => new Int32Array(new SharedArrayBuffer(Math.max(1, n) * 4)).subarray(0, n);
-  return { iu: i(), iv: i(), iw: i(), x: f(), y: f(), z: f(), m0: f(), r1: f(), r2: f(), df: f(), tissue: i(), peak: i() };
+  // shared memory where the JavaScript engine has it (browsers: cross-origin isolated pages only)
+  const buf = (bytes: number) => (typeof SharedArrayBuffer === "function" ? new SharedArrayBuffer(bytes) : new ArrayBuffer(bytes));
+  const out = {} as Record<string, Int32Array | Float64Array>;
+  for (const k of ISOCHROMAT_INT_ARRAYS) out[k] = new Int32Array(buf(Math.max(1, n) * 4)).subarray(0, n);
+  for (const k of ISOCHROMAT_FLOAT_ARRAYS) out[k] = new Float64Array(buf(Math.max(1, n) * 8)).subarray(0, n);
+  return out as IsoArrays;
 }
+
 
 /** Spectral peaks (Hz offset, amplitude) of one tissue at field B0. */
 function tissuePeaks(fatFraction: number, model: FatModelChoice, fieldT: number): { df: number[]; amp: number[]; peak: number[] } {

@@ -8,7 +8,6 @@
  * holds. The phantom stage does not decode .npy itself: the caller passes a
  * reader in B0Context (the CLI passes io's decodeNpy), so stages stay in order.
  */
-import { isAbsolute, resolve } from "node:path";
 import { joinPath, userError, type Origin } from "../errors.js";
 import { quantity, positive } from "../units.js";
 import type { B0Context, B0Model, RealArray } from "./b0.js";
@@ -59,7 +58,7 @@ export function parseFieldMap(raw: unknown, origin: Origin, ctx: B0Context): B0M
   const org = vec3(m.origin, at("origin"), false);
   const spacing = vec3(m.spacing, at("spacing"), true);
   if (!ctx.readArray) throw new Error("parseFieldMap: no .npy reader was passed in B0Context");
-  const path = isAbsolute(m.file) ? m.file : resolve(ctx.baseDir, m.file);
+  const path = m.file.startsWith("/") ? m.file : joinFolder(ctx.baseDir, m.file);
   let arr: RealArray;
   try {
     arr = ctx.readArray(path);
@@ -75,4 +74,16 @@ export function parseFieldMap(raw: unknown, origin: Origin, ctx: B0Context): B0M
     fn: fieldMapSampler(arr, org, spacing),
     description: `field map ${m.file} [${arr.shape.join("×")}] (Hz), spacing ${spacing.map((s) => (s * 1e3).toFixed(2)).join("×")} mm`,
   };
+}
+
+/** `name` relative to `folder`, with "." and ".." steps folded; no file system involved. */
+export function joinFolder(folder: string, name: string): string {
+  const parts: string[] = [];
+  const abs = folder.startsWith("/");
+  for (const p of `${folder}/${name}`.split("/")) {
+    if (p === "" || p === ".") continue;
+    if (p === ".." && parts.length > 0 && parts[parts.length - 1] !== "..") parts.pop();
+    else if (p !== ".." || !abs) parts.push(p);
+  }
+  return (abs ? "/" : "") + (parts.join("/") || (abs ? "" : "."));
 }

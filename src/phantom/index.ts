@@ -4,7 +4,7 @@
  * contents for the isochromat sampler. All numbers are SI (m, s, Hz, rad).
  */
 export type { Bounds, FatModel, Phantom, Tissue } from "./types.js";
-export { loadPhantom, parsePhantom, parseJsonText } from "./load.js";
+export { parsePhantom, parseJsonText } from "./load.js";
 export {
   libraryTissue,
   libraryNames,

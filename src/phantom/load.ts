@@ -7,8 +7,6 @@
  *   - a shape may have a "label" string (shown in messages and reports);
  *   - cylinder "axis" may be left out and then is "z".
  */
-import { readFileSync } from "node:fs";
-import { dirname } from "node:path";
 import { joinPath, userError, type Origin } from "../errors.js";
 import { describeValue, parseJsonStrict } from "../json.js";
 import { KINDS, plainNumber, positive as positiveSI, quantity as quantitySI, type QuantityKind } from "../units.js";
@@ -33,25 +31,9 @@ const SPECIES = ["water", "fat"];
 const FAT_MODELS: FatModel[] = ["single", "multi"];
 const AXES: Axis[] = ["x", "y", "z"];
 
-/**
- * Reads and validates a phantom file. `fieldT` (T) selects the library
- * tissue values (see libraryTissue). Throws a UserError for a file that
- * cannot be read or is not valid JSON, naming line and column.
- */
-export function loadPhantom(file: string, fieldT: number, opts: PhantomLoadOptions = {}): Phantom {
-  let text: string;
-  try {
-    text = readFileSync(file, "utf8");
-  } catch (err) {
-    const code = (err as NodeJS.ErrnoException).code;
-    const why = code === "ENOENT" ? "no such file" : code === "EISDIR" ? "it is a directory" : (err as Error).message;
-    throw userError({ file }, `cannot read the phantom file: ${why}`);
-  }
-  return parsePhantom(parseJsonText(text, file), file, fieldT, opts);
-}
-
 /** Outside help a phantom may need: a reader for field-map (.npy) files. */
 export interface PhantomLoadOptions {
+  /** Reads the field-map array at a path (relative names are joined to the phantom file's folder first). */
   readArray?: (path: string) => RealArray;
 }
 
@@ -124,7 +106,7 @@ export function parsePhantom(json: unknown, file: string, fieldT: number, opts: 
   let b0Description: string | null = null;
   if (top.b0 !== undefined) {
     const bOrigin = at(root, "b0");
-    const model = parseB0(top.b0, bOrigin, { fieldT, baseDir: dirname(file), readArray: opts.readArray });
+    const model = parseB0(top.b0, bOrigin, { fieldT, baseDir: folderOf(file), readArray: opts.readArray });
     probeB0(model.fn, shapes);
     b0 = model.fn;
     b0Description = model.description;
@@ -330,4 +312,10 @@ function editDistance(a: string, b: string): number {
     prev = cur;
   }
   return prev[b.length]!;
+}
+
+/** The folder part of a path ("." for a bare name); no file system involved. */
+export function folderOf(file: string): string {
+  const k = file.lastIndexOf("/");
+  return k < 0 ? "." : k === 0 ? "/" : file.slice(0, k);
 }

@@ -1,31 +1,30 @@
 /**
- * The previewer's run of one protocol on one phantom, inside the page's Web
- * Worker: the CLI's own readers and validators (through an in-memory file
- * table), the same sequence, isochromats, engine kernels, summation order and
- * reconstruction as `isofold simulate`, and the closed-form `check`. No file
- * leaves the page. Only the middle slice of a multi-slice protocol is run.
+ * The previewer's run of one protocol on one phantom, inside a Web Worker, on
+ * the library entry `simulate()` (src/api.ts): the same parsers, validators,
+ * sequence, isochromats, engine (fast readout operator, direct fallback),
+ * summation order and reconstruction as `isofold simulate`, and the
+ * closed-form `check`. Inputs are objects held in the worker; nothing is
+ * read from or written to a file, and nothing leaves the page.
  */
-import { prepare, isoOptionsFor, defaultIsochromatOptions, SAFETY_NOTE } from "../cli/pipeline.js";
+import { simulate, SAFETY_NOTE } from "../api.js";
 import { UserError } from "../errors.js";
-import { simulateSerial } from "../engine/index.js";
-import { toGrid, reconstructGrid, magnitude } from "../recon/reconstruct.js";
+import { AbortedError, serialExecutor } from "../engine/index.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
-import { loadPhantom } from "../phantom/index.js";
-import { loadProtocol } from "../protocol/index.js";
+import { logicalAxes, parseProtocol, type Protocol, type ProtocolResolver } from "../protocol/index.js";
+import { parsePhantom } from "../phantom/index.js";
 import { buildSequence } from "../sequence/index.js";
-import { logicalAxes, type Protocol } from "../protocol/index.js";
 import { displayTransform, type DisplayTransform } from "../report/display.js";
 import { encodeNpy } from "../io/npy.js";
-import type { IsochromatOptions } from "../isochromats/index.js";
-import { putFile } from "./shims/vfs.js";
+import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 
 export type Quality = "preview" | "full";
 
 export interface RunRequest {
-  /** Preset name, or a path under /inputs/ put into the file table with putInput. */
+  /** Preset name, or the name of a file protocol put with putInput ("file:…"). */
   protocol: string;
+  /** Bundled phantom name, or the name of a file phantom put with putInput ("file:…"). */
   phantom: string;
   sets: string[];
   fatModel: "single" | "multi";
@@ -37,7 +36,7 @@ export interface RunOutput {
   protocol: Protocol;
   nRead: number;
   nPhase: number;
-  /** Image plane [phase][read] magnitude (display turned in the page), k-space plane magnitude [phase][readAcquired]. */
+  /** Magnitude image plane [phase][read] of the middle slice, and |k| of the same plane of the full grid [phase][read with oversampling]. */
   image: Float64Array;
   kmag: Float64Array;
   kRead: number;
@@ -50,33 +49,46 @@ export interface RunOutput {
   engineMs: number;
   /** Readout operator that ran ("fast" or "direct"). */
   readout: string;
-  /** Milliseconds of each step in the worker: prepare (read, validate, sample isochromats), engine, recon (and analysis). */
+  /** Milliseconds in the worker: the whole simulate() call, the analysis after it, and the total. */
   timings: Record<string, number>;
   iso: IsochromatOptions;
-  /** Full volumes for export (complex64 .npy bytes). */
+  /** Complex64 .npy bytes of the k-space and image volumes, as `simulate` writes kspace.npy and image.npy. */
   kspaceNpy: Uint8Array;
   imageNpy: Uint8Array;
   slicesRun: string;
   derived: Record<string, unknown>;
 }
 
-export const PHANTOM_DIR = "/phantoms";
-export const INPUT_DIR = "/inputs";
-/** Where the core looks for presets under the bundle's import.meta.url (see build-preview.ts). */
-export const PRESET_DIR = "/src/protocol/presets";
+const presets = new Map<string, unknown>();
+const phantoms = new Map<string, unknown>();
+const inputs = new Map<string, unknown>();
 
 export function putPreset(name: string, text: string): void {
-  putFile(`${PRESET_DIR}/${name}.json`, text);
+  presets.set(name, JSON.parse(text));
 }
-export function putPhantom(name: string, text: string): string {
-  const p = `${PHANTOM_DIR}/${name}.json`;
-  putFile(p, text);
-  return p;
+export function putPhantom(name: string, text: string): void {
+  phantoms.set(name, JSON.parse(text));
 }
-export function putInput(name: string, text: string): string {
-  const p = `${INPUT_DIR}/${name.replace(/[^A-Za-z0-9._-]/g, "_")}`;
-  putFile(p, text);
-  return p;
+/** A file named on the command line or chosen in the page, under "file:<name>". */
+export function putInput(name: string, text: string): void {
+  inputs.set(`file:${name}`, JSON.parse(text));
+}
+
+/** `extend` resolves to bundled presets only (a page has no files beside the protocol). */
+const resolvePreset: ProtocolResolver = (name) => {
+  const n = name.replace(/\.json$/, "");
+  return presets.has(n) ? { source: n, json: structuredClone(presets.get(n)) } : null;
+};
+
+function protocolInput(name: string): unknown {
+  const v = inputs.get(name) ?? (presets.has(name) ? { extend: name } : undefined);
+  if (v === undefined) throw new UserError(`no protocol file or preset named ${JSON.stringify(name)}; presets: ${[...presets.keys()].join(", ")}`);
+  return structuredClone(v);
+}
+function phantomInput(name: string): unknown {
+  const v = inputs.get(name) ?? phantoms.get(name);
+  if (v === undefined) throw new UserError(`no phantom named ${JSON.stringify(name)}; bundled: ${[...phantoms.keys()].join(", ")}`);
+  return structuredClone(v);
 }
 
 /** Isochromat options of each quality: preview is density 1, few through-slice isochromats and no T2′ spread. */
@@ -88,9 +100,9 @@ export function qualityOptions(q: Quality, fatModel: "single" | "multi"): Isochr
 
 export class Cancelled extends Error {}
 
-/** `isofold check` with its default thresholds and ROI on the request's inputs (as cli/check.ts runCheck, without its option parsing). */
+/** `isofold check` with its default thresholds and ROI on the request's inputs. */
 export function checkRequest(req: RunRequest): CheckResult {
-  const protocol = loadProtocol(req.protocol, req.sets);
+  const protocol = parseProtocol(protocolInput(req.protocol), { source: req.protocol, sets: req.sets, resolve: resolvePreset, presets: [...presets.keys()] });
   let seq;
   try {
     seq = buildSequence(protocol);
@@ -98,54 +110,45 @@ export function checkRequest(req: RunRequest): CheckResult {
     if (e instanceof UserError) throw e.inFile(req.protocol);
     throw e;
   }
-  const phantom = loadPhantom(req.phantom, protocol.field);
+  const phantom = parsePhantom(phantomInput(req.phantom), req.phantom, protocol.field);
   const result = checkProtocol(phantom, protocol, seq, {});
   result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
   return result;
 }
 
-/** Runs one request; `stop()` is asked between engine chunks and a true answer throws Cancelled. */
-export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): RunOutput {
+/** Runs one request; `stop()` is asked as the engine reports progress, and a true answer rejects with Cancelled. */
+export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): Promise<RunOutput> {
   const tStart = performance.now();
-  let readout = "";
-  const timings: Record<string, number> = {};
   const iso = qualityOptions(req.quality, req.fatModel);
-  const prep = prepare({ phantom: req.phantom, protocol: req.protocol, sets: req.sets, out: "", seed: 1, iso, workers: 1, maxMemory: 2 * 2 ** 30 });
-  const protocol = prep.protocol;
-  const mid = prep.slices.length > 1 ? prep.slices[Math.floor(prep.slices.length / 2)]! : prep.slices[0]!;
-  const seq = mid.seq;
-  // the closed-form check of this edit runs in the other worker (see checkRequest)
-  const check: CheckResult | null = null;
-  const t0 = performance.now();
-  timings.prepare = t0 - tStart;
-  // the engine as `simulate` runs it (engine/index.ts simulateSerial: the fast readout operator, or the direct one where
-  // it does not apply, bitwise the same as the worker pool); a newer edit stops the direct path between chunks
-  if (stop()) throw new Cancelled();
-  const sim = mid.iso.count > 0
-    ? simulateSerial(seq, mid.iso, {
-      receiverFilter: protocol.receiverFilter,
-      onProgress: (done, total) => {
-        if (stop()) throw new Cancelled();
-        onProgress(done, total);
+  const ac = new AbortController();
+  let r;
+  try {
+    r = await simulate({
+      protocol: protocolInput(req.protocol), protocolName: req.protocol,
+      phantom: phantomInput(req.phantom), phantomName: req.phantom,
+      sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
+      iso, executor: serialExecutor(), signal: ac.signal,
+      // the through-slice convergence probe is part of the refined result only
+      convergenceCheck: req.quality === "full",
+      onProgress: (p) => {
+        if (stop()) ac.abort();
+        else onProgress(p.slice * p.total + p.done, p.slices * p.total);
       },
-    })
-    : null;
-  const size = seq.kspace.slice * seq.kspace.phase * seq.kspace.read;
-  const re = sim ? sim.kspace.re : new Float64Array(size), im = sim ? sim.kspace.im : new Float64Array(size);
-  readout = sim ? sim.readout.operator : "none";
-  const engineMs = performance.now() - t0;
-  timings.engine = engineMs;
-  const t1 = performance.now();
-  const acq = { slice: seq.kspace.slice, phase: seq.kspace.phase, read: seq.kspace.read, re, im };
-  const grid = toGrid(acq, seq.grid);
-  const img = reconstructGrid(grid, seq.grid, seq.image);
-  const mag = magnitude(img);
-  const nRead = seq.image.read, nPhase = seq.image.phase;
-  const plane = Math.floor(seq.image.slice / 2);
-  const image = mag.slice(plane * nRead * nPhase, (plane + 1) * nRead * nPhase);
-  const kRead = grid.read, kPhase = grid.phase, kp = Math.floor(grid.slice / 2);
+    });
+  } catch (e) {
+    if (e instanceof AbortedError || ac.signal.aborted) throw new Cancelled();
+    throw e;
+  }
+  const tSim = performance.now();
+  const protocol = r.protocol;
+  const seq = r.sequences[Math.floor(r.sequences.length / 2)]!;
+  const nRead = r.image.read, nPhase = r.image.phase;
+  const plane = Math.floor(r.image.slice / 2);
+  const image = r.magnitude.slice(plane * nRead * nPhase, (plane + 1) * nRead * nPhase);
+  const kRead = r.kspace.read, kPhase = r.kspace.phase, kp = Math.floor(r.kspace.slice / 2) * kRead * kPhase;
   const kmag = new Float64Array(kRead * kPhase);
-  for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(grid.re[kp * kRead * kPhase + i]!, grid.im[kp * kRead * kPhase + i]!);
+  for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(r.kspace.re[kp + i]!, r.kspace.im[kp + i]!);
+  // the predicted shifts as report.json states them (fatShift.predicted); the page shows the prediction only
   const base = fatShiftInput(protocol, seq);
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
   const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
@@ -159,19 +162,27 @@ export function runPreview(req: RunRequest, stop: () => boolean, onProgress: (do
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px },
     },
   };
-  const vol = (v: { slice: number; phase: number; read: number; re: Float64Array; im: Float64Array }) =>
-    encodeNpy({ dtype: "complex64", shape: [1, v.slice, v.phase, v.read], data: { re: v.re, im: v.im } });
-  return {
+  const vol = (v: { coils: number; slice: number; phase: number; read: number; re: Float64Array; im: Float64Array }) =>
+    encodeNpy({ dtype: "complex64", shape: [v.coils, v.slice, v.phase, v.read], data: { re: v.re, im: v.im } });
+  const rep = r.report as { isochromats?: { count?: number }; engine?: { readout?: { operator?: string } | { operator?: string }[] } };
+  const ro = rep.engine?.readout;
+  const readout = Array.isArray(ro) ? ro.map((x) => x.operator).join(", ") : ro?.operator ?? "none";
+  const out: RunOutput = {
     quality: req.quality, protocol, nRead, nPhase, image, kmag, kRead, kPhase,
     display: displayTransform(logicalAxes(protocol)),
-    fatShift, check,
-    warnings: [...new Set([...protocol.warnings, ...mid.iso.warnings])],
-    isochromats: mid.iso.count, engineMs, readout, timings: { ...timings, recon: performance.now() - t1, total: performance.now() - tStart },
-    iso: isoOptionsFor(protocol, iso),
-    kspaceNpy: vol(grid), imageNpy: vol(img),
-    derived: seq.derived as Record<string, unknown>,
-    slicesRun: prep.slices.length > 1 ? `middle slice (${Math.floor(prep.slices.length / 2) + 1} of ${prep.slices.length}) only` : "the one slice",
+    fatShift, check: null,
+    warnings: [...new Set(r.warnings)],
+    isochromats: rep.isochromats?.count ?? 0,
+    engineMs: tSim - tStart, readout,
+    timings: {},
+    iso,
+    kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
+    derived: seq.derived as unknown as Record<string, unknown>,
+    slicesRun: r.sequences.length > 1 ? `${r.sequences.length} slices; the middle one is shown` : "one slice",
   };
+  const tEnd = performance.now();
+  out.timings = { simulate: tSim - tStart, analysis: tEnd - tSim, total: tEnd - tStart };
+  return out;
 }
 
 /** A user error as the CLI prints it (without the "isofold: error: " prefix), with its key path. */

@@ -77,11 +77,9 @@ function writeUrl(): void {
   history.replaceState(null, "", `?${q.toString().replace(/\+/g, "%20")}`);
 }
 
-function protocolPath(name: string): string {
-  return name.startsWith("file:") ? `/inputs/${name.slice(5).replace(/[^A-Za-z0-9._-]/g, "_")}` : name;
-}
-function phantomPath(name: string): string {
-  return name.startsWith("file:") ? `/inputs/${name.slice(5).replace(/[^A-Za-z0-9._-]/g, "_")}` : `/phantoms/${name}.json`;
+/** The worker's name of an input: a bundled name, or "file:" and the file name with only safe characters. */
+function inputName(name: string): string {
+  return name.startsWith("file:") ? `file:${name.slice(5).replace(/[^A-Za-z0-9._-]/g, "_")}` : name;
 }
 
 function run(t0: number): void {
@@ -91,7 +89,7 @@ function run(t0: number): void {
   else for (const w of [worker, refiner]) w.postMessage({ t: "latest", gen });
   writeUrl();
   $("progress-wrap").hidden = true;
-  lastReq = { protocol: protocolPath(state.protocol), phantom: phantomPath(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview" };
+  lastReq = { protocol: inputName(state.protocol), phantom: inputName(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview" };
   worker.postMessage({ t: "run", gen, refine: false, req: lastReq });
 }
 

@@ -19,14 +19,14 @@ export type ToWorker =
   | { t: "run"; gen: number; req: RunRequest; refine: boolean }
   | { t: "latest"; gen: number };
 
-function runOne(gen: number, req: RunRequest): boolean {
+async function runOne(gen: number, req: RunRequest): Promise<boolean> {
   try {
     if (req.quality === "full") {
       // the refining worker first answers the closed-form check of the edit
       self.postMessage({ t: "check", gen, check: checkRequest(req) });
       if (current() !== gen) return false;
     }
-    const out = runPreview(req, () => current() !== gen, (done, total) => {
+    const out = await runPreview(req, () => current() !== gen, (done, total) => {
       if (req.quality === "full") self.postMessage({ t: "progress", gen, done, total });
     });
     self.postMessage({ t: "result", gen, out }, [out.image.buffer as ArrayBuffer, out.kmag.buffer as ArrayBuffer, out.kspaceNpy.buffer as ArrayBuffer, out.imageNpy.buffer as ArrayBuffer]);
@@ -45,19 +45,12 @@ function pump(): void {
   if (busy) return;
   busy = true;
   // a later message posts a timer, so the newest request is always seen before older queued ones run
-  setTimeout(() => {
+  setTimeout(async () => {
     const job = queue.pop();
     queue.length = 0;
     if (job && job.gen === current()) {
-      const ok = runOne(job.gen, job.req);
-      if (ok && job.refine && job.gen === current()) {
-        setTimeout(() => {
-          if (job.gen === current()) runOne(job.gen, { ...job.req, quality: "full" });
-          busy = false;
-          if (queue.length) pump();
-        }, 0);
-        return;
-      }
+      const ok = await runOne(job.gen, job.req);
+      if (ok && job.refine && job.gen === current()) await runOne(job.gen, { ...job.req, quality: "full" });
     }
     busy = false;
     if (queue.length) pump();

@@ -3,38 +3,36 @@
  * (a bundled preset name or a relative path) and `--set key=value`
  * overrides, validates every key, and returns the normalized Protocol in SI.
  */
-import { readFileSync, existsSync, readdirSync } from "node:fs";
-import { dirname, resolve, join } from "node:path";
-import { fileURLToPath } from "node:url";
 import { UserError, userError, joinPath, type Origin } from "../errors.js";
 import { checkJsonStructure, parseJsonStrict } from "../json.js";
 import { quantity, positive, nonNegative, plainNumber, parseUnit, isKind } from "../units.js";
-import { GAMMA_BAR } from "../constants.js";
+import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
+import { SEQUENCE_DEFINITIONS, sequenceDefinition } from "../sequence/registry.js";
 import type {
   Protocol, PulseSpec, SequenceKind, Orientation, PhysicalAxis, SliceOrder, PartialFourierRecon, EchoOrder,
 } from "./types.js";
 
-/** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
-export function presetsDir(): string {
-  const here = dirname(fileURLToPath(import.meta.url));
-  // compiled: dist/src/protocol → ../../../src/protocol/presets; source: src/protocol/presets
-  const candidates = [join(here, "presets"), resolve(here, "../../../src/protocol/presets")];
-  for (const c of candidates) if (existsSync(c)) return c;
-  return candidates[0]!;
-}
-
 type Json = null | boolean | number | string | Json[] | { [k: string]: Json };
 type Obj = { [k: string]: Json };
 
-/** Reads JSON with a one-line error naming the file and position. */
-export function readJsonFile(file: string): Json {
-  let text: string;
-  try {
-    text = readFileSync(file, "utf8");
-  } catch {
-    throw new UserError(`cannot read file (does it exist?)`, file);
-  }
-  return parseJsonStrict(text, file) as Json;
+/**
+ * Where `extend` names are looked up: the protocol object a name stands for
+ * (a bundled preset, or a file relative to `from`) and the source name it is
+ * reported under, or null. The command line reads files (cli/inputs.ts); a
+ * web page may look names up in its own table.
+ */
+export type ProtocolResolver = (name: string, from: string) => { source: string; json: unknown } | null;
+
+/** What parseProtocol needs besides the object. */
+export interface ProtocolInput {
+  /** Name of the object in messages (a file path or a preset name); default "protocol". */
+  source?: string;
+  /** `key.path=value` overrides applied after `extend`, in order (the CLI's --set). */
+  sets?: string[];
+  /** Resolves `extend`; without one a protocol that extends another is refused. */
+  resolve?: ProtocolResolver;
+  /** Preset names offered in the message when `extend` names nothing. */
+  presets?: string[];
 }
 
 function isObj(v: Json | undefined): v is Obj {
@@ -59,43 +57,22 @@ function deepMerge(base: Obj, over: Obj): Obj {
   return out;
 }
 
-/** Resolves the `extend` chain of a protocol file into one merged object. */
-function loadWithExtends(file: string, seen: Set<string> = new Set()): Obj {
-  const json = readJsonFile(file);
-  if (!isObj(json)) throw new UserError("a protocol file must hold a JSON object", file);
-  const ext = json["extend"];
-  if (ext === undefined) return json;
+/** Resolves the `extend` chain of a protocol object into one merged object. */
+function mergeExtends(json: unknown, file: string, o: ProtocolInput, seen: Set<string> = new Set()): Obj {
+  if (!isObj(json as Json)) throw new UserError("a protocol file must hold a JSON object", file);
+  const obj = json as Obj;
+  const ext = obj["extend"];
+  if (ext === undefined) return obj;
   if (typeof ext !== "string") throw new UserError(`must name a preset or a file, got ${JSON.stringify(ext)}`, file, "extend");
-  const target = resolvePresetOrFile(ext, dirname(file));
+  const target = o.resolve ? o.resolve(ext, file) : null;
   if (!target) {
-    throw new UserError(`no preset or file named ${JSON.stringify(ext)}; presets: ${listPresets().join(", ")}`, file, "extend");
+    throw new UserError(`no preset or file named ${JSON.stringify(ext)}; presets: ${(o.presets ?? []).join(", ")}`, file, "extend");
   }
-  if (seen.has(target)) throw new UserError(`extends itself through ${target}`, file, "extend");
-  seen.add(target);
-  const base = loadWithExtends(target, seen);
-  const { extend: _drop, ...rest } = json;
+  if (seen.has(target.source)) throw new UserError(`extends itself through ${target.source}`, file, "extend");
+  seen.add(target.source);
+  const base = mergeExtends(target.json, target.source, o, seen);
+  const { extend: _drop, ...rest } = obj;
   return deepMerge(base, rest);
-}
-
-/** Names of the bundled presets. */
-export function listPresets(): string[] {
-  try {
-    return readdirSync(presetsDir())
-      .filter((f) => f.endsWith(".json"))
-      .map((f) => f.replace(/\.json$/, ""))
-      .sort();
-  } catch {
-    return [];
-  }
-}
-
-/** A preset name (e.g. "gre-t1-3t") or a path; returns an absolute path or null. */
-export function resolvePresetOrFile(name: string, relativeTo: string): string | null {
-  const asPath = resolve(relativeTo, name);
-  if (existsSync(asPath)) return asPath;
-  const preset = join(presetsDir(), name.endsWith(".json") ? name : `${name}.json`);
-  if (existsSync(preset)) return preset;
-  return null;
 }
 
 /** Applies one `key.path=value` override; the value is JSON if it parses, else a string. */
@@ -136,14 +113,7 @@ const TOP_KEYS = [
 ] as const;
 
 /** Sequence names a protocol may use, with what each is. */
-export const SEQUENCES: Record<SequenceKind, string> = {
-  gre: "2D spoiled gradient echo",
-  se: "2D spin echo",
-  gre3d: "3D spoiled gradient echo (slab excitation, phase encoding in two directions)",
-  bssfp: "2D balanced steady-state free precession",
-  rare: "2D RARE / fast spin echo (echo train)",
-  epi: "2D echo-planar imaging (single-shot or segmented, gradient or spin echo)",
-};
+export const SEQUENCES: Record<SequenceKind, string> = Object.fromEntries(SEQUENCE_DEFINITIONS.map((d) => [d.name, d.description]));
 
 function checkKeys(obj: Obj, allowed: readonly string[], origin: Origin): void {
   for (const k of Object.keys(obj)) {
@@ -177,7 +147,7 @@ function oneOf<T extends string>(v: Json | undefined, allowed: readonly T[], ori
 
 /** Fat–water shift used to convert a bandwidth given as a fat shift in pixels: main methylene peak,
  *  −3.4 ppm relative to water (Hamilton et al. 2011, NMR Biomed 24:784). */
-export const FAT_SHIFT_PPM_FOR_BANDWIDTH = 3.4;
+export const FAT_SHIFT_PPM_FOR_BANDWIDTH = -FAT_SINGLE_PPM;
 
 /**
  * Reads the bandwidth in any of four conventions and returns Hz per pixel:
@@ -223,6 +193,27 @@ function pulse(obj: Obj | undefined, origin: Origin, dflt: PulseSpec): PulseSpec
 }
 
 /**
+ * Every default of an optional protocol key, in SI, for a sequence (flip
+ * angle and echo train length come from the sequence's own declaration).
+ * The one place protocol defaults live.
+ */
+export function protocolDefaults(sequence: SequenceKind) {
+  const def = sequenceDefinition(sequence);
+  return {
+    orientation: "axial" as Orientation, tiltAxis: "read" as const, sliceCount: 1, sliceGap: 0, sliceOrder: "interleaved" as SliceOrder,
+    bandwidth: "250 Hz/px", flip: def.defaults.flip, refocusFlip: Math.PI,
+    oversampling: { read: 2, phase: 0 }, readoutPolarity: "positive" as const,
+    partialFourier: { phase: 1, read: 1, method: "homodyne" as PartialFourierRecon },
+    receiverFilter: true, hardware: { gmax: 0.04, slew: 150 },
+    excitation: { shape: "sinc", duration: 2e-3, tbw: 4, steps: 200 } as PulseSpec,
+    refocusing: { shape: "sinc", duration: 3e-3, tbw: 4, steps: 200 } as PulseSpec,
+    spoiling: "ideal" as const, rfSpoilIncrement: (117 * Math.PI) / 180, dummyScans: 0, phaseOrder: "linear" as const, averages: 1,
+    ssfpPreparation: "half-alpha" as const, echoTrainLength: def.defaults.echoTrainLength, echoSpacing: 0, echoOrder: "linear" as EchoOrder,
+    shots: 1, epiEcho: "gradient" as const, crusherCycles: 4, spoilerCycles: 4, shim: 0,
+  };
+}
+
+/**
  * A flip angle: greater than 0 and at most 180 deg. Above 180 deg the
  * rotation equals one of 360 deg minus the angle about the opposite axis
  * (a rotation's angle is defined modulo 360 deg), so the value is rejected
@@ -239,16 +230,19 @@ function flipAngle(raw: Json | undefined, o: Origin): number {
 }
 
 /**
- * Loads, merges and validates a protocol. `file` may be a path or a preset name.
- * Throws UserError naming the file and key path on any bad value.
+ * Protocol object (as read from a protocol file) → Protocol in SI: applies
+ * `extend` through `o.resolve`, then the `--set`-style overrides `o.sets`,
+ * then validates every key. Reads no file. Throws UserError naming the
+ * source and key path on any bad value (a bad value that came from a set is
+ * named as `--set key`).
  */
-export function loadProtocol(file: string, sets: string[] = []): Protocol {
-  const path = resolvePresetOrFile(file, process.cwd());
-  if (!path) throw new UserError(`no protocol file or preset named ${JSON.stringify(file)}; presets: ${listPresets().join(", ")}`);
-  let obj = loadWithExtends(path);
+export function parseProtocol(json: unknown, o: ProtocolInput = {}): Protocol {
+  const source = o.source ?? "protocol";
+  const sets = o.sets ?? [];
+  let obj = mergeExtends(json, source, o);
   for (const s of sets) obj = applySet(obj, s);
   try {
-    return parseProtocolObject(obj, path);
+    return parseProtocolObject(obj, source);
   } catch (e) {
     // a bad value that came from --set is named as such, not as the file's
     const keys = sets.map((s) => s.slice(0, Math.max(0, s.indexOf("="))).trim());
@@ -265,7 +259,9 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   checkKeys(obj, TOP_KEYS, root);
   const warnings: string[] = [];
 
-  const sequence = oneOf<SequenceKind>(obj["sequence"], Object.keys(SEQUENCES) as SequenceKind[], at("sequence"));
+  const sequence = oneOf<SequenceKind>(obj["sequence"], SEQUENCE_DEFINITIONS.map((d) => d.name), at("sequence"));
+  const def = sequenceDefinition(sequence);
+  const D = protocolDefaults(sequence);
   const field = positive(obj["field"], "field", at("field"));
   const fovO = sub(obj, "fov", root)!;
   checkKeys(fovO, ["read", "phase"], at("fov"));
@@ -281,72 +277,72 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
   const sliceKey = matO["partitions"] !== undefined ? "partitions" : "slice";
   if (sliceKey === "partitions") warnings.push(`matrix.partitions is deprecated and will be removed in the next release; write "matrix": { "slice": ${String(matO["partitions"])} } (the number of slice-encoding steps)`);
   const nSlice = matO[sliceKey] === undefined ? 1 : plainNumber(matO[sliceKey], at(`matrix.${sliceKey}`), { min: 1, max: 1024, integer: true });
-  if (sequence === "gre3d" && nSlice < 2) throw userError(at(`matrix.${sliceKey}`), `a 3D sequence needs at least 2 slice-encoding steps, got ${nSlice}; e.g. "matrix": { "slice": 16 }`);
-  if (sequence !== "gre3d" && nSlice !== 1) throw userError(at(`matrix.${sliceKey}`), `only the 3D sequence (gre3d) encodes along the slice; remove matrix.${sliceKey} or use "sequence": "gre3d"`);
+  if (def.threeD && nSlice < 2) throw userError(at(`matrix.${sliceKey}`), `a 3D sequence needs at least 2 slice-encoding steps, got ${nSlice}; e.g. "matrix": { "slice": 16 }`);
+  if (!def.threeD && nSlice !== 1) throw userError(at(`matrix.${sliceKey}`), `only the 3D sequence (gre3d) encodes along the slice; remove matrix.${sliceKey} or use "sequence": "gre3d"`);
 
   const slO = sub(obj, "slice", root)!;
   checkKeys(slO, ["thickness", "position", "orientation", "angle", "tiltAxis"], at("slice"));
   const thickness = positive(slO["thickness"], "length", at("slice.thickness"));
   const position = slO["position"] === undefined ? 0 : quantity(slO["position"], "length", at("slice.position"));
-  const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), "axial");
+  const orientation = oneOf<Orientation>(slO["orientation"], ["axial", "coronal", "sagittal"], at("slice.orientation"), D.orientation);
   const angle = slO["angle"] === undefined ? 0 : quantity(slO["angle"], "angle", at("slice.angle"));
   if (Math.abs(angle) > (60 * Math.PI) / 180) throw userError(at("slice.angle"), `an oblique tilt must be within ±60 deg of the orientation, got ${String(slO["angle"])}; choose the nearer orientation`);
-  const tiltAxis = oneOf(slO["tiltAxis"], ["read", "phase"] as const, at("slice.tiltAxis"), "read");
+  const tiltAxis = oneOf(slO["tiltAxis"], ["read", "phase"] as const, at("slice.tiltAxis"), D.tiltAxis);
   const msO = sub(obj, "slices", root, false) ?? {};
   checkKeys(msO, ["count", "gap", "order"], at("slices"));
-  const sliceCount = msO["count"] === undefined ? 1 : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
-  const sliceGap = msO["gap"] === undefined ? 0 : nonNegative(msO["gap"], "length", at("slices.gap"));
-  const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), "interleaved");
-  if (sequence === "gre3d" && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
+  const sliceCount = msO["count"] === undefined ? D.sliceCount : plainNumber(msO["count"], at("slices.count"), { min: 1, max: 256, integer: true });
+  const sliceGap = msO["gap"] === undefined ? D.sliceGap : nonNegative(msO["gap"], "length", at("slices.gap"));
+  const sliceOrder = oneOf<SliceOrder>(msO["order"], ["sequential", "interleaved"], at("slices.order"), D.sliceOrder);
+  if (def.threeD && sliceCount > 1) throw userError(at("slices.count"), `a 3D slab is one volume; use matrix.slice instead of several slices`);
   const inPlane: Record<Orientation, PhysicalAxis[]> = { axial: ["x", "y"], coronal: ["x", "z"], sagittal: ["y", "z"] };
   const defaultPhase: Record<Orientation, PhysicalAxis> = { axial: "y", coronal: "x", sagittal: "y" };
   const phaseDirection = oneOf<PhysicalAxis>(obj["phaseDirection"], inPlane[orientation], at("phaseDirection"), defaultPhase[orientation]);
 
-  const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? "250 Hz/px", nRead, field, at("bandwidth"));
+  const pixelBandwidth = parseBandwidth(obj["bandwidth"] ?? D.bandwidth, nRead, field, at("bandwidth"));
   const te = positive(obj["te"], "time", at("te"));
   const tr = positive(obj["tr"], "time", at("tr"));
-  const flip = obj["flip"] === undefined ? (sequence === "se" || sequence === "rare" || sequence === "epi" ? Math.PI / 2 : (20 * Math.PI) / 180) : flipAngle(obj["flip"], at("flip"));
-  const refocusFlip = obj["refocusFlip"] === undefined ? Math.PI : flipAngle(obj["refocusFlip"], at("refocusFlip"));
+  const flip = obj["flip"] === undefined ? D.flip : flipAngle(obj["flip"], at("flip"));
+  const refocusFlip = obj["refocusFlip"] === undefined ? D.refocusFlip : flipAngle(obj["refocusFlip"], at("refocusFlip"));
 
   const osO = sub(obj, "oversampling", root, false) ?? {};
   checkKeys(osO, ["read", "phase"], at("oversampling"));
-  const osRead = osO["read"] === undefined ? 2 : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
-  const osPhase = osO["phase"] === undefined ? 0 : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
+  const osRead = osO["read"] === undefined ? D.oversampling.read : plainNumber(osO["read"], at("oversampling.read"), { min: 1, max: 8 });
+  const osPhase = osO["phase"] === undefined ? D.oversampling.phase : plainNumber(osO["phase"], at("oversampling.phase"), { min: 0, max: 2 });
   if (!Number.isInteger(osRead * nRead)) throw userError(at("oversampling.read"), `read oversampling × matrix.read must be a whole number of samples`);
 
-  const polarity = oneOf(obj["readoutPolarity"], ["positive", "negative"] as const, at("readoutPolarity"), "positive");
+  const polarity = oneOf(obj["readoutPolarity"], ["positive", "negative"] as const, at("readoutPolarity"), D.readoutPolarity);
   const pfO = sub(obj, "partialFourier", root, false) ?? {};
   checkKeys(pfO, ["phase", "read", "method"], at("partialFourier"));
-  const pfPhase = pfO["phase"] === undefined ? 1 : plainNumber(pfO["phase"], at("partialFourier.phase"), { min: 0.5, max: 1 });
-  const pfRead = pfO["read"] === undefined ? 1 : plainNumber(pfO["read"], at("partialFourier.read"), { min: 0.5, max: 1 });
-  const pfMethod = oneOf<PartialFourierRecon>(pfO["method"], ["zero-fill", "homodyne"], at("partialFourier.method"), "homodyne");
+  const pfPhase = pfO["phase"] === undefined ? D.partialFourier.phase : plainNumber(pfO["phase"], at("partialFourier.phase"), { min: 0.5, max: 1 });
+  const pfRead = pfO["read"] === undefined ? D.partialFourier.read : plainNumber(pfO["read"], at("partialFourier.read"), { min: 0.5, max: 1 });
+  const pfMethod = oneOf<PartialFourierRecon>(pfO["method"], ["zero-fill", "homodyne"], at("partialFourier.method"), D.partialFourier.method);
 
-  const receiverFilter = obj["receiverFilter"] === undefined ? true : obj["receiverFilter"];
+  const receiverFilter = obj["receiverFilter"] === undefined ? D.receiverFilter : obj["receiverFilter"];
   if (typeof receiverFilter !== "boolean") throw userError(at("receiverFilter"), "must be true or false");
 
   const hwO = sub(obj, "hardware", root, false) ?? {};
   checkKeys(hwO, ["gmax", "slew"], at("hardware"));
-  const gmax = hwO["gmax"] === undefined ? 0.04 : positive(hwO["gmax"], "gradient", at("hardware.gmax"));
-  const slew = hwO["slew"] === undefined ? 150 : positive(hwO["slew"], "slew", at("hardware.slew"));
+  const gmax = hwO["gmax"] === undefined ? D.hardware.gmax : positive(hwO["gmax"], "gradient", at("hardware.gmax"));
+  const slew = hwO["slew"] === undefined ? D.hardware.slew : positive(hwO["slew"], "slew", at("hardware.slew"));
 
-  const excitation = pulse(sub(obj, "excitation", root, false), at("excitation"), { shape: "sinc", duration: 2e-3, tbw: 4, steps: 200 });
-  const refocusing = pulse(sub(obj, "refocusing", root, false), at("refocusing"), { shape: "sinc", duration: 3e-3, tbw: 4, steps: 200 });
+  const excitation = pulse(sub(obj, "excitation", root, false), at("excitation"), D.excitation);
+  const refocusing = pulse(sub(obj, "refocusing", root, false), at("refocusing"), D.refocusing);
 
-  const spoiling = oneOf(obj["spoiling"], ["ideal", "rf", "none"] as const, at("spoiling"), "ideal");
-  const rfSpoilIncrement = obj["rfSpoilIncrement"] === undefined ? (117 * Math.PI) / 180 : quantity(obj["rfSpoilIncrement"], "angle", at("rfSpoilIncrement"));
-  const dummyScans = obj["dummyScans"] === undefined ? 0 : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
-  const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), "linear");
-  const averages = obj["averages"] === undefined ? 1 : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
-  const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), "half-alpha");
-  const echoTrainLength = obj["echoTrainLength"] === undefined ? (sequence === "rare" ? 8 : 1) : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
-  const echoSpacing = obj["echoSpacing"] === undefined ? 0 : positive(obj["echoSpacing"], "time", at("echoSpacing"));
-  const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), "linear");
-  const shots = obj["shots"] === undefined ? 1 : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
-  const epiEcho = oneOf(obj["epiEcho"], ["gradient", "spin"] as const, at("epiEcho"), "gradient");
-  const crusherCycles = obj["crusherCycles"] === undefined ? 4 : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
-  const spoilerCycles = obj["spoilerCycles"] === undefined ? 4 : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
+  const spoiling = oneOf(obj["spoiling"], ["ideal", "rf", "none"] as const, at("spoiling"), D.spoiling);
+  const rfSpoilIncrement = obj["rfSpoilIncrement"] === undefined ? D.rfSpoilIncrement : quantity(obj["rfSpoilIncrement"], "angle", at("rfSpoilIncrement"));
+  const dummyScans = obj["dummyScans"] === undefined ? D.dummyScans : plainNumber(obj["dummyScans"], at("dummyScans"), { min: 0, max: 100000, integer: true });
+  const phaseOrder = oneOf(obj["phaseOrder"], ["linear", "centre-out"] as const, at("phaseOrder"), D.phaseOrder);
+  const averages = obj["averages"] === undefined ? D.averages : plainNumber(obj["averages"], at("averages"), { min: 1, max: 1024, integer: true });
+  const ssfpPreparation = oneOf(obj["ssfpPreparation"], ["none", "half-alpha"] as const, at("ssfpPreparation"), D.ssfpPreparation);
+  const echoTrainLength = obj["echoTrainLength"] === undefined ? D.echoTrainLength : plainNumber(obj["echoTrainLength"], at("echoTrainLength"), { min: 1, max: 1024, integer: true });
+  const echoSpacing = obj["echoSpacing"] === undefined ? D.echoSpacing : positive(obj["echoSpacing"], "time", at("echoSpacing"));
+  const echoOrder = oneOf<EchoOrder>(obj["echoOrder"], ["linear", "centric"], at("echoOrder"), D.echoOrder);
+  const shots = obj["shots"] === undefined ? D.shots : plainNumber(obj["shots"], at("shots"), { min: 1, max: 1024, integer: true });
+  const epiEcho = oneOf(obj["epiEcho"], ["gradient", "spin"] as const, at("epiEcho"), D.epiEcho);
+  const crusherCycles = obj["crusherCycles"] === undefined ? D.crusherCycles : plainNumber(obj["crusherCycles"], at("crusherCycles"), { min: 0, max: 100 });
+  const spoilerCycles = obj["spoilerCycles"] === undefined ? D.spoilerCycles : plainNumber(obj["spoilerCycles"], at("spoilerCycles"), { min: 0, max: 100 });
 
-  const shim = obj["shim"] === undefined ? 0 : quantity(obj["shim"], "frequency", at("shim"));
+  const shim = obj["shim"] === undefined ? D.shim : quantity(obj["shim"], "frequency", at("shim"));
 
   return {
     sequence, field,
@@ -356,7 +352,7 @@ export function parseProtocolObject(obj: Obj, file: string): Protocol {
     slice: { thickness, position, orientation, angle, tiltAxis },
     slices: { count: sliceCount, gap: sliceGap, order: sliceOrder },
     phaseDirection, readoutPolarity: polarity === "positive" ? 1 : -1, pixelBandwidth,
-    bandwidthAsGiven: String(obj["bandwidth"] ?? "250 Hz/px"),
+    bandwidthAsGiven: String(obj["bandwidth"] ?? D.bandwidth),
     te, tr, flip, refocusFlip,
     oversampling: { read: osRead, phase: osPhase },
     receiverFilter,

@@ -3,7 +3,8 @@
  * Produced by parseProtocol() from a protocol file plus --set overrides.
  */
 
-export type SequenceKind = "gre" | "se" | "gre3d" | "bssfp" | "rare" | "epi";
+/** A sequence name declared in sequence/registry.ts (checked by the parser). */
+export type SequenceKind = string;
 export type Orientation = "axial" | "coronal" | "sagittal";
 export type PhysicalAxis = "x" | "y" | "z";
 export type Spoiling = "ideal" | "rf" | "none";

@@ -16,7 +16,7 @@ import {
   commonDerived, Demand, lobes, maxPhaseArea, phasePlan, pushPulse, pushReadout, pushReadoutSilent, readoutPlan,
   requireAtLeast, sliceSelect,
 } from "./common.js";
-import type { Block, Sequence } from "./types.js";
+import type { Block, Sequence, SequenceDefinition } from "./types.js";
 
 export function buildBssfp(p: Protocol): Sequence {
   const demand = new Demand();
@@ -76,6 +76,7 @@ export function buildBssfp(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin: active, te: p.te, tr: p.tr, scanTime },
     derived,
+    quantities: { sliceGradient: exc.pulse.gradient },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(pe.lines).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false,
@@ -84,3 +85,8 @@ export function buildBssfp(p: Protocol): Sequence {
     activeTime: active,
   };
 }
+
+export const BSSFP: SequenceDefinition = {
+  name: "bssfp", description: "2D balanced steady-state free precession", build: buildBssfp,
+  defaults: { flip: (20 * Math.PI) / 180, echoTrainLength: 1 }, refocuses: () => false, spoils: false, threeD: false,
+};

@@ -24,7 +24,7 @@ import {
   commonDerived, Demand, lobes, phasePlan, pushPulse, readoutPlan, requireAtLeast, sliceSelect,
 } from "./common.js";
 import { minTrapezoid } from "./trapezoid.js";
-import type { Block, Sequence } from "./types.js";
+import type { Block, Sequence, SequenceDefinition } from "./types.js";
 
 export function buildEpi(p: Protocol): Sequence {
   const demand = new Demand();
@@ -153,9 +153,15 @@ export function buildEpi(p: Protocol): Sequence {
     centre: { read: pos.echoSample, phase: pe.centre },
     timing: { teMin, trMin: active, te: p.te, tr: p.tr, scanTime },
     derived,
+    quantities: { sliceGradient: exc.pulse.gradient, echoSpacing: esp, effectiveEchoSpacing: tau },
     grid: { read: pos.full, offset: pos.offset, reversed, partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false },
     phaseTable: table,
     activeTime: active,
     echoTimes,
   };
 }
+
+export const EPI: SequenceDefinition = {
+  name: "epi", description: "2D echo-planar imaging (single-shot or segmented, gradient or spin echo)", build: buildEpi,
+  defaults: { flip: Math.PI / 2, echoTrainLength: 1 }, refocuses: (p) => p.epiEcho === "spin", spoils: true, threeD: false,
+};

@@ -19,7 +19,7 @@ import {
   commonDerived, Demand, lobes, maxPhaseArea, phasePlan, pushPulse, pushReadout, pushReadoutSilent, readoutPlan,
   requireAtLeast, rfSpoilPhase, sliceSelect,
 } from "./common.js";
-import type { Block, Sequence } from "./types.js";
+import type { Block, Sequence, SequenceDefinition } from "./types.js";
 
 export function buildGre(p: Protocol): Sequence {
   const threeD = p.sequence === "gre3d";
@@ -92,6 +92,7 @@ export function buildGre(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin, te: p.te, tr: p.tr, scanTime },
     derived,
+    quantities: { sliceGradient: exc.pulse.gradient },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(rows).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD,
@@ -100,3 +101,15 @@ export function buildGre(p: Protocol): Sequence {
     activeTime: active,
   };
 }
+
+/** 2D spoiled gradient echo. */
+export const GRE: SequenceDefinition = {
+  name: "gre", description: "2D spoiled gradient echo", build: buildGre,
+  defaults: { flip: (20 * Math.PI) / 180, echoTrainLength: 1 }, refocuses: () => false, spoils: true, threeD: false,
+};
+
+/** 3D spoiled gradient echo (the same builder; slice-encoding steps from matrix.slice). */
+export const GRE3D: SequenceDefinition = {
+  name: "gre3d", description: "3D spoiled gradient echo (slab excitation, phase encoding in two directions)", build: buildGre,
+  defaults: { flip: (20 * Math.PI) / 180, echoTrainLength: 1 }, refocuses: () => false, spoils: true, threeD: true,
+};

@@ -21,7 +21,7 @@ import {
   commonDerived, Demand, lobes, maxPhaseArea, phasePlan, pushPulse, pushReadout, pushReadoutSilent, readoutPlan,
   requireAtLeast, sliceSelect,
 } from "./common.js";
-import type { Block, Sequence } from "./types.js";
+import type { Block, Sequence, SequenceDefinition } from "./types.js";
 
 /** Indices 0…n−1 ordered by distance from `c`: c, c+1, c−1, c+2, … */
 function byDistance(c: number, n: number): number[] {
@@ -146,6 +146,7 @@ export function buildRare(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin: espMin, trMin: active, te: (ec + 1) * esp, tr: p.tr, scanTime },
     derived,
+    quantities: { sliceGradient: exc.pulse.gradient, echoSpacing: esp },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(pe.lines).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false,
@@ -155,3 +156,8 @@ export function buildRare(p: Protocol): Sequence {
     echoTimes,
   };
 }
+
+export const RARE: SequenceDefinition = {
+  name: "rare", description: "2D RARE / fast spin echo (echo train)", build: buildRare,
+  defaults: { flip: Math.PI / 2, echoTrainLength: 8 }, refocuses: () => true, spoils: true, threeD: false,
+};

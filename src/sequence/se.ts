@@ -12,7 +12,7 @@ import {
   commonDerived, Demand, lobes, maxPhaseArea, phasePlan, pushPulse, pushReadout, pushReadoutSilent, readoutPlan,
   requireAtLeast, sliceSelect,
 } from "./common.js";
-import type { Block, Sequence } from "./types.js";
+import type { Block, Sequence, SequenceDefinition } from "./types.js";
 
 export function buildSe(p: Protocol): Sequence {
   const demand = new Demand();
@@ -68,6 +68,7 @@ export function buildSe(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin, te: p.te, tr: p.tr, scanTime: total * p.tr },
     derived,
+    quantities: { sliceGradient: exc.pulse.gradient },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(pe.lines).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false,
@@ -76,3 +77,8 @@ export function buildSe(p: Protocol): Sequence {
     activeTime: active,
   };
 }
+
+export const SE: SequenceDefinition = {
+  name: "se", description: "2D spin echo", build: buildSe,
+  defaults: { flip: Math.PI / 2, echoTrainLength: 1 }, refocuses: () => true, spoils: true, threeD: false,
+};

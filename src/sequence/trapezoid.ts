@@ -49,8 +49,3 @@ export function minTrapezoid(area: number, gmax: number, slew: number): Trapezoi
 export function rampTime(g: number, slew: number): number {
   return raster(Math.abs(g) / slew);
 }
-
-/** Rounds a duration up to the raster. */
-export function onRaster(t: number): number {
-  return raster(t);
-}

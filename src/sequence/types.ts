@@ -8,6 +8,8 @@
  * precession and relaxation over it are exact in one step.
  */
 
+import type { Protocol } from "../protocol/types.js";
+
 export type Vec3 = [number, number, number];
 
 /** A sampled RF pulse with the gradient played during it. */
@@ -44,6 +46,41 @@ export type Block =
   | { kind: "adc"; samples: number; dwell: number; grad: Vec3; row: number; phase: number; weight: number }
   /** Ideal spoiling: transverse magnetization is set to zero. */
   | { kind: "spoil" };
+
+/** Derived quantities of a sequence that other stages compute with. */
+export interface SequenceQuantities {
+  /** Slice-select gradient during the excitation (T/m); 0 for a non-selective pulse. */
+  sliceGradient: number;
+  /** Time between successive echoes of an echo train (s); absent without a train. */
+  echoSpacing?: number;
+  /** EPI: time between adjacent phase-encoding lines, echo spacing / shots (s); sets the phase-direction shift. */
+  effectiveEchoSpacing?: number;
+  /** Phase lines per shot seen by the EPI phase blips (default matrix.phase) and the blip sign (±1, default +1). */
+  phaseLinesEffective?: number;
+  phaseBlipSign?: number;
+}
+
+/**
+ * A sequence declares itself: its protocol name, what it is, its builder,
+ * the protocol defaults that depend on it, and what the pipeline must know
+ * about it. Adding a sequence = one module exporting a definition, plus one
+ * line in sequence/registry.ts.
+ */
+export interface SequenceDefinition {
+  /** Value of the protocol's `sequence` key. */
+  name: string;
+  /** One line for help, errors and `isofold protocol`. */
+  description: string;
+  build: (p: Protocol) => Sequence;
+  /** Protocol defaults that differ between sequences (SI): flip angle (rad) and echo train length. */
+  defaults: { flip: number; echoTrainLength: number };
+  /** Whether the protocol refocuses (spin echoes): its crushers must then be resolved through the slice. */
+  refocuses: (p: Protocol) => boolean;
+  /** Whether it spoils between TRs (a balanced sequence does not: no spoiler gradients to resolve). */
+  spoils: boolean;
+  /** A 3D slab (slice-encoding steps in matrix.slice) rather than 2D slices. */
+  threeD: boolean;
+}
 
 /** A quantity for the report: SI value, display unit and a short meaning. */
 export interface Derived {
@@ -88,6 +125,8 @@ export interface Sequence {
   timing: { teMin: number; trMin: number; te: number; tr: number; scanTime: number };
   /** Derived quantities for the report and `isofold protocol`. */
   derived: Record<string, Derived>;
+  /** The derived quantities other stages read, typed (SI; also in `derived`). */
+  quantities: SequenceQuantities;
   /** Acquired → full-grid map for the recon. */
   grid: KGrid;
   /** Phase-encode table: line index and phase-encode area (T·s/m) in acquisition order (first slice-encoding step for 3D). */

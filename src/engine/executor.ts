@@ -1,0 +1,233 @@
+/**
+ * Where the chunks of a plan run. An Executor opens one session per engine
+ * run; the session fills RF maps and runs chunks, handing each chunk's
+ * partial k-space back to the driver (simulateWith), which adds partials in
+ * the fixed order of sum.ts. So every executor gives bitwise the same
+ * k-space: serial on this thread (tests, small runs, a page without
+ * workers), worker_threads in Node (engine/pool.ts), Web Workers in a
+ * browser (same contract: post the plan and isochromats once — shared
+ * memory where the page is cross-origin isolated, else copies — then chunk
+ * indices; transfer each partial back).
+ */
+import type { IsochromatSet } from "../isochromats/index.js";
+import type { Sequence } from "../sequence/types.js";
+import { ChunkScratch, runChunk } from "./chunk.js";
+import { fillRfMaps, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
+import { addInto, BlockSummer, blockChunks } from "./sum.js";
+import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
+
+/** Below this many RF classes the maps are filled on the calling thread (cheaper than a round trip). */
+export const PARALLEL_RF_CLASSES = 2048;
+
+/** Thrown (as the rejection) when an AbortSignal stops a run. */
+export class AbortedError extends Error {
+  constructor() {
+    super("interrupted");
+  }
+}
+
+/** One engine run on an executor: a plan and its isochromats, already handed over. */
+export interface ExecutorSession {
+  /** Workers in this session (1 for serial). */
+  readonly size: number;
+  /** Fills the plan's RF maps of classes 0 … classes−1 (in place). */
+  fillRfMaps(classes: number, signal?: AbortSignal): Promise<void>;
+  /**
+   * Runs chunks c0 … c1−1 and hands each partial k-space to onChunk(c, re, im)
+   * (any order; the arrays are the caller's to keep). At most a window of
+   * chunks past `waitingFor()` may be outstanding, so held partials stay bounded.
+   * Rejects with AbortedError when `signal` aborts.
+   */
+  runChunks(c0: number, c1: number, onChunk: (c: number, re: Float64Array, im: Float64Array) => void, waitingFor: () => number, signal?: AbortSignal): Promise<void>;
+  /** Releases the workers (also after a failure or an abort). */
+  close(): Promise<void>;
+}
+
+export interface Executor {
+  /** Opens a session over `plan` and `iso` using at most `jobs` workers (no more are useful). */
+  open(plan: EnginePlan, iso: IsochromatSet, jobs: number): ExecutorSession;
+}
+
+/** Runs everything on the calling thread, chunk after chunk. */
+export function serialExecutor(): Executor {
+  return {
+    open(plan, iso) {
+      let scratch: ChunkScratch | null = null;
+      const size = plan.coils * plan.rows * plan.read;
+      return {
+        size: 1,
+        async fillRfMaps(classes, signal) {
+          if (signal?.aborted) throw new AbortedError();
+          fillRfMaps(plan, 0, classes);
+        },
+        async runChunks(c0, c1, onChunk, _waitingFor, signal) {
+          scratch ??= new ChunkScratch(plan);
+          for (let c = c0; c < c1; c++) {
+            if (signal?.aborted) throw new AbortedError();
+            const re = new Float64Array(size), im = new Float64Array(size);
+            runChunk(plan, iso, c, re, im, scratch);
+            onChunk(c, re, im);
+          }
+        },
+        async close() {},
+      };
+    },
+  };
+}
+
+/** What every engine run takes besides the sequence and isochromats. */
+export interface RunOptions extends PlanOptions {
+  /**
+   * Readout operator: "fast" (default; engine/fast.ts, exact to `tolerance`,
+   * falls back to "direct" where it does not apply, saying why) or "direct"
+   * (every isochromat through the readout recurrence; the oracle).
+   */
+  readout?: ReadoutChoice;
+  /** Relative L2 error of k-space allowed to the fast operator (default 1e-6). */
+  tolerance?: number;
+  /** Called after each chunk with (done, total). */
+  onProgress?: (done: number, total: number) => void;
+  /** Only these blocks [b0, b1) of BLOCK_CHUNKS chunks (for sharding); default all. */
+  blocks?: [number, number];
+  /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
+  onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
+  /** Aborting stops the run; the promise then rejects with AbortedError. */
+  signal?: AbortSignal;
+  /** Called once the plan is made, before any chunk runs. */
+  onPlan?: (plan: EnginePlan) => void;
+}
+
+/** k-space of one engine run, layout [coil][row][read]; rows = slice-encoding steps × phase lines. */
+export interface KSpace {
+  coils: number;
+  rows: number;
+  read: number;
+  re: Float64Array;
+  im: Float64Array;
+}
+
+/** What the fast readout attempt reads of an engine run's options. */
+export interface FastOptions {
+  readout?: ReadoutChoice;
+  tolerance?: number;
+  general?: boolean;
+  blocks?: [number, number];
+  onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
+  onProgress?: (done: number, total: number) => void;
+}
+
+/**
+ * Tries the fast operator on a plan whose RF maps are filled. Returns its
+ * k-space, or null with the report saying why the direct operator must run.
+ * A fast result whose a-posteriori estimate exceeds the tolerance is
+ * discarded (direct runs instead): never silently wrong.
+ */
+export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: FastOptions): { kspace: KSpace | null; readout: ReadoutReport } {
+  const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
+  const requested = opts.readout ?? "fast";
+  const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}) } });
+  if (requested === "direct") return direct();
+  if (opts.general) return direct("the general path was forced (general: true)");
+  // the factors' truncation is set from norms weighted by magnetization; where the
+  // signal cancels (e.g. T2′ dephasing) the k-space error is relatively larger:
+  // the a-posteriori estimate decides, tightening the truncation twice before giving up
+  let r: ReturnType<typeof fastReadout> = "";
+  let est = Infinity;
+  for (const split of [8, 80, 800]) {
+    r = fastReadout(seq, plan, iso, tolerance, split);
+    if (typeof r === "string") return direct(r);
+    est = r.report.estimate?.relL2 ?? 0;
+    if (est <= tolerance) break;
+  }
+  if (typeof r === "string") return direct(r);
+  if (!(est <= tolerance)) return direct(`the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`);
+  // no −0 (so adding the zero block sums of a sharded run keeps the bits)
+  for (let k = 0; k < r.re.length; k++) {
+    r.re[k] = r.re[k]! + 0;
+    r.im[k] = r.im[k]! + 0;
+  }
+  let re = r.re, im = r.im;
+  if (opts.blocks) {
+    // Sharded: every shard computes the same fast k-space (and the same
+    // decision); block 0 carries all of it, every other block is zero, so the
+    // merged shards equal the single run bit for bit.
+    const zr = new Float64Array(re.length), zi = new Float64Array(re.length);
+    for (let b = opts.blocks[0]; b < opts.blocks[1]; b++) opts.onBlock?.(b, b === 0 ? re : zr, b === 0 ? im : zi);
+    if (opts.blocks[0] > 0 || opts.blocks[1] <= 0) {
+      re = zr;
+      im = zi;
+    }
+    r.report.sharding = "the shard holding block 0 carries the whole fast k-space; the other shards' blocks are zero";
+  }
+  opts.onProgress?.(1, 1);
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, readout: r.report };
+}
+
+/** Whether a fast attempt is worth filling the RF maps for on this thread first. */
+export function fastWanted(plan: EnginePlan, opts: FastOptions): boolean {
+  return (opts.readout ?? "fast") === "fast" && !opts.general && fastPrecheck(plan) === null;
+}
+
+/** The report of a direct run when the fast operator was asked for but not tried. */
+export function directReason(plan: EnginePlan, opts: FastOptions, r: ReadoutReport): ReadoutReport {
+  const fallback = opts.general
+      ? "the general path was forced (general: true)"
+      : fastPrecheck(plan) ?? "direct operator";
+  return { ...r, requested: "fast", fallback };
+}
+/** Chunks c0 … c1−1 of the blocks asked for (all by default). */
+export function chunkRange(plan: EnginePlan, blocks?: [number, number]): [number, number] {
+  if (!blocks) return [0, plan.chunks];
+  return blockChunks(plan.chunks, blocks[0], blocks[1]);
+}
+
+/**
+ * One engine run on any executor: plan (isochromats in shared memory where
+ * there is such), RF maps (on the workers when there are many classes),
+ * chunks, partials added in the fixed order of sum.ts. Bitwise the same
+ * k-space for every executor and worker count.
+ */
+export async function simulateWith(executor: Executor, seq: Sequence, iso: IsochromatSet, opts: RunOptions): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
+  const shared = shareEngineArrays(iso);
+  const plan = planLayout(seq, shared, opts);
+  opts.onPlan?.(plan);
+  // the fast operator runs on this thread (no workers started)
+  let readout: ReadoutReport;
+  let filled = false;
+  if (fastWanted(plan, opts)) {
+    filled = true;
+    fillRfMaps(plan, 0, plan.classes);
+    if (opts.signal?.aborted) throw new AbortedError();
+    const f = tryFast(seq, shared, plan, opts);
+    // let a pending interrupt (SIGINT) arrive before the result is used
+    await new Promise((r) => setTimeout(r, 0));
+    if (opts.signal?.aborted) throw new AbortedError();
+    if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
+    readout = f.readout;
+  } else {
+    readout = tryFast(seq, shared, plan, { ...opts, readout: "direct" }).readout;
+    if ((opts.readout ?? "fast") === "fast") readout = directReason(plan, opts, readout);
+  }
+  const [c0, c1] = chunkRange(plan, opts.blocks);
+  const session = executor.open(plan, shared, Math.max(1, c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? Infinity : 1));
+  try {
+    if (filled) { /* filled for the fast attempt */ }
+    else if (plan.classes >= PARALLEL_RF_CLASSES && session.size > 1) await session.fillRfMaps(plan.classes, opts.signal);
+    else fillRfMaps(plan, 0, plan.classes);
+    const size = plan.coils * plan.rows * plan.read;
+    const re = new Float64Array(size), im = new Float64Array(size);
+    const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
+      opts.onBlock?.(b, bre, bim);
+      addInto(re, im, bre, bim);
+    });
+    let done = 0;
+    await session.runChunks(c0, c1, (c, pr, pi) => {
+      summer.add(c, pr, pi);
+      opts.onProgress?.(++done, c1 - c0);
+    }, () => summer.waitingFor, opts.signal);
+    if (!summer.done) throw new Error("engine: not every chunk arrived");
+    return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan, readout };
+  } finally {
+    await session.close();
+  }
+}
