@@ -1,12 +1,14 @@
 /**
  * The previewer's run of one protocol on one phantom, inside a Web Worker, on
- * the library entry `simulate()` (src/api.ts): the same parsers, validators,
+ * the library's pipeline (src/api.ts: prepareSimulation, runSlices,
+ * reconstructRuns — what `simulate()` runs before it measures the image for
+ * report.json, which the page skips for speed): the same parsers, validators,
  * sequence, isochromats, engine (fast readout operator, direct fallback),
  * summation order and reconstruction as `isofold simulate`, and the
  * closed-form `check`. Inputs are objects held in the worker; nothing is
  * read from or written to a file, and nothing leaves the page.
  */
-import { simulate, SAFETY_NOTE } from "../api.js";
+import { prepareSimulation, runSlices, reconstructRuns, SAFETY_NOTE, type SimulateInput } from "../api.js";
 import { UserError } from "../errors.js";
 import { AbortedError, serialExecutor } from "../engine/index.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
@@ -121,9 +123,9 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   const tStart = performance.now();
   const iso = qualityOptions(req.quality, req.fatModel);
   const ac = new AbortController();
-  let r;
+  let input: SimulateInput, prep, run;
   try {
-    r = await simulate({
+    input = {
       protocol: protocolInput(req.protocol), protocolName: req.protocol,
       phantom: phantomInput(req.phantom), phantomName: req.phantom,
       sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
@@ -134,17 +136,24 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
         if (stop()) ac.abort();
         else onProgress(p.slice * p.total + p.done, p.slices * p.total);
       },
-    });
+    };
+    prep = prepareSimulation(input);
+    if (stop()) throw new Cancelled();
+    run = await runSlices(prep, input);
   } catch (e) {
+    if (e instanceof Cancelled) throw e;
     if (e instanceof AbortedError || ac.signal.aborted) throw new Cancelled();
     throw e;
   }
+  const seqs = prep.slices.map((sl) => sl.seq);
+  const r = reconstructRuns(seqs, run.kspaces);
   const tSim = performance.now();
-  const protocol = r.protocol;
-  const seq = r.sequences[Math.floor(r.sequences.length / 2)]!;
+  const protocol = prep.protocol;
+  const seq = seqs[Math.floor(seqs.length / 2)]!;
   const nRead = r.image.read, nPhase = r.image.phase;
   const plane = Math.floor(r.image.slice / 2);
-  const image = r.magnitude.slice(plane * nRead * nPhase, (plane + 1) * nRead * nPhase);
+  const image = new Float64Array(nRead * nPhase);
+  for (let i = 0, o = plane * nRead * nPhase; i < image.length; i++) image[i] = Math.hypot(r.image.re[o + i]!, r.image.im[o + i]!);
   const kRead = r.kspace.read, kPhase = r.kspace.phase, kp = Math.floor(r.kspace.slice / 2) * kRead * kPhase;
   const kmag = new Float64Array(kRead * kPhase);
   for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(r.kspace.re[kp + i]!, r.kspace.im[kp + i]!);
@@ -164,24 +173,24 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   };
   const vol = (v: { coils: number; slice: number; phase: number; read: number; re: Float64Array; im: Float64Array }) =>
     encodeNpy({ dtype: "complex64", shape: [v.coils, v.slice, v.phase, v.read], data: { re: v.re, im: v.im } });
-  const rep = r.report as { isochromats?: { count?: number }; engine?: { readout?: { operator?: string } | { operator?: string }[] } };
-  const ro = rep.engine?.readout;
+  const ro = run.engine.readout;
   const readout = Array.isArray(ro) ? ro.map((x) => x.operator).join(", ") : ro?.operator ?? "none";
   const out: RunOutput = {
     quality: req.quality, protocol, nRead, nPhase, image, kmag, kRead, kPhase,
     display: displayTransform(logicalAxes(protocol)),
     fatShift, check: null,
-    warnings: [...new Set(r.warnings)],
-    isochromats: rep.isochromats?.count ?? 0,
+    warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
+    isochromats: run.isoSummary.count,
     engineMs: tSim - tStart, readout,
     timings: {},
     iso,
     kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
     derived: seq.derived as unknown as Record<string, unknown>,
-    slicesRun: r.sequences.length > 1 ? `${r.sequences.length} slices; the middle one is shown` : "one slice",
+    slicesRun: seqs.length > 1 ? `${seqs.length} slices; the middle one is shown` : "one slice",
   };
   const tEnd = performance.now();
   out.timings = { simulate: tSim - tStart, analysis: tEnd - tSim, total: tEnd - tStart };
+  void input;
   return out;
 }
 
