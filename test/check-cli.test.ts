@@ -5,7 +5,9 @@
  */
 import { describe, expect, it } from "vitest";
 import { spawnSync } from "node:child_process";
-import { resolve } from "node:path";
+import { join, resolve } from "node:path";
+import { mkdtempSync, readdirSync, readFileSync, rmSync } from "node:fs";
+import { tmpdir } from "node:os";
 import { CASES } from "../src/check/validate.js";
 import { DEFAULT_THRESHOLDS } from "../src/check/index.js";
 
@@ -34,6 +36,25 @@ describe("isofold check (CLI)", () => {
     }
     expect(j.items.find((i) => i.key === "fatShiftPhase")!.verdict).toBe("fine"); // 11.3 px < 20 px
     expect(j.items.find((i) => i.key === "scanTime")!.verdict).toBe("watch"); // 3 s > 1 s
+  });
+
+  it("--html writes one self-contained page with every check line (data-key, verdict) and the safety note; a folder that does not exist is refused before any work", () => {
+    const dir = mkdtempSync(join(tmpdir(), "isofold-check-html-"));
+    const page = join(dir, "check.html");
+    const r = cli("check", PHANTOM, "-p", "gre-t1-3t", "--set", "phaseDirection=x", "--set", 'fov.phase="26 cm"', "--html", page, "--json");
+    expect(r.status, r.stderr).toBe(0);
+    const j = JSON.parse(r.stdout) as { items: { key: string; verdict: string }[] };
+    const html = readFileSync(page, "utf8");
+    for (const it of j.items) expect(html).toContain(`data-key="${it.key}" class="verdict-${it.verdict}"`);
+    expect(html).toMatch(/not a medical device/);
+    expect(html).not.toMatch(/(src|href)="(https?:)?\/\//); // nothing fetched
+    expect(readdirSync(dir)).toEqual(["check.html"]); // no temporary file left
+    const bad = cli("check", PHANTOM, "-p", "gre-t1-3t", "--html", join(dir, "missing", "check.html"));
+    expect(bad.status).toBe(2);
+    expect(bad.stderr.trim().split("\n")).toHaveLength(1);
+    expect(bad.stderr).toMatch(/does not exist/);
+    expect(bad.stdout).toBe("");
+    rmSync(dir, { recursive: true, force: true });
   });
 
   const bad: [string, string[], RegExp][] = [

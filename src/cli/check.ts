@@ -11,7 +11,10 @@ import { loadPhantom, loadProtocol } from "./inputs.js";
 import { buildSequence, type Sequence } from "../sequence/index.js";
 import { collect } from "./options.js";
 import { printWarnings, readRealNpy } from "./pipeline.js";
-import { verifyCheck, type VerifyRow } from "./verify.js";
+import { verifyCheck, type VerifyRow, type VerifyResult } from "./verify.js";
+import { renderReportHtml, type ReportPage } from "../report/index.js";
+import { existsSync, renameSync, statSync, writeFileSync } from "node:fs";
+import { basename, dirname, resolve } from "node:path";
 
 export interface CheckCliOptions {
   protocol: string;
@@ -21,6 +24,35 @@ export interface CheckCliOptions {
   threshold: string[];
   reference?: string;
   verify?: boolean;
+  html?: string;
+}
+
+/** An --html target must be a file in an existing folder; checked before any work (one line, exit 2). */
+function checkHtmlTarget(file: string): string {
+  const abs = resolve(file), dir = dirname(abs);
+  if (!existsSync(dir) || !statSync(dir).isDirectory()) throw new UserError(`--html ${file}: the folder ${dir} does not exist; create it or name a file in an existing folder`);
+  if (existsSync(abs) && statSync(abs).isDirectory()) throw new UserError(`--html ${file}: this is a folder; name a file, e.g. ${file.replace(/\/+$/, "")}/check.html`);
+  return abs;
+}
+
+/** The check as one self-contained page (same renderer as a run's report.html), written atomically. */
+export function checkPage(result: CheckResult, phantomFile: string, verify: VerifyResult | null): ReportPage {
+  const tables: ReportPage["tables"] = [];
+  if (verify) {
+    tables.push({
+      id: "verify", title: `Predicted and measured (--verify, simulated in ${verify.seconds.toFixed(1)} s)`,
+      rows: verify.rows.map((r) => ({ label: r.quantity, value: `predicted ${r.predicted}; measured ${r.measured}; difference ${r.difference}`, note: r.note })),
+    });
+  }
+  if (result.notes.length) tables.push({ id: "notes", title: "Notes", rows: result.notes.map((n, i) => ({ label: `note ${i + 1}`, value: n })) });
+  return {
+    title: `isofold check: ${result.sequence} of ${basename(phantomFile)}`,
+    subtitle: `Closed-form answers, no simulation${verify ? " (with --verify: a simulation measured the same quantities)" : ""}. Read ${result.axes.read}, phase ${result.axes.phase}, slice ${result.axes.slice}; ROI: ${result.roi}.`,
+    safety: result.safety,
+    checks: result.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason })),
+    comparisons: [], tables, images: [], plots: [], warnings: [], displayNote: "",
+    footer: "Made by isofold check. Self-contained page: nothing is fetched.",
+  };
 }
 
 function sequenceOf(p: Protocol, file: string): Sequence {
@@ -86,10 +118,17 @@ export function registerCheck(program: Command): void {
     .option("--reference <file>", "protocol (file or preset) the relative SNR is stated against (default: the built-in reference of `isofold protocol`)")
     .option("--json", "print JSON instead of the table (item values in their unit; detail fields name theirs: px, mm, Hz; wrap positions and FOVs in m)")
     .option("--verify", "also simulate the protocol (in-process, small) and print predicted and measured values side by side")
+    .option("--html <file>", "also write the answers as one self-contained page (works offline), e.g. --html out/check.html")
     .action(async (phantomFile: string, o: CheckCliOptions) => {
+      const htmlFile = o.html !== undefined ? checkHtmlTarget(o.html) : null;
       const { result, protocol } = runCheck(phantomFile, o);
       printWarnings(protocol.warnings);
       const verify = o.verify ? await verifyCheck(phantomFile, o, result) : null;
+      if (htmlFile) {
+        const tmp = `${htmlFile}.${process.pid}.tmp`;
+        writeFileSync(tmp, renderReportHtml(checkPage(result, phantomFile, verify)));
+        renameSync(tmp, htmlFile);
+      }
       if (o.json) {
         process.stdout.write(JSON.stringify({ ...result, ...(verify ? { verify } : {}) }, null, 2) + "\n");
         return;

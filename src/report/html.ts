@@ -231,9 +231,9 @@ export function renderReportHtml(page: ReportPage): string {
 <p class="safety" id="safety">${escapeHtml(page.safety)}</p></header>
 ${page.checks && page.checks.length ? checksTable(page.checks) : ""}
 ${comparisons(page.comparisons, page.comparisonNote)}
-<section id="images"><h2>Images</h2><p class="note">${escapeHtml(page.displayNote)}</p>
-<div class="images">${page.images.map(imageBlock).join("\n")}</div></section>
-<section id="profiles"><h2>Line profiles</h2><div class="plots">${page.plots.map((p) => `<div class="plot" title="${escapeHtml(p.title)}">${p.svg}</div>`).join("")}</div></section>
+${page.images.length ? `<section id="images"><h2>Images</h2><p class="note">${escapeHtml(page.displayNote)}</p>
+<div class="images">${page.images.map(imageBlock).join("\n")}</div></section>` : ""}
+${page.plots.length ? `<section id="profiles"><h2>Line profiles</h2><div class="plots">${page.plots.map((p) => `<div class="plot" title="${escapeHtml(p.title)}">${p.svg}</div>`).join("")}</div></section>` : ""}
 <section id="warnings"><h2>Warnings</h2>${page.warnings.length ? `<ul class="warnings">${page.warnings.map((w) => `<li>${escapeHtml(w)}</li>`).join("")}</ul>` : "<p>none</p>"}</section>
 <div class="tables">${page.tables.map((t) => `<section id="${escapeHtml(t.id)}"><h2>${escapeHtml(t.title)}</h2>${table(`table-${t.id}`, t.rows)}</section>`).join("\n")}</div>
 <footer>${escapeHtml(page.footer)}</footer>
