@@ -14,7 +14,9 @@
  * of the 256² disc.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
  * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone,
- * BENCH_DIRECT=0 to skip the 256² direct run. Benchmarks are never tests.
+ * BENCH_DIRECT=0 to skip the 256² direct run, BENCH_DISC=0 to skip the disc
+ * throughput row, BENCH_TORSO_READOUT=auto|fast|direct for the 256² torso's
+ * operator (default auto, the default of the CLI). Benchmarks are never tests.
  */
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
@@ -108,7 +110,7 @@ async function twoWorkers(kind: Job["kind"], total: number): Promise<number> {
 interface E2E {
   phantom: string; protocol: string; matrix: number; density: number; slice: number; workers: number;
   /** Readout operator (default fast) and T2′ spread size (default 1 = none). */
-  readout?: "fast" | "direct"; t2prime?: number;
+  readout?: "auto" | "fast" | "direct"; t2prime?: number;
 }
 
 /** Child mode: one run() in this fresh process; prints JSON. */
@@ -154,10 +156,11 @@ function e2e(c: E2E, runs: number): { seconds: number; iso: number; columns: num
 
 /** One line about a run's readout operator (report.json engine.readout). */
 function readoutNote(r: unknown): string {
-  const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number }; fallback?: string } | null;
+  const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number }; fallback?: string; requested?: string; predicted?: { directMs: number; fastMs: number | null } } | null;
   if (!o) return "";
-  if (o.operator !== "fast") return `${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
-  return `fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}`;
+  const auto = o.requested === "auto" && o.predicted ? `auto chose ${o.operator} (predicted direct ${o.predicted.directMs.toFixed(0)} ms, fast ${o.predicted.fastMs === null ? "n/a" : `${o.predicted.fastMs.toFixed(0)} ms`}); ` : "";
+  if (o.operator !== "fast") return `${auto}${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
+  return `${auto}fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}`;
 }
 
 /**
@@ -165,7 +168,7 @@ function readoutNote(r: unknown): string {
  * warm-up run: prepare() outside the timing, then the engine alone
  * (simulateSerial: no process start-up, no worker spawn); median of `runs`.
  */
-async function demoInProcess(iso: { density: number; sliceCount: number; t2primeIsochromats: number }, readout: "fast" | "direct", runs: number): Promise<{ ms: number; iso: number; note: string }> {
+async function demoInProcess(iso: { density: number; sliceCount: number; t2primeIsochromats: number }, readout: "auto" | "fast" | "direct", runs: number): Promise<{ ms: number; iso: number; note: string }> {
   const { prepare } = await import("../src/cli/pipeline.js");
   const { simulateSerial } = await import("../src/engine/index.js");
   const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
@@ -194,23 +197,33 @@ async function fastRows(runs: number): Promise<void> {
   console.log("");
   console.log("| fast readout operator | isochromats | fast | direct | ratio | readout |");
   console.log("| --- | --- | --- | --- | --- | --- |");
+  // auto (the default) against both: the same process, the same warm-up, medians of `runs`
+  const autoRows: string[] = [];
   // 128² demo, in-process after warm-up: default quality and preview quality
   for (const [label, q] of [
     ["default quality (density 2, 12 through-slice, T2′ spread 16)", { density: 2, sliceCount: 12, t2primeIsochromats: 16 }],
     ["preview quality (density 1, 3 through-slice, no T2′ spread)", { density: 1, sliceCount: 3, t2primeIsochromats: 1 }],
   ] as const) {
     const f = await demoInProcess(q, "fast", 5);
-    const d = await demoInProcess(q, "direct", 1);
-    console.log(`| 128² two-bottle demo, engine in-process after warm-up, ${label} | ${f.iso.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms (1 run) | ${(d.ms / f.ms).toFixed(1)}× | ${f.note} |`);
+    const d = await demoInProcess(q, "direct", 5);
+    const a = await demoInProcess(q, "auto", 5);
+    console.log(`| 128² two-bottle demo, engine in-process after warm-up, ${label} | ${f.iso.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ${(d.ms / f.ms).toFixed(1)}× | ${f.note} |`);
+    autoRows.push(`| 128² two-bottle demo, ${label} | ${a.ms.toFixed(0)} ms | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ${(Math.min(f.ms, d.ms) / a.ms).toFixed(2)} | ${a.note} |`);
   }
   // 256² torso gre-t1-3t, default options, fresh processes, 2 workers (the direct case once: ~80 s)
   const torso: E2E = { phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t", matrix: 256, density: 2, slice: 12, t2prime: 16, workers: 2 };
-  const tf = e2e({ ...torso, readout: "fast" }, 1);
+  // auto (the default) runs here: it reports its choice and both predictions (run once; the fast row when it picks fast)
+  const tf = e2e({ ...torso, readout: (process.env["BENCH_TORSO_READOUT"] as E2E["readout"]) ?? "auto" }, 1);
   const td = process.env["BENCH_DIRECT"] === "0" ? null : e2e({ ...torso, readout: "direct" }, 1);
   console.log(
     `| 256² torso gre-t1-3t, default options, whole run (fresh process, 2 workers) | ${tf.iso.toLocaleString("en")} | ${tf.seconds.toFixed(1)} s, ${tf.maxRssMiB.toFixed(0)} MiB | ` +
       `${td ? `${td.seconds.toFixed(1)} s, ${td.maxRssMiB.toFixed(0)} MiB` : "skipped (BENCH_DIRECT=0)"} | ${td ? `${(td.seconds / tf.seconds).toFixed(1)}× time, ${(td.maxRssMiB / tf.maxRssMiB).toFixed(1)}× memory` : "—"} | ${readoutNote(tf.readout)} |`,
   );
+  console.log("");
+  console.log("| readout auto (default) | auto | fast | direct | best of fast, direct ÷ auto (1 = auto chose the faster) | choice |");
+  console.log("| --- | --- | --- | --- | --- | --- |");
+  for (const r of autoRows) console.log(r);
+  if (process.env["BENCH_DISC"] === "0") return;
   // whole-simulation throughput of the 256² disc: in-plane isochromats × readout samples / wall time
   const disc: E2E = { phantom: "phantoms/disc.json", protocol: "gre-t1-3t", matrix: 256, density: 2, slice: 16, workers: 2 };
   const df = e2e({ ...disc, readout: "fast" }, runs);

@@ -83,7 +83,7 @@ export interface SimulateInput {
   chunkIsochromats?: number;
   /** WebAssembly SIMD kernels where available (default true). */
   wasm?: boolean;
-  /** Readout operator: "fast" (default, exact to `tolerance`, falls back to "direct" saying why) or "direct" (the oracle). */
+  /** Readout operator: "auto" (default: the cheaper by a cost predicted from the plan), "fast" (exact to `tolerance`, falls back to "direct" saying why) or "direct" (the oracle). */
   readout?: ReadoutChoice;
   /** Relative L2 error of k-space allowed to the fast readout operator (default 1e-6). */
   tolerance?: number;

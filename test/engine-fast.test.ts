@@ -51,7 +51,7 @@ function sensitivities(p: ReturnType<typeof prep>, coils: number): Float64Array 
 
 function both(p: ReturnType<typeof prep>, extra: { coils?: number; sens?: Float64Array; tolerance?: number; receiverFilter?: boolean } = {}) {
   const o = { receiverFilter: extra.receiverFilter ?? p.protocol.receiverFilter, coils: extra.coils, sens: extra.sens, tolerance: extra.tolerance };
-  const fast = simulateSerial(p.seq, p.iso, o);
+  const fast = simulateSerial(p.seq, p.iso, { ...o, readout: "fast" });
   const direct = simulateSerial(p.seq, p.iso, { ...o, readout: "direct" });
   return { fast, direct, err: relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im) };
 }
@@ -101,10 +101,10 @@ describe("fast readout operator against the direct operator", () => {
 
   test("1, 2 and 3 workers give bitwise the serial fast k-space", async () => {
     const p = prep(["spoiling=ideal"], { b0: "60 * x / 0.05", iso: { t2primeIsochromats: 2 } });
-    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    const serial = simulateSerial(p.seq, p.iso, { receiverFilter: true, readout: "fast" });
     expect(serial.readout.operator).toBe("fast");
     for (const workers of [1, 2, 3]) {
-      const r = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers });
+      const r = await simulateParallel(p.seq, p.iso, { receiverFilter: true, workers, readout: "fast" });
       expect(r.readout.operator).toBe("fast");
       expect(Buffer.from(r.kspace.re.buffer).equals(Buffer.from(serial.kspace.re.buffer))).toBe(true);
       expect(Buffer.from(r.kspace.im.buffer).equals(Buffer.from(serial.kspace.im.buffer))).toBe(true);
@@ -118,7 +118,7 @@ describe("fast readout operator against the direct operator", () => {
     ["single-shot EPI", [], "epi-1.5t", /./],
   ])("%s: not covered yet, says why, gives the direct operator's bits", (_name, sets, protocol, why) => {
     const p = prep(sets, { protocol });
-    const a = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter });
+    const a = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
     const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
     expect(a.readout.operator).toBe("direct");
     expect(a.readout.requested).toBe("fast");
@@ -187,7 +187,7 @@ describe("isofold simulate --readout / --tolerance", () => {
 
   test("report.json states the operator, L, the kernel width and the estimate; direct on request; a bad tolerance exits 2 writing nothing", () => {
     const dir = tempDir();
-    const f = run(["-o", join(dir, "fast"), "--tolerance", "1e-8"]);
+    const f = run(["-o", join(dir, "fast"), "--readout", "fast", "--tolerance", "1e-8"]);
     expect(f.stderr).not.toMatch(/error/i);
     expect(f.status).toBe(0);
     const rf = JSON.parse(readFileSync(join(dir, "fast", "report.json"), "utf8")) as { engine: { readout: { operator: string; tolerance: number; segments: number; kernelWidth: null; estimate: { relL2: number } } } };
@@ -207,6 +207,15 @@ describe("isofold simulate --readout / --tolerance", () => {
     const fa = new Float64Array(a.buffer.slice(a.byteOffset + off, a.byteOffset + a.length));
     const fb = new Float64Array(b.buffer.slice(b.byteOffset + off, b.byteOffset + b.length));
     expect(relL2(fa, new Float64Array(fa.length), fb, new Float64Array(fb.length))).toBeLessThan(1e-8);
+    // the default, auto: the choice and both predicted costs in report.json
+    const au = run(["-o", join(dir, "auto")]);
+    expect(au.status).toBe(0);
+    const ra = JSON.parse(readFileSync(join(dir, "auto", "report.json"), "utf8")) as { engine: { readout: { operator: string; requested: string; choice: string; predicted: { directMs: number; fastMs: number } } } };
+    expect(ra.engine.readout.requested).toBe("auto");
+    expect(ra.engine.readout.choice).toBe(ra.engine.readout.operator);
+    expect(ra.engine.readout.predicted.directMs).toBeGreaterThan(0);
+    expect(ra.engine.readout.predicted.fastMs).toBeGreaterThan(0);
+    expect(ra.engine.readout.operator).toBe(ra.engine.readout.predicted.fastMs < ra.engine.readout.predicted.directMs ? "fast" : "direct");
     const bad = run(["-o", join(dir, "bad"), "--tolerance", "2"]);
     expect(bad.status).toBe(2);
     expect(bad.stderr.split("\n")[0]).toMatch(/--tolerance must be a number from 1e-12 to 0\.1/);

@@ -70,7 +70,7 @@ describe("simulate()", () => {
     pre.abort();
     await expect(simulate({ ...direct, signal: pre.signal, executor: nodeExecutor(2) })).rejects.toBeInstanceOf(AbortedError);
     // the fast readout operator checks the signal too
-    await expect(simulate({ ...INPUT, signal: pre.signal })).rejects.toBeInstanceOf(AbortedError);
+    await expect(simulate({ ...INPUT, readout: "fast", signal: pre.signal })).rejects.toBeInstanceOf(AbortedError);
   });
 
   test("overrides apply and a bad one is a UserError naming the override", async () => {

@@ -14,6 +14,7 @@ import { registerMerge } from "./merge.js";
 import { registerCheck } from "./check.js";
 import { registerValidate } from "./validate.js";
 import { registerSweep } from "./sweep.js";
+import { registerPreview } from "./preview.js";
 import { AbortedError } from "../engine/index.js";
 import { EXIT_WRITE_FAILED, OutputWriteError, withOutputDir } from "../io/outpath.js";
 
@@ -75,6 +76,7 @@ registerMerge(program);
 registerCheck(program);
 registerValidate(program);
 registerSweep(program);
+registerPreview(program);
 // the safety note closes every subcommand's --help
 for (const c of program.commands) c.addHelpText("after", `\n${SAFETY_NOTE}`);
 

@@ -73,7 +73,7 @@ export function addSimulationOptions(c: Command): Command {
       intArg("--t2prime-isochromats", 1, 1024),
       defaultIsochromatOptions().t2primeIsochromats,
     )
-    .addOption(new Option("--readout <operator>", "readout operator: fast (time segmentation and an exact FFT of the isochromat grid, within --tolerance; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["fast", "direct"]).default("fast"))
+    .addOption(new Option("--readout <operator>", "readout operator: auto (the cheaper of fast and direct by a cost predicted from the plan; report.json gives both predictions), fast (time segmentation and an exact FFT of the isochromat grid, within --tolerance; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["auto", "fast", "direct"]).default("auto"))
     .option("--tolerance <rel>", "relative L2 error of k-space allowed to the fast readout operator (dimensionless); 1e-12–0.1", numArg("--tolerance", 1e-12, 0.1), 1e-6)
     .option("--workers <n>", "engine worker threads; default: the cores available", intArg("--workers", 1, 256))
     .option("--shard <i/N>", "run only shard i of N (0 ≤ i < N) and write a partial k-space (partial.npy, partial.json) for `isofold merge`", shardArg)
@@ -90,7 +90,7 @@ export function shardArg(v: string): [number, number] {
 }
 
 /** Engine options of a parsed simulating command. */
-export function engineOptions(o: { workers?: number; shard?: [number, number]; maxMemory?: number; readout?: "fast" | "direct"; tolerance?: number }) {
+export function engineOptions(o: { workers?: number; shard?: [number, number]; maxMemory?: number; readout?: "auto" | "fast" | "direct"; tolerance?: number }) {
   return { workers: o.workers, shard: o.shard, maxMemory: o.maxMemory !== undefined ? o.maxMemory * 2 ** 30 : undefined, readout: o.readout, tolerance: o.tolerance };
 }
 

@@ -72,8 +72,8 @@ export interface RunOptions {
   maxMemory?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;
-  /** Readout operator (default fast, falling back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
-  readout?: "fast" | "direct";
+  /** Readout operator (default auto: the cheaper by predicted cost; fast falls back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
+  readout?: "auto" | "fast" | "direct";
   tolerance?: number;
   /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
   coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;

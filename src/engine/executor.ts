@@ -14,7 +14,7 @@ import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { fillRfMaps, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
-import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
+import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, resolveReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
 
 /** Below this many RF classes the maps are filled on the calling thread (cheaper than a round trip). */
 export const PARALLEL_RF_CLASSES = 2048;
@@ -78,9 +78,11 @@ export function serialExecutor(): Executor {
 /** What every engine run takes besides the sequence and isochromats. */
 export interface RunOptions extends PlanOptions {
   /**
-   * Readout operator: "fast" (default; engine/fast.ts, exact to `tolerance`,
-   * falls back to "direct" where it does not apply, saying why) or "direct"
-   * (every isochromat through the readout recurrence; the oracle).
+   * Readout operator: "auto" (default: the cheaper of the two by a cost
+   * predicted from the plan, engine/fast.ts predictReadoutCosts), "fast"
+   * (engine/fast.ts, exact to `tolerance`, falls back to "direct" where it
+   * does not apply, saying why) or "direct" (every isochromat through the
+   * readout recurrence; the oracle).
    */
   readout?: ReadoutChoice;
   /** Relative L2 error of k-space allowed to the fast operator (default 1e-6). */
@@ -124,10 +126,14 @@ export interface FastOptions {
  */
 export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: FastOptions): { kspace: KSpace | null; readout: ReadoutReport } {
   const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
-  const requested = opts.readout ?? "fast";
-  const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}) } });
+  const requested = opts.readout ?? "auto";
+  // auto: the operator of lower cost predicted from the plan (engine/fast.ts), the same for any workers or shards
+  const sel = opts.general ? { use: "direct" as const } : resolveReadout(seq, plan, iso, requested, tolerance);
+  const auto = sel.costs ? { choice: sel.use, predicted: sel.costs } : {};
+  const direct = (fallback?: string): { kspace: null; readout: ReadoutReport } => ({ kspace: null, readout: { operator: "direct", requested, tolerance, ...(fallback ? { fallback } : {}), ...auto } });
   if (requested === "direct") return direct();
   if (opts.general) return direct("the general path was forced (general: true)");
+  if (sel.use === "direct") return direct(sel.costs?.fastMs === null ? fastPrecheck(plan) ?? undefined : undefined);
   // the factors' truncation is set from norms weighted by magnetization; where the
   // signal cancels (e.g. T2′ dephasing) the k-space error is relatively larger:
   // the a-posteriori estimate decides, tightening the truncation twice before giving up
@@ -141,6 +147,7 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
   }
   if (typeof r === "string") return direct(r);
   if (!(est <= tolerance)) return direct(`the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`);
+  Object.assign(r.report, { requested }, auto);
   // no −0 (so adding the zero block sums of a sharded run keeps the bits)
   for (let k = 0; k < r.re.length; k++) {
     r.re[k] = r.re[k]! + 0;
@@ -164,8 +171,8 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
 }
 
 /** Whether a fast attempt is worth filling the RF maps for on this thread first. */
-export function fastWanted(plan: EnginePlan, opts: FastOptions): boolean {
-  return (opts.readout ?? "fast") === "fast" && !opts.general && fastPrecheck(plan) === null;
+export function fastWanted(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: FastOptions): boolean {
+  return !opts.general && fastPrecheck(plan) === null && resolveReadout(seq, plan, iso, opts.readout ?? "auto", opts.tolerance ?? DEFAULT_TOLERANCE).use === "fast";
 }
 
 /** The report of a direct run when the fast operator was asked for but not tried. */
@@ -194,7 +201,7 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
   // the fast operator runs on this thread (no workers started)
   let readout: ReadoutReport;
   let filled = false;
-  if (fastWanted(plan, opts)) {
+  if (fastWanted(seq, shared, plan, opts)) {
     filled = true;
     fillRfMaps(plan, 0, plan.classes);
     if (opts.signal?.aborted) throw new AbortedError();
@@ -205,8 +212,8 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
     if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
     readout = f.readout;
   } else {
-    readout = tryFast(seq, shared, plan, { ...opts, readout: "direct" }).readout;
-    if ((opts.readout ?? "fast") === "fast") readout = directReason(plan, opts, readout);
+    readout = tryFast(seq, shared, plan, opts.readout === "fast" ? { ...opts, readout: "direct" } : opts).readout;
+    if (opts.readout === "fast") readout = directReason(plan, opts, readout);
   }
   const [c0, c1] = chunkRange(plan, opts.blocks);
   const session = executor.open(plan, shared, Math.max(1, c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? Infinity : 1));

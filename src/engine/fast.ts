@@ -43,8 +43,10 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 
-/** Which readout operator to use. */
-export type ReadoutChoice = "fast" | "direct";
+/** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
+export type ReadoutChoice = "auto" | "fast" | "direct";
+/** An operator that runs. */
+export type ReadoutOperator = "fast" | "direct";
 
 /** Default tolerance of the fast operator: relative L2 error of k-space. */
 export const DEFAULT_TOLERANCE = 1e-6;
@@ -52,13 +54,16 @@ export const DEFAULT_TOLERANCE = 1e-6;
 /** What the readout operator did, for report.json. */
 export interface ReadoutReport {
   /** Operator used. */
-  operator: ReadoutChoice;
+  operator: ReadoutOperator;
   /** Operator asked for. */
   requested: ReadoutChoice;
   /** Target relative L2 error of k-space (fast operator). */
   tolerance: number;
   /** Why the direct operator ran although the fast one was asked for. */
   fallback?: string;
+  /** With "auto": the operator chosen from the predicted costs, and those costs (see {@link ReadoutCosts}). */
+  choice?: ReadoutOperator;
+  predicted?: ReadoutCosts;
   method?: string;
   /** How a sharded run splits the fast result. */
   sharding?: string;
@@ -881,4 +886,249 @@ function estimate(
     }
   }
   return { samples: S * coils, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 };
+}
+
+// ---------------------------------------------------------------------------
+// Choosing the operator: costs predicted from the plan before either runs.
+
+/** Predicted costs of both operators (milliseconds on the calibration machine; only their ratio decides). */
+export interface ReadoutCosts {
+  /** Direct operator (the spoiled shortcut's readout): predicted ms, from directUnits × DIRECT_NS_PER_UNIT. */
+  directMs: number;
+  /** Fast operator: predicted ms, from fastUnits × FAST_NS_PER_UNIT; null where it does not apply. */
+  fastMs: number | null;
+  /** Work units of each (complex multiply-adds and their like; see predictReadoutCosts). */
+  directUnits: number;
+  fastUnits: number | null;
+  /** Bounds used for the fast operator's line rank R and time segments L (the run reports the actual ones). */
+  lineRankBound?: number;
+  segmentsBound?: number;
+  /** Readout groups (distinct read position, Δf, R2 per chunk) and slots (distinct column and group), summed over the chunks (from a sample of chunks). */
+  groups: number;
+  slots: number;
+  model: string;
+}
+
+/**
+ * Calibration (2026-12-02, this 2-core machine shared with other jobs, Node
+ * 20, one thread, in-process after a warm-up; minimum of 3 runs, the time of
+ * makePlan subtracted from both — it is common to both operators):
+ *
+ *   case (tolerance 1e-6)                 direct: units   ms   | fast: units ms   | measured best
+ *   128² two-bottle demo, default quality    518.7 M     488  |  632 M     852   | direct
+ *   128² two-bottle demo, preview quality     13.9 M      14  |  127 M      58   | direct
+ *   32² two-bottle, B0 200 Hz/0.1 m along y   1.1 M       1.3 |   10 M       4.0 | direct
+ *   64² the same, default quality             450.7 M     428  |  394 M     351   | fast
+ *   64² torso gre-t1-3t, preview quality       29.4 M      38  |   71 M      62   | direct
+ *   96² torso gre-t1-3t, default quality     4102.5 M    4449  | 1913 M    1179   | fast
+ *
+ * (units as the model below counts them now; "default quality": density 2,
+ * 12 through-slice isochromats, T2′ spread 16; "preview": density 1, 3
+ * through-slice, no T2′ spread). Direct: the recurrence term and the
+ * per-slot, per-class and grouping terms (weight W_DIRECT.perTerm against 1)
+ * fitted by non-negative least squares of the relative error; the geometric
+ * mean of measured/predicted is then DIRECT_NS_PER_UNIT (within ±20 % on
+ * every case). Fast: the four terms' weights W_FAST in ns, from the same
+ * least squares (iso 6.6, classes 4.9) and from phase timers inside
+ * fastReadout on the demo and the 96² torso (grid: allocating, first touch
+ * and strided accumulation of the folded grids, ≈ 20–34 ns per complex
+ * point under load; the least squares alone, 8.9, left the demo's fast time
+ * at 0.4× its measure). The fast prediction is within 0.7–2.4× of the
+ * measure (mostly high, which errs towards direct, the oracle), the direct
+ * one within ±20 %, and the choice matches the
+ * measured best on every case above. Timings on this machine vary 2–3× with
+ * the other jobs; only the ratio of the two predictions decides.
+ */
+export const DIRECT_NS_PER_UNIT = 1.06;
+export const FAST_NS_PER_UNIT = 1;
+/** Fast-operator term weights (ns per unit; the FFT term's unit is n·log2(n) of a power-of-two transform, weight 1). */
+const W_FAST = { iso: 6.6, grid: 20, classes: 4.85 };
+/** Direct-operator weight of the per-slot, per-class and grouping terms against one step of the readout recurrence. */
+const W_DIRECT = { perTerm: 7 };
+
+/** Cost of a DFT of length n in n·log2(n) units: fft.js for powers of two, Bluestein (three transforms of length m ≥ 2n − 1 and three products) otherwise. */
+function dftCost(n: number): number {
+  if (n <= 1) return 1;
+  if ((n & (n - 1)) === 0) return n * Math.log2(n);
+  let m = 2;
+  while (m < 2 * n - 1) m *= 2;
+  return 2 * m * Math.log2(m) + 3 * m;
+}
+
+/** Work units per isochromat of the direct operator's one-off grouping (hashing each isochromat's group and slot pattern once per chunk). */
+const GROUPING_UNITS = 30;
+/** Chunks sampled for the readout-group count (evenly spaced, deterministic). */
+const COST_SAMPLE_CHUNKS = 32;
+
+const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCosts }>();
+
+/**
+ * Predicts the cost of both readout operators from the plan and the
+ * isochromats alone (no RF maps needed, nothing run), so "auto" can pick the
+ * cheaper one. What dominates each:
+ *
+ * - Direct (spoiled shortcut, chunk.ts runChunkSpoiled): per chunk and active
+ *   readout, one recurrence step per readout group, sample and coil (the
+ *   group is the distinct (read index, Δf, R2) in the chunk; counted on up
+ *   to COST_SAMPLE_CHUNKS evenly spaced chunks and scaled by isochromats);
+ *   plus, weighted W_DIRECT.perTerm, one term per slot (column × group) and
+ *   readout — per isochromat and coil with coil sensitivities —, the class
+ *   updates per op (chunk classes × ops) and the one-off grouping of each
+ *   isochromat (GROUPING_UNITS).
+ * - Fast (ns per unit W_FAST): the isochromat work — one pass per line rank
+ *   (count·coils·R), the folds of each column's (Δf, R2) keys into the grids
+ *   ((columns + slots)·coils·R·L) and the a-posteriori estimate —; the grid
+ *   work — grids held (allocated and first touched: min(R, per pass)·L·coils·
+ *   Mu·Mv) and the per-pair norms and strided accumulation of the phase-
+ *   transformed lines (R·L·coils·used columns·(Mv + lines)) —; the FFTs
+ *   (R·L·coils·used columns·DFT(Mv) + 2·coils·lines·L·(DFT(Mu) + ns), a
+ *   Bluestein length costing its three power-of-two transforms); and the
+ *   class work (class playback classes·ops, line factor 4·lines·classes·R,
+ *   time factor ns·keys·L).
+ *   R and L are not known before the run; they are bounded:
+ *   L ≤ ⌈2·T·span(Δf) + T·span(R2)⌉ + ⌈log10(split/tolerance)⌉ (time–bandwidth
+ *   product of the decay curves over the readout duration T, plus a term per
+ *   decade of the tolerance; cf. Slepian 1978, Bell Syst. Tech. J. 57:1371,
+ *   on the count of significant prolate functions ≈ 2WT + O(log 1/ε)) and
+ *   R ≤ 1 + ⌈log10(split/tolerance)⌉ (steady state plus the transient's
+ *   decades). Both were at or above the measured R and L on the calibration
+ *   cases (measured R 3–8, L 7–13 at tolerance 1e-6); the a-posteriori
+ *   estimate's retries (split 80, 800) are not counted.
+ * A bound that is too high only makes "auto" choose the direct operator (the
+ * oracle) more often.
+ */
+export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): ReadoutCosts {
+  const hit = costCache.get(plan);
+  if (hit && hit.tolerance === tolerance) return hit.costs;
+  const C = plan.classes, coils = plan.coils, count = iso.count;
+  // (Δf, R2) keys of the classes
+  const { classDf, classR2 } = plan.rf;
+  const keyIndex = new Map<string, number>();
+  const keyOf = new Int32Array(C);
+  let fMin = Infinity, fMax = -Infinity, rMin = Infinity, rMax = -Infinity;
+  for (let c = 0; c < C; c++) {
+    const s = `${classDf[c]}|${classR2[c]}`;
+    let k = keyIndex.get(s);
+    if (k === undefined) {
+      k = keyIndex.size;
+      keyIndex.set(s, k);
+    }
+    keyOf[c] = k;
+    fMin = Math.min(fMin, classDf[c]!);
+    fMax = Math.max(fMax, classDf[c]!);
+    rMin = Math.min(rMin, classR2[c]!);
+    rMax = Math.max(rMax, classR2[c]!);
+  }
+  const K = Math.max(1, keyIndex.size);
+  // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
+  const rfClass = plan.rfClass, { iu, iv } = iso, nv = Math.max(1, iso.vGrid.length);
+  const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS);
+  let sg = 0, ss = 0, sn = 0, sc = 0;
+  const gset = new Set<number>(), sset = new Set<number>(), cset = new Set<number>();
+  for (let p = 0; p < picks; p++) {
+    const c = Math.floor(((p + 0.5) * plan.chunks) / picks);
+    const i0 = plan.chunkStart[c]!, i1 = plan.chunkStart[c + 1]!;
+    gset.clear();
+    sset.clear();
+    cset.clear();
+    for (let i = i0; i < i1; i++) {
+      const k = keyOf[rfClass[i]!]!;
+      cset.add(rfClass[i]!);
+      gset.add(iu[i]! * K + k);
+      sset.add((iu[i]! * nv + iv[i]!) * K + k);
+    }
+    sg += gset.size;
+    ss += sset.size;
+    sc += cset.size;
+    sn += i1 - i0;
+  }
+  const scale = sn > 0 ? count / sn : 0;
+  const groups = sg * scale, slots = ss * scale, chunkClasses = sc * scale;
+  // readouts: lines, samples, duration, read and phase DFT lengths (as fastReadout finds them)
+  const adcs = seq.blocks.filter((b) => b.kind === "adc");
+  const NA = adcs.length;
+  const ns = NA > 0 ? (adcs[0] as { samples: number }).samples : 0;
+  let T = 0;
+  for (const b of adcs) if (b.kind === "adc") T = Math.max(T, b.samples * b.dwell);
+  // weights relative to one step of the readout recurrence (profiled, see W_DIRECT)
+  const directTerms = {
+    recurrence: NA * groups * ns * coils,
+    slots: W_DIRECT.perTerm * NA * (plan.sens ? count * coils : slots),
+    classes: W_DIRECT.perTerm * chunkClasses * plan.ops.length,
+    grouping: W_DIRECT.perTerm * count * GROUPING_UNITS,
+  };
+  const directUnits = Object.values(directTerms).reduce((x, y) => x + y, 0);
+  const pre = fastPrecheck(plan);
+  let costs: ReadoutCosts;
+  if (pre !== null || NA === 0) {
+    costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
+  } else {
+    const decades = Math.ceil(Math.log10(split / tolerance));
+    const L = Math.min(MAX_SEGMENTS, Math.max(1, Math.ceil(2 * T * (fMax - fMin) + T * (rMax - rMin)) + decades));
+    const R = Math.min(MAX_RANK, 1 + decades);
+    const nu = iso.uGrid.length;
+    const [Mu, Mv] = dftLengths(seq, iso);
+    const usedCols = Math.min(Mu, nu);
+    const grid = Mu * Mv;
+    const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
+    // weights relative to one n·log2(n) unit of a power-of-two FFT (profiled, see W_FAST)
+    const raw = {
+      iso: count * coils * (R + ESTIMATE_ROWS) + (iso.columns + slots) * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4,
+      grid: perPass * L * coils * grid + R * L * coils * usedCols * (Mv + NA),
+      fft: R * L * coils * usedCols * dftCost(Mv) + 2 * coils * NA * L * (dftCost(Mu) + ns),
+      classes: count + C * plan.ops.length + 4 * NA * C * R + ns * K * L,
+    };
+    const terms = { iso: W_FAST.iso * raw.iso, grid: W_FAST.grid * raw.grid, fft: raw.fft, classes: W_FAST.classes * raw.classes };
+    const fastUnits = Object.values(terms).reduce((x, y) => x + y, 0);
+    costs = {
+      directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (fastUnits * FAST_NS_PER_UNIT) / 1e6, directUnits, fastUnits,
+      lineRankBound: R, segmentsBound: L, groups, slots,
+      model: "direct: lines × readout groups × samples × coils (+ slots, classes, grouping); fast: isochromat passes and folds × R·L, R·L grids and their FFTs, class playback; R, L bounded from the tolerance and the (Δf, R2) spread (engine/fast.ts predictReadoutCosts)",
+    };
+  }
+  costCache.set(plan, { tolerance, costs });
+  return costs;
+}
+
+/**
+ * The operator to run for a request: "fast" and "direct" as asked; "auto"
+ * the one of lower predicted cost (direct where the fast one does not apply).
+ * Depends on the plan and isochromats only, so it is the same for any number
+ * of workers or shards.
+ */
+export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, requested: ReadoutChoice, tolerance: number): { use: ReadoutOperator; costs?: ReadoutCosts } {
+  if (requested !== "auto") return { use: requested };
+  const costs = predictReadoutCosts(seq, plan, iso, tolerance);
+  const use = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
+  return { use, costs };
+}
+
+/** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
+function dftLengths(seq: Sequence, iso: IsochromatSet): [number, number] {
+  const { uGrid, vGrid } = iso;
+  let acc: [number, number, number] = [0, 0, 0];
+  let dkx = 0;
+  const ky: number[] = [];
+  for (const b of seq.blocks) {
+    if (b.kind === "rf") acc = [0, 0, 0];
+    else if (b.kind === "free") acc = [acc[0] + b.area[0], acc[1] + b.area[1], acc[2] + b.area[2]];
+    else if (b.kind === "adc") {
+      if (dkx === 0) dkx = GAMMA_BAR * b.grad[0] * b.dwell;
+      ky.push(GAMMA_BAR * acc[1]);
+      const T = b.samples * b.dwell;
+      acc = [acc[0] + b.grad[0] * T, acc[1] + b.grad[1] * T, acc[2] + b.grad[2] * T];
+    }
+  }
+  const Mu = uGrid.length > 1 && dkx !== 0 ? Math.max(1, Math.round(1 / (Math.abs(dkx) * (uGrid[1]! - uGrid[0]!)))) : 1;
+  let Mv = 1;
+  if (vGrid.length > 1 && ky.length > 1) {
+    const dv = vGrid[1]! - vGrid[0]!;
+    let step = Infinity;
+    for (const k of ky) {
+      const d = Math.abs(k - ky[0]!) * dv;
+      if (d > 1e-12 && d < step) step = d;
+    }
+    if (Number.isFinite(step)) Mv = Math.max(1, Math.round(1 / step));
+  }
+  return [Math.min(Mu, 1 << 22), Math.min(Mv, 1 << 22)];
 }

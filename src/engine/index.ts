@@ -19,7 +19,7 @@ export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
 export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
-export { fastReadout, pivotedBasis, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutReport, type FastResult } from "./fast.js";
+export { fastReadout, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface SimulateOptions {
   receiverFilter: boolean;
@@ -39,9 +39,11 @@ export interface SimulateOptions {
   /** Called with each block sum in block order (arrays reused afterwards: copy to keep). */
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
   /**
-   * Readout operator: "fast" (default; engine/fast.ts, exact to `tolerance`,
-   * falls back to "direct" where it does not apply, saying why) or "direct"
-   * (every isochromat through the readout recurrence; the oracle).
+   * Readout operator: "auto" (default: the cheaper of the two by a cost
+   * predicted from the plan, engine/fast.ts predictReadoutCosts), "fast"
+   * (engine/fast.ts, exact to `tolerance`, falls back to "direct" where it
+   * does not apply, saying why) or "direct" (every isochromat through the
+   * readout recurrence; the oracle).
    */
   readout?: ReadoutChoice;
   /** Relative L2 error of k-space allowed to the fast operator (default 1e-6). */

@@ -1,0 +1,73 @@
+/**
+ * `npm run bench:preview`: edit-to-paint latency of the previewer page, driven
+ * in Debian's chromium by playwright-core. For each matrix (64², 128², 256²)
+ * the two-bottle phantom with the gre-demo-1.5t preset is opened, then 50
+ * bandwidth edits are made one after another (each waits for its painted
+ * preview-quality image); the page's own Performance API measure (input event
+ * → the frame after the image is drawn) is collected. Prints median and 90th
+ * percentile. A benchmark, never a test. BENCH_EDITS changes the count.
+ */
+import { spawn } from "node:child_process";
+import { mkdtempSync, rmSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join, resolve, dirname } from "node:path";
+import { fileURLToPath } from "node:url";
+import { chromium } from "playwright-core";
+
+const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), "../..");
+const EDITS = Number(process.env["BENCH_EDITS"] ?? 50);
+const PHANTOM = process.env["BENCH_PHANTOM"] ?? "two-bottle";
+const PROTOCOL = process.env["BENCH_PROTOCOL"] ?? "gre-demo-1.5t";
+
+function pct(xs: number[], p: number): number {
+  const s = [...xs].sort((a, b) => a - b);
+  return s[Math.min(s.length - 1, Math.ceil((p / 100) * s.length) - 1)]!;
+}
+
+const server = spawn(process.execPath, [join(ROOT, "dist/src/cli/index.js"), "preview", "--port", "0"], { stdio: ["ignore", "pipe", "inherit"] });
+const base = await new Promise<string>((ok) => {
+  let out = "";
+  server.stdout!.on("data", (d) => {
+    out += String(d);
+    const m = /isofold preview: (http:\S+?\/)\?/.exec(out);
+    if (m) ok(m[1]!);
+  });
+});
+const dir = mkdtempSync(join(tmpdir(), "isofold-bench-preview-"));
+const ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
+  executablePath: "/usr/bin/chromium", headless: true, viewport: { width: 1280, height: 1000 },
+  args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
+});
+console.log(`previewer edit-to-paint latency, ${PHANTOM} with ${PROTOCOL}, ${EDITS} bandwidth edits per size, preview quality (density 1, 3 through-slice isochromats, no T2′ spread)`);
+console.log("matrix   median ms   p90 ms   min ms   max ms   in the worker simulate()/analysis = total ms; page drawing ms (medians)");
+try {
+  for (const n of [64, 128, 256]) {
+    const page = await ctx.newPage();
+    await page.goto(`${base}?protocol=${PROTOCOL}&phantom=${PHANTOM}&set=matrix.read%3D${n}&set=matrix.phase%3D${n}`);
+    page.on("pageerror", (e) => console.error("page error:", e.message));
+    await page.waitForFunction(() => (window as any).__preview?.painted > 0, null, { timeout: 60_000 }).catch(async (e) => { console.error(await page.evaluate(() => JSON.stringify({ e: (window as any).__preview?.error, s: document.getElementById("status")?.textContent, u: location.href }))); throw e; });
+    const ms: number[] = [];
+    const steps: Record<string, number[]> = { simulate: [], analysis: [], total: [], show: [] };
+    for (let i = 0; i < EDITS; i++) {
+      const bw = 120 + 10 * (i % 12);
+      const g0 = await page.evaluate(() => (window as any).__preview.gen as number);
+      await page.locator("#c-bandwidth").fill(String(bw));
+      await page.locator("#c-bandwidth").press("Tab");
+      await page.waitForFunction((g) => (window as any).__preview.painted > g, g0, { timeout: 120_000 });
+      const r = await page.evaluate(() => {
+        const p = (window as any).__preview;
+        const l = p.latencies[p.latencies.length - 1];
+        return { ms: l.ms as number, t: { ...(p.last.timings as Record<string, number>), show: l.show as number } };
+      });
+      ms.push(r.ms);
+      for (const k of Object.keys(steps)) steps[k]!.push((r.t as Record<string, number>)[k] ?? NaN);
+    }
+    const med = (xs: number[]) => pct(xs, 50);
+    console.log(`${`${n}²`.padEnd(8)} ${med(ms).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ${med(steps.simulate!).toFixed(0)}/${med(steps.analysis!).toFixed(0)} = ${med(steps.total!).toFixed(0)}; page drawing ${med(steps.show!).toFixed(0)}`);
+    await page.close();
+  }
+} finally {
+  await ctx.close();
+  server.kill("SIGTERM");
+  rmSync(dir, { recursive: true, force: true });
+}

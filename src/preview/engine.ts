@@ -1,0 +1,203 @@
+/**
+ * The previewer's run of one protocol on one phantom, inside a Web Worker, on
+ * the library's pipeline (src/api.ts: prepareSimulation, runSlices,
+ * reconstructRuns — what `simulate()` runs before it measures the image for
+ * report.json, which the page skips for speed): the same parsers, validators,
+ * sequence, isochromats, engine (fast readout operator, direct fallback),
+ * summation order and reconstruction as `isofold simulate`, and the
+ * closed-form `check`. Inputs are objects held in the worker; nothing is
+ * read from or written to a file, and nothing leaves the page.
+ */
+import { prepareSimulation, runSlices, reconstructRuns, SAFETY_NOTE, type SimulateInput } from "../api.js";
+import { UserError } from "../errors.js";
+import { AbortedError, serialExecutor } from "../engine/index.js";
+import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
+import { FAT_SINGLE_PPM } from "../constants.js";
+import { checkProtocol, type CheckResult } from "../check/index.js";
+import { logicalAxes, parseProtocol, type Protocol, type ProtocolResolver } from "../protocol/index.js";
+import { parsePhantom } from "../phantom/index.js";
+import { buildSequence } from "../sequence/index.js";
+import { displayTransform, type DisplayTransform } from "../report/display.js";
+import { encodeNpy } from "../io/npy.js";
+import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
+
+export type Quality = "preview" | "full";
+
+export interface RunRequest {
+  /** Preset name, or the name of a file protocol put with putInput ("file:…"). */
+  protocol: string;
+  /** Bundled phantom name, or the name of a file phantom put with putInput ("file:…"). */
+  phantom: string;
+  sets: string[];
+  fatModel: "single" | "multi";
+  quality: Quality;
+}
+
+export interface RunOutput {
+  quality: Quality;
+  protocol: Protocol;
+  nRead: number;
+  nPhase: number;
+  /** Magnitude image plane [phase][read] of the middle slice, and |k| of the same plane of the full grid [phase][read with oversampling]. */
+  image: Float64Array;
+  kmag: Float64Array;
+  kRead: number;
+  kPhase: number;
+  display: DisplayTransform;
+  fatShift: Record<string, unknown>;
+  check: CheckResult | null;
+  warnings: string[];
+  isochromats: number;
+  engineMs: number;
+  /** Readout operator that ran ("fast" or "direct"). */
+  readout: string;
+  /** Milliseconds in the worker: the whole simulate() call, the analysis after it, and the total. */
+  timings: Record<string, number>;
+  iso: IsochromatOptions;
+  /** Complex64 .npy bytes of the k-space and image volumes, as `simulate` writes kspace.npy and image.npy. */
+  kspaceNpy: Uint8Array;
+  imageNpy: Uint8Array;
+  slicesRun: string;
+  derived: Record<string, unknown>;
+}
+
+const presets = new Map<string, unknown>();
+const phantoms = new Map<string, unknown>();
+const inputs = new Map<string, unknown>();
+
+export function putPreset(name: string, text: string): void {
+  presets.set(name, JSON.parse(text));
+}
+export function putPhantom(name: string, text: string): void {
+  phantoms.set(name, JSON.parse(text));
+}
+/** A file named on the command line or chosen in the page, under "file:<name>". */
+export function putInput(name: string, text: string): void {
+  inputs.set(`file:${name}`, JSON.parse(text));
+}
+
+/** `extend` resolves to bundled presets only (a page has no files beside the protocol). */
+const resolvePreset: ProtocolResolver = (name) => {
+  const n = name.replace(/\.json$/, "");
+  return presets.has(n) ? { source: n, json: structuredClone(presets.get(n)) } : null;
+};
+
+function protocolInput(name: string): unknown {
+  const v = inputs.get(name) ?? (presets.has(name) ? { extend: name } : undefined);
+  if (v === undefined) throw new UserError(`no protocol file or preset named ${JSON.stringify(name)}; presets: ${[...presets.keys()].join(", ")}`);
+  return structuredClone(v);
+}
+function phantomInput(name: string): unknown {
+  const v = inputs.get(name) ?? phantoms.get(name);
+  if (v === undefined) throw new UserError(`no phantom named ${JSON.stringify(name)}; bundled: ${[...phantoms.keys()].join(", ")}`);
+  return structuredClone(v);
+}
+
+/** Isochromat options of each quality: preview is density 1, few through-slice isochromats and no T2′ spread. */
+export function qualityOptions(q: Quality, fatModel: "single" | "multi"): IsochromatOptions {
+  const d = defaultIsochromatOptions();
+  if (q === "full") return { ...d, fatModel };
+  return { ...d, density: 1, sliceCount: 3, sliceExtent: 3, t2primeIsochromats: 1, fatModel };
+}
+
+export class Cancelled extends Error {}
+
+/** `isofold check` with its default thresholds and ROI on the request's inputs. */
+export function checkRequest(req: RunRequest): CheckResult {
+  const protocol = parseProtocol(protocolInput(req.protocol), { source: req.protocol, sets: req.sets, resolve: resolvePreset, presets: [...presets.keys()] });
+  let seq;
+  try {
+    seq = buildSequence(protocol);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(req.protocol);
+    throw e;
+  }
+  const phantom = parsePhantom(phantomInput(req.phantom), req.phantom, protocol.field);
+  const result = checkProtocol(phantom, protocol, seq, {});
+  result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
+  return result;
+}
+
+/** Runs one request; `stop()` is asked as the engine reports progress, and a true answer rejects with Cancelled. */
+export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): Promise<RunOutput> {
+  const tStart = performance.now();
+  const iso = qualityOptions(req.quality, req.fatModel);
+  const ac = new AbortController();
+  let input: SimulateInput, prep, run;
+  try {
+    input = {
+      protocol: protocolInput(req.protocol), protocolName: req.protocol,
+      phantom: phantomInput(req.phantom), phantomName: req.phantom,
+      sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
+      iso, executor: serialExecutor(), signal: ac.signal,
+      // the through-slice convergence probe is part of the refined result only
+      convergenceCheck: req.quality === "full",
+      onProgress: (p) => {
+        if (stop()) ac.abort();
+        else onProgress(p.slice * p.total + p.done, p.slices * p.total);
+      },
+    };
+    prep = prepareSimulation(input);
+    if (stop()) throw new Cancelled();
+    run = await runSlices(prep, input);
+  } catch (e) {
+    if (e instanceof Cancelled) throw e;
+    if (e instanceof AbortedError || ac.signal.aborted) throw new Cancelled();
+    throw e;
+  }
+  const seqs = prep.slices.map((sl) => sl.seq);
+  const r = reconstructRuns(seqs, run.kspaces);
+  const tSim = performance.now();
+  const protocol = prep.protocol;
+  const seq = seqs[Math.floor(seqs.length / 2)]!;
+  const nRead = r.image.read, nPhase = r.image.phase;
+  const plane = Math.floor(r.image.slice / 2);
+  const image = new Float64Array(nRead * nPhase);
+  for (let i = 0, o = plane * nRead * nPhase; i < image.length; i++) image[i] = Math.hypot(r.image.re[o + i]!, r.image.im[o + i]!);
+  const kRead = r.kspace.read, kPhase = r.kspace.phase, kp = Math.floor(r.kspace.slice / 2) * kRead * kPhase;
+  const kmag = new Float64Array(kRead * kPhase);
+  for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(r.kspace.re[kp + i]!, r.kspace.im[kp + i]!);
+  // the predicted shifts as report.json states them (fatShift.predicted); the page shows the prediction only
+  const base = fatShiftInput(protocol, seq);
+  const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
+  const mean = predictFatShift({ ...base, ppm: multiPeakMeanPpm() });
+  const fatShift = {
+    fatModel: req.fatModel,
+    fatHz: main.hz,
+    predicted: {
+      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction },
+      slice: { mm: main.slice.m * 1e3, direction: main.slice.direction },
+      phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction },
+      multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px },
+    },
+  };
+  const vol = (v: { coils: number; slice: number; phase: number; read: number; re: Float64Array; im: Float64Array }) =>
+    encodeNpy({ dtype: "complex64", shape: [v.coils, v.slice, v.phase, v.read], data: { re: v.re, im: v.im } });
+  const ro = run.engine.readout;
+  const readout = Array.isArray(ro) ? ro.map((x) => x.operator).join(", ") : ro?.operator ?? "none";
+  const out: RunOutput = {
+    quality: req.quality, protocol, nRead, nPhase, image, kmag, kRead, kPhase,
+    display: displayTransform(logicalAxes(protocol)),
+    fatShift, check: null,
+    warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
+    isochromats: run.isoSummary.count,
+    engineMs: tSim - tStart, readout,
+    timings: {},
+    iso,
+    kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
+    derived: seq.derived as unknown as Record<string, unknown>,
+    slicesRun: seqs.length > 1 ? `${seqs.length} slices; the middle one is shown` : "one slice",
+  };
+  const tEnd = performance.now();
+  out.timings = { simulate: tSim - tStart, analysis: tEnd - tSim, total: tEnd - tStart };
+  void input;
+  return out;
+}
+
+/** A user error as the CLI prints it (without the "isofold: error: " prefix), with its key path. */
+export function userMessage(e: unknown): { message: string; key: string | null } | null {
+  if (e instanceof UserError) return { message: e.message, key: e.keyPath ?? null };
+  return null;
+}
+
+export { SAFETY_NOTE };
