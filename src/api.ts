@@ -41,6 +41,16 @@ export function tissueReport(phantom: Phantom): Record<string, unknown>[] {
 /** A complex volume [coil][slice][phase][read]: the one definition is the run folder's. */
 export type { Volume };
 
+/** The sequence of a protocol; a user error in it names the protocol file. */
+export function buildSequenceOf(p: Protocol, file: string): Sequence {
+  try {
+    return buildSequence(p);
+  } catch (e) {
+    if (e instanceof UserError) throw e.inFile(file);
+    throw e;
+  }
+}
+
 /** Axis names of the k-space and image volumes, outermost first. */
 export const VOLUME_AXES = ["coil", "slice", "phase", "read"] as const;
 
@@ -151,13 +161,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const loaded = input.parsedPhantom ?? parsePhantom(input.phantom, phantomName, protocol.field, { readArray: input.readArray });
   const phantom = input.phantomTransform ? input.phantomTransform(loaded) : loaded;
   const asked: IsochromatOptions = { ...defaultIsochromatOptions(), ...input.iso };
-  let seq0: Sequence;
-  try {
-    seq0 = buildSequence(protocol);
-  } catch (e) {
-    if (e instanceof UserError) throw e.inFile(protocolName);
-    throw e;
-  }
+  const seq0 = buildSequenceOf(protocol, protocolName);
   const threeD = sequenceDefinition(protocol.sequence).threeD;
   const slab = threeD ? slabCoverage(protocol, seq0, phantom) : null;
   const chosen = isoOptionsFor(protocol, asked, seq0, slab?.steps);
@@ -179,13 +183,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
     const p = { ...protocol, slice: { ...protocol.slice, position } };
-    let seq: Sequence;
-    try {
-      seq = buildSequence(p);
-    } catch (e) {
-      if (e instanceof UserError) throw e.inFile(protocolName);
-      throw e;
-    }
+    const seq = buildSequenceOf(p, protocolName);
     if (ms.positions.length > 1 && ms.positions.length * seq.activeTime > protocol.tr + 1e-9) {
       const maxN = Math.floor((protocol.tr + 1e-9) / seq.activeTime);
       throw new UserError(

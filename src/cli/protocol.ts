@@ -11,6 +11,7 @@ import { buildSequence, type Derived, type Sequence } from "../sequence/index.js
 import { collect } from "./options.js";
 import { predictProtocolFatShift } from "../analysis/index.js";
 import { printWarnings, SAFETY_NOTE } from "./pipeline.js";
+import { buildSequenceOf } from "../api.js";
 
 /** What the gradient and slew headroom is, and what it is not. */
 export const HEADROOM_NOTE =
@@ -101,13 +102,7 @@ export function registerProtocol(program: Command): void {
     .option("--reference <file>", "also state the SNR relative to this protocol (file or preset), ∝ voxel·√(N_avg·N_lines·N_slice·T_adc), N_slice = slice-encoding steps")
     .action((file: string, o: { set: string[]; json?: boolean; reference?: string }) => {
       const p = loadProtocol(file, o.set);
-      let seq: Sequence;
-      try {
-        seq = buildSequence(p);
-      } catch (e) {
-        if (e instanceof UserError) throw e.inFile(file);
-        throw e;
-      }
+      const seq = buildSequenceOf(p, file);
       const ms = slicePositions(p);
       if (p.slices.count > 1 && p.slices.count * seq.activeTime > p.tr + 1e-9) {
         throw new UserError(
