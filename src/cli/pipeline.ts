@@ -21,6 +21,8 @@ import {
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
 import { writeRunFolder } from "../io/run-folder.js";
+import { checkProtocol, type CheckResult } from "../check/index.js";
+import type { CheckItem as ReportCheckItem, LogicalRect } from "../report/index.js";
 import { fatCentroid, truthFiles } from "./effects.js";
 import { displayTransform } from "../report/index.js";
 import { logicalAxes } from "../protocol/index.js";
@@ -209,6 +211,46 @@ export async function run(o: RunOptions): Promise<RunResult> {
   return write(o, r, t0);
 }
 
+/**
+ * The closed-form check of the run's protocol for report.html: its verdict
+ * lines first on the page, and where folded signal lands (along phase and
+ * read, in the image frame: index n of N at (n − ⌊N/2⌋)·Δ) as an overlay on
+ * the simulated image. The check is an addition to the page: where it cannot
+ * judge a run, the page goes without it and says so in report.json's notes.
+ */
+function checkOverlay(r: SimulateResult): { checks?: ReportCheckItem[]; folds?: LogicalRect[] } {
+  const p = r.protocol, seq = r.sequences[Math.floor(r.sequences.length / 2)]!;
+  let c: CheckResult;
+  try {
+    c = checkProtocol(r.phantom, p, seq, {});
+  } catch (e) {
+    const notes = (r.report["notes"] as string[] | undefined) ?? [];
+    notes.push(`report.html: no closed-form check for this run (${e instanceof Error ? e.message : String(e)})`);
+    r.report["notes"] = notes;
+    return {};
+  }
+  const dRead = p.fov.read / p.matrix.read, dPhase = p.fov.phase / p.matrix.phase;
+  const whole = (n: number, d: number): [number, number] => [(-Math.floor(n / 2) - 0.5) * d, (n - Math.floor(n / 2) - 0.5) * d];
+  // one band per side the signal leaves from: the union of its shapes' landing ranges
+  const bands = (w: CheckResult["wrap"]["phase"]): { label: string; range: [number, number] }[] => {
+    const by = new Map<string, { n: number; lo: number; hi: number }>();
+    for (const f of w.folded) {
+      if (!f.landsM) continue;
+      const b = by.get(f.from) ?? { n: 0, lo: Infinity, hi: -Infinity };
+      by.set(f.from, { n: b.n + 1, lo: Math.min(b.lo, f.landsM[0]), hi: Math.max(b.hi, f.landsM[1]) });
+    }
+    return [...by].map(([from, b]) => ({ label: `folded from ${from} (${b.n} shape${b.n > 1 ? "s" : ""})`, range: [b.lo, b.hi] }));
+  };
+  const folds: LogicalRect[] = [
+    ...bands(c.wrap.phase).map((b) => ({ label: b.label, read: whole(p.matrix.read, dRead), phase: b.range })),
+    ...bands(c.wrap.read).map((b) => ({ label: b.label, read: b.range, phase: whole(p.matrix.phase, dPhase) })),
+  ];
+  return {
+    checks: c.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason })),
+    folds,
+  };
+}
+
 /** Writes the run folder of a result (atomically): PNGs in display orientation, truth maps and coil files when asked. */
 async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunResult> {
   const p = r.protocol;
@@ -216,6 +258,7 @@ async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunR
   const files = await writeRunFolder(o.out, {
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
+    ...checkOverlay(r),
     kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
