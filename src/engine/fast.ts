@@ -36,7 +36,7 @@
  * varying readouts, many RF classes) are refused with a reason; the caller
  * then runs the direct operator and says so.
  */
-import FFT from "fft.js";
+import { FFTPlan } from "../recon/fft.js";
 import { GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
@@ -98,94 +98,6 @@ export const ESTIMATE_ROWS = 4;
 /** The estimate is this margin times the relative L2 error on the sample subset. */
 export const ESTIMATE_MARGIN = 3;
 export const ESTIMATE_SEED = 20031;
-
-// ---------------------------------------------------------------------------
-// DFT of any length: fft.js for powers of two, Bluestein's chirp-z otherwise
-// (Bluestein 1970, IEEE Trans. Audio Electroacoust. 18:451).
-
-class Dft {
-  readonly n: number;
-  private readonly core: FFT | null;
-  private readonly m: number;
-  private readonly chirp: Float64Array;
-  private readonly kern: Float64Array;
-  private readonly a: Float64Array;
-  private readonly b: Float64Array;
-  /** Interleaved input and output, length 2n. */
-  readonly inp: Float64Array;
-  readonly out: Float64Array;
-  constructor(n: number) {
-    this.n = n;
-    this.inp = new Float64Array(2 * n);
-    this.out = new Float64Array(2 * n);
-    const pow2 = n >= 2 && (n & (n - 1)) === 0;
-    if (n === 1 || pow2) {
-      this.core = n === 1 ? null : new FFT(n);
-      this.m = 0;
-      this.chirp = this.kern = this.a = this.b = new Float64Array(0);
-      return;
-    }
-    let m = 2;
-    while (m < 2 * n - 1) m *= 2;
-    this.m = m;
-    this.core = new FFT(m);
-    // w[j] = exp(−iπ j²/n); X[k] = w[k]·Σ_j (x[j]·w[j])·conj(w[k − j])
-    this.chirp = new Float64Array(2 * n);
-    for (let j = 0; j < n; j++) {
-      const ang = (Math.PI * ((j * j) % (2 * n))) / n;
-      this.chirp[2 * j] = Math.cos(ang);
-      this.chirp[2 * j + 1] = -Math.sin(ang);
-    }
-    const k = new Float64Array(2 * m);
-    for (let j = 0; j < n; j++) {
-      const br = this.chirp[2 * j]! / m, bi = -this.chirp[2 * j + 1]! / m;
-      k[2 * j] = br;
-      k[2 * j + 1] = bi;
-      if (j > 0) {
-        k[2 * (m - j)] = br;
-        k[2 * (m - j) + 1] = bi;
-      }
-    }
-    this.kern = new Float64Array(2 * m);
-    this.core.transform(this.kern, k);
-    this.a = new Float64Array(2 * m);
-    this.b = new Float64Array(2 * m);
-  }
-  /** out[k] = Σ_j inp[j]·exp(−i2π jk/n). */
-  run(): void {
-    const n = this.n;
-    if (n === 1) {
-      this.out[0] = this.inp[0]!;
-      this.out[1] = this.inp[1]!;
-      return;
-    }
-    if (this.m === 0) {
-      this.core!.transform(this.out, this.inp);
-      return;
-    }
-    const { a, b, chirp, kern } = this;
-    a.fill(0);
-    for (let j = 0; j < n; j++) {
-      const xr = this.inp[2 * j]!, xi = this.inp[2 * j + 1]!, wr = chirp[2 * j]!, wi = chirp[2 * j + 1]!;
-      a[2 * j] = xr * wr - xi * wi;
-      a[2 * j + 1] = xr * wi + xi * wr;
-    }
-    this.core!.transform(b, a);
-    for (let j = 0; j < this.m; j++) {
-      const xr = b[2 * j]!, xi = b[2 * j + 1]!, kr = kern[2 * j]!, ki = kern[2 * j + 1]!;
-      b[2 * j] = xr * kr - xi * ki;
-      b[2 * j + 1] = xr * ki + xi * kr;
-    }
-    // inverse by conjugation: ifft(x)·m = conj(fft(conj(x))); the 1/m is in the kernel
-    for (let j = 0; j < this.m; j++) b[2 * j + 1] = -b[2 * j + 1]!;
-    this.core!.transform(a, b);
-    for (let j = 0; j < n; j++) {
-      const yr = a[2 * j]!, yi = -a[2 * j + 1]!, wr = chirp[2 * j]!, wi = chirp[2 * j + 1]!;
-      this.out[2 * j] = yr * wr - yi * wi;
-      this.out[2 * j + 1] = yr * wi + yi * wr;
-    }
-  }
-}
 
 // ---------------------------------------------------------------------------
 // Pivoted Gram–Schmidt: an orthonormal basis of weighted complex vectors.
@@ -567,7 +479,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const colUsed = new Uint8Array(Mu);
   for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
   const fRead = a0.op.fRead, bw = a0.op.bwSampled;
-  const dftU = new Dft(Mu), dftV = new Dft(Mv);
+  const dftU = new FFTPlan(Mu), dftV = new FFTPlan(Mv);
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
@@ -576,9 +488,9 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
   const acc = new Float64Array(2 * ns);
   const readLine = (q: number, l: number, k: number) => {
-    dftU.inp.set(Z[q * L + l]!.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
-    dftU.run();
-    const out = dftU.out;
+    dftU.input.set(Z[q * L + l]!.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
+    dftU.execute(-1);
+    const out = dftU.output;
     for (let j = 0; j < ns; j++) {
       const cj = colIdx[j]!, fr = out[2 * cj]!, fi = out[2 * cj + 1]!;
       const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
@@ -740,13 +652,13 @@ function foldPass(
  * column); the sampled lines, times AL[n][r] (c_n·post-phase·A_r(n)), added
  * into z[n][a].
  */
-function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, Mu: number, Mv: number, dft: Dft, NA: number, mLine: Int32Array, AL: Float64Array, r: number, R: number): void {
-  const inp = dft.inp, out = dft.out;
+function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, Mu: number, Mv: number, dft: FFTPlan, NA: number, mLine: Int32Array, AL: Float64Array, r: number, R: number): void {
+  const inp = dft.input, out = dft.output;
   for (let a = 0; a < Mu; a++) {
     if (colUsed[a] === 0) continue;
     const o0 = 2 * a * Mv;
     for (let k = 0; k < 2 * Mv; k++) inp[k] = xg[o0 + k]!;
-    dft.run();
+    dft.execute(-1);
     for (let k = 0; k < NA; k++) {
       const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
       const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
