@@ -42,6 +42,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
+import type { CellStream } from "./fast-stream.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -197,7 +198,7 @@ function project(basis: Float64Array[], x: Float64Array, m: number, count: numbe
 
 type Adc = Extract<Op, { t: "adc" }>;
 
-interface History {
+export interface History {
   /** Readout ops in order, with their block's gradient areas since the last pulse (T·s/m) and gradient·dwell. */
   adcs: { op: Adc; area: [number, number, number]; step: [number, number, number]; dwell: number; active: boolean }[];
   /** P[n·C + c] (interleaved) for readout n, class c. */
@@ -207,7 +208,19 @@ interface History {
   mass: Float64Array;
 }
 
-function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): History | string {
+/** Each class's grid index iw and magnetization Σ|m0|, from stored isochromats. */
+function isoClassInfo(plan: EnginePlan, iso: IsochromatSet): { classIw: Int32Array; mass: Float64Array } {
+  const classIw = new Int32Array(plan.classes).fill(-1), mass = new Float64Array(plan.classes);
+  const { rfClass } = plan;
+  for (let i = 0; i < iso.count; i++) {
+    const c = rfClass[i]!;
+    if (classIw[c]! < 0) classIw[c] = iso.iw[i]!;
+    mass[c] = mass[c]! + Math.abs(iso.m0[i]!);
+  }
+  return { classIw, mass };
+}
+
+function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Array; mass: Float64Array }): History | string {
   const C = plan.classes;
   const adcBlocks: { area: [number, number, number]; step: [number, number, number]; dwell: number }[] = [];
   {
@@ -225,13 +238,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): Hist
   const nAdc = plan.ops.filter((o) => o.t === "adc").length;
   if (nAdc !== adcBlocks.length) return "internal: readouts of the plan and the sequence differ";
   if (C * nAdc > MAX_CLASS_LINES) return `${C.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
-  const classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
-  const { rfClass } = plan;
-  for (let i = 0; i < iso.count; i++) {
-    const c = rfClass[i]!;
-    if (classIw[c]! < 0) classIw[c] = iso.iw[i]!;
-    mass[c] = mass[c]! + Math.abs(iso.m0[i]!);
-  }
+  const { classIw, mass } = info;
   const { classDf, classR1, classR2 } = plan.rf;
   const D: Float64Array[] = [], E1: Float64Array[] = [];
   for (let q = 0; q < plan.durations.length; q++) {
@@ -323,9 +330,21 @@ export interface FastResult {
  * apply (the caller then runs the direct operator).
  */
 export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): FastResult | string {
+  return fastReadoutFrom(seq, plan, { kind: "iso", iso }, tolerance, split);
+}
+
+/**
+ * Where the fast operator's weights come from: stored isochromats, or the
+ * phantom's sampled cells streamed column by column (fast-stream.ts; nothing
+ * stored per isochromat).
+ */
+export type FastSource = { kind: "iso"; iso: IsochromatSet } | { kind: "cells"; stream: CellStream };
+
+/** The fast operator on either source (see {@link fastReadout}). */
+export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource, tolerance: number, split = 8): FastResult | string {
   const pre = fastPrecheck(plan);
   if (pre) return pre;
-  const h = classHistory(seq, plan, iso);
+  const h = classHistory(seq, plan, src.kind === "iso" ? isoClassInfo(plan, src.iso) : src.stream.classInfo());
   if (typeof h === "string") return h;
   const { adcs, P, classIw, mass } = h;
   const C = plan.classes, coils = plan.coils, sens = plan.sens;
@@ -347,7 +366,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   for (const a of act) {
     if (Math.abs(GAMMA_BAR * a.area[0] - kx0) > 1e-9 * Math.abs(dkx)) return "readouts start at different read positions in k-space (e.g. EPI): not covered by the fast operator yet";
   }
-  const { uGrid, vGrid } = iso;
+  const { uGrid, vGrid } = src.kind === "iso" ? src.iso : src.stream.cells;
   // --- DFT lengths: Δkx·du = ±1/Mu and Δky·dv·(line offsets) = m/Mv with whole Mu, Mv (else the grid is not a DFT grid)
   let Mu = 1, su = 1;
   if (uGrid.length > 1) {
@@ -477,7 +496,12 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   const X: Float64Array[] = [];
   for (let q = 0; q < perPass * coils * L; q++) X.push(new Float64Array(2 * grid));
   const colUsed = new Uint8Array(Mu);
-  for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
+  if (src.kind === "iso") {
+    const iso = src.iso;
+    for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
+  } else {
+    for (const a of src.stream.cells.colA) colUsed[a % Mu] = 1;
+  }
   const fRead = a0.op.fRead, bw = a0.op.bwSampled;
   const dftU = new FFTPlan(Mu), dftV = new FFTPlan(Mv);
   const colIdx = new Int32Array(ns);
@@ -516,7 +540,8 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
           for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
         }
       }
-      foldPass(iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
+      if (src.kind === "iso") foldPass(src.iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
+      else src.stream.fold(plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
     }
     for (let q = 0; q < coils; q++) {
       for (let l = 0; l < L; l++) {
@@ -569,7 +594,9 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
     segments: L, lineRank: R, grid: [Mv, Mu], split, pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
-  report.estimate = estimate(plan, iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
+  report.estimate = src.kind === "iso"
+    ? estimate(plan, src.iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im)
+    : src.stream.estimate(plan, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
   return { re, im, report };
 }
 
@@ -669,7 +696,7 @@ function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, 
 }
 
 /** A small seeded generator (mulberry32, common practice) for the sample subset. */
-function mulberry32(seed: number): () => number {
+export function mulberry32(seed: number): () => number {
   let a = seed >>> 0;
   return () => {
     a = (a + 0x6d2b79f5) >>> 0;
@@ -693,8 +720,28 @@ function estimate(
   keyOf: Int32Array, keyDf: number[], keyR2: number[],
   re: Float64Array, im: Float64Array,
 ): { samples: number; seed: number; relL2: number } {
+  const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
+  const rfClass = plan.rfClass;
+  return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im, iso.count, (visit) => {
+    for (let cc = 0; cc < iso.columns; cc++) {
+      const i0 = colStart[cc]!, i1 = colStart[cc + 1]!;
+      if (i1 <= i0) continue;
+      visit(uGrid[iu[i0]!]!, vGrid[iv[i0]!]!, i1 - i0, rfClass.subarray(i0, i1), m0.subarray(i0, i1), df.subarray(i0, i1), i0);
+    }
+  });
+}
+
+/** Visits every column: its u and v (m), isochromat count n, and per isochromat the RF class, m0, Δf (Hz); i0 the first isochromat's index (for plan.sens). */
+export type ColumnVisitor = (visit: (u: number, v: number, n: number, cls: Int32Array, m0: Float64Array, df: Float64Array, i0: number) => void) => void;
+
+/** The a-posteriori estimate over columns given by `columns` (see {@link estimate}). */
+export function estimateOver(
+  plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+  keyOf: Int32Array, keyDf: number[], keyR2: number[],
+  re: Float64Array, im: Float64Array, count: number, columns: ColumnVisitor,
+): { samples: number; seed: number; relL2: number } {
   const rnd = mulberry32(ESTIMATE_SEED);
-  const C = plan.classes, coils = plan.coils, sens = plan.sens, count = iso.count, K = keyDf.length;
+  const C = plan.classes, coils = plan.coils, sens = plan.sens, K = keyDf.length;
   // rows (distinct, each with its readouts' ky) and samples j per row
   const allRows = [...new Set(actN.map((n) => h.adcs[n]!.op.row))];
   const NR = Math.min(ESTIMATE_ROWS, allRows.length), PJ = Math.min(ESTIMATE_SAMPLES / ESTIMATE_ROWS, ns);
@@ -728,21 +775,18 @@ function estimate(
       dec[2 * (k * S + s) + 1] = e * Math.sin(th);
     }
   }
-  const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
-  const filt = plan.receiverFilter, rfClass = plan.rfClass;
+  const filt = plan.receiverFilter;
   const a0 = h.adcs[actN[0]!]!.op;
   const tot = new Float64Array(2 * S * coils), col = new Float64Array(2 * S * coils);
   const CN = coils * NR;
   const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
-  for (let cc = 0; cc < iso.columns; cc++) {
-    const i0 = colStart[cc]!, i1 = colStart[cc + 1]!;
-    if (i1 <= i0) continue;
-    const u = uGrid[iu[i0]!]!;
+  columns((u, v, n, cls, m0, df, i0) => {
     let nt = 0;
-    for (let i = i0; i < i1; i++) {
-      const c = rfClass[i]!, k = keyOf[c]!;
-      const m = m0[i]! * (filt ? receiverFilter(a0.fRead * u + df[i]!, a0.bwSampled) : 1);
+    for (let il = 0; il < n; il++) {
+      const i = i0 + il;
+      const c = cls[il]!, k = keyOf[c]!;
+      const m = m0[il]! * (filt ? receiverFilter(a0.fRead * u + df[il]!, a0.bwSampled) : 1);
       if (seen[k] === 0) {
         seen[k] = 1;
         touched[nt++] = k;
@@ -777,7 +821,6 @@ function estimate(
         accI.fill(0, o, o + NR);
       }
     }
-    const v = vGrid[iv[i0]!]!;
     for (let s = 0; s < S; s++) {
       const w = Math.floor(s / PJ);
       const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
@@ -787,7 +830,7 @@ function estimate(
         tot[o + 1] = tot[o + 1]! + (xr * ei + xi * er);
       }
     }
-  }
+  });
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
@@ -910,6 +953,17 @@ const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCos
  * oracle) more often.
  */
 export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): ReadoutCosts {
+  const { iu, iv } = iso, rfClass = plan.rfClass;
+  return predictCosts(seq, plan, iso, (i0, i1, add) => {
+    for (let i = i0; i < i1; i++) add(iu[i]!, iv[i]!, rfClass[i]!);
+  }, tolerance, split);
+}
+
+/** predictReadoutCosts over any source: `chunkIsochromats(i0, i1, add)` calls add(a, b, class) for isochromats i0 … i1−1 (whole columns). */
+export function predictCosts(
+  seq: Sequence, plan: EnginePlan, iso: { count: number; columns: number; uGrid: Float64Array; vGrid: Float64Array },
+  chunkIsochromats: (i0: number, i1: number, add: (a: number, b: number, cls: number) => void) => void, tolerance: number, split = 8,
+): ReadoutCosts {
   const hit = costCache.get(plan);
   if (hit && hit.tolerance === tolerance) return hit.costs;
   const C = plan.classes, coils = plan.coils, count = iso.count;
@@ -933,7 +987,7 @@ export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: Isochr
   }
   const K = Math.max(1, keyIndex.size);
   // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
-  const rfClass = plan.rfClass, { iu, iv } = iso, nv = Math.max(1, iso.vGrid.length);
+  const nv = Math.max(1, iso.vGrid.length);
   const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS);
   let sg = 0, ss = 0, sn = 0, sc = 0;
   const gset = new Set<number>(), sset = new Set<number>(), cset = new Set<number>();
@@ -943,12 +997,12 @@ export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: Isochr
     gset.clear();
     sset.clear();
     cset.clear();
-    for (let i = i0; i < i1; i++) {
-      const k = keyOf[rfClass[i]!]!;
-      cset.add(rfClass[i]!);
-      gset.add(iu[i]! * K + k);
-      sset.add((iu[i]! * nv + iv[i]!) * K + k);
-    }
+    chunkIsochromats(i0, i1, (a, b, cls) => {
+      const k = keyOf[cls]!;
+      cset.add(cls);
+      gset.add(a * K + k);
+      sset.add((a * nv + b) * K + k);
+    });
     sg += gset.size;
     ss += sset.size;
     sc += cset.size;
@@ -1016,7 +1070,7 @@ export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatS
 }
 
 /** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
-function dftLengths(seq: Sequence, iso: IsochromatSet): [number, number] {
+function dftLengths(seq: Sequence, iso: { uGrid: Float64Array; vGrid: Float64Array }): [number, number] {
   const { uGrid, vGrid } = iso;
   let acc: [number, number, number] = [0, 0, 0];
   let dkx = 0;

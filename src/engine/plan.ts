@@ -154,7 +154,29 @@ export function planLayout(
   const sens = opts.sens ?? null;
   if (sens && sens.length !== 2 * coils * iso.count) throw new Error(`sensitivities: expected ${2 * coils * iso.count} numbers, got ${sens.length}`);
   if (!sens && coils !== 1) throw new Error("more than one coil needs sensitivities");
-  const grids = [iso.uGrid, iso.vGrid, iso.wGrid];
+  return planFromClasses(seq, iso, rfClasses(iso), chunkStarts(iso, opts.chunkIsochromats), opts);
+}
+
+/** RF classes of a plan: each isochromat's class (may be empty where no isochromat is stored) and each class's w, Δf, r1, r2. */
+export interface RfClassSpec {
+  rfClass: Int32Array; classes: number; classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array;
+}
+
+/**
+ * The plan from given RF classes and chunk boundaries (planLayout finds them
+ * from stored isochromats; the fast operator's streamed path enumerates the
+ * classes from the phantom's tissues). RF maps allocated, not filled.
+ */
+export function planFromClasses(
+  seq: Sequence,
+  grid: { uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array },
+  cls: RfClassSpec,
+  starts: number[],
+  opts: PlanOptions,
+): EnginePlan {
+  const coils = opts.coils ?? 1;
+  const sens = opts.sens ?? null;
+  const grids = [grid.uGrid, grid.vGrid, grid.wGrid];
   // --- phase tables, deduplicated per (axis, area)
   const tabKeys = new Map<string, number>();
   const tabList: { axis: number; area: number; offset: number }[] = [];
@@ -184,7 +206,6 @@ export function planLayout(
   });
 
   // --- RF classes: isochromats with the same (w, Δf, r1, r2), bitwise, see the same pulse
-  const cls = rfClasses(iso);
   const rfClass = cls.rfClass, classes = cls.classes;
   const rfMaps = sharedF64(seq.pulses.length * classes * 12);
   const rf: RfSpec = {
@@ -258,7 +279,6 @@ export function planLayout(
   for (const [t, k] of durKeys) durations[k] = t;
 
   // --- chunks of whole columns
-  const starts = chunkStarts(iso, opts.chunkIsochromats);
   let maxChunk = 0;
   for (let c = 0; c + 1 < starts.length; c++) maxChunk = Math.max(maxChunk, starts[c + 1]! - starts[c]!);
   const chunkStart = sharedI32(starts.length).subarray(0, starts.length);
@@ -358,7 +378,7 @@ export function rfClasses(iso: IsochromatSet): {
  * CHUNK_ISOCHROMATS isochromats (the last takes the rest). A function of the
  * isochromat set alone, so it is the same for any number of workers or shards.
  */
-export function chunkStarts(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number[] {
+export function chunkStarts(iso: { colStart: Int32Array; columns: number }, size = CHUNK_ISOCHROMATS): number[] {
   const starts: number[] = [0];
   for (let c = 1; c <= iso.columns; c++) {
     const s = iso.colStart[c]!;
@@ -370,6 +390,6 @@ export function chunkStarts(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): numbe
 }
 
 /** Number of chunks of an isochromat set. */
-export function countChunks(iso: IsochromatSet, size = CHUNK_ISOCHROMATS): number {
+export function countChunks(iso: { colStart: Int32Array; columns: number }, size = CHUNK_ISOCHROMATS): number {
   return chunkStarts(iso, size).length - 1;
 }

@@ -188,10 +188,82 @@ function project(bounds: { min: number[]; max: number[] }, dir: number[]): [numb
 }
 
 /**
- * Samples the phantom. `fieldT` sets chemical shifts; the phantom's B0 model
- * (if any) adds its offset at each isochromat's physical position.
+ * The phantom sampled on the isochromat grid, kept as cell contents, not as
+ * isochromats: per column (in-plane grid position holding at least one
+ * isochromat) its through-slice cells' (w index, tissue, fraction). Each
+ * entry stands for one isochromat per spectral peak and T2′ bin of its tissue
+ * (see {@link cellTerms}); {@link expandCells} makes them (makeIsochromats),
+ * the fast readout operator folds them straight into its weights. The summary
+ * fields are those of the {@link IsochromatSet} it expands to (the warnings
+ * and notes arrays are the same objects).
  */
-export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: IsochromatOptions): IsochromatSet {
+export interface IsochromatCells {
+  count: number;
+  columns: number;
+  uGrid: Float64Array;
+  vGrid: Float64Array;
+  wGrid: Float64Array;
+  /** Isochromats colStart[c] … colStart[c+1]−1 of the expanded set belong to column c. */
+  colStart: Int32Array;
+  warnings: string[];
+  notes: string[];
+  extent: SampledExtent;
+  spreads: TissueSpread[];
+  /** Grid indices (a, b) of each column. */
+  colA: Int32Array;
+  colB: Int32Array;
+  /** Entries entStart[c] … entStart[c+1]−1 of column c: through-slice index, tissue, fraction of the cell. */
+  entStart: Int32Array;
+  entW: Int32Array;
+  entTissue: Int32Array;
+  entFrac: Float64Array;
+  /** The column's place in its voxel, 0 … density²−1 (selects the T2′ bins it carries). */
+  colSub: Int32Array;
+  /** Whether the phantom has a B0 model (then Δf varies with position). */
+  hasB0: boolean;
+  /** What the expansion needs. */
+  readonly ctx: CellContext;
+}
+
+/** Per-tissue tables shared by the expansion and the fast operator's fold. */
+export interface CellContext {
+  phantom: Phantom;
+  axes: Axes;
+  offsetHz: number;
+  /** Δw/thickness/density²: the through-slice and in-plane share of m0. */
+  wWeight: number;
+  pd: number[];
+  r1: number[];
+  r2: number[];
+  peaks: { df: number[]; amp: number[]; peak: number[] }[];
+  spreadDf: Float64Array[];
+  /** assign[tissue][sub]: the T2′ bins and weights of a column at that place in its voxel. */
+  assign: { bins: Int32Array | number[]; weight: Float64Array | number[] }[][];
+}
+
+/** Growable typed array (doubling). */
+class Grow<T extends Int32Array | Float64Array> {
+  n = 0;
+  constructor(public a: T) {}
+  push(x: number): void {
+    if (this.n === this.a.length) {
+      const b = new (this.a.constructor as new (n: number) => T)(Math.max(16, 2 * this.a.length));
+      b.set(this.a);
+      this.a = b;
+    }
+    this.a[this.n++] = x;
+  }
+  done(): T {
+    return this.a.slice(0, this.n) as T;
+  }
+}
+
+/**
+ * Samples the phantom into cell contents (one call of cellContents per cell,
+ * nothing per isochromat): the one sampling loop behind makeIsochromats and
+ * the fast operator, so the two cannot drift.
+ */
+export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: IsochromatOptions): IsochromatCells {
   const { axes, dx, dy, thickness, position } = geo;
   const d = opt.density;
   const du = dx / d,
@@ -274,82 +346,152 @@ export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, o
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
   const r1Of = ph.tissues.map((t) => inv(t.t1)), r2Of = ph.tissues.map((t) => inv(t.t2));
 
-  // Two passes over the grid: the first counts, so the arrays are allocated
-  // once at their final size (in shared memory, which the engine's workers
-  // read in place); the second fills them.
-  let A: IsoArrays | null = null;
-  const colStart: number[] = [0];
+  // One pass over the grid: per column its cells' contents; the isochromat
+  // count per column follows from them (one per peak of m0 ≠ 0 and T2′ bin).
+  const colA = new Grow(new Int32Array(1024)), colB = new Grow(new Int32Array(1024)), colSub = new Grow(new Int32Array(1024));
+  const colStart = new Grow(new Int32Array(1024)), entStart = new Grow(new Int32Array(1024));
+  const entW = new Grow(new Int32Array(4096)), entTissue = new Grow(new Int32Array(4096)), entFrac = new Grow(new Float64Array(4096));
+  colStart.push(0);
+  entStart.push(0);
   let at = 0;
-  for (let pass = 0; pass < 2; pass++) {
-    if (pass === 1) A = allocate(at);
-    at = 0;
-    for (let a = 0; a < nu; a++) {
-      const u = uGrid[a]!;
-      for (let b = 0; b < nv; b++) {
-        const v = vGrid[b]!;
-        const startAt = at;
-        let cachedCount = -1;
-        const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
-        // The engine finds readout groups and RF classes by hashing, so the order
-        // within a column is free: w outermost, then tissue, peak and T2′ bin.
-        for (let c = 0; c < nw; c++) {
-          const w = wGrid[c]!;
-          r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
-          r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
-          r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
-          let n: number;
-          if (sliceInvariant && cachedCount >= 0) n = cachedCount;
-          else {
-            n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
-            cachedCount = n;
-          }
-          if (n === 0) continue;
-          const b0 = A && ph.b0 ? ph.b0(r[0]!, r[1]!, r[2]!) + offsetHz : offsetHz;
-          for (let k = 0; k < n; k++) {
-            const ti = cell.tissue[k]!;
-            const t = ph.tissues[ti]!;
-            const pk = peaks[ti]!;
-            const as = assign[ti]![sub]!;
-            const bins = as.bins, weight = as.weight;
-            const sdf = spreadOf[ti]!.df;
-            for (let q = 0; q < pk.df.length; q++) {
-              const m0 = t.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
-              if (m0 === 0) continue;
-              if (!A) {
-                at += bins.length;
-                continue;
-              }
-              for (let j = 0; j < bins.length; j++) {
-                A.iu[at] = a; A.iv[at] = b; A.iw[at] = c;
-                A.x[at] = r[0]!; A.y[at] = r[1]!; A.z[at] = r[2]!;
-                A.m0[at] = m0 * weight[j]!; A.r1[at] = r1Of[ti]!; A.r2[at] = r2Of[ti]!;
-                A.df[at] = b0 + pk.df[q]! + sdf[bins[j]!]!;
-                A.tissue[at] = ti; A.peak[at] = pk.peak[q]!;
-                at++;
-              }
-            }
-          }
+  for (let a = 0; a < nu; a++) {
+    const u = uGrid[a]!;
+    for (let b = 0; b < nv; b++) {
+      const v = vGrid[b]!;
+      const startAt = at, startEnt = entW.n;
+      let cachedCount = -1;
+      const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
+      for (let c = 0; c < nw; c++) {
+        const w = wGrid[c]!;
+        r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+        r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+        r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+        let n: number;
+        if (sliceInvariant && cachedCount >= 0) n = cachedCount;
+        else {
+          n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
+          cachedCount = n;
         }
-        if (pass === 0 && at > startAt) colStart.push(at);
+        for (let k = 0; k < n; k++) {
+          const ti = cell.tissue[k]!;
+          const t = ph.tissues[ti]!;
+          const pk = peaks[ti]!;
+          const bins = assign[ti]![sub]!.bins;
+          let here = 0;
+          for (let q = 0; q < pk.df.length; q++) {
+            const m0 = t.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
+            if (m0 !== 0) here += bins.length;
+          }
+          if (here === 0) continue;
+          at += here;
+          entW.push(c);
+          entTissue.push(ti);
+          entFrac.push(cell.fraction[k]!);
+        }
       }
+      if (at > startAt) {
+        colA.push(a);
+        colB.push(b);
+        colSub.push(sub);
+        colStart.push(at);
+        entStart.push(entW.n);
+      } else entW.n = entTissue.n = entFrac.n = startEnt;
     }
   }
-  const G = A!;
+  const ctx: CellContext = {
+    phantom: ph, axes, offsetHz, wWeight, pd: ph.tissues.map((t) => t.pd), r1: r1Of, r2: r2Of, peaks,
+    spreadDf: spreadOf.map((s) => s.df), assign: assign as CellContext["assign"],
+  };
   return {
-    count: at,
-    uGrid, vGrid, wGrid,
-    ...G,
-    colStart: Int32Array.from(colStart),
-    columns: colStart.length - 1,
-    warnings,
-    notes,
+    count: at, columns: colA.n, uGrid, vGrid, wGrid, colStart: colStart.done(), warnings, notes,
     extent: {
       read: [nu > 0 ? uGrid[0]! - du / 2 : 0, nu > 0 ? uGrid[nu - 1]! + du / 2 : 0],
       phase: [nv > 0 ? vGrid[0]! - dv / 2 : 0, nv > 0 ? vGrid[nv - 1]! + dv / 2 : 0],
       slice: [position - span / 2, position + span / 2],
     },
     spreads,
+    colA: colA.done(), colB: colB.done(), colSub: colSub.done(), entStart: entStart.done(), entW: entW.done(), entTissue: entTissue.done(), entFrac: entFrac.done(),
+    hasB0: ph.b0 !== null && ph.b0 !== undefined,
+    ctx,
   };
+}
+
+/**
+ * The isochromats of one cell entry's tissue at voxel place `sub`, in the
+ * expansion's order (peak, then T2′ bin): for each, the peak index q, the
+ * factor f with m0 = (pd·fraction·amp_q·wWeight)·weight_j = f·pd·fraction
+ * (up to rounding), and Δf without the B0 model (offset + chemical shift +
+ * spread). Entries whose peak m0 would be 0 are left out as in the
+ * expansion (only pd·fraction = 0 or amp = 0 make it so; pd·fraction ≠ 0 for
+ * a stored entry).
+ */
+export function cellTerms(ctx: CellContext, ti: number, sub: number): { q: number[]; peak: number[]; f: number[]; df: number[]; bin: number[] } {
+  const pk = ctx.peaks[ti]!, as = ctx.assign[ti]![sub]!, sdf = ctx.spreadDf[ti]!;
+  const out = { q: [] as number[], peak: [] as number[], f: [] as number[], df: [] as number[], bin: [] as number[] };
+  for (let q = 0; q < pk.df.length; q++) {
+    if (pk.amp[q]! * ctx.wWeight === 0) continue;
+    for (let j = 0; j < as.bins.length; j++) {
+      out.q.push(q);
+      out.peak.push(pk.peak[q]!);
+      out.f.push(pk.amp[q]! * ctx.wWeight * as.weight[j]!);
+      out.df.push(ctx.offsetHz + pk.df[q]! + sdf[as.bins[j]!]!);
+      out.bin.push(as.bins[j]!);
+    }
+  }
+  return out;
+}
+
+/** The isochromats of sampled cells, stored one by one (arrays of the final size in shared memory). */
+export function expandCells(cells: IsochromatCells): IsochromatSet {
+  const { ctx, uGrid, vGrid, wGrid } = cells;
+  const ph = ctx.phantom, axes = ctx.axes, offsetHz = ctx.offsetHz, wWeight = ctx.wWeight;
+  const A = allocate(cells.count);
+  const r = [0, 0, 0];
+  let at = 0;
+  for (let col = 0; col < cells.columns; col++) {
+    const a = cells.colA[col]!, b = cells.colB[col]!, sub = cells.colSub[col]!;
+    const u = uGrid[a]!, v = vGrid[b]!;
+    // The engine finds readout groups and RF classes by hashing, so the order
+    // within a column is free: w outermost, then tissue, peak and T2′ bin.
+    for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+      const c = cells.entW[e]!, ti = cells.entTissue[e]!, frac = cells.entFrac[e]!;
+      const w = wGrid[c]!;
+      r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+      r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+      r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+      const b0 = ph.b0 ? ph.b0(r[0]!, r[1]!, r[2]!) + offsetHz : offsetHz;
+      const t = ph.tissues[ti]!;
+      const pk = ctx.peaks[ti]!;
+      const as = ctx.assign[ti]![sub]!;
+      const bins = as.bins, weight = as.weight;
+      const sdf = ctx.spreadDf[ti]!;
+      for (let q = 0; q < pk.df.length; q++) {
+        const m0 = t.pd * frac * pk.amp[q]! * wWeight;
+        if (m0 === 0) continue;
+        for (let j = 0; j < bins.length; j++) {
+          A.iu[at] = a; A.iv[at] = b; A.iw[at] = c;
+          A.x[at] = r[0]!; A.y[at] = r[1]!; A.z[at] = r[2]!;
+          A.m0[at] = m0 * weight[j]!; A.r1[at] = ctx.r1[ti]!; A.r2[at] = ctx.r2[ti]!;
+          A.df[at] = b0 + pk.df[q]! + sdf[bins[j]!]!;
+          A.tissue[at] = ti; A.peak[at] = pk.peak[q]!;
+          at++;
+        }
+      }
+    }
+  }
+  if (at !== cells.count) throw new Error(`isochromats: expanded ${at}, counted ${cells.count}`);
+  return {
+    count: at, uGrid, vGrid, wGrid, ...A, colStart: cells.colStart, columns: cells.columns,
+    warnings: cells.warnings, notes: cells.notes, extent: cells.extent, spreads: cells.spreads,
+  };
+}
+
+/**
+ * Samples the phantom. `fieldT` sets chemical shifts; the phantom's B0 model
+ * (if any) adds its offset at each isochromat's physical position.
+ */
+export function makeIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: IsochromatOptions): IsochromatSet {
+  return expandCells(sampleCells(ph, geo, fieldT, opt));
 }
 
 /**

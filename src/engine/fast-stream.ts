@@ -1,0 +1,231 @@
+/**
+ * The fast readout operator's weights straight from the phantom's sampled
+ * cells (isochromats/index.ts sampleCells), never storing an isochromat:
+ * memory grows with the grid and the cell list, not with isochromats.
+ *
+ * Without a B0 model an isochromat's RF class is fixed by its through-slice
+ * index w, tissue, spectral peak and T2′ bin, so the classes are enumerated
+ * from the tissues (no hashing of isochromats), and each (w, tissue, place in
+ * the voxel) has one list of terms (class, m0 per unit pd·fraction, Δf): the
+ * same terms, in the same order, as the isochromats expandCells stores
+ * (isochromats/index.ts cellTerms). A column is then Σ over its cells of
+ * pd·fraction × its terms, folded into the (line rank, segment) weights.
+ * With a B0 model the per-position Δf makes the classes as many as the
+ * isochromats; that case is left to the stored path (the caller says so).
+ */
+import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
+import { receiverFilter } from "./chunk.js";
+import { estimateOver, type ColumnVisitor, type History } from "./fast.js";
+import type { EnginePlan, RfClassSpec } from "./plan.js";
+import { sharedF64 } from "./plan.js";
+
+export class CellStream {
+  /** Enumerated RF classes (rfClass is empty: no isochromat is stored). */
+  readonly spec: RfClassSpec;
+  /** Terms of combination z = (w·T + tissue)·D2 + sub: zStart[z] … zStart[z+1]−1. */
+  private readonly zStart: Int32Array;
+  private readonly zClass: Int32Array;
+  private readonly zF: Float64Array;
+  private readonly zDf: Float64Array;
+  private readonly T: number;
+  private readonly D2: number;
+
+  /** A reason the cells cannot be streamed (the stored path then runs), or null. */
+  static refusal(cells: IsochromatCells): string | null {
+    if (cells.hasB0) return "the phantom has a B0 model (Δf varies with position): the weights come from stored isochromats";
+    return null;
+  }
+
+  constructor(readonly cells: IsochromatCells) {
+    const ctx = cells.ctx, T = ctx.pd.length, nw = cells.wGrid.length;
+    const D2 = Math.max(1, ...ctx.assign.map((a) => a.length));
+    this.T = T;
+    this.D2 = D2;
+    const nz = nw * T * D2;
+    // combinations that occur
+    const occurs = new Uint8Array(nz);
+    for (let col = 0; col < cells.columns; col++) {
+      const sub = cells.colSub[col]!;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) occurs[(cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub] = 1;
+    }
+    const terms = Array.from({ length: T }, (_, ti) => Array.from({ length: D2 }, (_, sub) => (ctx.assign[ti]![sub] ? cellTerms(ctx, ti, sub) : null)));
+    const index = new Map<string, number>();
+    const cw: number[] = [], cdf: number[] = [], cr1: number[] = [], cr2: number[] = [];
+    const zStart = new Int32Array(nz + 1);
+    const zClass: number[] = [], zF: number[] = [], zDf: number[] = [];
+    for (let z = 0; z < nz; z++) {
+      zStart[z] = zClass.length;
+      if (!occurs[z]) continue;
+      const sub = z % D2, ti = Math.floor(z / D2) % T, c = Math.floor(z / (D2 * T));
+      const tt = terms[ti]![sub]!;
+      for (let t = 0; t < tt.f.length; t++) {
+        const df = tt.df[t]!, r1 = ctx.r1[ti]!, r2 = ctx.r2[ti]!;
+        const key = `${c}|${df}|${r1}|${r2}`;
+        let id = index.get(key);
+        if (id === undefined) {
+          id = cw.length;
+          index.set(key, id);
+          cw.push(cells.wGrid[c]!);
+          cdf.push(df);
+          cr1.push(r1);
+          cr2.push(r2);
+        }
+        zClass.push(id);
+        zF.push(tt.f[t]!);
+        zDf.push(df);
+      }
+    }
+    zStart[nz] = zClass.length;
+    this.zStart = zStart;
+    this.zClass = Int32Array.from(zClass);
+    this.zF = Float64Array.from(zF);
+    this.zDf = Float64Array.from(zDf);
+    const sf = (a: number[]) => {
+      const x = sharedF64(a.length).subarray(0, a.length);
+      x.set(a);
+      return x;
+    };
+    this.spec = { rfClass: new Int32Array(0), classes: cw.length, classW: sf(cw), classDf: sf(cdf), classR1: sf(cr1), classR2: sf(cr2) };
+  }
+
+  /** Each class's through-slice index and magnetization Σ|m0|. */
+  classInfo(): { classIw: Int32Array; mass: Float64Array } {
+    const { cells, T, D2, zStart, zClass, zF } = this;
+    const C = this.spec.classes, classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
+    const nw = cells.wGrid.length, pd = cells.ctx.pd;
+    const fsum = new Float64Array(nw * T * D2);
+    for (let col = 0; col < cells.columns; col++) {
+      const sub = cells.colSub[col]!;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub;
+        fsum[z] = fsum[z]! + Math.abs(pd[ti]! * cells.entFrac[e]!);
+      }
+    }
+    for (let z = 0; z < fsum.length; z++) {
+      const c = Math.floor(z / (D2 * T));
+      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+        const k = zClass[t]!;
+        classIw[k] = c;
+        mass[k] = mass[k]! + fsum[z]! * Math.abs(zF[t]!);
+      }
+    }
+    return { classIw, mass };
+  }
+
+  /**
+   * One pass over the cells for ranks r0 … r1−1 (one coil): per column and
+   * (R2, Δf) key the rank weights Σ m0·G_r(c), times the pre-phases and the
+   * receiver filter, folded into X[(r − r0)·L + l] with the segment
+   * coefficients C_l(key) (as fast.ts foldPass does for stored isochromats).
+   */
+  fold(
+    plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
+    preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+  ): void {
+    if (plan.coils !== 1 || plan.sens) throw new Error("CellStream.fold: one uniform coil only");
+    const { cells, T, D2, zStart, zClass, zF } = this;
+    const W = r1 - r0, filt = plan.receiverFilter, pd = cells.ctx.pd, uGrid = cells.uGrid;
+    // per term: its key and f·G_r(class) for the ranks of this pass
+    const nt0 = zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
+    for (let t = 0; t < nt0; t++) {
+      const c = zClass[t]!, f = zF[t]!;
+      tKey[t] = keyOf[c]!;
+      for (let r = 0; r < W; r++) {
+        tVal[2 * (t * W + r)] = G[2 * (c * R + r0 + r)]! * f;
+        tVal[2 * (t * W + r) + 1] = G[2 * (c * R + r0 + r) + 1]! * f;
+      }
+    }
+    const acc = new Float64Array(2 * K * W);
+    const touched = new Int32Array(K), seen = new Uint8Array(K);
+    for (let col = 0; col < cells.columns; col++) {
+      const sub = cells.colSub[col]!;
+      let nt = 0;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
+        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+          const k = tKey[t]!;
+          if (seen[k] === 0) {
+            seen[k] = 1;
+            touched[nt++] = k;
+          }
+          const o = 2 * k * W, tv = 2 * t * W;
+          for (let r = 0; r < 2 * W; r++) acc[o + r] = acc[o + r]! + tVal[tv + r]! * fp;
+        }
+      }
+      const a = cells.colA[col]!, b = cells.colB[col]!;
+      const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
+      const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
+      const p = 2 * ((a % Mu) * Mv + (b % Mv));
+      const u = uGrid[a]!;
+      for (let q = 0; q < nt; q++) {
+        const k = touched[q]!;
+        seen[k] = 0;
+        const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
+        for (let r = 0; r < W; r++) {
+          const o = 2 * (k * W + r);
+          const zr = acc[o]!, zi = acc[o + 1]!;
+          acc[o] = 0;
+          acc[o + 1] = 0;
+          if (hk === 0) continue;
+          const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
+          const xb = r * L;
+          for (let l = 0; l < L; l++) {
+            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
+            xg[p] = xg[p]! + (wr * cr - wi * ci);
+            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+          }
+        }
+      }
+    }
+  }
+
+  /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */
+  columns(): ColumnVisitor {
+    const { cells, T, D2, zStart, zClass, zF, zDf } = this;
+    let cap = 64;
+    for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
+    const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap);
+    const pd = cells.ctx.pd;
+    return (visit) => {
+      for (let col = 0; col < cells.columns; col++) {
+        const sub = cells.colSub[col]!;
+        let n = 0;
+        for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+          const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
+          for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+            cls[n] = zClass[t]!;
+            m0[n] = fp * zF[t]!;
+            df[n] = zDf[t]!;
+            n++;
+          }
+        }
+        visit(cells.uGrid[cells.colA[col]!]!, cells.vGrid[cells.colB[col]!]!, n, cls, m0, df, -1);
+      }
+    };
+  }
+
+  /** The a-posteriori estimate (fast.ts estimateOver) over the streamed columns. */
+  estimate(
+    plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+    keyOf: Int32Array, keyDf: number[], keyR2: number[], re: Float64Array, im: Float64Array,
+  ): { samples: number; seed: number; relL2: number } {
+    return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im, this.cells.count, this.columns());
+  }
+
+  /** Columns c0 … c1−1 (as the chunk sampler of the cost model reads them). */
+  columnRange(c0: number, c1: number, visit: (a: number, b: number, n: number, cls: Int32Array) => void): void {
+    const { cells, T, D2, zStart, zClass } = this;
+    let cls = new Int32Array(64);
+    for (let col = c0; col < c1; col++) {
+      const sub = cells.colSub[col]!;
+      const need = cells.colStart[col + 1]! - cells.colStart[col]!;
+      if (need > cls.length) cls = new Int32Array(need);
+      let n = 0;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
+        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) cls[n++] = zClass[t]!;
+      }
+      visit(cells.colA[col]!, cells.colB[col]!, n, cls);
+    }
+  }
+}
