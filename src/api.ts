@@ -11,8 +11,8 @@ import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, type Sequence } from "./sequence/index.js";
-import { makeIsochromats, defaultIsochromatOptions, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
-import { BLOCK_CHUNKS, serialExecutor, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
+import { expandCells, sampleCells, defaultIsochromatOptions, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
+import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
@@ -122,7 +122,21 @@ export { isoOptionsFor, sampledLimits, slabCoverage, pathwayOrder, profileReach,
 export interface SliceRun {
   position: number;
   seq: Sequence;
-  iso: IsochromatSet;
+  /** The phantom sampled on the isochromat grid, as cell contents (what the fast operator streams). */
+  cells: IsochromatCells;
+  /** The isochromats, stored one by one: made on first use (the direct operator needs them; the streamed fast operator does not). */
+  readonly iso: IsochromatSet;
+}
+
+/** A slice run whose isochromats are expanded from its cells on first use. */
+export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells): SliceRun {
+  let iso: IsochromatSet | null = null;
+  return {
+    position, seq, cells,
+    get iso() {
+      return (iso ??= expandCells(cells));
+    },
+  };
 }
 
 /** Everything checked and sampled, before the engine: what {@link prepareSimulation} returns. */
@@ -195,7 +209,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     const geo = isoGeometry(protocol, position);
     // slices run one after another: one slice's isochromats and k-space must fit
     if (slices.length === 0) input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq });
-    const iso = makeIsochromats(phantom, geo, protocol.field, isoOpts);
+    const iso = sampleCells(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
       const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
       throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, protocolName, "slice.position");
@@ -204,19 +218,19 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
-    slices.push({ position, seq, iso });
+    slices.push(sliceRun(position, seq, iso));
   }
-  if (slices.every((sl) => sl.iso.count === 0)) {
+  if (slices.every((sl) => sl.cells.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");
   }
-  const first = slices.find((sl) => sl.iso.count > 0)!;
+  const first = slices.find((sl) => sl.cells.count > 0)!;
   if (!threeD && input.convergenceCheck !== false) {
     // a-posteriori check of the through-slice grid on one probe column (engine/convergence.ts)
     const axes = logicalAxes(protocol);
     const c = checkSliceConvergence(first.seq, phantom.tissues, { axes, thickness: protocol.slice.thickness, position: first.position, offsetHz: protocol.shim }, isoOpts.sliceCount, isoOpts.sliceExtent);
     sampling.convergence = { relativeChange: c.relativeChange, tolerance: c.tolerance, converged: c.converged, method: "probe column (in-plane centre, each tissue) on the through-slice grid and on the grid shifted by half a step; relative L2 change of every ADC sample" };
     if (!c.converged) {
-      first.iso.warnings.push(
+      first.cells.warnings.push(
         `through-slice sampling may not be converged: the signal changes by ${(100 * c.relativeChange).toFixed(2)} % (tolerance ${(100 * c.tolerance).toFixed(1)} %) ` +
           `when the ${isoOpts.sliceCount} through-slice isochromats are shifted by half a step; raise --slice-isochromats (e.g. to ${2 * isoOpts.sliceCount})`,
       );
@@ -249,7 +263,7 @@ export interface EngineSummary {
   readout?: ReadoutReport | ReadoutReport[];
 }
 
-export function spreadSummary(iso: IsochromatSet): IsochromatSummary["spreads"] {
+export function spreadSummary(iso: { spreads: IsochromatSet["spreads"] }): IsochromatSummary["spreads"] {
   return iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count }));
 }
 
@@ -264,7 +278,7 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
   for (let k = 0; k < prep.slices.length; k++) {
     const sl = prep.slices[k]!;
     const n = sl.seq.kspace.slice * sl.seq.kspace.phase * sl.seq.kspace.read;
-    if (sl.iso.count === 0) {
+    if (sl.cells.count === 0) {
       kspaces.push({ coils: 1, rows: sl.seq.kspace.slice * sl.seq.kspace.phase, read: sl.seq.kspace.read, re: new Float64Array(n), im: new Float64Array(n) });
       continue;
     }
@@ -274,23 +288,23 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
       const r = await input.runEngine({ seq: sl.seq, iso: sl.iso, protocol: prep.protocol });
       coils = { files: r.files ?? new Map(), report: r.report ?? {} };
       res = r;
-    } else res = await simulateWith(executor, sl.seq, sl.iso, {
+    } else res = await simulateCells(executor, sl.seq, sl.cells, () => sl.iso, {
       receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: input.chunkIsochromats, wasm: input.wasm, signal: input.signal,
       readout: input.readout, tolerance: input.tolerance,
       onProgress: input.onProgress
-        ? (done, total) => input.onProgress!({ slice: k, slices: prep.slices.length, done, total, isochromatTRs: (sl.iso.count * trs * done) / total })
+        ? (done, total) => input.onProgress!({ slice: k, slices: prep.slices.length, done, total, isochromatTRs: (sl.cells.count * trs * done) / total })
         : undefined,
     });
     plan = res.plan;
     if (res.readout) readouts.push(res.readout);
-    count += sl.iso.count;
+    count += sl.cells.count;
     kspaces.push(res.kspace);
   }
   return {
     kspaces,
     isoSummary: {
-      count, columns: prep.first.iso.columns, warnings: prep.slices.flatMap((s) => s.iso.warnings), spreads: spreadSummary(prep.first.iso),
-      sampling: prep.sampling, extent: prep.first.iso.extent, notes: [...new Set(prep.slices.flatMap((s) => s.iso.notes))],
+      count, columns: prep.first.cells.columns, warnings: prep.slices.flatMap((s) => s.cells.warnings), spreads: spreadSummary(prep.first.cells),
+      sampling: prep.sampling, extent: prep.first.cells.extent, notes: [...new Set(prep.slices.flatMap((s) => s.cells.notes))],
     },
     engine: {
       chunks: plan!.chunks, rfClasses: plan!.classes, ops: plan!.ops.length, workers: input.workers ?? 1, runs: prep.slices.length,

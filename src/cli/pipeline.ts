@@ -10,8 +10,8 @@ import { UserError } from "../errors.js";
 import type { Protocol } from "../protocol/index.js";
 import type { Phantom } from "../phantom/index.js";
 import type { Sequence } from "../sequence/index.js";
-import { defaultIsochromatOptions, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
-import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateParallel, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/node.js";
+import { defaultIsochromatOptions, type IsochromatCells, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
+import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateCells, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
 import {
   assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
@@ -120,10 +120,17 @@ function libraryInput(o: RunOptions): SimulateInput {
 
 /** Loads and checks every input; throws UserError before any work or file. */
 export function prepare(o: RunOptions): {
-  protocol: Protocol; seq: Sequence; iso: IsochromatSet; phantomFile: string; slices: SliceRun[]; phantom: Phantom; sampling: IsoSampling;
+  protocol: Protocol; seq: Sequence; readonly iso: IsochromatSet; cells: IsochromatCells; phantomFile: string; slices: SliceRun[]; phantom: Phantom; sampling: IsoSampling;
 } {
   const p = prepareSimulation(libraryInput(o));
-  return { protocol: p.protocol, seq: p.first.seq, iso: p.first.iso, phantomFile: o.phantom, slices: p.slices, phantom: p.phantom, sampling: p.sampling };
+  const first = p.first;
+  // the isochromats are made on first use (SliceRun.iso): the streamed fast operator needs only the cells
+  return {
+    protocol: p.protocol, seq: first.seq, cells: first.cells, phantomFile: o.phantom, slices: p.slices, phantom: p.phantom, sampling: p.sampling,
+    get iso() {
+      return first.iso;
+    },
+  };
 }
 
 /** Ctrl-C (SIGINT) or SIGTERM aborts the returned signal while `body` runs; the engine then stops its workers at once. */
@@ -145,7 +152,7 @@ async function interruptible<T>(body: (signal: AbortSignal) => Promise<T>): Prom
  * has been written.
  */
 async function simulateStage(
-  p: { seq: Sequence; iso: IsochromatSet; protocol: Protocol },
+  p: { seq: Sequence; readonly iso: IsochromatSet; cells: IsochromatCells; protocol: Protocol },
   o: RunOptions,
   extra: {
     blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onPlan?: (plan: EnginePlan) => void;
@@ -155,11 +162,10 @@ async function simulateStage(
   const label = extra.label ?? (o.shard ? `simulating shard ${o.shard[0]}/${o.shard[1]}` : "simulating");
   const progress = new Progress(label, "iso-TR", o.quiet);
   const trs = p.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, p.seq.pulses.length);
-  let isoInRange = p.iso.count;
+  let isoInRange = p.cells.count;
   try {
-    return await interruptible((signal) => simulateParallel(p.seq, p.iso, {
+    return await interruptible((signal) => simulateCells(nodeExecutor(o.workers ?? defaultWorkers()), p.seq, p.cells, () => p.iso, {
       receiverFilter: p.protocol.receiverFilter,
-      workers: o.workers ?? defaultWorkers(),
       chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
       readout: o.readout, tolerance: o.tolerance,
       signal,
@@ -267,7 +273,7 @@ async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunR
 
 async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number): Promise<RunResult> {
   const [i, n] = o.shard!;
-  const total = blockCount(countChunks(p.iso, chunkIsochromatsFromEnv()));
+  const total = blockCount(countChunks(p.cells, chunkIsochromatsFromEnv()));
   const blocks = shardBlocks(total, i, n);
   const nb = blocks[1] - blocks[0];
   let bre = new Float64Array(0), bim = new Float64Array(0);
@@ -290,10 +296,10 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     inputHash: inputHash(p.protocol, o),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, sets: o.sets, seed: o.seed, iso: o.iso, truth: o.truth === true },
     protocol: p.protocol,
-    isoSummary: { count: p.iso.count, columns: p.iso.columns, warnings: p.iso.warnings, spreads: spreadSummary(p.iso), sampling: p.sampling, extent: p.iso.extent, notes: p.iso.notes },
+    isoSummary: { count: p.cells.count, columns: p.cells.columns, warnings: p.cells.warnings, spreads: spreadSummary(p.cells), sampling: p.sampling, extent: p.cells.extent, notes: p.cells.notes },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
-  printWarnings([...p.protocol.warnings, ...p.iso.warnings]);
+  printWarnings([...p.protocol.warnings, ...p.cells.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 

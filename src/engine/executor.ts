@@ -12,9 +12,14 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
-import { fillRfMaps, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
+import { chunkStarts, fillRfMaps, planFromClasses, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
+import { CellStream } from "./fast-stream.js";
+import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
-import { DEFAULT_TOLERANCE, fastPrecheck, fastReadout, resolveReadout, type ReadoutChoice, type ReadoutReport } from "./fast.js";
+import {
+  DEFAULT_TOLERANCE, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, resolveReadout,
+  type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
+} from "./fast.js";
 
 /** Below this many RF classes the maps are filled on the calling thread (cheaper than a round trip). */
 export const PARALLEL_RF_CLASSES = 2048;
@@ -148,6 +153,11 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
   if (typeof r === "string") return direct(r);
   if (!(est <= tolerance)) return direct(`the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`);
   Object.assign(r.report, { requested }, auto);
+  return { kspace: fastKspace(r, plan, opts), readout: r.report };
+}
+
+/** The fast result as the run's k-space: no −0; with blocks (sharding) block 0 carries all of it. */
+function fastKspace(r: FastResult, plan: EnginePlan, opts: FastOptions): KSpace {
   // no −0 (so adding the zero block sums of a sharded run keeps the bits)
   for (let k = 0; k < r.re.length; k++) {
     r.re[k] = r.re[k]! + 0;
@@ -167,7 +177,70 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
     r.report.sharding = "the shard holding block 0 carries the whole fast k-space; the other shards' blocks are zero";
   }
   opts.onProgress?.(1, 1);
-  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, readout: r.report };
+  return { coils: plan.coils, rows: plan.rows, read: plan.read, re, im };
+}
+
+/**
+ * One engine run from sampled cells: where the fast operator applies and is
+ * chosen, its weights are streamed from the cells (engine/fast-stream.ts) and
+ * no isochromat is stored; otherwise `materialise()` makes the isochromats and
+ * {@link simulateWith} runs (it may still use the fast operator on them, e.g.
+ * with a B0 model). The choice depends on the inputs only, so the bits are the
+ * same for any executor, number of workers or shards.
+ */
+export async function simulateCells(
+  executor: Executor, seq: Sequence, cells: IsochromatCells, materialise: () => IsochromatSet, opts: RunOptions,
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
+  const requested = opts.readout ?? "auto";
+  const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
+  const stored = () => simulateWith(executor, seq, materialise(), opts);
+  if (requested === "direct" || opts.general || (opts.coils ?? 1) !== 1 || opts.sens || CellStream.refusal(cells) !== null) return stored();
+  const stream = new CellStream(cells);
+  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), opts);
+  if (fastPrecheck(plan) !== null) return stored();
+  let auto: { choice?: ReadoutOperator; predicted?: ReadoutCosts } = {};
+  if (requested === "auto") {
+    const costs = predictCosts(seq, plan, cells, (i0, i1, add) => {
+      // whole columns of the chunk
+      let c0 = 0, hi = cells.columns;
+      while (c0 < hi) {
+        const mid = (c0 + hi) >> 1;
+        if (cells.colStart[mid]! < i0) c0 = mid + 1;
+        else hi = mid;
+      }
+      let c1 = c0;
+      while (c1 < cells.columns && cells.colStart[c1]! < i1) c1++;
+      stream.columnRange(c0, c1, (a, b, n, cls) => {
+        for (let k = 0; k < n; k++) add(a, b, cls[k]!);
+      });
+    }, tolerance);
+    const use: ReadoutOperator = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
+    auto = { choice: use, predicted: costs };
+    if (use === "direct") {
+      const res = await simulateWith(executor, seq, materialise(), { ...opts, readout: "direct" });
+      return { ...res, readout: { ...res.readout, requested, ...auto } };
+    }
+  }
+  opts.onPlan?.(plan);
+  fillRfMaps(plan, 0, plan.classes);
+  if (opts.signal?.aborted) throw new AbortedError();
+  let r: FastResult | string = "";
+  let est = Infinity;
+  for (const split of [8, 80, 800]) {
+    r = fastReadoutFrom(seq, plan, { kind: "cells", stream }, tolerance, split);
+    if (typeof r === "string") break;
+    est = r.report.estimate?.relL2 ?? 0;
+    if (est <= tolerance) break;
+  }
+  await new Promise((res) => setTimeout(res, 0));
+  if (opts.signal?.aborted) throw new AbortedError();
+  if (typeof r === "string" || !(est <= tolerance)) {
+    const fallback = typeof r === "string" ? r : `the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`;
+    const res = await simulateWith(executor, seq, materialise(), { ...opts, readout: "direct" });
+    return { ...res, readout: { ...res.readout, requested, fallback, ...auto } };
+  }
+  Object.assign(r.report, { requested, weights: "streamed from the sampled cells (no isochromat stored)" }, auto);
+  return { kspace: fastKspace(r, plan, opts), plan, readout: r.report };
 }
 
 /** Whether a fast attempt is worth filling the RF maps for on this thread first. */

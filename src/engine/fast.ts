@@ -78,6 +78,8 @@ export interface ReadoutReport {
   pairs?: { transformed: number; skipped: number; skippedBound: number };
   /** DFT lengths of the folded grid [phase, read]. */
   grid?: [number, number];
+  /** Where the weights came from (streamed cells), if not stored isochromats. */
+  weights?: string;
   /** Non-uniform FFT kernel width (none: every position is on the DFT grid). */
   kernelWidth?: number | null;
   /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_MARGIN × the subset's relative L2 error). */

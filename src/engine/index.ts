@@ -13,13 +13,14 @@ import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BlockSummer } from "./sum.js";
 
 export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareEngineArrays, CHUNK_ISOCHROMATS, HAS_SHARED_MEMORY, type EnginePlan } from "./plan.js";
-export { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, simulateWith, chunkRange, type Executor, type ExecutorSession, type RunOptions, type KSpace } from "./executor.js";
+export { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, simulateWith, simulateCells, chunkRange, type Executor, type ExecutorSession, type RunOptions, type KSpace } from "./executor.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
 export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
-export { fastReadout, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
+export { CellStream } from "./fast-stream.js";
+export { fastReadout, fastReadoutFrom, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface SimulateOptions {
   receiverFilter: boolean;
