@@ -137,10 +137,88 @@ export class CellStream {
     }
     const acc = new Float64Array(2 * K * W);
     const touched = new Int32Array(K), seen = new Uint8Array(K);
+    // A column of one tissue at one fraction through every w (most columns) is
+    // pd·fraction times that tissue's terms summed over w and merged by key:
+    // tabulated once per (tissue, place in the voxel).
+    const nw = cells.wGrid.length;
+    const full: { keys: Int32Array; val: Float64Array; rl: Float64Array }[] = [];
+    for (let ti = 0; ti < T; ti++) {
+      for (let sub = 0; sub < D2; sub++) {
+        const sum = new Map<number, Float64Array>();
+        for (let c = 0; c < nw; c++) {
+          const z = (c * T + ti) * D2 + sub;
+          for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+            let v = sum.get(tKey[t]!);
+            if (!v) sum.set(tKey[t]!, (v = new Float64Array(2 * W)));
+            for (let r = 0; r < 2 * W; r++) v[r] = v[r]! + tVal[2 * t * W + r]!;
+          }
+        }
+        const keys = Int32Array.from(sum.keys()), val = new Float64Array(2 * W * keys.length);
+        keys.forEach((k, i) => val.set(sum.get(k)!, 2 * W * i));
+        // the same already times the segment coefficients, summed over the keys: (rank, segment) weights of a column where the receiver filter is flat (1) for every key
+        const rl = new Float64Array(2 * W * L);
+        for (let i = 0; i < keys.length; i++) {
+          const k = keys[i]!;
+          for (let r = 0; r < W; r++) {
+            const zr = val[2 * (i * W + r)]!, zi = val[2 * (i * W + r) + 1]!;
+            for (let l = 0; l < L; l++) {
+              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!;
+              rl[2 * (r * L + l)] = rl[2 * (r * L + l)]! + (zr * cr - zi * ci);
+              rl[2 * (r * L + l) + 1] = rl[2 * (r * L + l) + 1]! + (zr * ci + zi * cr);
+            }
+          }
+        }
+        full.push({ keys, val, rl });
+      }
+    }
+    // (a w index without the tissue's terms — not sampled there — makes the tabulated sum differ: such columns take the general path)
+    const complete = new Uint8Array(T * D2);
+    for (let ti = 0; ti < T; ti++) {
+      for (let sub = 0; sub < D2; sub++) {
+        let ok = 1;
+        for (let c = 0; c < nw; c++) {
+          const z = (c * T + ti) * D2 + sub;
+          if (zStart[z + 1]! === zStart[z]!) ok = 0;
+        }
+        complete[ti * D2 + sub] = ok;
+      }
+    }
     for (let col = 0; col < cells.columns; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
-      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+      const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+      let uniform = e1 - e0 === nw;
+      if (uniform) {
+        const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
+        for (let e = e0; e < e1 && uniform; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) uniform = false;
+        uniform &&= complete[ti * D2 + sub] === 1;
+      }
+      const a = cells.colA[col]!, b = cells.colB[col]!;
+      const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
+      const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
+      const p = 2 * ((a % Mu) * Mv + (b % Mv));
+      const u = uGrid[a]!;
+      if (uniform) {
+        const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
+        let flat = true;
+        if (filt) for (let i = 0; i < tab.keys.length && flat; i++) flat = receiverFilter(fRead * u + keyDf[tab.keys[i]!]!, bw) === 1;
+        if (flat) {
+          const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
+          for (let x = 0; x < W * L; x++) {
+            const zr = rl[2 * x]!, zi = rl[2 * x + 1]!, xg = X[x]!;
+            xg[p] = xg[p]! + (zr * sr - zi * si);
+            xg[p + 1] = xg[p + 1]! + (zr * si + zi * sr);
+          }
+          continue;
+        }
+        for (let i = 0; i < tab.keys.length; i++) {
+          const k = tab.keys[i]!;
+          seen[k] = 1;
+          touched[nt++] = k;
+          const o = 2 * k * W, tv = 2 * i * W;
+          for (let r = 0; r < 2 * W; r++) acc[o + r] = tab.val[tv + r]! * fp;
+        }
+      } else for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
           const k = tKey[t]!;
@@ -152,11 +230,6 @@ export class CellStream {
           for (let r = 0; r < 2 * W; r++) acc[o + r] = acc[o + r]! + tVal[tv + r]! * fp;
         }
       }
-      const a = cells.colA[col]!, b = cells.colB[col]!;
-      const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
-      const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
-      const p = 2 * ((a % Mu) * Mv + (b % Mv));
-      const u = uGrid[a]!;
       for (let q = 0; q < nt; q++) {
         const k = touched[q]!;
         seen[k] = 0;

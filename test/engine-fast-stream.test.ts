@@ -1,0 +1,111 @@
+/**
+ * The fast readout operator with its weights streamed from the sampled cells
+ * (engine/fast-stream.ts, executor simulateCells: no isochromat stored)
+ * against the direct operator on the stored isochromats (`readout:
+ * "direct"`, the oracle: itself checked against per-isochromat Bloch
+ * simulation and closed forms in engine.test.ts and engine-spoiled.test.ts).
+ * Time segmentation after Noll et al. 1991 (IEEE TMI 10:629) with
+ * least-squares interpolators after Sutton, Noll & Fessler 2003 (IEEE TMI
+ * 22:178). Also: the cell sampling expands to exactly the isochromats it
+ * counts, and a B0 model sends the run to the stored path, saying so.
+ */
+import { readFileSync } from "node:fs";
+import { join } from "node:path";
+import { describe, expect, test } from "vitest";
+import { prepare } from "../src/cli/pipeline.js";
+import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
+import { expandCells, type IsochromatOptions } from "../src/isochromats/index.js";
+import { relL2, tempDir, writeJson } from "./helpers.js";
+
+function phantomFile(b0?: string): string {
+  if (!b0) return "phantoms/two-bottle.json";
+  const j = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;
+  j["b0"] = { expression: b0 };
+  return writeJson(tempDir(), "phantom.json", j);
+}
+
+function prep(sets: string[], opts: { protocol?: string; b0?: string; phantom?: string; iso?: Partial<IsochromatOptions>; matrix?: number } = {}) {
+  const m = opts.matrix ?? 16;
+  return prepare({
+    phantom: opts.phantom ?? phantomFile(opts.b0), protocol: opts.protocol ?? "gre-demo-1.5t",
+    sets: [`matrix.read=${m}`, `matrix.phase=${m}`, "dummyScans=3", ...sets],
+    out: join(tempDir(), "out"), seed: 1,
+    iso: { density: 1, sliceCount: 5, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 1, offsetHz: 0, ...opts.iso }, workers: 1,
+  });
+}
+
+/** Runs simulateCells; `stored` counts the calls that made the isochromats one by one. */
+async function streamed(p: ReturnType<typeof prep>, readout: "fast" | "auto" = "fast", tolerance?: number) {
+  let stored = 0;
+  const r = await simulateCells(serialExecutor(), p.seq, p.cells, () => (stored++, p.iso), { receiverFilter: p.protocol.receiverFilter, readout, tolerance });
+  return { ...r, stored };
+}
+
+describe("streamed fast operator against the direct operator", () => {
+  test.each([
+    ["water and multi-peak fat (two bottles)", [] as string[], {}],
+    ["T2′ spread (4 per voxel), density 2", [], { iso: { t2primeIsochromats: 4, density: 2 } }],
+    ["3 T, TE 7 ms, flip 60°, T2′ spread", ["field=3 T", "te=7 ms", "flip=60 deg"], { iso: { t2primeIsochromats: 2 } }],
+    ["read and phase oversampling, partial Fourier along phase", ["oversampling.read=2", "oversampling.phase=0.25", "partialFourier.phase=0.75"], {}],
+    ["partial echo", ["partialFourier.read=0.75"], {}],
+    ["torso (several tissues), preset gre-t1-3t", [] as string[], { protocol: "gre-t1-3t", phantom: "phantoms/torso-slice.json", iso: { t2primeIsochromats: 4 }, matrix: 24 }],
+  ])("%s: within the tolerance, no isochromat stored, estimate bounds the error", async (_name, sets, opts) => {
+    const p = prep(["spoiling=ideal", ...sets], opts);
+    const fast = await streamed(p);
+    expect(fast.readout.operator).toBe("fast");
+    expect(fast.readout.weights).toMatch(/streamed/);
+    // the streamed run never asked for the isochromats one by one
+    expect(fast.stored).toBe(0);
+    const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    expect(direct.kspace.re.some((x) => x !== 0)).toBe(true);
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-6);
+    expect(fast.readout.estimate!.relL2).toBeGreaterThanOrEqual(err);
+    // and agrees with the fast operator on stored isochromats within the two tolerances
+    const stored = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
+    expect(relL2(fast.kspace.re, fast.kspace.im, stored.kspace.re, stored.kspace.im)).toBeLessThan(2e-6);
+  }, 60_000);
+
+  test("a B0 model sends the run to the stored isochromats (fast there), within the tolerance of direct", async () => {
+    const p = prep(["spoiling=ideal"], { b0: "60 * x / 0.05" });
+    const fast = await streamed(p);
+    expect(fast.readout.operator).toBe("fast");
+    expect(fast.readout.weights).toBeUndefined();
+    expect(fast.stored).toBe(1);
+    const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    expect(relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
+  }, 60_000);
+
+  test("spin echo: not covered, the direct operator's bits", async () => {
+    const p = prep([], { protocol: "se-t2-1.5t" });
+    const a = await streamed(p);
+    const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    expect(a.readout.operator).toBe("direct");
+    expect(a.readout.fallback).toMatch(/ideally spoiled/);
+    expect(Buffer.from(a.kspace.re.buffer).equals(Buffer.from(b.kspace.re.buffer))).toBe(true);
+  }, 60_000);
+
+  test("cells expand to exactly the counted isochromats, columns and m0 total", () => {
+    const p = prep([], { phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t", iso: { t2primeIsochromats: 4, density: 2 }, matrix: 24 });
+    const iso = expandCells(p.cells);
+    expect(iso.count).toBe(p.cells.count);
+    expect(iso.columns).toBe(p.cells.columns);
+    expect(iso.count).toBeGreaterThan(1000);
+    // Σ m0 over the isochromats = Σ over cells of pd·fraction·(Σ peak amplitudes = 1)·(Σ bin weights over the voxel's columns)·wWeight:
+    // summed directly from the cell list (the T2′ weights of a voxel's d² columns add to 1, spread.ts)
+    let m0 = 0;
+    for (let i = 0; i < iso.count; i++) m0 += iso.m0[i]!;
+    let cellSum = 0;
+    const ctx = p.cells.ctx;
+    for (let col = 0; col < p.cells.columns; col++) {
+      for (let e = p.cells.entStart[col]!; e < p.cells.entStart[col + 1]!; e++) {
+        const ti = p.cells.entTissue[e]!, as = ctx.assign[ti]![p.cells.colSub[col]!]!;
+        let wsum = 0;
+        for (const w of as.weight) wsum += w;
+        const amp = ctx.peaks[ti]!.amp.reduce((x, y) => x + y, 0);
+        cellSum += ctx.pd[ti]! * p.cells.entFrac[e]! * amp * wsum * ctx.wWeight;
+      }
+    }
+    expect(Math.abs(m0 - cellSum)).toBeLessThan(1e-9 * Math.abs(cellSum));
+  }, 60_000);
+});
