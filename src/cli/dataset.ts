@@ -3,6 +3,7 @@
  * truth for people who test reconstruction code. Wiring only; the physics is
  * in src/dataset/.
  */
+import { cellCentres } from "../isochromats/index.js";
 import { Command } from "commander";
 import { readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
@@ -357,20 +358,23 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   /** Warnings already printed on stderr in this batch (each prints once). */
   const printed = new Set<string>();
   const result = await runBatch(resolve(o.out), plan.count, o.seed, (i) => sha256(`${batchKey}:${i}`), async (i) => {
-    const { seq, iso: set, phantom: casePhantom } = prepare({
+    // the isochromats are made only if the stored path runs (prepared.iso): the fast operator streams the cells
+    const prepared = prepare({
       phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
       phantomTransform: () => plan.phantoms[i]!,
     });
+    const { seq, phantom: casePhantom, cells: set } = prepared;
     const warnings = [...protocol.warnings, ...set.warnings];
     printWarnings(warnings.filter((w) => !printed.has(w)));
     for (const w of warnings) printed.add(w);
     if (array.elements > 0) {
-      const m = enclosureMargin(array, set.x, set.y, set.count);
+      const pos = cellCentres(set);
+      const m = enclosureMargin(array, pos.x, pos.y, pos.count);
       if (m >= 0) throw new UserError(`the coil array does not enclose the object of case ${i}: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger radius`, undefined, "--array-radius");
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-    const r = await buildCase(seq, set, {
+    const r = await buildCase(seq, prepared, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {

@@ -15,14 +15,13 @@ import { encodeNpy } from "../io/npy.js";
 import { encodeNifti1 } from "../io/nifti.js";
 import { fft2c, fft3c } from "../recon/fft.js";
 import { reconstructGrid, toGrid } from "../recon/reconstruct.js";
-import type { IsochromatSet } from "../isochromats/index.js";
 import type { KGrid, Sequence } from "../sequence/types.js";
 import type { Axes } from "../protocol/geometry.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
 import { makeMask, type Mask, type MaskOptions } from "./masks.js";
 import { Rng, STREAM } from "./prng.js";
-import { simulateCoils } from "./simulate.js";
+import { simulateCoils, type CoilSource } from "./simulate.js";
 import { addRawNoise, rawFile, rawSignal, type RawContext } from "./raw.js";
 
 /** Which raw k-space containers a case gets: kspace.npy (+ noise.npy), raw.h5 (ISMRMRD), or both. */
@@ -138,7 +137,7 @@ export interface CaseResult {
 
 /** Runs the simulation and builds every array file of one case (case.json is added by the caller). */
 export async function buildCase(
-  seq: Sequence, iso: IsochromatSet, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
+  seq: Sequence, iso: CoilSource, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
   onProgress?: (done: number, total: number) => void,
 ): Promise<CaseResult> {
   const img: Dims = seq.image, kd: Dims = seq.kspace;

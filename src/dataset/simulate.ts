@@ -7,8 +7,8 @@
  * isochromats, so block k-spaces add. Each block runs on the engine's worker
  * pool (bitwise the same k-space for any number of workers).
  */
-import { simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
-import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatSet } from "../isochromats/index.js";
+import { nodeExecutor, simulateCells, simulateParallel, type EnginePlan, type KSpace, type ReadoutChoice, type ReadoutReport } from "../engine/node.js";
+import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatCells, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 
@@ -28,8 +28,11 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
  * k-space [coil][row][read] for coil 0 = uniform (S = 1) and coils 1…C of
  * the array (C = coilCount; for the uniform array only coil 0).
  */
+/** What the coil runs read: stored isochromats, or the sampled cells with the isochromats made on first use (a prepared slice). */
+export type CoilSource = IsochromatSet | { cells: IsochromatCells; readonly iso: IsochromatSet };
+
 export async function simulateCoils(
-  seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
+  seq: Sequence, iso: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
   engine: { chunkIsochromats?: number; wasm?: boolean } = {},
 ): Promise<KSpace> {
@@ -38,12 +41,39 @@ export async function simulateCoils(
 
 /** simulateCoils, also returning the engine plan (of the last block) for reports. */
 export async function simulateCoilsPlanned(
-  seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
+  seq: Sequence, src: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
-): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+  engine: { chunkIsochromats?: number; wasm?: boolean; readout?: ReadoutChoice; tolerance?: number } = {},
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
+  if (!("cells" in src)) return storedCoils(seq, src, array, C, receiverFilter, workers, onProgress, engine);
+  // Where the fast operator applies, the sensitivities multiply its per-position
+  // weights (engine/fast-stream.ts): per column and through-slice cell, at the
+  // cell centre (the position of that cell's isochromats), no isochromat stored;
+  // a coil then costs its share of the fold and an FFT per (rank, segment).
+  const opts = { receiverFilter, onProgress, ...engine };
+  const exec = nodeExecutor(workers);
+  if (C === 1) return simulateCells(exec, seq, src.cells, () => src.iso, opts);
+  return simulateCells(exec, seq, src.cells, () => src.iso, opts, {
+    sens: {
+      coils: C,
+      at: (x, y, z, n, out) => {
+        sensitivitiesAt({ ...array, elements: 0 }, x, y, z, n, out, n, 0);
+        sensitivitiesAt(array, x, y, z, n, out, n, 1);
+      },
+    },
+    stored: (o) => storedCoils(seq, src.iso, array, C, receiverFilter, workers, onProgress, { ...engine, readout: o.readout }),
+  });
+}
+
+/** Every coil per isochromat (sensitivities stored per isochromat, in blocks of columns). */
+async function storedCoils(
+  seq: Sequence, iso: IsochromatSet, array: CoilArray, C: number, receiverFilter: boolean, workers: number,
+  onProgress?: (done: number, total: number) => void,
+  engine: { chunkIsochromats?: number; wasm?: boolean; readout?: ReadoutChoice; tolerance?: number } = {},
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
+  let readout: ReadoutReport | null = null;
   let plan: EnginePlan | null = null;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
@@ -62,15 +92,16 @@ export async function simulateCoilsPlanned(
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace, plan: p } = await simulateParallel(seq, sub, {
+    const { kspace, plan: p, readout: r } = await simulateParallel(seq, sub, {
       receiverFilter, coils: C, sens, workers, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     plan = p;
+    readout ??= r;
     for (let i = 0; i < re.length; i++) {
       re[i] = re[i]! + kspace.re[i]!;
       im[i] = im[i]! + kspace.im[i]!;
     }
   }
-  return { kspace: { coils: C, rows, read, re, im }, plan: plan! };
+  return { kspace: { coils: C, rows, read, re, im }, plan: plan!, readout: readout! };
 }

@@ -13,7 +13,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { chunkStarts, fillRfMaps, planFromClasses, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
-import { CellStream } from "./fast-stream.js";
+import { CellStream, type CellSensitivities } from "./fast-stream.js";
 import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import {
@@ -190,13 +190,16 @@ function fastKspace(r: FastResult, plan: EnginePlan, opts: FastOptions): KSpace 
  */
 export async function simulateCells(
   executor: Executor, seq: Sequence, cells: IsochromatCells, materialise: () => IsochromatSet, opts: RunOptions,
+  coils?: { sens: CellSensitivities; stored: (opts: RunOptions) => Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> },
 ): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
   const requested = opts.readout ?? "auto";
   const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
-  const stored = () => simulateWith(executor, seq, materialise(), opts);
+  // with coils the caller runs the stored path (sensitivities per isochromat)
+  const storedWith = (o: RunOptions) => (coils ? coils.stored(o) : simulateWith(executor, seq, materialise(), o));
+  const stored = () => storedWith(opts);
   if (requested === "direct" || opts.general || (opts.coils ?? 1) !== 1 || opts.sens || CellStream.refusal(cells) !== null) return stored();
-  const stream = new CellStream(cells);
-  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), opts);
+  const stream = new CellStream(cells, coils?.sens ?? null);
+  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1 });
   if (fastPrecheck(plan) !== null) return stored();
   let auto: { choice?: ReadoutOperator; predicted?: ReadoutCosts } = {};
   if (requested === "auto") {
@@ -213,11 +216,11 @@ export async function simulateCells(
       stream.columnRange(c0, c1, (a, b, n, cls) => {
         for (let k = 0; k < n; k++) add(a, b, cls[k]!);
       });
-    }, tolerance);
+    }, tolerance, 8, true);
     const use: ReadoutOperator = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
     auto = { choice: use, predicted: costs };
     if (use === "direct") {
-      const res = await simulateWith(executor, seq, materialise(), { ...opts, readout: "direct" });
+      const res = await storedWith({ ...opts, readout: "direct" });
       return { ...res, readout: { ...res.readout, requested, ...auto } };
     }
   }
@@ -236,7 +239,7 @@ export async function simulateCells(
   if (opts.signal?.aborted) throw new AbortedError();
   if (typeof r === "string" || !(est <= tolerance)) {
     const fallback = typeof r === "string" ? r : `the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`;
-    const res = await simulateWith(executor, seq, materialise(), { ...opts, readout: "direct" });
+    const res = await storedWith({ ...opts, readout: "direct" });
     return { ...res, readout: { ...res.readout, requested, fallback, ...auto } };
   }
   Object.assign(r.report, { requested, weights: "streamed from the sampled cells (no isochromat stored)" }, auto);

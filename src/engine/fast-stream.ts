@@ -19,6 +19,18 @@ import { estimateOver, type ColumnVisitor, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { sharedF64 } from "./plan.js";
 
+/**
+ * Complex receive sensitivities of `coils` coils at `count` points (m):
+ * out[2·(q·count + i)] (re, im) for coil q, point i.
+ */
+export interface CellSensitivities {
+  coils: number;
+  at(x: Float64Array, y: Float64Array, z: Float64Array, count: number, out: Float64Array): void;
+}
+
+/** Sensitivities per (column, through-slice index) are cached up to this many numbers (Float64). */
+const SENS_CACHE = 32 * 1024 * 1024;
+
 export class CellStream {
   /** Enumerated RF classes (rfClass is empty: no isochromat is stored). */
   readonly spec: RfClassSpec;
@@ -36,7 +48,51 @@ export class CellStream {
     return null;
   }
 
-  constructor(readonly cells: IsochromatCells) {
+  /** Per column: sensitivities of its nw cells (2·coils·nw numbers), cached when they fit SENS_CACHE. */
+  private sensCache: Float64Array | null = null;
+  private readonly px: Float64Array;
+  private readonly py: Float64Array;
+  private readonly pz: Float64Array;
+
+  /**
+   * Sensitivities of the cells of column `col` into out[2·(q·nw + c)]: at the
+   * cell centres, the positions expandCells gives the column's isochromats.
+   */
+  sensOf(col: number, out: Float64Array): void {
+    const sens = this.sens!, nw = this.cells.wGrid.length, n = 2 * sens.coils * nw;
+    if (this.sensCache) {
+      out.set(this.sensCache.subarray(col * n, (col + 1) * n));
+      return;
+    }
+    const { uGrid, vGrid, wGrid } = this.cells, axes = this.cells.ctx.axes;
+    const u = uGrid[this.cells.colA[col]!]!, v = vGrid[this.cells.colB[col]!]!;
+    for (let c = 0; c < nw; c++) {
+      const w = wGrid[c]!;
+      this.px[c] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+      this.py[c] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+      this.pz[c] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+    }
+    sens.at(this.px, this.py, this.pz, nw, out);
+  }
+
+  constructor(readonly cells: IsochromatCells, readonly sens: CellSensitivities | null = null) {
+    {
+      const nw = cells.wGrid.length;
+      this.px = new Float64Array(nw);
+      this.py = new Float64Array(nw);
+      this.pz = new Float64Array(nw);
+      if (sens) {
+        const n = 2 * sens.coils * nw;
+        if (n * cells.columns <= SENS_CACHE) {
+          const all = new Float64Array(n * cells.columns), one = new Float64Array(n);
+          for (let col = 0; col < cells.columns; col++) {
+            this.sensOf(col, one);
+            all.set(one, col * n);
+          }
+          this.sensCache = all;
+        }
+      }
+    }
     const ctx = cells.ctx, T = ctx.pd.length, nw = cells.wGrid.length;
     const D2 = Math.max(1, ...ctx.assign.map((a) => a.length));
     this.T = T;
@@ -113,18 +169,22 @@ export class CellStream {
   }
 
   /**
-   * One pass over the cells for ranks r0 … r1−1 (one coil): per column and
-   * (R2, Δf) key the rank weights Σ m0·G_r(c), times the pre-phases and the
-   * receiver filter, folded into X[(r − r0)·L + l] with the segment
-   * coefficients C_l(key) (as fast.ts foldPass does for stored isochromats).
+   * One pass over the cells for ranks r0 … r1−1: per column, coil and
+   * (R2, Δf) key the rank weights Σ S_q·m0·G_r(c), times the pre-phases and
+   * the receiver filter, folded into X[((r − r0)·coils + q)·L + l] with the
+   * segment coefficients C_l(key) (as fast.ts foldPass does for stored
+   * isochromats). S_q is the coil's sensitivity at the cell (per column and
+   * through-slice index; 1 for one uniform coil).
    */
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
   ): void {
-    if (plan.coils !== 1 || plan.sens) throw new Error("CellStream.fold: one uniform coil only");
+    const coils = plan.coils;
+    if (plan.sens || (coils !== 1 && !this.sens) || (this.sens && this.sens.coils !== coils)) throw new Error("CellStream.fold: sensitivities must come from the stream");
     const { cells, T, D2, zStart, zClass, zF } = this;
     const W = r1 - r0, filt = plan.receiverFilter, pd = cells.ctx.pd, uGrid = cells.uGrid;
+    const nw = cells.wGrid.length, hasSens = this.sens !== null;
     // per term: its key and f·G_r(class) for the ranks of this pass
     const nt0 = zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
     for (let t = 0; t < nt0; t++) {
@@ -135,54 +195,46 @@ export class CellStream {
         tVal[2 * (t * W + r) + 1] = G[2 * (c * R + r0 + r) + 1]! * f;
       }
     }
-    const acc = new Float64Array(2 * K * W);
+    const CW = coils * W;
+    const acc = new Float64Array(2 * K * CW);
     const touched = new Int32Array(K), seen = new Uint8Array(K);
     // A column of one tissue at one fraction through every w (most columns) is
-    // pd·fraction times that tissue's terms summed over w and merged by key:
-    // tabulated once per (tissue, place in the voxel).
-    const nw = cells.wGrid.length;
-    const full: { keys: Int32Array; val: Float64Array; rl: Float64Array }[] = [];
-    for (let ti = 0; ti < T; ti++) {
-      for (let sub = 0; sub < D2; sub++) {
-        const sum = new Map<number, Float64Array>();
-        for (let c = 0; c < nw; c++) {
-          const z = (c * T + ti) * D2 + sub;
-          for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-            let v = sum.get(tKey[t]!);
-            if (!v) sum.set(tKey[t]!, (v = new Float64Array(2 * W)));
-            for (let r = 0; r < 2 * W; r++) v[r] = v[r]! + tVal[2 * t * W + r]!;
-          }
-        }
-        const keys = Int32Array.from(sum.keys()), val = new Float64Array(2 * W * keys.length);
-        keys.forEach((k, i) => val.set(sum.get(k)!, 2 * W * i));
-        // the same already times the segment coefficients, summed over the keys: (rank, segment) weights of a column where the receiver filter is flat (1) for every key
-        const rl = new Float64Array(2 * W * L);
-        for (let i = 0; i < keys.length; i++) {
-          const k = keys[i]!;
-          for (let r = 0; r < W; r++) {
-            const zr = val[2 * (i * W + r)]!, zi = val[2 * (i * W + r) + 1]!;
-            for (let l = 0; l < L; l++) {
-              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!;
-              rl[2 * (r * L + l)] = rl[2 * (r * L + l)]! + (zr * cr - zi * ci);
-              rl[2 * (r * L + l) + 1] = rl[2 * (r * L + l) + 1]! + (zr * ci + zi * cr);
-            }
-          }
-        }
-        full.push({ keys, val, rl });
-      }
-    }
-    // (a w index without the tissue's terms — not sampled there — makes the tabulated sum differ: such columns take the general path)
+    // pd·fraction times that tissue's terms already in (rank, segment) space
+    // where the receiver filter is flat (1) for all its keys: tabulated once per
+    // (tissue, place in the voxel) — summed over w for one uniform coil, per w
+    // with sensitivities (they vary through the slice).
+    const WL = W * L, perW = hasSens ? nw : 1;
+    const full: { keys: Int32Array; rl: Float64Array }[] = [];
     const complete = new Uint8Array(T * D2);
     for (let ti = 0; ti < T; ti++) {
       for (let sub = 0; sub < D2; sub++) {
         let ok = 1;
+        const keySet = new Set<number>();
+        const rl = new Float64Array(2 * WL * perW);
         for (let c = 0; c < nw; c++) {
           const z = (c * T + ti) * D2 + sub;
           if (zStart[z + 1]! === zStart[z]!) ok = 0;
+          const o = hasSens ? 2 * WL * c : 0;
+          for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+            const k = tKey[t]!;
+            keySet.add(k);
+            for (let r = 0; r < W; r++) {
+              const zr = tVal[2 * (t * W + r)]!, zi = tVal[2 * (t * W + r) + 1]!;
+              for (let l = 0; l < L; l++) {
+                const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, x = o + 2 * (r * L + l);
+                rl[x] = rl[x]! + (zr * cr - zi * ci);
+                rl[x + 1] = rl[x + 1]! + (zr * ci + zi * cr);
+              }
+            }
+          }
         }
         complete[ti * D2 + sub] = ok;
+        full.push({ keys: Int32Array.from(keySet), rl });
       }
     }
+    const S = new Float64Array(2 * coils * nw).fill(0);
+    if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
+    const tmp = new Float64Array(2 * WL);
     for (let col = 0; col < cells.columns; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
@@ -198,54 +250,75 @@ export class CellStream {
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
       const p = 2 * ((a % Mu) * Mv + (b % Mv));
       const u = uGrid[a]!;
+      if (hasSens) this.sensOf(col, S);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
         let flat = true;
         if (filt) for (let i = 0; i < tab.keys.length && flat; i++) flat = receiverFilter(fRead * u + keyDf[tab.keys[i]!]!, bw) === 1;
         if (flat) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
-          for (let x = 0; x < W * L; x++) {
-            const zr = rl[2 * x]!, zi = rl[2 * x + 1]!, xg = X[x]!;
-            xg[p] = xg[p]! + (zr * sr - zi * si);
-            xg[p + 1] = xg[p + 1]! + (zr * si + zi * sr);
+          for (let q = 0; q < coils; q++) {
+            let src = rl;
+            if (hasSens) {
+              tmp.fill(0);
+              for (let c = 0; c < nw; c++) {
+                const gr = S[2 * (q * nw + c)]!, gi = S[2 * (q * nw + c) + 1]!, o = 2 * WL * c;
+                for (let x = 0; x < WL; x++) {
+                  const zr = rl[o + 2 * x]!, zi = rl[o + 2 * x + 1]!;
+                  tmp[2 * x] = tmp[2 * x]! + (zr * gr - zi * gi);
+                  tmp[2 * x + 1] = tmp[2 * x + 1]! + (zr * gi + zi * gr);
+                }
+              }
+              src = tmp;
+            }
+            for (let r = 0; r < W; r++) {
+              for (let l = 0; l < L; l++) {
+                const x = r * L + l, zr = src[2 * x]!, zi = src[2 * x + 1]!, xg = X[(r * coils + q) * L + l]!;
+                xg[p] = xg[p]! + (zr * sr - zi * si);
+                xg[p + 1] = xg[p + 1]! + (zr * si + zi * sr);
+              }
+            }
           }
           continue;
         }
-        for (let i = 0; i < tab.keys.length; i++) {
-          const k = tab.keys[i]!;
-          seen[k] = 1;
-          touched[nt++] = k;
-          const o = 2 * k * W, tv = 2 * i * W;
-          for (let r = 0; r < 2 * W; r++) acc[o + r] = tab.val[tv + r]! * fp;
-        }
-      } else for (let e = e0; e < e1; e++) {
-        const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
+      }
+      for (let e = e0; e < e1; e++) {
+        const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
           const k = tKey[t]!;
           if (seen[k] === 0) {
             seen[k] = 1;
             touched[nt++] = k;
           }
-          const o = 2 * k * W, tv = 2 * t * W;
-          for (let r = 0; r < 2 * W; r++) acc[o + r] = acc[o + r]! + tVal[tv + r]! * fp;
+          const tv = 2 * t * W;
+          for (let q = 0; q < coils; q++) {
+            const gr = S[2 * (q * nw + c)]! * fp, gi = S[2 * (q * nw + c) + 1]! * fp, o = 2 * (k * CW + q * W);
+            for (let r = 0; r < W; r++) {
+              const zr = tVal[tv + 2 * r]!, zi = tVal[tv + 2 * r + 1]!;
+              acc[o + 2 * r] = acc[o + 2 * r]! + (zr * gr - zi * gi);
+              acc[o + 2 * r + 1] = acc[o + 2 * r + 1]! + (zr * gi + zi * gr);
+            }
+          }
         }
       }
-      for (let q = 0; q < nt; q++) {
-        const k = touched[q]!;
+      for (let i = 0; i < nt; i++) {
+        const k = touched[i]!;
         seen[k] = 0;
         const hk = filt ? receiverFilter(fRead * u + keyDf[k]!, bw) : 1;
-        for (let r = 0; r < W; r++) {
-          const o = 2 * (k * W + r);
-          const zr = acc[o]!, zi = acc[o + 1]!;
-          acc[o] = 0;
-          acc[o + 1] = 0;
-          if (hk === 0) continue;
-          const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-          const xb = r * L;
-          for (let l = 0; l < L; l++) {
-            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
-            xg[p] = xg[p]! + (wr * cr - wi * ci);
-            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+        for (let q = 0; q < coils; q++) {
+          for (let r = 0; r < W; r++) {
+            const o = 2 * (k * CW + q * W + r);
+            const zr = acc[o]!, zi = acc[o + 1]!;
+            acc[o] = 0;
+            acc[o + 1] = 0;
+            if (hk === 0) continue;
+            const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
+            const xb = (r * coils + q) * L;
+            for (let l = 0; l < L; l++) {
+              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
+              xg[p] = xg[p]! + (wr * cr - wi * ci);
+              xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+            }
           }
         }
       }
@@ -257,8 +330,9 @@ export class CellStream {
     const { cells, T, D2, zStart, zClass, zF, zDf } = this;
     let cap = 64;
     for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
-    const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap);
-    const pd = cells.ctx.pd;
+    const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap), iw = new Int32Array(cap);
+    const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1;
+    const S = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
     return (visit) => {
       for (let col = 0; col < cells.columns; col++) {
         const sub = cells.colSub[col]!;
@@ -269,10 +343,21 @@ export class CellStream {
             cls[n] = zClass[t]!;
             m0[n] = fp * zF[t]!;
             df[n] = zDf[t]!;
+            iw[n] = cells.entW[e]!;
             n++;
           }
         }
-        visit(cells.uGrid[cells.colA[col]!]!, cells.vGrid[cells.colB[col]!]!, n, cls, m0, df, -1);
+        if (S && sensIso) {
+          // each isochromat's sensitivity: its cell's, laid out as plan.sens for a set of n isochromats
+          this.sensOf(col, S);
+          for (let q = 0; q < coils; q++) {
+            for (let i = 0; i < n; i++) {
+              sensIso[2 * (q * n + i)] = S[2 * (q * nw + iw[i]!)]!;
+              sensIso[2 * (q * n + i) + 1] = S[2 * (q * nw + iw[i]!) + 1]!;
+            }
+          }
+        }
+        visit(cells.uGrid[cells.colA[col]!]!, cells.vGrid[cells.colB[col]!]!, n, cls, m0, df, -1, sensIso);
       }
     };
   }

@@ -733,8 +733,8 @@ function estimate(
   });
 }
 
-/** Visits every column: its u and v (m), isochromat count n, and per isochromat the RF class, m0, Δf (Hz); i0 the first isochromat's index (for plan.sens). */
-export type ColumnVisitor = (visit: (u: number, v: number, n: number, cls: Int32Array, m0: Float64Array, df: Float64Array, i0: number) => void) => void;
+/** Visits every column: its u and v (m), isochromat count n, and per isochromat the RF class, m0, Δf (Hz); i0 the first isochromat's index (for plan.sens), or the column's own sensitivities sens[2·(q·n + i)]. */
+export type ColumnVisitor = (visit: (u: number, v: number, n: number, cls: Int32Array, m0: Float64Array, df: Float64Array, i0: number, sens?: Float64Array) => void) => void;
 
 /** The a-posteriori estimate over columns given by `columns` (see {@link estimate}). */
 export function estimateOver(
@@ -783,7 +783,7 @@ export function estimateOver(
   const CN = coils * NR;
   const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
-  columns((u, v, n, cls, m0, df, i0) => {
+  columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {
       const i = i0 + il;
@@ -795,7 +795,10 @@ export function estimateOver(
       }
       for (let q = 0; q < coils; q++) {
         let wr = m, wi = 0;
-        if (sens) {
+        if (sensCol) {
+          wr = m * sensCol[2 * (q * n + il)]!;
+          wi = m * sensCol[2 * (q * n + il) + 1]!;
+        } else if (sens) {
           wr = m * sens[2 * (q * count + i)]!;
           wi = m * sens[2 * (q * count + i) + 1]!;
         }
@@ -965,6 +968,7 @@ export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: Isochr
 export function predictCosts(
   seq: Sequence, plan: EnginePlan, iso: { count: number; columns: number; uGrid: Float64Array; vGrid: Float64Array },
   chunkIsochromats: (i0: number, i1: number, add: (a: number, b: number, cls: number) => void) => void, tolerance: number, split = 8,
+  streamed = false,
 ): ReadoutCosts {
   const hit = costCache.get(plan);
   if (hit && hit.tolerance === tolerance) return hit.costs;
@@ -1040,11 +1044,15 @@ export function predictCosts(
     const grid = Mu * Mv;
     const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
     // weights relative to one n·log2(n) unit of a power-of-two FFT (profiled, see W_FAST)
+    // streamed from the cells (fast-stream.ts): no pass per isochromat and rank, no class hashing; a column
+    // of one tissue costs one R·L fold (the estimate still visits every isochromat once per estimate row)
     const raw = {
-      iso: count * coils * (R + ESTIMATE_ROWS) + (iso.columns + slots) * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4,
+      iso: streamed
+        ? count * coils * ESTIMATE_ROWS + iso.columns * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4
+        : count * coils * (R + ESTIMATE_ROWS) + (iso.columns + slots) * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4,
       grid: perPass * L * coils * grid + R * L * coils * usedCols * (Mv + NA),
       fft: R * L * coils * usedCols * dftCost(Mv) + 2 * coils * NA * L * (dftCost(Mu) + ns),
-      classes: count + C * plan.ops.length + 4 * NA * C * R + ns * K * L,
+      classes: (streamed ? 0 : count) + C * plan.ops.length + 4 * NA * C * R + ns * K * L,
     };
     const terms = { iso: W_FAST.iso * raw.iso, grid: W_FAST.grid * raw.grid, fft: raw.fft, classes: W_FAST.classes * raw.classes };
     const fastUnits = Object.values(terms).reduce((x, y) => x + y, 0);

@@ -486,6 +486,21 @@ export function expandCells(cells: IsochromatCells): IsochromatSet {
   };
 }
 
+/** Physical centres (m) of every sampled cell (column × through-slice index with tissue), where its isochromats sit. */
+export function cellCentres(cells: IsochromatCells): { x: Float64Array; y: Float64Array; z: Float64Array; count: number } {
+  const n = cells.entW.length, x = new Float64Array(n), y = new Float64Array(n), z = new Float64Array(n), axes = cells.ctx.axes;
+  for (let col = 0; col < cells.columns; col++) {
+    const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+    for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+      const w = cells.wGrid[cells.entW[e]!]!;
+      x[e] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
+      y[e] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
+      z[e] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
+    }
+  }
+  return { x, y, z, count: n };
+}
+
 /**
  * Samples the phantom. `fieldT` sets chemical shifts; the phantom's B0 model
  * (if any) adds its offset at each isochromat's physical position.
