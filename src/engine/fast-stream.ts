@@ -333,9 +333,74 @@ export class CellStream {
     const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap), iw = new Int32Array(cap);
     const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1;
     const S = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
-    return (visit) => {
+    return (visit, addSamples, setup) => {
+      // A column of one tissue at one fraction through every w, where the receiver
+      // filter is 1 for all its keys, is fp·Σ_c S_q(c)·Y[c][s] with
+      // Y[c][s] = Σ over the cell's terms of f·Pr_class(row(s))·dec_key(s): the
+      // same exact per-class state and decay (no line factor, no segments, no FFT),
+      // summed per cell once instead of per isochromat.
+      const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
+      const Y: (Float64Array | null)[] = [], keysOf: Int32Array[] = [];
+      for (let ti = 0; ti < T; ti++) {
+        for (let sub = 0; sub < D2; sub++) {
+          const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
+          let ok = true;
+          for (let c = 0; c < nw; c++) {
+            const z = (c * T + ti) * D2 + sub;
+            if (zStart[z + 1]! === zStart[z]!) ok = false;
+            for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+              const cl = zClass[t]!, k = keyOf[cl]!, f = zF[t]!;
+              ks.add(k);
+              for (let s = 0; s < NS; s++) {
+                const w = Math.floor(s / PJ), pr = Pr[2 * (cl * NR + w)]! * f, pi = Pr[2 * (cl * NR + w) + 1]! * f;
+                const dr = dec[2 * (k * NS + s)]!, di = dec[2 * (k * NS + s) + 1]!, o = 2 * (c * NS + s);
+                y[o] = y[o]! + (pr * dr - pi * di);
+                y[o + 1] = y[o + 1]! + (pr * di + pi * dr);
+              }
+            }
+          }
+          Y.push(ok ? y : null);
+          keysOf.push(Int32Array.from(ks));
+        }
+      }
+      const colv = new Float64Array(2 * coils * NS), one = new Float64Array(2 * nw);
+      for (let c = 0; c < nw; c++) one[2 * c] = 1;
       for (let col = 0; col < cells.columns; col++) {
         const sub = cells.colSub[col]!;
+        const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+        let uniform = e1 - e0 === nw;
+        if (uniform) {
+          const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
+          for (let e = e0; e < e1 && uniform; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) uniform = false;
+          uniform &&= Y[ti * D2 + sub] !== null;
+        }
+        const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+        if (uniform) {
+          const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
+          let flat = true;
+          if (filter) for (const k of keysOf[z]!) if (receiverFilter(filter.fRead * u + keyDf[k]!, filter.bw) !== 1) flat = false;
+          if (flat) {
+            const y = Y[z]!;
+            let Sc = one;
+            if (S) {
+              this.sensOf(col, S);
+              Sc = S;
+            }
+            colv.fill(0);
+            for (let q = 0; q < coils; q++) {
+              for (let c = 0; c < nw; c++) {
+                const gr = Sc[2 * (q * nw + c)]! * fp, gi = Sc[2 * (q * nw + c) + 1]! * fp;
+                for (let s = 0; s < NS; s++) {
+                  const yr = y[2 * (c * NS + s)]!, yi = y[2 * (c * NS + s) + 1]!, o = 2 * (q * NS + s);
+                  colv[o] = colv[o]! + (yr * gr - yi * gi);
+                  colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
+                }
+              }
+            }
+            addSamples(u, v, colv);
+            continue;
+          }
+        }
         let n = 0;
         for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
           const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
@@ -357,7 +422,7 @@ export class CellStream {
             }
           }
         }
-        visit(cells.uGrid[cells.colA[col]!]!, cells.vGrid[cells.colB[col]!]!, n, cls, m0, df, -1, sensIso);
+        visit(u, v, n, cls, m0, df, -1, sensIso);
       }
     };
   }

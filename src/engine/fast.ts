@@ -734,7 +734,25 @@ function estimate(
 }
 
 /** Visits every column: its u and v (m), isochromat count n, and per isochromat the RF class, m0, Δf (Hz); i0 the first isochromat's index (for plan.sens), or the column's own sensitivities sens[2·(q·n + i)]. */
-export type ColumnVisitor = (visit: (u: number, v: number, n: number, cls: Int32Array, m0: Float64Array, df: Float64Array, i0: number, sens?: Float64Array) => void) => void;
+export type ColumnVisitor = (
+  visit: (u: number, v: number, n: number, cls: Int32Array, m0: Float64Array, df: Float64Array, i0: number, sens?: Float64Array) => void,
+  /** Adds a column's direct sums at the estimate's samples, colv[2·(q·S + s)] before the in-plane phase (a visitor that sums whole columns itself). */
+  addSamples: (u: number, v: number, colv: Float64Array) => void,
+  setup: EstimateSetup,
+) => void;
+
+/** The estimate's sample subset and exact per-class factors, for visitors that sum whole columns themselves. */
+export interface EstimateSetup {
+  /** Samples S, estimate rows NR, samples per row PJ (sample s lies in row ⌊s/PJ⌋). */
+  S: number; NR: number; PJ: number;
+  /** Pr[2·(c·NR + w)]: Σ over the readouts of row w of c_n·P_c(n), exact (no line factor). */
+  Pr: Float64Array;
+  /** dec[2·(k·S + s)]: exp(−j_s·Δt·(R2 + i2πΔf)) of key k, exact (no time segmentation). */
+  dec: Float64Array;
+  keyOf: Int32Array; keyDf: number[];
+  /** Receiver filter: read gradient γ̄G (Hz/m) and sampled bandwidth (Hz), or null without the filter. */
+  filter: { fRead: number; bw: number } | null;
+}
 
 /** The a-posteriori estimate over columns given by `columns` (see {@link estimate}). */
 export function estimateOver(
@@ -783,6 +801,18 @@ export function estimateOver(
   const CN = coils * NR;
   const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
+  const addPhased = (u: number, v: number, colv: Float64Array) => {
+    for (let s = 0; s < S; s++) {
+      const w = Math.floor(s / PJ);
+      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
+      for (let q = 0; q < coils; q++) {
+        const o = 2 * (q * S + s), xr = colv[o]!, xi = colv[o + 1]!;
+        tot[o] = tot[o]! + (xr * er - xi * ei);
+        tot[o + 1] = tot[o + 1]! + (xr * ei + xi * er);
+      }
+    }
+  };
+  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.fRead, bw: a0.bwSampled } : null };
   columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {
@@ -826,16 +856,8 @@ export function estimateOver(
         accI.fill(0, o, o + NR);
       }
     }
-    for (let s = 0; s < S; s++) {
-      const w = Math.floor(s / PJ);
-      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
-      for (let q = 0; q < coils; q++) {
-        const o = 2 * (q * S + s), xr = col[o]!, xi = col[o + 1]!;
-        tot[o] = tot[o]! + (xr * er - xi * ei);
-        tot[o + 1] = tot[o + 1]! + (xr * ei + xi * er);
-      }
-    }
-  });
+    addPhased(u, v, col);
+  }, addPhased, setup);
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
