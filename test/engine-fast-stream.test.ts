@@ -11,6 +11,7 @@
  */
 import { readFileSync } from "node:fs";
 import { join } from "node:path";
+import fc from "fast-check";
 import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
 import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
@@ -131,4 +132,47 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
       expect(relL2(direct.kspace.re.subarray(n, 2 * n), direct.kspace.im.subarray(n, 2 * n), direct.kspace.re.subarray(0, n), direct.kspace.im.subarray(0, n))).toBeGreaterThan(0.05);
     }
   }, 60_000);
+});
+
+describe("property: random small protocols and sampling", () => {
+  test("streamed fast within the tolerance of direct, estimate bounds the error (seeded)", async () => {
+    let fastRuns = 0;
+    await fc.assert(
+      fc.asyncProperty(
+        fc.record({
+          matrix: fc.constantFrom(12, 16),
+          flip: fc.integer({ min: 10, max: 90 }),
+          te: fc.constantFrom(8, 10, 14),
+          osRead: fc.constantFrom(1, 2),
+          pf: fc.constantFrom(1, 0.75),
+          density: fc.constantFrom(1, 2),
+          sliceCount: fc.integer({ min: 3, max: 6 }),
+          t2prime: fc.constantFrom(1, 2, 4),
+          torso: fc.boolean(),
+          tolerance: fc.constantFrom(1e-4, 1e-6),
+        }),
+        async (c) => {
+          const p = prep(
+            ["spoiling=ideal", `flip=${c.flip} deg`, `te=${c.te} ms`, `oversampling.read=${c.osRead}`, `partialFourier.phase=${c.pf}`, ...(c.torso ? ["field=3 T"] : [])],
+            { matrix: c.matrix, iso: { density: c.density, sliceCount: c.sliceCount, t2primeIsochromats: c.t2prime }, ...(c.torso ? { phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t" } : {}) },
+          );
+          const fast = await streamed(p, "fast", c.tolerance);
+          const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+          if (fast.readout.operator !== "fast") {
+            // a refusal must say why and give the direct operator's k-space
+            expect(fast.readout.fallback).toBeTruthy();
+            return;
+          }
+          expect(fast.stored).toBe(0);
+          fastRuns++;
+          const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+          expect(err).toBeLessThan(c.tolerance);
+          expect(fast.readout.estimate!.relL2).toBeGreaterThanOrEqual(err);
+        },
+      ),
+      { numRuns: 8, seed: 11 },
+    );
+    // the property exercised the streamed operator, not only refusals
+    expect(fastRuns).toBeGreaterThanOrEqual(6);
+  }, 120_000);
 });
