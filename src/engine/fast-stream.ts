@@ -15,7 +15,7 @@
  */
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
-import { estimateOver, type ColumnVisitor, type History } from "./fast.js";
+import { estimateOver, pivotedBasis, project, type ColumnVisitor, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { sharedF64 } from "./plan.js";
 
@@ -179,6 +179,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+    tol = 0,
   ): void {
     const coils = plan.coils;
     if (plan.sens || (coils !== 1 && !this.sens) || (this.sens && this.sens.coils !== coils)) throw new Error("CellStream.fold: sensitivities must come from the stream");
@@ -204,7 +205,7 @@ export class CellStream {
     // (tissue, place in the voxel) — summed over w for one uniform coil, per w
     // with sensitivities (they vary through the slice).
     const WL = W * L, perW = hasSens ? nw : 1;
-    const full: { keys: Int32Array; rl: Float64Array }[] = [];
+    const full: { keys: Int32Array; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
     const complete = new Uint8Array(T * D2);
     for (let ti = 0; ti < T; ti++) {
       for (let sub = 0; sub < D2; sub++) {
@@ -229,7 +230,20 @@ export class CellStream {
           }
         }
         complete[ti * D2 + sub] = ok;
-        full.push({ keys: Int32Array.from(keySet), rl });
+        // With sensitivities: the (through-slice index × (rank, segment)) table in
+        // a low-rank form rl[c] ≈ Σ_j α_j(c)·B_j (pivoted Gram–Schmidt, truncated
+        // at `tol` of its Frobenius norm, as the line and time factors), used where
+        // it is cheaper: per column and coil Σ_c S_q(c)·α_j(c), then Σ_j γ_j·B_j.
+        let low: { J: number; B: Float64Array; alpha: Float64Array } | null = null;
+        if (hasSens && tol > 0 && ok) {
+          const basis = pivotedBasis(rl.slice(), WL, nw, tol, nw);
+          if (basis && basis.length * (nw + WL) < nw * WL) {
+            const J = basis.length, B = new Float64Array(2 * J * WL);
+            basis.forEach((b, j) => B.set(b, 2 * j * WL));
+            low = { J, B, alpha: project(basis, rl, WL, nw) };
+          }
+        }
+        full.push({ keys: Int32Array.from(keySet), rl, low });
       }
     }
     const S = new Float64Array(2 * coils * nw).fill(0);
@@ -259,7 +273,25 @@ export class CellStream {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           for (let q = 0; q < coils; q++) {
             let src = rl;
-            if (hasSens) {
+            if (hasSens && tab.low) {
+              const { J, B, alpha } = tab.low;
+              tmp.fill(0);
+              for (let j = 0; j < J; j++) {
+                let gr = 0, gi = 0;
+                for (let c = 0; c < nw; c++) {
+                  const sr = S[2 * (q * nw + c)]!, si = S[2 * (q * nw + c) + 1]!, ar = alpha[2 * (c * J + j)]!, ai = alpha[2 * (c * J + j) + 1]!;
+                  gr += sr * ar - si * ai;
+                  gi += sr * ai + si * ar;
+                }
+                const o = 2 * j * WL;
+                for (let x = 0; x < WL; x++) {
+                  const zr = B[o + 2 * x]!, zi = B[o + 2 * x + 1]!;
+                  tmp[2 * x] = tmp[2 * x]! + (zr * gr - zi * gi);
+                  tmp[2 * x + 1] = tmp[2 * x + 1]! + (zr * gi + zi * gr);
+                }
+              }
+              src = tmp;
+            } else if (hasSens) {
               tmp.fill(0);
               for (let c = 0; c < nw; c++) {
                 const gr = S[2 * (q * nw + c)]!, gi = S[2 * (q * nw + c) + 1]!, o = 2 * WL * c;

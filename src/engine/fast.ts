@@ -177,7 +177,7 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
 }
 
 /** coef[c·R + r] = basis_r^H · x_c for columns x_c (length m, interleaved) of `x`. */
-function project(basis: Float64Array[], x: Float64Array, m: number, count: number): Float64Array {
+export function project(basis: Float64Array[], x: Float64Array, m: number, count: number): Float64Array {
   const R = basis.length, coef = new Float64Array(2 * count * R);
   for (let c = 0; c < count; c++) {
     const o = c * 2 * m;
@@ -543,7 +543,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         }
       }
       if (src.kind === "iso") foldPass(src.iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
-      else src.stream.fold(plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
+      else src.stream.fold(plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X, tolerance / split);
     }
     for (let q = 0; q < coils; q++) {
       for (let l = 0; l < L; l++) {
