@@ -178,7 +178,7 @@ export class CellStream {
    */
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
-    preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+    preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
     tol = 0,
   ): void {
     const coils = plan.coils;
@@ -304,10 +304,11 @@ export class CellStream {
               src = tmp;
             }
             for (let r = 0; r < W; r++) {
+              const ob = p * NX + 2 * (r * coils + q) * L;
               for (let l = 0; l < L; l++) {
-                const x = r * L + l, zr = src[2 * x]!, zi = src[2 * x + 1]!, xg = X[(r * coils + q) * L + l]!;
-                xg[p] = xg[p]! + (zr * sr - zi * si);
-                xg[p + 1] = xg[p + 1]! + (zr * si + zi * sr);
+                const x = r * L + l, zr = src[2 * x]!, zi = src[2 * x + 1]!, o = ob + 2 * l;
+                XB[o] = XB[o]! + (zr * sr - zi * si);
+                XB[o + 1] = XB[o + 1]! + (zr * si + zi * sr);
               }
             }
           }
@@ -345,11 +346,11 @@ export class CellStream {
             acc[o + 1] = 0;
             if (hk === 0) continue;
             const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-            const xb = (r * coils + q) * L;
+            const xb = p * NX + 2 * (r * coils + q) * L;
             for (let l = 0; l < L; l++) {
-              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
-              xg[p] = xg[p]! + (wr * cr - wi * ci);
-              xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = xb + 2 * l;
+              XB[o] = XB[o]! + (wr * cr - wi * ci);
+              XB[o + 1] = XB[o + 1]! + (wr * ci + wi * cr);
             }
           }
         }

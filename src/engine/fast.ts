@@ -490,13 +490,14 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
       AL[2 * (k * R + r) + 1] = ar * ci + ai * cr;
     }
   }
-  // --- per rank: fold into grids X[q][l], transform, accumulate
-  // Folded grids, column-major (read index a outer, phase index b inner): X[q·L + l][2·(a·Mv + b)].
+  // --- per pass of ranks: fold into the grids, transform, accumulate
+  // Folded grids interleaved per position (the fold writes every (rank, coil,
+  // segment) of a position at once): XB[2·((a·Mv + b)·NX + x)], x = ((r − r0)·coils + q)·L + l.
   const grid = Mu * Mv;
   // ranks folded per pass over the isochromats: as many as GRID_BYTES of grids allow
   const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
-  const X: Float64Array[] = [];
-  for (let q = 0; q < perPass * coils * L; q++) X.push(new Float64Array(2 * grid));
+  const NX = perPass * coils * L;
+  const XB = new Float64Array(2 * grid * NX);
   const colUsed = new Uint8Array(Mu);
   if (src.kind === "iso") {
     const iso = src.iso;
@@ -530,44 +531,46 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     return m;
   };
   const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
+  /** Phase-axis DFT of every used read column of the listed grids (read column outer, so its block stays in cache); the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]. */
+  const transform = (list: { x: number; r: number; q: number; l: number }[]) => {
+    if (list.length === 0) return;
+    const inp = dftV.input, out = dftV.output;
+    for (let a = 0; a < Mu; a++) {
+      if (colUsed[a] === 0) continue;
+      const base = 2 * a * Mv * NX;
+      for (const e of list) {
+        for (let b = 0; b < Mv; b++) {
+          const o = base + 2 * (b * NX + e.x);
+          inp[2 * b] = XB[o]!;
+          inp[2 * b + 1] = XB[o + 1]!;
+        }
+        dftV.execute(-1);
+        const z = Z[e.q * L + e.l]!;
+        for (let k = 0; k < NA; k++) {
+          const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
+          const cr = AL[2 * (k * R + e.r)]!, ci = AL[2 * (k * R + e.r) + 1]!, o = 2 * (k * Mu + a);
+          z[o] = z[o]! + (fr * cr - fi * ci);
+          z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
+        }
+      }
+    }
+  };
   // Pairs (rank r, segment l) are transformed unless their contribution's bound
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/split of the norm of the rank-0 k-space; skipped pairs are counted.
   let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
-  for (let r = 0; r < R; r++) {
-    const r0 = r - (r % perPass);
-    if (r === r0) {
-      if (r > 0) {
-        for (const x of X) {
-          for (let a = 0; a < Mu; a++) if (colUsed[a]) x.fill(0, 2 * a * Mv, 2 * (a + 1) * Mv);
-        }
-      }
-      if (src.kind === "iso") foldPass(src.iso, plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X);
-      else src.stream.fold(plan, G, R, r0, Math.min(R, r0 + perPass), keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, X, tolerance / split);
-    }
-    for (let q = 0; q < coils; q++) {
-      for (let l = 0; l < L; l++) {
-        const xg = X[((r - r0) * coils + q) * L + l]!;
-        if (budget >= 0) {
-          let n2 = 0;
-          for (let a = 0; a < Mu; a++) {
-            if (!colUsed[a]) continue;
-            for (let k = 2 * a * Mv; k < 2 * (a + 1) * Mv; k++) n2 += xg[k]! * xg[k]!;
-          }
-          const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2);
-          if (bound <= budget) {
-            skipped++;
-            skippedBound += bound;
-            continue;
-          }
-        }
-        kept++;
-        // phase-axis DFT of every used read column; the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]
-        phaseTransform(xg, Z[q * L + l]!, colUsed, Mu, Mv, dftV, NA, mLine, AL, r, R);
-      }
-    }
-    if (r === 0) {
-      // the norm of the rank-0 k-space sets the budget of the skipped pairs
+  for (let r0 = 0; r0 < R; r0 += perPass) {
+    const r1 = Math.min(R, r0 + perPass);
+    if (r0 > 0) for (let a = 0; a < Mu; a++) if (colUsed[a]) XB.fill(0, 2 * a * Mv * NX, 2 * (a + 1) * Mv * NX);
+    if (src.kind === "iso") foldPass(src.iso, plan, G, R, r0, r1, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX);
+    else src.stream.fold(plan, G, R, r0, r1, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split);
+    let rs = r0;
+    if (r0 === 0) {
+      // rank 0 always; the norm of its k-space sets the budget of the skipped pairs
+      const list: { x: number; r: number; q: number; l: number }[] = [];
+      for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list.push({ x: q * L + l, r: 0, q, l });
+      transform(list);
+      kept += list.length;
       let n2 = 0;
       for (let q = 0; q < coils; q++) {
         for (let k = 0; k < NA; k++) {
@@ -577,7 +580,34 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         }
       }
       budget = ((tolerance / split) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
+      rs = 1;
     }
+    if (rs >= r1) continue;
+    // norms of the pass's grids, one sweep
+    const n2 = new Float64Array(NX);
+    for (let a = 0; a < Mu; a++) {
+      if (!colUsed[a]) continue;
+      for (let o = 2 * a * Mv * NX; o < 2 * (a + 1) * Mv * NX; o += 2 * NX) {
+        for (let x = 0; x < NX; x++) n2[x] = n2[x]! + XB[o + 2 * x]! ** 2 + XB[o + 2 * x + 1]! ** 2;
+      }
+    }
+    const list: { x: number; r: number; q: number; l: number }[] = [];
+    for (let r = rs; r < r1; r++) {
+      for (let q = 0; q < coils; q++) {
+        for (let l = 0; l < L; l++) {
+          const x = ((r - r0) * coils + q) * L + l;
+          const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2[x]!);
+          if (bound <= budget) {
+            skipped++;
+            skippedBound += bound;
+            continue;
+          }
+          list.push({ x, r, q, l });
+        }
+      }
+    }
+    transform(list);
+    kept += list.length;
   }
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
@@ -606,12 +636,12 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
 /**
  * One pass over the isochromats for ranks r0 … r1−1: per column and (R2, Δf)
  * key the rank weights Σ m0·G_r(c)·S_q, times the pre-phases and the
- * receiver filter, folded into the grids X[((r − r0)·coils + q)·L + l] with
+ * receiver filter, folded into the grids XB at x = ((r − r0)·coils + q)·L + l with
  * the segment coefficients C_l(key).
  */
 function foldPass(
   iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
-  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, X: Float64Array[],
+  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
 ): void {
   const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
   const { iu, iv, m0, colStart, uGrid } = iso;
@@ -664,35 +694,14 @@ function foldPass(
           accI[o] = 0;
           if (hk === 0) continue;
           const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-          const xb = (r * coils + q) * L;
+          const xb = p * NX + 2 * (r * coils + q) * L;
           for (let l = 0; l < L; l++) {
-            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, xg = X[xb + l]!;
-            xg[p] = xg[p]! + (wr * cr - wi * ci);
-            xg[p + 1] = xg[p + 1]! + (wr * ci + wi * cr);
+            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = xb + 2 * l;
+            XB[o] = XB[o]! + (wr * cr - wi * ci);
+            XB[o + 1] = XB[o + 1]! + (wr * ci + wi * cr);
           }
         }
       }
-    }
-  }
-}
-
-/**
- * Phase-axis DFT of every used read column of grid xg (column-major, Mv per
- * column); the sampled lines, times AL[n][r] (c_n·post-phase·A_r(n)), added
- * into z[n][a].
- */
-function phaseTransform(xg: Float64Array, z: Float64Array, colUsed: Uint8Array, Mu: number, Mv: number, dft: FFTPlan, NA: number, mLine: Int32Array, AL: Float64Array, r: number, R: number): void {
-  const inp = dft.input, out = dft.output;
-  for (let a = 0; a < Mu; a++) {
-    if (colUsed[a] === 0) continue;
-    const o0 = 2 * a * Mv;
-    for (let k = 0; k < 2 * Mv; k++) inp[k] = xg[o0 + k]!;
-    dft.execute(-1);
-    for (let k = 0; k < NA; k++) {
-      const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
-      const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = 2 * (k * Mu + a);
-      z[o] = z[o]! + (fr * cr - fi * ci);
-      z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
     }
   }
 }
