@@ -59,6 +59,14 @@ export interface DatasetCliOptions {
   noiseModel: string;
   snrReference?: string;
   exact?: boolean;
+  /** Readout operator and its tolerance (the shared simulation options, as for simulate). */
+  readout?: "auto" | "fast" | "direct";
+  tolerance?: number;
+}
+
+/** Engine options of a dataset run: environment switches and the readout operator. */
+function datasetEngine(o: DatasetCliOptions) {
+  return { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}) };
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -273,7 +281,10 @@ function rawH5Relation(p: Protocol, M: number, N: number): Record<string, unknow
       `ifftc the centred inverse DFT with 1/n (fftConvention); so raw samples are about M/N = ${(M / N).toFixed(3)} times the kspace.npy samples, ` +
       `the oversampled margin of the read field of view holds the object and independent noise of the same per-pixel variance`,
     noise: "per raw sample σ²·M/N·Ψ (the sampled bandwidth is M/N times wider at the same readout duration); inside the read field of view the noise is exactly that of kspace.npy; noise-only readouts relate to noise.npy the same way",
-    lines: "one acquisition per sampled line of mask.npy (dropped lines are absent); phase oversampling removed (lines on the image phase grid); averages combined; reversed readouts turned round into k-space order",
+    lines: "one acquisition per sampled line of mask.npy and average (dropped lines are absent); phase oversampling removed (lines on the image phase grid); reversed readouts turned round into k-space order",
+    averages: `${p.averages} record${p.averages === 1 ? "" : "s"} per sampled line, idx.average = 0 … ${p.averages - 1} (encoding limit average maximum ${p.averages - 1}), the averages of a line one after another; ` +
+      "the noise-free signal of each is the simulated mean over the averages (the engine adds the averages of a line with weight 1/averages), the noise of each is independent with covariance averages·σ²·Ψ per image-grid sample, " +
+      "and the mean over the averages of the records of a line relates to kspace.npy by the relation above (kspace.npy holds the averaged line, noise σ²·Ψ)",
     frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated)",
     recon: "ismrmrd_recon_cartesian_2d (2D, full sampling) gives M·N_phase × the root-sum-of-squares of the kspace.npy coil images: it uses an unnormalised inverse FFT",
     flags: "first/last in encode step 1 per slice-encoding step; first/last in encode step 2, slice, average and repetition on the first/last imaging readout; last in measurement; ACS lines: parallel calibration, plus parallel calibration and imaging when the line also belongs to the undersampled pattern (uniform: the lattice; random, poisson: every ACS line)",
@@ -300,7 +311,7 @@ function snrFactorsOf(p: Protocol, seq: { kspace: { slice: number; phase: number
  */
 async function physicalNoise(phantomFile: string, reference: Protocol, refName: string, snr: number, protocol: Protocol, iso: ReturnType<typeof isoOptions>, o: DatasetCliOptions) {
   const ref = prepare({ phantom: phantomFile, protocol: refName, sets: [], out: o.out, seed: o.seed, iso, quiet: true });
-  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers());
+  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers(), undefined, datasetEngine(o));
   const img = ref.seq.image;
   const v = toImageGrid(k.re, k.im, 1, ref.seq.kspace, img, ref.seq.grid);
   const meanSignal = snrSigma(v.re, v.im, 1).meanSignal;
@@ -335,6 +346,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const batchKey = sha256(JSON.stringify({
     version: version(), phantom: sha256(readFileSync(phantomFile)), protocol, iso, array, psi: [Array.from(plan.psi.re), Array.from(plan.psi.im)],
     snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed, format: plan.format,
+    readout: o.readout ?? "auto", tolerance: o.tolerance ?? null,
     ...(plan.reference ? { reference: plan.reference } : {}),
   }));
   const physical = plan.reference ? await physicalNoise(phantomFile, plan.reference, o.snrReference!, plan.snr!, protocol, iso, o) : null;
@@ -374,7 +386,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
-      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() },
+      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: datasetEngine(o),
       ...(physical ? { sigma: physical.sigma } : {}),
       format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
     }, i,
@@ -413,6 +425,10 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
         "with one slice-encoding step the slice axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
         `${r.info.kspaceAcquired.read} read points (read oversampling ${protocol.oversampling.read}); those were transformed to the image, the central ${r.info.dims.read} kept, and transformed back.`,
       ...(plan.format !== "npy" ? { rawH5: rawH5Relation(protocol, seq.grid.read, r.info.dims.read) } : {}),
+      engine: {
+        readout: r.info.readout.length === 1 ? r.info.readout[0]! : r.info.readout,
+        readoutNote: "what the readout operator did, as report.json engine.readout of simulate: operator used, operator requested (--readout), tolerance (relative L2 of k-space), fallback reason if the direct operator ran instead of the fast one; one report per engine run when the coils are simulated in several blocks",
+      },
       imageScale: "a voxel full of tissue with PD 1, fully relaxed and tipped by 90°, is about 1 in truth[0]",
       coils: array.elements === 0
         ? { kind: "uniform", count: 1, sensitivity: "S = 1 everywhere" }
