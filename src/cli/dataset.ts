@@ -15,15 +15,18 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, mergeDatasetParts, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
+import { axesFromAffine } from "../io/run-folder.js";
+import { displayTransform, toDisplay } from "../report/display.js";
 import { prepare, printWarnings, sampledLimits, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { withOutputDir } from "../io/outpath.js";
+import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
 
 export interface DatasetCliOptions {
@@ -67,6 +70,17 @@ export interface DatasetCliOptions {
 /** Engine options of a dataset run: environment switches and the readout operator. */
 function datasetEngine(o: DatasetCliOptions) {
   return { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}) };
+}
+
+/** Ψ from a file (.npy or JSON; dataset/noise.ts parseCovariance); errors name `option`. */
+export function readCovariance(file: string, coils: number, option: string): CMatrix {
+  let bytes: Uint8Array;
+  try {
+    bytes = new Uint8Array(readFileSync(file));
+  } catch (e) {
+    throw new UserError(`cannot read ${file}: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`, undefined, option);
+  }
+  return parseCovariance(bytes, file, coils, option);
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -382,15 +396,15 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-    const r = await buildCase(seq, set, {
+    const sim = await simulateCoilsPlanned(seq, set, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), datasetEngine(o));
+    const r = buildCase(seq, sim, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
-      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: datasetEngine(o),
+      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed,
       ...(physical ? { sigma: physical.sigma } : {}),
       format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
-    }, i,
-    (d, t) => progress.update(d, t));
+    }, i);
     progress.done();
     const p = plan.perturbations[i]!;
     const params = {
@@ -589,17 +603,19 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
       for (let i = 0; i < plane; i++) rss[i] += coilRe[c * n + pz * plane + i]! ** 2 + coilIm[c * n + pz * plane + i]! ** 2;
     }
     for (let i = 0; i < plane; i++) rss[i] = Math.sqrt(rss[i]!);
-    files.set("coil-rss.png", encodeGrayPng(rss, img.read, img.phase).png);
+    // pictures in display orientation, as image.png (report/display.ts, the same geometry as the run's affine)
+    const disp = displayTransform(axesFromAffine(voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3)));
+    const rssD = toDisplay(disp, rss, img.read, img.phase);
+    files.set("coil-rss.png", encodeGrayPng(rssD.values, rssD.width, rssD.height).png);
+    const tw = rssD.width, th = rssD.height;
     const cols = Math.ceil(Math.sqrt(C)), rowsN = Math.ceil(C / cols);
-    const W = cols * img.read, H = rowsN * img.phase, mosaic = new Float64Array(W * H);
+    const W = cols * tw, H = rowsN * th, mosaic = new Float64Array(W * H);
+    const mag = new Float64Array(plane);
     for (let c = 0; c < C; c++) {
-      const ox = (c % cols) * img.read, oy = Math.floor(c / cols) * img.phase;
-      for (let y = 0; y < img.phase; y++) {
-        for (let x = 0; x < img.read; x++) {
-          const k = c * n + pz * plane + y * img.read + x;
-          mosaic[(oy + y) * W + ox + x] = Math.hypot(coilRe[k]!, coilIm[k]!);
-        }
-      }
+      for (let i = 0; i < plane; i++) mag[i] = Math.hypot(coilRe[c * n + pz * plane + i]!, coilIm[c * n + pz * plane + i]!);
+      const tile = toDisplay(disp, mag, img.read, img.phase).values;
+      const ox = (c % cols) * tw, oy = Math.floor(c / cols) * th;
+      for (let y = 0; y < th; y++) mosaic.set(tile.subarray(y * tw, (y + 1) * tw), (oy + y) * W + ox);
     }
     files.set("coils.png", encodeGrayPng(mosaic, W, H).png);
     const rows = seq.kspace.slice * seq.kspace.phase, read = seq.kspace.read;
@@ -615,8 +631,8 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
         files: {
           "coil-images.npy": "complex64 [coil, slice, phase, read]: each coil's image on the image grid (sensitivity applied to every isochromat before the readout)",
           "sensitivities.npy": "complex64 [coil, slice, phase, read]: S_c at the pixel centres",
-          "coil-rss.png": "root-sum-of-squares of the coil images (central slice-encoding step): the coil shading",
-          "coils.png": `each coil's magnitude side by side, ${cols} per row, coil 0 top left, one window for all`,
+          "coil-rss.png": "root-sum-of-squares of the coil images (central slice-encoding step): the coil shading, in display orientation as image.png (see display)",
+          "coils.png": `each coil's magnitude side by side, ${cols} per row, coil 0 top left, one window for all; each tile in display orientation as image.png (see display)`,
         },
         uniformCoil: "image.png, image.npy and kspace.npy are the uniform coil (S = 1), simulated in the same pass; its k-space can differ from a run without --coils in the last bits (isochromats summed in column blocks)",
       },

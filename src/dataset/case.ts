@@ -1,6 +1,8 @@
 /**
- * One dataset case: simulate every coil, move to the image grid, build the
- * truth, sensitivities, noise and mask, and encode the files.
+ * One dataset case from its simulated coil k-spaces (dataset/simulate.ts,
+ * run by the caller): move to the image grid, build the truth,
+ * sensitivities, noise and mask, and encode the files. No file system, no
+ * engine executor: runs anywhere the library runs.
  *
  * Data path (all on the image grid, i.e. after oversampling removal):
  *   I_c   = crop(ifftc(k_c))                 coil images, c = 0 uniform, 1…C array
@@ -23,15 +25,14 @@ import { encodeNpy } from "../io/npy.js";
 import { encodeNifti1 } from "../io/nifti.js";
 import { fft2c, fft3c } from "../recon/fft.js";
 import { reconstructGrid, toGrid } from "../recon/reconstruct.js";
-import type { IsochromatSet } from "../isochromats/index.js";
 import type { KGrid, Sequence } from "../sequence/types.js";
 import type { Axes } from "../protocol/geometry.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
 import { makeMask, type Mask, type MaskOptions } from "./masks.js";
 import { Rng, STREAM } from "./prng.js";
-import { simulateCoilsPlanned, type CoilEngineOptions } from "./simulate.js";
 import type { ReadoutReport } from "../engine/fast.js";
+import type { KSpace } from "../engine/index.js";
 import { addRawNoise, rawFile, rawSignal, type RawContext } from "./raw.js";
 
 /** Which raw k-space containers a case gets: kspace.npy (+ noise.npy), raw.h5 (ISMRMRD), or both. */
@@ -107,11 +108,6 @@ export interface CaseSettings {
   noiseLines: number;
   mask: MaskOptions;
   seed: number;
-  receiverFilter: boolean;
-  /** Engine worker threads. */
-  workers: number;
-  /** Engine chunk size, kernel choice and readout operator (defaults: CHUNK_ISOCHROMATS, WebAssembly where available, auto). */
-  engine?: CoilEngineOptions;
   /** Raw containers to write (default both). */
   format?: DatasetFormat;
   /** Needed for raw.h5. */
@@ -149,15 +145,18 @@ export interface CaseResult {
   };
 }
 
-/** Runs the simulation and builds every array file of one case (case.json is added by the caller). */
-export async function buildCase(
-  seq: Sequence, iso: IsochromatSet, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
-  onProgress?: (done: number, total: number) => void,
-): Promise<CaseResult> {
+/**
+ * Builds every array file of one case (case.json is added by the caller) from
+ * the coils' simulated k-space [coil][row][read] (coil 0 uniform, then the
+ * array: simulateCoilsPlanned) and what the readout operator did.
+ */
+export function buildCase(
+  seq: Sequence, sim: { kspace: KSpace; readout: ReadoutReport[] }, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
+): CaseResult {
   const img: Dims = seq.image, kd: Dims = seq.kspace;
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
-  const { kspace: k, readout } = await simulateCoilsPlanned(seq, iso, s.array, s.receiverFilter, s.workers, onProgress, s.engine);
+  const { kspace: k, readout } = sim;
   const n = img.slice * img.phase * img.read;
   const format = s.format ?? "both";
   const wantRaw = format !== "npy";
