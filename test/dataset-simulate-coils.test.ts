@@ -73,9 +73,11 @@ describe("simulate --coils", () => {
     // Which loop is on the patient's left follows from the geometry report.json states (RAS+: left is −x), not from a stored picture;
     // which side of the picture is the patient's left, from the display letters image.png uses (radiological convention, common practice).
     const out = join(tmp, "orient");
-    const r = spawnSync(process.execPath, [CLI, ...ARGS, "--set", "matrix.read=32", "--coils", "4", "--array-radius", "15 cm", "-o", out], { encoding: "utf8" });
+    const r = spawnSync(process.execPath, [CLI, ...ARGS, "--set", "matrix.read=32", "--coils", "4", "--array-radius", "15 cm", "--readout", "direct", "-o", out], { encoding: "utf8" });
     expect(r.status, r.stderr).toBe(0);
     const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
+    // --readout reaches the coil run, and report.json says what ran
+    expect([rep.engine.readout.operator, rep.engine.readout.requested]).toEqual(["direct", "direct"]);
     const loops = rep.coils.loops as { coil: number; centreM: number[] }[];
     const left = loops.reduce((a, b) => (b.centreM[0]! < a.centreM[0]! ? b : a)).coil;
     const right = loops.reduce((a, b) => (b.centreM[0]! > a.centreM[0]! ? b : a)).coil;

@@ -568,7 +568,7 @@ export function addCoilOptions(c: Command, what: string): Command {
  * coils.png (each coil's magnitude, side by side) and coil-rss.png (the
  * root-sum-of-squares, which shows the coil shading). Undefined for one coil.
  */
-export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: number; quiet?: boolean; shard?: unknown }): RunOptions["coilRun"] {
+export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: number; quiet?: boolean; shard?: unknown; readout?: "auto" | "fast" | "direct"; tolerance?: number }): RunOptions["coilRun"] {
   const probe = { ...o };
   if (probe.coils === "1" && !probe.loopRadius && !probe.arrayRadius && !probe.rowSpacing && probe.coilRows === "1") return undefined;
   if (o.shard) throw new UserError("--coils runs every coil in one pass; it does not split into shards: drop --shard", undefined, "--coils");
@@ -580,7 +580,9 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const m = enclosureMargin(array, iso.x, iso.y, iso.count);
     if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
     const progress = new Progress("simulating coils", "chunk", o.quiet);
-    const { kspace, plan } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t));
+    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), {
+      chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}),
+    });
     progress.done();
     const C = coilCount(array), img = seq.image, n = img.slice * img.phase * img.read;
     const all = toImageGrid(kspace.re, kspace.im, C + 1, seq.kspace, img, seq.grid);
@@ -622,7 +624,7 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const k0 = { coils: 1, rows, read, re: kspace.re.slice(0, rows * read), im: kspace.im.slice(0, rows * read) };
     const placement = loopPlacement(array);
     return {
-      kspace: k0, plan, files,
+      kspace: k0, plan, files, readout,
       report: {
         kind: "circular loops", count: C, loopsPerRow: array.elements, rows: array.rows,
         loopRadiusM: round(array.loopRadius), arrayRadiusM: round(array.arrayRadius), rowSpacingM: round(array.rowSpacing), zCentreM: round(array.zCentre),
