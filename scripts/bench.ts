@@ -258,7 +258,13 @@ function datasetRun(args: string[], out: string): { seconds: number; wall: numbe
 function datasetRows(): void {
   const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-dataset-"));
   try {
-    const note = (r: unknown) => (Array.isArray(r) ? `${r.length} coil blocks: ${[...new Set(r.map(readoutNote))].join("; ")}` : readoutNote(r));
+    // one report per coil block (dataset/simulate.ts SENS_BUDGET): the operators used, and the first block's note
+    const note = (r: unknown) => {
+      if (!Array.isArray(r)) return readoutNote(r);
+      const ops = r.map((x) => (x as { operator?: string }).operator ?? "?");
+      const counts = [...new Set(ops)].map((op) => `${op} ×${ops.filter((o) => o === op).length}`).join(", ");
+      return `${r.length} coil blocks: ${counts}; block 0: ${readoutNote(r[0])}`;
+    };
     console.log("");
     console.log("| dataset (isofold dataset, 128² torso gre-t1-3t, default options, 2 workers, fresh process) | 1 coil | 8 coils | 8 coils ÷ 1 coil (target ≤ 2) | readout (8 coils) |");
     console.log("| --- | --- | --- | --- | --- |");
