@@ -74,7 +74,7 @@ function idft(re: ArrayLike<number>, im: ArrayLike<number>): { re: Float64Array;
   return { re: or, im: oi };
 }
 
-interface Rec { line: number; average: number; data: Float32Array }
+interface Rec { line: number; average: number; flags: bigint; data: Float32Array }
 function records(file: string): { xml: string; recs: Rec[] } {
   const f = new h5wasm.File(file, "r");
   const d = f.get("dataset/data") as h5wasm.Dataset;
@@ -82,9 +82,9 @@ function records(file: string): { xml: string; recs: Rec[] } {
   const rows = d.value as unknown as [unknown[], Float32Array, Float32Array][];
   const xml = String((f.get("dataset/xml") as h5wasm.Dataset).value as unknown as string[]);
   f.close();
-  const idx = names.indexOf("idx");
+  const idx = names.indexOf("idx"), fl = names.indexOf("flags");
   // idx members in ISMRMRD order: kspace_encode_step_1, kspace_encode_step_2, average, …
-  return { xml, recs: rows.map((r) => ({ line: (r[0][idx] as number[])[0]!, average: (r[0][idx] as number[])[2]!, data: r[2] })) };
+  return { xml, recs: rows.map((r) => ({ line: (r[0][idx] as number[])[0]!, average: (r[0][idx] as number[])[2]!, flags: BigInt(r[0][fl] as bigint), data: r[2] })) };
 }
 
 /** Worst relative L2 (over lines and coils) between the mean of the records of a line and kspace.npy, in image space along read. */
@@ -126,6 +126,14 @@ describe("averages as separate raw.h5 records", () => {
     expect(recs.length).toBe(3 * 32);
     for (let a = 0; a < 3; a++) expect(recs.filter((r) => r.average === a).map((r) => r.line).sort((p, q) => p - q)).toEqual(Array.from({ length: 32 }, (_, y) => y));
     expect(xml).toContain("<average><minimum>0</minimum><maximum>2</maximum><center>0</center></average>");
+    // ISMRMRD 1.x flag bits (ismrmrd.h, from memory): first/last in average 5/6, last in measurement 25
+    const bit = (r: Rec, b: number) => ((r.flags >> BigInt(b - 1)) & 1n) === 1n;
+    for (let a = 0; a < 3; a++) {
+      const own = recs.filter((r) => r.average === a);
+      expect(own.map((r) => bit(r, 5))).toEqual(own.map((_, i) => i === 0));
+      expect(own.map((r) => bit(r, 6))).toEqual(own.map((_, i) => i === own.length - 1));
+    }
+    expect(recs.map((r) => bit(r, 25))).toEqual(recs.map((_, i) => i === recs.length - 1));
     // float32 storage of both files: relative error ≲ 1e-6
     expect(meanVsKspace(dir, 3, 2)).toBeLessThan(1e-5);
     const x = join(tmp, "header.xml");
