@@ -53,7 +53,7 @@ export function runChunkGeneral(plan: EnginePlan, iso: IsochromatSet, c: number,
   // Exact: z_g·a^j + z_h·a^j = (z_g + z_h)·a^j. With a uniform B0 this
   // folds a whole chunk's columns of one read position into one group.
   let groups = 0;
-  let groupsByW = -1;
+  let groupedByPhaseAndSlice = -1;
   const tab = plan.tab, rfClass = plan.rfClass, maps = plan.rfMaps, ops = plan.ops;
   const sens = plan.sens, coils = plan.coils, count = iso.count;
   const groupOf = r.groupOf, liveOf = r.liveOf;
@@ -66,33 +66,33 @@ export function runChunkGeneral(plan: EnginePlan, iso: IsochromatSet, c: number,
   let o = 0;
   while (o < ops.length) {
     let end = o;
-    while (end < ops.length && ops[end]!.t !== "adc") end++;
+    while (end < ops.length && ops[end]!.kind !== "adc") end++;
     const adc = end < ops.length ? (ops[end] as AdcOp) : null;
     let live = 0;
     if (adc) {
-      if (groupsByW !== (adc.byW ? 1 : 0)) {
-        groupsByW = adc.byW ? 1 : 0;
-        groups = readoutGroups(iso, i0, i1, adc.byW, r);
+      if (groupedByPhaseAndSlice !== (adc.groupByPhaseAndSlice ? 1 : 0)) {
+        groupedByPhaseAndSlice = adc.groupByPhaseAndSlice ? 1 : 0;
+        groups = readoutGroups(iso, i0, i1, adc.groupByPhaseAndSlice, r);
       }
-      live = adcGroups(plan, iso, i0, adc, groups, s.d[adc.stepDur]!, r);
+      live = adcGroups(plan, iso, i0, adc, groups, s.d[adc.dwellDurationIndex]!, r);
     }
     for (let k0 = 0; k0 < n; k0 += SUB_BLOCK) {
       const k1 = Math.min(n, k0 + SUB_BLOCK), a0 = i0 + k0, a1 = i0 + k1;
       for (let q = o; q < end; q++) {
         const op = ops[q]!;
-        switch (op.t) {
+        switch (op.kind) {
           case "rf":
-            applyRf(mr, mi, mz, m0, rfClass, a0, a1, maps, op.base, op.cos, op.sin, k0);
+            applyRf(mr, mi, mz, m0, rfClass, a0, a1, maps, op.mapOffset, op.cosPhase, op.sinPhase, k0);
             break;
           case "free":
-            applyFree(mr, mi, mz, m0, iu, iv, iw, a0, a1, tab, op.u, op.v, op.w, s.d[op.dur]!, s.e1[op.dur]!, k0);
+            applyFree(mr, mi, mz, m0, iu, iv, iw, a0, a1, tab, op.readTable, op.phaseTable, op.sliceTable, s.d[op.durationIndex]!, s.e1[op.durationIndex]!, k0);
             break;
           case "spoil":
             mr.fill(0, k0, k1);
             mi.fill(0, k0, k1);
             break;
           case "relax":
-            applyRelax(mz, m0, a0, a1, s.e1[op.dur]!, k0);
+            applyRelax(mz, m0, a0, a1, s.e1[op.durationIndex]!, k0);
             break;
           default:
             break;

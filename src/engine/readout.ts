@@ -10,7 +10,7 @@ import type { EnginePlan, Op } from "./plan.js";
 import { readoutRecurrenceFast } from "./wasm.js";
 
 /** A readout op of the plan. */
-export type AdcOp = Extract<Op, { t: "adc" }>;
+export type AdcOp = Extract<Op, { kind: "adc" }>;
 
 /**
  * Receiver anti-alias filter response at frequency f (Hz) for a sampled
@@ -47,11 +47,11 @@ export class ReadoutScratch {
 
 /**
  * Assigns readout groups to isochromats i0 … i1−1: key (iu, Δf, r2) and, when
- * byW, also (iv, iw); bitwise equality. Writes s.groupOf (chunk-local index →
+ * byPhaseAndSlice, also (iv, iw); bitwise equality. Writes s.groupOf (chunk-local index →
  * group) and s.groupFirst (group → first chunk-local index); returns the
  * number of groups, numbered in first-seen order.
  */
-export function readoutGroups(iso: IsochromatSet, i0: number, i1: number, byW: boolean, s: ReadoutScratch): number {
+export function readoutGroups(iso: IsochromatSet, i0: number, i1: number, byPhaseAndSlice: boolean, s: ReadoutScratch): number {
   const index = s.groupIndex, key = s.key, groupOf = s.groupOf, first = s.groupFirst;
   const { iu, iv, iw, df, r2 } = iso;
   index.clear();
@@ -59,8 +59,8 @@ export function readoutGroups(iso: IsochromatSet, i0: number, i1: number, byW: b
     key[0] = iu[i]!;
     f64Words(df[i]!, key, 1);
     f64Words(r2[i]!, key, 3);
-    key[5] = byW ? iv[i]! : 0;
-    key[6] = byW ? iw[i]! : 0;
+    key[5] = byPhaseAndSlice ? iv[i]! : 0;
+    key[6] = byPhaseAndSlice ? iw[i]! : 0;
     const before = index.size;
     const g = index.id(key, 0);
     if (g === before) first[g] = i - i0;
@@ -85,14 +85,14 @@ export function adcGroups(plan: EnginePlan, iso: IsochromatSet, i0: number, adc:
   let live = 0;
   for (let g = 0; g < groups; g++) {
     const k0 = first[g]!, i = i0 + k0;
-    const w = plan.receiverFilter ? receiverFilter(adc.fRead * iso.uGrid[iu[i]!]! + df[i]!, adc.bwSampled) : 1;
+    const w = plan.receiverFilter ? receiverFilter(adc.readHzPerMetre * iso.uGrid[iu[i]!]! + df[i]!, adc.sampledBandwidth) : 1;
     if (w === 0) {
       liveOf[g] = -1;
       continue;
     }
     liveOf[g] = live;
     h[live] = w;
-    const ou = adc.su + 2 * iu[i]!, ov = adc.sv + 2 * iv[i]!, ow = adc.sw + 2 * iw[i]!;
+    const ou = adc.dwellReadTable + 2 * iu[i]!, ov = adc.dwellPhaseTable + 2 * iv[i]!, ow = adc.dwellSliceTable + 2 * iw[i]!;
     const ur = tab[ou]!, ui = tab[ou + 1]!, vr = tab[ov]!, vi = tab[ov + 1]!, wr = tab[ow]!, wi = tab[ow + 1]!;
     const uvr = ur * vr - ui * vi, uvi = ur * vi + ui * vr;
     const pr = uvr * wr - uvi * wi, pi = uvr * wi + uvi * wr;
@@ -118,14 +118,14 @@ export function adcOutput(plan: EnginePlan, adc: AdcOp, live: number, outRe: Flo
       zr[zo + g] = zr[zo + g]! * h[g]!;
       zi[zo + g] = zi[zo + g]! * h[g]!;
     }
-    sr.fill(0, 0, adc.n);
-    si.fill(0, 0, adc.n);
-    readoutRecurrenceFast(sr, si, adc.n, q === 0 ? zr : zr.subarray(zo), q === 0 ? zi : zi.subarray(zo), ar, ai, live, plan.wasm);
+    sr.fill(0, 0, adc.samples);
+    si.fill(0, 0, adc.samples);
+    readoutRecurrenceFast(sr, si, adc.samples, q === 0 ? zr : zr.subarray(zo), q === 0 ? zi : zi.subarray(zo), ar, ai, live, plan.wasm);
     const base = (q * plan.rows + adc.row) * plan.read;
-    for (let j = 0; j < adc.n; j++) {
+    for (let j = 0; j < adc.samples; j++) {
       const x = sr[j]!, y = si[j]!;
-      outRe[base + j] = outRe[base + j]! + (x * adc.cr - y * adc.ci);
-      outIm[base + j] = outIm[base + j]! + (x * adc.ci + y * adc.cr);
+      outRe[base + j] = outRe[base + j]! + (x * adc.weightRe - y * adc.weightIm);
+      outIm[base + j] = outIm[base + j]! + (x * adc.weightIm + y * adc.weightRe);
     }
   }
 }

@@ -114,16 +114,16 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
   }
   mz.fill(1, 0, nc);
   let active = false;
-  let groups = 0, groupsByW = -1, slots = 0, pats = 0;
+  let groups = 0, groupedByPhaseAndSlice = -1, slots = 0, pats = 0;
   const groupOf = s.groupOf, liveOf = s.liveOf, zr = s.zr, zi = s.zi;
   const { slotStart, slotGroup, slotPat, patFirst, patLen, sumR, sumI, mem } = f;
   for (let o = 0; o < ops.length; o++) {
     const op = ops[o]!;
-    switch (op.t) {
+    switch (op.kind) {
       case "rf": {
-        const cs = op.cos, sn = op.sin;
+        const cs = op.cosPhase, sn = op.sinPhase;
         for (let l = 0; l < nc; l++) {
-          const b = op.base + rfClass[firstOf[l]!]! * 12;
+          const b = op.mapOffset + rfClass[firstOf[l]!]! * 12;
           const z = mz[l]!;
           const x = maps[b + 2]! * z + maps[b + 9]!;
           const y = maps[b + 5]! * z + maps[b + 10]!;
@@ -143,14 +143,14 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
         break;
       }
       case "free": {
-        const d = f.d[op.dur]!, e1 = f.e1[op.dur]!;
+        const d = f.d[op.durationIndex]!, e1 = f.e1[op.durationIndex]!;
         for (let l = 0; l < nc; l++) {
           const e = e1[l]!;
           mz[l] = mz[l]! * e + (1 - e);
         }
         if (!active) break;
         for (let l = 0; l < nc; l++) {
-          const ow = op.w + 2 * iw[firstOf[l]!]!;
+          const ow = op.sliceTable + 2 * iw[firstOf[l]!]!;
           const wr = tab[ow]!, wi = tab[ow + 1]!, dr = d[2 * l]!, di = d[2 * l + 1]!;
           const qr = wr * dr - wi * di, qi = wr * di + wi * dr;
           const xr = pr[l]!, xi = pi[l]!;
@@ -158,19 +158,19 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
           pi[l] = xr * qi + xi * qr;
         }
         for (let j = u0; j < u1; j++) {
-          const xr = ua[2 * j]!, xi = ua[2 * j + 1]!, tr = tab[op.u + 2 * j]!, ti = tab[op.u + 2 * j + 1]!;
+          const xr = ua[2 * j]!, xi = ua[2 * j + 1]!, tr = tab[op.readTable + 2 * j]!, ti = tab[op.readTable + 2 * j + 1]!;
           ua[2 * j] = xr * tr - xi * ti;
           ua[2 * j + 1] = xr * ti + xi * tr;
         }
         for (let j = v0; j < v1; j++) {
-          const xr = va[2 * j]!, xi = va[2 * j + 1]!, tr = tab[op.v + 2 * j]!, ti = tab[op.v + 2 * j + 1]!;
+          const xr = va[2 * j]!, xi = va[2 * j + 1]!, tr = tab[op.phaseTable + 2 * j]!, ti = tab[op.phaseTable + 2 * j + 1]!;
           va[2 * j] = xr * tr - xi * ti;
           va[2 * j + 1] = xr * ti + xi * tr;
         }
         break;
       }
       case "relax": {
-        const e1 = f.e1[op.dur]!;
+        const e1 = f.e1[op.durationIndex]!;
         for (let l = 0; l < nc; l++) {
           const e = e1[l]!;
           mz[l] = mz[l]! * e + (1 - e);
@@ -183,14 +183,14 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
       case "adc": {
         // no transverse magnetization before the first pulse of a run: the readout adds nothing
         if (!active) break;
-        if (groupsByW !== (op.byW ? 1 : 0)) {
-          groupsByW = op.byW ? 1 : 0;
-          groups = readoutGroups(iso, i0, i1, op.byW, s);
+        if (groupedByPhaseAndSlice !== (op.groupByPhaseAndSlice ? 1 : 0)) {
+          groupedByPhaseAndSlice = op.groupByPhaseAndSlice ? 1 : 0;
+          groups = readoutGroups(iso, i0, i1, op.groupByPhaseAndSlice, s);
           [slots, pats] = spoiledSlots(iso, i0, n, f, groupOf);
         }
         {
           // the per-dwell D = exp(−t·r2)·exp(−i2πΔf·t) of each group's first isochromat (the general path's formula)
-          const t = plan.durations[op.stepDur]!, d = f.dwell, first = s.groupFirst;
+          const t = plan.durations[op.dwellDurationIndex]!, d = f.dwell, first = s.groupFirst;
           for (let g = 0; g < groups; g++) {
             const k = first[g]!, i = i0 + k;
             const e2 = Math.exp(-t * r2[i]!), th = -2 * Math.PI * df[i]! * t;
