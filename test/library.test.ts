@@ -97,9 +97,14 @@ describe("simulate()", () => {
 
 describe("packaging", () => {
   test("the worker pool runs the TypeScript sources under vitest, not a compiled copy in dist/", () => {
+    // bundled in memory from src/engine/worker.ts and its imports (no file in dist/, none left in the temporary folder)
     const p = workerPath();
-    expect(p).not.toMatch(/[/\\]dist[/\\]/);
-    expect(p).toMatch(/worker\.mjs$/);
+    expect(p).toBeInstanceOf(URL);
+    const url = String(p);
+    expect(url.startsWith("data:text/javascript;base64,")).toBe(true);
+    const code = Buffer.from(url.slice(url.indexOf(",") + 1), "base64").toString("utf8");
+    expect(code).toContain("src/engine/worker.ts");
+    expect(code).toContain("function runChunkSpoiled(");
   });
 
   test('"isofold" and "isofold/node" resolve through package.json exports (compiled)', () => {
