@@ -199,7 +199,8 @@ export function rfModule(): Uint8Array<ArrayBuffer> {
   const wz = v(), wz2 = v(), E2 = v(), E1 = v(), REC = v(), dt = v(), one = v(), tiny = v();
   const st = Array.from({ length: 12 }, v);
   const sc = Array.from({ length: 9 }, v), cc = Array.from({ length: 9 }, v);
-  const [wx, wy, w, inv, th, t2, sn, c, C, nx, ny, nz, xC, yC, zC, xs, ys, zs] = Array.from({ length: 18 }, v);
+  const wx = v(), wy = v(), w = v(), inv = v(), th = v(), t2 = v(), sn = v(), c = v(), C = v();
+  const nx = v(), ny = v(), nz = v(), xC = v(), yC = v(), zC = v(), xs = v(), ys = v(), zs = v();
   const r = Array.from({ length: 9 }, v);
   const t = Array.from({ length: 3 }, v);
   const vectors = next - 5;
