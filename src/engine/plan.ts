@@ -95,7 +95,7 @@ export interface EnginePlan {
   /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
   rf: RfSpec;
   /**
-   * Play the ideally spoiled shortcut (chunk.ts, runChunkSpoiled): every run
+   * Play the ideally spoiled shortcut (spoiled.ts, runChunkSpoiled): every run
    * of ops between ideal spoils holds at most one RF pulse, so Mxy is zero
    * before every pulse and Mz there is m0 times a function of the RF class.
    */
