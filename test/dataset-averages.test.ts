@@ -25,7 +25,7 @@ import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
 import npyjs from "npyjs";
-import h5wasm from "h5wasm/node";
+import h5wasm, { type Dataset } from "h5wasm/node";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -54,7 +54,7 @@ function dataset(out: string, args: string[]): string {
 function npy(file: string): { shape: number[]; data: ArrayLike<number> } {
   const b = readFileSync(file);
   const p = new npyjs().parse(b.buffer.slice(b.byteOffset, b.byteOffset + b.byteLength));
-  return { shape: p.shape, data: p.data as ArrayLike<number> };
+  return { shape: p.shape, data: p.data as unknown as ArrayLike<number> };
 }
 
 /** Centred inverse DFT with 1/n (the convention case.json states), direct sums. */
@@ -77,10 +77,10 @@ function idft(re: ArrayLike<number>, im: ArrayLike<number>): { re: Float64Array;
 interface Rec { line: number; average: number; flags: bigint; data: Float32Array }
 function records(file: string): { xml: string; recs: Rec[] } {
   const f = new h5wasm.File(file, "r");
-  const d = f.get("dataset/data") as h5wasm.Dataset;
+  const d = f.get("dataset/data") as Dataset;
   const names = (d.dtype as unknown as [string, [string, unknown][]][])[0]![1].map((m) => m[0]);
   const rows = d.value as unknown as [unknown[], Float32Array, Float32Array][];
-  const xml = String((f.get("dataset/xml") as h5wasm.Dataset).value as unknown as string[]);
+  const xml = String((f.get("dataset/xml") as Dataset).value as unknown as string[]);
   f.close();
   const idx = names.indexOf("idx"), fl = names.indexOf("flags");
   // idx members in ISMRMRD order: kspace_encode_step_1, kspace_encode_step_2, average, …
@@ -99,8 +99,8 @@ function meanVsKspace(dir: string, A: number, C: number): number {
       const rr = new Float64Array(64), ri = new Float64Array(64), kr = new Float64Array(32), ki = new Float64Array(32);
       for (const r of own) {
         for (let s = 0; s < 64; s++) {
-          rr[s] += r.data[2 * (c * 64 + s)]! / A;
-          ri[s] += r.data[2 * (c * 64 + s) + 1]! / A;
+          rr[s]! += r.data[2 * (c * 64 + s)]! / A;
+          ri[s]! += r.data[2 * (c * 64 + s) + 1]! / A;
         }
       }
       for (let x = 0; x < 32; x++) {
