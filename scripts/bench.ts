@@ -12,6 +12,12 @@
  * after warm-up (default and preview quality), the 256² torso gre-t1-3t with
  * default options (time, peak RSS; the direct case once) and the throughput
  * of the 256² disc.
+ * Dataset rows (issue 13 targets): one 128² torso dataset case (gre-t1-3t,
+ * default options, 2 workers) with 1 coil and with 8 coils, each through the
+ * CLI in a fresh process, and the cases per hour of a 1000-case 128²
+ * eight-coil batch on 2 cores, estimated from a short batch
+ * (BENCH_DATASET_CASES cases, default 3, with seeded perturbations);
+ * BENCH_ONLY=dataset for these rows alone, BENCH_DATASET=0 to skip them.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
  * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone,
  * BENCH_DIRECT=0 to skip the 256² direct run, BENCH_DISC=0 to skip the disc
@@ -21,11 +27,11 @@
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir, availableParallelism, cpus } from "node:os";
-import { join } from "node:path";
+import { dirname, join } from "node:path";
+import { readFileSync } from "node:fs";
 import { fileURLToPath } from "node:url";
 import { isMainThread, parentPort, Worker, workerData } from "node:worker_threads";
 import { GAMMA } from "../src/constants.js";
-import { readoutRecurrence, rfAffine } from "../src/engine/kernels.js";
 import { readoutRecurrenceFast, rfAffineMany, wasmKernel } from "../src/engine/wasm.js";
 
 const GROUPS = 65536, SAMPLES = 256, LINES = 16;
@@ -56,7 +62,9 @@ function readoutInputs(g0: number, g1: number) {
 function readoutRun(kind: "scalar" | "wasm", g0: number, g1: number): number {
   const { zr, zi, ar, ai, n } = readoutInputs(g0, g1);
   const sr = new Float64Array(SAMPLES), si = new Float64Array(SAMPLES);
-  const f = kind === "wasm" ? readoutRecurrenceFast : readoutRecurrence;
+  // "scalar": the TypeScript twin the engine runs with WASM off (same bits as the kernel)
+  const f = (sr: Float64Array, si: Float64Array, ns: number, zr: Float64Array, zi: Float64Array, ar: Float64Array, ai: Float64Array, g: number) =>
+    readoutRecurrenceFast(sr, si, ns, zr, zi, ar, ai, g, kind === "wasm");
   f(sr, si, SAMPLES, zr, zi, ar, ai, Math.min(n, 1024)); // warm-up
   const t = performance.now();
   for (let l = 0; l < LINES; l++) f(sr, si, SAMPLES, zr, zi, ar, ai, n);
@@ -79,11 +87,9 @@ function rfRun(kind: "scalar" | "wasm", i0: number, i1: number): number {
   const n = i1 - i0, out = new Float64Array(n * 12);
   const f = new Float64Array(n), r1 = new Float64Array(n).fill(1), r2 = new Float64Array(n).fill(10);
   for (let i = i0; i < i1; i++) f[i - i0] = -5000 + (10000 * i) / RF_ISO;
-  rfAffineMany(out, 0, Math.min(n, 256), f, r1, r2, re, im, dt, GAMMA); // warm-up
-  for (let i = 0; i < Math.min(n, 256); i++) rfAffine(out, 0, re, im, dt, GAMMA, f[i]!, 1, 10);
+  rfAffineMany(out, 0, Math.min(n, 256), f, r1, r2, re, im, dt, GAMMA, kind === "wasm"); // warm-up
   const t = performance.now();
-  if (kind === "wasm") rfAffineMany(out, 0, n, f, r1, r2, re, im, dt, GAMMA);
-  else for (let i = 0; i < n; i++) rfAffine(out, i * 12, re, im, dt, GAMMA, f[i]!, 1, 10);
+  rfAffineMany(out, 0, n, f, r1, r2, re, im, dt, GAMMA, kind === "wasm"); // "scalar": the TypeScript twin (WASM off)
   return (performance.now() - t) / 1000;
 }
 
@@ -239,6 +245,50 @@ async function fastRows(runs: number): Promise<void> {
   );
 }
 
+/** One `isofold dataset` in a fresh process (the CLI of this build); seconds as the command reports them, wall seconds, and case 0's readout. */
+function datasetRun(args: string[], out: string): { seconds: number; wall: number; made: number; readout: unknown } {
+  const cli = join(dirname(SELF), "..", "src", "cli", "index.js");
+  const t = performance.now();
+  const r = spawnSync(process.execPath, [cli, "dataset", "phantoms/torso-slice.json", "-p", "gre-t1-3t", "--set", "matrix.read=128", "--set", "matrix.phase=128", "--workers", "2", "-q", "-o", out, ...args], { encoding: "utf8", maxBuffer: 1 << 24 });
+  const wall = (performance.now() - t) / 1000;
+  if (r.status !== 0) throw new Error(`bench dataset failed: ${r.stderr}`);
+  const m = /(\d+) cases? written.*\(([0-9.]+) s/.exec(r.stdout);
+  const caseJson = JSON.parse(readFileSync(join(out, "case-0000", "case.json"), "utf8")) as { engine: { readout: unknown } };
+  return { seconds: Number(m?.[2]), wall, made: Number(m?.[1]), readout: caseJson.engine.readout };
+}
+
+/** Dataset rows: a 128² torso case with 1 and 8 coils, and the cases per hour of an eight-coil batch (issue 13 targets: ≤ 10 s, ≤ 2× one coil). */
+function datasetRows(): void {
+  const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-dataset-"));
+  try {
+    // one report per coil block (dataset/simulate.ts SENS_BUDGET): the operators used, and the first block's note
+    const note = (r: unknown) => {
+      if (!Array.isArray(r)) return readoutNote(r);
+      const ops = r.map((x) => (x as { operator?: string }).operator ?? "?");
+      const counts = [...new Set(ops)].map((op) => `${op} ×${ops.filter((o) => o === op).length}`).join(", ");
+      return `${r.length} coil blocks: ${counts}; block 0: ${readoutNote(r[0])}`;
+    };
+    console.log("");
+    console.log("| dataset (isofold dataset, 128² torso gre-t1-3t, default options, 2 workers, fresh process) | 1 coil | 8 coils | 8 coils ÷ 1 coil (target ≤ 2) | readout (8 coils) |");
+    console.log("| --- | --- | --- | --- | --- |");
+    const one = datasetRun(["--coils", "1"], join(tmp, "one"));
+    const eight = datasetRun(["--coils", "8"], join(tmp, "eight"));
+    console.log(
+      `| one case (command's own time; wall with start-up in brackets; target ≤ 10 s for 8 coils) | ${one.seconds.toFixed(1)} s (${one.wall.toFixed(1)} s) | ` +
+        `${eight.seconds.toFixed(1)} s (${eight.wall.toFixed(1)} s) | ${(eight.seconds / one.seconds).toFixed(1)}× | ${note(eight.readout)} |`,
+    );
+    const n = Number(process.env["BENCH_DATASET_CASES"] ?? 3);
+    const batch = datasetRun(["--coils", "8", "--count", String(n), "--vary", "position=5mm,rotation=5deg,t1=5%"], join(tmp, "batch"));
+    const perCase = batch.seconds / batch.made;
+    console.log(
+      `| 1000-case 128² eight-coil batch on 2 cores: estimated from a short batch of ${batch.made} cases (--vary position, rotation, T1; one-time set-up spread over them), ` +
+        `${batch.seconds.toFixed(1)} s in all | — | ${perCase.toFixed(1)} s per case | ${Math.round(3600 / perCase)} cases per hour (1000 cases ≈ ${((1000 * perCase) / 3600).toFixed(1)} h) | ${note(batch.readout)} |`,
+    );
+  } finally {
+    rmSync(tmp, { recursive: true, force: true });
+  }
+}
+
 function g(x: number): string {
   if (x >= 1e9) return `${(x / 1e9).toFixed(2)} G`;
   if (x >= 1e6) return `${(x / 1e6).toFixed(1)} M`;
@@ -251,6 +301,10 @@ async function main(): Promise<void> {
     await fastRows(runs);
     return;
   }
+  if (process.env["BENCH_ONLY"] === "dataset") {
+    datasetRows();
+    return;
+  }
   console.log(`isofold bench — ${cpus()[0]?.model ?? "cpu"}, ${availableParallelism()} cores, Node ${process.versions.node}; WebAssembly SIMD readout: ${wasmKernel() ? "yes" : "no (scalar fallback)"}`);
   console.log("");
   console.log("| kernel | threads | throughput (median of 5) |");
@@ -259,17 +313,17 @@ async function main(): Promise<void> {
   for (const kind of ["readout-scalar", "readout-wasm"] as const) {
     const one: number[] = [];
     for (let k = 0; k < 5; k++) one.push(runJob({ kind, a: 0, b: GROUPS }));
-    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "scalar TS (4 groups in locals)"}, ${GROUPS} groups × ${SAMPLES} samples × ${LINES} lines | 1 | ${g(rWork / median(one))} iso-samples/s |`);
+    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "TypeScript twin (WASM off)"}, ${GROUPS} groups × ${SAMPLES} samples × ${LINES} lines | 1 | ${g(rWork / median(one))} iso-samples/s |`);
     const two: number[] = [];
     for (let k = 0; k < 5; k++) two.push(await twoWorkers(kind, GROUPS));
-    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "scalar TS"} | 2 workers | ${g(rWork / median(two))} iso-samples/s |`);
+    console.log(`| readout ${kind === "readout-wasm" ? "WebAssembly SIMD" : "TypeScript twin (WASM off)"} | 2 workers | ${g(rWork / median(two))} iso-samples/s |`);
   }
   const fWork = RF_ISO * RF_STEPS;
   for (const kind of ["rf-scalar", "rf-wasm"] as const) {
     const rf1: number[] = [], rf2: number[] = [];
     for (let k = 0; k < 5; k++) rf1.push(runJob({ kind, a: 0, b: RF_ISO }));
     for (let k = 0; k < 5; k++) rf2.push(await twoWorkers(kind, RF_ISO));
-    const label = kind === "rf-wasm" ? "WebAssembly SIMD, 2 classes per lane pair" : "scalar TS";
+    const label = kind === "rf-wasm" ? "WebAssembly SIMD, 2 classes per lane pair" : "TypeScript twin (WASM off)";
     console.log(`| RF map ${label}, ${RF_STEPS}-step sinc, ${RF_ISO} isochromats of distinct frequency | 1 | ${g(fWork / median(rf1))} iso-steps/s |`);
     console.log(`| RF map ${label} | 2 workers | ${g(fWork / median(rf2))} iso-steps/s |`);
   }
@@ -292,6 +346,7 @@ async function main(): Promise<void> {
     }
   }
   await fastRows(runs);
+  if (process.env["BENCH_DATASET"] !== "0") datasetRows();
 }
 
 if (!isMainThread) {

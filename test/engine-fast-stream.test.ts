@@ -118,15 +118,15 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
     const array = { elements: 4, rows: 1, loopRadius: 0.04, arrayRadius: 0.15, rowSpacing: 0, zCentre: 0 };
     for (const receiverFilter of [true, false]) {
       const fast = await simulateCoilsPlanned(p.seq, p, array, receiverFilter, 1, undefined, { readout: "fast" });
-      expect(fast.readout!.operator).toBe("fast");
-      expect(fast.readout!.weights).toMatch(/streamed/);
+      expect(fast.readout[0]!.operator).toBe("fast");
+      expect(fast.readout[0]!.weights).toMatch(/streamed/);
       expect(fast.kspace.coils).toBe(5);
       // the oracle: every isochromat with its own Biot–Savart sensitivity through the direct readout
       const direct = await simulateCoilsPlanned(p.seq, p.iso, array, receiverFilter, 1, undefined, { readout: "direct" });
-      expect(direct.readout!.operator).toBe("direct");
+      expect(direct.readout[0]!.operator).toBe("direct");
       const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
       expect(err).toBeLessThan(1e-6);
-      expect(fast.readout!.estimate!.relL2).toBeGreaterThanOrEqual(err);
+      expect(fast.readout[0]!.estimate!.relL2).toBeGreaterThanOrEqual(err);
       // each loop's k-space differs from the uniform coil's (the sensitivities were applied)
       const n = direct.kspace.re.length / 5;
       expect(relL2(direct.kspace.re.subarray(n, 2 * n), direct.kspace.im.subarray(n, 2 * n), direct.kspace.re.subarray(0, n), direct.kspace.im.subarray(0, n))).toBeGreaterThan(0.05);

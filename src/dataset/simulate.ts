@@ -7,7 +7,8 @@
  * isochromats, so block k-spaces add. Each block runs on the engine's worker
  * pool (bitwise the same k-space for any number of workers).
  */
-import { nodeExecutor, simulateCells, simulateParallel, type EnginePlan, type KSpace, type ReadoutChoice, type ReadoutReport } from "../engine/node.js";
+import { nodeExecutor, simulateCells, simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
+import type { ReadoutChoice, ReadoutReport } from "../engine/fast.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatCells, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
@@ -34,17 +35,25 @@ export type CoilSource = IsochromatSet | { cells: IsochromatCells; readonly iso:
 export async function simulateCoils(
   seq: Sequence, iso: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
+  engine: CoilEngineOptions = {},
 ): Promise<KSpace> {
   return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress, engine)).kspace;
 }
 
-/** simulateCoils, also returning the engine plan (of the last block) for reports. */
+/** Engine options of a coil run: chunk size, kernels, and the readout operator with its tolerance (as `simulate --readout/--tolerance`). */
+export interface CoilEngineOptions {
+  chunkIsochromats?: number;
+  wasm?: boolean;
+  readout?: ReadoutChoice;
+  tolerance?: number;
+}
+
+/** simulateCoils, also returning the engine plan (of the last block) and what the readout operator did (one report per block). */
 export async function simulateCoilsPlanned(
   seq: Sequence, src: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean; readout?: ReadoutChoice; tolerance?: number } = {},
-): Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport }> {
+  engine: CoilEngineOptions = {},
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport[] }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
   if (!("cells" in src)) return storedCoils(seq, src, array, C, receiverFilter, workers, onProgress, engine);
   // Where the fast operator applies, the sensitivities multiply its per-position
@@ -53,8 +62,13 @@ export async function simulateCoilsPlanned(
   // a coil then costs its share of the fold and an FFT per (rank, segment).
   const opts = { receiverFilter, onProgress, ...engine };
   const exec = nodeExecutor(workers);
-  if (C === 1) return simulateCells(exec, seq, src.cells, () => src.iso, opts);
-  return simulateCells(exec, seq, src.cells, () => src.iso, opts, {
+  const one = async (r: Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }>) => {
+    const x = await r;
+    return { kspace: x.kspace, plan: x.plan, readout: [x.readout] };
+  };
+  if (C === 1) return one(simulateCells(exec, seq, src.cells, () => src.iso, opts));
+  let storedReports: ReadoutReport[] | null = null;
+  const res = await one(simulateCells(exec, seq, src.cells, () => src.iso, opts, {
     sens: {
       coils: C,
       at: (x, y, z, n, out) => {
@@ -62,18 +76,28 @@ export async function simulateCoilsPlanned(
         sensitivitiesAt(array, x, y, z, n, out, n, 1);
       },
     },
-    stored: (o) => storedCoils(seq, src.iso, array, C, receiverFilter, workers, onProgress, { ...engine, readout: o.readout }),
-  });
+    stored: async (o) => {
+      const r = await storedCoils(seq, src.iso, array, C, receiverFilter, workers, onProgress, { ...engine, readout: o.readout });
+      storedReports = r.readout;
+      return { kspace: r.kspace, plan: r.plan, readout: r.readout[0]! };
+    },
+  }));
+  // the stored path ran per block: keep every block's report (the first carries the choice and fallback)
+  if (storedReports !== null) res.readout = [res.readout[0]!, ...(storedReports as ReadoutReport[]).slice(1)];
+  return res;
 }
 
 /** Every coil per isochromat (sensitivities stored per isochromat, in blocks of columns). */
 async function storedCoils(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, C: number, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean; readout?: ReadoutChoice; tolerance?: number } = {},
-): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }> {
-  if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
-  let readout: ReadoutReport | null = null;
+  engine: CoilEngineOptions = {},
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport[] }> {
+  if (C === 1) {
+    const r = await simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
+    return { kspace: r.kspace, plan: r.plan, readout: [r.readout] };
+  }
+  const readout: ReadoutReport[] = [];
   let plan: EnginePlan | null = null;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
@@ -92,16 +116,16 @@ async function storedCoils(
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace, plan: p, readout: r } = await simulateParallel(seq, sub, {
+    const { kspace, plan: p, readout: rep } = await simulateParallel(seq, sub, {
       receiverFilter, coils: C, sens, workers, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     plan = p;
-    readout ??= r;
+    readout.push(rep);
     for (let i = 0; i < re.length; i++) {
       re[i] = re[i]! + kspace.re[i]!;
       im[i] = im[i]! + kspace.im[i]!;
     }
   }
-  return { kspace: { coils: C, rows, read, re, im }, plan: plan!, readout: readout! };
+  return { kspace: { coils: C, rows, read, re, im }, plan: plan!, readout };
 }
