@@ -32,7 +32,7 @@ function standIns(n: number): WebWorkerLike[] {
     const w: WebWorkerLike = {
       onmessage: null,
       postMessage(m, transfer) {
-        const copy = structuredClone(m, { transfer: transfer ?? [] });
+        const copy = structuredClone(m, { transfer });
         setTimeout(() => serve({ data: copy }), 0);
       },
     };

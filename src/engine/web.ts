@@ -19,7 +19,7 @@ import { fillRfMaps, isShared, type EnginePlan } from "./plan.js";
 
 /** What the executor needs of a Web Worker (a browser `Worker` fits; tests may pass an in-process stand-in). */
 export interface WebWorkerLike {
-  postMessage(message: unknown, transfer?: ArrayBuffer[]): void;
+  postMessage(message: unknown, transfer: ArrayBuffer[]): void;
   onmessage: ((ev: { data: unknown }) => void) | null;
   onerror?: ((ev: unknown) => void) | null;
 }
@@ -89,7 +89,7 @@ export function webWorkerExecutor(workers: WebWorkerLike[]): Executor & { readon
       if (this.opened) return;
       this.opened = true;
       const iso = chunkIso(this.iso);
-      for (let i = 0; i < this.size; i++) workers[i]!.postMessage({ t: "open", s: this.id, plan: this.plan, iso } satisfies WebEngineRequest);
+      for (let i = 0; i < this.size; i++) workers[i]!.postMessage({ t: "open", s: this.id, plan: this.plan, iso } satisfies WebEngineRequest, []);
     }
 
     fail(e: Error): void {
@@ -117,7 +117,7 @@ export function webWorkerExecutor(workers: WebWorkerLike[]): Executor & { readon
         const job = this.jobs.shift()!;
         busy[i] = true;
         this.outstanding++;
-        workers[i]!.postMessage(job.req(this.id));
+        workers[i]!.postMessage(job.req(this.id), []);
       }
       if (this.jobs.length === 0 && this.outstanding === 0) {
         const s = this.settle;
@@ -171,7 +171,7 @@ export function webWorkerExecutor(workers: WebWorkerLike[]): Executor & { readon
     async close(): Promise<void> {
       this.fail(new AbortedError());
       if (active === this) active = null;
-      if (this.opened) for (let i = 0; i < this.size; i++) workers[i]!.postMessage({ t: "close", s: this.id } satisfies WebEngineRequest);
+      if (this.opened) for (let i = 0; i < this.size; i++) workers[i]!.postMessage({ t: "close", s: this.id } satisfies WebEngineRequest, []);
     }
   }
 
