@@ -125,7 +125,8 @@ function arrayReader(phantom: string): (path: string) => RealArray {
   const table = phantom.startsWith("file:") ? fileArrays : bundledArrays;
   return (path) => {
     const name = path.replace(/^\.\//, "");
-    const bytes = table.get(name);
+    // a file chosen in the page is found by its own name too (a browser gives no folder)
+    const bytes = table.get(name) ?? (table === fileArrays ? table.get(name.slice(name.lastIndexOf("/") + 1)) : undefined);
     if (!bytes) {
       throw new Error(phantom.startsWith("file:")
         ? `not chosen in the page: choose the phantom file together with its field map ${name}`

@@ -13,7 +13,7 @@ interface Config {
   presets: string[];
   phantoms: string[];
   start: { protocol: string; phantom: string };
-  given: { protocol?: { name: string; object: unknown }; phantom?: { name: string; object: unknown } };
+  given: { protocol?: { name: string; object: unknown }; phantom?: { name: string; object: unknown }; maps?: { name: string; url: string }[] };
 }
 interface Control { key: string; label: string; unit: string; kind: "number" | "select" | "check" | "bandwidth"; options?: string[]; step?: string;
   /** SI value of the effective protocol → the control's value in its unit. */ from: (p: Record<string, any>) => string; }
@@ -493,6 +493,12 @@ async function main(): Promise<void> {
   };
   if (cfg.given.protocol) addInput(cfg.given.protocol.name.slice(5), JSON.stringify(cfg.given.protocol.object));
   if (cfg.given.phantom) addInput(cfg.given.phantom.name.slice(5), JSON.stringify(cfg.given.phantom.object));
+  // the field map of the phantom named on the command line, as its b0.fieldMap.file names it
+  for (const mp of cfg.given.maps ?? []) {
+    const m = { t: "array", name: mp.name, bytes: new Uint8Array(await (await fetch(mp.url)).arrayBuffer()), bundled: false };
+    worker.postMessage(m);
+    toRefiner(m);
+  }
   readUrl(cfg);
   $("controls").addEventListener("submit", (e) => e.preventDefault());
   const pSel = $("c-protocol") as HTMLSelectElement, phSel = $("c-phantom") as HTMLSelectElement;
