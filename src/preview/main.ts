@@ -470,11 +470,6 @@ async function main(): Promise<void> {
     sab = new SharedArrayBuffer(4);
     shared = new Int32Array(sab);
   }
-  // edits at preview quality run on one engine worker (one or two chunks); the refinement uses the other cores
-  const cores = Math.max(1, Math.min(4, (navigator.hardwareConcurrency || 2) - 1));
-  refiner = makeRefiner();
-  toRefiner({ t: "init", presets, phantoms, gen: sab, engineWorkers: cores });
-  worker.postMessage({ t: "init", presets, phantoms, gen: sab, engineWorkers: 1 });
   // field maps of bundled phantoms: fetched from the server's phantoms folder (paths relative to it)
   await Promise.all(Object.values(phantoms).map(async (text) => {
     const file = (() => { try { return JSON.parse(text)?.b0?.fieldMap?.file; } catch { return undefined; } })();
@@ -499,6 +494,11 @@ async function main(): Promise<void> {
     worker.postMessage(m);
     toRefiner(m);
   }
+  // init last: the worker's "ready" starts the first run, and no await lies between here and the message handlers being set
+  // edits at preview quality run on one engine worker (one or two chunks); the refinement (a worker made when it starts) on up to the other cores
+  const cores = Math.max(1, Math.min(4, (navigator.hardwareConcurrency || 2) - 1));
+  toRefiner({ t: "init", presets, phantoms, gen: sab, engineWorkers: cores });
+  worker.postMessage({ t: "init", presets, phantoms, gen: sab, engineWorkers: 1 });
   readUrl(cfg);
   $("controls").addEventListener("submit", (e) => e.preventDefault());
   const pSel = $("c-protocol") as HTMLSelectElement, phSel = $("c-phantom") as HTMLSelectElement;
