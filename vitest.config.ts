@@ -7,5 +7,7 @@ export default defineConfig({
   test: {
     testTimeout: 60_000,
     hookTimeout: 60_000,
+    // removes the folders test/helpers.ts's tempDir made, once each file ends
+    setupFiles: ["test/setup.ts"],
   },
 });

@@ -92,7 +92,12 @@ describe("isofold validate (CLI)", () => {
       expect(j.checks.some((c) => c.check.includes(name)), name).toBe(true);
     }
     const t = cli("validate");
-    expect(t.stdout).toMatch(/^check\s+source\s+expected\s+measured\s+tolerance\s+result/);
+    expect(t.stdout).toMatch(/^result\s+expected\s+measured\s+tolerance\s+unit\s+check \(published source\)/);
+    // fits a 100-column terminal (the default when stdout is not a terminal), every check and its source shown
+    const lines = t.stdout.split("\n\n")[0]!.split("\n");
+    for (const line of lines) expect(line.length, line).toBeLessThanOrEqual(100);
+    expect(lines.filter((l) => /^(pass|FAIL) /.test(l))).toHaveLength(CASES.length);
+    expect(lines.filter((l) => l.includes("source: "))).toHaveLength(CASES.length);
     expect(t.stdout).toContain(`${CASES.length} of ${CASES.length} checks pass`);
   });
 });

@@ -36,7 +36,7 @@ function npy(file: string): { dtype: string; shape: number[]; data: ArrayLike<nu
   const b = readFileSync(file);
   const ab = b.buffer.slice(b.byteOffset, b.byteOffset + b.byteLength);
   const p = new npyjs().parse(ab);
-  return { dtype: p.dtype, shape: p.shape, data: p.data as ArrayLike<number> };
+  return { dtype: p.dtype, shape: p.shape, data: p.data as unknown as ArrayLike<number> };
 }
 
 /** Centred inverse DFT along one axis, written out directly from the convention in case.json (no FFT library). */
@@ -108,14 +108,14 @@ describe("isofold dataset", () => {
       idftAxis(I.re, I.im, 32, 32, 32, 1); // phase
       const s = complexOf(S, c * n, n);
       for (let i = 0; i < n; i++) {
-        num.re[i] += s.re[i]! * I.re[i]! + s.im[i]! * I.im[i]!;
-        num.im[i] += s.re[i]! * I.im[i]! - s.im[i]! * I.re[i]!;
-        den[i] += s.re[i]! ** 2 + s.im[i]! ** 2;
+        num.re[i]! += s.re[i]! * I.re[i]! + s.im[i]! * I.im[i]!;
+        num.im[i]! += s.re[i]! * I.im[i]! - s.im[i]! * I.re[i]!;
+        den[i]! += s.re[i]! ** 2 + s.im[i]! ** 2;
       }
     }
     for (let i = 0; i < n; i++) {
-      num.re[i] /= den[i]!;
-      num.im[i] /= den[i]!;
+      num.re[i]! /= den[i]!;
+      num.im[i]! /= den[i]!;
     }
     const truth1 = complexOf(T, n, n), truth0 = complexOf(T, 0, n);
     expect(relDiff(num, truth1)).toBeLessThan(1e-5);

@@ -20,7 +20,7 @@ function biotSavartDirect(a: number, c: number[], nrm: number[], p: number[], n:
     const r = [0, 1, 2].map((i) => p[i]! - pos[i]!);
     const r3 = Math.hypot(...r) ** 3;
     const d = cross(dl, r);
-    for (let i = 0; i < 3; i++) B[i] += ((MU0 / (4 * Math.PI)) * d[i]!) / r3;
+    for (let i = 0; i < 3; i++) B[i]! += ((MU0 / (4 * Math.PI)) * d[i]!) / r3;
   }
   return B;
 }

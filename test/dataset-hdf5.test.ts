@@ -9,7 +9,7 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import h5wasm from "h5wasm/node";
+import h5wasm, { type Dataset, type File as H5File, type Group } from "h5wasm/node";
 import { writeHdf5, type H5Type } from "../src/io/hdf5.js";
 
 const tmp = mkdtempSync(join(tmpdir(), "isofold-hdf5-"));
@@ -56,12 +56,12 @@ describe("hdf5 writer", () => {
     writeFileSync(file, bytes);
     const f = new h5wasm.File(file, "r");
     expect(f.keys()).toEqual(["outer"]);
-    expect((f.get("outer") as h5wasm.Group).keys().sort()).toEqual(["inner", "note", "plain"]);
-    expect(String((f.get("outer/note") as h5wasm.Dataset).value)).toBe(text);
-    const plain = f.get("outer/plain") as h5wasm.Dataset;
+    expect((f.get("outer") as Group).keys().sort()).toEqual(["inner", "note", "plain"]);
+    expect(String((f.get("outer/note") as Dataset).value)).toBe(text);
+    const plain = f.get("outer/plain") as Dataset;
     expect(plain.shape).toEqual([2, 3]);
     expect(Array.from(plain.value as Float64Array)).toEqual([1, 2, 3, 4, 5, 6.5]);
-    const rows = (f.get("outer/inner/records") as h5wasm.Dataset).value as unknown as [number, bigint, number[], Float32Array][];
+    const rows = (f.get("outer/inner/records") as Dataset).value as unknown as [number, bigint, number[], Float32Array][];
     expect(rows.length).toBe(n);
     rows.forEach((r, i) => {
       expect(r[0]).toBe(3 * i + 1);

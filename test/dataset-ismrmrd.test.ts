@@ -14,7 +14,7 @@ import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
 import npyjs from "npyjs";
-import h5wasm from "h5wasm/node";
+import h5wasm, { type Dataset, type File as H5File, type Group } from "h5wasm/node";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -48,7 +48,7 @@ function tool(cmd: string, args: string[], cwd = tmp): { status: number | null; 
 function npy(file: string): { shape: number[]; data: ArrayLike<number> } {
   const b = readFileSync(file);
   const p = new npyjs().parse(b.buffer.slice(b.byteOffset, b.byteOffset + b.byteLength));
-  return { shape: p.shape, data: p.data as ArrayLike<number> };
+  return { shape: p.shape, data: p.data as unknown as ArrayLike<number> };
 }
 
 /** Centred inverse DFT with 1/n of one line, written out from the convention in case.json (direct sum, no FFT). */
@@ -73,13 +73,13 @@ interface Acq {
   data: Float32Array;
 }
 /** Reads dataset/data as records: head members in ISMRMRD order, data the interleaved samples. */
-function readAcqs(file: string): { xml: string; acqs: Acq[]; names: string[]; f: h5wasm.File } {
+function readAcqs(file: string): { xml: string; acqs: Acq[]; names: string[]; f: H5File } {
   const f = new h5wasm.File(file, "r");
-  const d = f.get("dataset/data") as h5wasm.Dataset;
+  const d = f.get("dataset/data") as Dataset;
   const dtype = d.dtype as unknown as [string, [string, unknown][]][];
   const names = dtype[0]![1].map((m) => m[0]);
   const rows = d.value as unknown as [unknown[], Float32Array, Float32Array][];
-  const xml = String((f.get("dataset/xml") as h5wasm.Dataset).value as unknown as string[]);
+  const xml = String((f.get("dataset/xml") as Dataset).value as unknown as string[]);
   return { xml, acqs: rows.map((r) => ({ head: r[0], data: r[2] })), names, f };
 }
 
@@ -124,7 +124,7 @@ describe("raw.h5 (ISMRMRD)", () => {
     expect(rec.status, rec.stderr).toBe(0);
     expect(rec.stdout).toContain("Number of acquisitions      : 32");
     const f = new h5wasm.File(copy, "r");
-    const img = f.get("dataset/cpp/data") as h5wasm.Dataset;
+    const img = f.get("dataset/cpp/data") as Dataset;
     expect(img.shape).toEqual([1, 1, 1, 32, 32]);
     const tool2d = img.value as Float32Array;
     f.close();
@@ -153,7 +153,7 @@ describe("raw.h5 (ISMRMRD)", () => {
           ci[y] = im[y * 32 + x]!;
         }
         const o = idft(cr, ci);
-        for (let y = 0; y < 32; y++) rss[y * 32 + x] += o.re[y]! ** 2 + o.im[y]! ** 2;
+        for (let y = 0; y < 32; y++) rss[y * 32 + x]! += o.re[y]! ** 2 + o.im[y]! ** 2;
       }
     }
     let d = 0, s = 0;
@@ -188,7 +188,7 @@ describe("raw.h5 (ISMRMRD)", () => {
       expect(h(acqs[i]!, "active_channels")).toBe(4);
     }
     const img = acqs.slice(3);
-    expect(img.map((a) => (h(a, "idx") as number[])[0]).sort((a, b) => a - b)).toEqual(sampled);
+    expect(img.map((a) => (h(a, "idx") as number[])[0]!).sort((a, b) => a - b)).toEqual(sampled);
     expect(bit(h(img[img.length - 1]!, "flags"), 25)).toBe(true);
     expect(img.slice(0, -1).some((a) => bit(h(a, "flags"), 25))).toBe(false);
     expect(bit(h(img[0]!, "flags"), 1) && bit(h(img[img.length - 1]!, "flags"), 2)).toBe(true);

@@ -36,7 +36,7 @@ describe("random mask with --exact", () => {
     const N = 48, freq = new Float64Array(N);
     for (let seed = 0; seed < 400; seed++) {
       const m = makeMask(1, N, o, Rng.stream(seed, 1, 2));
-      for (let y = 0; y < N; y++) freq[y] += m.data[y]! / 400;
+      for (let y = 0; y < N; y++) freq[y]! += m.data[y]! / 400;
     }
     const p = randomDensity(N, 3, 4);
     expect(p[21]!).toBeGreaterThan(p[2]!);

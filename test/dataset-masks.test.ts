@@ -17,7 +17,7 @@ describe("sampling masks", () => {
 
   it("uniform R = 3 with 8 centre lines: lines 12…19 all sampled, others on the R grid, acceleration = N/count", () => {
     const m = makeMask(2, 32, opt({ kind: "uniform", accel: 3, acs: 8 }), Rng.stream(1, 0, 2));
-    const want = Array.from({ length: 32 }, (_, y) => ((y >= 12 && y < 20) || (y - 16) % 3 === 0 ? 1 : 0));
+    const want: number[] = Array.from({ length: 32 }, (_, y) => ((y >= 12 && y < 20) || (y - 16) % 3 === 0 ? 1 : 0));
     expect(lines(m, 0, 32)).toEqual(want);
     expect(lines(m, 32, 32)).toEqual(want);
     const count = want.reduce((a, b) => a + b, 0);

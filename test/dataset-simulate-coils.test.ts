@@ -31,7 +31,7 @@ const ARGS = [
 function npy(file: string): { shape: number[]; data: ArrayLike<number> } {
   const b = readFileSync(file);
   const p = new npyjs().parse(b.buffer.slice(b.byteOffset, b.byteOffset + b.byteLength));
-  return { shape: p.shape, data: p.data as ArrayLike<number> };
+  return { shape: p.shape, data: p.data as unknown as ArrayLike<number> };
 }
 
 describe("simulate --coils", () => {

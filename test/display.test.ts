@@ -12,7 +12,7 @@ import { readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { describe, expect, it } from "vitest";
 import { PNG } from "pngjs";
-import { decodeNpy } from "../src/io/npy.js";
+import { decodeNpy, type ComplexData } from "../src/io/npy.js";
 import { displayPoint, displayTransform, toDisplay, type Vec3 } from "../src/report/display.js";
 import { logicalAxes } from "../src/protocol/index.js";
 import { tempDir, writeJson } from "./helpers.js";
@@ -109,7 +109,7 @@ describe("image.png in display orientation, image.npy in index order", () => {
       // image.npy keeps [coil, slice, phase, read] with index n at (n − N/2)·Δ along +x / +y: the marker sits at high indices on both
       const npy = decodeNpy(readFileSync(join(out, "image.npy")));
       expect(npy.shape).toEqual([1, 1, 32, 32]);
-      const { re, im } = npy.data as { re: Float32Array; im: Float32Array };
+      const { re, im } = npy.data as ComplexData;
       let best = 0, at = 0;
       for (let i = 0; i < 32 * 32; i++) {
         const m = Math.hypot(re[i]!, im[i]!);

@@ -12,7 +12,7 @@ import { describe, expect, it } from "vitest";
 import { checkJsonStructure, MAX_DEPTH, parseJsonStrict } from "../src/json.js";
 import { loadPhantom, loadProtocol } from "../src/cli/inputs.js";
 import { readRealNpy } from "../src/cli/pipeline.js";
-import { decodeNpy, encodeNpy } from "../src/io/npy.js";
+import { decodeNpy, encodeNpy, type ComplexData } from "../src/io/npy.js";
 import { tempDir, userErrorOf, writeJson } from "./helpers.js";
 
 const ROOT = resolve(__dirname, "..");
@@ -164,7 +164,7 @@ describe("grids at the edges (compiled CLI)", () => {
     const im = decodeNpy(readFileSync(join(dir, "run", "image.npy")), "i");
     expect(k.shape).toEqual([1, 1, 1, 1]);
     expect(im.shape).toEqual([1, 1, 1, 1]);
-    const kd = k.data as { re: Float32Array; im: Float32Array }, id = im.data as { re: Float32Array; im: Float32Array };
+    const kd = k.data as ComplexData, id = im.data as ComplexData;
     expect(Math.hypot(kd.re[0]!, kd.im[0]!)).toBeGreaterThan(0);
     expect(id.re[0]).toBe(kd.re[0]);
     expect(id.im[0]).toBe(kd.im[0]);

@@ -17,7 +17,7 @@ describe("fat spectrum constants", () => {
   test("main methylene peak is −3.4 ppm from water and the largest six-peak amplitude", () => {
     // Hamilton et al. 2011, NMR Biomed 24:784: methylene at 1.3 ppm, water at 4.7 ppm → −3.4 ppm.
     expect(FAT_SINGLE_PPM).toBe(-3.4);
-    const k = FAT_PEAKS_AMPLITUDE.indexOf(Math.max(...FAT_PEAKS_AMPLITUDE));
+    const k = (FAT_PEAKS_AMPLITUDE as readonly number[]).indexOf(Math.max(...FAT_PEAKS_AMPLITUDE));
     expect(FAT_PEAKS_PPM[k]).toBe(-3.4);
   });
 

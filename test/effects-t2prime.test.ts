@@ -83,6 +83,9 @@ function voxelSignal(t2: number, t2star: number, n: number, echo: null | number,
     name: "test", pulses: [hard(0, Math.PI / 2), hard(1, Math.PI)], blocks,
     kspace: { slice: 1, phase: 1, read: samples }, image: { slice: 1, phase: 1, read: samples },
     centre: { read: 0, phase: 0 }, timing: { teMin: 0, trMin: 0, te: 0, tr: 1, scanTime: 1 }, derived: {},
+    // the engine reads only the blocks, pulses and k-space size; the rest as for a one-line non-selective scan
+    quantities: { sliceGradient: 0 }, phaseTable: [], activeTime: 0,
+    grid: { read: samples, offset: 0, reversed: null, partialFourier: { phase: 1, read: 1, method: "zero-fill" }, phaseFirst: 0, threeD: false },
   };
   const { kspace } = simulateSerial(seq, iso, { receiverFilter: false });
   const m0 = iso.m0.reduce((a, b) => a + b, 0);

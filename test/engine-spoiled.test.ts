@@ -1,5 +1,5 @@
 /**
- * The ideally spoiled shortcut of the chunk runner (engine/chunk.ts,
+ * The ideally spoiled shortcut of the chunk runner (engine/spoiled.ts,
  * runChunkSpoiled) against the general path that plays every op on every
  * isochromat (forced with `general: true`; that path is itself checked
  * against a direct per-isochromat Bloch simulation in engine.test.ts). The

@@ -13,7 +13,7 @@ import {
   BLOCK_CHUNKS, ChunkScratch, blockCount, f64Words, makePlan, readoutRecurrence, receiverFilter, runChunk,
   PARALLEL_RF_CLASSES, readoutRecurrenceFast, rfAffine, rfAffineMany, wasmRfKernel, shardBlocks, simulateParallel, simulateSerial, TupleIndex, wasmKernel,
 } from "../src/engine/node.js";
-import type { IsochromatSet } from "../src/isochromats/index.js";
+import { defaultIsochromatOptions, type IsochromatSet } from "../src/isochromats/index.js";
 import type { Sequence } from "../src/sequence/types.js";
 
 /** Deterministic uniform numbers in [0, 1) (a 32-bit linear congruential generator, fixed seed). */
@@ -197,7 +197,7 @@ function smallCase(sets: string[] = [], protocol = "gre-demo-1.5t", density = 1)
   return prepare({
     phantom: "phantoms/two-bottle.json", protocol,
     sets: ["matrix.read=8", "matrix.phase=8", "dummyScans=1", "excitation.steps=50", "refocusing.steps=50", ...sets],
-    out: "/tmp/unused", seed: 1, iso: { density, sliceCount: 3, sliceExtent: 3, fatModel: "multi" }, workers: 1,
+    out: "/tmp/unused", seed: 1, iso: { ...defaultIsochromatOptions(), density, sliceCount: 3, sliceExtent: 3, fatModel: "multi" }, workers: 1,
   });
 }
 

@@ -30,8 +30,8 @@ function relErr(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: ArrayLike<n
   let num = 0;
   let den = 0;
   for (let i = 0; i < bRe.length; i++) {
-    num += (aRe[i] - bRe[i]) ** 2 + (aIm[i] - bIm[i]) ** 2;
-    den += bRe[i] ** 2 + bIm[i] ** 2;
+    num += (aRe[i]! - bRe[i]!) ** 2 + (aIm[i]! - bIm[i]!) ** 2;
+    den += bRe[i]! ** 2 + bIm[i]! ** 2;
   }
   return Math.sqrt(num / den);
 }
@@ -43,7 +43,7 @@ describe("FFTPlan.transform", () => {
   for (const n of SIZES) {
     it(`sign −1 matches mathjs fft for n = ${n} within 1e-10`, () => {
       const x = randomComplex(n, 1000 + n);
-      const ref = mathFft(Array.from(x.re, (v, i) => complex(v, x.im[i]))) as unknown as Complex[];
+      const ref = mathFft(Array.from(x.re, (v, i) => complex(v, x.im[i]!))) as unknown as Complex[];
       const outRe = new Float64Array(n);
       const outIm = new Float64Array(n);
       new FFTPlan(n).transform(outRe, outIm, x.re, x.im, -1);
@@ -53,7 +53,7 @@ describe("FFTPlan.transform", () => {
 
     it(`sign +1 matches n × mathjs ifft for n = ${n} within 1e-10`, () => {
       const x = randomComplex(n, 2000 + n);
-      const ref = mathIfft(Array.from(x.re, (v, i) => complex(v, x.im[i]))) as unknown as Complex[];
+      const ref = mathIfft(Array.from(x.re, (v, i) => complex(v, x.im[i]!))) as unknown as Complex[];
       const outRe = new Float64Array(n);
       const outIm = new Float64Array(n);
       new FFTPlan(n).transform(outRe, outIm, x.re, x.im, 1);
@@ -69,8 +69,8 @@ describe("FFTPlan.transform", () => {
       plan.transform(re, im, re, im, -1);
       plan.transform(re, im, re, im, 1);
       for (let i = 0; i < n; i++) {
-        re[i] /= n;
-        im[i] /= n;
+        re[i]! /= n;
+        im[i]! /= n;
       }
       expect(relErr(re, im, x.re, x.im)).toBeLessThan(1e-12);
     });
@@ -121,8 +121,8 @@ function directIfft2c(re: Float64Array, im: Float64Array, rows: number, cols: nu
           const ph = 2 * Math.PI * (((a - cr) * (r - cr)) / rows + ((b - cc) * (q - cc)) / cols);
           const c = Math.cos(ph);
           const s = Math.sin(ph);
-          sr += re[a * cols + b] * c - im[a * cols + b] * s;
-          si += re[a * cols + b] * s + im[a * cols + b] * c;
+          sr += re[a * cols + b]! * c - im[a * cols + b]! * s;
+          si += re[a * cols + b]! * s + im[a * cols + b]! * c;
         }
       }
       oRe[r * cols + q] = sr / (rows * cols);
@@ -204,12 +204,12 @@ describe("centred transforms", () => {
     let rr = 0;
     let ri = 0;
     for (let i = 0; i < rows * cols; i++) {
-      lr += fx.re[i] * y.re[i] + fx.im[i] * y.im[i];
-      li += fx.im[i] * y.re[i] - fx.re[i] * y.im[i];
-      const br = gy.re[i] * rows * cols;
-      const bi = gy.im[i] * rows * cols;
-      rr += x.re[i] * br + x.im[i] * bi;
-      ri += x.im[i] * br - x.re[i] * bi;
+      lr += fx.re[i]! * y.re[i]! + fx.im[i]! * y.im[i]!;
+      li += fx.im[i]! * y.re[i]! - fx.re[i]! * y.im[i]!;
+      const br = gy.re[i]! * rows * cols;
+      const bi = gy.im[i]! * rows * cols;
+      rr += x.re[i]! * br + x.im[i]! * bi;
+      ri += x.im[i]! * br - x.re[i]! * bi;
     }
     expect(lr).toBeCloseTo(rr, 10);
     expect(li).toBeCloseTo(ri, 10);
@@ -220,12 +220,12 @@ describe("centred transforms", () => {
     const cols = 100;
     const x = randomComplex(rows * cols, 5);
     let ex = 0;
-    for (let i = 0; i < x.re.length; i++) ex += x.re[i] ** 2 + x.im[i] ** 2;
+    for (let i = 0; i < x.re.length; i++) ex += x.re[i]! ** 2 + x.im[i]! ** 2;
     const re = x.re.slice();
     const im = x.im.slice();
     fft2c(re, im, rows, cols);
     let es = 0;
-    for (let i = 0; i < re.length; i++) es += re[i] ** 2 + im[i] ** 2;
+    for (let i = 0; i < re.length; i++) es += re[i]! ** 2 + im[i]! ** 2;
     expect(es / (rows * cols * ex)).toBeCloseTo(1, 12);
   });
 
@@ -234,8 +234,8 @@ describe("centred transforms", () => {
     let sr = 0;
     let si = 0;
     for (let i = 0; i < 35; i++) {
-      sr += x.re[i];
-      si += x.im[i];
+      sr += x.re[i]!;
+      si += x.im[i]!;
     }
     fft2c(x.re, x.im, 5, 7);
     expect(x.re[2 * 7 + 3]).toBeCloseTo(sr, 12);
@@ -252,13 +252,13 @@ describe("centred transforms", () => {
     const colRe = new Float64Array(rows);
     const colIm = new Float64Array(rows);
     for (let r = 0; r < rows; r++) {
-      colRe[r] = x.re[r * cols + 2];
-      colIm[r] = x.im[r * cols + 2];
+      colRe[r] = x.re[r * cols + 2]!;
+      colIm[r] = x.im[r * cols + 2]!;
     }
     ifft2c(colRe, colIm, rows, 1);
     for (let r = 0; r < rows; r++) {
-      expect(re[r * cols + 2]).toBeCloseTo(colRe[r], 13);
-      expect(im[r * cols + 2]).toBeCloseTo(colIm[r], 13);
+      expect(re[r * cols + 2]!).toBeCloseTo(colRe[r]!, 13);
+      expect(im[r * cols + 2]!).toBeCloseTo(colIm[r]!, 13);
       for (const q of [0, 1, 3]) expect(re[r * cols + q]).toBe(x.re[r * cols + q]);
     }
     fftc1(re, im, rows, cols, 2);

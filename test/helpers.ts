@@ -6,7 +6,7 @@
  * the command line and simulate() do.
  */
 import assert from "node:assert/strict";
-import { mkdtempSync, writeFileSync } from "node:fs";
+import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { prepareSimulation, reconstructRuns, type Volume } from "../src/api.js";
@@ -48,8 +48,18 @@ export async function datasetInProcess(args: string[]): Promise<void> {
   }
 }
 
+const madeDirs: string[] = [];
+
+/** A fresh temporary folder, removed after the test file ends (test/setup.ts). */
 export function tempDir(prefix = "isofold-test-"): string {
-  return mkdtempSync(join(tmpdir(), prefix));
+  const d = mkdtempSync(join(tmpdir(), prefix));
+  madeDirs.push(d);
+  return d;
+}
+
+/** Removes the folders tempDir made in this test file (called from test/setup.ts's afterAll). */
+export function removeTempDirs(): void {
+  for (const d of madeDirs.splice(0)) rmSync(d, { recursive: true, force: true });
 }
 
 export function writeJson(dir: string, name: string, value: unknown): string {

@@ -26,8 +26,8 @@ function rotX(t: number): number[][] {
 }
 /** Rotation by t radians about the axis u (Rodrigues' formula). */
 function axisAngle(u: number[], t: number): number[][] {
-  const l = Math.hypot(u[0], u[1], u[2]);
-  const [x, y, z] = u.map((v) => v / l);
+  const l = Math.hypot(u[0]!, u[1]!, u[2]!);
+  const x = u[0]! / l, y = u[1]! / l, z = u[2]! / l;
   const c = Math.cos(t);
   const s = Math.sin(t);
   const k = 1 - c;
@@ -38,11 +38,11 @@ function axisAngle(u: number[], t: number): number[][] {
   ];
 }
 function mul(a: number[][], b: number[][]): number[][] {
-  return a.map((row) => [0, 1, 2].map((j) => row[0] * b[0][j] + row[1] * b[1][j] + row[2] * b[2][j]));
+  return a.map((row) => [0, 1, 2].map((j) => row[0]! * b[0]![j]! + row[1]! * b[1]![j]! + row[2]! * b[2]![j]!));
 }
 /** 3×4 affine with columns R[:, j]·vox[j] and offset t. */
 function affineOf(r: number[][], vox: number[], t: number[]): number[][] {
-  return [0, 1, 2].map((i) => [r[i][0] * vox[0], r[i][1] * vox[1], r[i][2] * vox[2], t[i]]);
+  return [0, 1, 2].map((i) => [r[i]![0]! * vox[0]!, r[i]![1]! * vox[1]!, r[i]![2]! * vox[2]!, t[i]!]);
 }
 
 const dims: [number, number, number] = [4, 3, 2];
@@ -62,7 +62,7 @@ const AFFINES: Array<[string, number[][], 1 | -1]> = [
 
 describe("encodeNifti1", () => {
   it("encodeNifti1 output is a NIfTI-1 single file read back with dims, mm voxel sizes, float32 type and the data", () => {
-    const bytes = encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0][1], description: "isofold test" });
+    const bytes = encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0]![1]!, description: "isofold test" });
     const ab = toArrayBuffer(bytes);
     expect(nifti.isNIFTI1(ab)).toBe(true);
     expect(bytes.length).toBe(352 + 4 * 24);
@@ -91,12 +91,12 @@ describe("encodeNifti1", () => {
       const h = nifti.readHeader(ab) as NIFTI1;
       // The reader fills `affine` from the sform when sform_code > 0.
       for (let i = 0; i < 3; i++) {
-        for (let j = 0; j < 4; j++) expect(h.affine[i][j]).toBeCloseTo(affine[i][j], 5);
+        for (let j = 0; j < 4; j++) expect(h.affine[i]![j]!).toBeCloseTo(affine[i]![j]!, 5);
       }
       expect(h.pixDims[0]).toBe(qfac);
       const q = h.getQformMat();
       for (let i = 0; i < 3; i++) {
-        for (let j = 0; j < 4; j++) expect(q[i][j]).toBeCloseTo(affine[i][j], 5);
+        for (let j = 0; j < 4; j++) expect(q[i]![j]!).toBeCloseTo(affine[i]![j]!, 5);
       }
       expect(h.quatern_b ** 2 + h.quatern_c ** 2 + h.quatern_d ** 2).toBeLessThanOrEqual(1 + 1e-6);
     });
@@ -111,7 +111,7 @@ describe("encodeNifti1", () => {
   });
 
   it("encodeNifti1 stores the voxel (i, j, k) at data[i + nx·(j + ny·k)] with x fastest", () => {
-    const ab = toArrayBuffer(encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0][1] }));
+    const ab = toArrayBuffer(encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0]![1]! }));
     const img = new Float32Array(nifti.readImage(nifti.readHeader(ab), ab));
     // voxel (i, j, k) = (3, 2, 1) → 3 + 4·(2 + 3·1) = 23
     expect(img[23]).toBe(data[3 + 4 * (2 + 3 * 1)]);
@@ -119,14 +119,14 @@ describe("encodeNifti1", () => {
   });
 
   it("encodeNifti1 cuts the description to 79 characters and ends it with a NUL", () => {
-    const bytes = encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0][1], description: "x".repeat(100) });
+    const bytes = encodeNifti1({ data, dims, voxelMm, affine: AFFINES[0]![1]!, description: "x".repeat(100) });
     const h = nifti.readHeader(toArrayBuffer(bytes)) as NIFTI1;
     expect(h.description).toBe("x".repeat(79));
     expect(bytes[148 + 79]).toBe(0);
   });
 
   it("encodeNifti1 throws RangeError for a data length that does not match dims", () => {
-    expect(() => encodeNifti1({ data: new Float32Array(5), dims, voxelMm, affine: AFFINES[0][1] })).toThrow(RangeError);
+    expect(() => encodeNifti1({ data: new Float32Array(5), dims, voxelMm, affine: AFFINES[0]![1]! })).toThrow(RangeError);
   });
 
   it("encodeNifti1 throws RangeError when affine column lengths differ from voxelMm", () => {

@@ -12,7 +12,7 @@ function toArrayBuffer(bytes: Uint8Array): ArrayBuffer {
 
 /** Bytes 0..9 + header as text, and the header length field. */
 function preamble(bytes: Uint8Array): { headerLen: number; header: string; total: number } {
-  const headerLen = bytes[8] | (bytes[9] << 8);
+  const headerLen = bytes[8]! | (bytes[9]! << 8);
   const header = new TextDecoder("latin1").decode(bytes.subarray(10, 10 + headerLen));
   return { headerLen, header, total: 10 + headerLen };
 }
@@ -31,8 +31,8 @@ describe("encodeNpy", () => {
     expect(data).toBeInstanceOf(Float32Array);
     expect(data.length).toBe(24);
     for (let i = 0; i < 12; i++) {
-      expect(data[2 * i]).toBe(Math.fround(re[i]));
-      expect(data[2 * i + 1]).toBe(Math.fround(im[i]));
+      expect(data[2 * i]).toBe(Math.fround(re[i]!));
+      expect(data[2 * i + 1]).toBe(Math.fround(im[i]!));
     }
   });
 
@@ -128,7 +128,7 @@ describe("decodeNpy", () => {
 
   it("decodeNpy reads a version 2.0 file (uint32 header length)", () => {
     const v1 = encodeNpy({ dtype: "float64", shape: [2], data: [7, 8] });
-    const headerLen = v1[8] | (v1[9] << 8);
+    const headerLen = v1[8]! | (v1[9]! << 8);
     const v2 = new Uint8Array(v1.length + 2);
     v2.set(v1.subarray(0, 8));
     v2[6] = 2;

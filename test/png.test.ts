@@ -7,9 +7,9 @@ import { crc32, encodeGrayPng, insertTextChunks, logMagnitude, percentile, SIMUL
 function decode(bytes: Uint8Array): { width: number; height: number; colorType: number; grey: number[] } {
   const png = PNG.sync.read(Buffer.from(bytes));
   const grey: number[] = [];
-  for (let i = 0; i < png.width * png.height; i++) grey.push(png.data[4 * i]);
+  for (let i = 0; i < png.width * png.height; i++) grey.push(png.data[4 * i]!);
   // Colour type and bit depth are bytes 25 and 24 of the file (IHDR chunk data).
-  return { width: png.width, height: png.height, colorType: bytes[25], grey };
+  return { width: png.width, height: png.height, colorType: bytes[25]!, grey };
 }
 
 describe("percentile", () => {

@@ -15,6 +15,7 @@ import { join, resolve } from "node:path";
 import { describe, expect, it } from "vitest";
 import { run, defaultIsochromatOptions } from "../src/cli/pipeline.js";
 import { tempDir } from "./helpers.js";
+import type { IsochromatOptions } from "../src/isochromats/index.js";
 
 const ROOT = resolve(import.meta.dirname, "..");
 const PHANTOM = join(ROOT, "phantoms", "two-bottle.json");
@@ -51,7 +52,7 @@ const presets = readdirSync(join(ROOT, "src", "protocol", "presets")).filter((f)
 
 const SMALL_ISO = { ...defaultIsochromatOptions(), density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 1 };
 
-async function kspaceHash(protocol: string, sets: string[], iso = SMALL_ISO): Promise<string> {
+async function kspaceHash(protocol: string, sets: string[], iso: IsochromatOptions = SMALL_ISO): Promise<string> {
   const out = join(tempDir(), "run");
   await run({ phantom: PHANTOM, protocol, sets, out, seed: 1, quiet: true, workers: 1, iso });
   return createHash("sha256").update(readFileSync(join(out, "kspace.npy"))).digest("hex");

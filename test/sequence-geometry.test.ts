@@ -8,6 +8,7 @@
  */
 import { describe, expect, it } from "vitest";
 import { centroid, halfMaxWidth, phantom, proto, simulate, tissue } from "./sequence-helpers.js";
+import type { ComplexData } from "../src/io/npy.js";
 
 const gel = tissue("20 ms", "20 ms");
 const discAt = (x: string, y: string, r = "1 cm", b0?: string) =>
@@ -117,7 +118,7 @@ describe("multi-slice: each slice is its own run at its own position, stacked in
     await run({ phantom: phFile, protocol: prFile, sets: [], out: join(dir, "run"), seed: 1, iso: { ...defaultIsochromatOptions(), density: 1, sliceCount: 12, sliceExtent: 3 }, quiet: true });
     const img = decodeNpy(readFileSync(join(dir, "run", "image.npy")));
     expect(img.shape).toEqual([1, 3, 32, 32]);
-    const re = img.data.re as Float64Array | Float32Array, im = img.data.im as Float64Array | Float32Array;
+    const { re, im } = img.data as ComplexData;
     const radiiPx = [-2, 0, 2].map((z) => Math.sqrt(9 - (z - 0.5) ** 2) / 0.5);
     for (let s = 0; s < 3; s++) {
       const o = s * 1024;

@@ -59,7 +59,7 @@ const bssfp = (tbw: number) => proto({
 describe("pathway moments (extended phase graph) of a spin echo", () => {
   it("the unrefocused FID carries 2c + tbw cycles per thickness: c-cycle crushers on both sides plus the refocusing lobe", () => {
     // closed form: crusher c each side + half the refocusing lobe (tbw/2 cycles) each side → 2c + tbw
-    for (const [tbw, c] of [[2, 1], [4, 2], [8, 4]]) {
+    for (const [tbw, c] of [[2, 1], [4, 2], [8, 4]] as const) {
       const p = se(tbw, c);
       const m = pathwayMoments(buildSequence(p), p.slice.thickness, 1).maxMoment;
       expect(Math.abs(m - (2 * c + tbw))).toBeLessThan(0.1); // +0.07: the excitation's rephaser rounding to the gradient raster

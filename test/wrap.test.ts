@@ -76,7 +76,7 @@ describe("far-out tissue wraps at full amplitude (Nyquist folding x' = x − FOV
   });
 
   it("along read with the receiver filter on, the far marker is stopped by the filter, and the report says why it is not sampled", () => {
-    // receiver filter model (engine/chunk.ts): zero beyond the sampled Nyquist edge, so nothing folds back
+    // receiver filter model (engine/readout.ts): zero beyond the sampled Nyquist edge, so nothing folds back
     const p = proto({ matrix: { read: 16, phase: 16 }, oversampling: { read: 1, phase: 0 }, receiverFilter: true });
     const far = simulate(p, markerPhantom(1.6 * 0.16, 0)), none = simulate(p, phantom({
       tissues: { gel: tissue("1000 ms", "100 ms") },

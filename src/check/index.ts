@@ -281,7 +281,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   let phaseRoi = 0, readRoi = 0;
   const filterDim = new Set<number>();
   const fOn = p.receiverFilter;
-  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/chunk.ts)
+  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/readout.ts, receiverFilter)
   const filterEdgePx = 0.42 * Lr;
   // key: 2·shape + (1 when leaving toward the positive side)
   const acc = (m: Map<number, Acc>, key: number): Acc => {

@@ -249,8 +249,8 @@ export function phaseShiftPx(a: { re: ArrayLike<number>; im: ArrayLike<number> }
         ar += a.re[i]! * c - a.im[i]! * s; ai += a.re[i]! * s + a.im[i]! * c;
         br += b.re[i]! * c - b.im[i]! * s; bi += b.re[i]! * s + b.im[i]! * c;
       }
-      cr[m + M] += br * ar + bi * ai;
-      ci[m + M] += bi * ar - br * ai;
+      cr[m + M]! += br * ar + bi * ai;
+      ci[m + M]! += bi * ar - br * ai;
     }
   }
   let sr = 0, si = 0;

@@ -570,7 +570,7 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const P = img.slice, pz = Math.floor(P / 2), plane = img.phase * img.read;
     const rss = new Float64Array(plane);
     for (let c = 0; c < C; c++) {
-      for (let i = 0; i < plane; i++) rss[i] += coilRe[c * n + pz * plane + i]! ** 2 + coilIm[c * n + pz * plane + i]! ** 2;
+      for (let i = 0; i < plane; i++) rss[i]! += coilRe[c * n + pz * plane + i]! ** 2 + coilIm[c * n + pz * plane + i]! ** 2;
     }
     for (let i = 0; i < plane; i++) rss[i] = Math.sqrt(rss[i]!);
     files.set("coil-rss.png", encodeGrayPng(rss, img.read, img.phase).png);

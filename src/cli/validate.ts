@@ -26,17 +26,38 @@ export function simulateSmall(p: Protocol, ph: Phantom, iso: Partial<IsochromatO
 
 const num = (v: number) => (!Number.isFinite(v) ? "—" : Math.abs(v) >= 100 ? v.toFixed(1) : Math.abs(v) >= 1 ? v.toFixed(3) : v.toPrecision(3));
 
-function table(rows: string[][]): string {
-  const w = rows[0]!.map((_, c) => Math.max(...rows.map((r) => (r[c] ?? "").length)));
-  return rows.map((r) => r.map((x, c) => (c === r.length - 1 ? x : x.padEnd(w[c]!))).join("  ").trimEnd()).join("\n");
+/** Greedy word wrap of `text` to lines of at most `width` characters (a longer word stays whole). */
+function wrap(text: string, width: number): string[] {
+  const lines: string[] = [];
+  let line = "";
+  for (const word of text.split(/\s+/).filter(Boolean)) {
+    if (line && line.length + 1 + word.length > width) {
+      lines.push(line);
+      line = word;
+    } else line = line ? `${line} ${word}` : word;
+  }
+  if (line) lines.push(line);
+  return lines.length ? lines : [""];
 }
 
-export function validationTable(rows: ValidationRow[]): string {
-  const out = [["check", "source", "expected", "measured", "tolerance", "result"]];
-  for (const r of rows) {
-    out.push([r.check, r.source, `${num(r.expected)} ${r.unit}`, `${num(r.measured)} ${r.unit}`, `± ${num(r.tolerance)} ${r.unit}`, r.pass ? "pass" : "FAIL"]);
-  }
-  return table(out);
+/**
+ * The validation table for a terminal `width` characters wide (default: the
+ * terminal's, else 100): result, expected, measured, tolerance and unit in fixed
+ * columns, the check's name and its published source wrapped beside them.
+ */
+export function validationTable(rows: ValidationRow[], width = process.stdout.columns || 100): string {
+  const cells = rows.map((r) => [r.pass ? "pass" : "FAIL", num(r.expected), num(r.measured), `± ${num(r.tolerance)}`, r.unit]);
+  const head = ["result", "expected", "measured", "tolerance", "unit"];
+  const w = head.map((h, c) => Math.max(h.length, ...cells.map((r) => r[c]!.length)));
+  const lead = w.reduce((a, b) => a + b + 2, 0);
+  const textWidth = Math.max(30, width - lead);
+  const pad = (r: string[]) => r.map((x, c) => x.padEnd(w[c]!)).join("  ") + "  ";
+  const out = [(pad(head) + "check (published source)").trimEnd()];
+  rows.forEach((r, i) => {
+    const text = [...wrap(r.check, textWidth), ...wrap(`source: ${r.source}`, textWidth)];
+    text.forEach((t, j) => out.push((j === 0 ? pad(cells[i]!) : " ".repeat(lead)) + t));
+  });
+  return out.join("\n");
 }
 
 export function registerValidate(program: Command): void {

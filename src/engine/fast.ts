@@ -195,7 +195,7 @@ function project(basis: Float64Array[], x: Float64Array, m: number, count: numbe
 // ---------------------------------------------------------------------------
 // Class playback: P_c(n) for every class and readout (the spoiled shortcut's numbers).
 
-type Adc = Extract<Op, { t: "adc" }>;
+type Adc = Extract<Op, { kind: "adc" }>;
 
 interface History {
   /** Readout ops in order, with their block's gradient areas since the last pulse (T·s/m) and gradient·dwell. */
@@ -222,7 +222,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): Hist
       }
     }
   }
-  const nAdc = plan.ops.filter((o) => o.t === "adc").length;
+  const nAdc = plan.ops.filter((o) => o.kind === "adc").length;
   if (nAdc !== adcBlocks.length) return "internal: readouts of the plan and the sequence differ";
   if (C * nAdc > MAX_CLASS_LINES) return `${C.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
   const classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
@@ -251,23 +251,23 @@ function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): Hist
   const adcs: History["adcs"] = [];
   let active = false;
   for (const op of plan.ops) {
-    switch (op.t) {
+    switch (op.kind) {
       case "rf":
         for (let c = 0; c < C; c++) {
-          const b = op.base + c * 12, z = mz[c]!;
+          const b = op.mapOffset + c * 12, z = mz[c]!;
           const x = maps[b + 2]! * z + maps[b + 9]!, y = maps[b + 5]! * z + maps[b + 10]!;
           mz[c] = maps[b + 8]! * z + maps[b + 11]!;
-          pr[c] = x * op.cos - y * op.sin;
-          pi[c] = x * op.sin + y * op.cos;
+          pr[c] = x * op.cosPhase - y * op.sinPhase;
+          pi[c] = x * op.sinPhase + y * op.cosPhase;
         }
         active = true;
         break;
       case "free": {
-        const d = D[op.dur]!, e1 = E1[op.dur]!;
+        const d = D[op.durationIndex]!, e1 = E1[op.durationIndex]!;
         for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
         if (!active) break;
         for (let c = 0; c < C; c++) {
-          const ow = op.w + 2 * Math.max(0, classIw[c]!);
+          const ow = op.sliceTable + 2 * Math.max(0, classIw[c]!);
           const wr = tab[ow]!, wi = tab[ow + 1]!, dr = d[2 * c]!, di = d[2 * c + 1]!;
           const qr = wr * dr - wi * di, qi = wr * di + wi * dr, xr = pr[c]!, xi = pi[c]!;
           pr[c] = xr * qr - xi * qi;
@@ -276,7 +276,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): Hist
         break;
       }
       case "relax": {
-        const e1 = E1[op.dur]!;
+        const e1 = E1[op.durationIndex]!;
         for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
         break;
       }
@@ -303,7 +303,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, iso: IsochromatSet): Hist
 export function fastPrecheck(plan: EnginePlan): string | null {
   if (!plan.spoiledFast) return "not an ideally spoiled sequence (two or more pulses between ideal spoils): the fast operator covers ideally spoiled Cartesian readouts so far";
   let nAdc = 0;
-  for (const o of plan.ops) if (o.t === "adc") nAdc++;
+  for (const o of plan.ops) if (o.kind === "adc") nAdc++;
   if (plan.classes * nAdc > MAX_CLASS_LINES) return `${plan.classes.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
   return null;
 }
@@ -335,10 +335,10 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   if (act.length === 0) return { re, im, report: { ...base, method: "no readout sees transverse magnetization", segments: 0, lineRank: 0, estimate: { samples: 0, seed: ESTIMATE_SEED, relL2: 0 } } };
   // --- one readout shape: samples, dwell, read step, filter; read gradient only; common read prephasing
   const a0 = act[0]!;
-  const ns = a0.op.n, dwell = a0.dwell, stepU = a0.step[0];
+  const ns = a0.op.samples, dwell = a0.dwell, stepU = a0.step[0];
   for (const a of act) {
-    if (a.op.byW || a.step[1] !== 0 || a.step[2] !== 0) return "the readout gradient has a phase or slice part (oblique readout): not covered by the fast operator yet";
-    if (a.op.n !== ns || a.dwell !== dwell || a.step[0] !== stepU || a.op.fRead !== a0.op.fRead || a.op.bwSampled !== a0.op.bwSampled) {
+    if (a.op.groupByPhaseAndSlice || a.step[1] !== 0 || a.step[2] !== 0) return "the readout gradient has a phase or slice part (oblique readout): not covered by the fast operator yet";
+    if (a.op.samples !== ns || a.dwell !== dwell || a.step[0] !== stepU || a.op.readHzPerMetre !== a0.op.readHzPerMetre || a.op.sampledBandwidth !== a0.op.sampledBandwidth) {
       return "readouts differ in samples, dwell or read gradient (e.g. EPI): not covered by the fast operator yet";
     }
   }
@@ -462,7 +462,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   for (let k = 0; k < NA; k++) {
     const op = act[k]!.op, th = -TWO_PI * (ky[k]! - kyRef) * vGrid[0]!;
     const pr0 = Math.cos(th), pi0 = Math.sin(th);
-    const cr = pr0 * op.cr - pi0 * op.ci, ci = pr0 * op.ci + pi0 * op.cr;
+    const cr = pr0 * op.weightRe - pi0 * op.weightIm, ci = pr0 * op.weightIm + pi0 * op.weightRe;
     for (let r = 0; r < R; r++) {
       const ar = A[r]![2 * k]!, ai = A[r]![2 * k + 1]!;
       AL[2 * (k * R + r)] = ar * cr - ai * ci;
@@ -478,7 +478,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
   for (let q = 0; q < perPass * coils * L; q++) X.push(new Float64Array(2 * grid));
   const colUsed = new Uint8Array(Mu);
   for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
-  const fRead = a0.op.fRead, bw = a0.op.bwSampled;
+  const fRead = a0.op.readHzPerMetre, bw = a0.op.sampledBandwidth;
   const dftU = new FFTPlan(Mu), dftV = new FFTPlan(Mv);
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
@@ -714,8 +714,8 @@ function estimate(
       kyRow[w] = ky[k]!;
       for (let c = 0; c < C; c++) {
         const pr = h.P[2 * (n * C + c)]!, pi = h.P[2 * (n * C + c) + 1]!, o = 2 * (c * NR + w);
-        Pr[o] = Pr[o]! + (pr * op.cr - pi * op.ci);
-        Pr[o + 1] = Pr[o + 1]! + (pr * op.ci + pi * op.cr);
+        Pr[o] = Pr[o]! + (pr * op.weightRe - pi * op.weightIm);
+        Pr[o + 1] = Pr[o + 1]! + (pr * op.weightIm + pi * op.weightRe);
       }
     }
   }
@@ -742,7 +742,7 @@ function estimate(
     let nt = 0;
     for (let i = i0; i < i1; i++) {
       const c = rfClass[i]!, k = keyOf[c]!;
-      const m = m0[i]! * (filt ? receiverFilter(a0.fRead * u + df[i]!, a0.bwSampled) : 1);
+      const m = m0[i]! * (filt ? receiverFilter(a0.readHzPerMetre * u + df[i]!, a0.sampledBandwidth) : 1);
       if (seen[k] === 0) {
         seen[k] = 1;
         touched[nt++] = k;

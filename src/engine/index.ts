@@ -18,7 +18,7 @@ export { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, simulateWith, chunkR
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";
 export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, wasmRfKernel } from "./wasm.js";
-export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, receiverFilter, readoutGroups } from "./chunk.js";
+export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, GeneralScratch, SpoiledScratch, ReadoutScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
 export { fastReadout, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 

@@ -35,22 +35,36 @@ export function isShared(b: ArrayBufferLike): boolean {
   return HAS_SHARED_MEMORY && b instanceof SharedArrayBuffer;
 }
 
+/**
+ * One step of the plan, played on every isochromat of a chunk. Offsets into
+ * EnginePlan.tab name a phase table (one (cos, sin) pair per grid index of
+ * one logical axis, for one gradient area); duration indices name an entry of
+ * EnginePlan.durations (and of the per-duration relaxation factors).
+ */
 export type Op =
-  | { t: "rf"; base: number; cos: number; sin: number }
-  | { t: "free"; dur: number; u: number; v: number; w: number }
+  /** RF pulse: the affine maps of its classes start at rfMaps[mapOffset]; cos/sin of the pulse phase. */
+  | { kind: "rf"; mapOffset: number; cosPhase: number; sinPhase: number }
+  /** Free interval: relaxation and off-resonance over a duration, and the phase of its gradient areas on the read, phase and slice axes. */
+  | { kind: "free"; durationIndex: number; readTable: number; phaseTable: number; sliceTable: number }
   | {
-      t: "adc"; n: number; row: number;
-      /** weight·exp(−i·receiver phase) */
-      cr: number; ci: number;
-      /** per-sample step: duration index and tables for the area G·dwell */
-      stepDur: number; su: number; sv: number; sw: number;
-      /** γ̄·G_read (Hz/m) for the receiver filter, sampled bandwidth (Hz), and whether groups must share w */
-      fRead: number; bwSampled: number; byW: boolean;
+      kind: "adc";
+      /** Samples of the readout and the k-space row they go to. */
+      samples: number; row: number;
+      /** weight·exp(−i·receiver phase), real and imaginary parts */
+      weightRe: number; weightIm: number;
+      /** per-sample step: duration index of one dwell, and the phase tables of the area G·dwell */
+      dwellDurationIndex: number; dwellReadTable: number; dwellPhaseTable: number; dwellSliceTable: number;
+      /** γ̄·G_read (Hz/m), for the receiver filter */
+      readHzPerMetre: number;
+      /** sampled bandwidth 1/dwell (Hz) */
+      sampledBandwidth: number;
+      /** the readout gradient has a phase or slice part: readout groups must also share the phase and slice grid index */
+      groupByPhaseAndSlice: boolean;
       /** (the readout's duration as a free interval is in the ops after it) */
     }
-  | { t: "spoil" }
+  | { kind: "spoil" }
   /** Mz relaxation over a duration with the transverse part zero (after a spoil): Mz ← Mz·E1 + m0·(1 − E1). */
-  | { t: "relax"; dur: number };
+  | { kind: "relax"; durationIndex: number };
 
 export interface EnginePlan {
   ops: Op[];
@@ -81,7 +95,7 @@ export interface EnginePlan {
   /** Inputs of the RF maps (class parameters, pulses), for filling them on other threads. */
   rf: RfSpec;
   /**
-   * Play the ideally spoiled shortcut (chunk.ts, runChunkSpoiled): every run
+   * Play the ideally spoiled shortcut (spoiled.ts, runChunkSpoiled): every run
    * of ops between ideal spoils holds at most one RF pulse, so Mxy is zero
    * before every pulse and Mz there is m0 times a function of the RF class.
    */
@@ -180,7 +194,7 @@ export function planLayout(
     return k;
   };
   const free = (duration: number, area: Vec3) => ({
-    t: "free" as const, dur: dur(duration), u: table(0, area[0]), v: table(1, area[1]), w: table(2, area[2]),
+    kind: "free" as const, durationIndex: dur(duration), readTable: table(0, area[0]), phaseTable: table(1, area[1]), sliceTable: table(2, area[2]),
   });
 
   // --- RF classes: isochromats with the same (w, Δf, r1, r2), bitwise, see the same pulse
@@ -204,8 +218,8 @@ export function planLayout(
   let spoiled = false;
   const flush = () => {
     if (spoiled) {
-      ops.push({ t: "spoil" });
-      if (pend && pend.duration > 0) ops.push({ t: "relax", dur: dur(pend.duration) });
+      ops.push({ kind: "spoil" });
+      if (pend && pend.duration > 0) ops.push({ kind: "relax", durationIndex: dur(pend.duration) });
     } else if (pend && pend.duration > 0) {
       ops.push(free(pend.duration, pend.area));
     }
@@ -228,14 +242,14 @@ export function planLayout(
     }
     flush();
     if (b.kind === "rf") {
-      ops.push({ t: "rf", base: b.pulse * classes * 12, cos: Math.cos(b.phase), sin: Math.sin(b.phase) });
+      ops.push({ kind: "rf", mapOffset: b.pulse * classes * 12, cosPhase: Math.cos(b.phase), sinPhase: Math.sin(b.phase) });
     } else {
       ops.push({
-        t: "adc", n: b.samples, row: b.row,
-        cr: b.weight * Math.cos(b.phase), ci: -b.weight * Math.sin(b.phase),
-        stepDur: dur(b.dwell),
-        su: table(0, b.grad[0] * b.dwell), sv: table(1, b.grad[1] * b.dwell), sw: table(2, b.grad[2] * b.dwell),
-        fRead: GAMMA_BAR * b.grad[0], bwSampled: 1 / b.dwell, byW: b.grad[2] !== 0 || b.grad[1] !== 0,
+        kind: "adc", samples: b.samples, row: b.row,
+        weightRe: b.weight * Math.cos(b.phase), weightIm: -b.weight * Math.sin(b.phase),
+        dwellDurationIndex: dur(b.dwell),
+        dwellReadTable: table(0, b.grad[0] * b.dwell), dwellPhaseTable: table(1, b.grad[1] * b.dwell), dwellSliceTable: table(2, b.grad[2] * b.dwell),
+        readHzPerMetre: GAMMA_BAR * b.grad[0], sampledBandwidth: 1 / b.dwell, groupByPhaseAndSlice: b.grad[2] !== 0 || b.grad[1] !== 0,
       });
       const T = b.samples * b.dwell;
       addFree(T, [b.grad[0] * T, b.grad[1] * T, b.grad[2] * T]);
@@ -283,8 +297,8 @@ export function planLayout(
 export function spoiledUnits(ops: Op[]): boolean {
   let pulses = 0;
   for (const op of ops) {
-    if (op.t === "spoil") pulses = 0;
-    else if (op.t === "rf" && ++pulses > 1) return false;
+    if (op.kind === "spoil") pulses = 0;
+    else if (op.kind === "rf" && ++pulses > 1) return false;
   }
   return true;
 }

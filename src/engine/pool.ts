@@ -5,9 +5,7 @@
  * adds partials in the fixed order of sum.ts. So 1, 2 or N workers give
  * bitwise the same k-space, and so does a sharded run merged later.
  */
-import { mkdtempSync } from "node:fs";
 import { createRequire } from "node:module";
-import { tmpdir } from "node:os";
 import { dirname, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { Worker } from "node:worker_threads";
@@ -21,23 +19,23 @@ import type { WorkerReply, WorkerRequest } from "./worker.js";
 
 export { AbortedError, PARALLEL_RF_CLASSES } from "./executor.js";
 
-let sourceWorker: string | null = null;
+let sourceWorker: URL | null = null;
 
 /**
- * Path of the worker script. Compiled: worker.js beside this file. Running
- * the TypeScript sources (vitest): worker.ts and what it imports, bundled
- * now with esbuild (a development dependency) into a temporary file, so tests
- * run the code under test and never a stale dist/ build.
+ * The worker script. Compiled: the path of worker.js beside this file.
+ * Running the TypeScript sources (vitest): worker.ts and what it imports,
+ * bundled now in memory with esbuild (a development dependency) and handed
+ * to the worker as a data: URL, so tests run the code under test, never a
+ * stale dist/ build, and no temporary file is left behind.
  */
-export function workerPath(): string {
+export function workerPath(): string | URL {
   const here = fileURLToPath(import.meta.url);
   if (here.endsWith(".js")) return join(dirname(here), "worker.js");
   if (sourceWorker) return sourceWorker;
-  const esbuild = createRequire(import.meta.url)("esbuild") as { buildSync: (o: object) => unknown };
-  const out = join(mkdtempSync(join(tmpdir(), "isofold-worker-")), "worker.mjs");
-  esbuild.buildSync({ entryPoints: [join(dirname(here), "worker.ts")], bundle: true, platform: "node", format: "esm", outfile: out, logLevel: "error" });
-  sourceWorker = out;
-  return out;
+  const esbuild = createRequire(import.meta.url)("esbuild") as { buildSync: (o: object) => { outputFiles: { contents: Uint8Array }[] } };
+  const built = esbuild.buildSync({ entryPoints: [join(dirname(here), "worker.ts")], bundle: true, platform: "node", format: "esm", write: false, logLevel: "error" });
+  sourceWorker = new URL(`data:text/javascript;base64,${Buffer.from(built.outputFiles[0]!.contents).toString("base64")}`);
+  return sourceWorker;
 }
 
 /** The isochromat fields a worker reads (all shared). */

@@ -43,46 +43,52 @@ export interface QuaternionForm {
   qfac: 1 | -1;
 }
 
+type Row3 = [number, number, number];
+type Mat3 = [Row3, Row3, Row3];
+type Row4 = [number, number, number, number];
+/** The checked affine: 3 rows of 4 finite numbers. */
+type Affine = [Row4, Row4, Row4];
+type I3 = 0 | 1 | 2;
+const I3S = [0, 1, 2] as const;
+const I4S = [0, 1, 2, 3] as const;
+
+/** The 3×3 matrix of f(i, j), built row by row, each row left to right. */
+function mat3(f: (i: I3, j: I3) => number): Mat3 {
+  const row = (i: I3): Row3 => [f(i, 0), f(i, 1), f(i, 2)];
+  return [row(0), row(1), row(2)];
+}
+
+/** Determinant, expanded along the first row. */
+function det3(x: Mat3): number {
+  const [[x00, x01, x02], [x10, x11, x12], [x20, x21, x22]] = x;
+  return x00 * (x11 * x22 - x12 * x21) - x01 * (x10 * x22 - x12 * x20) + x02 * (x10 * x21 - x11 * x20);
+}
+
 /**
  * Nearest orthogonal matrix (polar factor) of a 3×3 matrix by the Newton
  * iteration X ← (X + X⁻ᵀ)/2 (N. J. Higham, "Computing the polar
  * decomposition—with applications", SIAM J. Sci. Stat. Comput. 7 (1986)
  * 1160–1174). Returns the input unchanged if it is already orthogonal.
  */
-function polar(m: number[][]): number[][] {
-  let x = m.map((r) => r.slice());
+function polar(m: Mat3): Mat3 {
+  let x = mat3((i, j) => m[i][j]);
   for (let iter = 0; iter < 50; iter++) {
-    const det =
-      x[0][0] * (x[1][1] * x[2][2] - x[1][2] * x[2][1]) -
-      x[0][1] * (x[1][0] * x[2][2] - x[1][2] * x[2][0]) +
-      x[0][2] * (x[1][0] * x[2][1] - x[1][1] * x[2][0]);
+    const det = det3(x);
     if (det === 0) throw new RangeError("NIfTI affine is singular");
     // inverse transpose = cofactor matrix / det
-    const cof = [
-      [
-        x[1][1] * x[2][2] - x[1][2] * x[2][1],
-        -(x[1][0] * x[2][2] - x[1][2] * x[2][0]),
-        x[1][0] * x[2][1] - x[1][1] * x[2][0],
-      ],
-      [
-        -(x[0][1] * x[2][2] - x[0][2] * x[2][1]),
-        x[0][0] * x[2][2] - x[0][2] * x[2][0],
-        -(x[0][0] * x[2][1] - x[0][1] * x[2][0]),
-      ],
-      [
-        x[0][1] * x[1][2] - x[0][2] * x[1][1],
-        -(x[0][0] * x[1][2] - x[0][2] * x[1][0]),
-        x[0][0] * x[1][1] - x[0][1] * x[1][0],
-      ],
+    const [[x00, x01, x02], [x10, x11, x12], [x20, x21, x22]] = x;
+    const cof: Mat3 = [
+      [x11 * x22 - x12 * x21, -(x10 * x22 - x12 * x20), x10 * x21 - x11 * x20],
+      [-(x01 * x22 - x02 * x21), x00 * x22 - x02 * x20, -(x00 * x21 - x01 * x20)],
+      [x01 * x12 - x02 * x11, -(x00 * x12 - x02 * x10), x00 * x11 - x01 * x10],
     ];
     let change = 0;
-    const next = [0, 1, 2].map((i) =>
-      [0, 1, 2].map((j) => {
-        const v = 0.5 * (x[i][j] + cof[i][j] / det);
-        change = Math.max(change, Math.abs(v - x[i][j]));
-        return v;
-      }),
-    );
+    const cur = x;
+    const next = mat3((i, j) => {
+      const v = 0.5 * (cur[i][j] + cof[i][j] / det);
+      change = Math.max(change, Math.abs(v - cur[i][j]));
+      return v;
+    });
     x = next;
     if (change < 1e-15) break;
   }
@@ -96,23 +102,25 @@ function polar(m: number[][]): number[][] {
  * the third column, leaving a proper rotation R; then (a, b, c, d) is the unit
  * quaternion of R with a ≥ 0 (K. Shoemake, "Animating rotation with
  * quaternion curves", SIGGRAPH 1985).
+ * @throws RangeError when the affine has fewer than 3 rows of 3 numbers, or a column of zero length.
  */
 export function quaternionFromAffine(affine: number[][]): QuaternionForm {
-  const r = [0, 1, 2].map((i) => [0, 1, 2].map((j) => affine[i][j]));
-  for (let j = 0; j < 3; j++) {
+  const r = mat3((i, j) => {
+    const v = affine[i]?.[j];
+    if (v === undefined) throw new RangeError("NIfTI affine must have 3 rows of at least 3 numbers");
+    return v;
+  });
+  for (const j of I3S) {
     const len = Math.hypot(r[0][j], r[1][j], r[2][j]);
     if (!(len > 0)) throw new RangeError(`NIfTI affine column ${j} has zero length`);
-    for (let i = 0; i < 3; i++) r[i][j] /= len;
+    for (const i of I3S) r[i][j] /= len;
   }
   const q = polar(r);
-  const det =
-    q[0][0] * (q[1][1] * q[2][2] - q[1][2] * q[2][1]) -
-    q[0][1] * (q[1][0] * q[2][2] - q[1][2] * q[2][0]) +
-    q[0][2] * (q[1][0] * q[2][1] - q[1][1] * q[2][0]);
+  const det = det3(q);
   let qfac: 1 | -1 = 1;
   if (det < 0) {
     qfac = -1;
-    for (let i = 0; i < 3; i++) q[i][2] = -q[i][2];
+    for (const i of I3S) q[i][2] = -q[i][2];
   }
   const [r11, r12, r13] = q[0];
   const [r21, r22, r23] = q[1];
@@ -155,7 +163,8 @@ export function quaternionFromAffine(affine: number[][]): QuaternionForm {
   return { b, c, d, qfac };
 }
 
-function checkInputs(opts: Nifti1Options): void {
+/** Checks the options; returns the affine as 3 rows of 4 numbers. */
+function checkInputs(opts: Nifti1Options): Affine {
   const { dims, voxelMm, affine, data } = opts;
   for (const n of dims) {
     if (!Number.isSafeInteger(n) || n < 1 || n > 32767) {
@@ -165,17 +174,23 @@ function checkInputs(opts: Nifti1Options): void {
   if (data.length !== dims[0] * dims[1] * dims[2]) {
     throw new RangeError(`NIfTI data has ${data.length} values, dims [${dims.join(", ")}] need ${dims[0] * dims[1] * dims[2]}`);
   }
-  if (affine.length !== 3 || affine.some((row) => row.length !== 4 || row.some((v) => !Number.isFinite(v)))) {
-    throw new RangeError("NIfTI affine must be 3 rows of 4 finite numbers (mm)");
-  }
-  for (let j = 0; j < 3; j++) {
+  const row = (i: I3): Row4 => {
+    const r = affine[i];
+    if (affine.length !== 3 || r === undefined || r.length !== 4 || r.some((v) => !Number.isFinite(v))) {
+      throw new RangeError("NIfTI affine must be 3 rows of 4 finite numbers (mm)");
+    }
+    return [r[0]!, r[1]!, r[2]!, r[3]!];
+  };
+  const a: Affine = [row(0), row(1), row(2)];
+  for (const j of I3S) {
     const v = voxelMm[j];
     if (!(v > 0) || !Number.isFinite(v)) throw new RangeError(`voxel size ${j} must be positive mm, got ${v}`);
-    const len = Math.hypot(affine[0][j], affine[1][j], affine[2][j]);
+    const len = Math.hypot(a[0][j], a[1][j], a[2][j]);
     if (Math.abs(len - v) > 1e-5 * v) {
       throw new RangeError(`affine column ${j} has length ${len} mm but voxelMm[${j}] is ${v} mm`);
     }
   }
+  return a;
 }
 
 /**
@@ -188,20 +203,20 @@ function checkInputs(opts: Nifti1Options): void {
  * @throws RangeError on inconsistent sizes or an affine whose column lengths differ from voxelMm.
  */
 export function encodeNifti1(opts: Nifti1Options): Uint8Array {
-  checkInputs(opts);
-  const { data, dims, voxelMm, affine } = opts;
+  const affine = checkInputs(opts);
+  const { data, dims, voxelMm } = opts;
   const bytes = new Uint8Array(VOX_OFFSET + 4 * data.length);
   const v = new DataView(bytes.buffer);
   const le = true;
   v.setInt32(0, HEADER_SIZE, le);
   // dim[0..7] at 40
   const dim = [3, dims[0], dims[1], dims[2], 1, 1, 1, 1];
-  for (let i = 0; i < 8; i++) v.setInt16(40 + 2 * i, dim[i], le);
+  dim.forEach((d, i) => v.setInt16(40 + 2 * i, d, le));
   v.setInt16(70, DT_FLOAT32, le); // datatype
   v.setInt16(72, 32, le); // bitpix
   const qf = quaternionFromAffine(affine);
   const pixdim = [qf.qfac, voxelMm[0], voxelMm[1], voxelMm[2], 0, 0, 0, 0];
-  for (let i = 0; i < 8; i++) v.setFloat32(76 + 4 * i, pixdim[i], le);
+  pixdim.forEach((d, i) => v.setFloat32(76 + 4 * i, d, le));
   v.setFloat32(108, VOX_OFFSET, le); // vox_offset
   v.setFloat32(112, 1, le); // scl_slope
   v.setFloat32(116, 0, le); // scl_inter
@@ -221,11 +236,11 @@ export function encodeNifti1(opts: Nifti1Options): Uint8Array {
   v.setFloat32(268, affine[0][3], le); // qoffset_x
   v.setFloat32(272, affine[1][3], le);
   v.setFloat32(276, affine[2][3], le);
-  for (let row = 0; row < 3; row++) {
-    for (let col = 0; col < 4; col++) v.setFloat32(280 + 16 * row + 4 * col, affine[row][col], le);
+  for (const row of I3S) {
+    for (const col of I4S) v.setFloat32(280 + 16 * row + 4 * col, affine[row][col], le);
   }
   bytes.set([0x6e, 0x2b, 0x31, 0x00], 344); // "n+1\0"
   // bytes 348..351: extension flag, all zero.
-  for (let i = 0, p = VOX_OFFSET; i < data.length; i++, p += 4) v.setFloat32(p, data[i], le);
+  for (let i = 0, p = VOX_OFFSET; i < data.length; i++, p += 4) v.setFloat32(p, data[i]!, le);
   return bytes;
 }

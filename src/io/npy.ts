@@ -115,8 +115,8 @@ export function encodeNpy(arr: NpyInput): Uint8Array {
     case "complex64": {
       const { re, im } = arr.data;
       for (let i = 0; i < count; i++, p += 8) {
-        view.setFloat32(p, re[i], true);
-        view.setFloat32(p + 4, im[i], true);
+        view.setFloat32(p, re[i]!, true);
+        view.setFloat32(p + 4, im[i]!, true);
       }
       break;
     }
@@ -129,16 +129,16 @@ export function encodeNpy(arr: NpyInput): Uint8Array {
       break;
     }
     case "float32":
-      for (let i = 0; i < count; i++, p += 4) view.setFloat32(p, arr.data[i], true);
+      for (let i = 0; i < count; i++, p += 4) view.setFloat32(p, arr.data[i]!, true);
       break;
     case "float64":
-      for (let i = 0; i < count; i++, p += 8) view.setFloat64(p, arr.data[i], true);
+      for (let i = 0; i < count; i++, p += 8) view.setFloat64(p, arr.data[i]!, true);
       break;
     case "uint8":
-      for (let i = 0; i < count; i++, p += 1) view.setUint8(p, arr.data[i]);
+      for (let i = 0; i < count; i++, p += 1) view.setUint8(p, arr.data[i]!);
       break;
     case "int32":
-      for (let i = 0; i < count; i++, p += 4) view.setInt32(p, arr.data[i], true);
+      for (let i = 0; i < count; i++, p += 4) view.setInt32(p, arr.data[i]!, true);
       break;
   }
   return bytes;
@@ -204,14 +204,14 @@ export function decodeNpy(bytes: Uint8Array, source = "npy data"): NpyArray {
   if (!descrMatch || !fortranMatch || !shapeMatch) {
     return fail(`malformed .npy header ${JSON.stringify(header.trim())}`);
   }
-  const descr = descrMatch[1];
+  const descr = descrMatch[1]!;
   const dtype = parseDescr(descr);
   if (dtype === undefined) {
     return fail(`unsupported .npy dtype '${descr}'; allowed: '<c8', '<c16', '<f4', '<f8', '|u1', '<i4'`);
   }
   if (fortranMatch[1] === "True") fail("Fortran-order .npy arrays are not supported; save in C order");
   const shape: number[] = [];
-  for (const part of shapeMatch[1].split(",")) {
+  for (const part of shapeMatch[1]!.split(",")) {
     const t = part.trim();
     if (t === "") continue;
     const d = Number(t.replace(/L$/, ""));

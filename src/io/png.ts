@@ -25,15 +25,15 @@ export function percentile(values: ArrayLike<number>, p: number): number {
   const finite = new Float64Array(values.length);
   let n = 0;
   for (let i = 0; i < values.length; i++) {
-    const x = values[i];
+    const x = values[i]!;
     if (Number.isFinite(x)) finite[n++] = x;
   }
   if (n === 0) return NaN;
   const sorted = finite.subarray(0, n).sort();
   const h = ((n - 1) * p) / 100;
   const lo = Math.floor(h);
-  if (lo >= n - 1) return sorted[n - 1];
-  return sorted[lo] + (h - lo) * (sorted[lo + 1] - sorted[lo]);
+  if (lo >= n - 1) return sorted[n - 1]!;
+  return sorted[lo]! + (h - lo) * (sorted[lo + 1]! - sorted[lo]!);
 }
 
 /** Window options of {@link encodeGrayPng}. */
@@ -138,7 +138,7 @@ export function encodeGrayPng(
   if (!(high > low)) {
     let max = -Infinity;
     for (let i = 0; i < values.length; i++) {
-      const x = values[i];
+      const x = values[i]!;
       if (Number.isFinite(x) && x > max) max = x;
     }
     high = max;
@@ -147,7 +147,7 @@ export function encodeGrayPng(
   if (high > low && Number.isFinite(high) && Number.isFinite(low)) {
     const gain = 255 / (high - low);
     for (let i = 0; i < values.length; i++) {
-      const g = Math.round((values[i] - low) * gain);
+      const g = Math.round((values[i]! - low) * gain);
       // NaN fails both comparisons and falls through to 0.
       grey[i] = g >= 255 ? 255 : g > 0 ? g : 0;
     }
@@ -172,7 +172,7 @@ export function logMagnitude(re: Float64Array, im: Float64Array, out = new Float
   if (im.length !== n || out.length !== n) throw new RangeError("logMagnitude: re, im and out must have equal lengths");
   let max = 0;
   for (let i = 0; i < n; i++) {
-    const a = Math.sqrt(re[i] * re[i] + im[i] * im[i]);
+    const a = Math.sqrt(re[i]! * re[i]! + im[i]! * im[i]!);
     out[i] = a;
     if (a > max) max = a;
   }
@@ -181,6 +181,6 @@ export function logMagnitude(re: Float64Array, im: Float64Array, out = new Float
     return out;
   }
   const inv = 1 / (LOG_MAGNITUDE_FLOOR * max);
-  for (let i = 0; i < n; i++) out[i] = Math.log10(1 + out[i] * inv);
+  for (let i = 0; i < n; i++) out[i] = Math.log10(1 + out[i]! * inv);
   return out;
 }

@@ -124,8 +124,8 @@ export class FFTPlan {
       const b = new Float64Array(2 * m);
       const inv = 1 / m;
       for (let j = 0; j < n; j++) {
-        const br = chirp[2 * j] * inv;
-        const bi = -chirp[2 * j + 1] * inv;
+        const br = chirp[2 * j]! * inv;
+        const bi = -chirp[2 * j + 1]! * inv;
         b[2 * j] = br;
         b[2 * j + 1] = bi;
         if (j > 0) {
@@ -150,15 +150,15 @@ export class FFTPlan {
     const inp = this.input;
     const out = this.output;
     if (n === 1) {
-      out[0] = inp[0];
-      out[1] = inp[1];
+      out[0] = inp[0]!;
+      out[1] = inp[1]!;
       return;
     }
     const core = this.core as FFT;
     // fft.js computes the forward (−) transform; the + transform is
     // conj(FFT(conj(x))), done by negating imaginary parts on the way in and out.
     if (sign === 1) {
-      for (let j = 1; j < 2 * n; j += 2) inp[j] = -inp[j];
+      for (let j = 1; j < 2 * n; j += 2) inp[j] = -inp[j]!;
     }
     if (this.m === 0) {
       core.transform(out, inp);
@@ -166,7 +166,7 @@ export class FFTPlan {
       this.bluestein(out, inp, core);
     }
     if (sign === 1) {
-      for (let j = 1; j < 2 * n; j += 2) out[j] = -out[j];
+      for (let j = 1; j < 2 * n; j += 2) out[j] = -out[j]!;
     }
   }
 
@@ -180,10 +180,10 @@ export class FFTPlan {
     const bh = this.kernelHat;
     // a[j] = x[j]·w[j], zero-padded to m.
     for (let j = 0; j < n; j++) {
-      const xr = inp[2 * j];
-      const xi = inp[2 * j + 1];
-      const wr = w[2 * j];
-      const wi = w[2 * j + 1];
+      const xr = inp[2 * j]!;
+      const xi = inp[2 * j + 1]!;
+      const wr = w[2 * j]!;
+      const wi = w[2 * j + 1]!;
       a[2 * j] = xr * wr - xi * wi;
       a[2 * j + 1] = xr * wi + xi * wr;
     }
@@ -192,20 +192,20 @@ export class FFTPlan {
     // Pointwise product with the kernel spectrum (already /m), conjugated so
     // that a second forward FFT gives the conjugate of the inverse FFT.
     for (let j = 0; j < 2 * m; j += 2) {
-      const pr = ah[j];
-      const pi = ah[j + 1];
-      const qr = bh[j];
-      const qi = bh[j + 1];
+      const pr = ah[j]!;
+      const pi = ah[j + 1]!;
+      const qr = bh[j]!;
+      const qi = bh[j + 1]!;
       a[j] = pr * qr - pi * qi;
       a[j + 1] = -(pr * qi + pi * qr);
     }
     core.transform(ah, a);
     // X[k] = w[k] · conj(ah[k]).
     for (let k = 0; k < n; k++) {
-      const cr = ah[2 * k];
-      const ci = -ah[2 * k + 1];
-      const wr = w[2 * k];
-      const wi = w[2 * k + 1];
+      const cr = ah[2 * k]!;
+      const ci = -ah[2 * k + 1]!;
+      const wr = w[2 * k]!;
+      const wi = w[2 * k + 1]!;
       out[2 * k] = cr * wr - ci * wi;
       out[2 * k + 1] = cr * wi + ci * wr;
     }
@@ -230,14 +230,14 @@ export class FFTPlan {
     }
     const inp = this.input;
     for (let j = 0; j < n; j++) {
-      inp[2 * j] = inRe[j];
-      inp[2 * j + 1] = inIm[j];
+      inp[2 * j] = inRe[j]!;
+      inp[2 * j + 1] = inIm[j]!;
     }
     this.execute(sign);
     const out = this.output;
     for (let k = 0; k < n; k++) {
-      outRe[k] = out[2 * k];
-      outIm[k] = out[2 * k + 1];
+      outRe[k] = out[2 * k]!;
+      outIm[k] = out[2 * k + 1]!;
     }
   }
 }
@@ -281,8 +281,8 @@ export function centredLine(
   let q = c;
   for (let j = 0; j < n; j++) {
     const idx = offset + q * stride;
-    buf[2 * j] = re[idx];
-    buf[2 * j + 1] = im[idx];
+    buf[2 * j] = re[idx]!;
+    buf[2 * j + 1] = im[idx]!;
     q++;
     if (q === n) q = 0;
   }
@@ -292,8 +292,8 @@ export function centredLine(
   let p = c;
   for (let j = 0; j < n; j++) {
     const idx = offset + p * stride;
-    re[idx] = out[2 * j] * scale;
-    im[idx] = out[2 * j + 1] * scale;
+    re[idx] = out[2 * j]! * scale;
+    im[idx] = out[2 * j + 1]! * scale;
     p++;
     if (p === n) p = 0;
   }
@@ -346,7 +346,7 @@ function centredND(re: Float64Array, im: Float64Array, dims: number[], sign: FFT
   const total = re.length;
   let stride = 1;
   for (let axis = dims.length - 1; axis >= 0; axis--) {
-    const n = dims[axis];
+    const n = dims[axis]!;
     const block = stride * n;
     const scale = sign === 1 ? 1 / n : 1;
     if (n > 1) {

@@ -117,8 +117,8 @@ export async function runReportPage(r: RunReportInput): Promise<ReportPage> {
   const rowSum = new Float64Array(H), colSum = new Float64Array(W);
   for (let y = 0; y < H; y++) for (let x = 0; x < W; x++) {
     const v = r.image.values[y * W + x]!;
-    rowSum[y] += v;
-    colSum[x] += v;
+    rowSum[y]! += v;
+    colSum[x]! += v;
   }
   const argmax = (a: Float64Array, dflt: number) => {
     let k = dflt;
