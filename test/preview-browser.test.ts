@@ -281,6 +281,24 @@ describe("isofold preview in a browser", () => {
     expect(p2.url()).toContain("b0=20%2C0%2C0");
     expect(Number(await text(p2, "checks.distortionRead.value"))).toBeCloseTo(100 / bw, 2);
     await p2.screenshot({ path: join(SHOTS, "preview-b0-linear.png"), fullPage: true });
+    // a phantom file chosen in the page with its map: without the map it is refused, saying what to choose; with it the map's Δf/BW
+    const ph = JSON.parse(readFileSync(join(ROOT, "phantoms/disc-shim-map.json"), "utf8"));
+    ph.name = "chosen-map";
+    ph.b0.fieldMap.file = "maps/my-map.npy";
+    const g0 = await p2.evaluate(() => (window as any).__preview.gen as number);
+    await p2.locator("#c-file").setInputFiles([{ name: "chosen-map.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(ph)) }]);
+    await p2.waitForFunction((n) => (window as any).__preview.error?.gen > n, g0);
+    expect(await p2.locator("#general-error").textContent()).toMatch(/b0\.fieldMap\.file: .*choose the phantom file together with its field map maps\/my-map\.npy/);
+    const g1 = await p2.evaluate(() => (window as any).__preview.gen as number);
+    await p2.locator("#c-file").setInputFiles([
+      { name: "chosen-map.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(ph)) },
+      { name: "my-map.npy", mimeType: "application/octet-stream", buffer: readFileSync(join(ROOT, "phantoms/maps/disc-shim-map.npy")) },
+    ]);
+    await painted(p2, g1 + 1);
+    expect(await p2.locator("#c-phantom").inputValue()).toBe("file:chosen-map.json");
+    // the B0 linear term (20 Hz/cm along x) adds to the map: Δf = 24000 Hz/m²·((x − 0.02 m)² + y²) − 20 Hz + 2000 Hz/m·x; on the
+    // rim (r = 5 cm) that is 49.6 Hz + 1040 Hz/m·x, largest at x = 5 cm: 101.6 Hz; the interior minimum is −21.7 Hz (x = −2.17 cm)
+    expect(Number(await text(p2, "checks.distortionRead.value"))).toBeCloseTo(101.6 / bw, 2);
     await p2.close();
   });
 });
