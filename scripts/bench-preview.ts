@@ -44,7 +44,7 @@ const ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
   args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
 });
 console.log(`previewer edit-to-paint latency, ${PHANTOM} with ${PROTOCOL}, ${EDITS} bandwidth edits per size, preview quality (density 1, 3 through-slice isochromats, no T2′ spread)`);
-console.log("matrix   median ms   p90 ms   min ms   max ms   medians of the stages (ms): to the worker, queued, in the worker (prepare, engine, recon, pack), back, drawing the image, to the painted frame");
+console.log("matrix   median ms   p90 ms   min ms   max ms   medians of the stages (ms): to the worker, queued, in the worker (prepare, engine [setup + chunks on the engine workers], recon, pack), back, drawing the image, to the painted frame");
 try {
   for (const n of SIZES) {
     const page = await ctx.newPage();
@@ -70,7 +70,7 @@ try {
     }
     const med = (xs: number[] | undefined) => (xs ? pct(xs, 50).toFixed(0) : "?");
     console.log(`${`${n}²`.padEnd(8)} ${pct(ms, 50).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ` +
-      `to worker ${med(steps.toWorker)}, queued ${med(steps.queued)}, worker ${med(steps.total)} (${med(steps.prepare)}, ${med(steps.engine)}, ${med(steps.recon)}, ${med(steps.pack)}), back ${med(steps.back)}, draw ${med(steps.draw)}, frame ${med(steps.frame)}; ${(steps.refining ?? []).filter((x) => x > 0).length} edits came while refining`);
+      `to worker ${med(steps.toWorker)}, queued ${med(steps.queued)}, worker ${med(steps.total)} (${med(steps.prepare)}, ${med(steps.engine)} [${med(steps.engineSetup)} + ${med(steps.engineChunks)}], ${med(steps.recon)}, ${med(steps.pack)}), back ${med(steps.back)}, draw ${med(steps.draw)}, frame ${med(steps.frame)}; ${(steps.refining ?? []).filter((x) => x > 0).length} edits came while refining`);
     await page.close();
   }
 } finally {

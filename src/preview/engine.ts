@@ -10,7 +10,7 @@
  */
 import { prepareSimulation, runSlices, reconstructRuns, SAFETY_NOTE, type SimulateInput } from "../api.js";
 import { UserError } from "../errors.js";
-import { AbortedError, serialExecutor, type Executor } from "../engine/index.js";
+import { AbortedError, readoutKernelName, serialExecutor, type Executor } from "../engine/index.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
@@ -58,6 +58,8 @@ export interface RunOutput {
   engineMs: number;
   /** Readout operator that ran ("fast" or "direct"). */
   readout: string;
+  /** The kernels of this worker's engine (WebAssembly SIMD or the scalar twins; the same bits either way). */
+  kernels: string;
   /** Milliseconds in the worker by stage (prepare: parse, sequence, isochromats; engine; recon; pack: views and .npy bytes; total). */
   timings: Record<string, number>;
   iso: IsochromatOptions;
@@ -170,12 +172,27 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   const ac = new AbortController();
   let input: SimulateInput, prep, run;
   let tPrep = tStart, tEngine = tStart;
+  // where the engine's time goes: before the executor session (plan, operator choice), and the chunks on the engine workers
+  let tOpen = NaN, chunkMs = 0;
+  const timed: Executor = {
+    open(plan, iso, jobs) {
+      tOpen = performance.now();
+      const s = executor.open(plan, iso, jobs);
+      return {
+        size: s.size, fillRfMaps: (c, sig) => s.fillRfMaps(c, sig), close: () => s.close(),
+        async runChunks(c0, c1, onChunk, waitingFor, sig) {
+          const t = performance.now();
+          try { await s.runChunks(c0, c1, onChunk, waitingFor, sig); } finally { chunkMs += performance.now() - t; }
+        },
+      };
+    },
+  };
   try {
     input = {
       protocol: protocolInput(req.protocol), protocolName: req.protocol,
       phantom: phantomInput(req.phantom, req.b0Linear), phantomName: req.phantom, readArray: arrayReader(req.phantom),
       sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
-      iso, executor, signal: ac.signal,
+      iso, executor: timed, signal: ac.signal,
       // the through-slice convergence probe is part of the refined result only
       convergenceCheck: req.quality === "full",
       onProgress: (p) => {
@@ -230,7 +247,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     fatShift, check: null,
     warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
     isochromats: run.isoSummary.count,
-    engineMs: tSim - tStart, readout,
+    engineMs: tSim - tStart, readout, kernels: readoutKernelName(),
     timings: {},
     iso,
     kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
@@ -238,7 +255,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     slicesRun: seqs.length > 1 ? `${seqs.length} slices; the middle one is shown` : "one slice",
   };
   const tEnd = performance.now();
-  out.timings = { prepare: tPrep - tStart, engine: tEngine - tPrep, recon: tRecon - tEngine, pack: tEnd - tRecon, total: tEnd - tStart };
+  out.timings = { prepare: tPrep - tStart, engine: tEngine - tPrep, engineSetup: Number.isNaN(tOpen) ? tEngine - tPrep : tOpen - tPrep, engineChunks: chunkMs, recon: tRecon - tEngine, pack: tEnd - tRecon, total: tEnd - tStart };
   void input;
   return out;
 }
