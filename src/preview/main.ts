@@ -495,10 +495,11 @@ async function main(): Promise<void> {
     toRefiner(m);
   }
   // init last: the worker's "ready" starts the first run, and no await lies between here and the message handlers being set
-  // edits at preview quality run on one engine worker (one or two chunks); the refinement (a worker made when it starts) on up to the other cores
-  const cores = Math.max(1, Math.min(4, (navigator.hardwareConcurrency || 2) - 1));
-  toRefiner({ t: "init", presets, phantoms, gen: sab, engineWorkers: cores });
-  worker.postMessage({ t: "init", presets, phantoms, gen: sab, engineWorkers: 1 });
+  // engine workers: an edit at preview quality is one chunk up to about 180² (two at 256²), run on as many engine workers as
+  // there are cores (up to 4); the refinement (a worker made when it starts) on all but one
+  const hc = navigator.hardwareConcurrency || 2;
+  toRefiner({ t: "init", presets, phantoms, gen: sab, engineWorkers: Math.max(1, Math.min(4, hc - 1)) });
+  worker.postMessage({ t: "init", presets, phantoms, gen: sab, engineWorkers: Math.max(1, Math.min(4, hc)) });
   readUrl(cfg);
   $("controls").addEventListener("submit", (e) => e.preventDefault());
   const pSel = $("c-protocol") as HTMLSelectElement, phSel = $("c-phantom") as HTMLSelectElement;
