@@ -12,6 +12,12 @@
  * after warm-up (default and preview quality), the 256² torso gre-t1-3t with
  * default options (time, peak RSS; the direct case once) and the throughput
  * of the 256² disc.
+ * Dataset rows (issue 13 targets): one 128² torso dataset case (gre-t1-3t,
+ * default options, 2 workers) with 1 coil and with 8 coils, each through the
+ * CLI in a fresh process, and the cases per hour of a 1000-case 128²
+ * eight-coil batch on 2 cores, estimated from a short batch
+ * (BENCH_DATASET_CASES cases, default 3, with seeded perturbations);
+ * BENCH_ONLY=dataset for these rows alone, BENCH_DATASET=0 to skip them.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
  * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone,
  * BENCH_DIRECT=0 to skip the 256² direct run, BENCH_DISC=0 to skip the disc
@@ -21,7 +27,8 @@
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir, availableParallelism, cpus } from "node:os";
-import { join } from "node:path";
+import { dirname, join } from "node:path";
+import { readFileSync } from "node:fs";
 import { fileURLToPath } from "node:url";
 import { isMainThread, parentPort, Worker, workerData } from "node:worker_threads";
 import { GAMMA } from "../src/constants.js";
@@ -234,6 +241,50 @@ async function fastRows(runs: number): Promise<void> {
   );
 }
 
+/** One `isofold dataset` in a fresh process (the CLI of this build); seconds as the command reports them, wall seconds, and case 0's readout. */
+function datasetRun(args: string[], out: string): { seconds: number; wall: number; made: number; readout: unknown } {
+  const cli = join(dirname(SELF), "..", "src", "cli", "index.js");
+  const t = performance.now();
+  const r = spawnSync(process.execPath, [cli, "dataset", "phantoms/torso-slice.json", "-p", "gre-t1-3t", "--set", "matrix.read=128", "--set", "matrix.phase=128", "--workers", "2", "-q", "-o", out, ...args], { encoding: "utf8", maxBuffer: 1 << 24 });
+  const wall = (performance.now() - t) / 1000;
+  if (r.status !== 0) throw new Error(`bench dataset failed: ${r.stderr}`);
+  const m = /(\d+) cases? written.*\(([0-9.]+) s/.exec(r.stdout);
+  const caseJson = JSON.parse(readFileSync(join(out, "case-0000", "case.json"), "utf8")) as { engine: { readout: unknown } };
+  return { seconds: Number(m?.[2]), wall, made: Number(m?.[1]), readout: caseJson.engine.readout };
+}
+
+/** Dataset rows: a 128² torso case with 1 and 8 coils, and the cases per hour of an eight-coil batch (issue 13 targets: ≤ 10 s, ≤ 2× one coil). */
+function datasetRows(): void {
+  const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-dataset-"));
+  try {
+    // one report per coil block (dataset/simulate.ts SENS_BUDGET): the operators used, and the first block's note
+    const note = (r: unknown) => {
+      if (!Array.isArray(r)) return readoutNote(r);
+      const ops = r.map((x) => (x as { operator?: string }).operator ?? "?");
+      const counts = [...new Set(ops)].map((op) => `${op} ×${ops.filter((o) => o === op).length}`).join(", ");
+      return `${r.length} coil blocks: ${counts}; block 0: ${readoutNote(r[0])}`;
+    };
+    console.log("");
+    console.log("| dataset (isofold dataset, 128² torso gre-t1-3t, default options, 2 workers, fresh process) | 1 coil | 8 coils | 8 coils ÷ 1 coil (target ≤ 2) | readout (8 coils) |");
+    console.log("| --- | --- | --- | --- | --- |");
+    const one = datasetRun(["--coils", "1"], join(tmp, "one"));
+    const eight = datasetRun(["--coils", "8"], join(tmp, "eight"));
+    console.log(
+      `| one case (command's own time; wall with start-up in brackets; target ≤ 10 s for 8 coils) | ${one.seconds.toFixed(1)} s (${one.wall.toFixed(1)} s) | ` +
+        `${eight.seconds.toFixed(1)} s (${eight.wall.toFixed(1)} s) | ${(eight.seconds / one.seconds).toFixed(1)}× | ${note(eight.readout)} |`,
+    );
+    const n = Number(process.env["BENCH_DATASET_CASES"] ?? 3);
+    const batch = datasetRun(["--coils", "8", "--count", String(n), "--vary", "position=5mm,rotation=5deg,t1=5%"], join(tmp, "batch"));
+    const perCase = batch.seconds / batch.made;
+    console.log(
+      `| 1000-case 128² eight-coil batch on 2 cores: estimated from a short batch of ${batch.made} cases (--vary position, rotation, T1; one-time set-up spread over them), ` +
+        `${batch.seconds.toFixed(1)} s in all | — | ${perCase.toFixed(1)} s per case | ${Math.round(3600 / perCase)} cases per hour (1000 cases ≈ ${((1000 * perCase) / 3600).toFixed(1)} h) | ${note(batch.readout)} |`,
+    );
+  } finally {
+    rmSync(tmp, { recursive: true, force: true });
+  }
+}
+
 function g(x: number): string {
   if (x >= 1e9) return `${(x / 1e9).toFixed(2)} G`;
   if (x >= 1e6) return `${(x / 1e6).toFixed(1)} M`;
@@ -244,6 +295,10 @@ async function main(): Promise<void> {
   const runs = Number(process.env["BENCH_RUNS"] ?? 3);
   if (process.env["BENCH_ONLY"] === "fast") {
     await fastRows(runs);
+    return;
+  }
+  if (process.env["BENCH_ONLY"] === "dataset") {
+    datasetRows();
     return;
   }
   console.log(`isofold bench — ${cpus()[0]?.model ?? "cpu"}, ${availableParallelism()} cores, Node ${process.versions.node}; WebAssembly SIMD readout: ${wasmKernel() ? "yes" : "no (scalar fallback)"}`);
@@ -287,6 +342,7 @@ async function main(): Promise<void> {
     }
   }
   await fastRows(runs);
+  if (process.env["BENCH_DATASET"] !== "0") datasetRows();
 }
 
 if (!isMainThread) {

@@ -107,7 +107,7 @@ export interface SimulateInput {
   /** Run the a-posteriori through-slice convergence check on one probe column (default true). */
   convergenceCheck?: boolean;
   /** Replaces the engine for each slice (the CLI's simulate --coils); its files and report join the result. */
-  runEngine?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; files?: Map<string, Uint8Array>; report?: Record<string, unknown> }>;
+  runEngine?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport | ReadoutReport[]; files?: Map<string, Uint8Array>; report?: Record<string, unknown> }>;
   /** Recorded in report.inputs (default: the names and sets). */
   inputs?: Record<string, unknown>;
   /** Recorded in report.tool.version (default "unknown"). */
@@ -269,7 +269,7 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
       continue;
     }
     const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, sl.seq.pulses.length);
-    let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport };
+    let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport | ReadoutReport[] };
     if (input.runEngine) {
       const r = await input.runEngine({ seq: sl.seq, iso: sl.iso, protocol: prep.protocol });
       coils = { files: r.files ?? new Map(), report: r.report ?? {} };
@@ -282,7 +282,7 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
         : undefined,
     });
     plan = res.plan;
-    if (res.readout) readouts.push(res.readout);
+    if (res.readout) readouts.push(...[res.readout].flat());
     count += sl.iso.count;
     kspaces.push(res.kspace);
   }

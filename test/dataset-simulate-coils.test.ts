@@ -16,6 +16,7 @@ import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
 import npyjs from "npyjs";
+import { PNG } from "pngjs";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -66,6 +67,44 @@ describe("simulate --coils", () => {
     expect(shadeMax / shadeMin).toBeGreaterThan(1.3);
     const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
     expect(rep.coils.count).toBe(4);
+  }, 60000);
+
+  it("coils.png and coil-rss.png are in image.png's display orientation: the loop on the patient's left is bright on the side report.json letters L", () => {
+    // Which loop is on the patient's left follows from the geometry report.json states (RAS+: left is −x), not from a stored picture;
+    // which side of the picture is the patient's left, from the display letters image.png uses (radiological convention, common practice).
+    const out = join(tmp, "orient");
+    const r = spawnSync(process.execPath, [CLI, ...ARGS, "--set", "matrix.read=32", "--coils", "4", "--array-radius", "15 cm", "--readout", "direct", "-o", out], { encoding: "utf8" });
+    expect(r.status, r.stderr).toBe(0);
+    const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8"));
+    // --readout reaches the coil run, and report.json says what ran
+    expect([rep.engine.readout.operator, rep.engine.readout.requested]).toEqual(["direct", "direct"]);
+    const loops = rep.coils.loops as { coil: number; centreM: number[] }[];
+    const left = loops.reduce((a, b) => (b.centreM[0]! < a.centreM[0]! ? b : a)).coil;
+    const right = loops.reduce((a, b) => (b.centreM[0]! > a.centreM[0]! ? b : a)).coil;
+    expect(rep.display.orientation).toBe("axial");
+    const lSide = rep.display.letters.left.startsWith("L") ? "left" : rep.display.letters.right.startsWith("L") ? "right" : null;
+    expect(lSide).not.toBeNull();
+    const png = (f: string) => PNG.sync.read(readFileSync(join(out, f)));
+    const image = png("image.png"), rss = png("coil-rss.png"), mosaic = png("coils.png");
+    // 32 read × 24 phase; the display puts each axis where image.png has it (same width and height)
+    expect([rss.width, rss.height]).toEqual([image.width, image.height]);
+    expect([mosaic.width, mosaic.height]).toEqual([2 * image.width, 2 * image.height]);
+    /** Mean grey of the left and right half of coil c's tile (2 per row, coil 0 top left). */
+    const halves = (c: number) => {
+      const w = image.width, h = image.height, ox = (c % 2) * w, oy = Math.floor(c / 2) * h;
+      let l = 0, rr = 0;
+      for (let y = 0; y < h; y++) {
+        for (let x = 0; x < w; x++) {
+          const v = mosaic.data[4 * ((oy + y) * mosaic.width + ox + x)]!;
+          if (x < w / 2) l += v; else rr += v;
+        }
+      }
+      return { left: l, right: rr };
+    };
+    const L = halves(left), R = halves(right);
+    const bright = (hv: { left: number; right: number }, side: "left" | "right") => hv[side] > 1.2 * hv[side === "left" ? "right" : "left"];
+    expect(bright(L, lSide!)).toBe(true);
+    expect(bright(R, lSide === "left" ? "right" : "left")).toBe(true);
   }, 60000);
 
   it("bad coil options: one line, exit 2, nothing written", () => {

@@ -15,15 +15,18 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, mergeDatasetParts, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, readCovariance, runBatch, sensitivityScale, sha256, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
 import { encodeNpy } from "../io/npy.js";
 import { encodeGrayPng } from "../io/png.js";
+import { axesFromAffine } from "../io/run-folder.js";
+import { displayTransform, toDisplay } from "../report/display.js";
 import { prepare, printWarnings, sampledLimits, tissueReport, version, voxelAffine, SAFETY_NOTE, type RunOptions } from "./pipeline.js";
 import { Progress } from "./progress.js";
 import { withOutputDir } from "../io/outpath.js";
+import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
 
 export interface DatasetCliOptions {
@@ -59,6 +62,25 @@ export interface DatasetCliOptions {
   noiseModel: string;
   snrReference?: string;
   exact?: boolean;
+  /** Readout operator and its tolerance (the shared simulation options, as for simulate). */
+  readout?: "auto" | "fast" | "direct";
+  tolerance?: number;
+}
+
+/** Engine options of a dataset run: environment switches and the readout operator. */
+function datasetEngine(o: DatasetCliOptions) {
+  return { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}) };
+}
+
+/** Ψ from a file (.npy or JSON; dataset/noise.ts parseCovariance); errors name `option`. */
+export function readCovariance(file: string, coils: number, option: string): CMatrix {
+  let bytes: Uint8Array;
+  try {
+    bytes = new Uint8Array(readFileSync(file));
+  } catch (e) {
+    throw new UserError(`cannot read ${file}: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`, undefined, option);
+  }
+  return parseCovariance(bytes, file, coils, option);
 }
 
 function int(raw: string, option: string, min: number, max: number): number {
@@ -273,7 +295,10 @@ function rawH5Relation(p: Protocol, M: number, N: number): Record<string, unknow
       `ifftc the centred inverse DFT with 1/n (fftConvention); so raw samples are about M/N = ${(M / N).toFixed(3)} times the kspace.npy samples, ` +
       `the oversampled margin of the read field of view holds the object and independent noise of the same per-pixel variance`,
     noise: "per raw sample σ²·M/N·Ψ (the sampled bandwidth is M/N times wider at the same readout duration); inside the read field of view the noise is exactly that of kspace.npy; noise-only readouts relate to noise.npy the same way",
-    lines: "one acquisition per sampled line of mask.npy (dropped lines are absent); phase oversampling removed (lines on the image phase grid); averages combined; reversed readouts turned round into k-space order",
+    lines: "one acquisition per sampled line of mask.npy and average (dropped lines are absent); phase oversampling removed (lines on the image phase grid); reversed readouts turned round into k-space order",
+    averages: `${p.averages} record${p.averages === 1 ? "" : "s"} per sampled line, idx.average = 0 … ${p.averages - 1} (encoding limit average maximum ${p.averages - 1}), the averages of a line one after another; ` +
+      "the noise-free signal of each is the simulated mean over the averages (the engine adds the averages of a line with weight 1/averages), the noise of each is independent with covariance averages·σ²·Ψ per image-grid sample, " +
+      "and the mean over the averages of the records of a line relates to kspace.npy by the relation above (kspace.npy holds the averaged line, noise σ²·Ψ)",
     frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated)",
     recon: "ismrmrd_recon_cartesian_2d (2D, full sampling) gives M·N_phase × the root-sum-of-squares of the kspace.npy coil images: it uses an unnormalised inverse FFT",
     flags: "first/last in encode step 1 per slice-encoding step; first/last in encode step 2, slice, average and repetition on the first/last imaging readout; last in measurement; ACS lines: parallel calibration, plus parallel calibration and imaging when the line also belongs to the undersampled pattern (uniform: the lattice; random, poisson: every ACS line)",
@@ -300,7 +325,7 @@ function snrFactorsOf(p: Protocol, seq: { kspace: { slice: number; phase: number
  */
 async function physicalNoise(phantomFile: string, reference: Protocol, refName: string, snr: number, protocol: Protocol, iso: ReturnType<typeof isoOptions>, o: DatasetCliOptions) {
   const ref = prepare({ phantom: phantomFile, protocol: refName, sets: [], out: o.out, seed: o.seed, iso, quiet: true });
-  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers());
+  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers(), undefined, datasetEngine(o));
   const img = ref.seq.image;
   const v = toImageGrid(k.re, k.im, 1, ref.seq.kspace, img, ref.seq.grid);
   const meanSignal = snrSigma(v.re, v.im, 1).meanSignal;
@@ -335,6 +360,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const batchKey = sha256(JSON.stringify({
     version: version(), phantom: sha256(readFileSync(phantomFile)), protocol, iso, array, psi: [Array.from(plan.psi.re), Array.from(plan.psi.im)],
     snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, vary: plan.vary, seed: o.seed, format: plan.format,
+    readout: o.readout ?? "auto", tolerance: o.tolerance ?? null,
     ...(plan.reference ? { reference: plan.reference } : {}),
   }));
   const physical = plan.reference ? await physicalNoise(phantomFile, plan.reference, o.snrReference!, plan.snr!, protocol, iso, o) : null;
@@ -370,15 +396,15 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-    const r = await buildCase(seq, set, {
+    const sim = await simulateCoilsPlanned(seq, set, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), datasetEngine(o));
+    const r = buildCase(seq, sim, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
-      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed, receiverFilter: protocol.receiverFilter, workers: o.workers ?? defaultWorkers(), engine: { chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() },
+      array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed,
       ...(physical ? { sigma: physical.sigma } : {}),
       format: plan.format, raw: { protocol, seq, axes, mask: plan.mask }, rawComment: `isofold ${version()} dataset case ${i}, seed ${o.seed}; synthetic data from a Bloch simulation, not a measurement`,
-    }, i,
-    (d, t) => progress.update(d, t));
+    }, i);
     progress.done();
     const p = plan.perturbations[i]!;
     const params = {
@@ -413,6 +439,10 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
         "with one slice-encoding step the slice axis has length 1 and the transform over it is the identity. The simulation itself sampled " +
         `${r.info.kspaceAcquired.read} read points (read oversampling ${protocol.oversampling.read}); those were transformed to the image, the central ${r.info.dims.read} kept, and transformed back.`,
       ...(plan.format !== "npy" ? { rawH5: rawH5Relation(protocol, seq.grid.read, r.info.dims.read) } : {}),
+      engine: {
+        readout: r.info.readout.length === 1 ? r.info.readout[0]! : r.info.readout,
+        readoutNote: "what the readout operator did, as report.json engine.readout of simulate: operator used, operator requested (--readout), tolerance (relative L2 of k-space), fallback reason if the direct operator ran instead of the fast one; one report per engine run when the coils are simulated in several blocks",
+      },
       imageScale: "a voxel full of tissue with PD 1, fully relaxed and tipped by 90°, is about 1 in truth[0]",
       coils: array.elements === 0
         ? { kind: "uniform", count: 1, sensitivity: "S = 1 everywhere" }
@@ -538,7 +568,7 @@ export function addCoilOptions(c: Command, what: string): Command {
  * coils.png (each coil's magnitude, side by side) and coil-rss.png (the
  * root-sum-of-squares, which shows the coil shading). Undefined for one coil.
  */
-export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: number; quiet?: boolean; shard?: unknown }): RunOptions["coilRun"] {
+export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: number; quiet?: boolean; shard?: unknown; readout?: "auto" | "fast" | "direct"; tolerance?: number }): RunOptions["coilRun"] {
   const probe = { ...o };
   if (probe.coils === "1" && !probe.loopRadius && !probe.arrayRadius && !probe.rowSpacing && probe.coilRows === "1") return undefined;
   if (o.shard) throw new UserError("--coils runs every coil in one pass; it does not split into shards: drop --shard", undefined, "--coils");
@@ -550,7 +580,9 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const m = enclosureMargin(array, iso.x, iso.y, iso.count);
     if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
     const progress = new Progress("simulating coils", "chunk", o.quiet);
-    const { kspace, plan } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t));
+    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), {
+      chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}),
+    });
     progress.done();
     const C = coilCount(array), img = seq.image, n = img.slice * img.phase * img.read;
     const all = toImageGrid(kspace.re, kspace.im, C + 1, seq.kspace, img, seq.grid);
@@ -573,24 +605,26 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
       for (let i = 0; i < plane; i++) rss[i]! += coilRe[c * n + pz * plane + i]! ** 2 + coilIm[c * n + pz * plane + i]! ** 2;
     }
     for (let i = 0; i < plane; i++) rss[i] = Math.sqrt(rss[i]!);
-    files.set("coil-rss.png", encodeGrayPng(rss, img.read, img.phase).png);
+    // pictures in display orientation, as image.png (report/display.ts, the same geometry as the run's affine)
+    const disp = displayTransform(axesFromAffine(voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3)));
+    const rssD = toDisplay(disp, rss, img.read, img.phase);
+    files.set("coil-rss.png", encodeGrayPng(rssD.values, rssD.width, rssD.height).png);
+    const tw = rssD.width, th = rssD.height;
     const cols = Math.ceil(Math.sqrt(C)), rowsN = Math.ceil(C / cols);
-    const W = cols * img.read, H = rowsN * img.phase, mosaic = new Float64Array(W * H);
+    const W = cols * tw, H = rowsN * th, mosaic = new Float64Array(W * H);
+    const mag = new Float64Array(plane);
     for (let c = 0; c < C; c++) {
-      const ox = (c % cols) * img.read, oy = Math.floor(c / cols) * img.phase;
-      for (let y = 0; y < img.phase; y++) {
-        for (let x = 0; x < img.read; x++) {
-          const k = c * n + pz * plane + y * img.read + x;
-          mosaic[(oy + y) * W + ox + x] = Math.hypot(coilRe[k]!, coilIm[k]!);
-        }
-      }
+      for (let i = 0; i < plane; i++) mag[i] = Math.hypot(coilRe[c * n + pz * plane + i]!, coilIm[c * n + pz * plane + i]!);
+      const tile = toDisplay(disp, mag, img.read, img.phase).values;
+      const ox = (c % cols) * tw, oy = Math.floor(c / cols) * th;
+      for (let y = 0; y < th; y++) mosaic.set(tile.subarray(y * tw, (y + 1) * tw), (oy + y) * W + ox);
     }
     files.set("coils.png", encodeGrayPng(mosaic, W, H).png);
     const rows = seq.kspace.slice * seq.kspace.phase, read = seq.kspace.read;
     const k0 = { coils: 1, rows, read, re: kspace.re.slice(0, rows * read), im: kspace.im.slice(0, rows * read) };
     const placement = loopPlacement(array);
     return {
-      kspace: k0, plan, files,
+      kspace: k0, plan, files, readout,
       report: {
         kind: "circular loops", count: C, loopsPerRow: array.elements, rows: array.rows,
         loopRadiusM: round(array.loopRadius), arrayRadiusM: round(array.arrayRadius), rowSpacingM: round(array.rowSpacing), zCentreM: round(array.zCentre),
@@ -599,8 +633,8 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
         files: {
           "coil-images.npy": "complex64 [coil, slice, phase, read]: each coil's image on the image grid (sensitivity applied to every isochromat before the readout)",
           "sensitivities.npy": "complex64 [coil, slice, phase, read]: S_c at the pixel centres",
-          "coil-rss.png": "root-sum-of-squares of the coil images (central slice-encoding step): the coil shading",
-          "coils.png": `each coil's magnitude side by side, ${cols} per row, coil 0 top left, one window for all`,
+          "coil-rss.png": "root-sum-of-squares of the coil images (central slice-encoding step): the coil shading, in display orientation as image.png (see display)",
+          "coils.png": `each coil's magnitude side by side, ${cols} per row, coil 0 top left, one window for all; each tile in display orientation as image.png (see display)`,
         },
         uniformCoil: "image.png, image.npy and kspace.npy are the uniform coil (S = 1), simulated in the same pass; its k-space can differ from a run without --coils in the last bits (isochromats summed in column blocks)",
       },

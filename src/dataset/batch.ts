@@ -3,7 +3,9 @@
  * manifest (manifest.jsonl: one JSON line per case with its parameters and
  * the sha256 of every file), and resume: a case whose manifest line has the
  * same batch key and whose files all exist with the listed checksums is
- * skipped. Every file is written atomically (io/atomic.ts).
+ * skipped. Files are read and written by io/dataset-folder.ts (Node); this
+ * module holds what needs no file system: perturbations, manifest lines,
+ * and the check that joins the parts of a batch.
  *
  * Perturbations, drawn per case from its own stream (prng.ts), each uniform
  * on the stated range; a range of 0 leaves the value as it is:
@@ -14,11 +16,7 @@
  *                T2 is then capped at 2·T1 and T2* at T2
  *   b0=H         adds f0 + gx·x + gy·y (Hz, x and y in m) to the B0 map, with f0, gx·0.1 m and gy·0.1 m each in [−H, H]
  */
-import { createHash } from "node:crypto";
-import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync } from "node:fs";
-import { join } from "node:path";
 import { UserError } from "../errors.js";
-import { writeFileAtomic, OutputStage } from "../io/atomic.js";
 import { makeShape, type Phantom, type Shape, type ShapeSpec } from "../phantom/index.js";
 import { quantity } from "../units.js";
 import type { Rng } from "./prng.js";
@@ -125,7 +123,7 @@ export function applyPerturbation(ph: Phantom, p: Perturbation): Phantom {
   return { ...ph, shapes, tissues, b0, b0Description };
 }
 
-// ---- manifest and resume ----
+// ---- manifest lines and the parts of a batch (no file system) ----
 
 export interface ManifestEntry {
   case: number;
@@ -141,8 +139,10 @@ export interface ManifestEntry {
   count?: number;
 }
 
-export function sha256(data: Uint8Array | string): string {
-  return createHash("sha256").update(data).digest("hex");
+/** The files and parameters of one case, as makeCase returns them. */
+export interface CaseFiles {
+  files: Map<string, Uint8Array | string>;
+  params: Record<string, unknown>;
 }
 
 export function caseDirName(i: number): string {
@@ -154,11 +154,16 @@ export function manifestName(range?: [number, number]): string {
   return range ? `manifest-${range[0]}-${range[1]}.jsonl` : "manifest.jsonl";
 }
 
-export function readManifest(dir: string, name = "manifest.jsonl"): Map<number, ManifestEntry> {
+/** The part range of a manifest file name (manifest-A-B.jsonl), or null. */
+export function partRange(name: string): [number, number] | null {
+  const m = /^manifest-(\d+)-(\d+)\.jsonl$/.exec(name);
+  return m ? [Number(m[1]), Number(m[2])] : null;
+}
+
+/** Manifest entries of a manifest file's text (one JSON line per case); a damaged line is left out (that case is redone). */
+export function parseManifest(text: string): Map<number, ManifestEntry> {
   const m = new Map<number, ManifestEntry>();
-  const file = join(dir, name);
-  if (!existsSync(file)) return m;
-  for (const line of readFileSync(file, "utf8").split("\n")) {
+  for (const line of text.split("\n")) {
     if (line.trim() === "") continue;
     try {
       const e = JSON.parse(line) as ManifestEntry;
@@ -170,109 +175,40 @@ export function readManifest(dir: string, name = "manifest.jsonl"): Map<number, 
   return m;
 }
 
-export function writeManifest(dir: string, entries: Map<number, ManifestEntry>, name = "manifest.jsonl"): void {
-  const lines = [...entries.values()].sort((a, b) => a.case - b.case).map((e) => JSON.stringify(e));
-  writeFileAtomic(join(dir, name), lines.join("\n") + "\n");
+/** The text of a manifest file: entries in case order, one JSON line each. */
+export function manifestText(entries: Map<number, ManifestEntry>): string {
+  return [...entries.values()].sort((a, b) => a.case - b.case).map((e) => JSON.stringify(e)).join("\n") + "\n";
 }
 
-/** True if every file of the entry exists in its case folder with the listed checksum. */
-export function verifyCase(dir: string, e: ManifestEntry, key: string): boolean {
-  if (e.key !== key) return false;
-  for (const [name, hash] of Object.entries(e.files)) {
-    const f = join(dir, e.dir, name);
-    if (!existsSync(f) || sha256(readFileSync(f)) !== hash) return false;
-  }
-  return Object.keys(e.files).length > 0;
-}
-
-/**
- * Runs cases 0…count−1 into `dir`, skipping verified ones. makeCase returns
- * the files of one case (name → bytes) and its manifest parameters. Each case
- * is staged and published with OutputStage, then the manifest is rewritten
- * atomically. Returns the numbers of cases made and skipped.
- */
-/** The files and parameters of one case, as makeCase returns them. */
-export interface CaseFiles {
-  files: Map<string, Uint8Array | string>;
-  params: Record<string, unknown>;
-}
-
-export async function runBatch(
-  dir: string, count: number, seed: number, keyOf: (i: number) => string,
-  makeCase: (i: number) => CaseFiles | Promise<CaseFiles>,
-  onCase?: (i: number, skipped: boolean) => void,
-  part?: { range?: [number, number]; batch?: string },
-): Promise<{ made: number[]; skipped: number[] }> {
-  mkdirSync(dir, { recursive: true });
-  const name = manifestName(part?.range);
-  const manifest = readManifest(dir, name);
-  const made: number[] = [], skipped: number[] = [];
-  const [from, to] = part?.range ?? [0, count];
-  for (let i = from; i < to; i++) {
-    const folder = caseDirName(i), key = keyOf(i);
-    const old = manifest.get(i);
-    if (old && old.dir === folder && verifyCase(dir, old, key)) {
-      skipped.push(i);
-      onCase?.(i, true);
-      continue;
-    }
-    // staging folders of an interrupted earlier run of this case (ours: case-NNNN.<pid>.tmp)
-    for (const f of readdirSync(dir)) {
-      if (new RegExp(`^${folder}\\.\\d+\\.tmp$`).test(f)) rmSync(join(dir, f), { recursive: true, force: true });
-    }
-    manifest.delete(i);
-    const { files, params } = await makeCase(i);
-    const stage = new OutputStage(join(dir, folder));
-    const hashes: Record<string, string> = {};
-    try {
-      for (const [f, bytes] of files) {
-        stage.add(f, bytes);
-        hashes[f] = sha256(bytes);
-      }
-      stage.commit();
-    } catch (e) {
-      stage.abort();
-      throw e;
-    }
-    manifest.set(i, { case: i, dir: folder, key, seed, params, files: hashes, ...(part?.batch ? { batch: part.batch, count } : {}) });
-    writeManifest(dir, manifest, name);
-    made.push(i);
-    onCase?.(i, false);
-  }
-  return { made, skipped };
+/** One part of a batch as read from its manifest-A-B.jsonl. */
+export interface DatasetPart {
+  file: string;
+  from: number;
+  to: number;
+  entries: Map<number, ManifestEntry>;
 }
 
 /**
- * Joins the parts of one batch made with --cases A:B (their manifest-A-B.jsonl
- * files in `dir`) into manifest.jsonl. Refuses, before writing anything:
- * no parts; parts of other batches (settings hash or batch size differ);
- * overlapping ranges; gaps (cases 0 … count−1 not all covered); a part that
- * lacks cases of its range (not finished: run it again); a case whose files
- * are missing or do not match their checksums.
+ * Joins the parts of one batch (made with --cases A:B) into the entries of
+ * manifest.jsonl. Refuses with a UserError, naming `where`: no parts; parts
+ * of other batches (settings hash or batch size differ); overlapping ranges;
+ * gaps (cases 0 … count−1 not all covered); a part that lacks cases of its
+ * range (not finished: run it again); a case for which `verify` (its files
+ * exist with the listed checksums) is false.
  */
-export function mergeDatasetParts(dir: string): { parts: string[]; count: number } {
-  let names: string[];
-  try {
-    names = readdirSync(dir);
-  } catch {
-    throw new UserError(`cannot read the folder ${dir}; give the --out folder of the dataset parts`, undefined, "dataset-merge");
-  }
-  const parts = names
-    .map((f) => ({ f, m: /^manifest-(\d+)-(\d+)\.jsonl$/.exec(f) }))
-    .filter((x) => x.m)
-    .map((x) => ({ file: x.f, from: Number(x.m![1]), to: Number(x.m![2]) }))
-    .sort((a, b) => a.from - b.from || a.to - b.to);
-  if (parts.length === 0) throw new UserError(`${dir} holds no part manifests (manifest-A-B.jsonl, written by isofold dataset --cases A:B)`, undefined, "dataset-merge");
+export function joinDatasetParts(parts: DatasetPart[], verify: (e: ManifestEntry) => boolean, where: string): { entries: Map<number, ManifestEntry>; count: number } {
+  const sorted = [...parts].sort((a, b) => a.from - b.from || a.to - b.to);
+  if (sorted.length === 0) throw new UserError(`${where} holds no part manifests (manifest-A-B.jsonl, written by isofold dataset --cases A:B)`, undefined, "dataset-merge");
   const all = new Map<number, ManifestEntry>();
   let batch: string | undefined, count: number | undefined, first = "";
   let at = 0;
-  for (const p of parts) {
-    const m = readManifest(dir, p.file);
+  for (const p of sorted) {
+    const m = p.entries;
     for (const e of m.values()) {
       if (e.batch === undefined || e.count === undefined) throw new UserError(`${p.file}: case ${e.case} has no batch settings; make the part again with this version of isofold`, undefined, "dataset-merge");
       if (batch === undefined) { batch = e.batch; count = e.count; first = p.file; }
       if (e.batch !== batch || e.count !== count) {
-        throw new UserError(`${p.file} was made with other settings than ${first} (seed, protocol, phantom, coils, noise, mask, format, --count or version differ); merge only the parts of one batch`, undefined, "dataset-merge");
+        throw new UserError(`${p.file} was made with other settings than ${first} (seed, protocol, phantom, coils, noise, mask, format, readout, --count or version differ); merge only the parts of one batch`, undefined, "dataset-merge");
       }
       if (e.case < p.from || e.case >= p.to) throw new UserError(`${p.file} lists case ${e.case}, outside its range ${p.from}:${p.to}`, undefined, "dataset-merge");
     }
@@ -281,13 +217,12 @@ export function mergeDatasetParts(dir: string): { parts: string[]; count: number
     for (let i = p.from; i < p.to; i++) {
       const e = m.get(i);
       if (!e) throw new UserError(`${p.file} lacks case ${i}: that part did not finish; run it again with --cases ${p.from}:${p.to}`, undefined, "dataset-merge");
-      if (!verifyCase(dir, e, e.key)) throw new UserError(`the files of case ${i} (${e.dir}) are missing or do not match their checksums in ${p.file}; run isofold dataset … --cases ${p.from}:${p.to} again`, undefined, "dataset-merge");
+      if (!verify(e)) throw new UserError(`the files of case ${i} (${e.dir}) are missing or do not match their checksums in ${p.file}; run isofold dataset … --cases ${p.from}:${p.to} again`, undefined, "dataset-merge");
       all.set(i, e);
     }
     at = p.to;
   }
-  if (count === undefined) throw new UserError(`the part manifests in ${dir} are empty; run the parts first`, undefined, "dataset-merge");
+  if (count === undefined) throw new UserError(`the part manifests in ${where} are empty; run the parts first`, undefined, "dataset-merge");
   if (at !== count) throw new UserError(`cases ${at}–${count - 1} of ${count} are missing: run isofold dataset … --cases ${at}:${count}`, undefined, "dataset-merge");
-  writeManifest(dir, all);
-  return { parts: parts.map((p) => p.file), count };
+  return { entries: all, count };
 }

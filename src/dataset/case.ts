@@ -1,6 +1,8 @@
 /**
- * One dataset case: simulate every coil, move to the image grid, build the
- * truth, sensitivities, noise and mask, and encode the files.
+ * One dataset case from its simulated coil k-spaces (dataset/simulate.ts,
+ * run by the caller): move to the image grid, build the truth,
+ * sensitivities, noise and mask, and encode the files. No file system, no
+ * engine executor: runs anywhere the library runs.
  *
  * Data path (all on the image grid, i.e. after oversampling removal):
  *   I_c   = crop(ifftc(k_c))                 coil images, c = 0 uniform, 1…C array
@@ -10,19 +12,27 @@
  *              K. P. Pruessmann et al., "SENSE: sensitivity encoding for fast
  *              MRI", Magn. Reson. Med. 42 (1999) 952–962); 0 where Σ|S|² = 0
  *   kspace_c = (fftc(I_c) + n_c)·mask        n from noise.ts, zero off the mask
+ *
+ * Averages (raw.h5 only; kspace.npy is their mean): the engine sums the A
+ * averages of a line into one line with weight 1/A, so every average record
+ * carries that mean signal, plus noise of its own, n_a = n + (w_a − w̄) with
+ * w_a = √A·σ·L·z_a (z_a ~ CN(0, I), a = 0 … A−1, stream averageNoise) and
+ * w̄ their mean: each n_a has covariance A·σ²·Ψ, the n_a are independent of
+ * one another (jointly Gaussian, pairwise covariance σ² − σ² = 0), and their
+ * mean is exactly n, the noise of kspace.npy.
  */
 import { encodeNpy } from "../io/npy.js";
 import { encodeNifti1 } from "../io/nifti.js";
 import { fft2c, fft3c } from "../recon/fft.js";
 import { reconstructGrid, toGrid } from "../recon/reconstruct.js";
-import type { IsochromatSet } from "../isochromats/index.js";
 import type { KGrid, Sequence } from "../sequence/types.js";
 import type { Axes } from "../protocol/geometry.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
 import { makeMask, type Mask, type MaskOptions } from "./masks.js";
 import { Rng, STREAM } from "./prng.js";
-import { simulateCoils } from "./simulate.js";
+import type { ReadoutReport } from "../engine/fast.js";
+import type { KSpace } from "../engine/index.js";
 import { addRawNoise, rawFile, rawSignal, type RawContext } from "./raw.js";
 
 /** Which raw k-space containers a case gets: kspace.npy (+ noise.npy), raw.h5 (ISMRMRD), or both. */
@@ -98,11 +108,6 @@ export interface CaseSettings {
   noiseLines: number;
   mask: MaskOptions;
   seed: number;
-  receiverFilter: boolean;
-  /** Engine worker threads. */
-  workers: number;
-  /** Engine chunk size and kernel choice (defaults: CHUNK_ISOCHROMATS, WebAssembly where available). */
-  engine?: { chunkIsochromats?: number; wasm?: boolean };
   /** Raw containers to write (default both). */
   format?: DatasetFormat;
   /** Needed for raw.h5. */
@@ -133,23 +138,33 @@ export interface CaseResult {
     objectPixels: number;
     mask: Mask;
     kspaceAcquired: Dims;
+    /** What the readout operator did, one report per engine run (coil blocks). */
+    readout: ReadoutReport[];
+    /** Records per sampled line in raw.h5 (protocol averages; 1 without raw.h5). */
+    averages: number;
   };
 }
 
-/** Runs the simulation and builds every array file of one case (case.json is added by the caller). */
-export async function buildCase(
-  seq: Sequence, iso: IsochromatSet, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
-  onProgress?: (done: number, total: number) => void,
-): Promise<CaseResult> {
+/**
+ * Builds every array file of one case (case.json is added by the caller) from
+ * the coils' simulated k-space [coil][row][read] (coil 0 uniform, then the
+ * array: simulateCoilsPlanned) and what the readout operator did.
+ */
+export function buildCase(
+  seq: Sequence, sim: { kspace: KSpace; readout: ReadoutReport[] }, geo: CaseGeometry, s: CaseSettings, caseIndex: number,
+): CaseResult {
   const img: Dims = seq.image, kd: Dims = seq.kspace;
   const C = coilCount(s.array);
   const loops = s.array.elements > 0;
-  const k = await simulateCoils(seq, iso, s.array, s.receiverFilter, s.workers, onProgress, s.engine);
+  const { kspace: k, readout } = sim;
   const n = img.slice * img.phase * img.read;
   const format = s.format ?? "both";
   const wantRaw = format !== "npy";
   if (wantRaw && !s.raw) throw new Error("buildCase: raw.h5 needs the raw context");
   const raw = wantRaw ? rawSignal(k.re, k.im, loops ? 1 : 0, C, kd, img, seq.grid) : null;
+  // raw.h5 records per sampled line: one per average (noise-free: each the same mean signal)
+  const averages = raw ? s.raw!.protocol.averages : 1;
+  const raws: { re: Float64Array; im: Float64Array; read: number }[] = raw ? Array.from({ length: averages }, () => raw) : [];
   const all = toImageGrid(k.re, k.im, k.coils, kd, img, seq.grid);
   // truth[0]: uniform coil; coil images of the array follow (or the uniform coil itself)
   const truth = { re: new Float64Array(2 * n), im: new Float64Array(2 * n) };
@@ -188,7 +203,21 @@ export async function buildCase(
       coilRe[i] = coilRe[i]! + nr[i]!;
       coilIm[i] = coilIm[i]! + ni[i]!;
     }
-    if (raw) addRawNoise(raw.re, raw.im, nr, ni, C, img.slice * img.phase, img.read, raw.read, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.rawMargin));
+    if (raw && averages > 1) {
+      // per-average noise n_a = n + (w_a − w̄) (file header), then each average's raw lines from it
+      const wr = new Float64Array(averages * C * n), wi = new Float64Array(averages * C * n);
+      const wrng = Rng.stream(s.seed, caseIndex, STREAM.averageNoise), mrng = Rng.stream(s.seed, caseIndex, STREAM.averageMargin);
+      for (let a = 0; a < averages; a++) addNoise(wr.subarray(a * C * n, (a + 1) * C * n), wi.subarray(a * C * n, (a + 1) * C * n), C, n, sigma * Math.sqrt(averages), L, wrng);
+      const mr = new Float64Array(C * n), mi = new Float64Array(C * n);
+      for (let a = 0; a < averages; a++) for (let i = 0; i < C * n; i++) { mr[i] = mr[i]! + wr[a * C * n + i]! / averages; mi[i] = mi[i]! + wi[a * C * n + i]! / averages; }
+      const ar = new Float64Array(C * n), ai = new Float64Array(C * n);
+      for (let a = 0; a < averages; a++) {
+        for (let i = 0; i < C * n; i++) { ar[i] = nr[i]! + (wr[a * C * n + i]! - mr[i]!); ai[i] = ni[i]! + (wi[a * C * n + i]! - mi[i]!); }
+        const own = { re: raw.re.slice(), im: raw.im.slice(), read: raw.read };
+        addRawNoise(own.re, own.im, ar, ai, C, img.slice * img.phase, img.read, raw.read, sigma * Math.sqrt(averages), L, mrng);
+        raws[a] = own;
+      }
+    } else if (raw) addRawNoise(raw.re, raw.im, nr, ni, C, img.slice * img.phase, img.read, raw.read, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.rawMargin));
   }
   const mask = makeMask(img.slice, img.phase, s.mask, Rng.stream(s.seed, caseIndex, STREAM.mask));
   for (let c = 0; c < C; c++) {
@@ -230,12 +259,12 @@ export async function buildCase(
       addRawNoise(noiseRaw.re, noiseRaw.im, nr, ni, C, s.noiseLines, img.read, M, sigma, L, Rng.stream(s.seed, caseIndex, STREAM.rawNoiseLinesMargin));
     }
   }
-  if (raw) files.set("raw.h5", rawFile(s.raw!, raw, noiseRaw, C, img, mask, s.rawComment ?? "isofold dataset case"));
+  if (raw) files.set("raw.h5", rawFile(s.raw!, raws, noiseRaw, C, img, mask, s.rawComment ?? "isofold dataset case"));
   const mag = new Float32Array(n);
   for (let i = 0; i < n; i++) mag[i] = Math.hypot(truth.re[i]!, truth.im[i]!);
   files.set("truth.nii", encodeNifti1({
     data: mag, dims: [img.read, img.phase, img.slice], voxelMm: geo.voxelMm, affine: geo.affine,
     description: "isofold dataset truth: |uniform-coil image|",
   }));
-  return { files, info: { coils: C, dims: img, sigma, meanSignal, objectPixels, mask, kspaceAcquired: kd } };
+  return { files, info: { coils: C, dims: img, sigma, meanSignal, objectPixels, mask, kspaceAcquired: kd, readout, averages } };
 }

@@ -6,7 +6,6 @@
  *   n = σ·L·z,  Ψ = L·Lᴴ (Cholesky),  z ~ CN(0, I) (E|z_c|² = 1),
  * so E[n·nᴴ] = σ²·Ψ. σ comes from the target SNR (see snrSigma).
  */
-import { readFileSync } from "node:fs";
 import { UserError } from "../errors.js";
 import { decodeNpy } from "../io/npy.js";
 import type { CoilArray } from "./coils.js";
@@ -95,22 +94,17 @@ export function cholesky(m: CMatrix, option: string): CMatrix {
 }
 
 /**
- * Reads Ψ from a file: .npy (real or complex, shape [coils, coils]) or JSON
- * (a list of rows of numbers, or {"re": rows, "im": rows}). Errors name `option`.
+ * Ψ from the bytes of a file named `file` (the CLI reads it): .npy (real or
+ * complex, shape [coils, coils]) or JSON (a list of rows of numbers, or
+ * {"re": rows, "im": rows}). Errors name `option`.
  */
-export function readCovariance(file: string, coils: number, option: string): CMatrix {
-  let bytes: Buffer;
-  try {
-    bytes = readFileSync(file);
-  } catch (e) {
-    throw new UserError(`cannot read ${file}: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`, undefined, option);
-  }
+export function parseCovariance(bytes: Uint8Array, file: string, coils: number, option: string): CMatrix {
   const m = { n: coils, re: new Float64Array(coils * coils), im: new Float64Array(coils * coils) };
   const want = `a ${coils}×${coils} matrix (one row and column per coil)`;
   if (file.toLowerCase().endsWith(".npy")) {
     let arr;
     try {
-      arr = decodeNpy(new Uint8Array(bytes), file);
+      arr = decodeNpy(bytes, file);
     } catch (e) {
       throw new UserError(`${file}: ${(e as Error).message}`, undefined, option);
     }
@@ -127,7 +121,7 @@ export function readCovariance(file: string, coils: number, option: string): CMa
   } else {
     let json: unknown;
     try {
-      json = JSON.parse(bytes.toString("utf8"));
+      json = JSON.parse(new TextDecoder().decode(bytes));
     } catch {
       throw new UserError(`${file} is neither .npy nor valid JSON; expected ${want} as .npy, or JSON rows [[...], ...] or {"re": rows, "im": rows}`, undefined, option);
     }

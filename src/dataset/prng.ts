@@ -28,7 +28,7 @@ function splitmix64(state: bigint): [bigint, bigint] {
 }
 
 /** What a stream is used for; each purpose gets its own stream per case. */
-export const STREAM = { perturb: 1, mask: 2, noise: 3, noiseLines: 4, rawMargin: 5, rawNoiseLinesMargin: 6 } as const;
+export const STREAM = { perturb: 1, mask: 2, noise: 3, noiseLines: 4, rawMargin: 5, rawNoiseLinesMargin: 6, averageNoise: 7, averageMargin: 8 } as const;
 
 /** 64-bit starting point of the stream (seed, case, purpose). */
 export function streamSeed(seed: number, caseIndex: number, purpose: number): bigint {

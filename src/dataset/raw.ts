@@ -15,8 +15,11 @@
  * (σ²/N, coil covariance Ψ) in the oversampled margin; per raw sample the
  * noise is σ²·M/N·Ψ (the wider sampled bandwidth at the same readout
  * duration). Phase oversampling, if the protocol has any, is removed: lines
- * are on the image phase grid. Averages are already combined (one readout
- * per line). Reversed readouts (EPI) are turned round into k-space order.
+ * are on the image phase grid. With A averages every sampled line has A
+ * records (`average` 0 … A−1, one after another): the noise-free signal of
+ * each is the engine's mean over the averages, the noise of each its own
+ * (case.ts), and their mean is the kspace.npy line by the relation above.
+ * Reversed readouts (EPI) are turned round into k-space order.
  */
 import { fftc1, ifftc1 } from "../recon/fft.js";
 import { toGrid } from "../recon/reconstruct.js";
@@ -129,14 +132,17 @@ export function lineOrder(seq: Sequence, N: number): number[] {
 /**
  * raw.h5 bytes: header from the protocol; noise-only readouts first (if any,
  * [coil][line][M]); then one readout per sampled (slice-encoding step, phase
- * line), slice-encoding steps outer, phase lines in acquisition order.
+ * line) and average (`raws[a]`, a = 0 … A−1), slice-encoding steps outer,
+ * phase lines in acquisition order, the averages of a line one after another.
+ * First/last in encode step 1 and first/last in average mark each average's
+ * first and last line of a slice-encoding step.
  */
 export function rawFile(
-  ctx: RawContext, raw: { re: Float64Array; im: Float64Array; read: number }, noise: { re: Float64Array; im: Float64Array; lines: number } | null,
+  ctx: RawContext, raws: { re: Float64Array; im: Float64Array; read: number }[], noise: { re: Float64Array; im: Float64Array; lines: number } | null,
   C: number, img: Dims, mask: Mask, comment: string,
 ): Uint8Array {
   const { protocol: p, seq, axes } = ctx;
-  const M = raw.read, P = img.slice, N = img.phase;
+  const M = raws[0]!.read, P = img.slice, N = img.phase, A = raws.length;
   const dwellUs = 1e6 / (p.pixelBandwidth * p.matrix.read * p.oversampling.read);
   const posMm = lps(axes.slice, p.slice.position * 1e3);
   const common = {
@@ -171,20 +177,30 @@ export function rawFile(
         const onLattice = m.kind !== "uniform" || (((y - c0) % m.accel) + m.accel) % m.accel === 0;
         if (onLattice) flags.push("parallelCalibrationAndImaging");
       }
-      group.push({
-        ...common, ...line(raw, P * N, pz * N + y), flags, scanCounter: 0,
-        idx: { ...zero, kspaceEncodeStep1: y, kspaceEncodeStep2: pz },
-      });
+      for (let a = 0; a < A; a++) {
+        group.push({
+          ...common, ...line(raws[a]!, P * N, pz * N + y), flags: [...flags], scanCounter: 0,
+          idx: { ...zero, kspaceEncodeStep1: y, kspaceEncodeStep2: pz, average: a },
+        });
+      }
     }
-    if (group.length > 0) {
-      group[0]!.flags.push("firstInEncodeStep1");
-      group[group.length - 1]!.flags.push("lastInEncodeStep1");
+    for (let a = 0; a < A; a++) {
+      const own = group.filter((g) => g.idx.average === a);
+      if (own.length === 0) continue;
+      own[0]!.flags.push("firstInEncodeStep1");
+      own[own.length - 1]!.flags.push("lastInEncodeStep1");
     }
     imaging.push(...group);
   }
+  for (let a = 0; a < A; a++) {
+    const own = imaging.filter((g) => g.idx.average === a);
+    if (own.length === 0) continue;
+    own[0]!.flags.push("firstInAverage");
+    own[own.length - 1]!.flags.push("lastInAverage");
+  }
   if (imaging.length > 0) {
-    imaging[0]!.flags.push("firstInEncodeStep2", "firstInSlice", "firstInAverage", "firstInRepetition");
-    imaging[imaging.length - 1]!.flags.push("lastInEncodeStep2", "lastInSlice", "lastInAverage", "lastInRepetition", "lastInMeasurement");
+    imaging[0]!.flags.push("firstInEncodeStep2", "firstInSlice", "firstInRepetition");
+    imaging[imaging.length - 1]!.flags.push("lastInEncodeStep2", "lastInSlice", "lastInRepetition", "lastInMeasurement");
   }
   for (const a of imaging) acqs.push({ ...a, scanCounter: acqs.length });
   const undersampling = mask.acceleration > 1 && m.kind !== "full";
@@ -193,7 +209,7 @@ export function rawFile(
     trajectory: p.sequence === "epi" ? "epi" : "cartesian",
     encoded: { x: M, y: N, z: P, fovMm: [p.fov.read * p.oversampling.read * 1e3, p.fov.phase * 1e3, p.slice.thickness * P * 1e3] },
     recon: { x: img.read, y: N, z: P, fovMm: [p.fov.read * 1e3, p.fov.phase * 1e3, p.slice.thickness * P * 1e3] },
-    limits: { read: [M - 1, Math.floor(M / 2)], step1: [N - 1, Math.floor(N / 2)], step2: [P - 1, Math.floor(P / 2)] },
+    limits: { read: [M - 1, Math.floor(M / 2)], step1: [N - 1, Math.floor(N / 2)], step2: [P - 1, Math.floor(P / 2)], average: [A - 1, 0] },
     trMs: p.tr * 1e3, teMs: p.te * 1e3, flipDeg: (p.flip * 180) / Math.PI,
     ...(p.sequence === "rare" ? { echoTrainLength: p.echoTrainLength } : {}),
     ...(undersampling ? { parallel: { step1: Math.max(1, Math.round(m.accel)), step2: 1, ...(m.acs > 0 ? { calibration: "embedded" as const } : {}) } } : {}),

@@ -8,6 +8,7 @@
  * pool (bitwise the same k-space for any number of workers).
  */
 import { simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
+import type { ReadoutChoice, ReadoutReport } from "../engine/fast.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
@@ -31,19 +32,31 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
 export async function simulateCoils(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
+  engine: CoilEngineOptions = {},
 ): Promise<KSpace> {
   return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress, engine)).kspace;
 }
 
-/** simulateCoils, also returning the engine plan (of the last block) for reports. */
+/** Engine options of a coil run: chunk size, kernels, and the readout operator with its tolerance (as `simulate --readout/--tolerance`). */
+export interface CoilEngineOptions {
+  chunkIsochromats?: number;
+  wasm?: boolean;
+  readout?: ReadoutChoice;
+  tolerance?: number;
+}
+
+/** simulateCoils, also returning the engine plan (of the last block) and what the readout operator did (one report per block). */
 export async function simulateCoilsPlanned(
   seq: Sequence, iso: IsochromatSet, array: CoilArray, receiverFilter: boolean, workers: number,
   onProgress?: (done: number, total: number) => void,
-  engine: { chunkIsochromats?: number; wasm?: boolean } = {},
-): Promise<{ kspace: KSpace; plan: EnginePlan }> {
+  engine: CoilEngineOptions = {},
+): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport[] }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (C === 1) return simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
+  if (C === 1) {
+    const r = await simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
+    return { kspace: r.kspace, plan: r.plan, readout: [r.readout] };
+  }
+  const readout: ReadoutReport[] = [];
   let plan: EnginePlan | null = null;
   const perBlock = Math.max(1, Math.floor(SENS_BUDGET / (2 * C)));
   const blocks: [number, number][] = [];
@@ -62,15 +75,16 @@ export async function simulateCoilsPlanned(
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace, plan: p } = await simulateParallel(seq, sub, {
+    const { kspace, plan: p, readout: rep } = await simulateParallel(seq, sub, {
       receiverFilter, coils: C, sens, workers, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     plan = p;
+    readout.push(rep);
     for (let i = 0; i < re.length; i++) {
       re[i] = re[i]! + kspace.re[i]!;
       im[i] = im[i]! + kspace.im[i]!;
     }
   }
-  return { kspace: { coils: C, rows, read, re, im }, plan: plan! };
+  return { kspace: { coils: C, rows, read, re, im }, plan: plan!, readout };
 }

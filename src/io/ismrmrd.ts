@@ -151,7 +151,7 @@ export interface IsmrmrdHeader {
   encoded: { x: number; y: number; z: number; fovMm: [number, number, number] };
   recon: { x: number; y: number; z: number; fovMm: [number, number, number] };
   /** Encoding limits: maximum and centre of kspace_encode_step_1/2 (minimum 0). */
-  limits: { step1: [number, number]; step2: [number, number]; read: [number, number] };
+  limits: { step1: [number, number]; step2: [number, number]; read: [number, number]; average?: [number, number] };
   trMs: number;
   teMs: number;
   flipDeg: number;
@@ -182,7 +182,7 @@ export function ismrmrdXml(h: IsmrmrdHeader): string {
     `<encodedSpace>${space(h.encoded)}</encodedSpace>`,
     `<reconSpace>${space(h.recon)}</reconSpace>`,
     `<encodingLimits>${lim("kspace_encoding_step_0", h.limits.read[0], h.limits.read[1])}${lim("kspace_encoding_step_1", h.limits.step1[0], h.limits.step1[1])}` +
-      `${lim("kspace_encoding_step_2", h.limits.step2[0], h.limits.step2[1])}${lim("average", 0, 0)}${lim("slice", 0, 0)}${lim("contrast", 0, 0)}` +
+      `${lim("kspace_encoding_step_2", h.limits.step2[0], h.limits.step2[1])}${lim("average", h.limits.average?.[0] ?? 0, h.limits.average?.[1] ?? 0)}${lim("slice", 0, 0)}${lim("contrast", 0, 0)}` +
       `${lim("phase", 0, 0)}${lim("repetition", 0, 0)}${lim("set", 0, 0)}${lim("segment", 0, 0)}</encodingLimits>`,
     `<trajectory>${h.trajectory}</trajectory>`,
     h.parallel
