@@ -5,7 +5,9 @@
  * bandwidth edits are made one after another (each waits for its painted
  * preview-quality image); the page's own Performance API measure (input event
  * → the frame after the image is drawn) is collected. Prints median and 90th
- * percentile. A benchmark, never a test. BENCH_EDITS changes the count.
+ * percentile and the median of each stage (the page's latency record).
+ * A benchmark, never a test. BENCH_EDITS changes the count, BENCH_SIZES the
+ * matrices, BENCH_PAUSE_MS the pause after each painted edit.
  */
 import { spawn } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
@@ -18,6 +20,9 @@ const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), "../..");
 const EDITS = Number(process.env["BENCH_EDITS"] ?? 50);
 const PHANTOM = process.env["BENCH_PHANTOM"] ?? "two-bottle";
 const PROTOCOL = process.env["BENCH_PROTOCOL"] ?? "gre-demo-1.5t";
+const SIZES = (process.env["BENCH_SIZES"] ?? "64,128,256").split(",").map(Number);
+/** Milliseconds between a painted image and the next edit (default 0: edits back to back, so the refinement never starts). With BENCH_PAUSE_MS=400 each edit lands while the previous one is being refined. */
+const PAUSE_MS = Number(process.env["BENCH_PAUSE_MS"] ?? 0);
 
 function pct(xs: number[], p: number): number {
   const s = [...xs].sort((a, b) => a - b);
@@ -39,15 +44,15 @@ const ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
   args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
 });
 console.log(`previewer edit-to-paint latency, ${PHANTOM} with ${PROTOCOL}, ${EDITS} bandwidth edits per size, preview quality (density 1, 3 through-slice isochromats, no T2′ spread)`);
-console.log("matrix   median ms   p90 ms   min ms   max ms   in the worker simulate()/analysis = total ms; page drawing ms (medians)");
+console.log("matrix   median ms   p90 ms   min ms   max ms   medians of the stages (ms): to the worker, queued, in the worker (prepare, engine [setup + chunks on the engine workers], recon, pack), back, drawing the image, to the painted frame");
 try {
-  for (const n of [64, 128, 256]) {
+  for (const n of SIZES) {
     const page = await ctx.newPage();
     await page.goto(`${base}?protocol=${PROTOCOL}&phantom=${PHANTOM}&set=matrix.read%3D${n}&set=matrix.phase%3D${n}`);
     page.on("pageerror", (e) => console.error("page error:", e.message));
     await page.waitForFunction(() => (window as any).__preview?.painted > 0, null, { timeout: 60_000 }).catch(async (e) => { console.error(await page.evaluate(() => JSON.stringify({ e: (window as any).__preview?.error, s: document.getElementById("status")?.textContent, u: location.href }))); throw e; });
     const ms: number[] = [];
-    const steps: Record<string, number[]> = { simulate: [], analysis: [], total: [], show: [] };
+    const steps: Record<string, number[]> = {};
     for (let i = 0; i < EDITS; i++) {
       const bw = 120 + 10 * (i % 12);
       const g0 = await page.evaluate(() => (window as any).__preview.gen as number);
@@ -57,13 +62,15 @@ try {
       const r = await page.evaluate(() => {
         const p = (window as any).__preview;
         const l = p.latencies[p.latencies.length - 1];
-        return { ms: l.ms as number, t: { ...(p.last.timings as Record<string, number>), show: l.show as number } };
+        return { ms: l.ms as number, t: l.stages as Record<string, number> };
       });
       ms.push(r.ms);
-      for (const k of Object.keys(steps)) steps[k]!.push((r.t as Record<string, number>)[k] ?? NaN);
+      for (const [k, v] of Object.entries(r.t)) (steps[k] ??= []).push(v);
+      if (PAUSE_MS > 0) await page.waitForTimeout(PAUSE_MS);
     }
-    const med = (xs: number[]) => pct(xs, 50);
-    console.log(`${`${n}²`.padEnd(8)} ${med(ms).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ${med(steps.simulate!).toFixed(0)}/${med(steps.analysis!).toFixed(0)} = ${med(steps.total!).toFixed(0)}; page drawing ${med(steps.show!).toFixed(0)}`);
+    const med = (xs: number[] | undefined) => (xs ? pct(xs, 50).toFixed(0) : "?");
+    console.log(`${`${n}²`.padEnd(8)} ${pct(ms, 50).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ` +
+      `to worker ${med(steps.toWorker)}, queued ${med(steps.queued)}, worker ${med(steps.total)} (${med(steps.prepare)}, ${med(steps.engine)} [${med(steps.engineSetup)} + ${med(steps.engineChunks)}], ${med(steps.recon)}, ${med(steps.pack)}), back ${med(steps.back)}, draw ${med(steps.draw)}, frame ${med(steps.frame)}; ${(steps.refining ?? []).filter((x) => x > 0).length} edits came while refining`);
     await page.close();
   }
 } finally {

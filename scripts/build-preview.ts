@@ -1,7 +1,7 @@
 /**
  * Builds the previewer page into dist/preview/ with esbuild: the engine worker
  * (the library core bundled for the browser: any Node built-in it pulled in
- * fails the build), the page script, index.html and style.css. The page script
+ * fails the build), the engine worker of the Web Worker executor, the page script, index.html and style.css. The page script
  * uses only the PNG text-chunk helpers of io/png.ts; the PNG encoder that file
  * also imports (pngjs, Node streams) is replaced by a stub that throws.
  */
@@ -32,6 +32,9 @@ export async function buildPreview(): Promise<void> {
   const common = { bundle: true, platform: "browser" as const, target: "es2022", logLevel: "warning" as const, legalComments: "none" as const, minify: true, sourcemap: false };
   await build({
     ...common, entryPoints: [join(src, "worker.ts")], outfile: join(out, "worker.js"), format: "esm", plugins: [browserOnly([])],
+  });
+  await build({
+    ...common, entryPoints: [join(src, "engine-worker.ts")], outfile: join(out, "engine-worker.js"), format: "esm", plugins: [browserOnly([])],
   });
   await build({ ...common, entryPoints: [join(src, "main.ts")], outfile: join(out, "app.js"), format: "esm", plugins: [browserOnly(["pngjs"])] });
   copyFileSync(join(src, "index.html"), join(out, "index.html"));

@@ -193,6 +193,8 @@ describe("isofold preview in a browser", () => {
     expect(readFileSync(pngFile).toString("latin1")).toContain("Simulated image computed by isofold");
     await page.screenshot({ path: join(SHOTS, "preview-export.png"), fullPage: true });
     const operator = await page.evaluate(() => (window as any).__preview.last.readout as string);
+    // the page ran the engine on its Web Worker executor (engine/web.ts), not on the worker's own thread
+    expect(await page.evaluate(() => (window as any).__preview.executor as string)).toMatch(/^Web Worker executor, \d+ engine workers?/);
     await page.close();
     const out = join(dir, "cli");
     // the exported protocol loads back with --protocol
@@ -213,5 +215,90 @@ describe("isofold preview in a browser", () => {
     const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as { engine: { readout: { operator: string } } };
     expect(operator).toBe(rep.engine.readout.operator);
     expect(Buffer.compare(readFileSync(file), readFileSync(join(out, "kspace.npy")))).toBe(0);
+  });
+
+  it("every number on the page carries a data-key that resolves in the CLI's report.json to the same value", async () => {
+    const sets = ["matrix.read=32", "matrix.phase=32", "fov.phase=10 cm", "bandwidth=130 Hz/px"];
+    const page = await open(["protocol=gre-demo-1.5t", "phantom=two-bottle", ...sets.map((x) => `set=${encodeURIComponent(x)}`)].join("&"));
+    await page.waitForFunction(() => (window as any).__preview.refined > 0 && (window as any).__preview.checked > 0, null, { timeout: 40_000 });
+    await page.waitForTimeout(50);
+    const shown = await page.evaluate(() => [...document.querySelectorAll<HTMLElement>("[data-key]")].map((e) => ({ key: e.dataset.key!, text: e.textContent ?? "", unit: e.dataset.unit ?? null })));
+    const [dl] = await Promise.all([page.waitForEvent("download"), page.click("#x-protocol")]);
+    const protoFile = join(dir, "keys-protocol.json");
+    await dl.saveAs(protoFile);
+    await page.screenshot({ path: join(SHOTS, "preview-data-keys.png"), fullPage: true });
+    await page.close();
+    const out = join(dir, "keys-cli");
+    const r = spawnSync(process.execPath, [CLI, "simulate", join(ROOT, "phantoms/two-bottle.json"), "--protocol", protoFile, "--workers", "1", "-q", "--out", out], { encoding: "utf8" });
+    expect(r.status).toBe(0);
+    const report = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as Record<string, unknown>;
+    const resolveKey = (key: string): unknown => key.split(".").reduce<unknown>((o, k) => (o !== null && typeof o === "object" ? (o as Record<string, unknown>)[k] : undefined), report);
+    // report.json holds SI except where the key names its unit (….px, ….mm) and the check lines (checks.<key>.value in checks.<key>.unit)
+    const toSi: Record<string, number> = { "": 1, Hz: 1, "Hz/px": 1, kHz: 1e3, mm: 1e-3, m: 1, px: 1 };
+    expect(shown.length).toBeGreaterThan(15);
+    expect(shown.some((x) => x.key.startsWith("checks."))).toBe(true);
+    for (const { key, text, unit } of shown) {
+      const want = resolveKey(key);
+      expect(want, `${key} is not in report.json`).not.toBeUndefined();
+      if (typeof want === "string") {
+        expect(text, key).toBe(want);
+        continue;
+      }
+      expect(typeof want, key).toBe("number");
+      const leaf = key.slice(key.lastIndexOf(".") + 1);
+      let factor: number;
+      if (key.startsWith("checks.") && leaf === "value") {
+        expect(unit, key).toBe(resolveKey(key.replace(/value$/, "unit")));
+        factor = 1;
+      } else if (leaf === "px" || leaf === "mm") {
+        expect(unit, key).toBe(leaf);
+        factor = 1;
+      } else {
+        expect(unit !== null && unit in toSi, `${key}: unit ${unit}`).toBe(true);
+        factor = toSi[unit!]!;
+      }
+      const v = Number(text.replace(/^±/, "")) * factor;
+      // the page rounds to 5–6 significant digits
+      expect(Math.abs(v - (want as number)), `${key}: page ${text} ${unit}, report.json ${want}`).toBeLessThanOrEqual(1e-4 * Math.abs(want as number) + 1e-12);
+    }
+  });
+
+  it("a bundled phantom with a field map and a B0 linear term: the B0 distortion check follows Δf/BW", async () => {
+    expect((await get(port, "/phantoms/maps/disc-shim-map.npy")).status).toBe(200);
+    expect((await get(port, "/phantoms/maps/%2e%2e/disc.json")).status).toBe(400);
+    // the map: f = 60 Hz·((x − 2 cm)² + y²)/(5 cm)² − 20 Hz; on the disc of radius 5 cm its largest |f| is at x = −5 cm: 97.6 Hz
+    const page = await open("protocol=gre-demo-1.5t&phantom=disc-shim-map&set=matrix.read%3D32&set=matrix.phase%3D32");
+    const bw = Number(await text(page, "protocol.pixelBandwidth"));
+    // displacement along read = Δf / (bandwidth per pixel) (common practice; the same rule as the fat shift)
+    expect(Number(await text(page, "checks.distortionRead.value"))).toBeCloseTo(97.6 / bw, 2);
+    await page.screenshot({ path: join(SHOTS, "preview-fieldmap.png"), fullPage: true });
+    await page.close();
+    // a linear term of 20 Hz/cm along x on the plain disc (radius 5 cm): largest |Δf| = 100 Hz
+    const p2 = await open("protocol=gre-demo-1.5t&phantom=disc&set=matrix.read%3D32&set=matrix.phase%3D32");
+    expect(Number(await text(p2, "checks.distortionRead.value"))).toBeLessThan(1e-9);
+    const g = await edit(p2, "#c-b0-x", "20");
+    await painted(p2, g);
+    expect(p2.url()).toContain("b0=20%2C0%2C0");
+    expect(Number(await text(p2, "checks.distortionRead.value"))).toBeCloseTo(100 / bw, 2);
+    await p2.screenshot({ path: join(SHOTS, "preview-b0-linear.png"), fullPage: true });
+    // a phantom file chosen in the page with its map: without the map it is refused, saying what to choose; with it the map's Δf/BW
+    const ph = JSON.parse(readFileSync(join(ROOT, "phantoms/disc-shim-map.json"), "utf8"));
+    ph.name = "chosen-map";
+    ph.b0.fieldMap.file = "maps/my-map.npy";
+    const g0 = await p2.evaluate(() => (window as any).__preview.gen as number);
+    await p2.locator("#c-file").setInputFiles([{ name: "chosen-map.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(ph)) }]);
+    await p2.waitForFunction((n) => (window as any).__preview.error?.gen > n, g0);
+    expect(await p2.locator("#general-error").textContent()).toMatch(/b0\.fieldMap\.file: .*choose the phantom file together with its field map maps\/my-map\.npy/);
+    const g1 = await p2.evaluate(() => (window as any).__preview.gen as number);
+    await p2.locator("#c-file").setInputFiles([
+      { name: "chosen-map.json", mimeType: "application/json", buffer: Buffer.from(JSON.stringify(ph)) },
+      { name: "my-map.npy", mimeType: "application/octet-stream", buffer: readFileSync(join(ROOT, "phantoms/maps/disc-shim-map.npy")) },
+    ]);
+    await painted(p2, g1 + 1);
+    expect(await p2.locator("#c-phantom").inputValue()).toBe("file:chosen-map.json");
+    // the B0 linear term (20 Hz/cm along x) adds to the map: Δf = 24000 Hz/m²·((x − 0.02 m)² + y²) − 20 Hz + 2000 Hz/m·x; on the
+    // rim (r = 5 cm) that is 49.6 Hz + 1040 Hz/m·x, largest at x = 5 cm: 101.6 Hz; the interior minimum is −21.7 Hz (x = −2.17 cm)
+    expect(Number(await text(p2, "checks.distortionRead.value"))).toBeCloseTo(101.6 / bw, 2);
+    await p2.close();
   });
 });

@@ -8,6 +8,8 @@ import { describe, expect, it } from "vitest";
 import { spawn, spawnSync } from "node:child_process";
 import { request } from "node:http";
 import { join, resolve } from "node:path";
+import { copyFileSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
@@ -75,6 +77,24 @@ describe("isofold preview (command)", () => {
       expect(await get(s.port, "/config.json", `127.0.0.1:${s.port}`)).toBe(200);
     } finally {
       s.stop();
+    }
+  });
+
+  it("a phantom file with a field map beside it: the server serves that map (and config.json names it) for the page", async () => {
+    const dir = mkdtempSync(join(tmpdir(), "isofold-preview-map-"));
+    const ph = JSON.parse(readFileSync(join(ROOT, "phantoms/disc-shim-map.json"), "utf8"));
+    ph.b0.fieldMap.file = "shim.npy";
+    writeFileSync(join(dir, "ph.json"), JSON.stringify(ph));
+    copyFileSync(join(ROOT, "phantoms/maps/disc-shim-map.npy"), join(dir, "shim.npy"));
+    const s = await startPreview([join(dir, "ph.json")]);
+    try {
+      expect(await get(s.port, "/input/shim.npy")).toBe(200);
+      expect(await get(s.port, "/input/ph.json")).toBe(404);
+      const cfg = await new Promise<string>((ok) => request({ host: "127.0.0.1", port: s.port, path: "/config.json" }, (res) => { let b = ""; res.on("data", (d) => (b += String(d))); res.on("end", () => ok(b)); }).end());
+      expect(JSON.parse(cfg).given.maps).toEqual([{ name: "shim.npy", url: "input/shim.npy" }]);
+    } finally {
+      s.stop();
+      rmSync(dir, { recursive: true, force: true });
     }
   });
 });

@@ -251,10 +251,10 @@ function checkOverlay(r: SimulateResult): { checks?: ReportCheckItem[]; folds?: 
     ...bands(c.wrap.phase).map((b) => ({ label: b.label, read: whole(p.matrix.read, dRead), phase: b.range })),
     ...bands(c.wrap.read).map((b) => ({ label: b.label, read: b.range, phase: whole(p.matrix.phase, dPhase) })),
   ];
-  return {
-    checks: c.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason })),
-    folds,
-  };
+  const checks = c.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason }));
+  // report.json `checks`: the same lines keyed by check (checks.<key>.value in .unit, .verdict, …), the keys the previewer's numbers carry
+  r.report["checks"] = Object.fromEntries(checks.map(({ key, ...line }) => [key, line]));
+  return { checks, folds };
 }
 
 /** Writes the run folder of a result (atomically): PNGs in display orientation, truth maps and coil files when asked. */

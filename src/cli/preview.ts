@@ -2,8 +2,9 @@
  * `isofold preview [phantom] [--protocol <file>]`: a small static HTTP server
  * (node:http) for the interactive previewer page (src/preview/, built into
  * dist/preview/ by `npm run build`). The server does no simulation: it serves
- * the page, the bundled phantoms and presets, and the phantom / protocol named
- * on the command line, read and validated once at start. Every path it
+ * the page, the bundled phantoms (with their field maps) and presets, and the
+ * phantom / protocol named on the command line (with its field map), read and
+ * validated once at start. Every path it
  * answers is in a fixed table made at start; anything else is refused.
  */
 import type { Command } from "commander";
@@ -23,7 +24,20 @@ const TYPES: Record<string, string> = {
   ".css": "text/css; charset=utf-8",
   ".json": "application/json; charset=utf-8",
   ".wasm": "application/wasm",
+  ".npy": "application/octet-stream",
 };
+
+/**
+ * The field-map file a phantom object names (b0.fieldMap.file), when it is a
+ * plain relative path inside the phantom's folder (no "." or ".." step, not
+ * absolute, no backslash); else null (the page then says the map is not bundled).
+ */
+function mapPath(phantom: unknown): string | null {
+  const f = (phantom as { b0?: { fieldMap?: { file?: unknown } } } | null)?.b0?.fieldMap?.file;
+  if (typeof f !== "string" || !f.endsWith(".npy") || f.startsWith("/") || f.includes("\\") || f.includes("\0")) return null;
+  const steps = f.split("/");
+  return steps.some((x) => x === "" || x === "." || x === "..") ? null : f;
+}
 
 /** The page may run its own scripts, workers and WebAssembly, and nothing from elsewhere. */
 const CSP = "default-src 'none'; script-src 'self' 'wasm-unsafe-eval'; worker-src 'self'; style-src 'self'; img-src 'self' blob: data:; connect-src 'self'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'";
@@ -106,11 +120,22 @@ function servedFiles(o: PreviewServerOptions): { files: Map<string, { body: Buff
   for (const f of presets) files.set(`/presets/${f}`, { body: readFileSync(join(presetsDir(), f)), type: TYPES[".json"]! });
   const phDir = join(repoRoot(), "phantoms");
   const phantoms = readdirSync(phDir).filter((f) => f.endsWith(".json")).sort();
-  for (const f of phantoms) files.set(`/phantoms/${f}`, { body: readFileSync(join(phDir, f)), type: TYPES[".json"]! });
+  for (const f of phantoms) {
+    const body = readFileSync(join(phDir, f));
+    files.set(`/phantoms/${f}`, { body, type: TYPES[".json"]! });
+    // a bundled phantom's field map, from the phantoms folder only
+    let map: string | null = null;
+    try {
+      map = mapPath(JSON.parse(body.toString("utf8")));
+    } catch { /* not JSON: the page's validator says so */ }
+    if (map && existsSync(join(phDir, map)) && resolve(phDir, map).startsWith(resolve(phDir) + "/")) {
+      files.set(`/phantoms/${map}`, { body: readFileSync(join(phDir, map)), type: TYPES[".npy"]! });
+    }
+  }
 
   // the inputs named on the command line: validated here so a bad file is a one-line error before the server starts
   let protocolName = "gre-demo-1.5t";
-  let given: { protocol?: { name: string; object: Obj }; phantom?: { name: string; object: unknown } } = {};
+  let given: { protocol?: { name: string; object: Obj }; phantom?: { name: string; object: unknown }; maps?: { name: string; url: string }[] } = {};
   const presetNames = presets.map((f) => f.replace(/\.json$/, ""));
   if (o.protocol !== undefined) {
     const protocol = loadProtocol(o.protocol, []);
@@ -131,8 +156,14 @@ function servedFiles(o: PreviewServerOptions): { files: Map<string, { body: Buff
       const field = o.protocol !== undefined ? loadProtocol(o.protocol, []).field : 1.5;
       const ph = loadPhantom(o.phantom, field, { readArray: readRealNpy });
       const raw = parseJsonStrict(readFileSync(o.phantom, "utf8"), o.phantom);
-      if (JSON.stringify(raw).includes("fieldMap")) throw new UserError("the previewer cannot load a phantom with a field-map file (b0.fieldMap); use isofold simulate", o.phantom);
       void ph;
+      // its field map (loaded and checked above) is served under /input/ for the page's worker
+      const map = (raw as { b0?: { fieldMap?: { file?: unknown } } })?.b0?.fieldMap?.file;
+      if (typeof map === "string") {
+        const served = `/input/${basename(map).replace(/[^A-Za-z0-9._-]/g, "_")}`;
+        files.set(served, { body: readFileSync(map.startsWith("/") ? map : join(dirname(resolve(o.phantom)), map)), type: TYPES[".npy"]! });
+        given.maps = [{ name: map, url: served.slice(1) }];
+      }
       phantomName = `file:${basename(o.phantom)}`;
       given.phantom = { name: phantomName, object: raw };
     }

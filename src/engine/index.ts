@@ -13,6 +13,7 @@ import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BlockSummer } from "./sum.js";
 
 export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareEngineArrays, CHUNK_ISOCHROMATS, HAS_SHARED_MEMORY, type EnginePlan } from "./plan.js";
+export { webWorkerExecutor, serveEngineWorker, type WebWorkerLike, type WebEngineRequest, type WebEngineReply } from "./web.js";
 export { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, simulateWith, simulateCells, chunkRange, type Executor, type ExecutorSession, type RunOptions, type KSpace } from "./executor.js";
 export { BLOCK_CHUNKS, blockCount, shardBlocks, blockChunks, BlockSummer, addInto } from "./sum.js";
 export { TupleIndex, f64Words } from "./hash.js";

@@ -10,7 +10,7 @@
  */
 import { prepareSimulation, runSlices, reconstructRuns, SAFETY_NOTE, type SimulateInput } from "../api.js";
 import { UserError } from "../errors.js";
-import { AbortedError, serialExecutor } from "../engine/index.js";
+import { AbortedError, readoutKernelName, serialExecutor, type Executor } from "../engine/index.js";
 import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/index.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
@@ -18,7 +18,8 @@ import { logicalAxes, parseProtocol, type Protocol, type ProtocolResolver } from
 import { parsePhantom } from "../phantom/index.js";
 import { buildSequence } from "../sequence/index.js";
 import { displayTransform, type DisplayTransform } from "../report/display.js";
-import { encodeNpy } from "../io/npy.js";
+import { decodeNpy, encodeNpy } from "../io/npy.js";
+import type { RealArray } from "../phantom/index.js";
 import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 
 export type Quality = "preview" | "full";
@@ -31,6 +32,12 @@ export interface RunRequest {
   sets: string[];
   fatModel: "single" | "multi";
   quality: Quality;
+  /**
+   * A linear B0 term (Hz/cm along x, y, z) added to the phantom's own B0
+   * model as a b0 expression — evaluated by the phantom's B0 expression
+   * sandbox like any phantom file's (phantom/b0.ts), no other evaluator.
+   */
+  b0Linear?: [number, number, number];
 }
 
 export interface RunOutput {
@@ -51,7 +58,9 @@ export interface RunOutput {
   engineMs: number;
   /** Readout operator that ran ("fast" or "direct"). */
   readout: string;
-  /** Milliseconds in the worker: the whole simulate() call, the analysis after it, and the total. */
+  /** The kernels of this worker's engine (WebAssembly SIMD or the scalar twins; the same bits either way). */
+  kernels: string;
+  /** Milliseconds in the worker by stage (prepare: parse, sequence, isochromats; engine; recon; pack: views and .npy bytes; total). */
   timings: Record<string, number>;
   iso: IsochromatOptions;
   /** Complex64 .npy bytes of the k-space and image volumes, as `simulate` writes kspace.npy and image.npy. */
@@ -64,6 +73,14 @@ export interface RunOutput {
 const presets = new Map<string, unknown>();
 const phantoms = new Map<string, unknown>();
 const inputs = new Map<string, unknown>();
+/** .npy bytes of field maps: of the bundled phantoms (path relative to the phantoms folder) and of files chosen in the page. */
+const bundledArrays = new Map<string, Uint8Array>();
+const fileArrays = new Map<string, Uint8Array>();
+
+/** A field-map file: `bundled` ones were fetched from the server's phantoms folder, the others were chosen in the page. */
+export function putArray(name: string, bytes: Uint8Array, bundled: boolean): void {
+  (bundled ? bundledArrays : fileArrays).set(name, bytes);
+}
 
 export function putPreset(name: string, text: string): void {
   presets.set(name, JSON.parse(text));
@@ -87,10 +104,40 @@ function protocolInput(name: string): unknown {
   if (v === undefined) throw new UserError(`no protocol file or preset named ${JSON.stringify(name)}; presets: ${[...presets.keys()].join(", ")}`);
   return structuredClone(v);
 }
-function phantomInput(name: string): unknown {
+function phantomInput(name: string, b0Linear?: [number, number, number]): unknown {
   const v = inputs.get(name) ?? phantoms.get(name);
   if (v === undefined) throw new UserError(`no phantom named ${JSON.stringify(name)}; bundled: ${[...phantoms.keys()].join(", ")}`);
-  return structuredClone(v);
+  return withLinearB0(structuredClone(v), b0Linear);
+}
+
+/** The phantom object with `b0Linear` (Hz/cm) added to its b0 expression (offsets of several b0 models add: phantom/b0.ts). */
+export function withLinearB0(phantom: unknown, g?: [number, number, number]): unknown {
+  if (!g || g.every((v) => v === 0) || typeof phantom !== "object" || phantom === null || Array.isArray(phantom)) return phantom;
+  if (!g.every((v) => Number.isFinite(v))) throw new UserError(`the B0 linear term must be finite numbers in Hz/cm, got ${g.join(", ")}`);
+  // Hz/cm → Hz/m (x, y, z of the expression are in m)
+  const term = g.map((v, i) => `${v * 100} * ${"xyz"[i]}`).join(" + ");
+  const ph = phantom as Record<string, unknown>;
+  const b0 = typeof ph["b0"] === "object" && ph["b0"] !== null ? { ...(ph["b0"] as Record<string, unknown>) } : {};
+  b0["expression"] = typeof b0["expression"] === "string" ? `(${b0["expression"]}) + ${term}` : term;
+  return { ...ph, b0 };
+}
+
+/** Field-map reader of a phantom: bundled phantoms read the bundled maps, chosen files the files chosen beside them. */
+function arrayReader(phantom: string): (path: string) => RealArray {
+  const table = phantom.startsWith("file:") ? fileArrays : bundledArrays;
+  return (path) => {
+    const name = path.replace(/^\.\//, "");
+    // a file chosen in the page is found by its own name too (a browser gives no folder)
+    const bytes = table.get(name) ?? (table === fileArrays ? table.get(name.slice(name.lastIndexOf("/") + 1)) : undefined);
+    if (!bytes) {
+      throw new Error(phantom.startsWith("file:")
+        ? `not chosen in the page: choose the phantom file together with its field map ${name}`
+        : `not bundled with the previewer`);
+    }
+    const a = decodeNpy(bytes, name);
+    if (a.dtype === "complex64" || a.dtype === "complex128") throw new Error(`expected a real array of Hz values, got ${a.dtype}`);
+    return { shape: a.shape, data: a.data as ArrayLike<number> };
+  };
 }
 
 /** Isochromat options of each quality: preview is density 1, few through-slice isochromats and no T2′ spread. */
@@ -112,24 +159,40 @@ export function checkRequest(req: RunRequest): CheckResult {
     if (e instanceof UserError) throw e.inFile(req.protocol);
     throw e;
   }
-  const phantom = parsePhantom(phantomInput(req.phantom), req.phantom, protocol.field);
+  const phantom = parsePhantom(phantomInput(req.phantom, req.b0Linear), req.phantom, protocol.field, { readArray: arrayReader(req.phantom) });
   const result = checkProtocol(phantom, protocol, seq, {});
   result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
   return result;
 }
 
 /** Runs one request; `stop()` is asked as the engine reports progress, and a true answer rejects with Cancelled. */
-export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void): Promise<RunOutput> {
+export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void, executor: Executor = serialExecutor()): Promise<RunOutput> {
   const tStart = performance.now();
   const iso = qualityOptions(req.quality, req.fatModel);
   const ac = new AbortController();
   let input: SimulateInput, prep, run;
+  let tPrep = tStart, tEngine = tStart;
+  // where the engine's time goes: before the executor session (plan, operator choice), and the chunks on the engine workers
+  let tOpen = NaN, chunkMs = 0;
+  const timed: Executor = {
+    open(plan, iso, jobs) {
+      tOpen = performance.now();
+      const s = executor.open(plan, iso, jobs);
+      return {
+        size: s.size, fillRfMaps: (c, sig) => s.fillRfMaps(c, sig), close: () => s.close(),
+        async runChunks(c0, c1, onChunk, waitingFor, sig) {
+          const t = performance.now();
+          try { await s.runChunks(c0, c1, onChunk, waitingFor, sig); } finally { chunkMs += performance.now() - t; }
+        },
+      };
+    },
+  };
   try {
     input = {
       protocol: protocolInput(req.protocol), protocolName: req.protocol,
-      phantom: phantomInput(req.phantom), phantomName: req.phantom,
+      phantom: phantomInput(req.phantom, req.b0Linear), phantomName: req.phantom, readArray: arrayReader(req.phantom),
       sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
-      iso, executor: serialExecutor(), signal: ac.signal,
+      iso, executor: timed, signal: ac.signal,
       // the through-slice convergence probe is part of the refined result only
       convergenceCheck: req.quality === "full",
       onProgress: (p) => {
@@ -138,8 +201,10 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
       },
     };
     prep = prepareSimulation(input);
+    tPrep = performance.now();
     if (stop()) throw new Cancelled();
     run = await runSlices(prep, input);
+    tEngine = performance.now();
   } catch (e) {
     if (e instanceof Cancelled) throw e;
     if (e instanceof AbortedError || ac.signal.aborted) throw new Cancelled();
@@ -148,6 +213,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   const seqs = prep.slices.map((sl) => sl.seq);
   const r = reconstructRuns(seqs, run.kspaces);
   const tSim = performance.now();
+  const tRecon = tSim;
   const protocol = prep.protocol;
   const seq = seqs[Math.floor(seqs.length / 2)]!;
   const nRead = r.image.read, nPhase = r.image.phase;
@@ -181,7 +247,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     fatShift, check: null,
     warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
     isochromats: run.isoSummary.count,
-    engineMs: tSim - tStart, readout,
+    engineMs: tSim - tStart, readout, kernels: readoutKernelName(),
     timings: {},
     iso,
     kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
@@ -189,7 +255,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     slicesRun: seqs.length > 1 ? `${seqs.length} slices; the middle one is shown` : "one slice",
   };
   const tEnd = performance.now();
-  out.timings = { simulate: tSim - tStart, analysis: tEnd - tSim, total: tEnd - tStart };
+  out.timings = { prepare: tPrep - tStart, engine: tEngine - tPrep, engineSetup: Number.isNaN(tOpen) ? tEngine - tPrep : tOpen - tPrep, engineChunks: chunkMs, recon: tRecon - tEngine, pack: tEnd - tRecon, total: tEnd - tStart };
   void input;
   return out;
 }

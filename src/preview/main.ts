@@ -13,7 +13,7 @@ interface Config {
   presets: string[];
   phantoms: string[];
   start: { protocol: string; phantom: string };
-  given: { protocol?: { name: string; object: unknown }; phantom?: { name: string; object: unknown } };
+  given: { protocol?: { name: string; object: unknown }; phantom?: { name: string; object: unknown }; maps?: { name: string; url: string }[] };
 }
 interface Control { key: string; label: string; unit: string; kind: "number" | "select" | "check" | "bandwidth"; options?: string[]; step?: string;
   /** SI value of the effective protocol → the control's value in its unit. */ from: (p: Record<string, any>) => string; }
@@ -42,17 +42,41 @@ const CONTROLS: Control[] = [
 ];
 const BW_UNITS: [string, string][] = [["Hz/px", "per pixel"], ["kHz", "total"], ["±kHz", "half"], ["px", "fat shift"]];
 
-const state = { protocol: "", phantom: "", sets: new Map<string, string>(), fat: "multi" as "single" | "multi" };
+const state = { protocol: "", phantom: "", sets: new Map<string, string>(), fat: "multi" as "single" | "multi", b0: [0, 0, 0] as [number, number, number] };
+/** The refinement to default quality starts this long after an edit's preview is painted, unless a newer edit came first: a burst of edits is not refined in between, and the refinement does not take the cores the next preview needs. */
+const REFINE_DELAY_MS = 300;
+let refineTimer: ReturnType<typeof setTimeout> | null = null;
 let gen = 0;
 let shared: Int32Array | null = null;
 let last: RunOutput | null = null;
 const editStart = new Map<number, number>();
-const latencies: { gen: number; ms: number; matrix: number; worker: number; show: number }[] = [];
+const editRefining = new Map<number, boolean>();
+/** Per painted preview: edit → paint, and where the time went (ms): to the worker, in it by stage, back, drawing, the frame. */
+const latencies: { gen: number; ms: number; matrix: number; stages: Record<string, number> }[] = [];
 (window as any).__preview = { latencies, get last() { return last; }, get gen() { return gen; }, shown: 0 };
 
 // one worker answers edits at preview quality, a second refines the newest result to default quality on the other core
 const worker = new Worker("worker.js", { type: "module" });
-const refiner = new Worker("worker.js", { type: "module" });
+/**
+ * The refining worker. A newer edit that finds it at work ends it at once
+ * (terminate: its setup of a large isochromat set cannot be interrupted
+ * otherwise, and would hold a core the next preview needs); the next
+ * refinement starts a new one.
+ */
+let refiner: Worker | null = null;
+/** What every refining worker is told before its first request (init, chosen files, field maps), in order. */
+const refinerSetup: unknown[] = [];
+let onWorkerMessage: (ev: MessageEvent) => void = () => {};
+function makeRefiner(): Worker {
+  const w = new Worker("worker.js", { type: "module" });
+  w.onmessage = (ev) => onWorkerMessage(ev);
+  for (const m of refinerSetup) w.postMessage(m);
+  return w;
+}
+function toRefiner(m: unknown): void {
+  refinerSetup.push(m);
+  refiner?.postMessage(m);
+}
 let lastReq: Record<string, unknown> | null = null;
 /** Protocol objects of files (named on the command line or chosen in the page), for the protocol export. */
 const fileProtocols = new Map<string, unknown>();
@@ -62,6 +86,8 @@ function readUrl(cfg: Config): void {
   state.protocol = q.get("protocol") ?? cfg.start.protocol;
   state.phantom = q.get("phantom") ?? cfg.start.phantom;
   state.fat = q.get("fat") === "single" ? "single" : "multi";
+  const b = (q.get("b0") ?? "").split(",").map(Number);
+  state.b0 = [0, 1, 2].map((i) => (Number.isFinite(b[i]) ? b[i]! : 0)) as [number, number, number];
   state.sets.clear();
   for (const s of q.getAll("set")) {
     const i = s.indexOf("=");
@@ -73,6 +99,7 @@ function writeUrl(): void {
   q.set("protocol", state.protocol);
   q.set("phantom", state.phantom);
   if (state.fat !== "multi") q.set("fat", state.fat);
+  if (state.b0.some((v) => v !== 0)) q.set("b0", state.b0.join(","));
   for (const [k, v] of state.sets) q.append("set", `${k}=${v}`);
   history.replaceState(null, "", `?${q.toString().replace(/\+/g, "%20")}`);
 }
@@ -82,15 +109,26 @@ function inputName(name: string): string {
   return name.startsWith("file:") ? `file:${name.slice(5).replace(/[^A-Za-z0-9._-]/g, "_")}` : name;
 }
 
+/** Whether the refining worker is at work (from posting a request until its result, error or cancellation). */
+let refining = false;
+
 function run(t0: number): void {
   gen += 1;
+  editRefining.set(gen, refining);
+  if (refineTimer !== null) clearTimeout(refineTimer);
+  refineTimer = null;
   editStart.set(gen, t0);
   if (shared) Atomics.store(shared, 0, gen);
-  else for (const w of [worker, refiner]) w.postMessage({ t: "latest", gen });
+  else for (const w of [worker, refiner]) w?.postMessage({ t: "latest", gen });
+  if (refining) {
+    refiner?.terminate();
+    refiner = null;
+    refining = false;
+  }
   writeUrl();
   $("progress-wrap").hidden = true;
-  lastReq = { protocol: inputName(state.protocol), phantom: inputName(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview" };
-  worker.postMessage({ t: "run", gen, refine: false, req: lastReq });
+  lastReq = { protocol: inputName(state.protocol), phantom: inputName(state.phantom), sets: [...state.sets].map(([k, v]) => `${k}=${v}`), fatModel: state.fat, quality: "preview", b0Linear: state.b0 };
+  worker.postMessage({ t: "run", gen, req: lastReq });
 }
 
 function buildControls(): void {
@@ -171,9 +209,11 @@ function syncControls(bwOnly = false): void {
   }
 }
 
-function setText(el: HTMLElement, text: string, key?: string): void {
+/** Shows a number; `key` is its report.json key and `unit` the unit it is shown in (report.json holds SI: the page test converts). */
+function setText(el: HTMLElement, text: string, key?: string, unit?: string): void {
   el.textContent = text;
   if (key) el.dataset.key = key;
+  if (unit !== undefined) el.dataset.unit = unit;
 }
 
 function grey(canvas: HTMLCanvasElement, values: Float64Array, w: number, h: number, log: boolean): void {
@@ -274,22 +314,22 @@ function numbersTable(o: RunOutput): void {
     const tr = document.createElement("tr");
     tr.innerHTML = `<td></td><td></td><td></td>`;
     tr.children[0]!.textContent = label;
-    setText(tr.children[1] as HTMLElement, num(v, 4), key);
+    setText(tr.children[1] as HTMLElement, num(v, 4), key, unit);
     tr.children[2]!.textContent = unit;
     tb.append(tr);
   }
   const bw = $("bw-all");
   bw.innerHTML = "";
-  const parts: [string, string, string][] = [
-    [num(p.pixelBandwidth), "Hz/px", "protocol.pixelBandwidth"],
-    [num(d.totalBandwidth?.value / 1e3), "kHz total", "sequence.derived.totalBandwidth.value"],
-    [`±${num(d.halfBandwidth?.value / 1e3)}`, "kHz half", "sequence.derived.halfBandwidth.value"],
-    [num(Math.abs(fs.readout.px)), "px fat shift", "fatShift.predicted.readout.px"],
+  const parts: [string, string, string, string, string][] = [
+    ["", num(p.pixelBandwidth), "Hz/px", "", "protocol.pixelBandwidth"],
+    ["", num(d.totalBandwidth?.value / 1e3), "kHz", " total", "sequence.derived.totalBandwidth.value"],
+    ["±", num(d.halfBandwidth?.value / 1e3), "kHz", " half", "sequence.derived.halfBandwidth.value"],
+    ["", num(fs.readout.px), "px", " fat shift", "fatShift.predicted.readout.px"],
   ];
-  for (const [v, u, key] of parts) {
+  for (const [pre, v, u, what, key] of parts) {
     const s = document.createElement("span");
-    setText(s, v, key);
-    bw.append(s, ` ${u}; `);
+    setText(s, v, key, u);
+    bw.append(pre, s, ` ${u}${what}; `);
   }
 }
 
@@ -300,19 +340,30 @@ function checksTable(o: RunOutput): void {
   for (const it of o.check.items) {
     const tr = document.createElement("tr");
     tr.dataset.check = it.key;
-    tr.innerHTML = `<td></td><td></td><td></td><td></td>`;
+    tr.innerHTML = `<td></td><td></td><td></td><td></td><td></td>`;
     tr.children[0]!.textContent = it.label;
-    setText(tr.children[1] as HTMLElement, it.value === null ? "—" : `${num(it.value)} ${it.unit}`, `checks.${it.key}.value`);
-    const v = tr.children[2] as HTMLElement;
+    // keys of report.json's `checks` block (the CLI writes the same lines there)
+    setText(tr.children[1] as HTMLElement, it.value === null ? "—" : num(it.value, 4), `checks.${it.key}.value`, it.unit);
+    tr.children[2]!.textContent = it.unit;
+    const v = tr.children[3] as HTMLElement;
     setText(v, it.verdict, `checks.${it.key}.verdict`);
     v.className = `v-${it.verdict}`;
-    tr.children[3]!.textContent = it.reason;
+    tr.children[4]!.textContent = it.reason;
     tb.append(tr);
   }
 }
 
-function show(o: RunOutput, g: number): void {
+/** Wall-clock milliseconds comparable with the workers' stamps. */
+const wall = (): number => performance.timeOrigin + performance.now();
+
+/**
+ * Shows a result: the image with its overlays first (that paint is what the
+ * latency measures), then — after the frame — k-space, profile, numbers,
+ * warnings and the controls' values.
+ */
+function show(o: RunOutput, g: number, stamps: { received: number; started: number; posted: number } | null, executor: string): void {
   const tShow = performance.now();
+  const arrived = wall();
   // the refined result of an edit keeps the check that came with its preview
   if (o.quality === "full" && last && !o.check) o.check = last.check;
   last = o;
@@ -321,20 +372,52 @@ function show(o: RunOutput, g: number): void {
   const plane = toDisplay(o.display, o.image, o.nRead, o.nPhase);
   shownImage = plane;
   grey($("image") as HTMLCanvasElement, plane.values, plane.width, plane.height, false);
+  for (const side of ["top", "bottom", "left", "right"] as const) $(`l-${side}`).textContent = o.display.letters[side];
+  drawOverlays();
+  const drawMs = performance.now() - tShow;
+  (window as any).__preview.shown = g;
+  (window as any).__preview.quality = o.quality;
+  (window as any).__preview.executor = executor;
+  const t0 = editStart.get(g);
+  // after the frame that paints the new image: measure, then draw the other views
+  requestAnimationFrame(() => setTimeout(() => {
+    if (g !== gen && o.quality === "preview") return;
+    if (o.quality === "preview" && t0 !== undefined) {
+      const ms = performance.now() - t0;
+      performance.measure(`edit-to-paint-${g}`, { start: t0, end: t0 + ms });
+      const t0Wall = performance.timeOrigin + t0;
+      const stages: Record<string, number> = { ...o.timings, draw: drawMs };
+      if (stamps) {
+        stages["toWorker"] = stamps.received - t0Wall;
+        stages["queued"] = stamps.started - stamps.received;
+        stages["back"] = arrived - stamps.posted;
+      }
+      stages["frame"] = ms - (arrived - t0Wall) - drawMs;
+      stages["refining"] = editRefining.get(g) ? 1 : 0;
+      latencies.push({ gen: g, ms, matrix: o.nRead * o.nPhase, stages });
+      const s = [...latencies.slice(-50)].map((l) => l.ms).sort((a, b) => a - b);
+      setText($("latency"), `edit → painted image: ${ms.toFixed(0)} ms (median of last ${s.length}: ${s[Math.floor(s.length / 2)]!.toFixed(0)} ms)`);
+      (window as any).__preview.painted = g;
+    }
+    showRest(o, g, executor);
+  }, 0));
+}
+
+/** The views after the image: k-space, profile, numbers, check lines, warnings, controls. */
+function showRest(o: RunOutput, g: number, executor: string): void {
+  if (last !== o) return;
   const k = toDisplay(o.display, o.kmag, o.kRead, o.kPhase);
   grey($("kspace") as HTMLCanvasElement, k.values, k.width, k.height, true);
-  for (const side of ["top", "bottom", "left", "right"] as const) $(`l-${side}`).textContent = o.display.letters[side];
   $("orient").textContent = `${o.display.orientation}; rows ${o.display.rows}, columns ${o.display.cols}`;
   const slider = $("c-row") as HTMLInputElement;
-  if (Number(slider.max) !== plane.height - 1) {
-    slider.max = String(plane.height - 1);
-    slider.value = String(Math.floor(plane.height / 2));
+  if (shownImage && Number(slider.max) !== shownImage.height - 1) {
+    slider.max = String(shownImage.height - 1);
+    slider.value = String(Math.floor(shownImage.height / 2));
   }
-  drawOverlays();
   drawProfile();
   numbersTable(o);
   if (o.check) checksTable(o);
-  else $("checks").querySelector("tbody")!.innerHTML = `<tr><td colspan="4">checking…</td></tr>`;
+  else $("checks").querySelector("tbody")!.innerHTML = `<tr><td colspan="5">checking…</td></tr>`;
   const w = $("warnings");
   w.innerHTML = "";
   for (const s of [...o.warnings, `simulated: ${o.slicesRun}`]) {
@@ -344,23 +427,8 @@ function show(o: RunOutput, g: number): void {
   }
   syncControls();
   $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread)" : "default quality";
-  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
-  (window as any).__preview.shown = g;
-  (window as any).__preview.quality = o.quality;
-  const showMs = performance.now() - tShow;
-  if (o.quality === "preview") {
-    const t0 = editStart.get(g);
-    // after the frame that paints the new image
-    requestAnimationFrame(() => setTimeout(() => {
-      if (t0 === undefined) return;
-      const ms = performance.now() - t0;
-      performance.measure(`edit-to-paint-${g}`, { start: t0, end: t0 + ms });
-      latencies.push({ gen: g, ms, matrix: o.nRead * o.nPhase, worker: o.timings.total ?? NaN, show: showMs });
-      const s = [...latencies.slice(-50)].map((l) => l.ms).sort((a, b) => a - b);
-      setText($("latency"), `edit → painted image: ${ms.toFixed(0)} ms (median of last ${s.length}: ${s[Math.floor(s.length / 2)]!.toFixed(0)} ms)`);
-      (window as any).__preview.painted = g;
-    }, 0));
-  } else {
+  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, kernels ${o.kernels}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
+  if (o.quality === "full") {
     $("progress-wrap").hidden = true;
     (window as any).__preview.refined = g;
   }
@@ -402,13 +470,36 @@ async function main(): Promise<void> {
     sab = new SharedArrayBuffer(4);
     shared = new Int32Array(sab);
   }
-  refiner.postMessage({ t: "init", presets, phantoms, gen: sab });
-  worker.postMessage({ t: "init", presets, phantoms, gen: sab });
+  // field maps of bundled phantoms: fetched from the server's phantoms folder (paths relative to it)
+  await Promise.all(Object.values(phantoms).map(async (text) => {
+    const file = (() => { try { return JSON.parse(text)?.b0?.fieldMap?.file; } catch { return undefined; } })();
+    if (typeof file !== "string") return;
+    const r = await fetch(`phantoms/${file.split("/").map(encodeURIComponent).join("/")}`);
+    if (!r.ok) return; // the phantom's validator then says the map is not bundled
+    const bytes = new Uint8Array(await r.arrayBuffer());
+    const m = { t: "array", name: file.replace(/^\.\//, ""), bytes, bundled: true };
+    worker.postMessage(m);
+    toRefiner(m);
+  }));
   const addInput = (name: string, text: string) => {
-    for (const w of [worker, refiner]) w.postMessage({ t: "input", name: name.replace(/[^A-Za-z0-9._-]/g, "_"), text });
+    const m = { t: "input", name: name.replace(/[^A-Za-z0-9._-]/g, "_"), text };
+    worker.postMessage(m);
+    toRefiner(m);
   };
   if (cfg.given.protocol) addInput(cfg.given.protocol.name.slice(5), JSON.stringify(cfg.given.protocol.object));
   if (cfg.given.phantom) addInput(cfg.given.phantom.name.slice(5), JSON.stringify(cfg.given.phantom.object));
+  // the field map of the phantom named on the command line, as its b0.fieldMap.file names it
+  for (const mp of cfg.given.maps ?? []) {
+    const m = { t: "array", name: mp.name, bytes: new Uint8Array(await (await fetch(mp.url)).arrayBuffer()), bundled: false };
+    worker.postMessage(m);
+    toRefiner(m);
+  }
+  // init last: the worker's "ready" starts the first run, and no await lies between here and the message handlers being set
+  // engine workers: an edit at preview quality is one chunk up to about 180² (two at 256²), run on as many engine workers as
+  // there are cores (up to 4); the refinement (a worker made when it starts) on all but one
+  const hc = navigator.hardwareConcurrency || 2;
+  toRefiner({ t: "init", presets, phantoms, gen: sab, engineWorkers: Math.max(1, Math.min(4, hc - 1)) });
+  worker.postMessage({ t: "init", presets, phantoms, gen: sab, engineWorkers: Math.max(1, Math.min(4, hc)) });
   readUrl(cfg);
   $("controls").addEventListener("submit", (e) => e.preventDefault());
   const pSel = $("c-protocol") as HTMLSelectElement, phSel = $("c-phantom") as HTMLSelectElement;
@@ -425,9 +516,30 @@ async function main(): Promise<void> {
   $("settings").append(fatRow);
   ($("c-fat") as HTMLSelectElement).value = state.fat;
   $("c-fat").addEventListener("change", (ev) => { state.fat = ($("c-fat") as HTMLSelectElement).value as "single" | "multi"; run(ev.timeStamp); });
+  // a linear B0 term added to the phantom's B0 model (through its b0 expression: engine.ts withLinearB0)
+  for (const [i, axis] of (["x", "y", "z"] as const).entries()) {
+    const row = document.createElement("div");
+    row.className = "row";
+    row.innerHTML = `<label for="c-b0-${axis}">B0 linear term along ${axis}</label><input id="c-b0-${axis}" type="number" step="1"><span class="unit">Hz/cm</span><div class="error" id="e-b0-${axis}" role="alert"></div>`;
+    $("settings").append(row);
+    const input = $(`c-b0-${axis}`) as HTMLInputElement;
+    input.value = String(state.b0[i]);
+    input.addEventListener("change", (ev) => {
+      const v = Number(input.value);
+      if (input.value.trim() === "" || !Number.isFinite(v)) { $(`e-b0-${axis}`).textContent = "a number in Hz/cm, e.g. 10"; return; }
+      $(`e-b0-${axis}`).textContent = "";
+      state.b0[i] = v;
+      run(ev.timeStamp);
+    });
+  }
   pSel.addEventListener("change", (ev) => { state.protocol = pSel.value; state.sets.clear(); run(ev.timeStamp); });
   phSel.addEventListener("change", (ev) => { state.phantom = phSel.value; run(ev.timeStamp); });
-  $("reset").addEventListener("click", (ev) => { state.sets.clear(); run(ev.timeStamp); });
+  $("reset").addEventListener("click", (ev) => {
+    state.sets.clear();
+    state.b0 = [0, 0, 0];
+    for (const a of ["x", "y", "z"]) ($(`c-b0-${a}`) as HTMLInputElement).value = "0";
+    run(ev.timeStamp);
+  });
   for (const id of ["o-fov", "o-fold", "o-fat", "o-roi"]) $(id).addEventListener("change", drawOverlays);
   $("c-row").addEventListener("input", drawProfile);
   const takeFile = async (f: File, t0: number) => {
@@ -444,14 +556,27 @@ async function main(): Promise<void> {
     else { state.protocol = name; state.sets.clear(); fileProtocols.set(name, obj); }
     run(t0);
   };
-  $("c-file").addEventListener("change", (ev) => { const f = ($("c-file") as HTMLInputElement).files?.[0]; if (f) void takeFile(f, ev.timeStamp); });
+  // several files at once: .npy field maps first (under their own names, as a phantom's b0.fieldMap.file names them), then the JSON
+  const takeFiles = async (list: FileList | null | undefined, t0: number) => {
+    const files = [...(list ?? [])];
+    for (const f of files.filter((x) => x.name.toLowerCase().endsWith(".npy"))) {
+      const bytes = new Uint8Array(await f.arrayBuffer());
+      const m = { t: "array", name: f.name, bytes, bundled: false };
+      worker.postMessage(m);
+      toRefiner(m);
+    }
+    const json = files.find((x) => !x.name.toLowerCase().endsWith(".npy"));
+    if (json) await takeFile(json, t0);
+    else if (files.length) run(t0);
+  };
+  $("c-file").addEventListener("change", (ev) => void takeFiles(($("c-file") as HTMLInputElement).files, ev.timeStamp));
   const drop = $("drop");
   drop.addEventListener("keydown", (e) => { if (e.key === "Enter" || e.key === " ") { e.preventDefault(); $("c-file").click(); } });
   drop.addEventListener("dragover", (e) => { e.preventDefault(); drop.classList.add("over"); });
   drop.addEventListener("dragleave", () => drop.classList.remove("over"));
-  drop.addEventListener("drop", (e) => { e.preventDefault(); drop.classList.remove("over"); const f = e.dataTransfer?.files[0]; if (f) void takeFile(f, e.timeStamp); });
+  drop.addEventListener("drop", (e) => { e.preventDefault(); drop.classList.remove("over"); void takeFiles(e.dataTransfer?.files, e.timeStamp); });
   document.addEventListener("dragover", (e) => e.preventDefault());
-  document.addEventListener("drop", (e) => { if (e.target !== drop) { e.preventDefault(); const f = e.dataTransfer?.files[0]; if (f) void takeFile(f, e.timeStamp); } });
+  document.addEventListener("drop", (e) => { if (e.target !== drop) { e.preventDefault(); void takeFiles(e.dataTransfer?.files, e.timeStamp); } });
 
   $("x-protocol").addEventListener("click", () => {
     const base = state.protocol.startsWith("file:") ? null : state.protocol;
@@ -481,14 +606,23 @@ async function main(): Promise<void> {
       if (ev.target === worker) run(performance.now());
       return;
     }
+    if (ev.target === refiner && (m.t === "result" || m.t === "error" || m.t === "cancelled")) refining = false;
     if (m.gen !== gen) return;
     if (m.t === "result") {
-      show(m.out as RunOutput, m.gen);
+      show(m.out as RunOutput, m.gen, m.stamps ?? null, m.executor ?? "");
       if (ev.target === worker && lastReq) {
-        refiner.postMessage({ t: "run", gen: m.gen, refine: false, req: { ...lastReq, quality: "full" } });
-        // indeterminate until the refining worker reports chunks (the fast readout reports none until it is done)
-        $("progress-wrap").hidden = false;
-        $("progress").removeAttribute("value");
+        const req = { ...lastReq, quality: "full" }, g = m.gen as number;
+        if (refineTimer !== null) clearTimeout(refineTimer);
+        refineTimer = setTimeout(() => {
+          refineTimer = null;
+          if (g !== gen) return;
+          refiner ??= makeRefiner();
+          refiner.postMessage({ t: "run", gen: g, req });
+          refining = true;
+          // indeterminate until the refining worker reports chunks (the fast readout reports none until it is done)
+          $("progress-wrap").hidden = false;
+          $("progress").removeAttribute("value");
+        }, REFINE_DELAY_MS);
       }
     }
     else if (m.t === "check" && last && m.check) {
@@ -504,7 +638,7 @@ async function main(): Promise<void> {
     }
   };
   worker.onmessage = onMessage;
-  refiner.onmessage = onMessage;
+  onWorkerMessage = onMessage;
 }
 
 void main();
