@@ -13,6 +13,7 @@
  * With a B0 model the per-position Δf makes the classes as many as the
  * isochromats; that case is left to the stored path (the caller says so).
  */
+import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
 import { estimateOver, pivotedBasis, project, type ColumnVisitor, type History } from "./fast.js";
@@ -180,7 +181,7 @@ export class CellStream {
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
     tol = 0,
-  ): void {
+  ): ColumnFolder {
     const coils = plan.coils;
     if (plan.sens || (coils !== 1 && !this.sens) || (this.sens && this.sens.coils !== coils)) throw new Error("CellStream.fold: sensitivities must come from the stream");
     const { cells, T, D2, zStart, zClass, zF } = this;
@@ -249,7 +250,8 @@ export class CellStream {
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
     const tmp = new Float64Array(2 * WL);
-    for (let col = 0; col < cells.columns; col++) {
+    return (c0, c1, aBase) => {
+    for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
       const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
@@ -262,7 +264,7 @@ export class CellStream {
       const a = cells.colA[col]!, b = cells.colB[col]!;
       const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
-      const p = 2 * ((a % Mu) * Mv + (b % Mv));
+      const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
       const u = uGrid[a]!;
       if (hasSens) this.sensOf(col, S);
       if (uniform) {
@@ -356,6 +358,7 @@ export class CellStream {
         }
       }
     }
+    };
   }
 
   /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */

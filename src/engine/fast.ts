@@ -94,6 +94,8 @@ const MAX_RANK = 24;
 const MAX_SEGMENTS = 48;
 /** Bytes of folded grids held at once (ranks per pass over the isochromats follow from it). */
 const GRID_BYTES = 512 * 2 ** 20;
+/** Folded grids per block of read columns: about this many bytes (a few read columns stay in cache while transformed). */
+const BLOCK_BYTES = 2 * 2 ** 20;
 /** Samples of the a-posteriori estimate and its seed. */
 export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
@@ -406,9 +408,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const tolLine = tolerance / split, tolTime = tolerance / split;
   const Pl = new Float64Array(2 * NA * C);
   const y = new Float64Array(2 * NA * C);
-  for (let c = 0; c < C; c++) {
-    for (let k = 0; k < NA; k++) {
-      const n = act[k]!.n, o = 2 * (n * C + c), t = 2 * (c * NA + k);
+  // line outer: P is [line][class], read along its rows
+  for (let k = 0; k < NA; k++) {
+    const n = act[k]!.n;
+    for (let c = 0; c < C; c++) {
+      const o = 2 * (n * C + c), t = 2 * (c * NA + k);
       Pl[t] = P[o]!;
       Pl[t + 1] = P[o + 1]!;
       y[t] = P[o]! * mass[c]!;
@@ -490,21 +494,6 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
       AL[2 * (k * R + r) + 1] = ar * ci + ai * cr;
     }
   }
-  // --- per pass of ranks: fold into the grids, transform, accumulate
-  // Folded grids interleaved per position (the fold writes every (rank, coil,
-  // segment) of a position at once): XB[2·((a·Mv + b)·NX + x)], x = ((r − r0)·coils + q)·L + l.
-  const grid = Mu * Mv;
-  // ranks folded per pass over the isochromats: as many as GRID_BYTES of grids allow
-  const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
-  const NX = perPass * coils * L;
-  const XB = new Float64Array(2 * grid * NX);
-  const colUsed = new Uint8Array(Mu);
-  if (src.kind === "iso") {
-    const iso = src.iso;
-    for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
-  } else {
-    for (const a of src.stream.cells.colA) colUsed[a % Mu] = 1;
-  }
   const fRead = a0.op.readHzPerMetre, bw = a0.op.sampledBandwidth;
   const dftU = new FFTPlan(Mu), dftV = new FFTPlan(Mv);
   const colIdx = new Int32Array(ns);
@@ -532,18 +521,29 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   };
   const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
   /** Phase-axis DFT of every used read column of the listed grids (read column outer, so its block stays in cache); the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]. */
-  const transform = (list: { x: number; r: number; q: number; l: number }[]) => {
-    if (list.length === 0) return;
+  let gather = new Float64Array(0);
+  const transform = (list: { x: number; r: number; q: number; l: number }[], a0: number, a1: number) => {
+    const nl = list.length;
+    if (nl === 0) return;
     const inp = dftV.input, out = dftV.output;
-    for (let a = 0; a < Mu; a++) {
+    // the read column's grids gathered once, row by row, into contiguous lines
+    const xs = Int32Array.from(list, (e) => e.x);
+    if (gather.length < 2 * nl * Mv) gather = new Float64Array(2 * nl * Mv);
+    const g = gather;
+    for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
-      const base = 2 * a * Mv * NX;
-      for (const e of list) {
-        for (let b = 0; b < Mv; b++) {
-          const o = base + 2 * (b * NX + e.x);
-          inp[2 * b] = XB[o]!;
-          inp[2 * b + 1] = XB[o + 1]!;
+      const base = 2 * (a - a0) * Mv * NX;
+      for (let b = 0; b < Mv; b++) {
+        const row = base + 2 * b * NX;
+        for (let i = 0; i < nl; i++) {
+          const o = row + 2 * xs[i]!, d = 2 * (i * Mv + b);
+          g[d] = XB[o]!;
+          g[d + 1] = XB[o + 1]!;
         }
+      }
+      for (let i = 0; i < nl; i++) {
+        const e = list[i]!;
+        inp.set(g.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
         dftV.execute(-1);
         const z = Z[e.q * L + e.l]!;
         for (let k = 0; k < NA; k++) {
@@ -555,60 +555,112 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
       }
     }
   };
+  // --- fold and transform per block of folded read columns (streamed: only a
+  // block's grids exist at a time, and they stay in cache while transformed).
+  // Grids interleaved per position (the fold writes every (rank, coil,
+  // segment) of a position at once): XB[2·(((a − a0)·Mv + b)·NX + x)], x = (r·coils + q)·L + l.
+  // Within a block, columns are folded in column order, so every position's
+  // sum is added in the same order whatever the blocks.
+  const grid = Mu * Mv;
+  const NX = R * coils * L;
+  const colBytes = 16 * Mv * NX;
+  const blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / colBytes)));
+  if (colBytes * blockCols > GRID_BYTES) return `the folded grid ${Mv}×${Mu} × ${coils} coils × ${R} ranks × ${L} segments is too large for the fast operator`;
+  const XB = new Float64Array(2 * blockCols * Mv * NX);
+  const colUsed = new Uint8Array(Mu);
+  // the read index of a column (non-decreasing in column order)
+  const nCols = src.kind === "iso" ? src.iso.columns : src.stream.cells.columns;
+  const colAOf = src.kind === "iso"
+    ? ((iso) => (col: number) => iso.iu[iso.colStart[col]!]!)(src.iso)
+    : ((cells) => (col: number) => cells.colA[col]!)(src.stream.cells);
+  if (src.kind === "iso") {
+    const iso = src.iso;
+    for (let col = 0; col < iso.columns; col++) if (iso.colStart[col + 1]! > iso.colStart[col]!) colUsed[iso.iu[iso.colStart[col]!]! % Mu] = 1;
+  } else {
+    for (const a of src.stream.cells.colA) colUsed[a % Mu] = 1;
+  }
+  /** First column whose read index is ≥ a. */
+  const firstCol = (a: number) => {
+    let lo = 0, hi = nCols;
+    while (lo < hi) {
+      const mid = (lo + hi) >> 1;
+      if (colAOf(mid) < a) lo = mid + 1;
+      else hi = mid;
+    }
+    return lo;
+  };
+  const aMax = nCols > 0 ? colAOf(nCols - 1) : -1;
+  const blocks: { a0: number; a1: number; ranges: [number, number][] }[] = [];
+  for (let a0 = 0; a0 < Mu; a0 += blockCols) {
+    const a1 = Math.min(Mu, a0 + blockCols);
+    const ranges: [number, number][] = [];
+    for (let w = 0; w * Mu + a0 <= aMax; w++) {
+      const c0 = firstCol(w * Mu + a0), c1 = firstCol(w * Mu + a1);
+      if (c1 > c0) ranges.push([c0, c1]);
+    }
+    let used = false;
+    for (let a = a0; a < a1; a++) used ||= colUsed[a] === 1;
+    if (used && ranges.length > 0) blocks.push({ a0, a1, ranges });
+  }
+  const folder = src.kind === "iso"
+    ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
+    : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split);
+  const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }) => {
+    XB.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
+    for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0);
+  };
+  // Pass 1: fold every block, the grids' norms, transform rank 0 (it sets the
+  // budget of the pairs skipped). Pass 2: fold again, transform the other kept pairs.
   // Pairs (rank r, segment l) are transformed unless their contribution's bound
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/split of the norm of the rank-0 k-space; skipped pairs are counted.
-  let budget = -1, kept = 0, skipped = 0, skippedBound = 0;
-  for (let r0 = 0; r0 < R; r0 += perPass) {
-    const r1 = Math.min(R, r0 + perPass);
-    if (r0 > 0) for (let a = 0; a < Mu; a++) if (colUsed[a]) XB.fill(0, 2 * a * Mv * NX, 2 * (a + 1) * Mv * NX);
-    if (src.kind === "iso") foldPass(src.iso, plan, G, R, r0, r1, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX);
-    else src.stream.fold(plan, G, R, r0, r1, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split);
-    let rs = r0;
-    if (r0 === 0) {
-      // rank 0 always; the norm of its k-space sets the budget of the skipped pairs
-      const list: { x: number; r: number; q: number; l: number }[] = [];
-      for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list.push({ x: q * L + l, r: 0, q, l });
-      transform(list);
-      kept += list.length;
-      let n2 = 0;
-      for (let q = 0; q < coils; q++) {
-        for (let k = 0; k < NA; k++) {
-          acc.fill(0);
-          for (let l = 0; l < L; l++) readLine(q, l, k);
-          for (let j = 0; j < 2 * ns; j++) n2 += acc[j]! * acc[j]!;
-        }
-      }
-      budget = ((tolerance / split) * Math.sqrt(n2)) / Math.max(1, (R - 1) * L * coils);
-      rs = 1;
-    }
-    if (rs >= r1) continue;
-    // norms of the pass's grids, one sweep
-    const n2 = new Float64Array(NX);
-    for (let a = 0; a < Mu; a++) {
+  let kept = 0, skipped = 0, skippedBound = 0;
+  const n2 = new Float64Array(NX);
+  const list0: { x: number; r: number; q: number; l: number }[] = [];
+  for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
+  for (const blk of blocks) {
+    foldBlock(blk);
+    for (let a = blk.a0; a < blk.a1; a++) {
       if (!colUsed[a]) continue;
-      for (let o = 2 * a * Mv * NX; o < 2 * (a + 1) * Mv * NX; o += 2 * NX) {
+      const ob = 2 * (a - blk.a0) * Mv * NX;
+      for (let o = ob; o < ob + 2 * Mv * NX; o += 2 * NX) {
         for (let x = 0; x < NX; x++) n2[x] = n2[x]! + XB[o + 2 * x]! ** 2 + XB[o + 2 * x + 1]! ** 2;
       }
     }
-    const list: { x: number; r: number; q: number; l: number }[] = [];
-    for (let r = rs; r < r1; r++) {
-      for (let q = 0; q < coils; q++) {
-        for (let l = 0; l < L; l++) {
-          const x = ((r - r0) * coils + q) * L + l;
-          const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2[x]!);
-          if (bound <= budget) {
-            skipped++;
-            skippedBound += bound;
-            continue;
-          }
-          list.push({ x, r, q, l });
+    transform(list0, blk.a0, blk.a1);
+  }
+  kept += list0.length;
+  let n2k = 0;
+  for (let q = 0; q < coils; q++) {
+    for (let k = 0; k < NA; k++) {
+      acc.fill(0);
+      for (let l = 0; l < L; l++) readLine(q, l, k);
+      for (let j = 0; j < 2 * ns; j++) n2k += acc[j]! * acc[j]!;
+    }
+  }
+  const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
+  const list: { x: number; r: number; q: number; l: number }[] = [];
+  for (let r = 1; r < R; r++) {
+    for (let q = 0; q < coils; q++) {
+      for (let l = 0; l < L; l++) {
+        const x = (r * coils + q) * L + l;
+        const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2[x]!);
+        if (bound <= budget) {
+          skipped++;
+          skippedBound += bound;
+          continue;
         }
+        list.push({ x, r, q, l });
       }
     }
-    transform(list);
-    kept += list.length;
   }
+  if (list.length > 0) {
+    for (const blk of blocks) {
+      foldBlock(blk);
+      transform(list, blk.a0, blk.a1);
+    }
+  }
+  kept += list.length;
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
     for (let k = 0; k < NA; k++) {
@@ -642,13 +694,14 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
 function foldPass(
   iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
   preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
-): void {
+): ColumnFolder {
   const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
   const { iu, iv, m0, colStart, uGrid } = iso;
   const W = r1 - r0, CW = coils * W;
   const accR = new Float64Array(K * CW), accI = new Float64Array(K * CW);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
-  for (let col = 0; col < iso.columns; col++) {
+  return (c0, c1, aBase) => {
+  for (let col = c0; col < c1; col++) {
     const i0 = colStart[col]!, i1 = colStart[col + 1]!;
     if (i1 <= i0) continue;
     let nt = 0;
@@ -679,7 +732,7 @@ function foldPass(
     const a = iu[i0]!, b = iv[i0]!;
     const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
     const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
-    const p = 2 * ((a % Mu) * Mv + (b % Mv));
+    const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
     const u = uGrid[a]!;
     for (let t = 0; t < nt; t++) {
       const k = touched[t]!;
@@ -704,7 +757,14 @@ function foldPass(
       }
     }
   }
+  };
 }
+
+/**
+ * Folds columns c0 … c1−1 (whole columns, in column order) into a block of
+ * folded read columns starting at aBase: grid position ((a mod Mu) − aBase, b mod Mv).
+ */
+export type ColumnFolder = (c0: number, c1: number, aBase: number) => void;
 
 /** A small seeded generator (mulberry32, common practice) for the sample subset. */
 export function mulberry32(seed: number): () => number {
