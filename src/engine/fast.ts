@@ -408,17 +408,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const tolLine = tolerance / split, tolTime = tolerance / split;
   const Pl = new Float64Array(2 * NA * C);
   const y = new Float64Array(2 * NA * C);
-  // line outer: P is [line][class], read along its rows
-  for (let k = 0; k < NA; k++) {
-    const n = act[k]!.n;
-    for (let c = 0; c < C; c++) {
-      const o = 2 * (n * C + c), t = 2 * (c * NA + k);
-      Pl[t] = P[o]!;
-      Pl[t + 1] = P[o + 1]!;
-      y[t] = P[o]! * mass[c]!;
-      y[t + 1] = P[o + 1]! * mass[c]!;
-    }
-  }
+  lineValues(P, act.map((a) => a.n), C, mass, Pl, y);
   const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK);
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
   const G = project(A, Pl, NA, C); // G[c·R + r]
@@ -499,12 +489,16 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
-  // Z[q·L + l][n][a]: phase-transformed lines summed over the ranks; acc[j]: Σ_l B_l(j)·F_l(n, j) of one line
+  // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks; acc[j]: Σ_l B_l(j)·F_l(n, j) of one line
   const Z: Float64Array[] = [];
   for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
   const acc = new Float64Array(2 * ns);
   const readLine = (q: number, l: number, k: number) => {
-    dftU.input.set(Z[q * L + l]!.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
+    const z = Z[q * L + l]!, inp = dftU.input;
+    for (let a = 0; a < Mu; a++) {
+      inp[2 * a] = z[2 * (a * NA + k)]!;
+      inp[2 * a + 1] = z[2 * (a * NA + k) + 1]!;
+    }
     dftU.execute(-1);
     const out = dftU.output;
     for (let j = 0; j < ns; j++) {
@@ -520,7 +514,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     return m;
   };
   const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
-  /** Phase-axis DFT of every used read column of the listed grids (read column outer, so its block stays in cache); the sampled lines, times c_n·A_r(n), into Z[q][l][n][a]. */
+  /** Phase-axis DFT of every used read column of the listed grids (read column outer, so its block stays in cache); the sampled lines, times c_n·A_r(n), into Z[q][l][a][n] (lines contiguous per read column). */
   let gather = new Float64Array(0);
   const transform = (list: { x: number; r: number; q: number; l: number }[], a0: number, a1: number) => {
     const nl = list.length;
@@ -548,7 +542,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         const z = Z[e.q * L + e.l]!;
         for (let k = 0; k < NA; k++) {
           const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
-          const cr = AL[2 * (k * R + e.r)]!, ci = AL[2 * (k * R + e.r) + 1]!, o = 2 * (k * Mu + a);
+          const cr = AL[2 * (k * R + e.r)]!, ci = AL[2 * (k * R + e.r) + 1]!, o = 2 * (a * NA + k);
           z[o] = z[o]! + (fr * cr - fi * ci);
           z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
         }
@@ -620,13 +614,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
   for (const blk of blocks) {
     foldBlock(blk);
-    for (let a = blk.a0; a < blk.a1; a++) {
-      if (!colUsed[a]) continue;
-      const ob = 2 * (a - blk.a0) * Mv * NX;
-      for (let o = ob; o < ob + 2 * Mv * NX; o += 2 * NX) {
-        for (let x = 0; x < NX; x++) n2[x] = n2[x]! + XB[o + 2 * x]! ** 2 + XB[o + 2 * x + 1]! ** 2;
-      }
-    }
+    addNorms(XB, blk.a0, blk.a1, colUsed, Mv, NX, n2);
     transform(list0, blk.a0, blk.a1);
   }
   kept += list0.length;
@@ -635,7 +623,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     for (let k = 0; k < NA; k++) {
       acc.fill(0);
       for (let l = 0; l < L; l++) readLine(q, l, k);
-      for (let j = 0; j < 2 * ns; j++) n2k += acc[j]! * acc[j]!;
+      n2k += sumSquares(acc);
     }
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -758,6 +746,45 @@ function foldPass(
     }
   }
   };
+}
+
+// Hot loops of fastReadoutFrom live in small functions: V8 does not optimise
+// a function that large, so a loop left in its body runs unoptimised.
+
+/** n2[x] += Σ |XB|² over the used read columns a0 … a1−1 of a block (grids interleaved per position). */
+function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array, Mv: number, NX: number, n2: Float64Array): void {
+  for (let a = a0; a < a1; a++) {
+    if (!colUsed[a]) continue;
+    const ob = 2 * (a - a0) * Mv * NX;
+    for (let o = ob; o < ob + 2 * Mv * NX; o += 2 * NX) {
+      for (let x = 0; x < NX; x++) {
+        const xr = XB[o + 2 * x]!, xi = XB[o + 2 * x + 1]!;
+        n2[x] = n2[x]! + xr * xr + xi * xi;
+      }
+    }
+  }
+}
+
+/** Σ v[j]² in index order. */
+function sumSquares(v: Float64Array): number {
+  let s = 0;
+  for (let j = 0; j < v.length; j++) s += v[j]! * v[j]!;
+  return s;
+}
+
+/** Pl[c·NA + k] = P[line_k·C + c] and y = Pl·mass[c] (interleaved complex), line outer: P is read along its rows. */
+function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Array, Pl: Float64Array, y: Float64Array): void {
+  const NA = lines.length;
+  for (let k = 0; k < NA; k++) {
+    const n = lines[k]!;
+    for (let c = 0; c < C; c++) {
+      const o = 2 * (n * C + c), t = 2 * (c * NA + k);
+      Pl[t] = P[o]!;
+      Pl[t + 1] = P[o + 1]!;
+      y[t] = P[o]! * mass[c]!;
+      y[t + 1] = P[o + 1]! * mass[c]!;
+    }
+  }
 }
 
 /**
