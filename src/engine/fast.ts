@@ -414,37 +414,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const G = project(A, Pl, NA, C); // G[c·R + r]
   const R = A.length;
   // --- time factor over distinct (R2, Δf)
-  const { classDf, classR2 } = plan.rf;
-  const keyIndex = new Map<string, number>();
-  const keyOf = new Int32Array(C);
-  const keyDf: number[] = [], keyR2: number[] = [], keyW: number[] = [];
-  for (let c = 0; c < C; c++) {
-    const s = `${classDf[c]}|${classR2[c]}`;
-    let k = keyIndex.get(s);
-    if (k === undefined) {
-      k = keyDf.length;
-      keyIndex.set(s, k);
-      keyDf.push(classDf[c]!);
-      keyR2.push(classR2[c]!);
-      keyW.push(0);
-    }
-    keyOf[c] = k;
-    let p2 = 0;
-    for (let r = 0; r < R; r++) p2 += G[2 * (c * R + r)]! ** 2 + G[2 * (c * R + r) + 1]! ** 2;
-    keyW[k] = keyW[k]! + mass[c]! * Math.sqrt(p2);
-  }
-  const K = keyDf.length;
-  const E = new Float64Array(2 * ns * K), ey = new Float64Array(2 * ns * K);
-  for (let k = 0; k < K; k++) {
-    for (let j = 0; j < ns; j++) {
-      const t = j * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
-      const o = 2 * (k * ns + j);
-      E[o] = e * Math.cos(th);
-      E[o + 1] = e * Math.sin(th);
-      ey[o] = E[o]! * keyW[k]!;
-      ey[o + 1] = E[o + 1]! * keyW[k]!;
-    }
-  }
+  const { keyOf, keyDf, keyR2, K, E, ey } = timeKeys(plan, G, R, mass, ns, dwell);
   const B = pivotedBasis(ey, ns, K, tolTime, MAX_SEGMENTS);
   if (!B) return `the (R2, Δf) spread needs more than ${MAX_SEGMENTS} time segments at tolerance ${tolerance}: not covered by the fast operator`;
   const L = B.length;
@@ -489,25 +459,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
-  // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks; acc[j]: Σ_l B_l(j)·F_l(n, j) of one line
+  // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line)
   const Z: Float64Array[] = [];
   for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
-  const acc = new Float64Array(2 * ns);
-  const readLine = (q: number, l: number, k: number) => {
-    const z = Z[q * L + l]!, inp = dftU.input;
-    for (let a = 0; a < Mu; a++) {
-      inp[2 * a] = z[2 * (a * NA + k)]!;
-      inp[2 * a + 1] = z[2 * (a * NA + k) + 1]!;
-    }
-    dftU.execute(-1);
-    const out = dftU.output;
-    for (let j = 0; j < ns; j++) {
-      const cj = colIdx[j]!, fr = out[2 * cj]!, fi = out[2 * cj + 1]!;
-      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
-      acc[2 * j] = acc[2 * j]! + (fr * br - fi * bi);
-      acc[2 * j + 1] = acc[2 * j + 1]! + (fr * bi + fi * br);
-    }
-  };
   const maxAbs = (v: Float64Array) => {
     let m = 0;
     for (let k = 0; k < v.length; k += 2) m = Math.max(m, Math.hypot(v[k]!, v[k + 1]!));
@@ -619,12 +573,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   kept += list0.length;
   let n2k = 0;
+  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * NA * Mu);
   for (let q = 0; q < coils; q++) {
-    for (let k = 0; k < NA; k++) {
-      acc.fill(0);
-      for (let l = 0; l < L; l++) readLine(q, l, k);
-      n2k += sumSquares(acc);
-    }
+    readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
+    for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
   const list: { x: number; r: number; q: number; l: number }[] = [];
@@ -651,14 +603,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   kept += list.length;
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
+    readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
     for (let k = 0; k < NA; k++) {
-      acc.fill(0);
-      for (let l = 0; l < L; l++) readLine(q, l, k);
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
-      for (let j = 0; j < ns; j++) {
-        re[ob + j] = re[ob + j]! + acc[2 * j]!;
-        im[ob + j] = im[ob + j]! + acc[2 * j + 1]!;
-      }
+      addLine(re, im, ob, lines, 2 * k * ns, ns);
     }
   }
   const report: ReadoutReport = {
@@ -763,6 +711,83 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
       }
     }
   }
+}
+
+/**
+ * Read-axis DFT of every line of one coil, times B_l(j), summed over the
+ * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
+ * each is turned to [line][read column] first so the transforms read contiguous rows.
+ */
+function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array): void {
+  const L = Zq.length, inp = dft.input, res = dft.output;
+  out.fill(0);
+  for (let l = 0; l < L; l++) {
+    const z = Zq[l]!;
+    for (let a0 = 0; a0 < Mu; a0 += 8) {
+      const a1 = Math.min(Mu, a0 + 8);
+      for (let k = 0; k < NA; k++) {
+        for (let a = a0; a < a1; a++) {
+          zt[2 * (k * Mu + a)] = z[2 * (a * NA + k)]!;
+          zt[2 * (k * Mu + a) + 1] = z[2 * (a * NA + k) + 1]!;
+        }
+      }
+    }
+    for (let k = 0; k < NA; k++) {
+      inp.set(zt.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
+      dft.execute(-1);
+      const o = 2 * k * ns;
+      for (let j = 0; j < ns; j++) {
+        const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
+        const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+        out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
+        out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
+      }
+    }
+  }
+}
+
+/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
+function addLine(re: Float64Array, im: Float64Array, ob: number, v: Float64Array, o: number, ns: number): void {
+  for (let j = 0; j < ns; j++) {
+    re[ob + j] = re[ob + j]! + v[o + 2 * j]!;
+    im[ob + j] = im[ob + j]! + v[o + 2 * j + 1]!;
+  }
+}
+
+/** The distinct (R2, Δf) keys of the classes, each key's weight, and the decay of each key at every sample (E; ey weighted). */
+function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Array, ns: number, dwell: number) {
+  const { classDf, classR2 } = plan.rf, C = plan.classes;
+  const keyIndex = new Map<string, number>();
+  const keyOf = new Int32Array(C);
+  const keyDf: number[] = [], keyR2: number[] = [], keyW: number[] = [];
+  for (let c = 0; c < C; c++) {
+    const s = `${classDf[c]}|${classR2[c]}`;
+    let k = keyIndex.get(s);
+    if (k === undefined) {
+      k = keyDf.length;
+      keyIndex.set(s, k);
+      keyDf.push(classDf[c]!);
+      keyR2.push(classR2[c]!);
+      keyW.push(0);
+    }
+    keyOf[c] = k;
+    let p2 = 0;
+    for (let r = 0; r < R; r++) p2 += G[2 * (c * R + r)]! ** 2 + G[2 * (c * R + r) + 1]! ** 2;
+    keyW[k] = keyW[k]! + mass[c]! * Math.sqrt(p2);
+  }
+  const K = keyDf.length;
+  const E = new Float64Array(2 * ns * K), ey = new Float64Array(2 * ns * K);
+  for (let k = 0; k < K; k++) {
+    for (let j = 0; j < ns; j++) {
+      const t = j * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
+      const o = 2 * (k * ns + j);
+      E[o] = e * Math.cos(th);
+      E[o + 1] = e * Math.sin(th);
+      ey[o] = E[o]! * keyW[k]!;
+      ey[o + 1] = E[o + 1]! * keyW[k]!;
+    }
+  }
+  return { keyOf, keyDf, keyR2, K, E, ey };
 }
 
 /** Σ v[j]² in index order. */
