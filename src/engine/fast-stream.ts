@@ -376,7 +376,7 @@ export class CellStream {
       // same exact per-class state and decay (no line factor, no segments, no FFT),
       // summed per cell once instead of per isochromat.
       const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
-      const Y: (Float64Array | null)[] = [], keysOf: Int32Array[] = [];
+      const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
           const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
@@ -396,6 +396,10 @@ export class CellStream {
             }
           }
           Y.push(ok ? y : null);
+          // one uniform coil: the cell's samples summed through the slice once
+          const ys = new Float64Array(2 * NS);
+          for (let c = 0; c < nw; c++) for (let x = 0; x < 2 * NS; x++) ys[x] = ys[x]! + y[2 * c * NS + x]!;
+          Ysum.push(ys);
           keysOf.push(Int32Array.from(ks));
         }
       }
@@ -417,6 +421,12 @@ export class CellStream {
           if (filter) for (const k of keysOf[z]!) if (receiverFilter(filter.fRead * u + keyDf[k]!, filter.bw) !== 1) flat = false;
           if (flat) {
             const y = Y[z]!;
+            if (!S) {
+              const ys = Ysum[z]!;
+              for (let x = 0; x < 2 * NS; x++) colv[x] = ys[x]! * fp;
+              addSamples(u, v, colv);
+              continue;
+            }
             let Sc = one;
             if (S) {
               this.sensOf(col, S);

@@ -922,10 +922,33 @@ export function estimateOver(
   const CN = coils * NR;
   const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
+  // exp(−i2π(kx·u + ky·v)) = exp(−i2π kx·u)·exp(−i2π ky·v): a table per read
+  // position (the last one kept: columns come in read order) and per phase position
+  let lastU = NaN;
+  const eu = new Float64Array(2 * S), evOf = new Map<number, Float64Array>();
   const addPhased = (u: number, v: number, colv: Float64Array) => {
+    if (u !== lastU) {
+      lastU = u;
+      for (let s = 0; s < S; s++) {
+        const th = -TWO_PI * (kx0 + js[s]! * dkx) * u;
+        eu[2 * s] = Math.cos(th);
+        eu[2 * s + 1] = Math.sin(th);
+      }
+    }
+    let ev = evOf.get(v);
+    if (!ev) {
+      ev = new Float64Array(2 * NR);
+      for (let w = 0; w < NR; w++) {
+        const th = -TWO_PI * kyRow[w]! * v;
+        ev[2 * w] = Math.cos(th);
+        ev[2 * w + 1] = Math.sin(th);
+      }
+      evOf.set(v, ev);
+    }
     for (let s = 0; s < S; s++) {
       const w = Math.floor(s / PJ);
-      const th = -TWO_PI * ((kx0 + js[s]! * dkx) * u + kyRow[w]! * v), er = Math.cos(th), ei = Math.sin(th);
+      const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = ev[2 * w]!, bi = ev[2 * w + 1]!;
+      const er = ar * br - ai * bi, ei = ar * bi + ai * br;
       for (let q = 0; q < coils; q++) {
         const o = 2 * (q * S + s), xr = colv[o]!, xi = colv[o + 1]!;
         tot[o] = tot[o]! + (xr * er - xi * ei);
