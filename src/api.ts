@@ -100,8 +100,14 @@ export interface SimulateInput {
   /** Aborting stops the engine; simulate then rejects with AbortedError. */
   signal?: AbortSignal;
   onProgress?: (p: SimulateProgress) => void;
-  /** Called once with the first slice's sampling inputs before any isochromat is made (the CLI's memory check). */
-  beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence }) => void;
+  /**
+   * Called with the first slice's sampling inputs before any isochromat is made
+   * (the CLI's memory check): once before the cells are sampled, `stored` false
+   * where the engine may stream the fast operator's weights from the cells (no
+   * isochromat stored); and again with `stored` true before the isochromats are
+   * made one by one, where they are (the direct operator, a B0 model, coils).
+   */
+  beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence; stored: boolean }) => void;
   /** Use iso.sliceCount as given, without raising it for the coherence pathways (studies of a coarse grid; default false). */
   exactSliceCount?: boolean;
   /** Run the a-posteriori through-slice convergence check on one probe column (default true). */
@@ -129,11 +135,12 @@ export interface SliceRun {
 }
 
 /** A slice run whose isochromats are expanded from its cells on first use. */
-export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells): SliceRun {
+export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells, beforeExpand?: () => void): SliceRun {
   let iso: IsochromatSet | null = null;
   return {
     position, seq, cells,
     get iso() {
+      if (iso === null) beforeExpand?.();
       return (iso ??= expandCells(cells));
     },
   };
@@ -208,7 +215,10 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     }
     const geo = isoGeometry(protocol, position);
     // slices run one after another: one slice's isochromats and k-space must fit
-    if (slices.length === 0) input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq });
+    // the cells alone (streamed fast operator) where no B0 model and no per-isochromat coil run asks for stored isochromats
+    const mayStream = input.readout !== "direct" && phantom.b0 === null && !input.runEngine;
+    const check = (stored: boolean) => input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq, stored });
+    if (slices.length === 0) check(!mayStream);
     const iso = sampleCells(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
       const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
@@ -218,7 +228,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
-    slices.push(sliceRun(position, seq, iso));
+    slices.push(sliceRun(position, seq, iso, slices.length === 0 && mayStream ? () => check(true) : undefined));
   }
   if (slices.every((sl) => sl.cells.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");

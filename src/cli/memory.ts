@@ -30,8 +30,28 @@ export const BYTES_PER_ISOCHROMAT = 160;
 /** Per-worker scratch: state, relaxation factors per duration, readout groups (≈ 40 float64 per chunk isochromat). */
 export const WORKER_SCRATCH_BYTES = chunkIsochromatsFromEnv() * 8 * 48;
 
+/**
+ * Streamed fast operator (engine/fast-stream.ts): bytes per sampled cell
+ * entry (through-slice index 4 B, tissue 4 B, fraction 8 B) and per column
+ * (read, phase, place, isochromat and entry starts: 5 × 4 B), doubled for the
+ * growing arrays while sampling.
+ */
+export const BYTES_PER_CELL = 2 * 16;
+export const BYTES_PER_COLUMN = 2 * 20;
+/**
+ * Time segments and line ranks the streamed grid estimate allows for: typical
+ * figures, not ceilings (the 128² demo and the 256² torso use 11–12 segments
+ * and 7–8 ranks; engine/fast.ts allows up to 48 and 24).
+ */
+export const STREAM_SEGMENTS = 16;
+export const STREAM_RANKS = 8;
+/** Folded grids of one block of read columns: engine/fast.ts BLOCK_BYTES, or one read column when larger. */
+export const STREAM_BLOCK_BYTES = 2 * 2 ** 20;
+
 export interface MemoryEstimate {
   isochromats: number;
+  /** The fast operator streams its weights from the cells: cells and grids instead of isochromats. */
+  streamed?: boolean;
   /** Range (m) of the sampled grid along read and phase, from the coarse sampling. */
   extent?: { read: [number, number]; phase: [number, number] };
   bytes: number;
@@ -45,24 +65,42 @@ export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: numbe
   return estimateSampling(ph, geo, fieldT, iso, matrix).count;
 }
 
-function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): { count: number; extent: { read: [number, number]; phase: [number, number] } } {
+function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): { count: number; columns: number; cells: number; extent: { read: [number, number]; phase: [number, number] } } {
   const f = Math.max(1, Math.ceil(matrix / 64));
   const sc = Math.min(iso.sliceCount, 4);
   const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
   // a voxel's T2′ spread of n values is shared among its density² columns (at least one value each)
   const spread = Math.max(1, Math.ceil((iso.t2primeIsochromats ?? 1) / (iso.density * iso.density)));
-  return { count: Math.ceil(coarse.count * (f * iso.density) ** 2 * (iso.sliceCount / sc) * spread), extent: { read: coarse.extent.read, phase: coarse.extent.phase } };
+  const inPlane = (f * iso.density) ** 2;
+  const columns = Math.ceil(coarse.columns * inPlane);
+  // cells: at most one per isochromat; each coarse isochromat without T2′ spread stands for one tissue and peak of a cell
+  return {
+    count: Math.ceil(coarse.count * inPlane * (iso.sliceCount / sc) * spread), columns,
+    cells: Math.ceil(coarse.count * inPlane * (iso.sliceCount / sc)), extent: { read: coarse.extent.read, phase: coarse.extent.phase },
+  };
 }
 
-/** Bytes a run needs at its peak: isochromats, k-space (total, block sum, partials in flight), worker scratch. */
-export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1): MemoryEstimate {
+/**
+ * Bytes a run needs at its peak: isochromats, k-space (total, block sum,
+ * partials in flight), worker scratch. `streamed`: the fast operator streams
+ * its weights from the cells (no isochromat stored), so the cells and the
+ * operator's grids take the isochromats' place: per coil and time segment the
+ * phase-transformed lines (lines × read grid length × 16 B, the read grid
+ * being the read samples × the in-plane density), and one block of folded grids.
+ * Where the run later stores its isochromats after all, the check runs again
+ * before they are made (api.ts beforeIsochromats, `stored`).
+ */
+export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1, streamed = false): MemoryEstimate {
   const matrix = Math.max(seq.kspace.read, seq.kspace.phase);
-  const { count: n, extent } = estimateSampling(ph, geo, fieldT, iso, matrix);
+  const { count: n, columns, cells, extent } = estimateSampling(ph, geo, fieldT, iso, matrix);
   const ks = coils * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * 16;
-  const isochromatBytes = n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
+  const isochromatBytes = streamed
+    ? cells * BYTES_PER_CELL + columns * BYTES_PER_COLUMN + coils * STREAM_SEGMENTS * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * iso.density * 16 +
+      Math.max(STREAM_BLOCK_BYTES, seq.kspace.phase * iso.density * coils * STREAM_RANKS * STREAM_SEGMENTS * 16)
+    : n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
   const kspaceBytes = ks * (4 + 3 * workers + 4);
   const workerBytes = workers * WORKER_SCRATCH_BYTES;
-  return { isochromats: n, extent, bytes: isochromatBytes + kspaceBytes + workerBytes, isochromatBytes, kspaceBytes, workerBytes };
+  return { isochromats: n, ...(streamed ? { streamed } : {}), extent, bytes: isochromatBytes + kspaceBytes + workerBytes, isochromatBytes, kspaceBytes, workerBytes };
 }
 
 function gib(b: number): string {
@@ -83,6 +121,12 @@ export function checkMemory(e: MemoryEstimate, limit: number, iso: IsochromatOpt
   const cm = (r: [number, number]) => `${(r[0] * 100).toFixed(1)} … ${(r[1] * 100).toFixed(1)} cm`;
   const span = e.extent ? ` over read ${cm(e.extent.read)} and phase ${cm(e.extent.phase)} (every shape's whole extent, so tissue outside the FOV wraps)` : "";
   const how = ways.length > 0 ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}` : "; lower --density, --slice-isochromats or the matrix";
+  if (e.streamed) {
+    throw new UserError(
+      `--max-memory: the run needs an estimated ${gib(e.bytes)} (fast operator streamed from the sampled cells, none of the ${e.isochromats.toLocaleString("en")} isochromats stored: cells and grids ${gib(e.isochromatBytes)}${span}, ` +
+        `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}; lower the matrix or --density`,
+    );
+  }
   throw new UserError(
     `--max-memory: the run needs an estimated ${gib(e.bytes)} (${e.isochromats.toLocaleString("en")} isochromats × ${BYTES_PER_ISOCHROMAT} B${span}, ` +
       `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}${how}`,

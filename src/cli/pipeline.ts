@@ -112,7 +112,7 @@ function libraryInput(o: RunOptions): SimulateInput {
     readout: o.readout, tolerance: o.tolerance,
     ...(o.coilRun ? { runEngine: o.coilRun } : {}),
     chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
-    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers), o.maxMemory ?? defaultMemoryLimit(), e.iso),
+    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers, 1, !e.stored), o.maxMemory ?? defaultMemoryLimit(), e.iso),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
     version: version(),
   };
