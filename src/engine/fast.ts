@@ -557,12 +557,25 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     XB.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
     for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0);
   };
-  // Pass 1: fold every block, the grids' norms, transform rank 0 (it sets the
-  // budget of the pairs skipped). Pass 2: fold again, transform the other kept pairs.
+  // One coil: pass 1 folds every block, sums the grids' norms, transforms rank 0
+  // (it sets the budget of the pairs skipped); pass 2 folds again (cheap
+  // without sensitivities) and transforms the other kept pairs.
   // Pairs (rank r, segment l) are transformed unless their contribution's bound
   // max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval) is within an equal share of
   // tolerance/split of the norm of the rank-0 k-space; skipped pairs are counted.
+  // With several coils the fold (sensitivities per column and coil) costs more
+  // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
+  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * NA * Mu);
+  if (coils > 1) {
+    const all: { x: number; r: number; q: number; l: number }[] = [];
+    for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
+    for (const blk of blocks) {
+      foldBlock(blk);
+      transform(all, blk.a0, blk.a1);
+    }
+    kept = all.length;
+  } else {
   const n2 = new Float64Array(NX);
   const list0: { x: number; r: number; q: number; l: number }[] = [];
   for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
@@ -573,7 +586,6 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   kept += list0.length;
   let n2k = 0;
-  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * NA * Mu);
   for (let q = 0; q < coils; q++) {
     readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
@@ -601,6 +613,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     }
   }
   kept += list.length;
+  }
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
     readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
