@@ -566,7 +566,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // With several coils the fold (sensitivities per column and coil) costs more
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
-  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * NA * Mu);
+  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * KT * Mu);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
@@ -731,30 +731,36 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
  * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
  * each is turned to [line][read column] first so the transforms read contiguous rows.
  */
+/** Lines gathered per sweep in readAxis. */
+const KT = 4;
+
 function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array): void {
   const L = Zq.length, inp = dft.input, res = dft.output;
   out.fill(0);
   for (let l = 0; l < L; l++) {
     const z = Zq[l]!;
-    for (let a0 = 0; a0 < Mu; a0 += 8) {
-      const a1 = Math.min(Mu, a0 + 8);
-      for (let k = 0; k < NA; k++) {
-        for (let a = a0; a < a1; a++) {
-          zt[2 * (k * Mu + a)] = z[2 * (a * NA + k)]!;
-          zt[2 * (k * Mu + a) + 1] = z[2 * (a * NA + k) + 1]!;
+    // KT lines at a time: one sweep down the read columns reads each cache line of z once
+    for (let k0 = 0; k0 < NA; k0 += KT) {
+      const nk = Math.min(KT, NA - k0);
+      for (let a = 0; a < Mu; a++) {
+        const src = 2 * (a * NA + k0);
+        for (let t = 0; t < nk; t++) {
+          zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
+          zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
         }
       }
+      for (let t = 0; t < nk; t++) readOne(l, k0 + t, t);
     }
-    for (let k = 0; k < NA; k++) {
-      inp.set(zt.subarray(2 * k * Mu, 2 * (k + 1) * Mu));
-      dft.execute(-1);
-      const o = 2 * k * ns;
-      for (let j = 0; j < ns; j++) {
-        const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
-        const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
-        out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
-        out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
-      }
+  }
+  function readOne(l: number, k: number, t: number): void {
+    for (let a = 0; a < 2 * Mu; a++) inp[a] = zt[2 * t * Mu + a]!;
+    dft.execute(-1);
+    const o = 2 * k * ns;
+    for (let j = 0; j < ns; j++) {
+      const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
+      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+      out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
+      out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
     }
   }
 }
