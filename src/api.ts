@@ -100,6 +100,13 @@ export interface SimulateInput {
   /** Aborting stops the engine; simulate then rejects with AbortedError. */
   signal?: AbortSignal;
   onProgress?: (p: SimulateProgress) => void;
+  /**
+   * Sampling of the phantom and expansion into isochromats (default `sampleCells`, `expandCells`). A caller may
+   * put a cache here (the previewer does, across edits that leave the sampling unchanged); it must return what
+   * these functions would return, with `warnings` and `notes` lists of its own (prepareSimulation appends to them).
+   */
+  sampleCells?: typeof sampleCells;
+  expandCells?: (cells: IsochromatCells) => IsochromatSet;
   /** Called once with the first slice's sampling inputs before any isochromat is made (the CLI's memory check). */
   beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence }) => void;
   /** Use iso.sliceCount as given, without raising it for the coherence pathways (studies of a coarse grid; default false). */
@@ -129,12 +136,12 @@ export interface SliceRun {
 }
 
 /** A slice run whose isochromats are expanded from its cells on first use. */
-export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells): SliceRun {
+export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells, expand: (cells: IsochromatCells) => IsochromatSet = expandCells): SliceRun {
   let iso: IsochromatSet | null = null;
   return {
     position, seq, cells,
     get iso() {
-      return (iso ??= expandCells(cells));
+      return (iso ??= expand(cells));
     },
   };
 }
@@ -209,7 +216,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     const geo = isoGeometry(protocol, position);
     // slices run one after another: one slice's isochromats and k-space must fit
     if (slices.length === 0) input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq });
-    const iso = sampleCells(phantom, geo, protocol.field, isoOpts);
+    const iso = (input.sampleCells ?? sampleCells)(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
       const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
       throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, protocolName, "slice.position");
@@ -218,7 +225,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
-    slices.push(sliceRun(position, seq, iso));
+    slices.push(sliceRun(position, seq, iso, input.expandCells));
   }
   if (slices.every((sl) => sl.cells.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");
