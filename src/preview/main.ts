@@ -621,6 +621,8 @@ async function main(): Promise<void> {
       if (last && last.quality === m.quality && !last.kmag) {
         const { packMs, ...rest } = m.rest as { packMs: number; kmag: Float64Array; kspaceNpy: Uint8Array; imageNpy: Uint8Array };
         Object.assign(last, rest);
+        // the k-space bytes of the newest preview-quality result, for the tests (a reference: nothing is copied)
+        if (m.quality === "preview") Object.assign((window as any).__preview, { previewKspace: rest.kspaceNpy, previewGen: m.gen });
         last.timings["packAfterPaint"] = packMs;
         if (pendingRest?.o === last) showRest(last, pendingRest.g, pendingRest.executor);
       }
