@@ -61,6 +61,8 @@ export interface RunOutput {
   warnings: string[];
   isochromats: number;
   engineMs: number;
+  /** Where the engine's chunks ran (the engine workers, or the worker's own thread for a preview of one chunk). */
+  ranOn: string;
   /** What this run took from the caches of earlier runs (the parsed phantom, the sampled cells, the isochromats). */
   reused: string[];
   /** Readout operator that ran ("fast" or "direct"). */
@@ -265,6 +267,8 @@ export const PREVIEW_CHUNK_ISOCHROMATS = 8192;
 
 export class Cancelled extends Error {}
 
+const local = serialExecutor();
+
 /** `isofold check` with its default thresholds and ROI on the request's inputs. */
 export function checkRequest(req: RunRequest): CheckResult {
   const protocol = parseProtocol(protocolInput(req.protocol), { source: req.protocol, sets: req.sets, resolve: resolvePreset, presets: [...presets.keys()] });
@@ -295,10 +299,15 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   let tPrep = tStart, tEngine = tStart;
   // where the engine's time goes: before the executor session (plan, operator choice), and the chunks on the engine workers
   let tOpen = NaN, chunkMs = 0;
+  // where the chunks ran: a preview whose work is one job runs on this thread (the engine workers would add two
+  // message hops and the plan's copy for nothing); every executor gives the same bits (engine/executor.ts)
+  let ranOn = "";
   const timed: Executor = {
     open(plan, iso, jobs) {
       tOpen = performance.now();
-      const s = executor.open(plan, iso, jobs);
+      const here = req.quality === "preview" && jobs <= 1;
+      ranOn = here ? "the preview worker's own thread (one chunk)" : "the engine workers";
+      const s = (here ? local : executor).open(plan, iso, jobs);
       return {
         size: s.size, fillRfMaps: (c, sig) => s.fillRfMaps(c, sig), close: () => s.close(),
         async runChunks(c0, c1, onChunk, waitingFor, sig) {
@@ -369,7 +378,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     fatShift, check: null,
     warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
     isochromats: run.isoSummary.count,
-    engineMs: tSim - tStart, readout,
+    engineMs: tSim - tStart, readout, ranOn,
     reused: [cacheStats.phantom.hit, cacheStats.cells.hit, cacheStats.isochromats.hit].flatMap((h, i) => (h > hits0[i]! ? [["parsed phantom", "sampled cells", "isochromats"][i]!] : [])), kernels: readoutKernelName(),
     timings: {},
     iso,
