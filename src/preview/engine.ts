@@ -116,6 +116,8 @@ export function putInput(name: string, text: string): void {
  * equals the CLI's).
  */
 const CACHE_ENTRIES = 4;
+/** Isochromats kept beside the newest entry at most (an expanded isochromat takes 76 bytes: about 150 MB). */
+const CACHE_ISOCHROMATS = 2_000_000;
 let phantomCache: { key: string; phantom: Phantom }[] = [];
 let cellCache: { phantom: Phantom; key: string; cells: IsochromatCells }[] = [];
 /** The cached cells a handed-out copy came from, and the isochromats expanded from them. */
@@ -171,7 +173,9 @@ const cachedSampleCells: typeof sampleCells = (phantom, geo, field, opts) => {
   }
   cacheStats.cells.miss++;
   const cells = sampleCells(phantom, geo, field, opts);
-  cellCache = remember(cellCache, { phantom, key, cells });
+  // the newest entry always; older ones while the kept isochromats stay within CACHE_ISOCHROMATS (memory of the page)
+  let total = 0;
+  cellCache = remember(cellCache, { phantom, key, cells }).filter((e, i) => (total += e.cells.count) <= CACHE_ISOCHROMATS || i === 0);
   return handOut(cells);
 };
 
