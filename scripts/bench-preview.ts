@@ -11,7 +11,7 @@
  */
 import { spawn } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
-import { tmpdir } from "node:os";
+import { cpus, loadavg, tmpdir } from "node:os";
 import { join, resolve, dirname } from "node:path";
 import { fileURLToPath } from "node:url";
 import { chromium } from "playwright-core";
@@ -68,9 +68,12 @@ try {
       for (const [k, v] of Object.entries(r.t)) (steps[k] ??= []).push(v);
       if (PAUSE_MS > 0) await page.waitForTimeout(PAUSE_MS);
     }
-    const med = (xs: number[] | undefined) => (xs ? pct(xs, 50).toFixed(0) : "?");
+    const med = (xs: number[] | undefined) => (xs && xs.length ? pct(xs, 50).toFixed(0) : "?");
+    // edits that found the refinement at work share the cores with its start and end: told apart below
+    const calm = ms.filter((_, i) => !(steps.refining?.[i]! > 0));
     console.log(`${`${n}²`.padEnd(8)} ${pct(ms, 50).toFixed(0).padStart(9)}   ${pct(ms, 90).toFixed(0).padStart(6)}   ${Math.min(...ms).toFixed(0).padStart(6)}   ${Math.max(...ms).toFixed(0).padStart(6)}   ` +
-      `to worker ${med(steps.toWorker)}, queued ${med(steps.queued)}, worker ${med(steps.total)} (${med(steps.prepare)}, ${med(steps.engine)} [${med(steps.engineSetup)} + ${med(steps.engineChunks)}], ${med(steps.recon)}, ${med(steps.pack)}), back ${med(steps.back)}, draw ${med(steps.draw)}, frame ${med(steps.frame)}; ${(steps.refining ?? []).filter((x) => x > 0).length} edits came while refining`);
+      `to worker ${med(steps.toWorker)}, queued ${med(steps.queued)}, worker ${med(steps.total)} (${med(steps.prepare)}, ${med(steps.engine)} [${med(steps.engineSetup)} + ${med(steps.engineChunks)}], ${med(steps.recon)}, ${med(steps.pack)}), back ${med(steps.back)}, draw ${med(steps.draw)}, frame ${med(steps.frame)}; ${(steps.refining ?? []).filter((x) => x > 0).length} edits came while refining` +
+      ` (the other ${calm.length}: median ${med(calm)}, p90 ${calm.length ? pct(calm, 90).toFixed(0) : "?"}); load average ${loadavg()[0]!.toFixed(1)} on ${cpus().length} cores`);
     await page.close();
   }
 } finally {

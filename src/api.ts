@@ -101,6 +101,13 @@ export interface SimulateInput {
   signal?: AbortSignal;
   onProgress?: (p: SimulateProgress) => void;
   /**
+   * Sampling of the phantom and expansion into isochromats (default `sampleCells`, `expandCells`). A caller may
+   * put a cache here (the previewer does, across edits that leave the sampling unchanged); it must return what
+   * these functions would return, with `warnings` and `notes` lists of its own (prepareSimulation appends to them).
+   */
+  sampleCells?: typeof sampleCells;
+  expandCells?: (cells: IsochromatCells) => IsochromatSet;
+  /**
    * Called with the first slice's sampling inputs before any isochromat is made
    * (the CLI's memory check): once before the cells are sampled, `stored` false
    * where the engine may stream the fast operator's weights from the cells (no
@@ -135,13 +142,13 @@ export interface SliceRun {
 }
 
 /** A slice run whose isochromats are expanded from its cells on first use. */
-export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells, beforeExpand?: () => void): SliceRun {
+export function sliceRun(position: number, seq: Sequence, cells: IsochromatCells, expand: (cells: IsochromatCells) => IsochromatSet = expandCells, beforeExpand?: () => void): SliceRun {
   let iso: IsochromatSet | null = null;
   return {
     position, seq, cells,
     get iso() {
       if (iso === null) beforeExpand?.();
-      return (iso ??= expandCells(cells));
+      return (iso ??= expand(cells));
     },
   };
 }
@@ -219,7 +226,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     const mayStream = input.readout !== "direct" && phantom.b0 === null && !input.runEngine;
     const check = (stored: boolean) => input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq, stored });
     if (slices.length === 0) check(!mayStream);
-    const iso = sampleCells(phantom, geo, protocol.field, isoOpts);
+    const iso = (input.sampleCells ?? sampleCells)(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {
       const fine = remarks.fine.length ? `, or its shapes are finer than the isochromat spacing of ${(remarks.spacing * 1e3).toPrecision(3)} mm and fall between the sample points (raise --density or the matrix)` : "";
       throw new UserError(`no part of the phantom lies in the slice at ${(position * 1e3).toFixed(1)} mm${fine}; move slice.position`, protocolName, "slice.position");
@@ -228,7 +235,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
-    slices.push(sliceRun(position, seq, iso, slices.length === 0 && mayStream ? () => check(true) : undefined));
+    slices.push(sliceRun(position, seq, iso, input.expandCells, slices.length === 0 && mayStream ? () => check(true) : undefined));
   }
   if (slices.every((sl) => sl.cells.count === 0)) {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");

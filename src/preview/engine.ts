@@ -15,12 +15,12 @@ import { fatShiftInput, predictFatShift, multiPeakMeanPpm } from "../analysis/in
 import { FAT_SINGLE_PPM } from "../constants.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
 import { logicalAxes, parseProtocol, type Protocol, type ProtocolResolver } from "../protocol/index.js";
-import { parsePhantom } from "../phantom/index.js";
+import { parsePhantom, type Phantom } from "../phantom/index.js";
 import { buildSequence } from "../sequence/index.js";
 import { displayTransform, type DisplayTransform } from "../report/display.js";
 import { decodeNpy, encodeNpy } from "../io/npy.js";
 import type { RealArray } from "../phantom/index.js";
-import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
+import { defaultIsochromatOptions, expandCells, sampleCells, type IsochromatCells, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
 
 export type Quality = "preview" | "full";
 
@@ -38,6 +38,10 @@ export interface RunRequest {
    * sandbox like any phantom file's (phantom/b0.ts), no other evaluator.
    */
   b0Linear?: [number, number, number];
+  /** Readout operator (default "auto", as the CLI's --readout). */
+  /** Readout operator and chunking (default: PREVIEW_READOUT and PREVIEW_CHUNK_ISOCHROMATS at preview quality, the CLI's defaults at default quality). */
+  readout?: "auto" | "fast" | "direct";
+  chunkIsochromats?: number;
 }
 
 export interface RunOutput {
@@ -45,9 +49,10 @@ export interface RunOutput {
   protocol: Protocol;
   nRead: number;
   nPhase: number;
-  /** Magnitude image plane [phase][read] of the middle slice, and |k| of the same plane of the full grid [phase][read with oversampling]. */
+  /** Magnitude image plane [phase][read] of the middle slice. */
   image: Float64Array;
-  kmag: Float64Array;
+  /** |k| of the same plane of the full grid [phase][read with oversampling] and the .npy bytes: sent after the image (see RunRest). */
+  kmag?: Float64Array;
   kRead: number;
   kPhase: number;
   display: DisplayTransform;
@@ -56,6 +61,10 @@ export interface RunOutput {
   warnings: string[];
   isochromats: number;
   engineMs: number;
+  /** Where the engine's chunks ran (the engine workers, or the worker's own thread for a preview of one chunk). */
+  ranOn: string;
+  /** What this run took from the caches of earlier runs (the parsed phantom, the sampled cells, the isochromats). */
+  reused: string[];
   /** Readout operator that ran ("fast" or "direct"). */
   readout: string;
   /** The kernels of this worker's engine (WebAssembly SIMD or the scalar twins; the same bits either way). */
@@ -63,9 +72,9 @@ export interface RunOutput {
   /** Milliseconds in the worker by stage (prepare: parse, sequence, isochromats; engine; recon; pack: views and .npy bytes; total). */
   timings: Record<string, number>;
   iso: IsochromatOptions;
-  /** Complex64 .npy bytes of the k-space and image volumes, as `simulate` writes kspace.npy and image.npy. */
-  kspaceNpy: Uint8Array;
-  imageNpy: Uint8Array;
+  /** Complex64 .npy bytes of the k-space and image volumes, as `simulate` writes kspace.npy and image.npy (after the image: RunRest). */
+  kspaceNpy?: Uint8Array;
+  imageNpy?: Uint8Array;
   slicesRun: string;
   derived: Record<string, unknown>;
 }
@@ -80,6 +89,7 @@ const fileArrays = new Map<string, Uint8Array>();
 /** A field-map file: `bundled` ones were fetched from the server's phantoms folder, the others were chosen in the page. */
 export function putArray(name: string, bytes: Uint8Array, bundled: boolean): void {
   (bundled ? bundledArrays : fileArrays).set(name, bytes);
+  clearCaches();
 }
 
 export function putPreset(name: string, text: string): void {
@@ -91,6 +101,96 @@ export function putPhantom(name: string, text: string): void {
 /** A file named on the command line or chosen in the page, under "file:<name>". */
 export function putInput(name: string, text: string): void {
   inputs.set(`file:${name}`, JSON.parse(text));
+  clearCaches();
+}
+
+/*
+ * Caches across edits. An edit of TE, TR, flip, bandwidth and most other
+ * settings changes neither the phantom nor where it is sampled, so the parsed
+ * phantom, the sampled cells and their isochromats of the previous run are
+ * used again. Each is keyed on everything its computation reads (below), is
+ * cleared when a file or field map is put, and hands out lists of warnings and
+ * notes of their own (prepareSimulation and the engine append to them), so a
+ * run with a cache hit returns the same bits and messages as a fresh run
+ * (test/preview-browser.test.ts: after a sequence of edits the page's k-space
+ * equals the CLI's).
+ */
+const CACHE_ENTRIES = 4;
+/** Isochromats kept beside the newest entry at most (an expanded isochromat takes 76 bytes: about 150 MB). */
+const CACHE_ISOCHROMATS = 2_000_000;
+let phantomCache: { key: string; phantom: Phantom }[] = [];
+let cellCache: { phantom: Phantom; key: string; cells: IsochromatCells }[] = [];
+/** The cached cells a handed-out copy came from, and the isochromats expanded from them. */
+const cellOrigin = new WeakMap<IsochromatCells, IsochromatCells>();
+const expanded = new WeakMap<IsochromatCells, IsochromatSet>();
+/** Hits and misses since the worker started (shown in the page's status line, read by the tests). */
+export const cacheStats = { phantom: { hit: 0, miss: 0 }, cells: { hit: 0, miss: 0 }, isochromats: { hit: 0, miss: 0 } };
+
+function clearCaches(): void {
+  phantomCache = [];
+  cellCache = [];
+}
+
+/** A key of plain data: non-finite numbers and −0 kept apart (JSON would write them as null and 0). */
+function keyOf(v: unknown): string {
+  return JSON.stringify(v, (_k, x: unknown) => (typeof x === "number" && (!Number.isFinite(x) || Object.is(x, -0)) ? `#${Object.is(x, -0) ? "-0" : String(x)}` : x));
+}
+
+function remember<T>(list: T[], entry: T): T[] {
+  return [entry, ...list].slice(0, CACHE_ENTRIES);
+}
+
+/** The parsed phantom of a request at a field (T): parsePhantom reads the phantom object, its name, the field and its field maps. */
+function phantomFor(req: RunRequest, field: number): Phantom {
+  const key = keyOf([req.phantom, req.b0Linear ?? null, field]);
+  const hit = phantomCache.find((e) => e.key === key);
+  if (hit) {
+    cacheStats.phantom.hit++;
+    return hit.phantom;
+  }
+  cacheStats.phantom.miss++;
+  const phantom = parsePhantom(phantomInput(req.phantom, req.b0Linear), req.phantom, field, { readArray: arrayReader(req.phantom) });
+  phantomCache = remember(phantomCache, { key, phantom });
+  return phantom;
+}
+
+/** A copy of cached cells with lists of its own (the arrays are shared: nothing writes to them). */
+function handOut(cells: IsochromatCells): IsochromatCells {
+  const copy: IsochromatCells = Object.create(Object.getPrototypeOf(cells) as object, Object.getOwnPropertyDescriptors(cells));
+  copy.warnings = [...cells.warnings];
+  copy.notes = [...cells.notes];
+  cellOrigin.set(copy, cells);
+  return copy;
+}
+
+/** sampleCells with a cache: its result depends on the phantom, the geometry, the field and the isochromat options only. */
+const cachedSampleCells: typeof sampleCells = (phantom, geo, field, opts) => {
+  const key = keyOf([geo, field, opts]);
+  const hit = cellCache.find((e) => e.phantom === phantom && e.key === key);
+  if (hit) {
+    cacheStats.cells.hit++;
+    return handOut(hit.cells);
+  }
+  cacheStats.cells.miss++;
+  const cells = sampleCells(phantom, geo, field, opts);
+  // the newest entry always; older ones while the kept isochromats stay within CACHE_ISOCHROMATS (memory of the page)
+  let total = 0;
+  cellCache = remember(cellCache, { phantom, key, cells }).filter((e, i) => (total += e.cells.count) <= CACHE_ISOCHROMATS || i === 0);
+  return handOut(cells);
+};
+
+/** expandCells with a cache: the isochromats of a handed-out copy are those of the cells it came from, with the copy's lists. */
+function cachedExpandCells(cells: IsochromatCells): IsochromatSet {
+  const origin = cellOrigin.get(cells);
+  if (!origin) return expandCells(cells);
+  let set = expanded.get(origin);
+  if (set) cacheStats.isochromats.hit++;
+  else {
+    cacheStats.isochromats.miss++;
+    set = expandCells(origin);
+    expanded.set(origin, set);
+  }
+  return { ...set, warnings: cells.warnings, notes: cells.notes };
 }
 
 /** `extend` resolves to bundled presets only (a page has no files beside the protocol). */
@@ -147,7 +247,31 @@ export function qualityOptions(q: Quality, fatModel: "single" | "multi"): Isochr
   return { ...d, density: 1, sliceCount: 3, sliceExtent: 3, t2primeIsochromats: 1, fatModel };
 }
 
+/**
+ * Preview quality runs the direct readout operator in chunks of this many
+ * isochromats. At preview quality the direct operator is the cheaper one
+ * (128², two-bottle in Node: about 5 ms setup and 20–30 ms of chunks, against
+ * over 100 ms for the fast operator on one thread), and predicting the two
+ * costs ("auto") alone takes about 15 ms; smaller chunks let both engine
+ * workers share an edit (two chunks at 128²). The CLI gives the same bits with
+ * `--readout direct` and ISOFOLD_CHUNK_ISOCHROMATS=8192 (the chunking fixes the
+ * order of the sums). Default quality keeps the CLI's defaults ("auto", 32768).
+ */
+/** What the page needs after the image is painted: the k-space view and the exports. */
+export interface RunRest {
+  kmag: Float64Array;
+  kspaceNpy: Uint8Array;
+  imageNpy: Uint8Array;
+  /** Milliseconds to make them. */
+  packMs: number;
+}
+
+export const PREVIEW_READOUT = "direct" as const;
+export const PREVIEW_CHUNK_ISOCHROMATS = 8192;
+
 export class Cancelled extends Error {}
+
+const local = serialExecutor();
 
 /** `isofold check` with its default thresholds and ROI on the request's inputs. */
 export function checkRequest(req: RunRequest): CheckResult {
@@ -159,25 +283,35 @@ export function checkRequest(req: RunRequest): CheckResult {
     if (e instanceof UserError) throw e.inFile(req.protocol);
     throw e;
   }
-  const phantom = parsePhantom(phantomInput(req.phantom, req.b0Linear), req.phantom, protocol.field, { readArray: arrayReader(req.phantom) });
+  const phantom = phantomFor(req, protocol.field);
   const result = checkProtocol(phantom, protocol, seq, {});
   result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
   return result;
 }
 
-/** Runs one request; `stop()` is asked as the engine reports progress, and a true answer rejects with Cancelled. */
-export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void, executor: Executor = serialExecutor()): Promise<RunOutput> {
+/**
+ * Runs one request; `stop()` is asked as the engine reports progress, and a true answer rejects with Cancelled.
+ * Returns the output with the image, and `rest()`, which makes the k-space view and the .npy bytes (the worker
+ * calls it after the image is on its way to the page).
+ */
+export async function runPreview(req: RunRequest, stop: () => boolean, onProgress: (done: number, total: number) => void, executor: Executor = serialExecutor()): Promise<{ out: RunOutput; rest: () => RunRest }> {
   const tStart = performance.now();
+  const hits0 = [cacheStats.phantom.hit, cacheStats.cells.hit, cacheStats.isochromats.hit];
   const iso = qualityOptions(req.quality, req.fatModel);
   const ac = new AbortController();
   let input: SimulateInput, prep, run;
   let tPrep = tStart, tEngine = tStart;
   // where the engine's time goes: before the executor session (plan, operator choice), and the chunks on the engine workers
   let tOpen = NaN, chunkMs = 0;
+  // where the chunks ran: a preview whose work is one job runs on this thread (the engine workers would add two
+  // message hops and the plan's copy for nothing); every executor gives the same bits (engine/executor.ts)
+  let ranOn = "";
   const timed: Executor = {
     open(plan, iso, jobs) {
       tOpen = performance.now();
-      const s = executor.open(plan, iso, jobs);
+      const here = req.quality === "preview" && jobs <= 1;
+      ranOn = here ? "the preview worker's own thread (one chunk)" : "the engine workers";
+      const s = (here ? local : executor).open(plan, iso, jobs);
       return {
         size: s.size, fillRfMaps: (c, sig) => s.fillRfMaps(c, sig), close: () => s.close(),
         async runChunks(c0, c1, onChunk, waitingFor, sig) {
@@ -188,11 +322,14 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     },
   };
   try {
+    // parsed here (as prepareSimulation would) so that the phantom comes from the cache
+    const parsedProtocol = parseProtocol(protocolInput(req.protocol), { source: req.protocol, sets: req.sets, resolve: resolvePreset, presets: [...presets.keys()] });
     input = {
-      protocol: protocolInput(req.protocol), protocolName: req.protocol,
-      phantom: phantomInput(req.phantom, req.b0Linear), phantomName: req.phantom, readArray: arrayReader(req.phantom),
-      sets: req.sets, resolveExtend: resolvePreset, presets: [...presets.keys()],
-      iso, executor: timed, signal: ac.signal,
+      parsedProtocol, protocolName: req.protocol,
+      parsedPhantom: phantomFor(req, parsedProtocol.field), phantomName: req.phantom,
+      sampleCells: cachedSampleCells, expandCells: cachedExpandCells,
+      iso, executor: timed, signal: ac.signal, readout: req.readout ?? (req.quality === "preview" ? PREVIEW_READOUT : undefined),
+      chunkIsochromats: req.chunkIsochromats ?? (req.quality === "preview" ? PREVIEW_CHUNK_ISOCHROMATS : undefined),
       // the through-slice convergence probe is part of the refined result only
       convergenceCheck: req.quality === "full",
       onProgress: (p) => {
@@ -221,8 +358,6 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   const image = new Float64Array(nRead * nPhase);
   for (let i = 0, o = plane * nRead * nPhase; i < image.length; i++) image[i] = Math.hypot(r.image.re[o + i]!, r.image.im[o + i]!);
   const kRead = r.kspace.read, kPhase = r.kspace.phase, kp = Math.floor(r.kspace.slice / 2) * kRead * kPhase;
-  const kmag = new Float64Array(kRead * kPhase);
-  for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(r.kspace.re[kp + i]!, r.kspace.im[kp + i]!);
   // the predicted shifts as report.json states them (fatShift.predicted); the page shows the prediction only
   const base = fatShiftInput(protocol, seq);
   const main = predictFatShift({ ...base, ppm: FAT_SINGLE_PPM });
@@ -242,22 +377,28 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
   const ro = run.engine.readout;
   const readout = Array.isArray(ro) ? ro.map((x) => x.operator).join(", ") : ro?.operator ?? "none";
   const out: RunOutput = {
-    quality: req.quality, protocol, nRead, nPhase, image, kmag, kRead, kPhase,
+    quality: req.quality, protocol, nRead, nPhase, image, kRead, kPhase,
     display: displayTransform(logicalAxes(protocol)),
     fatShift, check: null,
     warnings: [...new Set([...protocol.warnings, ...run.isoSummary.warnings])],
     isochromats: run.isoSummary.count,
-    engineMs: tSim - tStart, readout, kernels: readoutKernelName(),
+    engineMs: tSim - tStart, readout, ranOn,
+    reused: [cacheStats.phantom.hit, cacheStats.cells.hit, cacheStats.isochromats.hit].flatMap((h, i) => (h > hits0[i]! ? [["parsed phantom", "sampled cells", "isochromats"][i]!] : [])), kernels: readoutKernelName(),
     timings: {},
     iso,
-    kspaceNpy: vol(r.kspace), imageNpy: vol(r.image),
     derived: seq.derived as unknown as Record<string, unknown>,
     slicesRun: seqs.length > 1 ? `${seqs.length} slices; the middle one is shown` : "one slice",
   };
   const tEnd = performance.now();
   out.timings = { prepare: tPrep - tStart, engine: tEngine - tPrep, engineSetup: Number.isNaN(tOpen) ? tEngine - tPrep : tOpen - tPrep, engineChunks: chunkMs, recon: tRecon - tEngine, pack: tEnd - tRecon, total: tEnd - tStart };
   void input;
-  return out;
+  const rest = (): RunRest => {
+    const t = performance.now();
+    const kmag = new Float64Array(kRead * kPhase);
+    for (let i = 0; i < kmag.length; i++) kmag[i] = Math.hypot(r.kspace.re[kp + i]!, r.kspace.im[kp + i]!);
+    return { kmag, kspaceNpy: vol(r.kspace), imageNpy: vol(r.image), packMs: performance.now() - t };
+  };
+  return { out, rest };
 }
 
 /** A user error as the CLI prints it (without the "isofold: error: " prefix), with its key path. */

@@ -403,9 +403,17 @@ function show(o: RunOutput, g: number, stamps: { received: number; started: numb
   }, 0));
 }
 
-/** The views after the image: k-space, profile, numbers, check lines, warnings, controls. */
+/** A result whose image is painted but whose k-space view and .npy bytes (the worker's "rest" message) have not come yet. */
+let pendingRest: { o: RunOutput; g: number; executor: string } | null = null;
+
+/** The views after the image: k-space, profile, numbers, check lines, warnings, controls (once the rest of the result has come). */
 function showRest(o: RunOutput, g: number, executor: string): void {
   if (last !== o) return;
+  if (!o.kmag) {
+    pendingRest = { o, g, executor };
+    return;
+  }
+  pendingRest = null;
   const k = toDisplay(o.display, o.kmag, o.kRead, o.kPhase);
   grey($("kspace") as HTMLCanvasElement, k.values, k.width, k.height, true);
   $("orient").textContent = `${o.display.orientation}; rows ${o.display.rows}, columns ${o.display.cols}`;
@@ -427,7 +435,7 @@ function showRest(o: RunOutput, g: number, executor: string): void {
   }
   syncControls();
   $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread)" : "default quality";
-  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, kernels ${o.kernels}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
+  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, chunks on ${o.ranOn || "no engine run"}, kernels ${o.kernels}${o.reused.length ? `; kept from an earlier edit: ${o.reused.join(", ")}` : ""}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   if (o.quality === "full") {
     $("progress-wrap").hidden = true;
     (window as any).__preview.refined = g;
@@ -597,8 +605,8 @@ async function main(): Promise<void> {
     const bytes = insertTextChunks(new Uint8Array(await b.arrayBuffer()), { Description: SIMULATED_NOTE, Software: "isofold previewer" });
     download("image.png", new Blob([bytes as BlobPart], { type: "image/png" }));
   }, "image/png"));
-  $("x-kspace").addEventListener("click", () => last && download("kspace.npy", new Blob([last.kspaceNpy as BlobPart])));
-  $("x-image").addEventListener("click", () => last && download("image.npy", new Blob([last.imageNpy as BlobPart])));
+  $("x-kspace").addEventListener("click", () => last?.kspaceNpy && download("kspace.npy", new Blob([last.kspaceNpy as BlobPart])));
+  $("x-image").addEventListener("click", () => last?.imageNpy && download("image.npy", new Blob([last.imageNpy as BlobPart])));
 
   const onMessage = (ev: MessageEvent) => {
     const m = ev.data;
@@ -608,7 +616,20 @@ async function main(): Promise<void> {
     }
     if (ev.target === refiner && (m.t === "result" || m.t === "error" || m.t === "cancelled")) refining = false;
     if (m.gen !== gen) return;
+    if (m.t === "rest") {
+      // the k-space view and the .npy bytes of the result just shown
+      if (last && last.quality === m.quality && !last.kmag) {
+        const { packMs, ...rest } = m.rest as { packMs: number; kmag: Float64Array; kspaceNpy: Uint8Array; imageNpy: Uint8Array };
+        Object.assign(last, rest);
+        // the k-space bytes of the newest preview-quality result, for the tests (a reference: nothing is copied)
+        if (m.quality === "preview") Object.assign((window as any).__preview, { previewKspace: rest.kspaceNpy, previewGen: m.gen });
+        last.timings["packAfterPaint"] = packMs;
+        if (pendingRest?.o === last) showRest(last, pendingRest.g, pendingRest.executor);
+      }
+      return;
+    }
     if (m.t === "result") {
+      if (m.cache && ev.target === worker) (window as any).__preview.cache = m.cache;
       show(m.out as RunOutput, m.gen, m.stamps ?? null, m.executor ?? "");
       if (ev.target === worker && lastReq) {
         const req = { ...lastReq, quality: "full" }, g = m.gen as number;

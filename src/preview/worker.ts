@@ -9,7 +9,7 @@
  * older edit stops at the next engine chunk.
  */
 import { webWorkerExecutor, type Executor, type WebWorkerLike } from "../engine/index.js";
-import { Cancelled, checkRequest, putArray, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
+import { Cancelled, cacheStats, checkRequest, putArray, putInput, putPhantom, putPreset, runPreview, userMessage, type RunRequest } from "./engine.js";
 
 declare const self: { postMessage(m: unknown, transfer?: Transferable[]): void; onmessage: ((ev: MessageEvent) => void) | null };
 
@@ -32,11 +32,14 @@ const wall = (): number => performance.timeOrigin + performance.now();
 async function runOne(gen: number, req: RunRequest, received: number): Promise<void> {
   try {
     const started = wall();
-    const out = await runPreview(req, () => current() !== gen, (done, total) => {
+    const { out, rest } = await runPreview(req, () => current() !== gen, (done, total) => {
       if (req.quality === "full") self.postMessage({ t: "progress", gen, done, total });
     }, executor!);
     const stamps = { received, started, posted: wall() };
-    self.postMessage({ t: "result", gen, out, stamps, executor: executorName }, [out.image.buffer as ArrayBuffer, out.kmag.buffer as ArrayBuffer, out.kspaceNpy.buffer as ArrayBuffer, out.imageNpy.buffer as ArrayBuffer]);
+    self.postMessage({ t: "result", gen, out, stamps, executor: executorName, cache: cacheStats }, [out.image.buffer as ArrayBuffer]);
+    // the k-space view and the .npy bytes after the image (the page paints the image first; its exports wait for these)
+    const more = rest();
+    self.postMessage({ t: "rest", gen, quality: req.quality, rest: more }, [more.kmag.buffer as ArrayBuffer, more.kspaceNpy.buffer as ArrayBuffer, more.imageNpy.buffer as ArrayBuffer]);
     // the closed-form check after the image is on its way (the page paints first)
     if (req.quality === "preview" && current() === gen) self.postMessage({ t: "check", gen, check: checkRequest(req) });
   } catch (e) {
