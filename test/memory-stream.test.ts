@@ -43,6 +43,19 @@ describe("memory estimate of the streamed fast operator", () => {
     expect(streamed.isochromatBytes).toBeLessThan(stored.isochromatBytes / 4);
   }, 60_000);
 
+  test("the stored estimate follows the isochromats made with a T2′ spread, shared among a voxel's columns or not", () => {
+    // density 4 (16 columns per voxel), 16 T2′ values: 8 pairs cannot be shared among 16 columns, every column carries 16;
+    // density 2 (4 columns), 16 values: 8 pairs shared, 4 per column (isochromats/spread.ts spreadAssignment)
+    for (const density of [4, 2]) {
+      const o = { ...base, iso: { ...base.iso, density }, maxMemory: 2 ** 50 };
+      const p = prepare(o);
+      const geo = isoGeometry(p.protocol, p.slices[0]!.position);
+      const e = estimateMemory(p.phantom, geo, p.protocol.field, { ...o.iso, sliceCount: p.cells.wGrid.length }, p.seq, 1, 1, false);
+      expect(e.isochromats / p.cells.count, `density ${density}`).toBeGreaterThan(0.5);
+      expect(e.isochromats / p.cells.count, `density ${density}`).toBeLessThan(2);
+    }
+  }, 60_000);
+
   test("a limit between the two estimates: the fast run streams (no refusal, no isochromat made); the direct one is refused before its isochromats", async () => {
     const probe = prepare({ ...base, maxMemory: 2 ** 50 });
     const geo = isoGeometry(probe.protocol, probe.slices[0]!.position);

@@ -69,8 +69,10 @@ function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: Is
   const f = Math.max(1, Math.ceil(matrix / 64));
   const sc = Math.min(iso.sliceCount, 4);
   const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
-  // a voxel's T2′ spread of n values is shared among its density² columns (at least one value each)
-  const spread = Math.max(1, Math.ceil((iso.t2primeIsochromats ?? 1) / (iso.density * iso.density)));
+  // a voxel's T2′ spread of n values is shared among its density² columns in pairs where
+  // n/2 is a whole multiple of density² (isochromats/spread.ts spreadAssignment); else every column carries all n
+  const n = iso.t2primeIsochromats ?? 1, d2 = iso.density * iso.density, pairs = n >> 1;
+  const spread = n % 2 === 0 && d2 > 1 && pairs >= d2 && pairs % d2 === 0 ? n / d2 : n;
   const inPlane = (f * iso.density) ** 2;
   const columns = Math.ceil(coarse.columns * inPlane);
   // cells: at most one per isochromat; each coarse isochromat without T2′ spread stands for one tissue and peak of a cell
