@@ -117,12 +117,12 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
     const p = prep(["spoiling=ideal", "fov.read=12 cm", "fov.phase=12 cm"], { iso: { t2primeIsochromats: 2, density: 2 } });
     const array = { elements: 4, rows: 1, loopRadius: 0.04, arrayRadius: 0.15, rowSpacing: 0, zCentre: 0 };
     for (const receiverFilter of [true, false]) {
-      const fast = await simulateCoilsPlanned(p.seq, p, array, receiverFilter, 1, undefined, { readout: "fast" });
+      const fast = await simulateCoilsPlanned(p.seq, p, array, receiverFilter, serialExecutor(), undefined, { readout: "fast" });
       expect(fast.readout[0]!.operator).toBe("fast");
       expect(fast.readout[0]!.weights).toMatch(/streamed/);
       expect(fast.kspace.coils).toBe(5);
       // the oracle: every isochromat with its own Biot–Savart sensitivity through the direct readout
-      const direct = await simulateCoilsPlanned(p.seq, p.iso, array, receiverFilter, 1, undefined, { readout: "direct" });
+      const direct = await simulateCoilsPlanned(p.seq, p.iso, array, receiverFilter, serialExecutor(), undefined, { readout: "direct" });
       expect(direct.readout[0]!.operator).toBe("direct");
       const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
       expect(err).toBeLessThan(1e-6);

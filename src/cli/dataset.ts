@@ -29,6 +29,7 @@ import { Progress } from "./progress.js";
 import { withOutputDir } from "../io/outpath.js";
 import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
+import { nodeExecutor } from "../engine/pool.js";
 
 export interface DatasetCliOptions {
   /** Engine worker threads (from the shared simulation options). */
@@ -326,7 +327,7 @@ function snrFactorsOf(p: Protocol, seq: { kspace: { slice: number; phase: number
  */
 async function physicalNoise(phantomFile: string, reference: Protocol, refName: string, snr: number, protocol: Protocol, iso: ReturnType<typeof isoOptions>, o: DatasetCliOptions) {
   const ref = prepare({ phantom: phantomFile, protocol: refName, sets: [], out: o.out, seed: o.seed, iso, quiet: true });
-  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, o.workers ?? defaultWorkers(), undefined, datasetEngine(o));
+  const k = await simulateCoils(ref.seq, ref.iso, { elements: 0, rows: 1, loopRadius: 0, arrayRadius: 0, rowSpacing: 0, zCentre: 0 }, reference.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), undefined, datasetEngine(o));
   const img = ref.seq.image;
   const v = toImageGrid(k.re, k.im, 1, ref.seq.kspace, img, ref.seq.grid);
   const meanSignal = snrSigma(v.re, v.im, 1).meanSignal;
@@ -400,7 +401,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
     const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
-    const sim = await simulateCoilsPlanned(seq, prepared, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), datasetEngine(o));
+    const sim = await simulateCoilsPlanned(seq, prepared, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), datasetEngine(o));
     const r = buildCase(seq, sim, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
       affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
@@ -584,7 +585,7 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const m = enclosureMargin(array, iso.x, iso.y, iso.count);
     if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
     const progress = new Progress("simulating coils", "chunk", o.quiet);
-    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, o.workers ?? defaultWorkers(), (d, t) => progress.update(d, t), {
+    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), {
       chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}),
     });
     progress.done();

@@ -4,10 +4,11 @@
  * isochromat before the readout (exact). Isochromats are simulated in blocks
  * of whole columns so that the sensitivity array (2·coils·isochromats
  * numbers) stays within SENS_BUDGET; the signal is linear in the
- * isochromats, so block k-spaces add. Each block runs on the engine's worker
- * pool (bitwise the same k-space for any number of workers).
+ * isochromats, so block k-spaces add. Each block runs on the executor the
+ * caller gives (worker_threads in Node, Web Workers or serial in a browser;
+ * bitwise the same k-space whichever runs it), so this module needs no Node.
  */
-import { nodeExecutor, simulateCells, simulateParallel, type EnginePlan, type KSpace } from "../engine/node.js";
+import { simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace } from "../engine/index.js";
 import type { ReadoutChoice, ReadoutReport } from "../engine/fast.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatCells, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
@@ -33,11 +34,11 @@ export function subsetColumns(iso: IsochromatSet, c0: number, c1: number): Isoch
 export type CoilSource = IsochromatSet | { cells: IsochromatCells; readonly iso: IsochromatSet };
 
 export async function simulateCoils(
-  seq: Sequence, iso: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
+  seq: Sequence, iso: CoilSource, array: CoilArray, receiverFilter: boolean, executor: Executor,
   onProgress?: (done: number, total: number) => void,
   engine: CoilEngineOptions = {},
 ): Promise<KSpace> {
-  return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, workers, onProgress, engine)).kspace;
+  return (await simulateCoilsPlanned(seq, iso, array, receiverFilter, executor, onProgress, engine)).kspace;
 }
 
 /** Engine options of a coil run: chunk size, kernels, and the readout operator with its tolerance (as `simulate --readout/--tolerance`). */
@@ -50,18 +51,18 @@ export interface CoilEngineOptions {
 
 /** simulateCoils, also returning the engine plan (of the last block) and what the readout operator did (one report per block). */
 export async function simulateCoilsPlanned(
-  seq: Sequence, src: CoilSource, array: CoilArray, receiverFilter: boolean, workers: number,
+  seq: Sequence, src: CoilSource, array: CoilArray, receiverFilter: boolean, executor: Executor,
   onProgress?: (done: number, total: number) => void,
   engine: CoilEngineOptions = {},
 ): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport[] }> {
   const C = array.elements === 0 ? 1 : coilCount(array) + 1;
-  if (!("cells" in src)) return storedCoils(seq, src, array, C, receiverFilter, workers, onProgress, engine);
+  if (!("cells" in src)) return storedCoils(seq, src, array, C, receiverFilter, executor, onProgress, engine);
   // Where the fast operator applies, the sensitivities multiply its per-position
   // weights (engine/fast-stream.ts): per column and through-slice cell, at the
   // cell centre (the position of that cell's isochromats), no isochromat stored;
   // a coil then costs its share of the fold and an FFT per (rank, segment).
   const opts = { receiverFilter, onProgress, ...engine };
-  const exec = nodeExecutor(workers);
+  const exec = executor;
   const one = async (r: Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport }>) => {
     const x = await r;
     return { kspace: x.kspace, plan: x.plan, readout: [x.readout] };
@@ -77,7 +78,7 @@ export async function simulateCoilsPlanned(
       },
     },
     stored: async (o) => {
-      const r = await storedCoils(seq, src.iso, array, C, receiverFilter, workers, onProgress, { ...engine, readout: o.readout });
+      const r = await storedCoils(seq, src.iso, array, C, receiverFilter, executor, onProgress, { ...engine, readout: o.readout });
       storedReports = r.readout;
       return { kspace: r.kspace, plan: r.plan, readout: r.readout[0]! };
     },
@@ -89,12 +90,12 @@ export async function simulateCoilsPlanned(
 
 /** Every coil per isochromat (sensitivities stored per isochromat, in blocks of columns). */
 async function storedCoils(
-  seq: Sequence, iso: IsochromatSet, array: CoilArray, C: number, receiverFilter: boolean, workers: number,
+  seq: Sequence, iso: IsochromatSet, array: CoilArray, C: number, receiverFilter: boolean, executor: Executor,
   onProgress?: (done: number, total: number) => void,
   engine: CoilEngineOptions = {},
 ): Promise<{ kspace: KSpace; plan: EnginePlan; readout: ReadoutReport[] }> {
   if (C === 1) {
-    const r = await simulateParallel(seq, iso, { receiverFilter, workers, onProgress, ...engine });
+    const r = await simulateWith(executor, seq, iso, { receiverFilter, onProgress, ...engine });
     return { kspace: r.kspace, plan: r.plan, readout: [r.readout] };
   }
   const readout: ReadoutReport[] = [];
@@ -116,8 +117,8 @@ async function storedCoils(
     const sens = new Float64Array(2 * C * sub.count);
     sensitivitiesAt({ ...array, elements: 0 }, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 0);
     sensitivitiesAt(array, sub.x, sub.y, sub.z, sub.count, sens, sub.count, 1);
-    const { kspace, plan: p, readout: rep } = await simulateParallel(seq, sub, {
-      receiverFilter, coils: C, sens, workers, ...engine,
+    const { kspace, plan: p, readout: rep } = await simulateWith(executor, seq, sub, {
+      receiverFilter, coils: C, sens, ...engine,
       onProgress: (d, t) => onProgress?.(k * t + d, blocks.length * t),
     });
     plan = p;
