@@ -222,8 +222,9 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     }
     const geo = isoGeometry(protocol, position);
     // slices run one after another: one slice's isochromats and k-space must fit
-    // the cells alone (streamed fast operator) where no B0 model and no per-isochromat coil run asks for stored isochromats
-    const mayStream = input.readout !== "direct" && phantom.b0 === null && !input.runEngine;
+    // the cells alone (streamed fast operator) where no per-isochromat coil run asks for stored isochromats
+    // (a B0 model streams too: its classes are hashed from the cells, engine/fast-stream.ts)
+    const mayStream = input.readout !== "direct" && !input.runEngine;
     const check = (stored: boolean) => input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq, stored });
     if (slices.length === 0) check(!mayStream);
     const iso = (input.sampleCells ?? sampleCells)(phantom, geo, protocol.field, isoOpts);

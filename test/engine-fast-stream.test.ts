@@ -7,9 +7,12 @@
  * Time segmentation after Noll et al. 1991 (IEEE TMI 10:629) with
  * least-squares interpolators after Sutton, Noll & Fessler 2003 (IEEE TMI
  * 22:178). Also: the cell sampling expands to exactly the isochromats it
- * counts, and a B0 model sends the run to the stored path, saying so.
+ * counts, and a B0 model (expression or .npy field map) streams too, its
+ * RF classes hashed from the cells: the same classes as the stored
+ * isochromats' (plan.ts rfClasses), so the same k-space as the fast operator
+ * on stored isochromats; too many classes send the run to the stored path.
  */
-import { readFileSync } from "node:fs";
+import { readFileSync, writeFileSync } from "node:fs";
 import { join } from "node:path";
 import fc from "fast-check";
 import { describe, expect, test } from "vitest";
@@ -17,12 +20,26 @@ import { prepare } from "../src/cli/pipeline.js";
 import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
 import { expandCells, type IsochromatOptions } from "../src/isochromats/index.js";
 import { relL2, tempDir, writeJson } from "./helpers.js";
+import { CellStream } from "../src/engine/fast-stream.js";
+import { rfClasses } from "../src/engine/plan.js";
+import { encodeNpy } from "../src/io/npy.js";
 
-function phantomFile(b0?: string): string {
+function phantomFile(b0?: string | "npy"): string {
   if (!b0) return "phantoms/two-bottle.json";
   const j = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;
-  j["b0"] = { expression: b0 };
-  return writeJson(tempDir(), "phantom.json", j);
+  const dir = tempDir();
+  if (b0 === "npy") {
+    // a small 2-D map (5 × 6 points, 2 cm apart, z-independent) of seeded pseudo-random values in −40 … 40 Hz, interpolated trilinearly
+    const data: number[] = [];
+    let x = 12345;
+    for (let i = 0; i < 30; i++) {
+      x = (x * 1103515245 + 12345) % 2147483648;
+      data.push((x / 2147483648) * 80 - 40);
+    }
+    writeFileSync(join(dir, "map.npy"), encodeNpy({ dtype: "float64", shape: [5, 6], data }));
+    j["b0"] = { fieldMap: { file: "map.npy", origin: ["-5 cm", "-4 cm", "0 cm"], spacing: ["2 cm", "2 cm", "1 cm"] } };
+  } else j["b0"] = { expression: b0 };
+  return writeJson(dir, "phantom.json", j);
 }
 
 function prep(sets: string[], opts: { protocol?: string; b0?: string; phantom?: string; iso?: Partial<IsochromatOptions>; matrix?: number } = {}) {
@@ -67,15 +84,39 @@ describe("streamed fast operator against the direct operator", () => {
     expect(relL2(fast.kspace.re, fast.kspace.im, stored.kspace.re, stored.kspace.im)).toBeLessThan(2e-6);
   }, 60_000);
 
-  test("a B0 model sends the run to the stored isochromats (fast there), within the tolerance of direct", async () => {
-    const p = prep(["spoiling=ideal"], { b0: "60 * x / 0.05" });
+  test.each([
+    ["B0 expression (linear gradient + offset)", "60 * x / 0.05 + 15"],
+    ["B0 from a small .npy field map", "npy"],
+  ])("%s, with multi-peak fat and a T2′ spread: streamed, within the tolerance of direct, estimate bounds the error", async (_name, b0) => {
+    const p = prep(["spoiling=ideal"], { b0, iso: { t2primeIsochromats: 2 } });
+    // the hashed classes are those of the stored isochromats (same count, same parameters as a set)
+    const s = new CellStream(p.cells);
+    const ref = rfClasses(p.iso);
+    expect(s.tooMany).toBeNull();
+    expect(s.spec.classes).toBe(ref.classes);
+    expect(s.spec.classes).toBeGreaterThan(p.cells.columns); // Δf varies per cell: more classes than the tissue enumeration would give
+    const keys = (c: { classes: number; classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array }) =>
+      Array.from({ length: c.classes }, (_, i) => `${c.classW[i]}|${c.classDf[i]}|${c.classR1[i]}|${c.classR2[i]}`).sort();
+    expect(keys(s.spec)).toEqual(keys(ref));
     const fast = await streamed(p);
     expect(fast.readout.operator).toBe("fast");
-    expect(fast.readout.weights).toBeUndefined();
-    expect(fast.stored).toBe(1);
+    expect(fast.readout.weights).toMatch(/streamed/);
+    expect(fast.stored).toBe(0);
     const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
-    expect(relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-6);
+    expect(fast.readout.estimate!.relL2).toBeGreaterThanOrEqual(err);
+    // the B0 model matters: without it the k-space differs by far more than the tolerance
+    const noB0 = await streamed(prep(["spoiling=ideal"], { iso: { t2primeIsochromats: 2 } }));
+    expect(relL2(noB0.kspace.re, noB0.kspace.im, direct.kspace.re, direct.kspace.im)).toBeGreaterThan(1e-3);
   }, 60_000);
+
+  test("a B0 model with more classes than the stream allows: refused with a reason (the caller then stores the isochromats)", () => {
+    const p = prep(["spoiling=ideal"], { b0: "60 * x / 0.05" });
+    const s = new CellStream(p.cells, null, 10);
+    expect(s.tooMany).toMatch(/more than 10 RF classes/);
+    expect(new CellStream(p.cells).tooMany).toBeNull();
+  });
 
   test("spin echo: not covered, the direct operator's bits", async () => {
     const p = prep([], { protocol: "se-t2-1.5t" });

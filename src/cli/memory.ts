@@ -3,6 +3,7 @@
  * that would not fit. The isochromat count is estimated by sampling the
  * phantom on a coarse grid (the real sampler, fewer cells) and scaling.
  */
+import { MAX_STREAM_CLASSES } from "../engine/fast-stream.js";
 import { availableParallelism, totalmem } from "node:os";
 import { UserError } from "../errors.js";
 import { makeIsochromats, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
@@ -92,13 +93,18 @@ function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: Is
  * Where the run later stores its isochromats after all, the check runs again
  * before they are made (api.ts beforeIsochromats, `stored`).
  */
+/** Per RF class of a B0 model streamed (engine/fast-stream.ts): w, Δf, r1, r2 (32 B), hash key and slot (~40 B), RF maps (96 B per pulse). */
+const BYTES_PER_B0_CLASS = 168;
+
 export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, seq: Sequence, workers: number, coils = 1, streamed = false): MemoryEstimate {
   const matrix = Math.max(seq.kspace.read, seq.kspace.phase);
   const { count: n, columns, cells, extent } = estimateSampling(ph, geo, fieldT, iso, matrix);
   const ks = coils * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * 16;
   const isochromatBytes = streamed
     ? cells * BYTES_PER_CELL + columns * BYTES_PER_COLUMN + coils * STREAM_SEGMENTS * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * iso.density * 16 +
-      Math.max(STREAM_BLOCK_BYTES, seq.kspace.phase * iso.density * coils * STREAM_RANKS * STREAM_SEGMENTS * 16)
+      Math.max(STREAM_BLOCK_BYTES, seq.kspace.phase * iso.density * coils * STREAM_RANKS * STREAM_SEGMENTS * 16) +
+      // a B0 model: the class id of every isochromat (4 B) and up to one class each (table, hash keys, RF maps)
+      (ph.b0 ? n * 4 + Math.min(n, MAX_STREAM_CLASSES) * BYTES_PER_B0_CLASS : 0)
     : n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
   const kspaceBytes = ks * (4 + 3 * workers + 4);
   const workerBytes = workers * WORKER_SCRATCH_BYTES;

@@ -199,6 +199,10 @@ export async function simulateCells(
   const stored = () => storedWith(opts);
   if (requested === "direct" || opts.general || (opts.coils ?? 1) !== 1 || opts.sens || CellStream.refusal(cells) !== null) return stored();
   const stream = new CellStream(cells, coils?.sens ?? null);
+  if (stream.tooMany !== null) {
+    const res = await storedWith(opts);
+    return { ...res, readout: { ...res.readout, weights: stream.tooMany } };
+  }
   const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1 });
   if (fastPrecheck(plan) !== null) return stored();
   let auto: { choice?: ReadoutOperator; predicted?: ReadoutCosts } = {};

@@ -10,8 +10,13 @@
  * same terms, in the same order, as the isochromats expandCells stores
  * (isochromats/index.ts cellTerms). A column is then Σ over its cells of
  * pd·fraction × its terms, folded into the (line rank, segment) weights.
- * With a B0 model the per-position Δf makes the classes as many as the
- * isochromats; that case is left to the stored path (the caller says so).
+ * With a B0 model the Δf of an isochromat is its cell's B0 plus the term's
+ * offset, so the classes are hashed in one pass over the cells (exactly as
+ * plan.ts rfClasses hashes stored isochromats: through-slice index and the
+ * bits of Δf, r1, r2); only the class id of each term is kept (4 bytes per
+ * isochromat, against the stored set's arrays), and the class table.
+ * Where the classes are too many for the operator (MAX_CLASSES here, the line
+ * factor's size in fast.ts fastPrecheck) the caller runs the stored path.
  */
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
@@ -19,6 +24,10 @@ import { receiverFilter } from "./chunk.js";
 import { estimateOver, pivotedBasis, project, type ColumnVisitor, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { sharedF64 } from "./plan.js";
+import { f64Words, TupleIndex } from "./hash.js";
+
+/** More RF classes than this (a B0 model giving each cell its own Δf) are not hashed: the stored path runs. */
+export const MAX_STREAM_CLASSES = 1 << 22;
 
 /**
  * Complex receive sensitivities of `coils` coils at `count` points (m):
@@ -45,9 +54,15 @@ export class CellStream {
 
   /** A reason the cells cannot be streamed (the stored path then runs), or null. */
   static refusal(cells: IsochromatCells): string | null {
-    if (cells.hasB0) return "the phantom has a B0 model (Δf varies with position): the weights come from stored isochromats";
+    void cells;
     return null;
   }
+
+  /** With a B0 model: terms of entry e have classes eClass[eT0[e]] …; null without one. */
+  private readonly eT0: Int32Array | null = null;
+  private readonly eClass: Int32Array | null = null;
+  /** With a B0 model whose classes exceed the limit: why the cells were not streamed (then spec is empty). */
+  readonly tooMany: string | null = null;
 
   /** Per column: sensitivities of its nw cells (2·coils·nw numbers), cached when they fit SENS_CACHE. */
   private sensCache: Float64Array | null = null;
@@ -76,7 +91,7 @@ export class CellStream {
     sens.at(this.px, this.py, this.pz, nw, out);
   }
 
-  constructor(readonly cells: IsochromatCells, readonly sens: CellSensitivities | null = null) {
+  constructor(readonly cells: IsochromatCells, readonly sens: CellSensitivities | null = null, maxClasses = MAX_STREAM_CLASSES) {
     {
       const nw = cells.wGrid.length;
       this.px = new Float64Array(nw);
@@ -142,7 +157,73 @@ export class CellStream {
       x.set(a);
       return x;
     };
-    this.spec = { rfClass: new Int32Array(0), classes: cw.length, classW: sf(cw), classDf: sf(cdf), classR1: sf(cr1), classR2: sf(cr2) };
+    if (!cells.hasB0) {
+      this.spec = { rfClass: new Int32Array(0), classes: cw.length, classW: sf(cw), classDf: sf(cdf), classR1: sf(cr1), classR2: sf(cr2) };
+      return;
+    }
+    // B0 model: each term's Δf = ((B0(r) + offset) + peak Δf) + spread Δf, in the
+    // order of isochromats/index.ts expandCells, so the bits (and the classes) are
+    // those of the stored isochromats.
+    const ph = ctx.phantom, axes = ctx.axes, b0f = ph.b0!;
+    const qb = terms.map((row) => row.map((tt) => (tt ? { q: Int32Array.from(tt.q), bin: Int32Array.from(tt.bin) } : null)));
+    const ne = cells.entW.length, eT0 = new Int32Array(ne + 1);
+    for (let col = 0; col < cells.columns; col++) {
+      const sub = cells.colSub[col]!;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
+        eT0[e + 1] = zStart[z + 1]! - zStart[z]!;
+      }
+    }
+    for (let e = 0; e < ne; e++) eT0[e + 1] = eT0[e + 1]! + eT0[e]!;
+    const eClass = new Int32Array(eT0[ne]!);
+    const tidx = new TupleIndex(7, 1024), key = new Uint32Array(7);
+    let over = false;
+    for (let col = 0; col < cells.columns && !over; col++) {
+      const sub = cells.colSub[col]!, u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const c = cells.entW[e]!, ti = cells.entTissue[e]!, w = cells.wGrid[c]!;
+        const b0 = b0f(axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w, axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w, axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w) + ctx.offsetHz;
+        const tt = qb[ti]![sub]!, pk = ctx.peaks[ti]!, sdf = ctx.spreadDf[ti]!;
+        key[0] = c;
+        f64Words(ctx.r1[ti]!, key, 3);
+        f64Words(ctx.r2[ti]!, key, 5);
+        for (let j = 0; j < tt.q.length; j++) {
+          f64Words(b0 + pk.df[tt.q[j]!]! + sdf[tt.bin[j]!]!, key, 1);
+          eClass[eT0[e]! + j] = tidx.id(key, 0);
+        }
+        if (tidx.size > maxClasses) {
+          over = true;
+          break;
+        }
+      }
+    }
+    if (over) {
+      this.tooMany = `the phantom's B0 model gives more than ${maxClasses.toLocaleString("en")} RF classes (Δf varies per cell): the weights come from stored isochromats`;
+      this.spec = { rfClass: new Int32Array(0), classes: 0, classW: sf([]), classDf: sf([]), classR1: sf([]), classR2: sf([]) };
+      return;
+    }
+    const C = tidx.size, k = tidx.keys;
+    const classW = sharedF64(C).subarray(0, C), classDf = sharedF64(C).subarray(0, C), classR1 = sharedF64(C).subarray(0, C), classR2 = sharedF64(C).subarray(0, C);
+    const w2 = new Uint32Array(2), f2 = new Float64Array(w2.buffer);
+    const word = (c: number, o: number) => {
+      w2[0] = k[c * 7 + o]!;
+      w2[1] = k[c * 7 + o + 1]!;
+      return f2[0]!;
+    };
+    for (let c = 0; c < C; c++) {
+      classW[c] = cells.wGrid[k[c * 7]!]!;
+      classDf[c] = word(c, 1);
+      classR1[c] = word(c, 3);
+      classR2[c] = word(c, 5);
+    }
+    this.eT0 = eT0;
+    this.eClass = eClass;
+    this.spec = { rfClass: new Int32Array(0), classes: C, classW, classDf, classR1, classR2 };
+  }
+
+  /** Class of term t (of combination z) of entry e. */
+  private classAt(e: number, z: number, t: number): number {
+    return this.eClass ? this.eClass[this.eT0![e]! + t - this.zStart[z]!]! : this.zClass[t]!;
   }
 
   /** Each class's through-slice index and magnetization Σ|m0|. */
@@ -150,6 +231,20 @@ export class CellStream {
     const { cells, T, D2, zStart, zClass, zF } = this;
     const C = this.spec.classes, classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
     const nw = cells.wGrid.length, pd = cells.ctx.pd;
+    if (this.eClass) {
+      for (let col = 0; col < cells.columns; col++) {
+        const sub = cells.colSub[col]!;
+        for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+          const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, a = Math.abs(pd[ti]! * cells.entFrac[e]!);
+          for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+            const k = this.classAt(e, z, t);
+            classIw[k] = cells.entW[e]!;
+            mass[k] = mass[k]! + a * Math.abs(zF[t]!);
+          }
+        }
+      }
+      return { classIw, mass };
+    }
     const fsum = new Float64Array(nw * T * D2);
     for (let col = 0; col < cells.columns; col++) {
       const sub = cells.colSub[col]!;
@@ -188,7 +283,7 @@ export class CellStream {
     const W = r1 - r0, filt = plan.receiverFilter, pd = cells.ctx.pd, uGrid = cells.uGrid;
     const nw = cells.wGrid.length, hasSens = this.sens !== null;
     // per term: its key and f·G_r(class) for the ranks of this pass
-    const nt0 = zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
+    const b0 = this.eClass !== null, nt0 = b0 ? 0 : zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
     for (let t = 0; t < nt0; t++) {
       const c = zClass[t]!, f = zF[t]!;
       tKey[t] = keyOf[c]!;
@@ -208,7 +303,7 @@ export class CellStream {
     const WL = W * L, perW = hasSens ? nw : 1;
     const full: { keys: Int32Array; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
     const complete = new Uint8Array(T * D2);
-    for (let ti = 0; ti < T; ti++) {
+    for (let ti = 0; ti < T && !b0; ti++) {
       for (let sub = 0; sub < D2; sub++) {
         let ok = 1;
         const keySet = new Set<number>();
@@ -320,7 +415,7 @@ export class CellStream {
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-          const k = tKey[t]!;
+          const cl = b0 ? this.classAt(e, z, t) : -1, k = b0 ? keyOf[cl]! : tKey[t]!, f = zF[t]!;
           if (seen[k] === 0) {
             seen[k] = 1;
             touched[nt++] = k;
@@ -329,7 +424,8 @@ export class CellStream {
           for (let q = 0; q < coils; q++) {
             const gr = S[2 * (q * nw + c)]! * fp, gi = S[2 * (q * nw + c) + 1]! * fp, o = 2 * (k * CW + q * W);
             for (let r = 0; r < W; r++) {
-              const zr = tVal[tv + 2 * r]!, zi = tVal[tv + 2 * r + 1]!;
+              // with a B0 model: f·G_r(class) of this term's own class (no per-term table)
+              const zr = b0 ? G[2 * (cl * R + r0 + r)]! * f : tVal[tv + 2 * r]!, zi = b0 ? G[2 * (cl * R + r0 + r) + 1]! * f : tVal[tv + 2 * r + 1]!;
               acc[o + 2 * r] = acc[o + 2 * r]! + (zr * gr - zi * gi);
               acc[o + 2 * r + 1] = acc[o + 2 * r + 1]! + (zr * gi + zi * gr);
             }
@@ -367,7 +463,7 @@ export class CellStream {
     let cap = 64;
     for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
     const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap), iw = new Int32Array(cap);
-    const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1;
+    const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1, classDf = this.spec.classDf;
     const S = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
     return (visit, addSamples, setup) => {
       // A column of one tissue at one fraction through every w, where the receiver
@@ -379,6 +475,13 @@ export class CellStream {
       const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
+          if (this.eClass) {
+            // B0 model: classes differ per cell, no per-tissue table
+            Y.push(null);
+            Ysum.push(new Float64Array(0));
+            keysOf.push(new Int32Array(0));
+            continue;
+          }
           const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
           let ok = true;
           for (let c = 0; c < nw; c++) {
@@ -451,9 +554,10 @@ export class CellStream {
         for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
           const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
           for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-            cls[n] = zClass[t]!;
+            const cl = this.classAt(e, z, t);
+            cls[n] = cl;
             m0[n] = fp * zF[t]!;
-            df[n] = zDf[t]!;
+            df[n] = this.eClass ? classDf[cl]! : zDf[t]!;
             iw[n] = cells.entW[e]!;
             n++;
           }
@@ -492,7 +596,7 @@ export class CellStream {
       let n = 0;
       for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
         const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
-        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) cls[n++] = zClass[t]!;
+        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) cls[n++] = this.classAt(e, z, t);
       }
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);
     }
