@@ -7,7 +7,7 @@
  * Byte counts are our own accounting of our arrays; the checks compare the
  * estimates with the arrays the run actually made.
  */
-import { mkdtempSync, rmSync } from "node:fs";
+import { mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, describe, expect, test } from "vitest";
@@ -78,5 +78,39 @@ describe("memory estimate of the streamed fast operator", () => {
     expect(() => fast.iso).toThrow(/--max-memory: .*isochromats/);
     // direct: refused up front
     expect(() => prepare({ ...base, readout: "direct", maxMemory: limit })).toThrow(/--max-memory: .*isochromats × 160 B/);
+  }, 60_000);
+
+  test("a B0 model streams: the estimate covers the class ids and classes the stream made, fewer bytes than the stored path's arrays, and the run streams within its estimate", async () => {
+    const dir = mkdtempSync(join(tmp, "b0-"));
+    const j = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;
+    j["b0"] = { expression: "60 * x / 0.05 + 15" };
+    writeFileSync(join(dir, "p.json"), JSON.stringify(j));
+    const o = { ...base, phantom: join(dir, "p.json"), iso: { ...base.iso, density: 2, t2primeIsochromats: 4 } };
+    const probe = prepare({ ...o, maxMemory: 2 ** 50 });
+    const geo = isoGeometry(probe.protocol, probe.slices[0]!.position);
+    const opts = { ...o.iso, sliceCount: probe.cells.wGrid.length };
+    const stored = estimateMemory(probe.phantom, geo, probe.protocol.field, opts, probe.seq, 1, 1, false);
+    const streamed = estimateMemory(probe.phantom, geo, probe.protocol.field, opts, probe.seq, 1, 1, true);
+    const { CellStream } = await import("../src/engine/fast-stream.js");
+    const s = new CellStream(probe.cells);
+    // arrays made: cells (16 B per entry, 20 B per column), a class id per isochromat, per class w, Δf, r1, r2 and 12 RF-map numbers
+    const made = probe.cells.entW.length * 16 + probe.cells.columns * 20 + probe.cells.count * 4 + s.spec.classes * (32 + 96);
+    expect(s.spec.classes).toBeGreaterThan(probe.cells.columns);
+    expect(streamed.isochromatBytes).toBeGreaterThan(made);
+    // the arrays the stored path would make: the isochromats, their class ids and the same classes (plan.ts rfClasses)
+    const storedMade = probe.cells.count * (BYTES_PER_ISOCHROMAT + 4) + s.spec.classes * (32 + 96);
+    expect(made).toBeLessThan(storedMade);
+    // a limit the streamed estimate just fits (at this small size the grids outweigh the stored isochromats): the run streams
+    const limit = streamed.bytes * 1.01;
+    const fast = prepare({ ...o, readout: "fast", maxMemory: limit });
+    const { serialExecutor, simulateCells } = await import("../src/engine/index.js");
+    let expanded = false;
+    const r = await simulateCells(serialExecutor(), fast.seq, fast.cells, () => {
+      expanded = true;
+      return fast.iso;
+    }, { receiverFilter: fast.protocol.receiverFilter, readout: "fast" });
+    expect(r.readout.operator).toBe("fast");
+    expect(r.readout.weights).toMatch(/streamed/);
+    expect(expanded).toBe(false);
   }, 60_000);
 });

@@ -3,6 +3,7 @@
  * that would not fit. The isochromat count is estimated by sampling the
  * phantom on a coarse grid (the real sampler, fewer cells) and scaling.
  */
+import { MAX_CLASS_LINES } from "../engine/fast.js";
 import { MAX_STREAM_CLASSES } from "../engine/fast-stream.js";
 import { availableParallelism, totalmem } from "node:os";
 import { UserError } from "../errors.js";
@@ -103,8 +104,8 @@ export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, is
   const isochromatBytes = streamed
     ? cells * BYTES_PER_CELL + columns * BYTES_PER_COLUMN + coils * STREAM_SEGMENTS * seq.kspace.slice * seq.kspace.phase * seq.kspace.read * iso.density * 16 +
       Math.max(STREAM_BLOCK_BYTES, seq.kspace.phase * iso.density * coils * STREAM_RANKS * STREAM_SEGMENTS * 16) +
-      // a B0 model: the class id of every isochromat (4 B) and up to one class each (table, hash keys, RF maps)
-      (ph.b0 ? n * 4 + Math.min(n, MAX_STREAM_CLASSES) * BYTES_PER_B0_CLASS : 0)
+      // a B0 model: the class id of every isochromat (4 B) and up to one class each, at most as many as the line factor holds (table, hash keys, RF maps)
+      (ph.b0 ? n * 4 + Math.min(n, MAX_STREAM_CLASSES, Math.floor(MAX_CLASS_LINES / Math.max(1, seq.blocks.filter((b) => b.kind === "adc").length))) * BYTES_PER_B0_CLASS : 0)
     : n * (BYTES_PER_ISOCHROMAT + 16 * (coils > 1 ? coils : 0));
   const kspaceBytes = ks * (4 + 3 * workers + 4);
   const workerBytes = workers * WORKER_SCRATCH_BYTES;

@@ -13,11 +13,11 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { chunkStarts, fillRfMaps, planFromClasses, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
-import { CellStream, type CellSensitivities } from "./fast-stream.js";
+import { CellStream, MAX_STREAM_CLASSES, type CellSensitivities } from "./fast-stream.js";
 import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import {
-  DEFAULT_TOLERANCE, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, resolveReadout,
+  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
 } from "./fast.js";
 
@@ -198,7 +198,9 @@ export async function simulateCells(
   const storedWith = (o: RunOptions) => (coils ? coils.stored(o) : simulateWith(executor, seq, materialise(), o));
   const stored = () => storedWith(opts);
   if (requested === "direct" || opts.general || (opts.coils ?? 1) !== 1 || opts.sens || CellStream.refusal(cells) !== null) return stored();
-  const stream = new CellStream(cells, coils?.sens ?? null);
+  // with a B0 model the classes are hashed from the cells, stopping where the line factor could not hold them (fastPrecheck)
+  const nAdc = seq.blocks.reduce((n, b) => n + (b.kind === "adc" ? 1 : 0), 0);
+  const stream = new CellStream(cells, coils?.sens ?? null, Math.min(MAX_STREAM_CLASSES, Math.floor(MAX_CLASS_LINES / Math.max(1, nAdc))));
   if (stream.tooMany !== null) {
     const res = await storedWith(opts);
     return { ...res, readout: { ...res.readout, weights: stream.tooMany } };

@@ -198,7 +198,7 @@ export class CellStream {
       }
     }
     if (over) {
-      this.tooMany = `the phantom's B0 model gives more than ${maxClasses.toLocaleString("en")} RF classes (Δf varies per cell): the weights come from stored isochromats`;
+      this.tooMany = `the phantom's B0 model gives more than ${maxClasses.toLocaleString("en")} RF classes (Δf varies per cell; the most the line factor holds for this sequence): the weights come from stored isochromats`;
       this.spec = { rfClass: new Int32Array(0), classes: 0, classW: sf([]), classDf: sf([]), classR1: sf([]), classR2: sf([]) };
       return;
     }

@@ -88,7 +88,7 @@ export interface ReadoutReport {
 
 const TWO_PI = 2 * Math.PI;
 /** Largest (classes × readouts) the line factor handles (memory: 16 B each). */
-const MAX_CLASS_LINES = 1 << 23;
+export const MAX_CLASS_LINES = 1 << 23;
 /** Largest line rank and number of time segments before the operator gives up (the direct one is then cheaper). */
 const MAX_RANK = 24;
 const MAX_SEGMENTS = 48;
