@@ -120,7 +120,7 @@ export interface SimulateInput {
   /** Run the a-posteriori through-slice convergence check on one probe column (default true). */
   convergenceCheck?: boolean;
   /** Replaces the engine for each slice (the CLI's simulate --coils); its files and report join the result. */
-  runEngine?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport | ReadoutReport[]; files?: Map<string, Uint8Array>; report?: Record<string, unknown> }>;
+  runEngine?: (sl: { seq: Sequence; cells: IsochromatCells; readonly iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport | ReadoutReport[]; files?: Map<string, Uint8Array>; report?: Record<string, unknown> }>;
   /** Recorded in report.inputs (default: the names and sets). */
   inputs?: Record<string, unknown>;
   /** Recorded in report.tool.version (default "unknown"). */
@@ -303,7 +303,8 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
     const trs = sl.seq.blocks.filter((b) => b.kind === "rf").length / Math.max(1, sl.seq.pulses.length);
     let res: { kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport | ReadoutReport[] };
     if (input.runEngine) {
-      const r = await input.runEngine({ seq: sl.seq, iso: sl.iso, protocol: prep.protocol });
+      // the cells, and the isochromats made only if the engine asks for them (the coil run streams where the fast operator applies)
+      const r = await input.runEngine({ seq: sl.seq, cells: sl.cells, get iso() { return sl.iso; }, protocol: prep.protocol });
       coils = { files: r.files ?? new Map(), report: r.report ?? {} };
       res = r;
     } else res = await simulateCells(executor, sl.seq, sl.cells, () => sl.iso, {

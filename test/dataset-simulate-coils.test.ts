@@ -69,6 +69,29 @@ describe("simulate --coils", () => {
     expect(rep.coils.count).toBe(4);
   }, 60000);
 
+  it("ideally spoiled: the coil run streams its weights from the cells (no isochromat stored), coil images within the tolerance of the direct operator's", () => {
+    const run = (name: string, readout: string) => {
+      const out = join(tmp, name);
+      const r = spawnSync(process.execPath, [CLI, ...ARGS, "--set", "spoiling=ideal", "--coils", "4", "--array-radius", "15 cm", "--readout", readout, "-o", out], { encoding: "utf8" });
+      expect(r.status, r.stderr).toBe(0);
+      return { rep: JSON.parse(readFileSync(join(out, "report.json"), "utf8")), img: npy(join(out, "coil-images.npy")) };
+    };
+    const fast = run("stream-fast", "fast"), direct = run("stream-direct", "direct");
+    const rf = [fast.rep.engine.readout].flat()[0];
+    expect(rf.operator).toBe("fast");
+    expect(rf.weights).toMatch(/streamed/);
+    // relative L2 difference of the coil images (complex64 files: float32 rounding, ~1e-7, is below the tolerance's scale)
+    const a = fast.img.data, b = direct.img.data;
+    expect(a.length).toBe(b.length);
+    let num = 0, den = 0;
+    for (let i = 0; i < a.length; i++) {
+      num += (a[i]! - b[i]!) ** 2;
+      den += b[i]! ** 2;
+    }
+    expect(den).toBeGreaterThan(0);
+    expect(Math.sqrt(num / den)).toBeLessThan(2e-6);
+  }, 60000);
+
   it("coils.png and coil-rss.png are in image.png's display orientation: the loop on the patient's left is bright on the side report.json letters L", () => {
     // Which loop is on the patient's left follows from the geometry report.json states (RAS+: left is −x), not from a stored picture;
     // which side of the picture is the patient's left, from the display letters image.png uses (radiological convention, common practice).

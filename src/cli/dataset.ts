@@ -577,15 +577,18 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
   const probe = { ...o };
   if (probe.coils === "1" && !probe.loopRadius && !probe.arrayRadius && !probe.rowSpacing && probe.coilRows === "1") return undefined;
   if (o.shard) throw new UserError("--coils runs every coil in one pass; it does not split into shards: drop --shard", undefined, "--coils");
-  return async ({ seq, iso, protocol }) => {
+  return async (sl) => {
+    const { seq, cells, protocol } = sl;
     if (protocol.slices.count > 1) throw new UserError("--coils simulates one slice or one 3D slab; set slices.count to 1", undefined, "--coils");
     const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
     const array = planCoilArray(o, phantom, protocol, parseVary([]), [phantom]);
     if (array.elements === 0) throw new UserError("one coil is the uniform coil of a normal run; give --coils N with N ≥ 2", undefined, "--coils");
-    const m = enclosureMargin(array, iso.x, iso.y, iso.count);
+    // the cell centres: where the isochromats sit (isochromats/index.ts cellCentres), none made
+    const centres = cellCentres(cells);
+    const m = enclosureMargin(array, centres.x, centres.y, centres.count);
     if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
     const progress = new Progress("simulating coils", "chunk", o.quiet);
-    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, iso, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), {
+    const { kspace, plan, readout } = await simulateCoilsPlanned(seq, { cells, get iso() { return sl.iso; } }, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), {
       chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(), ...(o.readout ? { readout: o.readout } : {}), ...(o.tolerance !== undefined ? { tolerance: o.tolerance } : {}),
     });
     progress.done();

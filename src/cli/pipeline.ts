@@ -78,7 +78,7 @@ export interface RunOptions {
   readout?: "auto" | "fast" | "direct";
   tolerance?: number;
   /** Receive coils (simulate --coils): runs the engine instead of the single uniform coil; its k-space is the uniform coil's, its files and report join the run folder. */
-  coilRun?: (sl: { seq: Sequence; iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport[]; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
+  coilRun?: (sl: { seq: Sequence; cells: IsochromatCells; readonly iso: IsochromatSet; protocol: Protocol }) => Promise<{ kspace: KSpace; plan: EnginePlan; readout?: ReadoutReport[]; files: Map<string, Uint8Array>; report: Record<string, unknown> }>;
 }
 
 export interface RunResult {
