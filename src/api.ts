@@ -112,7 +112,7 @@ export interface SimulateInput {
    * (the CLI's memory check): once before the cells are sampled, `stored` false
    * where the engine may stream the fast operator's weights from the cells (no
    * isochromat stored); and again with `stored` true before the isochromats are
-   * made one by one, where they are (the direct operator, a B0 model, coils).
+   * made one by one, where they are (the direct operator, a B0 model with more RF classes than the fast operator holds, coils).
    */
   beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence; stored: boolean }) => void;
   /** Use iso.sliceCount as given, without raising it for the coherence pathways (studies of a coarse grid; default false). */

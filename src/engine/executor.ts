@@ -185,7 +185,7 @@ function fastKspace(r: FastResult, plan: EnginePlan, opts: FastOptions): KSpace 
  * chosen, its weights are streamed from the cells (engine/fast-stream.ts) and
  * no isochromat is stored; otherwise `materialise()` makes the isochromats and
  * {@link simulateWith} runs (it may still use the fast operator on them, e.g.
- * with a B0 model). The choice depends on the inputs only, so the bits are the
+ * when the caller stores isochromats for its coils). The choice depends on the inputs only, so the bits are the
  * same for any executor, number of workers or shards.
  */
 export async function simulateCells(
