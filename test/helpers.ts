@@ -6,8 +6,7 @@
  * the command line and simulate() do.
  */
 import assert from "node:assert/strict";
-import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
-import { tmpdir } from "node:os";
+import { writeFileSync } from "node:fs";
 import { join } from "node:path";
 import { prepareSimulation, reconstructRuns, type Volume } from "../src/api.js";
 import { simulateSerial, type EnginePlan, type KSpace } from "../src/engine/index.js";
@@ -48,19 +47,7 @@ export async function datasetInProcess(args: string[]): Promise<void> {
   }
 }
 
-const madeDirs: string[] = [];
-
-/** A fresh temporary folder, removed after the test file ends (test/setup.ts). */
-export function tempDir(prefix = "isofold-test-"): string {
-  const d = mkdtempSync(join(tmpdir(), prefix));
-  madeDirs.push(d);
-  return d;
-}
-
-/** Removes the folders tempDir made in this test file (called from test/setup.ts's afterAll). */
-export function removeTempDirs(): void {
-  for (const d of madeDirs.splice(0)) rmSync(d, { recursive: true, force: true });
-}
+export { tempDir } from "./tempdirs.js";
 
 export function writeJson(dir: string, name: string, value: unknown): string {
   const p = join(dir, name);
