@@ -24,7 +24,7 @@ import { existsSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "no
 import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import npyjs from "npyjs";
+import { npy, idft } from "./npy-oracle.js";
 import h5wasm, { type Dataset } from "h5wasm/node";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
@@ -49,29 +49,6 @@ function dataset(out: string, args: string[]): string {
   const r = cli(["dataset", ...BASE, "-o", out, ...args]);
   if (r.status !== 0) throw new Error(`isofold dataset failed: ${r.stderr}`);
   return join(out, "case-0000");
-}
-
-function npy(file: string): { shape: number[]; data: ArrayLike<number> } {
-  const b = readFileSync(file);
-  const p = new npyjs().parse(b.buffer.slice(b.byteOffset, b.byteOffset + b.byteLength));
-  return { shape: p.shape, data: p.data as unknown as ArrayLike<number> };
-}
-
-/** Centred inverse DFT with 1/n (the convention case.json states), direct sums. */
-function idft(re: ArrayLike<number>, im: ArrayLike<number>): { re: Float64Array; im: Float64Array } {
-  const n = re.length, c = Math.floor(n / 2);
-  const or = new Float64Array(n), oi = new Float64Array(n);
-  for (let x = 0; x < n; x++) {
-    let sr = 0, si = 0;
-    for (let m = 0; m < n; m++) {
-      const th = (2 * Math.PI * (m - c) * (x - c)) / n;
-      sr += re[m]! * Math.cos(th) - im[m]! * Math.sin(th);
-      si += re[m]! * Math.sin(th) + im[m]! * Math.cos(th);
-    }
-    or[x] = sr / n;
-    oi[x] = si / n;
-  }
-  return { re: or, im: oi };
 }
 
 interface Rec { line: number; average: number; flags: bigint; data: Float32Array }
@@ -145,7 +122,7 @@ describe("averages as separate raw.h5 records", () => {
     expect(t.status, t.stderr).toBe(0);
     const cj = JSON.parse(readFileSync(join(dir, "case.json"), "utf8"));
     expect(cj.rawH5.averages).toContain("3 records per sampled line");
-  }, 40_000);
+  });
 
   it("with noise, 2 averages: the mean is still kspace.npy, and two averages differ by independent noise (variance 2·A·σ²·M/N)", () => {
     const dir = dataset(join(tmp, "noisy"), ["--set", "averages=2", "--snr", "10"]);
@@ -164,7 +141,7 @@ describe("averages as separate raw.h5 records", () => {
     const ratio = v / count / (2 * 2 * sigma * sigma * (64 / 32));
     expect(ratio).toBeGreaterThan(0.9);
     expect(ratio).toBeLessThan(1.1);
-  }, 40_000);
+  });
 });
 
 describe("dataset --readout and --tolerance", () => {
@@ -179,7 +156,7 @@ describe("dataset --readout and --tolerance", () => {
     expect(fj.engine.readout.requested).toBe("fast");
     // either the fast operator ran, or the direct one with the reason why
     expect(fj.engine.readout.operator === "fast" || typeof fj.engine.readout.fallback === "string").toBe(true);
-  }, 40_000);
+  });
 
   it("bad --readout or --tolerance: one line, exit 2, nothing written; help wording as simulate's", () => {
     for (const args of [["--readout", "quick"], ["--tolerance", "5"], ["--tolerance", "tiny"]]) {
@@ -196,5 +173,5 @@ describe("dataset --readout and --tolerance", () => {
       expect(opt(d, name)).toBeDefined();
       expect(opt(d, name)).toBe(opt(s, name));
     }
-  }, 40_000);
+  });
 });

@@ -111,7 +111,7 @@ describe("dataset parts (--cases) and dataset-merge", () => {
       expect(r.stderr).toMatch(/--cases/);
       expect(existsSync(out)).toBe(false);
     }
-  }, 30000);
+  });
 
   it("the dataset help lists --cases and dataset-merge is in the main help; --shard is not in the dataset help", () => {
     const h = cli(["dataset", "--help"]).stdout;

@@ -55,7 +55,7 @@ describe("physical noise model", () => {
     expect(phys.json.noise.physical.snrResulting).toBeCloseTo(25, 4);
     expect(phys.json.noise.noiseModel).toMatch(/^physical/);
     expect(plain.json.noise.noiseModel).toMatch(/^snr/);
-  }, 40000);
+  });
 
   it("σ follows voxel volume, √averages, √phase lines, √readout duration and B0 (σ ratios against the laws above)", async () => {
     const ref = ["--snr", "25", "--noise-model", "physical", "--snr-reference", base];
@@ -92,5 +92,5 @@ describe("physical noise model", () => {
       expect(r.stderr).toMatch(pattern);
       expect(existsSync(out)).toBe(false);
     });
-  }, 40000);
+  });
 });

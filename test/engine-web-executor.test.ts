@@ -70,5 +70,5 @@ describe("Web Worker executor", () => {
     let max = 0;
     for (const v of serial.magnitude) max = Math.max(max, v);
     expect(max).toBeGreaterThan(0.01);
-  }, 30_000);
+  });
 });
