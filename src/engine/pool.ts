@@ -53,6 +53,8 @@ export class EnginePool implements ExecutorSession {
   private failure: Error | null = null;
   private onFail: ((e: Error) => void) | null = null;
   private terminated = false;
+  /** A run was stopped (abort or failure) and workers may be mid-chunk. */
+  private interrupted = false;
 
   constructor(plan: EnginePlan, iso: IsochromatSet, count: number) {
     const path = workerPath();
@@ -77,9 +79,27 @@ export class EnginePool implements ExecutorSession {
     this.onFail?.(e);
   }
 
-  /** Stops every worker at once (mid-chunk too). */
-  close(): Promise<void> {
-    return this.terminate();
+  /**
+   * Ends the session. After a run that finished, each worker is asked to stop
+   * (it closes its port and its thread ends on its own, once anything V8 still
+   * compiles for it is done); `terminate()` only as a fallback after 10 s. A
+   * stopped or failed run terminates at once. Terminating an isolate while a
+   * background compile job for it is still running can abort the whole Node
+   * process (seen once under load: "Assertion failed: (data.first) != nullptr"
+   * in NodePlatform::ForIsolate), so the orderly way is the default.
+   */
+  async close(): Promise<void> {
+    if (this.terminated) return;
+    if (this.interrupted || this.failure) return this.terminate();
+    this.terminated = true;
+    await Promise.all(this.workers.map((w) => new Promise<void>((resolve) => {
+      const timer = setTimeout(() => void w.terminate().then(() => resolve()), 10_000);
+      w.once("exit", () => {
+        clearTimeout(timer);
+        resolve();
+      });
+      w.postMessage({ t: "close" } satisfies WorkerRequest);
+    })));
   }
 
   /** Stops every worker at once (mid-chunk too). */
@@ -107,6 +127,7 @@ export class EnginePool implements ExecutorSession {
       };
       const stop = (e: Error) => {
         if (finished) return;
+        this.interrupted = true;
         cleanup();
         reject(e);
       };

@@ -9,7 +9,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { fillRfMaps, type EnginePlan } from "./plan.js";
 
-export type WorkerRequest = { t: "chunk"; c: number } | { t: "maps"; c0: number; c1: number };
+export type WorkerRequest = { t: "chunk"; c: number } | { t: "maps"; c0: number; c1: number } | { t: "close" };
 export type WorkerReply =
   | { t: "chunk"; c: number; re: ArrayBuffer; im: ArrayBuffer }
   | { t: "maps"; c0: number; c1: number };
@@ -20,6 +20,11 @@ const size = plan.coils * plan.rows * plan.read;
 const port = parentPort!;
 
 port.on("message", (m: WorkerRequest) => {
+  if (m.t === "close") {
+    // nothing else keeps this thread alive: it ends on its own (EnginePool.close)
+    port.close();
+    return;
+  }
   if (m.t === "maps") {
     fillRfMaps(plan, m.c0, m.c1);
     port.postMessage({ t: "maps", c0: m.c0, c1: m.c1 } satisfies WorkerReply);
