@@ -1,18 +1,10 @@
 import { describe, expect, it } from "vitest";
 import { complex, fft as mathFft, ifft as mathIfft, type Complex } from "mathjs";
+import { mulberry32 } from "../src/engine/fast.js";
 import { FFTPlan, getPlan, fft2c, ifft2c, fft3c, ifft3c, fftc1, ifftc1 } from "../src/recon/fft.js";
 
-/** Deterministic uniform random numbers in [0, 1) (mulberry32). */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Deterministic uniform random numbers in [0, 1): the fast operator's seeded generator (mulberry32). */
+const rng = mulberry32;
 
 function randomComplex(n: number, seed: number): { re: Float64Array; im: Float64Array } {
   const r = rng(seed);

@@ -21,7 +21,7 @@
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
-import { estimateOver, pivotedBasis, project, type ColumnVisitor, type History } from "./fast.js";
+import { addSegments, estimateOver, pivotedBasis, project, type ColumnVisitor, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
@@ -444,12 +444,7 @@ export class CellStream {
             acc[o + 1] = 0;
             if (hk === 0) continue;
             const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-            const xb = p * NX + 2 * (r * coils + q) * L;
-            for (let l = 0; l < L; l++) {
-              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = xb + 2 * l;
-              XB[o] = XB[o]! + (wr * cr - wi * ci);
-              XB[o + 1] = XB[o + 1]! + (wr * ci + wi * cr);
-            }
+            addSegments(XB, p * NX + 2 * (r * coils + q) * L, wr, wi, Ck, k, L);
           }
         }
       }

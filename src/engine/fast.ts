@@ -635,6 +635,19 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
 
 
 /**
+ * XB[xb + 2l] += (wr + i·wi)·C[k][l] for the L time segments: one weight
+ * folded into its grid position's (rank, coil) run (shared by the stored and
+ * the streamed fold).
+ */
+export function addSegments(XB: Float64Array, xb: number, wr: number, wi: number, Ck: Float64Array, k: number, L: number): void {
+  for (let l = 0; l < L; l++) {
+    const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = xb + 2 * l;
+    XB[o] = XB[o]! + (wr * cr - wi * ci);
+    XB[o + 1] = XB[o + 1]! + (wr * ci + wi * cr);
+  }
+}
+
+/**
  * One pass over the isochromats for ranks r0 … r1−1: per column and (R2, Δf)
  * key the rank weights Σ m0·G_r(c)·S_q, times the pre-phases and the
  * receiver filter, folded into the grids XB at x = ((r − r0)·coils + q)·L + l with
@@ -696,12 +709,7 @@ function foldPass(
           accI[o] = 0;
           if (hk === 0) continue;
           const wr = (zr * pr0 - zi * pi0) * hk, wi = (zr * pi0 + zi * pr0) * hk;
-          const xb = p * NX + 2 * (r * coils + q) * L;
-          for (let l = 0; l < L; l++) {
-            const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = xb + 2 * l;
-            XB[o] = XB[o]! + (wr * cr - wi * ci);
-            XB[o + 1] = XB[o + 1]! + (wr * ci + wi * cr);
-          }
+          addSegments(XB, p * NX + 2 * (r * coils + q) * L, wr, wi, Ck, k, L);
         }
       }
     }
