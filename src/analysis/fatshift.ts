@@ -23,7 +23,7 @@
  *     is no shift along phase.
  */
 import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
-import { fft2c, ifft2c } from "../recon/fft.js";
+import { centredLine, fft2c } from "../recon/fft.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
 import type { Sequence } from "../sequence/index.js";
 
@@ -297,17 +297,33 @@ function regionShift(
   const wr = new Float64Array(n), wi = new Float64Array(n);
   const cR = Math.floor(nRead / 2), cP = Math.floor(nPhase / 2);
   let clean = true;
+  // the shift's phase exp(−i2π((b − cR)·sx/nRead + (a − cP)·sy/nPhase)) is a product of a
+  // read factor and a phase factor: nRead + nPhase cosines and sines per evaluation, not nRead·nPhase
+  const er = new Float64Array(2 * nRead), ep = new Float64Array(2 * nPhase);
   const cost = (sx: number, sy: number): number => {
+    for (let b = 0; b < nRead; b++) {
+      const th = (-2 * Math.PI * (b - cR) * sx) / nRead;
+      er[2 * b] = Math.cos(th);
+      er[2 * b + 1] = Math.sin(th);
+    }
     for (let a = 0; a < nPhase; a++) {
+      const th = (-2 * Math.PI * (a - cP) * sy) / nPhase;
+      ep[2 * a] = Math.cos(th);
+      ep[2 * a + 1] = Math.sin(th);
+    }
+    for (let a = 0; a < nPhase; a++) {
+      const pr = ep[2 * a]!, pi = ep[2 * a + 1]!;
       for (let b = 0; b < nRead; b++) {
         const i = a * nRead + b;
-        const th = -2 * Math.PI * (((b - cR) * sx) / nRead + ((a - cP) * sy) / nPhase);
-        const c = Math.cos(th), sn = Math.sin(th);
+        const c = er[2 * b]! * pr - er[2 * b + 1]! * pi, sn = er[2 * b]! * pi + er[2 * b + 1]! * pr;
         wr[i] = tre[i]! * c - tim[i]! * sn;
         wi[i] = tre[i]! * sn + tim[i]! * c;
       }
     }
-    ifft2c(wr, wi, nPhase, nRead);
+    // ifft2c (read axis, then phase axis), the phase axis only on the window's read columns:
+    // the values inside the window are those of the whole transform
+    for (let a = 0; a < nPhase; a++) centredLine(wr, wi, nRead, 1, a * nRead, 1, 1 / nRead);
+    if (nPhase > 1) for (let b = bx0; b <= bx1; b++) centredLine(wr, wi, nPhase, nRead, b, 1, 1 / nPhase);
     let mt = 0, tt = 0, mm = 0;
     for (let i = 0; i < n; i++) {
       const w = win[i]!;
@@ -327,8 +343,17 @@ function regionShift(
     return (a + b) / 2;
   };
   let sx = ox, sy = oy;
+  let bx0 = 0, bx1 = nRead - 1;
   for (let round = 0; round < 2; round++) {
     if (windowWeights(win, s, sx, sy, margin, region, other, nRead, nPhase)) clean = false;
+    bx0 = nRead;
+    bx1 = -1;
+    for (let i = 0; i < n; i++) {
+      if (win[i] === 0) continue;
+      const b = i % nRead;
+      if (b < bx0) bx0 = b;
+      if (b > bx1) bx1 = b;
+    }
     const x0 = sx, y0 = sy;
     sx = golden((v) => cost(v, sy), x0 - 1.5, x0 + 1.5);
     sy = golden((v) => cost(sx, v), y0 - 1.5, y0 + 1.5);

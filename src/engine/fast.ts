@@ -43,6 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
+import { ParallelPhase, PhaseTransform, type PhaseShared } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -96,6 +97,32 @@ const MAX_SEGMENTS = 48;
 const GRID_BYTES = 512 * 2 ** 20;
 /** Folded grids per block of read columns: about this many bytes (a few read columns stay in cache while transformed). */
 const BLOCK_BYTES = 2 * 2 ** 20;
+/** Phase-step work (R·L·coils·Mv·read columns) from which a helper thread shares it (below, its hand-offs cost more than they save). */
+const PARALLEL_PHASE_WORK = 1 << 22;
+
+/** A helper thread for the phase step (engine/fast-node.ts registers one in Node): start() posts a run's shared buffers. */
+export interface PhaseHelper {
+  start(shared: PhaseShared): void;
+}
+let phaseHelper: (() => PhaseHelper | null) | null = null;
+let phaseMinWork = PARALLEL_PHASE_WORK;
+let helperBlocks = 0;
+
+/** Blocks of the last fast run's phase step that the helper thread transformed (for tests). */
+export function lastHelperBlocks(): number {
+  return helperBlocks;
+}
+
+/**
+ * Registers where helper threads come from (null: everything on the calling
+ * thread) and from what phase-step work on they are used (tests: 0). The bits
+ * are the same either way.
+ */
+export function setPhaseHelper(f: (() => PhaseHelper | null) | null, minWork = PARALLEL_PHASE_WORK): void {
+  phaseHelper = f;
+  phaseMinWork = minWork;
+}
+
 /** Samples of the a-posteriori estimate and its seed. */
 export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
@@ -455,54 +482,16 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     }
   }
   const fRead = a0.op.readHzPerMetre, bw = a0.op.sampledBandwidth;
-  const dftU = new FFTPlan(Mu), dftV = new FFTPlan(Mv);
+  const dftU = new FFTPlan(Mu);
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
-  // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line)
-  const Z: Float64Array[] = [];
-  for (let q = 0; q < coils * L; q++) Z.push(new Float64Array(2 * NA * Mu));
   const maxAbs = (v: Float64Array) => {
     let m = 0;
     for (let k = 0; k < v.length; k += 2) m = Math.max(m, Math.hypot(v[k]!, v[k + 1]!));
     return m;
   };
   const maxB = B.map(maxAbs), maxA = A.map(maxAbs);
-  /** Phase-axis DFT of every used read column of the listed grids (read column outer, so its block stays in cache); the sampled lines, times c_n·A_r(n), into Z[q][l][a][n] (lines contiguous per read column). */
-  let gather = new Float64Array(0);
-  const transform = (list: { x: number; r: number; q: number; l: number }[], a0: number, a1: number) => {
-    const nl = list.length;
-    if (nl === 0) return;
-    const inp = dftV.input, out = dftV.output;
-    // the read column's grids gathered once, row by row, into contiguous lines
-    const xs = Int32Array.from(list, (e) => e.x);
-    if (gather.length < 2 * nl * Mv) gather = new Float64Array(2 * nl * Mv);
-    const g = gather;
-    for (let a = a0; a < a1; a++) {
-      if (colUsed[a] === 0) continue;
-      const base = 2 * (a - a0) * Mv * NX;
-      for (let b = 0; b < Mv; b++) {
-        const row = base + 2 * b * NX;
-        for (let i = 0; i < nl; i++) {
-          const o = row + 2 * xs[i]!, d = 2 * (i * Mv + b);
-          g[d] = XB[o]!;
-          g[d + 1] = XB[o + 1]!;
-        }
-      }
-      for (let i = 0; i < nl; i++) {
-        const e = list[i]!;
-        inp.set(g.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
-        dftV.execute(-1);
-        const z = Z[e.q * L + e.l]!;
-        for (let k = 0; k < NA; k++) {
-          const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
-          const cr = AL[2 * (k * R + e.r)]!, ci = AL[2 * (k * R + e.r) + 1]!, o = 2 * (a * NA + k);
-          z[o] = z[o]! + (fr * cr - fi * ci);
-          z[o + 1] = z[o + 1]! + (fr * ci + fi * cr);
-        }
-      }
-    }
-  };
   // --- fold and transform per block of folded read columns (streamed: only a
   // block's grids exist at a time, and they stay in cache while transformed).
   // Grids interleaved per position (the fold writes every (rank, coil,
@@ -550,6 +539,33 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     for (let a = a0; a < a1; a++) used ||= colUsed[a] === 1;
     if (used && ranges.length > 0) blocks.push({ a0, a1, ranges });
   }
+  // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line),
+  // one array; the phase step per block (fast-phase.ts) on this thread or shared with a helper thread
+  const zStride = 2 * NA * Mu;
+  const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu };
+  const helper = phaseHelper !== null && R * L * coils * Mv * Math.min(Mu, uGrid.length) >= phaseMinWork ? phaseHelper() : null;
+  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, XB.length) : null;
+  if (helper && par) helper.start(par.shared);
+  try {
+  const Zall = par ? par.Z : new Float64Array(zStride * coils * L);
+  const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
+  const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
+  let cur = new Int32Array(0), curN = 0;
+  /** The (grid, rank, coil, segment) entries the next blocks transform. */
+  const setList = (entries: { x: number; r: number; q: number; l: number }[]) => {
+    cur = new Int32Array(4 * entries.length);
+    entries.forEach((e, i) => cur.set([e.x, e.r, e.q, e.l], 4 * i));
+    curN = entries.length;
+    if (par) {
+      par.drain();
+      par.setList(cur, curN);
+    }
+  };
+  const transform = (a0: number, a1: number) => {
+    if (par) par.submit(XB, 2 * (a1 - a0) * Mv * NX, a0, a1);
+    else own!.run(XB, cur, curN, a0, a1);
+  };
+  const drain = () => par?.drain();
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split);
@@ -570,24 +586,27 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
+    setList(all);
     for (const blk of blocks) {
       foldBlock(blk);
-      transform(all, blk.a0, blk.a1);
+      transform(blk.a0, blk.a1);
     }
     kept = all.length;
   } else {
   const n2 = new Float64Array(NX);
   const list0: { x: number; r: number; q: number; l: number }[] = [];
   for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
+  setList(list0);
   for (const blk of blocks) {
     foldBlock(blk);
     addNorms(XB, blk.a0, blk.a1, colUsed, Mv, NX, n2);
-    transform(list0, blk.a0, blk.a1);
+    transform(blk.a0, blk.a1);
   }
+  drain();
   kept += list0.length;
   let n2k = 0;
   for (let q = 0; q < coils; q++) {
-    readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -607,16 +626,23 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     }
   }
   if (list.length > 0) {
+    setList(list);
     for (const blk of blocks) {
       foldBlock(blk);
-      transform(list, blk.a0, blk.a1);
+      transform(blk.a0, blk.a1);
     }
   }
   kept += list.length;
   }
+  // the estimate's direct sums (independent of the fold) while the last blocks are transformed
+  const actN = act.map((a) => a.n);
+  const finishEstimate = src.kind === "iso"
+    ? estimate(plan, src.iso, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2)
+    : src.stream.estimate(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2);
+  drain();
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
-    readAxis(Z.slice(q * L, (q + 1) * L), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
       addLine(re, im, ob, lines, 2 * k * ns, ns);
@@ -627,10 +653,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
     segments: L, lineRank: R, grid: [Mv, Mu], split, pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
-  report.estimate = src.kind === "iso"
-    ? estimate(plan, src.iso, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im)
-    : src.stream.estimate(plan, h, act.map((a) => a.n), ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im);
+  report.estimate = finishEstimate(re, im);
   return { re, im, report };
+  } finally {
+    helperBlocks = par ? par.end() : 0;
+  }
 }
 
 
@@ -868,11 +895,10 @@ export function mulberry32(seed: number): () => number {
 function estimate(
   plan: EnginePlan, iso: IsochromatSet, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
   keyOf: Int32Array, keyDf: number[], keyR2: number[],
-  re: Float64Array, im: Float64Array,
-): { samples: number; seed: number; relL2: number } {
+): EstimateFinish {
   const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
   const rfClass = plan.rfClass;
-  return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, re, im, iso.count, (visit) => {
+  return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, iso.count, (visit) => {
     for (let cc = 0; cc < iso.columns; cc++) {
       const i0 = colStart[cc]!, i1 = colStart[cc + 1]!;
       if (i1 <= i0) continue;
@@ -902,12 +928,15 @@ export interface EstimateSetup {
   filter: { fRead: number; bw: number } | null;
 }
 
-/** The a-posteriori estimate over columns given by `columns` (see {@link estimate}). */
+/** The estimate against the fast k-space, once its direct sums are made. */
+export type EstimateFinish = (re: Float64Array, im: Float64Array) => { samples: number; seed: number; relL2: number };
+
+/** The a-posteriori estimate over columns given by `columns` (see {@link estimate}): the direct sums now, the comparison with the fast k-space by the returned function. */
 export function estimateOver(
   plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
   keyOf: Int32Array, keyDf: number[], keyR2: number[],
-  re: Float64Array, im: Float64Array, count: number, columns: ColumnVisitor,
-): { samples: number; seed: number; relL2: number } {
+  count: number, columns: ColumnVisitor,
+): EstimateFinish {
   const rnd = mulberry32(ESTIMATE_SEED);
   const C = plan.classes, coils = plan.coils, sens = plan.sens, K = keyDf.length;
   // rows (distinct, each with its readouts' ky) and samples j per row
@@ -1029,6 +1058,7 @@ export function estimateOver(
     }
     addPhased(u, v, col);
   }, addPhased, setup);
+  return (re, im) => {
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
@@ -1039,6 +1069,7 @@ export function estimateOver(
     }
   }
   return { samples: S * coils, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 };
+  };
 }
 
 // ---------------------------------------------------------------------------

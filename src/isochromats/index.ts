@@ -253,8 +253,9 @@ class Grow<T extends Int32Array | Float64Array> {
     }
     this.a[this.n++] = x;
   }
+  /** The pushed values: a view (a copy would first-touch as many new pages again). */
   done(): T {
-    return this.a.slice(0, this.n) as T;
+    return this.a.subarray(0, this.n) as T;
   }
 }
 

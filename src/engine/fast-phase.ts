@@ -1,0 +1,226 @@
+/**
+ * The fast readout operator's phase-axis step (engine/fast.ts), on its own so
+ * a helper thread can run it: for one block of folded read columns, the
+ * phase-axis DFT of every listed grid, its sampled lines times c_n·A_r(n)
+ * added into Z[q·L + l][a][n]. Blocks cover disjoint read columns a, so
+ * blocks can run on any thread in any order: every element of Z is added to
+ * by one block, in list order, whichever thread runs it (the same bits).
+ *
+ * A block's handing over (ParallelPhase) uses shared memory only: slots of
+ * folded grids, a list of (grid, rank, coil, segment) entries and a control
+ * array, with Atomics for the hand-offs (no message per block).
+ */
+import { FFTPlan } from "../recon/fft.js";
+
+/** What every block's transform reads (the same for the whole run). */
+export interface PhaseSetup {
+  /** Phase DFT length, active lines, grids per position. */
+  Mv: number; NA: number; NX: number; R: number; L: number; coils: number;
+  /** Folded phase index of each active line. */
+  mLine: Int32Array;
+  /** AL[2·(k·R + r)]: c_n·exp(−i2π(ky_n − ky_ref)·v0)·A_r(n). */
+  AL: Float64Array;
+  /** Read columns of the folded grid holding any isochromat. */
+  colUsed: Uint8Array;
+  /** Z[q·L + l] as one array: offset (q·L + l)·2·NA·Mu, element 2·(a·NA + k). */
+  Z: Float64Array;
+  Mu: number;
+}
+
+/** The transform of one block (one per thread: its FFT plan and gather buffer). */
+export class PhaseTransform {
+  private readonly dft: FFTPlan;
+  private gather = new Float64Array(0);
+  constructor(private readonly s: PhaseSetup) {
+    this.dft = new FFTPlan(s.Mv);
+  }
+
+  /**
+   * Grids list[4i] (x, r, q, l for i < nl) of the block XB (read columns
+   * a0 … a1−1, XB[2·(((a − a0)·Mv + b)·NX + x)]): phase DFT per used read
+   * column, the sampled lines times AL into Z.
+   */
+  run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
+    if (nl === 0) return;
+    const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, Mu } = this.s;
+    const dft = this.dft, inp = dft.input, out = dft.output;
+    if (this.gather.length < 2 * nl * Mv) this.gather = new Float64Array(2 * nl * Mv);
+    const g = this.gather, zStride = 2 * NA * Mu;
+    for (let a = a0; a < a1; a++) {
+      if (colUsed[a] === 0) continue;
+      // the read column's grids gathered once, row by row, into contiguous lines
+      gatherColumn(XB, g, list, nl, 2 * (a - a0) * Mv * NX, Mv, NX);
+      for (let i = 0; i < nl; i++) {
+        inp.set(g.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
+        dft.execute(-1);
+        const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
+        addLines(Z, (q * L + l) * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);
+      }
+    }
+  }
+}
+
+function gatherColumn(XB: Float64Array, g: Float64Array, list: Int32Array, nl: number, base: number, Mv: number, NX: number): void {
+  for (let b = 0; b < Mv; b++) {
+    const row = base + 2 * b * NX;
+    for (let i = 0; i < nl; i++) {
+      const o = row + 2 * list[4 * i]!, d = 2 * (i * Mv + b);
+      g[d] = XB[o]!;
+      g[d + 1] = XB[o + 1]!;
+    }
+  }
+}
+
+function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Array, AL: Float64Array, NA: number, R: number, r: number): void {
+  for (let k = 0; k < NA; k++) {
+    const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
+    const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = zo + 2 * k;
+    Z[o] = Z[o]! + (fr * cr - fi * ci);
+    Z[o + 1] = Z[o + 1]! + (fr * ci + fi * cr);
+  }
+}
+
+// ---------------------------------------------------------------------------
+// Hand-off to a helper thread through shared memory.
+
+/** Control words. */
+const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, SLOT0 = 8;
+/** Slot states. */
+const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3;
+/** Slots of folded grids (one being transformed by the helper, the others ready or free). */
+export const PHASE_SLOTS = 3;
+
+/** The shared buffers of one run (posted to the helper once). */
+export interface PhaseShared {
+  setup: Omit<PhaseSetup, "Z" | "colUsed">;
+  Z: SharedArrayBuffer;
+  colUsed: SharedArrayBuffer;
+  ctrl: SharedArrayBuffer;
+  list: SharedArrayBuffer;
+  slots: SharedArrayBuffer[];
+  slotLen: number;
+}
+
+function ctrlLayout(ctrl: Int32Array, s: number) {
+  return { state: SLOT0 + 3 * s, a0: SLOT0 + 3 * s + 1, a1: SLOT0 + 3 * s + 2 };
+}
+
+/** The helper's side: transforms ready slots until the run ends (runs synchronously on the helper thread). */
+export function phaseHelperLoop(sh: PhaseShared): void {
+  const ctrl = new Int32Array(sh.ctrl), list = new Int32Array(sh.list);
+  const slots = sh.slots.map((b) => new Float64Array(b));
+  const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.Z), colUsed: new Uint8Array(sh.colUsed) });
+  for (;;) {
+    const gen = Atomics.load(ctrl, GEN);
+    if (Atomics.load(ctrl, END) === 1) return;
+    let did = false;
+    for (let s = 0; s < slots.length; s++) {
+      const c = ctrlLayout(ctrl, s);
+      if (Atomics.compareExchange(ctrl, c.state, READY, BUSY_HELPER) !== READY) continue;
+      t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), Atomics.load(ctrl, c.a0), Atomics.load(ctrl, c.a1));
+      Atomics.store(ctrl, c.state, FREE);
+      Atomics.add(ctrl, PROGRESS, 1);
+      Atomics.notify(ctrl, PROGRESS);
+      did = true;
+    }
+    if (!did) Atomics.wait(ctrl, GEN, gen);
+  }
+}
+
+/**
+ * The main thread's side: blocks are handed to free slots; when none is free
+ * the main thread transforms a ready one itself (so the work is shared
+ * whatever the helper's speed, and the run finishes even if the helper never
+ * starts).
+ */
+export class ParallelPhase {
+  readonly shared: PhaseShared;
+  readonly Z: Float64Array;
+  private readonly ctrl: Int32Array;
+  private readonly list: Int32Array;
+  private readonly slots: Float64Array[];
+  private readonly own: PhaseTransform;
+  private nl = 0;
+
+  constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number) {
+    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.Mu * setup.coils * setup.L);
+    const cu = new SharedArrayBuffer(colUsed.length);
+    new Uint8Array(cu).set(colUsed);
+    const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS));
+    const list = new SharedArrayBuffer(4 * 4 * Math.max(1, maxList));
+    const slots = Array.from({ length: PHASE_SLOTS }, () => new SharedArrayBuffer(8 * slotLen));
+    this.shared = { setup, Z: zb, colUsed: cu, ctrl, list, slots, slotLen };
+    this.Z = new Float64Array(zb);
+    this.ctrl = new Int32Array(ctrl);
+    this.list = new Int32Array(list);
+    this.slots = slots.map((b) => new Float64Array(b));
+    this.own = new PhaseTransform({ ...setup, Z: this.Z, colUsed: new Uint8Array(cu) });
+  }
+
+  /** The entries of the blocks that follow (call with no block outstanding: after drain()). */
+  setList(list: Int32Array, nl: number): void {
+    this.list.set(list.subarray(0, 4 * nl));
+    this.nl = nl;
+    Atomics.store(this.ctrl, LIST_LEN, nl);
+  }
+
+  /** Hands over XB[0 … len) of the block of read columns a0 … a1−1. */
+  submit(XB: Float64Array, len: number, a0: number, a1: number): void {
+    if (this.nl === 0) return;
+    for (;;) {
+      for (let s = 0; s < this.slots.length; s++) {
+        const c = ctrlLayout(this.ctrl, s);
+        if (Atomics.load(this.ctrl, c.state) !== FREE) continue;
+        this.slots[s]!.set(XB.subarray(0, len));
+        Atomics.store(this.ctrl, c.a0, a0);
+        Atomics.store(this.ctrl, c.a1, a1);
+        Atomics.store(this.ctrl, c.state, READY);
+        this.wake();
+        return;
+      }
+      if (!this.runOne()) this.waitProgress();
+    }
+  }
+
+  /** Waits until every handed-over block is transformed (the main thread takes ready ones itself). */
+  drain(): void {
+    for (;;) {
+      while (this.runOne()) { /* transformed one here */ }
+      let busy = false;
+      for (let s = 0; s < this.slots.length; s++) if (Atomics.load(this.ctrl, ctrlLayout(this.ctrl, s).state) !== FREE) busy = true;
+      if (!busy) return;
+      this.waitProgress();
+    }
+  }
+
+  /** Ends the run on the helper's side (after drain()); returns the number of blocks the helper transformed. */
+  end(): number {
+    Atomics.store(this.ctrl, END, 1);
+    this.wake();
+    return Atomics.load(this.ctrl, PROGRESS);
+  }
+
+  /** Transforms a ready slot on this thread; false if none was ready. */
+  private runOne(): boolean {
+    for (let s = 0; s < this.slots.length; s++) {
+      const c = ctrlLayout(this.ctrl, s);
+      if (Atomics.compareExchange(this.ctrl, c.state, READY, BUSY_MAIN) !== READY) continue;
+      this.own.run(this.slots[s]!, this.list, this.nl, Atomics.load(this.ctrl, c.a0), Atomics.load(this.ctrl, c.a1));
+      Atomics.store(this.ctrl, c.state, FREE);
+      return true;
+    }
+    return false;
+  }
+
+  private waitProgress(): void {
+    const p = Atomics.load(this.ctrl, PROGRESS);
+    let busy = false;
+    for (let s = 0; s < this.slots.length; s++) if (Atomics.load(this.ctrl, ctrlLayout(this.ctrl, s).state) === BUSY_HELPER) busy = true;
+    if (busy) Atomics.wait(this.ctrl, PROGRESS, p, 50);
+  }
+
+  private wake(): void {
+    Atomics.add(this.ctrl, GEN, 1);
+    Atomics.notify(this.ctrl, GEN);
+  }
+}

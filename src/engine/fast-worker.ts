@@ -1,0 +1,10 @@
+/**
+ * Helper thread of the fast readout operator (worker_threads): each message
+ * is one run's shared buffers (engine/fast-phase.ts PhaseShared); the thread
+ * transforms the blocks the main thread hands over until the run ends, then
+ * waits for the next run. Loaded as compiled JavaScript.
+ */
+import { parentPort } from "node:worker_threads";
+import { phaseHelperLoop, type PhaseShared } from "./fast-phase.js";
+
+parentPort!.on("message", (m: PhaseShared) => phaseHelperLoop(m));

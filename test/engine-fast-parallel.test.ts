@@ -1,0 +1,75 @@
+/**
+ * The fast readout operator's phase step shared with a helper thread
+ * (engine/fast-phase.ts, engine/fast-node.ts): the k-space must be bitwise
+ * the k-space of the same operator on one thread (the oracle for the
+ * parallel path; the one-thread operator is itself checked against the
+ * direct operator in engine-fast-stream.test.ts), with one coil (two passes,
+ * pairs skipped by their norm) and with coil sensitivities (one pass), and
+ * within the tolerance of the direct operator. Small grids; the helper is
+ * forced on (minimum work 0).
+ */
+import { join } from "node:path";
+import { afterAll, describe, expect, test } from "vitest";
+import { prepare } from "../src/cli/pipeline.js";
+import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
+import { lastHelperBlocks, setPhaseHelper } from "../src/engine/fast.js";
+import { nodePhaseHelper } from "../src/engine/fast-node.js";
+import { relL2, tempDir } from "./helpers.js";
+
+function prep(m: number) {
+  return prepare({
+    phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t",
+    sets: [`matrix.read=${m}`, `matrix.phase=${m}`, "spoiling=ideal"],
+    out: join(tempDir(), "out"), seed: 1,
+    iso: { density: 2, sliceCount: 4, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 2, offsetHz: 0 }, workers: 1,
+  });
+}
+
+function sameBits(a: Float64Array, b: Float64Array): boolean {
+  return Buffer.from(a.buffer, a.byteOffset, a.byteLength).equals(Buffer.from(b.buffer, b.byteOffset, b.byteLength));
+}
+
+afterAll(() => setPhaseHelper(nodePhaseHelper));
+
+describe("fast operator with a helper thread", () => {
+  test("one coil: bitwise the one-thread k-space, within the tolerance of direct", async () => {
+    const p = prep(32);
+    const run = async (helper: boolean) => {
+      setPhaseHelper(helper ? nodePhaseHelper : null, 0);
+      return simulateCells(serialExecutor(), p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
+    };
+    const one = await run(false);
+    expect(one.readout.operator).toBe("fast");
+    // twice with the helper: the first run may find it still starting (the main thread then does every block)
+    let helped = 0;
+    for (let k = 0; k < 3; k++) {
+      const two = await run(true);
+      helped += lastHelperBlocks();
+      expect(sameBits(two.kspace.re, one.kspace.re) && sameBits(two.kspace.im, one.kspace.im)).toBe(true);
+    }
+    // the helper did take part (blocks it transformed)
+    expect(helped).toBeGreaterThan(0);
+    const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    expect(relL2(one.kspace.re, one.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
+  }, 60_000);
+
+  test("4 loops + the uniform coil: bitwise the one-thread k-space", async () => {
+    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
+    const p = prep(24);
+    const array = { elements: 4, rows: 1, loopRadius: 0.08, arrayRadius: 0.25, rowSpacing: 0, zCentre: 0 };
+    const run = async (helper: boolean) => {
+      setPhaseHelper(helper ? nodePhaseHelper : null, 0);
+      return simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast" });
+    };
+    const one = await run(false);
+    expect(one.readout[0]!.operator).toBe("fast");
+    expect(one.kspace.coils).toBe(5);
+    let helped = 0;
+    for (let k = 0; k < 3; k++) {
+      const two = await run(true);
+      helped += lastHelperBlocks();
+      expect(sameBits(two.kspace.re, one.kspace.re) && sameBits(two.kspace.im, one.kspace.im)).toBe(true);
+    }
+    expect(helped).toBeGreaterThan(0);
+  }, 60_000);
+});
