@@ -51,7 +51,7 @@ export class PhaseTransform {
       // the read column's grids gathered once, row by row, into contiguous lines
       gatherColumn(XB, g, list, nl, 2 * (a - a0) * Mv * NX, Mv, NX);
       for (let i = 0; i < nl; i++) {
-        inp.set(g.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
+        for (let t = 0, o = 2 * i * Mv; t < 2 * Mv; t++) inp[t] = g[o + t]!;
         dft.execute(-1);
         const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
         addLines(Z, (q * L + l) * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);

@@ -543,7 +543,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // one array; the phase step per block (fast-phase.ts) on this thread or shared with a helper thread
   const zStride = 2 * NA * Mu;
   const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu };
-  const helper = phaseHelper !== null && R * L * coils * Mv * Math.min(Mu, uGrid.length) >= phaseMinWork ? phaseHelper() : null;
+  let usedCols = 0;
+  for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
+  const helper = phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
   const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, XB.length) : null;
   if (helper && par) helper.start(par.shared);
   try {
@@ -606,7 +608,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   kept += list0.length;
   let n2k = 0;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, colUsed);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -642,7 +644,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   drain();
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, colUsed);
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
       addLine(re, im, ob, lines, 2 * k * ns, ns);
@@ -766,10 +768,11 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
  * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
  * each is turned to [line][read column] first so the transforms read contiguous rows.
  */
-/** Lines gathered per sweep in readAxis. */
-const KT = 4;
+/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
+const KT = 16;
 
-function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array): void {
+/** zt is zero at the unused read columns (z is zero there; they are never written). */
+function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, colUsed: Uint8Array): void {
   const L = Zq.length, inp = dft.input, res = dft.output;
   out.fill(0);
   for (let l = 0; l < L; l++) {
@@ -778,6 +781,7 @@ function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Fl
     for (let k0 = 0; k0 < NA; k0 += KT) {
       const nk = Math.min(KT, NA - k0);
       for (let a = 0; a < Mu; a++) {
+        if (colUsed[a] === 0) continue;
         const src = 2 * (a * NA + k0);
         for (let t = 0; t < nk; t++) {
           zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
