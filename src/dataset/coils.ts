@@ -158,6 +158,11 @@ export function sensitivityScale(a: CoilArray): number {
   return Math.sqrt(s);
 }
 
+const arrayMemo = new WeakMap<CoilArray, { key: string; kappa: number; placement: ReturnType<typeof loopPlacement> }>();
+function arrayKey(a: CoilArray): string {
+  return `${a.elements}|${a.rows}|${a.loopRadius}|${a.arrayRadius}|${a.rowSpacing}|${a.zCentre}`;
+}
+
 /**
  * Receive sensitivities S_c = (Bx − i·By)/κ at `count` points (m), written
  * interleaved (re, im) to out at index 2·((firstCoil + c)·stride + offset + i).
@@ -174,8 +179,14 @@ export function sensitivitiesAt(
     }
     return;
   }
-  const kappa = sensitivityScale(a);
-  loopPlacement(a).forEach(({ centre: c, normal: n }, q) => {
+  // κ and the placement once per array object (callers evaluate a few points at a time)
+  let memo = arrayMemo.get(a);
+  if (!memo || memo.key !== arrayKey(a)) {
+    memo = { key: arrayKey(a), kappa: sensitivityScale(a), placement: loopPlacement(a) };
+    arrayMemo.set(a, memo);
+  }
+  const kappa = memo.kappa;
+  memo.placement.forEach(({ centre: c, normal: n }, q) => {
     const base = 2 * ((firstCoil + q) * stride + offset);
     for (let i = 0; i < count; i++) {
       loopField(B3, a.loopRadius, c[0], c[1], c[2], n[0], n[1], n[2], x[i]!, y[i]!, z[i]!);

@@ -281,7 +281,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
-    tol = 0,
+    tol = 0, onColumn?: (col: number, S: Float64Array) => void,
   ): ColumnFolder {
     const coils = plan.coils;
     if (plan.sens || (coils !== 1 && !this.sens) || (this.sens && this.sens.coils !== coils)) throw new Error("CellStream.fold: sensitivities must come from the stream");
@@ -368,6 +368,7 @@ export class CellStream {
       const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
       const u = uGrid[a]!;
       if (hasSens) this.sensOf(col, S);
+      if (onColumn) onColumn(col, S);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
         let flat = true;
@@ -460,13 +461,38 @@ export class CellStream {
 
   /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */
   columns(): ColumnVisitor {
+    return (visit, addSamples, setup) => {
+      const per = this.columnEstimator(visit, addSamples, setup);
+      for (let col = 0; col < this.cells.columns; col++) per(col, null);
+    };
+  }
+
+  /**
+   * As columns(), but the columns come from the fold (one pass, with
+   * sensitivities): `visitor` (for estimateOver) only sets up; the fold calls
+   * `hook` with each column and its sensitivities (evaluated once for both).
+   */
+  hookedColumns(): { visitor: ColumnVisitor; hook: (col: number, S: Float64Array) => void } {
+    let per: ((col: number, given: Float64Array | null) => void) | null = null;
+    return {
+      visitor: (visit, addSamples, setup) => {
+        per = this.columnEstimator(visit, addSamples, setup);
+      },
+      hook: (col, S) => per!(col, S),
+    };
+  }
+
+  /** The estimate's work for one column (its sensitivities given, or evaluated here). */
+  private columnEstimator(
+    visit: Parameters<ColumnVisitor>[0], addSamples: Parameters<ColumnVisitor>[1], setup: Parameters<ColumnVisitor>[2],
+  ): (col: number, given: Float64Array | null) => void {
     const { cells, T, D2, zStart, zClass, zF, zDf } = this;
     let cap = 64;
     for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
     const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap), iw = new Int32Array(cap);
     const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1, classDf = this.spec.classDf;
-    const S = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
-    return (visit, addSamples, setup) => {
+    const S0 = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
+    {
       // A column of one tissue at one fraction through every w, where the receiver
       // filter is 1 for all its keys, is fp·Σ_c S_q(c)·Y[c][s] with
       // Y[c][s] = Σ over the cell's terms of f·Pr_class(row(s))·dec_key(s): the
@@ -509,7 +535,13 @@ export class CellStream {
       }
       const colv = new Float64Array(2 * coils * NS), one = new Float64Array(2 * nw);
       for (let c = 0; c < nw; c++) one[2 * c] = 1;
-      for (let col = 0; col < cells.columns; col++) {
+      return (col, given) => {
+        // this column's sensitivities: given by the fold, or evaluated now
+        let S: Float64Array | null = null;
+        if (S0) {
+          S = given ?? S0;
+          if (!given) this.sensOf(col, S0);
+        }
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
         let uniform = e1 - e0 === nw;
@@ -529,13 +561,9 @@ export class CellStream {
               const ys = Ysum[z]!;
               for (let x = 0; x < 2 * NS; x++) colv[x] = ys[x]! * fp;
               addSamples(u, v, colv);
-              continue;
+              return;
             }
-            let Sc = one;
-            if (S) {
-              this.sensOf(col, S);
-              Sc = S;
-            }
+            const Sc = S ?? one;
             colv.fill(0);
             for (let q = 0; q < coils; q++) {
               for (let c = 0; c < nw; c++) {
@@ -548,7 +576,7 @@ export class CellStream {
               }
             }
             addSamples(u, v, colv);
-            continue;
+            return;
           }
         }
         let n = 0;
@@ -565,7 +593,6 @@ export class CellStream {
         }
         if (S && sensIso) {
           // each isochromat's sensitivity: its cell's, laid out as plan.sens for a set of n isochromats
-          this.sensOf(col, S);
           for (let q = 0; q < coils; q++) {
             for (let i = 0; i < n; i++) {
               sensIso[2 * (q * n + i)] = S[2 * (q * nw + iw[i]!)]!;
@@ -574,8 +601,8 @@ export class CellStream {
           }
         }
         visit(u, v, n, cls, m0, df, -1, sensIso);
-      }
-    };
+      };
+    }
   }
 
   /** The a-posteriori estimate (fast.ts estimateOver) over the streamed columns. */
@@ -584,6 +611,15 @@ export class CellStream {
     keyOf: Int32Array, keyDf: number[], keyR2: number[],
   ): EstimateFinish {
     return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, this.cells.count, this.columns());
+  }
+
+  /** The estimate with its column sums made inside the fold's pass (hookedColumns): `finish` once the fold has visited every column. */
+  estimateHooked(
+    plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+    keyOf: Int32Array, keyDf: number[], keyR2: number[],
+  ): { finish: EstimateFinish; hook: (col: number, S: Float64Array) => void } {
+    const { visitor, hook } = this.hookedColumns();
+    return { finish: estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, this.cells.count, visitor), hook };
   }
 
   /** Columns c0 … c1−1 (as the chunk sampler of the cost model reads them). */

@@ -568,9 +568,13 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     else own!.run(XB, cur, curN, a0, a1);
   };
   const drain = () => par?.drain();
+  // with sensitivities (one fold pass) the estimate's column sums are made in the fold's pass, sharing
+  // each column's sensitivities (evaluated once); otherwise in a pass of their own before the last drain
+  const actN = act.map((a) => a.n);
+  const hooked = src.kind === "cells" && coils > 1 ? src.stream.estimateHooked(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2) : null;
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
-    : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split);
+    : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook);
   const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }) => {
     XB.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
     for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0);
@@ -637,8 +641,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   kept += list.length;
   }
   // the estimate's direct sums (independent of the fold) while the last blocks are transformed
-  const actN = act.map((a) => a.n);
-  const finishEstimate = src.kind === "iso"
+  const finishEstimate = hooked ? hooked.finish : src.kind === "iso"
     ? estimate(plan, src.iso, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2)
     : src.stream.estimate(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2);
   drain();
