@@ -255,6 +255,9 @@ function windowWeights(out: Float64Array, s: RegionStats, ox: number, oy: number
   return hit;
 }
 
+/** Scratch of the fine template's transform, per fine truth (the two regions of one measurement share it). */
+const fineScratch = new WeakMap<FineTruth, { re: Float64Array; im: Float64Array }>();
+
 function regionShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, region: Int8Array, r: number, s: RegionStats,
   nRead: number, nPhase: number, margin: number, fine?: FineTruth,
@@ -276,16 +279,27 @@ function regionShift(
   }
   // 2. template fit
   const tre = new Float64Array(n), tim = new Float64Array(n);
+  let scratch = fine ? fineScratch.get(fine) : undefined;
   if (fine) {
     // band-limited template: spectrum of the finer truth map cropped to the image's k-space
     const f = fine.factor, fr = f * nRead, fp = f * nPhase, big = fr * fp;
-    const bre = new Float64Array(big), bim = new Float64Array(big);
+    // the fine grid's arrays are shared by the two regions' calls (allocated once)
+    if (!scratch || scratch.re.length !== big) {
+      scratch = { re: new Float64Array(big), im: new Float64Array(big) };
+      fineScratch.set(fine, scratch);
+    }
+    const bre = scratch.re, bim = scratch.im;
+    bre.fill(0);
+    bim.fill(0);
     for (let i = 0; i < big; i++) {
       const v = fine.pd[i]!;
       if (v > 0 && (fine.fatFraction[i]! >= 0.5 ? 2 : 1) === r) bre[i] = v;
     }
-    fft2c(bre, bim, fp, fr);
     const oR = Math.floor(fr / 2) - Math.floor(nRead / 2), oP = Math.floor(fp / 2) - Math.floor(nPhase / 2);
+    // fft2c (read axis, then phase axis), the phase axis only on the read columns kept below:
+    // those values are the whole transform's
+    if (fr > 1) for (let a = 0; a < fp; a++) centredLine(bre, bim, fr, 1, a * fr, -1, 1);
+    if (fp > 1) for (let b = 0; b < nRead; b++) centredLine(bre, bim, fp, fr, b + oR, -1, 1);
     for (let a = 0; a < nPhase; a++) for (let b = 0; b < nRead; b++) {
       tre[a * nRead + b] = bre[(a + oP) * fr + b + oR]!;
       tim[a * nRead + b] = bim[(a + oP) * fr + b + oR]!;

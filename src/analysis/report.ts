@@ -35,7 +35,7 @@ export function fatShiftReport(
   // a finer truth grid gives the measurement a band-limited template (see measureFatShift)
   const factor = Math.max(1, Math.min(4, Math.floor(1024 / Math.max(nRead, nPhase))));
   const fine = factor > 1
-    ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: 0 })
+    ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: 0 }, "pd-fat")
     : truth;
   const measured = tooFar
     ? null

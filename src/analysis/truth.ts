@@ -38,14 +38,19 @@ export interface TruthGrid {
   offsetHz: number;
 }
 
-/** Samples the phantom on the image grid (see the file comment). */
-export function truthMaps(ph: Phantom, g: TruthGrid): TruthMaps {
+/**
+ * Samples the phantom on the image grid (see the file comment). `only`
+ * "pd-fat": pd and fatFraction alone (the other maps empty, no B0 evaluated;
+ * pd and fatFraction the same numbers), for a fine grid that needs no more.
+ */
+export function truthMaps(ph: Phantom, g: TruthGrid, only?: "pd-fat"): TruthMaps {
   const { axes, nRead, nPhase, dx, dy, thickness, position } = g;
   const n = nRead * nPhase;
+  const all = only !== "pd-fat", na = all ? n : 0;
   const m: TruthMaps = {
     nRead, nPhase,
-    pd: new Float64Array(n), t1: new Float64Array(n), t2: new Float64Array(n), t2star: new Float64Array(n),
-    df: new Float64Array(n), fatFraction: new Float64Array(n), label: new Int32Array(n),
+    pd: new Float64Array(n), t1: new Float64Array(na), t2: new Float64Array(na), t2star: new Float64Array(na),
+    df: new Float64Array(na), fatFraction: new Float64Array(n), label: new Int32Array(na),
     labels: ph.tissues.map((t) => t.name),
   };
   const cell = { tissue: new Int32Array(ph.tissues.length + 1), fraction: new Float64Array(ph.tissues.length + 1) };
@@ -69,6 +74,10 @@ export function truthMaps(ph: Phantom, g: TruthGrid): TruthMaps {
         if (f > bestF) { bestF = f; best = cell.tissue[q]!; }
       }
       m.pd[k] = pd;
+      if (!all) {
+        if (w > 0) m.fatFraction[k] = ff / w;
+        continue;
+      }
       if (w > 0) { m.t1[k] = t1 / w; m.t2[k] = t2 / w; m.t2star[k] = t2s / w; m.fatFraction[k] = ff / w; }
       m.label[k] = best + 1;
       m.df[k] = (ph.b0 ? ph.b0(x, y, z) : 0) + g.offsetHz;
