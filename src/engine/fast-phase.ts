@@ -83,10 +83,10 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
 // ---------------------------------------------------------------------------
 // Hand-off to a helper thread through shared memory.
 
-/** Control words. */
-const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, SLOT0 = 8;
+/** Control words (HELPER_WAITS, MAIN_WAITS: 1 while that thread sleeps in Atomics.wait, so a notify is sent only then). */
+const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, HELPER_WAITS = 4, MAIN_WAITS = 5, SLOT0 = 8;
 /** Slot states. */
-const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3;
+const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3, FILLING = 4;
 /** Slots of folded grids (one being transformed by the helper, the others ready or free). */
 export const PHASE_SLOTS = 3;
 
@@ -120,10 +120,14 @@ export function phaseHelperLoop(sh: PhaseShared): void {
       t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), Atomics.load(ctrl, c.a0), Atomics.load(ctrl, c.a1));
       Atomics.store(ctrl, c.state, FREE);
       Atomics.add(ctrl, PROGRESS, 1);
-      Atomics.notify(ctrl, PROGRESS);
+      if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
       did = true;
     }
-    if (!did) Atomics.wait(ctrl, GEN, gen);
+    if (!did) {
+      Atomics.store(ctrl, HELPER_WAITS, 1);
+      Atomics.wait(ctrl, GEN, gen);
+      Atomics.store(ctrl, HELPER_WAITS, 0);
+    }
   }
 }
 
@@ -164,22 +168,29 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, LIST_LEN, nl);
   }
 
-  /** Hands over XB[0 … len) of the block of read columns a0 … a1−1. */
-  submit(XB: Float64Array, len: number, a0: number, a1: number): void {
-    if (this.nl === 0) return;
+  /** A free slot to fold the next block into (the main thread transforms ready blocks while none is free). */
+  acquire(): { slot: number; grids: Float64Array } {
     for (;;) {
       for (let s = 0; s < this.slots.length; s++) {
         const c = ctrlLayout(this.ctrl, s);
-        if (Atomics.load(this.ctrl, c.state) !== FREE) continue;
-        this.slots[s]!.set(XB.subarray(0, len));
-        Atomics.store(this.ctrl, c.a0, a0);
-        Atomics.store(this.ctrl, c.a1, a1);
-        Atomics.store(this.ctrl, c.state, READY);
-        this.wake();
-        return;
+        if (Atomics.compareExchange(this.ctrl, c.state, FREE, FILLING) !== FREE) continue;
+        return { slot: s, grids: this.slots[s]! };
       }
       if (!this.runOne()) this.waitProgress();
     }
+  }
+
+  /** Hands over the acquired slot, holding the folded block of read columns a0 … a1−1. */
+  publish(slot: number, a0: number, a1: number): void {
+    const c = ctrlLayout(this.ctrl, slot);
+    if (this.nl === 0) {
+      Atomics.store(this.ctrl, c.state, FREE);
+      return;
+    }
+    Atomics.store(this.ctrl, c.a0, a0);
+    Atomics.store(this.ctrl, c.a1, a1);
+    Atomics.store(this.ctrl, c.state, READY);
+    this.wake();
   }
 
   /** Waits until every handed-over block is transformed (the main thread takes ready ones itself). */
@@ -196,7 +207,8 @@ export class ParallelPhase {
   /** Ends the run on the helper's side (after drain()); returns the number of blocks the helper transformed. */
   end(): number {
     Atomics.store(this.ctrl, END, 1);
-    this.wake();
+    Atomics.add(this.ctrl, GEN, 1);
+    Atomics.notify(this.ctrl, GEN);
     return Atomics.load(this.ctrl, PROGRESS);
   }
 
@@ -216,11 +228,14 @@ export class ParallelPhase {
     const p = Atomics.load(this.ctrl, PROGRESS);
     let busy = false;
     for (let s = 0; s < this.slots.length; s++) if (Atomics.load(this.ctrl, ctrlLayout(this.ctrl, s).state) === BUSY_HELPER) busy = true;
-    if (busy) Atomics.wait(this.ctrl, PROGRESS, p, 50);
+    if (!busy) return;
+    Atomics.store(this.ctrl, MAIN_WAITS, 1);
+    Atomics.wait(this.ctrl, PROGRESS, p, 50);
+    Atomics.store(this.ctrl, MAIN_WAITS, 0);
   }
 
   private wake(): void {
     Atomics.add(this.ctrl, GEN, 1);
-    Atomics.notify(this.ctrl, GEN);
+    if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
   }
 }

@@ -280,9 +280,10 @@ export class CellStream {
    */
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
-    preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
+    preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
     tol = 0, onColumn?: (col: number, S: Float64Array) => void,
   ): ColumnFolder {
+    void XB0;
     const coils = plan.coils;
     if (plan.sens || (coils !== 1 && !this.sens) || (this.sens && this.sens.coils !== coils)) throw new Error("CellStream.fold: sensitivities must come from the stream");
     const { cells, T, D2, zStart, zClass, zF } = this;
@@ -351,7 +352,7 @@ export class CellStream {
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
     const tmp = new Float64Array(2 * WL);
-    return (c0, c1, aBase) => {
+    return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;

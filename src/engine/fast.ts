@@ -503,7 +503,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const colBytes = 16 * Mv * NX;
   const blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / colBytes)));
   if (colBytes * blockCols > GRID_BYTES) return `the folded grid ${Mv}×${Mu} × ${coils} coils × ${R} ranks × ${L} segments is too large for the fast operator`;
-  const XB = new Float64Array(2 * blockCols * Mv * NX);
+  let XB = new Float64Array(0);
   const colUsed = new Uint8Array(Mu);
   // the read index of a column (non-decreasing in column order)
   const nCols = src.kind === "iso" ? src.iso.columns : src.stream.cells.columns;
@@ -546,11 +546,13 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   let usedCols = 0;
   for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
   const helper = phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
-  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, XB.length) : null;
+  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX) : null;
   if (helper && par) helper.start(par.shared);
   try {
   const Zall = par ? par.Z : new Float64Array(zStride * coils * L);
   const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
+  // one block's grids on this thread (with a helper, its slots hold them)
+  if (!par) XB = new Float64Array(2 * blockCols * Mv * NX);
   const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
   let cur = new Int32Array(0), curN = 0;
   /** The (grid, rank, coil, segment) entries the next blocks transform. */
@@ -563,9 +565,13 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
       par.setList(cur, curN);
     }
   };
-  const transform = (a0: number, a1: number) => {
-    if (par) par.submit(XB, 2 * (a1 - a0) * Mv * NX, a0, a1);
-    else own!.run(XB, cur, curN, a0, a1);
+  /** Folds a block (into a free slot of the helper's when there is one), `then` on its grids, and transforms it. */
+  const foldTransform = (blk: { a0: number; a1: number; ranges: [number, number][] }, then?: (grids: Float64Array) => void) => {
+    const dest = par ? par.acquire() : { slot: -1, grids: XB };
+    foldBlock(blk, dest.grids);
+    then?.(dest.grids);
+    if (par) par.publish(dest.slot, blk.a0, blk.a1);
+    else own!.run(XB, cur, curN, blk.a0, blk.a1);
   };
   const drain = () => par?.drain();
   // with sensitivities (one fold pass) the estimate's column sums are made in the fold's pass, sharing
@@ -575,9 +581,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook);
-  const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }) => {
-    XB.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
-    for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0);
+  const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array) => {
+    grids.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
+    for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0, grids);
   };
   // One coil: pass 1 folds every block, sums the grids' norms, transforms rank 0
   // (it sets the budget of the pairs skipped); pass 2 folds again (cheap
@@ -593,21 +599,14 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
     setList(all);
-    for (const blk of blocks) {
-      foldBlock(blk);
-      transform(blk.a0, blk.a1);
-    }
+    for (const blk of blocks) foldTransform(blk);
     kept = all.length;
   } else {
   const n2 = new Float64Array(NX);
   const list0: { x: number; r: number; q: number; l: number }[] = [];
   for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
   setList(list0);
-  for (const blk of blocks) {
-    foldBlock(blk);
-    addNorms(XB, blk.a0, blk.a1, colUsed, Mv, NX, n2);
-    transform(blk.a0, blk.a1);
-  }
+  for (const blk of blocks) foldTransform(blk, (grids) => addNorms(grids, blk.a0, blk.a1, colUsed, Mv, NX, n2));
   drain();
   kept += list0.length;
   let n2k = 0;
@@ -633,10 +632,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   if (list.length > 0) {
     setList(list);
-    for (const blk of blocks) {
-      foldBlock(blk);
-      transform(blk.a0, blk.a1);
-    }
+    for (const blk of blocks) foldTransform(blk);
   }
   kept += list.length;
   }
@@ -687,14 +683,15 @@ export function addSegments(XB: Float64Array, xb: number, wr: number, wi: number
  */
 function foldPass(
   iso: IsochromatSet, plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
-  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB: Float64Array, NX: number,
+  preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
 ): ColumnFolder {
   const coils = plan.coils, sens = plan.sens, filt = plan.receiverFilter, rfClass = plan.rfClass, count = iso.count;
   const { iu, iv, m0, colStart, uGrid } = iso;
   const W = r1 - r0, CW = coils * W;
   const accR = new Float64Array(K * CW), accI = new Float64Array(K * CW);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
-  return (c0, c1, aBase) => {
+  void XB0;
+  return (c0, c1, aBase, XB) => {
   for (let col = c0; col < c1; col++) {
     const i0 = colStart[col]!, i1 = colStart[col + 1]!;
     if (i1 <= i0) continue;
@@ -877,7 +874,7 @@ function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Ar
  * Folds columns c0 … c1−1 (whole columns, in column order) into a block of
  * folded read columns starting at aBase: grid position ((a mod Mu) − aBase, b mod Mv).
  */
-export type ColumnFolder = (c0: number, c1: number, aBase: number) => void;
+export type ColumnFolder = (c0: number, c1: number, aBase: number, grids: Float64Array) => void;
 
 /** A small seeded generator (mulberry32, common practice) for the sample subset. */
 export function mulberry32(seed: number): () => number {

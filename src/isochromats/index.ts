@@ -349,9 +349,12 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
 
   // One pass over the grid: per column its cells' contents; the isochromat
   // count per column follows from them (one per peak of m0 ≠ 0 and T2′ bin).
-  const colA = new Grow(new Int32Array(1024)), colB = new Grow(new Int32Array(1024)), colSub = new Grow(new Int32Array(1024));
-  const colStart = new Grow(new Int32Array(1024)), entStart = new Grow(new Int32Array(1024));
-  const entW = new Grow(new Int32Array(4096)), entTissue = new Grow(new Int32Array(4096)), entFrac = new Grow(new Float64Array(4096));
+  // Capacities for a full grid (one entry per cell): only the pages written are ever touched,
+  // so a generous capacity costs address space, not memory, and saves the copies of growing
+  const capCols = Math.max(1024, Math.min(nu * nv + 1, 1 << 24)), capEnt = Math.max(4096, Math.min(nu * nv * nw, 1 << 25));
+  const colA = new Grow(new Int32Array(capCols)), colB = new Grow(new Int32Array(capCols)), colSub = new Grow(new Int32Array(capCols));
+  const colStart = new Grow(new Int32Array(capCols)), entStart = new Grow(new Int32Array(capCols));
+  const entW = new Grow(new Int32Array(capEnt)), entTissue = new Grow(new Int32Array(capEnt)), entFrac = new Grow(new Float64Array(capEnt));
   colStart.push(0);
   entStart.push(0);
   let at = 0;
