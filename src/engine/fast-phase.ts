@@ -117,7 +117,10 @@ export function phaseHelperLoop(sh: PhaseShared): void {
     for (let s = 0; s < slots.length; s++) {
       const c = ctrlLayout(ctrl, s);
       if (Atomics.compareExchange(ctrl, c.state, READY, BUSY_HELPER) !== READY) continue;
-      t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), Atomics.load(ctrl, c.a0), Atomics.load(ctrl, c.a1));
+      const a0 = Atomics.load(ctrl, c.a0), a1 = Atomics.load(ctrl, c.a1);
+      t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), a0, a1);
+      // a free slot is zero (the next block is added into it)
+      slots[s]!.fill(0, 0, 2 * (a1 - a0) * sh.setup.Mv * sh.setup.NX);
       Atomics.store(ctrl, c.state, FREE);
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
@@ -168,7 +171,7 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, LIST_LEN, nl);
   }
 
-  /** A free slot to fold the next block into (the main thread transforms ready blocks while none is free). */
+  /** A free slot (all zero) to fold the next block into (the main thread transforms ready blocks while none is free). */
   acquire(): { slot: number; grids: Float64Array } {
     for (;;) {
       for (let s = 0; s < this.slots.length; s++) {
@@ -184,6 +187,7 @@ export class ParallelPhase {
   publish(slot: number, a0: number, a1: number): void {
     const c = ctrlLayout(this.ctrl, slot);
     if (this.nl === 0) {
+      this.slots[slot]!.fill(0, 0, 2 * (a1 - a0) * this.shared.setup.Mv * this.shared.setup.NX);
       Atomics.store(this.ctrl, c.state, FREE);
       return;
     }
@@ -217,7 +221,9 @@ export class ParallelPhase {
     for (let s = 0; s < this.slots.length; s++) {
       const c = ctrlLayout(this.ctrl, s);
       if (Atomics.compareExchange(this.ctrl, c.state, READY, BUSY_MAIN) !== READY) continue;
-      this.own.run(this.slots[s]!, this.list, this.nl, Atomics.load(this.ctrl, c.a0), Atomics.load(this.ctrl, c.a1));
+      const a0 = Atomics.load(this.ctrl, c.a0), a1 = Atomics.load(this.ctrl, c.a1);
+      this.own.run(this.slots[s]!, this.list, this.nl, a0, a1);
+      this.slots[s]!.fill(0, 0, 2 * (a1 - a0) * this.shared.setup.Mv * this.shared.setup.NX);
       Atomics.store(this.ctrl, c.state, FREE);
       return true;
     }

@@ -582,7 +582,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook);
   const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array) => {
-    grids.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
+    // a helper's slot is zeroed after its transform (on the thread that ran it)
+    if (!par) grids.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
     for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0, grids);
   };
   // One coil: pass 1 folds every block, sums the grids' norms, transforms rank 0
