@@ -88,7 +88,7 @@ const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, HELPER_WAITS = 4, MAIN_WAITS
 /** Slot states. */
 const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3, FILLING = 4;
 /** Slots of folded grids (one being transformed by the helper, the others ready or free). */
-export const PHASE_SLOTS = 3;
+export const PHASE_SLOTS = 4;
 
 /** The shared buffers of one run (posted to the helper once). */
 export interface PhaseShared {
@@ -194,7 +194,14 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, c.a0, a0);
     Atomics.store(this.ctrl, c.a1, a1);
     Atomics.store(this.ctrl, c.state, READY);
-    this.wake();
+    // a sleeping helper is woken for two ready blocks, not one (each wake can cost the main
+    // thread its core on a loaded machine); a lone ready block is transformed by whoever comes first
+    Atomics.add(this.ctrl, GEN, 1);
+    if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) {
+      let ready = 0;
+      for (let k = 0; k < this.slots.length; k++) if (Atomics.load(this.ctrl, ctrlLayout(this.ctrl, k).state) === READY) ready++;
+      if (ready >= 2) Atomics.notify(this.ctrl, GEN);
+    }
   }
 
   /** Waits until every handed-over block is transformed (the main thread takes ready ones itself). */
@@ -240,8 +247,4 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, MAIN_WAITS, 0);
   }
 
-  private wake(): void {
-    Atomics.add(this.ctrl, GEN, 1);
-    if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
-  }
 }

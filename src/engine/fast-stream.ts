@@ -351,7 +351,7 @@ export class CellStream {
     }
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
-    const tmp = new Float64Array(2 * WL);
+    const gam = new Float64Array(2 * Math.max(nw, 1));
     return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
@@ -377,10 +377,9 @@ export class CellStream {
         if (flat) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           for (let q = 0; q < coils; q++) {
-            let src = rl;
             if (hasSens && tab.low) {
+              // Σ_j γ_j·B_j per (rank, segment), added in j order (as into a zeroed scratch), then times the phase
               const { J, B, alpha } = tab.low;
-              tmp.fill(0);
               for (let j = 0; j < J; j++) {
                 let gr = 0, gi = 0;
                 for (let c = 0; c < nw; c++) {
@@ -388,32 +387,24 @@ export class CellStream {
                   gr += sr * ar - si * ai;
                   gi += sr * ai + si * ar;
                 }
-                const o = 2 * j * WL;
-                for (let x = 0; x < WL; x++) {
-                  const zr = B[o + 2 * x]!, zi = B[o + 2 * x + 1]!;
-                  tmp[2 * x] = tmp[2 * x]! + (zr * gr - zi * gi);
-                  tmp[2 * x + 1] = tmp[2 * x + 1]! + (zr * gi + zi * gr);
-                }
+                gam[2 * j] = gr;
+                gam[2 * j + 1] = gi;
               }
-              src = tmp;
+              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, B, gam, J, 2 * WL, sr, si);
             } else if (hasSens) {
-              tmp.fill(0);
               for (let c = 0; c < nw; c++) {
-                const gr = S[2 * (q * nw + c)]!, gi = S[2 * (q * nw + c) + 1]!, o = 2 * WL * c;
-                for (let x = 0; x < WL; x++) {
-                  const zr = rl[o + 2 * x]!, zi = rl[o + 2 * x + 1]!;
-                  tmp[2 * x] = tmp[2 * x]! + (zr * gr - zi * gi);
-                  tmp[2 * x + 1] = tmp[2 * x + 1]! + (zr * gi + zi * gr);
-                }
+                gam[2 * c] = S[2 * (q * nw + c)]!;
+                gam[2 * c + 1] = S[2 * (q * nw + c) + 1]!;
               }
-              src = tmp;
-            }
-            for (let r = 0; r < W; r++) {
-              const ob = p * NX + 2 * (r * coils + q) * L;
-              for (let l = 0; l < L; l++) {
-                const x = r * L + l, zr = src[2 * x]!, zi = src[2 * x + 1]!, o = ob + 2 * l;
-                XB[o] = XB[o]! + (zr * sr - zi * si);
-                XB[o + 1] = XB[o + 1]! + (zr * si + zi * sr);
+              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, rl, gam, nw, 2 * WL, sr, si);
+            } else {
+              for (let r = 0; r < W; r++) {
+                const ob = p * NX + 2 * (r * coils + q) * L;
+                for (let l = 0; l < L; l++) {
+                  const x = r * L + l, zr = rl[2 * x]!, zi = rl[2 * x + 1]!, o = ob + 2 * l;
+                  XB[o] = XB[o]! + (zr * sr - zi * si);
+                  XB[o + 1] = XB[o + 1]! + (zr * si + zi * sr);
+                }
               }
             }
           }
@@ -637,6 +628,29 @@ export class CellStream {
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) cls[n++] = this.classAt(e, z, t);
       }
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);
+    }
+  }
+}
+
+/**
+ * XB[ob + r·rStride + 2l] += (Σ_j γ_j·V_j[r·L + l])·(sr + i·si) for every
+ * rank r < W and segment l < L, the sum over j in order from zero: V_j at
+ * V[j·vStride …] (interleaved), γ_j at gam[2j] (interleaved).
+ */
+function addCombined(XB: Float64Array, ob: number, rStride: number, W: number, L: number, V: Float64Array, gam: Float64Array, J: number, vStride: number, sr: number, si: number): void {
+  for (let r = 0; r < W; r++) {
+    const o0 = ob + r * rStride;
+    for (let l = 0; l < L; l++) {
+      const x2 = 2 * (r * L + l);
+      let vr = 0, vi = 0;
+      for (let j = 0; j < J; j++) {
+        const zr = V[j * vStride + x2]!, zi = V[j * vStride + x2 + 1]!, gr = gam[2 * j]!, gi = gam[2 * j + 1]!;
+        vr = vr + (zr * gr - zi * gi);
+        vi = vi + (zr * gi + zi * gr);
+      }
+      const o = o0 + 2 * l;
+      XB[o] = XB[o]! + (vr * sr - vi * si);
+      XB[o + 1] = XB[o + 1]! + (vr * si + vi * sr);
     }
   }
 }
