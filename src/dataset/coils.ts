@@ -212,3 +212,13 @@ export function enclosureMargin(a: CoilArray, x: ArrayLike<number>, y: ArrayLike
   }
   return worst;
 }
+
+/**
+ * Sensitivities of the uniform coil (coil 0) and then every loop of `a` at
+ * n points, out[2·(q·n + i)]: the dataset's coil set (dataset/simulate.ts),
+ * one function for every thread that evaluates it.
+ */
+export function uniformAndLoops(a: CoilArray, x: ArrayLike<number>, y: ArrayLike<number>, z: ArrayLike<number>, n: number, out: Float64Array): void {
+  sensitivitiesAt({ ...a, elements: 0 }, x, y, z, n, out, n, 0);
+  sensitivitiesAt(a, x, y, z, n, out, n, 1);
+}

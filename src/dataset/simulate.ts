@@ -12,7 +12,7 @@ import { simulateCells, simulateWith, type EnginePlan, type Executor, type KSpac
 import type { ReadoutChoice, ReadoutReport } from "../engine/fast.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, mapIsochromatArrays, type IsochromatCells, type IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
-import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
+import { coilCount, sensitivitiesAt, uniformAndLoops, type CoilArray } from "./coils.js";
 
 /** Largest sensitivity array per block, in numbers (Float64): 32 M = 256 MB. */
 export const SENS_BUDGET = 32 * 1024 * 1024;
@@ -72,10 +72,9 @@ export async function simulateCoilsPlanned(
   const res = await one(simulateCells(exec, seq, src.cells, () => src.iso, opts, {
     sens: {
       coils: C,
-      at: (x, y, z, n, out) => {
-        sensitivitiesAt({ ...array, elements: 0 }, x, y, z, n, out, n, 0);
-        sensitivitiesAt(array, x, y, z, n, out, n, 1);
-      },
+      at: (x, y, z, n, out) => uniformAndLoops(array, x, y, z, n, out),
+      // plain data: a helper thread can evaluate the same sensitivities (engine/fast-phase.ts)
+      loops: array,
     },
     stored: async (o) => {
       const r = await storedCoils(seq, src.iso, array, C, receiverFilter, executor, onProgress, { ...engine, readout: o.readout });

@@ -11,6 +11,7 @@
  * array, with Atomics for the hand-offs (no message per block).
  */
 import { FFTPlan } from "../recon/fft.js";
+import { uniformAndLoops, type CoilArray } from "../dataset/coils.js";
 
 /** What every block's transform reads (the same for the whole run). */
 export interface PhaseSetup {
@@ -85,6 +86,36 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
 
 /** Control words (HELPER_WAITS, MAIN_WAITS: 1 while that thread sleeps in Atomics.wait, so a notify is sent only then). */
 const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, HELPER_WAITS = 4, MAIN_WAITS = 5, SLOT0 = 8;
+/** Sensitivity jobs: after the grid slots, per job (state, columns). */
+const SENS_JOBS = 4;
+const S_FREE = 0, S_REQUESTED = 1, S_BUSY = 2, S_DONE = 3;
+
+/** Coil sensitivities a helper evaluates ahead of the fold: the uniform coil and loops (dataset/coils.ts uniformAndLoops) at the cell centres of listed columns. */
+export interface SensShared {
+  loops: CoilArray;
+  coils: number;
+  uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array;
+  axes: { read: number[]; phase: number[]; slice: number[] };
+  colA: SharedArrayBuffer; colB: SharedArrayBuffer;
+  /** Per job: the columns (Int32) and their sensitivities (Float64, 2·coils·nw per column, as CellStream.sensOf lays them out). */
+  cols: SharedArrayBuffer[]; out: SharedArrayBuffer[];
+}
+
+/** The sensitivities of columns cols[0 … n) into out (per column 2·coils·nw numbers), as CellStream.sensOf evaluates them. */
+function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array): void {
+  const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, per = 2 * sh.coils * nw;
+  for (let i = 0; i < n; i++) {
+    const col = cols[i]!, u = uGrid[colA[col]!]!, v = vGrid[colB[col]!]!;
+    for (let c = 0; c < nw; c++) {
+      const w = wGrid[c]!;
+      px[c] = axes.read[0]! * u + axes.phase[0]! * v + axes.slice[0]! * w;
+      py[c] = axes.read[1]! * u + axes.phase[1]! * v + axes.slice[1]! * w;
+      pz[c] = axes.read[2]! * u + axes.phase[2]! * v + axes.slice[2]! * w;
+    }
+    uniformAndLoops(sh.loops, px, py, pz, nw, one);
+    out.set(one, i * per);
+  }
+}
 /** Slot states. */
 const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3, FILLING = 4;
 /** Slots of folded grids (one being transformed by the helper, the others ready or free). */
@@ -99,10 +130,38 @@ export interface PhaseShared {
   list: SharedArrayBuffer;
   slots: SharedArrayBuffer[];
   slotLen: number;
+  sens?: SensShared;
 }
 
 function ctrlLayout(ctrl: Int32Array, s: number) {
   return { state: SLOT0 + 3 * s, a0: SLOT0 + 3 * s + 1, a1: SLOT0 + 3 * s + 2 };
+}
+
+/** Control words of sensitivity job j: state, number of columns. */
+function sensLayout(j: number) {
+  const b = SLOT0 + 3 * PHASE_SLOTS + 2 * j;
+  return { state: b, n: b + 1 };
+}
+
+/** Evaluates a requested sensitivity job if there is one (claimed by CAS); false if none. */
+function runSensJob(ctrl: Int32Array, sh: SensShared, views: SensViews, busy: number): boolean {
+  for (let j = 0; j < SENS_JOBS; j++) {
+    const c = sensLayout(j);
+    if (Atomics.compareExchange(ctrl, c.state, S_REQUESTED, busy) !== S_REQUESTED) continue;
+    evalSens(sh, views.colA, views.colB, views.cols[j]!, Atomics.load(ctrl, c.n), views.out[j]!, views.px, views.py, views.pz, views.one);
+    Atomics.store(ctrl, c.state, S_DONE);
+    return true;
+  }
+  return false;
+}
+
+interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array }
+function sensViews(sh: SensShared): SensViews {
+  const nw = sh.wGrid.length;
+  return {
+    colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
+    px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
+  };
 }
 
 /** The helper's side: transforms ready slots until the run ends (runs synchronously on the helper thread). */
@@ -110,10 +169,17 @@ export function phaseHelperLoop(sh: PhaseShared): void {
   const ctrl = new Int32Array(sh.ctrl), list = new Int32Array(sh.list);
   const slots = sh.slots.map((b) => new Float64Array(b));
   const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.Z), colUsed: new Uint8Array(sh.colUsed) });
+  const sv = sh.sens ? sensViews(sh.sens) : null;
   for (;;) {
     const gen = Atomics.load(ctrl, GEN);
     if (Atomics.load(ctrl, END) === 1) return;
     let did = false;
+    // sensitivities first: the main thread's fold waits for them
+    while (sh.sens && sv && runSensJob(ctrl, sh.sens, sv, S_BUSY)) {
+      did = true;
+      Atomics.add(ctrl, PROGRESS, 1);
+      if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
+    }
     for (let s = 0; s < slots.length; s++) {
       const c = ctrlLayout(ctrl, s);
       if (Atomics.compareExchange(ctrl, c.state, READY, BUSY_HELPER) !== READY) continue;
@@ -149,14 +215,26 @@ export class ParallelPhase {
   private readonly own: PhaseTransform;
   private nl = 0;
 
-  constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number) {
+  private sensViews: SensViews | null = null;
+
+  constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
     const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.Mu * setup.coils * setup.L);
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
-    const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS));
+    const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));
     const list = new SharedArrayBuffer(4 * 4 * Math.max(1, maxList));
     const slots = Array.from({ length: PHASE_SLOTS }, () => new SharedArrayBuffer(8 * slotLen));
     this.shared = { setup, Z: zb, colUsed: cu, ctrl, list, slots, slotLen };
+    if (sens) {
+      const { maxCols, ...rest } = sens;
+      const nw = sens.wGrid.length;
+      this.shared.sens = {
+        ...rest,
+        cols: Array.from({ length: SENS_JOBS }, () => new SharedArrayBuffer(4 * Math.max(1, maxCols))),
+        out: Array.from({ length: SENS_JOBS }, () => new SharedArrayBuffer(8 * 2 * sens.coils * nw * Math.max(1, maxCols))),
+      };
+      this.sensViews = sensViews(this.shared.sens);
+    }
     this.Z = new Float64Array(zb);
     this.ctrl = new Int32Array(ctrl);
     this.list = new Int32Array(list);
@@ -169,6 +247,46 @@ export class ParallelPhase {
     this.list.set(list.subarray(0, 4 * nl));
     this.nl = nl;
     Atomics.store(this.ctrl, LIST_LEN, nl);
+  }
+
+  /** Asks for the sensitivities of columns cols[0 … n) (n ≤ maxCols); returns the job, or −1 when every job is taken. */
+  requestSens(cols: ArrayLike<number>, n: number): number {
+    const v = this.sensViews;
+    if (!v) return -1;
+    for (let j = 0; j < SENS_JOBS; j++) {
+      const c = sensLayout(j);
+      if (Atomics.load(this.ctrl, c.state) !== S_FREE) continue;
+      const dst = v.cols[j]!;
+      for (let i = 0; i < n; i++) dst[i] = cols[i]!;
+      Atomics.store(this.ctrl, c.n, n);
+      Atomics.store(this.ctrl, c.state, S_REQUESTED);
+      Atomics.add(this.ctrl, GEN, 1);
+      if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
+      return j;
+    }
+    return -1;
+  }
+
+  /** The sensitivities of job j once evaluated (here, if the helper has not started it). */
+  takeSens(j: number): Float64Array {
+    const v = this.sensViews!, c = sensLayout(j), sh = this.shared.sens!;
+    if (Atomics.compareExchange(this.ctrl, c.state, S_REQUESTED, S_BUSY) === S_REQUESTED) {
+      evalSens(sh, v.colA, v.colB, v.cols[j]!, Atomics.load(this.ctrl, c.n), v.out[j]!, v.px, v.py, v.pz, v.one);
+      Atomics.store(this.ctrl, c.state, S_DONE);
+    }
+    while (Atomics.load(this.ctrl, c.state) !== S_DONE) {
+      const p = Atomics.load(this.ctrl, PROGRESS);
+      if (Atomics.load(this.ctrl, c.state) === S_DONE) break;
+      Atomics.store(this.ctrl, MAIN_WAITS, 1);
+      Atomics.wait(this.ctrl, PROGRESS, p, 50);
+      Atomics.store(this.ctrl, MAIN_WAITS, 0);
+    }
+    return v.out[j]!;
+  }
+
+  /** Job j's sensitivities are no longer needed. */
+  releaseSens(j: number): void {
+    Atomics.store(this.ctrl, sensLayout(j).state, S_FREE);
   }
 
   /** A free slot (all zero) to fold the next block into (the main thread transforms ready blocks while none is free). */

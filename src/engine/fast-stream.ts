@@ -25,6 +25,7 @@ import { addSegments, estimateOver, pivotedBasis, project, type ColumnVisitor, t
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
+import type { CoilArray } from "../dataset/coils.js";
 
 /** More RF classes than this (a B0 model giving each cell its own Δf) are not hashed: the stored path runs. */
 export const MAX_STREAM_CLASSES = 1 << 22;
@@ -36,6 +37,8 @@ export const MAX_STREAM_CLASSES = 1 << 22;
 export interface CellSensitivities {
   coils: number;
   at(x: Float64Array, y: Float64Array, z: Float64Array, count: number, out: Float64Array): void;
+  /** When `at` is the uniform coil then these loops (dataset/coils.ts uniformAndLoops): plain data a helper thread can evaluate too. */
+  loops?: CoilArray;
 }
 
 /**
@@ -281,7 +284,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
-    tol = 0, onColumn?: (col: number, S: Float64Array) => void,
+    tol = 0, onColumn?: (col: number, S: Float64Array) => void, sensSource?: { fill: ((col: number, S: Float64Array) => void) | null },
   ): ColumnFolder {
     void XB0;
     const coils = plan.coils;
@@ -368,7 +371,11 @@ export class CellStream {
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
       const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
       const u = uGrid[a]!;
-      if (hasSens) this.sensOf(col, S);
+      if (hasSens) {
+        // evaluated ahead (by a helper thread) where the caller has them
+        if (sensSource?.fill) sensSource.fill(col, S);
+        else this.sensOf(col, S);
+      }
       if (onColumn) onColumn(col, S);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;

@@ -546,7 +546,31 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   let usedCols = 0;
   for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
   const helper = phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
-  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX) : null;
+  // with a helper and loop coils (plain data), the helper also evaluates the sensitivities of the blocks ahead of the fold
+  const loops = src.kind === "cells" && coils > 1 ? src.stream.sens?.loops : undefined;
+  const blockColumns = (blk: { ranges: [number, number][] }) => {
+    const out: number[] = [];
+    for (const [c0, c1] of blk.ranges) for (let c = c0; c < c1; c++) out.push(c);
+    return out;
+  };
+  const sensAhead = helper && loops && src.kind === "cells"
+    ? (() => {
+        const cells = src.stream.cells, ax = cells.ctx.axes;
+        const share = (a: Int32Array) => {
+          const b = new SharedArrayBuffer(4 * Math.max(1, a.length));
+          new Int32Array(b).set(a);
+          return b;
+        };
+        let maxCols = 0;
+        for (const blk of blocks) maxCols = Math.max(maxCols, blockColumns(blk).length);
+        return {
+          loops, coils, uGrid: cells.uGrid, vGrid: cells.vGrid, wGrid: cells.wGrid,
+          axes: { read: [...ax.read], phase: [...ax.phase], slice: [...ax.slice] },
+          colA: share(cells.colA), colB: share(cells.colB), maxCols,
+        };
+      })()
+    : undefined;
+  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead) : null;
   if (helper && par) helper.start(par.shared);
   try {
   const Zall = par ? par.Z : new Float64Array(zStride * coils * L);
@@ -578,9 +602,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // each column's sensitivities (evaluated once); otherwise in a pass of their own before the last drain
   const actN = act.map((a) => a.n);
   const hooked = src.kind === "cells" && coils > 1 ? src.stream.estimateHooked(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2) : null;
+  const sensSource: { fill: ((col: number, S: Float64Array) => void) | null } = { fill: null };
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
-    : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook);
+    : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook, sensSource);
   const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array) => {
     // a helper's slot is zeroed after its transform (on the thread that ran it)
     if (!par) grids.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
@@ -600,7 +625,39 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
     setList(all);
-    for (const blk of blocks) foldTransform(blk);
+    if (par && sensAhead) {
+      // sensitivities of the next blocks requested ahead (the helper evaluates them first; the
+      // main thread evaluates a job itself if the helper has not started it when the fold needs it)
+      const cols = blocks.map(blockColumns), job = new Int32Array(blocks.length).fill(-1);
+      let next = 0;
+      const ask = () => {
+        while (next < blocks.length) {
+          const j = par.requestSens(cols[next]!, cols[next]!.length);
+          if (j < 0) return;
+          job[next++] = j;
+        }
+      };
+      const per = 2 * coils * sensAhead.wGrid.length;
+      for (let k = 0; k < blocks.length; k++) {
+        ask();
+        if (job[k]! < 0) {
+          // not requested (every job taken): the stream evaluates them
+          sensSource.fill = null;
+          foldTransform(blocks[k]!);
+          continue;
+        }
+        const out = par.takeSens(job[k]!), list = cols[k]!;
+        let at = 0;
+        sensSource.fill = (col, S) => {
+          if (list[at] !== col) throw new Error("fast operator: sensitivities out of step with the fold");
+          for (let i = 0, o = at * per; i < per; i++) S[i] = out[o + i]!;
+          at++;
+        };
+        foldTransform(blocks[k]!);
+        sensSource.fill = null;
+        par.releaseSens(job[k]!);
+      }
+    } else for (const blk of blocks) foldTransform(blk);
     kept = all.length;
   } else {
   const n2 = new Float64Array(NX);
