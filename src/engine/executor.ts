@@ -280,7 +280,7 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
   const shared = shareEngineArrays(iso);
   const plan = planLayout(seq, shared, opts);
   opts.onPlan?.(plan);
-  // the fast operator runs on this thread (no workers started)
+  // the fast operator runs on this thread (no engine workers started; it may share its FFTs with its own helper thread, fast-node.ts)
   let readout: ReadoutReport;
   let filled = false;
   if (fastWanted(seq, shared, plan, opts)) {

@@ -85,7 +85,7 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
 // Hand-off to a helper thread through shared memory.
 
 /** Control words (HELPER_WAITS, MAIN_WAITS: 1 while that thread sleeps in Atomics.wait, so a notify is sent only then). */
-const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, HELPER_WAITS = 4, MAIN_WAITS = 5, SLOT0 = 8;
+const GEN = 0, PROGRESS = 1, END = 2, LIST_LEN = 3, HELPER_WAITS = 4, MAIN_WAITS = 5, FAILED = 6, SLOT0 = 8;
 /** Sensitivity jobs: after the grid slots, per job (state, columns). */
 const SENS_JOBS = 4;
 const S_FREE = 0, S_REQUESTED = 1, S_BUSY = 2, S_DONE = 3;
@@ -164,9 +164,21 @@ function sensViews(sh: SensShared): SensViews {
   };
 }
 
-/** The helper's side: transforms ready slots until the run ends (runs synchronously on the helper thread). */
+/** The helper's side: transforms ready slots until the run ends (runs synchronously on the helper thread); a failure is flagged for the main thread, which then stops the run. */
 export function phaseHelperLoop(sh: PhaseShared): void {
-  const ctrl = new Int32Array(sh.ctrl), list = new Int32Array(sh.list);
+  const ctrl = new Int32Array(sh.ctrl);
+  try {
+    helperLoop(sh, ctrl);
+  } catch (e) {
+    Atomics.store(ctrl, FAILED, 1);
+    Atomics.add(ctrl, PROGRESS, 1);
+    Atomics.notify(ctrl, PROGRESS);
+    throw e;
+  }
+}
+
+function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
+  const list = new Int32Array(sh.list);
   const slots = sh.slots.map((b) => new Float64Array(b));
   const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.Z), colUsed: new Uint8Array(sh.colUsed) });
   const sv = sh.sens ? sensViews(sh.sens) : null;
@@ -275,6 +287,7 @@ export class ParallelPhase {
       Atomics.store(this.ctrl, c.state, S_DONE);
     }
     while (Atomics.load(this.ctrl, c.state) !== S_DONE) {
+      this.checkHelper();
       const p = Atomics.load(this.ctrl, PROGRESS);
       if (Atomics.load(this.ctrl, c.state) === S_DONE) break;
       Atomics.store(this.ctrl, MAIN_WAITS, 1);
@@ -355,7 +368,13 @@ export class ParallelPhase {
     return false;
   }
 
+  /** Stops the run when the helper failed (its block or sensitivities are lost). */
+  private checkHelper(): void {
+    if (Atomics.load(this.ctrl, FAILED) === 1) throw new Error("fast operator: the helper thread failed (see its error); run again with ISOFOLD_FAST_THREADS=1 to stay on one thread");
+  }
+
   private waitProgress(): void {
+    this.checkHelper();
     const p = Atomics.load(this.ctrl, PROGRESS);
     let busy = false;
     for (let s = 0; s < this.slots.length; s++) if (Atomics.load(this.ctrl, ctrlLayout(this.ctrl, s).state) === BUSY_HELPER) busy = true;
