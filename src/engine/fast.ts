@@ -433,12 +433,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const NA = act.length;
   // --- line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), weighted by each class's magnetization
   const tolLine = tolerance / split, tolTime = tolerance / split;
-  const Pl = new Float64Array(2 * NA * C);
   const y = new Float64Array(2 * NA * C);
-  lineValues(P, act.map((a) => a.n), C, mass, Pl, y);
+  lineValues(P, act.map((a) => a.n), C, mass, y);
   const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK);
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
-  const G = project(A, Pl, NA, C); // G[c·R + r]
+  const G = projectLines(A, P, act.map((a) => a.n), C); // G[c·R + r]
   const R = A.length;
   // --- time factor over distinct (R2, Δf)
   const { keyOf, keyDf, keyR2, K, E, ey } = timeKeys(plan, G, R, mass, ns, dwell);
@@ -913,18 +912,41 @@ function sumSquares(v: Float64Array): number {
   return s;
 }
 
-/** Pl[c·NA + k] = P[line_k·C + c] and y = Pl·mass[c] (interleaved complex), line outer: P is read along its rows. */
-function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Array, Pl: Float64Array, y: Float64Array): void {
+/** y[c·NA + k] = P[line_k·C + c]·mass[c] (interleaved complex), line outer: P is read along its rows. */
+function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Array, y: Float64Array): void {
   const NA = lines.length;
   for (let k = 0; k < NA; k++) {
     const n = lines[k]!;
     for (let c = 0; c < C; c++) {
       const o = 2 * (n * C + c), t = 2 * (c * NA + k);
-      Pl[t] = P[o]!;
-      Pl[t + 1] = P[o + 1]!;
       y[t] = P[o]! * mass[c]!;
       y[t + 1] = P[o + 1]! * mass[c]!;
     }
+  }
+}
+
+/**
+ * project(basis, Pl, NA, C) for Pl[c·NA + k] = P[line_k·C + c], read from P
+ * along its rows (no transposed copy): each coefficient still sums its terms
+ * in line order k = 0, 1, …, so the numbers are the same.
+ */
+function projectLines(basis: Float64Array[], P: Float64Array, lines: number[], C: number): Float64Array {
+  const R = basis.length, NA = lines.length, coef = new Float64Array(2 * C * R);
+  for (let k = 0; k < NA; k++) {
+    const n = lines[k]!;
+    for (let r = 0; r < R; r++) {
+      const br = basis[r]![2 * k]!, bi = basis[r]![2 * k + 1]!;
+      addProjection(coef, P, 2 * n * C, C, R, r, br, bi);
+    }
+  }
+  return coef;
+}
+
+function addProjection(coef: Float64Array, P: Float64Array, o: number, C: number, R: number, r: number, br: number, bi: number): void {
+  for (let c = 0; c < C; c++) {
+    const xr = P[o + 2 * c]!, xi = P[o + 2 * c + 1]!, t = 2 * (c * R + r);
+    coef[t] = coef[t]! + (br * xr + bi * xi);
+    coef[t + 1] = coef[t + 1]! + (br * xi - bi * xr);
   }
 }
 
