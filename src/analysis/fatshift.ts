@@ -313,7 +313,7 @@ function regionShift(
   let clean = true;
   // the shift's phase exp(−i2π((b − cR)·sx/nRead + (a − cP)·sy/nPhase)) is a product of a
   // read factor and a phase factor: nRead + nPhase cosines and sines per evaluation, not nRead·nPhase
-  const er = new Float64Array(2 * nRead), ep = new Float64Array(2 * nPhase);
+  const er = new Float64Array(2 * nRead), ep = new Float64Array(2 * nPhase), winIdx = new Int32Array(n);
   const cost = (sx: number, sy: number): number => {
     for (let b = 0; b < nRead; b++) {
       const th = (-2 * Math.PI * (b - cR) * sx) / nRead;
@@ -339,9 +339,9 @@ function regionShift(
     for (let a = 0; a < nPhase; a++) centredLine(wr, wi, nRead, 1, a * nRead, 1, 1 / nRead);
     if (nPhase > 1) for (let b = bx0; b <= bx1; b++) centredLine(wr, wi, nPhase, nRead, b, 1, 1 / nPhase);
     let mt = 0, tt = 0, mm = 0;
-    for (let i = 0; i < n; i++) {
-      const w = win[i]!;
-      if (w === 0) continue;
+    // the window's pixels in index order (as a scan of every pixel skipping zero weights)
+    for (let k = 0; k < nWin; k++) {
+      const i = winIdx[k]!, w = win[i]!;
       const t = Math.hypot(wr[i]!, wi[i]!), m = mag[i]!;
       mt += w * m * t; tt += w * t * t; mm += w * m * m;
     }
@@ -357,13 +357,15 @@ function regionShift(
     return (a + b) / 2;
   };
   let sx = ox, sy = oy;
-  let bx0 = 0, bx1 = nRead - 1;
+  let bx0 = 0, bx1 = nRead - 1, nWin = 0;
   for (let round = 0; round < 2; round++) {
     if (windowWeights(win, s, sx, sy, margin, region, other, nRead, nPhase)) clean = false;
     bx0 = nRead;
     bx1 = -1;
+    nWin = 0;
     for (let i = 0; i < n; i++) {
       if (win[i] === 0) continue;
+      winIdx[nWin++] = i;
       const b = i % nRead;
       if (b < bx0) bx0 = b;
       if (b > bx1) bx1 = b;
