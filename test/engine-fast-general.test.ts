@@ -66,11 +66,127 @@ function both(p: P, extra: Partial<SimulateOptions> = {}) {
   return { fast, direct, err: relL2(fast.kspace, direct.kspace) };
 }
 
-describe("smoke", () => {
-  test("se with B0 and T2′", () => {
-    const p = prep("se-t2-1.5t", ["matrix.read=32", "matrix.phase=32"], { t2primeIsochromats: 4 }, phantomWithB0(10));
-    const t0 = Date.now();
-    const r = both(p);
-    console.log(Date.now() - t0, r.err, JSON.stringify(r.fast.readout), r.direct.readout);
+const TOL = 1e-6;
+const M32 = ["matrix.read=32", "matrix.phase=32"];
+
+/**
+ * Checks one case: the fold ran, is within the tolerance of direct, and its estimate covers the true error within
+ * ESTIMATE_FACTOR (measured: the estimate was 2.3–10× the true error on every case here, so a factor 2 leaves margin).
+ */
+const ESTIMATE_FACTOR = 2;
+function check(name: string, p: P, extra: Partial<SimulateOptions> = {}) {
+  const r = both(p, extra);
+  const est = r.fast.readout.estimate?.relL2 ?? NaN;
+  if (process.env.ISOFOLD_PRINT_FOLD) console.log(`FOLD ${name}: L=${r.fast.readout.segments} true=${r.err.toExponential(2)} estimate=${est.toExponential(2)}`);
+  expect(r.fast.readout.operator).toBe("fast");
+  expect(r.fast.readout.method).toMatch(/time-segmented fold/);
+  expect(r.fast.readout.segments).toBeGreaterThanOrEqual(1);
+  expect(r.direct.readout.operator).toBe("direct");
+  expect(r.direct.kspace.re.some((x) => x !== 0)).toBe(true);
+  expect(r.err).toBeLessThanOrEqual(TOL);
+  // the a-posteriori estimate (direct lines inside the run) is not far below the true error
+  expect(est * ESTIMATE_FACTOR).toBeGreaterThanOrEqual(r.err);
+  return r;
+}
+
+describe("time-segmented fold against the direct operator (relative L2 of k-space ≤ 1e-6)", () => {
+  test("spin echo, B0 expression (10 Hz/cm along x, curvature along y) and T2′ spread", () => {
+    check("se", prep("se-t2-1.5t", M32, { t2primeIsochromats: 4 }, phantomWithB0(10)));
+  }, 30_000);
+  test("RARE with multi-peak fat (the oil bottle)", () => {
+    check("rare", prep("rare-t2-1.5t", M32, { fatModel: "multi" }));
+  }, 30_000);
+  test("bSSFP with a B0 expression", () => {
+    check("bssfp", prep("bssfp-1.5t", M32, {}, phantomWithB0(5)));
+  }, 30_000);
+  test("RF-spoiled GRE with the T2′ spread", () => {
+    check("gre-rf", prep("gre-t1-3t", [...M32, "spoiling=rf"], { t2primeIsochromats: 4 }));
+  }, 30_000);
+  test("3D GRE (RF spoiled, 4 slice-encoding steps) with a B0 expression", () => {
+    check("gre3d", prep("gre3d-t1-1.5t", ["matrix.read=16", "matrix.phase=16", "matrix.slice=4", "spoiling=rf"], { sliceCount: 2 }, phantomWithB0(5)));
+  }, 30_000);
+  test("EPI single-shot with a B0 expression", () => {
+    check("epi", prep("epi-1.5t", M32, {}, phantomWithB0(5)));
+  }, 30_000);
+  test("EPI segmented (4 shots) with the T2′ spread and fat", () => {
+    check("epi-4shot", prep("epi-4shot-3t", M32, { t2primeIsochromats: 4 }));
+  }, 30_000);
+  test("multi-slice spin echo, the second of two slices (the other slice's pulses played), B0 expression", () => {
+    const p = prep("se-t1-multislice-1.5t", [...M32, "slices.count=2"], {}, phantomWithB0(10));
+    expect(p.slices.length).toBe(2);
+    const s = p.slices[1]!;
+    check("multislice", { ...p, seq: s.seq, iso: s.iso } as P);
+  }, 30_000);
+  test("spin echo with 3 coils (sensitivities per isochromat), B0 and T2′", () => {
+    const p = prep("se-t2-1.5t", M32, { t2primeIsochromats: 4 }, phantomWithB0(10));
+    const r = check("coils", p, { coils: 3, sens: sensitivities(p.iso, 3) });
+    expect(r.fast.kspace.coils).toBe(3);
+  }, 30_000);
+});
+
+describe("the fold's check can fail, and its bits do not depend on the executor", () => {
+  test("a looser tolerance (1e-2) gives a larger true error than 1e-6, both within their tolerance and covered by the estimate", () => {
+    const p = prep("epi-1.5t", M32, { t2primeIsochromats: 4 }, phantomWithB0(10));
+    const o: SimulateOptions = { receiverFilter: p.protocol.receiverFilter };
+    const direct = simulateSerial(p.seq, p.iso, { ...o, readout: "direct" });
+    const tight = simulateSerial(p.seq, p.iso, { ...o, readout: "fast", tolerance: 1e-6 });
+    const loose = simulateSerial(p.seq, p.iso, { ...o, readout: "fast", tolerance: 1e-2 });
+    const eT = relL2(tight.kspace, direct.kspace), eL = relL2(loose.kspace, direct.kspace);
+    if (process.env.ISOFOLD_PRINT_FOLD) console.log(`FOLD tolerance: L ${tight.readout.segments} / ${loose.readout.segments}, true ${eT.toExponential(2)} / ${eL.toExponential(2)}, estimate ${tight.readout.estimate?.relL2.toExponential(2)} / ${loose.readout.estimate?.relL2.toExponential(2)}`);
+    expect(loose.readout.operator).toBe("fast");
+    expect(loose.readout.segments!).toBeLessThan(tight.readout.segments!);
+    expect(eL).toBeGreaterThan(10 * eT);
+    expect(eL).toBeLessThanOrEqual(1e-2);
+    expect(eT).toBeLessThanOrEqual(1e-6);
+    expect(loose.readout.estimate!.relL2 * ESTIMATE_FACTOR).toBeGreaterThanOrEqual(eL);
+  }, 30_000);
+
+  test("interpolators: the fitted error bound holds on a dense off-grid sweep of (Δf, R2), computed directly", () => {
+    // independent of the fit's own check grid: exp(−jΔtλ) against Σ_l B_l(j)·exp(−l·τ·λ) at random points of the box
+    const ns = 40, dwell = 1 / 12800, target = 1e-7;
+    const s = fitShape(ns, dwell, -300, 250, 5, 40, target)!;
+    expect(s).not.toBeNull();
+    let worst = 0, seed = 7;
+    const rnd = () => ((seed = (seed * 1103515245 + 12345) % 2147483648) / 2147483648);
+    for (let k = 0; k < 2000; k++) {
+      const f = -300 + 550 * rnd(), r2 = 5 + 35 * rnd();
+      for (let j = 0; j < ns; j++) {
+        let sr = 0, si = 0;
+        for (let l = 0; l < s.L; l++) {
+          const t = l * s.tau, e = Math.exp(-t * r2), th = -2 * Math.PI * f * t;
+          const br = s.B[2 * (j * s.L + l)]!, bi = s.B[2 * (j * s.L + l) + 1]!;
+          sr += br * e * Math.cos(th) - bi * e * Math.sin(th);
+          si += br * e * Math.sin(th) + bi * e * Math.cos(th);
+        }
+        const t = j * dwell, e = Math.exp(-t * r2), th = -2 * Math.PI * f * t;
+        worst = Math.max(worst, Math.hypot(sr - e * Math.cos(th), si - e * Math.sin(th)));
+      }
+    }
+    expect(s.L).toBeGreaterThan(1);
+    expect(worst).toBeLessThanOrEqual(2 * target);
+    // fewer segments than chosen do not reach the target (L is the smallest)
+    const fewer = fitShape(ns, dwell, -300, 250, 5, 40, target, s.L - 1);
+    expect(fewer).toBeNull();
+  });
+
+  test("bits: serial, 1 and 2 worker threads give the same fold k-space", async () => {
+    const p = prep("se-t2-1.5t", ["matrix.read=16", "matrix.phase=16"], { t2primeIsochromats: 4 }, phantomWithB0(10));
+    const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const, chunkIsochromats: 512 };
+    const serial = simulateSerial(p.seq, p.iso, o);
+    expect(serial.readout.method).toMatch(/time-segmented fold/);
+    expect(serial.plan.chunks).toBeGreaterThan(2);
+    for (const workers of [1, 2]) {
+      const r = await simulateParallel(p.seq, p.iso, { ...o, workers });
+      expect(r.readout.method).toMatch(/time-segmented fold/);
+      expect(Buffer.from(r.kspace.re.buffer).equals(Buffer.from(serial.kspace.re.buffer))).toBe(true);
+      expect(Buffer.from(r.kspace.im.buffer).equals(Buffer.from(serial.kspace.im.buffer))).toBe(true);
+    }
   }, 60_000);
+
+  test("sharded runs (blocks) keep the direct operator and say why", () => {
+    const p = prep("se-t2-1.5t", ["matrix.read=16", "matrix.phase=16"], {}, phantomWithB0(10));
+    const r = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast", blocks: [0, 1] });
+    expect(r.readout.operator).toBe("direct");
+    expect(r.readout.fallback).toMatch(/sharded/);
+  });
 });

@@ -65,6 +65,8 @@ export interface ReadoutReport {
   /** With "auto": the operator chosen from the predicted costs, and those costs (see {@link ReadoutCosts}). */
   choice?: ReadoutOperator;
   predicted?: ReadoutCosts;
+  /** With "auto", where the time-segmented fold (fold.ts) was predicted dearer than the direct readout: its prediction. */
+  foldPredicted?: ReadoutCosts;
   method?: string;
   /** How a sharded run splits the fast result. */
   sharding?: string;

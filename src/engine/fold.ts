@@ -443,10 +443,11 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
  * and readout (the group's filter weight and scaling, cached c_g and
  * position), per group, readout, segment and coil (one complex product and
  * add into Y), per element of a partial (allocating, transferring and adding
- * it in the fixed order). Calibrated on the bench rows (scripts/bench.ts,
+ * it in the fixed order), and per isochromat and op of the general path where
+ * the fold replaces the ideally spoiled shortcut. Calibrated on the bench rows (scripts/bench.ts,
  * "fold vs direct").
  */
-const W_FOLD = { group: 6, segment: 3, partial: 3 };
+const W_FOLD = { group: 6, segment: 3, partial: 3, generalOp: 4 };
 
 /** The fold's decision and, when it runs, its spec; with the report of what was decided. */
 export interface FoldChoice {
@@ -464,15 +465,16 @@ export interface FoldOptions {
 
 /**
  * Whether the fold runs for this plan, and its spec. `direct` is the report
- * the ideally spoiled operator's attempt left (direct, with why). The fold is
- * considered for plans the general path plays (not ideally spoiled), with
- * readout "fast" (whenever it applies) or "auto" (where predicted cheaper
- * than the direct readout).
+ * the ideally spoiled operator's attempt left (direct, with why); the fold is
+ * considered wherever that operator did not run, with readout "fast"
+ * (whenever it applies) or "auto" (where predicted cheaper than the direct
+ * readout; else `direct` is kept, with the fold's prediction added). An
+ * ideally spoiled plan then plays the general path (chunk.ts).
  */
 export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opts: FoldOptions, direct: ReadoutReport, tolerance: number): FoldChoice {
   const requested = opts.readout ?? "auto";
   const keep = (fallback?: string): FoldChoice => ({ spec: null, report: requested === "fast" && fallback ? { ...direct, fallback } : direct });
-  if (requested === "direct" || opts.general || plan.spoiledFast) return { spec: null, report: direct };
+  if (requested === "direct" || opts.general) return { spec: null, report: direct };
   if (opts.blocks) return keep("sharded run (blocks): the time-segmented fold's chunk partials are not k-space block sums, so the direct operator keeps shards mergeable");
   if (opts.onBlock) return keep("block sums were asked for (onBlock): the time-segmented fold's chunk partials are not k-space");
   const adcs = adcOps(plan.ops), NA = adcs.length;
@@ -536,15 +538,17 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   let nsSum = 0;
   for (const o of adcs) nsSum += o.samples;
   const directUnits = groups * nsSum * coils;
+  // an ideally spoiled plan gives up the spoiled shortcut for the general path (every op on every isochromat)
+  const generalUnits = plan.spoiledFast ? W_FOLD.generalOp * iso.count * plan.ops.length : 0;
   const foldUnits = NA * groups * (W_FOLD.group + W_FOLD.segment * L * coils) + (E / NA) * groups * nsSum * coils
-    + coils * L * positions * nsSum + W_FOLD.partial * plan.chunks * length;
+    + coils * L * positions * nsSum + W_FOLD.partial * plan.chunks * length + generalUnits;
   const predicted: ReadoutCosts = {
     directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (foldUnits * DIRECT_NS_PER_UNIT) / 1e6, directUnits, fastUnits: foldUnits,
     segmentsBound: L, groups, slots: base.slots,
     model: "readout only (Bloch propagation is common to both): direct = readout groups × samples × coils; fold = groups × readouts × (group + segments × coils) + the estimate lines + segments × positions × samples × coils + chunks × partial length (engine/fold.ts)",
   };
   const auto = requested === "auto" ? { choice: (foldUnits < directUnits ? "fast" : "direct") as "fast" | "direct", predicted } : {};
-  if (requested === "auto" && foldUnits >= directUnits) return { spec: null, report: { operator: "direct", requested, tolerance, ...auto } };
+  if (requested === "auto" && foldUnits >= directUnits) return { spec: null, report: { ...direct, foldPredicted: predicted } };
   const report: ReadoutReport = {
     operator: "fast", requested, tolerance, ...auto,
     method: `time-segmented fold of the readout groups (${L} segments, least-squares interpolators over ${fMin.toFixed(1)} … ${fMax.toFixed(1)} Hz and ${rMin.toFixed(2)} … ${rMax.toFixed(2)} /s; ${positions} positions)`,
