@@ -11,7 +11,8 @@ import { describe, expect, test } from "vitest";
 import { writeFileSync, readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { prepare } from "../src/cli/pipeline.js";
-import { fitShape, simulateSerial, type SimulateOptions } from "../src/engine/index.js";
+import { fitShape, serialExecutor, serveEngineWorker, simulateSerial, webWorkerExecutor, type SimulateOptions, type WebWorkerLike } from "../src/engine/index.js";
+import { simulate } from "../src/api.js";
 import { simulateParallel } from "../src/engine/node.js";
 import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
 import { tempDir } from "./helpers.js";
@@ -167,6 +168,11 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
     // fewer segments than chosen do not reach the target (L is the smallest)
     const fewer = fitShape(ns, dwell, -300, 250, 5, 40, target, s.L - 1);
     expect(fewer).toBeNull();
+    // a narrow box (34 Hz over a 4 ms readout, one R2) needs few segments: the fit stays overdetermined
+    const narrow = fitShape(32, 1 / 8000, -17, 17, 16.7, 16.7, target)!;
+    expect(narrow).not.toBeNull();
+    expect(narrow.L).toBeLessThanOrEqual(6);
+    expect(narrow.error).toBeLessThanOrEqual(target);
   });
 
   test("bits: serial, 1 and 2 worker threads give the same fold k-space", async () => {
@@ -189,4 +195,45 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
     expect(r.readout.operator).toBe("direct");
     expect(r.readout.fallback).toMatch(/sharded/);
   });
+
+  test("bits: the Web Worker executor (in-process stand-ins, 1 and 2 workers) gives the serial fold k-space; the report says fast, the method, L and the estimate", async () => {
+    // stand-ins as in test/engine-web-executor.test.ts: structured clones, delivered later, in order
+    const standIns = (n: number): WebWorkerLike[] => Array.from({ length: n }, () => {
+      const w: WebWorkerLike = {
+        onmessage: null,
+        postMessage(m, transfer) {
+          const copy = structuredClone(m, { transfer });
+          setTimeout(() => serve({ data: copy }), 0);
+        },
+      };
+      const serve = serveEngineWorker((r, transfer) => {
+        const copy = structuredClone(r, { transfer: transfer ?? [] });
+        setTimeout(() => w.onmessage?.({ data: copy }), 0);
+      });
+      return w;
+    });
+    const protocol = {
+      sequence: "se", field: "1.5 T", fov: { read: "12 cm", phase: "12 cm" }, matrix: { read: 16, phase: 16 },
+      slice: { thickness: "5 mm", position: "0 mm", orientation: "axial" }, bandwidth: "250 Hz/px", te: "20 ms", tr: "300 ms",
+    };
+    const phantom = {
+      name: "fold-disc", tissues: { gel: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "water" } },
+      shapes: [{ shape: "ellipse", center: ["0 cm", "0 cm"], semiAxes: ["4 cm", "3 cm"], tissue: "gel" }],
+      b0: { expression: "300 * x + 170 * y" },
+    };
+    const opts = { protocol, phantom, iso: { density: 1, sliceCount: 2, t2primeIsochromats: 4 }, readout: "fast" as const, chunkIsochromats: 256, convergenceCheck: false };
+    const serial = await simulate({ ...opts, executor: serialExecutor() });
+    const engine = serial.report["engine"] as { chunks: number; readout: { operator: string; method: string; segments: number; estimate: { relL2: number } } };
+    expect(engine.chunks).toBeGreaterThan(4);
+    expect(engine.readout.operator, JSON.stringify(engine.readout)).toBe("fast");
+    expect(engine.readout.method).toMatch(/time-segmented fold/);
+    expect(engine.readout.segments).toBeGreaterThan(1);
+    expect(engine.readout.estimate.relL2).toBeLessThanOrEqual(1e-6);
+    const bits = (a: Float64Array) => Buffer.from(a.buffer, a.byteOffset, a.byteLength);
+    for (const n of [1, 2]) {
+      const r = await simulate({ ...opts, executor: webWorkerExecutor(standIns(n)) });
+      expect(bits(r.kspace.re).equals(bits(serial.kspace.re)), `${n} workers, re`).toBe(true);
+      expect(bits(r.kspace.im).equals(bits(serial.kspace.im)), `${n} workers, im`).toBe(true);
+    }
+  }, 30_000);
 });

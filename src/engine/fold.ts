@@ -124,20 +124,10 @@ export function fitShape(ns: number, dwell: number, fMin: number, fMax: number, 
     }
     res = { samples: ns, dwell, L: 1, tau: 0, B, error: 0 };
   } else {
-    // fit grid: Δf step ≤ 1/(8T), R2 step ≤ 1/(4T); check grid: the fit grid and its midpoints
-    const nf = Math.max(2, Math.ceil((fMax - fMin) * T * 8) + 1), nr = rMax > rMin ? Math.ceil((rMax - rMin) * T * 4) + 2 : 1;
-    const grid = (n: number, m: number) => {
-      const f: number[] = [], r: number[] = [];
-      for (let a = 0; a < n; a++) {
-        for (let b = 0; b < m; b++) {
-          f.push(n > 1 ? fMin + ((fMax - fMin) * a) / (n - 1) : fMin);
-          r.push(m > 1 ? rMin + ((rMax - rMin) * b) / (m - 1) : rMin);
-        }
-      }
-      return { f, r };
+    const tryL = (L: number) => {
+      const g = fitGrids(fMin, fMax, rMin, rMax, T, L);
+      return fitL(ns, dwell, T, L, g.fit, g.check);
     };
-    const fit = grid(nf, nr), check = grid(2 * nf - 1, nr > 1 ? 2 * nr - 1 : 1);
-    const tryL = (L: number) => fitL(ns, dwell, T, L, fit, check);
     // smallest L by doubling then bisection (the error falls with L)
     let lo = 1, hi = -1, best: FoldShape | null = null;
     let L = Math.min(maxL, Math.max(2, Math.ceil((fMax - fMin) * T) + 2));
@@ -169,8 +159,15 @@ export function fitShape(ns: number, dwell: number, fMin: number, fMax: number, 
   return res;
 }
 
-/** Least-squares interpolators for L segments (QR by Gram–Schmidt applied twice), and their largest error on the check grid. */
-function fitL(ns: number, dwell: number, T: number, L: number, fit: { f: number[]; r: number[] }, check: { f: number[]; r: number[] }): FoldShape | null {
+/**
+ * Least-squares interpolators for L segments (QR by Gram–Schmidt applied
+ * twice), and their largest error on the check grid. A segment whose column
+ * is within DEPENDENT (relative) of the span of the earlier ones is left out
+ * (its B_l = 0): it adds nothing the others cannot, and keeping it would only
+ * make the B large (cancellation).
+ */
+const DEPENDENT = 1e-9;
+export function fitL(ns: number, dwell: number, T: number, L: number, fit: { f: number[]; r: number[] }, check: { f: number[]; r: number[] }): FoldShape | null {
   const tau = T / (L - 1), N = fit.f.length;
   // columns C_l(λ_n) = exp(−l·τ·λ_n), Q overwrites them (N × L, column-major, interleaved)
   const Q = new Float64Array(2 * N * L), R = new Float64Array(2 * L * L);
@@ -181,12 +178,17 @@ function fitL(ns: number, dwell: number, T: number, L: number, fit: { f: number[
       Q[o + 1] = e * Math.sin(th);
     }
   }
-  let r00 = 0;
+  // act: the segments kept, in order; R[k][k'] over kept positions k, k'
+  const act: number[] = [];
   for (let l = 0; l < L; l++) {
     const ql = 2 * l * N;
+    let n0 = 0;
+    for (let n = 0; n < 2 * N; n++) n0 += Q[ql + n]! ** 2;
+    n0 = Math.sqrt(n0);
+    const K = act.length;
     for (let pass = 0; pass < 2; pass++) {
-      for (let k = 0; k < l; k++) {
-        const qk = 2 * k * N;
+      for (let k = 0; k < K; k++) {
+        const qk = 2 * act[k]! * N;
         let pr = 0, pi = 0;
         for (let n = 0; n < N; n++) {
           const ar = Q[qk + 2 * n]!, ai = Q[qk + 2 * n + 1]!, br = Q[ql + 2 * n]!, bi = Q[ql + 2 * n + 1]!;
@@ -198,41 +200,48 @@ function fitL(ns: number, dwell: number, T: number, L: number, fit: { f: number[
           Q[ql + 2 * n] = Q[ql + 2 * n]! - (ar * pr - ai * pi);
           Q[ql + 2 * n + 1] = Q[ql + 2 * n + 1]! - (ar * pi + ai * pr);
         }
-        R[2 * (k * L + l)] = R[2 * (k * L + l)]! + pr;
-        R[2 * (k * L + l) + 1] = R[2 * (k * L + l) + 1]! + pi;
+        R[2 * (k * L + K)] = R[2 * (k * L + K)]! + pr;
+        R[2 * (k * L + K) + 1] = R[2 * (k * L + K) + 1]! + pi;
       }
     }
     let nn = 0;
     for (let n = 0; n < 2 * N; n++) nn += Q[ql + n]! ** 2;
     nn = Math.sqrt(nn);
-    if (l === 0) r00 = nn;
-    if (!(nn > 1e-14 * r00)) return null; // numerically dependent: more segments add nothing
+    if (!(nn > DEPENDENT * n0)) {
+      for (let k = 0; k < K; k++) R[2 * (k * L + K)] = R[2 * (k * L + K) + 1] = 0;
+      continue;
+    }
     for (let n = 0; n < 2 * N; n++) Q[ql + n] = Q[ql + n]! / nn;
-    R[2 * (l * L + l)] = nn;
+    R[2 * (K * L + K)] = nn;
+    act.push(l);
   }
-  // B(j) = R⁻¹·Qᴴ·e_j, e_j(λ_n) = exp(−jΔt·λ_n)
-  const B = new Float64Array(2 * ns * L), y = new Float64Array(2 * L);
+  const K = act.length;
+  if (K === 0) return null;
+  // B(j) = R⁻¹·Qᴴ·e_j over the kept segments, e_j(λ_n) = exp(−jΔt·λ_n)
+  const B = new Float64Array(2 * ns * L), y = new Float64Array(2 * K), x = new Float64Array(2 * K);
   for (let j = 0; j < ns; j++) {
     const t = j * dwell;
     y.fill(0);
     for (let n = 0; n < N; n++) {
       const e = Math.exp(-t * fit.r[n]!), th = -TWO_PI * fit.f[n]! * t, er = e * Math.cos(th), ei = e * Math.sin(th);
-      for (let l = 0; l < L; l++) {
-        const qr = Q[2 * (l * N + n)]!, qi = Q[2 * (l * N + n) + 1]!;
-        y[2 * l] = y[2 * l]! + (qr * er + qi * ei);
-        y[2 * l + 1] = y[2 * l + 1]! + (qr * ei - qi * er);
+      for (let k = 0; k < K; k++) {
+        const o = 2 * (act[k]! * N + n), qr = Q[o]!, qi = Q[o + 1]!;
+        y[2 * k] = y[2 * k]! + (qr * er + qi * ei);
+        y[2 * k + 1] = y[2 * k + 1]! + (qr * ei - qi * er);
       }
     }
-    for (let l = L - 1; l >= 0; l--) {
-      let xr = y[2 * l]!, xi = y[2 * l + 1]!;
-      for (let k = l + 1; k < L; k++) {
-        const rr = R[2 * (l * L + k)]!, ri = R[2 * (l * L + k) + 1]!, br = B[2 * (j * L + k)]!, bi = B[2 * (j * L + k) + 1]!;
+    for (let k = K - 1; k >= 0; k--) {
+      let xr = y[2 * k]!, xi = y[2 * k + 1]!;
+      for (let m = k + 1; m < K; m++) {
+        const rr = R[2 * (k * L + m)]!, ri = R[2 * (k * L + m) + 1]!, br = x[2 * m]!, bi = x[2 * m + 1]!;
         xr -= rr * br - ri * bi;
         xi -= rr * bi + ri * br;
       }
-      const d = R[2 * (l * L + l)]!;
-      B[2 * (j * L + l)] = xr / d;
-      B[2 * (j * L + l) + 1] = xi / d;
+      const d = R[2 * (k * L + k)]!;
+      x[2 * k] = xr / d;
+      x[2 * k + 1] = xi / d;
+      B[2 * (j * L + act[k]!)] = x[2 * k]!;
+      B[2 * (j * L + act[k]!) + 1] = x[2 * k + 1]!;
     }
   }
   // largest error on the check grid, C_l computed as the chunks do (c^l by repeated products)
@@ -575,13 +584,31 @@ function forceL(ns: number, dwell: number, fMin: number, fMax: number, rMin: num
     }
     return { samples: ns, dwell, L, tau: 0, B, error: one.error };
   }
-  const nf = Math.max(2, Math.ceil((fMax - fMin) * T * 8) + 1), nr = rMax > rMin ? Math.ceil((rMax - rMin) * T * 4) + 2 : 1;
-  const f: number[] = [], r: number[] = [];
-  for (let a = 0; a < nf; a++) for (let b = 0; b < nr; b++) {
-    f.push(fMin + ((fMax - fMin) * a) / (nf - 1));
-    r.push(nr > 1 ? rMin + ((rMax - rMin) * b) / (nr - 1) : rMin);
-  }
-  return fitL(ns, dwell, T, L, { f, r }, { f, r });
+  const g = fitGrids(fMin, fMax, rMin, rMax, T, L);
+  return fitL(ns, dwell, T, L, g.fit, g.check);
+}
+
+/**
+ * The least-squares fit grid over the (Δf, R2) box and the check grid (the
+ * fit grid and its midpoints): Δf step ≤ 1/(8T), R2 step ≤ 1/(4T) over the
+ * readout duration T, and at least 2L + 1 points in all (so the fit is
+ * overdetermined however narrow the box).
+ */
+function fitGrids(fMin: number, fMax: number, rMin: number, rMax: number, T: number, L: number) {
+  let nr = rMax > rMin ? Math.max(Math.ceil((rMax - rMin) * T * 4) + 2, 3) : 1;
+  const nf = fMax > fMin ? Math.max(Math.ceil((fMax - fMin) * T * 8) + 1, Math.ceil((2 * L + 1) / nr)) : 1;
+  if (nf === 1 && nr > 1) nr = Math.max(nr, 2 * L + 1);
+  const grid = (n: number, m: number) => {
+    const f: number[] = [], r: number[] = [];
+    for (let a = 0; a < n; a++) {
+      for (let b = 0; b < m; b++) {
+        f.push(n > 1 ? fMin + ((fMax - fMin) * a) / (n - 1) : fMin);
+        r.push(m > 1 ? rMin + ((rMax - rMin) * b) / (m - 1) : rMin);
+      }
+    }
+    return { f, r };
+  };
+  return { fit: grid(nf, nr), check: grid(nf > 1 ? 2 * nf - 1 : 1, nr > 1 ? 2 * nr - 1 : 1) };
 }
 
 /** The report of the direct rerun after the fold's estimate exceeded the tolerance. */
