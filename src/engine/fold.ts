@@ -547,8 +547,9 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   const spec: FoldSpec = { L, positions, full, nv, nw, adcs: NA, shapeOf, shapes, estAdcs, estSlot, yLength, length, split };
   const report: ReadoutReport = {
     operator: "fast", requested, tolerance,
-    method: `time-segmented fold of the readout groups (${L} segments, least-squares interpolators over ${fMin.toFixed(1)} … ${fMax.toFixed(1)} Hz and ${rMin.toFixed(2)} … ${rMax.toFixed(2)} /s; ${positions} positions)`,
+    method: "time-segmented fold of the readout groups",
     segments: L, split,
+    fold: { dfHz: [fMin, fMax], r2PerS: [rMin, rMax], positions, partialBytes: 16 * length, estimateLines: E },
   };
   if (requested === "fast") return { spec, report };
   // auto: predicted cost against the direct readout (both in recurrence steps; Bloch propagation is common to both)
