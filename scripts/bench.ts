@@ -23,6 +23,11 @@
  * BENCH_DIRECT=0 to skip the 256² direct run, BENCH_DISC=0 to skip the disc
  * throughput row, BENCH_TORSO_READOUT=auto|fast|direct for the 256² torso's
  * operator (default auto, the default of the CLI). Benchmarks are never tests.
+ * Fold rows (BENCH_ONLY=fold): the time-segmented fold of the readout
+ * (engine/fold.ts) against the direct operator, one in-process run each
+ * (serial, after a warm-up at 32²), on a 128² spin echo and a 64² single-shot
+ * EPI of the two-bottle phantom with a B0 expression (varying through the
+ * slice too, so readout groups = isochromats) and the T2′ spread.
  */
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
@@ -245,6 +250,47 @@ async function fastRows(runs: number): Promise<void> {
   );
 }
 
+/** The time-segmented fold against the direct operator (one run each, in-process, serial executor; ratio fold/direct). */
+async function foldRows(): Promise<void> {
+  const { prepare } = await import("../src/cli/pipeline.js");
+  const { simulateSerial } = await import("../src/engine/index.js");
+  const { writeFileSync } = await import("node:fs");
+  const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-fold-"));
+  try {
+    const ph = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;
+    ph["b0"] = { expression: "1000 * y + 20000 * z" }; // 10 Hz/cm along y, 200 Hz/cm through the slice (readout groups = isochromats)
+    const phantom = join(tmp, "two-bottle-b0.json");
+    writeFileSync(phantom, JSON.stringify(ph));
+    const quality = { density: 2, sliceCount: 12, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 16, offsetHz: 0 };
+    const prep = (protocol: string, n: number) => prepare({ phantom, protocol, sets: [`matrix.read=${n}`, `matrix.phase=${n}`], out: join(tmp, "out"), seed: 1, iso: quality, workers: 1 });
+    const time = (p: ReturnType<typeof prep>, readout: "fast" | "direct" | "auto") => {
+      const t = performance.now();
+      const r = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout });
+      return { ms: performance.now() - t, r };
+    };
+    time(prep("se-t2-1.5t", 32), "fast"); // warm-up
+    console.log("");
+    console.log("| time-segmented fold (one run each, in-process, serial) | isochromats | fold | direct | fold ÷ direct | auto chose | L, estimate, true rel. L2 |");
+    console.log("| --- | --- | --- | --- | --- | --- | --- |");
+    for (const [label, protocol, n] of [["128² spin echo se-t2-1.5t", "se-t2-1.5t", 128], ["64² single-shot EPI epi-1.5t", "epi-1.5t", 64]] as const) {
+      const p = prep(protocol, n);
+      p.iso; // made before timing
+      const f = time(p, "fast"), d = time(p, "direct"), a = time(p, "auto");
+      let num = 0, den = 0;
+      for (let k = 0; k < d.r.kspace.re.length; k++) {
+        num += (f.r.kspace.re[k]! - d.r.kspace.re[k]!) ** 2 + (f.r.kspace.im[k]! - d.r.kspace.im[k]!) ** 2;
+        den += d.r.kspace.re[k]! ** 2 + d.r.kspace.im[k]! ** 2;
+      }
+      console.log(
+        `| ${label}, two-bottle, B0 10 Hz/cm along y + 200 Hz/cm along z, T2′ spread 16, density 2, 12 through-slice | ${p.iso.count.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ` +
+          `${(f.ms / d.ms).toFixed(2)} | ${a.r.readout.operator} (${a.ms.toFixed(0)} ms) | L ${f.r.readout.segments}, ${f.r.readout.estimate?.relL2.toExponential(1)}, ${Math.sqrt(num / den).toExponential(1)} |`,
+      );
+    }
+  } finally {
+    rmSync(tmp, { recursive: true, force: true });
+  }
+}
+
 /** One `isofold dataset` in a fresh process (the CLI of this build); seconds as the command reports them, wall seconds, and case 0's readout. */
 function datasetRun(args: string[], out: string): { seconds: number; wall: number; made: number; readout: unknown } {
   const cli = join(dirname(SELF), "..", "src", "cli", "index.js");
@@ -305,6 +351,10 @@ async function main(): Promise<void> {
     datasetRows();
     return;
   }
+  if (process.env["BENCH_ONLY"] === "fold") {
+    await foldRows();
+    return;
+  }
   console.log(`isofold bench — ${cpus()[0]?.model ?? "cpu"}, ${availableParallelism()} cores, Node ${process.versions.node}; WebAssembly SIMD readout: ${wasmKernel() ? "yes" : "no (scalar fallback)"}`);
   console.log("");
   console.log("| kernel | threads | throughput (median of 5) |");
@@ -346,6 +396,7 @@ async function main(): Promise<void> {
     }
   }
   await fastRows(runs);
+  await foldRows();
   if (process.env["BENCH_DATASET"] !== "0") datasetRows();
 }
 

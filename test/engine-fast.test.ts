@@ -111,20 +111,23 @@ describe("fast readout operator against the direct operator", () => {
     }
   }, 60_000);
 
+  // Not ideally spoiled Cartesian 2D (or, for EPI, varying readouts): the ideally spoiled operator does not
+  // cover them, and "fast" runs the time-segmented fold of the readout groups instead (engine/fold.ts; checked
+  // case by case in test/engine-fast-general.test.ts). Here: that it runs, and stays within the tolerance of direct.
   test.each([
-    ["spin echo", [] as string[], "se-t2-1.5t", /ideally spoiled/],
-    ["RF-spoiled GRE", ["spoiling=rf"], "gre-demo-1.5t", /ideally spoiled/],
-    ["bSSFP", [], "bssfp-1.5t", /ideally spoiled/],
-    ["single-shot EPI", [], "epi-1.5t", /./],
-  ])("%s: not covered yet, says why, gives the direct operator's bits", (_name, sets, protocol, why) => {
+    ["spin echo", [] as string[], "se-t2-1.5t"],
+    ["RF-spoiled GRE", ["spoiling=rf"], "gre-demo-1.5t"],
+    ["bSSFP", [], "bssfp-1.5t"],
+    ["single-shot EPI", [], "epi-1.5t"],
+  ])("%s: not covered by the spoiled operator, the fold runs within the tolerance of direct", (_name, sets, protocol) => {
     const p = prep(sets, { protocol });
     const a = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
     const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
-    expect(a.readout.operator).toBe("direct");
+    expect(a.readout.operator).toBe("fast");
     expect(a.readout.requested).toBe("fast");
-    expect(a.readout.fallback).toMatch(why);
-    expect(a.kspace.re.some((x) => x !== 0)).toBe(true);
-    expect(Buffer.from(a.kspace.re.buffer).equals(Buffer.from(b.kspace.re.buffer))).toBe(true);
+    expect(a.readout.method).toMatch(/time-segmented fold/);
+    expect(b.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(relL2(a.kspace.re, a.kspace.im, b.kspace.re, b.kspace.im)).toBeLessThanOrEqual(1e-6);
   }, 60_000);
 });
 

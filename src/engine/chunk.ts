@@ -34,6 +34,7 @@ export class ChunkScratch {
  * plan allows it, else plays every op per isochromat (runChunkGeneral).
  */
 export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe: Float64Array, outIm: Float64Array, s: ChunkScratch): void {
-  if (plan.spoiledFast) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
+  // the readout fold (fold.ts) is played by the general path
+  if (plan.spoiledFast && !plan.fold) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
   else runChunkGeneral(plan, iso, c, outRe, outIm, (s.general ??= new GeneralScratch(plan)), s.readout);
 }

@@ -16,6 +16,7 @@ import { chunkStarts, fillRfMaps, planFromClasses, planLayout, shareEngineArrays
 import { CellStream, MAX_STREAM_CLASSES, type CellSensitivities } from "./fast-stream.js";
 import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
+import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
 import {
   DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
@@ -58,7 +59,7 @@ export function serialExecutor(): Executor {
   return {
     open(plan, iso) {
       let scratch: ChunkScratch | null = null;
-      const size = plan.coils * plan.rows * plan.read;
+      const size = partialLength(plan);
       return {
         size: 1,
         async fillRfMaps(classes, signal) {
@@ -297,26 +298,43 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
     readout = tryFast(seq, shared, plan, opts.readout === "fast" ? { ...opts, readout: "direct" } : opts).readout;
     if (opts.readout === "fast") readout = directReason(plan, opts, readout);
   }
+  // the time-segmented fold of the readout (fold.ts) for plans the general path plays
+  const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
+  const fold = chooseFold(seq, shared, plan, opts, readout, tolerance);
+  readout = fold.report;
   const [c0, c1] = chunkRange(plan, opts.blocks);
-  const session = executor.open(plan, shared, Math.max(1, c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? Infinity : 1));
-  try {
-    if (filled) { /* filled for the fast attempt */ }
-    else if (plan.classes >= PARALLEL_RF_CLASSES && session.size > 1) await session.fillRfMaps(plan.classes, opts.signal);
-    else fillRfMaps(plan, 0, plan.classes);
-    const size = plan.coils * plan.rows * plan.read;
-    const re = new Float64Array(size), im = new Float64Array(size);
-    const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
-      opts.onBlock?.(b, bre, bim);
-      addInto(re, im, bre, bim);
-    });
-    let done = 0;
-    await session.runChunks(c0, c1, (c, pr, pi) => {
-      summer.add(c, pr, pi);
-      opts.onProgress?.(++done, c1 - c0);
-    }, () => summer.waitingFor, opts.signal);
-    if (!summer.done) throw new Error("engine: not every chunk arrived");
-    return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan, readout };
-  } finally {
-    await session.close();
+  const runAll = async (): Promise<{ re: Float64Array; im: Float64Array }> => {
+    const session = executor.open(plan, shared, Math.max(1, c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? Infinity : 1));
+    try {
+      if (filled) { /* filled for the fast attempt (or the fold's first pass) */ }
+      else if (plan.classes >= PARALLEL_RF_CLASSES && session.size > 1) await session.fillRfMaps(plan.classes, opts.signal);
+      else fillRfMaps(plan, 0, plan.classes);
+      filled = true;
+      const size = partialLength(plan);
+      const re = new Float64Array(size), im = new Float64Array(size);
+      const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
+        opts.onBlock?.(b, bre, bim);
+        addInto(re, im, bre, bim);
+      });
+      let done = 0;
+      await session.runChunks(c0, c1, (c, pr, pi) => {
+        summer.add(c, pr, pi);
+        opts.onProgress?.(++done, c1 - c0);
+      }, () => summer.waitingFor, opts.signal);
+      if (!summer.done) throw new Error("engine: not every chunk arrived");
+      return { re, im };
+    } finally {
+      await session.close();
+    }
+  };
+  if (fold.spec) {
+    plan.fold = fold.spec;
+    const y = await runAll();
+    const f = foldFinish(plan, y.re, y.im, shared);
+    plan.fold = null;
+    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: f.estimate } };
+    readout = foldRejected(readout, f.estimate.relL2, tolerance);
   }
+  const k = await runAll();
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: k.re, im: k.im }, plan, readout };
 }

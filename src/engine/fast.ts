@@ -66,6 +66,10 @@ export interface ReadoutReport {
   /** With "auto": the operator chosen from the predicted costs, and those costs (see {@link ReadoutCosts}). */
   choice?: ReadoutOperator;
   predicted?: ReadoutCosts;
+  /** With "auto", where the time-segmented fold (fold.ts) was predicted dearer than the direct readout: its prediction. */
+  foldPredicted?: ReadoutCosts;
+  /** The time-segmented fold (fold.ts): the (Δf, R2) box its interpolators cover, positions, bytes of one chunk partial, readouts in its estimate. */
+  fold?: { dfHz: [number, number]; r2PerS: [number, number]; positions: number; partialBytes: number; estimateLines: number };
   method?: string;
   /** How a sharded run splits the fast result. */
   sharding?: string;

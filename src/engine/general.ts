@@ -6,6 +6,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import { applyFree, applyRelax, applyRf } from "./kernels.js";
 import type { EnginePlan } from "./plan.js";
 import { adcGroups, adcOutput, readoutGroups, type AdcOp, type ReadoutScratch } from "./readout.js";
+import { FoldScratch, foldOutput } from "./fold.js";
 
 /** Isochromats per cache sub-block (state and factors of one sub-block stay in L2 across a segment's ops). */
 export const SUB_BLOCK = 2048;
@@ -16,6 +17,8 @@ export class GeneralScratch {
   mr: Float64Array; mi: Float64Array; mz: Float64Array;
   /** Per distinct duration and chunk isochromat: D = exp(−t/T2)·exp(−i2πΔf·t) (interleaved) and E1 = exp(−t/T1). */
   d: Float64Array[]; e1: Float64Array[];
+  /** The fold's per-group cache (plans with a fold only). */
+  fold: FoldScratch | null = null;
   constructor(plan: EnginePlan) {
     const n = plan.maxChunk;
     this.mr = new Float64Array(n); this.mi = new Float64Array(n); this.mz = new Float64Array(n);
@@ -63,7 +66,7 @@ export function runChunkGeneral(plan: EnginePlan, iso: IsochromatSet, c: number,
   // segment's ops. Every op but the readout recurrence acts per isochromat,
   // and readout sums are accumulated in isochromat order, so the result is
   // bitwise that of playing each op over the whole chunk.
-  let o = 0;
+  let o = 0, adcIndex = 0;
   while (o < ops.length) {
     let end = o;
     while (end < ops.length && ops[end]!.kind !== "adc") end++;
@@ -120,7 +123,12 @@ export function runChunkGeneral(plan: EnginePlan, iso: IsochromatSet, c: number,
         }
       }
     }
-    if (adc) adcOutput(plan, adc, live, outRe, outIm, r);
+    if (adc) {
+      // with a fold (fold.ts) the partial holds Y of every readout instead of k-space
+      if (plan.fold) foldOutput(plan, iso, i0, adc, adcIndex, groups, live, outRe, outIm, r, (s.fold ??= new FoldScratch()));
+      else adcOutput(plan, adc, live, outRe, outIm, r);
+      adcIndex++;
+    }
     o = end + 1;
   }
 }

@@ -11,6 +11,8 @@ import { chunkRange, tryFast, type KSpace } from "./executor.js";
 import type { ReadoutChoice, ReadoutReport } from "./fast.js";
 import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BlockSummer } from "./sum.js";
+import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
+import { DEFAULT_TOLERANCE } from "./fast.js";
 
 export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareEngineArrays, CHUNK_ISOCHROMATS, HAS_SHARED_MEMORY, type EnginePlan } from "./plan.js";
 export { webWorkerExecutor, serveEngineWorker, type WebWorkerLike, type WebEngineRequest, type WebEngineReply } from "./web.js";
@@ -21,6 +23,7 @@ export { readoutRecurrenceFast, wasmKernel, readoutKernelName, rfAffineMany, was
 export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, GeneralScratch, SpoiledScratch, ReadoutScratch, receiverFilter, readoutGroups } from "./chunk.js";
 export * from "./kernels.js";
 export { CellStream } from "./fast-stream.js";
+export { chooseFold, fitShape, foldFinish, partialLength, FOLD_MAX_SEGMENTS, FOLD_SPLIT, FOLD_ESTIMATE_LINES, FOLD_MAX_PARTIAL_BYTES, type FoldSpec, type FoldShape } from "./fold.js";
 export { fastReadout, fastReadoutFrom, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface SimulateOptions {
@@ -67,22 +70,38 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
   const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats, general: opts.general, wasm: opts.wasm });
   const f = tryFast(seq, iso, plan, opts);
   if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
-  const size = plan.coils * plan.rows * plan.read;
-  const re = new Float64Array(size), im = new Float64Array(size);
-  const pr = new Float64Array(size), pi = new Float64Array(size);
-  const scratch = new ChunkScratch(plan);
   const [c0, c1] = chunkRange(plan, opts.blocks);
-  const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
-    opts.onBlock?.(b, bre, bim);
-    addInto(re, im, bre, bim);
-  });
-  for (let c = c0; c < c1; c++) {
-    pr.fill(0);
-    pi.fill(0);
-    runChunk(plan, iso, c, pr, pi, scratch);
-    summer.add(c, pr, pi);
-    opts.onProgress?.(c - c0 + 1, c1 - c0);
+  const runAll = (): { re: Float64Array; im: Float64Array } => {
+    const size = partialLength(plan);
+    const re = new Float64Array(size), im = new Float64Array(size);
+    const pr = new Float64Array(size), pi = new Float64Array(size);
+    const scratch = new ChunkScratch(plan);
+    const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
+      opts.onBlock?.(b, bre, bim);
+      addInto(re, im, bre, bim);
+    });
+    for (let c = c0; c < c1; c++) {
+      pr.fill(0);
+      pi.fill(0);
+      runChunk(plan, iso, c, pr, pi, scratch);
+      summer.add(c, pr, pi);
+      opts.onProgress?.(c - c0 + 1, c1 - c0);
+    }
+    return { re, im };
+  };
+  // the time-segmented fold of the readout (fold.ts) for plans the general path plays
+  const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
+  const fold = chooseFold(seq, iso, plan, opts, f.readout, tolerance);
+  let readout = fold.report;
+  if (fold.spec) {
+    plan.fold = fold.spec;
+    const y = runAll();
+    const r = foldFinish(plan, y.re, y.im, iso);
+    plan.fold = null;
+    if (r.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: r.re, im: r.im }, plan, readout: { ...readout, estimate: r.estimate } };
+    readout = foldRejected(readout, r.estimate.relL2, tolerance);
   }
-  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re, im }, plan, readout: f.readout };
+  const k = runAll();
+  return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: k.re, im: k.im }, plan, readout };
 }
 export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";

@@ -11,6 +11,7 @@ import { ENGINE_ARRAYS, mapIsochromatArrays } from "../isochromats/fields.js";
 import type { Sequence, Vec3 } from "../sequence/types.js";
 import { rfAffineMany } from "./wasm.js";
 import { f64Words, TupleIndex } from "./hash.js";
+import type { FoldSpec } from "./fold.js";
 
 /**
  * Default isochromats per chunk (approximate; chunks end at column
@@ -102,6 +103,12 @@ export interface EnginePlan {
   spoiledFast: boolean;
   /** Use the WebAssembly SIMD kernels where available (see PlanOptions.wasm). */
   wasm: boolean;
+  /**
+   * The time-segmented fold of the readout (fold.ts), set by the driver
+   * before the chunks run: chunks then hand back Y partials of
+   * fold.length (partialLength) instead of k-space; null: k-space partials.
+   */
+  fold: FoldSpec | null;
 }
 
 export interface PlanOptions {
@@ -303,6 +310,7 @@ export function planFromClasses(
     receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
     spoiledFast: !(opts.general ?? false) && spoiledUnits(ops),
     wasm: opts.wasm ?? true,
+    fold: null,
   };
 }
 

@@ -14,6 +14,7 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import { ENGINE_ARRAYS } from "../isochromats/fields.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
+import { partialLength } from "./fold.js";
 import { AbortedError, type Executor, type ExecutorSession } from "./executor.js";
 import { fillRfMaps, isShared, type EnginePlan } from "./plan.js";
 
@@ -204,7 +205,7 @@ export function serveEngineWorker(post: (m: WebEngineReply, transfer?: ArrayBuff
           post({ t: "maps", s: m.s });
         } else {
           ses.scratch ??= new ChunkScratch(ses.plan);
-          const size = ses.plan.coils * ses.plan.rows * ses.plan.read;
+          const size = partialLength(ses.plan);
           const re = new Float64Array(size), im = new Float64Array(size);
           runChunk(ses.plan, ses.iso, m.c, re, im, ses.scratch);
           post({ t: "chunk", s: m.s, c: m.c, re: re.buffer, im: im.buffer }, [re.buffer, im.buffer]);

@@ -8,6 +8,7 @@ import { parentPort, workerData } from "node:worker_threads";
 import type { IsochromatSet } from "../isochromats/index.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { fillRfMaps, type EnginePlan } from "./plan.js";
+import { partialLength } from "./fold.js";
 
 export type WorkerRequest = { t: "chunk"; c: number } | { t: "maps"; c0: number; c1: number } | { t: "close" };
 export type WorkerReply =
@@ -16,7 +17,7 @@ export type WorkerReply =
 
 const { plan, iso } = workerData as { plan: EnginePlan; iso: IsochromatSet };
 let scratch: ChunkScratch | null = null;
-const size = plan.coils * plan.rows * plan.read;
+const size = partialLength(plan);
 const port = parentPort!;
 
 port.on("message", (m: WorkerRequest) => {
