@@ -11,7 +11,7 @@
 import { join } from "node:path";
 import { afterAll, describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
-import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
+import { nodeExecutor, serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
 import { lastHelperBlocks, setPhaseHelper } from "../src/engine/fast.js";
 import { nodePhaseHelper } from "../src/engine/fast-node.js";
 import { relL2, tempDir } from "./helpers.js";
@@ -72,4 +72,16 @@ describe("fast operator with a helper thread", () => {
     }
     expect(helped).toBeGreaterThan(0);
   }, 60_000);
+
+  test("an executor of one thread (--workers 1) keeps the fast operator off the helper: no block handed over, the same bits", async () => {
+    const p = prep(32);
+    expect(nodeExecutor(1).threads).toBe(1);
+    setPhaseHelper(nodePhaseHelper, 0);
+    const opts = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const };
+    const two = await simulateCells(serialExecutor(), p.seq, p.cells, () => p.iso, opts);
+    const one = await simulateCells({ ...serialExecutor(), threads: 1 }, p.seq, p.cells, () => p.iso, opts);
+    expect(one.readout.operator).toBe("fast");
+    expect(lastHelperBlocks()).toBe(0);
+    expect(sameBits(two.kspace.re, one.kspace.re) && sameBits(two.kspace.im, one.kspace.im)).toBe(true);
+  });
 });

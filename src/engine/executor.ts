@@ -50,6 +50,13 @@ export interface ExecutorSession {
 }
 
 export interface Executor {
+  /**
+   * Threads this executor may keep busy (Node: its worker count). The fast
+   * readout operator, which runs on the calling thread, shares its FFTs with
+   * one helper thread only where this is 2 or more (or not given). The bits
+   * are the same either way.
+   */
+  readonly threads?: number;
   /** Opens a session over `plan` and `iso` using at most `jobs` workers (no more are useful). */
   open(plan: EnginePlan, iso: IsochromatSet, jobs: number): ExecutorSession;
 }
@@ -122,6 +129,8 @@ export interface FastOptions {
   blocks?: [number, number];
   onBlock?: (b: number, re: Float64Array, im: Float64Array) => void;
   onProgress?: (done: number, total: number) => void;
+  /** Threads the fast operator may use (see Executor.threads; 1 = the calling thread only). */
+  threads?: number;
 }
 
 /**
@@ -146,7 +155,7 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
   let r: ReturnType<typeof fastReadout> = "";
   let est = Infinity;
   for (const split of [8, 80, 800]) {
-    r = fastReadout(seq, plan, iso, tolerance, split);
+    r = fastReadout(seq, plan, iso, tolerance, split, (opts.threads ?? 2) >= 2);
     if (typeof r === "string") return direct(r);
     est = r.report.estimate?.relL2 ?? 0;
     if (est <= tolerance) break;
@@ -237,7 +246,7 @@ export async function simulateCells(
   let r: FastResult | string = "";
   let est = Infinity;
   for (const split of [8, 80, 800]) {
-    r = fastReadoutFrom(seq, plan, { kind: "cells", stream }, tolerance, split);
+    r = fastReadoutFrom(seq, plan, { kind: "cells", stream }, tolerance, split, (executor.threads ?? 2) >= 2);
     if (typeof r === "string") break;
     est = r.report.estimate?.relL2 ?? 0;
     if (est <= tolerance) break;
@@ -288,7 +297,7 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
     filled = true;
     fillRfMaps(plan, 0, plan.classes);
     if (opts.signal?.aborted) throw new AbortedError();
-    const f = tryFast(seq, shared, plan, opts);
+    const f = tryFast(seq, shared, plan, { ...opts, threads: executor.threads });
     // let a pending interrupt (SIGINT) arrive before the result is used
     await new Promise((r) => setTimeout(r, 0));
     if (opts.signal?.aborted) throw new AbortedError();

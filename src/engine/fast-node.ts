@@ -28,9 +28,9 @@ function helperPath(): string | URL {
   return sourceWorker;
 }
 
-/** The helper thread, or null where there is none (one core, ISOFOLD_FAST_THREADS=1, or it failed to start). */
+/** The helper thread, or null where there is none (one core, or it failed to start; a run with one worker, Executor.threads = 1, does not ask). */
 export function nodePhaseHelper(): PhaseHelper | null {
-  if (failed || availableParallelism() < 2 || process.env["ISOFOLD_FAST_THREADS"] === "1") return null;
+  if (failed || availableParallelism() < 2) return null;
   if (!worker) {
     try {
       const w = new Worker(helperPath());

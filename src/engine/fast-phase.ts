@@ -370,7 +370,7 @@ export class ParallelPhase {
 
   /** Stops the run when the helper failed (its block or sensitivities are lost). */
   private checkHelper(): void {
-    if (Atomics.load(this.ctrl, FAILED) === 1) throw new Error("fast operator: the helper thread failed (see its error); run again with ISOFOLD_FAST_THREADS=1 to stay on one thread");
+    if (Atomics.load(this.ctrl, FAILED) === 1) throw new Error("fast operator: the helper thread failed (see its error); run again with --workers 1 to stay on one thread");
   }
 
   private waitProgress(): void {

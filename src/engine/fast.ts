@@ -364,8 +364,8 @@ export interface FastResult {
  * [coil][row][read] and what it did, or a string saying why it does not
  * apply (the caller then runs the direct operator).
  */
-export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): FastResult | string {
-  return fastReadoutFrom(seq, plan, { kind: "iso", iso }, tolerance, split);
+export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8, helper = true): FastResult | string {
+  return fastReadoutFrom(seq, plan, { kind: "iso", iso }, tolerance, split, helper);
 }
 
 /**
@@ -376,7 +376,7 @@ export function fastReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatSet,
 export type FastSource = { kind: "iso"; iso: IsochromatSet } | { kind: "cells"; stream: CellStream };
 
 /** The fast operator on either source (see {@link fastReadout}). */
-export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource, tolerance: number, split = 8): FastResult | string {
+export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource, tolerance: number, split = 8, allowHelper = true): FastResult | string {
   const pre = fastPrecheck(plan);
   if (pre) return pre;
   const h = classHistory(seq, plan, src.kind === "iso" ? isoClassInfo(plan, src.iso) : src.stream.classInfo());
@@ -548,7 +548,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu };
   let usedCols = 0;
   for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
-  const helper = phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
+  const helper = allowHelper && phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
   // with a helper and loop coils (plain data), the helper also evaluates the sensitivities of the blocks ahead of the fold
   const loops = src.kind === "cells" && coils > 1 ? src.stream.sens?.loops : undefined;
   const blockColumns = (blk: { ranges: [number, number][] }) => {

@@ -198,7 +198,7 @@ export class EnginePool implements ExecutorSession {
 
 /** The Node executor: up to `workers` worker threads per engine run (never more than there are jobs). */
 export function nodeExecutor(workers: number): Executor {
-  return { open: (plan, iso, jobs) => new EnginePool(plan, iso, Math.max(1, Math.min(workers, jobs))) };
+  return { threads: workers, open: (plan, iso, jobs) => new EnginePool(plan, iso, Math.max(1, Math.min(workers, jobs))) };
 }
 
 export interface ParallelOptions extends RunOptions {
