@@ -11,11 +11,12 @@ import { describe, expect, test } from "vitest";
 import { writeFileSync, readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { prepare } from "../src/cli/pipeline.js";
-import { fitShape, serialExecutor, serveEngineWorker, simulateSerial, webWorkerExecutor, type SimulateOptions, type WebWorkerLike } from "../src/engine/index.js";
+import { fitShape, serialExecutor, simulateSerial, webWorkerExecutor, type SimulateOptions } from "../src/engine/index.js";
 import { simulate } from "../src/api.js";
 import { simulateParallel } from "../src/engine/node.js";
 import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
 import { tempDir } from "./helpers.js";
+import { standIns } from "./web-standins.js";
 
 const ROOT = resolve(import.meta.dirname, "..");
 
@@ -197,21 +198,6 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
   });
 
   test("bits: the Web Worker executor (in-process stand-ins, 1 and 2 workers) gives the serial fold k-space; the report says fast, the method, L and the estimate", async () => {
-    // stand-ins as in test/engine-web-executor.test.ts: structured clones, delivered later, in order
-    const standIns = (n: number): WebWorkerLike[] => Array.from({ length: n }, () => {
-      const w: WebWorkerLike = {
-        onmessage: null,
-        postMessage(m, transfer) {
-          const copy = structuredClone(m, { transfer });
-          setTimeout(() => serve({ data: copy }), 0);
-        },
-      };
-      const serve = serveEngineWorker((r, transfer) => {
-        const copy = structuredClone(r, { transfer: transfer ?? [] });
-        setTimeout(() => w.onmessage?.({ data: copy }), 0);
-      });
-      return w;
-    });
     const protocol = {
       sequence: "se", field: "1.5 T", fov: { read: "12 cm", phase: "12 cm" }, matrix: { read: 16, phase: 16 },
       slice: { thickness: "5 mm", position: "0 mm", orientation: "axial" }, bandwidth: "250 Hz/px", te: "20 ms", tr: "300 ms",

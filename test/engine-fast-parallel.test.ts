@@ -29,6 +29,21 @@ function sameBits(a: Float64Array, b: Float64Array): boolean {
   return Buffer.from(a.buffer, a.byteOffset, a.byteLength).equals(Buffer.from(b.buffer, b.byteOffset, b.byteLength));
 }
 
+/**
+ * Three runs with the helper (the first may find it still starting: the main
+ * thread then does every block) give bitwise `one`, and the helper did take
+ * part (blocks it transformed).
+ */
+async function expectHelpedSameBits(run: (helper: boolean) => Promise<{ kspace: { re: Float64Array; im: Float64Array } }>, one: { re: Float64Array; im: Float64Array }): Promise<void> {
+  let helped = 0;
+  for (let k = 0; k < 3; k++) {
+    const two = await run(true);
+    helped += lastHelperBlocks();
+    expect(sameBits(two.kspace.re, one.re) && sameBits(two.kspace.im, one.im)).toBe(true);
+  }
+  expect(helped).toBeGreaterThan(0);
+}
+
 afterAll(() => setPhaseHelper(nodePhaseHelper));
 
 describe("fast operator with a helper thread", () => {
@@ -40,15 +55,7 @@ describe("fast operator with a helper thread", () => {
     };
     const one = await run(false);
     expect(one.readout.operator).toBe("fast");
-    // twice with the helper: the first run may find it still starting (the main thread then does every block)
-    let helped = 0;
-    for (let k = 0; k < 3; k++) {
-      const two = await run(true);
-      helped += lastHelperBlocks();
-      expect(sameBits(two.kspace.re, one.kspace.re) && sameBits(two.kspace.im, one.kspace.im)).toBe(true);
-    }
-    // the helper did take part (blocks it transformed)
-    expect(helped).toBeGreaterThan(0);
+    await expectHelpedSameBits(run, one.kspace);
     const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
     expect(relL2(one.kspace.re, one.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
   }, 60_000);
@@ -64,13 +71,7 @@ describe("fast operator with a helper thread", () => {
     const one = await run(false);
     expect(one.readout[0]!.operator).toBe("fast");
     expect(one.kspace.coils).toBe(5);
-    let helped = 0;
-    for (let k = 0; k < 3; k++) {
-      const two = await run(true);
-      helped += lastHelperBlocks();
-      expect(sameBits(two.kspace.re, one.kspace.re) && sameBits(two.kspace.im, one.kspace.im)).toBe(true);
-    }
-    expect(helped).toBeGreaterThan(0);
+    await expectHelpedSameBits(run, one.kspace);
   }, 60_000);
 
   test("an executor of one thread (--workers 1) keeps the fast operator off the helper: no block handed over, the same bits", async () => {

@@ -11,7 +11,8 @@
  */
 import { describe, expect, test } from "vitest";
 import { simulate } from "../src/api.js";
-import { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, serveEngineWorker, webWorkerExecutor, type WebWorkerLike } from "../src/engine/index.js";
+import { AbortedError, PARALLEL_RF_CLASSES, serialExecutor, webWorkerExecutor } from "../src/engine/index.js";
+import { standIns } from "./web-standins.js";
 
 const PROTOCOL = {
   sequence: "gre", field: "1.5 T", fov: { read: "12 cm", phase: "12 cm" }, matrix: { read: 24, phase: 24 },
@@ -26,23 +27,6 @@ const PHANTOM = {
   b0: { expression: "300 * x + 170 * y" },
 };
 const ISO = { density: 2, sliceCount: 4, t2primeIsochromats: 1 };
-
-function standIns(n: number): WebWorkerLike[] {
-  return Array.from({ length: n }, () => {
-    const w: WebWorkerLike = {
-      onmessage: null,
-      postMessage(m, transfer) {
-        const copy = structuredClone(m, { transfer });
-        setTimeout(() => serve({ data: copy }), 0);
-      },
-    };
-    const serve = serveEngineWorker((r, transfer) => {
-      const copy = structuredClone(r, { transfer: transfer ?? [] });
-      setTimeout(() => w.onmessage?.({ data: copy }), 0);
-    });
-    return w;
-  });
-}
 
 const bits = (a: Float64Array) => Buffer.from(a.buffer, a.byteOffset, a.byteLength);
 

@@ -5,10 +5,8 @@
  * adds partials in the fixed order of sum.ts. So 1, 2 or N workers give
  * bitwise the same k-space, and so does a sharded run merged later.
  */
-import { createRequire } from "node:module";
-import { dirname, join } from "node:path";
-import { fileURLToPath } from "node:url";
 import { Worker } from "node:worker_threads";
+import { engineWorkerScript } from "./worker-script.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import { ENGINE_ARRAYS } from "../isochromats/fields.js";
 import type { Sequence } from "../sequence/types.js";
@@ -19,23 +17,9 @@ import type { WorkerReply, WorkerRequest } from "./worker.js";
 
 export { AbortedError, PARALLEL_RF_CLASSES } from "./executor.js";
 
-let sourceWorker: URL | null = null;
-
-/**
- * The worker script. Compiled: the path of worker.js beside this file.
- * Running the TypeScript sources (vitest): worker.ts and what it imports,
- * bundled now in memory with esbuild (a development dependency) and handed
- * to the worker as a data: URL, so tests run the code under test, never a
- * stale dist/ build, and no temporary file is left behind.
- */
+/** The engine worker's script (engine/worker-script.ts): worker.js beside this file, or bundled from the sources. */
 export function workerPath(): string | URL {
-  const here = fileURLToPath(import.meta.url);
-  if (here.endsWith(".js")) return join(dirname(here), "worker.js");
-  if (sourceWorker) return sourceWorker;
-  const esbuild = createRequire(import.meta.url)("esbuild") as { buildSync: (o: object) => { outputFiles: { contents: Uint8Array }[] } };
-  const built = esbuild.buildSync({ entryPoints: [join(dirname(here), "worker.ts")], bundle: true, platform: "node", format: "esm", write: false, logLevel: "error" });
-  sourceWorker = new URL(`data:text/javascript;base64,${Buffer.from(built.outputFiles[0]!.contents).toString("base64")}`);
-  return sourceWorker;
+  return engineWorkerScript("worker");
 }
 
 /** The isochromat fields a worker reads (all shared). */
