@@ -30,26 +30,33 @@ function cli(args: string[]): { status: number | null; stdout: string; stderr: s
   return { status: r.status, stdout: r.stdout, stderr: r.stderr };
 }
 
+/** Several independent runs side by side (small cases: most of their time is start-up); results in the order given. */
+function cliAll(runs: string[][]): Promise<{ status: number | null; stdout: string; stderr: string }[]> {
+  return Promise.all(runs.map((args) => new Promise<{ status: number | null; stdout: string; stderr: string }>((done) => {
+    const child = spawn(process.execPath, [CLI, ...args], { env });
+    let stdout = "", stderr = "";
+    child.stdout.on("data", (d: Buffer) => (stdout += d.toString()));
+    child.stderr.on("data", (d: Buffer) => (stderr += d.toString()));
+    child.on("close", (status) => done({ status, stdout, stderr }));
+  })));
+}
+
 describe("isofold simulate / merge", () => {
-  test("1, 2 and 3 workers and 3 shards merged write identical kspace.npy bytes", () => {
-    const outs: string[] = [];
-    for (const w of [1, 2, 3]) {
-      const out = join(tmp, `w${w}`);
-      const r = cli([...CASE, "--workers", String(w), "-o", out]);
-      expect(r.stderr).toBe(warningLines(out));
+  test("1, 2 and 3 workers and 3 shards merged write identical kspace.npy bytes", async () => {
+    const outs = [1, 2, 3].map((w) => join(tmp, `w${w}`));
+    const runs = await cliAll(outs.map((out, k) => [...CASE, "--workers", String(k + 1), "-o", out]));
+    runs.forEach((r, k) => {
+      expect(r.stderr).toBe(warningLines(outs[k]!));
       expect(r.status).toBe(0);
-      outs.push(out);
-    }
+    });
     const report = JSON.parse(readFileSync(join(outs[0]!, "report.json"), "utf8")) as { engine: { chunks: number } };
     expect(report.engine.chunks).toBeGreaterThanOrEqual(9); // at least three blocks, so every shard holds some
-    const parts: string[] = [];
-    for (let i = 0; i < 3; i++) {
-      const out = join(tmp, `shard${i}`);
-      const r = cli([...CASE, "--shard", `${i}/3`, "-o", out]);
+    const parts = [0, 1, 2].map((i) => join(tmp, `shard${i}`));
+    const shards = await cliAll(parts.map((out, i) => [...CASE, "--shard", `${i}/3`, "-o", out]));
+    shards.forEach((r, i) => {
       expect(r.status).toBe(0);
-      expect(readdirSync(out).sort()).toEqual(["partial.json", "partial.npy"]);
-      parts.push(out);
-    }
+      expect(readdirSync(parts[i]!).sort()).toEqual(["partial.json", "partial.npy"]);
+    });
     const merged = join(tmp, "merged");
     const m = cli(["merge", parts[2]!, parts[0]!, join(parts[1]!, "partial.json"), "-o", merged]);
     expect(m.stderr).toBe(warningLines(merged));
@@ -101,27 +108,23 @@ describe("isofold simulate / merge", () => {
     expect(existsSync(out)).toBe(false);
   }, 60_000);
 
-  test("fast operator: 1 and 3 workers and 2 shards merged write identical kspace.npy bytes", () => {
+  test("fast operator: 1 and 3 workers and 2 shards merged write identical kspace.npy bytes", async () => {
     // the torso with a T2′ spread: auto would pick fast too; asked for explicitly here
     const FAST = [
       "simulate", "phantoms/torso-slice.json", "-p", "gre-t1-3t", "--set", "matrix.read=32", "--set", "matrix.phase=32",
       "--density", "2", "--slice-isochromats", "4", "--t2prime-isochromats", "4", "--readout", "fast", "-q",
     ];
-    const outs: string[] = [];
-    for (const w of [1, 3]) {
-      const out = join(tmp, `fast-w${w}`);
-      const r = cli([...FAST, "--workers", String(w), "-o", out]);
-      expect(r.status).toBe(0);
+    const outs = [1, 3].map((w) => join(tmp, `fast-w${w}`));
+    const parts = [0, 1].map((i) => join(tmp, `fast-shard${i}`));
+    const runs = await cliAll([
+      ...outs.map((out, k) => [...FAST, "--workers", String(k === 0 ? 1 : 3), "-o", out]),
+      ...parts.map((out, i) => [...FAST, "--shard", `${i}/2`, "-o", out]),
+    ]);
+    for (const r of runs) expect(r.status, r.stderr).toBe(0);
+    for (const out of outs) {
       const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as { engine: { readout: { operator: string; estimate: { relL2: number } } } };
       expect(rep.engine.readout.operator).toBe("fast");
       expect(rep.engine.readout.estimate.relL2).toBeLessThanOrEqual(1e-6);
-      outs.push(out);
-    }
-    const parts: string[] = [];
-    for (let i = 0; i < 2; i++) {
-      const out = join(tmp, `fast-shard${i}`);
-      expect(cli([...FAST, "--shard", `${i}/2`, "-o", out]).status).toBe(0);
-      parts.push(out);
     }
     const merged = join(tmp, "fast-merged");
     expect(cli(["merge", parts[1]!, parts[0]!, "-o", merged]).status).toBe(0);
