@@ -193,7 +193,7 @@ async function demoInProcess(iso: { density: number; sliceCount: number; t2prime
     // as simulate() runs a slice: the fast operator streams its weights from the cells, the direct one
     // uses the stored isochromats (made on first use, during the warm-up)
     const once = () => simulateCells(serialExecutor(), p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout });
-    await once(); // warm-up
+    for (let k = 0; k < 3; k++) await once(); // warm-up: V8 optimises the hot functions over the first runs
     const ts: number[] = [];
     for (let k = 0; k < runs; k++) {
       const t = performance.now();
@@ -207,6 +207,9 @@ async function demoInProcess(iso: { density: number; sliceCount: number; t2prime
   }
 }
 
+/** Runs per demo row: a run takes 0.1–0.8 s, and medians of 5 swung by ±25 % on a shared 2-core machine. */
+const DEMO_RUNS = 15;
+
 /** The fast readout operator against the direct one (issue targets: ratios in one run). */
 async function fastRows(runs: number): Promise<void> {
   console.log("");
@@ -219,9 +222,9 @@ async function fastRows(runs: number): Promise<void> {
     ["default quality (density 2, 12 through-slice, T2′ spread 16)", { density: 2, sliceCount: 12, t2primeIsochromats: 16 }],
     ["preview quality (density 1, 3 through-slice, no T2′ spread)", { density: 1, sliceCount: 3, t2primeIsochromats: 1 }],
   ] as const) {
-    const f = await demoInProcess(q, "fast", 5);
-    const d = await demoInProcess(q, "direct", 5);
-    const a = await demoInProcess(q, "auto", 5);
+    const f = await demoInProcess(q, "fast", DEMO_RUNS);
+    const d = await demoInProcess(q, "direct", DEMO_RUNS);
+    const a = await demoInProcess(q, "auto", DEMO_RUNS);
     console.log(`| 128² two-bottle demo, engine in-process after warm-up, ${label} | ${f.iso.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ${(d.ms / f.ms).toFixed(1)}× | ${f.note} |`);
     autoRows.push(`| 128² two-bottle demo, ${label} | ${a.ms.toFixed(0)} ms | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ${(Math.min(f.ms, d.ms) / a.ms).toFixed(2)} | ${a.note} |`);
   }
