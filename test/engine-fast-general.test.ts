@@ -15,7 +15,7 @@ import { fitShape, serialExecutor, simulateSerial, webWorkerExecutor, type Simul
 import { simulate } from "../src/api.js";
 import { simulateParallel } from "../src/engine/node.js";
 import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
-import { tempDir } from "./helpers.js";
+import { relL2 as relL2Arrays, tempDir } from "./helpers.js";
 import { standIns } from "./web-standins.js";
 
 const ROOT = resolve(import.meta.dirname, "..");
@@ -51,14 +51,8 @@ function sensitivities(iso: IsochromatSet, coils: number): Float64Array {
   return s;
 }
 
-function relL2(a: { re: Float64Array; im: Float64Array }, b: { re: Float64Array; im: Float64Array }): number {
-  let n = 0, d = 0;
-  for (let k = 0; k < a.re.length; k++) {
-    n += (a.re[k]! - b.re[k]!) ** 2 + (a.im[k]! - b.im[k]!) ** 2;
-    d += b.re[k]! ** 2 + b.im[k]! ** 2;
-  }
-  return Math.sqrt(n / d);
-}
+/** Relative L2 error of k-space a against b (test/helpers.ts relL2). */
+const relL2 = (a: { re: Float64Array; im: Float64Array }, b: { re: Float64Array; im: Float64Array }): number => relL2Arrays(a.re, a.im, b.re, b.im);
 
 type P = ReturnType<typeof prep>;
 function both(p: P, extra: Partial<SimulateOptions> = {}) {
