@@ -73,9 +73,9 @@ export function addSimulationOptions(c: Command): Command {
       intArg("--t2prime-isochromats", 1, 1024),
       defaultIsochromatOptions().t2primeIsochromats,
     )
-    .addOption(new Option("--readout <operator>", "readout operator: auto (the cheaper of fast and direct by a cost predicted from the plan; report.json gives both predictions), fast (time segmentation and an exact FFT of the isochromat grid, within --tolerance; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["auto", "fast", "direct"]).default("auto"))
+    .addOption(new Option("--readout <operator>", "readout operator: auto (the cheaper of fast and direct by a cost predicted from the plan; report.json gives both predictions), fast (time segmentation, within --tolerance: with an exact FFT of the isochromat grid for ideally spoiled Cartesian gradient echo, and a fold of the readout groups per line for every other sequence; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["auto", "fast", "direct"]).default("auto"))
     .option("--tolerance <rel>", "relative L2 error of k-space allowed to the fast readout operator (dimensionless); 1e-12–0.1", numArg("--tolerance", 1e-12, 0.1), 1e-6)
-    .option("--workers <n>", "engine worker threads; default: the cores available", intArg("--workers", 1, 256))
+    .option("--workers <n>", "engine worker threads; default: the cores available; 1 keeps the whole run on one thread", intArg("--workers", 1, 256))
     .option("--shard <i/N>", "run only shard i of N (0 ≤ i < N) and write a partial k-space (partial.npy, partial.json) for `isofold merge`", shardArg)
     .option("--max-memory <GiB>", "refuse runs whose estimated memory exceeds this many GiB; default 80 % of the machine's memory", numArg("--max-memory", 0.001, 1e6))
     .option("-q, --quiet", "no progress line on stderr");
