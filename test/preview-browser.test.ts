@@ -8,18 +8,18 @@
  * Screenshots: /tmp/isofold-shots/preview-*.png.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
-import { existsSync, mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
-import { spawn, spawnSync, type ChildProcess } from "node:child_process";
+import { mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { spawnSync, type ChildProcess } from "node:child_process";
 import { request } from "node:http";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
-import { chromium, type BrowserContext, type Page } from "playwright-core";
+import type { BrowserContext, Page } from "playwright-core";
+import { launchChromium, startPreviewServer } from "./browser.js";
 import { PNG } from "pngjs";
 import { decodeNpy } from "../src/io/npy.js";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
-const CHROMIUM = "/usr/bin/chromium";
 const SHOTS = "/tmp/isofold-shots";
 const GAMMA_BAR = 42.577478518e6;
 
@@ -43,26 +43,10 @@ describe("isofold preview in a browser", () => {
   let port = 0;
 
   beforeAll(async () => {
-    if (!existsSync(CHROMIUM)) throw new Error(`${CHROMIUM} is missing: the browser tests need Debian's chromium (apt-get install chromium)`);
     dir = mkdtempSync(join(tmpdir(), "isofold-preview-"));
     mkdirSync(SHOTS, { recursive: true });
-    server = spawn(process.execPath, [CLI, "preview", "--port", "0", "--no-open"], { stdio: ["ignore", "pipe", "pipe"] });
-    base = await new Promise<string>((ok, fail) => {
-      let out = "";
-      server.stdout!.on("data", (d) => {
-        out += String(d);
-        const m = /isofold preview: (http:\/\/127\.0\.0\.1:(\d+)\/)/.exec(out);
-        if (m) {
-          port = Number(m[2]);
-          ok(m[1]!);
-        }
-      });
-      server.on("exit", (c) => fail(new Error(`preview exited with ${c}`)));
-    });
-    ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
-      executablePath: CHROMIUM, headless: true, viewport: { width: 1280, height: 1100 }, acceptDownloads: true,
-      args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
-    });
+    ({ server, base, port } = await startPreviewServer(CLI));
+    ctx = await launchChromium(join(dir, "profile"), { width: 1280, height: 1100 });
   });
 
   afterAll(async () => {

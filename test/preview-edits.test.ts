@@ -11,15 +11,15 @@
  * /tmp/isofold-shots/preview-edits-*.png.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
-import { existsSync, mkdirSync, mkdtempSync, readFileSync, rmSync } from "node:fs";
-import { spawn, spawnSync, type ChildProcess } from "node:child_process";
+import { mkdirSync, mkdtempSync, readFileSync, rmSync } from "node:fs";
+import { spawnSync, type ChildProcess } from "node:child_process";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
-import { chromium, type BrowserContext, type Page } from "playwright-core";
+import type { BrowserContext, Page } from "playwright-core";
+import { launchChromium, startPreviewServer } from "./browser.js";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
-const CHROMIUM = "/usr/bin/chromium";
 const SHOTS = "/tmp/isofold-shots";
 
 describe("previewer caches across edits", () => {
@@ -29,23 +29,10 @@ describe("previewer caches across edits", () => {
   let base = "";
 
   beforeAll(async () => {
-    if (!existsSync(CHROMIUM)) throw new Error(`${CHROMIUM} is missing: the browser tests need Debian's chromium (apt-get install chromium)`);
     dir = mkdtempSync(join(tmpdir(), "isofold-preview-edits-"));
     mkdirSync(SHOTS, { recursive: true });
-    server = spawn(process.execPath, [CLI, "preview", "--port", "0", "--no-open"], { stdio: ["ignore", "pipe", "pipe"] });
-    base = await new Promise<string>((ok, fail) => {
-      let out = "";
-      server.stdout!.on("data", (d) => {
-        out += String(d);
-        const m = /isofold preview: (http:\/\/127\.0\.0\.1:\d+\/)/.exec(out);
-        if (m) ok(m[1]!);
-      });
-      server.on("exit", (c) => fail(new Error(`preview exited with ${c}`)));
-    });
-    ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
-      executablePath: CHROMIUM, headless: true, viewport: { width: 1280, height: 1100 }, acceptDownloads: true,
-      args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
-    });
+    ({ server, base } = await startPreviewServer(CLI));
+    ctx = await launchChromium(join(dir, "profile"), { width: 1280, height: 1100 });
   });
 
   afterAll(async () => {

@@ -5,17 +5,17 @@
  * Screenshots go to the test's temp dir and a copy to /tmp/isofold-shots/.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
-import { copyFileSync, existsSync, mkdirSync, mkdtempSync, readFileSync, rmSync } from "node:fs";
+import { copyFileSync, mkdirSync, mkdtempSync, readFileSync, rmSync } from "node:fs";
 import { spawnSync } from "node:child_process";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
 import { pathToFileURL } from "node:url";
 import { PNG } from "pngjs";
-import { chromium, type BrowserContext, type Page } from "playwright-core";
+import type { BrowserContext, Page } from "playwright-core";
+import { launchChromium } from "./browser.js";
 
 const ROOT = resolve(__dirname, "..");
 const CLI = join(ROOT, "dist/src/cli/index.js");
-const CHROMIUM = "/usr/bin/chromium";
 const SHOTS = "/tmp/isofold-shots";
 
 /** Grey-level variance of a PNG screenshot (0 for a blank one). */
@@ -45,14 +45,8 @@ describe("report.html in a browser", () => {
   const requests: string[] = [];
 
   beforeAll(async () => {
-    if (!existsSync(CHROMIUM)) {
-      throw new Error(`${CHROMIUM} is missing: the browser tests need Debian's chromium, which .ci/run installs (apt-get install chromium)`);
-    }
     dir = mkdtempSync(join(tmpdir(), "isofold-report-"));
-    ctx = await chromium.launchPersistentContext(join(dir, "profile"), {
-      executablePath: CHROMIUM, headless: true, viewport: { width: 1280, height: 1000 },
-      args: ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--no-first-run"],
-    });
+    ctx = await launchChromium(join(dir, "profile"), { width: 1280, height: 1000 });
     ctx.on("request", (r) => requests.push(r.url()));
     mkdirSync(SHOTS, { recursive: true });
   });
