@@ -873,12 +873,12 @@ function addLine(re: Float64Array, im: Float64Array, ob: number, v: Float64Array
   }
 }
 
-/** The distinct (R2, Δf) keys of the classes, each key's weight, and the decay of each key at every sample (E; ey weighted). */
-function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Array, ns: number, dwell: number) {
+/** The distinct (Δf, R2) of the plan's classes in first-seen order (keyDf, keyR2), and each class's key (keyOf). */
+function classKeys(plan: EnginePlan): { keyOf: Int32Array; keyDf: number[]; keyR2: number[] } {
   const { classDf, classR2 } = plan.rf, C = plan.classes;
   const keyIndex = new Map<string, number>();
   const keyOf = new Int32Array(C);
-  const keyDf: number[] = [], keyR2: number[] = [], keyW: number[] = [];
+  const keyDf: number[] = [], keyR2: number[] = [];
   for (let c = 0; c < C; c++) {
     const s = `${classDf[c]}|${classR2[c]}`;
     let k = keyIndex.get(s);
@@ -887,9 +887,19 @@ function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Arr
       keyIndex.set(s, k);
       keyDf.push(classDf[c]!);
       keyR2.push(classR2[c]!);
-      keyW.push(0);
     }
     keyOf[c] = k;
+  }
+  return { keyOf, keyDf, keyR2 };
+}
+
+/** The distinct (R2, Δf) keys of the classes, each key's weight, and the decay of each key at every sample (E; ey weighted). */
+function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Array, ns: number, dwell: number) {
+  const C = plan.classes;
+  const { keyOf, keyDf, keyR2 } = classKeys(plan);
+  const keyW: number[] = keyDf.map(() => 0);
+  for (let c = 0; c < C; c++) {
+    const k = keyOf[c]!;
     let p2 = 0;
     for (let r = 0; r < R; r++) p2 += G[2 * (c * R + r)]! ** 2 + G[2 * (c * R + r) + 1]! ** 2;
     keyW[k] = keyW[k]! + mass[c]! * Math.sqrt(p2);
@@ -1305,24 +1315,15 @@ export function predictCosts(
   if (hit && hit.tolerance === tolerance) return hit.costs;
   const C = plan.classes, coils = plan.coils, count = iso.count;
   // (Δf, R2) keys of the classes
-  const { classDf, classR2 } = plan.rf;
-  const keyIndex = new Map<string, number>();
-  const keyOf = new Int32Array(C);
+  const { keyOf, keyDf, keyR2 } = classKeys(plan);
   let fMin = Infinity, fMax = -Infinity, rMin = Infinity, rMax = -Infinity;
-  for (let c = 0; c < C; c++) {
-    const s = `${classDf[c]}|${classR2[c]}`;
-    let k = keyIndex.get(s);
-    if (k === undefined) {
-      k = keyIndex.size;
-      keyIndex.set(s, k);
-    }
-    keyOf[c] = k;
-    fMin = Math.min(fMin, classDf[c]!);
-    fMax = Math.max(fMax, classDf[c]!);
-    rMin = Math.min(rMin, classR2[c]!);
-    rMax = Math.max(rMax, classR2[c]!);
+  for (let k = 0; k < keyDf.length; k++) {
+    fMin = Math.min(fMin, keyDf[k]!);
+    fMax = Math.max(fMax, keyDf[k]!);
+    rMin = Math.min(rMin, keyR2[k]!);
+    rMax = Math.max(rMax, keyR2[k]!);
   }
-  const K = Math.max(1, keyIndex.size);
+  const K = Math.max(1, keyDf.length);
   // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
   const nv = Math.max(1, iso.vGrid.length);
   const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS);
