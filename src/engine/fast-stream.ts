@@ -23,7 +23,7 @@ import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
 import { addSegments, estimateOver, pivotedBasis, project, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
-import { sharedF64 } from "./plan.js";
+import { decodeClassKeys, sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
 import type { CoilArray } from "../dataset/coils.js";
 
@@ -211,20 +211,9 @@ export class CellStream {
       this.spec = { rfClass: new Int32Array(0), classes: 0, classW: sf([]), classDf: sf([]), classR1: sf([]), classR2: sf([]) };
       return;
     }
-    const C = tidx.size, k = tidx.keys;
+    const C = tidx.size;
     const classW = sharedF64(C).subarray(0, C), classDf = sharedF64(C).subarray(0, C), classR1 = sharedF64(C).subarray(0, C), classR2 = sharedF64(C).subarray(0, C);
-    const w2 = new Uint32Array(2), f2 = new Float64Array(w2.buffer);
-    const word = (c: number, o: number) => {
-      w2[0] = k[c * 7 + o]!;
-      w2[1] = k[c * 7 + o + 1]!;
-      return f2[0]!;
-    };
-    for (let c = 0; c < C; c++) {
-      classW[c] = cells.wGrid[k[c * 7]!]!;
-      classDf[c] = word(c, 1);
-      classR1[c] = word(c, 3);
-      classR2[c] = word(c, 5);
-    }
+    decodeClassKeys(tidx.keys, C, cells.wGrid, { classW, classDf, classR1, classR2 });
     this.eT0 = eT0;
     this.eClass = eClass;
     this.spec = { rfClass: new Int32Array(0), classes: C, classW, classDf, classR1, classR2 };

@@ -378,21 +378,33 @@ export function rfClasses(iso: IsochromatSet): {
     f64Words(r2[i]!, key, 5);
     rfClass[i] = index.id(key, 0);
   }
-  const classes = index.size, k = index.keys;
-  const classW = sharedF64(classes), classDf = sharedF64(classes), classR1 = sharedF64(classes), classR2 = sharedF64(classes);
+  const classes = index.size;
+  const out = { classW: sharedF64(classes), classDf: sharedF64(classes), classR1: sharedF64(classes), classR2: sharedF64(classes) };
+  decodeClassKeys(index.keys, classes, iso.wGrid, out);
+  return { rfClass, classes, ...out };
+}
+
+/**
+ * Fills the per-class parameters from the hashed class keys (7 words per
+ * class: through-slice index iw, then the bits of Δf, R1 and R2 as two words
+ * each) for classes 0 … C−1: slice coordinate wGrid[iw], Δf, R1, R2.
+ */
+export function decodeClassKeys(
+  keys: Uint32Array, C: number, wGrid: Float64Array,
+  out: { classW: Float64Array; classDf: Float64Array; classR1: Float64Array; classR2: Float64Array },
+): void {
   const w2 = new Uint32Array(2), f2 = new Float64Array(w2.buffer);
   const word = (c: number, o: number) => {
-    w2[0] = k[c * 7 + o]!;
-    w2[1] = k[c * 7 + o + 1]!;
+    w2[0] = keys[c * 7 + o]!;
+    w2[1] = keys[c * 7 + o + 1]!;
     return f2[0]!;
   };
-  for (let c = 0; c < classes; c++) {
-    classW[c] = iso.wGrid[k[c * 7]!]!;
-    classDf[c] = word(c, 1);
-    classR1[c] = word(c, 3);
-    classR2[c] = word(c, 5);
+  for (let c = 0; c < C; c++) {
+    out.classW[c] = wGrid[keys[c * 7]!]!;
+    out.classDf[c] = word(c, 1);
+    out.classR1[c] = word(c, 3);
+    out.classR2[c] = word(c, 5);
   }
-  return { rfClass, classes, classW, classDf, classR1, classR2 };
 }
 
 /**
