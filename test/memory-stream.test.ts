@@ -24,6 +24,17 @@ const base = {
   iso: { density: 4, sliceCount: 12, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 16, offsetHz: 0 }, workers: 1,
 };
 
+/** A fast run from a prepared run's sampled cells (serial executor), and whether it asked for the stored isochromats. */
+async function fastFromCells(p: ReturnType<typeof prepare>) {
+  const { serialExecutor, simulateCells } = await import("../src/engine/index.js");
+  let made = false;
+  const r = await simulateCells(serialExecutor(), p.seq, p.cells, () => {
+    made = true;
+    return p.iso;
+  }, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
+  return { r, made };
+}
+
 describe("memory estimate of the streamed fast operator", () => {
   test("streamed estimate: far below the stored one, and above the cell arrays the run actually made", () => {
     // no T2′ spread here: the stored estimate's count then follows the isochromats made (checked first)
@@ -65,12 +76,7 @@ describe("memory estimate of the streamed fast operator", () => {
     const limit = Math.sqrt(stored * streamed);
     // fast: the check before sampling passes on the streamed estimate
     const fast = prepare({ ...base, readout: "fast", maxMemory: limit });
-    const { serialExecutor, simulateCells } = await import("../src/engine/index.js");
-    let made = false;
-    const r = await simulateCells(serialExecutor(), fast.seq, fast.cells, () => {
-      made = true;
-      return fast.iso;
-    }, { receiverFilter: fast.protocol.receiverFilter, readout: "fast" });
+    const { r, made } = await fastFromCells(fast);
     expect(r.readout.operator).toBe("fast");
     expect(made).toBe(false);
     // asking for the isochromats after all runs the stored check: refused with one line naming the limit
@@ -103,12 +109,7 @@ describe("memory estimate of the streamed fast operator", () => {
     // a limit the streamed estimate just fits (at this small size the grids outweigh the stored isochromats): the run streams
     const limit = streamed.bytes * 1.01;
     const fast = prepare({ ...o, readout: "fast", maxMemory: limit });
-    const { serialExecutor, simulateCells } = await import("../src/engine/index.js");
-    let expanded = false;
-    const r = await simulateCells(serialExecutor(), fast.seq, fast.cells, () => {
-      expanded = true;
-      return fast.iso;
-    }, { receiverFilter: fast.protocol.receiverFilter, readout: "fast" });
+    const { r, made: expanded } = await fastFromCells(fast);
     expect(r.readout.operator).toBe("fast");
     expect(r.readout.weights).toMatch(/streamed/);
     expect(expanded).toBe(false);
