@@ -370,7 +370,6 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
   const adcs = adcOps(plan.ops), tab = plan.tab;
   const pr = new Float64Array(P), pi = new Float64Array(P);
   const gr = new Float64Array(P), gi = new Float64Array(P), yr = new Float64Array(P), yi = new Float64Array(P);
-  const idx = new Int32Array(P);
   const ns = plan.read;
   const xr = new Float64Array(ns), xi = new Float64Array(ns), sr = new Float64Array(ns), si = new Float64Array(ns);
   let num = 0, den = 0, samples = 0;
@@ -402,7 +401,6 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
         for (let p = 0; p < P; p++) {
           const vr = yRe[yo + p * L + l]!, vi = yIm[yo + p * L + l]!;
           if (vr === 0 && vi === 0) continue;
-          idx[m] = p;
           yr[m] = vr;
           yi[m] = vi;
           gr[m] = pr[p]!;
