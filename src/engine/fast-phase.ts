@@ -23,7 +23,12 @@ export interface PhaseSetup {
   AL: Float64Array;
   /** Read columns of the folded grid holding any isochromat. */
   colUsed: Uint8Array;
-  /** Z[q·L + l] as one array: offset (q·L + l)·2·NA·Mu, element 2·(a·NA + k). */
+  /** Rows of the folded grid a weight can fold into: 0 … rows − 1 (the others stay zero). */
+  rows: number;
+  /** Place of each used read column in Z (−1 for the unused), and the number of used columns. */
+  zCol: Int32Array;
+  zCols: number;
+  /** Z[q·L + l] as one array, used read columns only: offset (q·L + l)·2·NA·zCols, element 2·(zCol[a]·NA + k). */
   Z: Float64Array;
   Mu: number;
 }
@@ -31,7 +36,9 @@ export interface PhaseSetup {
 /** The transform of one block (one per thread: its FFT plan and gather buffer). */
 export class PhaseTransform {
   private readonly dft: FFTPlan;
+  /** One line of Mv per listed grid (rows ≥ setup.rows are never written: zero), and a view of each. */
   private gather = new Float64Array(0);
+  private views: Float64Array[] = [];
   constructor(private readonly s: PhaseSetup) {
     this.dft = new FFTPlan(s.Mv);
   }
@@ -43,26 +50,38 @@ export class PhaseTransform {
    */
   run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
     if (nl === 0) return;
-    const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, Mu } = this.s;
-    const dft = this.dft, inp = dft.input, out = dft.output;
-    if (this.gather.length < 2 * nl * Mv) this.gather = new Float64Array(2 * nl * Mv);
-    const g = this.gather, zStride = 2 * NA * Mu;
+    const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, zCol, zCols, rows } = this.s;
+    const dft = this.dft, out = dft.output;
+    if (this.views.length < nl) {
+      this.gather = new Float64Array(2 * nl * Mv);
+      this.views = Array.from({ length: nl }, (_, i) => this.gather.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
+    }
+    const g = this.gather, views = this.views, zStride = 2 * NA * zCols;
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
-      // the read column's grids gathered once, row by row, into contiguous lines
-      gatherColumn(XB, g, list, nl, 2 * (a - a0) * Mv * NX, Mv, NX);
+      // the read column's grids gathered once, row by row, into contiguous lines (the FFTs' inputs)
+      gatherColumn(XB, g, list, nl, 2 * (a - a0) * Mv * NX, Mv, NX, rows);
       for (let i = 0; i < nl; i++) {
-        for (let t = 0, o = 2 * i * Mv; t < 2 * Mv; t++) inp[t] = g[o + t]!;
-        dft.execute(-1);
+        dft.forward(views[i]!);
         const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
-        addLines(Z, (q * L + l) * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);
+        addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, mLine, AL, NA, R, r);
       }
     }
   }
 }
 
-function gatherColumn(XB: Float64Array, g: Float64Array, list: Int32Array, nl: number, base: number, Mv: number, NX: number): void {
-  for (let b = 0; b < Mv; b++) {
+/** Zeroes the rows a fold can write (0 … rows − 1) of the `cols` read columns of a block of grids (the others are never written). */
+export function zeroBlock(XB: Float64Array, cols: number, Mv: number, NX: number, rows: number): void {
+  if (rows >= Mv) {
+    XB.fill(0, 0, 2 * cols * Mv * NX);
+    return;
+  }
+  for (let c = 0; c < cols; c++) XB.fill(0, 2 * c * Mv * NX, 2 * (c * Mv + rows) * NX);
+}
+
+/** The grids' rows 0 … rows − 1 of one read column (rows ≥ rows are zero in XB and never written in g). */
+function gatherColumn(XB: Float64Array, g: Float64Array, list: Int32Array, nl: number, base: number, Mv: number, NX: number, rows: number): void {
+  for (let b = 0; b < rows; b++) {
     const row = base + 2 * b * NX;
     for (let i = 0; i < nl; i++) {
       const o = row + 2 * list[4 * i]!, d = 2 * (i * Mv + b);
@@ -198,7 +217,7 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
       const a0 = Atomics.load(ctrl, c.a0), a1 = Atomics.load(ctrl, c.a1);
       t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), a0, a1);
       // a free slot is zero (the next block is added into it)
-      slots[s]!.fill(0, 0, 2 * (a1 - a0) * sh.setup.Mv * sh.setup.NX);
+      zeroBlock(slots[s]!, a1 - a0, sh.setup.Mv, sh.setup.NX, sh.setup.rows);
       Atomics.store(ctrl, c.state, FREE);
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
@@ -230,7 +249,7 @@ export class ParallelPhase {
   private sensViews: SensViews | null = null;
 
   constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
-    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.Mu * setup.coils * setup.L);
+    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.zCols * setup.coils * setup.L);
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
     const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));
@@ -318,7 +337,7 @@ export class ParallelPhase {
   publish(slot: number, a0: number, a1: number): void {
     const c = ctrlLayout(this.ctrl, slot);
     if (this.nl === 0) {
-      this.slots[slot]!.fill(0, 0, 2 * (a1 - a0) * this.shared.setup.Mv * this.shared.setup.NX);
+      zeroBlock(this.slots[slot]!, a1 - a0, this.shared.setup.Mv, this.shared.setup.NX, this.shared.setup.rows);
       Atomics.store(this.ctrl, c.state, FREE);
       return;
     }
@@ -361,7 +380,7 @@ export class ParallelPhase {
       if (Atomics.compareExchange(this.ctrl, c.state, READY, BUSY_MAIN) !== READY) continue;
       const a0 = Atomics.load(this.ctrl, c.a0), a1 = Atomics.load(this.ctrl, c.a1);
       this.own.run(this.slots[s]!, this.list, this.nl, a0, a1);
-      this.slots[s]!.fill(0, 0, 2 * (a1 - a0) * this.shared.setup.Mv * this.shared.setup.NX);
+      zeroBlock(this.slots[s]!, a1 - a0, this.shared.setup.Mv, this.shared.setup.NX, this.shared.setup.rows);
       Atomics.store(this.ctrl, c.state, FREE);
       return true;
     }

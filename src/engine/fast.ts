@@ -43,7 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
-import { ParallelPhase, PhaseTransform, type PhaseShared } from "./fast-phase.js";
+import { ParallelPhase, PhaseTransform, zeroBlock, type PhaseShared } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -291,54 +291,91 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
   const P = new Float64Array(2 * C * nAdc);
   const maps = plan.rfMaps, tab = plan.tab;
   const adcs: History["adcs"] = [];
+  // per class: its offset in a slice phase table; per (duration, slice table) of a free interval the
+  // factor slice phase × (decay, precession) per class, made once (the same product each time it is used)
+  const iw2 = new Int32Array(C);
+  for (let c = 0; c < C; c++) iw2[c] = 2 * Math.max(0, classIw[c]!);
+  const freeQ = new Map<number, Float64Array>();
   let active = false;
+  // the loops over the classes in small functions (V8 optimises them; here they would stay in this body)
   for (const op of plan.ops) {
     switch (op.kind) {
       case "rf":
-        for (let c = 0; c < C; c++) {
-          const b = op.mapOffset + c * 12, z = mz[c]!;
-          const x = maps[b + 2]! * z + maps[b + 9]!, y = maps[b + 5]! * z + maps[b + 10]!;
-          mz[c] = maps[b + 8]! * z + maps[b + 11]!;
-          pr[c] = x * op.cosPhase - y * op.sinPhase;
-          pi[c] = x * op.sinPhase + y * op.cosPhase;
-        }
+        rfClasses(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase);
         active = true;
         break;
       case "free": {
-        const d = D[op.durationIndex]!, e1 = E1[op.durationIndex]!;
-        for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
+        relaxClasses(mz, E1[op.durationIndex]!, C);
         if (!active) break;
-        for (let c = 0; c < C; c++) {
-          const ow = op.sliceTable + 2 * Math.max(0, classIw[c]!);
-          const wr = tab[ow]!, wi = tab[ow + 1]!, dr = d[2 * c]!, di = d[2 * c + 1]!;
-          const qr = wr * dr - wi * di, qi = wr * di + wi * dr, xr = pr[c]!, xi = pi[c]!;
-          pr[c] = xr * qr - xi * qi;
-          pi[c] = xr * qi + xi * qr;
+        const key = op.durationIndex * tab.length + op.sliceTable;
+        let q = freeQ.get(key);
+        if (!q) {
+          q = freeFactors(D[op.durationIndex]!, tab, op.sliceTable, iw2, C);
+          freeQ.set(key, q);
         }
+        rotateClasses(pr, pi, q, C);
         break;
       }
-      case "relax": {
-        const e1 = E1[op.durationIndex]!;
-        for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
+      case "relax":
+        relaxClasses(mz, E1[op.durationIndex]!, C);
         break;
-      }
       case "spoil":
         active = false;
         break;
       case "adc": {
         const n = adcs.length, blk = adcBlocks[n]!;
         adcs.push({ op, area: blk.area, step: blk.step, dwell: blk.dwell, active });
-        if (active) {
-          for (let c = 0; c < C; c++) {
-            P[2 * (n * C + c)] = pr[c]!;
-            P[2 * (n * C + c) + 1] = pi[c]!;
-          }
-        }
+        if (active) storeClasses(P, 2 * n * C, pr, pi, C);
         break;
       }
     }
   }
   return { adcs, P, classIw, mass };
+}
+
+/** An RF pulse on every class: its affine map of (0, 0, Mz) (no transverse state before a pulse of an ideally spoiled sequence), then the pulse phase. */
+function rfClasses(maps: Float64Array, mapOffset: number, C: number, mz: Float64Array, pr: Float64Array, pi: Float64Array, cp: number, sp: number): void {
+  for (let c = 0; c < C; c++) {
+    const b = mapOffset + c * 12, z = mz[c]!;
+    const x = maps[b + 2]! * z + maps[b + 9]!, y = maps[b + 5]! * z + maps[b + 10]!;
+    mz[c] = maps[b + 8]! * z + maps[b + 11]!;
+    pr[c] = x * cp - y * sp;
+    pi[c] = x * sp + y * cp;
+  }
+}
+
+/** Mz ← Mz·E1 + (1 − E1) for every class. */
+function relaxClasses(mz: Float64Array, e1: Float64Array, C: number): void {
+  for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
+}
+
+/** q[c] = (slice phase of the class's through-slice index) × d[c] (decay and precession over the interval). */
+function freeFactors(d: Float64Array, tab: Float64Array, sliceTable: number, iw2: Int32Array, C: number): Float64Array {
+  const q = new Float64Array(2 * C);
+  for (let c = 0; c < C; c++) {
+    const ow = sliceTable + iw2[c]!;
+    const wr = tab[ow]!, wi = tab[ow + 1]!, dr = d[2 * c]!, di = d[2 * c + 1]!;
+    q[2 * c] = wr * dr - wi * di;
+    q[2 * c + 1] = wr * di + wi * dr;
+  }
+  return q;
+}
+
+/** (pr + i·pi)[c] ← (pr + i·pi)[c]·q[c]. */
+function rotateClasses(pr: Float64Array, pi: Float64Array, q: Float64Array, C: number): void {
+  for (let c = 0; c < C; c++) {
+    const qr = q[2 * c]!, qi = q[2 * c + 1]!, xr = pr[c]!, xi = pi[c]!;
+    pr[c] = xr * qr - xi * qi;
+    pi[c] = xr * qi + xi * qr;
+  }
+}
+
+/** P[o + 2c] = pr[c], P[o + 2c + 1] = pi[c]. */
+function storeClasses(P: Float64Array, o: number, pr: Float64Array, pi: Float64Array, C: number): void {
+  for (let c = 0; c < C; c++) {
+    P[o + 2 * c] = pr[c]!;
+    P[o + 2 * c + 1] = pi[c]!;
+  }
 }
 
 /** A reason the fast operator cannot apply, found from the plan alone (before the RF maps are filled), or null. */
@@ -543,11 +580,18 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     if (used && ranges.length > 0) blocks.push({ a0, a1, ranges });
   }
   // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line),
-  // one array; the phase step per block (fast-phase.ts) on this thread or shared with a helper thread
-  const zStride = 2 * NA * Mu;
-  const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu };
-  let usedCols = 0;
-  for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
+  // one array holding the used read columns a only (at zCol[a]); the phase step per block (fast-phase.ts)
+  // on this thread or shared with a helper thread. A weight folds into rows b mod Mv of the grid, b < nv:
+  // rows ≥ min(nv, Mv) stay zero (not zeroed, gathered or summed).
+  const zCol = new Int32Array(Mu).fill(-1), usedList: number[] = [];
+  for (let a = 0; a < Mu; a++) {
+    if (colUsed[a] === 0) continue;
+    zCol[a] = usedList.length;
+    usedList.push(a);
+  }
+  const usedCols = usedList.length, rows = Math.min(vGrid.length, Mv);
+  const zStride = 2 * NA * usedCols;
+  const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu, rows, zCol, zCols: usedCols };
   const helper = allowHelper && phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
   // with a helper and loop coils (plain data), the helper also evaluates the sensitivities of the blocks ahead of the fold
   const loops = src.kind === "cells" && coils > 1 ? src.stream.sens?.loops : undefined;
@@ -611,7 +655,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook, sensSource);
   const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array) => {
     // a helper's slot is zeroed after its transform (on the thread that ran it)
-    if (!par) grids.fill(0, 0, 2 * (blk.a1 - blk.a0) * Mv * NX);
+    if (!par) zeroBlock(grids, blk.a1 - blk.a0, Mv, NX, rows);
     for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0, grids);
   };
   // One coil: pass 1 folds every block, sums the grids' norms, transforms rank 0
@@ -624,6 +668,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
   const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * KT * Mu);
+  const usedA = Int32Array.from(usedList), ztRows = Array.from({ length: KT }, (_, t) => zt.subarray(2 * t * Mu, 2 * (t + 1) * Mu));
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
@@ -667,12 +712,12 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const list0: { x: number; r: number; q: number; l: number }[] = [];
   for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) list0.push({ x: q * L + l, r: 0, q, l });
   setList(list0);
-  for (const blk of blocks) foldTransform(blk, (grids) => addNorms(grids, blk.a0, blk.a1, colUsed, Mv, NX, n2));
+  for (const blk of blocks) foldTransform(blk, (grids) => addNorms(grids, blk.a0, blk.a1, colUsed, Mv, NX, rows, n2));
   drain();
   kept += list0.length;
   let n2k = 0;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, colUsed);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, ztRows, lines, usedA);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -704,7 +749,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   drain();
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, colUsed);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, ztRows, lines, usedA);
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
       addLine(re, im, ob, lines, 2 * k * ns, ns);
@@ -810,12 +855,12 @@ function foldPass(
 // Hot loops of fastReadoutFrom live in small functions: V8 does not optimise
 // a function that large, so a loop left in its body runs unoptimised.
 
-/** n2[x] += Σ |XB|² over the used read columns a0 … a1−1 of a block (grids interleaved per position). */
-function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array, Mv: number, NX: number, n2: Float64Array): void {
+/** n2[x] += Σ |XB|² over the used read columns a0 … a1−1 of a block (grids interleaved per position), rows 0 … rows − 1 (the others are zero). */
+function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array, Mv: number, NX: number, rows: number, n2: Float64Array): void {
   for (let a = a0; a < a1; a++) {
     if (!colUsed[a]) continue;
     const ob = 2 * (a - a0) * Mv * NX;
-    for (let o = ob; o < ob + 2 * Mv * NX; o += 2 * NX) {
+    for (let o = ob; o < ob + 2 * rows * NX; o += 2 * NX) {
       for (let x = 0; x < NX; x++) {
         const xr = XB[o + 2 * x]!, xi = XB[o + 2 * x + 1]!;
         n2[x] = n2[x]! + xr * xr + xi * xi;
@@ -832,18 +877,17 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
 /** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
 const KT = 16;
 
-/** zt is zero at the unused read columns (z is zero there; they are never written). */
-function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, colUsed: Uint8Array): void {
-  const L = Zq.length, inp = dft.input, res = dft.output;
+/** zt is zero at the unused read columns (never written); ztRows[t] is its row t; Zq[l] holds the used read columns usedA[i] at i. */
+function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, ztRows: Float64Array[], out: Float64Array, usedA: Int32Array): void {
+  const L = Zq.length, res = dft.output;
   out.fill(0);
   for (let l = 0; l < L; l++) {
     const z = Zq[l]!;
     // KT lines at a time: one sweep down the read columns reads each cache line of z once
     for (let k0 = 0; k0 < NA; k0 += KT) {
       const nk = Math.min(KT, NA - k0);
-      for (let a = 0; a < Mu; a++) {
-        if (colUsed[a] === 0) continue;
-        const src = 2 * (a * NA + k0);
+      for (let i = 0; i < usedA.length; i++) {
+        const a = usedA[i]!, src = 2 * (i * NA + k0);
         for (let t = 0; t < nk; t++) {
           zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
           zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
@@ -853,8 +897,7 @@ function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Fl
     }
   }
   function readOne(l: number, k: number, t: number): void {
-    for (let a = 0; a < 2 * Mu; a++) inp[a] = zt[2 * t * Mu + a]!;
-    dft.execute(-1);
+    dft.forward(ztRows[t]!);
     const o = 2 * k * ns;
     for (let j = 0; j < ns; j++) {
       const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;

@@ -170,6 +170,20 @@ export class FFTPlan {
     }
   }
 
+  /**
+   * Forward (−) DFT of interleaved `data` (its first 2n values, left
+   * unchanged) into {@link FFTPlan.output}: the same numbers as copying it into
+   * {@link FFTPlan.input} and execute(−1), without the copy for a power of two.
+   */
+  forward(data: Float64Array): void {
+    if (this.m === 0 && this.core !== null) {
+      this.core.transform(this.output, data);
+      return;
+    }
+    this.input.set(data.subarray(0, 2 * this.n));
+    this.execute(-1);
+  }
+
   /** Forward (−) DFT of interleaved `inp` into `out` by Bluestein's algorithm. */
   private bluestein(out: Float64Array, inp: Float64Array, core: FFT): void {
     const n = this.n;
