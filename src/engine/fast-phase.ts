@@ -36,9 +36,6 @@ export interface PhaseSetup {
 /** The transform of one block (one per thread: its FFT plan and gather buffer). */
 export class PhaseTransform {
   private readonly dft: FFTPlan;
-  /** One line of Mv per listed grid (rows ≥ setup.rows are never written: zero), and a view of each. */
-  private gather = new Float64Array(0);
-  private views: Float64Array[] = [];
   constructor(private readonly s: PhaseSetup) {
     this.dft = new FFTPlan(s.Mv);
   }
@@ -51,18 +48,14 @@ export class PhaseTransform {
   run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
     if (nl === 0) return;
     const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, zCol, zCols, rows } = this.s;
-    const dft = this.dft, out = dft.output;
-    if (this.views.length < nl) {
-      this.gather = new Float64Array(2 * nl * Mv);
-      this.views = Array.from({ length: nl }, (_, i) => this.gather.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
-    }
-    const g = this.gather, views = this.views, zStride = 2 * NA * zCols;
+    const dft = this.dft, out = dft.output, zStride = 2 * NA * zCols;
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
-      // the read column's grids gathered once, row by row, into contiguous lines (the FFTs' inputs)
-      gatherColumn(XB, g, list, nl, 2 * (a - a0) * Mv * NX, Mv, NX, rows);
+      // each grid's line along the read column, read in place (stride NX; rows ≥ `rows` are +0, and no
+      // value of a fold is −0: sums from +0), transformed
+      const base = 2 * (a - a0) * Mv * NX;
       for (let i = 0; i < nl; i++) {
-        dft.forward(views[i]!);
+        dft.forwardStrided(XB, base + 2 * list[4 * i]!, 2 * NX, rows);
         const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
         addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, mLine, AL, NA, R, r);
       }
@@ -77,18 +70,6 @@ export function zeroBlock(XB: Float64Array, cols: number, Mv: number, NX: number
     return;
   }
   for (let c = 0; c < cols; c++) XB.fill(0, 2 * c * Mv * NX, 2 * (c * Mv + rows) * NX);
-}
-
-/** The grids' rows 0 … rows − 1 of one read column (rows ≥ rows are zero in XB and never written in g). */
-function gatherColumn(XB: Float64Array, g: Float64Array, list: Int32Array, nl: number, base: number, Mv: number, NX: number, rows: number): void {
-  for (let b = 0; b < rows; b++) {
-    const row = base + 2 * b * NX;
-    for (let i = 0; i < nl; i++) {
-      const o = row + 2 * list[4 * i]!, d = 2 * (i * Mv + b);
-      g[d] = XB[o]!;
-      g[d + 1] = XB[o + 1]!;
-    }
-  }
 }
 
 function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Array, AL: Float64Array, NA: number, R: number, r: number): void {

@@ -668,7 +668,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
   const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * KT * Mu);
-  const usedA = Int32Array.from(usedList), ztRows = Array.from({ length: KT }, (_, t) => zt.subarray(2 * t * Mu, 2 * (t + 1) * Mu));
+  const usedA = Int32Array.from(usedList);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
@@ -717,7 +717,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   kept += list0.length;
   let n2k = 0;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, ztRows, lines, usedA);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -749,7 +749,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   drain();
   // read-axis DFT of each line, times B_l(j), summed over l into the rows
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, ztRows, lines, usedA);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
       addLine(re, im, ob, lines, 2 * k * ns, ns);
@@ -877,9 +877,9 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
 /** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
 const KT = 16;
 
-/** zt is zero at the unused read columns (never written); ztRows[t] is its row t; Zq[l] holds the used read columns usedA[i] at i. */
-function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, ztRows: Float64Array[], out: Float64Array, usedA: Int32Array): void {
-  const L = Zq.length, res = dft.output;
+/** zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i. */
+function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
+  const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   out.fill(0);
   for (let l = 0; l < L; l++) {
     const z = Zq[l]!;
@@ -897,7 +897,7 @@ function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Fl
     }
   }
   function readOne(l: number, k: number, t: number): void {
-    dft.forward(ztRows[t]!);
+    dft.forwardStrided(zt, 2 * t * Mu, 2, nzA);
     const o = 2 * k * ns;
     for (let j = 0; j < ns; j++) {
       const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;

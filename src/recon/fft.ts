@@ -41,6 +41,98 @@ function isPowerOfTwo(n: number): boolean {
   return n >= 2 && (n & (n - 1)) === 0;
 }
 
+/**
+ * Forward DFT of n = size/2 complex values (n a power of two ≥ 2) into `out`
+ * (interleaved, length size): the radix-4 schedule and the arithmetic of
+ * fft.js 4.0.4 (MIT licence; FFT.prototype._transform4 with its sign factor
+ * 1, which multiplies exactly), so the same numbers bit for bit, with its
+ * twiddle `table` and bit-reversal offsets `bitrev` (in doubles of an
+ * interleaved input) and first-step width. Input element j is read at
+ * src[so + j·ss] (real) and src[so + j·ss + 1] (imaginary): any stride, no
+ * copy. Where only the elements j < nz can be non-zero (the others exactly
+ * +0) and no input is −0, a radix-4 first step with nz ≤ n/4 has three zero
+ * inputs per butterfly, whose four outputs are then its first input unchanged
+ * (x ± 0 = x for x ≠ −0): they are copied, not computed.
+ */
+function radix4Forward(out: Float64Array, src: Float64Array, so: number, ss: number, size: number, width: number, bitrev: Int32Array, table: Float64Array, nz: number): void {
+  let step = 1 << width;
+  let len = (size / step) << 1;
+  if (len === 4) {
+    const h = (step >> 1) * ss;
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const i0 = so + (bitrev[t]! >> 1) * ss, i1 = i0 + h;
+      const evenR = src[i0]!, evenI = src[i0 + 1]!, oddR = src[i1]!, oddI = src[i1 + 1]!;
+      out[outOff] = evenR + oddR;
+      out[outOff + 1] = evenI + oddI;
+      out[outOff + 2] = evenR - oddR;
+      out[outOff + 3] = evenI - oddI;
+    }
+  } else if (4 * nz <= size >> 1) {
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const i0 = so + (bitrev[t]! >> 1) * ss, ar = src[i0]!, ai = src[i0 + 1]!;
+      out[outOff] = ar;
+      out[outOff + 1] = ai;
+      out[outOff + 2] = ar;
+      out[outOff + 3] = ai;
+      out[outOff + 4] = ar;
+      out[outOff + 5] = ai;
+      out[outOff + 6] = ar;
+      out[outOff + 7] = ai;
+    }
+  } else {
+    const h = (step >> 1) * ss;
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const iA = so + (bitrev[t]! >> 1) * ss, iB = iA + h, iC = iB + h, iD = iC + h;
+      const Ar = src[iA]!, Ai = src[iA + 1]!, Br = src[iB]!, Bi = src[iB + 1]!;
+      const Cr = src[iC]!, Ci = src[iC + 1]!, Dr = src[iD]!, Di = src[iD + 1]!;
+      const T0r = Ar + Cr, T0i = Ai + Ci, T1r = Ar - Cr, T1i = Ai - Ci;
+      const T2r = Br + Dr, T2i = Bi + Di, T3r = Br - Dr, T3i = Bi - Di;
+      out[outOff] = T0r + T2r;
+      out[outOff + 1] = T0i + T2i;
+      out[outOff + 2] = T1r + T3i;
+      out[outOff + 3] = T1i - T3r;
+      out[outOff + 4] = T0r - T2r;
+      out[outOff + 5] = T0i - T2i;
+      out[outOff + 6] = T1r - T3i;
+      out[outOff + 7] = T1i + T3r;
+    }
+  }
+  for (step >>= 2; step >= 2; step >>= 2) {
+    len = (size / step) << 1;
+    const q = len >>> 2;
+    for (let outOff = 0; outOff < size; outOff += len) {
+      const limit = outOff + q;
+      for (let A = outOff, k = 0; A < limit; A += 2, k += step) {
+        const B = A + q, C = B + q, D = C + q;
+        const Ar = out[A]!, Ai = out[A + 1]!, Br = out[B]!, Bi = out[B + 1]!;
+        const Cr = out[C]!, Ci = out[C + 1]!, Dr = out[D]!, Di = out[D + 1]!;
+        const tBr = table[k]!, tBi = table[k + 1]!;
+        const MBr = Br * tBr - Bi * tBi, MBi = Br * tBi + Bi * tBr;
+        const tCr = table[2 * k]!, tCi = table[2 * k + 1]!;
+        const MCr = Cr * tCr - Ci * tCi, MCi = Cr * tCi + Ci * tCr;
+        const tDr = table[3 * k]!, tDi = table[3 * k + 1]!;
+        const MDr = Dr * tDr - Di * tDi, MDi = Dr * tDi + Di * tDr;
+        const T0r = Ar + MCr, T0i = Ai + MCi, T1r = Ar - MCr, T1i = Ai - MCi;
+        const T2r = MBr + MDr, T2i = MBi + MDi, T3r = MBr - MDr, T3i = MBi - MDi;
+        out[A] = T0r + T2r;
+        out[A + 1] = T0i + T2i;
+        out[B] = T1r + T3i;
+        out[B + 1] = T1i - T3r;
+        out[C] = T0r - T2r;
+        out[C + 1] = T0i - T2i;
+        out[D] = T1r - T3i;
+        out[D + 1] = T1i + T3r;
+      }
+    }
+  }
+}
+
+/** fft.js's own twiddle table, bit-reversal offsets and first-step width of a plan (read once, as radix4Forward uses them). */
+function radix4Tables(core: FFT): { table: Float64Array; bitrev: Int32Array; width: number } {
+  const c = core as unknown as { table: number[]; _bitrev: number[]; _width: number };
+  return { table: Float64Array.from(c.table), bitrev: Int32Array.from(c._bitrev), width: c._width };
+}
+
 function nextPowerOfTwo(n: number): number {
   let p = 2;
   while (p < n) p *= 2;
@@ -77,6 +169,8 @@ export class FFTPlan {
   /** Bluestein scratch, interleaved, length 2m each. */
   private readonly bufA: Float64Array;
   private readonly bufB: Float64Array;
+  /** A power-of-two n: fft.js's twiddles, bit-reversal offsets and first-step width, for radix4Forward. */
+  private readonly r4: { table: Float64Array; bitrev: Int32Array; width: number } | null;
 
   /**
    * @param n transform length, a positive integer.
@@ -89,6 +183,7 @@ export class FFTPlan {
     this.n = n;
     this.input = new Float64Array(2 * n);
     this.output = new Float64Array(2 * n);
+    this.r4 = null;
     if (n === 1) {
       this.core = null;
       this.m = 0;
@@ -99,6 +194,7 @@ export class FFTPlan {
     } else if (isPowerOfTwo(n)) {
       this.core = new FFT(n);
       this.m = 0;
+      this.r4 = radix4Tables(this.core);
       this.chirp = new Float64Array(0);
       this.kernelHat = new Float64Array(0);
       this.bufA = new Float64Array(0);
@@ -160,7 +256,9 @@ export class FFTPlan {
     if (sign === 1) {
       for (let j = 1; j < 2 * n; j += 2) inp[j] = -inp[j]!;
     }
-    if (this.m === 0) {
+    if (this.r4 !== null) {
+      radix4Forward(out, inp, 0, 2, 2 * n, this.r4.width, this.r4.bitrev, this.r4.table, n);
+    } else if (this.m === 0) {
       core.transform(out, inp);
     } else {
       this.bluestein(out, inp, core);
@@ -171,16 +269,25 @@ export class FFTPlan {
   }
 
   /**
-   * Forward (−) DFT of interleaved `data` (its first 2n values, left
-   * unchanged) into {@link FFTPlan.output}: the same numbers as copying it into
-   * {@link FFTPlan.input} and execute(−1), without the copy for a power of two.
+   * Forward (−) DFT of the n complex values at src[so + j·ss] (real) and
+   * src[so + j·ss + 1] (imaginary), j = 0 … n − 1, into
+   * {@link FFTPlan.output}; `src` is left unchanged. With nz < n the caller
+   * states that the values j ≥ nz are exactly +0 and none is −0 (a power of
+   * two then skips the sums of zeros; the numbers are those of the full
+   * transform). The same numbers as execute(−1) on the values copied into
+   * {@link FFTPlan.input}.
    */
-  forward(data: Float64Array): void {
-    if (this.m === 0 && this.core !== null) {
-      this.core.transform(this.output, data);
+  forwardStrided(src: Float64Array, so: number, ss: number, nz: number): void {
+    const r4 = this.r4;
+    if (r4 !== null) {
+      radix4Forward(this.output, src, so, ss, 2 * this.n, r4.width, r4.bitrev, r4.table, nz);
       return;
     }
-    this.input.set(data.subarray(0, 2 * this.n));
+    const inp = this.input;
+    for (let j = 0; j < this.n; j++) {
+      inp[2 * j] = src[so + j * ss]!;
+      inp[2 * j + 1] = src[so + j * ss + 1]!;
+    }
     this.execute(-1);
   }
 
