@@ -398,23 +398,26 @@ export function centredLine(
   const plan = getPlan(n);
   const buf = plan.input;
   const c = n >> 1;
+  // the + transform as execute(+1) makes it, conj(DFT−(conj(x))): imaginary parts times s = −1 on
+  // the way in and out (exact), here in the shifts' copies
+  const s = sign === 1 ? -1 : 1;
   // ifftshift on load: buf[j] = x[(j + c) mod n].
   let q = c;
   for (let j = 0; j < n; j++) {
     const idx = offset + q * stride;
     buf[2 * j] = re[idx]!;
-    buf[2 * j + 1] = im[idx]!;
+    buf[2 * j + 1] = s * im[idx]!;
     q++;
     if (q === n) q = 0;
   }
-  plan.execute(sign);
+  plan.forwardStrided(buf, 0, 2, n);
   const out = plan.output;
   // fftshift on store: y[(j + c) mod n] = out[j].
   let p = c;
   for (let j = 0; j < n; j++) {
     const idx = offset + p * stride;
     re[idx] = out[2 * j]! * scale;
-    im[idx] = out[2 * j + 1]! * scale;
+    im[idx] = s * out[2 * j + 1]! * scale;
     p++;
     if (p === n) p = 0;
   }
