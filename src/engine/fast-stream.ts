@@ -300,7 +300,7 @@ export class CellStream {
     // (tissue, place in the voxel) — summed over w for one uniform coil, per w
     // with sensitivities (they vary through the slice).
     const WL = W * L, perW = hasSens ? nw : 1;
-    const full: { keys: Int32Array; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
+    const full: { keys: Int32Array; dfLo: number; dfHi: number; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
     const complete = new Uint8Array(T * D2);
     for (let ti = 0; ti < T && !b0; ti++) {
       for (let sub = 0; sub < D2; sub++) {
@@ -338,7 +338,8 @@ export class CellStream {
             low = { J, B, alpha: project(basis, rl, WL, nw) };
           }
         }
-        full.push({ keys: Int32Array.from(keySet), rl, low });
+        const keys = Int32Array.from(keySet), [dfLo, dfHi] = dfRange(keys, keyDf);
+        full.push({ keys, dfLo, dfHi, rl, low });
       }
     }
     const S = new Float64Array(2 * coils * nw).fill(0);
@@ -368,9 +369,7 @@ export class CellStream {
       if (onColumn) onColumn(col, S);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
-        let flat = true;
-        if (filt) for (let i = 0; i < tab.keys.length && flat; i++) flat = receiverFilter(fRead * u + keyDf[tab.keys[i]!]!, bw) === 1;
-        if (flat) {
+        if (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           for (let q = 0; q < coils; q++) {
             if (hasSens && tab.low) {
@@ -487,7 +486,7 @@ export class CellStream {
       // same exact per-class state and decay (no line factor, no segments, no FFT),
       // summed per cell once instead of per isochromat.
       const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
-      const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [];
+      const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [], dfLoHi: [number, number][] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
           if (this.eClass) {
@@ -495,6 +494,7 @@ export class CellStream {
             Y.push(null);
             Ysum.push(new Float64Array(0));
             keysOf.push(new Int32Array(0));
+            dfLoHi.push([0, 0]);
             continue;
           }
           const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
@@ -519,6 +519,7 @@ export class CellStream {
           for (let c = 0; c < nw; c++) for (let x = 0; x < 2 * NS; x++) ys[x] = ys[x]! + y[2 * c * NS + x]!;
           Ysum.push(ys);
           keysOf.push(Int32Array.from(ks));
+          dfLoHi.push(dfRange(keysOf[keysOf.length - 1]!, keyDf));
         }
       }
       const colv = new Float64Array(2 * coils * NS), one = new Float64Array(2 * nw);
@@ -541,9 +542,7 @@ export class CellStream {
         const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
         if (uniform) {
           const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
-          let flat = true;
-          if (filter) for (const k of keysOf[z]!) if (receiverFilter(filter.fRead * u + keyDf[k]!, filter.bw) !== 1) flat = false;
-          if (flat) {
+          if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             const y = Y[z]!;
             if (!S) {
               const ys = Ysum[z]!;
@@ -626,6 +625,28 @@ export class CellStream {
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);
     }
   }
+}
+
+/** The least and the greatest Δf of the keys (+∞, −∞ for none). */
+function dfRange(keys: Int32Array, keyDf: number[]): [number, number] {
+  let lo = Infinity, hi = -Infinity;
+  for (const k of keys) {
+    lo = Math.min(lo, keyDf[k]!);
+    hi = Math.max(hi, keyDf[k]!);
+  }
+  return [lo, hi];
+}
+
+/**
+ * Whether the receiver filter is 1 at f0 + Δf for every key of a table, its Δf
+ * within [lo, hi]: receiverFilter(f0 + Δf, bw) === 1 is |fl(f0 + Δf)|/bw ≤ 0.42,
+ * and fl(f0 + Δf) is non-decreasing in Δf (rounding is monotonic), so the
+ * largest |fl(f0 + Δf)| is at Δf = lo or hi: the same answer as every key in
+ * turn. No key: true.
+ */
+function flatFor(f0: number, lo: number, hi: number, bw: number): boolean {
+  if (lo > hi) return true;
+  return receiverFilter(f0 + lo, bw) === 1 && receiverFilter(f0 + hi, bw) === 1;
 }
 
 /**
