@@ -127,6 +127,28 @@ export function setPhaseHelper(f: (() => PhaseHelper | null) | null, minWork = P
   phaseMinWork = minWork;
 }
 
+/**
+ * Scratch arrays of a run kept for the next run on this thread (the
+ * operator runs synchronously; nothing of them outlives a run): repeated runs
+ * in one process (the previewer, the demo) then neither fault in new pages
+ * nor leave large garbage. Arrays above SCRATCH_MAX values are not kept.
+ */
+const scratchPool = new Map<string, Float64Array>();
+const SCRATCH_MAX = 1 << 22;
+
+/** A zeroed array of n values: a view of the kept one for `slot` when it is large enough. */
+function scratchF64(slot: string, n: number): Float64Array {
+  const kept = scratchPool.get(slot);
+  if (kept && kept.length >= n) {
+    const v = kept.subarray(0, n);
+    v.fill(0);
+    return v;
+  }
+  const a = new Float64Array(n);
+  if (n <= SCRATCH_MAX) scratchPool.set(slot, a);
+  return a;
+}
+
 /** Samples of the a-posteriori estimate and its seed. */
 export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
@@ -288,7 +310,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
     E1.push(e);
   }
   const mz = new Float64Array(C).fill(1), pr = new Float64Array(C), pi = new Float64Array(C);
-  const P = new Float64Array(2 * C * nAdc);
+  const P = scratchF64("P", 2 * C * nAdc);
   const maps = plan.rfMaps, tab = plan.tab;
   const adcs: History["adcs"] = [];
   // per class: its offset in a slice phase table; per (duration, slice table) of a free interval the
@@ -474,7 +496,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const NA = act.length;
   // --- line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), weighted by each class's magnetization
   const tolLine = tolerance / split, tolTime = tolerance / split;
-  const y = new Float64Array(2 * NA * C);
+  const y = scratchF64("y", 2 * NA * C);
   lineValues(P, act.map((a) => a.n), C, mass, y);
   const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK);
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
@@ -543,7 +565,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const colBytes = 16 * Mv * NX;
   const blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / colBytes)));
   if (colBytes * blockCols > GRID_BYTES) return `the folded grid ${Mv}×${Mu} × ${coils} coils × ${R} ranks × ${L} segments is too large for the fast operator`;
-  let XB = new Float64Array(0);
+  let XB: Float64Array = new Float64Array(0);
   const colUsed = new Uint8Array(Mu);
   // the read index of a column (non-decreasing in column order)
   const nCols = src.kind === "iso" ? src.iso.columns : src.stream.cells.columns;
@@ -620,10 +642,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead) : null;
   if (helper && par) helper.start(par.shared);
   try {
-  const Zall = par ? par.Z : new Float64Array(zStride * coils * L);
+  const Zall: Float64Array = par ? par.Z : scratchF64("Z", zStride * coils * L);
   const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
   // one block's grids on this thread (with a helper, its slots hold them)
-  if (!par) XB = new Float64Array(2 * blockCols * Mv * NX);
+  if (!par) XB = scratchF64("XB", 2 * blockCols * Mv * NX);
   const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
   let cur = new Int32Array(0), curN = 0;
   /** The (grid, rank, coil, segment) entries the next blocks transform. */
@@ -667,7 +689,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // With several coils the fold (sensitivities per column and coil) costs more
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
-  const lines = new Float64Array(2 * NA * ns), zt = new Float64Array(2 * KT * Mu);
+  const lines = scratchF64("lines", 2 * NA * ns), zt = scratchF64("zt", 2 * KT * Mu);
   const usedA = Int32Array.from(usedList);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
@@ -948,7 +970,7 @@ function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Arr
     keyW[k] = keyW[k]! + mass[c]! * Math.sqrt(p2);
   }
   const K = keyDf.length;
-  const E = new Float64Array(2 * ns * K), ey = new Float64Array(2 * ns * K);
+  const E = scratchF64("E", 2 * ns * K), ey = scratchF64("ey", 2 * ns * K);
   for (let k = 0; k < K; k++) {
     for (let j = 0; j < ns; j++) {
       const t = j * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
