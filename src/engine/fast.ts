@@ -994,12 +994,17 @@ function sumSquares(v: Float64Array): number {
 /** y[c·NA + k] = P[line_k·C + c]·mass[c] (interleaved complex), line outer: P is read along its rows. */
 function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Array, y: Float64Array): void {
   const NA = lines.length;
-  for (let k = 0; k < NA; k++) {
-    const n = lines[k]!;
+  // LT lines at a time: each class's LT values are written together (one or two cache lines of y), not one per line
+  const LT = 8;
+  for (let k0 = 0; k0 < NA; k0 += LT) {
+    const k1 = Math.min(NA, k0 + LT);
     for (let c = 0; c < C; c++) {
-      const o = 2 * (n * C + c), t = 2 * (c * NA + k);
-      y[t] = P[o]! * mass[c]!;
-      y[t + 1] = P[o + 1]! * mass[c]!;
+      const m = mass[c]!;
+      for (let k = k0; k < k1; k++) {
+        const o = 2 * (lines[k]! * C + c), t = 2 * (c * NA + k);
+        y[t] = P[o]! * m;
+        y[t + 1] = P[o + 1]! * m;
+      }
     }
   }
 }
