@@ -33,7 +33,7 @@ export interface PhaseSetup {
   Mu: number;
 }
 
-/** The transform of one block (one per thread: its FFT plan and gather buffer). */
+/** The transform of one block (one per thread: its FFT plan). */
 export class PhaseTransform {
   private readonly dft: FFTPlan;
   constructor(private readonly s: PhaseSetup) {

@@ -604,7 +604,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line),
   // one array holding the used read columns a only (at zCol[a]); the phase step per block (fast-phase.ts)
   // on this thread or shared with a helper thread. A weight folds into rows b mod Mv of the grid, b < nv:
-  // rows ≥ min(nv, Mv) stay zero (not zeroed, gathered or summed).
+  // rows ≥ min(nv, Mv) stay zero (not zeroed, summed, and skipped by the first FFT step where they are 3/4 of it).
   const zCol = new Int32Array(Mu).fill(-1), usedList: number[] = [];
   for (let a = 0; a < Mu; a++) {
     if (colUsed[a] === 0) continue;

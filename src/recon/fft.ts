@@ -3,8 +3,10 @@
  * centred transforms between k-space and image space.
  *
  * Complex data are held as two separate Float64Arrays, `re` and `im`, in every
- * public function. Plans use fft.js (radix-4, power-of-two lengths) and, for
- * other lengths, Bluestein's chirp-z algorithm on a power-of-two fft.js plan:
+ * public function. Plans use fft.js's radix-4 transform for power-of-two
+ * lengths (run by radix4Forward below: fft.js's schedule, twiddles and
+ * arithmetic, the same numbers) and, for other lengths, Bluestein's chirp-z
+ * algorithm on a power-of-two fft.js plan:
  *   L. I. Bluestein, "A linear filtering approach to the computation of the
  *   discrete Fourier transform", IEEE Trans. Audio Electroacoust. 18 (1970)
  *   451–455; L. R. Rabiner, R. W. Schafer, C. M. Rader, "The chirp
