@@ -171,8 +171,7 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
   const norm2 = new Float64Array(count);
   let total = 0;
   for (let c = 0; c < count; c++) {
-    let s = 0;
-    for (let k = 0; k < 2 * m; k++) s += y[c * 2 * m + k]! ** 2;
+    const s = sumSquaresAt(y, c * 2 * m, 2 * m);
     norm2[c] = s;
     total += s;
   }
@@ -212,23 +211,32 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
     basis.push(q);
     for (let c = 0; c < count; c++) {
       if (norm2[c] === 0) continue;
-      const o = c * 2 * m;
-      let pr = 0, pi = 0;
-      for (let k = 0; k < m; k++) {
-        pr += q[2 * k]! * y[o + 2 * k]! + q[2 * k + 1]! * y[o + 2 * k + 1]!;
-        pi += q[2 * k]! * y[o + 2 * k + 1]! - q[2 * k + 1]! * y[o + 2 * k]!;
-      }
-      let s = 0;
-      for (let k = 0; k < m; k++) {
-        const r = y[o + 2 * k]! - (q[2 * k]! * pr - q[2 * k + 1]! * pi);
-        const i = y[o + 2 * k + 1]! - (q[2 * k]! * pi + q[2 * k + 1]! * pr);
-        y[o + 2 * k] = r;
-        y[o + 2 * k + 1] = i;
-        s += r * r + i * i;
-      }
-      norm2[c] = s;
+      norm2[c] = removeComponent(y, c * 2 * m, q, m);
     }
   }
+}
+
+/**
+ * y_c ← y_c − q·(q^H·y_c) for the column at y[o …] (length m, interleaved);
+ * returns its squared norm after. A function of its own: called once per
+ * column and basis vector, it is optimised early even in a fresh process
+ * (a loop in pivotedBasis would first run in the interpreter).
+ */
+function removeComponent(y: Float64Array, o: number, q: Float64Array, m: number): number {
+  let pr = 0, pi = 0;
+  for (let k = 0; k < m; k++) {
+    pr += q[2 * k]! * y[o + 2 * k]! + q[2 * k + 1]! * y[o + 2 * k + 1]!;
+    pi += q[2 * k]! * y[o + 2 * k + 1]! - q[2 * k + 1]! * y[o + 2 * k]!;
+  }
+  let s = 0;
+  for (let k = 0; k < m; k++) {
+    const r = y[o + 2 * k]! - (q[2 * k]! * pr - q[2 * k + 1]! * pi);
+    const i = y[o + 2 * k + 1]! - (q[2 * k]! * pi + q[2 * k + 1]! * pr);
+    y[o + 2 * k] = r;
+    y[o + 2 * k + 1] = i;
+    s += r * r + i * i;
+  }
+  return s;
 }
 
 /** coef[c·R + r] = basis_r^H · x_c for columns x_c (length m, interleaved) of `x`. */
@@ -971,17 +979,27 @@ function timeKeys(plan: EnginePlan, G: Float64Array, R: number, mass: Float64Arr
   }
   const K = keyDf.length;
   const E = scratchF64("E", 2 * ns * K), ey = scratchF64("ey", 2 * ns * K);
-  for (let k = 0; k < K; k++) {
-    for (let j = 0; j < ns; j++) {
-      const t = j * dwell, e = Math.exp(-t * keyR2[k]!), th = -TWO_PI * keyDf[k]! * t;
-      const o = 2 * (k * ns + j);
-      E[o] = e * Math.cos(th);
-      E[o + 1] = e * Math.sin(th);
-      ey[o] = E[o]! * keyW[k]!;
-      ey[o + 1] = E[o + 1]! * keyW[k]!;
-    }
-  }
+  for (let k = 0; k < K; k++) keyDecay(E, ey, 2 * k * ns, ns, dwell, keyR2[k]!, keyDf[k]!, keyW[k]!);
   return { keyOf, keyDf, keyR2, K, E, ey };
+}
+
+/** One key's decay exp(−t·R2)·exp(−i2π·Δf·t) at t = j·dwell into E[o …], times its weight w into ey[o …]. */
+function keyDecay(E: Float64Array, ey: Float64Array, o0: number, ns: number, dwell: number, r2: number, df: number, w: number): void {
+  for (let j = 0; j < ns; j++) {
+    const t = j * dwell, e = Math.exp(-t * r2), th = -TWO_PI * df * t;
+    const o = o0 + 2 * j;
+    E[o] = e * Math.cos(th);
+    E[o + 1] = e * Math.sin(th);
+    ey[o] = E[o]! * w;
+    ey[o + 1] = E[o + 1]! * w;
+  }
+}
+
+/** Σ y[o + k]² for k < n in index order (a function of its own: optimised early, see removeComponent). */
+function sumSquaresAt(y: Float64Array, o: number, n: number): number {
+  let s = 0;
+  for (let k = 0; k < n; k++) s += y[o + k]! ** 2;
+  return s;
 }
 
 /** Σ v[j]² in index order. */
