@@ -131,10 +131,13 @@ export function setPhaseHelper(f: (() => PhaseHelper | null) | null, minWork = P
  * Scratch arrays of a run kept for the next run on this thread (the
  * operator runs synchronously; nothing of them outlives a run): repeated runs
  * in one process (the previewer, the demo) then neither fault in new pages
- * nor leave large garbage. Arrays above SCRATCH_MAX values are not kept.
+ * nor leave large garbage. At most SCRATCH_MAX values (32 MB) are kept per
+ * thread in all: a long-lived process (a page's workers) holds no more than
+ * that after a large run.
  */
 const scratchPool = new Map<string, Float64Array>();
 const SCRATCH_MAX = 1 << 22;
+let scratchKept = 0;
 
 /** A zeroed array of n values: a view of the kept one for `slot` when it is large enough. */
 function scratchF64(slot: string, n: number): Float64Array {
@@ -145,7 +148,11 @@ function scratchF64(slot: string, n: number): Float64Array {
     return v;
   }
   const a = new Float64Array(n);
-  if (n <= SCRATCH_MAX) scratchPool.set(slot, a);
+  const freed = kept ? kept.length : 0;
+  if (scratchKept - freed + n <= SCRATCH_MAX) {
+    scratchPool.set(slot, a);
+    scratchKept += n - freed;
+  }
   return a;
 }
 
