@@ -24,11 +24,12 @@ import { writeRunFolder } from "../io/run-folder.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
 import type { CheckItem as ReportCheckItem, LogicalRect } from "../report/index.js";
 import { fatCentroid, truthFiles } from "./effects.js";
-import { displayTransform } from "../report/index.js";
+import { displayTransform, type PlotRenderer } from "../report/index.js";
 import { logicalAxes } from "../protocol/index.js";
 import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
 import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
+import { plotRenderer } from "./plots.js";
 
 export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling, type SliceRun };
 
@@ -195,6 +196,8 @@ export async function run(o: RunOptions): Promise<RunResult> {
     }
     return runShard(p, o, t0);
   }
+  // report.html's plots on a worker thread: it loads vega while the run samples and simulates
+  const plots = plotRenderer(o.workers ?? defaultWorkers());
   const input = libraryInput(o);
   let progress: Progress | null = null;
   let current = -1;
@@ -214,7 +217,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   } finally {
     (progress as Progress | null)?.done();
   }
-  return write(o, r, t0);
+  return write(o, r, t0, plots);
 }
 
 /**
@@ -258,14 +261,14 @@ function checkOverlay(r: SimulateResult): { checks?: ReportCheckItem[]; folds?: 
 }
 
 /** Writes the run folder of a result (atomically): PNGs in display orientation, truth maps and coil files when asked. */
-async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunResult> {
+async function write(o: RunOptions, r: SimulateResult, t0: number, plots?: PlotRenderer): Promise<RunResult> {
   const p = r.protocol;
   const dRead = p.fov.read / p.matrix.read, dPhase = p.fov.phase / p.matrix.phase;
   const files = await writeRunFolder(o.out, {
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     ...checkOverlay(r),
-    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
+    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };

@@ -10,7 +10,7 @@ import { encodeNpy } from "./npy.js";
 import { encodeNifti1 } from "./nifti.js";
 import { encodeGrayPng, logMagnitude } from "./png.js";
 import { displayTransform, toDisplay, type DisplayTransform, type Vec3 } from "../report/display.js";
-import { runReportHtml, type CheckItem, type LogicalRect } from "../report/index.js";
+import { profilePlots, runReportHtml, type CheckItem, type LogicalRect, type PlotRenderer } from "../report/index.js";
 
 /** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
 export interface Volume {
@@ -36,6 +36,8 @@ export interface RunFolderInput {
   roi?: LogicalRect;
   folds?: LogicalRect[];
   checks?: CheckItem[];
+  /** Renders report.html's plots (default vega on this thread; the command line may hand them to a worker thread). */
+  plots?: PlotRenderer;
 }
 
 /** Logical axes (RAS+ unit vectors) from the columns of the voxel affine. */
@@ -80,11 +82,15 @@ function centralPlaneMagnitude(v: Volume, log: boolean): Float64Array {
 /** Writes the run folder atomically; resolves to the list of files written. */
 export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<string[]> {
   const stage = new OutputStage(dir);
+  let plots: Promise<{ title: string; svg: string }[]> | null = null;
   try {
-    stage.add("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
-    stage.add("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const t = displayTransform(axesFromAffine(r.affine));
     const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+    const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+    // the plots first: a renderer on another thread draws them while the files below are encoded
+    plots = profilePlots(t, grid, mag, r.plots);
+    stage.add("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
+    stage.add("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const png = encodeGrayPng(mag.values, mag.width, mag.height);
     stage.add("image.png", png.png);
     const kmag = toDisplay(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
@@ -107,12 +113,12 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
       report: r.report, display: t,
       image: { png: png.png, values: mag.values, width: mag.width, height: mag.height },
       kspace: { png: kpng, width: kmag.width, height: kmag.height },
-      grid: { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 },
-      fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
+      grid, plots, fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
     }));
     stage.commit();
     return stage.staged;
   } catch (e) {
+    plots?.catch(() => {}); // the error below is the one to report
     stage.abort();
     throw e;
   }

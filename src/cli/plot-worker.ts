@@ -1,0 +1,36 @@
+/**
+ * The thread that renders report.html's plots for the command line
+ * (cli/plots.ts): it loads vega and vega-lite as soon as it starts and draws
+ * one throw-away plot, so both are loaded and compiled by the time a run's
+ * image is ready; then it renders each request's specifications in order with
+ * the same function as the main thread (report/plots.ts), so the SVG is the
+ * same text.
+ */
+import { parentPort } from "node:worker_threads";
+import { lineSpec, vegaLiteSvg } from "../report/plots.js";
+
+export interface PlotRequest {
+  id: number;
+  specs: Record<string, unknown>[];
+}
+
+export type PlotReply = { id: number; svgs: string[] } | { id: number; error: string };
+
+const port = parentPort!;
+// warm-up: a profile of the size of a run's (256 points), rendered and dropped
+const points = Array.from({ length: 256 }, (_, i) => ({ x: i, y: Math.sin(i / 8) }));
+let queue: Promise<void> = vegaLiteSvg(lineSpec({ title: "warm-up", xTitle: "x", yTitle: "y", series: [{ name: "warm-up", points }] })).then(() => {}, () => {});
+
+port.on("message", (m: PlotRequest) => {
+  queue = queue.then(async () => {
+    let reply: PlotReply;
+    try {
+      const svgs: string[] = [];
+      for (const spec of m.specs) svgs.push(await vegaLiteSvg(spec));
+      reply = { id: m.id, svgs };
+    } catch (e) {
+      reply = { id: m.id, error: e instanceof Error ? e.message : String(e) };
+    }
+    port.postMessage(reply);
+  });
+});
