@@ -89,36 +89,37 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
     const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
     // the plots first: a renderer on another thread draws them while the files below are encoded
     plots = profilePlots(t, grid, mag, r.plots);
-    stage.add("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
-    stage.add("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
+    stage.addInBackground("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
+    stage.addInBackground("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const png = encodeGrayPng(mag.values, mag.width, mag.height);
-    stage.add("image.png", png.png);
+    stage.addInBackground("image.png", png.png);
     const kmag = toDisplay(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
     const kpng = encodeGrayPng(kmag.values, kmag.width, kmag.height, { percentile: 100 }).png;
-    stage.add("kspace.png", kpng);
+    stage.addInBackground("kspace.png", kpng);
     // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
     const n = r.image.slice * r.image.phase * r.image.read;
     const data = new Float32Array(n);
     for (let i = 0; i < n; i++) data[i] = Math.hypot(r.image.re[i]!, r.image.im[i]!);
-    stage.add("image.nii", encodeNifti1({
+    stage.addInBackground("image.nii", encodeNifti1({
       data, dims: [r.image.read, r.image.phase, r.image.slice], voxelMm: r.voxelMm, affine: r.affine,
       description: "isofold simulated magnitude image",
     }));
-    for (const [name, bytes] of r.extra ?? []) stage.add(name, bytes);
+    for (const [name, bytes] of r.extra ?? []) stage.addInBackground(name, bytes);
     (r.report as { window?: unknown }).window = { imagePng: { low: png.low, high: png.high } };
     const pngs = ["image.png", "kspace.png", ...[...(r.extra?.keys() ?? [])].filter((n) => n.endsWith(".png"))];
     r.report.display = displaySection(t, pngs);
-    stage.add("report.json", JSON.stringify(r.report, null, 2) + "\n");
-    stage.add("report.html", await runReportHtml({
+    stage.addInBackground("report.json", JSON.stringify(r.report, null, 2) + "\n");
+    stage.addInBackground("report.html", await runReportHtml({
       report: r.report, display: t,
       image: { png: png.png, values: mag.values, width: mag.width, height: mag.height },
       kspace: { png: kpng, width: kmag.width, height: kmag.height },
       grid, plots, fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
     }));
-    stage.commit();
+    await stage.commitAsync();
     return stage.staged;
   } catch (e) {
     plots?.catch(() => {}); // the error below is the one to report
+    await stage.settle();
     stage.abort();
     throw e;
   }
