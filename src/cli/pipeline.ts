@@ -21,7 +21,7 @@ import {
 } from "../api.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
-import { writeRunFolder } from "../io/run-folder.js";
+import { startRunFolderPlots, writeRunFolder } from "../io/run-folder.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
 import type { CheckItem as ReportCheckItem, LogicalRect } from "../report/index.js";
 import { fatCentroid, truthFiles } from "./effects.js";
@@ -30,7 +30,7 @@ import { logicalAxes } from "../protocol/index.js";
 import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
 import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
-import { plotRenderer } from "./plots.js";
+import { closePlotWorker, plotRenderer } from "./plots.js";
 
 export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling, type SliceRun };
 
@@ -197,9 +197,9 @@ export async function run(o: RunOptions): Promise<RunResult> {
     }
     return runShard(p, o, t0);
   }
-  // report.html's plots on a worker thread: it loads vega while the run samples and simulates
-  const plots = plotRenderer(o.workers ?? defaultWorkers());
   const input = libraryInput(o);
+  // report.html's plots on a worker thread: it loads vega while the run samples and simulates
+  const plots = plotRenderer(input.workers!);
   // the fast readout operator's helper thread (engine/fast-node.ts) starts now, so that it is up when the
   // engine gets there; below about 128² the operator runs without it (fast.ts PARALLEL_PHASE_WORK)
   const m = input.parsedProtocol!.matrix;
@@ -219,6 +219,9 @@ export async function run(o: RunOptions): Promise<RunResult> {
         progress!.update(e.done, e.total, e.isochromatTRs);
       },
     }));
+  } catch (e) {
+    if (plots) closePlotWorker();
+    throw e;
   } finally {
     (progress as Progress | null)?.done();
   }
@@ -269,11 +272,13 @@ function checkOverlay(r: SimulateResult): { checks?: ReportCheckItem[]; folds?: 
 async function write(o: RunOptions, r: SimulateResult, t0: number, plots?: PlotRenderer): Promise<RunResult> {
   const p = r.protocol;
   const dRead = p.fov.read / p.matrix.read, dPhase = p.fov.phase / p.matrix.phase;
+  // the plots go to their thread first, before the closed-form check and the files
+  const started = plots ? startRunFolderPlots(r, plots) : undefined;
   const files = await writeRunFolder(o.out, {
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     ...checkOverlay(r),
-    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots,
+    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };

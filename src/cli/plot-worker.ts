@@ -9,10 +9,8 @@
 import { parentPort } from "node:worker_threads";
 import { lineSpec, vegaLiteSvg } from "../report/plots.js";
 
-export interface PlotRequest {
-  id: number;
-  specs: Record<string, unknown>[];
-}
+/** Specifications to render, or `close`: end once everything under way is done (the thread then exits on its own). */
+export type PlotRequest = { id: number; specs: Record<string, unknown>[] } | { close: true };
 
 export type PlotReply = { id: number; svgs: string[] } | { id: number; error: string };
 
@@ -22,6 +20,10 @@ const points = Array.from({ length: 256 }, (_, i) => ({ x: i, y: Math.sin(i / 8)
 let queue: Promise<void> = vegaLiteSvg(lineSpec({ title: "warm-up", xTitle: "x", yTitle: "y", series: [{ name: "warm-up", points }] })).then(() => {}, () => {});
 
 port.on("message", (m: PlotRequest) => {
+  if ("close" in m) {
+    void queue.then(() => port.close());
+    return;
+  }
   queue = queue.then(async () => {
     let reply: PlotReply;
     try {

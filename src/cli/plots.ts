@@ -29,6 +29,22 @@ function stop(w: Worker, e: Error): void {
 }
 
 /**
+ * Asks the plot worker to end once it is idle and lets the process wait for
+ * that (a run that failed: the thread may still be loading vega, and a
+ * thread stopped mid-compilation can take the process down, see
+ * engine/pool.ts close()). The next run starts a new one.
+ */
+export function closePlotWorker(): void {
+  const w = worker;
+  if (!w) return;
+  worker = null;
+  for (const p of pending.values()) p.reject(new Error("plot worker closed"));
+  pending.clear();
+  w.ref();
+  w.postMessage({ close: true } satisfies PlotRequest);
+}
+
+/**
  * The plot renderer of this process's plot worker, started now if it is not
  * running; undefined where plots are better rendered on this thread (fewer
  * than two cores, `threads` < 2, the worker failed before, or the TypeScript

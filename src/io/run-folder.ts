@@ -38,6 +38,24 @@ export interface RunFolderInput {
   checks?: CheckItem[];
   /** Renders report.html's plots (default vega on this thread; the command line may hand them to a worker thread). */
   plots?: PlotRenderer;
+  /** The picture and plots already under way ({@link startRunFolderPlots}), instead of starting them here. */
+  started?: StartedPlots;
+}
+
+/** The magnitude picture in display order and report.html's plots of it, under way. */
+export interface StartedPlots {
+  mag: { values: Float64Array; width: number; height: number };
+  plots: Promise<{ title: string; svg: string }[]>;
+}
+
+/** Starts report.html's plots of a result (e.g. on a renderer of another thread, before the rest of the folder is made). */
+export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
+  const t = displayTransform(axesFromAffine(r.affine));
+  const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+  const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+  const plots = profilePlots(t, grid, mag, render);
+  plots.catch(() => {}); // awaited (and reported) by writeRunFolder
+  return { mag, plots };
 }
 
 /** Logical axes (RAS+ unit vectors) from the columns of the voxel affine. */
@@ -85,10 +103,11 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
   let plots: Promise<{ title: string; svg: string }[]> | null = null;
   try {
     const t = displayTransform(axesFromAffine(r.affine));
-    const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
     const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
     // the plots first: a renderer on another thread draws them while the files below are encoded
-    plots = profilePlots(t, grid, mag, r.plots);
+    const started = r.started ?? startRunFolderPlots(r, r.plots);
+    const mag = started.mag;
+    plots = started.plots;
     stage.addInBackground("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
     stage.addInBackground("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const png = encodeGrayPng(mag.values, mag.width, mag.height);
