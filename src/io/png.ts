@@ -24,6 +24,7 @@ export const LOG_MAGNITUDE_FLOOR = 1e-3;
  */
 export function percentile(values: ArrayLike<number>, p: number): number {
   if (!(p >= 0 && p <= 100)) throw new RangeError(`percentile must be in 0..100, got ${p}`);
+  if (p === 100) return largestFinite(values);
   const finite = new Float64Array(values.length);
   let n = 0;
   for (let i = 0; i < values.length; i++) {
@@ -41,6 +42,18 @@ export function percentile(values: ArrayLike<number>, p: number): number {
   for (let i = lo + 2; i < n; i++) if (v[i]! < b) b = v[i]!;
   b = signedZero(v, lo + 1, b);
   return a + (h - lo) * (b - a);
+}
+
+/** The 100th percentile without a copy: the largest finite value, +0 over −0 as in the sorted copy; NaN if none. */
+function largestFinite(values: ArrayLike<number>): number {
+  let m = -Infinity, any = false;
+  for (let i = 0; i < values.length; i++) {
+    const x = values[i]!;
+    if (!Number.isFinite(x)) continue;
+    if (!any || x > m || (x === 0 && m === 0 && 1 / x > 0)) m = x;
+    any = true;
+  }
+  return any ? m : NaN;
 }
 
 /** Largest value (± 0 alike). */

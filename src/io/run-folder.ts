@@ -9,7 +9,7 @@ import { OutputStage } from "./atomic.js";
 import { encodeNpy } from "./npy.js";
 import { encodeNifti1 } from "./nifti.js";
 import { encodeGrayPng, logMagnitude } from "./png.js";
-import { displayTransform, toDisplay, type DisplayTransform, type Vec3 } from "../report/display.js";
+import { displayTransform, toDisplayInPlace, type DisplayTransform, type Vec3 } from "../report/display.js";
 import { profilePlots, runReportHtml, type CheckItem, type LogicalRect, type PlotRenderer } from "../report/index.js";
 
 /** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
@@ -51,7 +51,7 @@ export interface StartedPlots {
 /** Starts report.html's plots of a result (e.g. on a renderer of another thread, before the rest of the folder is made). */
 export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
   const t = displayTransform(axesFromAffine(r.affine));
-  const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+  const mag = toDisplayInPlace(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
   const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
   const plots = profilePlots(t, grid, mag, render);
   plots.catch(() => {}); // awaited (and reported) by writeRunFolder
@@ -112,7 +112,7 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
     stage.addInBackground("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const png = encodeGrayPng(mag.values, mag.width, mag.height);
     stage.addInBackground("image.png", png.png);
-    const kmag = toDisplay(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
+    const kmag = toDisplayInPlace(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
     const kpng = encodeGrayPng(kmag.values, kmag.width, kmag.height, { percentile: 100 }).png;
     stage.addInBackground("kspace.png", kpng);
     // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
