@@ -1,13 +1,12 @@
 /**
  * The thread that renders report.html's plots for the command line
- * (cli/plots.ts): it loads vega and vega-lite as soon as it starts and draws
- * one throw-away plot, so both are loaded and compiled by the time a run's
- * image is ready; then it renders each request's specifications in order with
- * the same function as the main thread (report/plots.ts), so the SVG is the
- * same text.
+ * (cli/plots.ts): it loads vega and vega-lite as soon as it starts, so both
+ * are loaded by the time a run's image is ready; then it renders each
+ * request's specifications in order with the same function as the main
+ * thread (report/plots.ts), so the SVG is the same text.
  */
 import { parentPort } from "node:worker_threads";
-import { lineSpec, vegaLiteSvg } from "../report/plots.js";
+import { loadPlotLibraries, vegaLiteSvg } from "../report/plots.js";
 
 /** Specifications to render, or `close`: end once everything under way is done (the thread then exits on its own). */
 export type PlotRequest = { id: number; specs: Record<string, unknown>[] } | { close: true };
@@ -15,9 +14,9 @@ export type PlotRequest = { id: number; specs: Record<string, unknown>[] } | { c
 export type PlotReply = { id: number; svgs: string[] } | { id: number; error: string };
 
 const port = parentPort!;
-// warm-up: a profile of the size of a run's (256 points), rendered and dropped
-const points = Array.from({ length: 256 }, (_, i) => ({ x: i, y: Math.sin(i / 8) }));
-let queue: Promise<void> = vegaLiteSvg(lineSpec({ title: "warm-up", xTitle: "x", yTitle: "y", series: [{ name: "warm-up", points }] })).then(() => {}, () => {});
+// vega and vega-lite load now, while the run samples and simulates (no throw-away plot: on a busy
+// machine its compilation costs more than it saves)
+let queue: Promise<void> = loadPlotLibraries().then(() => {}, () => {});
 
 port.on("message", (m: PlotRequest) => {
   if ("close" in m) {

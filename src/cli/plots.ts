@@ -1,8 +1,9 @@
 /**
  * report.html's plots on a worker thread (cli/plot-worker.ts). Rendering them
  * with vega costs about half a second of a fresh process (loading vega and
- * vega-lite, then compiling their code); the worker does it on another core
- * while the run samples the phantom and runs the engine. One worker per
+ * vega-lite, then compiling their code); the worker loads them on another
+ * core while the run samples the phantom and runs the engine, and draws the
+ * plots while the run writes its other files. One worker per
  * process, started by the first run that asks and kept for later runs
  * (unref'd while idle: it never keeps the process alive). Where it cannot
  * help (one core) or fails, the plots are rendered on this thread by the same
