@@ -11,7 +11,8 @@
  * fast readout operator against the direct one: the 128² demo in-process
  * after warm-up (default and preview quality), the 256² torso gre-t1-3t with
  * default options (time, peak RSS; the direct case once) and the throughput
- * of the 256² disc.
+ * of the 256² disc: the whole run() in a fresh process (module loading
+ * excluded) and the same run() in-process after warm-up runs.
  * Dataset rows (issue 13 targets): one 128² torso dataset case (gre-t1-3t,
  * default options, 2 workers) with 1 coil and with 8 coils, each through the
  * CLI in a fresh process, and the cases per hour of a 1000-case 128²
@@ -19,7 +20,8 @@
  * (BENCH_DATASET_CASES cases, default 3, with seeded perturbations);
  * BENCH_ONLY=dataset for these rows alone, BENCH_DATASET=0 to skip them.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
- * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone,
+ * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone
+ * (BENCH_ONLY=disc for the two disc rows alone),
  * BENCH_DIRECT=0 to skip the 256² direct run, BENCH_DISC=0 to skip the disc
  * throughput row, BENCH_TORSO_READOUT=auto|fast|direct for the 256² torso's
  * operator (default auto, the default of the CLI). Benchmarks are never tests.
@@ -125,18 +127,23 @@ interface E2E {
   readout?: "auto" | "fast" | "direct"; t2prime?: number;
 }
 
+/** The run() options of an end-to-end case writing to `out`. */
+function e2eOptions(c: E2E, out: string) {
+  return {
+    phantom: c.phantom, protocol: c.protocol, sets: [`matrix.read=${c.matrix}`, `matrix.phase=${c.matrix}`], out, seed: 1, quiet: true,
+    // no T2′ spread: the engine target counts 2×2 in-plane × 16 through-slice isochromats per voxel
+    iso: { density: c.density, sliceCount: c.slice, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: c.t2prime ?? 1, offsetHz: 0 }, workers: c.workers,
+    readout: c.readout ?? "fast",
+  };
+}
+
 /** Child mode: one run() in this fresh process; prints JSON. */
 async function e2eChild(c: E2E): Promise<void> {
   const { run } = await import("../src/cli/pipeline.js");
   const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
   try {
     const t = performance.now();
-    const r = await run({
-      phantom: c.phantom, protocol: c.protocol, sets: [`matrix.read=${c.matrix}`, `matrix.phase=${c.matrix}`], out, seed: 1, quiet: true,
-      // no T2′ spread: the engine target counts 2×2 in-plane × 16 through-slice isochromats per voxel
-      iso: { density: c.density, sliceCount: c.slice, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: c.t2prime ?? 1, offsetHz: 0 }, workers: c.workers,
-      readout: c.readout ?? "fast",
-    });
+    const r = await run(e2eOptions(c, out));
     const seconds = (performance.now() - t) / 1000;
     const iso = (r.report["isochromats"] as { count: number; columns: number }).count;
     const columns = (r.report["isochromats"] as { count: number; columns: number }).columns;
@@ -208,6 +215,39 @@ async function demoInProcess(iso: { density: number; sliceCount: number; t2prime
   }
 }
 
+/**
+ * The same whole run() as an end-to-end case, in this process after warm-up
+ * runs (module loading, V8's compilation and the kept helper threads out of
+ * the timing, as in the demo rows): median seconds of `runs`, each into a
+ * fresh folder.
+ */
+async function e2eInProcess(c: E2E, runs: number): Promise<{ seconds: number; iso: number; readout: unknown }> {
+  const { run } = await import("../src/cli/pipeline.js");
+  const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-"));
+  try {
+    let iso = 0, readout: unknown = null;
+    const once = async (k: number) => {
+      const out = join(tmp, `run-${k}`);
+      const t = performance.now();
+      const r = await run({ ...e2eOptions(c, out), keepWarnings: true });
+      const s = (performance.now() - t) / 1000;
+      iso = (r.report["isochromats"] as { count: number }).count;
+      readout = (r.report["engine"] as { readout: unknown }).readout;
+      rmSync(out, { recursive: true, force: true });
+      return s;
+    };
+    for (let k = 0; k < 3; k++) await once(k); // warm-up
+    const ts: number[] = [];
+    for (let k = 0; k < runs; k++) ts.push(await once(3 + k));
+    return { seconds: median(ts), iso, readout };
+  } finally {
+    rmSync(tmp, { recursive: true, force: true });
+  }
+}
+
+/** Runs of the warm in-process disc row (a run takes 0.2–1 s). */
+const DISC_WARM_RUNS = 7;
+
 /** Runs per demo row: a run takes 0.1–0.8 s, and medians of 5 swung by ±25 % on a shared 2-core machine. */
 const DEMO_RUNS = 15;
 
@@ -243,14 +283,30 @@ async function fastRows(runs: number): Promise<void> {
   console.log("| --- | --- | --- | --- | --- | --- |");
   for (const r of autoRows) console.log(r);
   if (process.env["BENCH_DISC"] === "0") return;
-  // whole-simulation throughput of the 256² disc: in-plane isochromats × readout samples / wall time
+  await discRows(runs, false);
+}
+
+/** Whole-simulation throughput of the 256² disc (in a fresh process, and warm in-process); `header` prints the table head (BENCH_ONLY=disc). */
+async function discRows(runs: number, header: boolean): Promise<void> {
+  if (header) {
+    console.log("");
+    console.log("| fast readout operator | isochromats | fast | direct | ratio | readout |");
+    console.log("| --- | --- | --- | --- | --- | --- |");
+  }
+  // throughput: in-plane isochromats × readout samples / wall time
   const disc: E2E = { phantom: "phantoms/disc.json", protocol: "gre-t1-3t", matrix: 256, density: 2, slice: 16, workers: 2 };
   const df = e2e({ ...disc, readout: "fast" }, runs);
   const samples = 256 * 512; // 256 lines × 512 samples (read oversampling 2)
   const inPlane = df.iso / 16;
   console.log(
-    `| 256² disc GRE, 2×2 in-plane × 16 through-slice, whole run (2 workers), throughput = in-plane isochromats × readout samples / wall time | ${df.iso.toLocaleString("en")} (${Math.round(inPlane).toLocaleString("en")} in-plane) | ` +
+    `| 256² disc GRE, 2×2 in-plane × 16 through-slice, whole run() in a fresh process (from the call: module loading excluded; median of ${runs}; 2 workers), throughput = in-plane isochromats × readout samples / wall time | ${df.iso.toLocaleString("en")} (${Math.round(inPlane).toLocaleString("en")} in-plane) | ` +
       `${df.seconds.toFixed(2)} s: ${g((inPlane * samples) / df.seconds)} iso-samples/s (all isochromats: ${g((df.iso * samples) / df.seconds)}) | — | — | ${readoutNote(df.readout)} |`,
+  );
+  // the same whole run() in-process after 3 warm-up runs (no process start, module loading or compilation)
+  const dw = await e2eInProcess({ ...disc, readout: "fast" }, DISC_WARM_RUNS);
+  console.log(
+    `| 256² disc GRE, the same whole run() in-process, warm (after 3 runs in this process; median of ${DISC_WARM_RUNS}), throughput as above | ${dw.iso.toLocaleString("en")} (${Math.round(dw.iso / 16).toLocaleString("en")} in-plane) | ` +
+      `${dw.seconds.toFixed(2)} s: ${g(((dw.iso / 16) * samples) / dw.seconds)} iso-samples/s (all isochromats: ${g((dw.iso * samples) / dw.seconds)}) | — | — | ${readoutNote(dw.readout)} |`,
   );
 }
 
@@ -351,6 +407,10 @@ async function main(): Promise<void> {
   const runs = Number(process.env["BENCH_RUNS"] ?? 3);
   if (process.env["BENCH_ONLY"] === "fast") {
     await fastRows(runs);
+    return;
+  }
+  if (process.env["BENCH_ONLY"] === "disc") {
+    await discRows(runs, true);
     return;
   }
   if (process.env["BENCH_ONLY"] === "dataset") {

@@ -408,6 +408,8 @@ export function reconstructRuns(seqs: Sequence[], kspaces: KSpace[]): { kspace: 
     iParts.push(reconstructGrid(grid, s.grid, s.image));
   });
   const stack = (parts: ComplexVolume[]): Volume => {
+    // one run (a single slice or slab): its arrays, made here, as they are
+    if (parts.length === 1) return { coils: 1, slice: parts[0]!.slice, phase: parts[0]!.phase, read: parts[0]!.read, re: parts[0]!.re, im: parts[0]!.im };
     const per = parts[0]!.re.length;
     const re = new Float64Array(per * parts.length), im = new Float64Array(per * parts.length);
     parts.forEach((v, k) => {

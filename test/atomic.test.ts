@@ -1,5 +1,5 @@
 import { afterEach, beforeEach, describe, expect, it } from "vitest";
-import { existsSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { existsSync, mkdirSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { OutputStage, writeFileAtomic } from "../src/io/atomic.js";
@@ -42,6 +42,37 @@ describe("OutputStage", () => {
     expect(readFileSync(join(dir, "report.json"), "utf8")).toBe('{"a":1}');
     expect(Array.from(readFileSync(join(dir, "image.npy")))).toEqual([9, 8]);
     expect(readdirSync(join(root, "out"))).toEqual(["run1"]);
+  });
+
+  it("OutputStage.addInBackground publishes nothing until commitAsync, then the same bytes; a name added again keeps its last data", async () => {
+    const dir = join(root, "out", "run1");
+    const stage = new OutputStage(dir);
+    const big = Uint8Array.from({ length: 300_000 }, (_, i) => (i * 7) & 0xff);
+    stage.addInBackground("report.json", '{"a":1}');
+    stage.addInBackground("big.npy", big);
+    stage.addInBackground("x.txt", "first");
+    stage.addInBackground("x.txt", "second");
+    expect(existsSync(dir)).toBe(false);
+    const written = await stage.commitAsync();
+    expect(written).toEqual([join(dir, "report.json"), join(dir, "big.npy"), join(dir, "x.txt")]);
+    expect(readFileSync(join(dir, "report.json"), "utf8")).toBe('{"a":1}');
+    expect(Buffer.compare(readFileSync(join(dir, "big.npy")), Buffer.from(big))).toBe(0);
+    expect(readFileSync(join(dir, "x.txt"), "utf8")).toBe("second");
+    expect(readdirSync(join(root, "out"))).toEqual(["run1"]);
+  });
+
+  it("OutputStage.commitAsync rejects and publishes nothing when a background write fails; settle then abort leaves nothing", async () => {
+    const dir = join(root, "run");
+    const stage = new OutputStage(dir);
+    mkdirSync(stage.tempPath("a.txt")); // a directory where the file should go: its write fails
+    stage.addInBackground("a.txt", "a");
+    stage.addInBackground("b.txt", "b");
+    await expect(stage.commitAsync()).rejects.toThrow();
+    expect(existsSync(dir)).toBe(false);
+    await stage.settle();
+    stage.abort();
+    expect(existsSync(dir)).toBe(false);
+    expect(readdirSync(stage.stagingDir)).toEqual(["a.txt"]); // b.txt removed; the directory made above is not the stage's to remove
   });
 
   it("OutputStage.commit replaces an older file of the same name and keeps other files", () => {

@@ -13,7 +13,7 @@ import { join, resolve } from "node:path";
 import { describe, expect, it } from "vitest";
 import { PNG } from "pngjs";
 import { decodeNpy, type ComplexData } from "../src/io/npy.js";
-import { displayPoint, displayTransform, toDisplay, type Vec3 } from "../src/report/display.js";
+import { displayPoint, displayTransform, toDisplay, toDisplayInPlace, type Vec3 } from "../src/report/display.js";
 import { logicalAxes } from "../src/protocol/index.js";
 import { tempDir, writeJson } from "./helpers.js";
 
@@ -49,6 +49,19 @@ describe("displayTransform", () => {
     expect(t.letters.top).toMatch(/^A[SI]$/);
     expect(t.letters.bottom).toMatch(/^P[SI]$/);
     expect(t.letters.top[1]).not.toBe(t.letters.bottom[1]);
+  });
+
+  it("toDisplayInPlace gives toDisplay's values, width and height for every transpose and flip (odd and even sizes)", () => {
+    for (const [nRead, nPhase] of [[5, 3], [4, 6], [1, 7], [6, 1]] as const) {
+      const plane = Float64Array.from({ length: nRead * nPhase }, (_, i) => i * 1.5 - 7);
+      for (let m = 0; m < 8; m++) {
+        const t = { transpose: (m & 1) !== 0, flipRows: (m & 2) !== 0, flipCols: (m & 4) !== 0 };
+        const want = toDisplay(t, plane, nRead, nPhase);
+        const got = toDisplayInPlace(t, Float64Array.from(plane), nRead, nPhase);
+        expect([got.width, got.height]).toEqual([want.width, want.height]);
+        expect(Array.from(got.values)).toEqual(Array.from(want.values));
+      }
+    }
   });
 
   it("toDisplay puts array element (phase p, read r) at the display pixel displayPoint gives for its position", () => {

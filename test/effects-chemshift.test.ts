@@ -5,7 +5,7 @@
  */
 import { describe, expect, test } from "vitest";
 import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../src/constants.js";
-import { measureFatShift, predictFatShift, ppmToHz } from "../src/analysis/index.js";
+import { hasWaterAndFat, measureFatShift, predictFatShift, ppmToHz } from "../src/analysis/index.js";
 import { hypot2 } from "../src/analysis/fatshift.js";
 import { parseProtocolObject } from "../src/protocol/index.js";
 import { buildSequence } from "../src/sequence/index.js";
@@ -190,5 +190,27 @@ describe("the measurement's two-argument hypot", () => {
       if (!Object.is(hypot2(x, y), Math.hypot(x, y))) bad++;
     }
     expect(bad).toBe(0);
+  });
+});
+
+describe("fat-shift measurement inputs", () => {
+  test("hasWaterAndFat is true exactly where measureFatShift measures (it returns null when a region is empty)", () => {
+    // oracle: measureFatShift itself on 8×8 maps of water only, fat only, both, none, with NaN fat fractions and zero PD
+    const n = 8;
+    const cases: [string, (i: number) => [number, number]][] = [
+      ["empty", () => [0, 0]],
+      ["water only", (i) => [i % 3 === 0 ? 1 : 0, 0.2]],
+      ["fat only", (i) => [i % 5 === 0 ? 0.8 : 0, 0.9]],
+      ["both", (i) => (i < 20 ? [1, 0] : i > 40 ? [0.9, 1] : [0, 0])],
+      ["fat only where PD is zero", (i) => (i < 20 ? [1, 0.1] : [0, 1])],
+      ["NaN fat fraction counts as water", (i) => (i < 10 ? [1, NaN] : i > 50 ? [1, 0.7] : [0, 0])],
+    ];
+    for (const [name, f] of cases) {
+      const pd = new Float64Array(n * n), ff = new Float64Array(n * n), mag = new Float64Array(n * n);
+      for (let i = 0; i < n * n; i++) [pd[i], ff[i]] = f(i);
+      for (let i = 0; i < n * n; i++) mag[i] = pd[i]!;
+      const measured = measureFatShift(mag, pd, ff, n, n, 1e-3, 1e-3, 2);
+      expect(hasWaterAndFat(pd, ff), name).toBe(measured !== null);
+    }
   });
 });

@@ -11,7 +11,7 @@ import { GAMMA, GAMMA_BAR } from "../src/constants.js";
 import { prepare } from "../src/cli/pipeline.js";
 import {
   BLOCK_CHUNKS, ChunkScratch, blockCount, f64Words, makePlan, readoutRecurrence, receiverFilter, runChunk,
-  PARALLEL_RF_CLASSES, readoutRecurrenceFast, rfAffine, rfAffineMany, wasmRfKernel, shardBlocks, simulateParallel, simulateSerial, TupleIndex, wasmKernel,
+  PARALLEL_RF_CLASSES, readoutRecurrenceFast, rfAffine, rfAffineMany, wasmRfKernel, serialExecutor, shardBlocks, simulateParallel, simulateSerial, simulateWith, TupleIndex, wasmKernel,
 } from "../src/engine/node.js";
 import { defaultIsochromatOptions, type IsochromatSet } from "../src/isochromats/index.js";
 import type { Sequence } from "../src/sequence/types.js";
@@ -285,6 +285,18 @@ describe("summation order and shards", () => {
       expect(Buffer.from(kspace.im.buffer).equals(Buffer.from(serial.im.buffer))).toBe(true);
     }
   }, 60_000);
+
+  test("a single chunk summed in place by the serial run gives bitwise the block-order sum of the serial executor", async () => {
+    const p = smallCase(["matrix.read=32", "matrix.phase=32"]);
+    const one = simulateSerial(p.seq, p.iso, { receiverFilter: true, readout: "direct" });
+    expect(one.plan.chunks).toBe(1);
+    const blocks: number[] = [];
+    const viaSummer = await simulateWith(serialExecutor(), p.seq, p.iso, { receiverFilter: true, readout: "direct", onBlock: (b) => blocks.push(b) });
+    expect(blocks).toEqual([0]);
+    expect(one.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(Buffer.from(one.kspace.re.buffer).equals(Buffer.from(viaSummer.kspace.re.buffer))).toBe(true);
+    expect(Buffer.from(one.kspace.im.buffer).equals(Buffer.from(viaSummer.kspace.im.buffer))).toBe(true);
+  });
 
   test("the worker pool with 1, 2 and 3 workers gives bitwise the serial k-space", async () => {
     const p = smallCase(["matrix.read=32", "matrix.phase=32"]);

@@ -28,6 +28,34 @@ describe("percentile", () => {
     expect(percentile([], 50)).toBeNaN();
   });
 
+  it("percentile by selection gives bitwise the value of the sorted-copy definition (duplicates, ±0, NaN, ±∞)", () => {
+    // oracle: the definition itself, on a copy sorted by TypedArray sort (−0 before +0)
+    const bySort = (v: number[], p: number) => {
+      const s = Float64Array.from(v.filter(Number.isFinite)).sort();
+      if (s.length === 0) return NaN;
+      const h = ((s.length - 1) * p) / 100, lo = Math.floor(h);
+      return lo >= s.length - 1 ? s[s.length - 1]! : s[lo]! + (h - lo) * (s[lo + 1]! - s[lo]!);
+    };
+    let seed = 7;
+    const rand = () => ((seed = (seed * 1103515245 + 12345) % 2 ** 31) / 2 ** 31);
+    const pool = [0, -0, 1, -1, 2.5, 1e-300, -3, NaN, Infinity, -Infinity];
+    let checked = 0;
+    for (let n = 1; n <= 40; n++) {
+      for (let rep = 0; rep < 6; rep++) {
+        const v = Array.from({ length: n }, () => (rand() < 0.5 ? pool[Math.floor(rand() * pool.length)]! : Math.round(rand() * 20) / 4 - 2));
+        for (const p of [0, 0.3, 25, 50, 99.5, 100]) {
+          const want = bySort(v, p), got = percentile(v, p);
+          if (!Object.is(got, want)) throw new Error(`percentile(${JSON.stringify(v.map(String))}, ${p}) = ${got}, sorted copy gives ${want}`);
+          checked++;
+        }
+      }
+    }
+    expect(checked).toBe(40 * 6 * 6);
+    // zeros of mixed sign: the largest of [−0, +0, −0] is +0, of [−0, −0] it is −0, as in the sorted copy
+    expect(Object.is(percentile([-0, 0, -0], 100), 0)).toBe(true);
+    expect(Object.is(percentile([-0, -0], 100), -0)).toBe(true);
+  });
+
   it("percentile does not modify its input", () => {
     const v = Float64Array.from([5, 4, 3]);
     percentile(v, 50);

@@ -42,3 +42,29 @@ describe("renderReportHtml", () => {
     expect(html).toMatch(/class="scalebar" data-mm="20" style="width:64\.0px"/); // 20 mm / 2.5 mm per px × 8
   });
 });
+
+describe("report plots on the command line's plot worker", () => {
+  it("the plot worker (compiled build) draws the same SVG text as vega on this thread, request after request", async () => {
+    const { availableParallelism } = await import("node:os");
+    const { lineSpec } = await import("../src/report/plots.js");
+    const { renderPlots } = await import("../src/report/run-report.js");
+    // the worker script runs compiled (dist/), as the command line runs it
+    const built = "../dist/src/cli/plots.js";
+    const { plotRenderer } = (await import(built)) as { plotRenderer: (threads: number) => ((specs: Record<string, unknown>[]) => Promise<string[]>) | undefined };
+    const render = plotRenderer(2);
+    if (availableParallelism() < 2) {
+      expect(render).toBeUndefined(); // one core: the command line draws on its own thread
+      return;
+    }
+    expect(render).toBeDefined();
+    const specs = (k: number) => [0, 1].map((j) => lineSpec({
+      title: `profile ${k}.${j}`, xTitle: "position (mm)", yTitle: "magnitude (a.u.)",
+      series: [{ name: "image", points: Array.from({ length: 40 + 7 * k + j }, (_, i) => ({ x: i - 20, y: Math.abs(Math.sin(i / (3 + j))) * (k + 1) })) }],
+    }));
+    for (const k of [0, 1]) {
+      const oracle = await renderPlots(specs(k));
+      expect(oracle[0]).toMatch(/^<svg/);
+      expect(await render!(specs(k))).toEqual(oracle);
+    }
+  }, 20_000);
+});

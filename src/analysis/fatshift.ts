@@ -199,6 +199,22 @@ export interface FineTruth {
   fatFraction: ArrayLike<number>;
 }
 
+/**
+ * Whether truth maps hold both regions {@link measureFatShift} needs: water
+ * (pd > 0, fat fraction < 0.5) and fat (pd > 0, fat fraction ≥ 0.5). Where
+ * either is empty it returns null, so a caller can skip preparing its inputs.
+ */
+export function hasWaterAndFat(pd: ArrayLike<number>, fatFraction: ArrayLike<number>): boolean {
+  let water = false, fat = false;
+  for (let i = 0; i < pd.length; i++) {
+    if (!(pd[i]! > 0)) continue;
+    if (fatFraction[i]! >= 0.5) fat = true;
+    else water = true;
+    if (water && fat) return true;
+  }
+  return false;
+}
+
 export function measureFatShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, fatFraction: ArrayLike<number>,
   nRead: number, nPhase: number, dx: number, dy: number, margin: number, fine?: FineTruth,

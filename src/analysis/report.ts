@@ -3,7 +3,7 @@
  * phase) and measured fat–water displacement, with the truth maps they used.
  * No file is read or written here.
  */
-import { predictProtocolFatShift, measureFatShift, multiPeakMeanPpm } from "./fatshift.js";
+import { predictProtocolFatShift, measureFatShift, multiPeakMeanPpm, hasWaterAndFat } from "./fatshift.js";
 import { truthMaps, type TruthMaps } from "./truth.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import type { Phantom } from "../phantom/index.js";
@@ -32,12 +32,14 @@ export function fatShiftReport(
   // a shift beyond a quarter of the matrix lets the fat image wrap or land on other objects: not measured
   const tooFar = Math.abs(main.readout.px) > nRead / 4 || Math.abs(main.phase.px) > nPhase / 4;
   const plane = mag.subarray(Math.floor(seq.image.slice / 2) * nRead * nPhase, (Math.floor(seq.image.slice / 2) + 1) * nRead * nPhase);
-  // a finer truth grid gives the measurement a band-limited template (see measureFatShift)
+  // a finer truth grid gives the measurement a band-limited template (see measureFatShift); it is
+  // sampled only where there is something to measure (with no water or no fat object the measurement is null)
   const factor = Math.max(1, Math.min(4, Math.floor(1024 / Math.max(nRead, nPhase))));
-  const fine = factor > 1
+  const measurable = !tooFar && hasWaterAndFat(truth.pd, truth.fatFraction);
+  const fine = measurable && factor > 1
     ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: 0 }, "pd-fat")
     : truth;
-  const measured = tooFar
+  const measured = !measurable
     ? null
     : measureFatShift(plane, truth.pd, truth.fatFraction, nRead, nPhase, dx, dy, margin, { factor, pd: fine.pd, fatFraction: fine.fatFraction });
   const side = (px: number | undefined, m: number | undefined) => (px === undefined ? null : { px, mm: (m ?? 0) * 1e3 });

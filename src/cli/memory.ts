@@ -7,7 +7,7 @@ import { MAX_CLASS_LINES } from "../engine/fast.js";
 import { MAX_STREAM_CLASSES } from "../engine/fast-stream.js";
 import { availableParallelism, totalmem } from "node:os";
 import { UserError } from "../errors.js";
-import { makeIsochromats, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
+import { sampleCells, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
 import type { Phantom } from "../phantom/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { chunkIsochromatsFromEnv } from "./options.js";
@@ -70,7 +70,8 @@ export function estimateIsochromats(ph: Phantom, geo: IsoGeometry, fieldT: numbe
 function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: IsochromatOptions, matrix: number): { count: number; columns: number; cells: number; extent: { read: [number, number]; phase: [number, number] } } {
   const f = Math.max(1, Math.ceil(matrix / 64));
   const sc = Math.min(iso.sliceCount, 4);
-  const coarse = makeIsochromats(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
+  // the cells alone: their count, columns and extent are those of the isochromats they expand to
+  const coarse = sampleCells(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
   // a voxel's T2′ spread of n values is shared among its density² columns in pairs where
   // n/2 is a whole multiple of density² (isochromats/spread.ts spreadAssignment); else every column carries all n
   const n = iso.t2primeIsochromats ?? 1, d2 = iso.density * iso.density, pairs = n >> 1;

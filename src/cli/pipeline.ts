@@ -13,6 +13,7 @@ import type { Sequence } from "../sequence/index.js";
 import { defaultIsochromatOptions, type IsochromatCells, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
 import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateCells, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
+import { nodePhaseHelper } from "../engine/fast-node.js";
 import {
   assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
   sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling,
@@ -20,15 +21,16 @@ import {
 } from "../api.js";
 import { checkMemory, defaultMemoryLimit, defaultWorkers, estimateMemory } from "./memory.js";
 import { inputHash, writePartial } from "./partial.js";
-import { writeRunFolder } from "../io/run-folder.js";
+import { startRunFolderPlots, writeRunFolder } from "../io/run-folder.js";
 import { checkProtocol, type CheckResult } from "../check/index.js";
 import type { CheckItem as ReportCheckItem, LogicalRect } from "../report/index.js";
 import { fatCentroid, truthFiles } from "./effects.js";
-import { displayTransform } from "../report/index.js";
+import { displayTransform, type PlotRenderer } from "../report/index.js";
 import { logicalAxes } from "../protocol/index.js";
 import { loadPhantom, loadProtocol, readRealNpy } from "./inputs.js";
 import { chunkIsochromatsFromEnv, wasmFromEnv } from "./options.js";
 import { Progress } from "./progress.js";
+import { closePlotWorker, plotRenderer } from "./plots.js";
 
 export { SAFETY_NOTE, isoOptionsFor, voxelAffine, readRealNpy, tissueReport, sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling, type SliceRun };
 
@@ -196,6 +198,12 @@ export async function run(o: RunOptions): Promise<RunResult> {
     return runShard(p, o, t0);
   }
   const input = libraryInput(o);
+  // report.html's plots on a worker thread: it loads vega while the run samples and simulates
+  const plots = plotRenderer(input.workers!);
+  // the fast readout operator's helper thread (engine/fast-node.ts) starts now, so that it is up when the
+  // engine gets there; below about 128² the operator runs without it (fast.ts PARALLEL_PHASE_WORK)
+  const m = input.parsedProtocol!.matrix;
+  if (o.readout !== "direct" && !o.coilRun && input.workers! >= 2 && m.read * m.phase >= 128 * 128) nodePhaseHelper();
   let progress: Progress | null = null;
   let current = -1;
   let r: SimulateResult;
@@ -211,10 +219,13 @@ export async function run(o: RunOptions): Promise<RunResult> {
         progress!.update(e.done, e.total, e.isochromatTRs);
       },
     }));
+  } catch (e) {
+    if (plots) closePlotWorker();
+    throw e;
   } finally {
     (progress as Progress | null)?.done();
   }
-  return write(o, r, t0);
+  return write(o, r, t0, plots);
 }
 
 /**
@@ -258,14 +269,16 @@ function checkOverlay(r: SimulateResult): { checks?: ReportCheckItem[]; folds?: 
 }
 
 /** Writes the run folder of a result (atomically): PNGs in display orientation, truth maps and coil files when asked. */
-async function write(o: RunOptions, r: SimulateResult, t0: number): Promise<RunResult> {
+async function write(o: RunOptions, r: SimulateResult, t0: number, plots?: PlotRenderer): Promise<RunResult> {
   const p = r.protocol;
   const dRead = p.fov.read / p.matrix.read, dPhase = p.fov.phase / p.matrix.phase;
+  // the plots go to their thread first, before the closed-form check and the files
+  const started = plots ? startRunFolderPlots(r, plots) : undefined;
   const files = await writeRunFolder(o.out, {
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     ...checkOverlay(r),
-    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report,
+    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };

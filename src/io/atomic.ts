@@ -15,6 +15,7 @@ import {
   unlinkSync,
   writeSync,
 } from "node:fs";
+import { open } from "node:fs/promises";
 import { basename, dirname, join, resolve } from "node:path";
 
 /** Writes all of `data` to an open descriptor and fsyncs it. */
@@ -56,6 +57,18 @@ function writeSynced(path: string, data: Uint8Array | string): void {
     writeAllAndSync(fd, data);
   } finally {
     closeSync(fd);
+  }
+}
+
+/** {@link writeSynced} on libuv's thread pool: the calling thread goes on while the bytes are written and flushed. */
+async function writeSyncedInBackground(path: string, bytes: Uint8Array): Promise<void> {
+  const fh = await open(path, "w", 0o644);
+  try {
+    let done = 0;
+    while (done < bytes.length) done += (await fh.write(bytes, done, bytes.length - done)).bytesWritten;
+    await fh.sync();
+  } finally {
+    await fh.close();
   }
 }
 
@@ -104,6 +117,8 @@ export class OutputStage {
   readonly stagingDir: string;
   private readonly names = new Set<string>();
   private state: "open" | "committed" | "aborted" = "open";
+  /** Writes under way on the thread pool ({@link addInBackground}), by name. */
+  private readonly writing = new Map<string, Promise<void>>();
 
   constructor(finalDir: string) {
     this.finalDir = finalDir;
@@ -146,6 +161,35 @@ export class OutputStage {
   add(name: string, data: Uint8Array | string): void {
     const tmp = this.tempPath(name);
     writeSynced(tmp, data);
+  }
+
+  /**
+   * Stages output `name` like {@link add}, but writes and flushes it on
+   * libuv's thread pool while this thread goes on; `data` must not change
+   * until {@link commitAsync} (or {@link settle}) resolves. A name added
+   * again is written after its earlier write.
+   */
+  addInBackground(name: string, data: Uint8Array | string): void {
+    const tmp = this.tempPath(name);
+    const bytes = typeof data === "string" ? Buffer.from(data, "utf8") : data;
+    const before = this.writing.get(name);
+    const p = (before ? before.then(() => {}, () => {}) : Promise.resolve()).then(() => writeSyncedInBackground(tmp, bytes));
+    p.catch(() => {}); // reported by commitAsync
+    this.writing.set(name, p);
+  }
+
+  /** Waits until every background write has finished or failed (call before {@link abort}, so none recreates a file). */
+  async settle(): Promise<void> {
+    await Promise.allSettled(this.writing.values());
+  }
+
+  /** {@link commit} once every background write has finished; rejects with the first write's error (nothing published). */
+  async commitAsync(): Promise<string[]> {
+    const writes = [...this.writing.values()];
+    await this.settle();
+    for (const w of writes) await w;
+    this.writing.clear();
+    return this.commit();
   }
 
   /**

@@ -17,11 +17,14 @@ export const LOG_MAGNITUDE_FLOOR = 1e-3;
  * v[⌊h⌋] + (h − ⌊h⌋)·(v[⌊h⌋+1] − v[⌊h⌋]) (definition 7 of R. J. Hyndman and
  * Y. Fan, "Sample quantiles in statistical packages", Am. Stat. 50 (1996)
  * 361–365; NumPy's default). NaN and ±∞ are ignored; NaN if none is left.
- * O(n log n) on a copy; the input is not modified.
+ * O(n) on a copy (selection, not a full sort: the same two order statistics
+ * as the sorted copy, −0 ordered before +0 as TypedArray sort does); the
+ * input is not modified.
  * @throws RangeError if p is outside 0..100.
  */
 export function percentile(values: ArrayLike<number>, p: number): number {
   if (!(p >= 0 && p <= 100)) throw new RangeError(`percentile must be in 0..100, got ${p}`);
+  if (p === 100) return largestFinite(values);
   const finite = new Float64Array(values.length);
   let n = 0;
   for (let i = 0; i < values.length; i++) {
@@ -29,11 +32,79 @@ export function percentile(values: ArrayLike<number>, p: number): number {
     if (Number.isFinite(x)) finite[n++] = x;
   }
   if (n === 0) return NaN;
-  const sorted = finite.subarray(0, n).sort();
+  const v = finite.subarray(0, n);
   const h = ((n - 1) * p) / 100;
   const lo = Math.floor(h);
-  if (lo >= n - 1) return sorted[n - 1]!;
-  return sorted[lo]! + (h - lo) * (sorted[lo + 1]! - sorted[lo]!);
+  if (lo >= n - 1) return signedZero(v, n - 1, largest(v));
+  const a = signedZero(v, lo, select(v, lo));
+  // after select, v[lo+1 …] holds the values at or above rank lo + 1: the next order statistic is their minimum
+  let b = v[lo + 1]!;
+  for (let i = lo + 2; i < n; i++) if (v[i]! < b) b = v[i]!;
+  b = signedZero(v, lo + 1, b);
+  return a + (h - lo) * (b - a);
+}
+
+/** The 100th percentile without a copy: the largest finite value, +0 over −0 as in the sorted copy; NaN if none. */
+function largestFinite(values: ArrayLike<number>): number {
+  let m = -Infinity, any = false;
+  for (let i = 0; i < values.length; i++) {
+    const x = values[i]!;
+    if (!Number.isFinite(x)) continue;
+    if (!any || x > m || (x === 0 && m === 0 && 1 / x > 0)) m = x;
+    any = true;
+  }
+  return any ? m : NaN;
+}
+
+/** Largest value (± 0 alike). */
+function largest(v: Float64Array): number {
+  let m = v[0]!;
+  for (let i = 1; i < v.length; i++) if (v[i]! > m) m = v[i]!;
+  return m;
+}
+
+/**
+ * Rearranges v so that v[k] holds the value of rank k (0-based, ascending)
+ * with every value before it ≤ and every value after it ≥ (Hoare's FIND,
+ * C. A. R. Hoare, Commun. ACM 4 (1961) 321, median-of-three pivots); returns
+ * v[k]. Zeros of either sign compare equal here (see {@link signedZero}).
+ */
+function select(v: Float64Array, k: number): number {
+  let l = 0, r = v.length - 1;
+  while (r > l) {
+    const m = (l + r) >>> 1;
+    // median of three as the pivot
+    let x = v[l]!, y = v[m]!, z = v[r]!;
+    if (y < x) { const t = x; x = y; y = t; }
+    if (z < y) { y = z < x ? x : z; }
+    const pivot = y;
+    let i = l, j = r;
+    while (i <= j) {
+      while (v[i]! < pivot) i++;
+      while (v[j]! > pivot) j--;
+      if (i <= j) {
+        const t = v[i]!; v[i] = v[j]!; v[j] = t;
+        i++;
+        j--;
+      }
+    }
+    if (k <= j) r = j;
+    else if (k >= i) l = i;
+    else break;
+  }
+  return v[k]!;
+}
+
+/** The value of rank k as TypedArray sort orders it: a zero there is −0 when rank k falls among the negative zeros. */
+function signedZero(v: Float64Array, k: number, x: number): number {
+  if (x !== 0) return x;
+  let neg = 0, negZero = 0;
+  for (let i = 0; i < v.length; i++) {
+    const y = v[i]!;
+    if (y < 0) neg++;
+    else if (y === 0 && 1 / y < 0) negZero++;
+  }
+  return k >= neg && k < neg + negZero ? -0 : 0;
 }
 
 /** Window options of {@link encodeGrayPng}. */

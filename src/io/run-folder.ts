@@ -9,8 +9,8 @@ import { OutputStage } from "./atomic.js";
 import { encodeNpy } from "./npy.js";
 import { encodeNifti1 } from "./nifti.js";
 import { encodeGrayPng, logMagnitude } from "./png.js";
-import { displayTransform, toDisplay, type DisplayTransform, type Vec3 } from "../report/display.js";
-import { runReportHtml, type CheckItem, type LogicalRect } from "../report/index.js";
+import { displayTransform, toDisplayInPlace, type DisplayTransform, type Vec3 } from "../report/display.js";
+import { profilePlots, runReportHtml, type CheckItem, type LogicalRect, type PlotRenderer } from "../report/index.js";
 
 /** A complex volume [coil][slice][phase][read] (row-major, read fastest), real and imaginary parts apart. */
 export interface Volume {
@@ -36,6 +36,26 @@ export interface RunFolderInput {
   roi?: LogicalRect;
   folds?: LogicalRect[];
   checks?: CheckItem[];
+  /** Renders report.html's plots (default vega on this thread; the command line may hand them to a worker thread). */
+  plots?: PlotRenderer;
+  /** The picture and plots already under way ({@link startRunFolderPlots}), instead of starting them here. */
+  started?: StartedPlots;
+}
+
+/** The magnitude picture in display order and report.html's plots of it, under way. */
+export interface StartedPlots {
+  mag: { values: Float64Array; width: number; height: number };
+  plots: Promise<{ title: string; svg: string }[]>;
+}
+
+/** Starts report.html's plots of a result (e.g. on a renderer of another thread, before the rest of the folder is made). */
+export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
+  const t = displayTransform(axesFromAffine(r.affine));
+  const mag = toDisplayInPlace(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+  const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+  const plots = profilePlots(t, grid, mag, render);
+  plots.catch(() => {}); // awaited (and reported) by writeRunFolder
+  return { mag, plots };
 }
 
 /** Logical axes (RAS+ unit vectors) from the columns of the voxel affine. */
@@ -80,39 +100,45 @@ function centralPlaneMagnitude(v: Volume, log: boolean): Float64Array {
 /** Writes the run folder atomically; resolves to the list of files written. */
 export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<string[]> {
   const stage = new OutputStage(dir);
+  let plots: Promise<{ title: string; svg: string }[]> | null = null;
   try {
-    stage.add("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
-    stage.add("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const t = displayTransform(axesFromAffine(r.affine));
-    const mag = toDisplay(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+    const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+    // the plots first: a renderer on another thread draws them while the files below are encoded
+    const started = r.started ?? startRunFolderPlots(r, r.plots);
+    const mag = started.mag;
+    plots = started.plots;
+    stage.addInBackground("kspace.npy", encodeNpy({ dtype: "complex64", shape: shape(r.kspace), data: { re: r.kspace.re, im: r.kspace.im } }));
+    stage.addInBackground("image.npy", encodeNpy({ dtype: "complex64", shape: shape(r.image), data: { re: r.image.re, im: r.image.im } }));
     const png = encodeGrayPng(mag.values, mag.width, mag.height);
-    stage.add("image.png", png.png);
-    const kmag = toDisplay(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
+    stage.addInBackground("image.png", png.png);
+    const kmag = toDisplayInPlace(t, centralPlaneMagnitude(r.kspace, true), r.kspace.read, r.kspace.phase);
     const kpng = encodeGrayPng(kmag.values, kmag.width, kmag.height, { percentile: 100 }).png;
-    stage.add("kspace.png", kpng);
+    stage.addInBackground("kspace.png", kpng);
     // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
     const n = r.image.slice * r.image.phase * r.image.read;
     const data = new Float32Array(n);
     for (let i = 0; i < n; i++) data[i] = Math.hypot(r.image.re[i]!, r.image.im[i]!);
-    stage.add("image.nii", encodeNifti1({
+    stage.addInBackground("image.nii", encodeNifti1({
       data, dims: [r.image.read, r.image.phase, r.image.slice], voxelMm: r.voxelMm, affine: r.affine,
       description: "isofold simulated magnitude image",
     }));
-    for (const [name, bytes] of r.extra ?? []) stage.add(name, bytes);
+    for (const [name, bytes] of r.extra ?? []) stage.addInBackground(name, bytes);
     (r.report as { window?: unknown }).window = { imagePng: { low: png.low, high: png.high } };
     const pngs = ["image.png", "kspace.png", ...[...(r.extra?.keys() ?? [])].filter((n) => n.endsWith(".png"))];
     r.report.display = displaySection(t, pngs);
-    stage.add("report.json", JSON.stringify(r.report, null, 2) + "\n");
-    stage.add("report.html", await runReportHtml({
+    stage.addInBackground("report.json", JSON.stringify(r.report, null, 2) + "\n");
+    stage.addInBackground("report.html", await runReportHtml({
       report: r.report, display: t,
       image: { png: png.png, values: mag.values, width: mag.width, height: mag.height },
       kspace: { png: kpng, width: kmag.width, height: kmag.height },
-      grid: { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 },
-      fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
+      grid, plots, fatCentroid: r.fatCentroid, roi: r.roi, folds: r.folds, checks: r.checks,
     }));
-    stage.commit();
+    await stage.commitAsync();
     return stage.staged;
   } catch (e) {
+    plots?.catch(() => {}); // the error below is the one to report
+    await stage.settle();
     stage.abort();
     throw e;
   }

@@ -358,24 +358,30 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   colStart.push(0);
   entStart.push(0);
   let at = 0;
+  // a slice-invariant phantom: the entries of a column's first cell, repeated at every w
+  const keptTissue = new Int32Array(cell.tissue.length), keptFrac = new Float64Array(cell.tissue.length);
   for (let a = 0; a < nu; a++) {
     const u = uGrid[a]!;
     for (let b = 0; b < nv; b++) {
       const v = vGrid[b]!;
       const startAt = at, startEnt = entW.n;
-      let cachedCount = -1;
       const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
+      let kept = 0, keptHere = 0;
       for (let c = 0; c < nw; c++) {
+        if (sliceInvariant && c > 0) {
+          for (let k = 0; k < kept; k++) {
+            entW.push(c);
+            entTissue.push(keptTissue[k]!);
+            entFrac.push(keptFrac[k]!);
+          }
+          at += keptHere;
+          continue;
+        }
         const w = wGrid[c]!;
         r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
         r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
         r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
-        let n: number;
-        if (sliceInvariant && cachedCount >= 0) n = cachedCount;
-        else {
-          n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
-          cachedCount = n;
-        }
+        const n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
         for (let k = 0; k < n; k++) {
           const ti = cell.tissue[k]!;
           const t = ph.tissues[ti]!;
@@ -391,6 +397,9 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
           entW.push(c);
           entTissue.push(ti);
           entFrac.push(cell.fraction[k]!);
+          keptTissue[kept] = ti;
+          keptFrac[kept++] = cell.fraction[k]!;
+          keptHere += here;
         }
       }
       if (at > startAt) {

@@ -128,6 +128,31 @@ export function toDisplay<T extends Float64Array | Int32Array>(
 }
 
 /**
+ * {@link toDisplay} of a plane the caller gives up: without a transpose the
+ * rows and columns are reversed in place (no new array), else a copy is made.
+ * The same values in the same order either way.
+ */
+export function toDisplayInPlace<T extends Float64Array | Int32Array>(
+  t: Pick<DisplayTransform, "transpose" | "flipRows" | "flipCols">, plane: T, nRead: number, nPhase: number,
+): { values: T; width: number; height: number } {
+  if (t.transpose) return toDisplay(t, plane, nRead, nPhase);
+  if (plane.length !== nRead * nPhase) throw new RangeError(`plane of ${nPhase}×${nRead} needs ${nRead * nPhase} values, got ${plane.length}`);
+  if (t.flipRows && t.flipCols) plane.reverse(); // display index k holds plane[n − 1 − k]
+  else if (t.flipRows) {
+    for (let r = 0, q = nPhase - 1; r < q; r++, q--) {
+      for (let c = 0; c < nRead; c++) {
+        const x = plane[r * nRead + c]!;
+        plane[r * nRead + c] = plane[q * nRead + c]!;
+        plane[q * nRead + c] = x;
+      }
+    }
+  } else if (t.flipCols) {
+    for (let r = 0; r < nPhase; r++) plane.subarray(r * nRead, (r + 1) * nRead).reverse();
+  }
+  return { values: plane, width: nRead, height: nPhase };
+}
+
+/**
  * Display pixel coordinate (continuous, pixel i covers [i, i+1)) of a logical
  * position: u along read and v along phase in metres, with index n of N at
  * (n − ⌊N/2⌋)·Δ (the run folder's axes convention).

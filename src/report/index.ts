@@ -5,7 +5,7 @@ export { renderReportHtml, escapeHtml, fmt, magnification, scaleBarMm } from "./
 export type { CheckItem, ComparisonRow, Overlay, OverlayShape, ReportImage, ReportPage, TableRow } from "./html.js";
 export { vegaLiteSvg, lineSpec } from "./plots.js";
 export type { Series } from "./plots.js";
-export { runReportHtml, runReportPage, defaultRoi, rectToDisplay } from "./run-report.js";
+export { runReportHtml, runReportPage, defaultRoi, rectToDisplay, profilePlots, renderPlots, type PlotRenderer } from "./run-report.js";
 export type { RunReportInput, LogicalRect } from "./run-report.js";
 export { montage, drawText, textWidth, glyphPixel, GLYPH_W, GLYPH_H, GLYPH_ADVANCE } from "./montage.js";
 export type { Tile } from "./montage.js";

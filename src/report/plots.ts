@@ -13,10 +13,15 @@ export interface Series {
   points: { x: number; y: number }[];
 }
 
+/** Starts loading vega and vega-lite (done once per thread; {@link vegaLiteSvg} awaits the same load). */
+export function loadPlotLibraries(): Promise<[typeof VegaModule, typeof VegaLiteModule]> {
+  libs ??= Promise.all([import("vega"), import("vega-lite")]);
+  return libs;
+}
+
 /** Renders a vega-lite specification to an SVG string. Data must be inline (no URLs are loaded). */
 export async function vegaLiteSvg(spec: Record<string, unknown>): Promise<string> {
-  libs ??= Promise.all([import("vega"), import("vega-lite")]);
-  const [vega, vl] = await libs;
+  const [vega, vl] = await loadPlotLibraries();
   const compiled = vl.compile(spec as unknown as VegaLiteModule.TopLevelSpec).spec;
   // a loader that refuses every request: the report must not depend on the network or files
   const loader = vega.loader();

@@ -28,6 +28,18 @@ export interface RunReportInput {
   /** Where folded signal lands, when something computed it (e.g. a check). */
   folds?: LogicalRect[];
   checks?: CheckItem[];
+  /** The profile plots when they are already under way ({@link profilePlots}, e.g. on another thread); default made here. */
+  plots?: Promise<{ title: string; svg: string }[]>;
+}
+
+/** Renders vega-lite specifications to SVG strings, in order. */
+export type PlotRenderer = (specs: Record<string, unknown>[]) => Promise<string[]>;
+
+/** The default {@link PlotRenderer}: vega on this thread, one plot after another. */
+export async function renderPlots(specs: Record<string, unknown>[]): Promise<string[]> {
+  const out: string[] = [];
+  for (const spec of specs) out.push(await vegaLiteSvg(spec));
+  return out;
 }
 
 type Obj = Record<string, unknown>;
@@ -112,35 +124,7 @@ export async function runReportPage(r: RunReportInput): Promise<ReportPage> {
   const g = r.grid;
   const pxX = (t.transpose ? g.dPhase : g.dRead) * 1e3, pxY = (t.transpose ? g.dRead : g.dPhase) * 1e3;
   const W = r.image.width, H = r.image.height;
-  const centre = displayPoint(t, g, 0, 0); // pixel centre of index ⌊N/2⌋: (x, y) = (col + 0.5, row + 0.5)
-  // profiles through the row and the column that hold the most signal (the centre may fall between objects)
-  const rowSum = new Float64Array(H), colSum = new Float64Array(W);
-  for (let y = 0; y < H; y++) for (let x = 0; x < W; x++) {
-    const v = r.image.values[y * W + x]!;
-    rowSum[y]! += v;
-    colSum[x]! += v;
-  }
-  const argmax = (a: Float64Array, dflt: number) => {
-    let k = dflt;
-    for (let i = 0; i < a.length; i++) if (a[i]! > a[k]!) k = i;
-    return k;
-  };
-  const row0 = argmax(rowSum, Math.min(H - 1, Math.floor(centre.y))), col0 = argmax(colSum, Math.min(W - 1, Math.floor(centre.x)));
-  const rowSeries = Array.from({ length: W }, (_, c) => ({ x: (c + 0.5 - centre.x) * pxX, y: r.image.values[row0 * W + c]! }));
-  const colSeries = Array.from({ length: H }, (_, y) => ({ x: (y + 0.5 - centre.y) * pxY, y: r.image.values[y * W + col0]! }));
-  const rowMm = (row0 + 0.5 - centre.y) * pxY, colMm = (col0 + 0.5 - centre.x) * pxX;
-  const plots = [
-    { title: "horizontal profile", svg: await vegaLiteSvg(lineSpec({
-      title: `Horizontal profile: display row ${row0} (${fmt(rowMm, 3)} mm from the centre toward ${t.letters.bottom}), the row with most signal`,
-      xTitle: `position from the centre (mm), ${t.letters.left} → ${t.letters.right}`,
-      yTitle: "magnitude (a.u.)", series: [{ name: "image", points: rowSeries }],
-    })) },
-    { title: "vertical profile", svg: await vegaLiteSvg(lineSpec({
-      title: `Vertical profile: display column ${col0} (${fmt(colMm, 3)} mm from the centre toward ${t.letters.right}), the column with most signal`,
-      xTitle: `position from the centre (mm), ${t.letters.top} → ${t.letters.bottom}`,
-      yTitle: "magnitude (a.u.)", series: [{ name: "image", points: colSeries }],
-    })) },
-  ];
+  const plots = await (r.plots ?? profilePlots(t, g, r.image));
 
   const protocol = obj(rep.protocol);
   const fat = obj(rep.fatShift);
@@ -217,6 +201,47 @@ export async function runReportPage(r: RunReportInput): Promise<ReportPage> {
     ],
     footer: "Made by isofold. Self-contained page: images inline, plots rendered by vega from vega-lite specifications, no network.",
   };
+}
+
+/**
+ * The page's two profile plots (the display row and column holding the most
+ * signal) of the magnitude picture in display order, rendered by `render`.
+ */
+export async function profilePlots(
+  t: DisplayTransform, g: RunReportInput["grid"], image: { values: Float64Array; width: number; height: number }, render: PlotRenderer = renderPlots,
+): Promise<{ title: string; svg: string }[]> {
+  const pxX = (t.transpose ? g.dPhase : g.dRead) * 1e3, pxY = (t.transpose ? g.dRead : g.dPhase) * 1e3;
+  const W = image.width, H = image.height;
+  const centre = displayPoint(t, g, 0, 0); // pixel centre of index ⌊N/2⌋: (x, y) = (col + 0.5, row + 0.5)
+  // profiles through the row and the column that hold the most signal (the centre may fall between objects)
+  const rowSum = new Float64Array(H), colSum = new Float64Array(W);
+  for (let y = 0; y < H; y++) for (let x = 0; x < W; x++) {
+    const v = image.values[y * W + x]!;
+    rowSum[y]! += v;
+    colSum[x]! += v;
+  }
+  const argmax = (a: Float64Array, dflt: number) => {
+    let k = dflt;
+    for (let i = 0; i < a.length; i++) if (a[i]! > a[k]!) k = i;
+    return k;
+  };
+  const row0 = argmax(rowSum, Math.min(H - 1, Math.floor(centre.y))), col0 = argmax(colSum, Math.min(W - 1, Math.floor(centre.x)));
+  const rowSeries = Array.from({ length: W }, (_, c) => ({ x: (c + 0.5 - centre.x) * pxX, y: image.values[row0 * W + c]! }));
+  const colSeries = Array.from({ length: H }, (_, y) => ({ x: (y + 0.5 - centre.y) * pxY, y: image.values[y * W + col0]! }));
+  const rowMm = (row0 + 0.5 - centre.y) * pxY, colMm = (col0 + 0.5 - centre.x) * pxX;
+  const svgs = await render([
+    lineSpec({
+      title: `Horizontal profile: display row ${row0} (${fmt(rowMm, 3)} mm from the centre toward ${t.letters.bottom}), the row with most signal`,
+      xTitle: `position from the centre (mm), ${t.letters.left} → ${t.letters.right}`,
+      yTitle: "magnitude (a.u.)", series: [{ name: "image", points: rowSeries }],
+    }),
+    lineSpec({
+      title: `Vertical profile: display column ${col0} (${fmt(colMm, 3)} mm from the centre toward ${t.letters.right}), the column with most signal`,
+      xTitle: `position from the centre (mm), ${t.letters.top} → ${t.letters.bottom}`,
+      yTitle: "magnitude (a.u.)", series: [{ name: "image", points: colSeries }],
+    }),
+  ]);
+  return [{ title: "horizontal profile", svg: svgs[0]! }, { title: "vertical profile", svg: svgs[1]! }];
 }
 
 /** report.html of one run, as bytes. */
