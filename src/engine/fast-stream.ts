@@ -21,7 +21,7 @@
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
-import { addSegments, estimateOver, pivotedBasis, project, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
+import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
@@ -72,6 +72,12 @@ export class CellStream {
   private readonly eClass: Int32Array | null = null;
   /** With a B0 model whose classes exceed the limit: why the cells were not streamed (then spec is empty). */
   readonly tooMany: string | null = null;
+
+  /**
+   * The last fold's through-slice sensitivity terms (fold with sensitivities): columns × coils folded in the
+   * moment form, the terms they kept (of `of` each), and the largest bound on a column's relative error.
+   */
+  sensStats = { columns: 0, terms: 0, of: 0, maxRel: 0 };
 
   /** Per column: sensitivities of its nw cells (2·coils·nw numbers), cached when they fit SENS_CACHE. */
   private sensCache: Float64Array | null = null;
@@ -300,8 +306,12 @@ export class CellStream {
     // (tissue, place in the voxel) — summed over w for one uniform coil, per w
     // with sensitivities (they vary through the slice).
     const WL = W * L, perW = hasSens ? nw : 1;
-    const full: { keys: Int32Array; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
+    const full: { keys: Int32Array; rl: Float64Array; mom: Float64Array | null; momNorm: Float64Array | null }[] = [];
     const complete = new Uint8Array(T * D2);
+    // With sensitivities: the table's through-slice moments M_p = Σ_c ψ_p(c)·rl[c] on an
+    // orthonormal basis ψ of discrete polynomials in w (complete: rl[c] = Σ_p ψ_p(c)·M_p),
+    // so that a column's Σ_c S_q(c)·rl[c] = Σ_p s_p·M_p with s_p = Σ_c ψ_p(c)·S_q(c).
+    const psi = hasSens ? throughSliceBasis(cells.wGrid) : null;
     for (let ti = 0; ti < T && !b0; ti++) {
       for (let sub = 0; sub < D2; sub++) {
         let ok = 1;
@@ -325,25 +335,28 @@ export class CellStream {
           }
         }
         complete[ti * D2 + sub] = ok;
-        // With sensitivities: the (through-slice index × (rank, segment)) table in
-        // a low-rank form rl[c] ≈ Σ_j α_j(c)·B_j (pivoted Gram–Schmidt, truncated
-        // at `tol` of its Frobenius norm, as the line and time factors), used where
-        // it is cheaper: per column and coil Σ_c S_q(c)·α_j(c), then Σ_j γ_j·B_j.
-        let low: { J: number; B: Float64Array; alpha: Float64Array } | null = null;
-        if (hasSens && tol > 0 && ok) {
-          const basis = pivotedBasis(rl.slice(), WL, nw, tol, nw);
-          if (basis && basis.length * (nw + WL) < nw * WL) {
-            const J = basis.length, B = new Float64Array(2 * J * WL);
-            basis.forEach((b, j) => B.set(b, 2 * j * WL));
-            low = { J, B, alpha: project(basis, rl, WL, nw) };
+        let mom: Float64Array | null = null, momNorm: Float64Array | null = null;
+        if (psi && ok) {
+          mom = new Float64Array(2 * nw * WL);
+          momNorm = new Float64Array(nw);
+          for (let p = 0; p < nw; p++) {
+            let n2 = 0;
+            for (let x = 0; x < 2 * WL; x++) {
+              let m = 0;
+              for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * rl[2 * WL * c + x]!;
+              mom[2 * WL * p + x] = m;
+              n2 += m * m;
+            }
+            momNorm[p] = Math.sqrt(n2);
           }
         }
-        full.push({ keys: Int32Array.from(keySet), rl, low });
+        full.push({ keys: Int32Array.from(keySet), rl, mom, momNorm });
       }
     }
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
-    const gam = new Float64Array(2 * Math.max(nw, 1));
+    const gam = new Float64Array(2 * Math.max(nw, 1)), eTerm = new Float64Array(nw), order = new Int32Array(nw), drop = new Float64Array(1);
+    this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
     return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
@@ -373,26 +386,30 @@ export class CellStream {
         if (flat) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           for (let q = 0; q < coils; q++) {
-            if (hasSens && tab.low) {
-              // Σ_j γ_j·B_j per (rank, segment), added in j order (as into a zeroed scratch), then times the phase
-              const { J, B, alpha } = tab.low;
-              for (let j = 0; j < J; j++) {
+            if (hasSens) {
+              const mom = tab.mom!, momNorm = tab.momNorm!;
+              // s_p = Σ_c ψ_p(c)·S_q(c); the terms of least |s_p|·‖M_p‖ left out while their sum stays
+              // within tol × the root sum of squares of all of them (a bound on the column's error)
+              let e2 = 0;
+              for (let pp = 0; pp < nw; pp++) {
                 let gr = 0, gi = 0;
                 for (let c = 0; c < nw; c++) {
-                  const sr = S[2 * (q * nw + c)]!, si = S[2 * (q * nw + c) + 1]!, ar = alpha[2 * (c * J + j)]!, ai = alpha[2 * (c * J + j) + 1]!;
-                  gr += sr * ar - si * ai;
-                  gi += sr * ai + si * ar;
+                  const f = psi![pp * nw + c]!;
+                  gr += f * S[2 * (q * nw + c)]!;
+                  gi += f * S[2 * (q * nw + c) + 1]!;
                 }
-                gam[2 * j] = gr;
-                gam[2 * j + 1] = gi;
+                gam[2 * pp] = gr * sr - gi * si;
+                gam[2 * pp + 1] = gr * si + gi * sr;
+                const e = Math.hypot(gr, gi) * momNorm[pp]!;
+                eTerm[pp] = e;
+                e2 += e * e;
               }
-              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, B, gam, J, 2 * WL, sr, si);
-            } else if (hasSens) {
-              for (let c = 0; c < nw; c++) {
-                gam[2 * c] = S[2 * (q * nw + c)]!;
-                gam[2 * c + 1] = S[2 * (q * nw + c) + 1]!;
-              }
-              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, rl, gam, nw, 2 * WL, sr, si);
+              const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
+              addMoments(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, mom, gam, order, nk, 2 * WL);
+              const st = this.sensStats;
+              st.columns++;
+              st.terms += nk;
+              if (e2 > 0) st.maxRel = Math.max(st.maxRel, drop[0]! / Math.sqrt(e2));
             } else {
               for (let r = 0; r < W; r++) {
                 const ob = p * NX + 2 * (r * coils + q) * L;
@@ -629,24 +646,101 @@ export class CellStream {
 }
 
 /**
- * XB[ob + r·rStride + 2l] += (Σ_j γ_j·V_j[r·L + l])·(sr + i·si) for every
- * rank r < W and segment l < L, the sum over j in order from zero: V_j at
- * V[j·vStride …] (interleaved), γ_j at gam[2j] (interleaved).
+ * An orthonormal basis of R^nw for functions of the through-slice position:
+ * the discrete orthogonal polynomials on the points w (Gram–Schmidt, twice,
+ * of 1, x, x², … with x = w scaled to [−1, 1]; G. E. Forsythe, "Generation
+ * and use of orthogonal polynomials for data-fitting with a digital
+ * computer", J. SIAM 5 (1957) 74–88). Row p (psi[p·nw + c]) is ψ_p. A smooth
+ * sensitivity profile has its weight in the first few; the basis is complete,
+ * so keeping every term is exact.
  */
-function addCombined(XB: Float64Array, ob: number, rStride: number, W: number, L: number, V: Float64Array, gam: Float64Array, J: number, vStride: number, sr: number, si: number): void {
+export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
+  const n = w.length, psi = new Float64Array(n * n);
+  let lo = Infinity, hi = -Infinity;
+  for (let c = 0; c < n; c++) {
+    lo = Math.min(lo, w[c]!);
+    hi = Math.max(hi, w[c]!);
+  }
+  const mid = (lo + hi) / 2, half = hi > lo ? (hi - lo) / 2 : 1;
+  const v = new Float64Array(n);
+  for (let p = 0; p < n; p++) {
+    // x·ψ_{p−1} (three-term recurrence direction), or 1
+    for (let c = 0; c < n; c++) v[c] = p === 0 ? 1 : ((w[c]! - mid) / half) * psi[(p - 1) * n + c]!;
+    for (let pass = 0; pass < 2; pass++) {
+      for (let k = 0; k < p; k++) {
+        let d = 0;
+        for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
+        for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
+      }
+    }
+    let nn = 0;
+    for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
+    nn = Math.sqrt(nn);
+    if (!(nn > 1e-8)) {
+      // points too close for the recurrence: complete the basis with unit vectors
+      for (let e = 0; e < n && !(nn > 1e-8); e++) {
+        v.fill(0);
+        v[e] = 1;
+        for (let pass = 0; pass < 2; pass++) {
+          for (let k = 0; k < p; k++) {
+            let d = 0;
+            for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
+            for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
+          }
+        }
+        nn = 0;
+        for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
+        nn = Math.sqrt(nn);
+      }
+    }
+    for (let c = 0; c < n; c++) psi[p * n + c] = v[c]! / nn;
+  }
+  return psi;
+}
+
+/**
+ * The terms to keep: the smallest e[p] are left out while their sum stays at
+ * most `budget`; the kept indices (ascending) go to order[0 … k), the sum of
+ * the left-out e to dropped[0]; returns k.
+ */
+export function keepTerms(e: Float64Array, n: number, budget: number, order: Int32Array, dropped: Float64Array): number {
+  // left out: repeatedly the smallest remaining while it fits (n is small: the slice's cells)
+  let sum = 0, out = 0;
+  const gone = order; // scratch: 1 = left out, then overwritten with the kept indices
+  gone.fill(0, 0, n);
+  for (;;) {
+    let best = -1;
+    for (let p = 0; p < n; p++) if (gone[p] === 0 && (best < 0 || e[p]! < e[best]!)) best = p;
+    if (best < 0 || sum + e[best]! > budget) break;
+    sum += e[best]!;
+    gone[best] = 1;
+    out++;
+  }
+  let k = 0;
+  for (let p = 0; p < n; p++) if (gone[p] === 0) order[k++] = p;
+  dropped[0] = sum;
+  return n - out;
+}
+
+/**
+ * XB[ob + r·rStride + 2l] += Σ_i γ_{p_i}·M_{p_i}[r·L + l] over the kept terms
+ * p_i = order[i] (i < nk, in that order from zero): M_p at M[p·mStride …],
+ * γ_p at gam[2p] (both interleaved).
+ */
+function addMoments(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, gam: Float64Array, order: Int32Array, nk: number, mStride: number): void {
   for (let r = 0; r < W; r++) {
     const o0 = ob + r * rStride;
     for (let l = 0; l < L; l++) {
       const x2 = 2 * (r * L + l);
       let vr = 0, vi = 0;
-      for (let j = 0; j < J; j++) {
-        const zr = V[j * vStride + x2]!, zi = V[j * vStride + x2 + 1]!, gr = gam[2 * j]!, gi = gam[2 * j + 1]!;
+      for (let i = 0; i < nk; i++) {
+        const pp = order[i]!, zr = M[pp * mStride + x2]!, zi = M[pp * mStride + x2 + 1]!, gr = gam[2 * pp]!, gi = gam[2 * pp + 1]!;
         vr = vr + (zr * gr - zi * gi);
         vi = vi + (zr * gi + zi * gr);
       }
       const o = o0 + 2 * l;
-      XB[o] = XB[o]! + (vr * sr - vi * si);
-      XB[o + 1] = XB[o + 1]! + (vr * si + vi * sr);
+      XB[o] = XB[o]! + vr;
+      XB[o + 1] = XB[o + 1]! + vi;
     }
   }
 }
