@@ -400,7 +400,7 @@ export class CellStream {
                 }
                 gam[2 * pp] = gr * sr - gi * si;
                 gam[2 * pp + 1] = gr * si + gi * sr;
-                const e = Math.hypot(gr, gi) * momNorm[pp]!;
+                const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
                 eTerm[pp] = e;
                 e2 += e * e;
               }
@@ -699,27 +699,29 @@ export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
 }
 
 /**
- * The terms to keep: the smallest e[p] are left out while their sum stays at
- * most `budget`; the kept indices (ascending) go to order[0 … k), the sum of
- * the left-out e to dropped[0]; returns k.
+ * The terms to keep: e[p] ≤ budget/n are left out, then the smallest of the
+ * others while the sum of those left out stays at most `budget`; the kept
+ * indices (ascending) go to order[0 … k), the sum of the left-out e to
+ * dropped[0]; returns k.
  */
 export function keepTerms(e: Float64Array, n: number, budget: number, order: Int32Array, dropped: Float64Array): number {
-  // left out: repeatedly the smallest remaining while it fits (n is small: the slice's cells)
-  let sum = 0, out = 0;
-  const gone = order; // scratch: 1 = left out, then overwritten with the kept indices
-  gone.fill(0, 0, n);
+  // first every term within budget/n (their sum fits), then the smallest kept ones while the rest of the budget allows
+  let sum = 0, k = 0;
+  const cut = budget / n;
+  for (let p = 0; p < n; p++) {
+    if (e[p]! <= cut) sum += e[p]!;
+    else order[k++] = p;
+  }
   for (;;) {
     let best = -1;
-    for (let p = 0; p < n; p++) if (gone[p] === 0 && (best < 0 || e[p]! < e[best]!)) best = p;
-    if (best < 0 || sum + e[best]! > budget) break;
-    sum += e[best]!;
-    gone[best] = 1;
-    out++;
+    for (let i = 0; i < k; i++) if (best < 0 || e[order[i]!]! < e[order[best]!]!) best = i;
+    if (best < 0 || sum + e[order[best]!]! > budget) break;
+    sum += e[order[best]!]!;
+    for (let i = best; i < k - 1; i++) order[i] = order[i + 1]!;
+    k--;
   }
-  let k = 0;
-  for (let p = 0; p < n; p++) if (gone[p] === 0) order[k++] = p;
   dropped[0] = sum;
-  return n - out;
+  return k;
 }
 
 /**
