@@ -356,6 +356,7 @@ export class CellStream {
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
     const gam = new Float64Array(2 * Math.max(nw, 1)), eTerm = new Float64Array(nw), order = new Int32Array(nw), drop = new Float64Array(1), sAll = new Float64Array(2 * coils * nw);
+    const scratch = { gTi: new Int32Array(T), wgt: new Float64Array(T * nw), ws: new Float64Array(2 * coils * nw), mom: new Float64Array(2 * coils * nw), gam, eTerm, order, drop };
     this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
     return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
@@ -422,7 +423,7 @@ export class CellStream {
           }
           continue;
         }
-      }
+      } else if (hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
@@ -461,6 +462,66 @@ export class CellStream {
       }
     }
     };
+  }
+
+  /**
+   * A column of several tissues (or fractions) through the slice, with sensitivities: per tissue the
+   * weights g(c) = Σ pd·fraction of its cells, and per coil Σ_c g(c)·S_q(c)·rl[c] from the table's
+   * through-slice moments (as a column of one tissue, the same term selection). False (nothing added)
+   * when a tissue's table is incomplete or the receiver filter is not flat over its keys.
+   */
+  private foldMixed(
+    col: number, sub: number, u: number, full: { keys: Int32Array; mom: Float64Array | null; momNorm: Float64Array | null }[], psi: Float64Array, S: Float64Array,
+    pr0: number, pi0: number, ob: number, NX: number, coils: number, W: number, L: number, tol: number, filt: boolean, fRead: number, bw: number, keyDf: number[], XB: Float64Array,
+    sc: { gTi: Int32Array; wgt: Float64Array; ws: Float64Array; mom: Float64Array; gam: Float64Array; eTerm: Float64Array; order: Int32Array; drop: Float64Array },
+  ): boolean {
+    void NX;
+    const { cells, D2 } = this, nw = cells.wGrid.length, pd = cells.ctx.pd, WL = W * L;
+    const { gTi, wgt, ws, mom, gam, eTerm, order, drop } = sc;
+    let ng = 0;
+    for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+      const ti = cells.entTissue[e]!;
+      let g = 0;
+      while (g < ng && gTi[g] !== ti) g++;
+      if (g === ng) {
+        const tab = full[ti * D2 + sub]!;
+        if (!tab.mom) return false;
+        if (filt) for (let i = 0; i < tab.keys.length; i++) if (receiverFilter(fRead * u + keyDf[tab.keys[i]!]!, bw) !== 1) return false;
+        gTi[ng++] = ti;
+        wgt.fill(0, g * nw, (g + 1) * nw);
+      }
+      const c = cells.entW[e]!;
+      wgt[g * nw + c] = wgt[g * nw + c]! + pd[ti]! * cells.entFrac[e]!;
+    }
+    const st = this.sensStats;
+    for (let g = 0; g < ng; g++) {
+      const tab = full[gTi[g]! * D2 + sub]!, mt = tab.mom!, momNorm = tab.momNorm!;
+      for (let q = 0; q < coils; q++) {
+        for (let c = 0; c < nw; c++) {
+          const f = wgt[g * nw + c]!;
+          ws[2 * (q * nw + c)] = f * S[2 * (q * nw + c)]!;
+          ws[2 * (q * nw + c) + 1] = f * S[2 * (q * nw + c) + 1]!;
+        }
+      }
+      projectThroughSlice(psi, ws, coils, nw, mom);
+      for (let q = 0; q < coils; q++) {
+        let e2 = 0;
+        for (let pp = 0; pp < nw; pp++) {
+          const gr = mom[2 * (q * nw + pp)]!, gi = mom[2 * (q * nw + pp) + 1]!;
+          gam[2 * pp] = gr * pr0 - gi * pi0;
+          gam[2 * pp + 1] = gr * pi0 + gi * pr0;
+          const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
+          eTerm[pp] = e;
+          e2 += e * e;
+        }
+        const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
+        addMoments(XB, ob + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
+        st.columns++;
+        st.terms += nk;
+        if (e2 > 0) st.maxRel = Math.max(st.maxRel, drop[0]! / Math.sqrt(e2));
+      }
+    }
+    return true;
   }
 
   /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */
