@@ -624,6 +624,7 @@ export class CellStream {
       }
       const colv = new Float64Array(2 * coils * NS);
       const momS = psi ? new Float64Array(2 * coils * nw) : null, eT = new Float64Array(nw);
+      const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now
         let S: Float64Array | null = null;
@@ -669,6 +670,42 @@ export class CellStream {
                   const yr = ym[2 * (p * NS + s)]!, yi = ym[2 * (p * NS + s) + 1]!, o = 2 * (q * NS + s);
                   colv[o] = colv[o]! + (yr * gr - yi * gi);
                   colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
+                }
+              }
+            }
+            addSamples(u, v, colv);
+            return;
+          }
+        } else if (S && !this.eClass) {
+          // several tissues (or fractions) through the slice: per tissue the weights g(c) = Σ pd·fraction of its
+          // cells, colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] (exact), where every tissue's table is whole and flat
+          let ng = 0, ok = true;
+          for (let e = e0; e < e1 && ok; e++) {
+            const ti = cells.entTissue[e]!, z = ti * D2 + sub;
+            let g = 0;
+            while (g < ng && gTi[g] !== ti) g++;
+            if (g === ng) {
+              if (Y[z] === null) ok = false;
+              else if (filter) for (const k of keysOf[z]!) if (receiverFilter(filter.fRead * u + keyDf[k]!, filter.bw) !== 1) ok = false;
+              gTi[ng++] = ti;
+              gW.fill(0, g * nw, (g + 1) * nw);
+            }
+            gW[g * nw + cells.entW[e]!] = gW[g * nw + cells.entW[e]!]! + pd[ti]! * cells.entFrac[e]!;
+          }
+          if (ok) {
+            colv.fill(0);
+            for (let g = 0; g < ng; g++) {
+              const y = Y[gTi[g]! * D2 + sub]!;
+              for (let q = 0; q < coils; q++) {
+                for (let c = 0; c < nw; c++) {
+                  const f = gW[g * nw + c]!;
+                  if (f === 0) continue;
+                  const gr = S[2 * (q * nw + c)]! * f, gi = S[2 * (q * nw + c) + 1]! * f;
+                  for (let s = 0; s < NS; s++) {
+                    const yr = y[2 * (c * NS + s)]!, yi = y[2 * (c * NS + s) + 1]!, o = 2 * (q * NS + s);
+                    colv[o] = colv[o]! + (yr * gr - yi * gi);
+                    colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
+                  }
                 }
               }
             }
