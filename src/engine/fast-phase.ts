@@ -23,9 +23,19 @@ export interface PhaseSetup {
   AL: Float64Array;
   /** Read columns of the folded grid holding any isochromat. */
   colUsed: Uint8Array;
-  /** Z[q·L + l] as one array: offset (q·L + l)·2·NA·Mu, element 2·(a·NA + k). */
+  /** Z[q·L + l] as one array: offset (q·L + l)·zStrideOf(NA, Mu), element 2·(a·NA + k). */
   Z: Float64Array;
   Mu: number;
+}
+
+/**
+ * Numbers between the starts of Z[q·L + l] and Z[q·L + l + 1]: 2·NA·Mu and 24
+ * more (192 bytes), so that the lines one read column adds to, one per (coil,
+ * segment), do not all fall on the same cache sets (their starts would
+ * otherwise differ by a multiple of a large power of two).
+ */
+export function zStrideOf(NA: number, Mu: number): number {
+  return 2 * NA * Mu + 24;
 }
 
 /** The transform of one block (one per thread: its FFT plan and gather buffer). */
@@ -47,7 +57,7 @@ export class PhaseTransform {
     const dft = this.dft, inp = dft.input, out = dft.output;
     const tile = Math.min(nl, PHASE_TILE);
     if (this.gather.length < 2 * tile * Mv) this.gather = new Float64Array(2 * tile * Mv);
-    const g = this.gather, zStride = 2 * NA * Mu;
+    const g = this.gather, zStride = zStrideOf(NA, Mu);
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
       // the read column's grids gathered a tile of entries at a time (the tile stays in cache), row by row,
@@ -238,7 +248,7 @@ export class ParallelPhase {
   private sensViews: SensViews | null = null;
 
   constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
-    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.Mu * setup.coils * setup.L);
+    const zb = new SharedArrayBuffer(8 * zStrideOf(setup.NA, setup.Mu) * setup.coils * setup.L);
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
     const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));

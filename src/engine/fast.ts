@@ -43,7 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
-import { ParallelPhase, PhaseTransform, type PhaseShared } from "./fast-phase.js";
+import { ParallelPhase, PhaseTransform, zStrideOf, type PhaseShared } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -551,7 +551,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   // Z[q·L + l][a][n]: phase-transformed lines summed over the ranks (readAxis: Σ_l B_l(j)·F_l(n, j) per line),
   // one array; the phase step per block (fast-phase.ts) on this thread or shared with a helper thread
-  const zStride = 2 * NA * Mu;
+  const zStride = zStrideOf(NA, Mu), zLen = 2 * NA * Mu;
   const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu };
   let usedCols = 0;
   for (let a = 0; a < Mu; a++) usedCols += colUsed[a]!;
@@ -587,7 +587,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
   // one block's grids on this thread (with a helper, its slots hold them)
   if (!par) XB = new Float64Array(2 * blockCols * Mv * NX);
-  const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
+  const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l) * zStride + zLen));
   let cur = new Int32Array(0), curN = 0;
   /** The (grid, rank, coil, segment) entries the next blocks transform. */
   const setList = (entries: { x: number; r: number; q: number; l: number }[]) => {
