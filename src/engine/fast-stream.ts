@@ -882,6 +882,39 @@ export function keepTerms(e: Float64Array, n: number, budget: number, order: Int
  * γ_p at gam[2p] (both interleaved).
  */
 function addMoments(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, gam: Float64Array, order: Int32Array, nk: number, mStride: number): void {
+  if (nk <= 3) {
+    // one to three terms (most columns): their factors held in locals; the same sums in the same order
+    const m0 = nk > 0 ? order[0]! * mStride : 0, m1 = nk > 1 ? order[1]! * mStride : 0, m2 = nk > 2 ? order[2]! * mStride : 0;
+    const g0r = nk > 0 ? gam[2 * order[0]!]! : 0, g0i = nk > 0 ? gam[2 * order[0]! + 1]! : 0;
+    const g1r = nk > 1 ? gam[2 * order[1]!]! : 0, g1i = nk > 1 ? gam[2 * order[1]! + 1]! : 0;
+    const g2r = nk > 2 ? gam[2 * order[2]!]! : 0, g2i = nk > 2 ? gam[2 * order[2]! + 1]! : 0;
+    for (let r = 0; r < W; r++) {
+      const o0 = ob + r * rStride;
+      for (let l = 0; l < L; l++) {
+        const x2 = 2 * (r * L + l);
+        let vr = 0, vi = 0;
+        if (nk > 0) {
+          const zr = M[m0 + x2]!, zi = M[m0 + x2 + 1]!;
+          vr = vr + (zr * g0r - zi * g0i);
+          vi = vi + (zr * g0i + zi * g0r);
+        }
+        if (nk > 1) {
+          const zr = M[m1 + x2]!, zi = M[m1 + x2 + 1]!;
+          vr = vr + (zr * g1r - zi * g1i);
+          vi = vi + (zr * g1i + zi * g1r);
+        }
+        if (nk > 2) {
+          const zr = M[m2 + x2]!, zi = M[m2 + x2 + 1]!;
+          vr = vr + (zr * g2r - zi * g2i);
+          vi = vi + (zr * g2i + zi * g2r);
+        }
+        const o = o0 + 2 * l;
+        XB[o] = XB[o]! + vr;
+        XB[o + 1] = XB[o + 1]! + vi;
+      }
+    }
+    return;
+  }
   for (let r = 0; r < W; r++) {
     const o0 = ob + r * rStride;
     for (let l = 0; l < L; l++) {
