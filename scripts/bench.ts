@@ -27,7 +27,8 @@
  * (engine/fold.ts) against the direct operator, one in-process run each
  * (serial, after a warm-up at 32²), on a 128² spin echo and a 64² single-shot
  * EPI of the two-bottle phantom with a B0 expression (varying through the
- * slice too, so readout groups = isochromats) and the T2′ spread.
+ * slice too, so readout groups = isochromats) and the T2′ spread;
+ * BENCH_FOLD_ROW=<text> keeps the rows whose label contains it.
  */
 import { spawnSync } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
@@ -275,7 +276,9 @@ async function foldRows(): Promise<void> {
     console.log("");
     console.log("| time-segmented fold (one run each, in-process, serial) | isochromats | fold | direct | fold ÷ direct | auto chose | L, estimate, true rel. L2 |");
     console.log("| --- | --- | --- | --- | --- | --- | --- |");
-    for (const [label, protocol, n] of [["128² spin echo se-t2-1.5t", "se-t2-1.5t", 128], ["64² single-shot EPI epi-1.5t", "epi-1.5t", 64]] as const) {
+    const cases = [["128² spin echo se-t2-1.5t", "se-t2-1.5t", 128], ["64² single-shot EPI epi-1.5t", "epi-1.5t", 64]] as const;
+    for (const [label, protocol, n] of cases) {
+      if (process.env["BENCH_FOLD_ROW"] && !label.includes(process.env["BENCH_FOLD_ROW"])) continue;
       const p = prep(protocol, n);
       p.iso; // made before timing
       const f = time(p, "fast"), d = time(p, "direct"), a = time(p, "auto");
@@ -286,7 +289,7 @@ async function foldRows(): Promise<void> {
       }
       console.log(
         `| ${label}, two-bottle, B0 10 Hz/cm along y + 200 Hz/cm along z, T2′ spread 16, density 2, 12 through-slice | ${p.iso.count.toLocaleString("en")} | ${f.ms.toFixed(0)} ms | ${d.ms.toFixed(0)} ms | ` +
-          `${(f.ms / d.ms).toFixed(2)} | ${a.r.readout.operator} (${a.ms.toFixed(0)} ms) | L ${f.r.readout.segments}, ${f.r.readout.estimate?.relL2.toExponential(1)}, ${Math.sqrt(num / den).toExponential(1)} |`,
+          `${(f.ms / d.ms).toFixed(2)} | ${a.r.readout.operator} (${a.ms.toFixed(0)} ms) | L ${f.r.readout.segments}, ${f.r.readout.estimate?.relL2.toExponential(1)}, ${Math.sqrt(num / den).toExponential(1)}${f.r.readout.kernelWidth ? `, non-uniform FFT width ${f.r.readout.kernelWidth}` : ""}${f.r.readout.fallback ? `, fell back: ${f.r.readout.fallback}` : ""} |`,
       );
     }
   } finally {

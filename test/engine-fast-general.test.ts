@@ -108,6 +108,8 @@ describe("time-segmented fold against the direct operator (relative L2 of k-spac
     // the tilt changes k-space (the check compares two runs of the tilted sequence, not a no-op)
     expect(relL2(r.direct.kspace, plain.direct.kspace)).toBeGreaterThan(1e-3);
     expect(r.fast.readout.fold?.positions).toBeGreaterThan(plain.fast.readout.fold?.positions ?? Infinity);
+    // the transform over (read, phase, slice) positions ran as the non-uniform FFT (src/engine/nufft.ts), its width from the tolerance
+    expect(r.fast.readout.kernelWidth).toBeGreaterThanOrEqual(7);
   });
   test("3D GRE (RF spoiled, 4 slice-encoding steps) with a B0 expression", () => {
     check("gre3d", prep("gre3d-t1-1.5t", ["matrix.read=16", "matrix.phase=16", "matrix.slice=4", "spoiling=rf"], { sliceCount: 2 }, phantomWithB0(5)));

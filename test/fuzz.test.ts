@@ -86,7 +86,8 @@ function setPath(obj: Record<string, unknown>, path: string, value: unknown): vo
   const parts = path.split(".");
   let cur: Record<string, unknown> = obj;
   for (const k of parts.slice(0, -1)) {
-    const next = cur[k];
+    // own properties only: "__proto__.x" must make an own key "__proto__", not write into Object.prototype
+    const next = Object.hasOwn(cur, k) ? cur[k] : undefined;
     if (typeof next !== "object" || next === null) {
       Object.defineProperty(cur, k, { value: {}, enumerable: true, writable: true, configurable: true });
     }

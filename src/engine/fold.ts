@@ -39,6 +39,7 @@ import { DIRECT_NS_PER_UNIT, ESTIMATE_MARGIN, ESTIMATE_SEED, mulberry32, predict
 import type { EnginePlan, Op } from "./plan.js";
 import type { AdcOp, ReadoutScratch } from "./readout.js";
 import { readoutRecurrenceFast } from "./wasm.js";
+import { esWidth, nufft1Plan } from "./nufft.js";
 
 const TWO_PI = 2 * Math.PI;
 
@@ -90,6 +91,12 @@ export interface FoldSpec {
   yLength: number;
   length: number;
   split: number;
+  /**
+   * Width of the non-uniform FFT's kernel (nufft.ts) that applies Σ_p P_p^j·Y_l[p]
+   * (the positions' per-dwell phases are arbitrary points on the unit circle),
+   * or 0: the readout recurrence over positions.
+   */
+  kernelWidth: number;
 }
 
 /** Length of a chunk's partial: Y and the estimate lines with a fold, else k-space [coil][row][read]. */
@@ -371,7 +378,7 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
   const pr = new Float64Array(P), pi = new Float64Array(P);
   const gr = new Float64Array(P), gi = new Float64Array(P), yr = new Float64Array(P), yi = new Float64Array(P);
   const ns = plan.read;
-  const xr = new Float64Array(ns), xi = new Float64Array(ns), sr = new Float64Array(ns), si = new Float64Array(ns);
+  const xr = new Float64Array(ns), xi = new Float64Array(ns), sr = new Float64Array(ns), si = new Float64Array(ns), xs = new Float64Array(P);
   let num = 0, den = 0, samples = 0;
   for (let a = 0; a < NA; a++) {
     const adc = adcs[a]!, shape = f.shapes[f.shapeOf[a]!]!, n = adc.samples, B = shape.B;
@@ -391,6 +398,9 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
       pi[p] = ai;
     }
     const slot = f.estSlot[a]!;
+    // the non-uniform FFT where the spec asks for it and every P_p is a pure phase
+    let nu = f.kernelWidth > 0 ? nufft1Plan(n, f.kernelWidth) : null;
+    for (let p = 0; p < P && nu; p++) if (Math.abs(pr[p]! * pr[p]! + pi[p]! * pi[p]! - 1) > 1e-12) nu = null;
     for (let q = 0; q < coils; q++) {
       sr.fill(0, 0, n);
       si.fill(0, 0, n);
@@ -408,9 +418,16 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
           m++;
         }
         if (m === 0) continue;
-        xr.fill(0, 0, n);
-        xi.fill(0, 0, n);
-        readoutRecurrenceFast(xr, xi, n, yr, yi, gr, gi, m, plan.wasm);
+        if (nu) {
+          // the same sum by the non-uniform FFT: points x_p with P_p = exp(−i2π·x_p)
+          for (let k = 0; k < m; k++) xs[k] = -Math.atan2(gi[k]!, gr[k]!) / TWO_PI;
+          nu.setPoints(xs, m);
+          nu.transform(yr, yi, xr, xi);
+        } else {
+          xr.fill(0, 0, n);
+          xi.fill(0, 0, n);
+          readoutRecurrenceFast(xr, xi, n, yr, yi, gr, gi, m, plan.wasm);
+        }
         for (let j = 0; j < n; j++) {
           const br = B[2 * (j * L + l)]!, bi = B[2 * (j * L + l) + 1]!;
           sr[j] = sr[j]! + (br * xr[j]! - bi * xi[j]!);
@@ -459,6 +476,12 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
  * 7.3–9.0 s at 10–21 segments, as these weights predict within the noise.
  */
 const W_FOLD = { group: 5, segment: 4, partial: 3, generalOp: 5 };
+/**
+ * Cost weights of the non-uniform FFT over positions (same unit): per point
+ * and readout (its phase, kernel values: one exp per grid point), per point,
+ * segment and coil (spreading, per grid point) and per FFT point and level.
+ */
+const W_NUFFT = { point: 20, kernel: 10, fft: 3 };
 
 /** The fold's decision and, when it runs, its spec; with the report of what was decided. */
 export interface FoldChoice {
@@ -542,28 +565,41 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   while (picked.size < E) picked.add(Math.floor(rnd() * NA));
   const estAdcs = Int32Array.from([...picked].sort((x, y) => x - y)), estSlot = new Int32Array(NA).fill(-1);
   estAdcs.forEach((a, k) => (estSlot[a] = k));
-  const spec: FoldSpec = { L, positions, full, nv, nw, adcs: NA, shapeOf, shapes, estAdcs, estSlot, yLength, length, split };
+  // the transform over positions: the non-uniform FFT (kernel width from this factor's share of the tolerance) where it costs less
+  let nsSum = 0;
+  for (const o of adcs) nsSum += o.samples;
+  const kw = esWidth(target);
+  const transformUnits = (width: number) => {
+    if (width === 0) return plan.coils * L * positions * nsSum;
+    let u = 0;
+    for (const o of adcs) {
+      let M = 2;
+      while (M < 2 * o.samples || M < 2 * width) M *= 2;
+      u += positions * (W_NUFFT.point + W_NUFFT.kernel * width) + plan.coils * L * (positions * width + W_NUFFT.fft * M * Math.log2(M) + o.samples);
+    }
+    return u;
+  };
+  const kernelWidth = transformUnits(kw) < transformUnits(0) ? kw : 0;
+  const spec: FoldSpec = { L, positions, full, nv, nw, adcs: NA, shapeOf, shapes, estAdcs, estSlot, yLength, length, split, kernelWidth };
   const report: ReadoutReport = {
     operator: "fast", requested, tolerance,
     method: "time-segmented fold of the readout groups",
-    segments: L, split,
+    segments: L, split, kernelWidth: kernelWidth || null,
     fold: { dfHz: [fMin, fMax], r2PerS: [rMin, rMax], positions, partialBytes: 16 * length, estimateLines: E },
   };
   if (requested === "fast") return { spec, report };
   // auto: predicted cost against the direct readout (both in recurrence steps; Bloch propagation is common to both)
   const base = predictReadoutCosts(seq, plan, iso, tolerance);
   const groups = base.groups, coils = plan.coils;
-  let nsSum = 0;
-  for (const o of adcs) nsSum += o.samples;
   const directUnits = groups * nsSum * coils;
   // an ideally spoiled plan gives up the spoiled shortcut for the general path (every op on every isochromat)
   const generalUnits = plan.spoiledFast ? W_FOLD.generalOp * iso.count * plan.ops.length : 0;
   const foldUnits = NA * groups * (W_FOLD.group + W_FOLD.segment * L * coils) + (E / NA) * groups * nsSum * coils
-    + coils * L * positions * nsSum + W_FOLD.partial * plan.chunks * length + generalUnits;
+    + transformUnits(kernelWidth) + W_FOLD.partial * plan.chunks * length + generalUnits;
   const predicted: ReadoutCosts = {
     directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (foldUnits * DIRECT_NS_PER_UNIT) / 1e6, directUnits, fastUnits: foldUnits,
     segmentsBound: L, groups, slots: base.slots,
-    model: "readout only (Bloch propagation is common to both): direct = readout groups × samples × coils; fold = groups × readouts × (group + segments × coils) + the estimate lines + segments × positions × samples × coils + chunks × partial length (engine/fold.ts)",
+    model: "readout only (Bloch propagation is common to both): direct = readout groups × samples × coils; fold = groups × readouts × (group + segments × coils) + the estimate lines + the transform over positions (segments × coils × (positions × kernel width + FFT) with the non-uniform FFT, else segments × positions × samples × coils) + chunks × partial length (engine/fold.ts)",
   };
   if (foldUnits >= directUnits) return { spec: null, report: { ...direct, foldPredicted: predicted } };
   return { spec, report: { ...report, choice: "fast", predicted } };
