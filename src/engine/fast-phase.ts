@@ -42,6 +42,8 @@ export function zStrideOf(NA: number, Mu: number): number {
 export class PhaseTransform {
   private readonly dft: FFTPlan;
   private gather = new Float64Array(0);
+  /** The gather buffer's lines (views, made once). */
+  private lines: Float64Array[] = [];
   constructor(private readonly s: PhaseSetup) {
     this.dft = new FFTPlan(s.Mv);
   }
@@ -54,10 +56,13 @@ export class PhaseTransform {
   run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
     if (nl === 0) return;
     const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, Mu } = this.s;
-    const dft = this.dft, inp = dft.input, out = dft.output;
+    const dft = this.dft, out = dft.output;
     const tile = Math.min(nl, PHASE_TILE);
-    if (this.gather.length < 2 * tile * Mv) this.gather = new Float64Array(2 * tile * Mv);
-    const g = this.gather, zStride = zStrideOf(NA, Mu);
+    if (this.gather.length < 2 * tile * Mv) {
+      this.gather = new Float64Array(2 * tile * Mv);
+      this.lines = Array.from({ length: tile }, (_, i) => this.gather.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
+    }
+    const g = this.gather, lines = this.lines, zStride = zStrideOf(NA, Mu);
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
       // the read column's grids gathered a tile of entries at a time (the tile stays in cache), row by row,
@@ -66,8 +71,7 @@ export class PhaseTransform {
         const i1 = Math.min(nl, i0 + tile);
         gatherColumn(XB, g, list, i0, i1, 2 * (a - a0) * Mv * NX, Mv, NX);
         for (let i = i0; i < i1; i++) {
-          for (let t = 0, o = 2 * (i - i0) * Mv; t < 2 * Mv; t++) inp[t] = g[o + t]!;
-          dft.execute(-1);
+          dft.executeFrom(lines[i - i0]!, -1);
           const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
           addLines(Z, (q * L + l) * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);
         }

@@ -170,6 +170,20 @@ export class FFTPlan {
     }
   }
 
+  /**
+   * As {@link FFTPlan.execute} with the input read from `src` (interleaved,
+   * length 2n, left unchanged; a view of a larger array saves copying it into
+   * {@link FFTPlan.input}): the same numbers as copying it there and executing.
+   */
+  executeFrom(src: Float64Array, sign: FFTSign): void {
+    if (sign === -1 && this.m === 0 && this.core) {
+      this.core.transform(this.output, src);
+      return;
+    }
+    this.input.set(src.subarray(0, 2 * this.n));
+    this.execute(sign);
+  }
+
   /** Forward (−) DFT of interleaved `inp` into `out` by Bluestein's algorithm. */
   private bluestein(out: Float64Array, inp: Float64Array, core: FFT): void {
     const n = this.n;
