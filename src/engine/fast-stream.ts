@@ -78,6 +78,8 @@ export class CellStream {
    * moment form, the terms they kept (of `of` each), and the largest bound on a column's relative error.
    */
   sensStats = { columns: 0, terms: 0, of: 0, maxRel: 0 };
+  /** The last fold's tolerance for leaving out through-slice terms (0 before a fold: the estimate then keeps every nonzero term). */
+  private termTol = 0;
 
   /** Per column: sensitivities of its nw cells (2·coils·nw numbers), cached when they fit SENS_CACHE. */
   private sensCache: Float64Array | null = null;
@@ -358,6 +360,7 @@ export class CellStream {
     const gam = new Float64Array(2 * Math.max(nw, 1)), eTerm = new Float64Array(nw), order = new Int32Array(nw), drop = new Float64Array(1), sAll = new Float64Array(2 * coils * nw);
     const scratch = { gTi: new Int32Array(T), wgt: new Float64Array(T * nw), ws: new Float64Array(2 * coils * nw), mom: new Float64Array(2 * coils * nw), gam, eTerm, order, drop };
     this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
+    this.termTol = tol;
     return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
@@ -566,7 +569,7 @@ export class CellStream {
       const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
       const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [];
       // With sensitivities, Y's through-slice moments Ym[p][s] = Σ_c ψ_p(c)·Y[c][s] on the fold's basis (complete:
-      // Σ_c S(c)·Y[c] = Σ_p s_p·Ym[p]); a column leaves out only terms below ESTIMATE_TERM_CUT of its largest.
+      // Σ_c S(c)·Y[c] = Σ_p s_p·Ym[p]); a column leaves out only terms below ESTIMATE_TERM_CUT × the fold's cut.
       const psi = this.sens ? throughSliceBasis(cells.wGrid) : null;
       const Ym: (Float64Array | null)[] = [], YmNorm: (Float64Array | null)[] = [];
       for (let ti = 0; ti < T; ti++) {
@@ -662,7 +665,7 @@ export class CellStream {
                 eT[p] = Math.sqrt(gr * gr + gi * gi) * yn[p]!;
                 big = Math.max(big, eT[p]!);
               }
-              const cut = ESTIMATE_TERM_CUT * big;
+              const cut = ESTIMATE_TERM_CUT * this.termTol * big;
               for (let p = 0; p < nw; p++) {
                 if (eT[p]! <= cut) continue;
                 const gr = mom[2 * (q * nw + p)]! * fp, gi = mom[2 * (q * nw + p) + 1]! * fp;
@@ -829,10 +832,11 @@ export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
 
 /**
  * The estimate's column sums leave out a through-slice term only below this
- * fraction of the column's largest (|s_p|·‖Ym_p‖): far below any tolerance
- * (1e-13 against ≥ 1e-9), so the estimate stays the direct sum.
+ * fraction of the fold's own cut (tolerance/split) times the column's largest
+ * term (|s_p|·‖Ym_p‖): a thousandth of what the fold may leave out, so the
+ * estimate stays the direct sum to well within what it measures.
  */
-const ESTIMATE_TERM_CUT = 1e-13;
+const ESTIMATE_TERM_CUT = 1e-3;
 
 /** mom[2·(q·nw + p)] = Σ_c ψ_p(c)·S[2·(q·nw + c)] (complex) for every coil q and term p. */
 export function projectThroughSlice(psi: Float64Array, S: Float64Array, coils: number, nw: number, mom: Float64Array): void {
