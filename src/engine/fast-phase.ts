@@ -44,6 +44,8 @@ export class PhaseTransform {
   private gather = new Float64Array(0);
   /** The gather buffer's lines (views, made once). */
   private lines: Float64Array[] = [];
+  private used = new Uint8Array(0);
+  private zLoc = new Float64Array(0);
   constructor(private readonly s: PhaseSetup) {
     this.dft = new FFTPlan(s.Mv);
   }
@@ -55,7 +57,7 @@ export class PhaseTransform {
    */
   run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
     if (nl === 0) return;
-    const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, Mu } = this.s;
+    const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, Mu, coils } = this.s;
     const dft = this.dft, out = dft.output;
     const tile = Math.min(nl, PHASE_TILE);
     if (this.gather.length < 2 * tile * Mv) {
@@ -63,8 +65,23 @@ export class PhaseTransform {
       this.lines = Array.from({ length: tile }, (_, i) => this.gather.subarray(2 * i * Mv, 2 * (i + 1) * Mv));
     }
     const g = this.gather, lines = this.lines, zStride = zStrideOf(NA, Mu);
+    // where several entries (ranks) add to one (coil, segment) line of Z, a read column's lines are summed in
+    // a contiguous local copy (in cache) and written back once: the same additions in the same order (same bits)
+    const NG = coils * L;
+    if (this.used.length < NG) this.used = new Uint8Array(NG);
+    const used = this.used.fill(0, 0, NG);
+    let groups = 0;
+    for (let i = 0; i < nl; i++) {
+      const gi = list[4 * i + 2]! * L + list[4 * i + 3]!;
+      if (used[gi] === 0) groups++;
+      used[gi] = 1;
+    }
+    const local = groups < nl;
+    if (local && this.zLoc.length < 2 * NA * NG) this.zLoc = new Float64Array(2 * NA * NG);
+    const zl = this.zLoc;
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
+      if (local) for (let gi = 0; gi < NG; gi++) if (used[gi] === 1) copyLine(zl, 2 * NA * gi, Z, gi * zStride + 2 * a * NA, 2 * NA);
       // the read column's grids gathered a tile of entries at a time (the tile stays in cache), row by row,
       // into contiguous lines; every entry's line and its sum into Z as without tiles (the same bits)
       for (let i0 = 0; i0 < nl; i0 += tile) {
@@ -72,12 +89,18 @@ export class PhaseTransform {
         gatherColumn(XB, g, list, i0, i1, 2 * (a - a0) * Mv * NX, Mv, NX);
         for (let i = i0; i < i1; i++) {
           dft.executeFrom(lines[i - i0]!, -1);
-          const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
-          addLines(Z, (q * L + l) * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);
+          const r = list[4 * i + 1]!, gi = list[4 * i + 2]! * L + list[4 * i + 3]!;
+          if (local) addLines(zl, 2 * NA * gi, out, mLine, AL, NA, R, r);
+          else addLines(Z, gi * zStride + 2 * a * NA, out, mLine, AL, NA, R, r);
         }
       }
+      if (local) for (let gi = 0; gi < NG; gi++) if (used[gi] === 1) copyLine(Z, gi * zStride + 2 * a * NA, zl, 2 * NA * gi, 2 * NA);
     }
   }
+}
+
+function copyLine(dst: Float64Array, d: number, src: Float64Array, s: number, n: number): void {
+  for (let t = 0; t < n; t++) dst[d + t] = src[s + t]!;
 }
 
 /** Entries of the list gathered and transformed together (their lines, 16·Mv bytes each, stay in cache: 64 KB at Mv = 256). */
