@@ -11,5 +11,7 @@ export default defineConfig({
     // modules per file: about 30 s of the suite was module loading. Tests must
     // leave no global state behind (restore what they set in afterAll).
     isolate: false,
+    // removes the folders test/helpers.ts's tempDir made, once each file ends
+    setupFiles: ["test/setup.ts"],
   },
 });
