@@ -182,6 +182,40 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
   }, 60_000);
 });
 
+describe("through-slice sensitivity terms of the streamed fold (fast-stream.ts throughSliceBasis)", () => {
+  test("basis orthonormal; torso (mixed-tissue columns) with the array off the slice centre: within the tolerance of direct, estimate bounds the error, fewer terms than cells", async () => {
+    const { throughSliceBasis } = await import("../src/engine/fast-stream.js");
+    // orthonormal rows (ΨΨᵀ = I): the moment form is exact when every term is kept
+    const w = Array.from({ length: 12 }, (_, c) => -0.006875 + 0.00125 * c), n = w.length, psi = throughSliceBasis(w);
+    let worst = 0;
+    for (let p = 0; p < n; p++) for (let k = 0; k < n; k++) {
+      let d = 0;
+      for (let c = 0; c < n; c++) d += psi[p * n + c]! * psi[k * n + c]!;
+      worst = Math.max(worst, Math.abs(d - (p === k ? 1 : 0)));
+    }
+    expect(worst).toBeLessThan(1e-12);
+    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
+    const p = prep(["spoiling=ideal"], { protocol: "gre-t1-3t", phantom: "phantoms/torso-slice.json", matrix: 12, iso: { sliceCount: 6 } });
+    // loops 4 mm above the slice centre: the sensitivity is not even through the slice
+    const array = { elements: 4, rows: 1, loopRadius: 0.1, arrayRadius: 0.2, rowSpacing: 0, zCentre: 0.004 };
+    const direct = await simulateCoilsPlanned(p.seq, p.iso, array, true, serialExecutor(), undefined, { readout: "direct" });
+    for (const tolerance of [1e-4]) {
+      const fast = await simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast", tolerance });
+      const rep = fast.readout[0]!;
+      expect(rep.operator).toBe("fast");
+      const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+      expect(err).toBeLessThan(tolerance);
+      expect(rep.estimate!.relL2).toBeGreaterThanOrEqual(err);
+      // the terms were truncated (fewer than the 6 cells through the slice), each pair within tolerance/split
+      const t = rep.sensitivityTerms!;
+      expect(t.pairs).toBeGreaterThan(0);
+      expect(t.of).toBe(6);
+      expect(t.meanKept).toBeLessThan(t.of);
+      expect(t.maxBound).toBeLessThanOrEqual(tolerance / rep.split!);
+    }
+  }, 60_000);
+});
+
 describe("property: random small protocols and sampling", () => {
   test("streamed fast within the tolerance of direct, estimate bounds the error (seeded)", async () => {
     let fastRuns = 0;

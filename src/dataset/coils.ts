@@ -158,9 +158,14 @@ export function sensitivityScale(a: CoilArray): number {
   return Math.sqrt(s);
 }
 
-const arrayMemo = new WeakMap<CoilArray, { key: string; kappa: number; placement: ReturnType<typeof loopPlacement> }>();
-function arrayKey(a: CoilArray): string {
-  return `${a.elements}|${a.rows}|${a.loopRadius}|${a.arrayRadius}|${a.rowSpacing}|${a.zCentre}`;
+const arrayMemo = new WeakMap<CoilArray, { key: CoilArray; kappa: number; placement: ReturnType<typeof loopPlacement> }>();
+/** The array's numbers (a copy: the memo stays valid only while they are unchanged). */
+function arrayKey(a: CoilArray): CoilArray {
+  return { elements: a.elements, rows: a.rows, loopRadius: a.loopRadius, arrayRadius: a.arrayRadius, rowSpacing: a.rowSpacing, zCentre: a.zCentre };
+}
+function sameArray(a: CoilArray, b: CoilArray): boolean {
+  return Object.is(a.elements, b.elements) && Object.is(a.rows, b.rows) && Object.is(a.loopRadius, b.loopRadius) &&
+    Object.is(a.arrayRadius, b.arrayRadius) && Object.is(a.rowSpacing, b.rowSpacing) && Object.is(a.zCentre, b.zCentre);
 }
 
 /**
@@ -181,19 +186,21 @@ export function sensitivitiesAt(
   }
   // κ and the placement once per array object (callers evaluate a few points at a time)
   let memo = arrayMemo.get(a);
-  if (!memo || memo.key !== arrayKey(a)) {
+  if (!memo || !sameArray(memo.key, a)) {
     memo = { key: arrayKey(a), kappa: sensitivityScale(a), placement: loopPlacement(a) };
     arrayMemo.set(a, memo);
   }
   const kappa = memo.kappa;
-  memo.placement.forEach(({ centre: c, normal: n }, q) => {
+  const placement = memo.placement, ra = a.loopRadius;
+  for (let q = 0; q < placement.length; q++) {
+    const { centre: c, normal: n } = placement[q]!;
     const base = 2 * ((firstCoil + q) * stride + offset);
     for (let i = 0; i < count; i++) {
-      loopField(B3, a.loopRadius, c[0], c[1], c[2], n[0], n[1], n[2], x[i]!, y[i]!, z[i]!);
+      loopField(B3, ra, c[0], c[1], c[2], n[0], n[1], n[2], x[i]!, y[i]!, z[i]!);
       out[base + 2 * i] = B3[0]! / kappa;
       out[base + 2 * i + 1] = -B3[1]! / kappa;
     }
-  });
+  }
 }
 
 /**

@@ -21,7 +21,7 @@
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
-import { addSegments, estimateOver, pivotedBasis, project, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
+import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
@@ -72,6 +72,14 @@ export class CellStream {
   private readonly eClass: Int32Array | null = null;
   /** With a B0 model whose classes exceed the limit: why the cells were not streamed (then spec is empty). */
   readonly tooMany: string | null = null;
+
+  /**
+   * The last fold's through-slice sensitivity terms (fold with sensitivities): columns × coils folded in the
+   * moment form, the terms they kept (of `of` each), and the largest bound on a column's relative error.
+   */
+  sensStats = { columns: 0, terms: 0, of: 0, maxRel: 0 };
+  /** The last fold's tolerance for leaving out through-slice terms (0 before a fold: the estimate then keeps every nonzero term). */
+  private termTol = 0;
 
   /** Per column: sensitivities of its nw cells (2·coils·nw numbers), cached when they fit SENS_CACHE. */
   private sensCache: Float64Array | null = null;
@@ -273,7 +281,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
-    tol = 0, onColumn?: (col: number, S: Float64Array) => void, sensSource?: { fill: ((col: number, S: Float64Array) => void) | null },
+    tol = 0, onColumn?: (col: number, S: Float64Array, mom: Float64Array | null) => void, sensSource?: { fill: ((col: number, S: Float64Array) => void) | null },
   ): ColumnFolder {
     void XB0;
     const coils = plan.coils;
@@ -300,8 +308,12 @@ export class CellStream {
     // (tissue, place in the voxel) — summed over w for one uniform coil, per w
     // with sensitivities (they vary through the slice).
     const WL = W * L, perW = hasSens ? nw : 1;
-    const full: { keys: Int32Array; dfLo: number; dfHi: number; rl: Float64Array; low: { J: number; B: Float64Array; alpha: Float64Array } | null }[] = [];
+    const full: { keys: Int32Array; dfLo: number; dfHi: number; rl: Float64Array; mom: Float64Array | null; momNorm: Float64Array | null }[] = [];
     const complete = new Uint8Array(T * D2);
+    // With sensitivities: the table's through-slice moments M_p = Σ_c ψ_p(c)·rl[c] on an
+    // orthonormal basis ψ of discrete polynomials in w (complete: rl[c] = Σ_p ψ_p(c)·M_p),
+    // so that a column's Σ_c S_q(c)·rl[c] = Σ_p s_p·M_p with s_p = Σ_c ψ_p(c)·S_q(c).
+    const psi = hasSens ? throughSliceBasis(cells.wGrid) : null;
     for (let ti = 0; ti < T && !b0; ti++) {
       for (let sub = 0; sub < D2; sub++) {
         let ok = 1;
@@ -325,26 +337,31 @@ export class CellStream {
           }
         }
         complete[ti * D2 + sub] = ok;
-        // With sensitivities: the (through-slice index × (rank, segment)) table in
-        // a low-rank form rl[c] ≈ Σ_j α_j(c)·B_j (pivoted Gram–Schmidt, truncated
-        // at `tol` of its Frobenius norm, as the line and time factors), used where
-        // it is cheaper: per column and coil Σ_c S_q(c)·α_j(c), then Σ_j γ_j·B_j.
-        let low: { J: number; B: Float64Array; alpha: Float64Array } | null = null;
-        if (hasSens && tol > 0 && ok) {
-          const basis = pivotedBasis(rl.slice(), WL, nw, tol, nw);
-          if (basis && basis.length * (nw + WL) < nw * WL) {
-            const J = basis.length, B = new Float64Array(2 * J * WL);
-            basis.forEach((b, j) => B.set(b, 2 * j * WL));
-            low = { J, B, alpha: project(basis, rl, WL, nw) };
+        let mom: Float64Array | null = null, momNorm: Float64Array | null = null;
+        if (psi && ok) {
+          mom = new Float64Array(2 * nw * WL);
+          momNorm = new Float64Array(nw);
+          for (let p = 0; p < nw; p++) {
+            let n2 = 0;
+            for (let x = 0; x < 2 * WL; x++) {
+              let m = 0;
+              for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * rl[2 * WL * c + x]!;
+              mom[2 * WL * p + x] = m;
+              n2 += m * m;
+            }
+            momNorm[p] = Math.sqrt(n2);
           }
         }
         const keys = Int32Array.from(keySet), [dfLo, dfHi] = dfRange(keys, keyDf);
-        full.push({ keys, dfLo, dfHi, rl, low });
+        full.push({ keys, dfLo, dfHi, rl, mom, momNorm });
       }
     }
     const S = new Float64Array(2 * coils * nw).fill(0);
     if (!hasSens) for (let c = 0; c < nw; c++) S[2 * c] = 1;
-    const gam = new Float64Array(2 * Math.max(nw, 1));
+    const gam = new Float64Array(2 * Math.max(nw, 1)), eTerm = new Float64Array(nw), order = new Int32Array(nw), drop = new Float64Array(1), sAll = new Float64Array(2 * coils * nw);
+    const scratch = { gTi: new Int32Array(T), wgt: new Float64Array(T * nw), ws: new Float64Array(2 * coils * nw), mom: new Float64Array(2 * coils * nw), gam, eTerm, order, drop };
+    this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
+    this.termTol = tol;
     return (c0, c1, aBase, XB) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
@@ -366,32 +383,35 @@ export class CellStream {
         if (sensSource?.fill) sensSource.fill(col, S);
         else this.sensOf(col, S);
       }
-      if (onColumn) onColumn(col, S);
+      // a column of one tissue through the slice: every coil's sensitivity on the basis ψ, s_p = Σ_c ψ_p(c)·S_q(c)
+      // at sAll[2·(q·nw + p)] (the estimate's column sums use them too)
+      const mom = hasSens && uniform ? sAll : null;
+      if (mom) projectThroughSlice(psi!, S, coils, nw, mom);
+      if (onColumn) onColumn(col, S, mom);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
         if (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           for (let q = 0; q < coils; q++) {
-            if (hasSens && tab.low) {
-              // Σ_j γ_j·B_j per (rank, segment), added in j order (as into a zeroed scratch), then times the phase
-              const { J, B, alpha } = tab.low;
-              for (let j = 0; j < J; j++) {
-                let gr = 0, gi = 0;
-                for (let c = 0; c < nw; c++) {
-                  const sr = S[2 * (q * nw + c)]!, si = S[2 * (q * nw + c) + 1]!, ar = alpha[2 * (c * J + j)]!, ai = alpha[2 * (c * J + j) + 1]!;
-                  gr += sr * ar - si * ai;
-                  gi += sr * ai + si * ar;
-                }
-                gam[2 * j] = gr;
-                gam[2 * j + 1] = gi;
+            if (hasSens) {
+              const mt = tab.mom!, momNorm = tab.momNorm!;
+              // the terms of least |s_p|·‖M_p‖ left out while their sum stays within tol × the root sum
+              // of squares of all of them (a bound on the column's error)
+              let e2 = 0;
+              for (let pp = 0; pp < nw; pp++) {
+                const gr = mom![2 * (q * nw + pp)]!, gi = mom![2 * (q * nw + pp) + 1]!;
+                gam[2 * pp] = gr * sr - gi * si;
+                gam[2 * pp + 1] = gr * si + gi * sr;
+                const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
+                eTerm[pp] = e;
+                e2 += e * e;
               }
-              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, B, gam, J, 2 * WL, sr, si);
-            } else if (hasSens) {
-              for (let c = 0; c < nw; c++) {
-                gam[2 * c] = S[2 * (q * nw + c)]!;
-                gam[2 * c + 1] = S[2 * (q * nw + c) + 1]!;
-              }
-              addCombined(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, rl, gam, nw, 2 * WL, sr, si);
+              const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
+              addMoments(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
+              const st = this.sensStats;
+              st.columns++;
+              st.terms += nk;
+              if (e2 > 0) st.maxRel = Math.max(st.maxRel, drop[0]! / Math.sqrt(e2));
             } else {
               for (let r = 0; r < W; r++) {
                 const ob = p * NX + 2 * (r * coils + q) * L;
@@ -405,7 +425,7 @@ export class CellStream {
           }
           continue;
         }
-      }
+      } else if (hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
@@ -446,6 +466,66 @@ export class CellStream {
     };
   }
 
+  /**
+   * A column of several tissues (or fractions) through the slice, with sensitivities: per tissue the
+   * weights g(c) = Σ pd·fraction of its cells, and per coil Σ_c g(c)·S_q(c)·rl[c] from the table's
+   * through-slice moments (as a column of one tissue, the same term selection). False (nothing added)
+   * when a tissue's table is incomplete or the receiver filter is not flat over its keys.
+   */
+  private foldMixed(
+    col: number, sub: number, u: number, full: { keys: Int32Array; dfLo: number; dfHi: number; mom: Float64Array | null; momNorm: Float64Array | null }[], psi: Float64Array, S: Float64Array,
+    pr0: number, pi0: number, ob: number, NX: number, coils: number, W: number, L: number, tol: number, filt: boolean, fRead: number, bw: number, keyDf: number[], XB: Float64Array,
+    sc: { gTi: Int32Array; wgt: Float64Array; ws: Float64Array; mom: Float64Array; gam: Float64Array; eTerm: Float64Array; order: Int32Array; drop: Float64Array },
+  ): boolean {
+    void NX;
+    const { cells, D2 } = this, nw = cells.wGrid.length, pd = cells.ctx.pd, WL = W * L;
+    const { gTi, wgt, ws, mom, gam, eTerm, order, drop } = sc;
+    let ng = 0;
+    for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+      const ti = cells.entTissue[e]!;
+      let g = 0;
+      while (g < ng && gTi[g] !== ti) g++;
+      if (g === ng) {
+        const tab = full[ti * D2 + sub]!;
+        if (!tab.mom) return false;
+        if (filt && !flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) return false;
+        gTi[ng++] = ti;
+        wgt.fill(0, g * nw, (g + 1) * nw);
+      }
+      const c = cells.entW[e]!;
+      wgt[g * nw + c] = wgt[g * nw + c]! + pd[ti]! * cells.entFrac[e]!;
+    }
+    const st = this.sensStats;
+    for (let g = 0; g < ng; g++) {
+      const tab = full[gTi[g]! * D2 + sub]!, mt = tab.mom!, momNorm = tab.momNorm!;
+      for (let q = 0; q < coils; q++) {
+        for (let c = 0; c < nw; c++) {
+          const f = wgt[g * nw + c]!;
+          ws[2 * (q * nw + c)] = f * S[2 * (q * nw + c)]!;
+          ws[2 * (q * nw + c) + 1] = f * S[2 * (q * nw + c) + 1]!;
+        }
+      }
+      projectThroughSlice(psi, ws, coils, nw, mom);
+      for (let q = 0; q < coils; q++) {
+        let e2 = 0;
+        for (let pp = 0; pp < nw; pp++) {
+          const gr = mom[2 * (q * nw + pp)]!, gi = mom[2 * (q * nw + pp) + 1]!;
+          gam[2 * pp] = gr * pr0 - gi * pi0;
+          gam[2 * pp + 1] = gr * pi0 + gi * pr0;
+          const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
+          eTerm[pp] = e;
+          e2 += e * e;
+        }
+        const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
+        addMoments(XB, ob + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
+        st.columns++;
+        st.terms += nk;
+        if (e2 > 0) st.maxRel = Math.max(st.maxRel, drop[0]! / Math.sqrt(e2));
+      }
+    }
+    return true;
+  }
+
   /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */
   columns(): ColumnVisitor {
     return (visit, addSamples, setup) => {
@@ -459,20 +539,20 @@ export class CellStream {
    * sensitivities): `visitor` (for estimateOver) only sets up; the fold calls
    * `hook` with each column and its sensitivities (evaluated once for both).
    */
-  hookedColumns(): { visitor: ColumnVisitor; hook: (col: number, S: Float64Array) => void } {
-    let per: ((col: number, given: Float64Array | null) => void) | null = null;
+  hookedColumns(): { visitor: ColumnVisitor; hook: (col: number, S: Float64Array, mom: Float64Array | null) => void } {
+    let per: ((col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void) | null = null;
     return {
       visitor: (visit, addSamples, setup) => {
         per = this.columnEstimator(visit, addSamples, setup);
       },
-      hook: (col, S) => per!(col, S),
+      hook: (col, S, mom) => per!(col, S, mom),
     };
   }
 
   /** The estimate's work for one column (its sensitivities given, or evaluated here). */
   private columnEstimator(
     visit: Parameters<ColumnVisitor>[0], addSamples: Parameters<ColumnVisitor>[1], setup: Parameters<ColumnVisitor>[2],
-  ): (col: number, given: Float64Array | null) => void {
+  ): (col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void {
     const { cells, T, D2, zStart, zClass, zF, zDf } = this;
     let cap = 64;
     for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
@@ -487,6 +567,10 @@ export class CellStream {
       // summed per cell once instead of per isochromat.
       const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
       const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [], dfLoHi: [number, number][] = [];
+      // With sensitivities, Y's through-slice moments Ym[p][s] = Σ_c ψ_p(c)·Y[c][s] on the fold's basis (complete:
+      // Σ_c S(c)·Y[c] = Σ_p s_p·Ym[p]); a column leaves out only terms below ESTIMATE_TERM_CUT × the fold's cut.
+      const psi = this.sens ? throughSliceBasis(cells.wGrid) : null;
+      const Ym: (Float64Array | null)[] = [], YmNorm: (Float64Array | null)[] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
           if (this.eClass) {
@@ -495,6 +579,8 @@ export class CellStream {
             Ysum.push(new Float64Array(0));
             keysOf.push(new Int32Array(0));
             dfLoHi.push([0, 0]);
+            Ym.push(null);
+            YmNorm.push(null);
             continue;
           }
           const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
@@ -514,6 +600,24 @@ export class CellStream {
             }
           }
           Y.push(ok ? y : null);
+          if (psi && ok) {
+            const ym = new Float64Array(2 * nw * NS), yn = new Float64Array(nw);
+            for (let p = 0; p < nw; p++) {
+              let n2 = 0;
+              for (let x = 0; x < 2 * NS; x++) {
+                let m = 0;
+                for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * y[2 * c * NS + x]!;
+                ym[2 * p * NS + x] = m;
+                n2 += m * m;
+              }
+              yn[p] = Math.sqrt(n2);
+            }
+            Ym.push(ym);
+            YmNorm.push(yn);
+          } else {
+            Ym.push(null);
+            YmNorm.push(null);
+          }
           // one uniform coil: the cell's samples summed through the slice once
           const ys = new Float64Array(2 * NS);
           for (let c = 0; c < nw; c++) for (let x = 0; x < 2 * NS; x++) ys[x] = ys[x]! + y[2 * c * NS + x]!;
@@ -522,9 +626,10 @@ export class CellStream {
           dfLoHi.push(dfRange(keysOf[keysOf.length - 1]!, keyDf));
         }
       }
-      const colv = new Float64Array(2 * coils * NS), one = new Float64Array(2 * nw);
-      for (let c = 0; c < nw; c++) one[2 * c] = 1;
-      return (col, given) => {
+      const colv = new Float64Array(2 * coils * NS);
+      const momS = psi ? new Float64Array(2 * coils * nw) : null, eT = new Float64Array(nw);
+      const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
+      return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now
         let S: Float64Array | null = null;
         if (S0) {
@@ -543,22 +648,66 @@ export class CellStream {
         if (uniform) {
           const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
-            const y = Y[z]!;
             if (!S) {
               const ys = Ysum[z]!;
               for (let x = 0; x < 2 * NS; x++) colv[x] = ys[x]! * fp;
               addSamples(u, v, colv);
               return;
             }
-            const Sc = S ?? one;
+            const ym = Ym[z]!, yn = YmNorm[z]!, mom = givenMom ?? momS!;
+            if (!givenMom) projectThroughSlice(psi!, S, coils, nw, mom);
             colv.fill(0);
             for (let q = 0; q < coils; q++) {
-              for (let c = 0; c < nw; c++) {
-                const gr = Sc[2 * (q * nw + c)]! * fp, gi = Sc[2 * (q * nw + c) + 1]! * fp;
+              let big = 0;
+              for (let p = 0; p < nw; p++) {
+                const gr = mom[2 * (q * nw + p)]!, gi = mom[2 * (q * nw + p) + 1]!;
+                eT[p] = Math.sqrt(gr * gr + gi * gi) * yn[p]!;
+                big = Math.max(big, eT[p]!);
+              }
+              const cut = ESTIMATE_TERM_CUT * this.termTol * big;
+              for (let p = 0; p < nw; p++) {
+                if (eT[p]! <= cut) continue;
+                const gr = mom[2 * (q * nw + p)]! * fp, gi = mom[2 * (q * nw + p) + 1]! * fp;
                 for (let s = 0; s < NS; s++) {
-                  const yr = y[2 * (c * NS + s)]!, yi = y[2 * (c * NS + s) + 1]!, o = 2 * (q * NS + s);
+                  const yr = ym[2 * (p * NS + s)]!, yi = ym[2 * (p * NS + s) + 1]!, o = 2 * (q * NS + s);
                   colv[o] = colv[o]! + (yr * gr - yi * gi);
                   colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
+                }
+              }
+            }
+            addSamples(u, v, colv);
+            return;
+          }
+        } else if (S && !this.eClass) {
+          // several tissues (or fractions) through the slice: per tissue the weights g(c) = Σ pd·fraction of its
+          // cells, colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] (exact), where every tissue's table is whole and flat
+          let ng = 0, ok = true;
+          for (let e = e0; e < e1 && ok; e++) {
+            const ti = cells.entTissue[e]!, z = ti * D2 + sub;
+            let g = 0;
+            while (g < ng && gTi[g] !== ti) g++;
+            if (g === ng) {
+              if (Y[z] === null) ok = false;
+              else if (filter && !flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) ok = false;
+              gTi[ng++] = ti;
+              gW.fill(0, g * nw, (g + 1) * nw);
+            }
+            gW[g * nw + cells.entW[e]!] = gW[g * nw + cells.entW[e]!]! + pd[ti]! * cells.entFrac[e]!;
+          }
+          if (ok) {
+            colv.fill(0);
+            for (let g = 0; g < ng; g++) {
+              const y = Y[gTi[g]! * D2 + sub]!;
+              for (let q = 0; q < coils; q++) {
+                for (let c = 0; c < nw; c++) {
+                  const f = gW[g * nw + c]!;
+                  if (f === 0) continue;
+                  const gr = S[2 * (q * nw + c)]! * f, gi = S[2 * (q * nw + c) + 1]! * f;
+                  for (let s = 0; s < NS; s++) {
+                    const yr = y[2 * (c * NS + s)]!, yi = y[2 * (c * NS + s) + 1]!, o = 2 * (q * NS + s);
+                    colv[o] = colv[o]! + (yr * gr - yi * gi);
+                    colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
+                  }
                 }
               }
             }
@@ -604,7 +753,7 @@ export class CellStream {
   estimateHooked(
     plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
     keyOf: Int32Array, keyDf: number[], keyR2: number[],
-  ): { finish: EstimateFinish; hook: (col: number, S: Float64Array) => void } {
+  ): { finish: EstimateFinish; hook: (col: number, S: Float64Array, mom: Float64Array | null) => void } {
     const { visitor, hook } = this.hookedColumns();
     return { finish: estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, this.cells.count, visitor), hook };
   }
@@ -650,24 +799,160 @@ function flatFor(f0: number, lo: number, hi: number, bw: number): boolean {
 }
 
 /**
- * XB[ob + r·rStride + 2l] += (Σ_j γ_j·V_j[r·L + l])·(sr + i·si) for every
- * rank r < W and segment l < L, the sum over j in order from zero: V_j at
- * V[j·vStride …] (interleaved), γ_j at gam[2j] (interleaved).
+ * An orthonormal basis of R^nw for functions of the through-slice position:
+ * the discrete orthogonal polynomials on the points w (Gram–Schmidt, twice,
+ * of 1, x, x², … with x = w scaled to [−1, 1]; G. E. Forsythe, "Generation
+ * and use of orthogonal polynomials for data-fitting with a digital
+ * computer", J. SIAM 5 (1957) 74–88). Row p (psi[p·nw + c]) is ψ_p. A smooth
+ * sensitivity profile has its weight in the first few; the basis is complete,
+ * so keeping every term is exact.
  */
-function addCombined(XB: Float64Array, ob: number, rStride: number, W: number, L: number, V: Float64Array, gam: Float64Array, J: number, vStride: number, sr: number, si: number): void {
+export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
+  const n = w.length, psi = new Float64Array(n * n);
+  let lo = Infinity, hi = -Infinity;
+  for (let c = 0; c < n; c++) {
+    lo = Math.min(lo, w[c]!);
+    hi = Math.max(hi, w[c]!);
+  }
+  const mid = (lo + hi) / 2, half = hi > lo ? (hi - lo) / 2 : 1;
+  const v = new Float64Array(n);
+  for (let p = 0; p < n; p++) {
+    // x·ψ_{p−1} (three-term recurrence direction), or 1
+    for (let c = 0; c < n; c++) v[c] = p === 0 ? 1 : ((w[c]! - mid) / half) * psi[(p - 1) * n + c]!;
+    for (let pass = 0; pass < 2; pass++) {
+      for (let k = 0; k < p; k++) {
+        let d = 0;
+        for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
+        for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
+      }
+    }
+    let nn = 0;
+    for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
+    nn = Math.sqrt(nn);
+    if (!(nn > 1e-8)) {
+      // points too close for the recurrence: complete the basis with unit vectors
+      for (let e = 0; e < n && !(nn > 1e-8); e++) {
+        v.fill(0);
+        v[e] = 1;
+        for (let pass = 0; pass < 2; pass++) {
+          for (let k = 0; k < p; k++) {
+            let d = 0;
+            for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
+            for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
+          }
+        }
+        nn = 0;
+        for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
+        nn = Math.sqrt(nn);
+      }
+    }
+    for (let c = 0; c < n; c++) psi[p * n + c] = v[c]! / nn;
+  }
+  return psi;
+}
+
+/**
+ * The estimate's column sums leave out a through-slice term only below this
+ * fraction of the fold's own cut (tolerance/split) times the column's largest
+ * term (|s_p|·‖Ym_p‖): a thousandth of what the fold may leave out, so the
+ * estimate stays the direct sum to well within what it measures.
+ */
+const ESTIMATE_TERM_CUT = 1e-3;
+
+/** mom[2·(q·nw + p)] = Σ_c ψ_p(c)·S[2·(q·nw + c)] (complex) for every coil q and term p. */
+export function projectThroughSlice(psi: Float64Array, S: Float64Array, coils: number, nw: number, mom: Float64Array): void {
+  for (let q = 0; q < coils; q++) {
+    for (let p = 0; p < nw; p++) {
+      let gr = 0, gi = 0;
+      for (let c = 0; c < nw; c++) {
+        const f = psi[p * nw + c]!;
+        gr += f * S[2 * (q * nw + c)]!;
+        gi += f * S[2 * (q * nw + c) + 1]!;
+      }
+      mom[2 * (q * nw + p)] = gr;
+      mom[2 * (q * nw + p) + 1] = gi;
+    }
+  }
+}
+
+/**
+ * The terms to keep: e[p] ≤ budget/n are left out, then the smallest of the
+ * others while the sum of those left out stays at most `budget`; the kept
+ * indices (ascending) go to order[0 … k), the sum of the left-out e to
+ * dropped[0]; returns k.
+ */
+export function keepTerms(e: Float64Array, n: number, budget: number, order: Int32Array, dropped: Float64Array): number {
+  // first every term within budget/n (their sum fits), then the smallest kept ones while the rest of the budget allows
+  let sum = 0, k = 0;
+  const cut = budget / n;
+  for (let p = 0; p < n; p++) {
+    if (e[p]! <= cut) sum += e[p]!;
+    else order[k++] = p;
+  }
+  for (;;) {
+    let best = -1;
+    for (let i = 0; i < k; i++) if (best < 0 || e[order[i]!]! < e[order[best]!]!) best = i;
+    if (best < 0 || sum + e[order[best]!]! > budget) break;
+    sum += e[order[best]!]!;
+    for (let i = best; i < k - 1; i++) order[i] = order[i + 1]!;
+    k--;
+  }
+  dropped[0] = sum;
+  return k;
+}
+
+/**
+ * XB[ob + r·rStride + 2l] += Σ_i γ_{p_i}·M_{p_i}[r·L + l] over the kept terms
+ * p_i = order[i] (i < nk, in that order from zero): M_p at M[p·mStride …],
+ * γ_p at gam[2p] (both interleaved).
+ */
+function addMoments(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, gam: Float64Array, order: Int32Array, nk: number, mStride: number): void {
+  if (nk <= 3) {
+    // one to three terms (most columns): their factors held in locals; the same sums in the same order
+    const m0 = nk > 0 ? order[0]! * mStride : 0, m1 = nk > 1 ? order[1]! * mStride : 0, m2 = nk > 2 ? order[2]! * mStride : 0;
+    const g0r = nk > 0 ? gam[2 * order[0]!]! : 0, g0i = nk > 0 ? gam[2 * order[0]! + 1]! : 0;
+    const g1r = nk > 1 ? gam[2 * order[1]!]! : 0, g1i = nk > 1 ? gam[2 * order[1]! + 1]! : 0;
+    const g2r = nk > 2 ? gam[2 * order[2]!]! : 0, g2i = nk > 2 ? gam[2 * order[2]! + 1]! : 0;
+    for (let r = 0; r < W; r++) {
+      const o0 = ob + r * rStride;
+      for (let l = 0; l < L; l++) {
+        const x2 = 2 * (r * L + l);
+        let vr = 0, vi = 0;
+        if (nk > 0) {
+          const zr = M[m0 + x2]!, zi = M[m0 + x2 + 1]!;
+          vr = vr + (zr * g0r - zi * g0i);
+          vi = vi + (zr * g0i + zi * g0r);
+        }
+        if (nk > 1) {
+          const zr = M[m1 + x2]!, zi = M[m1 + x2 + 1]!;
+          vr = vr + (zr * g1r - zi * g1i);
+          vi = vi + (zr * g1i + zi * g1r);
+        }
+        if (nk > 2) {
+          const zr = M[m2 + x2]!, zi = M[m2 + x2 + 1]!;
+          vr = vr + (zr * g2r - zi * g2i);
+          vi = vi + (zr * g2i + zi * g2r);
+        }
+        const o = o0 + 2 * l;
+        XB[o] = XB[o]! + vr;
+        XB[o + 1] = XB[o + 1]! + vi;
+      }
+    }
+    return;
+  }
   for (let r = 0; r < W; r++) {
     const o0 = ob + r * rStride;
     for (let l = 0; l < L; l++) {
       const x2 = 2 * (r * L + l);
       let vr = 0, vi = 0;
-      for (let j = 0; j < J; j++) {
-        const zr = V[j * vStride + x2]!, zi = V[j * vStride + x2 + 1]!, gr = gam[2 * j]!, gi = gam[2 * j + 1]!;
+      for (let i = 0; i < nk; i++) {
+        const pp = order[i]!, zr = M[pp * mStride + x2]!, zi = M[pp * mStride + x2 + 1]!, gr = gam[2 * pp]!, gi = gam[2 * pp + 1]!;
         vr = vr + (zr * gr - zi * gi);
         vi = vi + (zr * gi + zi * gr);
       }
       const o = o0 + 2 * l;
-      XB[o] = XB[o]! + (vr * sr - vi * si);
-      XB[o + 1] = XB[o + 1]! + (vr * si + vi * sr);
+      XB[o] = XB[o]! + vr;
+      XB[o + 1] = XB[o + 1]! + vi;
     }
   }
 }

@@ -87,6 +87,13 @@ export interface ReadoutReport {
   weights?: string;
   /** Non-uniform FFT kernel width (none: every position is on the DFT grid). */
   kernelWidth?: number | null;
+  /**
+   * Streamed cells with coil sensitivities: each (column, coil) of one tissue through the slice folded from the
+   * table's through-slice moments (fast-stream.ts throughSliceBasis), the terms of least weight left out within
+   * tolerance/split of the column's: (column, coil) pairs so folded, mean terms kept of `of`, and the largest
+   * bound on a pair's relative error left out.
+   */
+  sensitivityTerms?: { pairs: number; meanKept: number; of: number; maxBound: number };
   /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_MARGIN × the subset's relative L2 error). */
   estimate?: { samples: number; seed: number; relL2: number };
 }
@@ -797,6 +804,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     method: "time segmentation (least-squares interpolators) × low-rank line factor × exact DFT of the sub-voxel grid (FFT, folded)",
     segments: L, lineRank: R, grid: [Mv, Mu], split, pairs: { transformed: kept, skipped, skippedBound: skippedBound },
   };
+  if (src.kind === "cells" && coils > 1) {
+    const st = src.stream.sensStats;
+    report.sensitivityTerms = { pairs: st.columns, meanKept: st.columns > 0 ? st.terms / st.columns : 0, of: st.of, maxBound: st.maxRel };
+  }
   report.estimate = finishEstimate(re, im);
   return { re, im, report };
   } finally {
