@@ -341,16 +341,7 @@ export class CellStream {
         if (psi && ok) {
           mom = new Float64Array(2 * nw * WL);
           momNorm = new Float64Array(nw);
-          for (let p = 0; p < nw; p++) {
-            let n2 = 0;
-            for (let x = 0; x < 2 * WL; x++) {
-              let m = 0;
-              for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * rl[2 * WL * c + x]!;
-              mom[2 * WL * p + x] = m;
-              n2 += m * m;
-            }
-            momNorm[p] = Math.sqrt(n2);
-          }
+          sliceMoments(psi, nw, rl, 2 * WL, mom, momNorm);
         }
         const keys = Int32Array.from(keySet), [dfLo, dfHi] = dfRange(keys, keyDf);
         full.push({ keys, dfLo, dfHi, rl, mom, momNorm });
@@ -397,15 +388,7 @@ export class CellStream {
               const mt = tab.mom!, momNorm = tab.momNorm!;
               // the terms of least |s_p|·‖M_p‖ left out while their sum stays within tol × the root sum
               // of squares of all of them (a bound on the column's error)
-              let e2 = 0;
-              for (let pp = 0; pp < nw; pp++) {
-                const gr = mom![2 * (q * nw + pp)]!, gi = mom![2 * (q * nw + pp) + 1]!;
-                gam[2 * pp] = gr * sr - gi * si;
-                gam[2 * pp + 1] = gr * si + gi * sr;
-                const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
-                eTerm[pp] = e;
-                e2 += e * e;
-              }
+              const e2 = coilTerms(mom!, q, nw, sr, si, momNorm, gam, eTerm);
               const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
               addMoments(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
               const st = this.sensStats;
@@ -507,15 +490,7 @@ export class CellStream {
       }
       projectThroughSlice(psi, ws, coils, nw, mom);
       for (let q = 0; q < coils; q++) {
-        let e2 = 0;
-        for (let pp = 0; pp < nw; pp++) {
-          const gr = mom[2 * (q * nw + pp)]!, gi = mom[2 * (q * nw + pp) + 1]!;
-          gam[2 * pp] = gr * pr0 - gi * pi0;
-          gam[2 * pp + 1] = gr * pi0 + gi * pr0;
-          const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
-          eTerm[pp] = e;
-          e2 += e * e;
-        }
+        const e2 = coilTerms(mom, q, nw, pr0, pi0, momNorm, gam, eTerm);
         const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
         addMoments(XB, ob + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
         st.columns++;
@@ -602,16 +577,7 @@ export class CellStream {
           Y.push(ok ? y : null);
           if (psi && ok) {
             const ym = new Float64Array(2 * nw * NS), yn = new Float64Array(nw);
-            for (let p = 0; p < nw; p++) {
-              let n2 = 0;
-              for (let x = 0; x < 2 * NS; x++) {
-                let m = 0;
-                for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * y[2 * c * NS + x]!;
-                ym[2 * p * NS + x] = m;
-                n2 += m * m;
-              }
-              yn[p] = Math.sqrt(n2);
-            }
+            sliceMoments(psi, nw, y, 2 * NS, ym, yn);
             Ym.push(ym);
             YmNorm.push(yn);
           } else {
@@ -667,12 +633,7 @@ export class CellStream {
               const cut = ESTIMATE_TERM_CUT * this.termTol * big;
               for (let p = 0; p < nw; p++) {
                 if (eT[p]! <= cut) continue;
-                const gr = mom[2 * (q * nw + p)]! * fp, gi = mom[2 * (q * nw + p) + 1]! * fp;
-                for (let s = 0; s < NS; s++) {
-                  const yr = ym[2 * (p * NS + s)]!, yi = ym[2 * (p * NS + s) + 1]!, o = 2 * (q * NS + s);
-                  colv[o] = colv[o]! + (yr * gr - yi * gi);
-                  colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
-                }
+                addScaled(colv, 2 * q * NS, ym, 2 * p * NS, mom[2 * (q * nw + p)]! * fp, mom[2 * (q * nw + p) + 1]! * fp, NS);
               }
             }
             addSamples(u, v, colv);
@@ -702,12 +663,7 @@ export class CellStream {
                 for (let c = 0; c < nw; c++) {
                   const f = gW[g * nw + c]!;
                   if (f === 0) continue;
-                  const gr = S[2 * (q * nw + c)]! * f, gi = S[2 * (q * nw + c) + 1]! * f;
-                  for (let s = 0; s < NS; s++) {
-                    const yr = y[2 * (c * NS + s)]!, yi = y[2 * (c * NS + s) + 1]!, o = 2 * (q * NS + s);
-                    colv[o] = colv[o]! + (yr * gr - yi * gi);
-                    colv[o + 1] = colv[o + 1]! + (yr * gi + yi * gr);
-                  }
+                  addScaled(colv, 2 * q * NS, y, 2 * c * NS, S[2 * (q * nw + c)]! * f, S[2 * (q * nw + c) + 1]! * f, NS);
                 }
               }
             }
@@ -773,6 +729,50 @@ export class CellStream {
       }
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);
     }
+  }
+}
+
+/**
+ * Coil q's through-slice terms of one column: gam[p] = s_p·(wr + i·wi) with
+ * s_p = mom[q·nw + p] (the sensitivity's moments), and each term's bound
+ * eTerm[p] = |s_p|·‖M_p‖; returns Σ eTerm².
+ */
+function coilTerms(mom: Float64Array, q: number, nw: number, wr: number, wi: number, momNorm: Float64Array, gam: Float64Array, eTerm: Float64Array): number {
+  let e2 = 0;
+  for (let pp = 0; pp < nw; pp++) {
+    const gr = mom[2 * (q * nw + pp)]!, gi = mom[2 * (q * nw + pp) + 1]!;
+    gam[2 * pp] = gr * wr - gi * wi;
+    gam[2 * pp + 1] = gr * wi + gi * wr;
+    const e = Math.sqrt(gr * gr + gi * gi) * momNorm[pp]!;
+    eTerm[pp] = e;
+    e2 += e * e;
+  }
+  return e2;
+}
+
+/**
+ * Through-slice moments of a table of nw rows of `len` numbers each:
+ * mom[p·len + x] = Σ_c ψ_p(c)·tab[c·len + x], and each moment row's L2 norm.
+ */
+function sliceMoments(psi: Float64Array, nw: number, tab: Float64Array, len: number, mom: Float64Array, norm: Float64Array): void {
+  for (let p = 0; p < nw; p++) {
+    let n2 = 0;
+    for (let x = 0; x < len; x++) {
+      let m = 0;
+      for (let c = 0; c < nw; c++) m += psi[p * nw + c]! * tab[len * c + x]!;
+      mom[len * p + x] = m;
+      n2 += m * m;
+    }
+    norm[p] = Math.sqrt(n2);
+  }
+}
+
+/** dst[d + 2s …] += src[s0 + 2s …]·(gr + i·gi) for s = 0 … n − 1 (complex, interleaved). */
+function addScaled(dst: Float64Array, d: number, src: Float64Array, s0: number, gr: number, gi: number, n: number): void {
+  for (let s = 0; s < n; s++) {
+    const yr = src[s0 + 2 * s]!, yi = src[s0 + 2 * s + 1]!, o = d + 2 * s;
+    dst[o] = dst[o]! + (yr * gr - yi * gi);
+    dst[o + 1] = dst[o + 1]! + (yr * gi + yi * gr);
   }
 }
 
