@@ -378,7 +378,7 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
   const pr = new Float64Array(P), pi = new Float64Array(P);
   const gr = new Float64Array(P), gi = new Float64Array(P), yr = new Float64Array(P), yi = new Float64Array(P);
   const ns = plan.read;
-  const xr = new Float64Array(ns), xi = new Float64Array(ns), sr = new Float64Array(ns), si = new Float64Array(ns), xs = new Float64Array(P);
+  const xr = new Float64Array(ns), xi = new Float64Array(ns), sr = new Float64Array(ns), si = new Float64Array(ns), xs = new Float64Array(P), used = new Int32Array(P);
   let num = 0, den = 0, samples = 0;
   for (let a = 0; a < NA; a++) {
     const adc = adcs[a]!, shape = f.shapes[f.shapeOf[a]!]!, n = adc.samples, B = shape.B;
@@ -401,11 +401,38 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
     // the non-uniform FFT where the spec asks for it and every P_p is a pure phase
     let nu = f.kernelWidth > 0 ? nufft1Plan(n, f.kernelWidth) : null;
     for (let p = 0; p < P && nu; p++) if (Math.abs(pr[p]! * pr[p]! + pi[p]! * pi[p]! - 1) > 1e-12) nu = null;
+    // its points, set once per readout: the positions holding something in any coil and segment,
+    // x_p with P_p = exp(−i2π·x_p) (the kernel values are then reused by every coil and segment)
+    let mu = 0;
+    if (nu) {
+      for (let p = 0; p < P; p++) {
+        let any = false;
+        for (let q = 0; q < coils && !any; q++) {
+          const yo = ((q * NA + a) * P + p) * L;
+          for (let l = 0; l < L && !any; l++) any = yRe[yo + l] !== 0 || yIm[yo + l] !== 0;
+        }
+        if (!any) continue;
+        used[mu] = p;
+        xs[mu++] = -Math.atan2(pi[p]!, pr[p]!) / TWO_PI;
+      }
+      nu.setPoints(xs, mu);
+    }
     for (let q = 0; q < coils; q++) {
       sr.fill(0, 0, n);
       si.fill(0, 0, n);
       const yo = (q * NA + a) * L * P;
       for (let l = 0; l < L; l++) {
+        if (nu) {
+          // the same sum by the non-uniform FFT over the readout's points (a zero strength adds nothing)
+          if (mu === 0) continue;
+          for (let k = 0; k < mu; k++) {
+            yr[k] = yRe[yo + used[k]! * L + l]!;
+            yi[k] = yIm[yo + used[k]! * L + l]!;
+          }
+          nu.transform(yr, yi, xr, xi);
+          addSegment(sr, si, xr, xi, B, L, l, n);
+          continue;
+        }
         // positions holding something, gathered
         let m = 0;
         for (let p = 0; p < P; p++) {
@@ -418,21 +445,10 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
           m++;
         }
         if (m === 0) continue;
-        if (nu) {
-          // the same sum by the non-uniform FFT: points x_p with P_p = exp(−i2π·x_p)
-          for (let k = 0; k < m; k++) xs[k] = -Math.atan2(gi[k]!, gr[k]!) / TWO_PI;
-          nu.setPoints(xs, m);
-          nu.transform(yr, yi, xr, xi);
-        } else {
-          xr.fill(0, 0, n);
-          xi.fill(0, 0, n);
-          readoutRecurrenceFast(xr, xi, n, yr, yi, gr, gi, m, plan.wasm);
-        }
-        for (let j = 0; j < n; j++) {
-          const br = B[2 * (j * L + l)]!, bi = B[2 * (j * L + l) + 1]!;
-          sr[j] = sr[j]! + (br * xr[j]! - bi * xi[j]!);
-          si[j] = si[j]! + (br * xi[j]! + bi * xr[j]!);
-        }
+        xr.fill(0, 0, n);
+        xi.fill(0, 0, n);
+        readoutRecurrenceFast(xr, xi, n, yr, yi, gr, gi, m, plan.wasm);
+        addSegment(sr, si, xr, xi, B, L, l, n);
       }
       const base = (q * plan.rows + adc.row) * plan.read;
       for (let j = 0; j < n; j++) {
@@ -456,6 +472,15 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
     im[k] = im[k]! + 0;
   }
   return { re, im, estimate: { samples, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 } };
+}
+
+/** s[j] += B_l(j)·x[j] for the n samples (one segment's share of a readout). */
+function addSegment(sr: Float64Array, si: Float64Array, xr: Float64Array, xi: Float64Array, B: Float64Array, L: number, l: number, n: number): void {
+  for (let j = 0; j < n; j++) {
+    const br = B[2 * (j * L + l)]!, bi = B[2 * (j * L + l) + 1]!;
+    sr[j] = sr[j]! + (br * xr[j]! - bi * xi[j]!);
+    si[j] = si[j]! + (br * xi[j]! + bi * xr[j]!);
+  }
 }
 
 // ---------------------------------------------------------------------------
