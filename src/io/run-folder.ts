@@ -48,11 +48,16 @@ export interface StartedPlots {
   plots: Promise<{ title: string; svg: string }[]>;
 }
 
+/** The image grid of report.html's profiles: samples and spacing (m) along read and phase. */
+function imageGrid(r: Pick<RunFolderInput, "image" | "voxelMm">): { nRead: number; nPhase: number; dRead: number; dPhase: number } {
+  return { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+}
+
 /** Starts report.html's plots of a result (e.g. on a renderer of another thread, before the rest of the folder is made). */
 export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
   const t = displayTransform(axesFromAffine(r.affine));
   const mag = toDisplayInPlace(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
-  const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+  const grid = imageGrid(r);
   const plots = profilePlots(t, grid, mag, render);
   plots.catch(() => {}); // awaited (and reported) by writeRunFolder
   return { mag, plots };
@@ -103,7 +108,7 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
   let plots: Promise<{ title: string; svg: string }[]> | null = null;
   try {
     const t = displayTransform(axesFromAffine(r.affine));
-    const grid = { nRead: r.image.read, nPhase: r.image.phase, dRead: r.voxelMm[0] / 1e3, dPhase: r.voxelMm[1] / 1e3 };
+    const grid = imageGrid(r);
     // the plots first: a renderer on another thread draws them while the files below are encoded
     const started = r.started ?? startRunFolderPlots(r, r.plots);
     const mag = started.mag;
