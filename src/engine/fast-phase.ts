@@ -166,11 +166,12 @@ export const PHASE_SLOTS = 4;
 /** The shared buffers of one run (posted to the helper once). */
 export interface PhaseShared {
   setup: Omit<PhaseSetup, "Z" | "colUsed">;
-  Z: SharedArrayBuffer;
+  /** Z (zLen numbers from the start) and then the PHASE_SLOTS slots of slotLen numbers each. */
+  mem: SharedArrayBuffer;
+  zLen: number;
   colUsed: SharedArrayBuffer;
   ctrl: SharedArrayBuffer;
   list: SharedArrayBuffer;
-  slots: SharedArrayBuffer[];
   slotLen: number;
   sens?: SensShared;
 }
@@ -221,8 +222,8 @@ export function phaseHelperLoop(sh: PhaseShared): void {
 
 function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
   const list = new Int32Array(sh.list);
-  const slots = sh.slots.map((b) => new Float64Array(b));
-  const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.Z), colUsed: new Uint8Array(sh.colUsed) });
+  const slots = slotViews(sh.mem, sh.zLen, sh.slotLen);
+  const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.mem, 0, sh.zLen), colUsed: new Uint8Array(sh.colUsed) });
   const sv = sh.sens ? sensViews(sh.sens) : null;
   for (;;) {
     const gen = Atomics.load(ctrl, GEN);
@@ -272,13 +273,13 @@ export class ParallelPhase {
   private sensViews: SensViews | null = null;
 
   constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
-    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.zCols * setup.coils * setup.L);
+    const zLen = 2 * setup.NA * setup.zCols * setup.coils * setup.L;
+    const mem = claimMemory(8 * (zLen + PHASE_SLOTS * slotLen));
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
     const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));
     const list = new SharedArrayBuffer(4 * 4 * Math.max(1, maxList));
-    const slots = Array.from({ length: PHASE_SLOTS }, () => new SharedArrayBuffer(8 * slotLen));
-    this.shared = { setup, Z: zb, colUsed: cu, ctrl, list, slots, slotLen };
+    this.shared = { setup, mem, zLen, colUsed: cu, ctrl, list, slotLen };
     if (sens) {
       const { maxCols, ...rest } = sens;
       const nw = sens.wGrid.length;
@@ -289,10 +290,10 @@ export class ParallelPhase {
       };
       this.sensViews = sensViews(this.shared.sens);
     }
-    this.Z = new Float64Array(zb);
+    this.Z = new Float64Array(mem, 0, zLen);
     this.ctrl = new Int32Array(ctrl);
     this.list = new Int32Array(list);
-    this.slots = slots.map((b) => new Float64Array(b));
+    this.slots = slotViews(mem, zLen, slotLen);
     this.own = new PhaseTransform({ ...setup, Z: this.Z, colUsed: new Uint8Array(cu) });
   }
 
@@ -390,6 +391,7 @@ export class ParallelPhase {
 
   /** Ends the run on the helper's side (after drain()); returns the number of blocks the helper transformed. */
   end(): number {
+    releaseMemory(this.shared.mem);
     Atomics.store(this.ctrl, END, 1);
     Atomics.add(this.ctrl, GEN, 1);
     Atomics.notify(this.ctrl, GEN);
@@ -426,4 +428,83 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, MAIN_WAITS, 0);
   }
 
+}
+
+/** The slots' views of a run's shared memory (after Z's zLen numbers). */
+function slotViews(mem: SharedArrayBuffer, zLen: number, slotLen: number): Float64Array[] {
+  return Array.from({ length: PHASE_SLOTS }, (_, k) => new Float64Array(mem, 8 * (zLen + k * slotLen), slotLen));
+}
+
+// ---------------------------------------------------------------------------
+// Memory kept between runs, its pages written ahead by the helper thread.
+//
+// A page of new memory costs its first write (the kernel maps and zeroes it);
+// on some virtual machines that is about 15 µs per 4 KB page, i.e. several
+// hundred milliseconds for the Z of an eight-coil case. Where a helper thread
+// exists (Node), the run's shared arrays come from one reserve: the helper
+// writes its pages while the main thread is still sampling and planning, and
+// later runs in the process (a dataset batch) reuse it, zeroed. Nothing of a
+// run's numbers depends on where its memory came from.
+
+/** The reserve: its buffer, the toucher's state (ctrl[0]) and stop request (ctrl[1]), bytes used by earlier runs, and whether a run holds it. */
+interface Reserve { buf: SharedArrayBuffer; ctrl: Int32Array; dirty: number; inUse: boolean }
+let reserve: Reserve | null = null;
+const R_IDLE = 0, R_TOUCHING = 1, R_DONE = 2;
+/** Largest reserve kept (bytes). */
+const RESERVE_MAX = 512 * 2 ** 20;
+/** Numbers written between checks for a stop request (1 MB). */
+const TOUCH_CHUNK = 1 << 17;
+
+/**
+ * A new reserve of at least `bytes` for the next runs' shared arrays, to be
+ * touched by the helper (touchReserve); null when the one kept already
+ * serves, a run holds it, or the size is out of range.
+ */
+export function reservePhaseMemory(bytes: number): { buf: SharedArrayBuffer; ctrl: SharedArrayBuffer } | null {
+  const n = 8 * Math.ceil(bytes / 8);
+  if (!(n > 0 && n <= RESERVE_MAX)) return null;
+  if (reserve && (reserve.inUse || reserve.buf.byteLength >= n)) return null;
+  const ctrl = new SharedArrayBuffer(8);
+  reserve = { buf: new SharedArrayBuffer(n), ctrl: new Int32Array(ctrl), dirty: 0, inUse: false };
+  return { buf: reserve.buf, ctrl };
+}
+
+/** The helper's side: writes a zero to every page of a reserve (until a run claims it), unless a run claimed it first. */
+export function touchReserve(buf: SharedArrayBuffer, ctrlBuf: SharedArrayBuffer): void {
+  const ctrl = new Int32Array(ctrlBuf);
+  if (Atomics.compareExchange(ctrl, 0, R_IDLE, R_TOUCHING) !== R_IDLE) return;
+  const v = new Float64Array(buf);
+  for (let i0 = 0; i0 < v.length && Atomics.load(ctrl, 1) === 0; i0 += TOUCH_CHUNK) {
+    const i1 = Math.min(v.length, i0 + TOUCH_CHUNK);
+    for (let i = i0; i < i1; i += 512) v[i] = 0;
+  }
+  Atomics.store(ctrl, 0, R_DONE);
+  Atomics.notify(ctrl, 0);
+}
+
+/** A run's shared memory of `bytes` (all zero): the reserve when it is free and large enough (its toucher stopped first), else new. */
+function claimMemory(bytes: number): SharedArrayBuffer {
+  const r = reserve;
+  if (!r || r.inUse || r.buf.byteLength < bytes) return new SharedArrayBuffer(bytes);
+  if (Atomics.compareExchange(r.ctrl, 0, R_IDLE, R_DONE) === R_TOUCHING) {
+    Atomics.store(r.ctrl, 1, 1);
+    while (Atomics.load(r.ctrl, 0) === R_TOUCHING) Atomics.wait(r.ctrl, 0, R_TOUCHING, 20);
+  }
+  r.inUse = true;
+  if (r.dirty > 0) new Float64Array(r.buf, 0, Math.min(r.dirty, bytes) / 8).fill(0);
+  r.dirty = Math.max(r.dirty, bytes);
+  return r.buf;
+}
+
+/** Bytes of the reserve kept (0 for none), and how many of them runs have used (for tests). */
+export function reservedBytes(): number {
+  return reserve?.buf.byteLength ?? 0;
+}
+export function reserveUsed(): number {
+  return reserve?.dirty ?? 0;
+}
+
+/** A run's memory is no longer used (the reserve is free for the next run). */
+function releaseMemory(buf: SharedArrayBuffer): void {
+  if (reserve !== null && reserve.buf === buf) reserve.inUse = false;
 }

@@ -43,7 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
-import { ParallelPhase, PhaseTransform, zeroBlock, type PhaseShared } from "./fast-phase.js";
+import { ParallelPhase, PhaseTransform, PHASE_SLOTS, reservePhaseMemory, zeroBlock, type PhaseShared } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -114,6 +114,8 @@ const PARALLEL_PHASE_WORK = 1 << 22;
 /** A helper thread for the phase step (engine/fast-node.ts registers one in Node): start() posts a run's shared buffers. */
 export interface PhaseHelper {
   start(shared: PhaseShared): void;
+  /** Asks the helper to write the pages of a memory reserve ahead of a run (fast-phase.ts touchReserve). */
+  touch?(buf: SharedArrayBuffer, ctrl: SharedArrayBuffer): void;
 }
 let phaseHelper: (() => PhaseHelper | null) | null = null;
 let phaseMinWork = PARALLEL_PHASE_WORK;
@@ -1515,6 +1517,26 @@ export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatS
   const costs = predictReadoutCosts(seq, plan, iso, tolerance);
   const use = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
   return { use, costs };
+}
+
+/**
+ * Ahead of a fast run whose costs are predicted: where it will share its
+ * phase step with the helper thread, a memory reserve for the step's shared
+ * arrays (Z and the slots, at the cost model's rank and segment bounds) whose
+ * pages the helper writes while this thread goes on (fast-phase.ts). Changes
+ * no number of the run.
+ */
+export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGrid: Float64Array; vGrid: Float64Array }, costs: ReadoutCosts, threads: number): void {
+  if (threads < 2 || phaseHelper === null || costs.fastMs === null || costs.lineRankBound === undefined || costs.segmentsBound === undefined) return;
+  const R = costs.lineRankBound, L = costs.segmentsBound, coils = plan.coils;
+  const NA = seq.blocks.reduce((n, b) => n + (b.kind === "adc" ? 1 : 0), 0);
+  const [Mu, Mv] = dftLengths(seq, iso);
+  const usedCols = Math.min(Mu, iso.uGrid.length);
+  if (R * L * coils * Mv * usedCols < phaseMinWork) return;
+  const NX = R * coils * L, blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / (16 * Mv * NX))));
+  const r = reservePhaseMemory(16 * NA * usedCols * coils * L + 8 * PHASE_SLOTS * 2 * blockCols * Mv * NX);
+  if (r === null) return;
+  phaseHelper()?.touch?.(r.buf, r.ctrl);
 }
 
 /** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
