@@ -81,6 +81,46 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
   }
 }
 
+/**
+ * Read-axis DFT of every line of one coil, times B_l(j), summed over the
+ * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
+ * each is turned to [line][read column] first so the transforms read contiguous rows.
+ */
+/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
+export const KT = 16;
+
+/** zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i. */
+export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
+  const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
+  out.fill(0);
+  for (let l = 0; l < L; l++) {
+    const z = Zq[l]!;
+    // KT lines at a time: one sweep down the read columns reads each cache line of z once
+    for (let k0 = 0; k0 < NA; k0 += KT) {
+      const nk = Math.min(KT, NA - k0);
+      for (let i = 0; i < usedA.length; i++) {
+        const a = usedA[i]!, src = 2 * (i * NA + k0);
+        for (let t = 0; t < nk; t++) {
+          zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
+          zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
+        }
+      }
+      for (let t = 0; t < nk; t++) readOne(l, k0 + t, t);
+    }
+  }
+  function readOne(l: number, k: number, t: number): void {
+    dft.forwardStrided(zt, 2 * t * Mu, 2, nzA);
+    const o = 2 * k * ns;
+    for (let j = 0; j < ns; j++) {
+      const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
+      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+      out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
+      out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
+    }
+  }
+}
+
+/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
 // ---------------------------------------------------------------------------
 // Hand-off to a helper thread through shared memory.
 
@@ -174,6 +214,14 @@ export interface PhaseShared {
   list: SharedArrayBuffer;
   slotLen: number;
   sens?: SensShared;
+  /** The last step, the read axis of every coil (readAxis), shared too: its factors, and each coil's lines (linesLen numbers) after the slots in `mem`. */
+  read?: ReadShared;
+}
+
+/** What the read axis of a coil needs (see readAxis), in shared memory. */
+export interface ReadShared {
+  BL: SharedArrayBuffer; colIdx: SharedArrayBuffer; usedA: SharedArrayBuffer;
+  ns: number; linesLen: number;
 }
 
 function ctrlLayout(ctrl: Int32Array, s: number) {
@@ -184,6 +232,47 @@ function ctrlLayout(ctrl: Int32Array, s: number) {
 function sensLayout(j: number) {
   const b = SLOT0 + 3 * PHASE_SLOTS + 2 * j;
   return { state: b, n: b + 1 };
+}
+/** Control words of the read step: started (1), next coil to claim, coils done. */
+const READ_GO = SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS, READ_NEXT = READ_GO + 1, READ_DONE = READ_GO + 2, CTRL_WORDS = READ_GO + 3;
+
+/** One thread's means for the read step: its FFT plan and gather scratch, views of Z and of each coil's lines. */
+class ReadViews {
+  private readonly dft: FFTPlan;
+  private readonly zt: Float64Array;
+  private readonly BL: Float64Array;
+  private readonly colIdx: Int32Array;
+  private readonly usedA: Int32Array;
+  readonly lines: Float64Array[];
+  constructor(private readonly setup: Omit<PhaseSetup, "Z" | "colUsed">, private readonly Z: Float64Array, mem: SharedArrayBuffer, zLen: number, slotLen: number, private readonly rd: ReadShared) {
+    this.dft = new FFTPlan(setup.Mu);
+    this.zt = new Float64Array(2 * KT * setup.Mu);
+    this.BL = new Float64Array(rd.BL);
+    this.colIdx = new Int32Array(rd.colIdx);
+    this.usedA = new Int32Array(rd.usedA);
+    const at = zLen + PHASE_SLOTS * slotLen;
+    this.lines = Array.from({ length: setup.coils }, (_, q) => new Float64Array(mem, 8 * (at + q * rd.linesLen), rd.linesLen));
+  }
+
+  /** Coil q's lines (readAxis of its segments' Z). */
+  run(q: number): void {
+    const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols;
+    const Zq = Array.from({ length: L }, (_, l) => this.Z.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
+    this.zt.fill(0);
+    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA);
+  }
+}
+
+/** Claims and runs coils of the started read step until none is left; false if it ran none. */
+function runReads(ctrl: Int32Array, rv: ReadViews, coils: number): boolean {
+  if (Atomics.load(ctrl, READ_GO) !== 1) return false;
+  let did = false;
+  for (let q = Atomics.add(ctrl, READ_NEXT, 1); q < coils; q = Atomics.add(ctrl, READ_NEXT, 1)) {
+    rv.run(q);
+    Atomics.add(ctrl, READ_DONE, 1);
+    did = true;
+  }
+  return did;
 }
 
 /** Evaluates a requested sensitivity job if there is one (claimed by CAS); false if none. */
@@ -225,6 +314,7 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
   const slots = slotViews(sh.mem, sh.zLen, sh.slotLen);
   const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.mem, 0, sh.zLen), colUsed: new Uint8Array(sh.colUsed) });
   const sv = sh.sens ? sensViews(sh.sens) : null;
+  const rv = sh.read ? new ReadViews(sh.setup, new Float64Array(sh.mem, 0, sh.zLen), sh.mem, sh.zLen, sh.slotLen, sh.read) : null;
   for (;;) {
     const gen = Atomics.load(ctrl, GEN);
     if (Atomics.load(ctrl, END) === 1) return;
@@ -246,6 +336,11 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
       did = true;
+    }
+    if (rv && runReads(ctrl, rv, sh.setup.coils)) {
+      did = true;
+      Atomics.add(ctrl, PROGRESS, 1);
+      if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
     }
     if (!did) {
       Atomics.store(ctrl, HELPER_WAITS, 1);
@@ -272,12 +367,18 @@ export class ParallelPhase {
 
   private sensViews: SensViews | null = null;
 
-  constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
+  private readonly readViews: ReadViews | null = null;
+
+  constructor(
+    setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number },
+    read?: { BL: Float64Array; colIdx: Int32Array; usedA: Int32Array; ns: number },
+  ) {
     const zLen = 2 * setup.NA * setup.zCols * setup.coils * setup.L;
-    const mem = claimMemory(8 * (zLen + PHASE_SLOTS * slotLen));
+    const linesLen = read ? 2 * setup.NA * read.ns : 0;
+    const mem = claimMemory(8 * (zLen + PHASE_SLOTS * slotLen + setup.coils * linesLen));
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
-    const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));
+    const ctrl = new SharedArrayBuffer(4 * CTRL_WORDS);
     const list = new SharedArrayBuffer(4 * 4 * Math.max(1, maxList));
     this.shared = { setup, mem, zLen, colUsed: cu, ctrl, list, slotLen };
     if (sens) {
@@ -291,6 +392,15 @@ export class ParallelPhase {
       this.sensViews = sensViews(this.shared.sens);
     }
     this.Z = new Float64Array(mem, 0, zLen);
+    if (read) {
+      const share = (a: Float64Array | Int32Array) => {
+        const b = new SharedArrayBuffer(a.byteLength);
+        new Uint8Array(b).set(new Uint8Array(a.buffer, a.byteOffset, a.byteLength));
+        return b;
+      };
+      this.shared.read = { BL: share(read.BL), colIdx: share(read.colIdx), usedA: share(read.usedA), ns: read.ns, linesLen };
+      this.readViews = new ReadViews(setup, this.Z, mem, zLen, slotLen, this.shared.read);
+    }
     this.ctrl = new Int32Array(ctrl);
     this.list = new Int32Array(list);
     this.slots = slotViews(mem, zLen, slotLen);
@@ -387,6 +497,28 @@ export class ParallelPhase {
       if (!busy) return;
       this.waitProgress();
     }
+  }
+
+  /**
+   * The read step of every coil on both threads (after drain(); the
+   * constructor was given its factors): each coil's lines, as readAxis makes
+   * them on either thread (the same bits).
+   */
+  readAll(): Float64Array[] {
+    const rv = this.readViews!, coils = this.shared.setup.coils;
+    Atomics.store(this.ctrl, READ_GO, 1);
+    Atomics.add(this.ctrl, GEN, 1);
+    if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
+    runReads(this.ctrl, rv, coils);
+    while (Atomics.load(this.ctrl, READ_DONE) < coils) {
+      this.checkHelper();
+      const p = Atomics.load(this.ctrl, PROGRESS);
+      if (Atomics.load(this.ctrl, READ_DONE) >= coils) break;
+      Atomics.store(this.ctrl, MAIN_WAITS, 1);
+      Atomics.wait(this.ctrl, PROGRESS, p, 50);
+      Atomics.store(this.ctrl, MAIN_WAITS, 0);
+    }
+    return rv.lines;
   }
 
   /** Ends the run on the helper's side (after drain()); returns the number of blocks the helper transformed. */
