@@ -157,14 +157,15 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
   }
 }
 /**
- * Runs the helper's own code on made-up data for a moment (about WARM_MS at
- * most): a fresh thread's functions start unoptimised, and a run's first
+ * The helper's own code run on made-up data for a moment (about WARM_MS in
+ * all): a fresh thread's functions start unoptimised, and a run's first
  * blocks would otherwise be transformed several times slower than the rest.
- * Called once when the helper thread starts, while the main thread is still
- * sampling the phantom; it writes nothing outside its own arrays.
+ * Returns a step (a few milliseconds' work) to call until it returns false,
+ * between the thread's messages, so a run that arrives meanwhile is not kept
+ * waiting; it writes nothing outside its own arrays.
  */
-export function warmUp(): void {
-  const t0 = performance.now();
+export function warmUp(): () => boolean {
+  let spent = 0;
   const Mv = 256, NA = 128, R = 2, L = 4, coils = 2, NX = R * L * coils, Mu = 8;
   const sab = (n: number) => new Float64Array(new SharedArrayBuffer(8 * n));
   const mLine = Int32Array.from({ length: NA }, (_, k) => (k - NA / 2 + Mv) % Mv);
@@ -189,11 +190,16 @@ export function warmUp(): void {
     cols: [share(cols, (i) => i)], out: [new SharedArrayBuffer(8 * 2 * 9 * nw * cols)],
   };
   const sv = sensViews(sh);
-  for (let rep = 0; rep < 400 && performance.now() - t0 < WARM_MS; rep++) {
-    t.run(XB, list, NX, 0, Mu);
-    zeroBlock(XB, 1, Mv, NX, Mv);
-    evalSens(sh, sv.colA, sv.colB, sv.cols[0]!, cols, sv.out[0]!, sv.px, sv.py, sv.pz, sv.one);
-  }
+  return () => {
+    const t0 = performance.now();
+    for (let rep = 0; rep < 8; rep++) {
+      t.run(XB, list, NX, 0, Mu);
+      zeroBlock(XB, 1, Mv, NX, Mv);
+      evalSens(sh, sv.colA, sv.colB, sv.cols[0]!, cols, sv.out[0]!, sv.px, sv.py, sv.pz, sv.one);
+    }
+    spent += performance.now() - t0;
+    return spent < WARM_MS;
+  };
 }
 /** Longest warm-up of a new helper thread (ms). */
 const WARM_MS = 150;

@@ -7,9 +7,18 @@
 import { parentPort } from "node:worker_threads";
 import { phaseHelperLoop, touchReserve, warmUp, type PhaseShared } from "./fast-phase.js";
 
+let warming = true;
 parentPort!.on("message", (m: PhaseShared | { touch: SharedArrayBuffer; ctrl: SharedArrayBuffer }) => {
   if ("touch" in m) touchReserve(m.touch, m.ctrl);
-  else phaseHelperLoop(m);
+  else {
+    // a run warms the code itself
+    warming = false;
+    phaseHelperLoop(m);
+  }
 });
-// before the first message is read (messages wait meanwhile): the thread's code optimised on made-up data
-warmUp();
+// the thread's code optimised on made-up data, a few milliseconds at a time between messages
+const step = warmUp();
+const tick = (): void => {
+  if (warming && step()) setImmediate(tick);
+};
+setImmediate(tick);
