@@ -16,7 +16,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, pixelCentres, sliceStepCentre, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
@@ -301,7 +301,8 @@ function rawH5Relation(p: Protocol, M: number, N: number): Record<string, unknow
     averages: `${p.averages} record${p.averages === 1 ? "" : "s"} per sampled line, idx.average = 0 … ${p.averages - 1} (encoding limit average maximum ${p.averages - 1}), the averages of a line one after another; ` +
       "the noise-free signal of each is the simulated mean over the averages (the engine adds the averages of a line with weight 1/averages), the noise of each is independent with covariance averages·σ²·Ψ per image-grid sample, " +
       "and the mean over the averages of the records of a line relates to kspace.npy by the relation above (kspace.npy holds the averaged line, noise σ²·Ψ)",
-    frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated)",
+    frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated); " +
+      "image pixel n of an in-plane axis of N points at position + (n − floor(N/2))·Δ along read_dir or phase_dir, slice-encoding step p of P at position + (p − (P−1)/2)·thickness along slice_dir",
     recon: "ismrmrd_recon_cartesian_2d (2D, full sampling) gives M·N_phase × the root-sum-of-squares of the kspace.npy coil images: it uses an unnormalised inverse FFT",
     flags: "first/last in encode step 1 per slice-encoding step; first/last in encode step 2, slice, average and repetition on the first/last imaging readout; last in measurement; ACS lines: parallel calibration, plus parallel calibration and imaging when the line also belongs to the undersampled pattern (uniform: the lattice; random, poisson: every ACS line)",
   };
@@ -404,7 +405,9 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     const sim = await simulateCoilsPlanned(seq, prepared, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), datasetEngine(o));
     const r = buildCase(seq, sim, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
-      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
+      // index 0 of the slice axis at its step centre (a 3D slab's steps tile the slab around the slice position), as simulate's image.nii
+      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, sliceStepCentre(0, seq.image.slice, protocol.slice.thickness, protocol.slice.position) * 1e3),
+      voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
       array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed,
       ...(physical ? { sigma: physical.sigma } : {}),
@@ -433,7 +436,8 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       axes: {
         order: "C order (last index fastest); dims [coil, slice, phase, read]",
         physical: { read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice, frame: "RAS+ (x toward the subject's right, y anterior, z superior)" },
-        index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N",
+        index: "index n along an in-plane axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N; " +
+          "along the slice axis the P slice-encoding steps of a 3D slab tile the slab centred at the slice position: step p sits at position + (p − (P−1)/2)·thickness (truth.nii, sensitivities.npy and raw.h5 use these centres)",
         imageGrid: { slice: r.info.dims.slice, phase: r.info.dims.phase, read: r.info.dims.read },
         pixelM: { read: round(dx), phase: round(dy), slice: protocol.slice.thickness },
         acquiredKspace: r.info.kspaceAcquired,
