@@ -90,9 +90,9 @@ function int(raw: string, option: string, min: number, max: number): number {
   if (!Number.isInteger(n) || n < min || n > max) throw new UserError(`expected a whole number from ${min} to ${max}, got "${raw}"`, undefined, option);
   return n;
 }
-function num(raw: string, option: string, min: number, max: number, what = "a number"): number {
+function num(raw: string, option: string, min: number, max: number, what = "a number", range = `from ${min} to ${max}`): number {
   const n = Number(raw);
-  if (raw.trim() === "" || !Number.isFinite(n) || n < min || n > max) throw new UserError(`expected ${what} from ${min} to ${max}, got "${raw}"`, undefined, option);
+  if (raw.trim() === "" || !Number.isFinite(n) || n < min || n > max) throw new UserError(`expected ${what} ${range}, got "${raw}"`, undefined, option);
   return n;
 }
 function length(raw: string, option: string): number {
@@ -242,7 +242,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const phaseLines = seq.image.phase;
   const mask: MaskOptions = {
     kind,
-    accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration"),
+    accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration", `of at least 1 (phase lines / lines sampled), e.g. 4`),
     acs: o.acs === undefined ? (kind === "full" ? 0 : Math.min(24, Math.floor(phaseLines / 4))) : int(o.acs, "--acs", 0, Number.MAX_SAFE_INTEGER),
     partialFourier: num(o.partialFourier, "--partial-fourier", 0, 1, "a fraction"),
     ...(o.exact ? { exact: true } : {}),
@@ -270,16 +270,23 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     psiSource = `ones on the diagonal, ${rho} between neighbouring elements (previous/next loop of a row around the ring, same loop of adjacent rows), 0 elsewhere`;
     cholesky(psi, "--noise-correlation");
   }
-  const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
+  const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio", "above 0 (at least 1e-6, at most 1e12), e.g. 30");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
   let reference: Protocol | null = null;
   if (o.noiseModel !== "snr" && o.noiseModel !== "physical") throw new UserError(`unknown noise model "${o.noiseModel}"; use snr (the SNR of this protocol) or physical (scaled from --snr-reference)`, undefined, "--noise-model");
   if (o.noiseModel === "physical") {
     if (o.snrReference === undefined || snr === null) {
-      throw new UserError("the physical noise model needs a reference: add --snr-reference <protocol> --snr X (the SNR the reference protocol has on this phantom)", undefined, "--noise-model");
+      const missing = o.snrReference === undefined && snr === null ? "--snr-reference <protocol> --snr X" : o.snrReference === undefined ? "--snr-reference <protocol>" : "--snr X";
+      throw new UserError(`the physical noise model needs a reference protocol and its SNR: add ${missing}${snr === null ? " (X = the SNR the reference protocol has on this phantom)" : ` (the protocol whose SNR on this phantom is ${snr})`}`, undefined, "--noise-model");
     }
-    reference = loadProtocol(o.snrReference, []);
+    try {
+      reference = loadProtocol(o.snrReference, []);
+    } catch (e) {
+      // name the option: the same file name may also be the main --protocol
+      if (e instanceof UserError && !e.file) throw new UserError(e.detail, undefined, "--snr-reference");
+      throw e;
+    }
   } else if (o.snrReference !== undefined) {
     throw new UserError("--snr-reference sets the physical noise model's reference; add --noise-model physical, or drop it", undefined, "--snr-reference");
   }
