@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import {
-  ellipticKE, enclosureMargin, loopField, loopFieldLocal, loopPlacement, sensitivitiesAt, sensitivityScale, MU0, type CoilArray,
+  cellsEnclosureMargin, ellipticKE, ellipticKEMany, enclosureMargin, loopField, loopFieldLocal, loopPlacement, sensitivitiesAt, sensitivityScale, MU0, type CoilArray,
 } from "../src/dataset/coils.js";
 
 /** Slow direct Biot–Savart sum, dB = μ0·I/(4π)·dl × (p − l)/|p − l|³, over n straight pieces (midpoint rule; periodic integrand). */
@@ -94,8 +94,74 @@ describe("coil field (Biot–Savart)", () => {
     }
   });
 
+  it("sensitivitiesAt (points in batches) gives the bits of loopField point by point; ellipticKEMany those of ellipticKE", () => {
+    let seed = 11;
+    const rnd = () => ((seed = (seed * 1103515245 + 12345) % 2147483648) / 2147483648);
+    const n = 150, x = new Float64Array(n), y = new Float64Array(n), z = new Float64Array(n);
+    for (let i = 0; i < n; i++) {
+      x[i] = (rnd() - 0.5) * 0.25;
+      y[i] = (rnd() - 0.5) * 0.25;
+      z[i] = (rnd() - 0.5) * 0.2;
+    }
+    // points on and next to loop 0's axis (the near-axis series) and at the centre
+    x[0] = 0; y[0] = 0; z[0] = ring.zCentre - ring.rowSpacing / 2;
+    x[1] = 0.05; y[1] = 1e-9; z[1] = ring.zCentre - ring.rowSpacing / 2;
+    const C = 16, out = new Float64Array(2 * C * n);
+    sensitivitiesAt(ring, x, y, z, n, out, n);
+    const kappa = sensitivityScale(ring), B = new Float64Array(3);
+    loopPlacement(ring).forEach(({ centre: c, normal: nr }, q) => {
+      for (let i = 0; i < n; i++) {
+        loopField(B, ring.loopRadius, c[0], c[1], c[2], nr[0], nr[1], nr[2], x[i]!, y[i]!, z[i]!);
+        expect(out[2 * (q * n + i)]).toBe(B[0]! / kappa);
+        expect(out[2 * (q * n + i) + 1]).toBe(-B[1]! / kappa);
+      }
+    });
+    const m = Float64Array.from({ length: 70 }, (_, i) => (i === 69 ? 1 - 1e-15 : i / 69)), K = new Float64Array(70), E = new Float64Array(70), one = new Float64Array(2);
+    ellipticKEMany(m, 70, K, E);
+    for (let i = 0; i < 70; i++) {
+      ellipticKE(m[i]!, one);
+      expect(K[i]).toBe(one[0]);
+      expect(E[i]).toBe(one[1]);
+    }
+  });
+
   it("enclosureMargin is negative for points inside every loop plane and positive beyond one", () => {
     expect(enclosureMargin(ring, [0, 0.1, -0.1], [0, 0.05, 0], 3)).toBeLessThan(0);
     expect(enclosureMargin(ring, [0, 0.16], [0, 0], 2)).toBeCloseTo(0.01, 12);
+  });
+
+  it("cellsEnclosureMargin equals enclosureMargin over every cell centre (columns of cells, oblique axes)", () => {
+    // seeded columns of random through-slice entries on an oblique slice; the slow oracle makes every centre
+    let seed = 7;
+    const rnd = () => ((seed = (seed * 1103515245 + 12345) % 2147483648) / 2147483648);
+    const th = 0.4, ph = 0.7;
+    const read = [Math.cos(th), Math.sin(th), 0];
+    const phase = [-Math.sin(th) * Math.cos(ph), Math.cos(th) * Math.cos(ph), Math.sin(ph)];
+    const slice = [read[1]! * phase[2]! - read[2]! * phase[1]!, read[2]! * phase[0]! - read[0]! * phase[2]!, read[0]! * phase[1]! - read[1]! * phase[0]!];
+    const uGrid = Array.from({ length: 40 }, (_, i) => (i - 20) * 0.004), vGrid = Array.from({ length: 30 }, (_, i) => (i - 15) * 0.004);
+    const wGrid = Array.from({ length: 9 }, (_, i) => (i - 4) * 0.01);
+    const colA: number[] = [], colB: number[] = [], entStart = [0], entW: number[] = [];
+    for (let c = 0; c < 300; c++) {
+      colA.push(Math.floor(rnd() * uGrid.length));
+      colB.push(Math.floor(rnd() * vGrid.length));
+      const n = Math.floor(rnd() * 4);
+      for (let k = 0; k < n; k++) entW.push(Math.floor(rnd() * wGrid.length));
+      entStart.push(entW.length);
+    }
+    const cells = { columns: 300, colA, colB, entStart, entW, uGrid, vGrid, wGrid, ctx: { axes: { read, phase, slice } } };
+    const xs: number[] = [], ys: number[] = [];
+    for (let c = 0; c < 300; c++) {
+      for (let e = entStart[c]!; e < entStart[c + 1]!; e++) {
+        const u = uGrid[colA[c]!]!, v = vGrid[colB[c]!]!, w = wGrid[entW[e]!]!;
+        xs.push(read[0]! * u + phase[0]! * v + slice[0]! * w);
+        ys.push(read[1]! * u + phase[1]! * v + slice[1]! * w);
+      }
+    }
+    for (const arrayRadius of [0.2, 0.11, 0.06]) {
+      const a = { ...ring, arrayRadius };
+      const slow = enclosureMargin(a, xs, ys, xs.length);
+      expect(Math.abs(cellsEnclosureMargin(a, cells) - slow)).toBeLessThan(1e-15);
+    }
+    expect(cellsEnclosureMargin({ ...ring, elements: 0 }, cells)).toBe(-Infinity);
   });
 });

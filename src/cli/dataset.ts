@@ -3,7 +3,6 @@
  * truth for people who test reconstruction code. Wiring only; the physics is
  * in src/dataset/.
  */
-import { cellCentres } from "../isochromats/index.js";
 import { Command } from "commander";
 import { readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
@@ -15,7 +14,7 @@ import { buildSequence } from "../sequence/index.js";
 import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
-  applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, coilCount, drawPerturbation, enclosureMargin,
+  applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, cellsEnclosureMargin, coilCount, drawPerturbation, enclosureMargin,
   loopPlacement, pixelCentres, sliceStepCentre, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
@@ -30,6 +29,7 @@ import { withOutputDir } from "../io/outpath.js";
 import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
 import { nodeExecutor } from "../engine/pool.js";
+import { nodePhaseHelper } from "../engine/fast-node.js";
 
 export interface DatasetCliOptions {
   /** Engine worker threads (from the shared simulation options). */
@@ -364,6 +364,9 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const t0 = Date.now();
   const plan = planDataset(phantomFile, o);
   const { protocol, array } = plan;
+  // the fast readout operator's helper thread (engine/fast-node.ts) starts now, as in simulate (pipeline.ts),
+  // so that it is up, and warm, when the first case's engine gets there
+  if (o.readout !== "direct" && (o.workers ?? defaultWorkers()) >= 2 && protocol.matrix.read * protocol.matrix.phase >= 128 * 128) nodePhaseHelper();
   const iso = isoOptions(o);
   const axes = logicalAxes(protocol);
   const C = coilCount(array);
@@ -403,8 +406,7 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     printWarnings(warnings.filter((w) => !printed.has(w)));
     for (const w of warnings) printed.add(w);
     if (array.elements > 0) {
-      const pos = cellCentres(set);
-      const m = enclosureMargin(array, pos.x, pos.y, pos.count);
+      const m = cellsEnclosureMargin(array, set);
       if (m >= 0) throw new UserError(`the coil array does not enclose the object of case ${i}: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger radius`, undefined, "--array-radius");
     }
     const progress = new Progress(`case ${i + 1}/${plan.count}`, "chunk", o.quiet);
@@ -594,9 +596,8 @@ export function coilRunFor(phantomFile: string, o: CoilCliOptions & { workers?: 
     const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
     const array = planCoilArray(o, phantom, protocol, parseVary([]), [phantom]);
     if (array.elements === 0) throw new UserError("one coil is the uniform coil of a normal run; give --coils N with N ≥ 2", undefined, "--coils");
-    // the cell centres: where the isochromats sit (isochromats/index.ts cellCentres), none made
-    const centres = cellCentres(cells);
-    const m = enclosureMargin(array, centres.x, centres.y, centres.count);
+    // over the cell centres: where the isochromats sit (none made)
+    const m = cellsEnclosureMargin(array, cells);
     if (m >= 0) throw new UserError(`the coil array does not enclose the object: isochromats lie ${(m * 100).toFixed(2)} cm beyond a loop; give a larger --array-radius`, undefined, "--array-radius");
     const progress = new Progress("simulating coils", "chunk", o.quiet);
     const { kspace, plan, readout } = await simulateCoilsPlanned(seq, { cells, get iso() { return sl.iso; } }, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), {

@@ -192,14 +192,107 @@ export function sensitivitiesAt(
   }
   const kappa = memo.kappa;
   const placement = memo.placement, ra = a.loopRadius;
-  for (let q = 0; q < placement.length; q++) {
-    const { centre: c, normal: n } = placement[q]!;
-    const base = 2 * ((firstCoil + q) * stride + offset);
-    for (let i = 0; i < count; i++) {
-      loopField(B3, ra, c[0], c[1], c[2], n[0], n[1], n[2], x[i]!, y[i]!, z[i]!);
-      out[base + 2 * i] = B3[0]! / kappa;
-      out[base + 2 * i + 1] = -B3[1]! / kappa;
+  for (let i0 = 0; i0 < count; i0 += MANY) {
+    const n = Math.min(MANY, count - i0);
+    for (let q = 0; q < placement.length; q++) {
+      const { centre: c, normal: nrm } = placement[q]!;
+      loopFieldMany(ra, c, nrm, x, y, z, i0, n);
+      const base = 2 * ((firstCoil + q) * stride + offset + i0);
+      for (let i = 0; i < n; i++) {
+        out[base + 2 * i] = MB.bx[i]! / kappa;
+        out[base + 2 * i + 1] = -MB.by[i]! / kappa;
+      }
     }
+  }
+}
+
+/** Points per batch of loopFieldMany. */
+const MANY = 64;
+/** loopFieldMany's scratch and results (Bx, By of the batch). */
+const MB = {
+  rx: new Float64Array(MANY), ry: new Float64Array(MANY), rz: new Float64Array(MANY), rho: new Float64Array(MANY), zeta: new Float64Array(MANY),
+  r2: new Float64Array(MANY), alpha2: new Float64Array(MANY), beta: new Float64Array(MANY), m: new Float64Array(MANY),
+  K: new Float64Array(MANY), E: new Float64Array(MANY), bx: new Float64Array(MANY), by: new Float64Array(MANY),
+};
+
+/**
+ * ellipticKE of m[0 … n): K[i], E[i], each with the same operations in the
+ * same order as ellipticKE (the same bits); the points advance together, so
+ * their independent iterations overlap on the processor.
+ */
+export function ellipticKEMany(m: Float64Array, n: number, K: Float64Array, E: Float64Array, aS: Float64Array = new Float64Array(n), bS: Float64Array = new Float64Array(n), cS: Float64Array = new Float64Array(n), sumS: Float64Array = new Float64Array(n)): void {
+  for (let i = 0; i < n; i++) {
+    aS[i] = 1;
+    bS[i] = Math.sqrt(1 - m[i]!);
+    cS[i] = Math.sqrt(m[i]!);
+    sumS[i] = 0.5 * m[i]!;
+  }
+  let pow = 1;
+  for (let it = 0; it < 64; it++) {
+    let any = false;
+    for (let i = 0; i < n; i++) {
+      const a = aS[i]!, c = cS[i]!;
+      if (!(c > 1e-17 * a)) continue;
+      const b = bS[i]!, an = 0.5 * (a + b), c1 = (c * c) / (4 * an);
+      cS[i] = c1;
+      bS[i] = Math.sqrt(a * b);
+      aS[i] = an;
+      sumS[i] = sumS[i]! + pow * c1 * c1;
+      any = true;
+    }
+    if (!any) break;
+    pow *= 2;
+  }
+  for (let i = 0; i < n; i++) {
+    const k = Math.PI / (2 * aS[i]!);
+    K[i] = k;
+    E[i] = k * (1 - sumS[i]!);
+  }
+}
+const KE_A = new Float64Array(MANY), KE_B = new Float64Array(MANY), KE_C = new Float64Array(MANY), KE_S = new Float64Array(MANY);
+
+/**
+ * loopField (per unit current) at points i0 … i0+n−1 (n ≤ MANY) into MB.bx,
+ * MB.by: the same operations in the same order per point (the same bits),
+ * the elliptic integrals of the batch together (ellipticKEMany).
+ */
+function loopFieldMany(a: number, c: readonly number[], nrm: readonly number[], x: ArrayLike<number>, y: ArrayLike<number>, z: ArrayLike<number>, i0: number, n: number): void {
+  const { rx, ry, rz, rho, zeta, r2, alpha2, beta, m, K, E, bx, by } = MB;
+  const cx = c[0]!, cy = c[1]!, cz = c[2]!, nx = nrm[0]!, ny = nrm[1]!, nz = nrm[2]!;
+  for (let i = 0; i < n; i++) {
+    const dx = x[i0 + i]! - cx, dy = y[i0 + i]! - cy, dz = z[i0 + i]! - cz;
+    const ze = dx * nx + dy * ny + dz * nz;
+    const px = dx - ze * nx, py = dy - ze * ny, pz = dz - ze * nz;
+    const rh = Math.sqrt(px * px + py * py + pz * pz);
+    rx[i] = px;
+    ry[i] = py;
+    rz[i] = pz;
+    rho[i] = rh;
+    zeta[i] = ze;
+    // loopFieldLocal's first steps
+    const q2 = rh * rh + ze * ze;
+    const al2 = a * a + q2 - 2 * a * rh;
+    const be2 = a * a + q2 + 2 * a * rh;
+    r2[i] = q2;
+    alpha2[i] = al2;
+    beta[i] = Math.sqrt(be2);
+    m[i] = 1 - al2 / be2;
+  }
+  ellipticKEMany(m, n, K, E, KE_A, KE_B, KE_C, KE_S);
+  for (let i = 0; i < n; i++) {
+    const rh = rho[i]!, ze = zeta[i]!, q2 = r2[i]!, al2 = alpha2[i]!, k = K[i]!, e = E[i]!;
+    const cc = (MU0 * 1) / (2 * Math.PI * al2 * beta[i]!);
+    const bZeta = cc * ((a * a - q2) * e + al2 * k);
+    let bRho: number;
+    if (rh < 1e-5 * a) {
+      const d = a * a + ze * ze;
+      bRho = (3 * MU0 * 1 * a * a * ze * rh) / (4 * d * d * Math.sqrt(d));
+    } else {
+      bRho = ((cc * ze) / rh) * ((a * a + q2) * e - al2 * k);
+    }
+    const br = rh > 0 ? bRho / rh : 0;
+    bx[i] = bZeta * nx + br * rx[i]!;
+    by[i] = bZeta * ny + br * ry[i]!;
   }
 }
 
@@ -228,4 +321,46 @@ export function enclosureMargin(a: CoilArray, x: ArrayLike<number>, y: ArrayLike
 export function uniformAndLoops(a: CoilArray, x: ArrayLike<number>, y: ArrayLike<number>, z: ArrayLike<number>, n: number, out: Float64Array): void {
   sensitivitiesAt({ ...a, elements: 0 }, x, y, z, n, out, n, 0);
   sensitivitiesAt(a, x, y, z, n, out, n, 1);
+}
+
+/** What {@link cellsEnclosureMargin} reads of sampled cells (isochromats/index.ts IsochromatCells). */
+export interface CellColumns {
+  columns: number;
+  colA: ArrayLike<number>; colB: ArrayLike<number>; entStart: ArrayLike<number>; entW: ArrayLike<number>;
+  uGrid: ArrayLike<number>; vGrid: ArrayLike<number>; wGrid: ArrayLike<number>;
+  ctx: { axes: { read: ArrayLike<number>; phase: ArrayLike<number>; slice: ArrayLike<number> } };
+}
+
+/**
+ * enclosureMargin over the centres of sampled cells (as isochromats/index.ts
+ * cellCentres places them), without making them: (p − c)·n is linear in the
+ * cell's grid coordinates (u, v, w), so over a column (u, v fixed) its
+ * largest value is at the column's least or greatest w. The same maximum up
+ * to rounding (the terms are summed in another order).
+ */
+export function cellsEnclosureMargin(a: CoilArray, cells: CellColumns): number {
+  if (a.elements === 0) return -Infinity;
+  const { read: R, phase: P, slice: S } = cells.ctx.axes;
+  const loops = loopPlacement(a).slice(0, a.elements);
+  const cu = loops.map(({ normal: n }) => R[0]! * n[0] + R[1]! * n[1]);
+  const cv = loops.map(({ normal: n }) => P[0]! * n[0] + P[1]! * n[1]);
+  const cw = loops.map(({ normal: n }) => S[0]! * n[0] + S[1]! * n[1]);
+  const c0 = loops.map(({ centre: c, normal: n }) => c[0] * n[0] + c[1] * n[1]);
+  let worst = -Infinity;
+  for (let col = 0; col < cells.columns; col++) {
+    const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+    if (e1 <= e0) continue;
+    let wLo = Infinity, wHi = -Infinity;
+    for (let e = e0; e < e1; e++) {
+      const w = cells.wGrid[cells.entW[e]!]!;
+      if (w < wLo) wLo = w;
+      if (w > wHi) wHi = w;
+    }
+    const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+    for (let q = 0; q < loops.length; q++) {
+      const d = u * cu[q]! + v * cv[q]! + Math.max(wLo * cw[q]!, wHi * cw[q]!) - c0[q]!;
+      if (d > worst) worst = d;
+    }
+  }
+  return worst;
 }

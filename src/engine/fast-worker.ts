@@ -5,6 +5,8 @@
  * waits for the next run. Loaded as compiled JavaScript.
  */
 import { parentPort } from "node:worker_threads";
-import { phaseHelperLoop, type PhaseShared } from "./fast-phase.js";
+import { phaseHelperLoop, warmUp, type PhaseShared } from "./fast-phase.js";
 
 parentPort!.on("message", (m: PhaseShared) => phaseHelperLoop(m));
+// before the first message is read (messages wait meanwhile): the thread's code optimised on made-up data
+warmUp();
