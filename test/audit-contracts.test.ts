@@ -259,6 +259,10 @@ describe("bad inputs: one line that says what works, exit 2, nothing written", (
       [{ mask: "random", accel: "0.5" }, /^--accel: .*at least 1.*got "0\.5"/],
       [{ coils: "0" }, /^--coils: .*from 1 to 256, got "0"/],
       [{ cases: "1:3" }, /^--cases: "1:3" is not a range of cases within --count 2; write A:B with 0 ≤ A < B ≤ 2/],
+      // a coil covariance without noise would be recorded in case.json but shape nothing
+      [{ coils: "2", noiseCorrelation: "0.2" }, /^--noise-correlation: .*without --snr the k-space is noise-free; add --snr X/],
+      [{ coils: "2", noiseCovariance: join(tmp, "no-such-cov.npy"), snr: "10" }, /^--noise-covariance: cannot read .*no-such-cov\.npy: no such file; give the coil noise covariance as \.npy/],
+      [{ coils: "2", noiseCovariance: writeJson(tmp, "indefinite.json", [[1, 2], [2, 1]]), snr: "10" }, /^--noise-covariance: the noise covariance is not positive definite .*give a Hermitian positive-definite matrix/],
     ];
     for (const [o, pattern] of cases) {
       const e = userErrorOf(() => planDataset(phantom, { ...base, ...o }));

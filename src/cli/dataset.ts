@@ -80,7 +80,9 @@ export function readCovariance(file: string, coils: number, option: string): CMa
   try {
     bytes = new Uint8Array(readFileSync(file));
   } catch (e) {
-    throw new UserError(`cannot read ${file}: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`, undefined, option);
+    const code = (e as NodeJS.ErrnoException).code;
+    const why = code === "ENOENT" ? "no such file" : code === "EISDIR" ? "it is a directory" : code ?? (e as Error).message;
+    throw new UserError(`cannot read ${file}: ${why}; give the coil noise covariance as .npy [coils, coils] or JSON rows`, undefined, option);
   }
   return parseCovariance(bytes, file, coils, option);
 }
@@ -273,6 +275,11 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio", "above 0 (at least 1e-6, at most 1e12), e.g. 30");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
+  if (snr === null && (o.noiseCovariance !== undefined || Number(o.noiseCorrelation) !== 0)) {
+    // without --snr the k-space is noise-free: a covariance would shape nothing (and case.json would list one that was never used)
+    const opt = o.noiseCovariance !== undefined ? "--noise-covariance" : "--noise-correlation";
+    throw new UserError(`the coil noise covariance shapes the noise, but without --snr the k-space is noise-free; add --snr X (or drop ${opt})`, undefined, opt);
+  }
   let reference: Protocol | null = null;
   if (o.noiseModel !== "snr" && o.noiseModel !== "physical") throw new UserError(`unknown noise model "${o.noiseModel}"; use snr (the SNR of this protocol) or physical (scaled from --snr-reference)`, undefined, "--noise-model");
   if (o.noiseModel === "physical") {
