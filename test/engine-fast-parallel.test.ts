@@ -14,6 +14,7 @@ import { prepare } from "../src/cli/pipeline.js";
 import { nodeExecutor, serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
 import { lastHelperBlocks, setPhaseHelper } from "../src/engine/fast.js";
 import { nodePhaseHelper } from "../src/engine/fast-node.js";
+import { reservedBytes, reservePhaseMemory, reserveUsed } from "../src/engine/fast-phase.js";
 import { relL2, tempDir } from "./helpers.js";
 
 function prep(m: number) {
@@ -72,6 +73,13 @@ describe("fast operator with a helper thread", () => {
     expect(one.readout[0]!.operator).toBe("fast");
     expect(one.kspace.coils).toBe(5);
     await expectHelpedSameBits(run, one.kspace);
+    // the same runs from a memory reserve whose pages the helper wrote ahead, reused (zeroed) by each run
+    const r = reservePhaseMemory(reservedBytes() + 64 * 2 ** 20);
+    expect(r).not.toBeNull();
+    nodePhaseHelper()!.touch!(r!.buf, r!.ctrl);
+    await expectHelpedSameBits(run, one.kspace);
+    expect(reservedBytes()).toBe(r!.buf.byteLength);
+    expect(reserveUsed()).toBeGreaterThan(0);
   }, 60_000);
 
   test("an executor of one thread (--workers 1) keeps the fast operator off the helper: no block handed over, the same bits", async () => {

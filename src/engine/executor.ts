@@ -18,7 +18,7 @@ import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
 import {
-  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, resolveReadout,
+  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
 } from "./fast.js";
 
@@ -235,6 +235,7 @@ export async function simulateCells(
     }, tolerance, 8, true);
     const use: ReadoutOperator = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
     auto = { choice: use, predicted: costs };
+    if (use === "fast") prepareHelperMemory(seq, plan, cells, costs, executor.threads ?? 2);
     if (use === "direct") {
       const res = await storedWith({ ...opts, readout: "direct" });
       return { ...res, readout: { ...res.readout, requested, ...auto } };

@@ -81,6 +81,46 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
   }
 }
 
+/**
+ * Read-axis DFT of every line of one coil, times B_l(j), summed over the
+ * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
+ * each is turned to [line][read column] first so the transforms read contiguous rows.
+ */
+/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
+export const KT = 16;
+
+/** zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i. */
+export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
+  const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
+  out.fill(0);
+  for (let l = 0; l < L; l++) {
+    const z = Zq[l]!;
+    // KT lines at a time: one sweep down the read columns reads each cache line of z once
+    for (let k0 = 0; k0 < NA; k0 += KT) {
+      const nk = Math.min(KT, NA - k0);
+      for (let i = 0; i < usedA.length; i++) {
+        const a = usedA[i]!, src = 2 * (i * NA + k0);
+        for (let t = 0; t < nk; t++) {
+          zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
+          zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
+        }
+      }
+      for (let t = 0; t < nk; t++) readOne(l, k0 + t, t);
+    }
+  }
+  function readOne(l: number, k: number, t: number): void {
+    dft.forwardStrided(zt, 2 * t * Mu, 2, nzA);
+    const o = 2 * k * ns;
+    for (let j = 0; j < ns; j++) {
+      const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
+      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+      out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
+      out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
+    }
+  }
+}
+
+/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
 // ---------------------------------------------------------------------------
 // Hand-off to a helper thread through shared memory.
 
@@ -166,13 +206,22 @@ export const PHASE_SLOTS = 4;
 /** The shared buffers of one run (posted to the helper once). */
 export interface PhaseShared {
   setup: Omit<PhaseSetup, "Z" | "colUsed">;
-  Z: SharedArrayBuffer;
+  /** Z (zLen numbers from the start) and then the PHASE_SLOTS slots of slotLen numbers each. */
+  mem: SharedArrayBuffer;
+  zLen: number;
   colUsed: SharedArrayBuffer;
   ctrl: SharedArrayBuffer;
   list: SharedArrayBuffer;
-  slots: SharedArrayBuffer[];
   slotLen: number;
   sens?: SensShared;
+  /** The last step, the read axis of every coil (readAxis), shared too: its factors, and each coil's lines (linesLen numbers) after the slots in `mem`. */
+  read?: ReadShared;
+}
+
+/** What the read axis of a coil needs (see readAxis), in shared memory. */
+export interface ReadShared {
+  BL: SharedArrayBuffer; colIdx: SharedArrayBuffer; usedA: SharedArrayBuffer;
+  ns: number; linesLen: number;
 }
 
 function ctrlLayout(ctrl: Int32Array, s: number) {
@@ -183,6 +232,47 @@ function ctrlLayout(ctrl: Int32Array, s: number) {
 function sensLayout(j: number) {
   const b = SLOT0 + 3 * PHASE_SLOTS + 2 * j;
   return { state: b, n: b + 1 };
+}
+/** Control words of the read step: started (1), next coil to claim, coils done. */
+const READ_GO = SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS, READ_NEXT = READ_GO + 1, READ_DONE = READ_GO + 2, CTRL_WORDS = READ_GO + 3;
+
+/** One thread's means for the read step: its FFT plan and gather scratch, views of Z and of each coil's lines. */
+class ReadViews {
+  private readonly dft: FFTPlan;
+  private readonly zt: Float64Array;
+  private readonly BL: Float64Array;
+  private readonly colIdx: Int32Array;
+  private readonly usedA: Int32Array;
+  readonly lines: Float64Array[];
+  constructor(private readonly setup: Omit<PhaseSetup, "Z" | "colUsed">, private readonly Z: Float64Array, mem: SharedArrayBuffer, zLen: number, slotLen: number, private readonly rd: ReadShared) {
+    this.dft = new FFTPlan(setup.Mu);
+    this.zt = new Float64Array(2 * KT * setup.Mu);
+    this.BL = new Float64Array(rd.BL);
+    this.colIdx = new Int32Array(rd.colIdx);
+    this.usedA = new Int32Array(rd.usedA);
+    const at = zLen + PHASE_SLOTS * slotLen;
+    this.lines = Array.from({ length: setup.coils }, (_, q) => new Float64Array(mem, 8 * (at + q * rd.linesLen), rd.linesLen));
+  }
+
+  /** Coil q's lines (readAxis of its segments' Z). */
+  run(q: number): void {
+    const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols;
+    const Zq = Array.from({ length: L }, (_, l) => this.Z.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
+    this.zt.fill(0);
+    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA);
+  }
+}
+
+/** Claims and runs coils of the started read step until none is left; false if it ran none. */
+function runReads(ctrl: Int32Array, rv: ReadViews, coils: number): boolean {
+  if (Atomics.load(ctrl, READ_GO) !== 1) return false;
+  let did = false;
+  for (let q = Atomics.add(ctrl, READ_NEXT, 1); q < coils; q = Atomics.add(ctrl, READ_NEXT, 1)) {
+    rv.run(q);
+    Atomics.add(ctrl, READ_DONE, 1);
+    did = true;
+  }
+  return did;
 }
 
 /** Evaluates a requested sensitivity job if there is one (claimed by CAS); false if none. */
@@ -221,9 +311,10 @@ export function phaseHelperLoop(sh: PhaseShared): void {
 
 function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
   const list = new Int32Array(sh.list);
-  const slots = sh.slots.map((b) => new Float64Array(b));
-  const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.Z), colUsed: new Uint8Array(sh.colUsed) });
+  const slots = slotViews(sh.mem, sh.zLen, sh.slotLen);
+  const t = new PhaseTransform({ ...sh.setup, Z: new Float64Array(sh.mem, 0, sh.zLen), colUsed: new Uint8Array(sh.colUsed) });
   const sv = sh.sens ? sensViews(sh.sens) : null;
+  const rv = sh.read ? new ReadViews(sh.setup, new Float64Array(sh.mem, 0, sh.zLen), sh.mem, sh.zLen, sh.slotLen, sh.read) : null;
   for (;;) {
     const gen = Atomics.load(ctrl, GEN);
     if (Atomics.load(ctrl, END) === 1) return;
@@ -245,6 +336,11 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
       did = true;
+    }
+    if (rv && runReads(ctrl, rv, sh.setup.coils)) {
+      did = true;
+      Atomics.add(ctrl, PROGRESS, 1);
+      if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
     }
     if (!did) {
       Atomics.store(ctrl, HELPER_WAITS, 1);
@@ -271,14 +367,20 @@ export class ParallelPhase {
 
   private sensViews: SensViews | null = null;
 
-  constructor(setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number }) {
-    const zb = new SharedArrayBuffer(8 * 2 * setup.NA * setup.zCols * setup.coils * setup.L);
+  private readonly readViews: ReadViews | null = null;
+
+  constructor(
+    setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number },
+    read?: { BL: Float64Array; colIdx: Int32Array; usedA: Int32Array; ns: number },
+  ) {
+    const zLen = 2 * setup.NA * setup.zCols * setup.coils * setup.L;
+    const linesLen = read ? 2 * setup.NA * read.ns : 0;
+    const mem = claimMemory(8 * (zLen + PHASE_SLOTS * slotLen + setup.coils * linesLen));
     const cu = new SharedArrayBuffer(colUsed.length);
     new Uint8Array(cu).set(colUsed);
-    const ctrl = new SharedArrayBuffer(4 * (SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS));
+    const ctrl = new SharedArrayBuffer(4 * CTRL_WORDS);
     const list = new SharedArrayBuffer(4 * 4 * Math.max(1, maxList));
-    const slots = Array.from({ length: PHASE_SLOTS }, () => new SharedArrayBuffer(8 * slotLen));
-    this.shared = { setup, Z: zb, colUsed: cu, ctrl, list, slots, slotLen };
+    this.shared = { setup, mem, zLen, colUsed: cu, ctrl, list, slotLen };
     if (sens) {
       const { maxCols, ...rest } = sens;
       const nw = sens.wGrid.length;
@@ -289,10 +391,19 @@ export class ParallelPhase {
       };
       this.sensViews = sensViews(this.shared.sens);
     }
-    this.Z = new Float64Array(zb);
+    this.Z = new Float64Array(mem, 0, zLen);
+    if (read) {
+      const share = (a: Float64Array | Int32Array) => {
+        const b = new SharedArrayBuffer(a.byteLength);
+        new Uint8Array(b).set(new Uint8Array(a.buffer, a.byteOffset, a.byteLength));
+        return b;
+      };
+      this.shared.read = { BL: share(read.BL), colIdx: share(read.colIdx), usedA: share(read.usedA), ns: read.ns, linesLen };
+      this.readViews = new ReadViews(setup, this.Z, mem, zLen, slotLen, this.shared.read);
+    }
     this.ctrl = new Int32Array(ctrl);
     this.list = new Int32Array(list);
-    this.slots = slots.map((b) => new Float64Array(b));
+    this.slots = slotViews(mem, zLen, slotLen);
     this.own = new PhaseTransform({ ...setup, Z: this.Z, colUsed: new Uint8Array(cu) });
   }
 
@@ -388,8 +499,31 @@ export class ParallelPhase {
     }
   }
 
+  /**
+   * The read step of every coil on both threads (after drain(); the
+   * constructor was given its factors): each coil's lines, as readAxis makes
+   * them on either thread (the same bits).
+   */
+  readAll(): Float64Array[] {
+    const rv = this.readViews!, coils = this.shared.setup.coils;
+    Atomics.store(this.ctrl, READ_GO, 1);
+    Atomics.add(this.ctrl, GEN, 1);
+    if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
+    runReads(this.ctrl, rv, coils);
+    while (Atomics.load(this.ctrl, READ_DONE) < coils) {
+      this.checkHelper();
+      const p = Atomics.load(this.ctrl, PROGRESS);
+      if (Atomics.load(this.ctrl, READ_DONE) >= coils) break;
+      Atomics.store(this.ctrl, MAIN_WAITS, 1);
+      Atomics.wait(this.ctrl, PROGRESS, p, 50);
+      Atomics.store(this.ctrl, MAIN_WAITS, 0);
+    }
+    return rv.lines;
+  }
+
   /** Ends the run on the helper's side (after drain()); returns the number of blocks the helper transformed. */
   end(): number {
+    releaseMemory(this.shared.mem);
     Atomics.store(this.ctrl, END, 1);
     Atomics.add(this.ctrl, GEN, 1);
     Atomics.notify(this.ctrl, GEN);
@@ -426,4 +560,83 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, MAIN_WAITS, 0);
   }
 
+}
+
+/** The slots' views of a run's shared memory (after Z's zLen numbers). */
+function slotViews(mem: SharedArrayBuffer, zLen: number, slotLen: number): Float64Array[] {
+  return Array.from({ length: PHASE_SLOTS }, (_, k) => new Float64Array(mem, 8 * (zLen + k * slotLen), slotLen));
+}
+
+// ---------------------------------------------------------------------------
+// Memory kept between runs, its pages written ahead by the helper thread.
+//
+// A page of new memory costs its first write (the kernel maps and zeroes it);
+// on some virtual machines that is about 15 µs per 4 KB page, i.e. several
+// hundred milliseconds for the Z of an eight-coil case. Where a helper thread
+// exists (Node), the run's shared arrays come from one reserve: the helper
+// writes its pages while the main thread is still sampling and planning, and
+// later runs in the process (a dataset batch) reuse it, zeroed. Nothing of a
+// run's numbers depends on where its memory came from.
+
+/** The reserve: its buffer, the toucher's state (ctrl[0]) and stop request (ctrl[1]), bytes used by earlier runs, and whether a run holds it. */
+interface Reserve { buf: SharedArrayBuffer; ctrl: Int32Array; dirty: number; inUse: boolean }
+let reserve: Reserve | null = null;
+const R_IDLE = 0, R_TOUCHING = 1, R_DONE = 2;
+/** Largest reserve kept (bytes). */
+const RESERVE_MAX = 512 * 2 ** 20;
+/** Numbers written between checks for a stop request (1 MB). */
+const TOUCH_CHUNK = 1 << 17;
+
+/**
+ * A new reserve of at least `bytes` for the next runs' shared arrays, to be
+ * touched by the helper (touchReserve); null when the one kept already
+ * serves, a run holds it, or the size is out of range.
+ */
+export function reservePhaseMemory(bytes: number): { buf: SharedArrayBuffer; ctrl: SharedArrayBuffer } | null {
+  const n = 8 * Math.ceil(bytes / 8);
+  if (!(n > 0 && n <= RESERVE_MAX)) return null;
+  if (reserve && (reserve.inUse || reserve.buf.byteLength >= n)) return null;
+  const ctrl = new SharedArrayBuffer(8);
+  reserve = { buf: new SharedArrayBuffer(n), ctrl: new Int32Array(ctrl), dirty: 0, inUse: false };
+  return { buf: reserve.buf, ctrl };
+}
+
+/** The helper's side: writes a zero to every page of a reserve (until a run claims it), unless a run claimed it first. */
+export function touchReserve(buf: SharedArrayBuffer, ctrlBuf: SharedArrayBuffer): void {
+  const ctrl = new Int32Array(ctrlBuf);
+  if (Atomics.compareExchange(ctrl, 0, R_IDLE, R_TOUCHING) !== R_IDLE) return;
+  const v = new Float64Array(buf);
+  for (let i0 = 0; i0 < v.length && Atomics.load(ctrl, 1) === 0; i0 += TOUCH_CHUNK) {
+    const i1 = Math.min(v.length, i0 + TOUCH_CHUNK);
+    for (let i = i0; i < i1; i += 512) v[i] = 0;
+  }
+  Atomics.store(ctrl, 0, R_DONE);
+  Atomics.notify(ctrl, 0);
+}
+
+/** A run's shared memory of `bytes` (all zero): the reserve when it is free and large enough (its toucher stopped first), else new. */
+function claimMemory(bytes: number): SharedArrayBuffer {
+  const r = reserve;
+  if (!r || r.inUse || r.buf.byteLength < bytes) return new SharedArrayBuffer(bytes);
+  if (Atomics.compareExchange(r.ctrl, 0, R_IDLE, R_DONE) === R_TOUCHING) {
+    Atomics.store(r.ctrl, 1, 1);
+    while (Atomics.load(r.ctrl, 0) === R_TOUCHING) Atomics.wait(r.ctrl, 0, R_TOUCHING, 20);
+  }
+  r.inUse = true;
+  if (r.dirty > 0) new Float64Array(r.buf, 0, Math.min(r.dirty, bytes) / 8).fill(0);
+  r.dirty = Math.max(r.dirty, bytes);
+  return r.buf;
+}
+
+/** Bytes of the reserve kept (0 for none), and how many of them runs have used (for tests). */
+export function reservedBytes(): number {
+  return reserve?.buf.byteLength ?? 0;
+}
+export function reserveUsed(): number {
+  return reserve?.dirty ?? 0;
+}
+
+/** A run's memory is no longer used (the reserve is free for the next run). */
+function releaseMemory(buf: SharedArrayBuffer): void {
+  if (reserve !== null && reserve.buf === buf) reserve.inUse = false;
 }

@@ -5,8 +5,11 @@
  * waits for the next run. Loaded as compiled JavaScript.
  */
 import { parentPort } from "node:worker_threads";
-import { phaseHelperLoop, warmUp, type PhaseShared } from "./fast-phase.js";
+import { phaseHelperLoop, touchReserve, warmUp, type PhaseShared } from "./fast-phase.js";
 
-parentPort!.on("message", (m: PhaseShared) => phaseHelperLoop(m));
+parentPort!.on("message", (m: PhaseShared | { touch: SharedArrayBuffer; ctrl: SharedArrayBuffer }) => {
+  if ("touch" in m) touchReserve(m.touch, m.ctrl);
+  else phaseHelperLoop(m);
+});
 // before the first message is read (messages wait meanwhile): the thread's code optimised on made-up data
 warmUp();

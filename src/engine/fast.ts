@@ -43,7 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
-import { ParallelPhase, PhaseTransform, zeroBlock, type PhaseShared } from "./fast-phase.js";
+import { KT, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, reservePhaseMemory, zeroBlock, type PhaseShared } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -114,6 +114,8 @@ const PARALLEL_PHASE_WORK = 1 << 22;
 /** A helper thread for the phase step (engine/fast-node.ts registers one in Node): start() posts a run's shared buffers. */
 export interface PhaseHelper {
   start(shared: PhaseShared): void;
+  /** Asks the helper to write the pages of a memory reserve ahead of a run (fast-phase.ts touchReserve). */
+  touch?(buf: SharedArrayBuffer, ctrl: SharedArrayBuffer): void;
 }
 let phaseHelper: (() => PhaseHelper | null) | null = null;
 let phaseMinWork = PARALLEL_PHASE_WORK;
@@ -661,7 +663,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         };
       })()
     : undefined;
-  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead) : null;
+  // with several coils the read step too is shared (per coil, ParallelPhase.readAll)
+  const readShared = coils > 1 ? { BL, colIdx, usedA: Int32Array.from(usedList), ns } : undefined;
+  const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead, readShared) : null;
   if (helper && par) helper.start(par.shared);
   try {
   const Zall: Float64Array = par ? par.Z : scratchF64("Z", zStride * coils * L);
@@ -791,12 +795,14 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     ? estimate(plan, src.iso, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2)
     : src.stream.estimate(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2);
   drain();
-  // read-axis DFT of each line, times B_l(j), summed over l into the rows
+  // read-axis DFT of each line, times B_l(j), summed over l into the rows (several coils: on both threads)
+  const perCoil = par && readShared ? par.readAll() : null;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
+    if (!perCoil) readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
+    const v = perCoil ? perCoil[q]! : lines;
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
-      addLine(re, im, ob, lines, 2 * k * ns, ns);
+      addLine(re, im, ob, v, 2 * k * ns, ns);
     }
   }
   const report: ReadoutReport = {
@@ -917,46 +923,6 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
   }
 }
 
-/**
- * Read-axis DFT of every line of one coil, times B_l(j), summed over the
- * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
- * each is turned to [line][read column] first so the transforms read contiguous rows.
- */
-/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
-const KT = 16;
-
-/** zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i. */
-function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
-  const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
-  out.fill(0);
-  for (let l = 0; l < L; l++) {
-    const z = Zq[l]!;
-    // KT lines at a time: one sweep down the read columns reads each cache line of z once
-    for (let k0 = 0; k0 < NA; k0 += KT) {
-      const nk = Math.min(KT, NA - k0);
-      for (let i = 0; i < usedA.length; i++) {
-        const a = usedA[i]!, src = 2 * (i * NA + k0);
-        for (let t = 0; t < nk; t++) {
-          zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
-          zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
-        }
-      }
-      for (let t = 0; t < nk; t++) readOne(l, k0 + t, t);
-    }
-  }
-  function readOne(l: number, k: number, t: number): void {
-    dft.forwardStrided(zt, 2 * t * Mu, 2, nzA);
-    const o = 2 * k * ns;
-    for (let j = 0; j < ns; j++) {
-      const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
-      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
-      out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
-      out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
-    }
-  }
-}
-
-/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
 function addLine(re: Float64Array, im: Float64Array, ob: number, v: Float64Array, o: number, ns: number): void {
   for (let j = 0; j < ns; j++) {
     re[ob + j] = re[ob + j]! + v[o + 2 * j]!;
@@ -1515,6 +1481,27 @@ export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatS
   const costs = predictReadoutCosts(seq, plan, iso, tolerance);
   const use = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
   return { use, costs };
+}
+
+/**
+ * Ahead of a fast run whose costs are predicted: where it will share its
+ * phase step with the helper thread, a memory reserve for the step's shared
+ * arrays (Z and the slots, at the cost model's rank and segment bounds) whose
+ * pages the helper writes while this thread goes on (fast-phase.ts). Changes
+ * no number of the run.
+ */
+export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGrid: Float64Array; vGrid: Float64Array }, costs: ReadoutCosts, threads: number): void {
+  if (threads < 2 || phaseHelper === null || costs.fastMs === null || costs.lineRankBound === undefined || costs.segmentsBound === undefined) return;
+  const R = costs.lineRankBound, L = costs.segmentsBound, coils = plan.coils;
+  const NA = seq.blocks.reduce((n, b) => n + (b.kind === "adc" ? 1 : 0), 0);
+  const [Mu, Mv] = dftLengths(seq, iso);
+  const usedCols = Math.min(Mu, iso.uGrid.length);
+  if (R * L * coils * Mv * usedCols < phaseMinWork) return;
+  const NX = R * coils * L, blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / (16 * Mv * NX))));
+  const ns = (seq.blocks.find((b) => b.kind === "adc") as { samples: number } | undefined)?.samples ?? 0;
+  const r = reservePhaseMemory(16 * NA * usedCols * coils * L + 8 * PHASE_SLOTS * 2 * blockCols * Mv * NX + (coils > 1 ? 16 * coils * NA * ns : 0));
+  if (r === null) return;
+  phaseHelper()?.touch?.(r.buf, r.ctrl);
 }
 
 /** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
