@@ -85,7 +85,7 @@ describe("dataset parts (--cases) and dataset-merge", () => {
     cpSync(parts, gap, { recursive: true });
     rmSync(join(gap, "manifest.jsonl"));
     rmSync(join(gap, "manifest-0-1.jsonl"));
-    check(gap, /cases 0–0 are missing.*--cases 0:1/);
+    check(gap, /case 0 is missing.*--cases 0:1/);
     // other settings: part 0:1 made with another seed
     const other = join(tmp, "other");
     cpSync(parts, other, { recursive: true });

@@ -15,7 +15,7 @@ import { FFT_CONVENTION_TEXT } from "../recon/convention.js";
 import { quantity } from "../units.js";
 import {
   applyPerturbation, buildCase, caseDirName, checkMaskOptions, cholesky, cellsEnclosureMargin, coilCount, drawPerturbation, enclosureMargin,
-  loopPlacement, pixelCentres, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
+  loopPlacement, pixelCentres, sliceStepCentre, sensitivitiesAt, simulateCoilsPlanned, neighbourCovariance, physicalSigma, simulateCoils, snrFactor, snrSigma, toImageGrid, FIELD_EXPONENT, type SnrFactors, parseVary, parseCovariance, sensitivityScale, MASK_KINDS, DATASET_FORMATS, Rng, STREAM, type DatasetFormat,
   type CMatrix, type CoilArray, type MaskKind, type MaskOptions, type Perturbation, type VarySpec,
 } from "../dataset/index.js";
 import { addSimulationOptions, chunkIsochromatsFromEnv, collect, isoOptions, wasmFromEnv } from "./options.js";
@@ -80,7 +80,9 @@ export function readCovariance(file: string, coils: number, option: string): CMa
   try {
     bytes = new Uint8Array(readFileSync(file));
   } catch (e) {
-    throw new UserError(`cannot read ${file}: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`, undefined, option);
+    const code = (e as NodeJS.ErrnoException).code;
+    const why = code === "ENOENT" ? "no such file" : code === "EISDIR" ? "it is a directory" : code ?? (e as Error).message;
+    throw new UserError(`cannot read ${file}: ${why}; give the coil noise covariance as .npy [coils, coils] or JSON rows`, undefined, option);
   }
   return parseCovariance(bytes, file, coils, option);
 }
@@ -90,9 +92,9 @@ function int(raw: string, option: string, min: number, max: number): number {
   if (!Number.isInteger(n) || n < min || n > max) throw new UserError(`expected a whole number from ${min} to ${max}, got "${raw}"`, undefined, option);
   return n;
 }
-function num(raw: string, option: string, min: number, max: number, what = "a number"): number {
+function num(raw: string, option: string, min: number, max: number, what = "a number", range = `from ${min} to ${max}`): number {
   const n = Number(raw);
-  if (raw.trim() === "" || !Number.isFinite(n) || n < min || n > max) throw new UserError(`expected ${what} from ${min} to ${max}, got "${raw}"`, undefined, option);
+  if (raw.trim() === "" || !Number.isFinite(n) || n < min || n > max) throw new UserError(`expected ${what} ${range}, got "${raw}"`, undefined, option);
   return n;
 }
 function length(raw: string, option: string): number {
@@ -242,7 +244,7 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
   const phaseLines = seq.image.phase;
   const mask: MaskOptions = {
     kind,
-    accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration"),
+    accel: o.accel === undefined ? (kind === "full" ? 1 : 4) : num(o.accel, "--accel", 1, Number.MAX_SAFE_INTEGER, "an acceleration", `of at least 1 (phase lines / lines sampled), e.g. 4`),
     acs: o.acs === undefined ? (kind === "full" ? 0 : Math.min(24, Math.floor(phaseLines / 4))) : int(o.acs, "--acs", 0, Number.MAX_SAFE_INTEGER),
     partialFourier: num(o.partialFourier, "--partial-fourier", 0, 1, "a fraction"),
     ...(o.exact ? { exact: true } : {}),
@@ -270,16 +272,28 @@ export function planDataset(phantomFile: string, o: DatasetCliOptions): Plan {
     psiSource = `ones on the diagonal, ${rho} between neighbouring elements (previous/next loop of a row around the ring, same loop of adjacent rows), 0 elsewhere`;
     cholesky(psi, "--noise-correlation");
   }
-  const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio");
+  const snr = o.snr === undefined ? null : num(o.snr, "--snr", 1e-6, 1e12, "a signal-to-noise ratio", "above 0 (at least 1e-6, at most 1e12), e.g. 30");
   const noiseLines = int(o.noiseLines, "--noise-lines", 0, 1 << 20);
   if (noiseLines > 0 && snr === null) throw new UserError("noise-only lines need a noise level; add --snr X", undefined, "--noise-lines");
+  if (snr === null && (o.noiseCovariance !== undefined || Number(o.noiseCorrelation) !== 0)) {
+    // without --snr the k-space is noise-free: a covariance would shape nothing (and case.json would list one that was never used)
+    const opt = o.noiseCovariance !== undefined ? "--noise-covariance" : "--noise-correlation";
+    throw new UserError(`the coil noise covariance shapes the noise, but without --snr the k-space is noise-free; add --snr X (or drop ${opt})`, undefined, opt);
+  }
   let reference: Protocol | null = null;
   if (o.noiseModel !== "snr" && o.noiseModel !== "physical") throw new UserError(`unknown noise model "${o.noiseModel}"; use snr (the SNR of this protocol) or physical (scaled from --snr-reference)`, undefined, "--noise-model");
   if (o.noiseModel === "physical") {
     if (o.snrReference === undefined || snr === null) {
-      throw new UserError("the physical noise model needs a reference: add --snr-reference <protocol> --snr X (the SNR the reference protocol has on this phantom)", undefined, "--noise-model");
+      const missing = o.snrReference === undefined && snr === null ? "--snr-reference <protocol> --snr X" : o.snrReference === undefined ? "--snr-reference <protocol>" : "--snr X";
+      throw new UserError(`the physical noise model needs a reference protocol and its SNR: add ${missing}${snr === null ? " (X = the SNR the reference protocol has on this phantom)" : ` (the protocol whose SNR on this phantom is ${snr})`}`, undefined, "--noise-model");
     }
-    reference = loadProtocol(o.snrReference, []);
+    try {
+      reference = loadProtocol(o.snrReference, []);
+    } catch (e) {
+      // name the option: the same file name may also be the main --protocol
+      if (e instanceof UserError && !e.file) throw new UserError(e.detail, undefined, "--snr-reference");
+      throw e;
+    }
   } else if (o.snrReference !== undefined) {
     throw new UserError("--snr-reference sets the physical noise model's reference; add --noise-model physical, or drop it", undefined, "--snr-reference");
   }
@@ -301,7 +315,8 @@ function rawH5Relation(p: Protocol, M: number, N: number): Record<string, unknow
     averages: `${p.averages} record${p.averages === 1 ? "" : "s"} per sampled line, idx.average = 0 … ${p.averages - 1} (encoding limit average maximum ${p.averages - 1}), the averages of a line one after another; ` +
       "the noise-free signal of each is the simulated mean over the averages (the engine adds the averages of a line with weight 1/averages), the noise of each is independent with covariance averages·σ²·Ψ per image-grid sample, " +
       "and the mean over the averages of the records of a line relates to kspace.npy by the relation above (kspace.npy holds the averaged line, noise σ²·Ψ)",
-    frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated)",
+    frame: "read_dir, phase_dir, slice_dir and position (mm, centre of the slice or slab) in the ISMRMRD patient frame: x toward the subject's left, y posterior, z superior (RAS+ x and y negated); " +
+      "image pixel n of an in-plane axis of N points at position + (n − floor(N/2))·Δ along read_dir or phase_dir, slice-encoding step p of P at position + (p − (P−1)/2)·thickness along slice_dir",
     recon: "ismrmrd_recon_cartesian_2d (2D, full sampling) gives M·N_phase × the root-sum-of-squares of the kspace.npy coil images: it uses an unnormalised inverse FFT",
     flags: "first/last in encode step 1 per slice-encoding step; first/last in encode step 2, slice, average and repetition on the first/last imaging readout; last in measurement; ACS lines: parallel calibration, plus parallel calibration and imaging when the line also belongs to the undersampled pattern (uniform: the lattice; random, poisson: every ACS line)",
   };
@@ -406,7 +421,9 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     const sim = await simulateCoilsPlanned(seq, prepared, array, protocol.receiverFilter, nodeExecutor(o.workers ?? defaultWorkers()), (d, t) => progress.update(d, t), datasetEngine(o));
     const r = buildCase(seq, sim, {
       axes, dx, dy, dz: protocol.slice.thickness, position: protocol.slice.position,
-      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, protocol.slice.position * 1e3), voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
+      // index 0 of the slice axis at its step centre (a 3D slab's steps tile the slab around the slice position), as simulate's image.nii
+      affine: voxelAffine(protocol, protocol.slice.thickness * 1e3, sliceStepCentre(0, seq.image.slice, protocol.slice.thickness, protocol.slice.position) * 1e3),
+      voxelMm: [dx * 1e3, dy * 1e3, protocol.slice.thickness * 1e3],
     }, {
       array, psi: plan.psi, snr: plan.snr, noiseLines: plan.noiseLines, mask: plan.mask, seed: o.seed,
       ...(physical ? { sigma: physical.sigma } : {}),
@@ -435,7 +452,8 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       axes: {
         order: "C order (last index fastest); dims [coil, slice, phase, read]",
         physical: { read: axes.names.read, phase: axes.names.phase, slice: axes.names.slice, frame: "RAS+ (x toward the subject's right, y anterior, z superior)" },
-        index: "index n along an axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N",
+        index: "index n along an in-plane axis of N points sits at (n − floor(N/2))·Δ along the positive physical direction named above; k-space index m at k = (m − floor(N/2))·Δk, Δk·Δ = 1/N; " +
+          "along the slice axis the P slice-encoding steps of a 3D slab tile the slab centred at the slice position: step p sits at position + (p − (P−1)/2)·thickness (truth.nii, sensitivities.npy and raw.h5 use these centres)",
         imageGrid: { slice: r.info.dims.slice, phase: r.info.dims.phase, read: r.info.dims.read },
         pixelM: { read: round(dx), phase: round(dy), slice: protocol.slice.thickness },
         acquiredKspace: r.info.kspaceAcquired,
@@ -511,8 +529,8 @@ export function registerDataset(program: Command): void {
       .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
       .option("-s, --set <key=value>", "override a protocol value, repeatable", collect, [])
       .requiredOption("-o, --out <dir>", "output folder: manifest.jsonl and one case-NNNN/ folder per case; an interrupted batch resumes here"), "")
-      .option("--noise-correlation <rho>", "noise correlation coefficient between neighbouring loops (plain number, |rho| < 0.5 for a ring)", "0")
-      .option("--noise-covariance <file>", "coil noise covariance Ψ as .npy [coils, coils] or JSON rows (or {re, im}); Hermitian positive definite")
+      .option("--noise-correlation <rho>", "noise correlation coefficient between neighbouring loops (plain number, |rho| < 0.5 for a ring; needs --snr)", "0")
+      .option("--noise-covariance <file>", "coil noise covariance Ψ as .npy [coils, coils] or JSON rows (or {re, im}); Hermitian positive definite; needs --snr")
       .option("--snr <x>", "target SNR (definition in case.json: mean object signal of the uniform-coil image / noise std of one coil's image); default: no noise")
       .option("--noise-model <name>", "snr: --snr is this protocol's SNR; physical: --snr is the SNR of --snr-reference on this phantom, and this protocol's noise follows from voxel volume, √(sampling time) and field strength", "snr")
       .option("--snr-reference <protocol>", "reference protocol (file or preset) of the physical noise model, simulated once on the unperturbed phantom with one uniform coil")

@@ -10,6 +10,7 @@ import { UserError, userError } from "../errors.js";
 import { parseProtocol, type Protocol, type ProtocolResolver } from "../protocol/index.js";
 import { parseJsonText, parsePhantom, type Phantom, type PhantomLoadOptions } from "../phantom/index.js";
 import { decodeNpy } from "../io/npy.js";
+import { repoRoot } from "./options.js";
 import { parseJsonStrict } from "../json.js";
 
 /** Folder of bundled presets (src/protocol/presets, copied beside the compiled code). */
@@ -84,7 +85,7 @@ export function loadPhantom(file: string, fieldT: number, opts: PhantomLoadOptio
   } catch (err) {
     const code = (err as NodeJS.ErrnoException).code;
     const why = code === "ENOENT" ? "no such file" : code === "EISDIR" ? "it is a directory" : (err as Error).message;
-    throw userError({ file }, `cannot read the phantom file: ${why}`);
+    throw userError({ file }, `cannot read the phantom file: ${why}; give the path of a phantom file (JSON), e.g. ${join(repoRoot(), "phantoms", "two-bottle.json")}`);
   }
   return parsePhantom(parseJsonText(text, file), file, fieldT, { readArray: readRealNpy, ...opts });
 }

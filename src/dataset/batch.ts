@@ -213,7 +213,7 @@ export function joinDatasetParts(parts: DatasetPart[], verify: (e: ManifestEntry
       if (e.case < p.from || e.case >= p.to) throw new UserError(`${p.file} lists case ${e.case}, outside its range ${p.from}:${p.to}`, undefined, "dataset-merge");
     }
     if (p.from < at) throw new UserError(`${p.file} (cases ${p.from}–${p.to - 1}) overlaps another part that covers up to case ${at - 1}; remove one of them`, undefined, "dataset-merge");
-    if (p.from > at) throw new UserError(`cases ${at}–${p.from - 1} are missing: no part covers them; run isofold dataset … --cases ${at}:${p.from}`, undefined, "dataset-merge");
+    if (p.from > at) throw new UserError(`${casesAre(at, p.from - 1)} missing: no part covers ${p.from - 1 === at ? "it" : "them"}; run isofold dataset … --cases ${at}:${p.from}`, undefined, "dataset-merge");
     for (let i = p.from; i < p.to; i++) {
       const e = m.get(i);
       if (!e) throw new UserError(`${p.file} lacks case ${i}: that part did not finish; run it again with --cases ${p.from}:${p.to}`, undefined, "dataset-merge");
@@ -223,6 +223,11 @@ export function joinDatasetParts(parts: DatasetPart[], verify: (e: ManifestEntry
     at = p.to;
   }
   if (count === undefined) throw new UserError(`the part manifests in ${where} are empty; run the parts first`, undefined, "dataset-merge");
-  if (at !== count) throw new UserError(`cases ${at}–${count - 1} of ${count} are missing: run isofold dataset … --cases ${at}:${count}`, undefined, "dataset-merge");
+  if (at !== count) throw new UserError(`${casesAre(at, count - 1)} missing (of ${count}): run isofold dataset … --cases ${at}:${count}`, undefined, "dataset-merge");
   return { entries: all, count };
+}
+
+/** "case 3 is" or "cases 3–5 are", for the merge messages. */
+function casesAre(a: number, b: number): string {
+  return a === b ? `case ${a} is` : `cases ${a}–${b} are`;
 }

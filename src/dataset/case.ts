@@ -74,15 +74,27 @@ export function toKspace(re: Float64Array, im: Float64Array, coils: number, d: D
 }
 
 /**
- * Physical position (m) of every image pixel centre: index n along an axis
- * of N points sits at (n − floor(N/2))·Δ; the slice axis at
- * slice position + (p − floor(P/2))·thickness.
+ * Centre (m, along the slice normal) of slice-encoding step 0 … P−1: the P
+ * steps tile the slab centred at the slice position, so step p sits at
+ * position + (p − (P−1)/2)·thickness, which is what the 3D sequence's
+ * receiver phase puts there (sequence/gre.ts: w_c = position + thickness/2
+ * for even P, step p at w_c + (p − floor(P/2))·thickness). One slice (2D): the
+ * slice position.
+ */
+export function sliceStepCentre(p: number, P: number, dz: number, position: number): number {
+  return position + (P % 2 === 0 ? dz / 2 : 0) + (p - Math.floor(P / 2)) * dz;
+}
+
+/**
+ * Physical position (m) of every image pixel centre: in plane, index n along
+ * an axis of N points sits at (n − floor(N/2))·Δ; along the slice normal,
+ * slice-encoding step p at {@link sliceStepCentre}.
  */
 export function pixelCentres(axes: Axes, d: Dims, dx: number, dy: number, dz: number, position: number): { x: Float64Array; y: Float64Array; z: Float64Array } {
   const n = d.slice * d.phase * d.read;
   const x = new Float64Array(n), y = new Float64Array(n), z = new Float64Array(n);
   for (let p = 0; p < d.slice; p++) {
-    const w = position + (p - Math.floor(d.slice / 2)) * dz;
+    const w = sliceStepCentre(p, d.slice, dz, position);
     for (let j = 0; j < d.phase; j++) {
       const v = (j - Math.floor(d.phase / 2)) * dy;
       for (let i = 0; i < d.read; i++) {

@@ -26,7 +26,9 @@
  *   ACS lines, and the rest drawn without replacement from the other lines
  *   (those partial Fourier keeps) with weights p(y), by the keys u^(1/p)
  *   (P. S. Efraimidis, P. G. Spirakis, "Weighted random sampling with a
- *   reservoir", Inf. Process. Lett. 97 (2006) 181–185): the largest keys win.
+ *   reservoir", Inf. Process. Lett. 97 (2006) 181–185): the largest keys win;
+ *   a line of weight 0 (y = 0 for even N) is taken last, so that R near 1
+ *   still gets round(N/R) lines.
  * - partial Fourier F ∈ (0.5, 1] (any mask): phase lines y < N − round(F·N)
  *   (the first, negative-k lines) are removed.
  */
@@ -140,12 +142,13 @@ export function makeMask(sliceSteps: number, phase: number, o: MaskOptions, rng:
         key[y] = rng.uniform(); // one draw per line, always, so the stream does not depend on the ACS
         if (y >= a0 && y < a0 + o.acs) {
           if (y >= first) { data[p * phase + y] = 1; have++; }
-        } else if (y >= first && density[y]! > 0) {
-          key[y] = Math.pow(key[y]!, 1 / density[y]!);
+        } else if (y >= first) {
+          // a line of density 0 (the edge line |y − c| = N/2 of an even N) comes last, taken only when every other line is
+          key[y] = density[y]! > 0 ? Math.pow(key[y]!, 1 / density[y]!) : -Infinity;
           free.push(y);
         }
       }
-      free.sort((a, b) => key[b]! - key[a]! || a - b);
+      free.sort((a, b) => (key[a] === key[b] ? a - b : key[b]! - key[a]!));
       for (let k = 0; k < Math.min(free.length, Math.max(0, want - have)); k++) data[p * phase + free[k]!] = 1;
     }
   } else if (o.kind === "random") {

@@ -72,7 +72,9 @@ export function cholesky(m: CMatrix, option: string): CMatrix {
     if (!(d > 1e-12 * scale)) {
       throw new UserError(
         `the noise covariance is not positive definite (Cholesky pivot ${j} is ${d.toPrecision(3)}); ` +
-          `for a neighbour correlation ρ of a ring of elements use |ρ| < 0.5, or give a positive-definite matrix`,
+          (option === "--noise-correlation"
+            ? "for a neighbour correlation ρ of a ring of elements use |ρ| < 0.5 (rows of loops need a smaller |ρ|)"
+            : "give a Hermitian positive-definite matrix (every eigenvalue > 0), e.g. ones on the diagonal and |correlations| well below 1"),
         undefined, option,
       );
     }
