@@ -365,6 +365,9 @@ function datasetRun(args: string[], out: string): { seconds: number; wall: numbe
   return { seconds: Number(m?.[2]), wall, made: Number(m?.[1]), readout: caseJson.engine.readout };
 }
 
+/** Runs of each dataset case (1 and 8 coils), alternating. */
+const DATASET_PAIRS = Number(process.env["BENCH_DATASET_PAIRS"] ?? 3);
+
 /** Dataset rows: a 128² torso case with 1 and 8 coils, and the cases per hour of an eight-coil batch (issue 13 targets: ≤ 10 s, ≤ 2× one coil). */
 function datasetRows(): void {
   const tmp = mkdtempSync(join(tmpdir(), "isofold-bench-dataset-"));
@@ -379,11 +382,18 @@ function datasetRows(): void {
     console.log("");
     console.log("| dataset (isofold dataset, 128² torso gre-t1-3t, default options, 2 workers, fresh process) | 1 coil | 8 coils | 8 coils ÷ 1 coil (target ≤ 2) | readout (8 coils) |");
     console.log("| --- | --- | --- | --- | --- |");
-    const one = datasetRun(["--coils", "1"], join(tmp, "one"));
-    const eight = datasetRun(["--coils", "8"], join(tmp, "eight"));
+    // one and eight coils alternating, DATASET_PAIRS times each (a ratio near its target needs more than one run): medians
+    const ones: ReturnType<typeof datasetRun>[] = [], eights: ReturnType<typeof datasetRun>[] = [];
+    for (let k = 0; k < DATASET_PAIRS; k++) {
+      ones.push(datasetRun(["--coils", "1"], join(tmp, `one-${k}`)));
+      eights.push(datasetRun(["--coils", "8"], join(tmp, `eight-${k}`)));
+    }
+    const one = { seconds: median(ones.map((r) => r.seconds)), wall: median(ones.map((r) => r.wall)) };
+    const eight = { seconds: median(eights.map((r) => r.seconds)), wall: median(eights.map((r) => r.wall)), readout: eights[0]!.readout };
+    const ratios = ones.map((o, k) => (eights[k]!.seconds / o.seconds).toFixed(2)).join(", ");
     console.log(
-      `| one case (command's own time; wall with start-up in brackets; target ≤ 10 s for 8 coils) | ${one.seconds.toFixed(1)} s (${one.wall.toFixed(1)} s) | ` +
-        `${eight.seconds.toFixed(1)} s (${eight.wall.toFixed(1)} s) | ${(eight.seconds / one.seconds).toFixed(1)}× | ${note(eight.readout)} |`,
+      `| one case (command's own time, median of ${DATASET_PAIRS} alternating runs; wall with start-up in brackets; target ≤ 10 s for 8 coils) | ${one.seconds.toFixed(2)} s (${one.wall.toFixed(1)} s) | ` +
+        `${eight.seconds.toFixed(2)} s (${eight.wall.toFixed(1)} s) | ${(eight.seconds / one.seconds).toFixed(2)}× (pairs: ${ratios}) | ${note(eight.readout)} |`,
     );
     const n = Number(process.env["BENCH_DATASET_CASES"] ?? 3);
     const batch = datasetRun(["--coils", "8", "--count", String(n), "--vary", "position=5mm,rotation=5deg,t1=5%"], join(tmp, "batch"));

@@ -561,7 +561,7 @@ export function registerDataset(program: Command): void {
     const range = o.cases !== undefined ? o.cases.split(":").map((v) => Number(v.trim())) : null;
     console.log(
       `dataset: ${made} case${made === 1 ? "" : "s"} written, ${r.skipped.length} verified and skipped, in ${resolve(o.out)} ` +
-        `(${r.seconds.toFixed(1)} s${made > 0 ? `, ${(r.seconds / made).toFixed(1)} s per written case` : ""}); ` +
+        `(${r.seconds.toFixed(2)} s${made > 0 ? `, ${(r.seconds / made).toFixed(2)} s per written case` : ""}); ` +
         (range ? `see manifest-${range[0]}-${range[1]}.jsonl; when every part is done: isofold dataset-merge ${o.out}` : `see manifest.jsonl and ${caseDirName(0)}/case.json`),
     );
   });
