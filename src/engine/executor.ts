@@ -217,6 +217,8 @@ export async function simulateCells(
   }
   const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1 });
   if (fastPrecheck(plan) !== null) return stored();
+  // the helper writes the pages of the fast operator's shared arrays from now on (before the cost prediction)
+  prepareHelperMemory(seq, plan, cells, tolerance, executor.threads ?? 2);
   let auto: { choice?: ReadoutOperator; predicted?: ReadoutCosts } = {};
   if (requested === "auto") {
     const costs = predictCosts(seq, plan, cells, (i0, i1, add) => {
@@ -235,7 +237,6 @@ export async function simulateCells(
     }, tolerance, 8, true);
     const use: ReadoutOperator = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
     auto = { choice: use, predicted: costs };
-    if (use === "fast") prepareHelperMemory(seq, plan, cells, costs, executor.threads ?? 2);
     if (use === "direct") {
       const res = await storedWith({ ...opts, readout: "direct" });
       return { ...res, readout: { ...res.readout, requested, ...auto } };

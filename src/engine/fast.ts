@@ -1439,9 +1439,7 @@ export function predictCosts(
   if (pre !== null || NA === 0) {
     costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
   } else {
-    const decades = Math.ceil(Math.log10(split / tolerance));
-    const L = Math.min(MAX_SEGMENTS, Math.max(1, Math.ceil(2 * T * (fMax - fMin) + T * (rMax - rMin)) + decades));
-    const R = Math.min(MAX_RANK, 1 + decades);
+    const { R, L } = boundsFrom(T, fMax - fMin, rMax - rMin, tolerance, split);
     const nu = iso.uGrid.length;
     const [Mu, Mv] = dftLengths(seq, iso);
     const usedCols = Math.min(Mu, nu);
@@ -1490,9 +1488,9 @@ export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatS
  * pages the helper writes while this thread goes on (fast-phase.ts). Changes
  * no number of the run.
  */
-export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGrid: Float64Array; vGrid: Float64Array }, costs: ReadoutCosts, threads: number): void {
-  if (threads < 2 || phaseHelper === null || costs.fastMs === null || costs.lineRankBound === undefined || costs.segmentsBound === undefined) return;
-  const R = costs.lineRankBound, L = costs.segmentsBound, coils = plan.coils;
+export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGrid: Float64Array; vGrid: Float64Array }, tolerance: number, threads: number, split = 8): void {
+  if (threads < 2 || phaseHelper === null || fastPrecheck(plan) !== null) return;
+  const { R, L } = readoutBounds(seq, plan, tolerance, split), coils = plan.coils;
   const NA = seq.blocks.reduce((n, b) => n + (b.kind === "adc" ? 1 : 0), 0);
   const [Mu, Mv] = dftLengths(seq, iso);
   const usedCols = Math.min(Mu, iso.uGrid.length);
@@ -1502,6 +1500,30 @@ export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGri
   const r = reservePhaseMemory(16 * NA * usedCols * coils * L + 8 * PHASE_SLOTS * 2 * blockCols * Mv * NX + (coils > 1 ? 16 * coils * NA * ns : 0));
   if (r === null) return;
   phaseHelper()?.touch?.(r.buf, r.ctrl);
+}
+
+/** The cost model's bounds of the line rank R and the segments L: from the tolerance, the readout duration T and the classes' (Δf, R2) spread. */
+function boundsFrom(T: number, dfSpread: number, r2Spread: number, tolerance: number, split: number): { R: number; L: number } {
+  const decades = Math.ceil(Math.log10(split / tolerance));
+  return {
+    L: Math.min(MAX_SEGMENTS, Math.max(1, Math.ceil(2 * T * dfSpread + T * r2Spread) + decades)),
+    R: Math.min(MAX_RANK, 1 + decades),
+  };
+}
+
+/** boundsFrom for a plan and sequence (as predictCosts finds them; no isochromat visited). */
+function readoutBounds(seq: Sequence, plan: EnginePlan, tolerance: number, split: number): { R: number; L: number } {
+  const { keyDf, keyR2 } = classKeys(plan);
+  let fMin = Infinity, fMax = -Infinity, rMin = Infinity, rMax = -Infinity;
+  for (let k = 0; k < keyDf.length; k++) {
+    fMin = Math.min(fMin, keyDf[k]!);
+    fMax = Math.max(fMax, keyDf[k]!);
+    rMin = Math.min(rMin, keyR2[k]!);
+    rMax = Math.max(rMax, keyR2[k]!);
+  }
+  let T = 0;
+  for (const b of seq.blocks) if (b.kind === "adc") T = Math.max(T, b.samples * b.dwell);
+  return boundsFrom(T, fMax - fMin, rMax - rMin, tolerance, split);
 }
 
 /** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
