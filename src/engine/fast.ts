@@ -1388,13 +1388,7 @@ export function predictCosts(
   const C = plan.classes, coils = plan.coils, count = iso.count;
   // (Δf, R2) keys of the classes
   const { keyOf, keyDf, keyR2 } = classKeys(plan);
-  let fMin = Infinity, fMax = -Infinity, rMin = Infinity, rMax = -Infinity;
-  for (let k = 0; k < keyDf.length; k++) {
-    fMin = Math.min(fMin, keyDf[k]!);
-    fMax = Math.max(fMax, keyDf[k]!);
-    rMin = Math.min(rMin, keyR2[k]!);
-    rMax = Math.max(rMax, keyR2[k]!);
-  }
+  const spread = keySpread(keyDf, keyR2);
   const K = Math.max(1, keyDf.length);
   // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
   const nv = Math.max(1, iso.vGrid.length);
@@ -1439,7 +1433,7 @@ export function predictCosts(
   if (pre !== null || NA === 0) {
     costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
   } else {
-    const { R, L } = boundsFrom(T, fMax - fMin, rMax - rMin, tolerance, split);
+    const { R, L } = boundsFrom(T, spread.df, spread.r2, tolerance, split);
     const nu = iso.uGrid.length;
     const [Mu, Mv] = dftLengths(seq, iso);
     const usedCols = Math.min(Mu, nu);
@@ -1514,6 +1508,14 @@ function boundsFrom(T: number, dfSpread: number, r2Spread: number, tolerance: nu
 /** boundsFrom for a plan and sequence (as predictCosts finds them; no isochromat visited). */
 function readoutBounds(seq: Sequence, plan: EnginePlan, tolerance: number, split: number): { R: number; L: number } {
   const { keyDf, keyR2 } = classKeys(plan);
+  const spread = keySpread(keyDf, keyR2);
+  let T = 0;
+  for (const b of seq.blocks) if (b.kind === "adc") T = Math.max(T, b.samples * b.dwell);
+  return boundsFrom(T, spread.df, spread.r2, tolerance, split);
+}
+
+/** Spread (greatest − least) of the keys' Δf (Hz) and R2 (1/s); −∞ for none. */
+function keySpread(keyDf: number[], keyR2: number[]): { df: number; r2: number } {
   let fMin = Infinity, fMax = -Infinity, rMin = Infinity, rMax = -Infinity;
   for (let k = 0; k < keyDf.length; k++) {
     fMin = Math.min(fMin, keyDf[k]!);
@@ -1521,9 +1523,7 @@ function readoutBounds(seq: Sequence, plan: EnginePlan, tolerance: number, split
     rMin = Math.min(rMin, keyR2[k]!);
     rMax = Math.max(rMax, keyR2[k]!);
   }
-  let T = 0;
-  for (const b of seq.blocks) if (b.kind === "adc") T = Math.max(T, b.samples * b.dwell);
-  return boundsFrom(T, fMax - fMin, rMax - rMin, tolerance, split);
+  return { df: fMax - fMin, r2: rMax - rMin };
 }
 
 /** The read and phase DFT lengths fastReadout will find (1/(Δk·grid step)), from the sequence's readouts; 1 where undefined. */
