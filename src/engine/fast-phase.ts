@@ -81,15 +81,15 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Ar
   }
 }
 
+/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
+export const KT = 16;
+
 /**
  * Read-axis DFT of every line of one coil, times B_l(j), summed over the
  * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
  * each is turned to [line][read column] first so the transforms read contiguous rows.
+ * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
-/** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
-export const KT = 16;
-
-/** zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i. */
 export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
   const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   out.fill(0);
@@ -120,7 +120,6 @@ export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number,
   }
 }
 
-/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
 // ---------------------------------------------------------------------------
 // Hand-off to a helper thread through shared memory.
 
@@ -600,6 +599,8 @@ export function reservePhaseMemory(bytes: number): { buf: SharedArrayBuffer; ctr
   const n = 8 * Math.ceil(bytes / 8);
   if (!(n > 0 && n <= RESERVE_MAX)) return null;
   if (reserve && (reserve.inUse || reserve.buf.byteLength >= n)) return null;
+  // a smaller reserve still being written is not needed any more
+  if (reserve) Atomics.store(reserve.ctrl, 1, 1);
   const ctrl = new SharedArrayBuffer(8);
   reserve = { buf: new SharedArrayBuffer(n), ctrl: new Int32Array(ctrl), dirty: 0, inUse: false };
   return { buf: reserve.buf, ctrl };

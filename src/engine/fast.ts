@@ -923,6 +923,7 @@ function addNorms(XB: Float64Array, a0: number, a1: number, colUsed: Uint8Array,
   }
 }
 
+/** re/im[ob + j] += v[o + 2j], v[o + 2j + 1] for j < ns. */
 function addLine(re: Float64Array, im: Float64Array, ob: number, v: Float64Array, o: number, ns: number): void {
   for (let j = 0; j < ns; j++) {
     re[ob + j] = re[ob + j]! + v[o + 2 * j]!;
@@ -1476,11 +1477,12 @@ export function resolveReadout(seq: Sequence, plan: EnginePlan, iso: IsochromatS
 }
 
 /**
- * Ahead of a fast run whose costs are predicted: where it will share its
- * phase step with the helper thread, a memory reserve for the step's shared
- * arrays (Z and the slots, at the cost model's rank and segment bounds) whose
- * pages the helper writes while this thread goes on (fast-phase.ts). Changes
- * no number of the run.
+ * Ahead of a run the fast operator may take (called before its costs are
+ * predicted): where it would share its phase step with the helper thread, a
+ * memory reserve for the step's shared arrays (Z, the slots and the coils'
+ * lines, at the cost model's rank and segment bounds) whose pages the helper
+ * writes while this thread goes on (fast-phase.ts). Changes no number of the
+ * run; if the direct operator runs instead, the reserve waits for a later run.
  */
 export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGrid: Float64Array; vGrid: Float64Array }, tolerance: number, threads: number, split = 8): void {
   if (threads < 2 || phaseHelper === null || fastPrecheck(plan) !== null) return;
