@@ -29,7 +29,7 @@ import { withOutputDir } from "../io/outpath.js";
 import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
 import { nodeExecutor } from "../engine/pool.js";
-import { prestartPhaseHelper } from "../engine/fast-node.js";
+import { nodePhaseHelper } from "../engine/fast-node.js";
 
 export interface DatasetCliOptions {
   /** Engine worker threads (from the shared simulation options). */
@@ -372,8 +372,8 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   const plan = planDataset(phantomFile, o);
   const { protocol, array } = plan;
   // the fast readout operator's helper thread (engine/fast-node.ts) starts now, as in simulate (pipeline.ts),
-  // so that it is up, and warm, when the first case's engine gets there
-  if (o.readout !== "direct" && (o.workers ?? defaultWorkers()) >= 2 && protocol.matrix.read * protocol.matrix.phase >= 128 * 128) prestartPhaseHelper();
+  // so that it is up when the first case's engine gets there
+  if (o.readout !== "direct" && (o.workers ?? defaultWorkers()) >= 2 && protocol.matrix.read * protocol.matrix.phase >= 128 * 128) nodePhaseHelper();
   const iso = isoOptions(o);
   const axes = logicalAxes(protocol);
   const C = coilCount(array);

@@ -13,7 +13,7 @@ import type { Sequence } from "../sequence/index.js";
 import { defaultIsochromatOptions, type IsochromatCells, type IsochromatOptions, type IsochromatSet } from "../isochromats/index.js";
 import { blockChunks, blockCount, shardBlocks, nodeExecutor, simulateCells, type EnginePlan, type KSpace, type ReadoutReport } from "../engine/node.js";
 import { countChunks } from "../engine/plan.js";
-import { prestartPhaseHelper } from "../engine/fast-node.js";
+import { nodePhaseHelper } from "../engine/fast-node.js";
 import {
   assembleResult, prepareSimulation, simulate, spreadSummary, isoOptionsFor, tissueReport, voxelAffine, SAFETY_NOTE,
   sampledLimits, slabCoverage, pathwayOrder, profileReach, type IsoSampling,
@@ -203,7 +203,7 @@ export async function run(o: RunOptions): Promise<RunResult> {
   // the fast readout operator's helper thread (engine/fast-node.ts) starts now, so that it is up when the
   // engine gets there; below about 128² the operator runs without it (fast.ts PARALLEL_PHASE_WORK)
   const m = input.parsedProtocol!.matrix;
-  if (o.readout !== "direct" && !o.coilRun && input.workers! >= 2 && m.read * m.phase >= 128 * 128) prestartPhaseHelper();
+  if (o.readout !== "direct" && !o.coilRun && input.workers! >= 2 && m.read * m.phase >= 128 * 128) nodePhaseHelper();
   let progress: Progress | null = null;
   let current = -1;
   let r: SimulateResult;

@@ -39,15 +39,4 @@ export function nodePhaseHelper(): PhaseHelper | null {
   return { start: (shared) => w.postMessage(shared), touch: (buf, ctrl) => w.postMessage({ touch: buf, ctrl }) };
 }
 
-/**
- * Starts the helper thread ahead of a run that will want it (the CLI, before
- * sampling the phantom) and has it warm up its code meanwhile (fast-phase.ts
- * warmUp); a helper made on first use by a run does not warm up.
- */
-export function prestartPhaseHelper(): void {
-  const fresh = worker === null;
-  nodePhaseHelper();
-  if (fresh && worker !== null) worker.postMessage({ warm: true });
-}
-
 setPhaseHelper(nodePhaseHelper);

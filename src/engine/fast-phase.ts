@@ -155,52 +155,6 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
     out.set(one, i * per);
   }
 }
-/**
- * The helper's own code run on made-up data for a moment (about WARM_MS in
- * all): a fresh thread's functions start unoptimised, and a run's first
- * blocks would otherwise be transformed several times slower than the rest.
- * Returns a step (well under a millisecond once optimised) to call until it returns false,
- * between the thread's messages, so a run that arrives meanwhile is not kept
- * waiting; it writes nothing outside its own arrays.
- */
-export function warmUp(): () => boolean {
-  let spent = 0;
-  const Mv = 256, NA = 128, R = 2, L = 4, coils = 2, NX = R * L * coils, Mu = 8;
-  const sab = (n: number) => new Float64Array(new SharedArrayBuffer(8 * n));
-  const mLine = Int32Array.from({ length: NA }, (_, k) => (k - NA / 2 + Mv) % Mv);
-  const AL = sab(2 * NA * R).fill(0.5), Z = sab(2 * NA * Mu * coils * L);
-  const colUsed = new Uint8Array(new SharedArrayBuffer(Mu)).fill(1), zCol = Int32Array.from({ length: Mu }, (_, a) => a);
-  const t = new PhaseTransform({ Mv, NA, NX, R, L, coils, mLine, AL, colUsed, rows: Mv, zCol, zCols: Mu, Z, Mu });
-  const list = new Int32Array(new SharedArrayBuffer(16 * NX));
-  for (let x = 0, i = 0; x < NX; x++, i++) list.set([x, Math.floor(x / (coils * L)), Math.floor(x / L) % coils, x % L], 4 * i);
-  const XB = sab(2 * Mu * Mv * NX);
-  for (let i = 0; i < XB.length; i++) XB[i] = ((i * 7919) % 1000) / 1000;
-  const nw = 12, cols = 64, loops: CoilArray = { elements: 8, rows: 1, loopRadius: 0.06, arrayRadius: 0.2, rowSpacing: 0.1, zCentre: 0 };
-  const share = (n: number, f: (i: number) => number) => {
-    const b = new SharedArrayBuffer(4 * n);
-    const v = new Int32Array(b);
-    for (let i = 0; i < n; i++) v[i] = f(i);
-    return b;
-  };
-  const sh: SensShared = {
-    loops, coils: 9, uGrid: Float64Array.from({ length: 8 }, (_, i) => (i - 4) * 0.01), vGrid: Float64Array.from({ length: 8 }, (_, i) => (i - 4) * 0.01),
-    wGrid: Float64Array.from({ length: nw }, (_, i) => (i - 6) * 0.0005), axes: { read: [1, 0, 0], phase: [0, 1, 0], slice: [0, 0, 1] },
-    colA: share(cols, (i) => i % 8), colB: share(cols, (i) => Math.floor(i / 8) % 8),
-    cols: [share(cols, (i) => i)], out: [new SharedArrayBuffer(8 * 2 * 9 * nw * cols)],
-  };
-  const sv = sensViews(sh);
-  return () => {
-    const t0 = performance.now();
-    t.run(XB, list, NX, 0, Mu);
-    zeroBlock(XB, 1, Mv, NX, Mv);
-    evalSens(sh, sv.colA, sv.colB, sv.cols[0]!, cols, sv.out[0]!, sv.px, sv.py, sv.pz, sv.one);
-    spent += performance.now() - t0;
-    return spent < WARM_MS;
-  };
-}
-/** Longest warm-up of a new helper thread (ms). */
-const WARM_MS = 150;
-
 /** Slot states. */
 const FREE = 0, READY = 1, BUSY_HELPER = 2, BUSY_MAIN = 3, FILLING = 4;
 /** Slots of folded grids (one being transformed by the helper, the others ready or free). */
