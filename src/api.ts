@@ -10,7 +10,7 @@
 import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
-import { buildSequence, sequenceDefinition, type Sequence } from "./sequence/index.js";
+import { buildSequence, sequenceDefinition, sliceStepCentre, type Sequence } from "./sequence/index.js";
 import { expandCells, sampleCells, defaultIsochromatOptions, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
@@ -436,7 +436,7 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
   const thkMm = protocol.slice.thickness * 1e3;
   const spacingMm = threeD ? thkMm : ms.spacing * 1e3;
   const firstMm = threeD
-    ? (protocol.slice.position + (protocol.matrix.slice % 2 === 0 ? protocol.slice.thickness / 2 : 0) - Math.floor(protocol.matrix.slice / 2) * protocol.slice.thickness) * 1e3
+    ? sliceStepCentre(0, protocol.matrix.slice, protocol.slice.thickness, protocol.slice.position) * 1e3
     : ms.positions[0]! * 1e3;
 
   const report: Record<string, unknown> = {

@@ -26,6 +26,9 @@ import { encodeNifti1 } from "../io/nifti.js";
 import { fft2c, fft3c } from "../recon/fft.js";
 import { reconstructGrid, toGrid } from "../recon/reconstruct.js";
 import type { KGrid, Sequence } from "../sequence/types.js";
+import { sliceStepCentre } from "../sequence/common.js";
+
+export { sliceStepCentre };
 import type { Axes } from "../protocol/geometry.js";
 import { coilCount, sensitivitiesAt, type CoilArray } from "./coils.js";
 import { addNoise, cholesky, snrSigma, type CMatrix } from "./noise.js";
@@ -71,18 +74,6 @@ export function toKspace(re: Float64Array, im: Float64Array, coils: number, d: D
     if (d.slice > 1) fft3c(r, i, d.slice, d.phase, d.read);
     else fft2c(r, i, d.phase, d.read);
   }
-}
-
-/**
- * Centre (m, along the slice normal) of slice-encoding step 0 … P−1: the P
- * steps tile the slab centred at the slice position, so step p sits at
- * position + (p − (P−1)/2)·thickness, which is what the 3D sequence's
- * receiver phase puts there (sequence/gre.ts: w_c = position + thickness/2
- * for even P, step p at w_c + (p − floor(P/2))·thickness). One slice (2D): the
- * slice position.
- */
-export function sliceStepCentre(p: number, P: number, dz: number, position: number): number {
-  return position + (P % 2 === 0 ? dz / 2 : 0) + (p - Math.floor(P / 2)) * dz;
 }
 
 /**

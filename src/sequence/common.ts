@@ -345,3 +345,15 @@ export function demandDerived(p: Protocol, demand: Demand): Record<string, Deriv
   }
   return out;
 }
+
+/**
+ * Centre (m, along the slice normal) of slice-encoding step 0 … P−1: the P
+ * steps tile the slab centred at the slice position, so step p sits at
+ * position + (p − (P−1)/2)·thickness, which is what the 3D sequence's
+ * receiver phase puts there (gre.ts: w_c = position + thickness/2
+ * for even P, step p at w_c + (p − floor(P/2))·thickness). One slice (2D): the
+ * slice position.
+ */
+export function sliceStepCentre(p: number, P: number, dz: number, position: number): number {
+  return position + (P % 2 === 0 ? dz / 2 : 0) + (p - Math.floor(P / 2)) * dz;
+}

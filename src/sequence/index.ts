@@ -5,7 +5,7 @@ import type { Sequence } from "./types.js";
 export * from "./types.js";
 export { minTrapezoid, GRAD_RASTER } from "./trapezoid.js";
 export { makePulse, profileReach as pulseProfileReach } from "./rf.js";
-export { readoutPlan, phasePlan, relativeSnr, SNR_REFERENCE } from "./common.js";
+export { readoutPlan, phasePlan, relativeSnr, sliceStepCentre, SNR_REFERENCE } from "./common.js";
 export { SEQUENCE_DEFINITIONS, sequenceDefinition } from "./registry.js";
 
 /** Builds the Sequence a protocol describes. */
