@@ -15,7 +15,8 @@ import { beforeAll, describe, expect, it } from "vitest";
 import { readdirSync, readFileSync } from "node:fs";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import h5wasm, { type Dataset } from "h5wasm/node";
+import h5wasm from "h5wasm/node";
+import { readRawH5 } from "./raw-h5.js";
 import { datasetInProcess, tempDir, userErrorOf, writeJson } from "./helpers.js";
 import { idft, npy } from "./npy-oracle.js";
 import { planDataset, type DatasetCliOptions } from "../src/cli/dataset.js";
@@ -36,12 +37,7 @@ interface Raw { xml: string; heads: Record<string, unknown>[]; data: Float32Arra
 
 /** raw.h5 read with h5wasm: the header members by name, and each record's interleaved samples. */
 function readRaw(file: string): Raw {
-  const f = new h5wasm.File(file, "r");
-  const d = f.get("dataset/data") as Dataset;
-  const names = (d.dtype as unknown as [string, [string, unknown][]][])[0]![1].map((m) => m[0]);
-  const rows = d.value as unknown as [unknown[], unknown, Float32Array][];
-  const xml = String((f.get("dataset/xml") as Dataset).value as unknown as string[]);
-  f.close();
+  const { xml, names, rows } = readRawH5(file);
   return { xml, heads: rows.map((r) => Object.fromEntries(names.map((n, i) => [n, r[0][i]]))), data: rows.map((r) => r[2]) };
 }
 const vec = (v: unknown): V3 => Array.from(v as ArrayLike<number>, Number) as V3;

@@ -25,7 +25,8 @@ import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
 import { npy, idft } from "./npy-oracle.js";
-import h5wasm, { type Dataset } from "h5wasm/node";
+import h5wasm from "h5wasm/node";
+import { readRawH5 } from "./raw-h5.js";
 
 const root = resolve(dirname(fileURLToPath(import.meta.url)), "..");
 const CLI = join(root, "dist", "src", "cli", "index.js");
@@ -53,12 +54,7 @@ function dataset(out: string, args: string[]): string {
 
 interface Rec { line: number; average: number; flags: bigint; data: Float32Array }
 function records(file: string): { xml: string; recs: Rec[] } {
-  const f = new h5wasm.File(file, "r");
-  const d = f.get("dataset/data") as Dataset;
-  const names = (d.dtype as unknown as [string, [string, unknown][]][])[0]![1].map((m) => m[0]);
-  const rows = d.value as unknown as [unknown[], Float32Array, Float32Array][];
-  const xml = String((f.get("dataset/xml") as Dataset).value as unknown as string[]);
-  f.close();
+  const { xml, names, rows } = readRawH5(file);
   const idx = names.indexOf("idx"), fl = names.indexOf("flags");
   // idx members in ISMRMRD order: kspace_encode_step_1, kspace_encode_step_2, average, …
   return { xml, recs: rows.map((r) => ({ line: (r[0][idx] as number[])[0]!, average: (r[0][idx] as number[])[2]!, flags: BigInt(r[0][fl] as bigint), data: r[2] })) };
