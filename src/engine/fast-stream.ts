@@ -859,18 +859,49 @@ export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
  */
 const ESTIMATE_TERM_CUT = 1e-3;
 
-/** mom[2·(q·nw + p)] = Σ_c ψ_p(c)·S[2·(q·nw + c)] (complex) for every coil q and term p. */
+/**
+ * mom[2·(q·nw + p)] = Σ_c ψ_p(c)·S[2·(q·nw + c)] (complex) for every coil q and term p.
+ * Four terms p share each pass over a coil's S (four independent sums, each in
+ * ascending c from +0: the same bits as one term at a time).
+ */
 export function projectThroughSlice(psi: Float64Array, S: Float64Array, coils: number, nw: number, mom: Float64Array): void {
   for (let q = 0; q < coils; q++) {
-    for (let p = 0; p < nw; p++) {
+    const sq = 2 * q * nw;
+    let p = 0;
+    for (; p + 4 <= nw; p += 4) {
+      const f0 = p * nw, f1 = f0 + nw, f2 = f1 + nw, f3 = f2 + nw;
+      let ar = 0, ai = 0, br = 0, bi = 0, cr = 0, ci = 0, dr = 0, di = 0;
+      for (let c = 0; c < nw; c++) {
+        const xr = S[sq + 2 * c]!, xi = S[sq + 2 * c + 1]!;
+        const a = psi[f0 + c]!, b = psi[f1 + c]!, cc = psi[f2 + c]!, d = psi[f3 + c]!;
+        ar += a * xr;
+        ai += a * xi;
+        br += b * xr;
+        bi += b * xi;
+        cr += cc * xr;
+        ci += cc * xi;
+        dr += d * xr;
+        di += d * xi;
+      }
+      const o = sq + 2 * p;
+      mom[o] = ar;
+      mom[o + 1] = ai;
+      mom[o + 2] = br;
+      mom[o + 3] = bi;
+      mom[o + 4] = cr;
+      mom[o + 5] = ci;
+      mom[o + 6] = dr;
+      mom[o + 7] = di;
+    }
+    for (; p < nw; p++) {
       let gr = 0, gi = 0;
       for (let c = 0; c < nw; c++) {
         const f = psi[p * nw + c]!;
-        gr += f * S[2 * (q * nw + c)]!;
-        gi += f * S[2 * (q * nw + c) + 1]!;
+        gr += f * S[sq + 2 * c]!;
+        gi += f * S[sq + 2 * c + 1]!;
       }
-      mom[2 * (q * nw + p)] = gr;
-      mom[2 * (q * nw + p) + 1] = gi;
+      mom[sq + 2 * p] = gr;
+      mom[sq + 2 * p + 1] = gi;
     }
   }
 }
@@ -907,37 +938,20 @@ export function keepTerms(e: Float64Array, n: number, budget: number, order: Int
  * γ_p at gam[2p] (both interleaved).
  */
 function addMoments(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, gam: Float64Array, order: Int32Array, nk: number, mStride: number): void {
-  if (nk <= 3) {
-    // one to three terms (most columns): their factors held in locals; the same sums in the same order
-    const m0 = nk > 0 ? order[0]! * mStride : 0, m1 = nk > 1 ? order[1]! * mStride : 0, m2 = nk > 2 ? order[2]! * mStride : 0;
-    const g0r = nk > 0 ? gam[2 * order[0]!]! : 0, g0i = nk > 0 ? gam[2 * order[0]! + 1]! : 0;
-    const g1r = nk > 1 ? gam[2 * order[1]!]! : 0, g1i = nk > 1 ? gam[2 * order[1]! + 1]! : 0;
-    const g2r = nk > 2 ? gam[2 * order[2]!]! : 0, g2i = nk > 2 ? gam[2 * order[2]! + 1]! : 0;
-    for (let r = 0; r < W; r++) {
-      const o0 = ob + r * rStride;
-      for (let l = 0; l < L; l++) {
-        const x2 = 2 * (r * L + l);
-        let vr = 0, vi = 0;
-        if (nk > 0) {
-          const zr = M[m0 + x2]!, zi = M[m0 + x2 + 1]!;
-          vr = vr + (zr * g0r - zi * g0i);
-          vi = vi + (zr * g0i + zi * g0r);
-        }
-        if (nk > 1) {
-          const zr = M[m1 + x2]!, zi = M[m1 + x2 + 1]!;
-          vr = vr + (zr * g1r - zi * g1i);
-          vi = vi + (zr * g1i + zi * g1r);
-        }
-        if (nk > 2) {
-          const zr = M[m2 + x2]!, zi = M[m2 + x2 + 1]!;
-          vr = vr + (zr * g2r - zi * g2i);
-          vi = vi + (zr * g2i + zi * g2r);
-        }
-        const o = o0 + 2 * l;
-        XB[o] = XB[o]! + vr;
-        XB[o + 1] = XB[o + 1]! + vi;
-      }
-    }
+  // one to three terms (most columns): a loop of its own for each count, the factors in locals; the same sums in the same order
+  if (nk === 1) {
+    const p0 = order[0]!;
+    addMoments1(XB, ob, rStride, W, L, M, p0 * mStride, gam[2 * p0]!, gam[2 * p0 + 1]!);
+    return;
+  }
+  if (nk === 2) {
+    const p0 = order[0]!, p1 = order[1]!;
+    addMoments2(XB, ob, rStride, W, L, M, p0 * mStride, p1 * mStride, gam[2 * p0]!, gam[2 * p0 + 1]!, gam[2 * p1]!, gam[2 * p1 + 1]!);
+    return;
+  }
+  if (nk === 3) {
+    const p0 = order[0]!, p1 = order[1]!, p2 = order[2]!;
+    addMoments3(XB, ob, rStride, W, L, M, p0 * mStride, p1 * mStride, p2 * mStride, gam[2 * p0]!, gam[2 * p0 + 1]!, gam[2 * p1]!, gam[2 * p1 + 1]!, gam[2 * p2]!, gam[2 * p2 + 1]!);
     return;
   }
   for (let r = 0; r < W; r++) {
@@ -951,6 +965,52 @@ function addMoments(XB: Float64Array, ob: number, rStride: number, W: number, L:
         vi = vi + (zr * gi + zi * gr);
       }
       const o = o0 + 2 * l;
+      XB[o] = XB[o]! + vr;
+      XB[o + 1] = XB[o + 1]! + vi;
+    }
+  }
+}
+
+/** addMoments of one term at M[m0 …] (γ = g0). */
+function addMoments1(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, m0: number, g0r: number, g0i: number): void {
+  for (let r = 0; r < W; r++) {
+    let o = ob + r * rStride, x = m0 + 2 * r * L;
+    const end = o + 2 * L;
+    for (; o < end; o += 2, x += 2) {
+      const zr = M[x]!, zi = M[x + 1]!;
+      XB[o] = XB[o]! + (0 + (zr * g0r - zi * g0i));
+      XB[o + 1] = XB[o + 1]! + (0 + (zr * g0i + zi * g0r));
+    }
+  }
+}
+
+/** addMoments of two terms at M[m0 …], M[m1 …] (γ = g0, g1), summed in that order. */
+function addMoments2(XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, m0: number, m1: number, g0r: number, g0i: number, g1r: number, g1i: number): void {
+  for (let r = 0; r < W; r++) {
+    let o = ob + r * rStride, x = 2 * r * L;
+    const end = o + 2 * L;
+    for (; o < end; o += 2, x += 2) {
+      const ar = M[m0 + x]!, ai = M[m0 + x + 1]!, br = M[m1 + x]!, bi = M[m1 + x + 1]!;
+      const vr = 0 + (ar * g0r - ai * g0i) + (br * g1r - bi * g1i);
+      const vi = 0 + (ar * g0i + ai * g0r) + (br * g1i + bi * g1r);
+      XB[o] = XB[o]! + vr;
+      XB[o + 1] = XB[o + 1]! + vi;
+    }
+  }
+}
+
+/** addMoments of three terms at M[m0 …], M[m1 …], M[m2 …] (γ = g0, g1, g2), summed in that order. */
+function addMoments3(
+  XB: Float64Array, ob: number, rStride: number, W: number, L: number, M: Float64Array, m0: number, m1: number, m2: number,
+  g0r: number, g0i: number, g1r: number, g1i: number, g2r: number, g2i: number,
+): void {
+  for (let r = 0; r < W; r++) {
+    let o = ob + r * rStride, x = 2 * r * L;
+    const end = o + 2 * L;
+    for (; o < end; o += 2, x += 2) {
+      const ar = M[m0 + x]!, ai = M[m0 + x + 1]!, br = M[m1 + x]!, bi = M[m1 + x + 1]!, cr = M[m2 + x]!, ci = M[m2 + x + 1]!;
+      const vr = 0 + (ar * g0r - ai * g0i) + (br * g1r - bi * g1i) + (cr * g2r - ci * g2i);
+      const vi = 0 + (ar * g0i + ai * g0r) + (br * g1i + bi * g1r) + (cr * g2i + ci * g2r);
       XB[o] = XB[o]! + vr;
       XB[o + 1] = XB[o + 1]! + vi;
     }
