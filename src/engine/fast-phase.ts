@@ -48,16 +48,23 @@ export class PhaseTransform {
   run(XB: Float64Array, list: Int32Array, nl: number, a0: number, a1: number): void {
     if (nl === 0) return;
     const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, zCol, zCols, rows } = this.s;
-    const dft = this.dft, out = dft.output, zStride = 2 * NA * zCols;
+    const dft = this.dft, zStride = 2 * NA * zCols;
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
       // each grid's line along the read column, read in place (stride NX; rows ≥ `rows` are +0, and no
       // value of a fold is −0: sums from +0), transformed
+      // grids next to each other (consecutive x in the list, up to BATCH) are transformed together: one
+      // sweep down the column reads each row's cache line and page once for all of them
       const base = 2 * (a - a0) * Mv * NX;
-      for (let i = 0; i < nl; i++) {
-        dft.forwardStrided(XB, base + 2 * list[4 * i]!, 2 * NX, rows);
-        const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
-        addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, mLine, AL, NA, R, r);
+      for (let i = 0; i < nl; ) {
+        const x0 = list[4 * i]!;
+        let g = 1;
+        while (g < BATCH && i + g < nl && list[4 * (i + g)]! === x0 + g) g++;
+        const out = dft.forwardBatch(XB, base + 2 * x0, 2, 2 * NX, g, rows);
+        for (let j = 0; j < g; j++, i++) {
+          const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
+          addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, dft.batchOffset(j), mLine, AL, NA, R, r);
+        }
       }
     }
   }
@@ -72,9 +79,12 @@ export function zeroBlock(XB: Float64Array, cols: number, Mv: number, NX: number
   for (let c = 0; c < cols; c++) XB.fill(0, 2 * c * Mv * NX, 2 * (c * Mv + rows) * NX);
 }
 
-function addLines(Z: Float64Array, zo: number, out: Float64Array, mLine: Int32Array, AL: Float64Array, NA: number, R: number, r: number): void {
+/** Grids transformed together by PhaseTransform.run (8: two cache lines of each row). */
+const BATCH = 8;
+
+function addLines(Z: Float64Array, zo: number, out: Float64Array, oo: number, mLine: Int32Array, AL: Float64Array, NA: number, R: number, r: number): void {
   for (let k = 0; k < NA; k++) {
-    const m = 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
+    const m = oo + 2 * mLine[k]!, fr = out[m]!, fi = out[m + 1]!;
     const cr = AL[2 * (k * R + r)]!, ci = AL[2 * (k * R + r) + 1]!, o = zo + 2 * k;
     Z[o] = Z[o]! + (fr * cr - fi * ci);
     Z[o + 1] = Z[o + 1]! + (fr * ci + fi * cr);
@@ -91,7 +101,7 @@ export const KT = 16;
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
 export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
-  const L = Zq.length, res = dft.output, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
+  const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   out.fill(0);
   for (let l = 0; l < L; l++) {
     const z = Zq[l]!;
@@ -105,14 +115,14 @@ export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number,
           zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
         }
       }
-      for (let t = 0; t < nk; t++) readOne(l, k0 + t, t);
+      const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk, nzA);
+      for (let t = 0; t < nk; t++) readOne(l, k0 + t, res, dft.batchOffset(t));
     }
   }
-  function readOne(l: number, k: number, t: number): void {
-    dft.forwardStrided(zt, 2 * t * Mu, 2, nzA);
+  function readOne(l: number, k: number, res: Float64Array, ro: number): void {
     const o = 2 * k * ns;
     for (let j = 0; j < ns; j++) {
-      const cj = colIdx[j]!, fr = res[2 * cj]!, fi = res[2 * cj + 1]!;
+      const cj = ro + 2 * colIdx[j]!, fr = res[cj]!, fi = res[cj + 1]!;
       const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
       out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
       out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);

@@ -142,14 +142,15 @@ export interface Kernel<F> {
 }
 
 /**
- * Instantiates a kernel module (synchronously: the modules are a few hundred
- * bytes) and returns its function under `exportName`, or null where
+ * Instantiates a kernel module, from its bytes or compiled once
+ * (synchronously: the modules are a few hundred bytes), and returns its function under `exportName`, or null where
  * WebAssembly or its SIMD extension is unavailable.
  */
-export function instantiateKernel<F>(bytes: Uint8Array<ArrayBuffer>, exportName: string): Kernel<F> | null {
+export function instantiateKernel<F>(bytes: Uint8Array<ArrayBuffer> | WebAssembly.Module, exportName: string): Kernel<F> | null {
   try {
-    if (typeof WebAssembly !== "object" || !WebAssembly.validate(bytes)) return null;
-    const e = new WebAssembly.Instance(new WebAssembly.Module(bytes), {}).exports as Record<string, unknown>;
+    if (typeof WebAssembly !== "object") return null;
+    if (!(bytes instanceof WebAssembly.Module) && !WebAssembly.validate(bytes)) return null;
+    const e = new WebAssembly.Instance(bytes instanceof WebAssembly.Module ? bytes : new WebAssembly.Module(bytes), {}).exports as Record<string, unknown>;
     const memory = e.memory as WebAssembly.Memory;
     return { run: e[exportName] as F, memory, f64: new Float64Array(memory.buffer) };
   } catch {

@@ -35,6 +35,7 @@
  * output right by c (fftshift); this holds for odd N as well.
  */
 import FFT from "fft.js";
+import { fftSteps, type FftSteps } from "./fft-wasm.js";
 
 /** Sign of the exponent of a DFT: −1 forward, +1 inverse (unnormalised). */
 export type FFTSign = -1 | 1;
@@ -99,10 +100,76 @@ function radix4Forward(out: Float64Array, src: Float64Array, so: number, ss: num
       out[outOff + 7] = T1i + T3r;
     }
   }
-  for (step >>= 2; step >= 2; step >>= 2) {
-    len = (size / step) << 1;
+  laterSteps(out, 0, size, width, table);
+}
+
+/**
+ * radix4Forward's first step for `count` inputs at once: input g's element j
+ * at src[so + g·gs + j·ss], its output at out[oo + g·os …] (interleaved,
+ * length size). One sweep over the inputs' rows serves all of them (where
+ * the inputs are neighbours in memory, each row is one cache line and one
+ * page for all of them); each output gets the same numbers as alone.
+ */
+function firstSteps(out: Float64Array, oo: number, os: number, count: number, src: Float64Array, so: number, gs: number, ss: number, size: number, width: number, bitrev: Int32Array, nz: number): void {
+  const step = 1 << width;
+  const len = (size / step) << 1;
+  if (len === 4) {
+    const h = (step >> 1) * ss;
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const r0 = so + (bitrev[t]! >> 1) * ss;
+      for (let g = 0, o = oo + outOff, i0 = r0; g < count; g++, o += os, i0 += gs) {
+        const i1 = i0 + h;
+        const evenR = src[i0]!, evenI = src[i0 + 1]!, oddR = src[i1]!, oddI = src[i1 + 1]!;
+        out[o] = evenR + oddR;
+        out[o + 1] = evenI + oddI;
+        out[o + 2] = evenR - oddR;
+        out[o + 3] = evenI - oddI;
+      }
+    }
+  } else if (4 * nz <= size >> 1) {
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const r0 = so + (bitrev[t]! >> 1) * ss;
+      for (let g = 0, o = oo + outOff, i0 = r0; g < count; g++, o += os, i0 += gs) {
+        const ar = src[i0]!, ai = src[i0 + 1]!;
+        out[o] = ar;
+        out[o + 1] = ai;
+        out[o + 2] = ar;
+        out[o + 3] = ai;
+        out[o + 4] = ar;
+        out[o + 5] = ai;
+        out[o + 6] = ar;
+        out[o + 7] = ai;
+      }
+    }
+  } else {
+    const h = (step >> 1) * ss;
+    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
+      const r0 = so + (bitrev[t]! >> 1) * ss;
+      for (let g = 0, o = oo + outOff, iA = r0; g < count; g++, o += os, iA += gs) {
+        const iB = iA + h, iC = iB + h, iD = iC + h;
+        const Ar = src[iA]!, Ai = src[iA + 1]!, Br = src[iB]!, Bi = src[iB + 1]!;
+        const Cr = src[iC]!, Ci = src[iC + 1]!, Dr = src[iD]!, Di = src[iD + 1]!;
+        const T0r = Ar + Cr, T0i = Ai + Ci, T1r = Ar - Cr, T1i = Ai - Ci;
+        const T2r = Br + Dr, T2i = Bi + Di, T3r = Br - Dr, T3i = Bi - Di;
+        out[o] = T0r + T2r;
+        out[o + 1] = T0i + T2i;
+        out[o + 2] = T1r + T3i;
+        out[o + 3] = T1i - T3r;
+        out[o + 4] = T0r - T2r;
+        out[o + 5] = T0i - T2i;
+        out[o + 6] = T1r - T3i;
+        out[o + 7] = T1i + T3r;
+      }
+    }
+  }
+}
+
+/** radix4Forward's twiddled steps after the first, in place on out[oo … oo + size) (the TypeScript twin of fft-wasm.ts). */
+function laterSteps(out: Float64Array, oo: number, size: number, width: number, table: Float64Array): void {
+  for (let step = (1 << width) >> 2; step >= 2; step >>= 2) {
+    const len = (size / step) << 1;
     const q = len >>> 2;
-    for (let outOff = 0; outOff < size; outOff += len) {
+    for (let outOff = oo; outOff < oo + size; outOff += len) {
       const limit = outOff + q;
       for (let A = outOff, k = 0; A < limit; A += 2, k += step) {
         const B = A + q, C = B + q, D = C + q;
@@ -133,6 +200,21 @@ function radix4Forward(out: Float64Array, src: Float64Array, so: number, ss: num
 function radix4Tables(core: FFT): { table: Float64Array; bitrev: Int32Array; width: number } {
   const c = core as unknown as { table: number[]; _bitrev: number[]; _width: number };
   return { table: Float64Array.from(c.table), bitrev: Int32Array.from(c._bitrev), width: c._width };
+}
+
+/** Whether forwardBatch runs its later steps on the WebAssembly SIMD kernel where available (the default; the same bits either way). */
+let fftWasm = true;
+
+/** Switches forwardBatch's WebAssembly SIMD kernel on or off (plans switch at their next call); returns the previous setting. */
+export function setFftWasm(on: boolean): boolean {
+  const was = fftWasm;
+  fftWasm = on;
+  return was;
+}
+
+/** Whether forwardBatch would use the WebAssembly SIMD kernel here now. */
+export function fftWasmActive(): boolean {
+  return fftWasm && fftSteps(new Float64Array([1, 0, 1, 0]), 2, 1) !== null;
 }
 
 function nextPowerOfTwo(n: number): number {
@@ -173,6 +255,8 @@ export class FFTPlan {
   private readonly bufB: Float64Array;
   /** A power-of-two n: fft.js's twiddles, bit-reversal offsets and first-step width, for radix4Forward. */
   private readonly r4: { table: Float64Array; bitrev: Int32Array; width: number } | null;
+  /** forwardBatch's outputs (made on first use). */
+  private batch: { f64: Float64Array; base: number; cap: number; steps: FftSteps | null } | null = null;
 
   /**
    * @param n transform length, a positive integer.
@@ -291,6 +375,55 @@ export class FFTPlan {
       inp[2 * j + 1] = src[so + j * ss + 1]!;
     }
     this.execute(-1);
+  }
+
+  /**
+   * Forward (−) DFTs of `count` inputs at once: input g's
+   * element j at src[so + g·gs + j·ss] (real) and the next number
+   * (imaginary), nz as in {@link FFTPlan.forwardStrided}. Returns the array
+   * holding the outputs, output g at {@link FFTPlan.batchOffset}(g)
+   * (interleaved, 2n numbers; valid until the next call). The numbers are
+   * those of forwardStrided of each input. For a power of two n, the first step in one sweep over
+   * the inputs' rows (inputs side by side in memory share each row's cache
+   * line and page), the later steps on the WebAssembly SIMD kernel where
+   * available (fft-wasm.ts, the same bits as its TypeScript twin).
+   */
+  forwardBatch(src: Float64Array, so: number, gs: number, ss: number, count: number, nz: number): Float64Array {
+    const r4 = this.r4, size = 2 * this.n, b = this.batchBuffers(count);
+    if (r4 === null) {
+      // other lengths: one transform at a time, copied out
+      for (let g = 0; g < count; g++) {
+        this.forwardStrided(src, so + g * gs, ss, nz);
+        b.f64.set(this.output, b.base + g * size);
+      }
+      return b.f64;
+    }
+    firstSteps(b.f64, b.base, size, count, src, so, gs, ss, size, r4.width, r4.bitrev, nz);
+    const step0 = (1 << r4.width) >> 2;
+    if (step0 >= 2) {
+      if (b.steps) b.steps.kernel.run(b.steps.bufBytes, count, 8 * size, step0, 0);
+      else for (let g = 0; g < count; g++) laterSteps(b.f64, b.base + g * size, size, r4.width, r4.table);
+    }
+    return b.f64;
+  }
+
+  /** Where output g of the last {@link FFTPlan.forwardBatch} starts in the array it returned. */
+  batchOffset(g: number): number {
+    return (this.batch?.base ?? 0) + 2 * this.n * g;
+  }
+
+  /** Buffers for `count` outputs: in the steps kernel's memory, or (without WebAssembly SIMD, or switched off) plain scratch. */
+  private batchBuffers(count: number): { f64: Float64Array; base: number; cap: number; steps: FftSteps | null } {
+    let b = this.batch;
+    if (b === null || b.cap < count || (b.steps !== null) !== fftWasm) {
+      const cap = Math.max(count, 16), r4 = this.r4;
+      const steps = fftWasm && r4 !== null ? fftSteps(r4.table, this.n, cap) : null;
+      b = steps
+        ? { f64: steps.kernel.f64, base: steps.bufBytes / 8, cap, steps }
+        : { f64: new Float64Array(2 * this.n * cap), base: 0, cap, steps: null };
+      this.batch = b;
+    }
+    return b;
   }
 
   /** Forward (−) DFT of interleaved `inp` into `out` by Bluestein's algorithm. */

@@ -1,0 +1,100 @@
+/**
+ * FFTPlan.forwardBatch (recon/fft.ts) against forwardStrided of each input,
+ * bit for bit: the batched first step and the WebAssembly SIMD later steps
+ * (recon/fft-wasm.ts) must give fft.js's numbers exactly (the phase step of
+ * the fast readout operator relies on it: engine/fast-phase.ts). And both
+ * against a direct O(n²) DFT (the definition) to rounding.
+ */
+import { afterEach, describe, expect, it } from "vitest";
+import { FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
+
+/** Small deterministic generator (xorshift32), values in [−0.5, 0.5). */
+function rng(seed: number): () => number {
+  let x = seed >>> 0 || 1;
+  return () => {
+    x ^= x << 13; x >>>= 0;
+    x ^= x >>> 17;
+    x ^= x << 5; x >>>= 0;
+    return x / 4294967296 - 0.5;
+  };
+}
+
+/** `count` inputs side by side (input g at offset so + 2g), rows ss apart; elements j ≥ nz exactly +0. */
+function inputs(n: number, count: number, nz: number, seed: number): { src: Float64Array; so: number; ss: number } {
+  const r = rng(seed), so = 3, ss = 2 * count + 4;
+  const src = new Float64Array(so + ss * n + 8);
+  for (let j = 0; j < nz; j++) {
+    for (let g = 0; g < count; g++) {
+      src[so + 2 * g + j * ss] = r();
+      src[so + 2 * g + j * ss + 1] = r();
+    }
+  }
+  return { src, so, ss };
+}
+
+const SIZES = [1, 2, 3, 4, 5, 8, 12, 16, 32, 64, 96, 128, 256, 512, 2048];
+
+afterEach(() => {
+  setFftWasm(true);
+});
+
+describe("forwardBatch", () => {
+  it("runs the WebAssembly SIMD steps here (else the twin would be compared with itself)", () => {
+    expect(fftWasmActive()).toBe(true);
+  });
+
+  for (const wasm of [true, false]) {
+    it(`gives forwardStrided's bits for every input (${wasm ? "WebAssembly SIMD steps" : "TypeScript twin"})`, () => {
+      setFftWasm(wasm);
+      let checked = 0;
+      for (const n of SIZES) {
+        for (const count of [1, 3, 8]) {
+          for (const nz of new Set([n, Math.max(1, n >> 1), Math.max(1, n >> 2), Math.max(1, Math.floor(n / 5)), 1])) {
+            const { src, so, ss } = inputs(n, count, nz, 7 * n + 31 * count + nz);
+            const batch = new FFTPlan(n), single = new FFTPlan(n);
+            const out = batch.forwardBatch(src, so, 2, ss, count, nz);
+            for (let g = 0; g < count; g++) {
+              single.forwardStrided(src, so + 2 * g, ss, nz);
+              const o = batch.batchOffset(g);
+              for (let j = 0; j < 2 * n; j++) {
+                if (!Object.is(out[o + j], single.output[j])) throw new Error(`n ${n}, count ${count}, nz ${nz}, input ${g}, value ${j}: ${out[o + j]} ≠ ${single.output[j]}`);
+              }
+              checked++;
+            }
+          }
+        }
+      }
+      expect(checked).toBeGreaterThan(150);
+    });
+  }
+
+  it("agrees with the direct DFT X[k] = Σ_j x[j]·exp(−i2πkj/n) to rounding", () => {
+    for (const n of [4, 12, 64, 256]) {
+      const count = 5, { src, so, ss } = inputs(n, count, n, n);
+      const plan = new FFTPlan(n), out = plan.forwardBatch(src, so, 2, ss, count, n);
+      for (let g = 0; g < count; g++) {
+        let err = 0, ref = 0;
+        for (let k = 0; k < n; k++) {
+          let re = 0, im = 0;
+          for (let j = 0; j < n; j++) {
+            const xr = src[so + 2 * g + j * ss]!, xi = src[so + 2 * g + j * ss + 1]!, th = (-2 * Math.PI * k * j) / n;
+            re += xr * Math.cos(th) - xi * Math.sin(th);
+            im += xr * Math.sin(th) + xi * Math.cos(th);
+          }
+          const o = plan.batchOffset(g) + 2 * k;
+          err = Math.max(err, Math.hypot(out[o]! - re, out[o + 1]! - im));
+          ref = Math.max(ref, Math.hypot(re, im));
+        }
+        expect(err / ref).toBeLessThan(1e-13);
+      }
+    }
+  });
+
+  it("keeps earlier plans' outputs apart: each plan has its own buffers", () => {
+    const a = new FFTPlan(16), b = new FFTPlan(16);
+    const x = inputs(16, 1, 16, 1), y = inputs(16, 1, 16, 2);
+    const oa = a.forwardBatch(x.src, x.so, 2, x.ss, 1, 16), first = Array.from(oa.subarray(a.batchOffset(0), a.batchOffset(0) + 32));
+    b.forwardBatch(y.src, y.so, 2, y.ss, 1, 16);
+    expect(Array.from(oa.subarray(a.batchOffset(0), a.batchOffset(0) + 32))).toEqual(first);
+  });
+});
