@@ -182,9 +182,9 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
   }, 60_000);
 });
 
-describe("through-slice sensitivity terms of the streamed fold (fast-stream.ts throughSliceBasis)", () => {
+describe("through-slice sensitivity terms of the streamed fold (slice-basis.ts throughSliceBasis)", () => {
   test("basis orthonormal; torso (mixed-tissue columns) with the array off the slice centre: within the tolerance of direct, estimate bounds the error, fewer terms than cells", async () => {
-    const { throughSliceBasis } = await import("../src/engine/fast-stream.js");
+    const { throughSliceBasis } = await import("../src/engine/slice-basis.js");
     // orthonormal rows (ΨΨᵀ = I): the moment form is exact when every term is kept
     const w = Array.from({ length: 12 }, (_, c) => -0.006875 + 0.00125 * c), n = w.length, psi = throughSliceBasis(w);
     let worst = 0;

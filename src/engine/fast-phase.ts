@@ -12,6 +12,7 @@
  */
 import { FFTPlan } from "../recon/fft.js";
 import { uniformAndLoops, type CoilArray } from "../dataset/coils.js";
+import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
 
 /** What every block's transform reads (the same for the whole run). */
 export interface PhaseSetup {
@@ -146,13 +147,17 @@ export interface SensShared {
   uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array;
   axes: { read: number[]; phase: number[]; slice: number[] };
   colA: SharedArrayBuffer; colB: SharedArrayBuffer;
-  /** Per job: the columns (Int32) and their sensitivities (Float64, 2·coils·nw per column, as CellStream.sensOf lays them out). */
+  /**
+   * Per job: the columns (Int32), and per column (4·coils·nw numbers) their sensitivities (2·coils·nw, as
+   * CellStream.sensOf lays them out) and then those sensitivities' through-slice moments (2·coils·nw, as
+   * slice-basis.ts projectThroughSlice makes them), so the main thread's fold need not make them.
+   */
   cols: SharedArrayBuffer[]; out: SharedArrayBuffer[];
 }
 
-/** The sensitivities of columns cols[0 … n) into out (per column 2·coils·nw numbers), as CellStream.sensOf evaluates them. */
-function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array): void {
-  const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, per = 2 * sh.coils * nw;
+/** The sensitivities and their through-slice moments of columns cols[0 … n) into out (per column 4·coils·nw numbers, see SensShared.out), as CellStream.sensOf and the fold make them. */
+function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array, psi: Float64Array, mom: Float64Array): void {
+  const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, half = 2 * sh.coils * nw, per = 2 * half;
   for (let i = 0; i < n; i++) {
     const col = cols[i]!, u = uGrid[colA[col]!]!, v = vGrid[colB[col]!]!;
     for (let c = 0; c < nw; c++) {
@@ -163,6 +168,8 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
     }
     uniformAndLoops(sh.loops, px, py, pz, nw, one);
     out.set(one, i * per);
+    projectThroughSlice(psi, one, sh.coils, nw, mom);
+    out.set(mom, i * per + half);
   }
 }
 /** Slot states. */
@@ -247,19 +254,20 @@ function runSensJob(ctrl: Int32Array, sh: SensShared, views: SensViews, busy: nu
   for (let j = 0; j < SENS_JOBS; j++) {
     const c = sensLayout(j);
     if (Atomics.compareExchange(ctrl, c.state, S_REQUESTED, busy) !== S_REQUESTED) continue;
-    evalSens(sh, views.colA, views.colB, views.cols[j]!, Atomics.load(ctrl, c.n), views.out[j]!, views.px, views.py, views.pz, views.one);
+    evalSens(sh, views.colA, views.colB, views.cols[j]!, Atomics.load(ctrl, c.n), views.out[j]!, views.px, views.py, views.pz, views.one, views.psi, views.mom);
     Atomics.store(ctrl, c.state, S_DONE);
     return true;
   }
   return false;
 }
 
-interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array }
+interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array; psi: Float64Array; mom: Float64Array }
 function sensViews(sh: SensShared): SensViews {
   const nw = sh.wGrid.length;
   return {
     colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
     px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
+    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw),
   };
 }
 
@@ -354,7 +362,7 @@ export class ParallelPhase {
       this.shared.sens = {
         ...rest,
         cols: Array.from({ length: SENS_JOBS }, () => new SharedArrayBuffer(4 * Math.max(1, maxCols))),
-        out: Array.from({ length: SENS_JOBS }, () => new SharedArrayBuffer(8 * 2 * sens.coils * nw * Math.max(1, maxCols))),
+        out: Array.from({ length: SENS_JOBS }, () => new SharedArrayBuffer(8 * 4 * sens.coils * nw * Math.max(1, maxCols))),
       };
       this.sensViews = sensViews(this.shared.sens);
     }
@@ -403,7 +411,7 @@ export class ParallelPhase {
   takeSens(j: number): Float64Array {
     const v = this.sensViews!, c = sensLayout(j), sh = this.shared.sens!;
     if (Atomics.compareExchange(this.ctrl, c.state, S_REQUESTED, S_BUSY) === S_REQUESTED) {
-      evalSens(sh, v.colA, v.colB, v.cols[j]!, Atomics.load(this.ctrl, c.n), v.out[j]!, v.px, v.py, v.pz, v.one);
+      evalSens(sh, v.colA, v.colB, v.cols[j]!, Atomics.load(this.ctrl, c.n), v.out[j]!, v.px, v.py, v.pz, v.one, v.psi, v.mom);
       Atomics.store(this.ctrl, c.state, S_DONE);
     }
     while (Atomics.load(this.ctrl, c.state) !== S_DONE) {

@@ -21,6 +21,7 @@
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
+import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
 import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
@@ -281,7 +282,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
-    tol = 0, onColumn?: (col: number, S: Float64Array, mom: Float64Array | null) => void, sensSource?: { fill: ((col: number, S: Float64Array) => void) | null },
+    tol = 0, onColumn?: (col: number, S: Float64Array, mom: Float64Array | null) => void, sensSource?: { fill: ((col: number, S: Float64Array, mom: Float64Array | null) => boolean) | null },
   ): ColumnFolder {
     void XB0;
     const coils = plan.coils;
@@ -369,15 +370,16 @@ export class CellStream {
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
       const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
       const u = uGrid[a]!;
-      if (hasSens) {
-        // evaluated ahead (by a helper thread) where the caller has them
-        if (sensSource?.fill) sensSource.fill(col, S);
-        else this.sensOf(col, S);
-      }
       // a column of one tissue through the slice: every coil's sensitivity on the basis ψ, s_p = Σ_c ψ_p(c)·S_q(c)
       // at sAll[2·(q·nw + p)] (the estimate's column sums use them too)
       const mom = hasSens && uniform ? sAll : null;
-      if (mom) projectThroughSlice(psi!, S, coils, nw, mom);
+      if (hasSens) {
+        // evaluated ahead (by a helper thread, with their moments) where the caller has them
+        if (!sensSource?.fill?.(col, S, mom)) {
+          this.sensOf(col, S);
+          if (mom) projectThroughSlice(psi!, S, coils, nw, mom);
+        }
+      }
       if (onColumn) onColumn(col, S, mom);
       if (uniform) {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
@@ -799,112 +801,12 @@ function flatFor(f0: number, lo: number, hi: number, bw: number): boolean {
 }
 
 /**
- * An orthonormal basis of R^nw for functions of the through-slice position:
- * the discrete orthogonal polynomials on the points w (Gram–Schmidt, twice,
- * of 1, x, x², … with x = w scaled to [−1, 1]; G. E. Forsythe, "Generation
- * and use of orthogonal polynomials for data-fitting with a digital
- * computer", J. SIAM 5 (1957) 74–88). Row p (psi[p·nw + c]) is ψ_p. A smooth
- * sensitivity profile has its weight in the first few; the basis is complete,
- * so keeping every term is exact.
- */
-export function throughSliceBasis(w: ArrayLike<number>): Float64Array {
-  const n = w.length, psi = new Float64Array(n * n);
-  let lo = Infinity, hi = -Infinity;
-  for (let c = 0; c < n; c++) {
-    lo = Math.min(lo, w[c]!);
-    hi = Math.max(hi, w[c]!);
-  }
-  const mid = (lo + hi) / 2, half = hi > lo ? (hi - lo) / 2 : 1;
-  const v = new Float64Array(n);
-  for (let p = 0; p < n; p++) {
-    // x·ψ_{p−1} (three-term recurrence direction), or 1
-    for (let c = 0; c < n; c++) v[c] = p === 0 ? 1 : ((w[c]! - mid) / half) * psi[(p - 1) * n + c]!;
-    for (let pass = 0; pass < 2; pass++) {
-      for (let k = 0; k < p; k++) {
-        let d = 0;
-        for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
-        for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
-      }
-    }
-    let nn = 0;
-    for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
-    nn = Math.sqrt(nn);
-    if (!(nn > 1e-8)) {
-      // points too close for the recurrence: complete the basis with unit vectors
-      for (let e = 0; e < n && !(nn > 1e-8); e++) {
-        v.fill(0);
-        v[e] = 1;
-        for (let pass = 0; pass < 2; pass++) {
-          for (let k = 0; k < p; k++) {
-            let d = 0;
-            for (let c = 0; c < n; c++) d += psi[k * n + c]! * v[c]!;
-            for (let c = 0; c < n; c++) v[c] = v[c]! - d * psi[k * n + c]!;
-          }
-        }
-        nn = 0;
-        for (let c = 0; c < n; c++) nn += v[c]! * v[c]!;
-        nn = Math.sqrt(nn);
-      }
-    }
-    for (let c = 0; c < n; c++) psi[p * n + c] = v[c]! / nn;
-  }
-  return psi;
-}
-
-/**
  * The estimate's column sums leave out a through-slice term only below this
  * fraction of the fold's own cut (tolerance/split) times the column's largest
  * term (|s_p|·‖Ym_p‖): a thousandth of what the fold may leave out, so the
  * estimate stays the direct sum to well within what it measures.
  */
 const ESTIMATE_TERM_CUT = 1e-3;
-
-/**
- * mom[2·(q·nw + p)] = Σ_c ψ_p(c)·S[2·(q·nw + c)] (complex) for every coil q and term p.
- * Four terms p share each pass over a coil's S (four independent sums, each in
- * ascending c from +0: the same bits as one term at a time).
- */
-export function projectThroughSlice(psi: Float64Array, S: Float64Array, coils: number, nw: number, mom: Float64Array): void {
-  for (let q = 0; q < coils; q++) {
-    const sq = 2 * q * nw;
-    let p = 0;
-    for (; p + 4 <= nw; p += 4) {
-      const f0 = p * nw, f1 = f0 + nw, f2 = f1 + nw, f3 = f2 + nw;
-      let ar = 0, ai = 0, br = 0, bi = 0, cr = 0, ci = 0, dr = 0, di = 0;
-      for (let c = 0; c < nw; c++) {
-        const xr = S[sq + 2 * c]!, xi = S[sq + 2 * c + 1]!;
-        const a = psi[f0 + c]!, b = psi[f1 + c]!, cc = psi[f2 + c]!, d = psi[f3 + c]!;
-        ar += a * xr;
-        ai += a * xi;
-        br += b * xr;
-        bi += b * xi;
-        cr += cc * xr;
-        ci += cc * xi;
-        dr += d * xr;
-        di += d * xi;
-      }
-      const o = sq + 2 * p;
-      mom[o] = ar;
-      mom[o + 1] = ai;
-      mom[o + 2] = br;
-      mom[o + 3] = bi;
-      mom[o + 4] = cr;
-      mom[o + 5] = ci;
-      mom[o + 6] = dr;
-      mom[o + 7] = di;
-    }
-    for (; p < nw; p++) {
-      let gr = 0, gi = 0;
-      for (let c = 0; c < nw; c++) {
-        const f = psi[p * nw + c]!;
-        gr += f * S[sq + 2 * c]!;
-        gi += f * S[sq + 2 * c + 1]!;
-      }
-      mom[sq + 2 * p] = gr;
-      mom[sq + 2 * p + 1] = gi;
-    }
-  }
-}
 
 /**
  * The terms to keep: e[p] ≤ budget/n are left out, then the smallest of the

@@ -89,7 +89,7 @@ export interface ReadoutReport {
   kernelWidth?: number | null;
   /**
    * Streamed cells with coil sensitivities: each (column, coil) of one tissue through the slice folded from the
-   * table's through-slice moments (fast-stream.ts throughSliceBasis), the terms of least weight left out within
+   * table's through-slice moments (slice-basis.ts throughSliceBasis), the terms of least weight left out within
    * tolerance/split of the column's: (column, coil) pairs so folded, mean terms kept of `of`, and the largest
    * bound on a pair's relative error left out.
    */
@@ -697,7 +697,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // each column's sensitivities (evaluated once); otherwise in a pass of their own before the last drain
   const actN = act.map((a) => a.n);
   const hooked = src.kind === "cells" && coils > 1 ? src.stream.estimateHooked(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2) : null;
-  const sensSource: { fill: ((col: number, S: Float64Array) => void) | null } = { fill: null };
+  const sensSource: { fill: ((col: number, S: Float64Array, mom: Float64Array | null) => boolean) | null } = { fill: null };
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook, sensSource);
@@ -733,7 +733,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
           job[next++] = j;
         }
       };
-      const per = 2 * coils * sensAhead.wGrid.length;
+      const half = 2 * coils * sensAhead.wGrid.length, per = 2 * half;
       for (let k = 0; k < blocks.length; k++) {
         ask();
         if (job[k]! < 0) {
@@ -744,10 +744,13 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         }
         const out = par.takeSens(job[k]!), list = cols[k]!;
         let at = 0;
-        sensSource.fill = (col, S) => {
+        sensSource.fill = (col, S, mom) => {
           if (list[at] !== col) throw new Error("fast operator: sensitivities out of step with the fold");
-          for (let i = 0, o = at * per; i < per; i++) S[i] = out[o + i]!;
+          const o = at * per;
+          for (let i = 0; i < half; i++) S[i] = out[o + i]!;
+          if (mom) for (let i = 0; i < half; i++) mom[i] = out[o + half + i]!;
           at++;
+          return true;
         };
         foldTransform(blocks[k]!);
         sensSource.fill = null;
