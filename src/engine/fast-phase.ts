@@ -71,6 +71,26 @@ export class PhaseTransform {
   }
 }
 
+/**
+ * Which grid positions of a helper's slot the fold has written (slots are not
+ * zeroed after their transform any more: a fold that writes a position's
+ * whole run stores it, and only what the block before left and this block
+ * does not write is zeroed, ParallelPhase.seal): `written` for the block being
+ * folded, `stale` for the block before it. Position pos is the run
+ * XB[2·pos·NX … 2·(pos + 1)·NX).
+ */
+export interface SlotTrack {
+  written: Uint8Array;
+  stale: Uint8Array;
+}
+
+/** Before a fold adds into position pos of a tracked slot: its run zeroed if the block before left numbers there, and marked written. */
+export function openPosition(t: SlotTrack, XB: Float64Array, pos: number, NX: number): void {
+  if (t.written[pos] !== 0) return;
+  if (t.stale[pos] !== 0) XB.fill(0, 2 * pos * NX, 2 * (pos + 1) * NX);
+  t.written[pos] = 1;
+}
+
 /** Zeroes the rows a fold can write (0 … rows − 1) of the `cols` read columns of a block of grids (the others are never written). */
 export function zeroBlock(XB: Float64Array, cols: number, Mv: number, NX: number, rows: number): void {
   if (rows >= Mv) {
@@ -304,9 +324,8 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
       const c = ctrlLayout(ctrl, s);
       if (Atomics.compareExchange(ctrl, c.state, READY, BUSY_HELPER) !== READY) continue;
       const a0 = Atomics.load(ctrl, c.a0), a1 = Atomics.load(ctrl, c.a1);
+      // the slot is not zeroed: the main thread's fold tracks what it writes (SlotTrack)
       t.run(slots[s]!, list, Atomics.load(ctrl, LIST_LEN), a0, a1);
-      // a free slot is zero (the next block is added into it)
-      zeroBlock(slots[s]!, a1 - a0, sh.setup.Mv, sh.setup.NX, sh.setup.rows);
       Atomics.store(ctrl, c.state, FREE);
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
@@ -344,6 +363,9 @@ export class ParallelPhase {
 
   private readonly readViews: ReadViews | null = null;
 
+  /** Per slot, the positions its fold wrote and those the block before left. */
+  private tracks: SlotTrack[];
+
   constructor(
     setup: Omit<PhaseSetup, "Z" | "colUsed">, colUsed: Uint8Array, maxList: number, slotLen: number, sens?: Omit<SensShared, "cols" | "out"> & { maxCols: number },
     read?: { BL: Float64Array; colIdx: Int32Array; usedA: Int32Array; ns: number },
@@ -379,6 +401,8 @@ export class ParallelPhase {
     this.ctrl = new Int32Array(ctrl);
     this.list = new Int32Array(list);
     this.slots = slotViews(mem, zLen, slotLen);
+    const positions = Math.floor(slotLen / (2 * setup.NX));
+    this.tracks = this.slots.map(() => ({ written: new Uint8Array(positions), stale: new Uint8Array(positions) }));
     this.own = new PhaseTransform({ ...setup, Z: this.Z, colUsed: new Uint8Array(cu) });
   }
 
@@ -430,23 +454,36 @@ export class ParallelPhase {
     Atomics.store(this.ctrl, sensLayout(j).state, S_FREE);
   }
 
-  /** A free slot (all zero) to fold the next block into (the main thread transforms ready blocks while none is free). */
-  acquire(): { slot: number; grids: Float64Array } {
+  /**
+   * A free slot to fold the next block into, with what the block before
+   * left in it (fold through `track`: openPosition before adding into a
+   * position, or write a position's whole run and mark it; then seal). The
+   * main thread transforms ready blocks while none is free.
+   */
+  acquire(): { slot: number; grids: Float64Array; track: SlotTrack } {
     for (;;) {
       for (let s = 0; s < this.slots.length; s++) {
         const c = ctrlLayout(this.ctrl, s);
         if (Atomics.compareExchange(this.ctrl, c.state, FREE, FILLING) !== FREE) continue;
-        return { slot: s, grids: this.slots[s]! };
+        const track = this.tracks[s]!;
+        track.written.fill(0);
+        return { slot: s, grids: this.slots[s]!, track };
       }
       if (!this.runOne()) this.waitProgress();
     }
   }
 
-  /** Hands over the acquired slot, holding the folded block of read columns a0 … a1−1. */
+  /** After the fold of an acquired slot: the runs the block before left and this fold did not write are zeroed (the slot then holds this block alone). */
+  seal(slot: number): void {
+    const t = this.tracks[slot]!, XB = this.slots[slot]!, NX = this.shared.setup.NX;
+    for (let pos = 0; pos < t.stale.length; pos++) if (t.stale[pos] !== 0 && t.written[pos] === 0) XB.fill(0, 2 * pos * NX, 2 * (pos + 1) * NX);
+    this.tracks[slot] = { written: t.stale, stale: t.written };
+  }
+
+  /** Hands over the acquired and sealed slot, holding the folded block of read columns a0 … a1−1. */
   publish(slot: number, a0: number, a1: number): void {
     const c = ctrlLayout(this.ctrl, slot);
     if (this.nl === 0) {
-      zeroBlock(this.slots[slot]!, a1 - a0, this.shared.setup.Mv, this.shared.setup.NX, this.shared.setup.rows);
       Atomics.store(this.ctrl, c.state, FREE);
       return;
     }
@@ -512,7 +549,6 @@ export class ParallelPhase {
       if (Atomics.compareExchange(this.ctrl, c.state, READY, BUSY_MAIN) !== READY) continue;
       const a0 = Atomics.load(this.ctrl, c.a0), a1 = Atomics.load(this.ctrl, c.a1);
       this.own.run(this.slots[s]!, this.list, this.nl, a0, a1);
-      zeroBlock(this.slots[s]!, a1 - a0, this.shared.setup.Mv, this.shared.setup.NX, this.shared.setup.rows);
       Atomics.store(this.ctrl, c.state, FREE);
       return true;
     }

@@ -22,6 +22,8 @@ import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
 import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
+import { FoldMoments } from "./fold-wasm.js";
+import { openPosition } from "./fast-phase.js";
 import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
@@ -354,7 +356,9 @@ export class CellStream {
     const scratch = { gTi: new Int32Array(T), wgt: new Float64Array(T * nw), ws: new Float64Array(2 * coils * nw), mom: new Float64Array(2 * coils * nw), gam, eTerm, order, drop };
     this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
     this.termTol = tol;
-    return (c0, c1, aBase, XB) => {
+    // with sensitivities, a column of one tissue folds every coil's moment sums on the SIMD kernel where it runs
+    const fm = hasSens ? FoldMoments.make(full.map((f) => f.mom), coils, nw, W, L) : null;
+    return (c0, c1, aBase, XB, track) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
@@ -385,6 +389,8 @@ export class CellStream {
         const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
         if (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
+          // the SIMD kernel writes the position's whole run (below); the other sums are added into it
+          if (track && !(hasSens && fm)) openPosition(track, XB, p >> 1, NX);
           for (let q = 0; q < coils; q++) {
             if (hasSens) {
               const mt = tab.mom!, momNorm = tab.momNorm!;
@@ -392,7 +398,9 @@ export class CellStream {
               // of squares of all of them (a bound on the column's error)
               const e2 = coilTerms(mom!, q, nw, sr, si, momNorm, gam, eTerm);
               const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), order, drop);
-              addMoments(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
+              // every coil's sums at once on the SIMD kernel (below), else this coil's now
+              if (fm) fm.setTerms(q, ti * D2 + sub, gam, order, nk);
+              else addMoments(XB, p * NX + 2 * q * L, 2 * coils * L, W, L, mt, gam, order, nk, 2 * WL);
               const st = this.sensStats;
               st.columns++;
               st.terms += nk;
@@ -408,9 +416,17 @@ export class CellStream {
               }
             }
           }
+          if (hasSens && fm) {
+            if (track && track.written[p >> 1] === 0) {
+              fm.storeInto(XB, p * NX);
+              track.written[p >> 1] = 1;
+            } else fm.addInto(XB, p * NX);
+          }
           continue;
         }
-      } else if (hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
+      }
+      if (track) openPosition(track, XB, p >> 1, NX);
+      if (!uniform && hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {

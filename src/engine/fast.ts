@@ -43,7 +43,7 @@ import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import type { CellStream } from "./fast-stream.js";
-import { KT, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, reservePhaseMemory, zeroBlock, type PhaseShared } from "./fast-phase.js";
+import { KT, openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -686,8 +686,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   };
   /** Folds a block (into a free slot of the helper's when there is one), `then` on its grids, and transforms it. */
   const foldTransform = (blk: { a0: number; a1: number; ranges: [number, number][] }, then?: (grids: Float64Array) => void) => {
-    const dest = par ? par.acquire() : { slot: -1, grids: XB };
-    foldBlock(blk, dest.grids);
+    const dest = par ? par.acquire() : { slot: -1, grids: XB, track: null };
+    foldBlock(blk, dest.grids, dest.track);
+    if (par) par.seal(dest.slot);
     then?.(dest.grids);
     if (par) par.publish(dest.slot, blk.a0, blk.a1);
     else own!.run(XB, cur, curN, blk.a0, blk.a1);
@@ -701,10 +702,10 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook, sensSource);
-  const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array) => {
-    // a helper's slot is zeroed after its transform (on the thread that ran it)
+  const foldBlock = (blk: { a0: number; a1: number; ranges: [number, number][] }, grids: Float64Array, track: SlotTrack | null) => {
+    // a helper's slot is not zeroed: the fold tracks the positions it writes (ParallelPhase.seal zeroes what the block before left)
     if (!par) zeroBlock(grids, blk.a1 - blk.a0, Mv, NX, rows);
-    for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0, grids);
+    for (const [c0, c1] of blk.ranges) folder(c0, c1, blk.a0, grids, track);
   };
   // One coil: pass 1 folds every block, sums the grids' norms, transforms rank 0
   // (it sets the budget of the pairs skipped); pass 2 folds again (cheap
@@ -854,7 +855,7 @@ function foldPass(
   const accR = new Float64Array(K * CW), accI = new Float64Array(K * CW);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
   void XB0;
-  return (c0, c1, aBase, XB) => {
+  return (c0, c1, aBase, XB, track) => {
   for (let col = c0; col < c1; col++) {
     const i0 = colStart[col]!, i1 = colStart[col + 1]!;
     if (i1 <= i0) continue;
@@ -888,6 +889,7 @@ function foldPass(
     const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
     const p = 2 * ((a % Mu - aBase) * Mv + (b % Mv));
     const u = uGrid[a]!;
+    if (track) openPosition(track, XB, p >> 1, NX);
     for (let t = 0; t < nt; t++) {
       const k = touched[t]!;
       seen[k] = 0;
@@ -1044,7 +1046,7 @@ function addProjection(coef: Float64Array, P: Float64Array, o: number, C: number
  * Folds columns c0 … c1−1 (whole columns, in column order) into a block of
  * folded read columns starting at aBase: grid position ((a mod Mu) − aBase, b mod Mv).
  */
-export type ColumnFolder = (c0: number, c1: number, aBase: number, grids: Float64Array) => void;
+export type ColumnFolder = (c0: number, c1: number, aBase: number, grids: Float64Array, track: SlotTrack | null) => void;
 
 /** A small seeded generator (mulberry32, common practice) for the sample subset. */
 export function mulberry32(seed: number): () => number {
