@@ -106,6 +106,9 @@ describe("fast operator with a helper thread", () => {
     try {
       const twins = await run(true);
       expect(sameBits(twins.kspace.re, one.kspace.re) && sameBits(twins.kspace.im, one.kspace.im)).toBe(true);
+      // the estimate's column sums run on the same kernel: the same estimate
+      expect(twins.readout[0]!.estimate).toEqual(one.readout[0]!.estimate);
+      expect(one.readout[0]!.estimate!.relL2).toBeGreaterThan(0);
       const twinsOne = await run(false);
       expect(sameBits(twinsOne.kspace.re, one.kspace.re) && sameBits(twinsOne.kspace.im, one.kspace.im)).toBe(true);
     } finally {

@@ -612,6 +612,8 @@ export class CellStream {
       }
       const colv = new Float64Array(2 * coils * NS);
       const momS = psi ? new Float64Array(2 * coils * nw) : null, eT = new Float64Array(nw);
+      // the uniform columns' sums on the SIMD kernel where it runs (Ym as its tables, one row of NS samples)
+      const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now
@@ -640,7 +642,7 @@ export class CellStream {
             }
             const ym = Ym[z]!, yn = YmNorm[z]!, mom = givenMom ?? momS!;
             if (!givenMom) projectThroughSlice(psi!, S, coils, nw, mom);
-            colv.fill(0);
+            if (!fmE) colv.fill(0);
             for (let q = 0; q < coils; q++) {
               let big = 0;
               for (let p = 0; p < nw; p++) {
@@ -649,11 +651,19 @@ export class CellStream {
                 big = Math.max(big, eT[p]!);
               }
               const cut = ESTIMATE_TERM_CUT * this.termTol * big;
+              let nk = 0;
               for (let p = 0; p < nw; p++) {
                 if (eT[p]! <= cut) continue;
-                addScaled(colv, 2 * q * NS, ym, 2 * p * NS, mom[2 * (q * nw + p)]! * fp, mom[2 * (q * nw + p) + 1]! * fp, NS);
+                if (fmE) {
+                  kept[nk++] = p;
+                  gE[2 * p] = mom[2 * (q * nw + p)]! * fp;
+                  gE[2 * p + 1] = mom[2 * (q * nw + p) + 1]! * fp;
+                } else addScaled(colv, 2 * q * NS, ym, 2 * p * NS, mom[2 * (q * nw + p)]! * fp, mom[2 * (q * nw + p) + 1]! * fp, NS);
               }
+              // colv[q] = 0 + the kept terms in ascending p (the sums addScaled makes into a zeroed colv)
+              if (fmE) fmE.setTerms(q, z, gE, kept, nk);
             }
+            if (fmE) fmE.storeInto(colv, 0);
             addSamples(u, v, colv);
             return;
           }

@@ -76,8 +76,10 @@ export function foldMomentsModule(): Uint8Array<ArrayBuffer> {
 type MomentsFn = (stage: number, coils: number, W: number, L: number, terms: number, counts: number, recq: number) => void;
 
 /**
- * One fold's moment sums on the SIMD kernel (this thread's instance): the
+ * One fold's moment sums on the SIMD kernel (an instance of its own): the
  * tables copied in once, then per column the terms of each coil and one call.
+ * The estimate's column sums (fast-stream.ts columnEstimator) use it too, with
+ * W = 1 and L = its samples.
  */
 export class FoldMoments {
   private readonly f64: Float64Array;
@@ -146,24 +148,20 @@ export class FoldMoments {
   }
 }
 
-let instance: Kernel<MomentsFn> | null | undefined;
 let compiled: WebAssembly.Module | null | undefined;
 
-/** A fresh instance per fold would cost a compile; one per thread, its memory grown as tables need. */
+/** An instance of its own (its own memory) for each user; the module is compiled once. */
 function kernel(): Kernel<MomentsFn> | null {
   if (!foldWasm) return null;
-  if (instance === undefined) {
-    if (compiled === undefined) {
-      try {
-        const bytes = foldMomentsModule();
-        compiled = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
-      } catch {
-        compiled = null;
-      }
+  if (compiled === undefined) {
+    try {
+      const bytes = foldMomentsModule();
+      compiled = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
+    } catch {
+      compiled = null;
     }
-    instance = compiled ? instantiateKernel<MomentsFn>(compiled, "moments") : null;
   }
-  return instance;
+  return compiled ? instantiateKernel<MomentsFn>(compiled, "moments") : null;
 }
 
 let foldWasm = true;
