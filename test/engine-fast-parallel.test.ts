@@ -18,6 +18,7 @@ import { reservedBytes, reservePhaseMemory, reserveUsed } from "../src/engine/fa
 import { relL2, tempDir } from "./helpers.js";
 import { setFftWasm } from "../src/recon/fft.js";
 import { setFoldWasm } from "../src/engine/fold-wasm.js";
+import { setSliceWasm } from "../src/engine/slice-basis.js";
 
 function prep(m: number) {
   return prepare({
@@ -102,7 +103,7 @@ describe("fast operator with a helper thread", () => {
     const one = await run(false);
     expect(one.readout[0]!.operator).toBe("fast");
     await expectHelpedSameBits(run, one.kspace);
-    const wasFft = setFftWasm(false), wasFold = setFoldWasm(false);
+    const wasFft = setFftWasm(false), wasFold = setFoldWasm(false), wasSlice = setSliceWasm(false);
     try {
       const twins = await run(true);
       expect(sameBits(twins.kspace.re, one.kspace.re) && sameBits(twins.kspace.im, one.kspace.im)).toBe(true);
@@ -114,6 +115,7 @@ describe("fast operator with a helper thread", () => {
     } finally {
       setFftWasm(wasFft);
       setFoldWasm(wasFold);
+      setSliceWasm(wasSlice);
     }
   }, 60_000);
 

@@ -12,7 +12,7 @@
  */
 import { FFTPlan } from "../recon/fft.js";
 import { uniformAndLoops, type CoilArray } from "../dataset/coils.js";
-import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
+import { projectThroughSlice, SliceProjector, throughSliceBasis } from "./slice-basis.js";
 
 /** What every block's transform reads (the same for the whole run). */
 export interface PhaseSetup {
@@ -176,8 +176,10 @@ export interface SensShared {
 }
 
 /** The sensitivities and their through-slice moments of columns cols[0 … n) into out (per column 4·coils·nw numbers, see SensShared.out), as CellStream.sensOf and the fold make them. */
-function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array, psi: Float64Array, mom: Float64Array): void {
+function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array, psi: Float64Array, mom: Float64Array, proj: SliceProjector | null): void {
   const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, half = 2 * sh.coils * nw, per = 2 * half;
+  // the moments of every column at once on the SIMD kernel where it runs (the same bits as projectThroughSlice)
+  const pm = proj ? proj.reserve(n * sh.coils) : null, sAt = proj ? proj.sAt() : 0;
   for (let i = 0; i < n; i++) {
     const col = cols[i]!, u = uGrid[colA[col]!]!, v = vGrid[colB[col]!]!;
     for (let c = 0; c < nw; c++) {
@@ -188,8 +190,16 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
     }
     uniformAndLoops(sh.loops, px, py, pz, nw, one);
     out.set(one, i * per);
-    projectThroughSlice(psi, one, sh.coils, nw, mom);
-    out.set(mom, i * per + half);
+    if (pm) pm.set(one, sAt + i * half);
+    else {
+      projectThroughSlice(psi, one, sh.coils, nw, mom);
+      out.set(mom, i * per + half);
+    }
+  }
+  if (proj && pm) {
+    proj.run(n * sh.coils);
+    const m0 = proj.momAt();
+    for (let i = 0; i < n; i++) out.set(pm.subarray(m0 + i * half, m0 + (i + 1) * half), i * per + half);
   }
 }
 /** Slot states. */
@@ -274,20 +284,20 @@ function runSensJob(ctrl: Int32Array, sh: SensShared, views: SensViews, busy: nu
   for (let j = 0; j < SENS_JOBS; j++) {
     const c = sensLayout(j);
     if (Atomics.compareExchange(ctrl, c.state, S_REQUESTED, busy) !== S_REQUESTED) continue;
-    evalSens(sh, views.colA, views.colB, views.cols[j]!, Atomics.load(ctrl, c.n), views.out[j]!, views.px, views.py, views.pz, views.one, views.psi, views.mom);
+    evalSens(sh, views.colA, views.colB, views.cols[j]!, Atomics.load(ctrl, c.n), views.out[j]!, views.px, views.py, views.pz, views.one, views.psi, views.mom, views.proj);
     Atomics.store(ctrl, c.state, S_DONE);
     return true;
   }
   return false;
 }
 
-interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array; psi: Float64Array; mom: Float64Array }
+interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array; psi: Float64Array; mom: Float64Array; proj: SliceProjector | null }
 function sensViews(sh: SensShared): SensViews {
   const nw = sh.wGrid.length;
   return {
     colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
     px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
-    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw),
+    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(throughSliceBasis(sh.wGrid), nw),
   };
 }
 
@@ -435,7 +445,7 @@ export class ParallelPhase {
   takeSens(j: number): Float64Array {
     const v = this.sensViews!, c = sensLayout(j), sh = this.shared.sens!;
     if (Atomics.compareExchange(this.ctrl, c.state, S_REQUESTED, S_BUSY) === S_REQUESTED) {
-      evalSens(sh, v.colA, v.colB, v.cols[j]!, Atomics.load(this.ctrl, c.n), v.out[j]!, v.px, v.py, v.pz, v.one, v.psi, v.mom);
+      evalSens(sh, v.colA, v.colB, v.cols[j]!, Atomics.load(this.ctrl, c.n), v.out[j]!, v.px, v.py, v.pz, v.one, v.psi, v.mom, v.proj);
       Atomics.store(this.ctrl, c.state, S_DONE);
     }
     while (Atomics.load(this.ctrl, c.state) !== S_DONE) {

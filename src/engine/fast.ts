@@ -667,6 +667,18 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const readShared = coils > 1 ? { BL, colIdx, usedA: Int32Array.from(usedList), ns } : undefined;
   const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead, readShared) : null;
   if (helper && par) helper.start(par.shared);
+  // sensitivities of the first blocks asked for now (the helper evaluates them while this thread sets up the fold);
+  // the helper evaluates them first, and this thread evaluates a job itself if the helper has not started it when the fold needs it
+  const sensCols = par && sensAhead ? blocks.map(blockColumns) : [], sensJob = new Int32Array(sensCols.length).fill(-1);
+  let sensNext = 0;
+  const askSens = () => {
+    while (par && sensNext < sensCols.length) {
+      const j = par.requestSens(sensCols[sensNext]!, sensCols[sensNext]!.length);
+      if (j < 0) return;
+      sensJob[sensNext++] = j;
+    }
+  };
+  if (coils > 1) askSens();
   try {
   const Zall: Float64Array = par ? par.Z : scratchF64("Z", zStride * coils * L);
   const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
@@ -723,17 +735,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
     setList(all);
     if (par && sensAhead) {
-      // sensitivities of the next blocks requested ahead (the helper evaluates them first; the
-      // main thread evaluates a job itself if the helper has not started it when the fold needs it)
-      const cols = blocks.map(blockColumns), job = new Int32Array(blocks.length).fill(-1);
-      let next = 0;
-      const ask = () => {
-        while (next < blocks.length) {
-          const j = par.requestSens(cols[next]!, cols[next]!.length);
-          if (j < 0) return;
-          job[next++] = j;
-        }
-      };
+      // sensitivities of the next blocks requested ahead (askSens above)
+      const cols = sensCols, job = sensJob, ask = askSens;
       const half = 2 * coils * sensAhead.wGrid.length, per = 2 * half;
       for (let k = 0; k < blocks.length; k++) {
         ask();

@@ -4,6 +4,11 @@
  * own so the helper thread (fast-phase.ts) can project the sensitivities it
  * evaluates, with the same code (the same bits).
  */
+import {
+  BR_IF, F64X2_ADD, F64X2_MUL, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
+  i32Const, instantiateKernel, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
+  type Code, type Kernel,
+} from "./wasm-asm.js";
 
 /**
  * An orthonormal basis of R^nw for functions of the through-slice position:
@@ -105,3 +110,118 @@ export function projectThroughSlice(psi: Float64Array, S: Float64Array, coils: n
   }
 }
 
+
+// ---------------------------------------------------------------------------
+// projectThroughSlice as a WebAssembly SIMD kernel, for the helper thread's
+// sensitivity jobs (fast-phase.ts evalSens): one f64x2 holds one complex
+// sensitivity (re, im), each ψ_p(c) a pair (ψ, ψ), so a lane pair gets
+// acc + ψ·S exactly as the TypeScript sums `ar += a·xr`, `ai += a·xi` (from
+// +0, in ascending c): the same bits. Memory (bytes): ψ as pairs from 0
+// (16·nw² bytes), then the sensitivities of the rows (coil × column, nw
+// complex values each) and their moments (nw each).
+
+// local indices: parameters, then 9 i32 and 1 v128 locals
+const K_S = 0, K_MOM = 1, K_ROWS = 2, K_NW = 3, K_PSI = 4;
+const K_SP = 5, K_MP = 6, K_G = 7, K_P = 8, K_PP = 9, K_C = 10, K_X = 11, K_Y = 12, K_ROW = 13;
+const K_ACC = 14;
+
+/** The module's bytes: export "project"(s, mom, rows, nw, psi); export "memory". */
+export function sliceProjectModule(): Uint8Array<ArrayBuffer> {
+  const add = (a: number, b: Code): Code[] => [localGet(a), b, [I32_ADD], localSet(a)];
+  const body: Code = [
+    ...localGet(K_S), ...localSet(K_SP),
+    ...localGet(K_MOM), ...localSet(K_MP),
+    ...localGet(K_NW), ...i32Const(16), ...[I32_MUL], ...localSet(K_ROW),
+    ...i32Const(0), ...localSet(K_G),
+    ...loop(
+      i32Const(0), localSet(K_P),
+      localGet(K_PSI), localSet(K_PP),
+      loop(
+        [...simd(V128_CONST_OP), ...new Array<number>(16).fill(0)], localSet(K_ACC),
+        i32Const(0), localSet(K_C),
+        localGet(K_SP), localSet(K_X),
+        localGet(K_PP), localSet(K_Y),
+        loop(
+          localGet(K_ACC), localGet(K_Y), v128Load(0), localGet(K_X), v128Load(0), simd(F64X2_MUL), simd(F64X2_ADD), localSet(K_ACC),
+          ...add(K_X, i32Const(16)), ...add(K_Y, i32Const(16)),
+          localGet(K_C), i32Const(1), [I32_ADD], localTee(K_C), localGet(K_NW), [I32_LT_U], [BR_IF, 0],
+        ),
+        localGet(K_MP), localGet(K_ACC), v128Store(0),
+        ...add(K_MP, i32Const(16)), ...add(K_PP, localGet(K_ROW)),
+        localGet(K_P), i32Const(1), [I32_ADD], localTee(K_P), localGet(K_NW), [I32_LT_U], [BR_IF, 0],
+      ),
+      ...add(K_SP, localGet(K_ROW)),
+      localGet(K_G), i32Const(1), [I32_ADD], localTee(K_G), localGet(K_ROWS), [I32_LT_U], [BR_IF, 0],
+    ),
+  ];
+  return kernelModule({ exportName: "project", params: 5, locals: [[9, I32], [1, V128]], body });
+}
+
+const V128_CONST_OP = 0x0c;
+
+type ProjectFn = (s: number, mom: number, rows: number, nw: number, psi: number) => void;
+
+/** projectThroughSlice of many coil rows at once on the SIMD kernel (an instance of its own, ψ in its memory). */
+export class SliceProjector {
+  private f64: Float64Array;
+  private cap = 0;
+  private constructor(private readonly k: Kernel<ProjectFn>, private readonly nw: number, psi: Float64Array) {
+    this.f64 = reserveKernelMemory(k, 16 * nw * nw);
+    for (let i = 0; i < nw * nw; i++) {
+      this.f64[2 * i] = psi[i]!;
+      this.f64[2 * i + 1] = psi[i]!;
+    }
+  }
+
+  /** A projector for the basis psi (nw × nw), or null where WebAssembly SIMD is unavailable. */
+  static make(psi: Float64Array, nw: number): SliceProjector | null {
+    const k = projectKernel();
+    return k ? new SliceProjector(k, nw, psi) : null;
+  }
+
+  /** Room for `rows` rows: the array to write their sensitivities to (at sAt(), 2·nw numbers per row) and read their moments from (at momAt()). */
+  reserve(rows: number): Float64Array {
+    if (rows > this.cap) {
+      this.cap = rows;
+      this.f64 = reserveKernelMemory(this.k, 16 * this.nw * this.nw + 2 * 16 * this.nw * rows);
+    }
+    return this.f64;
+  }
+
+  sAt(): number {
+    return 2 * this.nw * this.nw;
+  }
+
+  momAt(): number {
+    return 2 * this.nw * this.nw + 2 * this.nw * this.cap;
+  }
+
+  /** The moments of the first `rows` rows written at sAt() (reserve(rows) first). */
+  run(rows: number): void {
+    this.k.run(8 * this.sAt(), 8 * this.momAt(), rows, this.nw, 0);
+  }
+}
+
+let projectCompiled: WebAssembly.Module | null | undefined;
+
+function projectKernel(): Kernel<ProjectFn> | null {
+  if (!sliceWasm) return null;
+  if (projectCompiled === undefined) {
+    try {
+      const bytes = sliceProjectModule();
+      projectCompiled = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
+    } catch {
+      projectCompiled = null;
+    }
+  }
+  return projectCompiled ? instantiateKernel<ProjectFn>(projectCompiled, "project") : null;
+}
+
+let sliceWasm = true;
+
+/** Switches the projection's SIMD kernel on or off (projectThroughSlice runs instead; the same bits); returns the previous setting. */
+export function setSliceWasm(on: boolean): boolean {
+  const was = sliceWasm;
+  sliceWasm = on;
+  return was;
+}
