@@ -112,6 +112,10 @@ describe("fast operator with a helper thread", () => {
       expect(one.readout[0]!.estimate!.relL2).toBeGreaterThan(0);
       const twinsOne = await run(false);
       expect(sameBits(twinsOne.kspace.re, one.kspace.re) && sameBits(twinsOne.kspace.im, one.kspace.im)).toBe(true);
+      // the engine's option wasm: false reaches the helper thread too (its kernels off there as well)
+      setPhaseHelper(nodePhaseHelper, 0);
+      const off = await simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast", wasm: false });
+      expect(sameBits(off.kspace.re, one.kspace.re) && sameBits(off.kspace.im, one.kspace.im)).toBe(true);
     } finally {
       setFftWasm(wasFft);
       setFoldWasm(wasFold);

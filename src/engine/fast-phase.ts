@@ -18,6 +18,8 @@ import { projectThroughSlice, SliceProjector, throughSliceBasis } from "./slice-
 export interface PhaseSetup {
   /** Phase DFT length, active lines, grids per position. */
   Mv: number; NA: number; NX: number; R: number; L: number; coils: number;
+  /** Use the WebAssembly SIMD kernels where available (the engine's `wasm` option; the same bits either way). */
+  wasm: boolean;
   /** Folded phase index of each active line. */
   mLine: Int32Array;
   /** AL[2·(k·R + r)]: c_n·exp(−i2π(ky_n − ky_ref)·v0)·A_r(n). */
@@ -61,7 +63,7 @@ export class PhaseTransform {
         const x0 = list[4 * i]!;
         let g = 1;
         while (g < BATCH && i + g < nl && list[4 * (i + g)]! === x0 + g) g++;
-        const out = dft.forwardBatch(XB, base + 2 * x0, 2, 2 * NX, g, rows);
+        const out = dft.forwardBatch(XB, base + 2 * x0, 2, 2 * NX, g, rows, this.s.wasm);
         for (let j = 0; j < g; j++, i++) {
           const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
           addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, dft.batchOffset(j), mLine, AL, NA, R, r);
@@ -121,7 +123,7 @@ export const KT = 16;
  * each is turned to [line][read column] first so the transforms read contiguous rows.
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
-export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array): void {
+export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true): void {
   const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   out.fill(0);
   for (let l = 0; l < L; l++) {
@@ -136,7 +138,7 @@ export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number,
           zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
         }
       }
-      const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk, nzA);
+      const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk, nzA, wasm);
       for (let t = 0; t < nk; t++) readOne(l, k0 + t, res, dft.batchOffset(t));
     }
   }
@@ -163,6 +165,8 @@ const S_FREE = 0, S_REQUESTED = 1, S_BUSY = 2, S_DONE = 3;
 /** Coil sensitivities a helper evaluates ahead of the fold: the uniform coil and loops (dataset/coils.ts uniformAndLoops) at the cell centres of listed columns. */
 export interface SensShared {
   loops: CoilArray;
+  /** Use the WebAssembly SIMD kernel where available (the engine's `wasm` option). */
+  wasm: boolean;
   coils: number;
   uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array;
   axes: { read: number[]; phase: number[]; slice: number[] };
@@ -263,7 +267,7 @@ class ReadViews {
     const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols;
     const Zq = Array.from({ length: L }, (_, l) => this.Z.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
     this.zt.fill(0);
-    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA);
+    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA, this.setup.wasm);
   }
 }
 
@@ -297,7 +301,7 @@ function sensViews(sh: SensShared): SensViews {
   return {
     colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
     px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
-    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(throughSliceBasis(sh.wGrid), nw),
+    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(throughSliceBasis(sh.wGrid), nw, sh.wasm),
   };
 }
 

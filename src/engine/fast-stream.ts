@@ -357,7 +357,7 @@ export class CellStream {
     this.sensStats = { columns: 0, terms: 0, of: nw, maxRel: 0 };
     this.termTol = tol;
     // with sensitivities, a column of one tissue folds every coil's moment sums on the SIMD kernel where it runs
-    const fm = hasSens ? FoldMoments.make(full.map((f) => f.mom), coils, nw, W, L) : null;
+    const fm = hasSens ? FoldMoments.make(full.map((f) => f.mom), coils, nw, W, L, plan.wasm) : null;
     return (c0, c1, aBase, XB, track) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
@@ -613,7 +613,7 @@ export class CellStream {
       const colv = new Float64Array(2 * coils * NS);
       const momS = psi ? new Float64Array(2 * coils * nw) : null, eT = new Float64Array(nw);
       // the uniform columns' sums on the SIMD kernel where it runs (Ym as its tables, one row of NS samples)
-      const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
+      const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS, setup.wasm) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now

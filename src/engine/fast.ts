@@ -637,7 +637,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   const usedCols = usedList.length, rows = Math.min(vGrid.length, Mv);
   const zStride = 2 * NA * usedCols;
-  const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu, rows, zCol, zCols: usedCols };
+  const setup = { Mv, NA, NX, R, L, coils, mLine, AL, Mu, rows, zCol, zCols: usedCols, wasm: plan.wasm };
   const helper = allowHelper && phaseHelper !== null && R * L * coils * Mv * usedCols >= phaseMinWork ? phaseHelper() : null;
   // with a helper and loop coils (plain data), the helper also evaluates the sensitivities of the blocks ahead of the fold
   const loops = src.kind === "cells" && coils > 1 ? src.stream.sens?.loops : undefined;
@@ -657,7 +657,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         let maxCols = 0;
         for (const blk of blocks) maxCols = Math.max(maxCols, blockColumns(blk).length);
         return {
-          loops, coils, uGrid: cells.uGrid, vGrid: cells.vGrid, wGrid: cells.wGrid,
+          loops, coils, wasm: plan.wasm, uGrid: cells.uGrid, vGrid: cells.vGrid, wGrid: cells.wGrid,
           axes: { read: [...ax.read], phase: [...ax.phase], slice: [...ax.slice] },
           colA: share(cells.colA), colB: share(cells.colB), maxCols,
         };
@@ -772,7 +772,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   kept += list0.length;
   let n2k = 0;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
+    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA, plan.wasm);
     for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
@@ -805,7 +805,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // read-axis DFT of each line, times B_l(j), summed over l into the rows (several coils: on both threads)
   const perCoil = par && readShared ? par.readAll() : null;
   for (let q = 0; q < coils; q++) {
-    if (!perCoil) readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA);
+    if (!perCoil) readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA, plan.wasm);
     const v = perCoil ? perCoil[q]! : lines;
     for (let k = 0; k < NA; k++) {
       const ob = (q * plan.rows + lineRow[k]!) * plan.read;
@@ -1105,6 +1105,8 @@ export interface EstimateSetup {
   keyOf: Int32Array; keyDf: number[];
   /** Receiver filter: read gradient γ̄G (Hz/m) and sampled bandwidth (Hz), or null without the filter. */
   filter: { fRead: number; bw: number } | null;
+  /** Use the WebAssembly SIMD kernels where available (the engine's `wasm` option). */
+  wasm: boolean;
 }
 
 /** The estimate against the fast k-space, once its direct sums are made. */
@@ -1191,7 +1193,7 @@ export function estimateOver(
       }
     }
   };
-  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null };
+  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm };
   columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {

@@ -115,8 +115,8 @@ export class FoldMoments {
   }
 
   /** The kernel with these tables (2·nw·W·L numbers each, as fast-stream.ts sliceMoments makes them; null entries skipped), or null where WebAssembly SIMD is unavailable. */
-  static make(tables: (Float64Array | null)[], coils: number, nw: number, W: number, L: number): FoldMoments | null {
-    const k = kernel();
+  static make(tables: (Float64Array | null)[], coils: number, nw: number, W: number, L: number, wasm = true): FoldMoments | null {
+    const k = wasm ? kernel() : null;
     return k ? new FoldMoments(k, tables, coils, nw, W, L) : null;
   }
 

@@ -174,8 +174,8 @@ export class SliceProjector {
   }
 
   /** A projector for the basis psi (nw × nw), or null where WebAssembly SIMD is unavailable. */
-  static make(psi: Float64Array, nw: number): SliceProjector | null {
-    const k = projectKernel();
+  static make(psi: Float64Array, nw: number, wasm = true): SliceProjector | null {
+    const k = wasm ? projectKernel() : null;
     return k ? new SliceProjector(k, nw, psi) : null;
   }
 

@@ -386,10 +386,10 @@ export class FFTPlan {
    * those of forwardStrided of each input. For a power of two n, the first step in one sweep over
    * the inputs' rows (inputs side by side in memory share each row's cache
    * line and page), the later steps on the WebAssembly SIMD kernel where
-   * available (fft-wasm.ts, the same bits as its TypeScript twin).
+   * available and `wasm` (fft-wasm.ts, the same bits as its TypeScript twin).
    */
-  forwardBatch(src: Float64Array, so: number, gs: number, ss: number, count: number, nz: number): Float64Array {
-    const r4 = this.r4, size = 2 * this.n, b = this.batchBuffers(count);
+  forwardBatch(src: Float64Array, so: number, gs: number, ss: number, count: number, nz: number, wasm = true): Float64Array {
+    const r4 = this.r4, size = 2 * this.n, b = this.batchBuffers(count, wasm && fftWasm);
     if (r4 === null) {
       // other lengths: one transform at a time, copied out
       for (let g = 0; g < count; g++) {
@@ -413,11 +413,11 @@ export class FFTPlan {
   }
 
   /** Buffers for `count` outputs: in the steps kernel's memory, or (without WebAssembly SIMD, or switched off) plain scratch. */
-  private batchBuffers(count: number): { f64: Float64Array; base: number; cap: number; steps: FftSteps | null } {
+  private batchBuffers(count: number, wasm: boolean): { f64: Float64Array; base: number; cap: number; steps: FftSteps | null } {
     let b = this.batch;
-    if (b === null || b.cap < count || (b.steps !== null) !== fftWasm) {
+    if (b === null || b.cap < count || (b.steps !== null) !== wasm) {
       const cap = Math.max(count, 16), r4 = this.r4;
-      const steps = fftWasm && r4 !== null ? fftSteps(r4.table, this.n, cap) : null;
+      const steps = wasm && r4 !== null ? fftSteps(r4.table, this.n, cap) : null;
       b = steps
         ? { f64: steps.kernel.f64, base: steps.bufBytes / 8, cap, steps }
         : { f64: new Float64Array(2 * this.n * cap), base: 0, cap, steps: null };
