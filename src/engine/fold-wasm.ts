@@ -22,55 +22,84 @@ import {
 } from "./wasm-asm.js";
 
 // opcodes this kernel adds to wasm-asm's (WebAssembly Core Specification 2.0, 5.4.1, 5.4.6 and 5.4.8)
-const IF = 0x04, BLOCK_TYPE_EMPTY = 0x40, END = 0x0b, I32_LOAD = 0x28, I32_NE = 0x47, I32_SHL = 0x74;
+const IF = 0x04, ELSE = 0x05, BLOCK_TYPE_EMPTY = 0x40, END = 0x0b, I32_LOAD = 0x28, I32_NE = 0x47, I32_SHL = 0x74;
 const V128_CONST = 0x0c, I8X16_SHUFFLE = 0x0d;
 
-// parameters, then 8 i32 and 3 v128 locals
+// parameters, then 10 i32 and 5 v128 locals
 const STAGE = 0, COILS = 1, W = 2, L = 3, TERMS = 4, COUNTS = 5, RECQ = 6;
-const R = 7, Q = 8, LI = 9, I = 10, NK = 11, S = 12, TP = 13, X = 14;
-const ACC = 15, Z = 16, TMP = 17;
+const R = 7, Q = 8, LI = 9, I = 10, NK = 11, S = 12, TP = 13, X = 14, ROWB = 15, LB = 16;
+const Z = 17, G1 = 18, G2 = 19, ZERO = 20, TMP = 21;
 
 const ADD = simd(F64X2_ADD), MUL = simd(F64X2_MUL);
 const SWAP: Code = [...localTee(TMP), ...localGet(TMP), ...simd(I8X16_SHUFFLE), 8, 9, 10, 11, 12, 13, 14, 15, 0, 1, 2, 3, 4, 5, 6, 7];
 const i32Load = (offset: number): Code => [I32_LOAD, 2, offset];
 
-/** The module's bytes: export "moments"(stage, coils, W, L, terms, counts, recq); export "memory". */
-export function foldMomentsModule(): Uint8Array<ArrayBuffer> {
-  const body: Code = [
-    ...localGet(STAGE), ...localSet(S),
+/**
+ * Over every entry (r, l) of coil q: S ← first ? 0 + γ·M : S + γ·M (M at X,
+ * advancing), γ·M = M·G1 + swap(M)·G2; or S ← 0 without terms. Stage entry
+ * (r, q, l) at STAGE + ((r·coils + q)·L + l)·16.
+ */
+function sweep(kind: "first" | "next" | "zero"): Code {
+  const value: Code[] = kind === "zero"
+    ? [localGet(ZERO)]
+    : [
+        localGet(X), v128Load(0), localTee(Z), localGet(G1), MUL,
+        localGet(Z), SWAP, localGet(G2), MUL, ADD,
+        kind === "first" ? [...localGet(ZERO), ...ADD] : [...localGet(S), ...v128Load(0), ...ADD],
+      ];
+  return [
     ...i32Const(0), ...localSet(R),
     ...loop(
-      i32Const(0), localSet(Q),
+      // S = STAGE + (r·coils + q)·L·16
+      localGet(STAGE), localGet(R), localGet(COILS), [I32_MUL], localGet(Q), [I32_ADD], localGet(LB), [I32_MUL], [I32_ADD], localSet(S),
+      i32Const(0), localSet(LI),
       loop(
-        localGet(COUNTS), localGet(Q), i32Const(2), [I32_SHL], [I32_ADD], i32Load(0), localSet(NK),
-        i32Const(0), localSet(LI),
-        loop(
-          [...simd(V128_CONST), ...new Array<number>(16).fill(0)], localSet(ACC),
-          // X = (r·L + l)·16, the entry's place in every table
-          localGet(R), localGet(L), [I32_MUL], localGet(LI), [I32_ADD], i32Const(4), [I32_SHL], localSet(X),
-          localGet(NK), i32Const(0), [I32_NE], [IF, BLOCK_TYPE_EMPTY],
-          i32Const(0), localSet(I),
-          localGet(TERMS), localGet(Q), localGet(RECQ), [I32_MUL], [I32_ADD], localSet(TP),
-          loop(
-            localGet(TP), i32Load(0), localGet(X), [I32_ADD], v128Load(0), localSet(Z),
-            localGet(ACC),
-            localGet(Z), localGet(TP), v128Load(16), MUL,
-            localGet(Z), SWAP, localGet(TP), v128Load(32), MUL,
-            ADD, ADD, localSet(ACC),
-            localGet(TP), i32Const(48), [I32_ADD], localSet(TP),
-            localGet(I), i32Const(1), [I32_ADD], localTee(I), localGet(NK), [I32_LT_U], [BR_IF, 0],
-          ),
-          [END],
-          localGet(S), localGet(ACC), v128Store(0),
-          localGet(S), i32Const(16), [I32_ADD], localSet(S),
-          localGet(LI), i32Const(1), [I32_ADD], localTee(LI), localGet(L), [I32_LT_U], [BR_IF, 0],
-        ),
-        localGet(Q), i32Const(1), [I32_ADD], localTee(Q), localGet(COILS), [I32_LT_U], [BR_IF, 0],
+        localGet(S), ...value, v128Store(0),
+        localGet(S), i32Const(16), [I32_ADD], localSet(S),
+        ...(kind === "zero" ? [] : [localGet(X), i32Const(16), [I32_ADD], localSet(X)]),
+        localGet(LI), i32Const(1), [I32_ADD], localTee(LI), localGet(L), [I32_LT_U], [BR_IF, 0],
       ),
       localGet(R), i32Const(1), [I32_ADD], localTee(R), localGet(W), [I32_LT_U], [BR_IF, 0],
     ),
   ];
-  return kernelModule({ exportName: "moments", params: 7, locals: [[8, I32], [3, V128]], body });
+}
+
+/** One term's factors: X at its table, G1 = (γr, γr), G2 = (−γi, γi) from the record at TP. */
+const termAt: Code = [
+  ...localGet(TP), ...i32Load(0), ...localSet(X),
+  ...localGet(TP), ...v128Load(16), ...localSet(G1),
+  ...localGet(TP), ...v128Load(32), ...localSet(G2),
+];
+
+/**
+ * The module's bytes: export "moments"(stage, coils, W, L, terms, counts,
+ * recq); export "memory". Per coil, its first term is written over every
+ * entry (0 + γ·M), each further term added in order: entry by entry the sums
+ * of addMoments.
+ */
+export function foldMomentsModule(): Uint8Array<ArrayBuffer> {
+  const body: Code = [
+    ...simd(V128_CONST), ...new Array<number>(16).fill(0), ...localSet(ZERO),
+    ...localGet(L), ...i32Const(4), I32_SHL, ...localSet(LB),
+    ...i32Const(0), ...localSet(Q),
+    ...loop(
+      localGet(COUNTS), localGet(Q), i32Const(2), [I32_SHL], [I32_ADD], i32Load(0), localSet(NK),
+      localGet(TERMS), localGet(Q), localGet(RECQ), [I32_MUL], [I32_ADD], localSet(TP),
+      localGet(NK), i32Const(0), [I32_NE], [IF, BLOCK_TYPE_EMPTY],
+      termAt, sweep("first"),
+      i32Const(1), localSet(I),
+      localGet(I), localGet(NK), [I32_LT_U], [IF, BLOCK_TYPE_EMPTY],
+      loop(
+        localGet(TP), i32Const(48), [I32_ADD], localSet(TP),
+        termAt, sweep("next"),
+        localGet(I), i32Const(1), [I32_ADD], localTee(I), localGet(NK), [I32_LT_U], [BR_IF, 0],
+      ),
+      [END],
+      [ELSE], sweep("zero"), [END],
+      localGet(Q), i32Const(1), [I32_ADD], localTee(Q), localGet(COILS), [I32_LT_U], [BR_IF, 0],
+    ),
+  ];
+  return kernelModule({ exportName: "moments", params: 7, locals: [[10, I32], [5, V128]], body });
 }
 
 type MomentsFn = (stage: number, coils: number, W: number, L: number, terms: number, counts: number, recq: number) => void;
