@@ -20,10 +20,10 @@ import { setFftWasm } from "../src/recon/fft.js";
 import { setFoldWasm } from "../src/engine/fold-wasm.js";
 import { setSliceWasm } from "../src/engine/slice-basis.js";
 
-function prep(m: number) {
+function prep(m: number, sets: string[] = []) {
   return prepare({
     phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t",
-    sets: [`matrix.read=${m}`, `matrix.phase=${m}`, "spoiling=ideal"],
+    sets: [`matrix.read=${m}`, `matrix.phase=${m}`, "spoiling=ideal", ...sets],
     out: join(tempDir(), "out"), seed: 1,
     iso: { density: 2, sliceCount: 4, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 2, offsetHz: 0 }, workers: 1,
   });
@@ -48,6 +48,16 @@ async function expectHelpedSameBits(run: (helper: boolean) => Promise<{ kspace: 
   expect(helped).toBeGreaterThan(0);
 }
 
+/** Four loops and the uniform coil, fast operator, with or without the helper (and the engine's wasm option). */
+async function coilRun(p: ReturnType<typeof prep>) {
+  const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
+  const array = { elements: 4, rows: 1, loopRadius: 0.08, arrayRadius: 0.25, rowSpacing: 0, zCentre: 0 };
+  return async (helper: boolean, wasm = true) => {
+    setPhaseHelper(helper ? nodePhaseHelper : null, 0);
+    return simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast", wasm });
+  };
+}
+
 afterAll(() => setPhaseHelper(nodePhaseHelper));
 
 describe("fast operator with a helper thread", () => {
@@ -65,13 +75,7 @@ describe("fast operator with a helper thread", () => {
   }, 60_000);
 
   test("4 loops + the uniform coil: bitwise the one-thread k-space", async () => {
-    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
-    const p = prep(24);
-    const array = { elements: 4, rows: 1, loopRadius: 0.08, arrayRadius: 0.25, rowSpacing: 0, zCentre: 0 };
-    const run = async (helper: boolean) => {
-      setPhaseHelper(helper ? nodePhaseHelper : null, 0);
-      return simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast" });
-    };
+    const run = await coilRun(prep(24));
     const one = await run(false);
     expect(one.readout[0]!.operator).toBe("fast");
     expect(one.kspace.coils).toBe(5);
@@ -86,20 +90,9 @@ describe("fast operator with a helper thread", () => {
   }, 60_000);
 
   test("coils with the phase FOV smaller than the body (several columns fold into one grid position): bitwise the one-thread k-space, and the SIMD kernels' TypeScript twins give the same bits", async () => {
-    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
     // 24 × 24 over a 16 cm phase FOV: the torso wraps, so the helper's slots see positions added to twice and
     // positions a block writes that the block before did not (SlotTrack, ParallelPhase.seal)
-    const p = prepare({
-      phantom: "phantoms/torso-slice.json", protocol: "gre-t1-3t",
-      sets: ["matrix.read=24", "matrix.phase=24", "fov.phase=16 cm", "spoiling=ideal"],
-      out: join(tempDir(), "out"), seed: 1,
-      iso: { density: 2, sliceCount: 4, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 2, offsetHz: 0 }, workers: 1,
-    });
-    const array = { elements: 4, rows: 1, loopRadius: 0.08, arrayRadius: 0.25, rowSpacing: 0, zCentre: 0 };
-    const run = async (helper: boolean) => {
-      setPhaseHelper(helper ? nodePhaseHelper : null, 0);
-      return simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast" });
-    };
+    const run = await coilRun(prep(24, ["fov.phase=16 cm"]));
     const one = await run(false);
     expect(one.readout[0]!.operator).toBe("fast");
     await expectHelpedSameBits(run, one.kspace);
@@ -113,8 +106,7 @@ describe("fast operator with a helper thread", () => {
       const twinsOne = await run(false);
       expect(sameBits(twinsOne.kspace.re, one.kspace.re) && sameBits(twinsOne.kspace.im, one.kspace.im)).toBe(true);
       // the engine's option wasm: false reaches the helper thread too (its kernels off there as well)
-      setPhaseHelper(nodePhaseHelper, 0);
-      const off = await simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast", wasm: false });
+      const off = await run(true, false);
       expect(sameBits(off.kspace.re, one.kspace.re) && sameBits(off.kspace.im, one.kspace.im)).toBe(true);
     } finally {
       setFftWasm(wasFft);

@@ -7,16 +7,12 @@
  */
 import { afterEach, describe, expect, it } from "vitest";
 import { FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
+import { mulberry32 } from "../src/engine/fast.js";
 
-/** Small deterministic generator (xorshift32), values in [−0.5, 0.5). */
+/** Deterministic values in [−0.5, 0.5): the fast operator's seeded generator (mulberry32). */
 function rng(seed: number): () => number {
-  let x = seed >>> 0 || 1;
-  return () => {
-    x ^= x << 13; x >>>= 0;
-    x ^= x >>> 17;
-    x ^= x << 5; x >>>= 0;
-    return x / 4294967296 - 0.5;
-  };
+  const u = mulberry32(seed);
+  return () => u() - 0.5;
 }
 
 /** `count` inputs side by side (input g at offset so + 2g), rows ss apart; elements j ≥ nz exactly +0. */

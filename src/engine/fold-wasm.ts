@@ -17,7 +17,7 @@
  */
 import {
   BR_IF, F64X2_ADD, F64X2_MUL, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
-  i32Const, instantiateKernel, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
+  i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
   type Code, type Kernel,
 } from "./wasm-asm.js";
 
@@ -177,20 +177,11 @@ export class FoldMoments {
   }
 }
 
-let compiled: WebAssembly.Module | null | undefined;
+const newKernel = kernelFactory<MomentsFn>(foldMomentsModule, "moments");
 
 /** An instance of its own (its own memory) for each user; the module is compiled once. */
 function kernel(): Kernel<MomentsFn> | null {
-  if (!foldWasm) return null;
-  if (compiled === undefined) {
-    try {
-      const bytes = foldMomentsModule();
-      compiled = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
-    } catch {
-      compiled = null;
-    }
-  }
-  return compiled ? instantiateKernel<MomentsFn>(compiled, "moments") : null;
+  return foldWasm ? newKernel() : null;
 }
 
 let foldWasm = true;

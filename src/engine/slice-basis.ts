@@ -6,7 +6,7 @@
  */
 import {
   BR_IF, F64X2_ADD, F64X2_MUL, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
-  i32Const, instantiateKernel, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
+  i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
   type Code, type Kernel,
 } from "./wasm-asm.js";
 
@@ -202,19 +202,10 @@ export class SliceProjector {
   }
 }
 
-let projectCompiled: WebAssembly.Module | null | undefined;
+const newProjectKernel = kernelFactory<ProjectFn>(sliceProjectModule, "project");
 
 function projectKernel(): Kernel<ProjectFn> | null {
-  if (!sliceWasm) return null;
-  if (projectCompiled === undefined) {
-    try {
-      const bytes = sliceProjectModule();
-      projectCompiled = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
-    } catch {
-      projectCompiled = null;
-    }
-  }
-  return projectCompiled ? instantiateKernel<ProjectFn>(projectCompiled, "project") : null;
+  return sliceWasm ? newProjectKernel() : null;
 }
 
 let sliceWasm = true;

@@ -158,6 +158,26 @@ export function instantiateKernel<F>(bytes: Uint8Array<ArrayBuffer> | WebAssembl
   }
 }
 
+/**
+ * A kernel made on demand: its module compiled once, on first use, from
+ * `bytes()`; each call returns a fresh instance (a memory of its own), or
+ * null where WebAssembly or its SIMD extension is unavailable.
+ */
+export function kernelFactory<F>(bytes: () => Uint8Array<ArrayBuffer>, exportName: string): () => Kernel<F> | null {
+  let compiled: WebAssembly.Module | null | undefined;
+  return () => {
+    if (compiled === undefined) {
+      try {
+        const b = bytes();
+        compiled = typeof WebAssembly === "object" && WebAssembly.validate(b) ? new WebAssembly.Module(b) : null;
+      } catch {
+        compiled = null;
+      }
+    }
+    return compiled ? instantiateKernel<F>(compiled, exportName) : null;
+  };
+}
+
 /** Grows a kernel's memory to at least `bytes` (whole 64 KiB pages) and refreshes its view. */
 export function reserveKernelMemory<F>(k: Kernel<F>, bytes: number): Float64Array {
   const have = k.memory.buffer.byteLength;

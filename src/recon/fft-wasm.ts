@@ -16,7 +16,7 @@
  */
 import {
   BR_IF, F64X2_ADD, F64X2_MUL, F64X2_SUB, I32, I32_ADD, I32_MUL, I32_SUB, I32_LT_U, V128,
-  i32Const, instantiateKernel, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
+  i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
   type Code, type Kernel,
 } from "../engine/wasm-asm.js";
 
@@ -107,7 +107,7 @@ function v128Const(bytes: number[]): Code {
 
 type StepsFn = (out: number, count: number, sizeBytes: number, step0: number, tw: number) => void;
 
-let module: WebAssembly.Module | null | undefined;
+const newKernel = kernelFactory<StepsFn>(fftStepsModule, "steps");
 
 /** The steps kernel of one plan: its own memory holding the twiddles, then `buffers` buffers of 2n doubles. */
 export interface FftSteps {
@@ -118,16 +118,7 @@ export interface FftSteps {
 
 /** A steps kernel for n-point transforms with fft.js's `table` (2n doubles) and room for `buffers` buffers; null where WebAssembly SIMD is unavailable. */
 export function fftSteps(table: Float64Array, n: number, buffers: number): FftSteps | null {
-  if (module === undefined) {
-    try {
-      const bytes = fftStepsModule();
-      module = typeof WebAssembly === "object" && WebAssembly.validate(bytes) ? new WebAssembly.Module(bytes) : null;
-    } catch {
-      module = null;
-    }
-  }
-  if (module === null) return null;
-  const kernel = instantiateKernel<StepsFn>(module, "steps");
+  const kernel = newKernel();
   if (!kernel) return null;
   const bufBytes = 32 * n;
   const f64 = reserveKernelMemory(kernel, bufBytes + buffers * 16 * n);

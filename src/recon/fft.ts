@@ -58,48 +58,7 @@ function isPowerOfTwo(n: number): boolean {
  * (x ± 0 = x for x ≠ −0): they are copied, not computed.
  */
 function radix4Forward(out: Float64Array, src: Float64Array, so: number, ss: number, size: number, width: number, bitrev: Int32Array, table: Float64Array, nz: number): void {
-  let step = 1 << width;
-  let len = (size / step) << 1;
-  if (len === 4) {
-    const h = (step >> 1) * ss;
-    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
-      const i0 = so + (bitrev[t]! >> 1) * ss, i1 = i0 + h;
-      const evenR = src[i0]!, evenI = src[i0 + 1]!, oddR = src[i1]!, oddI = src[i1 + 1]!;
-      out[outOff] = evenR + oddR;
-      out[outOff + 1] = evenI + oddI;
-      out[outOff + 2] = evenR - oddR;
-      out[outOff + 3] = evenI - oddI;
-    }
-  } else if (4 * nz <= size >> 1) {
-    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
-      const i0 = so + (bitrev[t]! >> 1) * ss, ar = src[i0]!, ai = src[i0 + 1]!;
-      out[outOff] = ar;
-      out[outOff + 1] = ai;
-      out[outOff + 2] = ar;
-      out[outOff + 3] = ai;
-      out[outOff + 4] = ar;
-      out[outOff + 5] = ai;
-      out[outOff + 6] = ar;
-      out[outOff + 7] = ai;
-    }
-  } else {
-    const h = (step >> 1) * ss;
-    for (let outOff = 0, t = 0; outOff < size; outOff += len, t++) {
-      const iA = so + (bitrev[t]! >> 1) * ss, iB = iA + h, iC = iB + h, iD = iC + h;
-      const Ar = src[iA]!, Ai = src[iA + 1]!, Br = src[iB]!, Bi = src[iB + 1]!;
-      const Cr = src[iC]!, Ci = src[iC + 1]!, Dr = src[iD]!, Di = src[iD + 1]!;
-      const T0r = Ar + Cr, T0i = Ai + Ci, T1r = Ar - Cr, T1i = Ai - Ci;
-      const T2r = Br + Dr, T2i = Bi + Di, T3r = Br - Dr, T3i = Bi - Di;
-      out[outOff] = T0r + T2r;
-      out[outOff + 1] = T0i + T2i;
-      out[outOff + 2] = T1r + T3i;
-      out[outOff + 3] = T1i - T3r;
-      out[outOff + 4] = T0r - T2r;
-      out[outOff + 5] = T0i - T2i;
-      out[outOff + 6] = T1r - T3i;
-      out[outOff + 7] = T1i + T3r;
-    }
-  }
+  firstSteps(out, 0, 0, 1, src, so, 0, ss, size, width, bitrev, nz);
   laterSteps(out, 0, size, width, table);
 }
 
