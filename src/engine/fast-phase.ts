@@ -55,9 +55,9 @@ export class PhaseTransform {
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
       // each grid's line along the read column, read in place (stride NX; rows ≥ `rows` are +0, and no
-      // value of a fold is −0: sums from +0), transformed
-      // grids next to each other (consecutive x in the list, up to BATCH) are transformed together: one
-      // sweep down the column reads each row's cache line and page once for all of them
+      // value of a fold is −0: sums from +0) and transformed; grids next to each other (consecutive x in
+      // the list, up to BATCH) together: one sweep down the column reads each row's cache line and page once
+      // for all of them
       const base = 2 * (a - a0) * Mv * NX;
       for (let i = 0; i < nl; ) {
         const x0 = list[4 * i]!;
@@ -200,9 +200,9 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
       out.set(mom, i * per + half);
     }
   }
-  if (proj && pm) {
-    proj.run(n * sh.coils);
-    const m0 = proj.momAt();
+  if (pm) {
+    proj!.run(n * sh.coils);
+    const m0 = proj!.momAt();
     for (let i = 0; i < n; i++) out.set(pm.subarray(m0 + i * half, m0 + (i + 1) * half), i * per + half);
   }
 }
@@ -297,11 +297,11 @@ function runSensJob(ctrl: Int32Array, sh: SensShared, views: SensViews, busy: nu
 
 interface SensViews { colA: Int32Array; colB: Int32Array; cols: Int32Array[]; out: Float64Array[]; px: Float64Array; py: Float64Array; pz: Float64Array; one: Float64Array; psi: Float64Array; mom: Float64Array; proj: SliceProjector | null }
 function sensViews(sh: SensShared): SensViews {
-  const nw = sh.wGrid.length;
+  const nw = sh.wGrid.length, psi = throughSliceBasis(sh.wGrid);
   return {
     colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
     px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
-    psi: throughSliceBasis(sh.wGrid), mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(throughSliceBasis(sh.wGrid), nw, sh.wasm),
+    psi, mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(psi, nw, sh.wasm),
   };
 }
 
