@@ -6,7 +6,7 @@
  * against a direct O(n²) DFT (the definition) to rounding.
  */
 import { afterEach, describe, expect, it } from "vitest";
-import { FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
+import { centredLine, centredLines, FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
 import { mulberry32 } from "../src/engine/fast.js";
 
 /** Deterministic values in [−0.5, 0.5): the fast operator's seeded generator (mulberry32). */
@@ -92,5 +92,31 @@ describe("forwardBatch", () => {
     const oa = a.forwardBatch(x.src, x.so, 2, x.ss, 1, 16), first = Array.from(oa.subarray(a.batchOffset(0), a.batchOffset(0) + 32));
     b.forwardBatch(y.src, y.so, 2, y.ss, 1, 16);
     expect(Array.from(oa.subarray(a.batchOffset(0), a.batchOffset(0) + 32))).toEqual(first);
+  });
+});
+
+describe("centredLines", () => {
+  // the batched centred transform (fat-shift fit, ifft2c/fft2c) must give centredLine's numbers line by line
+  it("equals centredLine on each line, bit for bit, along rows and columns, both signs, SIMD on and off", () => {
+    for (const wasm of [true, false]) {
+      setFftWasm(wasm);
+      for (const [rows, cols] of [[1, 8], [5, 12], [16, 16], [19, 32], [64, 40]] as const) {
+        const r = rng(rows * 100 + cols);
+        const re = new Float64Array(rows * cols).map(() => r()), im = new Float64Array(rows * cols).map(() => r());
+        for (const sign of [1, -1] as const) {
+          const scale = sign === 1 ? 0.37 : 1;
+          // along read (rows, step cols) and along phase (columns, step 1), a part of the lines only
+          for (const [n, stride, offset, count, step] of [[cols, 1, cols, rows - 1, cols], [rows, cols, 1, cols - 2, 1]] as const) {
+            if (count <= 0 || n < 1) continue;
+            const aRe = re.slice(), aIm = im.slice(), bRe = re.slice(), bIm = im.slice();
+            centredLines(aRe, aIm, n, stride, offset, count, step, sign, scale);
+            for (let g = 0; g < count; g++) centredLine(bRe, bIm, n, stride, offset + g * step, sign, scale);
+            let bad = 0;
+            for (let i = 0; i < re.length; i++) if (!Object.is(aRe[i], bRe[i]) || !Object.is(aIm[i], bIm[i])) bad++;
+            expect(bad, `${rows}×${cols} n ${n} sign ${sign} wasm ${wasm}`).toBe(0);
+          }
+        }
+      }
+    }
   });
 });
