@@ -242,20 +242,37 @@ export interface CellContext {
 }
 
 /** Growable typed array (doubling). */
-class Grow<T extends Int32Array | Float64Array> {
+class GrowInt32 {
   n = 0;
-  constructor(public a: T) {}
+  constructor(public a: Int32Array) {}
   push(x: number): void {
     if (this.n === this.a.length) {
-      const b = new (this.a.constructor as new (n: number) => T)(Math.max(16, 2 * this.a.length));
+      const b = new Int32Array(Math.max(16, 2 * this.a.length));
       b.set(this.a);
       this.a = b;
     }
     this.a[this.n++] = x;
   }
   /** The pushed values: a view (a copy would first-touch as many new pages again). */
-  done(): T {
-    return this.a.subarray(0, this.n) as T;
+  done(): Int32Array {
+    return this.a.subarray(0, this.n);
+  }
+}
+
+/** GrowInt32 for doubles (a class per element type: each push then sees one kind of array). */
+class GrowFloat64 {
+  n = 0;
+  constructor(public a: Float64Array) {}
+  push(x: number): void {
+    if (this.n === this.a.length) {
+      const b = new Float64Array(Math.max(16, 2 * this.a.length));
+      b.set(this.a);
+      this.a = b;
+    }
+    this.a[this.n++] = x;
+  }
+  done(): Float64Array {
+    return this.a.subarray(0, this.n);
   }
 }
 
@@ -352,9 +369,9 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   // Capacities for a full grid (one entry per cell): only the pages written are ever touched,
   // so a generous capacity costs address space, not memory, and saves the copies of growing
   const capCols = Math.max(1024, Math.min(nu * nv + 1, 1 << 24)), capEnt = Math.max(4096, Math.min(nu * nv * nw, 1 << 25));
-  const colA = new Grow(new Int32Array(capCols)), colB = new Grow(new Int32Array(capCols)), colSub = new Grow(new Int32Array(capCols));
-  const colStart = new Grow(new Int32Array(capCols)), entStart = new Grow(new Int32Array(capCols));
-  const entW = new Grow(new Int32Array(capEnt)), entTissue = new Grow(new Int32Array(capEnt)), entFrac = new Grow(new Float64Array(capEnt));
+  const colA = new GrowInt32(new Int32Array(capCols)), colB = new GrowInt32(new Int32Array(capCols)), colSub = new GrowInt32(new Int32Array(capCols));
+  const colStart = new GrowInt32(new Int32Array(capCols)), entStart = new GrowInt32(new Int32Array(capCols));
+  const entW = new GrowInt32(new Int32Array(capEnt)), entTissue = new GrowInt32(new Int32Array(capEnt)), entFrac = new GrowFloat64(new Float64Array(capEnt));
   colStart.push(0);
   entStart.push(0);
   let at = 0;
