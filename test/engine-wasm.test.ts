@@ -8,6 +8,8 @@ import { describe, expect, test } from "vitest";
 import { simulate, type SimulateInput } from "../src/index.js";
 import { rfAffine } from "../src/engine/kernels.js";
 import { readoutRecurrenceFast, rfAffineMany, WASM_MODULES, wasmKernel, wasmRfKernel } from "../src/engine/wasm.js";
+import { pivotedBasis } from "../src/engine/fast.js";
+import { setBasisWasm } from "../src/engine/basis-wasm.js";
 import { sleb, uleb } from "../src/engine/wasm-asm.js";
 import { GAMMA } from "../src/constants.js";
 
@@ -87,6 +89,49 @@ describe("TypeScript twins give the kernels' bits", () => {
     const ref = new Float64Array(12 * count);
     for (let k = 0; k < count; k++) rfAffine(ref, 12 * k, b1re, b1im, dt, GAMMA, fs[k]!, r1[k]!, r2[k]!);
     for (let q = 0; q < ref.length; q++) expect(Math.abs(off[q]! - ref[q]!)).toBeLessThan(1e-12);
+  });
+});
+
+describe("the pivoted Gram–Schmidt's sweep kernel (basis-wasm.ts) gives removeComponent's bits", () => {
+  // the line and time factors of the fast operator (fast.ts pivotedBasis); columns of low rank plus noise,
+  // some zero (skipped), lengths odd and even, counts above and below the kernel's threshold
+  test("basis vectors and residuals bit for bit, kernel on and off; the basis is orthonormal", () => {
+    for (const [m, count, rank] of [[128, 1344, 8], [256, 112, 12], [7, 700, 2], [300, 50, 30], [33, 9, 3]] as const) {
+      const r = rng(m * 31 + count);
+      const dirs = Array.from({ length: rank }, () => Float64Array.from({ length: 2 * m }, () => r() - 0.5));
+      const y = new Float64Array(2 * m * count);
+      for (let c = 0; c < count; c++) {
+        if (c % 17 === 5) continue;
+        for (const d of dirs) {
+          const a = r() - 0.5, b = r() - 0.5;
+          for (let k = 0; k < m; k++) {
+            y[c * 2 * m + 2 * k] = y[c * 2 * m + 2 * k]! + (a * d[2 * k]! - b * d[2 * k + 1]!);
+            y[c * 2 * m + 2 * k + 1] = y[c * 2 * m + 2 * k + 1]! + (a * d[2 * k + 1]! + b * d[2 * k]!);
+          }
+        }
+        for (let k = 0; k < 2 * m; k++) y[c * 2 * m + k] = y[c * 2 * m + k]! + 1e-9 * (r() - 0.5);
+      }
+      const yOn = y.slice(), yOff = y.slice();
+      const on = pivotedBasis(yOn, m, count, 1e-8, 48);
+      const was = setBasisWasm(false);
+      const off = pivotedBasis(yOff, m, count, 1e-8, 48);
+      setBasisWasm(was);
+      expect(on && off && on.length === off.length).toBe(true);
+      expect(on!.length).toBeGreaterThanOrEqual(rank);
+      for (let b = 0; b < on!.length; b++) expect(sameBits(on![b]!, off![b]!)).toBe(true);
+      expect(sameBits(yOn, yOff)).toBe(true);
+      // orthonormal to rounding (Gram–Schmidt twice: Giraud, Langou & Rozložník 2005)
+      for (let a = 0; a < on!.length; a++) {
+        for (let b = 0; b <= a; b++) {
+          let pr = 0, pi = 0;
+          for (let k = 0; k < m; k++) {
+            pr += on![a]![2 * k]! * on![b]![2 * k]! + on![a]![2 * k + 1]! * on![b]![2 * k + 1]!;
+            pi += on![a]![2 * k]! * on![b]![2 * k + 1]! - on![a]![2 * k + 1]! * on![b]![2 * k]!;
+          }
+          expect(Math.hypot(pr - (a === b ? 1 : 0), pi)).toBeLessThan(1e-12);
+        }
+      }
+    }
   });
 });
 

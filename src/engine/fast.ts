@@ -42,6 +42,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
+import { BasisSweep } from "./basis-wasm.js";
 import type { CellStream } from "./fast-stream.js";
 import { KT, openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
 
@@ -165,6 +166,9 @@ function scratchF64(slot: string, n: number): Float64Array {
   return a;
 }
 
+/** Columns × length from which pivotedBasis sweeps on the SIMD kernel (below, copying the columns in costs more than it saves). */
+const SWEEP_MIN = 4096;
+
 /** Samples of the a-posteriori estimate and its seed. */
 export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
@@ -183,7 +187,7 @@ export const ESTIMATE_SEED = 20031;
  * Frobenius norm is at most tol × the initial one. Returns the basis
  * (interleaved, m per vector) or null when more than maxRank are needed.
  */
-export function pivotedBasis(y: Float64Array, m: number, count: number, tol: number, maxRank: number): Float64Array[] | null {
+export function pivotedBasis(y: Float64Array, m: number, count: number, tol: number, maxRank: number, wasm = true): Float64Array[] | null {
   const norm2 = new Float64Array(count);
   let total = 0;
   for (let c = 0; c < count; c++) {
@@ -193,6 +197,9 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
   }
   const basis: Float64Array[] = [];
   if (total === 0) return basis;
+  // the sweeps on the SIMD kernel (basis-wasm.ts, the same numbers) once there is a first basis vector
+  let sweep: BasisSweep | null | undefined;
+  try {
   for (;;) {
     let rest = 0, best = -1, bestN = -1;
     for (let c = 0; c < count; c++) {
@@ -205,7 +212,9 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
     if (rest <= tol * tol * total) return basis;
     if (basis.length >= maxRank || bestN <= 0) return null;
     const q = new Float64Array(2 * m);
-    for (let k = 0; k < 2 * m; k++) q[k] = y[best * 2 * m + k]!;
+    // the pivot's residual (on the kernel's memory once it sweeps)
+    const src = sweep ? sweep.columns : y;
+    for (let k = 0; k < 2 * m; k++) q[k] = src[best * 2 * m + k]!;
     for (let pass = 0; pass < 2; pass++) {
       for (const b of basis) {
         let pr = 0, pi = 0;
@@ -225,10 +234,18 @@ export function pivotedBasis(y: Float64Array, m: number, count: number, tol: num
     if (!(nq > 0)) return null;
     for (let k = 0; k < 2 * m; k++) q[k] = q[k]! / nq;
     basis.push(q);
-    for (let c = 0; c < count; c++) {
-      if (norm2[c] === 0) continue;
-      norm2[c] = removeComponent(y, c * 2 * m, q, m);
+    if (sweep === undefined) sweep = m * count >= SWEEP_MIN ? BasisSweep.make(y, m, count, wasm) : null;
+    if (sweep) sweep.remove(q, norm2);
+    else {
+      for (let c = 0; c < count; c++) {
+        if (norm2[c] === 0) continue;
+        norm2[c] = removeComponent(y, c * 2 * m, q, m);
+      }
     }
+  }
+  } finally {
+    // the residuals in y, as the twin leaves them
+    if (sweep) sweep.residualsInto(y);
   }
 }
 
@@ -522,13 +539,13 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const tolLine = tolerance / split, tolTime = tolerance / split;
   const y = scratchF64("y", 2 * NA * C);
   lineValues(P, act.map((a) => a.n), C, mass, y);
-  const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK);
+  const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK, plan.wasm);
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
   const G = projectLines(A, P, act.map((a) => a.n), C); // G[c·R + r]
   const R = A.length;
   // --- time factor over distinct (R2, Δf)
   const { keyOf, keyDf, keyR2, K, E, ey } = timeKeys(plan, G, R, mass, ns, dwell);
-  const B = pivotedBasis(ey, ns, K, tolTime, MAX_SEGMENTS);
+  const B = pivotedBasis(ey, ns, K, tolTime, MAX_SEGMENTS, plan.wasm);
   if (!B) return `the (R2, Δf) spread needs more than ${MAX_SEGMENTS} time segments at tolerance ${tolerance}: not covered by the fast operator`;
   const L = B.length;
   const Ck = project(B, E, ns, K); // C[k·L + l]
@@ -1026,22 +1043,26 @@ function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Ar
  * in line order k = 0, 1, …, so the numbers are the same.
  */
 function projectLines(basis: Float64Array[], P: Float64Array, lines: number[], C: number): Float64Array {
-  const R = basis.length, NA = lines.length, coef = new Float64Array(2 * C * R);
+  const R = basis.length, NA = lines.length, coef = new Float64Array(2 * C * R), bk = new Float64Array(2 * R);
   for (let k = 0; k < NA; k++) {
-    const n = lines[k]!;
     for (let r = 0; r < R; r++) {
-      const br = basis[r]![2 * k]!, bi = basis[r]![2 * k + 1]!;
-      addProjection(coef, P, 2 * n * C, C, R, r, br, bi);
+      bk[2 * r] = basis[r]![2 * k]!;
+      bk[2 * r + 1] = basis[r]![2 * k + 1]!;
     }
+    addProjection(coef, P, 2 * lines[k]! * C, C, R, bk);
   }
   return coef;
 }
 
-function addProjection(coef: Float64Array, P: Float64Array, o: number, C: number, R: number, r: number, br: number, bi: number): void {
+/** coef[c·R + r] += conj(b_r)·P[o + c] for every class c and rank r (line k's terms; b_r at bk[2r]): a class's R coefficients side by side. */
+function addProjection(coef: Float64Array, P: Float64Array, o: number, C: number, R: number, bk: Float64Array): void {
   for (let c = 0; c < C; c++) {
-    const xr = P[o + 2 * c]!, xi = P[o + 2 * c + 1]!, t = 2 * (c * R + r);
-    coef[t] = coef[t]! + (br * xr + bi * xi);
-    coef[t + 1] = coef[t + 1]! + (br * xi - bi * xr);
+    const xr = P[o + 2 * c]!, xi = P[o + 2 * c + 1]!, t = 2 * c * R;
+    for (let r = 0; r < R; r++) {
+      const br = bk[2 * r]!, bi = bk[2 * r + 1]!;
+      coef[t + 2 * r] = coef[t + 2 * r]! + (br * xr + bi * xi);
+      coef[t + 2 * r + 1] = coef[t + 2 * r + 1]! + (br * xi - bi * xr);
+    }
   }
 }
 

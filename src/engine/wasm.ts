@@ -19,6 +19,7 @@ import { readoutRecurrence, rfAffine } from "./kernels.js";
 import { fftStepsModule } from "../recon/fft-wasm.js";
 import { foldMomentsModule } from "./fold-wasm.js";
 import { sliceProjectModule } from "./slice-basis.js";
+import { basisRemoveModule } from "./basis-wasm.js";
 import {
   BR_IF, F64X2_ADD, F64X2_DIV, F64X2_MAX, F64X2_MUL, F64X2_SPLAT, F64X2_SQRT, F64X2_SUB, I32, I32_ADD, I32_LT_U, I32_MUL, I32_SUB, V128,
   f64Load, i32Const, instantiateKernel, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
@@ -101,7 +102,7 @@ export function readoutPairsScalar(m: Float64Array, sOff: number, pairs: number,
 }
 
 /** Every hand-assembled module of the engine, by name (test/engine-wasm.test.ts validates each). */
-export const WASM_MODULES: Record<string, () => Uint8Array<ArrayBuffer>> = { readout: () => readoutModule(), rf: () => rfModule(), fftSteps: () => fftStepsModule(), foldMoments: () => foldMomentsModule(), sliceProject: () => sliceProjectModule() };
+export const WASM_MODULES: Record<string, () => Uint8Array<ArrayBuffer>> = { readout: () => readoutModule(), rf: () => rfModule(), fftSteps: () => fftStepsModule(), foldMoments: () => foldMomentsModule(), sliceProject: () => sliceProjectModule(), basisRemove: () => basisRemoveModule() };
 
 type ReadoutFn = (sOff: number, pairs: number, gOff: number, groups: number) => void;
 let kernel: Kernel<ReadoutFn> | null | undefined;
