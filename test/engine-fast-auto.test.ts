@@ -11,6 +11,8 @@
  * direct operator pays a recurrence per readout group.
  */
 import { describe, expect, test } from "vitest";
+import fc from "fast-check";
+import { DistinctCount } from "../src/engine/fast.js";
 import { prepare } from "../src/cli/pipeline.js";
 import { DEFAULT_TOLERANCE, makePlan, predictReadoutCosts, simulateSerial } from "../src/engine/index.js";
 import { simulateParallel } from "../src/engine/node.js";
@@ -101,5 +103,31 @@ describe("readout auto: the cheaper operator by predicted cost", () => {
     expect(loose.lineRankBound!).toBeLessThan(tight.lineRankBound!);
     expect(loose.fastMs!).toBeLessThan(tight.fastMs!);
     expect(loose.directMs).toBe(tight.directMs);
+  });
+});
+
+describe("the cost model's distinct counts", () => {
+  // engine/fast.ts DistinctCount stands in for Set<number>.size (oracle: the Set itself), across clears
+  // and growth, on keys small and up to 2^53 − 1 with many repeats
+  test("DistinctCount.size equals a Set's size after the same adds and clears", () => {
+    fc.assert(
+      fc.property(
+        fc.array(fc.array(fc.oneof(fc.integer({ min: 0, max: 50 }), fc.integer({ min: 0, max: 5000 }), fc.maxSafeNat()), { maxLength: 3000 }), { minLength: 1, maxLength: 4 }),
+        (rounds) => {
+          const d = new DistinctCount();
+          for (const keys of rounds) {
+            d.clear();
+            const s = new Set<number>();
+            for (const k of keys) {
+              d.add(k);
+              s.add(k);
+            }
+            if (d.size !== s.size) return false;
+          }
+          return true;
+        },
+      ),
+      { numRuns: 200, seed: 7 },
+    );
   });
 });

@@ -221,7 +221,7 @@ export async function simulateCells(
   prepareHelperMemory(seq, plan, cells, tolerance, executor.threads ?? 2);
   let auto: { choice?: ReadoutOperator; predicted?: ReadoutCosts } = {};
   if (requested === "auto") {
-    const costs = predictCosts(seq, plan, cells, (i0, i1, add) => {
+    const costs = predictCosts(seq, plan, cells, (i0, i1, sink) => {
       // whole columns of the chunk
       let c0 = 0, hi = cells.columns;
       while (c0 < hi) {
@@ -231,9 +231,7 @@ export async function simulateCells(
       }
       let c1 = c0;
       while (c1 < cells.columns && cells.colStart[c1]! < i1) c1++;
-      stream.columnRange(c0, c1, (a, b, n, cls) => {
-        for (let k = 0; k < n; k++) add(a, b, cls[k]!);
-      });
+      stream.columnRange(c0, c1, (a, b, n, cls) => sink.column(a, b, n, cls));
     }, tolerance, 8, true);
     const use: ReadoutOperator = costs.fastMs !== null && costs.fastMs < costs.directMs ? "fast" : "direct";
     auto = { choice: use, predicted: costs };

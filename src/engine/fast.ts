@@ -1404,15 +1404,77 @@ const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCos
  */
 export function predictReadoutCosts(seq: Sequence, plan: EnginePlan, iso: IsochromatSet, tolerance: number, split = 8): ReadoutCosts {
   const { iu, iv } = iso, rfClass = plan.rfClass;
-  return predictCosts(seq, plan, iso, (i0, i1, add) => {
-    for (let i = i0; i < i1; i++) add(iu[i]!, iv[i]!, rfClass[i]!);
+  return predictCosts(seq, plan, iso, (i0, i1, sink) => {
+    for (let i = i0; i < i1; i++) sink.iso(iu[i]!, iv[i]!, rfClass[i]!);
   }, tolerance, split);
 }
 
-/** predictReadoutCosts over any source: `chunkIsochromats(i0, i1, add)` calls add(a, b, class) for isochromats i0 … i1−1 (whole columns). */
+/**
+ * The number of distinct non-negative whole numbers (below 2^53) added since
+ * the last clear(): what a Set<number>'s size gives, without its per-entry
+ * cost (open addressing, linear probing, multiplicative hashing; a clear is
+ * a new generation, not a refill).
+ */
+export class DistinctCount {
+  private keys = new Float64Array(1024);
+  private gen = new Int32Array(1024);
+  private g = 1;
+  size = 0;
+
+  clear(): void {
+    this.size = 0;
+    this.g++;
+    if (this.g === 0x7fffffff) {
+      this.gen.fill(0);
+      this.g = 1;
+    }
+  }
+
+  add(key: number): void {
+    const mask = this.keys.length - 1;
+    let h = (Math.imul((key % 4294967296) | 0, 0x9e3779b1) ^ Math.imul((key / 4294967296) | 0, 0x85ebca6b)) & mask;
+    for (;;) {
+      if (this.gen[h] !== this.g) {
+        this.gen[h] = this.g;
+        this.keys[h] = key;
+        if (++this.size * 2 > this.keys.length) this.grow();
+        return;
+      }
+      if (this.keys[h] === key) return;
+      h = (h + 1) & mask;
+    }
+  }
+
+  private grow(): void {
+    const keys = this.keys, gen = this.gen, g = this.g;
+    this.keys = new Float64Array(2 * keys.length);
+    this.gen = new Int32Array(2 * keys.length);
+    this.g = 1;
+    this.size = 0;
+    for (let i = 0; i < keys.length; i++) if (gen[i] === g) this.add(keys[i]!);
+  }
+}
+
+/**
+ * What the cost model counts of a sample chunk: its isochromats one by one
+ * (grid indices a, b and RF class), or whole columns (one grid position
+ * (a, b) each, no two columns of a chunk at the same position, with the
+ * classes of its n isochromats).
+ */
+export interface CostSink {
+  iso(a: number, b: number, cls: number): void;
+  column(a: number, b: number, n: number, cls: Int32Array): void;
+}
+
+/**
+ * predictReadoutCosts over any source: `visitChunk(i0, i1, sink)` gives the sink isochromats i0 … i1−1
+ * (whole columns), one by one or by column. Per sample chunk it counts the distinct classes, (read
+ * column, key) groups and (position, key) slots, as Sets of them would (by generation stamps, so an
+ * isochromat costs a few array reads).
+ */
 export function predictCosts(
   seq: Sequence, plan: EnginePlan, iso: { count: number; columns: number; uGrid: Float64Array; vGrid: Float64Array },
-  chunkIsochromats: (i0: number, i1: number, add: (a: number, b: number, cls: number) => void) => void, tolerance: number, split = 8,
+  visitChunk: (i0: number, i1: number, sink: CostSink) => void, tolerance: number, split = 8,
   streamed = false,
 ): ReadoutCosts {
   const hit = costCache.get(plan);
@@ -1423,25 +1485,55 @@ export function predictCosts(
   const spread = keySpread(keyDf, keyR2);
   const K = Math.max(1, keyDf.length);
   // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
-  const nv = Math.max(1, iso.vGrid.length);
+  const nv = Math.max(1, iso.vGrid.length), nu = Math.max(1, iso.uGrid.length);
   const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS);
   let sg = 0, ss = 0, sn = 0, sc = 0;
-  const gset = new Set<number>(), sset = new Set<number>(), cset = new Set<number>();
+  // distinct classes, (a, key) groups and (a, b, key) slots of the chunk: stamps (pick p + 1) per class and
+  // group where they fit, else counted sets; per column its distinct keys (stamp: the column's number)
+  const cStamp = new Int32Array(C), gStamp = nu * K <= 1 << 23 ? new Int32Array(nu * K) : null, kStamp = new Int32Array(K);
+  const gset = new DistinctCount(), sset = new DistinctCount();
+  let stamp = 0, colId = 0, nc = 0, ng = 0, nsl = 0;
+  const classAndGroup = (a: number, cls: number): number => {
+    if (cStamp[cls] !== stamp) {
+      cStamp[cls] = stamp;
+      nc++;
+    }
+    const k = keyOf[cls]!, g = a * K + k;
+    if (gStamp) {
+      if (gStamp[g] !== stamp) {
+        gStamp[g] = stamp;
+        ng++;
+      }
+    } else gset.add(g);
+    return k;
+  };
+  const sink: CostSink = {
+    iso: (a, b, cls) => {
+      const k = classAndGroup(a, cls);
+      sset.add((a * nv + b) * K + k);
+    },
+    column: (a, _b, n, cls) => {
+      colId++;
+      for (let i = 0; i < n; i++) {
+        const k = classAndGroup(a, cls[i]!);
+        if (kStamp[k] !== colId) {
+          kStamp[k] = colId;
+          nsl++;
+        }
+      }
+    },
+  };
   for (let p = 0; p < picks; p++) {
     const c = Math.floor(((p + 0.5) * plan.chunks) / picks);
     const i0 = plan.chunkStart[c]!, i1 = plan.chunkStart[c + 1]!;
+    stamp = p + 1;
+    nc = ng = nsl = 0;
     gset.clear();
     sset.clear();
-    cset.clear();
-    chunkIsochromats(i0, i1, (a, b, cls) => {
-      const k = keyOf[cls]!;
-      cset.add(cls);
-      gset.add(a * K + k);
-      sset.add((a * nv + b) * K + k);
-    });
-    sg += gset.size;
-    ss += sset.size;
-    sc += cset.size;
+    visitChunk(i0, i1, sink);
+    sg += ng + gset.size;
+    ss += nsl + sset.size;
+    sc += nc;
     sn += i1 - i0;
   }
   const scale = sn > 0 ? count / sn : 0;
@@ -1466,9 +1558,8 @@ export function predictCosts(
     costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
   } else {
     const { R, L } = boundsFrom(T, spread.df, spread.r2, tolerance, split);
-    const nu = iso.uGrid.length;
     const [Mu, Mv] = dftLengths(seq, iso);
-    const usedCols = Math.min(Mu, nu);
+    const usedCols = Math.min(Mu, iso.uGrid.length);
     const grid = Mu * Mv;
     const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
     // weights relative to one n·log2(n) unit of a power-of-two FFT (profiled, see W_FAST)
