@@ -20,7 +20,7 @@
  * Isochromats sharing an in-plane grid position (a column) are contiguous.
  */
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
-import { cellContents, phantomBounds, type Phantom } from "../phantom/index.js";
+import { cellContents, cellUniform, phantomBounds, type Phantom } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
@@ -241,6 +241,10 @@ export interface CellContext {
   assign: { bins: Int32Array | number[]; weight: Float64Array | number[] }[][];
 }
 
+/** Columns per tile edge of sampleCells' classification (cells.ts cellUniform), and the tile states besides a tissue index or −1 (empty). */
+const TILE = 8;
+const TILE_MIXED = -2, TILE_UNKNOWN = -3;
+
 /** Growable typed array (doubling). */
 class GrowInt32 {
   n = 0;
@@ -377,8 +381,28 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   let at = 0;
   // a slice-invariant phantom: the entries of a column's first cell, repeated at every w
   const keptTissue = new Int32Array(cell.tissue.length), keptFrac = new Float64Array(cell.tissue.length);
+  // per tile of columns (index ⌊b/TILE⌋·nw + w index) along the current tile row ⌊a/TILE⌋: cellUniform's answer
+  const tileOf = new Int32Array(Math.ceil(nv / TILE) * nw);
+  const e1t = [0, 0, 0], e2t = [0, 0, 0];
+  const classifyTile = (a: number, b: number, w: number): number => {
+    const a0 = a - (a % TILE), a1 = Math.min(nu, a0 + TILE), b0 = b - (b % TILE), b1 = Math.min(nv, b0 + TILE);
+    if ((a1 - a0) * (b1 - b0) === 1) return TILE_MIXED;
+    const u = 0.5 * (uGrid[a0]! + uGrid[a1 - 1]!), v = 0.5 * (vGrid[b0]! + vGrid[b1 - 1]!);
+    for (let q = 0; q < 3; q++) {
+      e1t[q] = e1[q]! * (a1 - a0);
+      e2t[q] = e2[q]! * (b1 - b0);
+    }
+    return cellUniform(
+      ph,
+      axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w,
+      axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w,
+      axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w,
+      e1t, e2t, e3,
+    );
+  };
   for (let a = 0; a < nu; a++) {
     const u = uGrid[a]!;
+    if (a % TILE === 0) tileOf.fill(TILE_UNKNOWN);
     for (let b = 0; b < nv; b++) {
       const v = vGrid[b]!;
       const startAt = at, startEnt = entW.n;
@@ -398,7 +422,17 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
         r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
         r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
         r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
-        const n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
+        // the tile of TILE × TILE columns around this cell at this w, classified once: certainly one tissue
+        // (or empty) gives every cell of it that tissue at fraction 1 (or nothing), as cellContents would
+        const ti = ((b / TILE) | 0) * nw + c;
+        if (tileOf[ti] === TILE_UNKNOWN) tileOf[ti] = classifyTile(a, b, w);
+        const uniform = tileOf[ti]!;
+        let n: number;
+        if (uniform >= -1) {
+          n = uniform >= 0 ? 1 : 0;
+          cell.tissue[0] = uniform;
+          cell.fraction[0] = 1;
+        } else n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
         for (let k = 0; k < n; k++) {
           const ti = cell.tissue[k]!;
           const t = ph.tissues[ti]!;

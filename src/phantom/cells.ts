@@ -114,39 +114,8 @@ export function cellContents(
   const e2x = e2[0]!, e2y = e2[1]!, e2z = e2[2]!;
   const e3x = e3[0]!, e3y = e3[1]!, e3z = e3[2]!;
 
-  // Half-diagonals: 3D, and of the projection on x–y; half extent along z.
-  let h3sq = 0, hxysq = 0;
-  for (let s = 0; s < 4; s++) {
-    const s2 = s & 1 ? -1 : 1, s3 = s & 2 ? -1 : 1;
-    const dx = e1x + s2 * e2x + s3 * e3x, dy = e1y + s2 * e2y + s3 * e3y, dz = e1z + s2 * e2z + s3 * e3z;
-    const xy = dx * dx + dy * dy;
-    if (xy > hxysq) hxysq = xy;
-    if (xy + dz * dz > h3sq) h3sq = xy + dz * dz;
-  }
-  const h3 = 0.5 * Math.sqrt(h3sq), hxy = 0.5 * Math.sqrt(hxysq);
-  const hz = 0.5 * (Math.abs(e1z) + Math.abs(e2z) + Math.abs(e3z));
-
-  // Walk from the last painted shape back: stop at a shape that certainly
-  // covers the cell (it hides everything painted before it).
-  if (candidates.length < shapes.length) candidates = new Int32Array(shapes.length);
-  let nCand = 0;
-  let base = -1;
-  let all2D = true;
-  for (let k = shapes.length - 1; k >= 0; k--) {
-    const c = shapes[k]!.classifyCell(cx, cy, cz, hxy, hz, h3);
-    if (c === CELL_OUTSIDE) continue;
-    if (c === CELL_INSIDE) { base = k; break; }
-    candidates[nCand++] = k;
-    if (c !== CELL_CROSSES_XY) all2D = false;
-  }
-  const baseTissue = base >= 0 ? shapes[base]!.tissue : -1;
-
-  if (nCand > 0 && baseTissue >= 0) {
-    // Shapes crossing the cell that paint the covering tissue change nothing.
-    let same = true;
-    for (let q = 0; q < nCand; q++) if (shapes[candidates[q]!]!.tissue !== baseTissue) { same = false; break; }
-    if (same) nCand = 0;
-  }
+  const nCand = classifyFor(shapes, cx, cy, cz, e1x, e1y, e1z, e2x, e2y, e2z, e3x, e3y, e3z);
+  const baseTissue = lastBase, all2D = lastAll2D;
   if (nCand === 0) {
     if (baseTissue < 0) return 0;
     if (out.tissue.length < 1) throw new RangeError("cellContents: out holds no entries");
@@ -198,6 +167,88 @@ export function cellContents(
     n++;
   }
   return n;
+}
+
+/** Set by classifyFor: the covering shape's tissue (−1: none) and whether every crossing shape is constant along z in the cell. */
+let lastBase = -1;
+let lastAll2D = true;
+
+/**
+ * cellContents' classification of a cell (centre, full edge vectors): walks
+ * from the last painted shape back to one that certainly covers the cell,
+ * keeping the shapes that may cross it (in `candidates`, latest first) unless
+ * they all paint the covering tissue. Returns their number; the covering
+ * tissue and the z-constancy are left in lastBase and lastAll2D.
+ */
+function classifyFor(
+  shapes: Shape[], cx: number, cy: number, cz: number,
+  e1x: number, e1y: number, e1z: number, e2x: number, e2y: number, e2z: number, e3x: number, e3y: number, e3z: number,
+): number {
+  // Half-diagonals: 3D, and of the projection on x–y; half extent along z.
+  let h3sq = 0, hxysq = 0;
+  for (let s = 0; s < 4; s++) {
+    const s2 = s & 1 ? -1 : 1, s3 = s & 2 ? -1 : 1;
+    const dx = e1x + s2 * e2x + s3 * e3x, dy = e1y + s2 * e2y + s3 * e3y, dz = e1z + s2 * e2z + s3 * e3z;
+    const xy = dx * dx + dy * dy;
+    if (xy > hxysq) hxysq = xy;
+    if (xy + dz * dz > h3sq) h3sq = xy + dz * dz;
+  }
+  const h3 = 0.5 * Math.sqrt(h3sq), hxy = 0.5 * Math.sqrt(hxysq);
+  const hz = 0.5 * (Math.abs(e1z) + Math.abs(e2z) + Math.abs(e3z));
+
+  // Walk from the last painted shape back: stop at a shape that certainly
+  // covers the cell (it hides everything painted before it).
+  if (candidates.length < shapes.length) candidates = new Int32Array(shapes.length);
+  let nCand = 0;
+  let base = -1;
+  let all2D = true;
+  for (let k = shapes.length - 1; k >= 0; k--) {
+    const c = shapes[k]!.classifyCell(cx, cy, cz, hxy, hz, h3);
+    if (c === CELL_OUTSIDE) continue;
+    if (c === CELL_INSIDE) { base = k; break; }
+    candidates[nCand++] = k;
+    if (c !== CELL_CROSSES_XY) all2D = false;
+  }
+  const baseTissue = base >= 0 ? shapes[base]!.tissue : -1;
+
+  if (nCand > 0 && baseTissue >= 0) {
+    // Shapes crossing the cell that paint the covering tissue change nothing.
+    let same = true;
+    for (let q = 0; q < nCand; q++) if (shapes[candidates[q]!]!.tissue !== baseTissue) { same = false; break; }
+    if (same) nCand = 0;
+  }
+  lastBase = baseTissue;
+  lastAll2D = all2D;
+  return nCand;
+}
+
+let tiles = true;
+
+/**
+ * Whether sampleCells and truthMaps classify tiles of cells at once (the
+ * default) or every cell alone (tests: the same numbers either way);
+ * setCellTiles returns the previous setting.
+ */
+export function setCellTiles(on: boolean): boolean {
+  const was = tiles;
+  tiles = on;
+  return was;
+}
+
+/**
+ * The tissue certainly filling a whole cell (the fast path of cellContents:
+ * no shape boundary within reach of its centre), −1 where the cell is
+ * certainly empty, or −2 where neither is certain. A cell inside one that is
+ * certainly filled (or empty) is so too, and cellContents gives it exactly
+ * that tissue at fraction 1 (or nothing) with the default sub-sampling: by its
+ * fast path, or by sub-samples that all land in that tissue, whose count N
+ * (a product of three numbers ≤ 4) has N·(1/N) = 1 exactly. Always −2 with
+ * tiles switched off (setCellTiles).
+ */
+export function cellUniform(ph: Phantom, cx: number, cy: number, cz: number, e1: ArrayLike<number>, e2: ArrayLike<number>, e3: ArrayLike<number>): number {
+  if (!tiles) return -2;
+  const n = classifyFor(ph.shapes, cx, cy, cz, e1[0]!, e1[1]!, e1[2]!, e2[0]!, e2[1]!, e2[2]!, e3[0]!, e3[1]!, e3[2]!);
+  return n === 0 ? lastBase : -2;
 }
 
 /** Sub-samples along an edge of x–y length l when the longest is lmax. */
