@@ -542,28 +542,59 @@ export function centredLines(
   for (let g0 = 0; g0 < count; g0 += LINES_PER_BATCH) {
     const k = Math.min(LINES_PER_BATCH, count - g0), o0 = offset + g0 * step;
     // ifftshift on load: line g's buf[j] = x[(j + c) mod n], imaginary parts times s (see centredLine)
-    let q = c;
-    for (let j = 0; j < n; j++) {
-      const at = o0 + q * stride;
+    if (stride === 1) {
+      // lines along the fast axis: each line's two runs in turn
       for (let g = 0; g < k; g++) {
-        buf[g * size + 2 * j] = re[at + g * step]!;
-        buf[g * size + 2 * j + 1] = s * im[at + g * step]!;
+        const at = o0 + g * step, b = g * size;
+        for (let j = 0, q = c; q < n; j++, q++) {
+          buf[b + 2 * j] = re[at + q]!;
+          buf[b + 2 * j + 1] = s * im[at + q]!;
+        }
+        for (let j = n - c, q = 0; q < c; j++, q++) {
+          buf[b + 2 * j] = re[at + q]!;
+          buf[b + 2 * j + 1] = s * im[at + q]!;
+        }
       }
-      q++;
-      if (q === n) q = 0;
+    } else {
+      // neighbouring lines across the fast axis: one sweep down them reads each row's values together
+      let q = c;
+      for (let j = 0; j < n; j++) {
+        const at = o0 + q * stride;
+        for (let g = 0; g < k; g++) {
+          buf[g * size + 2 * j] = re[at + g * step]!;
+          buf[g * size + 2 * j + 1] = s * im[at + g * step]!;
+        }
+        q++;
+        if (q === n) q = 0;
+      }
     }
     const out = plan.forwardBatch(buf, 0, size, 2, k, n);
     // fftshift on store: y[(j + c) mod n] = out[j]
-    let p = c;
-    for (let j = 0; j < n; j++) {
-      const at = o0 + p * stride;
+    const ob = plan.batchOffset(0);
+    if (stride === 1) {
       for (let g = 0; g < k; g++) {
-        const o = plan.batchOffset(g) + 2 * j;
-        re[at + g * step] = out[o]! * scale;
-        im[at + g * step] = s * out[o + 1]! * scale;
+        const at = o0 + g * step, b = ob + g * size;
+        for (let j = 0, p = c; p < n; j++, p++) {
+          re[at + p] = out[b + 2 * j]! * scale;
+          im[at + p] = s * out[b + 2 * j + 1]! * scale;
+        }
+        for (let j = n - c, p = 0; p < c; j++, p++) {
+          re[at + p] = out[b + 2 * j]! * scale;
+          im[at + p] = s * out[b + 2 * j + 1]! * scale;
+        }
       }
-      p++;
-      if (p === n) p = 0;
+    } else {
+      let p = c;
+      for (let j = 0; j < n; j++) {
+        const at = o0 + p * stride;
+        for (let g = 0; g < k; g++) {
+          const o = ob + g * size + 2 * j;
+          re[at + g * step] = out[o]! * scale;
+          im[at + g * step] = s * out[o + 1]! * scale;
+        }
+        p++;
+        if (p === n) p = 0;
+      }
     }
   }
 }
