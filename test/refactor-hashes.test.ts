@@ -52,9 +52,18 @@ const presets = readdirSync(join(ROOT, "src", "protocol", "presets")).filter((f)
 
 const SMALL_ISO = { ...defaultIsochromatOptions(), density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 1 };
 
-async function kspaceHash(protocol: string, sets: string[], iso: IsochromatOptions = SMALL_ISO): Promise<string> {
+/**
+ * The fast readout operator forced (auto picks the direct one at 32×32 above), at 64×64: its kernels and their
+ * twins, the line and time bases, the folds and the FFTs must keep these bytes. Recorded 2026-12-02 at 8fcbc15.
+ */
+export const FAST_SHA256: Record<string, string> = {
+  "gre-demo-1.5t on two-bottle": "7d1eaba44f8f3196ffc0e9fdfbebf79128e29681c5537515a9d905d81c4064aa",
+  "gre-t1-3t on torso-slice": "d83f9d2cdc8906eb1f1b890a507b0d112b9ced71a5c9820eaba057064d53eae3",
+};
+
+async function kspaceHash(protocol: string, sets: string[], iso: IsochromatOptions = SMALL_ISO, phantom = PHANTOM, readout?: "fast"): Promise<string> {
   const out = join(tempDir(), "run");
-  await run({ phantom: PHANTOM, protocol, sets, out, seed: 1, quiet: true, workers: 1, iso });
+  await run({ phantom, protocol, sets, out, seed: 1, quiet: true, workers: 1, iso, ...(readout ? { readout } : {}) });
   return createHash("sha256").update(readFileSync(join(out, "kspace.npy"))).digest("hex");
 }
 
@@ -75,4 +84,13 @@ describe("kspace.npy bytes are unchanged by refactoring", () => {
     if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH demo ${h}`);
     expect(h).toBe(KSPACE_SHA256.demo);
   });
+  // the fast operator on the demo and the torso slice (density 2, 6 through the slice, T2′ spread of 4)
+  for (const [label, protocol, phantom] of [["gre-demo-1.5t on two-bottle", "gre-demo-1.5t", PHANTOM], ["gre-t1-3t on torso-slice", "gre-t1-3t", join(ROOT, "phantoms", "torso-slice.json")]] as const) {
+    it(`fast readout: ${label}, 64×64`, async () => {
+      const iso = { ...defaultIsochromatOptions(), density: 2, sliceCount: 6, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 4 };
+      const h = await kspaceHash(protocol, ["matrix.read=64", "matrix.phase=64"], iso, phantom, "fast");
+      if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH fast ${label} ${h}`);
+      expect(h).toBe(FAST_SHA256[label]);
+    });
+  }
 });
