@@ -258,3 +258,20 @@ describe("property: random small protocols and sampling", () => {
     expect(fastRuns).toBeGreaterThanOrEqual(6);
   }, 120_000);
 });
+
+describe("the a-posteriori estimate's reference sums", () => {
+  // The estimate compares the fast k-space with direct sums on a sample subset; its column sums are regrouped
+  // per cell (fast-stream.ts columnEstimator: a column of one tissue, or of several tissues through the slice,
+  // from per-cell tables). At a tight tolerance the fast result equals the direct operator's to about 1e-10, so
+  // an estimate far above that means the reference sums are not the direct ones. Oracle: the direct operator.
+  test("torso slice with partial-volume columns and a T2′ spread: estimate near the true error at tolerance 1e-10", async () => {
+    const p = prep(["slice.thickness=4 mm"], { protocol: "gre-t1-3t", phantom: "phantoms/torso-slice.json", matrix: 32, iso: { density: 2, sliceCount: 6, t2primeIsochromats: 3 } });
+    const fast = await streamed(p, "fast", 1e-10);
+    const direct = await simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    expect(fast.readout.operator).toBe("fast");
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-9);
+    // the estimate: 3 × the subset's relative error, itself of the order of the true error (plus rounding)
+    expect(fast.readout.estimate!.relL2).toBeLessThan(1e-8);
+  }, 60_000);
+});

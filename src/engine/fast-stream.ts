@@ -667,6 +667,23 @@ export class CellStream {
             addSamples(u, v, colv);
             return;
           }
+        } else if (!S && !this.eClass) {
+          // several tissues (or fractions) through the slice, one uniform coil: colv = Σ over its cells of
+          // pd·fraction × the cell's row of Y (the same sum regrouped), where every table is whole and flat
+          let ok = true;
+          for (let e = e0; e < e1 && ok; e++) {
+            const z = cells.entTissue[e]! * D2 + sub;
+            if (Y[z] === null || (filter && !flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw))) ok = false;
+          }
+          if (ok) {
+            colv.fill(0);
+            for (let e = e0; e < e1; e++) {
+              const ti = cells.entTissue[e]!;
+              addScaled(colv, 0, Y[ti * D2 + sub]!, 2 * cells.entW[e]! * NS, pd[ti]! * cells.entFrac[e]!, 0, NS);
+            }
+            addSamples(u, v, colv);
+            return;
+          }
         } else if (S && !this.eClass) {
           // several tissues (or fractions) through the slice: per tissue the weights g(c) = Σ pd·fraction of its
           // cells, colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] (exact), where every tissue's table is whole and flat
