@@ -116,40 +116,58 @@ function addLines(Z: Float64Array, zo: number, out: Float64Array, oo: number, mL
 
 /** Lines gathered per sweep in readAxis (16: 256 bytes of each read column's run per visit). */
 export const KT = 16;
+/** Read-axis transforms made together at most (lines × segments of a group). */
+const READ_BATCH = 256;
 
 /**
  * Read-axis DFT of every line of one coil, times B_l(j), summed over the
  * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
  * each is turned to [line][read column] first so the transforms read contiguous rows.
+ * KT lines at a time, every segment's lines of the group transformed together
+ * (input (l, t) at zt[2·((l·nk + t)·Mu + a)]; zt holds 2·KT·L·Mu numbers), then
+ * each output sample summed over l in order (the same additions, one store).
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
 export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true): void {
   const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
+  // at most READ_BATCH transforms at once (many segments: fewer lines per group)
+  const kt = Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L)));
   out.fill(0);
-  for (let l = 0; l < L; l++) {
-    const z = Zq[l]!;
-    // KT lines at a time: one sweep down the read columns reads each cache line of z once
-    for (let k0 = 0; k0 < NA; k0 += KT) {
-      const nk = Math.min(KT, NA - k0);
-      for (let i = 0; i < usedA.length; i++) {
-        const a = usedA[i]!, src = 2 * (i * NA + k0);
-        for (let t = 0; t < nk; t++) {
-          zt[2 * (t * Mu + a)] = z[src + 2 * t]!;
-          zt[2 * (t * Mu + a) + 1] = z[src + 2 * t + 1]!;
-        }
-      }
-      const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk, nzA, wasm);
-      for (let t = 0; t < nk; t++) readOne(l, k0 + t, res, dft.batchOffset(t));
+  for (let k0 = 0; k0 < NA; k0 += kt) {
+    const nk = Math.min(kt, NA - k0);
+    // one sweep down the read columns per segment reads each cache line of z once
+    for (let l = 0; l < L; l++) gatherLines(Zq[l]!, zt, l * nk, usedA, NA, k0, nk, Mu);
+    const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk * L, nzA, wasm);
+    const base = dft.batchOffset(0);
+    for (let t = 0; t < nk; t++) readLine(out, 2 * (k0 + t) * ns, res, base + 2 * Mu * t, 2 * Mu * nk, colIdx, BL, ns, L);
+  }
+}
+
+/** zt line g0 + t ← line k0 + t of z at the used read columns (z: [used column i][line k]). */
+function gatherLines(z: Float64Array, zt: Float64Array, g0: number, usedA: Int32Array, NA: number, k0: number, nk: number, Mu: number): void {
+  for (let i = 0; i < usedA.length; i++) {
+    const a = usedA[i]!, src = 2 * (i * NA + k0);
+    for (let t = 0; t < nk; t++) {
+      const d = 2 * ((g0 + t) * Mu + a);
+      zt[d] = z[src + 2 * t]!;
+      zt[d + 1] = z[src + 2 * t + 1]!;
     }
   }
-  function readOne(l: number, k: number, res: Float64Array, ro: number): void {
-    const o = 2 * k * ns;
-    for (let j = 0; j < ns; j++) {
-      const cj = ro + 2 * colIdx[j]!, fr = res[cj]!, fi = res[cj + 1]!;
-      const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
-      out[o + 2 * j] = out[o + 2 * j]! + (fr * br - fi * bi);
-      out[o + 2 * j + 1] = out[o + 2 * j + 1]! + (fr * bi + fi * br);
+}
+
+/** out[o + 2j] += Σ_l res[r0 + l·rl + 2·colIdx[j]]·B_l(j), the segments added in order l = 0, 1, …. */
+function readLine(out: Float64Array, o: number, res: Float64Array, r0: number, rl: number, colIdx: Int32Array, BL: Float64Array, ns: number, L: number): void {
+  for (let j = 0; j < ns; j++) {
+    let vr = out[o + 2 * j]!, vi = out[o + 2 * j + 1]!;
+    const c = r0 + 2 * colIdx[j]!, b = 2 * j * L;
+    for (let l = 0; l < L; l++) {
+      const cj = c + l * rl, fr = res[cj]!, fi = res[cj + 1]!;
+      const br = BL[b + 2 * l]!, bi = BL[b + 2 * l + 1]!;
+      vr = vr + (fr * br - fi * bi);
+      vi = vi + (fr * bi + fi * br);
     }
+    out[o + 2 * j] = vr;
+    out[o + 2 * j + 1] = vi;
   }
 }
 
@@ -254,7 +272,7 @@ class ReadViews {
   readonly lines: Float64Array[];
   constructor(private readonly setup: Omit<PhaseSetup, "Z" | "colUsed">, private readonly Z: Float64Array, mem: SharedArrayBuffer, zLen: number, slotLen: number, private readonly rd: ReadShared) {
     this.dft = new FFTPlan(setup.Mu);
-    this.zt = new Float64Array(2 * KT * setup.Mu);
+    this.zt = new Float64Array(2 * KT * setup.L * setup.Mu);
     this.BL = new Float64Array(rd.BL);
     this.colIdx = new Int32Array(rd.colIdx);
     this.usedA = new Int32Array(rd.usedA);

@@ -745,7 +745,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // With several coils the fold (sensitivities per column and coil) costs more
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
-  const lines = scratchF64("lines", 2 * NA * ns), zt = scratchF64("zt", 2 * KT * Mu);
+  const lines = scratchF64("lines", 2 * NA * ns), zt = scratchF64("zt", 2 * KT * L * Mu);
   const usedA = Int32Array.from(usedList);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
