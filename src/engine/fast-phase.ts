@@ -36,11 +36,30 @@ export interface PhaseSetup {
   Mu: number;
 }
 
+/** The phase step's FFT plans of this thread, by length: kept for later runs (with the input area of their SIMD kernel). */
+const phasePlans = new Map<number, FFTPlan>();
+
 /** The transform of one block (one per thread: its FFT plan). */
 export class PhaseTransform {
   private readonly dft: FFTPlan;
   constructor(private readonly s: PhaseSetup) {
-    this.dft = new FFTPlan(s.Mv);
+    let plan = phasePlans.get(s.Mv);
+    if (!plan) {
+      plan = new FFTPlan(s.Mv);
+      phasePlans.set(s.Mv, plan);
+    }
+    this.dft = plan;
+  }
+
+  /**
+   * A zeroed block of grids (`doubles` numbers) in the memory of this
+   * transform's SIMD kernel, or null (no WebAssembly SIMD, the `wasm` option
+   * off, or a length that is not a power of two): blocks folded there get the
+   * FFT's first step on the kernel too (FFTPlan.inputArea; the same bits).
+   * Valid for this run.
+   */
+  inputBlock(doubles: number): Float64Array | null {
+    return this.s.wasm ? this.dft.inputArea(doubles) : null;
   }
 
   /**
@@ -119,39 +138,57 @@ export const KT = 16;
 /** Read-axis transforms made together at most (lines × segments of a group). */
 const READ_BATCH = 256;
 
+/** The read step's FFT plans of this thread, by length: kept for later runs (with the input area of their SIMD kernel). */
+const readPlans = new Map<number, FFTPlan>();
+
+/**
+ * This thread's read-axis plan of length Mu and readAxis' gather scratch
+ * zt (2·KT·L·Mu numbers, zeroed): in the plan's kernel memory where
+ * WebAssembly SIMD runs and `wasm` allows (the first step there too, the same
+ * bits), else from `fallback`. For one run at a time on a thread.
+ */
+export function readStep(Mu: number, L: number, wasm: boolean, fallback: (n: number) => Float64Array): { dft: FFTPlan; zt: Float64Array } {
+  let dft = readPlans.get(Mu);
+  if (!dft) {
+    dft = new FFTPlan(Mu);
+    readPlans.set(Mu, dft);
+  }
+  const n = 2 * KT * L * Mu;
+  return { dft, zt: (wasm ? dft.inputArea(n, READ_BATCH) : null) ?? fallback(n) };
+}
+
 /**
  * Read-axis DFT of every line of one coil, times B_l(j), summed over the
  * segments l in order into out[k][j] (interleaved): Zq[l] is [read column a][line k];
  * each is turned to [line][read column] first so the transforms read contiguous rows.
  * KT lines at a time, every segment's lines of the group transformed together
- * (input (l, t) at zt[2·((l·nk + t)·Mu + a)]; zt holds 2·KT·L·Mu numbers), then
+ * (input g = l·nk + t, element a at zt[2·(a·cap + g)], cap the group's most
+ * transforms; zt holds 2·KT·L·Mu numbers), then
  * each output sample summed over l in order (the same additions, one store).
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
 export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true): void {
   const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   // at most READ_BATCH transforms at once (many segments: fewer lines per group)
-  const kt = Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L)));
+  const kt = Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L))), cap = kt * L;
   out.fill(0);
   for (let k0 = 0; k0 < NA; k0 += kt) {
     const nk = Math.min(kt, NA - k0);
-    // one sweep down the read columns per segment reads each cache line of z once
-    for (let l = 0; l < L; l++) gatherLines(Zq[l]!, zt, l * nk, usedA, NA, k0, nk, Mu);
-    const res = dft.forwardBatch(zt, 0, 2 * Mu, 2, nk * L, nzA, wasm);
+    // one sweep down the read columns per segment reads each cache line of z once; zt holds the group's
+    // transforms side by side (transform g's element a at 2·(a·cap + g)), so the first step's sweep down the
+    // elements reads neighbours
+    for (let l = 0; l < L; l++) gatherLines(Zq[l]!, zt, l * nk, cap, usedA, NA, k0, nk);
+    const res = dft.forwardBatch(zt, 0, 2, 2 * cap, nk * L, nzA, wasm);
     const base = dft.batchOffset(0);
     for (let t = 0; t < nk; t++) readLine(out, 2 * (k0 + t) * ns, res, base + 2 * Mu * t, 2 * Mu * nk, colIdx, BL, ns, L);
   }
 }
 
-/** zt line g0 + t ← line k0 + t of z at the used read columns (z: [used column i][line k]). */
-function gatherLines(z: Float64Array, zt: Float64Array, g0: number, usedA: Int32Array, NA: number, k0: number, nk: number, Mu: number): void {
+/** Transform g0 + t of zt ← line k0 + t of z at the used read columns (z: [used column i][line k]; zt: element a of transform g at 2·(a·cap + g)). */
+function gatherLines(z: Float64Array, zt: Float64Array, g0: number, cap: number, usedA: Int32Array, NA: number, k0: number, nk: number): void {
   for (let i = 0; i < usedA.length; i++) {
-    const a = usedA[i]!, src = 2 * (i * NA + k0);
-    for (let t = 0; t < nk; t++) {
-      const d = 2 * ((g0 + t) * Mu + a);
-      zt[d] = z[src + 2 * t]!;
-      zt[d + 1] = z[src + 2 * t + 1]!;
-    }
+    const src = 2 * (i * NA + k0), d = 2 * (usedA[i]! * cap + g0);
+    for (let t = 0; t < 2 * nk; t++) zt[d + t] = z[src + t]!;
   }
 }
 
@@ -271,8 +308,9 @@ class ReadViews {
   private readonly usedA: Int32Array;
   readonly lines: Float64Array[];
   constructor(private readonly setup: Omit<PhaseSetup, "Z" | "colUsed">, private readonly Z: Float64Array, mem: SharedArrayBuffer, zLen: number, slotLen: number, private readonly rd: ReadShared) {
-    this.dft = new FFTPlan(setup.Mu);
-    this.zt = new Float64Array(2 * KT * setup.L * setup.Mu);
+    const read = readStep(setup.Mu, setup.L, setup.wasm, (n) => new Float64Array(n));
+    this.dft = read.dft;
+    this.zt = read.zt;
     this.BL = new Float64Array(rd.BL);
     this.colIdx = new Int32Array(rd.colIdx);
     this.usedA = new Int32Array(rd.usedA);

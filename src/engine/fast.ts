@@ -44,7 +44,7 @@ import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
 import { BasisSweep } from "./basis-wasm.js";
 import type { CellStream } from "./fast-stream.js";
-import { KT, openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
+import { openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, readStep, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
 
 /** Which readout operator to use ("auto": the cheaper by a cost predicted from the plan, see predictReadoutCosts). */
 export type ReadoutChoice = "auto" | "fast" | "direct";
@@ -585,7 +585,6 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     }
   }
   const fRead = a0.op.readHzPerMetre, bw = a0.op.sampledBandwidth;
-  const dftU = new FFTPlan(Mu);
   const colIdx = new Int32Array(ns);
   for (let j = 0; j < ns; j++) colIdx[j] = (((su * j) % Mu) + Mu) % Mu;
   const lineRow = act.map((a) => a.op.row);
@@ -700,7 +699,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const Zall: Float64Array = par ? par.Z : scratchF64("Z", zStride * coils * L);
   const own = par ? null : new PhaseTransform({ ...setup, Z: Zall, colUsed });
   // one block's grids on this thread (with a helper, its slots hold them)
-  if (!par) XB = scratchF64("XB", 2 * blockCols * Mv * NX);
+  if (!par) XB = own!.inputBlock(2 * blockCols * Mv * NX) ?? scratchF64("XB", 2 * blockCols * Mv * NX);
   const Zof = (q: number) => Array.from({ length: L }, (_, l) => Zall.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
   let cur = new Int32Array(0), curN = 0;
   /** The (grid, rank, coil, segment) entries the next blocks transform. */
@@ -745,7 +744,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // With several coils the fold (sensitivities per column and coil) costs more
   // than the pairs a norm could skip: one pass, every pair transformed (none skipped).
   let kept = 0, skipped = 0, skippedBound = 0;
-  const lines = scratchF64("lines", 2 * NA * ns), zt = scratchF64("zt", 2 * KT * L * Mu);
+  const lines = scratchF64("lines", 2 * NA * ns);
+  const { dft: dftU, zt } = readStep(Mu, L, plan.wasm, (n) => scratchF64("zt", n));
   const usedA = Int32Array.from(usedList);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];

@@ -116,21 +116,27 @@ export interface KernelSource {
 }
 
 /**
- * The bytes of a module with one function (type () of `params` i32 → ()),
- * one memory of one page at the start, exported as "memory", and the
- * function exported under its name.
+ * The bytes of a module with one function (type () of `params` i32 → ()), or
+ * several (each its own type), one memory of one page at the start, exported
+ * as "memory", and each function exported under its name.
  */
-export function kernelModule(k: KernelSource): Uint8Array<ArrayBuffer> {
-  const locals = [...uleb(k.locals.length), ...k.locals.flatMap(([count, type]) => [...uleb(count), type])];
-  const fn = [...locals, ...k.body, END];
+export function kernelModule(k: KernelSource | KernelSource[]): Uint8Array<ArrayBuffer> {
+  const fns = Array.isArray(k) ? k : [k];
+  const types = fns.flatMap((f) => [FUNC_TYPE, ...uleb(f.params), ...new Array<number>(f.params).fill(I32), 0]);
+  const bodies = fns.flatMap((f) => {
+    const locals = [...uleb(f.locals.length), ...f.locals.flatMap(([count, type]) => [...uleb(count), type])];
+    const fn = [...locals, ...f.body, END];
+    return [...uleb(fn.length), ...fn];
+  });
+  const exports = fns.flatMap((f, i) => [...name(f.exportName), EXPORT_FUNC, ...uleb(i)]);
   return new Uint8Array([
     0x00, 0x61, 0x73, 0x6d, // magic "\0asm"
     0x01, 0x00, 0x00, 0x00, // version 1
-    ...section(SECTION_TYPE, [1, FUNC_TYPE, ...uleb(k.params), ...new Array<number>(k.params).fill(I32), 0]),
-    ...section(SECTION_FUNCTION, [1, 0]),
+    ...section(SECTION_TYPE, [...uleb(fns.length), ...types]),
+    ...section(SECTION_FUNCTION, [...uleb(fns.length), ...fns.map((_, i) => uleb(i)).flat()]),
     ...section(SECTION_MEMORY, [1, LIMITS_MIN_ONLY, 1]),
-    ...section(SECTION_EXPORT, [2, ...name(k.exportName), EXPORT_FUNC, 0, ...name("memory"), EXPORT_MEMORY, 0]),
-    ...section(SECTION_CODE, [1, ...uleb(fn.length), ...fn]),
+    ...section(SECTION_EXPORT, [...uleb(fns.length + 1), ...exports, ...name("memory"), EXPORT_MEMORY, 0]),
+    ...section(SECTION_CODE, [...uleb(fns.length), ...bodies]),
   ]);
 }
 
@@ -139,6 +145,8 @@ export interface Kernel<F> {
   run: F;
   memory: WebAssembly.Memory;
   f64: Float64Array;
+  /** Every export of the instance (a module with several functions). */
+  exports: Record<string, unknown>;
 }
 
 /**
@@ -152,7 +160,7 @@ export function instantiateKernel<F>(bytes: Uint8Array<ArrayBuffer> | WebAssembl
     if (!(bytes instanceof WebAssembly.Module) && !WebAssembly.validate(bytes)) return null;
     const e = new WebAssembly.Instance(bytes instanceof WebAssembly.Module ? bytes : new WebAssembly.Module(bytes), {}).exports as Record<string, unknown>;
     const memory = e.memory as WebAssembly.Memory;
-    return { run: e[exportName] as F, memory, f64: new Float64Array(memory.buffer) };
+    return { run: e[exportName] as F, memory, f64: new Float64Array(memory.buffer), exports: e };
   } catch {
     return null;
   }

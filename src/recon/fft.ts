@@ -35,7 +35,7 @@
  * output right by c (fftshift); this holds for odd N as well.
  */
 import FFT from "fft.js";
-import { fftSteps, type FftSteps } from "./fft-wasm.js";
+import { FIRST_COPY, FIRST_RADIX2, FIRST_RADIX4, fftSteps, type FftSteps } from "./fft-wasm.js";
 
 /** Sign of the exponent of a DFT: −1 forward, +1 inverse (unnormalised). */
 export type FFTSign = -1 | 1;
@@ -357,13 +357,51 @@ export class FFTPlan {
       }
       return b.f64;
     }
-    firstSteps(b.f64, b.base, size, count, src, so, gs, ss, size, r4.width, r4.bitrev, nz);
+    if (b.steps && src.buffer === b.f64.buffer) {
+      // inputs in the kernel's own memory (an inputArea): the first step there too, the same numbers
+      const step = 1 << r4.width, len = (size / step) << 1;
+      const mode = len === 4 ? FIRST_RADIX2 : 4 * nz <= size >> 1 ? FIRST_COPY : FIRST_RADIX4;
+      b.steps.first(b.steps.bufBytes, count, 8 * size, src.byteOffset + 8 * so, 8 * gs, 8 * ss, b.steps.bitrevBytes, size / len, 8 * len, 8 * (step >> 1) * ss, mode);
+    } else firstSteps(b.f64, b.base, size, count, src, so, gs, ss, size, r4.width, r4.bitrev, nz);
     const step0 = (1 << r4.width) >> 2;
     if (step0 >= 2) {
       if (b.steps) b.steps.kernel.run(b.steps.bufBytes, count, 8 * size, step0, 0);
       else for (let g = 0; g < count; g++) laterSteps(b.f64, b.base + g * size, size, r4.width, r4.table);
     }
     return b.f64;
+  }
+
+  /** Input doubles of the last inputArea (its room stays reserved when the batch buffers are made anew). */
+  private inputDoubles = 0;
+
+  /** The inputArea's room counted in buffers of 2n doubles. */
+  private inputPages(): number {
+    return Math.ceil(this.inputDoubles / (2 * this.n));
+  }
+
+  /**
+   * A zeroed array of `doubles` numbers in the memory of this plan's SIMD
+   * kernel (a power-of-two length with WebAssembly SIMD on), or null: inputs
+   * to {@link FFTPlan.forwardBatch} taken from it get the first step on the
+   * kernel too (the same numbers). Valid until the next inputArea call or
+   * batch of more than max(16, maxCount) inputs (then an input in it is read by the
+   * TypeScript first step: still right, only slower). For one user at a time:
+   * a plan of its own (not getPlan's shared one).
+   */
+  inputArea(doubles: number, maxCount = 16): Float64Array | null {
+    if (this.r4 === null || !fftWasm) return null;
+    let b = this.batchBuffers(maxCount, true);
+    if (!b.steps) return null;
+    if (doubles > this.inputDoubles) {
+      this.inputDoubles = doubles;
+      this.batch = null;
+      b = this.batchBuffers(maxCount, true);
+      if (!b.steps) return null;
+    }
+    const at = b.base + 2 * this.n * b.cap;
+    const v = b.f64.subarray(at, at + doubles);
+    v.fill(0);
+    return v;
   }
 
   /** Where output g of the last {@link FFTPlan.forwardBatch} starts in the array it returned. */
@@ -376,7 +414,7 @@ export class FFTPlan {
     let b = this.batch;
     if (b === null || b.cap < count || (b.steps !== null) !== wasm) {
       const cap = Math.max(count, 16), r4 = this.r4;
-      const steps = wasm && r4 !== null ? fftSteps(r4.table, this.n, cap) : null;
+      const steps = wasm && r4 !== null ? fftSteps(r4.table, this.n, cap + this.inputPages(), r4.bitrev) : null;
       b = steps
         ? { f64: steps.kernel.f64, base: steps.bufBytes / 8, cap, steps }
         : { f64: new Float64Array(2 * this.n * cap), base: 0, cap, steps: null };
