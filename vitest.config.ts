@@ -11,6 +11,9 @@ export default defineConfig({
     // modules per file: about 30 s of the suite was module loading. Tests must
     // leave no global state behind (restore what they set in afterAll).
     isolate: false,
+    // Two such processes share the files (on 2 cores: 268 s against 392 s one after another, the
+    // longest test 17 s): a file's CLI runs and helper threads then share the cores with the other's.
+    maxWorkers: 2,
     // removes the folders test/helpers.ts's tempDir made, once each file ends
     setupFiles: ["test/setup.ts"],
   },
