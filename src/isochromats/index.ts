@@ -249,6 +249,13 @@ const TILE_MIXED = -2, TILE_UNKNOWN = -3;
 class GrowInt32 {
   n = 0;
   constructor(public a: Int32Array) {}
+  /** Room for m more values (a may be a new array: read it after). */
+  reserve(m: number): void {
+    if (this.n + m <= this.a.length) return;
+    const b = new Int32Array(Math.max(16, 2 * this.a.length, this.n + m));
+    b.set(this.a.subarray(0, this.n));
+    this.a = b;
+  }
   push(x: number): void {
     if (this.n === this.a.length) {
       const b = new Int32Array(Math.max(16, 2 * this.a.length));
@@ -267,6 +274,13 @@ class GrowInt32 {
 class GrowFloat64 {
   n = 0;
   constructor(public a: Float64Array) {}
+  /** Room for m more values (a may be a new array: read it after). */
+  reserve(m: number): void {
+    if (this.n + m <= this.a.length) return;
+    const b = new Float64Array(Math.max(16, 2 * this.a.length, this.n + m));
+    b.set(this.a.subarray(0, this.n));
+    this.a = b;
+  }
   push(x: number): void {
     if (this.n === this.a.length) {
       const b = new Float64Array(Math.max(16, 2 * this.a.length));
@@ -410,13 +424,23 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
       let kept = 0, keptHere = 0;
       for (let c = 0; c < nw; c++) {
         if (sliceInvariant && c > 0) {
-          for (let k = 0; k < kept; k++) {
-            entW.push(c);
-            entTissue.push(keptTissue[k]!);
-            entFrac.push(keptFrac[k]!);
+          // the first cell's entries at every further w, written straight into room made once
+          const m = (nw - c) * kept;
+          entW.reserve(m);
+          entTissue.reserve(m);
+          entFrac.reserve(m);
+          const ew = entW.a, et = entTissue.a, ef = entFrac.a;
+          let n = entW.n;
+          for (let cc = c; cc < nw; cc++) {
+            for (let k = 0; k < kept; k++, n++) {
+              ew[n] = cc;
+              et[n] = keptTissue[k]!;
+              ef[n] = keptFrac[k]!;
+            }
           }
-          at += keptHere;
-          continue;
+          entW.n = entTissue.n = entFrac.n = n;
+          at += keptHere * (nw - c);
+          break;
         }
         const w = wGrid[c]!;
         r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
