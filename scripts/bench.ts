@@ -308,6 +308,36 @@ async function discRows(runs: number, header: boolean): Promise<void> {
     `| 256² disc GRE, the same whole run() in-process, warm (after 3 runs in this process; median of ${DISC_WARM_RUNS}), throughput as above | ${dw.iso.toLocaleString("en")} (${Math.round(dw.iso / 16).toLocaleString("en")} in-plane) | ` +
       `${dw.seconds.toFixed(2)} s: ${g(((dw.iso / 16) * samples) / dw.seconds)} iso-samples/s (all isochromats: ${g((dw.iso * samples) / dw.seconds)}) | — | — | ${readoutNote(dw.readout)} |`,
   );
+  // the engine alone, as run() calls it (no checks, reconstruction, measurements or files): in-process after warm-up
+  const de = await discEngineInProcess(disc, DISC_WARM_RUNS);
+  console.log(
+    `| 256² disc GRE, the engine alone in-process (simulateCells on 2 threads as run() calls it: no checks, reconstruction, measurements or files; after 3 warm-up runs; median of ${DISC_WARM_RUNS}), throughput as above | ${de.iso.toLocaleString("en")} (${Math.round(de.iso / 16).toLocaleString("en")} in-plane) | ` +
+      `${(de.ms / 1000).toFixed(2)} s: ${g(((de.iso / 16) * samples) / (de.ms / 1000))} iso-samples/s (all isochromats: ${g((de.iso * samples) / (de.ms / 1000))}) | — | — | ${de.note} |`,
+  );
+}
+
+/** The disc's engine time in-process after warm-up: prepare() outside the timing, then simulateCells on the Node executor with `workers` threads (as run() calls it); median of `runs`. */
+async function discEngineInProcess(c: E2E, runs: number): Promise<{ ms: number; iso: number; note: string }> {
+  const { prepare } = await import("../src/cli/pipeline.js");
+  const { nodeExecutor, simulateCells } = await import("../src/engine/node.js");
+  const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
+  try {
+    const o = e2eOptions(c, out);
+    const p = prepare({ phantom: o.phantom, protocol: o.protocol, sets: o.sets, out, seed: 1, iso: o.iso, workers: c.workers });
+    let note = "";
+    const once = () => simulateCells(nodeExecutor(c.workers), p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout: c.readout ?? "fast" });
+    for (let k = 0; k < 3; k++) await once();
+    const ts: number[] = [];
+    for (let k = 0; k < runs; k++) {
+      const t = performance.now();
+      const r = await once();
+      ts.push(performance.now() - t);
+      note = readoutNote(r.readout);
+    }
+    return { ms: median(ts), iso: p.cells.count, note };
+  } finally {
+    rmSync(out, { recursive: true, force: true });
+  }
 }
 
 /** The time-segmented fold against the direct operator (one run each, in-process, serial executor; ratio fold/direct). */

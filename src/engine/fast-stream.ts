@@ -635,6 +635,11 @@ export class CellStream {
           const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             if (!S) {
+              // one coil: fp × the tissue's samples summed through the slice (regrouped per read position where the estimate can)
+              if (setup.addTable) {
+                setup.addTable(z, Ysum, fp, u, v);
+                return;
+              }
               const ys = Ysum[z]!;
               for (let x = 0; x < 2 * NS; x++) colv[x] = ys[x]! * fp;
               addSamples(u, v, colv);

@@ -1128,6 +1128,13 @@ export interface EstimateSetup {
   filter: { fRead: number; bw: number } | null;
   /** Use the WebAssembly SIMD kernels where available (the engine's `wasm` option). */
   wasm: boolean;
+  /**
+   * One coil: adds a column whose sums before the in-plane phase are fp × table (table id `z` of
+   * `tables`, table[2s] per sample): the same direct sum regrouped per read position (Σ over its
+   * columns of fp·exp(−i2π ky·v) per table and row, then × the table and exp(−i2π kx·u)). Columns
+   * must come in read-position order, as the cells give them.
+   */
+  addTable?: (z: number, tables: readonly Float64Array[], fp: number, u: number, v: number) => void;
 }
 
 /** The estimate against the fast k-space, once its direct sums are made. */
@@ -1184,15 +1191,16 @@ export function estimateOver(
   // position (the last one kept: columns come in read order) and per phase position
   let lastU = NaN;
   const eu = new Float64Array(2 * S), evOf = new Map<number, Float64Array>();
-  const addPhased = (u: number, v: number, colv: Float64Array) => {
-    if (u !== lastU) {
-      lastU = u;
-      for (let s = 0; s < S; s++) {
-        const th = -TWO_PI * (kx0 + js[s]! * dkx) * u;
-        eu[2 * s] = Math.cos(th);
-        eu[2 * s + 1] = Math.sin(th);
-      }
+  const euAt = (u: number) => {
+    if (u === lastU) return;
+    lastU = u;
+    for (let s = 0; s < S; s++) {
+      const th = -TWO_PI * (kx0 + js[s]! * dkx) * u;
+      eu[2 * s] = Math.cos(th);
+      eu[2 * s + 1] = Math.sin(th);
     }
+  };
+  const evAt = (v: number): Float64Array => {
     let ev = evOf.get(v);
     if (!ev) {
       ev = new Float64Array(2 * NR);
@@ -1203,6 +1211,53 @@ export function estimateOver(
       }
       evOf.set(v, ev);
     }
+    return ev;
+  };
+  // one coil, columns of a table (setup.addTable): per table and row Σ fp·ev(v) over the columns of one
+  // read position u, added as table × eu(u) when the read position changes (and at the end)
+  let tabU = NaN, tabN = 0, tabList: readonly Float64Array[] = [];
+  let tabAcc = new Float64Array(0), tabSeen = new Uint8Array(0), tabTouched = new Int32Array(0);
+  const flushTables = () => {
+    if (tabN === 0) return;
+    euAt(tabU);
+    for (let i = 0; i < tabN; i++) {
+      const z = tabTouched[i]!, tab = tabList[z]!, a = 2 * NR * z;
+      tabSeen[z] = 0;
+      for (let s = 0; s < S; s++) {
+        const w = Math.floor(s / PJ);
+        const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = tabAcc[a + 2 * w]!, bi = tabAcc[a + 2 * w + 1]!;
+        const er = ar * br - ai * bi, ei = ar * bi + ai * br, xr = tab[2 * s]!, xi = tab[2 * s + 1]!;
+        tot[2 * s] = tot[2 * s]! + (xr * er - xi * ei);
+        tot[2 * s + 1] = tot[2 * s + 1]! + (xr * ei + xi * er);
+      }
+      tabAcc.fill(0, a, a + 2 * NR);
+    }
+    tabN = 0;
+  };
+  const addTable = (z: number, tables: readonly Float64Array[], fp: number, u: number, v: number) => {
+    if (u !== tabU) {
+      flushTables();
+      tabU = u;
+    }
+    if (tables !== tabList) {
+      tabList = tables;
+      tabAcc = new Float64Array(2 * NR * tables.length);
+      tabSeen = new Uint8Array(tables.length);
+      tabTouched = new Int32Array(tables.length);
+    }
+    if (tabSeen[z] === 0) {
+      tabSeen[z] = 1;
+      tabTouched[tabN++] = z;
+    }
+    const ev = evAt(v), a = 2 * NR * z;
+    for (let w = 0; w < NR; w++) {
+      tabAcc[a + 2 * w] = tabAcc[a + 2 * w]! + fp * ev[2 * w]!;
+      tabAcc[a + 2 * w + 1] = tabAcc[a + 2 * w + 1]! + fp * ev[2 * w + 1]!;
+    }
+  };
+  const addPhased = (u: number, v: number, colv: Float64Array) => {
+    euAt(u);
+    const ev = evAt(v);
     for (let s = 0; s < S; s++) {
       const w = Math.floor(s / PJ);
       const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = ev[2 * w]!, bi = ev[2 * w + 1]!;
@@ -1214,7 +1269,7 @@ export function estimateOver(
       }
     }
   };
-  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm };
+  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm, ...(coils === 1 ? { addTable } : {}) };
   columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {
@@ -1261,6 +1316,7 @@ export function estimateOver(
     addPhased(u, v, col);
   }, addPhased, setup);
   return (re, im) => {
+  flushTables();
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
