@@ -230,6 +230,27 @@ export class CellStream {
     this.spec = { rfClass: new Int32Array(0), classes: C, classW, classDf, classR1, classR2 };
   }
 
+  private oneTissueCache: Uint8Array | null = null;
+
+  /**
+   * Per column, 1 where it is one tissue at one fraction through every w (nw
+   * entries, in w order): made once, for the fold's passes and the estimate.
+   */
+  oneTissueColumns(): Uint8Array {
+    if (this.oneTissueCache) return this.oneTissueCache;
+    const cells = this.cells, nw = cells.wGrid.length, out = new Uint8Array(cells.columns);
+    for (let col = 0; col < cells.columns; col++) {
+      const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+      if (e1 - e0 !== nw) continue;
+      const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
+      let one = true;
+      for (let e = e0; e < e1 && one; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) one = false;
+      if (one) out[col] = 1;
+    }
+    this.oneTissueCache = out;
+    return out;
+  }
+
   /** Class of term t (of combination z) of entry e. */
   private classAt(e: number, z: number, t: number): number {
     return this.eClass ? this.eClass[this.eT0![e]! + t - this.zStart[z]!]! : this.zClass[t]!;
@@ -358,17 +379,14 @@ export class CellStream {
     this.termTol = tol;
     // with sensitivities, a column of one tissue folds every coil's moment sums on the SIMD kernel where it runs
     const fm = hasSens ? FoldMoments.make(full.map((f) => f.mom), coils, nw, W, L, plan.wasm) : null;
+    const oneTissue = this.oneTissueColumns();
     return (c0, c1, aBase, XB, track) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
       const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
-      let uniform = e1 - e0 === nw;
-      if (uniform) {
-        const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
-        for (let e = e0; e < e1 && uniform; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) uniform = false;
-        uniform &&= complete[ti * D2 + sub] === 1;
-      }
+      let uniform = oneTissue[col] === 1;
+      if (uniform) uniform = complete[cells.entTissue[e0]! * D2 + sub] === 1;
       const a = cells.colA[col]!, b = cells.colB[col]!;
       const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
@@ -615,6 +633,7 @@ export class CellStream {
       // the uniform columns' sums on the SIMD kernel where it runs (Ym as its tables, one row of NS samples)
       const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS, setup.wasm) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
+      const oneTissue = this.oneTissueColumns();
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now
         let S: Float64Array | null = null;
@@ -624,12 +643,8 @@ export class CellStream {
         }
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
-        let uniform = e1 - e0 === nw;
-        if (uniform) {
-          const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
-          for (let e = e0; e < e1 && uniform; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) uniform = false;
-          uniform &&= Y[ti * D2 + sub] !== null;
-        }
+        let uniform = oneTissue[col] === 1;
+        if (uniform) uniform = Y[cells.entTissue[e0]! * D2 + sub] !== null;
         const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
         if (uniform) {
           const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
