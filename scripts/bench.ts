@@ -41,6 +41,9 @@ import { fileURLToPath } from "node:url";
 import { isMainThread, parentPort, Worker, workerData } from "node:worker_threads";
 import { GAMMA } from "../src/constants.js";
 import { readoutRecurrenceFast, rfAffineMany, wasmKernel } from "../src/engine/wasm.js";
+import type { Executor } from "../src/engine/executor.js";
+import type { IsochromatCells, IsochromatSet } from "../src/isochromats/index.js";
+import type { Sequence } from "../src/sequence/index.js";
 
 const GROUPS = 65536, SAMPLES = 256, LINES = 16;
 const RF_ISO = 65536, RF_STEPS = 200;
@@ -190,26 +193,16 @@ function readoutNote(r: unknown): string {
  */
 async function demoInProcess(iso: { density: number; sliceCount: number; t2primeIsochromats: number }, readout: "auto" | "fast" | "direct", runs: number): Promise<{ ms: number; iso: number; note: string }> {
   const { prepare } = await import("../src/cli/pipeline.js");
-  const { serialExecutor, simulateCells } = await import("../src/engine/index.js");
+  const { serialExecutor } = await import("../src/engine/index.js");
   const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
   try {
     const p = prepare({
       phantom: "phantoms/two-bottle.json", protocol: "gre-demo-1.5t", sets: [], out, seed: 1,
       iso: { ...iso, sliceExtent: 3, fatModel: "multi", offsetHz: 0 }, workers: 1,
     });
-    let note = "";
     // as simulate() runs a slice: the fast operator streams its weights from the cells, the direct one
     // uses the stored isochromats (made on first use, during the warm-up)
-    const once = () => simulateCells(serialExecutor(), p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout });
-    for (let k = 0; k < 3; k++) await once(); // warm-up: V8 optimises the hot functions over the first runs
-    const ts: number[] = [];
-    for (let k = 0; k < runs; k++) {
-      const t = performance.now();
-      const r = await once();
-      ts.push(performance.now() - t);
-      note = readoutNote(r.readout);
-    }
-    return { ms: median(ts), iso: p.cells.count, note };
+    return await timedEngine(p, serialExecutor(), readout, runs);
   } finally {
     rmSync(out, { recursive: true, force: true });
   }
@@ -319,25 +312,37 @@ async function discRows(runs: number, header: boolean): Promise<void> {
 /** The disc's engine time in-process after warm-up: prepare() outside the timing, then simulateCells on the Node executor with `workers` threads (as run() calls it); median of `runs`. */
 async function discEngineInProcess(c: E2E, runs: number): Promise<{ ms: number; iso: number; note: string }> {
   const { prepare } = await import("../src/cli/pipeline.js");
-  const { nodeExecutor, simulateCells } = await import("../src/engine/node.js");
+  const { nodeExecutor } = await import("../src/engine/node.js");
   const out = mkdtempSync(join(tmpdir(), "isofold-bench-"));
   try {
     const o = e2eOptions(c, out);
     const p = prepare({ phantom: o.phantom, protocol: o.protocol, sets: o.sets, out, seed: 1, iso: o.iso, workers: c.workers });
-    let note = "";
-    const once = () => simulateCells(nodeExecutor(c.workers), p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout: c.readout ?? "fast" });
-    for (let k = 0; k < 3; k++) await once();
-    const ts: number[] = [];
-    for (let k = 0; k < runs; k++) {
-      const t = performance.now();
-      const r = await once();
-      ts.push(performance.now() - t);
-      note = readoutNote(r.readout);
-    }
-    return { ms: median(ts), iso: p.cells.count, note };
+    return await timedEngine(p, nodeExecutor(c.workers), c.readout ?? "fast", runs);
   } finally {
     rmSync(out, { recursive: true, force: true });
   }
+}
+
+/**
+ * Median engine time (ms) of `runs` simulateCells calls on prepared cells, after 3 warm-up runs
+ * (V8 optimises the hot functions over the first runs), with the last run's readout note.
+ */
+async function timedEngine(
+  p: { seq: Sequence; cells: IsochromatCells; readonly iso: IsochromatSet; protocol: { receiverFilter: boolean } },
+  executor: Executor, readout: "auto" | "fast" | "direct", runs: number,
+): Promise<{ ms: number; iso: number; note: string }> {
+  const { simulateCells } = await import("../src/engine/index.js");
+  const once = () => simulateCells(executor, p.seq, p.cells, () => p.iso, { receiverFilter: p.protocol.receiverFilter, readout });
+  for (let k = 0; k < 3; k++) await once();
+  const ts: number[] = [];
+  let note = "";
+  for (let k = 0; k < runs; k++) {
+    const t = performance.now();
+    const r = await once();
+    ts.push(performance.now() - t);
+    note = readoutNote(r.readout);
+  }
+  return { ms: median(ts), iso: p.cells.count, note };
 }
 
 /** The time-segmented fold against the direct operator (one run each, in-process, serial executor; ratio fold/direct). */
