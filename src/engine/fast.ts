@@ -36,7 +36,6 @@
  * varying readouts, many RF classes) are refused with a reason; the caller
  * then runs the direct operator and says so.
  */
-import { FFTPlan } from "../recon/fft.js";
 import { GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
