@@ -8,6 +8,7 @@
 import { afterEach, describe, expect, it } from "vitest";
 import { centredLine, centredLines, FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
 import { mulberry32 } from "../src/engine/fast.js";
+import { readAxis, readStep } from "../src/engine/fast-phase.js";
 
 /** Deterministic values in [−0.5, 0.5): the fast operator's seeded generator (mulberry32). */
 function rng(seed: number): () => number {
@@ -139,6 +140,63 @@ describe("centredLines", () => {
             expect(bad, `${rows}×${cols} n ${n} sign ${sign} wasm ${wasm}`).toBe(0);
           }
         }
+      }
+    }
+  });
+});
+
+describe("readAxis (the fast operator's read step)", () => {
+  // oracle: the segment-by-segment form it replaced, one forwardStrided per line (the same numbers bit for bit),
+  // and the direct DFT to rounding; segment counts that shrink the line groups (L > 16) and ragged last groups
+  it("equals one transform per line and segment summed in segment order, bit for bit, and the direct DFT", () => {
+    for (const wasm of [true, false]) {
+      setFftWasm(wasm);
+      for (const [L, NA] of [[1, 5], [7, 33], [20, 17], [48, 11]] as const) {
+        const Mu = 64, ns = 40, r = rng(L * 100 + NA);
+        const usedA = Int32Array.from([1, 2, 5, 9, 10, 11, 30, 31, 47]);
+        const Zq = Array.from({ length: L }, () => Float64Array.from({ length: 2 * usedA.length * NA }, () => r()));
+        const BL = Float64Array.from({ length: 2 * ns * L }, () => r());
+        const colIdx = Int32Array.from({ length: ns }, (_, j) => (3 * j + 7) % Mu);
+        const { dft, zt } = readStep(Mu, L, wasm, (n) => new Float64Array(n));
+        const out = new Float64Array(2 * NA * ns);
+        readAxis(Zq, NA, Mu, ns, BL, colIdx, dft, zt, out, usedA, wasm);
+        const ref = new Float64Array(2 * NA * ns), line = new Float64Array(2 * Mu), single = new FFTPlan(Mu);
+        let err = 0, norm = 0;
+        for (let l = 0; l < L; l++) {
+          for (let k = 0; k < NA; k++) {
+            line.fill(0);
+            usedA.forEach((a, i) => {
+              line[2 * a] = Zq[l]![2 * (i * NA + k)]!;
+              line[2 * a + 1] = Zq[l]![2 * (i * NA + k) + 1]!;
+            });
+            single.forwardStrided(line, 0, 2, usedA[usedA.length - 1]! + 1);
+            for (let j = 0; j < ns; j++) {
+              const fr = single.output[2 * colIdx[j]!]!, fi = single.output[2 * colIdx[j]! + 1]!, br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!, o = 2 * (k * ns + j);
+              ref[o] = ref[o]! + (fr * br - fi * bi);
+              ref[o + 1] = ref[o + 1]! + (fr * bi + fi * br);
+            }
+          }
+        }
+        let bad = 0;
+        for (let i = 0; i < ref.length; i++) if (!Object.is(out[i], ref[i])) bad++;
+        expect(bad, `L ${L}, NA ${NA}, wasm ${wasm}`).toBe(0);
+        // the direct DFT of one line and segment sum, k = NA − 1, j = ns − 1
+        const k = NA - 1, j = ns - 1;
+        let dr = 0, di = 0;
+        for (let l = 0; l < L; l++) {
+          let sr = 0, si = 0;
+          usedA.forEach((a, i) => {
+            const th = (-2 * Math.PI * a * colIdx[j]!) / Mu, zr = Zq[l]![2 * (i * NA + k)]!, zi = Zq[l]![2 * (i * NA + k) + 1]!;
+            sr += zr * Math.cos(th) - zi * Math.sin(th);
+            si += zr * Math.sin(th) + zi * Math.cos(th);
+          });
+          const br = BL[2 * (j * L + l)]!, bi = BL[2 * (j * L + l) + 1]!;
+          dr += sr * br - si * bi;
+          di += sr * bi + si * br;
+        }
+        err = Math.hypot(out[2 * (k * ns + j)]! - dr, out[2 * (k * ns + j) + 1]! - di);
+        norm = Math.hypot(dr, di);
+        expect(err).toBeLessThan(1e-12 * Math.max(1, norm));
       }
     }
   });

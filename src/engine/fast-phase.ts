@@ -138,12 +138,17 @@ export const KT = 16;
 /** Read-axis transforms made together at most (lines × segments of a group). */
 const READ_BATCH = 256;
 
+/** Transforms of one group of readAxis: the lines of a group (KT, fewer with many segments) × the L segments. */
+function readGroup(L: number): number {
+  return Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L))) * L;
+}
+
 /** The read step's FFT plans of this thread, by length: kept for later runs (with the input area of their SIMD kernel). */
 const readPlans = new Map<number, FFTPlan>();
 
 /**
  * This thread's read-axis plan of length Mu and readAxis' gather scratch
- * zt (2·KT·L·Mu numbers, zeroed): in the plan's kernel memory where
+ * zt (2·Mu numbers per transform of a group, zeroed): in the plan's kernel memory where
  * WebAssembly SIMD runs and `wasm` allows (the first step there too, the same
  * bits), else from `fallback`. For one run at a time on a thread.
  */
@@ -153,7 +158,7 @@ export function readStep(Mu: number, L: number, wasm: boolean, fallback: (n: num
     dft = new FFTPlan(Mu);
     readPlans.set(Mu, dft);
   }
-  const n = 2 * KT * L * Mu;
+  const n = 2 * readGroup(L) * Mu;
   return { dft, zt: (wasm ? dft.inputArea(n, READ_BATCH) : null) ?? fallback(n) };
 }
 
@@ -163,17 +168,17 @@ export function readStep(Mu: number, L: number, wasm: boolean, fallback: (n: num
  * each is turned to [line][read column] first so the transforms read contiguous rows.
  * KT lines at a time, every segment's lines of the group transformed together
  * (input g = l·nk + t, element a at zt[2·(a·cap + g)], cap the group's most
- * transforms; zt holds 2·KT·L·Mu numbers), then
+ * transforms; zt holds 2·cap·Mu numbers, readStep), then
  * each output sample summed over l in order (the same additions, one store).
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
 export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true): void {
   const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   // at most READ_BATCH transforms at once (many segments: fewer lines per group)
-  const kt = Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L))), cap = kt * L;
+  const cap = readGroup(L);
   out.fill(0);
-  for (let k0 = 0; k0 < NA; k0 += kt) {
-    const nk = Math.min(kt, NA - k0);
+  for (let k0 = 0; k0 < NA; k0 += cap / L) {
+    const nk = Math.min(cap / L, NA - k0);
     // one sweep down the read columns per segment reads each cache line of z once; zt holds the group's
     // transforms side by side (transform g's element a at 2·(a·cap + g)), so the first step's sweep down the
     // elements reads neighbours
