@@ -19,7 +19,7 @@
 import {
   BR_IF, F64, F64X2_ADD, F64X2_MUL, F64X2_SUB, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
   f64Load, i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
-  type Code, type Kernel,
+  kernelSwitch, type Code, type Kernel,
 } from "./wasm-asm.js";
 
 // opcodes this kernel adds to wasm-asm's (WebAssembly Core Specification 2.0, 5.4.1, 5.4.6, 5.4.7 and 5.4.8)
@@ -99,13 +99,11 @@ type RemoveFn = (y: number, qv: number, norms: number, m: number, count: number)
 
 const newKernel = kernelFactory<RemoveFn>(basisRemoveModule, "remove");
 let instance: Kernel<RemoveFn> | null | undefined;
-let basisWasm = true;
+const basisWasmSwitch = kernelSwitch();
 
 /** Switches the sweep's SIMD kernel on or off (fast.ts removeComponent runs instead; the same bits); returns the previous setting. */
 export function setBasisWasm(on: boolean): boolean {
-  const was = basisWasm;
-  basisWasm = on;
-  return was;
+  return basisWasmSwitch.set(on);
 }
 
 /**
@@ -122,7 +120,7 @@ export class BasisSweep {
   }
 
   static make(y: Float64Array, m: number, count: number, wasm = true): BasisSweep | null {
-    if (!wasm || !basisWasm) return null;
+    if (!wasm || !basisWasmSwitch.on()) return null;
     if (instance === undefined) instance = newKernel();
     if (!instance) return null;
     const bytes = 16 * m * count + 48 * m + 8 * count;

@@ -18,7 +18,7 @@
 import {
   BR_IF, F64X2_ADD, F64X2_MUL, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
   i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
-  type Code, type Kernel,
+  kernelSwitch, type Code, type Kernel,
 } from "./wasm-asm.js";
 
 // opcodes this kernel adds to wasm-asm's (WebAssembly Core Specification 2.0, 5.4.1, 5.4.6 and 5.4.8)
@@ -181,14 +181,12 @@ const newKernel = kernelFactory<MomentsFn>(foldMomentsModule, "moments");
 
 /** An instance of its own (its own memory) for each user; the module is compiled once. */
 function kernel(): Kernel<MomentsFn> | null {
-  return foldWasm ? newKernel() : null;
+  return foldWasmSwitch.on() ? newKernel() : null;
 }
 
-let foldWasm = true;
+const foldWasmSwitch = kernelSwitch();
 
 /** Switches the fold's SIMD kernel on or off (the TypeScript addMoments runs instead; the same bits); returns the previous setting. */
 export function setFoldWasm(on: boolean): boolean {
-  const was = foldWasm;
-  foldWasm = on;
-  return was;
+  return foldWasmSwitch.set(on);
 }

@@ -7,7 +7,7 @@
 import {
   BR_IF, F64X2_ADD, F64X2_MUL, I32, I32_ADD, I32_LT_U, I32_MUL, V128,
   i32Const, kernelFactory, kernelModule, localGet, localSet, localTee, loop, reserveKernelMemory, simd, v128Load, v128Store,
-  type Code, type Kernel,
+  kernelSwitch, type Code, type Kernel,
 } from "./wasm-asm.js";
 
 /**
@@ -205,14 +205,12 @@ export class SliceProjector {
 const newProjectKernel = kernelFactory<ProjectFn>(sliceProjectModule, "project");
 
 function projectKernel(): Kernel<ProjectFn> | null {
-  return sliceWasm ? newProjectKernel() : null;
+  return sliceWasmSwitch.on() ? newProjectKernel() : null;
 }
 
-let sliceWasm = true;
+const sliceWasmSwitch = kernelSwitch();
 
 /** Switches the projection's SIMD kernel on or off (projectThroughSlice runs instead; the same bits); returns the previous setting. */
 export function setSliceWasm(on: boolean): boolean {
-  const was = sliceWasm;
-  sliceWasm = on;
-  return was;
+  return sliceWasmSwitch.set(on);
 }

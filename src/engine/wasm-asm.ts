@@ -195,3 +195,20 @@ export function reserveKernelMemory<F>(k: Kernel<F>, bytes: number): Float64Arra
   }
   return k.f64;
 }
+
+/**
+ * A per-thread on/off switch for one kernel (tests compare a kernel with its
+ * TypeScript twin): `on()` reads it, `set(on)` sets it and returns the
+ * previous setting.
+ */
+export function kernelSwitch(): { on: () => boolean; set: (on: boolean) => boolean } {
+  let enabled = true;
+  return {
+    on: () => enabled,
+    set: (on) => {
+      const was = enabled;
+      enabled = on;
+      return was;
+    },
+  };
+}

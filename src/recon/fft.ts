@@ -36,6 +36,7 @@
  */
 import FFT from "fft.js";
 import { FIRST_COPY, FIRST_RADIX2, FIRST_RADIX4, fftSteps, type FftSteps } from "./fft-wasm.js";
+import { kernelSwitch } from "../engine/wasm-asm.js";
 
 /** Sign of the exponent of a DFT: −1 forward, +1 inverse (unnormalised). */
 export type FFTSign = -1 | 1;
@@ -162,18 +163,16 @@ function radix4Tables(core: FFT): { table: Float64Array; bitrev: Int32Array; wid
 }
 
 /** Whether forwardBatch runs its later steps on the WebAssembly SIMD kernel where available (the default; the same bits either way). */
-let fftWasm = true;
+const fftWasmSwitch = kernelSwitch();
 
 /** Switches forwardBatch's WebAssembly SIMD kernel on or off (plans switch at their next call); returns the previous setting. */
 export function setFftWasm(on: boolean): boolean {
-  const was = fftWasm;
-  fftWasm = on;
-  return was;
+  return fftWasmSwitch.set(on);
 }
 
 /** Whether forwardBatch would use the WebAssembly SIMD kernel here now. */
 export function fftWasmActive(): boolean {
-  return fftWasm && fftSteps(new Float64Array([1, 0, 1, 0]), 2, 1) !== null;
+  return fftWasmSwitch.on() && fftSteps(new Float64Array([1, 0, 1, 0]), 2, 1) !== null;
 }
 
 function nextPowerOfTwo(n: number): number {
@@ -348,7 +347,7 @@ export class FFTPlan {
    * available and `wasm` (fft-wasm.ts, the same bits as its TypeScript twin).
    */
   forwardBatch(src: Float64Array, so: number, gs: number, ss: number, count: number, nz: number, wasm = true): Float64Array {
-    const r4 = this.r4, size = 2 * this.n, b = this.batchBuffers(count, wasm && fftWasm);
+    const r4 = this.r4, size = 2 * this.n, b = this.batchBuffers(count, wasm && fftWasmSwitch.on());
     if (r4 === null) {
       // other lengths: one transform at a time, copied out
       for (let g = 0; g < count; g++) {
@@ -389,7 +388,7 @@ export class FFTPlan {
    * a plan of its own (not getPlan's shared one).
    */
   inputArea(doubles: number, maxCount = 16): Float64Array | null {
-    if (this.r4 === null || !fftWasm) return null;
+    if (this.r4 === null || !fftWasmSwitch.on()) return null;
     let b = this.batchBuffers(maxCount, true);
     if (!b.steps) return null;
     if (doubles > this.inputDoubles) {
