@@ -215,7 +215,7 @@ export async function simulateCells(
     const res = await storedWith(opts);
     return { ...res, readout: { ...res.readout, weights: stream.tooMany } };
   }
-  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1 });
+  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1, sliceTablesOnly: true });
   if (fastPrecheck(plan) !== null) return stored();
   // the helper writes the pages of the fast operator's shared arrays from now on (before the cost prediction)
   prepareHelperMemory(seq, plan, cells, tolerance, executor.threads ?? 2);

@@ -136,10 +136,9 @@ export class CellStream {
     const nz = nw * T * D2;
     // combinations that occur
     const occurs = new Uint8Array(nz);
-    for (let col = 0; col < cells.columns; col++) {
-      const sub = cells.colSub[col]!;
-      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) occurs[(cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub] = 1;
-    }
+    this.fsum = new Float64Array(nz);
+    this.oneTissue = new Uint8Array(cells.columns);
+    cellPass(cells, T, D2, ctx.pd, occurs, this.fsum, this.oneTissue);
     const terms = Array.from({ length: T }, (_, ti) => Array.from({ length: D2 }, (_, sub) => (ctx.assign[ti]![sub] ? cellTerms(ctx, ti, sub) : null)));
     const index = new Map<string, number>();
     const cw: number[] = [], cdf: number[] = [], cr1: number[] = [], cr2: number[] = [];
@@ -230,25 +229,16 @@ export class CellStream {
     this.spec = { rfClass: new Int32Array(0), classes: C, classW, classDf, classR1, classR2 };
   }
 
-  private oneTissueCache: Uint8Array | null = null;
+  /** Per combination z of (w, tissue, sub-assignment): Σ |pd·fraction| of its entries, in column and entry order (cellPass). */
+  private readonly fsum: Float64Array;
+  private readonly oneTissue: Uint8Array;
 
   /**
    * Per column, 1 where it is one tissue at one fraction through every w (nw
-   * entries, in w order): made once, for the fold's passes and the estimate.
+   * entries, in w order): made once (cellPass), for the fold's passes and the estimate.
    */
   oneTissueColumns(): Uint8Array {
-    if (this.oneTissueCache) return this.oneTissueCache;
-    const cells = this.cells, nw = cells.wGrid.length, out = new Uint8Array(cells.columns);
-    for (let col = 0; col < cells.columns; col++) {
-      const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
-      if (e1 - e0 !== nw) continue;
-      const ti = cells.entTissue[e0]!, fr = cells.entFrac[e0]!;
-      let one = true;
-      for (let e = e0; e < e1 && one; e++) if (cells.entTissue[e] !== ti || cells.entFrac[e] !== fr || cells.entW[e] !== e - e0) one = false;
-      if (one) out[col] = 1;
-    }
-    this.oneTissueCache = out;
-    return out;
+    return this.oneTissue;
   }
 
   /** Class of term t (of combination z) of entry e. */
@@ -275,14 +265,7 @@ export class CellStream {
       }
       return { classIw, mass };
     }
-    const fsum = new Float64Array(nw * T * D2);
-    for (let col = 0; col < cells.columns; col++) {
-      const sub = cells.colSub[col]!;
-      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
-        const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub;
-        fsum[z] = fsum[z]! + Math.abs(pd[ti]! * cells.entFrac[e]!);
-      }
-    }
+    const fsum = this.fsum;
     for (let z = 0; z < fsum.length; z++) {
       const c = Math.floor(z / (D2 * T));
       for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
@@ -979,5 +962,29 @@ function addMoments3(
       XB[o] = XB[o]! + vr;
       XB[o + 1] = XB[o + 1]! + vi;
     }
+  }
+}
+
+/**
+ * The one pass over the cells' entries that the stream's set-up needs: which
+ * combinations z = (w·T + tissue)·D2 + sub occur, each one's Σ |pd·fraction|
+ * (added in column and entry order: classInfo's magnetization), and per column
+ * whether it is one tissue at one fraction through every w in w order
+ * (oneTissueColumns).
+ */
+function cellPass(cells: IsochromatCells, T: number, D2: number, pd: ArrayLike<number>, occurs: Uint8Array, fsum: Float64Array, one: Uint8Array): void {
+  const { entStart, entTissue, entW, entFrac, colSub } = cells, nw = cells.wGrid.length, cols = cells.columns;
+  for (let col = 0; col < cols; col++) {
+    const sub = colSub[col]!, e0 = entStart[col]!, e1 = entStart[col + 1]!;
+    if (e1 === e0) continue;
+    const ti0 = entTissue[e0]!, fr0 = entFrac[e0]!;
+    let same = e1 - e0 === nw;
+    for (let e = e0; e < e1; e++) {
+      const ti = entTissue[e]!, w = entW[e]!, fr = entFrac[e]!, z = (w * T + ti) * D2 + sub;
+      occurs[z] = 1;
+      fsum[z] = fsum[z]! + Math.abs(pd[ti]! * fr);
+      if (ti !== ti0 || fr !== fr0 || w !== e - e0) same = false;
+    }
+    if (same) one[col] = 1;
   }
 }

@@ -123,6 +123,12 @@ export interface PlanOptions {
   general?: boolean;
   /** Use the WebAssembly SIMD kernels where available (default true; false = the TypeScript kernels, the oracle). */
   wasm?: boolean;
+  /**
+   * Fill only the slice-axis phase tables (the fast operator's class playback reads no other; its read and phase
+   * sums are FFTs): the read and phase tables are then NaN, so a kernel that read them would give NaN, not a
+   * plausible k-space. Default false (every table filled).
+   */
+  sliceTablesOnly?: boolean;
 }
 
 /** What the RF maps are computed from: per-class parameters and the pulses. */
@@ -289,6 +295,10 @@ export function planFromClasses(
   const tab = sharedF64(tabLen);
   for (const { axis, area, offset } of tabList) {
     const g = grids[axis]!;
+    if (opts.sliceTablesOnly && axis !== 2) {
+      tab.fill(NaN, offset, offset + 2 * g.length);
+      continue;
+    }
     const k = -2 * Math.PI * GAMMA_BAR * area;
     for (let i = 0; i < g.length; i++) {
       const th = k * g[i]!;

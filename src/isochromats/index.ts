@@ -353,9 +353,10 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   const dw = span / nw;
   for (let i = 0; i < nw; i++) wGrid[i] = position - span / 2 + (i + 0.5) * dw;
 
-  // A phantom whose shapes are all infinite along the slice normal looks the same at every w.
-  const sliceInvariant =
-    (axes.slice[2] === 1 || axes.slice[2] === -1) && !Number.isFinite(bounds.min[2]) && !Number.isFinite(bounds.max[2]);
+  // A phantom whose shapes are all infinite along the slice normal (2D shapes: prisms along z) looks the
+  // same at every w. Every shape, not the union's bounds: one 2D shape makes the union infinite along z, and
+  // a sphere or box beside it still changes along the slice.
+  const sliceInvariant = (axes.slice[2] === 1 || axes.slice[2] === -1) && ph.shapes.every((s) => s.is2D);
 
   const peaks = ph.tissues.map((t) => tissuePeaks(t.fatFraction, t.fatModel ?? opt.fatModel, fieldT));
   // T2′ spread per tissue: the same frequency set in every voxel, so RF classes stay few.
