@@ -85,7 +85,7 @@ describe("the streamed operator's one pass over the cells", () => {
         missing++;
         continue;
       }
-      direct[k] += Math.abs(iso.m0[i]!);
+      direct[k] = direct[k]! + Math.abs(iso.m0[i]!);
       iwOf[k] = iso.iw[i]!;
     }
     expect(missing, "isochromats without a class of the stream").toBe(0);
