@@ -95,7 +95,8 @@ describe("readout auto: the cheaper operator by predicted cost", () => {
   }, 60_000);
 
   test("a looser tolerance lowers the fast operator's predicted cost (fewer segments and ranks), the direct one stays", () => {
-    const p = prep("phantoms/two-bottle.json", "gre-demo-1.5t", ["matrix.read=16", "matrix.phase=16"], {});
+    // the torso with a T2′ spread: many (Δf, R2) keys and classes, so the bounds are the tolerance's, not the key or class counts
+    const p = prep("phantoms/torso-slice.json", "gre-t1-3t", ["matrix.read=16", "matrix.phase=16"], { sliceCount: 4, t2primeIsochromats: 8 });
     const plan = makePlan(p.seq, p.iso, { receiverFilter: true });
     const tight = { ...predictReadoutCosts(p.seq, plan, p.iso, 1e-9) };
     const loose = predictReadoutCosts(p.seq, plan, p.iso, 1e-3);
@@ -104,6 +105,29 @@ describe("readout auto: the cheaper operator by predicted cost", () => {
     expect(loose.fastMs!).toBeLessThan(tight.fastMs!);
     expect(loose.directMs).toBe(tight.directMs);
   });
+});
+
+describe("the cost model's bounds on the line rank R and the segments L", () => {
+  // L is at most the number of distinct decay curves ((R2, Δf) keys) and R at most min(lines, classes): the ranks
+  // of the matrices the two factors approximate (linear algebra: a matrix of n distinct columns has rank ≤ n)
+  test.each([
+    ["one tissue, no spread (disc): one key, so one segment", "phantoms/disc.json", "gre-t1-3t", {}, 1],
+    ["water and multi-peak fat (two-bottle): a few keys", "phantoms/two-bottle.json", "gre-demo-1.5t", {}, null],
+    ["torso with a T2′ spread: many keys", "phantoms/torso-slice.json", "gre-t1-3t", { sliceCount: 4, t2primeIsochromats: 8 }, null],
+  ] as const)("%s: the bounds hold for the run and never pass the key and class counts", (_name, phantom, protocol, iso, segments) => {
+    const p = prep(phantom, protocol, ["matrix.read=24", "matrix.phase=24"], iso);
+    const plan = makePlan(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter });
+    const c = predictReadoutCosts(p.seq, plan, p.iso, DEFAULT_TOLERANCE);
+    const keys = new Set<string>();
+    for (let k = 0; k < plan.classes; k++) keys.add(`${plan.rf.classDf[k]}|${plan.rf.classR2[k]}`);
+    expect(c.segmentsBound!).toBeLessThanOrEqual(keys.size);
+    expect(c.lineRankBound!).toBeLessThanOrEqual(plan.classes);
+    if (segments !== null) expect(c.segmentsBound).toBe(segments);
+    const fast = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
+    expect(fast.readout.operator).toBe("fast");
+    expect(fast.readout.segments!).toBeLessThanOrEqual(c.segmentsBound!);
+    expect(fast.readout.lineRank!).toBeLessThanOrEqual(c.lineRankBound!);
+  }, 60_000);
 });
 
 describe("the cost model's distinct counts", () => {

@@ -8,7 +8,7 @@ import { describe, expect, test } from "vitest";
 import { simulate, type SimulateInput } from "../src/index.js";
 import { rfAffine } from "../src/engine/kernels.js";
 import { readoutRecurrenceFast, rfAffineMany, WASM_MODULES, wasmKernel, wasmRfKernel } from "../src/engine/wasm.js";
-import { pivotedBasis } from "../src/engine/fast.js";
+import { pivotedBasis, projectLines } from "../src/engine/fast.js";
 import { setBasisWasm } from "../src/engine/basis-wasm.js";
 import { sleb, uleb } from "../src/engine/wasm-asm.js";
 import { GAMMA } from "../src/constants.js";
@@ -131,6 +131,37 @@ describe("the pivoted Gram–Schmidt's sweep kernel (basis-wasm.ts) gives remove
           expect(Math.hypot(pr - (a === b ? 1 : 0), pi)).toBeLessThan(1e-12);
         }
       }
+    }
+  });
+});
+
+describe("the line factor's projection kernel (basis-wasm.ts project) gives addProjection's bits", () => {
+  // coef[c·R + r] = Σ_k conj(b_r(k))·P[line_k·C + c], lines in order (some readouts skipped), sizes above the kernel's threshold
+  test("coefficients bit for bit with the kernel on and off, and equal to the sum written out", () => {
+    for (const [NA, C, R, readouts] of [[128, 1344, 8, 130], [40, 300, 5, 40], [64, 97, 1, 70]] as const) {
+      const r = rng(NA * 7 + C);
+      const P = Float64Array.from({ length: 2 * readouts * C }, () => r() - 0.5);
+      const lines = Array.from({ length: NA }, (_, k) => (k * readouts) / NA | 0);
+      const basis = Array.from({ length: R }, () => Float64Array.from({ length: 2 * NA }, () => r() - 0.5));
+      const on = projectLines(basis, P, lines, C, true);
+      const was = setBasisWasm(false);
+      const off = projectLines(basis, P, lines, C, true);
+      setBasisWasm(was);
+      expect(sameBits(on, off)).toBe(true);
+      const direct = new Float64Array(2 * C * R);
+      for (let c = 0; c < C; c++) {
+        for (let b = 0; b < R; b++) {
+          let re = 0, im = 0;
+          for (let k = 0; k < NA; k++) {
+            const br = basis[b]![2 * k]!, bi = basis[b]![2 * k + 1]!, xr = P[2 * (lines[k]! * C + c)]!, xi = P[2 * (lines[k]! * C + c) + 1]!;
+            re = re + (br * xr + bi * xi);
+            im = im + (br * xi - bi * xr);
+          }
+          direct[2 * (c * R + b)] = re;
+          direct[2 * (c * R + b) + 1] = im;
+        }
+      }
+      expect(sameBits(on, direct)).toBe(true);
     }
   });
 });

@@ -8,7 +8,7 @@
 import { afterEach, describe, expect, it } from "vitest";
 import { centredLine, centredLines, FFTPlan, fftWasmActive, setFftWasm } from "../src/recon/fft.js";
 import { mulberry32 } from "../src/engine/fast.js";
-import { readAxis, readStep } from "../src/engine/fast-phase.js";
+import { readAxis, readPartStart, readStep } from "../src/engine/fast-phase.js";
 
 /** Deterministic values in [−0.5, 0.5): the fast operator's seeded generator (mulberry32). */
 function rng(seed: number): () => number {
@@ -180,6 +180,22 @@ describe("readAxis (the fast operator's read step)", () => {
         let bad = 0;
         for (let i = 0; i < ref.length; i++) if (!Object.is(out[i], ref[i])) bad++;
         expect(bad, `L ${L}, NA ${NA}, wasm ${wasm}`).toBe(0);
+        // the read step's jobs: the lines in parts (readPartStart), each part alone into an array holding other numbers
+        for (const parts of [2, 3, 4]) {
+          const pieces = Float64Array.from({ length: 2 * NA * ns }, () => 7);
+          let covered = 0;
+          for (let p = 0; p < parts; p++) {
+            const k0 = readPartStart(p, parts, NA, L), k1 = readPartStart(p + 1, parts, NA, L);
+            expect(k1).toBeGreaterThanOrEqual(k0);
+            covered += k1 - k0;
+            zt.fill(0);
+            readAxis(Zq, NA, Mu, ns, BL, colIdx, dft, zt, pieces, usedA, wasm, k0, k1);
+          }
+          expect(covered).toBe(NA);
+          let badPart = 0;
+          for (let i = 0; i < ref.length; i++) if (!Object.is(pieces[i], ref[i])) badPart++;
+          expect(badPart, `L ${L}, NA ${NA}, parts ${parts}, wasm ${wasm}`).toBe(0);
+        }
         // the direct DFT of one line and segment sum, k = NA − 1, j = ns − 1
         const k = NA - 1, j = ns - 1;
         let dr = 0, di = 0;

@@ -46,8 +46,8 @@ function f64Const(v: number): Code {
   return [F64_CONST, ...new Uint8Array(new Float64Array([v]).buffer)];
 }
 
-/** The module's bytes: export "remove"(Y, QV, NORMS, m, count); export "memory". */
-export function basisRemoveModule(): Uint8Array<ArrayBuffer> {
+/** The sweep's function (see the module comment). */
+function removeSource() {
   const body: Code = [
     ...i32Const(0), ...localSet(C),
     ...localGet(Y), ...localSet(YP),
@@ -92,10 +92,60 @@ export function basisRemoveModule(): Uint8Array<ArrayBuffer> {
       localGet(C), i32Const(1), [I32_ADD], localTee(C), localGet(COUNT), [I32_LT_U], [BR_IF, 0],
     ),
   ];
-  return kernelModule({ exportName: "remove", params: 5, locals: [[5, I32], [5, V128], [1, F64]], body });
+  return { exportName: "remove", params: 5, locals: [[5, I32], [5, V128], [1, F64]] as [number, number][], body };
+}
+
+// "project"(PK, BV, COEF, C, R, NA): parameters, then 6 i32 and 3 v128 locals
+const PK = 0, BV = 1, COEF = 2, PC = 3, PR = 4, NA = 5;
+const PKI = 6, PCI = 7, PRI = 8, XP = 9, BP = 10, CP = 11;
+const X = 12, SX = 13, PT = 14;
+
+/**
+ * The line factor's projection (fast.ts projectLines, twin addProjection):
+ * coef[c][r] += conj(b_r(k))·P_k[c] for lines k = 0 … NA−1 in order, classes
+ * c and ranks r. P_k at PK (NA rows of C complex values), per (k, r) the
+ * vectors (br, br) and (bi, −bi) at BV (32 bytes each), coef at COEF (C rows of
+ * R complex values). The term's lanes are br·xr + bi·xi and
+ * br·xi + (−(bi·xr)) = br·xi − bi·xr, added to coef as the twin adds them.
+ */
+function projectSource() {
+  const SWAP_X: Code = [...localTee(PT), ...localGet(PT), ...simd(I8X16_SHUFFLE), 8, 9, 10, 11, 12, 13, 14, 15, 0, 1, 2, 3, 4, 5, 6, 7];
+  const body: Code = [
+    ...i32Const(0), ...localSet(PKI),
+    ...localGet(PK), ...localSet(XP),
+    ...loop(
+      i32Const(0), localSet(PCI),
+      localGet(COEF), localSet(CP),
+      loop(
+        localGet(XP), v128Load(0), localTee(X), SWAP_X, localSet(SX),
+        localGet(BV), localGet(PKI), localGet(PR), [I32_MUL], i32Const(32), [I32_MUL], [I32_ADD], localSet(BP),
+        i32Const(0), localSet(PRI),
+        loop(
+          localGet(CP),
+          localGet(CP), v128Load(0),
+          localGet(BP), v128Load(0), localGet(X), MUL,
+          localGet(BP), v128Load(16), localGet(SX), MUL, ADD,
+          ADD, v128Store(0),
+          localGet(CP), i32Const(16), [I32_ADD], localSet(CP),
+          localGet(BP), i32Const(32), [I32_ADD], localSet(BP),
+          localGet(PRI), i32Const(1), [I32_ADD], localTee(PRI), localGet(PR), [I32_LT_U], [BR_IF, 0],
+        ),
+        localGet(XP), i32Const(16), [I32_ADD], localSet(XP),
+        localGet(PCI), i32Const(1), [I32_ADD], localTee(PCI), localGet(PC), [I32_LT_U], [BR_IF, 0],
+      ),
+      localGet(PKI), i32Const(1), [I32_ADD], localTee(PKI), localGet(NA), [I32_LT_U], [BR_IF, 0],
+    ),
+  ];
+  return { exportName: "project", params: 6, locals: [[6, I32], [3, V128]] as [number, number][], body };
+}
+
+/** The module's bytes: exports "remove"(Y, QV, NORMS, m, count), "project"(PK, BV, COEF, C, R, NA) and "memory". */
+export function basisRemoveModule(): Uint8Array<ArrayBuffer> {
+  return kernelModule([removeSource(), projectSource()]);
 }
 
 type RemoveFn = (y: number, qv: number, norms: number, m: number, count: number) => void;
+type ProjectFn = (pk: number, bv: number, coef: number, C: number, R: number, NA: number) => void;
 
 const newKernel = kernelFactory<RemoveFn>(basisRemoveModule, "remove");
 let instance: Kernel<RemoveFn> | null | undefined;
@@ -150,4 +200,31 @@ export class BasisSweep {
   residualsInto(y: Float64Array): void {
     y.set(this.columns, 0);
   }
+}
+
+/**
+ * projectLines on the kernel (this thread's instance): coef[c·R + r] =
+ * Σ_k conj(basis_r(k))·P[line_k·C + c], k in order, the numbers of fast.ts
+ * addProjection. Null where WebAssembly SIMD is unavailable or switched off.
+ */
+export function projectOnKernel(basis: Float64Array[], P: Float64Array, lines: number[], C: number, wasm = true): Float64Array | null {
+  if (!wasm || !basisWasmSwitch.on()) return null;
+  if (instance === undefined) instance = newKernel();
+  if (!instance) return null;
+  const R = basis.length, NA = lines.length;
+  const pk = 0, bv = pk + 16 * NA * C, co = bv + 32 * NA * R;
+  const f = reserveKernelMemory(instance, co + 16 * C * R);
+  for (let k = 0; k < NA; k++) f.set(P.subarray(2 * lines[k]! * C, 2 * (lines[k]! + 1) * C), 2 * k * C);
+  for (let k = 0; k < NA; k++) {
+    for (let r = 0; r < R; r++) {
+      const br = basis[r]![2 * k]!, bi = basis[r]![2 * k + 1]!, o = bv / 8 + 4 * (k * R + r);
+      f[o] = br;
+      f[o + 1] = br;
+      f[o + 2] = bi;
+      f[o + 3] = -bi;
+    }
+  }
+  f.fill(0, co / 8, co / 8 + 2 * C * R);
+  (instance.exports["project"] as ProjectFn)(pk, bv, co, C, R, NA);
+  return f.slice(co / 8, co / 8 + 2 * C * R);
 }

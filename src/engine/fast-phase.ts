@@ -138,6 +138,19 @@ export const KT = 16;
 /** Read-axis transforms made together at most (lines × segments of a group). */
 const READ_BATCH = 256;
 
+/**
+ * Line k of part p of `parts` (p = 0 … parts): the read step's jobs split a coil's NA lines at whole groups of
+ * readAxis (lines are transformed independently, so a split changes no number).
+ */
+export function readPartStart(p: number, parts: number, NA: number, L: number): number {
+  if (p >= parts) return NA;
+  const g = readGroup(L) / L;
+  return Math.min(NA, Math.ceil((p * NA) / parts / g) * g);
+}
+
+/** Read-step jobs wanted at least (whole coils or parts of one): a few per thread, so a late helper still gets its share. */
+const READ_JOBS = 4;
+
 /** Transforms of one group of readAxis: the lines of a group (KT, fewer with many segments) × the L segments. */
 function readGroup(L: number): number {
   return Math.max(1, Math.min(KT, Math.floor(READ_BATCH / L))) * L;
@@ -172,13 +185,13 @@ export function readStep(Mu: number, L: number, wasm: boolean, fallback: (n: num
  * each output sample summed over l in order (the same additions, one store).
  * zt is +0 at the unused read columns (never written; no value of Z is −0: sums from +0); Zq[l] holds the used read columns usedA[i] (ascending) at i.
  */
-export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true): void {
+export function readAxis(Zq: Float64Array[], NA: number, Mu: number, ns: number, BL: Float64Array, colIdx: Int32Array, dft: FFTPlan, zt: Float64Array, out: Float64Array, usedA: Int32Array, wasm = true, kStart = 0, kEnd = NA): void {
   const L = Zq.length, nzA = usedA.length > 0 ? usedA[usedA.length - 1]! + 1 : 0;
   // at most READ_BATCH transforms at once (many segments: fewer lines per group)
   const cap = readGroup(L);
-  out.fill(0);
-  for (let k0 = 0; k0 < NA; k0 += cap / L) {
-    const nk = Math.min(cap / L, NA - k0);
+  out.fill(0, 2 * kStart * ns, 2 * kEnd * ns);
+  for (let k0 = kStart; k0 < kEnd; k0 += cap / L) {
+    const nk = Math.min(cap / L, kEnd - k0);
     // one sweep down the read columns per segment reads each cache line of z once; zt holds the group's
     // transforms side by side (transform g's element a at 2·(a·cap + g)), so the first step's sweep down the
     // elements reads neighbours
@@ -290,6 +303,8 @@ export interface PhaseShared {
 export interface ReadShared {
   BL: SharedArrayBuffer; colIdx: SharedArrayBuffer; usedA: SharedArrayBuffer;
   ns: number; linesLen: number;
+  /** Jobs per coil: its lines in this many parts (readPartStart). */
+  parts: number;
 }
 
 function ctrlLayout(ctrl: Int32Array, s: number) {
@@ -301,8 +316,15 @@ function sensLayout(j: number) {
   const b = SLOT0 + 3 * PHASE_SLOTS + 2 * j;
   return { state: b, n: b + 1 };
 }
-/** Control words of the read step: started (1), next coil to claim, coils done. */
-const READ_GO = SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS, READ_NEXT = READ_GO + 1, READ_DONE = READ_GO + 2, CTRL_WORDS = READ_GO + 3;
+/**
+ * Control words of the read step, per round (one coil's run has two: the rank-0 lines that set the budget of
+ * the skipped pairs, then every kept pair's; several coils have one): started (1), next job to claim, jobs done.
+ */
+const READ_ROUNDS = 2, READ_BASE = SLOT0 + 3 * PHASE_SLOTS + 2 * SENS_JOBS, CTRL_WORDS = READ_BASE + 3 * READ_ROUNDS;
+function readLayout(round: number) {
+  const b = READ_BASE + 3 * round;
+  return { go: b, next: b + 1, done: b + 2 };
+}
 
 /** One thread's means for the read step: its FFT plan and gather scratch, views of Z and of each coil's lines. */
 class ReadViews {
@@ -323,23 +345,32 @@ class ReadViews {
     this.lines = Array.from({ length: setup.coils }, (_, q) => new Float64Array(mem, 8 * (at + q * rd.linesLen), rd.linesLen));
   }
 
-  /** Coil q's lines (readAxis of its segments' Z). */
-  run(q: number): void {
-    const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols;
+  /** Job j: lines of part j mod parts of coil ⌊j / parts⌋ (readAxis of its segments' Z over those lines). */
+  run(j: number): void {
+    const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols, parts = this.rd.parts;
+    const q = Math.floor(j / parts), p = j - q * parts;
     const Zq = Array.from({ length: L }, (_, l) => this.Z.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
     this.zt.fill(0);
-    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA, this.setup.wasm);
+    readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA, this.setup.wasm, readPartStart(p, parts, NA, L), readPartStart(p + 1, parts, NA, L));
+  }
+
+  get jobs(): number {
+    return this.setup.coils * this.rd.parts;
   }
 }
 
-/** Claims and runs coils of the started read step until none is left; false if it ran none. */
-function runReads(ctrl: Int32Array, rv: ReadViews, coils: number): boolean {
-  if (Atomics.load(ctrl, READ_GO) !== 1) return false;
+/** Claims and runs jobs of every started read round until none is left; false if it ran none. */
+function runReads(ctrl: Int32Array, rv: ReadViews): boolean {
   let did = false;
-  for (let q = Atomics.add(ctrl, READ_NEXT, 1); q < coils; q = Atomics.add(ctrl, READ_NEXT, 1)) {
-    rv.run(q);
-    Atomics.add(ctrl, READ_DONE, 1);
-    did = true;
+  const jobs = rv.jobs;
+  for (let r = 0; r < READ_ROUNDS; r++) {
+    const c = readLayout(r);
+    if (Atomics.load(ctrl, c.go) !== 1) continue;
+    for (let j = Atomics.add(ctrl, c.next, 1); j < jobs; j = Atomics.add(ctrl, c.next, 1)) {
+      rv.run(j);
+      Atomics.add(ctrl, c.done, 1);
+      did = true;
+    }
   }
   return did;
 }
@@ -406,7 +437,7 @@ function helperLoop(sh: PhaseShared, ctrl: Int32Array): void {
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
       did = true;
     }
-    if (rv && runReads(ctrl, rv, sh.setup.coils)) {
+    if (rv && runReads(ctrl, rv)) {
       did = true;
       Atomics.add(ctrl, PROGRESS, 1);
       if (Atomics.load(ctrl, MAIN_WAITS) === 1) Atomics.notify(ctrl, PROGRESS);
@@ -470,7 +501,9 @@ export class ParallelPhase {
         new Uint8Array(b).set(new Uint8Array(a.buffer, a.byteOffset, a.byteLength));
         return b;
       };
-      this.shared.read = { BL: share(read.BL), colIdx: share(read.colIdx), usedA: share(read.usedA), ns: read.ns, linesLen };
+      // jobs of whole coils where there are several; one coil's lines in parts, so both threads share them
+      const parts = Math.max(1, Math.ceil(READ_JOBS / setup.coils));
+      this.shared.read = { BL: share(read.BL), colIdx: share(read.colIdx), usedA: share(read.usedA), ns: read.ns, linesLen, parts };
       this.readViews = new ReadViews(setup, this.Z, mem, zLen, slotLen, this.shared.read);
     }
     this.ctrl = new Int32Array(ctrl);
@@ -587,20 +620,21 @@ export class ParallelPhase {
   }
 
   /**
-   * The read step of every coil on both threads (after drain(); the
-   * constructor was given its factors): each coil's lines, as readAxis makes
-   * them on either thread (the same bits).
+   * Read round `round` (0 or 1, each once per run) of every coil on both
+   * threads (after drain(); the constructor was given its factors): each
+   * coil's lines, as readAxis makes them on either thread (the same bits).
+   * The views are those of every round (the next round overwrites them).
    */
-  readAll(): Float64Array[] {
-    const rv = this.readViews!, coils = this.shared.setup.coils;
-    Atomics.store(this.ctrl, READ_GO, 1);
+  readAll(round = 0): Float64Array[] {
+    const rv = this.readViews!, jobs = rv.jobs, c = readLayout(round);
+    Atomics.store(this.ctrl, c.go, 1);
     Atomics.add(this.ctrl, GEN, 1);
     if (Atomics.load(this.ctrl, HELPER_WAITS) === 1) Atomics.notify(this.ctrl, GEN);
-    runReads(this.ctrl, rv, coils);
-    while (Atomics.load(this.ctrl, READ_DONE) < coils) {
+    runReads(this.ctrl, rv);
+    while (Atomics.load(this.ctrl, c.done) < jobs) {
       this.checkHelper();
       const p = Atomics.load(this.ctrl, PROGRESS);
-      if (Atomics.load(this.ctrl, READ_DONE) >= coils) break;
+      if (Atomics.load(this.ctrl, c.done) >= jobs) break;
       Atomics.store(this.ctrl, MAIN_WAITS, 1);
       Atomics.wait(this.ctrl, PROGRESS, p, 50);
       Atomics.store(this.ctrl, MAIN_WAITS, 0);

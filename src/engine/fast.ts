@@ -41,7 +41,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import type { EnginePlan, Op } from "./plan.js";
 import { receiverFilter } from "./chunk.js";
-import { BasisSweep } from "./basis-wasm.js";
+import { BasisSweep, projectOnKernel } from "./basis-wasm.js";
 import type { CellStream } from "./fast-stream.js";
 import { openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, readStep, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
 
@@ -540,7 +540,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   lineValues(P, act.map((a) => a.n), C, mass, y);
   const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK, plan.wasm);
   if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
-  const G = projectLines(A, P, act.map((a) => a.n), C); // G[c·R + r]
+  const G = projectLines(A, P, act.map((a) => a.n), C, plan.wasm); // G[c·R + r]
   const R = A.length;
   // --- time factor over distinct (R2, Δf)
   const { keyOf, keyDf, keyR2, K, E, ey } = timeKeys(plan, G, R, mass, ns, dwell);
@@ -678,8 +678,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         };
       })()
     : undefined;
-  // with several coils the read step too is shared (per coil, ParallelPhase.readAll)
-  const readShared = coils > 1 ? { BL, colIdx, usedA: Int32Array.from(usedList), ns } : undefined;
+  // the read step too is shared (ParallelPhase.readAll: whole coils, or parts of one coil's lines)
+  const readShared = { BL, colIdx, usedA: Int32Array.from(usedList), ns };
   const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead, readShared) : null;
   if (helper && par) helper.start(par.shared);
   // sensitivities of the first blocks asked for now (the helper evaluates them while this thread sets up the fold);
@@ -787,9 +787,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   drain();
   kept += list0.length;
   let n2k = 0;
+  const lines0 = par ? par.readAll(0) : null;
   for (let q = 0; q < coils; q++) {
-    readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA, plan.wasm);
-    for (let k = 0; k < NA; k++) n2k += sumSquares(lines.subarray(2 * k * ns, 2 * (k + 1) * ns));
+    if (!lines0) readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA, plan.wasm);
+    const v = lines0 ? lines0[q]! : lines;
+    for (let k = 0; k < NA; k++) n2k += sumSquares(v.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
   const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
   const list: { x: number; r: number; q: number; l: number }[] = [];
@@ -818,8 +820,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     ? estimate(plan, src.iso, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2)
     : src.stream.estimate(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2);
   drain();
-  // read-axis DFT of each line, times B_l(j), summed over l into the rows (several coils: on both threads)
-  const perCoil = par && readShared ? par.readAll() : null;
+  // read-axis DFT of each line, times B_l(j), summed over l into the rows (with a helper: on both threads)
+  const perCoil = par ? par.readAll(coils > 1 ? 0 : 1) : null;
   for (let q = 0; q < coils; q++) {
     if (!perCoil) readAxis(Zof(q), NA, Mu, ns, BL, colIdx, dftU, zt, lines, usedA, plan.wasm);
     const v = perCoil ? perCoil[q]! : lines;
@@ -1041,7 +1043,10 @@ function lineValues(P: Float64Array, lines: number[], C: number, mass: Float64Ar
  * along its rows (no transposed copy): each coefficient still sums its terms
  * in line order k = 0, 1, …, so the numbers are the same.
  */
-function projectLines(basis: Float64Array[], P: Float64Array, lines: number[], C: number): Float64Array {
+export function projectLines(basis: Float64Array[], P: Float64Array, lines: number[], C: number, wasm = true): Float64Array {
+  // on the SIMD kernel where it runs (the same numbers; basis-wasm.ts)
+  const onKernel = basis.length > 0 && lines.length * C >= SWEEP_MIN ? projectOnKernel(basis, P, lines, C, wasm) : null;
+  if (onKernel) return onKernel;
   const R = basis.length, NA = lines.length, coef = new Float64Array(2 * C * R), bk = new Float64Array(2 * R);
   for (let k = 0; k < NA; k++) {
     for (let r = 0; r < R; r++) {
@@ -1612,7 +1617,7 @@ export function predictCosts(
   if (pre !== null || NA === 0) {
     costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
   } else {
-    const { R, L } = boundsFrom(T, spread.df, spread.r2, tolerance, split);
+    const { R, L } = boundsFrom(T, spread.df, spread.r2, tolerance, split, { keys: K, samples: ns, lines: NA, classes: C });
     const [Mu, Mv] = dftLengths(seq, iso);
     const usedCols = Math.min(Mu, iso.uGrid.length);
     const grid = Mu * Mv;
@@ -1670,17 +1675,22 @@ export function prepareHelperMemory(seq: Sequence, plan: EnginePlan, iso: { uGri
   if (R * L * coils * Mv * usedCols < phaseMinWork) return;
   const NX = R * coils * L, blockCols = Math.max(1, Math.min(Mu, Math.floor(BLOCK_BYTES / (16 * Mv * NX))));
   const ns = (seq.blocks.find((b) => b.kind === "adc") as { samples: number } | undefined)?.samples ?? 0;
-  const r = reservePhaseMemory(16 * NA * usedCols * coils * L + 8 * PHASE_SLOTS * 2 * blockCols * Mv * NX + (coils > 1 ? 16 * coils * NA * ns : 0));
+  const r = reservePhaseMemory(16 * NA * usedCols * coils * L + 8 * PHASE_SLOTS * 2 * blockCols * Mv * NX + 16 * coils * NA * ns);
   if (r === null) return;
   phaseHelper()?.touch?.(r.buf, r.ctrl);
 }
 
-/** The cost model's bounds of the line rank R and the segments L: from the tolerance, the readout duration T and the classes' (Δf, R2) spread. */
-function boundsFrom(T: number, dfSpread: number, r2Spread: number, tolerance: number, split: number): { R: number; L: number } {
+/**
+ * The cost model's bounds of the line rank R and the segments L: from the tolerance, the readout duration T
+ * and the classes' (Δf, R2) spread; and never above the ranks of the matrices factored (the time factor has
+ * one decay curve per (R2, Δf) key, so L ≤ keys and L ≤ samples; the line factor is lines × classes, so
+ * R ≤ lines and R ≤ classes): one tissue without a spread is one segment.
+ */
+function boundsFrom(T: number, dfSpread: number, r2Spread: number, tolerance: number, split: number, size: { keys: number; samples: number; lines: number; classes: number }): { R: number; L: number } {
   const decades = Math.ceil(Math.log10(split / tolerance));
   return {
-    L: Math.min(MAX_SEGMENTS, Math.max(1, Math.ceil(2 * T * dfSpread + T * r2Spread) + decades)),
-    R: Math.min(MAX_RANK, 1 + decades),
+    L: Math.max(1, Math.min(MAX_SEGMENTS, Math.ceil(2 * T * dfSpread + T * r2Spread) + decades, size.keys, size.samples)),
+    R: Math.max(1, Math.min(MAX_RANK, 1 + decades, size.lines, size.classes)),
   };
 }
 
@@ -1688,9 +1698,13 @@ function boundsFrom(T: number, dfSpread: number, r2Spread: number, tolerance: nu
 function readoutBounds(seq: Sequence, plan: EnginePlan, tolerance: number, split: number): { R: number; L: number } {
   const { keyDf, keyR2 } = classKeys(plan);
   const spread = keySpread(keyDf, keyR2);
-  let T = 0;
-  for (const b of seq.blocks) if (b.kind === "adc") T = Math.max(T, b.samples * b.dwell);
-  return boundsFrom(T, spread.df, spread.r2, tolerance, split);
+  let T = 0, lines = 0, samples = 0;
+  for (const b of seq.blocks) {
+    if (b.kind !== "adc") continue;
+    T = Math.max(T, b.samples * b.dwell);
+    if (lines++ === 0) samples = b.samples;
+  }
+  return boundsFrom(T, spread.df, spread.r2, tolerance, split, { keys: keyDf.length, samples, lines, classes: plan.classes });
 }
 
 /** Spread (greatest − least) of the keys' Δf (Hz) and R2 (1/s); −∞ for none. */
