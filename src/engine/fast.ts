@@ -1404,8 +1404,36 @@ export const DIRECT_NS_PER_UNIT = 1.06;
  * small ones high (towards direct, the oracle). With it auto chooses the
  * measured best on the first four; the disc (fast 25 ms against direct 57 ms)
  * still goes to direct.
+ *
+ * Re-calibrated again (2026-12-03) after the SIMD kernels, the bounds capped
+ * by the key and class counts (boundsFrom) and the grid term made per block
+ * (the grids are no longer held whole, so their first touch is gone): both
+ * operators measured in one process, alternating, medians of 7 (the 128²
+ * torso 3), one thread, cells streamed; the host then ran ≈ 1.25× slower than
+ * the calibration above, so only each case's ratio counts:
+ *
+ *   case (tolerance 1e-6)                      fast: measured  units  | direct: measured  units | fast/direct
+ *   128² two-bottle demo, default quality          240 ms      255 M  |    1552 ms      519 M  |  0.15
+ *   128² two-bottle demo, preview quality           36 ms       33 M  |      48 ms       14 M  |  0.75
+ *   128² torso gre-t1-3t, default quality         1091 ms     1218 M  |   20398 ms     8394 M  |  0.05
+ *   64² torso gre-t1-3t, density 1, 4 through      99 ms       52 M  |     123 ms       34 M  |  0.80
+ *   128² disc gre-t1-3t, density 2, 16 through     52 ms       21 M  |     147 ms       43 M  |  0.36
+ *   64² two-bottle demo, default quality          107 ms       72 M  |     291 ms       90 M  |  0.37
+ *   32² two-bottle demo, density 1, 4 through       7.9 ms      2.2 M |     2.7 ms      0.5 M |  2.9
+ *   32² two-bottle gre-t1-3t, the same              4.9 ms      1.8 M |     2.4 ms      0.3 M |  2.0
+ *
+ * ms per unit: direct 2.4–3.6 (median 3.0) with ≈ 1.5 ms more on the 32²
+ * cases; fast 0.9–2.5 (median 1.1) with ≈ 3–6 ms more on the 32² cases (the
+ * set-up of the factors, whatever the size). In the units of
+ * DIRECT_NS_PER_UNIT: FAST_NS_PER_UNIT = 1.06 × 0.95 / 3.0 ≈ 0.33, and fixed
+ * costs FAST_FIXED_MS ≈ 4 ms × 1.06 / 3.0 ≈ 1.4 and DIRECT_FIXED_MS ≈ 0.5.
+ * With them auto chooses the measured best on all eight (the 32² cases go to
+ * direct by 2×; the preview demo to fast by 0.8×).
  */
-export const FAST_NS_PER_UNIT = 0.55;
+export const FAST_NS_PER_UNIT = 0.33;
+/** Fixed costs of a run of each operator in the model's milliseconds (set-up whatever the size; see above). */
+export const FAST_FIXED_MS = 1.4;
+export const DIRECT_FIXED_MS = 0.5;
 /** Fast-operator term weights (ns per unit; the FFT term's unit is n·log2(n) of a power-of-two transform, weight 1). */
 const W_FAST = { iso: 6.6, grid: 20, classes: 4.85 };
 /** Direct-operator weight of the per-slot, per-class and grouping terms against one step of the readout recurrence. */
@@ -1443,9 +1471,11 @@ const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCos
  * - Fast (ns per unit W_FAST): the isochromat work — one pass per line rank
  *   (count·coils·R), the folds of each column's (Δf, R2) keys into the grids
  *   ((columns + slots)·coils·R·L) and the a-posteriori estimate —; the grid
- *   work — grids held (allocated and first touched: min(R, per pass)·L·coils·
- *   Mu·Mv) and the per-pair norms and strided accumulation of the phase-
- *   transformed lines (R·L·coils·used columns·(Mv + lines)) —; the FFTs
+ *   work — per used read column and (rank, segment, coil) grid, its rows
+ *   zeroed and their norms summed (min(rows, Mv)), and the strided
+ *   accumulation of the phase-transformed lines (Mv + lines): R·L·coils·used
+ *   columns·(min(rows, Mv) + Mv + lines); the grids are folded and
+ *   transformed per block in cache, none held whole —; the FFTs
  *   (R·L·coils·used columns·DFT(Mv) + 2·coils·lines·L·(DFT(Mu) + ns), a
  *   Bluestein length costing its three power-of-two transforms); and the
  *   class work (class playback classes·ops, line factor 4·lines·classes·R,
@@ -1615,13 +1645,11 @@ export function predictCosts(
   const pre = fastPrecheck(plan);
   let costs: ReadoutCosts;
   if (pre !== null || NA === 0) {
-    costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
+    costs = { directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6 + DIRECT_FIXED_MS, fastMs: null, directUnits, fastUnits: null, groups, slots, model: "fast operator does not apply" };
   } else {
     const { R, L } = boundsFrom(T, spread.df, spread.r2, tolerance, split, { keys: K, samples: ns, lines: NA, classes: C });
     const [Mu, Mv] = dftLengths(seq, iso);
     const usedCols = Math.min(Mu, iso.uGrid.length);
-    const grid = Mu * Mv;
-    const perPass = Math.max(1, Math.min(R, Math.floor(GRID_BYTES / (16 * grid * L * coils))));
     // weights relative to one n·log2(n) unit of a power-of-two FFT (profiled, see W_FAST)
     // streamed from the cells (fast-stream.ts): no pass per isochromat and rank, no class hashing; a column
     // of one tissue costs one R·L fold (the estimate still visits every isochromat once per estimate row)
@@ -1629,14 +1657,14 @@ export function predictCosts(
       iso: streamed
         ? count * coils * ESTIMATE_ROWS + iso.columns * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4
         : count * coils * (R + ESTIMATE_ROWS) + (iso.columns + slots) * coils * R * L + slots * coils * ESTIMATE_SAMPLES + iso.columns * ESTIMATE_SAMPLES * 4,
-      grid: perPass * L * coils * grid + R * L * coils * usedCols * (Mv + NA),
+      grid: R * L * coils * usedCols * (Math.min(iso.vGrid.length, Mv) + Mv + NA),
       fft: R * L * coils * usedCols * dftCost(Mv) + 2 * coils * NA * L * (dftCost(Mu) + ns),
       classes: (streamed ? 0 : count) + C * plan.ops.length + 4 * NA * C * R + ns * K * L,
     };
     const terms = { iso: W_FAST.iso * raw.iso, grid: W_FAST.grid * raw.grid, fft: raw.fft, classes: W_FAST.classes * raw.classes };
     const fastUnits = Object.values(terms).reduce((x, y) => x + y, 0);
     costs = {
-      directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (fastUnits * FAST_NS_PER_UNIT) / 1e6, directUnits, fastUnits,
+      directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6 + DIRECT_FIXED_MS, fastMs: (fastUnits * FAST_NS_PER_UNIT) / 1e6 + FAST_FIXED_MS, directUnits, fastUnits,
       lineRankBound: R, segmentsBound: L, groups, slots,
       model: "direct: lines × readout groups × samples × coils (+ slots, classes, grouping); fast: isochromat passes and folds × R·L, R·L grids and their FFTs, class playback; R, L bounded from the tolerance and the (Δf, R2) spread (engine/fast.ts predictReadoutCosts)",
     };
