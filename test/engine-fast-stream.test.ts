@@ -182,6 +182,22 @@ describe("streamed fast operator with coil sensitivities (dataset)", () => {
   }, 60_000);
 });
 
+describe("streamed fast operator with coil sensitivities and a B0 model", () => {
+  // a B0 model leaves the stream no per-tissue tables (its classes vary per cell), so every column goes to the
+  // per-cell fold — which once read a table that was not there
+  test("4 loops + the uniform coil, B0 expression: within the tolerance of the direct operator, estimate bounds the error", async () => {
+    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
+    const p = prep(["spoiling=ideal", "fov.read=12 cm", "fov.phase=12 cm"], { b0: "400 * x + 250 * y", matrix: 24, iso: { density: 2, sliceCount: 4 } });
+    const array = { elements: 4, rows: 1, loopRadius: 0.04, arrayRadius: 0.15, rowSpacing: 0, zCentre: 0 };
+    const fast = await simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast" });
+    expect(fast.readout[0]!.operator).toBe("fast");
+    const direct = await simulateCoilsPlanned(p.seq, p.iso, array, true, serialExecutor(), undefined, { readout: "direct" });
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-6);
+    expect(fast.readout[0]!.estimate!.relL2).toBeGreaterThanOrEqual(err);
+  }, 60_000);
+});
+
 describe("through-slice sensitivity terms of the streamed fold (slice-basis.ts throughSliceBasis)", () => {
   test("basis orthonormal; torso (mixed-tissue columns) with the array off the slice centre: within the tolerance of direct, estimate bounds the error, fewer terms than cells", async () => {
     const { throughSliceBasis } = await import("../src/engine/slice-basis.js");

@@ -488,8 +488,9 @@ export class CellStream {
       let g = 0;
       while (g < ng && gTi[g] !== ti) g++;
       if (g === ng) {
-        const tab = full[ti * D2 + sub]!;
-        if (!tab.mom) return false;
+        // no table (a B0 model: its classes vary per cell, so there are none) or none with moments: the per-cell fold
+        const tab = full[ti * D2 + sub];
+        if (!tab?.mom) return false;
         if (filt && !flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) return false;
         gTi[ng++] = ti;
         wgt.fill(0, g * nw, (g + 1) * nw);
