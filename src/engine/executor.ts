@@ -18,7 +18,7 @@ import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
 import {
-  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
+  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fillRfMapsShared, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
 } from "./fast.js";
 
@@ -241,7 +241,7 @@ export async function simulateCells(
     }
   }
   opts.onPlan?.(plan);
-  fillRfMaps(plan, 0, plan.classes);
+  fillRfMapsShared(plan, (executor.threads ?? 2) >= 2);
   if (opts.signal?.aborted) throw new AbortedError();
   let r: FastResult | string = "";
   let est = Infinity;

@@ -36,7 +36,7 @@ export function nodePhaseHelper(): PhaseHelper | null {
     }
   }
   const w = worker;
-  return { start: (shared) => w.postMessage(shared), touch: (buf, ctrl) => w.postMessage({ touch: buf, ctrl }) };
+  return { start: (shared) => w.postMessage(shared), touch: (buf, ctrl) => w.postMessage({ touch: buf, ctrl }), rf: (job) => w.postMessage({ rf: job }) };
 }
 
 setPhaseHelper(nodePhaseHelper);

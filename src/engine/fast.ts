@@ -39,7 +39,8 @@
 import { GAMMA_BAR } from "../constants.js";
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
-import type { EnginePlan, Op } from "./plan.js";
+import { fillRfMaps, HAS_SHARED_MEMORY, isShared, type EnginePlan, type Op } from "./plan.js";
+import type { RfJob } from "./rf-job.js";
 import { receiverFilter } from "./chunk.js";
 import { BasisSweep, projectOnKernel } from "./basis-wasm.js";
 import type { CellStream } from "./fast-stream.js";
@@ -109,11 +110,13 @@ const GRID_BYTES = 512 * 2 ** 20;
 /** Folded grids per block of read columns: about this many bytes (a few read columns stay in cache while transformed). */
 const BLOCK_BYTES = 2 * 2 ** 20;
 /** Phase-step work (R·L·coils·Mv·read columns) from which a helper thread shares it (below, its hand-offs cost more than they save). */
-const PARALLEL_PHASE_WORK = 1 << 22;
+const PARALLEL_PHASE_WORK = 1 << 20;
 
 /** A helper thread for the phase step (engine/fast-node.ts registers one in Node): start() posts a run's shared buffers. */
 export interface PhaseHelper {
   start(shared: PhaseShared): void;
+  /** Posts part of a run's RF maps to fill (fillRfMapsShared; rf-job.ts runRfJob on the helper's side). */
+  rf?(job: RfJob): void;
   /** Asks the helper to write the pages of a memory reserve ahead of a run (fast-phase.ts touchReserve). */
   touch?(buf: SharedArrayBuffer, ctrl: SharedArrayBuffer): void;
 }
@@ -131,9 +134,56 @@ export function lastHelperBlocks(): number {
  * thread) and from what phase-step work on they are used (tests: 0). The bits
  * are the same either way.
  */
-export function setPhaseHelper(f: (() => PhaseHelper | null) | null, minWork = PARALLEL_PHASE_WORK): void {
+export function setPhaseHelper(f: (() => PhaseHelper | null) | null, minWork = PARALLEL_PHASE_WORK, rfMinWork = PARALLEL_RF_WORK): void {
   phaseHelper = f;
   phaseMinWork = minWork;
+  rfMinWork_ = rfMinWork;
+}
+
+/** RF-map work (classes × pulse samples) from which the helper thread fills half of the maps (below, the hand-off costs more). */
+const PARALLEL_RF_WORK = 1 << 15;
+let rfMinWork_ = PARALLEL_RF_WORK;
+
+/**
+ * fillRfMaps of every class, the upper half on the helper thread where there is one and the work is large
+ * enough (each class's map is computed alone, so the bits are the same on either thread). The main thread
+ * fills the lower half, then takes the upper half back if the helper has not started it, or waits for it;
+ * a helper that failed, or has not finished long after the main thread's own half, is done without.
+ */
+export function fillRfMapsShared(plan: EnginePlan, allowHelper: boolean): void {
+  rfSplit = "none";
+  const C = plan.classes;
+  let samples = 0;
+  for (const p of plan.rf.pulses) samples += p.b1re.length;
+  const h = allowHelper && phaseHelper !== null && C >= 2 && C * samples >= rfMinWork_ && HAS_SHARED_MEMORY && isShared(plan.rfMaps.buffer) ? phaseHelper() : null;
+  if (!h?.rf) {
+    fillRfMaps(plan, 0, C);
+    return;
+  }
+  const cm = C >> 1, ctrl = new Int32Array(new SharedArrayBuffer(4));
+  h.rf({ rf: plan.rf, maps: plan.rfMaps, classes: C, wasm: plan.wasm, c0: cm, c1: C, ctrl });
+  const t0 = performance.now();
+  fillRfMaps(plan, 0, cm);
+  const own = performance.now() - t0;
+  if (Atomics.compareExchange(ctrl, 0, 0, 3) === 0) {
+    fillRfMaps(plan, cm, C);
+    rfSplit = "main";
+    return;
+  }
+  // the helper is filling: wait for it (far longer than its half should take: it failed or is starved, so fill here)
+  const limit = performance.now() + Math.max(1000, 20 * own);
+  while (Atomics.load(ctrl, 0) === 1 && performance.now() < limit) Atomics.wait(ctrl, 0, 1, 50);
+  if (Atomics.load(ctrl, 0) !== 2) {
+    fillRfMaps(plan, cm, C);
+    rfSplit = "main";
+  } else rfSplit = "helper";
+}
+
+let rfSplit: "none" | "main" | "helper" = "none";
+
+/** Who filled the upper half of the last run's RF maps (fillRfMapsShared; for tests): not split, the main thread after all, or the helper. */
+export function lastRfSplit(): "none" | "main" | "helper" {
+  return rfSplit;
 }
 
 /**

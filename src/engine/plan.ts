@@ -359,13 +359,18 @@ export function makePlan(
  * on different threads into the shared rfMaps.
  */
 export function fillRfMaps(plan: EnginePlan, c0: number, c1: number): void {
-  const { classW, classDf, classR1, classR2, pulses } = plan.rf;
+  fillRfMapsOf(plan.rf, plan.rfMaps, plan.classes, plan.wasm, c0, c1);
+}
+
+/** fillRfMaps from the parts it reads (a helper thread gets these, not the plan): classes c0 … c1−1 of every pulse into `maps`. */
+export function fillRfMapsOf(rf: RfSpec, maps: Float64Array, classes: number, wasm: boolean, c0: number, c1: number): void {
+  const { classW, classDf, classR1, classR2, pulses } = rf;
   if (c1 <= c0) return;
   const f = new Float64Array(c1 - c0);
   for (let pi = 0; pi < pulses.length; pi++) {
     const p = pulses[pi]!;
     for (let c = c0; c < c1; c++) f[c - c0] = GAMMA_BAR * p.gradient * classW[c]! + classDf[c]!;
-    rfAffineMany(plan.rfMaps, (pi * plan.classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA, plan.wasm);
+    rfAffineMany(maps, (pi * classes + c0) * 12, c1 - c0, f, classR1.subarray(c0, c1), classR2.subarray(c0, c1), p.b1re, p.b1im, p.dt, GAMMA, wasm);
   }
 }
 
