@@ -350,7 +350,7 @@ class ReadViews {
     const { NA, Mu, L, zCols } = this.setup, zStride = 2 * NA * zCols, parts = this.rd.parts;
     const q = Math.floor(j / parts), p = j - q * parts;
     const Zq = Array.from({ length: L }, (_, l) => this.Z.subarray((q * L + l) * zStride, (q * L + l + 1) * zStride));
-    this.zt.fill(0);
+    // zt came zeroed (readStep) and readAxis writes only the used read columns, the same for every job of the run
     readAxis(Zq, NA, Mu, this.rd.ns, this.BL, this.colIdx, this.dft, this.zt, this.lines[q]!, this.usedA, this.setup.wasm, readPartStart(p, parts, NA, L), readPartStart(p + 1, parts, NA, L));
   }
 
