@@ -138,7 +138,9 @@ export class CellStream {
     const occurs = new Uint8Array(nz);
     this.fsum = new Float64Array(nz);
     this.oneTissue = new Uint8Array(cells.columns);
-    cellPass(cells, T, D2, ctx.pd, occurs, this.fsum, this.oneTissue);
+    this.colTi = new Int32Array(cells.columns);
+    this.colFp = new Float64Array(cells.columns);
+    cellPass(cells, T, D2, ctx.pd, occurs, this.fsum, this.oneTissue, this.colTi, this.colFp);
     const terms = Array.from({ length: T }, (_, ti) => Array.from({ length: D2 }, (_, sub) => (ctx.assign[ti]![sub] ? cellTerms(ctx, ti, sub) : null)));
     const index = new Map<string, number>();
     const cw: number[] = [], cdf: number[] = [], cr1: number[] = [], cr2: number[] = [];
@@ -232,6 +234,9 @@ export class CellStream {
   /** Per combination z of (w, tissue, sub-assignment): Σ |pd·fraction| of its entries, in column and entry order (cellPass). */
   private readonly fsum: Float64Array;
   private readonly oneTissue: Uint8Array;
+  /** Per column, its first entry's tissue and pd·fraction (the whole column's where oneTissue: read in column order, not from the entries). */
+  private readonly colTi: Int32Array;
+  private readonly colFp: Float64Array;
 
   /**
    * Per column, 1 where it is one tissue at one fraction through every w (nw
@@ -362,14 +367,14 @@ export class CellStream {
     this.termTol = tol;
     // with sensitivities, a column of one tissue folds every coil's moment sums on the SIMD kernel where it runs
     const fm = hasSens ? FoldMoments.make(full.map((f) => f.mom), coils, nw, W, L, plan.wasm) : null;
-    const oneTissue = this.oneTissueColumns();
+    const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
     return (c0, c1, aBase, XB, track) => {
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
       let nt = 0;
       const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
       let uniform = oneTissue[col] === 1;
-      if (uniform) uniform = complete[cells.entTissue[e0]! * D2 + sub] === 1;
+      if (uniform) uniform = complete[colTi[col]! * D2 + sub] === 1;
       const a = cells.colA[col]!, b = cells.colB[col]!;
       const ur = preU[2 * a]!, ui = preU[2 * a + 1]!, vr = preV[2 * b]!, vi = preV[2 * b + 1]!;
       const pr0 = ur * vr - ui * vi, pi0 = ur * vi + ui * vr;
@@ -387,7 +392,7 @@ export class CellStream {
       }
       if (onColumn) onColumn(col, S, mom);
       if (uniform) {
-        const ti = cells.entTissue[e0]!, fp = pd[ti]! * cells.entFrac[e0]!, tab = full[ti * D2 + sub]!;
+        const ti = colTi[col]!, fp = colFp[col]!, tab = full[ti * D2 + sub]!;
         if (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           // the SIMD kernel writes the position's whole run (below); the other sums are added into it
@@ -617,7 +622,7 @@ export class CellStream {
       // the uniform columns' sums on the SIMD kernel where it runs (Ym as its tables, one row of NS samples)
       const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS, setup.wasm) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
-      const oneTissue = this.oneTissueColumns();
+      const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated now
         let S: Float64Array | null = null;
@@ -628,10 +633,10 @@ export class CellStream {
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
         let uniform = oneTissue[col] === 1;
-        if (uniform) uniform = Y[cells.entTissue[e0]! * D2 + sub] !== null;
+        if (uniform) uniform = Y[colTi[col]! * D2 + sub] !== null;
         const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
         if (uniform) {
-          const ti = cells.entTissue[e0]!, z = ti * D2 + sub, fp = pd[ti]! * cells.entFrac[e0]!;
+          const ti = colTi[col]!, z = ti * D2 + sub, fp = colFp[col]!;
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             if (!S) {
               // one coil: fp × the tissue's samples summed through the slice (regrouped per read position where the estimate can)
@@ -971,14 +976,16 @@ function addMoments3(
  * combinations z = (w·T + tissue)·D2 + sub occur, each one's Σ |pd·fraction|
  * (added in column and entry order: classInfo's magnetization), and per column
  * whether it is one tissue at one fraction through every w in w order
- * (oneTissueColumns).
+ * (oneTissueColumns), with its first entry's tissue and pd·fraction.
  */
-function cellPass(cells: IsochromatCells, T: number, D2: number, pd: ArrayLike<number>, occurs: Uint8Array, fsum: Float64Array, one: Uint8Array): void {
+function cellPass(cells: IsochromatCells, T: number, D2: number, pd: ArrayLike<number>, occurs: Uint8Array, fsum: Float64Array, one: Uint8Array, colTi: Int32Array, colFp: Float64Array): void {
   const { entStart, entTissue, entW, entFrac, colSub } = cells, nw = cells.wGrid.length, cols = cells.columns;
   for (let col = 0; col < cols; col++) {
     const sub = colSub[col]!, e0 = entStart[col]!, e1 = entStart[col + 1]!;
     if (e1 === e0) continue;
     const ti0 = entTissue[e0]!, fr0 = entFrac[e0]!;
+    colTi[col] = ti0;
+    colFp[col] = pd[ti0]! * fr0;
     let same = e1 - e0 === nw;
     for (let e = e0; e < e1; e++) {
       const ti = entTissue[e]!, w = entW[e]!, fr = entFrac[e]!, z = (w * T + ti) * D2 + sub;
