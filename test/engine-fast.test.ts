@@ -144,6 +144,38 @@ describe("fast readout operator against the direct operator", () => {
   }, 60_000);
 });
 
+describe("skipped (rank, segment) pairs", () => {
+  // The pairs of least bound are skipped while their bounds add up to tolerance/split of the rank-0 k-space's
+  // norm. Each bound is max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval), so the skipped part's norm is at most
+  // their sum (triangle inequality). The slow computation: every pair transformed (skipping off).
+  test("the skipped part of k-space is within the reported sum of bounds, itself within tolerance/split of k-space", async () => {
+    const { setPairSkipping } = await import("../src/engine/fast.js");
+    const p = prep(["matrix.read=48", "matrix.phase=48"], { iso: { density: 2, sliceCount: 6, t2primeIsochromats: 8 } });
+    const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const };
+    const skipping = simulateSerial(p.seq, p.iso, o);
+    const was = setPairSkipping(false);
+    let every;
+    try {
+      every = simulateSerial(p.seq, p.iso, o);
+    } finally {
+      setPairSkipping(was);
+    }
+    const ps = skipping.readout.pairs!, pe = every.readout.pairs!;
+    expect(ps.skipped).toBeGreaterThan(0);
+    expect(pe.skipped).toBe(0);
+    expect(pe.transformed).toBe(ps.transformed + ps.skipped);
+    let d2 = 0, k2 = 0;
+    for (let i = 0; i < every.kspace.re.length; i++) {
+      d2 += (skipping.kspace.re[i]! - every.kspace.re[i]!) ** 2 + (skipping.kspace.im[i]! - every.kspace.im[i]!) ** 2;
+      k2 += every.kspace.re[i]! ** 2 + every.kspace.im[i]! ** 2;
+    }
+    expect(Math.sqrt(d2)).toBeGreaterThan(0);
+    expect(Math.sqrt(d2)).toBeLessThanOrEqual(ps.skippedBound);
+    // the budget is tolerance/split of the rank-0 part's norm; rank 0 holds nearly all of k-space here
+    expect(ps.skippedBound).toBeLessThanOrEqual(1.05 * (1e-6 / skipping.readout.split!) * Math.sqrt(k2));
+  }, 60_000);
+});
+
 describe("pivoted Gram–Schmidt basis", () => {
   test("reproduces rank-2 columns exactly with 2 vectors and stops at the tolerance", () => {
     // columns c·u + (c²)·w of two fixed vectors: rank 2 (linear algebra, exact)

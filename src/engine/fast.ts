@@ -181,6 +181,15 @@ export function fillRfMapsShared(plan: EnginePlan, allowHelper: boolean): void {
 
 let rfSplit: "none" | "main" | "helper" = "none";
 
+let pairSkipping = true;
+
+/** Switches the skipping of (rank, segment) pairs off (tests: every pair transformed, the slow sum the skipping is checked against); returns the previous setting. */
+export function setPairSkipping(on: boolean): boolean {
+  const was = pairSkipping;
+  pairSkipping = on;
+  return was;
+}
+
 /** Who filled the upper half of the last run's RF maps (fillRfMapsShared; for tests): not split, the main thread after all, or the helper. */
 export function lastRfSplit(): "none" | "main" | "helper" {
   return rfSplit;
@@ -843,22 +852,27 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     const v = lines0 ? lines0[q]! : lines;
     for (let k = 0; k < NA; k++) n2k += sumSquares(v.subarray(2 * k * ns, 2 * (k + 1) * ns));
   }
-  const budget = ((tolerance / split) * Math.sqrt(n2k)) / Math.max(1, (R - 1) * L * coils);
-  const list: { x: number; r: number; q: number; l: number }[] = [];
+  // the pairs of least bound are skipped while their bounds add up to at most tolerance/split of the rank-0
+  // k-space's norm (by the triangle inequality, the skipped part's norm is within that): the guarantee of an
+  // equal share per pair, spent where the bounds are smallest (ties in pair order, so the choice is the same on any machine)
+  const budget = (tolerance / split) * Math.sqrt(n2k);
+  const pairs: { x: number; r: number; q: number; l: number; bound: number }[] = [];
   for (let r = 1; r < R; r++) {
     for (let q = 0; q < coils; q++) {
       for (let l = 0; l < L; l++) {
         const x = (r * coils + q) * L + l;
-        const bound = maxA[r]! * maxB[l]! * Math.sqrt(grid * n2[x]!);
-        if (bound <= budget) {
-          skipped++;
-          skippedBound += bound;
-          continue;
-        }
-        list.push({ x, r, q, l });
+        pairs.push({ x, r, q, l, bound: maxA[r]! * maxB[l]! * Math.sqrt(grid * n2[x]!) });
       }
     }
   }
+  const skip = new Uint8Array(NX);
+  for (const p of pairSkipping ? pairs.slice().sort((a, b) => a.bound - b.bound || a.x - b.x) : []) {
+    if (!(skippedBound + p.bound <= budget)) break;
+    skip[p.x] = 1;
+    skipped++;
+    skippedBound += p.bound;
+  }
+  const list = pairs.filter((p) => skip[p.x] === 0).map(({ x, r, q, l }) => ({ x, r, q, l }));
   if (list.length > 0) {
     setList(list);
     for (const blk of blocks) foldTransform(blk);
