@@ -176,6 +176,28 @@ describe("skipped (rank, segment) pairs", () => {
   }, 60_000);
 });
 
+describe("class playback in one pass per TR (setFusedHistory)", () => {
+  // a TR's ops (pulse, free interval, readout, spoil, relaxation; or pulse, spoil, relaxation for a dummy scan)
+  // played in one pass over the classes: the op-by-op playback is the oracle, bit for bit
+  test("the same k-space bits as the op-by-op playback, with dummy scans and readouts", async () => {
+    const { setFusedHistory } = await import("../src/engine/fast.js");
+    const p = prep(["matrix.read=24", "matrix.phase=24"], { b0: "300 * x", iso: { density: 2, t2primeIsochromats: 4 } });
+    const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const };
+    const fused = simulateSerial(p.seq, p.iso, o);
+    const was = setFusedHistory(false);
+    let plain;
+    try {
+      plain = simulateSerial(p.seq, p.iso, o);
+    } finally {
+      setFusedHistory(was);
+    }
+    expect(fused.readout.operator).toBe("fast");
+    expect(fused.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(Buffer.from(fused.kspace.re.buffer).equals(Buffer.from(plain.kspace.re.buffer))).toBe(true);
+    expect(Buffer.from(fused.kspace.im.buffer).equals(Buffer.from(plain.kspace.im.buffer))).toBe(true);
+  }, 60_000);
+});
+
 describe("pivoted Gram–Schmidt basis", () => {
   test("reproduces rank-2 columns exactly with 2 vectors and stops at the tolerance", () => {
     // columns c·u + (c²)·w of two fixed vectors: rank 2 (linear algebra, exact)

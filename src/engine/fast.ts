@@ -419,7 +419,34 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
   const freeQ = new Map<number, Float64Array>();
   let active = false;
   // the loops over the classes in small functions (V8 optimises them; here they would stay in this body)
-  for (const op of plan.ops) {
+  const ops = plan.ops;
+  for (let i = 0; i < ops.length; i++) {
+    const op = ops[i]!;
+    // a TR's usual ops in one pass over the classes (each class gets the same operations in the same order)
+    if (op.kind === "rf" && fusedHistory) {
+      const a = ops[i + 1], b = ops[i + 2], c = ops[i + 3], d = ops[i + 4];
+      if (a?.kind === "spoil" && b?.kind === "relax") {
+        // a TR without a readout (a dummy scan): the pulse's Mz, then its relaxation
+        rfSpoilRelax(maps, op.mapOffset, C, mz, E1[b.durationIndex]!);
+        active = false;
+        i += 2;
+        continue;
+      }
+      if (a?.kind === "free" && b?.kind === "adc" && c?.kind === "spoil" && d?.kind === "relax") {
+        const key = a.durationIndex * tab.length + a.sliceTable;
+        let q = freeQ.get(key);
+        if (!q) {
+          q = freeFactors(D[a.durationIndex]!, tab, a.sliceTable, iw2, C);
+          freeQ.set(key, q);
+        }
+        const n = adcs.length, blk = adcBlocks[n]!;
+        adcs.push({ op: b, area: blk.area, step: blk.step, dwell: blk.dwell, active: true });
+        rfReadoutRelax(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase, E1[a.durationIndex]!, q, P, 2 * n * C, E1[d.durationIndex]!);
+        active = false;
+        i += 4;
+        continue;
+      }
+    }
     switch (op.kind) {
       case "rf":
         rfClasses(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase);
@@ -452,6 +479,50 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
     }
   }
   return { adcs, P, classIw, mass };
+}
+
+/**
+ * rfClasses, then an ideal spoil and relaxClasses, in one pass: per class the same operations in the same
+ * order (the transverse values the pulse makes are spoiled before any readout, so they are not kept).
+ */
+function rfSpoilRelax(maps: Float64Array, mapOffset: number, C: number, mz: Float64Array, e1: Float64Array): void {
+  for (let c = 0; c < C; c++) {
+    const b = mapOffset + c * 12, m = maps[b + 8]! * mz[c]! + maps[b + 11]!;
+    mz[c] = m * e1[c]! + (1 - e1[c]!);
+  }
+}
+
+/**
+ * rfClasses, a free interval (relaxClasses with e1a, rotateClasses by q), the readout (storeClasses at o),
+ * an ideal spoil and relaxClasses with e1b, in one pass: per class the same operations in the same order.
+ */
+function rfReadoutRelax(
+  maps: Float64Array, mapOffset: number, C: number, mz: Float64Array, pr: Float64Array, pi: Float64Array, cp: number, sp: number,
+  e1a: Float64Array, q: Float64Array, P: Float64Array, o: number, e1b: Float64Array,
+): void {
+  for (let c = 0; c < C; c++) {
+    const b = mapOffset + c * 12, z = mz[c]!;
+    const x = maps[b + 2]! * z + maps[b + 9]!, y = maps[b + 5]! * z + maps[b + 10]!;
+    const m = maps[b + 8]! * z + maps[b + 11]!;
+    const r0 = x * cp - y * sp, i0 = x * sp + y * cp;
+    const m1 = m * e1a[c]! + (1 - e1a[c]!);
+    const qr = q[2 * c]!, qi = q[2 * c + 1]!;
+    const r1 = r0 * qr - i0 * qi, i1 = r0 * qi + i0 * qr;
+    P[o + 2 * c] = r1;
+    P[o + 2 * c + 1] = i1;
+    pr[c] = r1;
+    pi[c] = i1;
+    mz[c] = m1 * e1b[c]! + (1 - e1b[c]!);
+  }
+}
+
+let fusedHistory = true;
+
+/** Switches the one-pass TRs of the class playback off (tests: the op-by-op playback, the same bits); returns the previous setting. */
+export function setFusedHistory(on: boolean): boolean {
+  const was = fusedHistory;
+  fusedHistory = on;
+  return was;
 }
 
 /** An RF pulse on every class: its affine map of (0, 0, Mz) (no transverse state before a pulse of an ideally spoiled sequence), then the pulse phase. */
