@@ -165,8 +165,8 @@ interface Sampling {
 
 const BOXES = new WeakMap<Phantom, Float64Array>();
 
-/** Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1. */
-function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
+/** The shapes' bounding boxes (x0, x1, y0, y1, z0, z1 per shape), made once per phantom. */
+function shapeBoxes(ph: Phantom): Float64Array {
   let box = BOXES.get(ph);
   if (!box) {
     box = new Float64Array(ph.shapes.length * 6);
@@ -176,6 +176,11 @@ function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
     });
     BOXES.set(ph, box);
   }
+  return box;
+}
+
+/** Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1; `box` = shapeBoxes(ph). */
+function ownerIn(ph: Phantom, box: Float64Array, x: number, y: number, z: number): number {
   for (let s = ph.shapes.length - 1; s >= 0; s--) {
     const o = s * 6;
     if (x < box[o]! || x > box[o + 1]! || y < box[o + 2]! || y > box[o + 3]! || z < box[o + 4]! || z > box[o + 5]!) continue;
@@ -183,6 +188,120 @@ function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
     if (sh.contains(x, y, z)) return ph.tissues[sh.tissue]!.pd > 0 ? s : -1;
   }
   return -1;
+}
+
+/** Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1. */
+function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
+  return ownerIn(ph, shapeBoxes(ph), x, y, z);
+}
+
+/** Where the signal of one shape leaving the acquired FOV on one side lands (see FoldedShape). */
+type Acc = { lo: number; hi: number; beyond: number; roi: number; rows: Set<number> };
+
+/** What {@link scanSlab} reads. */
+interface SlabScanInput {
+  ph: Phantom;
+  axes: Axes;
+  planes: SlabPlane[];
+  u0: number;
+  u1: number;
+  v0: number;
+  v1: number;
+  hu: number;
+  hv: number;
+  dx: number;
+  dy: number;
+  /** Acquired (L) and displayed (M) points along phase and read; the receiver filter's state; the shim (Hz). */
+  Lp: number;
+  Lr: number;
+  Mp: number;
+  Mr: number;
+  filter: boolean;
+  shim: number;
+  /** Whether a point (logical u, v in the plane at w) lies in the ROI. */
+  inRoi: (u: number, v: number, w: number) => boolean;
+}
+
+/**
+ * checkProtocol's one pass over the sampled points of the imaged slab: the
+ * tissues present, the signal's extent and off-resonance, and where signal
+ * beyond the acquired FOV folds (per shape and side). A function of its own,
+ * so that the optimised code of this, the only hot loop of the check, stays
+ * valid from run to run.
+ */
+function scanSlab(g: SlabScanInput) {
+  const { ph, axes, planes, u0, u1, v0, v1, hu, hv, dx, dy, Lp, Lr, Mp, Mr, inRoi } = g;
+  const fOn = g.filter;
+  const box = shapeBoxes(ph);
+  const tissuesPresent = new Set<number>();
+  let vMin = Infinity, vMax = -Infinity, uMin = Infinity, uMax = -Infinity;
+  let vMinAt: [number, number] = [0, 0], vMaxAt: [number, number] = [0, 0];
+  let dfMin = Infinity, dfMax = -Infinity, dfSum = 0, nSig = 0;
+  const phaseAcc = new Map<number, Acc>(), readAcc = new Map<number, Acc>();
+  const phaseRows = new Set<number>(), readRows = new Set<number>();
+  let phaseRoi = 0, readRoi = 0;
+  const filterDim = new Set<number>();
+  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/readout.ts, receiverFilter)
+  const filterEdgePx = 0.42 * Lr;
+  // key: 2·shape + (1 when leaving toward the positive side)
+  const acc = (m: Map<number, Acc>, key: number): Acc => {
+    let a = m.get(key);
+    if (!a) { a = { lo: Infinity, hi: -Infinity, beyond: 0, roi: 0, rows: new Set() }; m.set(key, a); }
+    return a;
+  };
+  const nu = Math.max(1, Math.ceil((u1 - u0) / hu)), nv = Math.max(1, Math.ceil((v1 - v0) / hv));
+  const cellPx = (hu * hv) / (dx * dy) / planes.length;
+  const xyz = new Float64Array(3);
+  const edgeHiP = Lp - Math.floor(Lp / 2) - 0.5, edgeLoP = -Math.floor(Lp / 2) - 0.5;
+  const edgeHiR = Lr - Math.floor(Lr / 2) - 0.5, edgeLoR = -Math.floor(Lr / 2) - 0.5;
+  const b0 = ph.b0, shim = g.shim;
+  for (const pl of planes) {
+    for (let j = 0; j <= nv; j++) {
+      const v = v0 + Math.min(j * hv, v1 - v0);
+      for (let i = 0; i <= nu; i++) {
+        const u = u0 + Math.min(i * hu, u1 - u0);
+        toPhysical(axes, u, v, pl.w, xyz);
+        const s = ownerIn(ph, box, xyz[0]!, xyz[1]!, xyz[2]!);
+        if (s < 0) continue;
+        const sh = ph.shapes[s]!;
+        tissuesPresent.add(sh.tissue);
+        if (v < vMin) { vMin = v; vMinAt = [u, pl.w]; }
+        if (v > vMax) { vMax = v; vMaxAt = [u, pl.w]; }
+        uMin = Math.min(uMin, u); uMax = Math.max(uMax, u);
+        const df = (b0 ? b0(xyz[0]!, xyz[1]!, xyz[2]!) : 0) + shim;
+        dfMin = Math.min(dfMin, df); dfMax = Math.max(dfMax, df); dfSum += df; nSig++;
+        // phase
+        const pv = v / dy;
+        if (!insideAcquired(pv, Lp)) {
+          const a = acc(phaseAcc, 2 * s + (pv > 0 ? 1 : 0));
+          a.beyond = Math.max(a.beyond, pv > 0 ? (pv - edgeHiP) * dy : (edgeLoP - pv) * dy);
+          const f = foldPx(pv, Lp);
+          if (insideDisplayed(f, Mp)) {
+            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
+            const row = Math.round(displayedIndex(f, Mp));
+            a.rows.add(row); phaseRows.add(row);
+            if (inRoi(u, f * dy, pl.w)) { a.roi += cellPx; phaseRoi += cellPx; }
+          }
+        }
+        // read (folds only without the receiver filter)
+        const pu = u / dx;
+        if (!fOn && !insideAcquired(pu, Lr)) {
+          const a = acc(readAcc, 2 * s + (pu > 0 ? 1 : 0));
+          a.beyond = Math.max(a.beyond, pu > 0 ? (pu - edgeHiR) * dx : (edgeLoR - pu) * dx);
+          const f = foldPx(pu, Lr);
+          if (insideDisplayed(f, Mr)) {
+            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
+            const col = Math.round(displayedIndex(f, Mr));
+            a.rows.add(col); readRows.add(col);
+            if (inRoi(f * dx, v, pl.w)) { a.roi += cellPx; readRoi += cellPx; }
+          }
+        } else if (fOn && Math.abs(pu) > filterEdgePx && insideDisplayed(pu, Mr)) {
+          filterDim.add(Math.round(displayedIndex(pu, Mr)));
+        }
+      }
+    }
+  }
+  return { tissuesPresent, vMin, vMax, vMinAt, vMaxAt, uMin, uMax, dfMin, dfMax, dfSum, nSig, phaseAcc, readAcc, phaseRows, readRows, phaseRoi, readRoi, filterDim };
 }
 
 /**
@@ -270,76 +389,14 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   }
 
   // ---- one pass over the sampled points ----
-  const nS = ph.shapes.length;
-  const tissuesPresent = new Set<number>();
-  let vMin = Infinity, vMax = -Infinity, uMin = Infinity, uMax = -Infinity;
-  let vMinAt: [number, number] = [0, 0], vMaxAt: [number, number] = [0, 0];
-  let dfMin = Infinity, dfMax = -Infinity, dfSum = 0, nSig = 0;
-  type Acc = { lo: number; hi: number; beyond: number; roi: number; rows: Set<number> };
-  const phaseAcc = new Map<number, Acc>(), readAcc = new Map<number, Acc>();
-  const phaseRows = new Set<number>(), readRows = new Set<number>();
-  let phaseRoi = 0, readRoi = 0;
-  const filterDim = new Set<number>();
+  const slab = scanSlab({
+    ph, axes, planes, u0, u1, v0, v1, hu, hv, dx, dy, Lp, Lr, Mp, Mr, filter: p.receiverFilter, shim: p.shim, inRoi,
+  });
+  const { tissuesPresent, uMin, uMax, dfMin, dfMax, dfSum, nSig, phaseAcc, readAcc, phaseRows, readRows, phaseRoi, readRoi, filterDim } = slab;
+  let { vMin, vMax } = slab;
+  const { vMinAt, vMaxAt } = slab;
   const fOn = p.receiverFilter;
-  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/readout.ts, receiverFilter)
-  const filterEdgePx = 0.42 * Lr;
-  // key: 2·shape + (1 when leaving toward the positive side)
-  const acc = (m: Map<number, Acc>, key: number): Acc => {
-    let a = m.get(key);
-    if (!a) { a = { lo: Infinity, hi: -Infinity, beyond: 0, roi: 0, rows: new Set() }; m.set(key, a); }
-    return a;
-  };
-  const nu = Math.max(1, Math.ceil((u1 - u0) / hu)), nv = Math.max(1, Math.ceil((v1 - v0) / hv));
-  const cellPx = (hu * hv) / (dx * dy) / planes.length;
   const xyz = [0, 0, 0];
-  const edgeHiP = Lp - Math.floor(Lp / 2) - 0.5, edgeLoP = -Math.floor(Lp / 2) - 0.5;
-  const edgeHiR = Lr - Math.floor(Lr / 2) - 0.5, edgeLoR = -Math.floor(Lr / 2) - 0.5;
-  for (const pl of planes) {
-    for (let j = 0; j <= nv; j++) {
-      const v = v0 + Math.min(j * hv, v1 - v0);
-      for (let i = 0; i <= nu; i++) {
-        const u = u0 + Math.min(i * hu, u1 - u0);
-        toPhysical(axes, u, v, pl.w, xyz);
-        const s = ownerAt(ph, xyz[0]!, xyz[1]!, xyz[2]!);
-        if (s < 0) continue;
-        const sh = ph.shapes[s]!;
-        tissuesPresent.add(sh.tissue);
-        if (v < vMin) { vMin = v; vMinAt = [u, pl.w]; }
-        if (v > vMax) { vMax = v; vMaxAt = [u, pl.w]; }
-        uMin = Math.min(uMin, u); uMax = Math.max(uMax, u);
-        const df = (ph.b0 ? ph.b0(xyz[0]!, xyz[1]!, xyz[2]!) : 0) + p.shim;
-        dfMin = Math.min(dfMin, df); dfMax = Math.max(dfMax, df); dfSum += df; nSig++;
-        // phase
-        const pv = v / dy;
-        if (!insideAcquired(pv, Lp)) {
-          const a = acc(phaseAcc, 2 * s + (pv > 0 ? 1 : 0));
-          a.beyond = Math.max(a.beyond, pv > 0 ? (pv - edgeHiP) * dy : (edgeLoP - pv) * dy);
-          const f = foldPx(pv, Lp);
-          if (insideDisplayed(f, Mp)) {
-            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
-            const row = Math.round(displayedIndex(f, Mp));
-            a.rows.add(row); phaseRows.add(row);
-            if (inRoi(u, f * dy, pl.w)) { a.roi += cellPx; phaseRoi += cellPx; }
-          }
-        }
-        // read (folds only without the receiver filter)
-        const pu = u / dx;
-        if (!fOn && !insideAcquired(pu, Lr)) {
-          const a = acc(readAcc, 2 * s + (pu > 0 ? 1 : 0));
-          a.beyond = Math.max(a.beyond, pu > 0 ? (pu - edgeHiR) * dx : (edgeLoR - pu) * dx);
-          const f = foldPx(pu, Lr);
-          if (insideDisplayed(f, Mr)) {
-            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
-            const col = Math.round(displayedIndex(f, Mr));
-            a.rows.add(col); readRows.add(col);
-            if (inRoi(f * dx, v, pl.w)) { a.roi += cellPx; readRoi += cellPx; }
-          }
-        } else if (fOn && Math.abs(pu) > filterEdgePx && insideDisplayed(pu, Mr)) {
-          filterDim.add(Math.round(displayedIndex(pu, Mr)));
-        }
-      }
-    }
-  }
   if (nSig === 0) {
     throw new UserError(`no part of the phantom with signal lies in the imaged ${threeD ? "slab" : "slice"} at ${mm(p.slice.position)}; move slice.position`);
   }
