@@ -20,7 +20,7 @@
  * Isochromats sharing an in-plane grid position (a column) are contiguous.
  */
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
-import { cellContents, cellUniform, phantomBounds, type Phantom } from "../phantom/index.js";
+import { phantomBounds, shapeCellContents, shapeCellUniform, type Phantom, type Shape } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
@@ -294,29 +294,44 @@ class GrowFloat64 {
   }
 }
 
-/** What {@link sampleGrid} reads: the grid, the logical axes, the cell edges (m) and per-tissue tables as typed arrays. */
-interface GridInput {
-  ph: Phantom;
-  uGrid: Float64Array;
-  vGrid: Float64Array;
-  wGrid: Float64Array;
-  read: Float64Array;
-  phase: Float64Array;
-  slice: Float64Array;
-  e1: Float64Array;
-  e2: Float64Array;
-  e3: Float64Array;
-  /** Grid index of uGrid[0] and vGrid[0] (a column's place in its voxel follows from them), isochromats per voxel edge. */
-  iu0: number;
-  iv0: number;
-  d: number;
-  sliceInvariant: boolean;
-  wWeight: number;
-  /** Per tissue: PD; spectral peak amplitudes peakAmp[peakStart[t] … peakStart[t+1]−1]; T2′ bins at voxel place s binCount[t·d² + s]. */
-  pd: Float64Array;
-  peakStart: Int32Array;
-  peakAmp: Float64Array;
-  binCount: Int32Array;
+/**
+ * What {@link sampleGrid} reads: the grid, the logical axes, the cell edges (m) and per-tissue tables, as
+ * typed arrays and the phantom's Shape objects (a class: the loop's code then sees the same V8 maps in every
+ * run, where an object literal made per run may get a new map and send the code back to be compiled again).
+ */
+class GridInput {
+  constructor(
+    readonly shapes: Shape[],
+    readonly uGrid: Float64Array,
+    readonly vGrid: Float64Array,
+    readonly wGrid: Float64Array,
+    /** Logical read, phase and slice axes (RAS+ unit vectors), 3 numbers each. */
+    readonly read: Float64Array,
+    readonly phase: Float64Array,
+    readonly slice: Float64Array,
+    readonly e1: Float64Array,
+    readonly e2: Float64Array,
+    readonly e3: Float64Array,
+    /** Grid index of uGrid[0] and vGrid[0] (a column's place in its voxel follows from them), isochromats per voxel edge. */
+    readonly iu0: number,
+    readonly iv0: number,
+    readonly d: number,
+    readonly sliceInvariant: boolean,
+    readonly wWeight: number,
+    /** Per tissue: PD; spectral peak amplitudes peakAmp[peakStart[t] … peakStart[t+1]−1]; T2′ bins at voxel place s binCount[t·d² + s]. */
+    readonly pd: Float64Array,
+    readonly peakStart: Int32Array,
+    readonly peakAmp: Float64Array,
+    readonly binCount: Int32Array,
+  ) {}
+}
+
+/** What {@link sampleGrid} makes: the columns and their entries (see IsochromatCells). */
+class GridCells {
+  constructor(
+    readonly count: number, readonly colA: Int32Array, readonly colB: Int32Array, readonly colSub: Int32Array, readonly colStart: Int32Array,
+    readonly entStart: Int32Array, readonly entW: Int32Array, readonly entTissue: Int32Array, readonly entFrac: Float64Array,
+  ) {}
 }
 
 /**
@@ -324,15 +339,11 @@ interface GridInput {
  * (a slice-invariant phantom: the first cell's entries repeated at every w). Tiles of TILE × TILE columns
  * at one w are classified once (cells.ts cellUniform).
  */
-function sampleGrid(g: GridInput): {
-  count: number; colA: Int32Array; colB: Int32Array; colSub: Int32Array; colStart: Int32Array; entStart: Int32Array;
-  entW: Int32Array; entTissue: Int32Array; entFrac: Float64Array;
-} {
-  const { ph, uGrid, vGrid, wGrid, read, phase, slice, e1, e2, e3, iu0, iv0, d, sliceInvariant, wWeight, pd, peakStart, peakAmp, binCount } = g;
+function sampleGrid(g: GridInput): GridCells {
+  const { shapes, uGrid, vGrid, wGrid, read, phase, slice, e1, e2, e3, iu0, iv0, d, sliceInvariant, wWeight, pd, peakStart, peakAmp, binCount } = g;
   const nu = uGrid.length, nv = vGrid.length, nw = wGrid.length, dd = d * d;
   const nT = pd.length;
-  const cell = { tissue: new Int32Array(Math.max(16, nT)), fraction: new Float64Array(Math.max(16, nT)) };
-  const cellTissue = cell.tissue, cellFrac = cell.fraction;
+  const cellTissue = new Int32Array(Math.max(16, nT)), cellFrac = new Float64Array(Math.max(16, nT));
   // Capacities for a full grid (one entry per cell): only the pages written are ever touched,
   // so a generous capacity costs address space, not memory, and saves the copies of growing
   const capCols = Math.max(1024, Math.min(nu * nv + 1, 1 << 24)), capEnt = Math.max(4096, Math.min(nu * nv * nw, 1 << 25));
@@ -389,8 +400,8 @@ function sampleGrid(g: GridInput): {
               e1t[q] = e1[q]! * (a1 - a0);
               e2t[q] = e2[q]! * (b1 - b0);
             }
-            tileOf[ti] = cellUniform(
-              ph,
+            tileOf[ti] = shapeCellUniform(
+              shapes,
               read[0]! * tu + phase[0]! * tv + slice[0]! * w,
               read[1]! * tu + phase[1]! * tv + slice[1]! * w,
               read[2]! * tu + phase[2]! * tv + slice[2]! * w,
@@ -405,12 +416,12 @@ function sampleGrid(g: GridInput): {
           cellTissue[0] = uniform;
           cellFrac[0] = 1;
         } else {
-          n = cellContents(
-            ph,
+          n = shapeCellContents(
+            shapes, nT,
             read[0]! * u + phase[0]! * v + slice[0]! * w,
             read[1]! * u + phase[1]! * v + slice[1]! * w,
             read[2]! * u + phase[2]! * v + slice[2]! * w,
-            e1, e2, e3, cell,
+            e1, e2, e3, cellTissue, cellFrac,
           );
         }
         for (let k = 0; k < n; k++) {
@@ -440,10 +451,7 @@ function sampleGrid(g: GridInput): {
       } else entW.n = entTissue.n = entFrac.n = startEnt;
     }
   }
-  return {
-    count: at, colA: colA.done(), colB: colB.done(), colSub: colSub.done(), colStart: colStart.done(), entStart: entStart.done(),
-    entW: entW.done(), entTissue: entTissue.done(), entFrac: entFrac.done(),
-  };
+  return new GridCells(at, colA.done(), colB.done(), colSub.done(), colStart.done(), entStart.done(), entW.done(), entTissue.done(), entFrac.done());
 }
 
 /**
@@ -542,11 +550,11 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   for (let t = 0; t < nT; t++) peakAmp.set(peaks[t]!.amp, peakStart[t]!);
   const binCount = new Int32Array(nT * dd);
   for (let t = 0; t < nT; t++) for (let s = 0; s < dd; s++) binCount[t * dd + s] = assign[t]![s]!.bins.length;
-  const out = sampleGrid({
-    ph, uGrid, vGrid, wGrid, read: Float64Array.from(axes.read), phase: Float64Array.from(axes.phase), slice: Float64Array.from(axes.slice),
-    e1: Float64Array.from(e1), e2: Float64Array.from(e2), e3: Float64Array.from(e3),
-    iu0, iv0, d, sliceInvariant, wWeight, pd: Float64Array.from(ph.tissues, (t) => t.pd), peakStart, peakAmp, binCount,
-  });
+  const out = sampleGrid(new GridInput(
+    ph.shapes, uGrid, vGrid, wGrid, Float64Array.from(axes.read), Float64Array.from(axes.phase), Float64Array.from(axes.slice),
+    Float64Array.from(e1), Float64Array.from(e2), Float64Array.from(e3),
+    iu0, iv0, d, sliceInvariant, wWeight, Float64Array.from(ph.tissues, (t) => t.pd), peakStart, peakAmp, binCount,
+  ));
   const ctx: CellContext = {
     phantom: ph, axes, offsetHz, wWeight, pd: ph.tissues.map((t) => t.pd), r1: r1Of, r2: r2Of, peaks,
     spreadDf: spreadOf.map((s) => s.df), assign: assign as CellContext["assign"],
