@@ -421,14 +421,20 @@ export function reconstructRuns(seqs: Sequence[], kspaces: KSpace[]): { kspace: 
   return { kspace: stack(kParts), image: stack(iParts) };
 }
 
+/** The largest value of `v` and 0 (a loop of its own: assembleResult, run once per run, is then not compiled for it). */
+function largest(v: Float64Array): number {
+  let max = 0;
+  for (let i = 0; i < v.length; i++) if (v[i]! > max) max = v[i]!;
+  return max;
+}
+
 /** Reconstructs the k-space of every engine run, stacks them and builds the report; shared by simulate and the CLI's merge. */
 export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): SimulateResult {
   const { protocol, phantom } = ctx;
   const seq = ctx.seqs[0]!;
   const { kspace: kv, image: img } = reconstructRuns(ctx.seqs, kspaces);
   const mag = magnitude(img);
-  let max = 0;
-  for (const v of mag) if (v > max) max = v;
+  const max = largest(mag);
   const seconds = (Date.now() - ctx.t0) / 1000;
   const axes = logicalAxes(protocol);
   const ms = slicePositions(protocol);

@@ -278,7 +278,7 @@ async function write(o: RunOptions, r: SimulateResult, t0: number, plots?: PlotR
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     ...checkOverlay(r),
-    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
+    kspace: r.kspace, image: r.image, magnitude: r.magnitude, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };
