@@ -210,8 +210,10 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const remarks = samplingRemarks(phantom, protocol, asked.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
-    const p = { ...protocol, slice: { ...protocol.slice, position } };
-    const seq = buildSequenceOf(p, protocolName);
+    // one slice where the protocol puts it: its sequence is the one built above (the same inputs, so the same object values)
+    const seq = ms.positions.length === 1 && Object.is(position, protocol.slice.position)
+      ? seq0
+      : buildSequenceOf({ ...protocol, slice: { ...protocol.slice, position } }, protocolName);
     if (ms.positions.length > 1 && ms.positions.length * seq.activeTime > protocol.tr + 1e-9) {
       const maxN = Math.floor((protocol.tr + 1e-9) / seq.activeTime);
       throw new UserError(

@@ -42,7 +42,14 @@ export function printWarnings(warnings: readonly string[]): void {
   for (const w of new Set(warnings)) process.stderr.write(`warning: ${w}\n`);
 }
 
+let packageVersion: string | null = null;
+
+/** isofold's version from package.json (read once per process). */
 export function version(): string {
+  return (packageVersion ??= readVersion());
+}
+
+function readVersion(): string {
   const require = createRequire(import.meta.url);
   for (const p of ["../../package.json", "../../../package.json"]) {
     try {
