@@ -97,3 +97,37 @@ describe("truthMaps", () => {
     }
   });
 });
+
+describe("report plots: runtime specifications reused across data", () => {
+  it("a plot that differs from an earlier one only in its values gives the SVG of compiling and parsing it afresh", async () => {
+    const { lineSpec, loadPlotLibraries, runtimeCacheHits, runtimeSpec, vegaLiteSvg } = await import("../src/report/plots.js");
+    const [vega, vl] = await loadPlotLibraries();
+    const direct = async (spec: Record<string, unknown>) => {
+      const view = new vega.View(vega.parse(vl.compile(spec as never).spec), { renderer: "none" });
+      try {
+        return await view.toSVG();
+      } finally {
+        view.finalize();
+      }
+    };
+    const profile = (n: number, k: number, names: string[]) => lineSpec({
+      title: `profile of ${names.length} series`, xTitle: "position (mm)", yTitle: "magnitude (a.u.)",
+      series: names.map((name, s) => ({ name, points: Array.from({ length: n }, (_, c) => ({ x: (c - n / 2) * 0.7, y: s + Math.abs(Math.sin(0.3 * c * k)) * (c % 7 === 0 ? -1 : 1) })) })),
+    });
+    const hits0 = runtimeCacheHits();
+    let served = 0;
+    for (const names of [["image"], ["water", "fat"]]) {
+      for (const n of [12, 256]) {
+        for (const k of [1, 2, 3]) {
+          const spec = profile(n, k, names);
+          // the runtime specification itself: the same as made afresh
+          expect(runtimeSpec(vega, vl, profile(n, k, names))).toEqual(vega.parse(vl.compile(profile(n, k, names) as never).spec));
+          expect(await vegaLiteSvg(spec)).toBe(await direct(profile(n, k, names)));
+          served += 2;
+        }
+      }
+    }
+    // every value set after the first of each shape came from the cache
+    expect(runtimeCacheHits() - hits0).toBe(served - 4);
+  }, 60_000);
+});
