@@ -210,8 +210,10 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const remarks = samplingRemarks(phantom, protocol, asked.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {
-    const p = { ...protocol, slice: { ...protocol.slice, position } };
-    const seq = buildSequenceOf(p, protocolName);
+    // one slice where the protocol puts it: its sequence is the one built above (the same inputs, so the same object values)
+    const seq = ms.positions.length === 1 && Object.is(position, protocol.slice.position)
+      ? seq0
+      : buildSequenceOf({ ...protocol, slice: { ...protocol.slice, position } }, protocolName);
     if (ms.positions.length > 1 && ms.positions.length * seq.activeTime > protocol.tr + 1e-9) {
       const maxN = Math.floor((protocol.tr + 1e-9) / seq.activeTime);
       throw new UserError(
@@ -421,14 +423,20 @@ export function reconstructRuns(seqs: Sequence[], kspaces: KSpace[]): { kspace: 
   return { kspace: stack(kParts), image: stack(iParts) };
 }
 
+/** The largest value of `v` and 0 (a loop of its own: assembleResult, run once per run, is then not compiled for it). */
+function largest(v: Float64Array): number {
+  let max = 0;
+  for (let i = 0; i < v.length; i++) if (v[i]! > max) max = v[i]!;
+  return max;
+}
+
 /** Reconstructs the k-space of every engine run, stacks them and builds the report; shared by simulate and the CLI's merge. */
 export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): SimulateResult {
   const { protocol, phantom } = ctx;
   const seq = ctx.seqs[0]!;
   const { kspace: kv, image: img } = reconstructRuns(ctx.seqs, kspaces);
   const mag = magnitude(img);
-  let max = 0;
-  for (const v of mag) if (v > max) max = v;
+  const max = largest(mag);
   const seconds = (Date.now() - ctx.t0) / 1000;
   const axes = logicalAxes(protocol);
   const ms = slicePositions(protocol);

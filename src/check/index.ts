@@ -163,26 +163,174 @@ interface Sampling {
   planes: SlabPlane[];
 }
 
-const BOXES = new WeakMap<Phantom, Float64Array>();
+/** Per phantom: each shape's bounding box (x0, x1, y0, y1, z0, z1) and whether its tissue has signal (pd > 0). */
+const BOXES = new WeakMap<Phantom, { box: Float64Array; signal: Uint8Array }>();
+
+function shapeBoxes(ph: Phantom): { box: Float64Array; signal: Uint8Array } {
+  let b = BOXES.get(ph);
+  if (!b) {
+    const box = new Float64Array(ph.shapes.length * 6);
+    ph.shapes.forEach((sh, k) => {
+      const bb = sh.bounds();
+      box.set([bb.min[0], bb.max[0], bb.min[1], bb.max[1], bb.min[2], bb.max[2]], k * 6);
+    });
+    b = { box, signal: Uint8Array.from(ph.shapes, (sh) => (ph.tissues[sh.tissue]!.pd > 0 ? 1 : 0)) };
+    BOXES.set(ph, b);
+  }
+  return b;
+}
+
+/**
+ * Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1;
+ * `box` and `signal` from shapeBoxes (arrays only: hot loops keep their optimised code from run to run).
+ */
+function ownerIn(shapes: Shape[], box: Float64Array, signal: Uint8Array, x: number, y: number, z: number): number {
+  for (let s = shapes.length - 1; s >= 0; s--) {
+    const o = s * 6;
+    if (x < box[o]! || x > box[o + 1]! || y < box[o + 2]! || y > box[o + 3]! || z < box[o + 4]! || z > box[o + 5]!) continue;
+    if (shapes[s]!.contains(x, y, z)) return signal[s] === 1 ? s : -1;
+  }
+  return -1;
+}
 
 /** Index of the shape whose tissue gives the signal at a point (later shapes paint over earlier ones), or −1. */
 function ownerAt(ph: Phantom, x: number, y: number, z: number): number {
-  let box = BOXES.get(ph);
-  if (!box) {
-    box = new Float64Array(ph.shapes.length * 6);
-    ph.shapes.forEach((sh, k) => {
-      const b = sh.bounds();
-      box!.set([b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]], k * 6);
-    });
-    BOXES.set(ph, box);
+  const b = shapeBoxes(ph);
+  return ownerIn(ph.shapes, b.box, b.signal, x, y, z);
+}
+
+/** Where the signal of one shape leaving the acquired FOV on one side lands (see FoldedShape). */
+type Acc = { lo: number; hi: number; beyond: number; roi: number; rows: Set<number> };
+
+/**
+ * What {@link scanSlab} reads: numbers, typed arrays, the Shape objects and two functions (a class: the
+ * loop's code sees the same V8 maps in every run, where an object literal made per run may get a new map and
+ * send the code back to be compiled again).
+ */
+class SlabScanInput {
+  constructor(
+    readonly shapes: Shape[],
+    /** shapeBoxes of the phantom. */
+    readonly box: Float64Array,
+    readonly signal: Uint8Array,
+    /** The phantom's B0 model (Hz at a point, m) or null. */
+    readonly b0: ((x: number, y: number, z: number) => number) | null,
+    /** Logical read, phase and slice axes (RAS+ unit vectors) one after another, 9 numbers. */
+    readonly axes: Float64Array,
+    /** Slice-normal coordinate (m) of each sampled plane. */
+    readonly planes: Float64Array,
+    readonly u0: number,
+    readonly u1: number,
+    readonly v0: number,
+    readonly v1: number,
+    readonly hu: number,
+    readonly hv: number,
+    readonly dx: number,
+    readonly dy: number,
+    /** Acquired (L) and displayed (M) points along phase and read; the receiver filter's state; the shim (Hz). */
+    readonly Lp: number,
+    readonly Lr: number,
+    readonly Mp: number,
+    readonly Mr: number,
+    readonly filter: boolean,
+    readonly shim: number,
+    /** Whether a point (logical u, v in the plane at w) lies in the ROI. */
+    readonly inRoi: (u: number, v: number, w: number) => boolean,
+  ) {}
+}
+
+/** What {@link scanSlab} finds (see checkProtocol). */
+class SlabScan {
+  constructor(
+    readonly tissuesPresent: Set<number>,
+    readonly vMin: number, readonly vMax: number, readonly vMinAt: [number, number], readonly vMaxAt: [number, number],
+    readonly uMin: number, readonly uMax: number,
+    readonly dfMin: number, readonly dfMax: number, readonly dfSum: number, readonly nSig: number,
+    readonly phaseAcc: Map<number, Acc>, readonly readAcc: Map<number, Acc>, readonly phaseRows: Set<number>, readonly readRows: Set<number>,
+    readonly phaseRoi: number, readonly readRoi: number, readonly filterDim: Set<number>,
+  ) {}
+}
+
+/**
+ * checkProtocol's one pass over the sampled points of the imaged slab: the
+ * tissues present, the signal's extent and off-resonance, and where signal
+ * beyond the acquired FOV folds (per shape and side). A function of its own,
+ * so that the optimised code of this, the only hot loop of the check, stays
+ * valid from run to run.
+ */
+function scanSlab(g: SlabScanInput): SlabScan {
+  const { shapes, box, signal, axes, planes, u0, u1, v0, v1, hu, hv, dx, dy, Lp, Lr, Mp, Mr, inRoi } = g;
+  const fOn = g.filter;
+  const r0 = axes[0]!, r1 = axes[1]!, r2 = axes[2]!, p0 = axes[3]!, p1 = axes[4]!, p2 = axes[5]!, s0 = axes[6]!, s1 = axes[7]!, s2 = axes[8]!;
+  const tissuesPresent = new Set<number>();
+  let vMin = Infinity, vMax = -Infinity, uMin = Infinity, uMax = -Infinity;
+  let vMinAt: [number, number] = [0, 0], vMaxAt: [number, number] = [0, 0];
+  let dfMin = Infinity, dfMax = -Infinity, dfSum = 0, nSig = 0;
+  const phaseAcc = new Map<number, Acc>(), readAcc = new Map<number, Acc>();
+  const phaseRows = new Set<number>(), readRows = new Set<number>();
+  let phaseRoi = 0, readRoi = 0;
+  const filterDim = new Set<number>();
+  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/readout.ts, receiverFilter)
+  const filterEdgePx = 0.42 * Lr;
+  // key: 2·shape + (1 when leaving toward the positive side)
+  const acc = (m: Map<number, Acc>, key: number): Acc => {
+    let a = m.get(key);
+    if (!a) { a = { lo: Infinity, hi: -Infinity, beyond: 0, roi: 0, rows: new Set() }; m.set(key, a); }
+    return a;
+  };
+  const nu = Math.max(1, Math.ceil((u1 - u0) / hu)), nv = Math.max(1, Math.ceil((v1 - v0) / hv));
+  const cellPx = (hu * hv) / (dx * dy) / planes.length;
+  const edgeHiP = Lp - Math.floor(Lp / 2) - 0.5, edgeLoP = -Math.floor(Lp / 2) - 0.5;
+  const edgeHiR = Lr - Math.floor(Lr / 2) - 0.5, edgeLoR = -Math.floor(Lr / 2) - 0.5;
+  const b0 = g.b0, shim = g.shim;
+  for (let k = 0; k < planes.length; k++) {
+    const w = planes[k]!;
+    for (let j = 0; j <= nv; j++) {
+      const v = v0 + Math.min(j * hv, v1 - v0);
+      for (let i = 0; i <= nu; i++) {
+        const u = u0 + Math.min(i * hu, u1 - u0);
+        // the point's physical position, as toPhysical (protocol/geometry.ts)
+        const x = r0 * u + p0 * v + s0 * w, y = r1 * u + p1 * v + s1 * w, z = r2 * u + p2 * v + s2 * w;
+        const s = ownerIn(shapes, box, signal, x, y, z);
+        if (s < 0) continue;
+        tissuesPresent.add(shapes[s]!.tissue);
+        if (v < vMin) { vMin = v; vMinAt = [u, w]; }
+        if (v > vMax) { vMax = v; vMaxAt = [u, w]; }
+        uMin = Math.min(uMin, u); uMax = Math.max(uMax, u);
+        const df = (b0 ? b0(x, y, z) : 0) + shim;
+        dfMin = Math.min(dfMin, df); dfMax = Math.max(dfMax, df); dfSum += df; nSig++;
+        // phase
+        const pv = v / dy;
+        if (!insideAcquired(pv, Lp)) {
+          const a = acc(phaseAcc, 2 * s + (pv > 0 ? 1 : 0));
+          a.beyond = Math.max(a.beyond, pv > 0 ? (pv - edgeHiP) * dy : (edgeLoP - pv) * dy);
+          const f = foldPx(pv, Lp);
+          if (insideDisplayed(f, Mp)) {
+            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
+            const row = Math.round(displayedIndex(f, Mp));
+            a.rows.add(row); phaseRows.add(row);
+            if (inRoi(u, f * dy, w)) { a.roi += cellPx; phaseRoi += cellPx; }
+          }
+        }
+        // read (folds only without the receiver filter)
+        const pu = u / dx;
+        if (!fOn && !insideAcquired(pu, Lr)) {
+          const a = acc(readAcc, 2 * s + (pu > 0 ? 1 : 0));
+          a.beyond = Math.max(a.beyond, pu > 0 ? (pu - edgeHiR) * dx : (edgeLoR - pu) * dx);
+          const f = foldPx(pu, Lr);
+          if (insideDisplayed(f, Mr)) {
+            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
+            const col = Math.round(displayedIndex(f, Mr));
+            a.rows.add(col); readRows.add(col);
+            if (inRoi(f * dx, v, w)) { a.roi += cellPx; readRoi += cellPx; }
+          }
+        } else if (fOn && Math.abs(pu) > filterEdgePx && insideDisplayed(pu, Mr)) {
+          filterDim.add(Math.round(displayedIndex(pu, Mr)));
+        }
+      }
+    }
   }
-  for (let s = ph.shapes.length - 1; s >= 0; s--) {
-    const o = s * 6;
-    if (x < box[o]! || x > box[o + 1]! || y < box[o + 2]! || y > box[o + 3]! || z < box[o + 4]! || z > box[o + 5]!) continue;
-    const sh = ph.shapes[s]!;
-    if (sh.contains(x, y, z)) return ph.tissues[sh.tissue]!.pd > 0 ? s : -1;
-  }
-  return -1;
+  return new SlabScan(tissuesPresent, vMin, vMax, vMinAt, vMaxAt, uMin, uMax, dfMin, dfMax, dfSum, nSig, phaseAcc, readAcc, phaseRows, readRows, phaseRoi, readRoi, filterDim);
 }
 
 /**
@@ -270,76 +418,16 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   }
 
   // ---- one pass over the sampled points ----
-  const nS = ph.shapes.length;
-  const tissuesPresent = new Set<number>();
-  let vMin = Infinity, vMax = -Infinity, uMin = Infinity, uMax = -Infinity;
-  let vMinAt: [number, number] = [0, 0], vMaxAt: [number, number] = [0, 0];
-  let dfMin = Infinity, dfMax = -Infinity, dfSum = 0, nSig = 0;
-  type Acc = { lo: number; hi: number; beyond: number; roi: number; rows: Set<number> };
-  const phaseAcc = new Map<number, Acc>(), readAcc = new Map<number, Acc>();
-  const phaseRows = new Set<number>(), readRows = new Set<number>();
-  let phaseRoi = 0, readRoi = 0;
-  const filterDim = new Set<number>();
+  const { box, signal } = shapeBoxes(ph);
+  const slab = scanSlab(new SlabScanInput(
+    ph.shapes, box, signal, ph.b0 ?? null, Float64Array.from([...axes.read, ...axes.phase, ...axes.slice]), Float64Array.from(planes, (pl) => pl.w),
+    u0, u1, v0, v1, hu, hv, dx, dy, Lp, Lr, Mp, Mr, p.receiverFilter, p.shim, inRoi,
+  ));
+  const { tissuesPresent, uMin, uMax, dfMin, dfMax, dfSum, nSig, phaseAcc, readAcc, phaseRows, readRows, phaseRoi, readRoi, filterDim } = slab;
+  let { vMin, vMax } = slab;
+  const { vMinAt, vMaxAt } = slab;
   const fOn = p.receiverFilter;
-  // the receiver filter rolls off from 0.42 of the sampled bandwidth (engine/readout.ts, receiverFilter)
-  const filterEdgePx = 0.42 * Lr;
-  // key: 2·shape + (1 when leaving toward the positive side)
-  const acc = (m: Map<number, Acc>, key: number): Acc => {
-    let a = m.get(key);
-    if (!a) { a = { lo: Infinity, hi: -Infinity, beyond: 0, roi: 0, rows: new Set() }; m.set(key, a); }
-    return a;
-  };
-  const nu = Math.max(1, Math.ceil((u1 - u0) / hu)), nv = Math.max(1, Math.ceil((v1 - v0) / hv));
-  const cellPx = (hu * hv) / (dx * dy) / planes.length;
   const xyz = [0, 0, 0];
-  const edgeHiP = Lp - Math.floor(Lp / 2) - 0.5, edgeLoP = -Math.floor(Lp / 2) - 0.5;
-  const edgeHiR = Lr - Math.floor(Lr / 2) - 0.5, edgeLoR = -Math.floor(Lr / 2) - 0.5;
-  for (const pl of planes) {
-    for (let j = 0; j <= nv; j++) {
-      const v = v0 + Math.min(j * hv, v1 - v0);
-      for (let i = 0; i <= nu; i++) {
-        const u = u0 + Math.min(i * hu, u1 - u0);
-        toPhysical(axes, u, v, pl.w, xyz);
-        const s = ownerAt(ph, xyz[0]!, xyz[1]!, xyz[2]!);
-        if (s < 0) continue;
-        const sh = ph.shapes[s]!;
-        tissuesPresent.add(sh.tissue);
-        if (v < vMin) { vMin = v; vMinAt = [u, pl.w]; }
-        if (v > vMax) { vMax = v; vMaxAt = [u, pl.w]; }
-        uMin = Math.min(uMin, u); uMax = Math.max(uMax, u);
-        const df = (ph.b0 ? ph.b0(xyz[0]!, xyz[1]!, xyz[2]!) : 0) + p.shim;
-        dfMin = Math.min(dfMin, df); dfMax = Math.max(dfMax, df); dfSum += df; nSig++;
-        // phase
-        const pv = v / dy;
-        if (!insideAcquired(pv, Lp)) {
-          const a = acc(phaseAcc, 2 * s + (pv > 0 ? 1 : 0));
-          a.beyond = Math.max(a.beyond, pv > 0 ? (pv - edgeHiP) * dy : (edgeLoP - pv) * dy);
-          const f = foldPx(pv, Lp);
-          if (insideDisplayed(f, Mp)) {
-            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
-            const row = Math.round(displayedIndex(f, Mp));
-            a.rows.add(row); phaseRows.add(row);
-            if (inRoi(u, f * dy, pl.w)) { a.roi += cellPx; phaseRoi += cellPx; }
-          }
-        }
-        // read (folds only without the receiver filter)
-        const pu = u / dx;
-        if (!fOn && !insideAcquired(pu, Lr)) {
-          const a = acc(readAcc, 2 * s + (pu > 0 ? 1 : 0));
-          a.beyond = Math.max(a.beyond, pu > 0 ? (pu - edgeHiR) * dx : (edgeLoR - pu) * dx);
-          const f = foldPx(pu, Lr);
-          if (insideDisplayed(f, Mr)) {
-            a.lo = Math.min(a.lo, f); a.hi = Math.max(a.hi, f);
-            const col = Math.round(displayedIndex(f, Mr));
-            a.rows.add(col); readRows.add(col);
-            if (inRoi(f * dx, v, pl.w)) { a.roi += cellPx; readRoi += cellPx; }
-          }
-        } else if (fOn && Math.abs(pu) > filterEdgePx && insideDisplayed(pu, Mr)) {
-          filterDim.add(Math.round(displayedIndex(pu, Mr)));
-        }
-      }
-    }
-  }
   if (nSig === 0) {
     throw new UserError(`no part of the phantom with signal lies in the imaged ${threeD ? "slab" : "slice"} at ${mm(p.slice.position)}; move slice.position`);
   }

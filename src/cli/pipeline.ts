@@ -42,7 +42,14 @@ export function printWarnings(warnings: readonly string[]): void {
   for (const w of new Set(warnings)) process.stderr.write(`warning: ${w}\n`);
 }
 
+let packageVersion: string | null = null;
+
+/** isofold's version from package.json (read once per process). */
 export function version(): string {
+  return (packageVersion ??= readVersion());
+}
+
+function readVersion(): string {
   const require = createRequire(import.meta.url);
   for (const p of ["../../package.json", "../../../package.json"]) {
     try {
@@ -278,7 +285,7 @@ async function write(o: RunOptions, r: SimulateResult, t0: number, plots?: PlotR
     extra: o.truth || r.coilFiles ? new Map([...(o.truth ? truthFiles(r.truth, displayTransform(logicalAxes(p))) : []), ...(r.coilFiles ?? [])]) : undefined,
     fatCentroid: fatCentroid(r.truth, dRead, dPhase),
     ...checkOverlay(r),
-    kspace: r.kspace, image: r.image, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
+    kspace: r.kspace, image: r.image, magnitude: r.magnitude, affine: r.affine, voxelMm: r.voxelMm, report: r.report, plots, started,
   });
   if (!o.keepWarnings) printWarnings(r.warnings);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: r.report };

@@ -182,6 +182,25 @@ export function insertTextChunks(png: Uint8Array, entries: Record<string, string
   return out;
 }
 
+/** The largest finite value, −∞ if none (a loop of its own over a typed array: compiled once for every run). */
+function finiteMax(values: Float64Array): number {
+  let max = -Infinity;
+  for (let i = 0; i < values.length; i++) {
+    const x = values[i]!;
+    if (Number.isFinite(x) && x > max) max = x;
+  }
+  return max;
+}
+
+/** grey[i] = round((values[i] − low)·gain) clamped to 0..255, NaN to 0 (typed arrays only: compiled once for every run). */
+function greyLevels(values: Float64Array, low: number, gain: number, grey: Uint8Array): void {
+  for (let i = 0; i < values.length; i++) {
+    const g = Math.round((values[i]! - low) * gain);
+    // NaN fails both comparisons and falls through to 0.
+    grey[i] = g >= 255 ? 255 : g > 0 ? g : 0;
+  }
+}
+
 /**
  * Encodes row-major values [height][width] as an 8-bit greyscale PNG
  * (colour type 0), row 0 at the top, column 0 at the left, with a tEXt
@@ -206,23 +225,9 @@ export function encodeGrayPng(
   }
   const low = opts.low ?? 0;
   let high = opts.high ?? percentile(values, opts.percentile ?? DEFAULT_WINDOW_PERCENTILE);
-  if (!(high > low)) {
-    let max = -Infinity;
-    for (let i = 0; i < values.length; i++) {
-      const x = values[i]!;
-      if (Number.isFinite(x) && x > max) max = x;
-    }
-    high = max;
-  }
+  if (!(high > low)) high = finiteMax(values);
   const grey = Buffer.alloc(width * height);
-  if (high > low && Number.isFinite(high) && Number.isFinite(low)) {
-    const gain = 255 / (high - low);
-    for (let i = 0; i < values.length; i++) {
-      const g = Math.round((values[i]! - low) * gain);
-      // NaN fails both comparisons and falls through to 0.
-      grey[i] = g >= 255 ? 255 : g > 0 ? g : 0;
-    }
-  }
+  if (high > low && Number.isFinite(high) && Number.isFinite(low)) greyLevels(values, low, 255 / (high - low), grey);
   const png = new PNG({ width, height, colorType: 0, inputColorType: 0, inputHasAlpha: false });
   png.data = grey;
   // one row filter for every row (Sub: each byte minus its left neighbour, PNG specification 9.2) instead of

@@ -25,6 +25,8 @@ export interface Volume {
 export interface RunFolderInput {
   kspace: Volume;
   image: Volume;
+  /** |image| in the image's layout, where the caller has it (the result's `magnitude`): the same numbers, not computed again. */
+  magnitude?: Float64Array;
   /** 3×4 affine (mm) from voxel (read, phase, slice-encoding step) index to RAS+ position. */
   affine: number[][];
   voxelMm: [number, number, number];
@@ -54,9 +56,9 @@ function imageGrid(r: Pick<RunFolderInput, "image" | "voxelMm">): { nRead: numbe
 }
 
 /** Starts report.html's plots of a result (e.g. on a renderer of another thread, before the rest of the folder is made). */
-export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
+export function startRunFolderPlots(r: Pick<RunFolderInput, "image" | "magnitude" | "affine" | "voxelMm">, render?: PlotRenderer): StartedPlots {
   const t = displayTransform(axesFromAffine(r.affine));
-  const mag = toDisplayInPlace(t, centralPlaneMagnitude(r.image, false), r.image.read, r.image.phase);
+  const mag = toDisplayInPlace(t, centralPlaneMagnitude(r.image, false, r.magnitude), r.image.read, r.image.phase);
   const grid = imageGrid(r);
   const plots = profilePlots(t, grid, mag, render);
   plots.catch(() => {}); // awaited (and reported) by writeRunFolder
@@ -90,15 +92,23 @@ function shape(v: Volume): number[] {
   return [v.coils, v.slice, v.phase, v.read];
 }
 
-/** Magnitude of the first coil's central slice-encoding step, row-major [phase][read]. */
-function centralPlaneMagnitude(v: Volume, log: boolean): Float64Array {
+/**
+ * Magnitude of the first coil's central slice-encoding step, row-major [phase][read] (a new array): a copy
+ * of that plane of `magnitude` (|v| in v's layout) where given, else Math.hypot of each sample, the same numbers.
+ */
+function centralPlaneMagnitude(v: Volume, log: boolean, magnitude?: Float64Array): Float64Array {
   const plane = v.phase * v.read;
   const p = Math.floor(v.slice / 2);
   const re = v.re.subarray(p * plane, (p + 1) * plane);
   const im = v.im.subarray(p * plane, (p + 1) * plane);
   if (log) return logMagnitude(re, im);
-  const out = new Float64Array(plane);
-  for (let i = 0; i < plane; i++) out[i] = Math.hypot(re[i]!, im[i]!);
+  if (magnitude) return magnitude.slice(p * plane, (p + 1) * plane);
+  return hypotOf(re, im, new Float64Array(plane));
+}
+
+/** out[i] = Math.hypot(re[i], im[i]) for every i of out (typed arrays only: one compiled loop for every run). */
+function hypotOf<T extends Float64Array | Float32Array>(re: Float64Array, im: Float64Array, out: T): T {
+  for (let i = 0; i < out.length; i++) out[i] = Math.hypot(re[i]!, im[i]!);
   return out;
 }
 
@@ -122,8 +132,7 @@ export async function writeRunFolder(dir: string, r: RunFolderInput): Promise<st
     stage.addInBackground("kspace.png", kpng);
     // NIfTI: magnitude of coil 0 (or the combined image), x = read fastest, y = phase, z = slice-encoding step
     const n = r.image.slice * r.image.phase * r.image.read;
-    const data = new Float32Array(n);
-    for (let i = 0; i < n; i++) data[i] = Math.hypot(r.image.re[i]!, r.image.im[i]!);
+    const data = r.magnitude ? Float32Array.from(r.magnitude.subarray(0, n)) : hypotOf(r.image.re, r.image.im, new Float32Array(n));
     stage.addInBackground("image.nii", encodeNifti1({
       data, dims: [r.image.read, r.image.phase, r.image.slice], voxelMm: r.voxelMm, affine: r.affine,
       description: "isofold simulated magnitude image",

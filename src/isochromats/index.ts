@@ -20,7 +20,7 @@
  * Isochromats sharing an in-plane grid position (a column) are contiguous.
  */
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
-import { cellContents, cellUniform, phantomBounds, type Phantom } from "../phantom/index.js";
+import { phantomBounds, shapeCellContents, shapeCellUniform, type Phantom, type Shape } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
@@ -295,6 +295,166 @@ class GrowFloat64 {
 }
 
 /**
+ * What {@link sampleGrid} reads: the grid, the logical axes, the cell edges (m) and per-tissue tables, as
+ * typed arrays and the phantom's Shape objects (a class: the loop's code then sees the same V8 maps in every
+ * run, where an object literal made per run may get a new map and send the code back to be compiled again).
+ */
+class GridInput {
+  constructor(
+    readonly shapes: Shape[],
+    readonly uGrid: Float64Array,
+    readonly vGrid: Float64Array,
+    readonly wGrid: Float64Array,
+    /** Logical read, phase and slice axes (RAS+ unit vectors), 3 numbers each. */
+    readonly read: Float64Array,
+    readonly phase: Float64Array,
+    readonly slice: Float64Array,
+    readonly e1: Float64Array,
+    readonly e2: Float64Array,
+    readonly e3: Float64Array,
+    /** Grid index of uGrid[0] and vGrid[0] (a column's place in its voxel follows from them), isochromats per voxel edge. */
+    readonly iu0: number,
+    readonly iv0: number,
+    readonly d: number,
+    readonly sliceInvariant: boolean,
+    readonly wWeight: number,
+    /** Per tissue: PD; spectral peak amplitudes peakAmp[peakStart[t] … peakStart[t+1]−1]; T2′ bins at voxel place s binCount[t·d² + s]. */
+    readonly pd: Float64Array,
+    readonly peakStart: Int32Array,
+    readonly peakAmp: Float64Array,
+    readonly binCount: Int32Array,
+  ) {}
+}
+
+/** What {@link sampleGrid} makes: the columns and their entries (see IsochromatCells). */
+class GridCells {
+  constructor(
+    readonly count: number, readonly colA: Int32Array, readonly colB: Int32Array, readonly colSub: Int32Array, readonly colStart: Int32Array,
+    readonly entStart: Int32Array, readonly entW: Int32Array, readonly entTissue: Int32Array, readonly entFrac: Float64Array,
+  ) {}
+}
+
+/**
+ * sampleCells' pass over the grid: per column (u outer, v inner) its cells' entries and isochromat counts
+ * (a slice-invariant phantom: the first cell's entries repeated at every w). Tiles of TILE × TILE columns
+ * at one w are classified once (cells.ts cellUniform).
+ */
+function sampleGrid(g: GridInput): GridCells {
+  const { shapes, uGrid, vGrid, wGrid, read, phase, slice, e1, e2, e3, iu0, iv0, d, sliceInvariant, wWeight, pd, peakStart, peakAmp, binCount } = g;
+  const nu = uGrid.length, nv = vGrid.length, nw = wGrid.length, dd = d * d;
+  const nT = pd.length;
+  const cellTissue = new Int32Array(Math.max(16, nT)), cellFrac = new Float64Array(Math.max(16, nT));
+  // Capacities for a full grid (one entry per cell): only the pages written are ever touched,
+  // so a generous capacity costs address space, not memory, and saves the copies of growing
+  const capCols = Math.max(1024, Math.min(nu * nv + 1, 1 << 24)), capEnt = Math.max(4096, Math.min(nu * nv * nw, 1 << 25));
+  const colA = new GrowInt32(new Int32Array(capCols)), colB = new GrowInt32(new Int32Array(capCols)), colSub = new GrowInt32(new Int32Array(capCols));
+  const colStart = new GrowInt32(new Int32Array(capCols)), entStart = new GrowInt32(new Int32Array(capCols));
+  const entW = new GrowInt32(new Int32Array(capEnt)), entTissue = new GrowInt32(new Int32Array(capEnt)), entFrac = new GrowFloat64(new Float64Array(capEnt));
+  colStart.push(0);
+  entStart.push(0);
+  let at = 0;
+  // a slice-invariant phantom: the entries of a column's first cell, repeated at every w
+  const keptTissue = new Int32Array(cellTissue.length), keptFrac = new Float64Array(cellTissue.length);
+  // per tile of columns (index ⌊b/TILE⌋·nw + w index) along the current tile row ⌊a/TILE⌋: cellUniform's answer
+  const tileOf = new Int32Array(Math.ceil(nv / TILE) * nw);
+  const e1t = new Float64Array(3), e2t = new Float64Array(3);
+  for (let a = 0; a < nu; a++) {
+    const u = uGrid[a]!;
+    if (a % TILE === 0) tileOf.fill(TILE_UNKNOWN);
+    const subA = (((iu0 + a) % d) + d) % d;
+    for (let b = 0; b < nv; b++) {
+      const v = vGrid[b]!;
+      const startAt = at, startEnt = entW.n;
+      const sub = subA + d * ((((iv0 + b) % d) + d) % d); // this column's place in its voxel
+      let kept = 0, keptHere = 0;
+      for (let c = 0; c < nw; c++) {
+        if (sliceInvariant && c > 0) {
+          // the first cell's entries at every further w, written straight into room made once
+          const m = (nw - c) * kept;
+          entW.reserve(m);
+          entTissue.reserve(m);
+          entFrac.reserve(m);
+          const ew = entW.a, et = entTissue.a, ef = entFrac.a;
+          let n = entW.n;
+          for (let cc = c; cc < nw; cc++) {
+            for (let k = 0; k < kept; k++, n++) {
+              ew[n] = cc;
+              et[n] = keptTissue[k]!;
+              ef[n] = keptFrac[k]!;
+            }
+          }
+          entW.n = entTissue.n = entFrac.n = n;
+          at += keptHere * (nw - c);
+          break;
+        }
+        const w = wGrid[c]!;
+        // the tile of TILE × TILE columns around this cell at this w, classified once: certainly one tissue
+        // (or empty) gives every cell of it that tissue at fraction 1 (or nothing), as cellContents would
+        const ti = ((b / TILE) | 0) * nw + c;
+        if (tileOf[ti] === TILE_UNKNOWN) {
+          const a0 = a - (a % TILE), a1 = Math.min(nu, a0 + TILE), b0 = b - (b % TILE), b1 = Math.min(nv, b0 + TILE);
+          if ((a1 - a0) * (b1 - b0) === 1) tileOf[ti] = TILE_MIXED;
+          else {
+            const tu = 0.5 * (uGrid[a0]! + uGrid[a1 - 1]!), tv = 0.5 * (vGrid[b0]! + vGrid[b1 - 1]!);
+            for (let q = 0; q < 3; q++) {
+              e1t[q] = e1[q]! * (a1 - a0);
+              e2t[q] = e2[q]! * (b1 - b0);
+            }
+            tileOf[ti] = shapeCellUniform(
+              shapes,
+              read[0]! * tu + phase[0]! * tv + slice[0]! * w,
+              read[1]! * tu + phase[1]! * tv + slice[1]! * w,
+              read[2]! * tu + phase[2]! * tv + slice[2]! * w,
+              e1t, e2t, e3,
+            );
+          }
+        }
+        const uniform = tileOf[ti]!;
+        let n: number;
+        if (uniform >= -1) {
+          n = uniform >= 0 ? 1 : 0;
+          cellTissue[0] = uniform;
+          cellFrac[0] = 1;
+        } else {
+          n = shapeCellContents(
+            shapes, nT,
+            read[0]! * u + phase[0]! * v + slice[0]! * w,
+            read[1]! * u + phase[1]! * v + slice[1]! * w,
+            read[2]! * u + phase[2]! * v + slice[2]! * w,
+            e1, e2, e3, cellTissue, cellFrac,
+          );
+        }
+        for (let k = 0; k < n; k++) {
+          const t = cellTissue[k]!, frac = cellFrac[k]!;
+          const bins = binCount[t * dd + sub]!;
+          let here = 0;
+          for (let q = peakStart[t]!; q < peakStart[t + 1]!; q++) {
+            const m0 = pd[t]! * frac * peakAmp[q]! * wWeight;
+            if (m0 !== 0) here += bins;
+          }
+          if (here === 0) continue;
+          at += here;
+          entW.push(c);
+          entTissue.push(t);
+          entFrac.push(frac);
+          keptTissue[kept] = t;
+          keptFrac[kept++] = frac;
+          keptHere += here;
+        }
+      }
+      if (at > startAt) {
+        colA.push(a);
+        colB.push(b);
+        colSub.push(sub);
+        colStart.push(at);
+        entStart.push(entW.n);
+      } else entW.n = entTissue.n = entFrac.n = startEnt;
+    }
+  }
+  return new GridCells(at, colA.done(), colB.done(), colSub.done(), colStart.done(), entStart.done(), entW.done(), entTissue.done(), entFrac.done());
+}
+
+/**
  * Samples the phantom into cell contents (one call of cellContents per cell,
  * nothing per isochromat): the one sampling loop behind makeIsochromats and
  * the fast operator, so the two cannot drift.
@@ -374,132 +534,41 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   }
   const wWeight = dw / thickness / (d * d);
 
-  const cell = { tissue: new Int32Array(Math.max(16, ph.tissues.length)), fraction: new Float64Array(Math.max(16, ph.tissues.length)) };
   const e1 = [axes.read[0] * du, axes.read[1] * du, axes.read[2] * du];
   const e2 = [axes.phase[0] * dv, axes.phase[1] * dv, axes.phase[2] * dv];
   const e3 = [axes.slice[0] * dw, axes.slice[1] * dw, axes.slice[2] * dw];
-  const r = [0, 0, 0];
-  const mod = (i: number) => ((i % d) + d) % d;
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
   const r1Of = ph.tissues.map((t) => inv(t.t1)), r2Of = ph.tissues.map((t) => inv(t.t2));
 
   // One pass over the grid: per column its cells' contents; the isochromat
   // count per column follows from them (one per peak of m0 ≠ 0 and T2′ bin).
-  // Capacities for a full grid (one entry per cell): only the pages written are ever touched,
-  // so a generous capacity costs address space, not memory, and saves the copies of growing
-  const capCols = Math.max(1024, Math.min(nu * nv + 1, 1 << 24)), capEnt = Math.max(4096, Math.min(nu * nv * nw, 1 << 25));
-  const colA = new GrowInt32(new Int32Array(capCols)), colB = new GrowInt32(new Int32Array(capCols)), colSub = new GrowInt32(new Int32Array(capCols));
-  const colStart = new GrowInt32(new Int32Array(capCols)), entStart = new GrowInt32(new Int32Array(capCols));
-  const entW = new GrowInt32(new Int32Array(capEnt)), entTissue = new GrowInt32(new Int32Array(capEnt)), entFrac = new GrowFloat64(new Float64Array(capEnt));
-  colStart.push(0);
-  entStart.push(0);
-  let at = 0;
-  // a slice-invariant phantom: the entries of a column's first cell, repeated at every w
-  const keptTissue = new Int32Array(cell.tissue.length), keptFrac = new Float64Array(cell.tissue.length);
-  // per tile of columns (index ⌊b/TILE⌋·nw + w index) along the current tile row ⌊a/TILE⌋: cellUniform's answer
-  const tileOf = new Int32Array(Math.ceil(nv / TILE) * nw);
-  const e1t = [0, 0, 0], e2t = [0, 0, 0];
-  const classifyTile = (a: number, b: number, w: number): number => {
-    const a0 = a - (a % TILE), a1 = Math.min(nu, a0 + TILE), b0 = b - (b % TILE), b1 = Math.min(nv, b0 + TILE);
-    if ((a1 - a0) * (b1 - b0) === 1) return TILE_MIXED;
-    const u = 0.5 * (uGrid[a0]! + uGrid[a1 - 1]!), v = 0.5 * (vGrid[b0]! + vGrid[b1 - 1]!);
-    for (let q = 0; q < 3; q++) {
-      e1t[q] = e1[q]! * (a1 - a0);
-      e2t[q] = e2[q]! * (b1 - b0);
-    }
-    return cellUniform(
-      ph,
-      axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w,
-      axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w,
-      axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w,
-      e1t, e2t, e3,
-    );
-  };
-  for (let a = 0; a < nu; a++) {
-    const u = uGrid[a]!;
-    if (a % TILE === 0) tileOf.fill(TILE_UNKNOWN);
-    for (let b = 0; b < nv; b++) {
-      const v = vGrid[b]!;
-      const startAt = at, startEnt = entW.n;
-      const sub = mod(iu0 + a) + d * mod(iv0 + b); // this column's place in its voxel
-      let kept = 0, keptHere = 0;
-      for (let c = 0; c < nw; c++) {
-        if (sliceInvariant && c > 0) {
-          // the first cell's entries at every further w, written straight into room made once
-          const m = (nw - c) * kept;
-          entW.reserve(m);
-          entTissue.reserve(m);
-          entFrac.reserve(m);
-          const ew = entW.a, et = entTissue.a, ef = entFrac.a;
-          let n = entW.n;
-          for (let cc = c; cc < nw; cc++) {
-            for (let k = 0; k < kept; k++, n++) {
-              ew[n] = cc;
-              et[n] = keptTissue[k]!;
-              ef[n] = keptFrac[k]!;
-            }
-          }
-          entW.n = entTissue.n = entFrac.n = n;
-          at += keptHere * (nw - c);
-          break;
-        }
-        const w = wGrid[c]!;
-        r[0] = axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w;
-        r[1] = axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w;
-        r[2] = axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w;
-        // the tile of TILE × TILE columns around this cell at this w, classified once: certainly one tissue
-        // (or empty) gives every cell of it that tissue at fraction 1 (or nothing), as cellContents would
-        const ti = ((b / TILE) | 0) * nw + c;
-        if (tileOf[ti] === TILE_UNKNOWN) tileOf[ti] = classifyTile(a, b, w);
-        const uniform = tileOf[ti]!;
-        let n: number;
-        if (uniform >= -1) {
-          n = uniform >= 0 ? 1 : 0;
-          cell.tissue[0] = uniform;
-          cell.fraction[0] = 1;
-        } else n = cellContents(ph, r[0]!, r[1]!, r[2]!, e1, e2, e3, cell);
-        for (let k = 0; k < n; k++) {
-          const ti = cell.tissue[k]!;
-          const t = ph.tissues[ti]!;
-          const pk = peaks[ti]!;
-          const bins = assign[ti]![sub]!.bins;
-          let here = 0;
-          for (let q = 0; q < pk.df.length; q++) {
-            const m0 = t.pd * cell.fraction[k]! * pk.amp[q]! * wWeight;
-            if (m0 !== 0) here += bins.length;
-          }
-          if (here === 0) continue;
-          at += here;
-          entW.push(c);
-          entTissue.push(ti);
-          entFrac.push(cell.fraction[k]!);
-          keptTissue[kept] = ti;
-          keptFrac[kept++] = cell.fraction[k]!;
-          keptHere += here;
-        }
-      }
-      if (at > startAt) {
-        colA.push(a);
-        colB.push(b);
-        colSub.push(sub);
-        colStart.push(at);
-        entStart.push(entW.n);
-      } else entW.n = entTissue.n = entFrac.n = startEnt;
-    }
-  }
+  // The loop is a function of its own over typed arrays and numbers (sampleGrid): it is the
+  // only hot code here, so its optimised code stays valid from run to run
+  const nT = ph.tissues.length, dd = d * d;
+  const peakStart = new Int32Array(nT + 1);
+  for (let t = 0; t < nT; t++) peakStart[t + 1] = peakStart[t]! + peaks[t]!.amp.length;
+  const peakAmp = new Float64Array(peakStart[nT]!);
+  for (let t = 0; t < nT; t++) peakAmp.set(peaks[t]!.amp, peakStart[t]!);
+  const binCount = new Int32Array(nT * dd);
+  for (let t = 0; t < nT; t++) for (let s = 0; s < dd; s++) binCount[t * dd + s] = assign[t]![s]!.bins.length;
+  const out = sampleGrid(new GridInput(
+    ph.shapes, uGrid, vGrid, wGrid, Float64Array.from(axes.read), Float64Array.from(axes.phase), Float64Array.from(axes.slice),
+    Float64Array.from(e1), Float64Array.from(e2), Float64Array.from(e3),
+    iu0, iv0, d, sliceInvariant, wWeight, Float64Array.from(ph.tissues, (t) => t.pd), peakStart, peakAmp, binCount,
+  ));
   const ctx: CellContext = {
     phantom: ph, axes, offsetHz, wWeight, pd: ph.tissues.map((t) => t.pd), r1: r1Of, r2: r2Of, peaks,
     spreadDf: spreadOf.map((s) => s.df), assign: assign as CellContext["assign"],
   };
   return {
-    count: at, columns: colA.n, uGrid, vGrid, wGrid, colStart: colStart.done(), warnings, notes,
+    count: out.count, columns: out.colA.length, uGrid, vGrid, wGrid, colStart: out.colStart, warnings, notes,
     extent: {
       read: [nu > 0 ? uGrid[0]! - du / 2 : 0, nu > 0 ? uGrid[nu - 1]! + du / 2 : 0],
       phase: [nv > 0 ? vGrid[0]! - dv / 2 : 0, nv > 0 ? vGrid[nv - 1]! + dv / 2 : 0],
       slice: [position - span / 2, position + span / 2],
     },
     spreads,
-    colA: colA.done(), colB: colB.done(), colSub: colSub.done(), entStart: entStart.done(), entW: entW.done(), entTissue: entTissue.done(), entFrac: entFrac.done(),
+    colA: out.colA, colB: out.colB, colSub: out.colSub, entStart: out.entStart, entW: out.entW, entTissue: out.entTissue, entFrac: out.entFrac,
     hasB0: ph.b0 !== null && ph.b0 !== undefined,
     ctx,
   };

@@ -109,7 +109,29 @@ export function cellContents(
   out: CellContents,
   sub: number = DEFAULT_SUB,
 ): number {
-  const shapes: Shape[] = ph.shapes;
+  return shapeCellContents(ph.shapes, ph.tissues.length, cx, cy, cz, e1, e2, e3, out.tissue, out.fraction, sub);
+}
+
+/**
+ * cellContents on the phantom's shapes and tissue count, into the arrays of
+ * its output: for hot loops, whose optimised code then sees only arrays,
+ * typed arrays and Shape objects, kinds that keep their V8 maps from run to
+ * run (an object literal's map may be made anew once no object holds it, and
+ * code specialised to the old one is then thrown away and compiled again).
+ */
+export function shapeCellContents(
+  shapes: Shape[],
+  nT: number,
+  cx: number,
+  cy: number,
+  cz: number,
+  e1: ArrayLike<number>,
+  e2: ArrayLike<number>,
+  e3: ArrayLike<number>,
+  outTissue: Int32Array,
+  outFraction: Float64Array,
+  sub: number = DEFAULT_SUB,
+): number {
   const e1x = e1[0]!, e1y = e1[1]!, e1z = e1[2]!;
   const e2x = e2[0]!, e2y = e2[1]!, e2z = e2[2]!;
   const e3x = e3[0]!, e3y = e3[1]!, e3z = e3[2]!;
@@ -118,9 +140,9 @@ export function cellContents(
   const baseTissue = lastBase, all2D = lastAll2D;
   if (nCand === 0) {
     if (baseTissue < 0) return 0;
-    if (out.tissue.length < 1) throw new RangeError("cellContents: out holds no entries");
-    out.tissue[0] = baseTissue;
-    out.fraction[0] = 1;
+    if (outTissue.length < 1) throw new RangeError("cellContents: out holds no entries");
+    outTissue[0] = baseTissue;
+    outFraction[0] = 1;
     return 1;
   }
 
@@ -136,7 +158,6 @@ export function cellContents(
   const p = pattern(n1, n2, n3);
   const nPts = n1 * n2 * n3;
 
-  const nT = ph.tissues.length;
   if (counts.length < nT) counts = new Float64Array(nT);
   for (let q = 0; q < nPts; q++) {
     const t1 = p[3 * q]!, t2 = p[3 * q + 1]!, t3 = p[3 * q + 2]!;
@@ -152,7 +173,7 @@ export function cellContents(
   }
 
   let n = 0;
-  const cap = out.tissue.length;
+  const cap = outTissue.length;
   const inv = 1 / nPts;
   for (let t = 0; t < nT; t++) {
     const c = counts[t]!;
@@ -162,8 +183,8 @@ export function cellContents(
       for (let r = t + 1; r < nT; r++) counts[r] = 0;
       throw new RangeError(`cellContents: out holds ${cap} entries, more tissues are present (size it ph.tissues.length)`);
     }
-    out.tissue[n] = t;
-    out.fraction[n] = c * inv;
+    outTissue[n] = t;
+    outFraction[n] = c * inv;
     n++;
   }
   return n;
@@ -246,8 +267,13 @@ export function setCellTiles(on: boolean): boolean {
  * tiles switched off (setCellTiles).
  */
 export function cellUniform(ph: Phantom, cx: number, cy: number, cz: number, e1: ArrayLike<number>, e2: ArrayLike<number>, e3: ArrayLike<number>): number {
+  return shapeCellUniform(ph.shapes, cx, cy, cz, e1, e2, e3);
+}
+
+/** cellUniform on the phantom's shapes (for hot loops, as {@link shapeCellContents}). */
+export function shapeCellUniform(shapes: Shape[], cx: number, cy: number, cz: number, e1: ArrayLike<number>, e2: ArrayLike<number>, e3: ArrayLike<number>): number {
   if (!tiles) return -2;
-  const n = classifyFor(ph.shapes, cx, cy, cz, e1[0]!, e1[1]!, e1[2]!, e2[0]!, e2[1]!, e2[2]!, e3[0]!, e3[1]!, e3[2]!);
+  const n = classifyFor(shapes, cx, cy, cz, e1[0]!, e1[1]!, e1[2]!, e2[0]!, e2[1]!, e2[2]!, e3[0]!, e3[1]!, e3[2]!);
   return n === 0 ? lastBase : -2;
 }
 

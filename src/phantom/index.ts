@@ -17,7 +17,7 @@ export {
   type TissueSources,
 } from "./tissues.js";
 export { Shape, makeShape, type ShapeSpec, type ShapeType, type Axis } from "./shapes.js";
-export { cellContents, cellUniform, setCellTiles, phantomBounds, DEFAULT_SUB, type CellContents } from "./cells.js";
+export { cellContents, cellUniform, shapeCellContents, shapeCellUniform, setCellTiles, phantomBounds, DEFAULT_SUB, type CellContents } from "./cells.js";
 export { parseB0, compileB0Expression, B0_SYMBOLS, B0_FUNCTIONS, B0_KINDS, type B0Model, type B0Context, type RealArray } from "./b0.js";
 export { chiFieldRatio, parseSusceptibility, type ChiObject } from "./susceptibility.js";
 export { fieldMapSampler, parseFieldMap } from "./fieldmap.js";

@@ -95,7 +95,12 @@ export function reconstructGrid(k: ComplexVolume, grid: KGrid, image: { phase: n
 }
 
 export function magnitude(v: { re: Float64Array; im: Float64Array }): Float64Array {
-  const out = new Float64Array(v.re.length);
-  for (let i = 0; i < out.length; i++) out[i] = Math.hypot(v.re[i]!, v.im[i]!);
+  return hypotOf(v.re, v.im);
+}
+
+/** Math.hypot of each (re, im) pair; typed arrays only, so the loop's compiled code serves every run. */
+function hypotOf(re: Float64Array, im: Float64Array): Float64Array {
+  const out = new Float64Array(re.length);
+  for (let i = 0; i < out.length; i++) out[i] = Math.hypot(re[i]!, im[i]!);
   return out;
 }
