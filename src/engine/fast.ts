@@ -612,7 +612,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   if (typeof h === "string") return h;
   const { adcs, P, classIw, mass } = h;
   const C = plan.classes, coils = plan.coils, sens = plan.sens;
-  const act = adcs.map((a, n) => ({ ...a, n })).filter((a) => a.active);
+  // written out, not spread: a spread's copy takes its shape from the source objects, and a shape that
+  // changes between runs throws away this function's compiled code (a second or more of compiling for V8)
+  const act = adcs.map((a, n) => ({ op: a.op, area: a.area, step: a.step, dwell: a.dwell, active: a.active, n })).filter((a) => a.active);
   const re = new Float64Array(coils * plan.rows * plan.read), im = new Float64Array(re.length);
   const base: ReadoutReport = { operator: "fast", requested: "fast", tolerance, method: "", kernelWidth: null };
   if (act.length === 0) return { re, im, report: { ...base, method: "no readout sees transverse magnetization", segments: 0, lineRank: 0, estimate: { samples: 0, seed: ESTIMATE_SEED, relL2: 0 } } };
