@@ -144,6 +144,16 @@ describe("fast readout operator against the direct operator", () => {
   }, 60_000);
 });
 
+/** run() with a switch of the engine off (set returns the previous setting), restored after. */
+function switchedOff<T>(set: (on: boolean) => boolean, run: () => T): T {
+  const was = set(false);
+  try {
+    return run();
+  } finally {
+    set(was);
+  }
+}
+
 describe("skipped (rank, segment) pairs", () => {
   // The pairs of least bound are skipped while their bounds add up to tolerance/split of the rank-0 k-space's
   // norm. Each bound is max|A_r|·max|B_l|·√(Mu·Mv)·‖X_{r,l}‖ (Parseval), so the skipped part's norm is at most
@@ -153,13 +163,7 @@ describe("skipped (rank, segment) pairs", () => {
     const p = prep(["matrix.read=48", "matrix.phase=48"], { iso: { density: 2, sliceCount: 6, t2primeIsochromats: 8 } });
     const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const };
     const skipping = simulateSerial(p.seq, p.iso, o);
-    const was = setPairSkipping(false);
-    let every;
-    try {
-      every = simulateSerial(p.seq, p.iso, o);
-    } finally {
-      setPairSkipping(was);
-    }
+    const every = switchedOff(setPairSkipping, () => simulateSerial(p.seq, p.iso, o));
     const ps = skipping.readout.pairs!, pe = every.readout.pairs!;
     expect(ps.skipped).toBeGreaterThan(0);
     expect(pe.skipped).toBe(0);
@@ -184,13 +188,7 @@ describe("class playback in one pass per TR (setFusedHistory)", () => {
     const p = prep(["matrix.read=24", "matrix.phase=24"], { b0: "300 * x", iso: { density: 2, t2primeIsochromats: 4 } });
     const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const };
     const fused = simulateSerial(p.seq, p.iso, o);
-    const was = setFusedHistory(false);
-    let plain;
-    try {
-      plain = simulateSerial(p.seq, p.iso, o);
-    } finally {
-      setFusedHistory(was);
-    }
+    const plain = switchedOff(setFusedHistory, () => simulateSerial(p.seq, p.iso, o));
     expect(fused.readout.operator).toBe("fast");
     expect(fused.kspace.re.some((x) => x !== 0)).toBe(true);
     expect(Buffer.from(fused.kspace.re.buffer).equals(Buffer.from(plain.kspace.re.buffer))).toBe(true);

@@ -43,6 +43,7 @@ import { fillRfMaps, HAS_SHARED_MEMORY, isShared, type EnginePlan, type Op } fro
 import type { RfJob } from "./rf-job.js";
 import { receiverFilter } from "./chunk.js";
 import { BasisSweep, projectOnKernel } from "./basis-wasm.js";
+import { kernelSwitch } from "./wasm-asm.js";
 import type { CellStream } from "./fast-stream.js";
 import { openPosition, ParallelPhase, PhaseTransform, PHASE_SLOTS, readAxis, readStep, reservePhaseMemory, zeroBlock, type PhaseShared, type SlotTrack } from "./fast-phase.js";
 
@@ -181,13 +182,11 @@ export function fillRfMapsShared(plan: EnginePlan, allowHelper: boolean): void {
 
 let rfSplit: "none" | "main" | "helper" = "none";
 
-let pairSkipping = true;
+const pairSkipping = kernelSwitch();
 
 /** Switches the skipping of (rank, segment) pairs off (tests: every pair transformed, the slow sum the skipping is checked against); returns the previous setting. */
 export function setPairSkipping(on: boolean): boolean {
-  const was = pairSkipping;
-  pairSkipping = on;
-  return was;
+  return pairSkipping.set(on);
 }
 
 /** Who filled the upper half of the last run's RF maps (fillRfMapsShared; for tests): not split, the main thread after all, or the helper. */
@@ -417,13 +416,22 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
   const iw2 = new Int32Array(C);
   for (let c = 0; c < C; c++) iw2[c] = 2 * Math.max(0, classIw[c]!);
   const freeQ = new Map<number, Float64Array>();
+  const freeOf = (durationIndex: number, sliceTable: number): Float64Array => {
+    const key = durationIndex * tab.length + sliceTable;
+    let q = freeQ.get(key);
+    if (!q) {
+      q = freeFactors(D[durationIndex]!, tab, sliceTable, iw2, C);
+      freeQ.set(key, q);
+    }
+    return q;
+  };
   let active = false;
   // the loops over the classes in small functions (V8 optimises them; here they would stay in this body)
   const ops = plan.ops;
   for (let i = 0; i < ops.length; i++) {
     const op = ops[i]!;
     // a TR's usual ops in one pass over the classes (each class gets the same operations in the same order)
-    if (op.kind === "rf" && fusedHistory) {
+    if (op.kind === "rf" && fusedHistory.on()) {
       const a = ops[i + 1], b = ops[i + 2], c = ops[i + 3], d = ops[i + 4];
       if (a?.kind === "spoil" && b?.kind === "relax") {
         // a TR without a readout (a dummy scan): the pulse's Mz, then its relaxation
@@ -433,12 +441,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
         continue;
       }
       if (a?.kind === "free" && b?.kind === "adc" && c?.kind === "spoil" && d?.kind === "relax") {
-        const key = a.durationIndex * tab.length + a.sliceTable;
-        let q = freeQ.get(key);
-        if (!q) {
-          q = freeFactors(D[a.durationIndex]!, tab, a.sliceTable, iw2, C);
-          freeQ.set(key, q);
-        }
+        const q = freeOf(a.durationIndex, a.sliceTable);
         const n = adcs.length, blk = adcBlocks[n]!;
         adcs.push({ op: b, area: blk.area, step: blk.step, dwell: blk.dwell, active: true });
         rfReadoutRelax(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase, E1[a.durationIndex]!, q, P, 2 * n * C, E1[d.durationIndex]!);
@@ -455,13 +458,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
       case "free": {
         relaxClasses(mz, E1[op.durationIndex]!, C);
         if (!active) break;
-        const key = op.durationIndex * tab.length + op.sliceTable;
-        let q = freeQ.get(key);
-        if (!q) {
-          q = freeFactors(D[op.durationIndex]!, tab, op.sliceTable, iw2, C);
-          freeQ.set(key, q);
-        }
-        rotateClasses(pr, pi, q, C);
+        rotateClasses(pr, pi, freeOf(op.durationIndex, op.sliceTable), C);
         break;
       }
       case "relax":
@@ -516,13 +513,11 @@ function rfReadoutRelax(
   }
 }
 
-let fusedHistory = true;
+const fusedHistory = kernelSwitch();
 
 /** Switches the one-pass TRs of the class playback off (tests: the op-by-op playback, the same bits); returns the previous setting. */
 export function setFusedHistory(on: boolean): boolean {
-  const was = fusedHistory;
-  fusedHistory = on;
-  return was;
+  return fusedHistory.set(on);
 }
 
 /** An RF pulse on every class: its affine map of (0, 0, Mz) (no transverse state before a pulse of an ideally spoiled sequence), then the pulse phase. */
@@ -811,7 +806,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
       })()
     : undefined;
   // the read step too is shared (ParallelPhase.readAll: whole coils, or parts of one coil's lines)
-  const readShared = { BL, colIdx, usedA: Int32Array.from(usedList), ns };
+  const usedA = Int32Array.from(usedList);
+  const readShared = { BL, colIdx, usedA, ns };
   const par = helper ? new ParallelPhase(setup, colUsed, R * coils * L, 2 * blockCols * Mv * NX, sensAhead, readShared) : null;
   if (helper && par) helper.start(par.shared);
   // sensitivities of the first blocks asked for now (the helper evaluates them while this thread sets up the fold);
@@ -877,7 +873,6 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   let kept = 0, skipped = 0, skippedBound = 0;
   const lines = scratchF64("lines", 2 * NA * ns);
   const { dft: dftU, zt } = readStep(Mu, L, plan.wasm, (n) => scratchF64("zt", n));
-  const usedA = Int32Array.from(usedList);
   if (coils > 1) {
     const all: { x: number; r: number; q: number; l: number }[] = [];
     for (let r = 0; r < R; r++) for (let q = 0; q < coils; q++) for (let l = 0; l < L; l++) all.push({ x: (r * coils + q) * L + l, r, q, l });
@@ -939,7 +934,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     }
   }
   const skip = new Uint8Array(NX);
-  for (const p of pairSkipping ? pairs.slice().sort((a, b) => a.bound - b.bound || a.x - b.x) : []) {
+  for (const p of pairSkipping.on() ? pairs.slice().sort((a, b) => a.bound - b.bound || a.x - b.x) : []) {
     if (!(skippedBound + p.bound <= budget)) break;
     skip[p.x] = 1;
     skipped++;
