@@ -23,6 +23,7 @@ import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
 import { receiverFilter } from "./chunk.js";
 import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
 import { FoldMoments } from "./fold-wasm.js";
+import { kernelSwitch } from "./wasm-asm.js";
 import { openPosition } from "./fast-phase.js";
 import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
@@ -568,9 +569,9 @@ export class CellStream {
       const { S: NS, NR, PJ, Pr, dec, keyOf, keyDf, filter } = setup;
       const Y: (Float64Array | null)[] = [], Ysum: Float64Array[] = [], keysOf: Int32Array[] = [], dfLoHi: [number, number][] = [];
       // With sensitivities, Y's through-slice moments Ym[p][s] = Σ_c ψ_p(c)·Y[c][s] on the fold's basis (complete:
-      // Σ_c S(c)·Y[c] = Σ_p s_p·Ym[p]); a column leaves out only terms below ESTIMATE_TERM_CUT × the fold's cut.
+      // Σ_c S(c)·Y[c] = Σ_p s_p·Ym[p]); a column of one tissue leaves out only terms below ESTIMATE_TERM_CUT × the fold's cut.
       const psi = this.sens ? throughSliceBasis(cells.wGrid) : null;
-      const Ym: (Float64Array | null)[] = [], YmNorm: (Float64Array | null)[] = [];
+      const Ym: (Float64Array | null)[] = [], YmNorm2: (Float64Array | null)[] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
           if (this.eClass) {
@@ -580,7 +581,7 @@ export class CellStream {
             keysOf.push(new Int32Array(0));
             dfLoHi.push([0, 0]);
             Ym.push(null);
-            YmNorm.push(null);
+            YmNorm2.push(null);
             continue;
           }
           const y = new Float64Array(2 * nw * NS), ks = new Set<number>();
@@ -603,11 +604,12 @@ export class CellStream {
           if (psi && ok) {
             const ym = new Float64Array(2 * nw * NS), yn = new Float64Array(nw);
             sliceMoments(psi, nw, y, 2 * NS, ym, yn);
+            for (let p = 0; p < nw; p++) yn[p] = yn[p]! * yn[p]!;
             Ym.push(ym);
-            YmNorm.push(yn);
+            YmNorm2.push(yn);
           } else {
             Ym.push(null);
-            YmNorm.push(null);
+            YmNorm2.push(null);
           }
           // one uniform coil: the cell's samples summed through the slice once
           const ys = new Float64Array(2 * NS);
@@ -617,10 +619,9 @@ export class CellStream {
           dfLoHi.push(dfRange(keysOf[keysOf.length - 1]!, keyDf));
         }
       }
-      const colv = new Float64Array(2 * coils * NS);
-      const momS = psi ? new Float64Array(2 * coils * nw) : null, eT = new Float64Array(nw);
-      // the uniform columns' sums on the SIMD kernel where it runs (Ym as its tables, one row of NS samples)
-      const fmE = psi ? FoldMoments.make(Ym, coils, nw, 1, NS, setup.wasm) : null, gE = new Float64Array(2 * nw), kept = new Int32Array(nw);
+      const colv = new Float64Array(2 * coils * NS), gS = new Float64Array(2 * coils * nw), momS = psi ? new Float64Array(2 * coils * nw) : null;
+      // with sensitivities: the regrouped sums over the cells' samples Y (columns of several tissues) and over their moments Ym
+      const addY = S0 ? setup.cellSums(Y, nw) : null, addYm = S0 ? setup.cellSums(Ym, nw) : null;
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
       return (col, given, givenMom) => {
@@ -649,31 +650,21 @@ export class CellStream {
               addSamples(u, v, colv);
               return;
             }
-            const ym = Ym[z]!, yn = YmNorm[z]!, mom = givenMom ?? momS!;
-            if (!givenMom) projectThroughSlice(psi!, S, coils, nw, mom);
-            if (!fmE) colv.fill(0);
-            for (let q = 0; q < coils; q++) {
-              let big = 0;
-              for (let p = 0; p < nw; p++) {
-                const gr = mom[2 * (q * nw + p)]!, gi = mom[2 * (q * nw + p) + 1]!;
-                eT[p] = Math.sqrt(gr * gr + gi * gi) * yn[p]!;
-                big = Math.max(big, eT[p]!);
+            // every coil: fp·s_p on the moments Ym[p], the terms of |s_p|·‖Ym_p‖ at most ESTIMATE_TERM_CUT × the fold's
+            // tolerance × the coil's largest left out (compared squared)
+            if (!estimateRegrouping.on()) {
+              // the reference: every coil's Σ_c fp·S_q(c)·Y[c] written out, then phased (no moments, no regrouping)
+              colv.fill(0);
+              for (let q = 0; q < coils; q++) {
+                for (let c = 0; c < nw; c++) addScaled(colv, 2 * q * NS, Y[z]!, 2 * c * NS, S[2 * (q * nw + c)]! * fp, S[2 * (q * nw + c) + 1]! * fp, NS);
               }
-              const cut = ESTIMATE_TERM_CUT * this.termTol * big;
-              let nk = 0;
-              for (let p = 0; p < nw; p++) {
-                if (eT[p]! <= cut) continue;
-                if (fmE) {
-                  kept[nk++] = p;
-                  gE[2 * p] = mom[2 * (q * nw + p)]! * fp;
-                  gE[2 * p + 1] = mom[2 * (q * nw + p) + 1]! * fp;
-                } else addScaled(colv, 2 * q * NS, ym, 2 * p * NS, mom[2 * (q * nw + p)]! * fp, mom[2 * (q * nw + p) + 1]! * fp, NS);
-              }
-              // colv[q] = 0 + the kept terms in ascending p (the sums addScaled makes into a zeroed colv)
-              if (fmE) fmE.setTerms(q, z, gE, kept, nk);
+              addSamples(u, v, colv);
+              return;
             }
-            if (fmE) fmE.storeInto(colv, 0);
-            addSamples(u, v, colv);
+            const mom = givenMom ?? momS!, yn2 = YmNorm2[z]!, cut2 = (ESTIMATE_TERM_CUT * this.termTol) ** 2;
+            if (!givenMom) projectThroughSlice(psi!, S, coils, nw, mom);
+            keptMoments(mom, yn2, coils, nw, cut2, fp, gS);
+            addYm!(z, gS, u, v);
             return;
           }
         } else if (!S && !this.eClass) {
@@ -709,19 +700,32 @@ export class CellStream {
             }
             gW[g * nw + cells.entW[e]!] = gW[g * nw + cells.entW[e]!]! + pd[ti]! * cells.entFrac[e]!;
           }
-          if (ok) {
+          if (ok && !estimateRegrouping.on()) {
+            // the reference: colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] written out, then phased
             colv.fill(0);
             for (let g = 0; g < ng; g++) {
-              const y = Y[gTi[g]! * D2 + sub]!;
               for (let q = 0; q < coils; q++) {
                 for (let c = 0; c < nw; c++) {
                   const f = gW[g * nw + c]!;
-                  if (f === 0) continue;
-                  addScaled(colv, 2 * q * NS, y, 2 * c * NS, S[2 * (q * nw + c)]! * f, S[2 * (q * nw + c) + 1]! * f, NS);
+                  addScaled(colv, 2 * q * NS, Y[gTi[g]! * D2 + sub]!, 2 * c * NS, S[2 * (q * nw + c)]! * f, S[2 * (q * nw + c) + 1]! * f, NS);
                 }
               }
             }
             addSamples(u, v, colv);
+            return;
+          }
+          if (ok) {
+            // per tissue: g(c)·S_q(c) per through-slice cell, summed with the tissue's Y[c] (regrouped per read position)
+            for (let g = 0; g < ng; g++) {
+              for (let q = 0; q < coils; q++) {
+                for (let c = 0; c < nw; c++) {
+                  const f = gW[g * nw + c]!;
+                  gS[2 * (q * nw + c)] = S[2 * (q * nw + c)]! * f;
+                  gS[2 * (q * nw + c) + 1] = S[2 * (q * nw + c) + 1]! * f;
+                }
+              }
+              addY!(gTi[g]! * D2 + sub, gS, u, v);
+            }
             return;
           }
         }
@@ -853,12 +857,44 @@ function flatFor(f0: number, lo: number, hi: number, bw: number): boolean {
 }
 
 /**
+ * The estimate's column sums with sensitivities regrouped per read position (EstimateSetup.cellSums; a column of
+ * one tissue on the through-slice moments): on by default; off, every column's sums are written out and phased
+ * (the reference the tests compare with: the same direct sum in another order).
+ */
+const estimateRegrouping = kernelSwitch();
+/** Switches the estimate's regrouped column sums on or off (for tests); returns the previous setting. */
+export function setEstimateRegrouping(on: boolean): boolean {
+  return estimateRegrouping.set(on);
+}
+
+/**
  * The estimate's column sums leave out a through-slice term only below this
  * fraction of the fold's own cut (tolerance/split) times the column's largest
  * term (|s_p|·‖Ym_p‖): a thousandth of what the fold may leave out, so the
  * estimate stays the direct sum to well within what it measures.
  */
 const ESTIMATE_TERM_CUT = 1e-3;
+
+/**
+ * g[2·(q·nw + p)] = fp·mom[2·(q·nw + p)] (interleaved) where |mom_p|²·yn2[p] > cut2 × the coil's largest
+ * of them, else 0: the estimate's terms of one coil-sensitive column of one tissue (yn2: ‖Ym_p‖²).
+ */
+function keptMoments(mom: Float64Array, yn2: Float64Array, coils: number, nw: number, cut2: number, fp: number, g: Float64Array): void {
+  for (let q = 0; q < coils; q++) {
+    const o = 2 * q * nw;
+    let big = 0;
+    for (let p = 0; p < nw; p++) {
+      const gr = mom[o + 2 * p]!, gi = mom[o + 2 * p + 1]!;
+      big = Math.max(big, (gr * gr + gi * gi) * yn2[p]!);
+    }
+    const cut = cut2 * big;
+    for (let p = 0; p < nw; p++) {
+      const gr = mom[o + 2 * p]!, gi = mom[o + 2 * p + 1]!, keep = (gr * gr + gi * gi) * yn2[p]! > cut;
+      g[o + 2 * p] = keep ? gr * fp : 0;
+      g[o + 2 * p + 1] = keep ? gi * fp : 0;
+    }
+  }
+}
 
 /**
  * The terms to keep: e[p] ≤ budget/n are left out, then the smallest of the

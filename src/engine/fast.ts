@@ -1271,6 +1271,47 @@ export interface EstimateSetup {
    * must come in read-position order, as the cells give them.
    */
   addTable?: (z: number, tables: readonly Float64Array[], fp: number, u: number, v: number) => void;
+  /**
+   * Any number of coils: for tables of `nw` rows of samples each (row c of table z at
+   * tables[z][2·(c·S + s)]), a function that adds a column whose sums before the in-plane phase are,
+   * per coil q, Σ_c g[q][c]·row c of table z (g interleaved at g[2·(q·nw + c)]; zero weights cost
+   * nothing): the same direct sum regrouped per read position (Σ over its columns of g·exp(−i2π ky·v)
+   * per table, coil, row and estimate row, then × the table row and exp(−i2π kx·u)).
+   */
+  cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number) => void;
+}
+
+/** acc[a + 2·(i·NR + w)] += g_i·ev_w for the n complex weights g_i (interleaved; zeros skipped) and the NR row phases ev. */
+function addCellRows(acc: Float64Array, a: number, g: Float64Array, ev: Float64Array, n: number, NR: number): void {
+  for (let i = 0; i < n; i++) {
+    const gr = g[2 * i]!, gi = g[2 * i + 1]!, o = a + 2 * i * NR;
+    if (gr === 0 && gi === 0) continue;
+    for (let w = 0; w < NR; w++) {
+      const er = ev[2 * w]!, ei = ev[2 * w + 1]!;
+      acc[o + 2 * w] = acc[o + 2 * w]! + (gr * er - gi * ei);
+      acc[o + 2 * w + 1] = acc[o + 2 * w + 1]! + (gr * ei + gi * er);
+    }
+  }
+}
+
+/**
+ * tot[2·(q·S + s)] += Σ_c y[2·(c·S + s)]·acc[a + q·2·nw·NR + 2·(c·NR + ⌊s/PJ⌋)]·eu[2s]: one table's
+ * regrouped sums (per coil q and row c) brought to the estimate's samples.
+ */
+function addCellSamples(tot: Float64Array, acc: Float64Array, a: number, y: Float64Array, eu: Float64Array, coils: number, nw: number, S: number, PJ: number, NR: number): void {
+  for (let q = 0; q < coils; q++) {
+    for (let c = 0; c < nw; c++) {
+      const b = a + 2 * NR * (q * nw + c), yc = 2 * c * S;
+      for (let s = 0; s < S; s++) {
+        const w = Math.floor(s / PJ);
+        const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = acc[b + 2 * w]!, bi = acc[b + 2 * w + 1]!;
+        if (br === 0 && bi === 0) continue;
+        const er = ar * br - ai * bi, ei = ar * bi + ai * br, xr = y[yc + 2 * s]!, xi = y[yc + 2 * s + 1]!;
+        tot[2 * (q * S + s)] = tot[2 * (q * S + s)]! + (xr * er - xi * ei);
+        tot[2 * (q * S + s) + 1] = tot[2 * (q * S + s) + 1]! + (xr * ei + xi * er);
+      }
+    }
+  }
 }
 
 /** The estimate against the fast k-space, once its direct sums are made. */
@@ -1391,6 +1432,37 @@ export function estimateOver(
       tabAcc[a + 2 * w + 1] = tabAcc[a + 2 * w + 1]! + fp * ev[2 * w + 1]!;
     }
   };
+  // columns of whole tables with sensitivities (setup.cellSums): per table, coil, through-slice term and row
+  // Σ g·ev(v) over the columns of one read position, added as the term's samples × that × eu(u) when the
+  // read position changes (and at the end)
+  const cellFlushes: (() => void)[] = [];
+  const cellSums = (tables: readonly (Float64Array | null)[], nw: number) => {
+    const per = 2 * nw * NR, acc = new Float64Array(coils * per * tables.length), seen = new Uint8Array(tables.length), touched = new Int32Array(tables.length);
+    let at = NaN, n = 0;
+    const flush = () => {
+      if (n === 0) return;
+      euAt(at);
+      for (let i = 0; i < n; i++) {
+        const z = touched[i]!, a = coils * per * z;
+        seen[z] = 0;
+        addCellSamples(tot, acc, a, tables[z]!, eu, coils, nw, S, PJ, NR);
+        acc.fill(0, a, a + coils * per);
+      }
+      n = 0;
+    };
+    cellFlushes.push(flush);
+    return (z: number, g: Float64Array, u: number, v: number) => {
+      if (u !== at) {
+        flush();
+        at = u;
+      }
+      if (seen[z] === 0) {
+        seen[z] = 1;
+        touched[n++] = z;
+      }
+      addCellRows(acc, coils * per * z, g, evAt(v), coils * nw, NR);
+    };
+  };
   const addPhased = (u: number, v: number, colv: Float64Array) => {
     euAt(u);
     const ev = evAt(v);
@@ -1405,7 +1477,7 @@ export function estimateOver(
       }
     }
   };
-  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm, ...(coils === 1 ? { addTable } : {}) };
+  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm, cellSums, ...(coils === 1 ? { addTable } : {}) };
   columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {
@@ -1453,6 +1525,7 @@ export function estimateOver(
   }, addPhased, setup);
   return (re, im) => {
   flushTables();
+  for (const f of cellFlushes) f();
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
     for (let s = 0; s < S; s++) {
