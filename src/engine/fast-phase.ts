@@ -59,8 +59,18 @@ export class PhaseTransform {
    * Valid for this run.
    */
   inputBlock(doubles: number): Float64Array | null {
-    return this.s.wasm ? this.dft.inputArea(doubles) : null;
+    this.own = this.s.wasm ? this.dft.inputArea(doubles) : null;
+    return this.own;
   }
+
+  /** The block of inputBlock (folded in the kernel's memory), if any. */
+  private own: Float64Array | null = null;
+  /**
+   * For blocks outside the kernel's memory (a helper's slots, shared): one read column's grids are copied here
+   * first (one contiguous copy), so that the FFT's first step runs on the kernel too (the same numbers as the
+   * TypeScript first step, FFTPlan.forwardBatch). Made on first use: null without the kernel.
+   */
+  private area: Float64Array | null | undefined = undefined;
 
   /**
    * Grids list[4i] (x, r, q, l for i < nl) of the block XB (read columns
@@ -71,18 +81,28 @@ export class PhaseTransform {
     if (nl === 0) return;
     const { Mv, NA, NX, R, L, mLine, AL, colUsed, Z, zCol, zCols, rows } = this.s;
     const dft = this.dft, zStride = 2 * NA * zCols;
+    let src = XB;
+    if (this.s.wasm && (this.own === null || XB.buffer !== this.own.buffer)) {
+      // the area's rows ≥ `rows` stay +0 (zeroed when made, never written), as a block's
+      if (this.area === undefined) this.area = dft.inputArea(2 * Mv * NX, BATCH);
+      if (this.area) src = this.area;
+    }
     for (let a = a0; a < a1; a++) {
       if (colUsed[a] === 0) continue;
       // each grid's line along the read column, read in place (stride NX; rows ≥ `rows` are +0, and no
       // value of a fold is −0: sums from +0) and transformed; grids next to each other (consecutive x in
       // the list, up to BATCH) together: one sweep down the column reads each row's cache line and page once
       // for all of them
-      const base = 2 * (a - a0) * Mv * NX;
+      let base = 2 * (a - a0) * Mv * NX;
+      if (src !== XB) {
+        src.set(XB.subarray(base, base + 2 * rows * NX));
+        base = 0;
+      }
       for (let i = 0; i < nl; ) {
         const x0 = list[4 * i]!;
         let g = 1;
         while (g < BATCH && i + g < nl && list[4 * (i + g)]! === x0 + g) g++;
-        const out = dft.forwardBatch(XB, base + 2 * x0, 2, 2 * NX, g, rows, this.s.wasm);
+        const out = dft.forwardBatch(src, base + 2 * x0, 2, 2 * NX, g, rows, this.s.wasm);
         for (let j = 0; j < g; j++, i++) {
           const r = list[4 * i + 1]!, q = list[4 * i + 2]!, l = list[4 * i + 3]!;
           addLines(Z, (q * L + l) * zStride + 2 * zCol[a]! * NA, out, dft.batchOffset(j), mLine, AL, NA, R, r);
