@@ -110,6 +110,11 @@ describe("fast operator with a helper thread", () => {
     expect(one.readout[0]!.operator).toBe("fast");
     expect(one.kspace.coils).toBe(5);
     await expectHelpedSameBits(run, one.kspace);
+    // the helper evaluates the sensitivities ahead (the fold copies only what a column reads; the estimate
+    // evaluates the others itself where it needs them): the same estimate as on one thread
+    const helped = await run(true);
+    expect(helped.readout[0]!.estimate!.relL2).toBeGreaterThan(0);
+    expect(helped.readout[0]!.estimate).toEqual(one.readout[0]!.estimate);
     // the same runs from a memory reserve whose pages the helper wrote ahead, reused (zeroed) by each run
     const r = reservePhaseMemory(reservedBytes() + 64 * 2 ** 20);
     expect(r).not.toBeNull();

@@ -294,7 +294,7 @@ export class CellStream {
   fold(
     plan: EnginePlan, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, keyDf: number[], K: number,
     preU: Float64Array, preV: Float64Array, Mu: number, Mv: number, fRead: number, bw: number, L: number, Ck: Float64Array, XB0: Float64Array, NX: number,
-    tol = 0, onColumn?: (col: number, S: Float64Array, mom: Float64Array | null) => void, sensSource?: { fill: ((col: number, S: Float64Array, mom: Float64Array | null) => boolean) | null },
+    tol = 0, onColumn?: (col: number, S: Float64Array | null, mom: Float64Array | null) => void, sensSource?: { fill: ((col: number, S: Float64Array | null, mom: Float64Array | null) => boolean) | null },
   ): ColumnFolder {
     void XB0;
     const coils = plan.coils;
@@ -384,17 +384,22 @@ export class CellStream {
       // a column of one tissue through the slice: every coil's sensitivity on the basis ψ, s_p = Σ_c ψ_p(c)·S_q(c)
       // at sAll[2·(q·nw + p)] (the estimate's column sums use them too)
       const mom = hasSens && uniform ? sAll : null;
+      // such a column where the receiver filter is flat over its table's keys uses the moments alone
+      const flat = uniform && (!filt || flatFor(fRead * u, full[colTi[col]! * D2 + sub]!.dfLo, full[colTi[col]! * D2 + sub]!.dfHi, bw));
+      let sGiven = true;
       if (hasSens) {
-        // evaluated ahead (by a helper thread, with their moments) where the caller has them
-        if (!sensSource?.fill?.(col, S, mom)) {
+        // evaluated ahead (by a helper thread, with their moments) where the caller has them: then only what this
+        // column reads is copied (the moments alone for a flat column of one tissue; its sensitivities are not read)
+        if (!sensSource?.fill?.(col, flat && mom ? null : S, mom)) {
           this.sensOf(col, S);
           if (mom) projectThroughSlice(psi!, S, coils, nw, mom);
-        }
+        } else sGiven = !(flat && mom);
       }
-      if (onColumn) onColumn(col, S, mom);
+      // the estimate gets the sensitivities where they were copied (it evaluates them itself where it needs them and they were not)
+      if (onColumn) onColumn(col, sGiven ? S : null, mom);
       if (uniform) {
         const ti = colTi[col]!, fp = colFp[col]!, tab = full[ti * D2 + sub]!;
-        if (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw)) {
+        if (flat) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           // the SIMD kernel writes the position's whole run (below); the other sums are added into it
           if (track && !(hasSens && fm)) openPosition(track, XB, p >> 1, NX);
@@ -540,7 +545,7 @@ export class CellStream {
    * sensitivities): `visitor` (for estimateOver) only sets up; the fold calls
    * `hook` with each column and its sensitivities (evaluated once for both).
    */
-  hookedColumns(): { visitor: ColumnVisitor; hook: (col: number, S: Float64Array, mom: Float64Array | null) => void } {
+  hookedColumns(): { visitor: ColumnVisitor; hook: (col: number, S: Float64Array | null, mom: Float64Array | null) => void } {
     let per: ((col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void) | null = null;
     return {
       visitor: (visit, addSamples, setup) => {
@@ -625,12 +630,15 @@ export class CellStream {
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
       return (col, given, givenMom) => {
-        // this column's sensitivities: given by the fold, or evaluated now
-        let S: Float64Array | null = null;
-        if (S0) {
-          S = given ?? S0;
-          if (!given) this.sensOf(col, S0);
-        }
+        // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
+        const S: Float64Array | null = S0 ? (given ?? S0) : null;
+        let sReady = S0 === null || given !== null;
+        const needS = () => {
+          if (!sReady) {
+            this.sensOf(col, S0!);
+            sReady = true;
+          }
+        };
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
         let uniform = oneTissue[col] === 1;
@@ -653,6 +661,7 @@ export class CellStream {
             // every coil: fp·s_p on the moments Ym[p], the terms of |s_p|·‖Ym_p‖ at most ESTIMATE_TERM_CUT × the fold's
             // tolerance × the coil's largest left out (compared squared)
             if (!estimateRegrouping.on()) {
+              needS();
               // the reference: every coil's Σ_c fp·S_q(c)·Y[c] written out, then phased (no moments, no regrouping)
               colv.fill(0);
               for (let q = 0; q < coils; q++) {
@@ -662,7 +671,10 @@ export class CellStream {
               return;
             }
             const mom = givenMom ?? momS!, yn2 = YmNorm2[z]!, cut2 = (ESTIMATE_TERM_CUT * this.termTol) ** 2;
-            if (!givenMom) projectThroughSlice(psi!, S, coils, nw, mom);
+            if (!givenMom) {
+              needS();
+              projectThroughSlice(psi!, S, coils, nw, mom);
+            }
             keptMoments(mom, yn2, coils, nw, cut2, fp, gS);
             addYm!(z, gS, u, v);
             return;
@@ -687,6 +699,7 @@ export class CellStream {
         } else if (S && !this.eClass) {
           // several tissues (or fractions) through the slice: per tissue the weights g(c) = Σ pd·fraction of its
           // cells, colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] (exact), where every tissue's table is whole and flat
+          needS();
           let ng = 0, ok = true;
           for (let e = e0; e < e1 && ok; e++) {
             const ti = cells.entTissue[e]!, z = ti * D2 + sub;
@@ -742,6 +755,7 @@ export class CellStream {
           }
         }
         if (S && sensIso) {
+          needS();
           // each isochromat's sensitivity: its cell's, laid out as plan.sens for a set of n isochromats
           for (let q = 0; q < coils; q++) {
             for (let i = 0; i < n; i++) {
@@ -767,7 +781,7 @@ export class CellStream {
   estimateHooked(
     plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
     keyOf: Int32Array, keyDf: number[], keyR2: number[],
-  ): { finish: EstimateFinish; hook: (col: number, S: Float64Array, mom: Float64Array | null) => void } {
+  ): { finish: EstimateFinish; hook: (col: number, S: Float64Array | null, mom: Float64Array | null) => void } {
     const { visitor, hook } = this.hookedColumns();
     return { finish: estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, this.cells.count, visitor), hook };
   }

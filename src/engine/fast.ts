@@ -853,7 +853,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // each column's sensitivities (evaluated once); otherwise in a pass of their own before the last drain
   const actN = act.map((a) => a.n);
   const hooked = src.kind === "cells" && coils > 1 ? src.stream.estimateHooked(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2) : null;
-  const sensSource: { fill: ((col: number, S: Float64Array, mom: Float64Array | null) => boolean) | null } = { fill: null };
+  const sensSource: { fill: ((col: number, S: Float64Array | null, mom: Float64Array | null) => boolean) | null } = { fill: null };
   const folder = src.kind === "iso"
     ? foldPass(src.iso, plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX)
     : src.stream.fold(plan, G, R, 0, R, keyOf, keyDf, K, preU, preV, Mu, Mv, fRead, bw, L, Ck, XB, NX, tolerance / split, hooked?.hook, sensSource);
@@ -894,8 +894,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
         sensSource.fill = (col, S, mom) => {
           if (list[at] !== col) throw new Error("fast operator: sensitivities out of step with the fold");
           const o = at * per;
-          for (let i = 0; i < half; i++) S[i] = out[o + i]!;
-          if (mom) for (let i = 0; i < half; i++) mom[i] = out[o + half + i]!;
+          if (S) S.set(out.subarray(o, o + half));
+          if (mom) mom.set(out.subarray(o + half, o + per));
           at++;
           return true;
         };
