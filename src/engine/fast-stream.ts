@@ -627,6 +627,7 @@ export class CellStream {
       const colv = new Float64Array(2 * coils * NS), gS = new Float64Array(2 * coils * nw), momS = psi ? new Float64Array(2 * coils * nw) : null;
       // with sensitivities: the regrouped sums over the cells' samples Y (columns of several tissues) and over their moments Ym
       const addY = S0 ? setup.cellSums(Y, nw) : null, addYm = S0 ? setup.cellSums(Ym, nw) : null;
+      const kept = new Int32Array(coils * nw), m2 = new Float64Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
       return (col, given, givenMom) => {
@@ -675,8 +676,8 @@ export class CellStream {
               needS();
               projectThroughSlice(psi!, S, coils, nw, mom);
             }
-            keptMoments(mom, yn2, coils, nw, cut2, fp, gS);
-            addYm!(z, gS, u, v);
+            const k = keptMoments(mom, yn2, coils, nw, cut2, fp, gS, kept, m2);
+            addYm!(z, gS, u, v, kept, k);
             return;
           }
         } else if (!S && !this.eClass) {
@@ -890,24 +891,30 @@ export function setEstimateRegrouping(on: boolean): boolean {
 const ESTIMATE_TERM_CUT = 1e-3;
 
 /**
- * g[2·(q·nw + p)] = fp·mom[2·(q·nw + p)] (interleaved) where |mom_p|²·yn2[p] > cut2 × the coil's largest
- * of them, else 0: the estimate's terms of one coil-sensitive column of one tissue (yn2: ‖Ym_p‖²).
+ * The estimate's terms of one coil-sensitive column of one tissue: per coil q, the terms p with
+ * |mom_p|²·yn2[p] > cut2 × the coil's largest of them (yn2: ‖Ym_p‖²), as entry idx[i] = q·nw + p with the
+ * weight fp·mom_p at g[2i] (interleaved), in (q, p) order; returns their number. m2: nw numbers of scratch.
  */
-function keptMoments(mom: Float64Array, yn2: Float64Array, coils: number, nw: number, cut2: number, fp: number, g: Float64Array): void {
+function keptMoments(mom: Float64Array, yn2: Float64Array, coils: number, nw: number, cut2: number, fp: number, g: Float64Array, idx: Int32Array, m2: Float64Array): number {
+  let k = 0;
   for (let q = 0; q < coils; q++) {
     const o = 2 * q * nw;
     let big = 0;
     for (let p = 0; p < nw; p++) {
-      const gr = mom[o + 2 * p]!, gi = mom[o + 2 * p + 1]!;
-      big = Math.max(big, (gr * gr + gi * gi) * yn2[p]!);
+      const gr = mom[o + 2 * p]!, gi = mom[o + 2 * p + 1]!, e = (gr * gr + gi * gi) * yn2[p]!;
+      m2[p] = e;
+      if (e > big) big = e;
     }
     const cut = cut2 * big;
     for (let p = 0; p < nw; p++) {
-      const gr = mom[o + 2 * p]!, gi = mom[o + 2 * p + 1]!, keep = (gr * gr + gi * gi) * yn2[p]! > cut;
-      g[o + 2 * p] = keep ? gr * fp : 0;
-      g[o + 2 * p + 1] = keep ? gi * fp : 0;
+      if (!(m2[p]! > cut)) continue;
+      idx[k] = q * nw + p;
+      g[2 * k] = mom[o + 2 * p]! * fp;
+      g[2 * k + 1] = mom[o + 2 * p + 1]! * fp;
+      k++;
     }
   }
+  return k;
 }
 
 /**

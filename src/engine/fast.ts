@@ -1275,10 +1275,10 @@ export interface EstimateSetup {
    * Any number of coils: for tables of `nw` rows of samples each (row c of table z at
    * tables[z][2·(c·S + s)]), a function that adds a column whose sums before the in-plane phase are,
    * per coil q, Σ_c g[q][c]·row c of table z (g interleaved at g[2·(q·nw + c)]; zero weights cost
-   * nothing): the same direct sum regrouped per read position (Σ over its columns of g·exp(−i2π ky·v)
+   * nothing; or, given idx and k, the k weights g[2i] of entries idx[i] = q·nw + c alone): the same direct sum regrouped per read position (Σ over its columns of g·exp(−i2π ky·v)
    * per table, coil, row and estimate row, then × the table row and exp(−i2π kx·u)).
    */
-  cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number) => void;
+  cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number, idx?: Int32Array, k?: number) => void;
 }
 
 /** acc[a + 2·(i·NR + w)] += g_i·ev_w for the n complex weights g_i (interleaved; zeros skipped) and the NR row phases ev. */
@@ -1286,6 +1286,18 @@ function addCellRows(acc: Float64Array, a: number, g: Float64Array, ev: Float64A
   for (let i = 0; i < n; i++) {
     const gr = g[2 * i]!, gi = g[2 * i + 1]!, o = a + 2 * i * NR;
     if (gr === 0 && gi === 0) continue;
+    for (let w = 0; w < NR; w++) {
+      const er = ev[2 * w]!, ei = ev[2 * w + 1]!;
+      acc[o + 2 * w] = acc[o + 2 * w]! + (gr * er - gi * ei);
+      acc[o + 2 * w + 1] = acc[o + 2 * w + 1]! + (gr * ei + gi * er);
+    }
+  }
+}
+
+/** acc[a + 2·(idx[i]·NR + w)] += g_i·ev_w for the k complex weights g_i (interleaved) of entries idx[i], and the NR row phases ev. */
+function addCellRowsAt(acc: Float64Array, a: number, g: Float64Array, idx: Int32Array, k: number, ev: Float64Array, NR: number): void {
+  for (let i = 0; i < k; i++) {
+    const gr = g[2 * i]!, gi = g[2 * i + 1]!, o = a + 2 * idx[i]! * NR;
     for (let w = 0; w < NR; w++) {
       const er = ev[2 * w]!, ei = ev[2 * w + 1]!;
       acc[o + 2 * w] = acc[o + 2 * w]! + (gr * er - gi * ei);
@@ -1302,6 +1314,9 @@ function addCellSamples(tot: Float64Array, acc: Float64Array, a: number, y: Floa
   for (let q = 0; q < coils; q++) {
     for (let c = 0; c < nw; c++) {
       const b = a + 2 * NR * (q * nw + c), yc = 2 * c * S;
+      let any = false;
+      for (let x = b; x < b + 2 * NR; x++) any ||= acc[x] !== 0;
+      if (!any) continue;
       for (let s = 0; s < S; s++) {
         const w = Math.floor(s / PJ);
         const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = acc[b + 2 * w]!, bi = acc[b + 2 * w + 1]!;
@@ -1451,7 +1466,7 @@ export function estimateOver(
       n = 0;
     };
     cellFlushes.push(flush);
-    return (z: number, g: Float64Array, u: number, v: number) => {
+    return (z: number, g: Float64Array, u: number, v: number, idx?: Int32Array, k = 0) => {
       if (u !== at) {
         flush();
         at = u;
@@ -1460,7 +1475,8 @@ export function estimateOver(
         seen[z] = 1;
         touched[n++] = z;
       }
-      addCellRows(acc, coils * per * z, g, evAt(v), coils * nw, NR);
+      if (idx) addCellRowsAt(acc, coils * per * z, g, idx, k, evAt(v), NR);
+      else addCellRows(acc, coils * per * z, g, evAt(v), coils * nw, NR);
     };
   };
   const addPhased = (u: number, v: number, colv: Float64Array) => {
