@@ -2,6 +2,7 @@ import { describe, expect, it } from "vitest";
 import {
   cellsEnclosureMargin, ellipticKE, ellipticKEMany, enclosureMargin, loopField, loopFieldLocal, loopPlacement, sensitivitiesAt, sensitivityScale, MU0, type CoilArray,
 } from "../src/dataset/coils.js";
+import { ellipticKEWasm, setEllipticWasm } from "../src/dataset/elliptic-wasm.js";
 
 /** Slow direct Biot–Savart sum, dB = μ0·I/(4π)·dl × (p − l)/|p − l|³, over n straight pieces (midpoint rule; periodic integrand). */
 function biotSavartDirect(a: number, c: number[], nrm: number[], p: number[], n: number): number[] {
@@ -122,6 +123,34 @@ describe("coil field (Biot–Savart)", () => {
       ellipticKE(m[i]!, one);
       expect(K[i]).toBe(one[0]);
       expect(E[i]).toBe(one[1]);
+    }
+  });
+
+  it("the SIMD kernel of the elliptic integrals (elliptic-wasm.ts) gives the bits of ellipticKE, an odd count and converged lanes included", () => {
+    // m from 0 to 1 − 2⁻⁵², very small m (one iteration or none), and NaN: each lane iterates on its own while its pair goes on
+    let seed = 5;
+    const rnd = () => ((seed = (seed * 1103515245 + 12345) % 2147483648) / 2147483648);
+    for (const n of [1, 2, 7, 63, 64]) {
+      const m = Float64Array.from({ length: n }, (_, i) => (i % 4 === 0 ? rnd() : i % 4 === 1 ? 1 - 10 ** (-16 * rnd()) : i % 4 === 2 ? 10 ** (-30 * rnd()) : rnd() ** 8));
+      if (n === 64) {
+        m[0] = 0;
+        m[1] = 1 - 2 ** -52;
+        m[2] = NaN;
+        m[3] = 1e-300;
+      }
+      const K = new Float64Array(n), E = new Float64Array(n), one = new Float64Array(2);
+      expect(ellipticKEWasm(m, n, K, E)).toBe(true);
+      for (let i = 0; i < n; i++) {
+        ellipticKE(m[i]!, one);
+        expect(Object.is(K[i], one[0]) && Object.is(E[i], one[1])).toBe(true);
+      }
+    }
+    // switched off: nothing written, the TypeScript runs instead
+    const was = setEllipticWasm(false);
+    try {
+      expect(ellipticKEWasm(new Float64Array([0.5]), 1, new Float64Array(1), new Float64Array(1))).toBe(false);
+    } finally {
+      setEllipticWasm(was);
     }
   });
 

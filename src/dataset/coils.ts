@@ -38,6 +38,7 @@
  * centre (0, 0, zc). The uniform "body" coil has S = 1 everywhere.
  */
 import { MU0 } from "../constants.js";
+import { ellipticKEWasm } from "./elliptic-wasm.js";
 
 export { MU0 };
 
@@ -278,7 +279,8 @@ function loopFieldMany(a: number, c: readonly number[], nrm: readonly number[], 
     beta[i] = Math.sqrt(be2);
     m[i] = 1 - al2 / be2;
   }
-  ellipticKEMany(m, n, K, E, KE_A, KE_B, KE_C, KE_S);
+  // on the SIMD kernel where it runs (elliptic-wasm.ts: the same bits)
+  if (!ellipticKEWasm(m, n, K, E)) ellipticKEMany(m, n, K, E, KE_A, KE_B, KE_C, KE_S);
   for (let i = 0; i < n; i++) {
     const rh = rho[i]!, ze = zeta[i]!, q2 = r2[i]!, al2 = alpha2[i]!, k = K[i]!, e = E[i]!;
     const cc = (MU0 * 1) / (2 * Math.PI * al2 * beta[i]!);
