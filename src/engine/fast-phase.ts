@@ -272,29 +272,40 @@ export interface SensShared {
   cols: SharedArrayBuffer[]; out: SharedArrayBuffer[];
 }
 
+/** Columns whose sensitivities evalSens evaluates in one call (their cells' centres together: one batch per loop instead of one per column). */
+const SENS_CHUNK = 16;
+
 /** The sensitivities and their through-slice moments of columns cols[0 … n) into out (per column 4·coils·nw numbers, see SensShared.out), as CellStream.sensOf and the fold make them. */
 function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int32Array, n: number, out: Float64Array, px: Float64Array, py: Float64Array, pz: Float64Array, one: Float64Array, psi: Float64Array, mom: Float64Array, proj: SliceProjector | null): void {
-  const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, half = 2 * sh.coils * nw, per = 2 * half;
+  const { uGrid, vGrid, wGrid, axes } = sh, nw = wGrid.length, coils = sh.coils, half = 2 * coils * nw, per = 2 * half;
   // the moments of every column at once on the SIMD kernel where it runs (the same bits as projectThroughSlice)
-  const pm = proj ? proj.reserve(n * sh.coils) : null, sAt = proj ? proj.sAt() : 0;
-  for (let i = 0; i < n; i++) {
-    const col = cols[i]!, u = uGrid[colA[col]!]!, v = vGrid[colB[col]!]!;
-    for (let c = 0; c < nw; c++) {
-      const w = wGrid[c]!;
-      px[c] = axes.read[0]! * u + axes.phase[0]! * v + axes.slice[0]! * w;
-      py[c] = axes.read[1]! * u + axes.phase[1]! * v + axes.slice[1]! * w;
-      pz[c] = axes.read[2]! * u + axes.phase[2]! * v + axes.slice[2]! * w;
+  const pm = proj ? proj.reserve(n * coils) : null, sAt = proj ? proj.sAt() : 0;
+  for (let i0 = 0; i0 < n; i0 += SENS_CHUNK) {
+    // the cell centres of up to SENS_CHUNK columns, evaluated together (each point's numbers as alone)
+    const k = Math.min(SENS_CHUNK, n - i0), count = k * nw;
+    for (let j = 0; j < k; j++) {
+      const col = cols[i0 + j]!, u = uGrid[colA[col]!]!, v = vGrid[colB[col]!]!;
+      for (let c = 0; c < nw; c++) {
+        const w = wGrid[c]!;
+        px[j * nw + c] = axes.read[0]! * u + axes.phase[0]! * v + axes.slice[0]! * w;
+        py[j * nw + c] = axes.read[1]! * u + axes.phase[1]! * v + axes.slice[1]! * w;
+        pz[j * nw + c] = axes.read[2]! * u + axes.phase[2]! * v + axes.slice[2]! * w;
+      }
     }
-    uniformAndLoops(sh.loops, px, py, pz, nw, one);
-    out.set(one, i * per);
-    if (pm) pm.set(one, sAt + i * half);
-    else {
-      projectThroughSlice(psi, one, sh.coils, nw, mom);
-      out.set(mom, i * per + half);
+    uniformAndLoops(sh.loops, px, py, pz, count, one);
+    for (let j = 0; j < k; j++) {
+      const i = i0 + j, o = i * per;
+      // coil q's nw values of column j at one[2·(q·count + j·nw) …], laid out per column as sensOf does (2·(q·nw + c))
+      for (let q = 0; q < coils; q++) out.set(one.subarray(2 * (q * count + j * nw), 2 * (q * count + (j + 1) * nw)), o + 2 * q * nw);
+      if (pm) pm.set(out.subarray(o, o + half), sAt + i * half);
+      else {
+        projectThroughSlice(psi, out.subarray(o, o + half), coils, nw, mom);
+        out.set(mom, o + half);
+      }
     }
   }
   if (pm) {
-    proj!.run(n * sh.coils);
+    proj!.run(n * coils);
     const m0 = proj!.momAt();
     for (let i = 0; i < n; i++) out.set(pm.subarray(m0 + i * half, m0 + (i + 1) * half), i * per + half);
   }
@@ -412,7 +423,7 @@ function sensViews(sh: SensShared): SensViews {
   const nw = sh.wGrid.length, psi = throughSliceBasis(sh.wGrid);
   return {
     colA: new Int32Array(sh.colA), colB: new Int32Array(sh.colB), cols: sh.cols.map((b) => new Int32Array(b)), out: sh.out.map((b) => new Float64Array(b)),
-    px: new Float64Array(nw), py: new Float64Array(nw), pz: new Float64Array(nw), one: new Float64Array(2 * sh.coils * nw),
+    px: new Float64Array(SENS_CHUNK * nw), py: new Float64Array(SENS_CHUNK * nw), pz: new Float64Array(SENS_CHUNK * nw), one: new Float64Array(2 * sh.coils * SENS_CHUNK * nw),
     psi, mom: new Float64Array(2 * sh.coils * nw), proj: SliceProjector.make(psi, nw, sh.wasm),
   };
 }
