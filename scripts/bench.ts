@@ -401,7 +401,7 @@ function datasetRun(args: string[], out: string): { seconds: number; wall: numbe
 }
 
 /** Runs of each dataset case (1 and 8 coils), alternating. */
-const DATASET_PAIRS = Number(process.env["BENCH_DATASET_PAIRS"] ?? 3);
+const DATASET_PAIRS = Number(process.env["BENCH_DATASET_PAIRS"] ?? 5);
 
 /** Dataset rows: a 128² torso case with 1 and 8 coils, and the cases per hour of an eight-coil batch (issue 13 targets: ≤ 10 s, ≤ 2× one coil). */
 function datasetRows(): void {
