@@ -215,7 +215,13 @@ export async function simulateCells(
     const res = await storedWith(opts);
     return { ...res, readout: { ...res.readout, weights: stream.tooMany } };
   }
-  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), { ...opts, coils: coils?.sens.coils ?? 1, sliceTablesOnly: true });
+  // the plan's options written out (one object shape on every run: a spread of the caller's options gave the plan
+  // code a new shape per caller and cost V8 a recompile of it in later runs)
+  const planOpts: PlanOptions = {
+    receiverFilter: opts.receiverFilter, coils: coils?.sens.coils ?? 1, sens: null, chunkIsochromats: opts.chunkIsochromats,
+    general: opts.general ?? false, wasm: opts.wasm ?? true, sliceTablesOnly: true,
+  };
+  const plan = planFromClasses(seq, cells, stream.spec, chunkStarts(cells, opts.chunkIsochromats), planOpts);
   if (fastPrecheck(plan) !== null) return stored();
   // the helper writes the pages of the fast operator's shared arrays from now on (before the cost prediction)
   prepareHelperMemory(seq, plan, cells, tolerance, executor.threads ?? 2);

@@ -107,8 +107,6 @@ type MomentsFn = (stage: number, coils: number, W: number, L: number, terms: num
 /**
  * One fold's moment sums on the SIMD kernel (an instance of its own): the
  * tables copied in once, then per column the terms of each coil and one call.
- * The estimate's column sums (fast-stream.ts columnEstimator) use it too, with
- * W = 1 and L = its samples.
  */
 export class FoldMoments {
   private readonly f64: Float64Array;
