@@ -772,7 +772,7 @@ export class CellStream {
 
   /** The a-posteriori estimate (fast.ts estimateOver) over the streamed columns. */
   estimate(
-    plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+    plan: EnginePlan, h: History, actN: number[], ky: Float64Array, kx0: number, dkx: number, ns: number, dwell: number,
     keyOf: Int32Array, keyDf: number[], keyR2: number[],
   ): EstimateFinish {
     return estimateOver(plan, h, actN, ky, kx0, dkx, ns, dwell, keyOf, keyDf, keyR2, this.cells.count, this.columns());
@@ -780,7 +780,7 @@ export class CellStream {
 
   /** The estimate with its column sums made inside the fold's pass (hookedColumns): `finish` once the fold has visited every column. */
   estimateHooked(
-    plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+    plan: EnginePlan, h: History, actN: number[], ky: Float64Array, kx0: number, dkx: number, ns: number, dwell: number,
     keyOf: Int32Array, keyDf: number[], keyR2: number[],
   ): { finish: EstimateFinish; hook: (col: number, S: Float64Array | null, mom: Float64Array | null) => void } {
     const { visitor, hook } = this.hookedColumns();

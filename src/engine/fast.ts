@@ -636,7 +636,9 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     su = dkx < 0 ? -1 : 1;
     if (!(dkx !== 0) || !(Mu >= 1) || Math.abs(x - Mu) > 1e-7 || Mu > 1 << 22) return `read sampling step × grid step is not 1/whole number (${x}): not covered by the fast operator`;
   }
-  const ky = act.map((a) => GAMMA_BAR * a.area[1]);
+  // a typed array: its shape is the same in every run (an array's elements kind can change between runs, and with it the
+  // shape this function's compiled code expects)
+  const ky = Float64Array.from(act, (a) => GAMMA_BAR * a.area[1]);
   const kyRef = ky[0]!;
   const mLine = new Int32Array(act.length);
   let Mv = 1;
@@ -1229,7 +1231,7 @@ export function mulberry32(seed: number): () => number {
  * subset, all coils (the margin covers the sampling of the subset).
  */
 function estimate(
-  plan: EnginePlan, iso: IsochromatSet, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+  plan: EnginePlan, iso: IsochromatSet, h: History, actN: number[], ky: Float64Array, kx0: number, dkx: number, ns: number, dwell: number,
   keyOf: Int32Array, keyDf: number[], keyR2: number[],
 ): EstimateFinish {
   const { uGrid, vGrid, iu, iv, m0, df, colStart } = iso;
@@ -1334,7 +1336,7 @@ export type EstimateFinish = (re: Float64Array, im: Float64Array) => { samples: 
 
 /** The a-posteriori estimate over columns given by `columns` (see {@link estimate}): the direct sums now, the comparison with the fast k-space by the returned function. */
 export function estimateOver(
-  plan: EnginePlan, h: History, actN: number[], ky: number[], kx0: number, dkx: number, ns: number, dwell: number,
+  plan: EnginePlan, h: History, actN: number[], ky: Float64Array, kx0: number, dkx: number, ns: number, dwell: number,
   keyOf: Int32Array, keyDf: number[], keyR2: number[],
   count: number, columns: ColumnVisitor,
 ): EstimateFinish {
