@@ -98,7 +98,8 @@ export function ellipticKEWasm(m: Float64Array, n: number, K: Float64Array, E: F
     kernel = newKernel();
     if (kernel) reserveKernelMemory(kernel, 24 * MAX_POINTS);
   }
-  if (!kernel || n <= 0) return kernel !== null && n === 0;
+  if (!kernel) return false;
+  if (n <= 0) return true;
   const f = kernel.f64;
   for (let i = 0; i < n; i++) f[i] = m[i]!;
   // an odd count: the last lane pair's second lane is m = 0 (its result unused)

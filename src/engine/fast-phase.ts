@@ -295,10 +295,17 @@ function evalSens(sh: SensShared, colA: Int32Array, colB: Int32Array, cols: Int3
     uniformAndLoops(sh.loops, px, py, pz, count, one);
     for (let j = 0; j < k; j++) {
       const i = i0 + j, o = i * per;
-      // coil q's nw values of column j at one[2·(q·count + j·nw) …], laid out per column as sensOf does (2·(q·nw + c))
-      for (let q = 0; q < coils; q++) out.set(one.subarray(2 * (q * count + j * nw), 2 * (q * count + (j + 1) * nw)), o + 2 * q * nw);
-      if (pm) pm.set(out.subarray(o, o + half), sAt + i * half);
-      else {
+      // coil q's nw values of column j at one[2·(q·count + j·nw) …], laid out per column as sensOf does (2·(q·nw + c)),
+      // and for the projector (no view made per column: this runs for every column)
+      for (let q = 0; q < coils; q++) {
+        const from = 2 * (q * count + j * nw), to = o + 2 * q * nw, pt = sAt + i * half + 2 * q * nw;
+        for (let x = 0; x < 2 * nw; x++) {
+          const val = one[from + x]!;
+          out[to + x] = val;
+          if (pm) pm[pt + x] = val;
+        }
+      }
+      if (!pm) {
         projectThroughSlice(psi, out.subarray(o, o + half), coils, nw, mom);
         out.set(mom, o + half);
       }

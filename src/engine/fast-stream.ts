@@ -385,7 +385,8 @@ export class CellStream {
       // at sAll[2·(q·nw + p)] (the estimate's column sums use them too)
       const mom = hasSens && uniform ? sAll : null;
       // such a column where the receiver filter is flat over its table's keys uses the moments alone
-      const flat = uniform && (!filt || flatFor(fRead * u, full[colTi[col]! * D2 + sub]!.dfLo, full[colTi[col]! * D2 + sub]!.dfHi, bw));
+      const tab = uniform ? full[colTi[col]! * D2 + sub]! : null;
+      const flat = tab !== null && (!filt || flatFor(fRead * u, tab.dfLo, tab.dfHi, bw));
       let sGiven = true;
       if (hasSens) {
         // evaluated ahead (by a helper thread, with their moments) where the caller has them: then only what this
@@ -397,8 +398,8 @@ export class CellStream {
       }
       // the estimate gets the sensitivities where they were copied (it evaluates them itself where it needs them and they were not)
       if (onColumn) onColumn(col, sGiven ? S : null, mom);
-      if (uniform) {
-        const ti = colTi[col]!, fp = colFp[col]!, tab = full[ti * D2 + sub]!;
+      if (tab) {
+        const ti = colTi[col]!, fp = colFp[col]!;
         if (flat) {
           const sr = pr0 * fp, si = pi0 * fp, rl = tab.rl;
           // the SIMD kernel writes the position's whole run (below); the other sums are added into it
