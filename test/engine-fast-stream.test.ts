@@ -20,7 +20,7 @@ import { prepare } from "../src/cli/pipeline.js";
 import { serialExecutor, simulateCells, simulateSerial } from "../src/engine/node.js";
 import { expandCells, type IsochromatOptions } from "../src/isochromats/index.js";
 import { relL2, tempDir, writeJson } from "./helpers.js";
-import { CellStream, setEstimateRegrouping } from "../src/engine/fast-stream.js";
+import { CellStream, coherenceSpan, DfNodes, INTERP_ORDER, setEstimateRegrouping, setInterpolationMinClasses, stepFor } from "../src/engine/fast-stream.js";
 import { rfClasses } from "../src/engine/plan.js";
 import { encodeNpy } from "../src/io/npy.js";
 
@@ -317,4 +317,105 @@ describe("the a-posteriori estimate's reference sums", () => {
     // the estimate: 3 × the subset's relative error, itself of the order of the true error (plus rounding)
     expect(fast.readout.estimate!.relL2).toBeLessThan(1e-8);
   }, 60_000);
+});
+
+describe("a B0 model with very many RF classes: Δf interpolated between nodes (fast-stream.ts DfNodes)", () => {
+  // Every cell has its own Δf, so the exact classes are as many as the isochromats; the stream instead puts nodes in
+  // Δf (per through-slice index and tissue) and replaces each isochromat by the INTERP_ORDER isochromats at the nodes
+  // around its Δf, weighted by the Lagrange polynomials (the Lagrange remainder bounds the error from the coherence
+  // span, common practice). The oracle: the direct operator on the stored isochromats with their exact Δf.
+  const forced = async <T>(f: () => Promise<T>): Promise<T> => {
+    const was = setInterpolationMinClasses(0);
+    try {
+      return await f();
+    } finally {
+      setInterpolationMinClasses(was);
+    }
+  };
+  test.each([
+    ["B0 expression, multi-peak fat, T2′ spread", ["spoiling=ideal"], { b0: "60 * x / 0.05 + 300 * y * y / 0.0025 + 15", iso: { t2primeIsochromats: 4 } }],
+    ["B0 from a .npy field map, TE 14 ms, 3 T", ["spoiling=ideal", "field=3 T", "te=14 ms", "tr=40 ms"], { b0: "npy", iso: { t2primeIsochromats: 2 } }],
+    ["torso, gre-t1-3t, B0 expression", ["spoiling=ideal"], { protocol: "gre-t1-3t", phantom: "torso-b0", matrix: 20, iso: { t2primeIsochromats: 2 } }],
+  ])("%s: within the tolerance of direct, the estimate (with the probes' error) bounds the error", async (_name, sets, opts) => {
+    let phantom: string | undefined;
+    if (opts.phantom === "torso-b0") {
+      const j = JSON.parse(readFileSync("phantoms/torso-slice.json", "utf8")) as Record<string, unknown>;
+      j["b0"] = { expression: "200 * x + 150 * y + 12" };
+      phantom = writeJson(tempDir(), "torso-b0.json", j);
+    }
+    const p = prep(sets, { ...opts, phantom });
+    const fast = await forced(() => streamed(p));
+    const rep = fast.readout;
+    expect(rep.operator).toBe("fast");
+    expect(fast.stored).toBe(0);
+    const ip = rep.b0Interpolation!;
+    expect(ip.order).toBe(INTERP_ORDER);
+    expect(ip.probes).toBeGreaterThan(0);
+    expect(ip.maxRelError).toBeLessThan(1e-6 / 8);
+    const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-6);
+    expect(rep.estimate!.relL2).toBeGreaterThanOrEqual(err);
+    // the same case with the exact classes (no interpolation): also within the tolerance
+    const exact = await streamed(p);
+    expect(exact.readout.b0Interpolation).toBeUndefined();
+    expect(relL2(exact.kspace.re, exact.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
+  }, 60_000);
+
+  test("4 loops + the uniform coil (dataset), B0 expression: within the tolerance of the direct operator with per-isochromat sensitivities", async () => {
+    const { simulateCoilsPlanned } = await import("../src/dataset/simulate.js");
+    const p = prep(["spoiling=ideal", "fov.read=12 cm", "fov.phase=12 cm"], { b0: "400 * x + 250 * y + 300 * x * y / 0.05", matrix: 20, iso: { density: 2, sliceCount: 4, t2primeIsochromats: 2 } });
+    const array = { elements: 4, rows: 1, loopRadius: 0.04, arrayRadius: 0.15, rowSpacing: 0, zCentre: 0 };
+    const fast = await forced(() => simulateCoilsPlanned(p.seq, p, array, true, serialExecutor(), undefined, { readout: "fast" }));
+    const rep = fast.readout[0]!;
+    expect(rep.operator).toBe("fast");
+    expect(rep.weights).toMatch(/streamed/);
+    expect(rep.b0Interpolation!.maxRelError).toBeLessThan(1e-6 / 8);
+    const direct = await simulateCoilsPlanned(p.seq, p.iso, array, true, serialExecutor(), undefined, { readout: "direct" });
+    const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeLessThan(1e-6);
+    expect(rep.estimate!.relL2).toBeGreaterThanOrEqual(err);
+  }, 60_000);
+
+  test("the interpolation is what keeps the error small: nodes 8× further apart fail the tolerance, and the probes see it", async () => {
+    const p = prep(["spoiling=ideal", "te=14 ms", "tr=40 ms"], { b0: "60 * x / 0.05 + 300 * y * y / 0.0025 + 15", iso: { t2primeIsochromats: 2 } });
+    const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
+    // a tolerance 8^6 looser sets nodes 8× further apart (the step grows as tolerance^(1/6))
+    const coarse = await forced(() => streamed(p, "fast", 1e-6 * 8 ** 6));
+    const ip = coarse.readout.b0Interpolation!;
+    expect(ip.stepHz).toBeGreaterThan(7 * stepFor(1e-6 / 16, ip.span));
+    const err = relL2(coarse.kspace.re, coarse.kspace.im, direct.kspace.re, direct.kspace.im);
+    expect(err).toBeGreaterThan(1e-6);
+    expect(coarse.readout.estimate!.relL2).toBeGreaterThanOrEqual(err);
+  }, 60_000);
+
+  test("coherenceSpan: from the first pulse after an ideal spoil to the end of its readout", () => {
+    const pulses = [{ duration: 0.002 }];
+    const blocks = [
+      { kind: "rf", pulse: 0, phase: 0 }, { kind: "free", duration: 0.003, area: [0, 0, 0] },
+      { kind: "adc", samples: 100, dwell: 1e-5, grad: [0, 0, 0], row: 0, phase: 0, weight: 1 }, { kind: "spoil" },
+      { kind: "free", duration: 0.01, area: [0, 0, 0] },
+      { kind: "rf", pulse: 0, phase: 0 }, { kind: "free", duration: 0.004, area: [0, 0, 0] },
+      { kind: "adc", samples: 100, dwell: 1e-5, grad: [0, 0, 0], row: 1, phase: 0, weight: 1 }, { kind: "spoil" },
+    ] as const;
+    expect(coherenceSpan({ blocks: blocks as never, pulses })).toBeCloseTo(0.002 + 0.004 + 0.001, 12);
+  });
+
+  test("Lagrange weights: exact on polynomials of degree < INTERP_ORDER, and sum to 1", () => {
+    const lo = new Float64Array([-10]), base = new Int32Array([0]), gM = new Int32Array([40]);
+    const nodes = new DfNodes(0.5, lo, base, gM, new Float64Array(0));
+    const wt = new Float64Array(INTERP_ORDER);
+    const half = INTERP_ORDER / 2 - 1;
+    const poly = (x: number) => 0.3 - 0.2 * x + 0.01 * x ** 2 + 0.003 * x ** 5;
+    for (const df of [-9.93, -3.1, 0, 0.25, 7.77]) {
+      const k0 = nodes.expand(df, 0, wt);
+      let sum = 0, val = 0;
+      for (let i = 0; i < INTERP_ORDER; i++) {
+        sum += wt[i]!;
+        val += wt[i]! * poly(-10 + (k0 + i - half) * 0.5);
+      }
+      expect(Math.abs(sum - 1)).toBeLessThan(1e-12);
+      expect(Math.abs(val - poly(df))).toBeLessThan(1e-9);
+    }
+  });
 });

@@ -13,7 +13,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
 import { chunkStarts, fillRfMaps, planFromClasses, planLayout, shareEngineArrays, type EnginePlan, type PlanOptions } from "./plan.js";
-import { CellStream, MAX_STREAM_CLASSES, type CellSensitivities } from "./fast-stream.js";
+import { CellStream, coherenceSpan, MAX_STREAM_CLASSES, type CellSensitivities } from "./fast-stream.js";
 import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
@@ -210,7 +210,8 @@ export async function simulateCells(
   if (requested === "direct" || opts.general || (opts.coils ?? 1) !== 1 || opts.sens || CellStream.refusal(cells) !== null) return stored();
   // with a B0 model the classes are hashed from the cells, stopping where the line factor could not hold them (fastPrecheck)
   const nAdc = seq.blocks.reduce((n, b) => n + (b.kind === "adc" ? 1 : 0), 0);
-  const stream = new CellStream(cells, coils?.sens ?? null, Math.min(MAX_STREAM_CLASSES, Math.floor(MAX_CLASS_LINES / Math.max(1, nAdc))));
+  // (a B0 model with very many classes: interpolated in Δf within the tolerance, where that gives fewer)
+  const stream = new CellStream(cells, coils?.sens ?? null, Math.min(MAX_STREAM_CLASSES, Math.floor(MAX_CLASS_LINES / Math.max(1, nAdc))), { span: coherenceSpan(seq), tolerance });
   if (stream.tooMany !== null) {
     const res = await storedWith(opts);
     return { ...res, readout: { ...res.readout, weights: stream.tooMany } };

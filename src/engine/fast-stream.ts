@@ -17,6 +17,18 @@
  * isochromat, against the stored set's arrays), and the class table.
  * Where the classes are too many for the operator (MAX_CLASSES here, the line
  * factor's size in fast.ts fastPrecheck) the caller runs the stored path.
+ *
+ * Where a B0 model gives more classes than INTERP_MIN_CLASSES (Δf differs in
+ * every cell), the classes are instead nodes in Δf, spaced `stepHz`, per
+ * (through-slice index, tissue): an isochromat of frequency Δf is replaced by
+ * the INTERP_ORDER isochromats at the nodes around it, weighted by the
+ * Lagrange polynomials at Δf (DfNodes). What is interpolated is the whole
+ * signal of the isochromat as a function of Δf — the RF response, the
+ * precession up to the readout and the readout's own decay and precession —
+ * a smooth function whose Δf-derivatives are bounded by (2πτ)^k, τ the span
+ * from a coherence's first pulse to the end of its readout (coherenceSpan);
+ * the node step is set from that bound and the tolerance (stepFor). Seeded
+ * probe classes at exact Δf check it after the history (interpolationError).
  */
 import type { ColumnFolder } from "./fast.js";
 import { cellTerms, type IsochromatCells } from "../isochromats/index.js";
@@ -25,14 +37,118 @@ import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
 import { FoldMoments } from "./fold-wasm.js";
 import { kernelSwitch } from "./wasm-asm.js";
 import { openPosition } from "./fast-phase.js";
-import { addSegments, estimateOver, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
+import { addSegments, estimateOver, mulberry32, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
 import type { CoilArray } from "../dataset/coils.js";
+import type { Block } from "../sequence/types.js";
 
 /** More RF classes than this (a B0 model giving each cell its own Δf) are not hashed: the stored path runs. */
 export const MAX_STREAM_CLASSES = 1 << 22;
+
+/** A B0 model with more exact classes than this interpolates in Δf (when the caller allows it and the nodes are fewer). */
+export const INTERP_MIN_CLASSES = 1 << 16;
+let interpMinClasses = INTERP_MIN_CLASSES;
+/** Tests: interpolate in Δf from this many exact classes (0: whenever there is a B0 model, even where the nodes are more); returns the previous value. */
+export function setInterpolationMinClasses(n: number): number {
+  const old = interpMinClasses;
+  interpMinClasses = n;
+  return old;
+}
+/** Points of the Lagrange interpolation in Δf (even: nodes on both sides of Δf). */
+export const INTERP_ORDER = 6;
+/** Probe classes at exact Δf (seeded) checking the interpolation after the history. */
+export const INTERP_PROBES = 48;
+const INTERP_SEED = 40213;
+
+/** What the caller allows: interpolation in Δf for a sequence whose coherences span `span` s, within `tolerance` (relative). */
+export interface InterpolationOptions {
+  span: number;
+  tolerance: number;
+}
+
+/**
+ * Longest span (s) from the first pulse after an ideal spoil (or the start) to
+ * the end of a readout of that coherence: the transverse signal at a readout
+ * depends on Δf through the pulses and precession within this span only.
+ */
+export function coherenceSpan(seq: { blocks: readonly Block[]; pulses: readonly { duration: number }[] }): number {
+  let t = 0, start = NaN, span = 0;
+  for (const b of seq.blocks) {
+    if (b.kind === "rf") {
+      if (Number.isNaN(start)) start = t;
+      t += seq.pulses[b.pulse]!.duration;
+    } else if (b.kind === "free") t += b.duration;
+    else if (b.kind === "adc") {
+      t += b.samples * b.dwell;
+      if (!Number.isNaN(start)) span = Math.max(span, t - start);
+    } else start = NaN;
+  }
+  return span;
+}
+
+/** max over s in [0, 1) of |Π_j (s − a_j)|, a_j = j − (p/2 − 1): the node polynomial of p-point interpolation on unit steps. */
+function nodePolynomialMax(p: number): number {
+  let m = 0;
+  for (let k = 0; k <= 1000; k++) {
+    const s = k / 1000;
+    let v = 1;
+    for (let j = 0; j < p; j++) v *= s - (j - (p / 2 - 1));
+    m = Math.max(m, Math.abs(v));
+  }
+  return m;
+}
+
+/**
+ * Node step (Hz) for p-point interpolation of a function whose k-th
+ * Δf-derivative is at most (2πτ)^k times its size: the remainder bound
+ * (2πτh)^p·max|Π(s − a_j)|/p! (the remainder of Lagrange interpolation,
+ * f − p_f = f^(p)(ξ)/p!·Π(x − x_j); common practice) set equal to `eps`.
+ */
+export function stepFor(eps: number, span: number, p = INTERP_ORDER): number {
+  let fact = 1;
+  for (let k = 2; k <= p; k++) fact *= k;
+  return (eps * fact / nodePolynomialMax(p)) ** (1 / p) / (2 * Math.PI * Math.max(span, 1e-9));
+}
+
+/**
+ * Nodes in Δf per group g = (through-slice index, tissue): node k of group g is
+ * class gBase[g] + k at Δf = gLo[g] + (k − (p/2 − 1))·step, k = 0 … gM[g] + p − 1.
+ */
+export class DfNodes {
+  readonly p = INTERP_ORDER;
+  /** Lagrange denominators Π_{j≠i}(a_i − a_j). */
+  private readonly den: Float64Array;
+  private readonly d: Float64Array;
+  constructor(readonly step: number, readonly gLo: Float64Array, readonly gBase: Int32Array, readonly gM: Int32Array, readonly eB0: Float64Array) {
+    const p = this.p;
+    this.den = new Float64Array(p);
+    this.d = new Float64Array(p);
+    for (let i = 0; i < p; i++) {
+      let v = 1;
+      for (let j = 0; j < p; j++) if (j !== i) v *= i - j;
+      this.den[i] = v;
+    }
+  }
+
+  /** Δf of group g → its first node's class (returned) and the p weights in wt. */
+  expand(df: number, g: number, wt: Float64Array): number {
+    const p = this.p, h = p / 2 - 1, d = this.d;
+    const x = (df - this.gLo[g]!) / this.step;
+    let m = Math.floor(x);
+    if (m < 0) m = 0;
+    else if (m > this.gM[g]!) m = this.gM[g]!;
+    const s = x - m;
+    for (let j = 0; j < p; j++) d[j] = s - (j - h);
+    for (let i = 0; i < p; i++) {
+      let v = 1;
+      for (let j = 0; j < p; j++) if (j !== i) v *= d[j]!;
+      wt[i] = v / this.den[i]!;
+    }
+    return this.gBase[g]! + m;
+  }
+}
 
 /**
  * Complex receive sensitivities of `coils` coils at `count` points (m):
@@ -112,7 +228,13 @@ export class CellStream {
     sens.at(this.px, this.py, this.pz, nw, out);
   }
 
-  constructor(readonly cells: IsochromatCells, readonly sens: CellSensitivities | null = null, maxClasses = MAX_STREAM_CLASSES) {
+  /** With a B0 model interpolated in Δf: the nodes (then eClass is null) and the probes at exact Δf; null otherwise. */
+  readonly interp: DfNodes | null = null;
+  readonly probes: { cls: number; g: number; df: number; ti: number }[] = [];
+  /** The interpolation's summary for report.json (null without one). */
+  readonly interpReport: { order: number; stepHz: number; nodes: number; exactClassesOver: number; span: number; probes: number } | null = null;
+
+  constructor(readonly cells: IsochromatCells, readonly sens: CellSensitivities | null = null, maxClasses = MAX_STREAM_CLASSES, interpolation?: InterpolationOptions) {
     {
       const nw = cells.wGrid.length;
       this.px = new Float64Array(nw);
@@ -197,14 +319,53 @@ export class CellStream {
       }
     }
     for (let e = 0; e < ne; e++) eT0[e + 1] = eT0[e + 1]! + eT0[e]!;
+    // the field at every entry (cell), once
+    const eB0 = new Float64Array(ne);
+    for (let col = 0; col < cells.columns; col++) {
+      const u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+      for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+        const w = cells.wGrid[cells.entW[e]!]!;
+        eB0[e] = b0f(axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w, axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w, axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w);
+      }
+    }
+    // interpolation in Δf: per group (w, tissue) the range of its terms' Δf, and the nodes that would cover it
+    let nodesTotal = Infinity, step = 0;
+    const NG = nw * T, gLo = new Float64Array(NG).fill(Infinity), gHi = new Float64Array(NG).fill(-Infinity);
+    if (interpolation && interpolation.span > 0) {
+      step = stepFor(interpolation.tolerance / 16, interpolation.span);
+      const zLo = new Float64Array(nz).fill(Infinity), zHi = new Float64Array(nz).fill(-Infinity);
+      for (let z = 0; z < nz; z++) {
+        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+          zLo[z] = Math.min(zLo[z]!, this.zDf[t]!);
+          zHi[z] = Math.max(zHi[z]!, this.zDf[t]!);
+        }
+      }
+      for (let col = 0; col < cells.columns; col++) {
+        const sub = cells.colSub[col]!;
+        for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+          const c = cells.entW[e]!, ti = cells.entTissue[e]!, z = (c * T + ti) * D2 + sub, g = c * T + ti;
+          if (zStart[z + 1]! === zStart[z]!) continue;
+          gLo[g] = Math.min(gLo[g]!, eB0[e]! + zLo[z]!);
+          gHi[g] = Math.max(gHi[g]!, eB0[e]! + zHi[z]!);
+        }
+      }
+      // every group's nodes on the one lattice Δf = integer × step: nodes of the same tissue at different w then
+      // share their (R2, Δf) key, and a column's time-segment sums run over the tissue's nodes, not over w × nodes
+      for (let g = 0; g < NG; g++) if (gHi[g]! >= gLo[g]!) gLo[g] = Math.floor(gLo[g]! / step) * step;
+      nodesTotal = 0;
+      for (let g = 0; g < NG; g++) if (gHi[g]! >= gLo[g]!) nodesTotal += Math.floor((gHi[g]! - gLo[g]!) / step) + INTERP_ORDER;
+      if (!Number.isFinite(nodesTotal)) nodesTotal = Infinity;
+    }
+    // exact classes while they are at most this many (beyond: the nodes where they are fewer)
+    const exactMax = !Number.isFinite(nodesTotal) ? maxClasses : interpMinClasses === 0 ? 0 : Math.min(maxClasses, Math.max(interpMinClasses, nodesTotal));
     const eClass = new Int32Array(eT0[ne]!);
     const tidx = new TupleIndex(7, 1024), key = new Uint32Array(7);
     let over = false;
     for (let col = 0; col < cells.columns && !over; col++) {
-      const sub = cells.colSub[col]!, u = cells.uGrid[cells.colA[col]!]!, v = cells.vGrid[cells.colB[col]!]!;
+      const sub = cells.colSub[col]!;
       for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
-        const c = cells.entW[e]!, ti = cells.entTissue[e]!, w = cells.wGrid[c]!;
-        const b0 = b0f(axes.read[0] * u + axes.phase[0] * v + axes.slice[0] * w, axes.read[1] * u + axes.phase[1] * v + axes.slice[1] * w, axes.read[2] * u + axes.phase[2] * v + axes.slice[2] * w) + ctx.offsetHz;
+        const c = cells.entW[e]!, ti = cells.entTissue[e]!;
+        const b0 = eB0[e]! + ctx.offsetHz;
         const tt = qb[ti]![sub]!, pk = ctx.peaks[ti]!, sdf = ctx.spreadDf[ti]!;
         key[0] = c;
         f64Words(ctx.r1[ti]!, key, 3);
@@ -213,11 +374,53 @@ export class CellStream {
           f64Words(b0 + pk.df[tt.q[j]!]! + sdf[tt.bin[j]!]!, key, 1);
           eClass[eT0[e]! + j] = tidx.id(key, 0);
         }
-        if (tidx.size > maxClasses) {
+        if (tidx.size > exactMax) {
           over = true;
           break;
         }
       }
+    }
+    if (over && interpolation && nodesTotal + INTERP_PROBES <= maxClasses) {
+      this.interpReport = { order: INTERP_ORDER, stepHz: step, nodes: nodesTotal, exactClassesOver: exactMax, span: interpolation.span, probes: 0 };
+      const gBase = new Int32Array(NG).fill(-1), gM = new Int32Array(NG), half = INTERP_ORDER / 2 - 1;
+      const cw: number[] = [], cdf: number[] = [], cr1: number[] = [], cr2: number[] = [];
+      for (let g = 0; g < NG; g++) {
+        if (!(gHi[g]! >= gLo[g]!)) continue;
+        const c = Math.floor(g / T), ti = g % T;
+        gBase[g] = cw.length;
+        gM[g] = Math.floor((gHi[g]! - gLo[g]!) / step);
+        const k0 = Math.round(gLo[g]! / step);
+        for (let k = 0; k < gM[g]! + INTERP_ORDER; k++) {
+          cw.push(cells.wGrid[c]!);
+          cdf.push((k0 + k - half) * step);
+          cr1.push(ctx.r1[ti]!);
+          cr2.push(ctx.r2[ti]!);
+        }
+      }
+      // probes: seeded terms at their exact Δf (no weight: they only check the interpolation)
+      const rnd = mulberry32(INTERP_SEED);
+      for (let i = 0; i < INTERP_PROBES && ne > 0; i++) {
+        const e = Math.min(ne - 1, Math.floor(rnd() * ne));
+        let col = 0, hi = cells.columns;
+        while (col + 1 < hi) {
+          const mid = (col + hi) >> 1;
+          if (cells.entStart[mid]! <= e) col = mid;
+          else hi = mid;
+        }
+        const c = cells.entW[e]!, ti = cells.entTissue[e]!, z = (c * T + ti) * D2 + cells.colSub[col]!;
+        const nt = zStart[z + 1]! - zStart[z]!, r = rnd();
+        if (nt === 0) continue;
+        const t = zStart[z]! + Math.min(nt - 1, Math.floor(r * nt)), df = eB0[e]! + this.zDf[t]!;
+        this.probes.push({ cls: cw.length, g: c * T + ti, df, ti });
+        cw.push(cells.wGrid[c]!);
+        cdf.push(df);
+        cr1.push(ctx.r1[ti]!);
+        cr2.push(ctx.r2[ti]!);
+      }
+      this.interpReport.probes = this.probes.length;
+      this.interp = new DfNodes(step, gLo, gBase, gM, eB0);
+      this.spec = { rfClass: new Int32Array(0), classes: cw.length, classW: sf(cw), classDf: sf(cdf), classR1: sf(cr1), classR2: sf(cr2) };
+      return;
     }
     if (over) {
       this.tooMany = `the phantom's B0 model gives more than ${maxClasses.toLocaleString("en")} RF classes (Δf varies per cell; the most the line factor holds for this sequence): the weights come from stored isochromats`;
@@ -252,11 +455,112 @@ export class CellStream {
     return this.eClass ? this.eClass[this.eT0![e]! + t - this.zStart[z]!]! : this.zClass[t]!;
   }
 
+  /**
+   * Δf interpolated: entry e's terms (combination z) summed onto the nodes of its
+   * group g: wc[j] += f·ℓ(Δf) for node j (class gBase[g] + j); returns the range
+   * of j touched to range[0] (inclusive) and range[1] (exclusive). The caller
+   * reads and clears wc over that range.
+   */
+  private entryNodes(e: number, z: number, g: number, wc: Float64Array, iwt: Float64Array, range: Int32Array): void {
+    const ip = this.interp!, base = ip.gBase[g]!, eb = ip.eB0[e]!, p = ip.p, zDf = this.zDf, zF = this.zF;
+    let lo = 0x7fffffff, hi = -1;
+    for (let t = this.zStart[z]!; t < this.zStart[z + 1]!; t++) {
+      const j0 = ip.expand(eb + zDf[t]!, g, iwt) - base, f = zF[t]!;
+      for (let x = 0; x < p; x++) wc[j0 + x] = wc[j0 + x]! + f * iwt[x]!;
+      if (j0 < lo) lo = j0;
+      if (j0 + p > hi) hi = j0 + p;
+    }
+    range[0] = lo;
+    range[1] = hi;
+  }
+
+  /** The most nodes of one group (the size of entryNodes' wc). */
+  private maxGroupNodes(): number {
+    const ip = this.interp;
+    let m = 0;
+    if (ip) for (let g = 0; g < ip.gBase.length; g++) if (ip.gBase[g]! >= 0) m = Math.max(m, ip.gM[g]! + ip.p);
+    return m;
+  }
+
+  /**
+   * The interpolation's error on the probes, after the history: per probe, over
+   * every readout n of `lines` and 8 samples j across the readout, the signal
+   * h(n, j) = P_c(n)·exp(−t_j·(R2 + i2πΔf)) at its exact Δf against Σ_i ℓ_i·h of
+   * its nodes, ‖difference‖ / the largest ‖h‖ of the nodes of its tissue; the
+   * largest over the probes (0 without interpolation).
+   */
+  interpolationError(P: Float64Array, C: number, lines: readonly number[], ns: number, dwell: number): number {
+    const ip = this.interp;
+    if (!ip || this.probes.length === 0) return 0;
+    const { classDf, classR2 } = this.spec, T = this.T, J = Math.min(8, ns);
+    const tj = Float64Array.from({ length: J }, (_, i) => (J > 1 ? Math.round((i * (ns - 1)) / (J - 1)) : 0) * dwell);
+    // per tissue: the largest ‖h‖ of its nodes (|h(n, j)| = |P_c(n)|·exp(−t_j·R2))
+    const ref = new Float64Array(T);
+    for (let g = 0; g < ip.gBase.length; g++) {
+      if (ip.gBase[g]! < 0) continue;
+      const ti = g % T;
+      for (let k = ip.gBase[g]!; k < ip.gBase[g]! + ip.gM[g]! + ip.p; k++) {
+        let pn = 0, en = 0;
+        for (const n of lines) pn += P[2 * (n * C + k)]! ** 2 + P[2 * (n * C + k) + 1]! ** 2;
+        for (let j = 0; j < J; j++) en += Math.exp(-2 * tj[j]! * classR2[k]!);
+        ref[ti] = Math.max(ref[ti]!, Math.sqrt(pn * en));
+      }
+    }
+    const e = (df: number, r2: number, t: number): [number, number] => {
+      const a = Math.exp(-t * r2), th = -2 * Math.PI * df * t;
+      return [a * Math.cos(th), a * Math.sin(th)];
+    };
+    const wt = new Float64Array(ip.p);
+    let worst = 0;
+    for (const pr of this.probes) {
+      const k0 = ip.expand(pr.df, pr.g, wt);
+      let d2 = 0;
+      for (const n of lines) {
+        for (let j = 0; j < J; j++) {
+          const [er, ei] = e(pr.df, classR2[pr.cls]!, tj[j]!), xr = P[2 * (n * C + pr.cls)]!, xi = P[2 * (n * C + pr.cls) + 1]!;
+          let hr = xr * er - xi * ei, hi = xr * ei + xi * er;
+          for (let x = 0; x < ip.p; x++) {
+            const k = k0 + x, [fr, fi] = e(classDf[k]!, classR2[k]!, tj[j]!), yr = P[2 * (n * C + k)]! * wt[x]!, yi = P[2 * (n * C + k) + 1]! * wt[x]!;
+            hr -= yr * fr - yi * fi;
+            hi -= yr * fi + yi * fr;
+          }
+          d2 += hr * hr + hi * hi;
+        }
+      }
+      if (ref[pr.ti]! > 0) worst = Math.max(worst, Math.sqrt(d2) / ref[pr.ti]!);
+    }
+    return worst;
+  }
+
   /** Each class's through-slice index and magnetization Σ|m0|. */
   classInfo(): { classIw: Int32Array; mass: Float64Array } {
     const { cells, T, D2, zStart, zClass, zF } = this;
     const C = this.spec.classes, classIw = new Int32Array(C).fill(-1), mass = new Float64Array(C);
     const nw = cells.wGrid.length, pd = cells.ctx.pd;
+    const ip = this.interp;
+    if (ip) {
+      // every node and probe belongs to its w; the nodes' mass is Σ |pd·fraction·f·weight| of the terms around them
+      for (let g = 0; g < ip.gBase.length; g++) {
+        if (ip.gBase[g]! < 0) continue;
+        classIw.fill(Math.floor(g / T), ip.gBase[g]!, ip.gBase[g]! + ip.gM[g]! + ip.p);
+      }
+      for (const pr of this.probes) classIw[pr.cls] = Math.floor(pr.g / T);
+      const wt = new Float64Array(ip.p), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
+      for (let col = 0; col < cells.columns; col++) {
+        const sub = cells.colSub[col]!;
+        for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
+          const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, a = Math.abs(pd[ti]! * cells.entFrac[e]!), g = c * T + ti;
+          this.entryNodes(e, z, g, wc, wt, range);
+          for (let j = range[0]!; j < range[1]!; j++) {
+            const k = ip.gBase[g]! + j;
+            mass[k] = mass[k]! + a * Math.abs(wc[j]!);
+            wc[j] = 0;
+          }
+        }
+      }
+      void zF;
+      return { classIw, mass };
+    }
     if (this.eClass) {
       for (let col = 0; col < cells.columns; col++) {
         const sub = cells.colSub[col]!;
@@ -303,7 +607,8 @@ export class CellStream {
     const W = r1 - r0, filt = plan.receiverFilter, pd = cells.ctx.pd, uGrid = cells.uGrid;
     const nw = cells.wGrid.length, hasSens = this.sens !== null;
     // per term: its key and f·G_r(class) for the ranks of this pass
-    const b0 = this.eClass !== null, nt0 = b0 ? 0 : zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
+    const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
+    const b0 = this.eClass !== null || ip !== null, nt0 = b0 ? 0 : zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
     for (let t = 0; t < nt0; t++) {
       const c = zClass[t]!, f = zF[t]!;
       tKey[t] = keyOf[c]!;
@@ -442,6 +747,30 @@ export class CellStream {
       if (!uniform && hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
+        if (ip) {
+          // Δf interpolated: the entry's terms summed onto its group's nodes (each node an isochromat of weight wc)
+          const g = c * T + ti, base = ip.gBase[g]!;
+          this.entryNodes(e, z, g, wc, iwt, range);
+          for (let j = range[0]!; j < range[1]!; j++) {
+            const wv = wc[j]!;
+            if (wv === 0) continue;
+            wc[j] = 0;
+            const cl = base + j, k = keyOf[cl]!, f = fp * wv;
+            if (seen[k] === 0) {
+              seen[k] = 1;
+              touched[nt++] = k;
+            }
+            for (let q = 0; q < coils; q++) {
+              const gr = S[2 * (q * nw + c)]! * f, gi = S[2 * (q * nw + c) + 1]! * f, o = 2 * (k * CW + q * W);
+              for (let r = 0; r < W; r++) {
+                const zr = G[2 * (cl * R + r0 + r)]!, zi = G[2 * (cl * R + r0 + r) + 1]!;
+                acc[o + 2 * r] = acc[o + 2 * r]! + (zr * gr - zi * gi);
+                acc[o + 2 * r + 1] = acc[o + 2 * r + 1]! + (zr * gi + zi * gr);
+              }
+            }
+          }
+          continue;
+        }
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
           const cl = b0 ? this.classAt(e, z, t) : -1, k = b0 ? keyOf[cl]! : tKey[t]!, f = zF[t]!;
           if (seen[k] === 0) {
@@ -561,8 +890,12 @@ export class CellStream {
     visit: Parameters<ColumnVisitor>[0], addSamples: Parameters<ColumnVisitor>[1], setup: Parameters<ColumnVisitor>[2],
   ): (col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void {
     const { cells, T, D2, zStart, zClass, zF, zDf } = this;
+    const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), perCell = this.eClass !== null || ip !== null;
+    const wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
     let cap = 64;
     for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, cells.colStart[col + 1]! - cells.colStart[col]!);
+    // Δf interpolated: at most the column's entries × a group's nodes
+    if (ip) for (let col = 0; col < cells.columns; col++) cap = Math.max(cap, (cells.entStart[col + 1]! - cells.entStart[col]!) * wc.length);
     const cls = new Int32Array(cap), m0 = new Float64Array(cap), df = new Float64Array(cap), iw = new Int32Array(cap);
     const pd = cells.ctx.pd, nw = cells.wGrid.length, coils = this.sens?.coils ?? 1, classDf = this.spec.classDf;
     const S0 = this.sens ? new Float64Array(2 * coils * nw) : null, sensIso = this.sens ? new Float64Array(2 * coils * cap) : undefined;
@@ -580,7 +913,7 @@ export class CellStream {
       const Ym: (Float64Array | null)[] = [], YmNorm2: (Float64Array | null)[] = [];
       for (let ti = 0; ti < T; ti++) {
         for (let sub = 0; sub < D2; sub++) {
-          if (this.eClass) {
+          if (perCell) {
             // B0 model: classes differ per cell, no per-tissue table
             Y.push(null);
             Ysum.push(new Float64Array(0));
@@ -681,7 +1014,7 @@ export class CellStream {
             addYm!(z, gS, u, v, kept, k);
             return;
           }
-        } else if (!S && !this.eClass) {
+        } else if (!S && !perCell) {
           // several tissues (or fractions) through the slice, one uniform coil: colv = Σ over its cells of
           // pd·fraction × the cell's row of Y (the same sum regrouped), where every table is whole and flat
           let ok = true;
@@ -698,7 +1031,7 @@ export class CellStream {
             addSamples(u, v, colv);
             return;
           }
-        } else if (S && !this.eClass) {
+        } else if (S && !perCell) {
           // several tissues (or fractions) through the slice: per tissue the weights g(c) = Σ pd·fraction of its
           // cells, colv_q = Σ_tissues Σ_c g(c)·S_q(c)·Y[c] (exact), where every tissue's table is whole and flat
           needS();
@@ -747,6 +1080,22 @@ export class CellStream {
         let n = 0;
         for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
           const ti = cells.entTissue[e]!, z = (cells.entW[e]! * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
+          if (ip) {
+            // Δf interpolated: the entry's terms summed onto its group's nodes, each node an isochromat (class, fp·wc, its Δf)
+            const g = cells.entW[e]! * T + ti, base = ip.gBase[g]!;
+            this.entryNodes(e, z, g, wc, iwt, range);
+            for (let j = range[0]!; j < range[1]!; j++) {
+              const wv = wc[j]!;
+              if (wv === 0) continue;
+              wc[j] = 0;
+              cls[n] = base + j;
+              m0[n] = fp * wv;
+              df[n] = classDf[base + j]!;
+              iw[n] = cells.entW[e]!;
+              n++;
+            }
+            continue;
+          }
           for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
             const cl = this.classAt(e, z, t);
             cls[n] = cl;
@@ -792,13 +1141,25 @@ export class CellStream {
   columnRange(c0: number, c1: number, visit: (a: number, b: number, n: number, cls: Int32Array) => void): void {
     const { cells, T, D2, zStart, zClass } = this;
     let cls = new Int32Array(64);
+    const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
     for (let col = c0; col < c1; col++) {
       const sub = cells.colSub[col]!;
-      const need = cells.colStart[col + 1]! - cells.colStart[col]!;
+      const need = ip ? (cells.entStart[col + 1]! - cells.entStart[col]!) * wc.length : cells.colStart[col + 1]! - cells.colStart[col]!;
       if (need > cls.length) cls = new Int32Array(need);
       let n = 0;
       for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
         const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
+        if (ip) {
+          // Δf interpolated: the nodes the entry's terms reach
+          const g = cells.entW[e]! * T + cells.entTissue[e]!;
+          this.entryNodes(e, z, g, wc, iwt, range);
+          for (let j = range[0]!; j < range[1]!; j++) {
+            if (wc[j] === 0) continue;
+            wc[j] = 0;
+            cls[n++] = ip.gBase[g]! + j;
+          }
+          continue;
+        }
         for (let t = zStart[z]!; t < zStart[z + 1]!; t++) cls[n++] = this.classAt(e, z, t);
       }
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);

@@ -98,6 +98,13 @@ export interface ReadoutReport {
   sensitivityTerms?: { pairs: number; meanKept: number; of: number; maxBound: number };
   /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_MARGIN × the subset's relative L2 error). */
   estimate?: { samples: number; seed: number; relL2: number };
+  /**
+   * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
+   * Lagrange interpolation between nodes `stepHz` apart (from the tolerance and the coherence span `span`, s), `nodes`
+   * classes in all; `probes` classes at exact Δf measured the largest relative error `maxRelError`, included in the
+   * estimate as ESTIMATE_MARGIN × it.
+   */
+  b0Interpolation?: { order: number; stepHz: number; nodes: number; exactClassesOver: number; span: number; probes: number; maxRelError: number };
 }
 
 const TWO_PI = 2 * Math.PI;
@@ -663,6 +670,8 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   }
   if (Mu * Mv * coils * 16 * 4 > 2 ** 31) return `the folded grid ${Mv}×${Mu} × ${coils} coils is too large for the fast operator`;
   const NA = act.length;
+  // a B0 model interpolated in Δf: the probes at exact Δf against their nodes (stream.interpolationError)
+  const interpErr = src.kind === "cells" && src.stream.interp ? src.stream.interpolationError(P, C, act.map((a) => a.n), ns, dwell) : null;
   // --- line factor: P_c(n) ≈ Σ_r A_r(n)·G_r(c), weighted by each class's magnetization
   const tolLine = tolerance / split, tolTime = tolerance / split;
   const y = scratchF64("y", 2 * NA * C);
@@ -974,6 +983,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
     report.sensitivityTerms = { pairs: st.columns, meanKept: st.columns > 0 ? st.terms / st.columns : 0, of: st.of, maxBound: st.maxRel };
   }
   report.estimate = finishEstimate(re, im);
+  if (interpErr !== null && src.kind === "cells" && src.stream.interpReport) {
+    // the interpolation's own error, beside the estimate (which checks the operator against the nodes' exact states)
+    report.b0Interpolation = { ...src.stream.interpReport, maxRelError: interpErr };
+    report.estimate.relL2 = Math.hypot(report.estimate.relL2, ESTIMATE_MARGIN * interpErr);
+  }
   return { re, im, report };
   } finally {
     helperBlocks = par ? par.end() : 0;
