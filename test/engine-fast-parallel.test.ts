@@ -8,6 +8,7 @@
  * within the tolerance of the direct operator. Small grids; the helper is
  * forced on (minimum work 0).
  */
+import { readFileSync } from "node:fs";
 import { join } from "node:path";
 import { afterAll, describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
@@ -17,10 +18,11 @@ import { runRfJob } from "../src/engine/rf-job.js";
 import { fillRfMaps, makePlan } from "../src/engine/plan.js";
 import { nodePhaseHelper } from "../src/engine/fast-node.js";
 import { reservedBytes, reservePhaseMemory, reserveUsed } from "../src/engine/fast-phase.js";
-import { relL2, tempDir } from "./helpers.js";
+import { relL2, tempDir, writeJson } from "./helpers.js";
 import { setFftWasm } from "../src/recon/fft.js";
 import { setFoldWasm } from "../src/engine/fold-wasm.js";
 import { setSliceWasm } from "../src/engine/slice-basis.js";
+import { setInterpolationMinClasses } from "../src/engine/fast-stream.js";
 
 function prep(m: number, sets: string[] = []) {
   return prepare({
@@ -102,6 +104,26 @@ describe("fast operator with a helper thread", () => {
     await expectHelpedSameBits(run, one.kspace, true);
     const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
     expect(relL2(one.kspace.re, one.kspace.im, direct.kspace.re, direct.kspace.im)).toBeLessThan(1e-6);
+  }, 60_000);
+
+  test("a B0 model interpolated in Δf (fast-stream.ts DfNodes), 4 loops + the uniform coil: bitwise the one-thread k-space", async () => {
+    const j = JSON.parse(readFileSync("phantoms/torso-slice.json", "utf8")) as Record<string, unknown>;
+    j["b0"] = { expression: "200 * x + 150 * y + 12" };
+    const phantom = writeJson(tempDir(), "torso-b0.json", j);
+    const p = prepare({
+      phantom, protocol: "gre-t1-3t", sets: ["matrix.read=20", "matrix.phase=20", "spoiling=ideal"], out: join(tempDir(), "out"), seed: 1,
+      iso: { density: 2, sliceCount: 4, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 2, offsetHz: 0 }, workers: 1,
+    });
+    const was = setInterpolationMinClasses(0);
+    try {
+      const run = await coilRun(p);
+      const one = await run(false);
+      expect(one.readout[0]!.operator).toBe("fast");
+      expect(one.readout[0]!.b0Interpolation).toBeDefined();
+      await expectHelpedSameBits(run, one.kspace);
+    } finally {
+      setInterpolationMinClasses(was);
+    }
   }, 60_000);
 
   test("4 loops + the uniform coil: bitwise the one-thread k-space", async () => {
