@@ -332,18 +332,17 @@ describe("a B0 model with very many RF classes: Δf interpolated between nodes (
       setInterpolationMinClasses(was);
     }
   };
-  test.each([
+  const torsoB0 = () => {
+    const j = JSON.parse(readFileSync("phantoms/torso-slice.json", "utf8")) as Record<string, unknown>;
+    j["b0"] = { expression: "200 * x + 150 * y + 12" };
+    return writeJson(tempDir(), "torso-b0.json", j);
+  };
+  test.each<[string, string[], { b0?: string; torso?: boolean; protocol?: string; matrix?: number; iso: Partial<IsochromatOptions> }]>([
     ["B0 expression, multi-peak fat, T2′ spread", ["spoiling=ideal"], { b0: "60 * x / 0.05 + 300 * y * y / 0.0025 + 15", iso: { t2primeIsochromats: 4 } }],
     ["B0 from a .npy field map, TE 14 ms, 3 T", ["spoiling=ideal", "field=3 T", "te=14 ms", "tr=40 ms"], { b0: "npy", iso: { t2primeIsochromats: 2 } }],
-    ["torso, gre-t1-3t, B0 expression", ["spoiling=ideal"], { protocol: "gre-t1-3t", phantom: "torso-b0", matrix: 20, iso: { t2primeIsochromats: 2 } }],
+    ["torso, gre-t1-3t, B0 expression", ["spoiling=ideal"], { protocol: "gre-t1-3t", torso: true, matrix: 20, iso: { t2primeIsochromats: 2 } }],
   ])("%s: within the tolerance of direct, the estimate (with the probes' error) bounds the error", async (_name, sets, opts) => {
-    let phantom: string | undefined;
-    if (opts.phantom === "torso-b0") {
-      const j = JSON.parse(readFileSync("phantoms/torso-slice.json", "utf8")) as Record<string, unknown>;
-      j["b0"] = { expression: "200 * x + 150 * y + 12" };
-      phantom = writeJson(tempDir(), "torso-b0.json", j);
-    }
-    const p = prep(sets, { ...opts, phantom });
+    const p = prep(sets, { ...opts, phantom: opts.torso ? torsoB0() : undefined });
     const fast = await forced(() => streamed(p));
     const rep = fast.readout;
     expect(rep.operator).toBe("fast");
