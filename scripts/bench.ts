@@ -17,7 +17,8 @@
  * default options, 2 workers) with 1 coil and with 8 coils, each through the
  * CLI in a fresh process, and the cases per hour of a 1000-case 128²
  * eight-coil batch on 2 cores, estimated from a short batch
- * (BENCH_DATASET_CASES cases, default 3, with seeded perturbations);
+ * (BENCH_DATASET_CASES cases, default 3, with seeded perturbations), and a
+ * two-case batch with B0 varying per case (--vary b0: Δf interpolated);
  * BENCH_ONLY=dataset for these rows alone, BENCH_DATASET=0 to skip them.
  * Environment: BENCH_RUNS (end-to-end repeats, default 3), BENCH_TARGET=0 to
  * skip the target cases, BENCH_ONLY=fast for the fast-operator rows alone
@@ -182,7 +183,9 @@ function readoutNote(r: unknown): string {
   if (!o) return "";
   const auto = o.requested === "auto" && o.predicted ? `auto chose ${o.operator} (predicted direct ${o.predicted.directMs.toFixed(0)} ms, fast ${o.predicted.fastMs === null ? "n/a" : `${o.predicted.fastMs.toFixed(0)} ms`}); ` : "";
   if (o.operator !== "fast") return `${auto}${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
-  return `${auto}fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}`;
+  const ip = (o as { b0Interpolation?: { nodes: number; stepHz: number; maxRelError: number } }).b0Interpolation;
+  const interp = ip ? `, Δf interpolated (${ip.nodes.toLocaleString("en")} nodes ${ip.stepHz.toFixed(1)} Hz apart, probes ${ip.maxRelError.toExponential(1)})` : "";
+  return `${auto}fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}${interp}`;
 }
 
 /**
@@ -436,6 +439,13 @@ function datasetRows(): void {
     console.log(
       `| 1000-case 128² eight-coil batch on 2 cores: estimated from a short batch of ${batch.made} cases (--vary position, rotation, T1; one-time set-up spread over them), ` +
         `${batch.seconds.toFixed(1)} s in all | — | ${perCase.toFixed(1)} s per case | ${Math.round(3600 / perCase)} cases per hour (1000 cases ≈ ${((1000 * perCase) / 3600).toFixed(1)} h) | ${note(batch.readout)} |`,
+    );
+    // B0 varying per case (an offset and a linear field): every isochromat its own Δf, the fast operator with Δf interpolated
+    const b0 = datasetRun(["--coils", "8", "--count", "2", "--vary", "position=5mm,b0=20Hz"], join(tmp, "b0"));
+    const b0Case = b0.seconds / b0.made;
+    console.log(
+      `| the same batch with --vary b0=20Hz (a B0 offset and linear field per case: Δf in every cell, interpolated between nodes), ${b0.made} cases, ` +
+        `${b0.seconds.toFixed(1)} s in all | — | ${b0Case.toFixed(1)} s per case | ${Math.round(3600 / b0Case)} cases per hour | ${note(b0.readout)} |`,
     );
   } finally {
     rmSync(tmp, { recursive: true, force: true });
