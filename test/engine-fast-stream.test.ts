@@ -379,8 +379,8 @@ describe("a B0 model with very many RF classes: Δf interpolated between nodes (
   test("the interpolation is what keeps the error small: nodes 8× further apart fail the tolerance, and the probes see it", async () => {
     const p = prep(["spoiling=ideal", "te=14 ms", "tr=40 ms"], { b0: "60 * x / 0.05 + 300 * y * y / 0.0025 + 15", iso: { t2primeIsochromats: 2 } });
     const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
-    // a tolerance 8^6 looser sets nodes 8× further apart (the step grows as tolerance^(1/6))
-    const coarse = await forced(() => streamed(p, "fast", 1e-6 * 8 ** 6));
+    // a tolerance 8^p looser sets nodes 8× further apart (the step grows as tolerance^(1/p), p = INTERP_ORDER)
+    const coarse = await forced(() => streamed(p, "fast", 1e-6 * 8 ** INTERP_ORDER));
     const ip = coarse.readout.b0Interpolation!;
     expect(ip.stepHz).toBeGreaterThan(7 * stepFor(1e-6 / 16, ip.span));
     const err = relL2(coarse.kspace.re, coarse.kspace.im, direct.kspace.re, direct.kspace.im);

@@ -118,33 +118,36 @@ export function stepFor(eps: number, span: number, p = INTERP_ORDER): number {
  */
 export class DfNodes {
   readonly p = INTERP_ORDER;
-  /** Lagrange denominators Π_{j≠i}(a_i − a_j). */
-  private readonly den: Float64Array;
-  private readonly d: Float64Array;
+  /** 1 / the Lagrange denominators Π_{j≠i}(a_i − a_j). */
+  private readonly inv: Float64Array;
+  /** Prefix products Π_{j<i}(s − a_j). */
+  private readonly pre: Float64Array;
   constructor(readonly step: number, readonly gLo: Float64Array, readonly gBase: Int32Array, readonly gM: Int32Array, readonly eB0: Float64Array) {
     const p = this.p;
-    this.den = new Float64Array(p);
-    this.d = new Float64Array(p);
+    this.inv = new Float64Array(p);
+    this.pre = new Float64Array(p + 1);
     for (let i = 0; i < p; i++) {
       let v = 1;
       for (let j = 0; j < p; j++) if (j !== i) v *= i - j;
-      this.den[i] = v;
+      this.inv[i] = 1 / v;
     }
   }
 
   /** Δf of group g → its first node's class (returned) and the p weights in wt. */
   expand(df: number, g: number, wt: Float64Array): number {
-    const p = this.p, h = p / 2 - 1, d = this.d;
+    const p = this.p, h = p / 2 - 1, pre = this.pre;
     const x = (df - this.gLo[g]!) / this.step;
     let m = Math.floor(x);
     if (m < 0) m = 0;
     else if (m > this.gM[g]!) m = this.gM[g]!;
     const s = x - m;
-    for (let j = 0; j < p; j++) d[j] = s - (j - h);
-    for (let i = 0; i < p; i++) {
-      let v = 1;
-      for (let j = 0; j < p; j++) if (j !== i) v *= d[j]!;
-      wt[i] = v / this.den[i]!;
+    // ℓ_i(s) = Π_{j<i}(s − a_j) · Π_{j>i}(s − a_j) / Π_{j≠i}(a_i − a_j), from prefix and suffix products
+    pre[0] = 1;
+    for (let j = 0; j < p; j++) pre[j + 1] = pre[j]! * (s - (j - h));
+    let suf = 1;
+    for (let i = p - 1; i >= 0; i--) {
+      wt[i] = pre[i]! * suf * this.inv[i]!;
+      suf *= s - (i - h);
     }
     return this.gBase[g]! + m;
   }
