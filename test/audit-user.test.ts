@@ -1,0 +1,80 @@
+/**
+ * A user's audit (an MR physicist and a reconstruction engineer trying the
+ * command line on cases of their own): each test is a defect found that way,
+ * checked against a closed form or the README's own contract.
+ */
+import { describe, expect, it } from "vitest";
+import { checkProtocol, type CheckResult } from "../src/check/index.js";
+import { UserError } from "../src/errors.js";
+import { parsePhantom } from "../src/phantom/index.js";
+import { parseProtocolObject } from "../src/protocol/index.js";
+import { buildSequence } from "../src/sequence/index.js";
+import { simulate } from "./helpers.js";
+
+type Obj = Record<string, unknown>;
+const gel = { pd: 1, t1: "300 ms", t2: "80 ms", t2star: "80 ms", species: "water" };
+
+function check(ph: Obj, p: Obj): CheckResult {
+  const protocol = parseProtocolObject(p as never, "p.json");
+  return checkProtocol(parsePhantom(ph, "ph.json", protocol.field), protocol, buildSequence(protocol), {});
+}
+const itemOf = (r: CheckResult, key: string) => r.items.find((i) => i.key === key)!;
+
+describe("a phantom wholly outside the read range the receiver filter passes", () => {
+  it("is a one-line input error naming the cause, not an internal error", () => {
+    // README "Inputs at the edges": when nothing of the phantom is sampled, the error says so.
+    // A 2 cm disc centred 50 cm off along read lies beyond the sampled read FOV (16 cm × 2);
+    // the receiver filter passes nothing from there (Nyquist: |f| ≤ sampled bandwidth / 2).
+    const protocol = {
+      sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 16, phase: 16 },
+      slice: { thickness: "5 mm" }, bandwidth: "500 Hz/px", te: "3 ms", tr: "20 ms", flip: "30 deg",
+      excitation: { shape: "hard", duration: "0.1 ms", steps: 10 }, oversampling: { read: 2, phase: 0 },
+    };
+    const far = { name: "far", tissues: { gel }, shapes: [{ shape: "ellipse", center: ["50 cm", "0 cm"], semiAxes: ["1 cm", "1 cm"], tissue: "gel" }] };
+    let err: unknown;
+    try {
+      simulate(protocol, far, { density: 1, sliceCount: 3, t2primeIsochromats: 1 });
+    } catch (e) {
+      err = e;
+    }
+    expect(err).toBeInstanceOf(UserError);
+    expect((err as UserError).message).toMatch(/receiver filter/);
+    expect((err as UserError).message).not.toMatch(/\n/);
+  });
+});
+
+describe("isofold check: the smallest phase FOV without wrap, as printed, avoids the wrap", () => {
+  // A rectangle 36 cm wide along phase, 256 phase lines, no oversampling. Closed form (Nyquist folding,
+  // Δk = 1/FOV; pixel n at (n − N/2)·FOV/N): the top edge +v folds to v − FOV, which stays below the
+  // displayed range only if v ≤ (N/2 − ½)·FOV/N, i.e. FOV ≥ 2vN/(N − 1) = 36.141 cm for v = 18 cm.
+  const N = 256, v = 0.18;
+  const closedForm = (2 * v * N) / (N - 1);
+  const slab: Obj = {
+    name: "slab", tissues: { gel },
+    shapes: [{ shape: "rectangle", label: "slab", center: ["0 cm", "0 cm"], size: ["4 cm", "36 cm"], tissue: "gel" }],
+  };
+  const proto = (fov: string): Obj => ({
+    sequence: "gre", field: "3 T", fov: { read: "24 cm", phase: fov }, matrix: { read: 64, phase: N },
+    slice: { thickness: "5 mm" }, bandwidth: "250 Hz/px", te: "5 ms", tr: "20 ms", flip: "20 deg", phaseDirection: "y",
+    oversampling: { read: 2, phase: 0 },
+  });
+
+  it("states a FOV at or above the closed form, and that FOV gives no folded row", () => {
+    const r = check(slab, proto("30 cm"));
+    const m = /no fold with fov\.phase ≥ ([\d.]+) cm/.exec(itemOf(r, "wrapPhase").reason);
+    expect(m).not.toBeNull();
+    const stated = Number(m![1]) / 100;
+    expect(stated).toBeGreaterThanOrEqual(closedForm);
+    expect(itemOf(check(slab, proto(`${m![1]} cm`)), "wrapPhase").value).toBe(0);
+  });
+
+  it("a fold narrower than a pixel names the one row it lands on (not an empty range)", () => {
+    // at FOV 36.14 cm the top edge folds to 18 − 36.14 = −18.14 cm, inside row 0 (which reaches down to
+    // −(N/2 + ½)·FOV/N = −18.141 cm): one row, row 0
+    const w = itemOf(check(slab, proto("36.14 cm")), "wrapPhase");
+    expect(w.value).toBe(1);
+    const rows = /lands? on rows (-?\d+)…(-?\d+)/.exec(w.reason);
+    expect(rows).not.toBeNull();
+    expect([Number(rows![1]), Number(rows![2])]).toEqual([0, 0]);
+  });
+});
