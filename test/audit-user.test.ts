@@ -140,3 +140,22 @@ describe("report.json fatShift.measured in EPI, where fat moves many pixels alon
     expect(Math.abs(rep.fatShift.measured.phase.px - closedForm)).toBeLessThan(0.15);
   });
 });
+
+describe("isofold dataset: input errors found at the first case", () => {
+  it("--max-memory is honoured, and a refused batch leaves no folder (exit 2: nothing written)", async () => {
+    const { existsSync } = await import("node:fs");
+    const { join, resolve } = await import("node:path");
+    const { datasetInProcess, tempDir } = await import("./helpers.js");
+    const dir = tempDir("isofold-audit-user-");
+    const phantom = resolve(__dirname, "../phantoms/two-bottle.json");
+    const small = ["-p", "gre-demo-1.5t", "--set", "matrix.read=32", "--set", "matrix.phase=32", "--workers", "1", "-q", "--t2prime-isochromats", "1"];
+    // README: --max-memory refuses a run whose estimated memory exceeds it (1 MiB is below any run's k-space and scratch)
+    const mem = join(dir, "mem");
+    await expect(datasetInProcess([phantom, ...small, "--max-memory", "0.001", "-o", mem])).rejects.toBeInstanceOf(UserError);
+    expect(existsSync(mem)).toBe(false);
+    // README: exit code 2 is a problem with the inputs, nothing written (here: no part of the phantom in the slice)
+    const off = join(dir, "off");
+    await expect(datasetInProcess([phantom, ...small, "--set", "slice.position=20 cm", "-o", off])).rejects.toBeInstanceOf(UserError);
+    expect(existsSync(off)).toBe(false);
+  });
+});
