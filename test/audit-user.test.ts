@@ -159,3 +159,17 @@ describe("isofold dataset: input errors found at the first case", () => {
     expect(existsSync(off)).toBe(false);
   });
 });
+
+describe("relative SNR against a reference protocol at another field", () => {
+  it("the same protocol at 1.5 T against itself at 3 T: 0.5 (SNR ∝ B0, Hoult and Richards 1976, J. Magn. Reson. 24:71)", () => {
+    const base = (field: string): Obj => ({
+      sequence: "gre", field, fov: { read: "24 cm", phase: "24 cm" }, matrix: { read: 64, phase: 64 },
+      slice: { thickness: "5 mm" }, bandwidth: "250 Hz/px", te: "5 ms", tr: "20 ms", flip: "20 deg", oversampling: { read: 2, phase: 0 },
+    });
+    const disc = { name: "d", tissues: { gel }, shapes: [{ shape: "ellipse", center: ["0 cm", "0 cm"], semiAxes: ["5 cm", "5 cm"], tissue: "gel" }] };
+    const p15 = parseProtocolObject(base("1.5 T") as never, "p15.json"), p3 = parseProtocolObject(base("3 T") as never, "p3.json");
+    const r = checkProtocol(parsePhantom(disc, "ph.json", p15.field), p15, buildSequence(p15), { reference: { name: "p3", seq: buildSequence(p3), field: p3.field } });
+    // same voxel, lines and readout: only the field differs (β = 1 at clinical fields, common practice)
+    expect(itemOf(r, "snr").value).toBeCloseTo(0.5, 12);
+  });
+});

@@ -11,7 +11,7 @@
  * ./psf.ts.
  */
 import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift } from "../analysis/index.js";
-import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
+import { FAT_SINGLE_PPM, GAMMA_BAR, SNR_FIELD_EXPONENT } from "../constants.js";
 import { UserError } from "../errors.js";
 import { parsePhantom, type Phantom, type Shape } from "../phantom/index.js";
 import { sequenceDefinition } from "../sequence/index.js";
@@ -97,7 +97,7 @@ export interface CheckOptions {
   roiText?: string;
   thresholds?: Record<string, Threshold>;
   /** Reference protocol's sequence for the relative SNR (default: the built-in reference of `relativeSnr`). */
-  reference?: { name: string; seq: Sequence } | null;
+  reference?: { name: string; seq: Sequence; field?: number } | null;
   /** Points per in-plane axis at most when sampling the phantom (default 320). */
   maxPoints?: number;
 }
@@ -638,9 +638,13 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- cost ----
   const snr = seq.derived["relativeSnr"]!.value as number;
   const ref = opts.reference ?? null;
-  const snrRel = ref ? snr / (ref.seq.derived["relativeSnr"]!.value as number) : snr;
+  // a reference at another field: SNR ∝ B0^β as well (the sampling factors alone compare protocols at one field)
+  const fieldFactor = ref && ref.field !== undefined && ref.field !== p.field ? (p.field / ref.field) ** SNR_FIELD_EXPONENT : 1;
+  const snrRel = ref ? (snr / (ref.seq.derived["relativeSnr"]!.value as number)) * fieldFactor : snr;
   items.push(item("snr", "cost", "relative SNR", snrRel, th,
-    `∝ voxel·√(N_avg·N_lines·N_slice·T_adc) (Edelstein et al. 1986), relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
+    `∝ voxel·√(N_avg·N_lines·N_slice·T_adc) (Edelstein et al. 1986)` +
+      (fieldFactor !== 1 ? ` × (B0/B0_ref)^${SNR_FIELD_EXPONENT} = ${f1(fieldFactor)} (${p.field} T against ${ref!.field} T; sample-noise regime, Hoult and Richards 1976)` : "") +
+      `, relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
   const scan = seq.timing.scanTime;
   items.push(item("scanTime", "cost", "scan time", scan, th, `${scan >= 60 ? `${Math.floor(scan / 60)} min ${(scan % 60).toFixed(0)} s` : `${f1(scan)} s`} (${seq.derived["scanTime"]?.note ?? "from the sequence timing"})`));
   const headroom = (kind: "Gradient" | "Slew", limit: number): { margin: number; axis: string; peak: number } => {
