@@ -173,3 +173,19 @@ describe("relative SNR against a reference protocol at another field", () => {
     expect(itemOf(r, "snr").value).toBeCloseTo(0.5, 12);
   });
 });
+
+describe("units as a user writes them", () => {
+  it("an angle with the degree sign reads as degrees (20° = π/9 rad); an unreadable unit names one that works", async () => {
+    const { parseUnit } = await import("../src/units.js");
+    expect(parseUnit("20°", { path: "flip" }, "angle").toNumber("rad")).toBeCloseTo(Math.PI / 9, 12);
+    let msg = "";
+    try {
+      parseUnit("8 msec", { path: "te" }, "time");
+    } catch (e) {
+      expect(e).toBeInstanceOf(UserError);
+      msg = (e as UserError).message;
+    }
+    // DEVELOPERS.md "Messages": a user error says what is wrong and what would work
+    expect(msg).toMatch(/"5 ms"/);
+  });
+});
