@@ -189,3 +189,24 @@ describe("units as a user writes them", () => {
     expect(msg).toMatch(/"5 ms"/);
   });
 });
+
+describe("isofold check: the smallest phase oversampling without wrap, as printed, avoids the wrap", () => {
+  it("384 lines over 20 cm, a slab ±12.21 cm wide: the printed percentage folds nothing", () => {
+    // Nyquist folding: with L acquired lines of FOV/M each, a point at v folds to v − L·FOV/M, which must land
+    // outside the displayed ±FOV/2; here that needs 428 lines (11.46 %), and 11 % gives only 426
+    const slab: Obj = {
+      name: "slab", tissues: { gel },
+      shapes: [{ shape: "rectangle", label: "slab", center: ["0 cm", "0 cm"], size: ["4 cm", "24.42 cm"], tissue: "gel" }],
+    };
+    const proto = (os: number): Obj => ({
+      sequence: "gre", field: "1.5 T", fov: { read: "20 cm", phase: "20 cm" }, matrix: { read: 64, phase: 384 },
+      slice: { thickness: "5 mm" }, bandwidth: "250 Hz/px", te: "5 ms", tr: "20 ms", flip: "20 deg", phaseDirection: "y",
+      oversampling: { read: 2, phase: os },
+    });
+    const w = itemOf(check(slab, proto(0)), "wrapPhase");
+    expect(w.value).toBeGreaterThan(0);
+    const m = /phase oversampling ≥ (\d+) %/.exec(w.reason);
+    expect(m).not.toBeNull();
+    expect(itemOf(check(slab, proto(Number(m![1]) / 100)), "wrapPhase").value).toBe(0);
+  });
+});

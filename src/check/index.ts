@@ -19,7 +19,7 @@ import { logicalAxes, slicePositions, toPhysical, type Axes, type Protocol } fro
 import type { Sequence } from "../sequence/index.js";
 import { fwhmGradientEcho, fwhmSampled, fwhmSpinEcho, SINC_FWHM } from "./psf.js";
 import { DEFAULT_THRESHOLDS, judge, thresholdText, type Threshold, type Verdict } from "./thresholds.js";
-import { displayedIndex, foldPx, insideAcquired, insideDisplayed, minFovNoWrap, minOversamplingNoWrap } from "./wrap.js";
+import { displayedIndex, foldPx, insideAcquired, insideDisplayed, minFovNoWrap, minOversamplingNoWrap, phaseLinesFor } from "./wrap.js";
 
 export { DEFAULT_THRESHOLDS, parseThresholds, judge, thresholdText, type Threshold, type Verdict } from "./thresholds.js";
 export * from "./wrap.js";
@@ -518,7 +518,11 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
       return `${shapes.length === 1 ? shapes[0] : `${shapes.length} shapes (${shapes.slice(0, 2).join(", ")}${shapes.length > 2 ? ", …" : ""})`} beyond ${side} by up to ${mm(by)} land${shapes.length === 1 ? "s" : ""} on ${axisName} ${lo}…${hi} (${mm(loM)} … ${mm(hiM)})${roi ? ", inside the ROI" : ""}`;
     }).join("; ");
   };
-  const avoidP = `no fold with fov.phase ≥ ${cmAtLeast(phaseWrap.minFov!)} or phase oversampling ≥ ${(minOs * 100).toFixed(0)} %`;
+  // the smallest whole percent whose phase-encode table has the lines needed (rounding to the nearest percent
+  // could name one with a line pair too few, which still folds)
+  let minOsPct = Math.max(0, Math.floor(minOs * 100 + 1e-9));
+  while (phaseLinesFor(Mp, minOsPct / 100) < phaseLinesFor(Mp, minOs)) minOsPct++;
+  const avoidP = `no fold with fov.phase ≥ ${cmAtLeast(phaseWrap.minFov!)} or phase oversampling ≥ ${minOsPct} %`;
   const pText = phaseRows.size > 0
     ? `${describeFold(phaseFolded, "rows")}; ${avoidP}`
     : phaseFolded.length > 0
