@@ -210,3 +210,24 @@ describe("isofold check: the smallest phase oversampling without wrap, as printe
     expect(itemOf(check(slab, proto(Number(m![1]) / 100)), "wrapPhase").value).toBe(0);
   });
 });
+
+describe("a 2D protocol with a non-selective (hard) excitation", () => {
+  it("warns that the image is the projection over the sampled span, whose amplitude is --slice-extent × the Ernst value", async () => {
+    const { simulate: simulateApi } = await import("../src/api.js");
+    const protocol = {
+      sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 16, phase: 16 },
+      slice: { thickness: "5 mm" }, bandwidth: "500 Hz/px", te: "3 ms", tr: "50 ms", flip: "30 deg",
+      excitation: { shape: "hard", duration: "0.1 ms", steps: 10 }, oversampling: { read: 2, phase: 0 }, dummyScans: 60,
+    };
+    const disc = { name: "d", tissues: { gel }, shapes: [{ shape: "ellipse", center: ["0 cm", "0 cm"], semiAxes: ["5 cm", "5 cm"], tissue: "gel" }] };
+    const r = await simulateApi({ protocol, phantom: disc, iso: { density: 1, sliceCount: 3, sliceExtent: 3, t2primeIsochromats: 1 } });
+    expect(r.warnings.some((w) => /non-selective/.test(w) && /--slice-extent/.test(w))).toBe(true);
+    // Ernst & Anderson 1966 (Rev. Sci. Instrum. 37:93): sinα(1 − E1)/(1 − cosα·E1)·exp(−TE/T2), T1 300 ms, T2 80 ms
+    const a = Math.PI / 6, E1 = Math.exp(-0.05 / 0.3);
+    const ernst = (Math.sin(a) * (1 - E1)) / (1 - Math.cos(a) * E1) * Math.exp(-0.003 / 0.08);
+    const n = 16, c = 8;
+    let sum = 0;
+    for (let y = c - 2; y < c + 2; y++) for (let x = c - 2; x < c + 2; x++) sum += Math.hypot(r.image.re[y * n + x]!, r.image.im[y * n + x]!);
+    expect(sum / 16 / (3 * ernst)).toBeCloseTo(1, 2);
+  });
+});
