@@ -16,7 +16,7 @@ import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EngineP
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
-import { isoOptionsFor, sampledLimits, slabCoverage, type IsoSampling } from "./sampling.js";
+import { isoOptionsFor, nonSelectiveRemark, sampledLimits, slabCoverage, type IsoSampling } from "./sampling.js";
 import { checkSliceConvergence } from "./engine/index.js";
 import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
@@ -206,7 +206,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     );
   }
   if (slab?.note) sampling.notes.push(slab.note);
-  const slabWarning = slab?.warning ?? null;
+  const slabWarning = slab?.warning ?? nonSelectiveRemark(protocol, phantom, isoOpts.sliceExtent, ms.positions);
   const remarks = samplingRemarks(phantom, protocol, asked.density);
   const slices: SliceRun[] = [];
   for (const position of ms.positions) {

@@ -26,5 +26,13 @@ export const MU0 = 1.25663706212e-6;
 export const FAT_PEAKS_PPM = [-3.8, -3.4, -2.6, -1.94, -0.39, 0.6] as const;
 export const FAT_PEAKS_AMPLITUDE = [0.087, 0.693, 0.128, 0.004, 0.039, 0.048] as const;
 
+/**
+ * Exponent β of SNR ∝ B0^β between field strengths: 1, the sample-noise-dominated
+ * regime of D. I. Hoult and R. E. Richards, J. Magn. Reson. 24 (1976) 71, the usual
+ * assumption at clinical field strengths (common practice). Used by the dataset's
+ * physical noise model and by the relative SNR against a reference at another field.
+ */
+export const SNR_FIELD_EXPONENT = 1;
+
 /** Single-peak fat model: the main methylene peak at −3.4 ppm (Hamilton et al. 2011). */
 export const FAT_SINGLE_PPM = -3.4;

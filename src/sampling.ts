@@ -138,3 +138,34 @@ export function slabCoverage(p: Protocol, seq: Sequence, ph: Phantom): { steps: 
   return out;
 }
 
+
+/**
+ * 2D: a non-selective (hard) excitation, not confined by a selective refocusing pulse, excites every
+ * tissue along the slice normal, but the isochromats cover only sliceExtent slice thicknesses around each
+ * slice. Where the phantom reaches beyond that span, the image is the projection over the span alone and
+ * its amplitude grows with --slice-extent (each isochromat carries Δw/thickness of its voxel): a warning
+ * that says so. Null where the excitation is selective or the span holds the whole phantom.
+ */
+export function nonSelectiveRemark(p: Protocol, ph: Phantom, sliceExtent: number, positions: readonly number[]): string | null {
+  const def = sequenceDefinition(p.sequence);
+  if (def.threeD || p.excitation.shape !== "hard") return null;
+  if (def.refocuses(p) && p.refocusing.shape !== "hard") return null;
+  const dir = logicalAxes(p).slice;
+  const b = phantomBounds(ph);
+  let lo = 0, hi = 0;
+  for (let k = 0; k < 3; k++) {
+    const d = dir[k]!;
+    if (d === 0) continue;
+    lo += Math.min(b.min[k]! * d, b.max[k]! * d);
+    hi += Math.max(b.min[k]! * d, b.max[k]! * d);
+  }
+  const half = (sliceExtent * p.slice.thickness) / 2;
+  const covered = positions.every((w) => lo >= w - half - 1e-12 && hi <= w + half + 1e-12);
+  if (covered) return null;
+  const mm = (m: number) => `${(m * 1e3).toFixed(1)} mm`;
+  const reach = Number.isFinite(lo) && Number.isFinite(hi) ? `${mm(lo)} … ${mm(hi)}` : "without end (a 2D shape is infinite along z)";
+  return `the excitation is non-selective (excitation.shape hard): it excites the phantom all along the slice normal (${reach}), ` +
+    `but the isochromats cover only ±${mm(half)} around the slice (--slice-extent ${sliceExtent} × ${mm(p.slice.thickness)}); ` +
+    `the image is the projection over that span, about ${sliceExtent.toPrecision(3)} times the signal of one slice thickness, and changes with --slice-extent; ` +
+    `use a selective pulse (excitation.shape sinc) for a slice`;
+}

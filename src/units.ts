@@ -53,9 +53,10 @@ export function parseUnit(raw: unknown, origin: Origin, kind?: QuantityKind): Un
   }
   let u: Unit;
   try {
-    u = math.unit(raw.trim());
+    // the degree sign is the common way to write an angle ("20°"): read as "20 deg"
+    u = math.unit(raw.trim().replace(/\s*°$/, " deg"));
   } catch {
-    throw userError(origin, `cannot read ${describeValue(raw, 80)} as a number with units`);
+    throw userError(origin, `cannot read ${describeValue(raw, 80)} as a number with units; write it like ${example}`);
   }
   if (!u.units || u.units.length === 0 || u.value === null || u.value === undefined) {
     throw userError(origin, `${describeValue(raw, 80)} has no units; write it like ${example}`);

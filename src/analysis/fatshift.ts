@@ -176,8 +176,12 @@ export interface FatShiftMeasurement {
  *
  * Each region's displacement is found in two steps:
  *   1. centroid: the magnitude-weighted centroid in a window (the region's
- *      bounding box grown by `margin` pixels, edge pixels counted by the part
- *      inside it), re-centred on the result until it settles, minus the
+ *      bounding box grown by `margin` pixels, per axis if given so, the
+ *      water region's by `waterMargin` (default `margin`): water does not
+ *      move by the chemical shift, and a window grown to reach a far-shifted
+ *      fat image (EPI) would take that image into the water's fit; edge
+ *      pixels counted by the part inside it), re-centred on the result until
+ *      it settles, minus the
  *      pd-weighted truth centroid;
  *   2. template fit: the region's truth map (or, better, the band-limited
  *      image of a `fine` truth map: its spectrum cropped to the image's
@@ -192,6 +196,9 @@ export interface FatShiftMeasurement {
  * Displacement = fat shift minus water shift, so a common shift (B0 offset)
  * cancels. Returns null when either region is empty.
  */
+/** Pixels a search window reaches beyond a region's bounding box: the same along both axes, or per axis. */
+export type WindowMargin = number | { read: number; phase: number };
+
 /** Truth maps on a grid `factor` times finer than the image along read and phase (same centre convention). */
 export interface FineTruth {
   factor: number;
@@ -217,14 +224,14 @@ export function hasWaterAndFat(pd: ArrayLike<number>, fatFraction: ArrayLike<num
 
 export function measureFatShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, fatFraction: ArrayLike<number>,
-  nRead: number, nPhase: number, dx: number, dy: number, margin: number, fine?: FineTruth,
+  nRead: number, nPhase: number, dx: number, dy: number, margin: WindowMargin, fine?: FineTruth, waterMargin: WindowMargin = margin,
 ): FatShiftMeasurement | null {
   const n = nRead * nPhase;
   const region = new Int8Array(n); // 0 none, 1 water, 2 fat
   for (let i = 0; i < n; i++) if (pd[i]! > 0) region[i] = fatFraction[i]! >= 0.5 ? 2 : 1;
   const W = regionStats(region, pd, 1, nRead, nPhase), F = regionStats(region, pd, 2, nRead, nPhase);
   if (W.count === 0 || F.count === 0) return null;
-  const w = regionShift(mag, pd, region, 1, W, nRead, nPhase, margin, fine);
+  const w = regionShift(mag, pd, region, 1, W, nRead, nPhase, waterMargin, fine);
   const f = regionShift(mag, pd, region, 2, F, nRead, nPhase, margin, fine);
   const readPx = f.dx - w.dx, phasePx = f.dy - w.dy;
   return {
@@ -312,9 +319,9 @@ function regionStats(region: Int8Array, pd: ArrayLike<number>, r: number, nRead:
 }
 
 /** Window weights (fraction of each pixel inside [lo, hi] along read and phase); pixels of region `other` get 0. Returns whether any were left out. */
-function windowWeights(out: Float64Array, s: RegionStats, ox: number, oy: number, margin: number, region: Int8Array, other: number, nRead: number, nPhase: number): boolean {
+function windowWeights(out: Float64Array, s: RegionStats, ox: number, oy: number, mx: number, my: number, region: Int8Array, other: number, nRead: number, nPhase: number): boolean {
   out.fill(0);
-  const lx = s.x0 - margin + ox, hx = s.x1 + margin + ox, ly = s.y0 - margin + oy, hy = s.y1 + margin + oy;
+  const lx = s.x0 - mx + ox, hx = s.x1 + mx + ox, ly = s.y0 - my + oy, hy = s.y1 + my + oy;
   let hit = false;
   for (let y = Math.max(0, Math.floor(ly)); y <= Math.min(nPhase - 1, Math.ceil(hy)); y++) {
     const wy = Math.max(0, Math.min(hy, y + 0.5) - Math.max(ly, y - 0.5));
@@ -335,14 +342,15 @@ const fineScratch = new WeakMap<FineTruth, { re: Float64Array; im: Float64Array 
 
 function regionShift(
   mag: ArrayLike<number>, pd: ArrayLike<number>, region: Int8Array, r: number, s: RegionStats,
-  nRead: number, nPhase: number, margin: number, fine?: FineTruth,
+  nRead: number, nPhase: number, margin: WindowMargin, fine?: FineTruth,
 ): { dx: number; dy: number; clean: boolean } {
   const n = nRead * nPhase, other = r === 1 ? 2 : 1;
+  const mx = typeof margin === "number" ? margin : margin.read, my = typeof margin === "number" ? margin : margin.phase;
   const win = new Float64Array(n);
   // 1. centroid, re-centred
   let ox = 0, oy = 0;
   for (let iter = 0; iter < ITERATIONS; iter++) {
-    windowWeights(win, s, ox, oy, margin, region, other, nRead, nPhase);
+    windowWeights(win, s, ox, oy, mx, my, region, other, nRead, nPhase);
     let sw = 0, sx = 0, sy = 0;
     for (let i = 0; i < n; i++) {
       const w = mag[i]! * win[i]!;
@@ -464,7 +472,7 @@ function regionShift(
   // the window's read columns bx0 … bx1 and phase rows ay0 … ay1
   let bx0 = 0, bx1 = nRead - 1, ay0 = 0, ay1 = nPhase - 1, nWin = 0;
   for (let round = 0; round < 2; round++) {
-    if (windowWeights(win, s, sx, sy, margin, region, other, nRead, nPhase)) clean = false;
+    if (windowWeights(win, s, sx, sy, mx, my, region, other, nRead, nPhase)) clean = false;
     bx0 = nRead;
     bx1 = -1;
     ay0 = nPhase;

@@ -27,8 +27,13 @@ export function fatShiftReport(
   const main = predictProtocolFatShift(protocol, seq, FAT_SINGLE_PPM);
   const mean = predictProtocolFatShift(protocol, seq, multiPeakMeanPpm());
   // the search window around each object must reach the shifted fat image
-  const predicted = Math.max(Math.abs(main.readout.px), Math.abs(main.phase.px), Math.abs(mean.readout.px), Math.abs(mean.phase.px));
-  const margin = 3 + Math.ceil(predicted);
+  // (per axis: a window grown along read for an EPI shift along phase would reach objects beside the fat one)
+  const margin = {
+    read: 3 + Math.ceil(Math.max(Math.abs(main.readout.px), Math.abs(mean.readout.px))),
+    phase: 3 + Math.ceil(Math.max(Math.abs(main.phase.px), Math.abs(mean.phase.px))),
+  };
+  // water is not moved by the chemical shift: its window stays near it, clear of the shifted fat image
+  const waterMargin = 3;
   // a shift beyond a quarter of the matrix lets the fat image wrap or land on other objects: not measured
   const tooFar = Math.abs(main.readout.px) > nRead / 4 || Math.abs(main.phase.px) > nPhase / 4;
   const plane = mag.subarray(Math.floor(seq.image.slice / 2) * nRead * nPhase, (Math.floor(seq.image.slice / 2) + 1) * nRead * nPhase);
@@ -41,7 +46,7 @@ export function fatShiftReport(
     : truth;
   const measured = !measurable
     ? null
-    : measureFatShift(plane, truth.pd, truth.fatFraction, nRead, nPhase, dx, dy, margin, { factor, pd: fine.pd, fatFraction: fine.fatFraction });
+    : measureFatShift(plane, truth.pd, truth.fatFraction, nRead, nPhase, dx, dy, margin, { factor, pd: fine.pd, fatFraction: fine.fatFraction }, waterMargin);
   const side = (px: number | undefined, m: number | undefined) => (px === undefined ? null : { px, mm: (m ?? 0) * 1e3 });
   const report: Record<string, unknown> = {
     fatModel,

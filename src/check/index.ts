@@ -11,7 +11,7 @@
  * ./psf.ts.
  */
 import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift } from "../analysis/index.js";
-import { FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
+import { FAT_SINGLE_PPM, GAMMA_BAR, SNR_FIELD_EXPONENT } from "../constants.js";
 import { UserError } from "../errors.js";
 import { parsePhantom, type Phantom, type Shape } from "../phantom/index.js";
 import { sequenceDefinition } from "../sequence/index.js";
@@ -19,7 +19,7 @@ import { logicalAxes, slicePositions, toPhysical, type Axes, type Protocol } fro
 import type { Sequence } from "../sequence/index.js";
 import { fwhmGradientEcho, fwhmSampled, fwhmSpinEcho, SINC_FWHM } from "./psf.js";
 import { DEFAULT_THRESHOLDS, judge, thresholdText, type Threshold, type Verdict } from "./thresholds.js";
-import { displayedIndex, foldPx, insideAcquired, insideDisplayed, minFovNoWrap, minOversamplingNoWrap } from "./wrap.js";
+import { displayedIndex, foldPx, insideAcquired, insideDisplayed, minFovNoWrap, minOversamplingNoWrap, phaseLinesFor } from "./wrap.js";
 
 export { DEFAULT_THRESHOLDS, parseThresholds, judge, thresholdText, type Threshold, type Verdict } from "./thresholds.js";
 export * from "./wrap.js";
@@ -97,7 +97,7 @@ export interface CheckOptions {
   roiText?: string;
   thresholds?: Record<string, Threshold>;
   /** Reference protocol's sequence for the relative SNR (default: the built-in reference of `relativeSnr`). */
-  reference?: { name: string; seq: Sequence } | null;
+  reference?: { name: string; seq: Sequence; field?: number } | null;
   /** Points per in-plane axis at most when sampling the phantom (default 320). */
   maxPoints?: number;
 }
@@ -141,6 +141,8 @@ function item(key: string, group: CheckGroup, label: string, value: number | nul
 const f1 = (v: number) => (Math.abs(v) >= 100 ? v.toFixed(0) : Math.abs(v) >= 10 ? v.toFixed(1) : v.toFixed(2));
 const mm = (m: number) => `${f1(m * 1e3)} mm`;
 const cm = (m: number) => `${(m * 100).toFixed(1)} cm`;
+/** A smallest length that works, rounded up to the 0.1 cm shown (rounding it to nearest could name one that still folds). */
+const cmAtLeast = (m: number) => `${(Math.ceil(m * 1000 - 1e-6) / 10).toFixed(1)} cm`;
 
 function signedDir(v: number, axis: string): string {
   return v === 0 ? "none" : `${v > 0 ? "+" : "-"}${axis}`;
@@ -444,6 +446,15 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   if (vMax < v1) vMax = refine(vMax, vMaxAt, 1);
   if (vMin > v0) vMin = refine(vMin, vMinAt, -1);
 
+  /**
+   * First and last pixel the folded band covers: the pixel centres inside [lo, hi]; a sliver narrower than a
+   * pixel that holds no centre gives the pixels its sampled points were counted in (never an empty range).
+   */
+  const landingPixels = (lo: number, hi: number, M: number, rows: Set<number>): [number, number] => {
+    const first = Math.ceil(displayedIndex(lo, M) - 1e-9) + 0, last = Math.floor(displayedIndex(hi, M) + 1e-9) + 0;
+    if (last >= first || rows.size === 0) return [first, last];
+    return [Math.min(...rows), Math.max(...rows)];
+  };
   const foldedList = (m: Map<number, Acc>, d: number, M: number, axisName: string): FoldedShape[] => {
     const out: FoldedShape[] = [];
     for (const [key, a] of m) {
@@ -458,7 +469,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
         tissue: ph.tissues[sh.tissue]!.name,
         from,
         beyondEdge: a.beyond,
-        landsPx: lands ? [Math.ceil(displayedIndex(lo, M) - 1e-9) + 0, Math.floor(displayedIndex(hi, M) + 1e-9) + 0] : null,
+        landsPx: lands ? landingPixels(lo, hi, M, a.rows) : null,
         landsM: lands ? [lo * d, hi * d] : null,
         landsRows: a.rows.size,
         roiPixels: a.roi,
@@ -507,7 +518,11 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
       return `${shapes.length === 1 ? shapes[0] : `${shapes.length} shapes (${shapes.slice(0, 2).join(", ")}${shapes.length > 2 ? ", …" : ""})`} beyond ${side} by up to ${mm(by)} land${shapes.length === 1 ? "s" : ""} on ${axisName} ${lo}…${hi} (${mm(loM)} … ${mm(hiM)})${roi ? ", inside the ROI" : ""}`;
     }).join("; ");
   };
-  const avoidP = `no fold with fov.phase ≥ ${cm(phaseWrap.minFov!)} or phase oversampling ≥ ${(minOs * 100).toFixed(0)} %`;
+  // the smallest whole percent whose phase-encode table has the lines needed (rounding to the nearest percent
+  // could name one with a line pair too few, which still folds)
+  let minOsPct = Math.max(0, Math.floor(minOs * 100 + 1e-9));
+  while (phaseLinesFor(Mp, minOsPct / 100) < phaseLinesFor(Mp, minOs)) minOsPct++;
+  const avoidP = `no fold with fov.phase ≥ ${cmAtLeast(phaseWrap.minFov!)} or phase oversampling ≥ ${minOsPct} %`;
   const pText = phaseRows.size > 0
     ? `${describeFold(phaseFolded, "rows")}; ${avoidP}`
     : phaseFolded.length > 0
@@ -537,7 +552,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   } else {
     items.push(item("wrapRead", "wrap", "wrap along read: columns hit", readRows.size, th,
       readRows.size > 0
-        ? `receiver filter off: ${describeFold(readFolded, "columns")}; no fold with oversampling.read ≥ ${readWrap.minOversampling} or fov.read ≥ ${cm(readWrap.minFov!)}`
+        ? `receiver filter off: ${describeFold(readFolded, "columns")}; no fold with oversampling.read ≥ ${readWrap.minOversampling} or fov.read ≥ ${cmAtLeast(readWrap.minFov!)}`
         : `receiver filter off, but the phantom (${mm(uMin)} … ${mm(uMax)} along ${names.read}) stays within what folds outside the image`));
     items.push(item("wrapReadRoi", "wrap", "wrap along read: inside the ROI", Math.round(readRoi * 10) / 10, th,
       readRoi > 0 ? `folded signal covers ~${f1(readRoi)} px of the ROI (${roiText})` : `no folded signal lands in the ROI (${roiText})`));
@@ -627,9 +642,13 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- cost ----
   const snr = seq.derived["relativeSnr"]!.value as number;
   const ref = opts.reference ?? null;
-  const snrRel = ref ? snr / (ref.seq.derived["relativeSnr"]!.value as number) : snr;
+  // a reference at another field: SNR ∝ B0^β as well (the sampling factors alone compare protocols at one field)
+  const fieldFactor = ref && ref.field !== undefined && ref.field !== p.field ? (p.field / ref.field) ** SNR_FIELD_EXPONENT : 1;
+  const snrRel = ref ? (snr / (ref.seq.derived["relativeSnr"]!.value as number)) * fieldFactor : snr;
   items.push(item("snr", "cost", "relative SNR", snrRel, th,
-    `∝ voxel·√(N_avg·N_lines·N_slice·T_adc) (Edelstein et al. 1986), relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
+    `∝ voxel·√(N_avg·N_lines·N_slice·T_adc) (Edelstein et al. 1986)` +
+      (fieldFactor !== 1 ? ` × (B0/B0_ref)^${SNR_FIELD_EXPONENT} = ${f1(fieldFactor)} (${p.field} T against ${ref!.field} T; sample-noise regime, Hoult and Richards 1976)` : "") +
+      `, relative to ${ref ? ref.name : seq.derived["relativeSnr"]!.note!.replace(/^.*relative to /, "")}; same tissue and contrast assumed`));
   const scan = seq.timing.scanTime;
   items.push(item("scanTime", "cost", "scan time", scan, th, `${scan >= 60 ? `${Math.floor(scan / 60)} min ${(scan % 60).toFixed(0)} s` : `${f1(scan)} s`} (${seq.derived["scanTime"]?.note ?? "from the sequence timing"})`));
   const headroom = (kind: "Gradient" | "Slew", limit: number): { margin: number; axis: string; peak: number } => {

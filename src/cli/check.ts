@@ -70,7 +70,8 @@ export function runCheck(phantomFile: string, o: CheckCliOptions): { result: Che
   const roi = o.roi !== undefined ? parseRoi(o.roi) : null;
   const protocol = loadProtocol(o.protocol, o.set ?? []);
   const seq = sequenceOf(protocol, o.protocol);
-  const reference = o.reference ? { name: o.reference, seq: sequenceOf(loadProtocol(o.reference), o.reference) } : null;
+  const refProtocol = o.reference ? loadProtocol(o.reference) : null;
+  const reference = o.reference && refProtocol ? { name: o.reference, seq: sequenceOf(refProtocol, o.reference), field: refProtocol.field } : null;
   const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const result = checkProtocol(phantom, protocol, seq, { roi, roiText: o.roi, thresholds, reference });
   result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));

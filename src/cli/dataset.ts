@@ -4,7 +4,7 @@
  * in src/dataset/.
  */
 import { Command } from "commander";
-import { readFileSync } from "node:fs";
+import { existsSync, readFileSync, rmdirSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { UserError } from "../errors.js";
 import { logicalAxes, type Protocol } from "../protocol/index.js";
@@ -67,6 +67,8 @@ export interface DatasetCliOptions {
   /** Readout operator and its tolerance (the shared simulation options, as for simulate). */
   readout?: "auto" | "fast" | "direct";
   tolerance?: number;
+  /** --max-memory in GiB (the shared simulation option): refuse a case whose estimated memory exceeds it. */
+  maxMemory?: number;
 }
 
 /** Engine options of a dataset run: environment switches and the readout operator. */
@@ -407,6 +409,8 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     const prepared = prepare({
       phantom: phantomFile, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso, quiet: o.quiet,
       phantomTransform: () => plan.phantoms[i]!,
+      // the memory check of simulate, for this case's coils (--max-memory was read but not used before)
+      workers: o.workers, memoryCoils: C, ...(o.maxMemory !== undefined ? { maxMemory: o.maxMemory * 2 ** 30 } : {}),
     });
     const { seq, phantom: casePhantom, cells: set } = prepared;
     const warnings = [...protocol.warnings, ...set.warnings];
@@ -554,9 +558,25 @@ export function registerDataset(program: Command): void {
     // parts of one batch (--cases A:B) run at the same time into one folder: each locks its own range
     // (<out>/.cases-A-B.lock); a whole batch, and dataset-merge, lock the folder (<out>.lock)
     const part = o.cases !== undefined ? /^\s*(\d+)\s*:\s*(\d+)\s*$/.exec(o.cases) : null;
-    const r = part
-      ? await withOutputDir(join(o.out, `.cases-${Number(part[1])}-${Number(part[2])}`), () => runDataset(phantom, o), "--out")
-      : await withOutputDir(o.out, () => runDataset(phantom, o));
+    const existed = existsSync(o.out);
+    let r: Awaited<ReturnType<typeof runDataset>>;
+    try {
+      r = part
+        ? await withOutputDir(join(o.out, `.cases-${Number(part[1])}-${Number(part[2])}`), () => runDataset(phantom, o), "--out")
+        : await withOutputDir(o.out, () => runDataset(phantom, o));
+    } catch (e) {
+      // an input error found at the first case (nothing in the slice, --max-memory, …) leaves no empty
+      // folder behind (exit 2: nothing written); rmdir removes only an empty folder, so what a case or
+      // another part wrote stays
+      if (!existed) {
+        try {
+          rmdirSync(o.out);
+        } catch {
+          // not empty, or gone: keep it
+        }
+      }
+      throw e;
+    }
     const made = r.made.length;
     const range = o.cases !== undefined ? o.cases.split(":").map((v) => Number(v.trim())) : null;
     console.log(

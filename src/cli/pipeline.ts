@@ -81,6 +81,8 @@ export interface RunOptions {
   shard?: [number, number];
   /** Memory limit in bytes for the estimate check (default 80 % of total memory). */
   maxMemory?: number;
+  /** Receive coils the engine carries per isochromat, for the memory estimate (default 1: the uniform coil). */
+  memoryCoils?: number;
   /** Run the a-posteriori through-slice convergence check (default true). */
   convergenceCheck?: boolean;
   /** Readout operator (default auto: the cheaper by predicted cost; fast falls back to direct where it does not apply) and its tolerance (relative L2 of k-space, default 1e-6). */
@@ -121,7 +123,7 @@ function libraryInput(o: RunOptions): SimulateInput {
     readout: o.readout, tolerance: o.tolerance,
     ...(o.coilRun ? { runEngine: o.coilRun } : {}),
     chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
-    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers, 1, !e.stored), o.maxMemory ?? defaultMemoryLimit(), e.iso),
+    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers, o.memoryCoils ?? 1, !e.stored), o.maxMemory ?? defaultMemoryLimit(), e.iso),
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
     version: version(),
   };

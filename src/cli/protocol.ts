@@ -4,6 +4,7 @@
  * normalized protocol and every derived quantity as a table (or --json).
  */
 import type { Command } from "commander";
+import { SNR_FIELD_EXPONENT } from "../constants.js";
 import { UserError } from "../errors.js";
 import { logicalAxes, slicePositions, SEQUENCES, type Protocol } from "../protocol/index.js";
 import { listPresets, loadProtocol } from "./inputs.js";
@@ -121,10 +122,14 @@ export function registerProtocol(program: Command): void {
           if (e instanceof UserError) throw e.inFile(o.reference);
           throw e;
         }
+        // a reference at another field: SNR ∝ B0^β as well (Hoult and Richards 1976; as the dataset's physical noise model)
+        const fieldFactor = ref.field !== p.field ? (p.field / ref.field) ** SNR_FIELD_EXPONENT : 1;
         derived["snrVsReference"] = {
-          value: (seq.derived["relativeSnr"]!.value as number) / (rseq.derived["relativeSnr"]!.value as number),
+          value: ((seq.derived["relativeSnr"]!.value as number) / (rseq.derived["relativeSnr"]!.value as number)) * fieldFactor,
           unit: "",
-          note: `SNR relative to ${o.reference} (same tissue and contrast assumed)`,
+          note: `SNR relative to ${o.reference}` +
+            (fieldFactor !== 1 ? `, including (B0/B0_ref)^${SNR_FIELD_EXPONENT} = ${fieldFactor.toPrecision(3)} for ${p.field} T against ${ref.field} T (sample-noise regime, Hoult and Richards 1976)` : "") +
+            ` (same tissue and contrast assumed)`,
         };
       }
       const axes = logicalAxes(p);

@@ -6,6 +6,7 @@
  *   n = σ·L·z,  Ψ = L·Lᴴ (Cholesky),  z ~ CN(0, I) (E|z_c|² = 1),
  * so E[n·nᴴ] = σ²·Ψ. σ comes from the target SNR (see snrSigma).
  */
+import { SNR_FIELD_EXPONENT } from "../constants.js";
 import { UserError } from "../errors.js";
 import { decodeNpy } from "../io/npy.js";
 import type { CoilArray } from "./coils.js";
@@ -203,7 +204,7 @@ export function snrSigma(truthRe: Float64Array, truthIm: Float64Array, snr: numb
  * magnetic resonance experiment", J. Magn. Reson. 24 (1976) 71–85, the usual
  * assumption at clinical field strengths (common practice).
  */
-export const FIELD_EXPONENT = 1;
+export const FIELD_EXPONENT = SNR_FIELD_EXPONENT;
 
 export interface SnrFactors {
   /** Voxel volume (m³) of the image grid. */

@@ -22,6 +22,7 @@
 import { GAMMA_BAR, FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM } from "../constants.js";
 import { phantomBounds, shapeCellContents, shapeCellUniform, type Phantom, type Shape } from "../phantom/index.js";
 import type { Axes } from "../protocol/geometry.js";
+import { UserError } from "../errors.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
 
@@ -484,6 +485,14 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
     if (lo >= -lim && hi <= lim) return [lo, hi];
     const shapes = beyond(dir, lim).join(", ");
     const reach = open ? "unbounded" : `${cm(lo)} … ${cm(hi)}`;
+    if (lo > lim || hi < -lim) {
+      // the whole phantom lies beyond the sampled range: no isochromat could be made
+      const why = stopBand ? ", where the receiver filter passes no signal" : ", the range sampled";
+      throw new UserError(
+        `along ${name} the phantom lies at ${reach}, wholly beyond ±${cm(lim)}${why}, so nothing of it reaches the image; ` +
+          `move the shapes toward the isocentre or widen fov.${name}` + (stopBand ? ` (or set receiverFilter false to let it wrap)` : ""),
+      );
+    }
     if (stopBand && !open) {
       notes.push(`along ${name} the phantom reaches ${reach}; sampled within ±${cm(lim)}, where the receiver filter still passes signal (${shapes} extend beyond it)`);
     } else {
