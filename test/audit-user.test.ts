@@ -9,7 +9,7 @@ import { UserError } from "../src/errors.js";
 import { parsePhantom } from "../src/phantom/index.js";
 import { parseProtocolObject } from "../src/protocol/index.js";
 import { buildSequence } from "../src/sequence/index.js";
-import { simulate } from "./helpers.js";
+import { simulate, tempDir } from "./helpers.js";
 
 type Obj = Record<string, unknown>;
 const gel = { pd: 1, t1: "300 ms", t2: "80 ms", t2star: "80 ms", species: "water" };
@@ -229,5 +229,25 @@ describe("a 2D protocol with a non-selective (hard) excitation", () => {
     let sum = 0;
     for (let y = c - 2; y < c + 2; y++) for (let x = c - 2; x < c + 2; x++) sum += Math.hypot(r.image.re[y * n + x]!, r.image.im[y * n + x]!);
     expect(sum / 16 / (3 * ernst)).toBeCloseTo(1, 2);
+  });
+});
+
+describe("simulate --coils and --max-memory", () => {
+  it("the memory estimate counts the coils (it once took every simulate run for one coil)", async () => {
+    const { spawnSync } = await import("node:child_process");
+    const { resolve } = await import("node:path");
+    const cli = resolve(__dirname, "../dist/src/cli/index.js"), dir = tempDir("isofold-coilmem-");
+    // a limit of 1 MiB refuses both; the message gives the estimate
+    const needs = (coils: string[]) => {
+      const r = spawnSync(process.execPath, [cli, "simulate", resolve(__dirname, "../phantoms/two-bottle.json"), "-p", "gre-demo-1.5t", "--set", "matrix.read=32", "--set", "matrix.phase=32",
+        "--density", "1", "--slice-isochromats", "4", "--t2prime-isochromats", "1", "--max-memory", "0.001", "-q", "-o", resolve(dir, "out"), ...coils], { encoding: "utf8" });
+      expect(r.status).toBe(2);
+      const m = /needs an estimated ([\d.]+) (MiB|GiB)/.exec(r.stderr);
+      expect(m, r.stderr).not.toBeNull();
+      return Number(m![1]) * (m![2] === "GiB" ? 1024 : 1);
+    };
+    const one = needs([]), eight = needs(["--coils", "8"]);
+    // eight coils carry eight k-spaces and a sensitivity per isochromat and coil: more than one coil's
+    expect(eight).toBeGreaterThan(one);
   });
 });

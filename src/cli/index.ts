@@ -47,6 +47,8 @@ addSimulationOptions(
   const r = await withOutputDir(o.out, () => run({
     phantom, protocol: o.protocol, sets: o.set, out: o.out, seed: o.seed, iso: isoOptions(o), quiet: o.quiet, truth: o.truth === true, ...engineOptions(o),
     coilRun: coilRunFor(phantom, o),
+    // the memory estimate with the coils the engine carries (--coils N: N loops)
+    ...(Number(o.coils) >= 2 ? { memoryCoils: Number(o.coils) } : {}),
   }));
   if (o.shard) {
     console.log(`shard ${o.shard[0]}/${o.shard[1]}: wrote ${r.files.join(", ")} to ${r.dir} in ${r.seconds.toFixed(1)} s; combine the shards with: isofold merge <shard folders...> --out <dir>`);

@@ -114,7 +114,8 @@ export function estimateMemory(ph: Phantom, geo: IsoGeometry, fieldT: number, is
 }
 
 function gib(b: number): string {
-  return `${(b / 2 ** 30).toFixed(1)} GiB`;
+  // below 0.1 GiB in MiB (a limit of 1 MiB read "0.0 GiB")
+  return b < 0.1 * 2 ** 30 ? `${(b / 2 ** 20).toFixed(1)} MiB` : `${(b / 2 ** 30).toFixed(1)} GiB`;
 }
 
 /** Throws a UserError with the estimate and what would fit when the estimate exceeds `limit` bytes. */
