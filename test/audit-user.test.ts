@@ -9,7 +9,7 @@ import { UserError } from "../src/errors.js";
 import { parsePhantom } from "../src/phantom/index.js";
 import { parseProtocolObject } from "../src/protocol/index.js";
 import { buildSequence } from "../src/sequence/index.js";
-import { simulate, tempDir } from "./helpers.js";
+import { protocolInProcess, simulate, tempDir } from "./helpers.js";
 
 type Obj = Record<string, unknown>;
 const gel = { pd: 1, t1: "300 ms", t2: "80 ms", t2star: "80 ms", species: "water" };
@@ -83,10 +83,7 @@ describe("README: the `isofold protocol` examples run as written", () => {
   it("each preset example prints its table; a bandwidth given as a fat shift in px gives Δf_fat/px Hz/px", async () => {
     const { readFileSync } = await import("node:fs");
     const { resolve } = await import("node:path");
-    const { Command } = await import("commander");
-    const { registerProtocol } = await import("../src/cli/protocol.js");
     const { listPresets } = await import("../src/cli/inputs.js");
-    const { vi } = await import("vitest");
     const readme = readFileSync(resolve(__dirname, "../README.md"), "utf8");
     const presets = new Set(listPresets());
     const examples = [...readme.matchAll(/node dist\/src\/cli\/index\.js protocol (\S+)((?: --set \w[\w.]*="[^"]*")*)/g)]
@@ -94,18 +91,7 @@ describe("README: the `isofold protocol` examples run as written", () => {
     expect(examples.length).toBeGreaterThan(0);
     for (const m of examples) {
       const sets = [...m[2]!.matchAll(/--set (\w[\w.]*)="([^"]*)"/g)].flatMap((s) => ["--set", `${s[1]}=${s[2]}`]);
-      const program = new Command();
-      program.exitOverride();
-      registerProtocol(program);
-      let out = "";
-      const log = vi.spyOn(console, "log").mockImplementation((...a: unknown[]) => void (out += a.join(" ") + "\n"));
-      const write = vi.spyOn(process.stdout, "write").mockImplementation((s: string | Uint8Array) => ((out += String(s)), true));
-      try {
-        await program.parseAsync(["node", "isofold", "protocol", m[1]!, ...sets, "--json"]);
-      } finally {
-        log.mockRestore();
-        write.mockRestore();
-      }
+      const out = await protocolInProcess(m[1]!, ...sets, "--json");
       const j = JSON.parse(out) as { protocol: { field: number; pixelBandwidth: number; bandwidthAsGiven: string } };
       const px = /^([\d.]+) px$/.exec(j.protocol.bandwidthAsGiven);
       if (px) {

@@ -15,7 +15,9 @@ import { magnitude } from "../src/recon/reconstruct.js";
 import type { Protocol } from "../src/protocol/index.js";
 import type { Phantom } from "../src/phantom/index.js";
 import type { Sequence } from "../src/sequence/index.js";
-import { expect } from "vitest";
+import { expect, vi } from "vitest";
+import { Command } from "commander";
+import { registerProtocol } from "../src/cli/protocol.js";
 import { UserError } from "../src/errors.js";
 
 /** The thrown error of f, which must be a UserError. */
@@ -141,4 +143,21 @@ export function relL2(aRe: ArrayLike<number>, aIm: ArrayLike<number>, bRe: Array
     den += bRe[i]! ** 2 + bIm[i]! ** 2;
   }
   return Math.sqrt(num / den);
+}
+
+/** `isofold protocol <args>` in this process (commander with exitOverride): what it printed on stdout. */
+export async function protocolInProcess(...args: string[]): Promise<string> {
+  const program = new Command();
+  program.exitOverride();
+  registerProtocol(program);
+  let out = "";
+  const log = vi.spyOn(console, "log").mockImplementation((...a: unknown[]) => void (out += a.join(" ") + "\n"));
+  const write = vi.spyOn(process.stdout, "write").mockImplementation((s: string | Uint8Array) => ((out += String(s)), true));
+  try {
+    await program.parseAsync(["node", "isofold", "protocol", ...args]);
+  } finally {
+    log.mockRestore();
+    write.mockRestore();
+  }
+  return out;
 }

@@ -3,30 +3,15 @@
  * command's action run in-process through commander), --json and the
  * one-line error with exit code 2 from the compiled CLI.
  */
-import { describe, expect, it, vi } from "vitest";
+import { describe, expect, it } from "vitest";
 import { spawnSync } from "node:child_process";
 import { resolve } from "node:path";
-import { Command } from "commander";
-import { registerProtocol } from "../src/cli/protocol.js";
 import { listPresets } from "../src/cli/inputs.js";
+import { protocolInProcess } from "./helpers.js";
 
 const CLI = resolve(__dirname, "../dist/src/cli/index.js");
 
-async function inProcess(...args: string[]): Promise<string> {
-  const program = new Command();
-  program.exitOverride();
-  registerProtocol(program);
-  let out = "";
-  const log = vi.spyOn(console, "log").mockImplementation((...a: unknown[]) => void (out += a.join(" ") + "\n"));
-  const write = vi.spyOn(process.stdout, "write").mockImplementation((s: string | Uint8Array) => ((out += String(s)), true));
-  try {
-    await program.parseAsync(["node", "isofold", "protocol", ...args]);
-  } finally {
-    log.mockRestore();
-    write.mockRestore();
-  }
-  return out;
-}
+const inProcess = protocolInProcess;
 
 describe("isofold protocol", () => {
   it("prints the derived table for every preset", async () => {
