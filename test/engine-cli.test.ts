@@ -103,7 +103,7 @@ describe("isofold simulate / merge", () => {
     const r = cli([...CASE, "--density", "4", "--max-memory", "0.001", "-o", out]);
     expect(r.status).toBe(2);
     expect(r.stderr.trim().split("\n")).toHaveLength(1);
-    expect(r.stderr).toMatch(/estimated .* GiB .* isochromats/);
+    expect(r.stderr).toMatch(/estimated [\d.]+ (GiB|MiB) .* isochromats/);
     expect(r.stderr).toMatch(/--density|--slice-isochromats/);
     expect(existsSync(out)).toBe(false);
   }, 60_000);
