@@ -351,6 +351,11 @@ describe("a B0 model with very many RF classes: Δf interpolated between nodes (
     expect(ip.order).toBe(INTERP_ORDER);
     expect(ip.probes).toBeGreaterThan(0);
     expect(ip.maxRelError).toBeLessThan(1e-6 / 8);
+    // columns folded from the shift tables (each entry interpolated in its B0 shift), the rest per node
+    expect(ip.tableColumns).toBeGreaterThan(0);
+    expect(ip.tableColumns + ip.nodeColumns).toBe(p.cells.columns);
+    // the torso reaches where the receiver filter rolls off: those columns fold per node, in the same run
+    if (opts.torso) expect(ip.nodeColumns).toBeGreaterThan(0);
     const direct = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
     const err = relL2(fast.kspace.re, fast.kspace.im, direct.kspace.re, direct.kspace.im);
     expect(err).toBeLessThan(1e-6);

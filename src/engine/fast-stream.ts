@@ -58,6 +58,8 @@ export function setInterpolationMinClasses(n: number): number {
 }
 /** Points of the Lagrange interpolation in Δf (even: nodes on both sides of Δf). */
 export const INTERP_ORDER = 6;
+/** The fold's shift tables (shiftTables) at most this many numbers (Float64; 512 MiB); beyond, the per-node fold runs. */
+const TABLE_DOUBLES = 64 * 2 ** 20;
 /** Probe classes at exact Δf (seeded) checking the interpolation after the history. */
 export const INTERP_PROBES = 48;
 const INTERP_SEED = 40213;
@@ -201,6 +203,8 @@ export class CellStream {
    * moment form, the terms they kept (of `of` each), and the largest bound on a column's relative error.
    */
   sensStats = { columns: 0, terms: 0, of: 0, maxRel: 0 };
+  /** Δf interpolated: columns of the last fold folded from the shift tables, and per node (the receiver filter not flat). */
+  interpStats = { tableColumns: 0, nodeColumns: 0 };
   /** The last fold's tolerance for leaving out through-slice terms (0 before a fold: the estimate then keeps every nonzero term). */
   private termTol = 0;
 
@@ -352,6 +356,13 @@ export class CellStream {
           gHi[g] = Math.max(gHi[g]!, eB0[e]! + zHi[z]!);
         }
       }
+      // half a stencil more on each side: the fold's tables at lattice shifts around an entry's B0 (fold) read
+      // Δf up to INTERP_ORDER/2 steps beyond the entries' own
+      for (let g = 0; g < NG; g++) {
+        if (!(gHi[g]! >= gLo[g]!)) continue;
+        gLo[g] = gLo[g]! - (INTERP_ORDER / 2) * step;
+        gHi[g] = gHi[g]! + (INTERP_ORDER / 2) * step;
+      }
       // every group's nodes on the one lattice Δf = integer × step: nodes of the same tissue at different w then
       // share their (R2, Δf) key, and a column's time-segment sums run over the tissue's nodes, not over w × nodes
       for (let g = 0; g < NG; g++) if (gHi[g]! >= gLo[g]!) gLo[g] = Math.floor(gLo[g]! / step) * step;
@@ -456,6 +467,216 @@ export class CellStream {
   /** Class of term t (of combination z) of entry e. */
   private classAt(e: number, z: number, t: number): number {
     return this.eClass ? this.eClass[this.eT0![e]! + t - this.zStart[z]!]! : this.zClass[t]!;
+  }
+
+  /**
+   * Δf interpolated, for one fold pass (ranks r0 … r1−1): per combination z =
+   * (w, tissue, place) and lattice shift δ_j (the node lattice, over the B0 of
+   * the group's entries) the (rank, segment) table Σ_t f_t·Σ_x ℓ_x(δ_j + Δf_t)·
+   * G_r(node)·C_l(key), made on first use; an entry at B0 shift δ reads
+   * Σ_j ℓ_j(δ)·table(z, j): the same Lagrange interpolation, now of the entry's
+   * whole signal in its shift (smooth in δ as the signal is in Δf; the
+   * estimate, summed per node, checks it). `column` folds a column this way
+   * where the receiver filter is flat over all its entries (else false: the
+   * per-node fold runs). Null where the tables would not fit TABLE_DOUBLES.
+   */
+  private shiftTables(ip: DfNodes, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, Ck: Float64Array, L: number) {
+    const { cells, T, D2, zStart, zF, zDf } = this, nw = cells.wGrid.length, NG = nw * T, nz = NG * D2, p = ip.p, half = p / 2 - 1, step = ip.step;
+    const W = r1 - r0, WL = W * L, ne = cells.entW.length, eB0 = ip.eB0, pd = cells.ctx.pd;
+    // per group the range of its entries' B0, on the lattice
+    const lo = new Float64Array(NG).fill(Infinity), hi = new Float64Array(NG).fill(-Infinity);
+    for (let e = 0; e < ne; e++) {
+      const g = cells.entW[e]! * T + cells.entTissue[e]!;
+      if (eB0[e]! < lo[g]!) lo[g] = eB0[e]!;
+      if (eB0[e]! > hi[g]!) hi[g] = eB0[e]!;
+    }
+    const sBase = new Int32Array(NG), sM = new Int32Array(NG);
+    let NY = 0;
+    for (let g = 0; g < NG; g++) {
+      if (!(hi[g]! >= lo[g]!)) continue;
+      lo[g] = Math.floor(lo[g]! / step) * step;
+      sM[g] = Math.floor((hi[g]! - lo[g]!) / step);
+      NY = Math.max(NY, sM[g]! + p);
+    }
+    if (nz * NY * 2 * WL > TABLE_DOUBLES) return null;
+    for (let g = 0; g < NG; g++) sBase[g] = g * NY;
+    const shift = new DfNodes(step, lo, sBase, sM, eB0);
+    // per combination: the lowest and highest Δf of its terms (for the receiver filter's flatness)
+    const zLo = new Float64Array(nz).fill(Infinity), zHi = new Float64Array(nz).fill(-Infinity);
+    for (let z = 0; z < nz; z++) {
+      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+        zLo[z] = Math.min(zLo[z]!, zDf[t]!);
+        zHi[z] = Math.max(zHi[z]!, zDf[t]!);
+      }
+    }
+    const tables: (Float64Array | undefined)[] = new Array(nz * NY);
+    const iwt = new Float64Array(p), swt = new Float64Array(p);
+    const table = (z: number, g: number, j: number): Float64Array => {
+      let tab = tables[z * NY + j];
+      if (tab) return tab;
+      tab = new Float64Array(2 * WL);
+      const d = lo[g]! + (j - half) * step;
+      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+        const k0 = ip.expand(d + zDf[t]!, g, iwt);
+        for (let x = 0; x < p; x++) {
+          const cl = k0 + x, k = keyOf[cl]!, fw = zF[t]! * iwt[x]!;
+          for (let r = 0; r < W; r++) {
+            const gr = G[2 * (cl * R + r0 + r)]! * fw, gi = G[2 * (cl * R + r0 + r) + 1]! * fw;
+            for (let l = 0; l < L; l++) {
+              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = 2 * (r * L + l);
+              tab[o] = tab[o]! + (gr * cr - gi * ci);
+              tab[o + 1] = tab[o + 1]! + (gr * ci + gi * cr);
+            }
+          }
+        }
+      }
+      tables[z * NY + j] = tab;
+      return tab;
+    };
+    const colT = new Float64Array(2 * WL * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
+    return {
+      column: (col: number, sub: number, u: number, filt: boolean, fRead: number, bw: number, S: Float64Array, hasSens: boolean, coils: number,
+        pr0: number, pi0: number, XB: Float64Array, ob: number): boolean => {
+        const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+        if (filt) {
+          for (let e = e0; e < e1; e++) {
+            const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
+            if (zStart[z + 1]! > zStart[z]! && !flatFor(fRead * u, eB0[e]! + zLo[z]! - margin, eB0[e]! + zHi[z]! + margin, bw)) return false;
+          }
+        }
+        // per w: Σ over its entries of pd·fraction × the interpolated table
+        for (let e = e0; e < e1; e++) {
+          const c = cells.entW[e]!, ti = cells.entTissue[e]!, g = c * T + ti, z = g * D2 + sub;
+          if (zStart[z + 1]! === zStart[z]!) continue;
+          const fp = pd[ti]! * cells.entFrac[e]!, j0 = shift.expand(eB0[e]!, g, swt) - sBase[g]!, o = hasSens ? 2 * WL * c : 0;
+          if (usedW[hasSens ? c : 0] === 0) {
+            usedW[hasSens ? c : 0] = 1;
+            colT.fill(0, o, o + 2 * WL);
+          }
+          for (let x = 0; x < p; x++) {
+            const tab = table(z, g, j0 + x), f = fp * swt[x]!;
+            for (let i = 0; i < 2 * WL; i++) colT[o + i] = colT[o + i]! + f * tab[i]!;
+          }
+        }
+        // times each coil's sensitivity at that w and the column's pre-phase, into the grid
+        for (let c = 0; c < (hasSens ? nw : 1); c++) {
+          if (usedW[c] === 0) continue;
+          usedW[c] = 0;
+          const o = 2 * WL * c;
+          for (let q = 0; q < coils; q++) {
+            const sr0 = hasSens ? S[2 * (q * nw + c)]! : 1, si0 = hasSens ? S[2 * (q * nw + c) + 1]! : 0;
+            const sr = sr0 * pr0 - si0 * pi0, si = sr0 * pi0 + si0 * pr0;
+            for (let r = 0; r < W; r++) {
+              for (let l = 0; l < L; l++) {
+                const a = o + 2 * (r * L + l), zr = colT[a]!, zi = colT[a + 1]!, x = ob + 2 * ((r * coils + q) * L + l);
+                XB[x] = XB[x]! + (zr * sr - zi * si);
+                XB[x + 1] = XB[x + 1]! + (zr * si + zi * sr);
+              }
+            }
+          }
+        }
+        return true;
+      },
+    };
+  }
+
+  /**
+   * Δf interpolated, the estimate's twin of shiftTables: per combination z and
+   * lattice shift δ_j the estimate's samples Σ_t f_t·Σ_x ℓ_x(δ_j + Δf_t)·
+   * Pr_node(row(s))·dec_key(s) (the exact per-node states and decays), made on
+   * first use; `column` writes a column's samples per coil into colv (layout of
+   * estimateOver's addSamples) where the receiver filter is flat over all its
+   * entries, else returns false (the per-node sums run).
+   */
+  private shiftSamples(ip: DfNodes, setup: Parameters<ColumnVisitor>[2]) {
+    const { cells, T, D2, zStart, zF, zDf } = this, nw = cells.wGrid.length, NG = nw * T, nz = NG * D2, p = ip.p, half = p / 2 - 1, step = ip.step;
+    const { S: NS, PJ, Pr, dec, keyOf, filter } = setup, NR = setup.NR, ne = cells.entW.length, eB0 = ip.eB0, pd = cells.ctx.pd;
+    const lo = new Float64Array(NG).fill(Infinity), hi = new Float64Array(NG).fill(-Infinity);
+    for (let e = 0; e < ne; e++) {
+      const g = cells.entW[e]! * T + cells.entTissue[e]!;
+      if (eB0[e]! < lo[g]!) lo[g] = eB0[e]!;
+      if (eB0[e]! > hi[g]!) hi[g] = eB0[e]!;
+    }
+    const sBase = new Int32Array(NG), sM = new Int32Array(NG);
+    let NY = 0;
+    for (let g = 0; g < NG; g++) {
+      if (!(hi[g]! >= lo[g]!)) continue;
+      lo[g] = Math.floor(lo[g]! / step) * step;
+      sM[g] = Math.floor((hi[g]! - lo[g]!) / step);
+      NY = Math.max(NY, sM[g]! + p);
+    }
+    if (nz * NY * 2 * NS > TABLE_DOUBLES) return null;
+    for (let g = 0; g < NG; g++) sBase[g] = g * NY;
+    const shift = new DfNodes(step, lo, sBase, sM, eB0);
+    const zLo = new Float64Array(nz).fill(Infinity), zHi = new Float64Array(nz).fill(-Infinity);
+    for (let z = 0; z < nz; z++) {
+      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+        zLo[z] = Math.min(zLo[z]!, zDf[t]!);
+        zHi[z] = Math.max(zHi[z]!, zDf[t]!);
+      }
+    }
+    const tables: (Float64Array | undefined)[] = new Array(nz * NY);
+    const iwt = new Float64Array(p), swt = new Float64Array(p);
+    const table = (z: number, g: number, j: number): Float64Array => {
+      let tab = tables[z * NY + j];
+      if (tab) return tab;
+      tab = new Float64Array(2 * NS);
+      const d = lo[g]! + (j - half) * step;
+      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+        const k0 = ip.expand(d + zDf[t]!, g, iwt);
+        for (let x = 0; x < p; x++) {
+          const cl = k0 + x, k = keyOf[cl]!, fw = zF[t]! * iwt[x]!;
+          for (let s = 0; s < NS; s++) {
+            const w = Math.floor(s / PJ), pr = Pr[2 * (cl * NR + w)]! * fw, pi = Pr[2 * (cl * NR + w) + 1]! * fw;
+            const dr = dec[2 * (k * NS + s)]!, di = dec[2 * (k * NS + s) + 1]!;
+            tab[2 * s] = tab[2 * s]! + (pr * dr - pi * di);
+            tab[2 * s + 1] = tab[2 * s + 1]! + (pr * di + pi * dr);
+          }
+        }
+      }
+      tables[z * NY + j] = tab;
+      return tab;
+    };
+    const colY = new Float64Array(2 * NS * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
+    return {
+      column: (col: number, sub: number, u: number, S: Float64Array | null, coils: number, colv: Float64Array): boolean => {
+        const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
+        if (filter) {
+          for (let e = e0; e < e1; e++) {
+            const z = (cells.entW[e]! * T + cells.entTissue[e]!) * D2 + sub;
+            if (zStart[z + 1]! > zStart[z]! && !flatFor(filter.fRead * u, eB0[e]! + zLo[z]! - margin, eB0[e]! + zHi[z]! + margin, filter.bw)) return false;
+          }
+        }
+        for (let e = e0; e < e1; e++) {
+          const c = cells.entW[e]!, ti = cells.entTissue[e]!, g = c * T + ti, z = g * D2 + sub;
+          if (zStart[z + 1]! === zStart[z]!) continue;
+          const fp = pd[ti]! * cells.entFrac[e]!, j0 = shift.expand(eB0[e]!, g, swt) - sBase[g]!, cw = S ? c : 0, o = 2 * NS * cw;
+          if (usedW[cw] === 0) {
+            usedW[cw] = 1;
+            colY.fill(0, o, o + 2 * NS);
+          }
+          for (let x = 0; x < p; x++) {
+            const tab = table(z, g, j0 + x), f = fp * swt[x]!;
+            for (let i = 0; i < 2 * NS; i++) colY[o + i] = colY[o + i]! + f * tab[i]!;
+          }
+        }
+        colv.fill(0);
+        for (let c = 0; c < (S ? nw : 1); c++) {
+          if (usedW[c] === 0) continue;
+          usedW[c] = 0;
+          const o = 2 * NS * c;
+          for (let q = 0; q < coils; q++) {
+            const sr = S ? S[2 * (q * nw + c)]! : 1, si = S ? S[2 * (q * nw + c) + 1]! : 0;
+            for (let s = 0; s < NS; s++) {
+              const zr = colY[o + 2 * s]!, zi = colY[o + 2 * s + 1]!, x = 2 * (q * NS + s);
+              colv[x] = colv[x]! + (zr * sr - zi * si);
+              colv[x + 1] = colv[x + 1]! + (zr * si + zi * sr);
+            }
+          }
+        }
+        return true;
+      },
+    };
   }
 
   /**
@@ -611,6 +832,9 @@ export class CellStream {
     const nw = cells.wGrid.length, hasSens = this.sens !== null;
     // per term: its key and f·G_r(class) for the ranks of this pass
     const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
+    const lat = ip ? this.shiftTables(ip, G, R, r0, r1, keyOf, Ck, L) : null;
+    const counted = ip ? new Uint8Array(cells.columns) : null;
+    this.interpStats = { tableColumns: 0, nodeColumns: 0 };
     const b0 = this.eClass !== null || ip !== null, nt0 = b0 ? 0 : zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
     for (let t = 0; t < nt0; t++) {
       const c = zClass[t]!, f = zF[t]!;
@@ -748,6 +972,20 @@ export class CellStream {
       }
       if (track) openPosition(track, XB, p >> 1, NX);
       if (!uniform && hasSens && this.foldMixed(col, sub, u, full, psi!, S, pr0, pi0, p * NX, NX, coils, W, L, tol, filt, fRead, bw, keyDf, XB, scratch)) continue;
+      // Δf interpolated, the receiver filter flat over every entry's Δf: each entry is its (w, tissue, place)'s
+      // (rank, segment) tables at the lattice shifts around its B0, weighted by the Lagrange polynomials
+      // (each column counted once: one coil folds in two passes)
+      if (lat && lat.column(col, sub, u, filt, fRead, bw, S, hasSens, coils, pr0, pi0, XB, p * NX)) {
+        if (counted![col] === 0) {
+          counted![col] = 1;
+          this.interpStats.tableColumns++;
+        }
+        continue;
+      }
+      if (ip && counted![col] === 0) {
+        counted![col] = 1;
+        this.interpStats.nodeColumns++;
+      }
       for (let e = e0; e < e1; e++) {
         const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, fp = pd[ti]! * cells.entFrac[e]!;
         if (ip) {
@@ -967,6 +1205,8 @@ export class CellStream {
       const kept = new Int32Array(coils * nw), m2 = new Float64Array(nw);
       const gTi = new Int32Array(T), gW = new Float64Array(T * nw);
       const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
+      // Δf interpolated: the estimate's samples per (w, tissue, place) and lattice shift, as the fold's shift tables
+      const est = ip ? this.shiftSamples(ip, setup) : null;
       return (col, given, givenMom) => {
         // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
         const S: Float64Array | null = S0 ? (given ?? S0) : null;
@@ -1077,6 +1317,13 @@ export class CellStream {
               }
               addY!(gTi[g]! * D2 + sub, gS, u, v);
             }
+            return;
+          }
+        }
+        if (est) {
+          if (S) needS();
+          if (est.column(col, sub, u, S, coils, colv)) {
+            addSamples(u, v, colv);
             return;
           }
         }

@@ -102,9 +102,10 @@ export interface ReadoutReport {
    * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
    * Lagrange interpolation between nodes `stepHz` apart (from the tolerance and the coherence span `span`, s), `nodes`
    * classes in all; `probes` classes at exact Δf measured the largest relative error `maxRelError`, included in the
-   * estimate as ESTIMATE_MARGIN × it.
+   * estimate as ESTIMATE_MARGIN × it. The last fold pass folded `tableColumns` columns from shift tables (fast-stream.ts
+   * shiftTables) and `nodeColumns` per node (the receiver filter not flat over them).
    */
-  b0Interpolation?: { order: number; stepHz: number; nodes: number; exactClassesOver: number; span: number; probes: number; maxRelError: number };
+  b0Interpolation?: { order: number; stepHz: number; nodes: number; exactClassesOver: number; span: number; probes: number; maxRelError: number; tableColumns: number; nodeColumns: number };
 }
 
 const TWO_PI = 2 * Math.PI;
@@ -985,8 +986,11 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   report.estimate = finishEstimate(re, im);
   if (interpErr !== null && src.kind === "cells" && src.stream.interpReport) {
     // the interpolation's own error, beside the estimate (which checks the operator against the nodes' exact states)
-    report.b0Interpolation = { ...src.stream.interpReport, maxRelError: interpErr };
-    report.estimate.relL2 = Math.hypot(report.estimate.relL2, ESTIMATE_MARGIN * interpErr);
+    report.b0Interpolation = { ...src.stream.interpReport, maxRelError: interpErr, ...src.stream.interpStats };
+    // the shift tables interpolate once more, in each entry's B0, on the same lattice and order: within the same bound
+    // as the nodes (its derivatives are those of the same signal), so twice the probes' error where they were used
+    const twice = src.stream.interpStats.tableColumns > 0 ? 2 : 1;
+    report.estimate.relL2 = Math.hypot(report.estimate.relL2, ESTIMATE_MARGIN * twice * interpErr);
   }
   return { re, im, report };
   } finally {
