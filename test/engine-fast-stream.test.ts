@@ -341,6 +341,8 @@ describe("a B0 model with very many RF classes: Δf interpolated between nodes (
     ["B0 expression, multi-peak fat, T2′ spread", ["spoiling=ideal"], { b0: "60 * x / 0.05 + 300 * y * y / 0.0025 + 15", iso: { t2primeIsochromats: 4 } }],
     ["B0 from a .npy field map, TE 14 ms, 3 T", ["spoiling=ideal", "field=3 T", "te=14 ms", "tr=40 ms"], { b0: "npy", iso: { t2primeIsochromats: 2 } }],
     ["torso, gre-t1-3t, B0 expression", ["spoiling=ideal"], { protocol: "gre-t1-3t", torso: true, matrix: 20, iso: { t2primeIsochromats: 2 } }],
+    // B0 varying through the slice too: a column's cells differ in B0, so no table summed over w (per cell instead)
+    ["B0 expression with a part along the slice", ["spoiling=ideal"], { b0: "60 * x / 0.05 + 15 + 4000 * z", iso: { t2primeIsochromats: 2 } }],
   ])("%s: within the tolerance of direct, the estimate (with the probes' error) bounds the error", async (_name, sets, opts) => {
     const p = prep(sets, { ...opts, phantom: opts.torso ? torsoB0() : undefined });
     const fast = await forced(() => streamed(p));

@@ -534,6 +534,36 @@ export class CellStream {
       return tab;
     };
     const colT = new Float64Array(2 * WL * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
+    // One uniform coil: a column of one tissue at one fraction through every w, with one B0 through the slice (a B0
+    // model with no part along the slice), reads the tables summed over w, per (tissue, place, absolute shift J),
+    // made on first use (null where a w's group has no table at J: the per-entry sum runs).
+    const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this, lat0 = new Int32Array(NG);
+    let jMin = Infinity, jMax = -Infinity;
+    for (let g = 0; g < NG; g++) {
+      if (!(hi[g]! >= lo[g]!)) continue;
+      lat0[g] = Math.round(lo[g]! / step);
+      jMin = Math.min(jMin, lat0[g]!);
+      jMax = Math.max(jMax, lat0[g]! + sM[g]! + p);
+    }
+    const NJ = Number.isFinite(jMin) ? jMax - jMin : 0, useW = T * D2 * NJ * 2 * WL <= TABLE_DOUBLES;
+    const wtabs: (Float64Array | null | undefined)[] = new Array(useW ? T * D2 * NJ : 0);
+    const wsum = (ti: number, sub: number, J: number): Float64Array | null => {
+      const key = (ti * D2 + sub) * NJ + (J - jMin);
+      const have = wtabs[key];
+      if (have !== undefined) return have;
+      let out: Float64Array | null = new Float64Array(2 * WL);
+      for (let c = 0; c < nw && out; c++) {
+        const g = c * T + ti, z = g * D2 + sub, j = J - lat0[g]!;
+        if (zStart[z + 1]! === zStart[z]! || !(hi[g]! >= lo[g]!) || j < 0 || j >= sM[g]! + p) {
+          out = null;
+          break;
+        }
+        const tab = table(z, g, j);
+        for (let i = 0; i < 2 * WL; i++) out[i] = out[i]! + tab[i]!;
+      }
+      wtabs[key] = out;
+      return out;
+    };
     return {
       column: (col: number, sub: number, u: number, filt: boolean, fRead: number, bw: number, S: Float64Array, hasSens: boolean, coils: number,
         pr0: number, pi0: number, XB: Float64Array, ob: number): boolean => {
@@ -544,8 +574,25 @@ export class CellStream {
             if (zStart[z + 1]! > zStart[z]! && !flatFor(fRead * u, eB0[e]! + zLo[z]! - margin, eB0[e]! + zHi[z]! + margin, bw)) return false;
           }
         }
+        let summed = false;
+        if (!hasSens && useW && oneTissue[col] === 1 && e1 - e0 === nw) {
+          let same = true;
+          for (let e = e0 + 1; e < e1 && same; e++) same = eB0[e] === eB0[e0];
+          const ti = colTi[col]!, g0 = ti;
+          if (same && hi[g0]! >= lo[g0]!) {
+            const J0 = lat0[g0]! + shift.expand(eB0[e0]!, g0, swt) - sBase[g0]!;
+            colT.fill(0, 0, 2 * WL);
+            summed = true;
+            for (let x = 0; x < p && summed; x++) {
+              const tab = wsum(ti, sub, J0 + x), f = colFp[col]! * swt[x]!;
+              if (!tab) summed = false;
+              else for (let i = 0; i < 2 * WL; i++) colT[i] = colT[i]! + f * tab[i]!;
+            }
+            if (summed) usedW[0] = 1;
+          }
+        }
         // per w: Σ over its entries of pd·fraction × the interpolated table
-        for (let e = e0; e < e1; e++) {
+        for (let e = summed ? e1 : e0; e < e1; e++) {
           const c = cells.entW[e]!, ti = cells.entTissue[e]!, g = c * T + ti, z = g * D2 + sub;
           if (zStart[z + 1]! === zStart[z]!) continue;
           const fp = pd[ti]! * cells.entFrac[e]!, j0 = shift.expand(eB0[e]!, g, swt) - sBase[g]!, o = hasSens ? 2 * WL * c : 0;
