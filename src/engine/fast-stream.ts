@@ -470,22 +470,17 @@ export class CellStream {
   }
 
   /**
-   * Δf interpolated, for one fold pass (ranks r0 … r1−1): per combination z =
-   * (w, tissue, place) and lattice shift δ_j (the node lattice, over the B0 of
-   * the group's entries) the (rank, segment) table Σ_t f_t·Σ_x ℓ_x(δ_j + Δf_t)·
-   * G_r(node)·C_l(key), made on first use; an entry at B0 shift δ reads
-   * Σ_j ℓ_j(δ)·table(z, j): the same Lagrange interpolation, now of the entry's
-   * whole signal in its shift (smooth in δ as the signal is in Δf; the
-   * estimate, summed per node, checks it). `column` folds a column this way
-   * where the receiver filter is flat over all its entries (else false: the
-   * per-node fold runs). Null where the tables would not fit TABLE_DOUBLES.
+   * The lattice of B0 shifts for shiftTables and shiftSamples: per group (w,
+   * tissue) the range of its entries' B0 from lo[g] (on the node lattice) over
+   * sM[g] + p shifts, table j of group g at slot g·NY + j (the DfNodes
+   * `shift` gives an entry's shifts and weights), and per combination z the
+   * lowest and highest offset of its terms (the receiver filter's flatness).
+   * Null where nz·NY tables of `per` numbers would pass TABLE_DOUBLES.
    */
-  private shiftTables(ip: DfNodes, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, Ck: Float64Array, L: number) {
-    const { cells, T, D2, zStart, zF, zDf } = this, nw = cells.wGrid.length, NG = nw * T, nz = NG * D2, p = ip.p, half = p / 2 - 1, step = ip.step;
-    const W = r1 - r0, WL = W * L, ne = cells.entW.length, eB0 = ip.eB0, pd = cells.ctx.pd;
-    // per group the range of its entries' B0, on the lattice
+  private shiftLattice(ip: DfNodes, per: number) {
+    const { cells, T, D2, zStart, zDf } = this, NG = cells.wGrid.length * T, nz = NG * D2, p = ip.p, step = ip.step, eB0 = ip.eB0;
     const lo = new Float64Array(NG).fill(Infinity), hi = new Float64Array(NG).fill(-Infinity);
-    for (let e = 0; e < ne; e++) {
+    for (let e = 0; e < cells.entW.length; e++) {
       const g = cells.entW[e]! * T + cells.entTissue[e]!;
       if (eB0[e]! < lo[g]!) lo[g] = eB0[e]!;
       if (eB0[e]! > hi[g]!) hi[g] = eB0[e]!;
@@ -498,10 +493,8 @@ export class CellStream {
       sM[g] = Math.floor((hi[g]! - lo[g]!) / step);
       NY = Math.max(NY, sM[g]! + p);
     }
-    if (nz * NY * 2 * WL > TABLE_DOUBLES) return null;
+    if (nz * NY * per > TABLE_DOUBLES) return null;
     for (let g = 0; g < NG; g++) sBase[g] = g * NY;
-    const shift = new DfNodes(step, lo, sBase, sM, eB0);
-    // per combination: the lowest and highest Δf of its terms (for the receiver filter's flatness)
     const zLo = new Float64Array(nz).fill(Infinity), zHi = new Float64Array(nz).fill(-Infinity);
     for (let z = 0; z < nz; z++) {
       for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
@@ -509,30 +502,56 @@ export class CellStream {
         zHi[z] = Math.max(zHi[z]!, zDf[t]!);
       }
     }
-    const tables: (Float64Array | undefined)[] = new Array(nz * NY);
-    const iwt = new Float64Array(p), swt = new Float64Array(p);
-    const table = (z: number, g: number, j: number): Float64Array => {
-      let tab = tables[z * NY + j];
-      if (tab) return tab;
-      tab = new Float64Array(2 * WL);
-      const d = lo[g]! + (j - half) * step;
-      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-        const k0 = ip.expand(d + zDf[t]!, g, iwt);
-        for (let x = 0; x < p; x++) {
-          const cl = k0 + x, k = keyOf[cl]!, fw = zF[t]! * iwt[x]!;
-          for (let r = 0; r < W; r++) {
-            const gr = G[2 * (cl * R + r0 + r)]! * fw, gi = G[2 * (cl * R + r0 + r) + 1]! * fw;
-            for (let l = 0; l < L; l++) {
-              const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = 2 * (r * L + l);
-              tab[o] = tab[o]! + (gr * cr - gi * ci);
-              tab[o + 1] = tab[o + 1]! + (gr * ci + gi * cr);
-            }
-          }
+    // tables of `per` numbers made on first use: table(z, g, j) adds, for every term of z at Δf = shift j + its
+    // offset, each node's f·ℓ through addNode(table, node class, f·ℓ)
+    const half = p / 2 - 1, iwt = new Float64Array(p), { zF } = this;
+    const lazy = (addNode: (tab: Float64Array, cl: number, fw: number) => void) => {
+      const cache: (Float64Array | undefined)[] = new Array(nz * NY);
+      return (z: number, g: number, j: number): Float64Array => {
+        let tab = cache[z * NY + j];
+        if (tab) return tab;
+        tab = new Float64Array(per);
+        const d = lo[g]! + (j - half) * step;
+        for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
+          const k0 = ip.expand(d + zDf[t]!, g, iwt);
+          for (let x = 0; x < p; x++) addNode(tab, k0 + x, zF[t]! * iwt[x]!);
+        }
+        cache[z * NY + j] = tab;
+        return tab;
+      };
+    };
+    return { lo, hi, sBase, sM, NY, shift: new DfNodes(step, lo, sBase, sM, eB0), zLo, zHi, lazy };
+  }
+
+  /**
+   * Δf interpolated, for one fold pass (ranks r0 … r1−1): per combination z =
+   * (w, tissue, place) and lattice shift δ_j (the node lattice, over the B0 of
+   * the group's entries) the (rank, segment) table Σ_t f_t·Σ_x ℓ_x(δ_j + Δf_t)·
+   * G_r(node)·C_l(key), made on first use; an entry at B0 shift δ reads
+   * Σ_j ℓ_j(δ)·table(z, j): the same Lagrange interpolation, now of the entry's
+   * whole signal in its shift (smooth in δ as the signal is in Δf; the
+   * estimate, summed per node, checks it). `column` folds a column this way
+   * where the receiver filter is flat over all its entries (else false: the
+   * per-node fold runs). Null where the tables would not fit TABLE_DOUBLES.
+   */
+  private shiftTables(ip: DfNodes, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, Ck: Float64Array, L: number) {
+    const { cells, T, D2, zStart } = this, nw = cells.wGrid.length, NG = nw * T, p = ip.p, step = ip.step;
+    const W = r1 - r0, WL = W * L, eB0 = ip.eB0, pd = cells.ctx.pd;
+    const lat = this.shiftLattice(ip, 2 * WL);
+    if (!lat) return null;
+    const { lo, hi, sBase, sM, shift, zLo, zHi } = lat;
+    const swt = new Float64Array(p);
+    const table = lat.lazy((tab, cl, fw) => {
+      const k = keyOf[cl]!;
+      for (let r = 0; r < W; r++) {
+        const gr = G[2 * (cl * R + r0 + r)]! * fw, gi = G[2 * (cl * R + r0 + r) + 1]! * fw;
+        for (let l = 0; l < L; l++) {
+          const cr = Ck[2 * (k * L + l)]!, ci = Ck[2 * (k * L + l) + 1]!, o = 2 * (r * L + l);
+          tab[o] = tab[o]! + (gr * cr - gi * ci);
+          tab[o + 1] = tab[o + 1]! + (gr * ci + gi * cr);
         }
       }
-      tables[z * NY + j] = tab;
-      return tab;
-    };
+    });
     const colT = new Float64Array(2 * WL * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
     // One uniform coil: a column of one tissue at one fraction through every w, with one B0 through the slice (a B0
     // model with no part along the slice), reads the tables summed over w, per (tissue, place, absolute shift J),
@@ -636,54 +655,21 @@ export class CellStream {
    * entries, else returns false (the per-node sums run).
    */
   private shiftSamples(ip: DfNodes, setup: Parameters<ColumnVisitor>[2]) {
-    const { cells, T, D2, zStart, zF, zDf } = this, nw = cells.wGrid.length, NG = nw * T, nz = NG * D2, p = ip.p, half = p / 2 - 1, step = ip.step;
-    const { S: NS, PJ, Pr, dec, keyOf, filter } = setup, NR = setup.NR, ne = cells.entW.length, eB0 = ip.eB0, pd = cells.ctx.pd;
-    const lo = new Float64Array(NG).fill(Infinity), hi = new Float64Array(NG).fill(-Infinity);
-    for (let e = 0; e < ne; e++) {
-      const g = cells.entW[e]! * T + cells.entTissue[e]!;
-      if (eB0[e]! < lo[g]!) lo[g] = eB0[e]!;
-      if (eB0[e]! > hi[g]!) hi[g] = eB0[e]!;
-    }
-    const sBase = new Int32Array(NG), sM = new Int32Array(NG);
-    let NY = 0;
-    for (let g = 0; g < NG; g++) {
-      if (!(hi[g]! >= lo[g]!)) continue;
-      lo[g] = Math.floor(lo[g]! / step) * step;
-      sM[g] = Math.floor((hi[g]! - lo[g]!) / step);
-      NY = Math.max(NY, sM[g]! + p);
-    }
-    if (nz * NY * 2 * NS > TABLE_DOUBLES) return null;
-    for (let g = 0; g < NG; g++) sBase[g] = g * NY;
-    const shift = new DfNodes(step, lo, sBase, sM, eB0);
-    const zLo = new Float64Array(nz).fill(Infinity), zHi = new Float64Array(nz).fill(-Infinity);
-    for (let z = 0; z < nz; z++) {
-      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-        zLo[z] = Math.min(zLo[z]!, zDf[t]!);
-        zHi[z] = Math.max(zHi[z]!, zDf[t]!);
+    const { cells, T, D2, zStart } = this, nw = cells.wGrid.length, p = ip.p, step = ip.step;
+    const { S: NS, PJ, Pr, dec, keyOf, filter } = setup, NR = setup.NR, eB0 = ip.eB0, pd = cells.ctx.pd;
+    const lat = this.shiftLattice(ip, 2 * NS);
+    if (!lat) return null;
+    const { sBase, shift, zLo, zHi } = lat;
+    const swt = new Float64Array(p);
+    const table = lat.lazy((tab, cl, fw) => {
+      const k = keyOf[cl]!;
+      for (let s = 0; s < NS; s++) {
+        const w = Math.floor(s / PJ), pr = Pr[2 * (cl * NR + w)]! * fw, pi = Pr[2 * (cl * NR + w) + 1]! * fw;
+        const dr = dec[2 * (k * NS + s)]!, di = dec[2 * (k * NS + s) + 1]!;
+        tab[2 * s] = tab[2 * s]! + (pr * dr - pi * di);
+        tab[2 * s + 1] = tab[2 * s + 1]! + (pr * di + pi * dr);
       }
-    }
-    const tables: (Float64Array | undefined)[] = new Array(nz * NY);
-    const iwt = new Float64Array(p), swt = new Float64Array(p);
-    const table = (z: number, g: number, j: number): Float64Array => {
-      let tab = tables[z * NY + j];
-      if (tab) return tab;
-      tab = new Float64Array(2 * NS);
-      const d = lo[g]! + (j - half) * step;
-      for (let t = zStart[z]!; t < zStart[z + 1]!; t++) {
-        const k0 = ip.expand(d + zDf[t]!, g, iwt);
-        for (let x = 0; x < p; x++) {
-          const cl = k0 + x, k = keyOf[cl]!, fw = zF[t]! * iwt[x]!;
-          for (let s = 0; s < NS; s++) {
-            const w = Math.floor(s / PJ), pr = Pr[2 * (cl * NR + w)]! * fw, pi = Pr[2 * (cl * NR + w) + 1]! * fw;
-            const dr = dec[2 * (k * NS + s)]!, di = dec[2 * (k * NS + s) + 1]!;
-            tab[2 * s] = tab[2 * s]! + (pr * dr - pi * di);
-            tab[2 * s + 1] = tab[2 * s + 1]! + (pr * di + pi * dr);
-          }
-        }
-      }
-      tables[z * NY + j] = tab;
-      return tab;
-    };
+    });
     const colY = new Float64Array(2 * NS * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
     return {
       column: (col: number, sub: number, u: number, S: Float64Array | null, coils: number, colv: Float64Array): boolean => {
