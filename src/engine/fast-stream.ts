@@ -763,21 +763,30 @@ export class CellStream {
         ref[ti] = Math.max(ref[ti]!, Math.sqrt(pn * en));
       }
     }
-    const e = (df: number, r2: number, t: number): [number, number] => {
-      const a = Math.exp(-t * r2), th = -2 * Math.PI * df * t;
-      return [a * Math.cos(th), a * Math.sin(th)];
+    // exp(−t_j·(R2 + i2πΔf)) of the probe (slot 0) and of its nodes (slots 1 … p), per sample: made once per probe, not per line
+    const fac = new Float64Array(2 * (ip.p + 1) * J);
+    const decay = (slot: number, df: number, r2: number) => {
+      for (let j = 0; j < J; j++) {
+        const a = Math.exp(-tj[j]! * r2), th = -2 * Math.PI * df * tj[j]!, o = 2 * (slot * J + j);
+        fac[o] = a * Math.cos(th);
+        fac[o + 1] = a * Math.sin(th);
+      }
     };
     const wt = new Float64Array(ip.p);
     let worst = 0;
     for (const pr of this.probes) {
       const k0 = ip.expand(pr.df, pr.g, wt);
+      decay(0, pr.df, classR2[pr.cls]!);
+      for (let x = 0; x < ip.p; x++) decay(x + 1, classDf[k0 + x]!, classR2[k0 + x]!);
       let d2 = 0;
       for (const n of lines) {
+        const xr = P[2 * (n * C + pr.cls)]!, xi = P[2 * (n * C + pr.cls) + 1]!;
         for (let j = 0; j < J; j++) {
-          const [er, ei] = e(pr.df, classR2[pr.cls]!, tj[j]!), xr = P[2 * (n * C + pr.cls)]!, xi = P[2 * (n * C + pr.cls) + 1]!;
+          const er = fac[2 * j]!, ei = fac[2 * j + 1]!;
           let hr = xr * er - xi * ei, hi = xr * ei + xi * er;
           for (let x = 0; x < ip.p; x++) {
-            const k = k0 + x, [fr, fi] = e(classDf[k]!, classR2[k]!, tj[j]!), yr = P[2 * (n * C + k)]! * wt[x]!, yi = P[2 * (n * C + k) + 1]! * wt[x]!;
+            const k = k0 + x, o = 2 * ((x + 1) * J + j), fr = fac[o]!, fi = fac[o + 1]!;
+            const yr = P[2 * (n * C + k)]! * wt[x]!, yi = P[2 * (n * C + k) + 1]! * wt[x]!;
             hr -= yr * fr - yi * fi;
             hi -= yr * fi + yi * fr;
           }
@@ -815,7 +824,6 @@ export class CellStream {
           }
         }
       }
-      void zF;
       return { classIw, mass };
     }
     if (this.eClass) {
