@@ -11,7 +11,7 @@ import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, sliceStepCentre, type Sequence } from "./sequence/index.js";
-import { expandCells, sampleCells, defaultIsochromatOptions, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
+import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
@@ -238,6 +238,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
+    if (slices.length === 0) iso.warnings.push(...t2primeRemarks(protocol, seq0, phantom, isoOpts));
     slices.push(sliceRun(position, seq, iso, input.expandCells, slices.length === 0 && mayStream ? () => check(true) : undefined));
   }
   if (slices.every((sl) => sl.cells.count === 0)) {
@@ -257,6 +258,20 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     }
   }
   return { protocol, phantom, iso: asked, slices, first, protocolName, phantomName, sampling };
+}
+
+/**
+ * Warnings where the T2′ spread's isochromats give a tissue's T2* weighting at the echo time with more than
+ * SPREAD_WARN_TOLERANCE error (isochromats/spread.ts). Only for gradient echoes (a sequence that spoils and does
+ * not refocus): there the dephasing time at the k-space centre is TE. A spin echo refocuses the spread at its
+ * centre, and a balanced sequence's steady state mixes it with the off-resonance profile.
+ */
+function t2primeRemarks(protocol: Protocol, seq: Sequence, phantom: Phantom, iso: IsochromatOptions): string[] {
+  const def = sequenceDefinition(protocol.sequence);
+  if (!def.spoils || def.refocuses(protocol)) return [];
+  const ro = seq.derived["readoutDuration"]?.value;
+  const halfRead = typeof ro === "number" ? ro / 2 : 0;
+  return spreadWarnings(phantom.tissues, Math.max(1, Math.round(iso.t2primeIsochromats)), iso.density * iso.density, seq.timing.te, halfRead);
 }
 
 /** Isochromat summary for the report. */

@@ -5,7 +5,8 @@
  * and T2* blurring of the readout point-spread function.
  */
 import { describe, expect, test } from "vitest";
-import { lorentzianSpread, makeIsochromats, defaultIsochromatOptions, r2prime, spreadAssignment, spreadFid } from "../src/isochromats/index.js";
+import { lorentzianSpread, makeIsochromats, defaultIsochromatOptions, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, SPREAD_WARN_TOLERANCE } from "../src/isochromats/index.js";
+import { simulate as simulateApi } from "../src/api.js";
 import { parsePhantom } from "../src/phantom/index.js";
 import { makePulse, type Block, type Sequence } from "../src/sequence/index.js";
 import { simulateSerial } from "../src/engine/index.js";
@@ -165,4 +166,50 @@ describe("T2* blurring along the readout", () => {
     // Lorentzian limit, |one-sided complex Lorentzian| FWHM √3·T_acq/(π·T2*) px (derived from the Lorentzian line shape; common practice), here a coarse bound
     expect(sim).toBeLessThan((Math.sqrt(3) * 0.01) / (Math.PI * t2s) + sharp);
   }, 60_000);
+});
+
+describe("warning where the T2′ spread is coarse at the echo time (gradient echo)", () => {
+  // a uniform square of one tissue, T2′ = 50 ms; TE = 25 ms = T2′/2, where 16 quantile isochromats are off by
+  // ≈ +15 % (spreadFid); the T2′ factor of the centre pixel against exp(−TE/T2′) (Cauchy characteristic function,
+  // e.g. Haacke et al. 1999, ch. 20), measured as the image against the same tissue with T2* = T2 (no spread)
+  const t2 = 0.1, t2p = 0.05, t2star = 1 / (1 / t2 + 1 / t2p), te = 0.025;
+  const phantomWith = (star: number) => ({
+    name: "square", tissues: { t: { pd: 1, t1: "1000 ms", t2: `${t2 * 1e3} ms`, t2star: `${star * 1e3} ms`, species: "water" } },
+    shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["6 cm", "6 cm"], tissue: "t" }],
+  });
+  const protocol = protocolObject({ te: `${te * 1e3} ms`, tr: "60 ms", bandwidth: "500 Hz/px", matrix: { read: 16, phase: 16 }, fov: { read: "8 cm", phase: "8 cm" } });
+  const centre = async (star: number, n: number) => {
+    const r = await simulateApi({ protocol, phantom: phantomWith(star), iso: { density: 2, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: n }, convergenceCheck: false });
+    const c = 8 * 16 + 8;
+    return { value: r.magnitude[c]!, warnings: r.warnings };
+  };
+
+  test("names the error at TE and a spread size that brings it within 5 %, which the images confirm", async () => {
+    const ref = await centre(t2, 16);
+    expect(ref.warnings.some((w) => w.includes("T2′ spread"))).toBe(false);
+    const coarse = await centre(t2star, 16);
+    const w = coarse.warnings.find((x) => x.includes("T2′ spread of 16"));
+    expect(w).toBeDefined();
+    const exact = Math.exp(-te / t2p);
+    const errCoarse = coarse.value / ref.value / exact - 1;
+    const stated = spreadRelativeError(lorentzianSpread(1 / t2p, 16), 1 / t2p, te);
+    expect(Math.abs(errCoarse)).toBeGreaterThan(SPREAD_WARN_TOLERANCE);
+    expect(errCoarse).toBeCloseTo(stated, 2); // the warning's figure is what the image shows
+    expect(w).toContain(`(${stated >= 0 ? "+" : "−"}${Math.abs(100 * stated).toFixed(0)} %)`);
+    const n = Number(/--t2prime-isochromats (\d+)/.exec(w!)![1]);
+    expect(n).toBeGreaterThan(16);
+    const fine = await centre(t2star, n);
+    expect(fine.warnings.some((x) => x.includes("T2′ spread"))).toBe(false);
+    expect(Math.abs(fine.value / ref.value / exact - 1)).toBeLessThan(SPREAD_WARN_TOLERANCE);
+  });
+
+  test("spreadSizeFor returns a size that meets the tolerance at every time asked, and no warning for a spin echo", () => {
+    const r2p = 1 / 0.03, times = [0.02, 0.025, 0.03];
+    const n = spreadSizeFor(r2p, times, 0.05, 32)!;
+    expect(n).toBeGreaterThanOrEqual(32);
+    for (const t of times) expect(Math.abs(spreadFid(lorentzianSpread(r2p, n), t) / Math.exp(-t * r2p) - 1)).toBeLessThanOrEqual(0.05);
+    if (n > 32) expect(times.some((t) => Math.abs(spreadFid(lorentzianSpread(r2p, n / 2), t) / Math.exp(-t * r2p) - 1) > 0.05)).toBe(true);
+    expect(spreadWarnings([{ name: "t", t2: 0.1, t2star: 1 / (10 + 20) }], 16, 4, 0.025, 0.001)).toHaveLength(1);
+    expect(spreadWarnings([{ name: "t", t2: 0.1, t2star: 0.1 }], 16, 4, 0.025, 0.001)).toHaveLength(0);
+  });
 });

@@ -27,7 +27,7 @@ import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "
 import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
 
 export { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, ENGINE_ARRAYS, mapIsochromatArrays } from "./fields.js";
-export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, NO_SPREAD, type Spread } from "./spread.js";
+export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, NO_SPREAD, SPREAD_WARN_TOLERANCE, type Spread } from "./spread.js";
 
 export type FatModelChoice = "single" | "multi";
 

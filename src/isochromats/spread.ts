@@ -103,3 +103,67 @@ export function spreadAssignment(sp: Spread, d2: number): { bins: number[]; weig
   }
   return out;
 }
+
+/** Relative error of the discrete spread's T2′ factor at time t (s) after excitation: spreadFid(s, t)/exp(−t·r2p) − 1. */
+export function spreadRelativeError(s: Spread, r2p: number, t: number): number {
+  return spreadFid(s, t) / Math.exp(-Math.abs(t) * r2p) - 1;
+}
+
+/** Largest spread size {@link spreadSizeFor} tries. */
+export const SPREAD_SIZE_LIMIT = 1024;
+
+/**
+ * The smallest spread size n = from·2^k ≤ `limit` whose T2′ factor lies within
+ * `tol` (relative) of exp(−t·r2p) at every t of `times` (s); null if none does.
+ * `from` should keep the voxel's columns sharing the spread (a multiple of 2·d²).
+ */
+export function spreadSizeFor(r2p: number, times: readonly number[], tol: number, from: number, limit = SPREAD_SIZE_LIMIT): number | null {
+  for (let n = from; n <= limit; n *= 2) {
+    const s = lorentzianSpread(r2p, n);
+    if (times.every((t) => Math.abs(spreadRelativeError(s, r2p, t)) <= tol)) return n;
+  }
+  return null;
+}
+
+/** Relative error of the T2′ factor above which {@link spreadWarnings} warns. */
+export const SPREAD_WARN_TOLERANCE = 0.05;
+
+/**
+ * Warnings for tissues whose T2′ factor at the echo time `te` (s; the dephasing time at the k-space centre
+ * of a gradient echo) is off by more than SPREAD_WARN_TOLERANCE with `n` spread isochromats per voxel, each
+ * naming a spread size that brings it within (checked at te and te ± half the readout `halfRead`, s).
+ * Tissues whose factor exp(−te/T2′) is below 1 % (no signal left to weigh) are not reported.
+ */
+export function spreadWarnings(tissues: readonly { name: string; t2: number; t2star: number }[], n: number, d2: number, te: number, halfRead: number): string[] {
+  const out: string[] = [];
+  if (n <= 1 || !(te > 0)) return out;
+  const step = 2 * d2;
+  const from = Math.max(step, Math.ceil((2 * n) / step) * step);
+  // tissues of one T2′ share a warning
+  const groups = new Map<string, { r2p: number; names: string[] }>();
+  for (const t of tissues) {
+    const r2p = r2prime(t.t2, t.t2star);
+    if (!(r2p > 0)) continue;
+    const key = (1e3 / r2p).toPrecision(4);
+    const g = groups.get(key);
+    if (g) g.names.push(t.name);
+    else groups.set(key, { r2p, names: [t.name] });
+  }
+  for (const { r2p, names } of groups.values()) {
+    const exact = Math.exp(-te * r2p);
+    if (exact < 0.01) continue;
+    const err = spreadRelativeError(lorentzianSpread(r2p, n), r2p, te);
+    if (Math.abs(err) <= SPREAD_WARN_TOLERANCE) continue;
+    const times = [te, Math.max(0, te - halfRead), te + halfRead];
+    const better = spreadSizeFor(r2p, times, SPREAD_WARN_TOLERANCE, from);
+    const pct = (x: number) => `${x >= 0 ? "+" : "−"}${Math.abs(100 * x).toFixed(0)} %`;
+    out.push(
+      `T2′ spread of ${n} isochromats per voxel is coarse at TE ${(te * 1e3).toFixed(2)} ms for ${names.join(", ")} (T2′ ${(1e3 / r2p).toFixed(1)} ms): ` +
+        `its T2′ factor exp(−TE/T2′) = ${exact.toFixed(3)} comes out ${(exact * (1 + err)).toFixed(3)} (${pct(err)}), so the T2* weighting is off; ` +
+        (better !== null
+          ? `--t2prime-isochromats ${better} brings it within ${100 * SPREAD_WARN_TOLERANCE} %`
+          : `no spread of up to ${SPREAD_SIZE_LIMIT} isochromats brings it within ${100 * SPREAD_WARN_TOLERANCE} % (TE is long against T2′)`),
+    );
+  }
+  return out;
+}
