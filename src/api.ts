@@ -11,7 +11,7 @@ import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, sliceStepCentre, type Sequence } from "./sequence/index.js";
-import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
+import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, autoClosedForm, r2prime, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
@@ -193,7 +193,8 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const threeD = sequenceDefinition(protocol.sequence).threeD;
   const slab = threeD ? slabCoverage(protocol, seq0, phantom) : null;
   const chosen = isoOptionsFor(protocol, asked, seq0, slab?.steps);
-  const isoOpts = { ...(input.exactSliceCount ? { ...chosen, sliceCount: asked.sliceCount, sliceExtent: asked.sliceExtent } : chosen), offsetHz: protocol.shim };
+  const t2prime = t2primeModelFor(protocol, seq0, phantom, asked);
+  const isoOpts = { ...(input.exactSliceCount ? { ...chosen, sliceCount: asked.sliceCount, sliceExtent: asked.sliceExtent } : chosen), offsetHz: protocol.shim, t2primeClosed: t2prime.closed };
   const sampling: IsoSampling = {
     sliceCount: isoOpts.sliceCount, sliceExtent: isoOpts.sliceExtent, pathwayMoment: isoOpts.pathwayMoment, pathwayOrder: isoOpts.pathwayOrder,
     notes: [], convergence: null,
@@ -238,7 +239,10 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     iso.warnings.push(...phantom.warnings);
     if (slices.length === 0) iso.warnings.push(...remarks.fine, ...remarks.fov);
     if (slabWarning && slices.length === 0) iso.warnings.push(slabWarning);
-    if (slices.length === 0) iso.warnings.push(...t2primeRemarks(protocol, seq0, phantom, isoOpts));
+    if (slices.length === 0) {
+      iso.warnings.push(...t2prime.warnings);
+      iso.notes.push(...t2prime.notes);
+    }
     slices.push(sliceRun(position, seq, iso, input.expandCells, slices.length === 0 && mayStream ? () => check(true) : undefined));
   }
   if (slices.every((sl) => sl.cells.count === 0)) {
@@ -261,17 +265,41 @@ export function prepareSimulation(input: SimulateInput): Prepared {
 }
 
 /**
- * Warnings where the T2′ spread's isochromats give a tissue's T2* weighting at the echo time with more than
- * SPREAD_WARN_TOLERANCE error (isochromats/spread.ts). Only for gradient echoes (a sequence that spoils and does
- * not refocus): there the dephasing time at the k-space centre is TE. A spin echo refocuses the spread at its
- * centre, and a balanced sequence's steady state mixes it with the off-resonance profile.
+ * How T2′ is modelled in this run (IsochromatOptions.t2primeModel), per tissue: in closed form (R2* = R2 + R2′, no
+ * spread) or as the spread; with the warnings and notes that go with it. The closed form is the Lorentzian spread's
+ * exact ensemble average, exp(−|t − t₀|/T2′), where nothing refocuses the spread: in an ideally spoiled gradient echo the
+ * transverse magnetization at a readout comes from the last excitation alone (t₀ its isodelay, to within the pulse's
+ * response over the spread's few hertz). A spin echo refocuses the spread, and a balanced or not ideally spoiled
+ * sequence carries older pathways in which it is partly refocused: those keep the spread. The dephasing times judged
+ * are TE and the ends of the readout (of the echo train, where echo times vary).
  */
-function t2primeRemarks(protocol: Protocol, seq: Sequence, phantom: Phantom, iso: IsochromatOptions): string[] {
+function t2primeModelFor(protocol: Protocol, seq: Sequence, phantom: Phantom, iso: IsochromatOptions): { closed: boolean[]; warnings: string[]; notes: string[] } {
+  const model = iso.t2primeModel ?? "auto";
   const def = sequenceDefinition(protocol.sequence);
-  if (!def.spoils || def.refocuses(protocol)) return [];
+  const holds = protocol.spoiling === "ideal" && def.spoils && !def.refocuses(protocol);
+  const none = { closed: phantom.tissues.map(() => false), warnings: [] as string[], notes: [] as string[] };
+  const n = Math.max(1, Math.round(iso.t2primeIsochromats));
+  if (!holds) {
+    if (model === "closed-form" && phantom.tissues.some((t) => r2prime(t.t2, t.t2star) > 0)) {
+      const why = def.refocuses(protocol) ? "it refocuses the spread (spin echo)" : !def.spoils ? "it is balanced (no spoiling)" : `its spoiling is "${protocol.spoiling}", not ideal`;
+      none.warnings.push(`--t2prime-model closed-form holds for an ideally spoiled gradient echo only and ${why}; this run models T2′ by the spread of ${n} isochromats per voxel`);
+    }
+    return none;
+  }
   const ro = seq.derived["readoutDuration"]?.value;
-  const halfRead = typeof ro === "number" ? ro / 2 : 0;
-  return spreadWarnings(phantom.tissues, Math.max(1, Math.round(iso.t2primeIsochromats)), iso.density * iso.density, seq.timing.te, halfRead);
+  const half = typeof ro === "number" ? ro / 2 : 0;
+  const te = seq.timing.te;
+  const times = [te, te - half, te + half];
+  if (seq.echoTimes) {
+    let lo = Infinity, hi = -Infinity;
+    for (const t of seq.echoTimes) if (Number.isFinite(t)) (lo = Math.min(lo, t)), (hi = Math.max(hi, t));
+    if (hi >= lo) times.push(lo - half, hi + half);
+  }
+  const ts = times.filter((t) => t >= 0);
+  if (model === "spread") return { ...none, warnings: spreadWarnings(phantom.tissues, n, iso.density * iso.density, ts, true) };
+  if (model === "closed-form") return { ...none, closed: phantom.tissues.map((t) => r2prime(t.t2, t.t2star) > 0) };
+  const a = autoClosedForm(phantom.tissues, n, ts);
+  return { ...none, closed: a.closed, notes: a.note ? [a.note] : [] };
 }
 
 /** Isochromat summary for the report. */
@@ -279,7 +307,7 @@ export interface IsochromatSummary {
   count: number;
   columns: number;
   warnings: string[];
-  spreads: { tissue: string; t2prime: number | null; isochromats: number }[];
+  spreads: { tissue: string; t2prime: number | null; isochromats: number; model?: "spread" | "closed form" }[];
   /** How the grid was chosen and what it covers (absent in partials of older versions). */
   sampling?: IsoSampling;
   extent?: SampledExtent;
@@ -299,7 +327,7 @@ export interface EngineSummary {
 }
 
 export function spreadSummary(iso: { spreads: IsochromatSet["spreads"] }): IsochromatSummary["spreads"] {
-  return iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count }));
+  return iso.spreads.map((s) => ({ tissue: s.tissue, t2prime: Number.isFinite(s.t2prime) ? s.t2prime : null, isochromats: s.count, model: s.closedForm ? "closed form" : "spread" }));
 }
 
 /** Runs the engine on every slice of a prepared simulation, one after another (cross-talk between slices is not simulated). */
@@ -504,9 +532,10 @@ export function assembleResult(ctx: AssembleContext, kspaces: KSpace[]): Simulat
           }
         : null,
       notes: [...(ctx.isoSummary.sampling?.notes ?? []), ...(ctx.isoSummary.notes ?? [])],
-      fatModel: ctx.iso.fatModel, t2primeIsochromats: ctx.iso.t2primeIsochromats,
+      fatModel: ctx.iso.fatModel, t2primeIsochromats: ctx.iso.t2primeIsochromats, t2primeModel: ctx.iso.t2primeModel ?? "auto",
       t2primeSpread: ctx.isoSummary.spreads,
-      note: "T2* = T2 plus a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), plus any B0 the phantom defines" +
+      note: "T2* = T2 plus T2′, per tissue (t2primeSpread[].model): a Lorentzian off-resonance spread of width 1/(π·T2′) per voxel (deterministic quantiles), " +
+        "or in closed form R2* = R2 + R2′ on every isochromat (the spread's exact average in an ideally spoiled gradient echo); plus any B0 the phantom defines" +
         (threeD ? "; 3D: through-slab grid of `density` isochromats per slice-encoding step over the slab plus ⌈N/8⌉ slice-encoding steps each side" : ""),
     },
     engine: {

@@ -5,7 +5,7 @@
  * and T2* blurring of the readout point-spread function.
  */
 import { describe, expect, test } from "vitest";
-import { lorentzianSpread, makeIsochromats, defaultIsochromatOptions, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, SPREAD_WARN_TOLERANCE } from "../src/isochromats/index.js";
+import { lorentzianSpread, makeIsochromats, defaultIsochromatOptions, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, spreadWorstError, autoClosedForm, SPREAD_WARN_TOLERANCE, type T2primeModel } from "../src/isochromats/index.js";
 import { simulate as simulateApi } from "../src/api.js";
 import { parsePhantom } from "../src/phantom/index.js";
 import { makePulse, type Block, type Sequence } from "../src/sequence/index.js";
@@ -168,48 +168,90 @@ describe("T2* blurring along the readout", () => {
   }, 60_000);
 });
 
-describe("warning where the T2′ spread is coarse at the echo time (gradient echo)", () => {
+describe("T2′ model at a gradient echo's TE: closed form, spread and the warning", () => {
   // a uniform square of one tissue, T2′ = 50 ms; TE = 25 ms = T2′/2, where 16 quantile isochromats are off by
-  // ≈ +15 % (spreadFid); the T2′ factor of the centre pixel against exp(−TE/T2′) (Cauchy characteristic function,
-  // e.g. Haacke et al. 1999, ch. 20), measured as the image against the same tissue with T2* = T2 (no spread)
+  // ≈ +15 % (spreadFid); the T2′ factor of the centre pixel against exp(−TE/T2′) (the Cauchy distribution's
+  // characteristic function; e.g. Haacke et al. 1999, ch. 20), measured as the image against the same tissue with
+  // T2* = T2 (no T2′)
   const t2 = 0.1, t2p = 0.05, t2star = 1 / (1 / t2 + 1 / t2p), te = 0.025;
   const phantomWith = (star: number) => ({
     name: "square", tissues: { t: { pd: 1, t1: "1000 ms", t2: `${t2 * 1e3} ms`, t2star: `${star * 1e3} ms`, species: "water" } },
     shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["6 cm", "6 cm"], tissue: "t" }],
   });
-  const protocol = protocolObject({ te: `${te * 1e3} ms`, tr: "60 ms", bandwidth: "500 Hz/px", matrix: { read: 16, phase: 16 }, fov: { read: "8 cm", phase: "8 cm" } });
-  const centre = async (star: number, n: number) => {
-    const r = await simulateApi({ protocol, phantom: phantomWith(star), iso: { density: 2, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: n }, convergenceCheck: false });
-    const c = 8 * 16 + 8;
-    return { value: r.magnitude[c]!, warnings: r.warnings };
+  const over = { te: `${te * 1e3} ms`, tr: "60 ms", bandwidth: "500 Hz/px", matrix: { read: 16, phase: 16 }, fov: { read: "8 cm", phase: "8 cm" } };
+  const centre = async (star: number, n: number, model: T2primeModel, extra: Record<string, unknown> = {}, readout: "fast" | "direct" = "fast") => {
+    const r = await simulateApi({
+      protocol: protocolObject({ ...over, ...extra }), phantom: phantomWith(star), readout,
+      iso: { density: 2, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: n, t2primeModel: model }, convergenceCheck: false,
+    });
+    const iso = r.report["isochromats"] as { t2primeSpread: { model: string; isochromats: number }[]; notes: string[] };
+    return { value: r.magnitude[8 * 16 + 8]!, warnings: r.warnings, spread: iso.t2primeSpread[0]!, notes: iso.notes, k: r.kspace };
   };
+  const exact = Math.exp(-te / t2p);
 
-  test("names the error at TE and a spread size that brings it within 5 %, which the images confirm", async () => {
-    const ref = await centre(t2, 16);
+  test("auto takes the closed form R2* = R2 + R2′ where the spread is coarse: the image follows exp(−TE/T2′) within 0.5 %", async () => {
+    const ref = await centre(t2, 16, "auto");
+    const auto = await centre(t2star, 16, "auto");
+    expect(auto.spread.model).toBe("closed form");
+    expect(auto.spread.isochromats).toBe(1);
+    expect(auto.notes.some((x) => x.includes("T2′ in closed form"))).toBe(true);
+    expect(auto.warnings.some((x) => x.includes("T2′"))).toBe(false);
+    expect(Math.abs(auto.value / ref.value / exact - 1)).toBeLessThan(0.005);
+    // the direct operator on the same isochromats agrees (the oracle of the fast one)
+    const direct = await centre(t2star, 16, "auto", {}, "direct");
+    expect(Math.abs(direct.value / auto.value - 1)).toBeLessThan(1e-5);
+    // at a short TE (spread within 5 %) auto keeps the spread
+    const short = await centre(t2star, 16, "auto", { te: "3 ms" });
+    expect(short.spread.model).toBe("spread");
+  });
+
+  test("the spread names its error at TE and a spread size that brings it within 5 %, which the images confirm", async () => {
+    const ref = await centre(t2, 16, "spread");
     expect(ref.warnings.some((w) => w.includes("T2′ spread"))).toBe(false);
-    const coarse = await centre(t2star, 16);
+    const coarse = await centre(t2star, 16, "spread");
+    expect(coarse.spread.model).toBe("spread");
     const w = coarse.warnings.find((x) => x.includes("T2′ spread of 16"));
     expect(w).toBeDefined();
-    const exact = Math.exp(-te / t2p);
+    expect(w).toContain("--t2prime-model closed-form");
     const errCoarse = coarse.value / ref.value / exact - 1;
     const stated = spreadRelativeError(lorentzianSpread(1 / t2p, 16), 1 / t2p, te);
     expect(Math.abs(errCoarse)).toBeGreaterThan(SPREAD_WARN_TOLERANCE);
     expect(errCoarse).toBeCloseTo(stated, 2); // the warning's figure is what the image shows
-    expect(w).toContain(`(${stated >= 0 ? "+" : "−"}${Math.abs(100 * stated).toFixed(0)} %)`);
+    // the warning states the worst over TE and the readout's ends (TE ± half the 2 ms readout at 500 Hz/px)
+    const worst = spreadWorstError(1 / t2p, 16, [te, te - 1e-3, te + 1e-3]);
+    expect(Math.abs(worst.err)).toBeGreaterThanOrEqual(Math.abs(stated));
+    expect(w).toContain(`at ${(worst.t * 1e3).toFixed(2)} ms`);
+    expect(w).toContain(`(${worst.err >= 0 ? "+" : "−"}${Math.abs(100 * worst.err).toFixed(0)} %)`);
     const n = Number(/--t2prime-isochromats (\d+)/.exec(w!)![1]);
     expect(n).toBeGreaterThan(16);
-    const fine = await centre(t2star, n);
+    const fine = await centre(t2star, n, "spread");
     expect(fine.warnings.some((x) => x.includes("T2′ spread"))).toBe(false);
     expect(Math.abs(fine.value / ref.value / exact - 1)).toBeLessThan(SPREAD_WARN_TOLERANCE);
   });
 
-  test("spreadSizeFor returns a size that meets the tolerance at every time asked, and no warning for a spin echo", () => {
+  test("a spin echo keeps the spread (it refocuses it): auto leaves it, closed-form is refused with a warning", async () => {
+    const se = { sequence: "se", te: "40 ms", tr: "300 ms", flip: "90 deg", refocusing: { shape: "hard", duration: "0.2 ms", steps: 4 } };
+    const auto = await centre(t2star, 16, "auto", se);
+    expect(auto.spread.model).toBe("spread");
+    const asked = await centre(t2star, 16, "closed-form", se);
+    expect(asked.spread.model).toBe("spread");
+    expect(asked.warnings.some((x) => x.includes("closed-form holds for an ideally spoiled gradient echo only") && x.includes("spin echo"))).toBe(true);
+    // an RF-spoiled gradient echo keeps older pathways: no closed form either
+    const rf = await centre(t2star, 16, "auto", { spoiling: "rf" });
+    expect(rf.spread.model).toBe("spread");
+  });
+
+  test("spreadSizeFor returns a size that meets the tolerance at every time asked; autoClosedForm groups tissues by T2′", () => {
     const r2p = 1 / 0.03, times = [0.02, 0.025, 0.03];
     const n = spreadSizeFor(r2p, times, 0.05, 32)!;
     expect(n).toBeGreaterThanOrEqual(32);
     for (const t of times) expect(Math.abs(spreadFid(lorentzianSpread(r2p, n), t) / Math.exp(-t * r2p) - 1)).toBeLessThanOrEqual(0.05);
     if (n > 32) expect(times.some((t) => Math.abs(spreadFid(lorentzianSpread(r2p, n / 2), t) / Math.exp(-t * r2p) - 1) > 0.05)).toBe(true);
-    expect(spreadWarnings([{ name: "t", t2: 0.1, t2star: 1 / (10 + 20) }], 16, 4, 0.025, 0.001)).toHaveLength(1);
-    expect(spreadWarnings([{ name: "t", t2: 0.1, t2star: 0.1 }], 16, 4, 0.025, 0.001)).toHaveLength(0);
+    const tissues = [{ name: "a", t2: 0.1, t2star: 1 / 30 }, { name: "b", t2: 0.1, t2star: 0.1 }, { name: "c", t2: 0.1, t2star: 1 / 30 }];
+    expect(spreadWarnings(tissues, 16, 4, [0.025], false)).toHaveLength(1);
+    const a = autoClosedForm(tissues, 16, [0.025]);
+    expect(a.closed).toEqual([true, false, true]);
+    expect(a.note).toContain("a, c");
+    expect(autoClosedForm(tissues, 16, [0.001]).closed).toEqual([false, false, false]);
   });
 });

@@ -5,7 +5,7 @@ import { Command, InvalidArgumentError, Option } from "commander";
 import { existsSync } from "node:fs";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import { defaultIsochromatOptions } from "../isochromats/index.js";
+import { defaultIsochromatOptions, T2PRIME_MODELS, type T2primeModel } from "../isochromats/index.js";
 import { CHUNK_ISOCHROMATS } from "../engine/index.js";
 
 /**
@@ -54,9 +54,12 @@ export function repoRoot(): string {
   return resolve(here, "../../..");
 }
 
-export function isoOptions(o: { density: number; sliceIsochromats: number; sliceExtent: number; fatModel: "single" | "multi"; t2primeIsochromats?: number }) {
+export function isoOptions(o: { density: number; sliceIsochromats: number; sliceExtent: number; fatModel: "single" | "multi"; t2primeIsochromats?: number; t2primeModel?: T2primeModel }) {
   const d = defaultIsochromatOptions();
-  return { ...d, density: o.density, sliceCount: o.sliceIsochromats, sliceExtent: o.sliceExtent, fatModel: o.fatModel, t2primeIsochromats: o.t2primeIsochromats ?? d.t2primeIsochromats };
+  return {
+    ...d, density: o.density, sliceCount: o.sliceIsochromats, sliceExtent: o.sliceExtent, fatModel: o.fatModel, t2primeIsochromats: o.t2primeIsochromats ?? d.t2primeIsochromats,
+    t2primeModel: o.t2primeModel ?? "auto",
+  };
 }
 
 export function addSimulationOptions(c: Command): Command {
@@ -72,6 +75,14 @@ export function addSimulationOptions(c: Command): Command {
         "and spin-echo refocusing emerge; 1 = off (decay with T2 only); cost grows as n/density²; FID error ≲ 1/√n of M0; 1–1024",
       intArg("--t2prime-isochromats", 1, 1024),
       defaultIsochromatOptions().t2primeIsochromats,
+    )
+    .addOption(
+      new Option(
+        "--t2prime-model <model>",
+        "how T2′ (T2* below T2) is modelled: spread (the isochromats of --t2prime-isochromats), closed-form (R2* = R2 + R2′ on every isochromat: " +
+          "the spread's exact average, for an ideally spoiled gradient echo only) or auto (the closed form for a tissue whose spread would be off by more than 5 % at TE " +
+          "in an ideally spoiled gradient echo, the spread otherwise; report.json isochromats.t2primeSpread[].model says which)",
+      ).choices([...T2PRIME_MODELS]).default("auto"),
     )
     .addOption(new Option("--readout <operator>", "readout operator: auto (the cheaper of fast and direct by a cost predicted from the plan; report.json gives both predictions), fast (time segmentation, within --tolerance: with an exact FFT of the isochromat grid for ideally spoiled Cartesian gradient echo, and a fold of the readout groups per line for every other sequence; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["auto", "fast", "direct"]).default("auto"))
     .option("--tolerance <rel>", "relative L2 error of k-space allowed to the fast readout operator (dimensionless); 1e-12–0.1", numArg("--tolerance", 1e-12, 0.1), 1e-6)

@@ -35,7 +35,7 @@ export interface PartialMeta {
   inputs: { phantom: string; protocol: string; sets: string[]; seed: number; iso: IsochromatOptions; truth?: boolean };
   protocol: Protocol;
   isoSummary: {
-    count: number; columns: number; warnings: string[]; spreads?: { tissue: string; t2prime: number | null; isochromats: number }[];
+    count: number; columns: number; warnings: string[]; spreads?: { tissue: string; t2prime: number | null; isochromats: number; model?: "spread" | "closed form" }[];
     sampling?: import("./pipeline.js").IsoSampling; extent?: import("../isochromats/index.js").SampledExtent; notes?: string[];
   };
   engine: { chunks: number; rfClasses: number; ops: number; workers: number; readout?: ReadoutReport };

@@ -24,12 +24,16 @@ import { phantomBounds, shapeCellContents, shapeCellUniform, type Phantom, type 
 import type { Axes } from "../protocol/geometry.js";
 import { UserError } from "../errors.js";
 import { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, type IsoArrays } from "./fields.js";
-import { lorentzianSpread, r2prime, spreadAssignment, type Spread } from "./spread.js";
+import { lorentzianSpread, r2prime, spreadAssignment, NO_SPREAD, type Spread } from "./spread.js";
 
 export { ISOCHROMAT_FLOAT_ARRAYS, ISOCHROMAT_INT_ARRAYS, ENGINE_ARRAYS, mapIsochromatArrays } from "./fields.js";
-export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, NO_SPREAD, SPREAD_WARN_TOLERANCE, type Spread } from "./spread.js";
+export { lorentzianSpread, r2prime, spreadAssignment, spreadFid, spreadRelativeError, spreadSizeFor, spreadWarnings, spreadWorstError, autoClosedForm, t2primeGroups, NO_SPREAD, SPREAD_WARN_TOLERANCE, type Spread } from "./spread.js";
 
 export type FatModelChoice = "single" | "multi";
+
+/** How T2′ is modelled (IsochromatOptions.t2primeModel). */
+export type T2primeModel = "auto" | "spread" | "closed-form";
+export const T2PRIME_MODELS: readonly T2primeModel[] = ["auto", "spread", "closed-form"];
 
 export interface IsochromatOptions {
   /** Isochromats per voxel along each in-plane axis (≥ 1). */
@@ -46,6 +50,16 @@ export interface IsochromatOptions {
    * decays with T2 only plus whatever B0 the phantom defines. 1–1024.
    */
   t2primeIsochromats: number;
+  /**
+   * How T2′ (T2* below T2) is modelled: "spread" — the Lorentzian spread of t2primeIsochromats isochromats;
+   * "closed-form" — no spread, each isochromat decays with R2* = R2 + R2′ (the Lorentzian's exact
+   * ensemble average where nothing refocuses it: an ideally spoiled gradient echo); "auto" (default) — the
+   * closed form for a tissue whose spread would be off by more than 5 % at the echo of an ideally spoiled
+   * gradient echo, the spread otherwise. prepareSimulation decides per tissue (`t2primeClosed`).
+   */
+  t2primeModel?: T2primeModel;
+  /** Per tissue (phantom order): true where T2′ is in closed form (R2* = R2 + R2′, no spread); set by prepareSimulation. */
+  t2primeClosed?: readonly boolean[];
   /** Global frequency offset added to every isochromat (Hz), e.g. the protocol's shim offset. */
   offsetHz: number;
 }
@@ -65,8 +79,10 @@ export interface TissueSpread {
   tissue: string;
   /** T2′ (s), Infinity without spread. */
   t2prime: number;
-  /** Spread isochromats per voxel and peak. */
+  /** Spread isochromats per voxel and peak (1 in closed form). */
   count: number;
+  /** T2′ as R2* = R2 + R2′ on every isochromat of the tissue instead of a spread. */
+  closedForm: boolean;
 }
 
 /** Geometry of the sampled region and the voxel grid, in logical coordinates (m). */
@@ -530,15 +546,17 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   const peaks = ph.tissues.map((t) => tissuePeaks(t.fatFraction, t.fatModel ?? opt.fatModel, fieldT));
   // T2′ spread per tissue: the same frequency set in every voxel, so RF classes stay few.
   const spreadN = Math.max(1, Math.round(opt.t2primeIsochromats ?? DEFAULT_T2PRIME_ISOCHROMATS));
-  const spreadOf: Spread[] = ph.tissues.map((t) => lorentzianSpread(r2prime(t.t2, t.t2star), spreadN));
+  // a tissue with T2′ in closed form has no spread and decays with R2* = R2 + R2′ (r2Of below)
+  const closed = ph.tissues.map((t, i) => opt.t2primeClosed?.[i] === true && r2prime(t.t2, t.t2star) > 0);
+  const spreadOf: Spread[] = ph.tissues.map((t, i) => (closed[i] ? NO_SPREAD : lorentzianSpread(r2prime(t.t2, t.t2star), spreadN)));
   const assign = spreadOf.map((sp) => spreadAssignment(sp, d * d));
   const spreads: TissueSpread[] = ph.tissues.map((t, i) => {
     const r = r2prime(t.t2, t.t2star);
-    return { tissue: t.name, t2prime: r > 0 ? 1 / r : Infinity, count: spreadOf[i]!.df.length };
+    return { tissue: t.name, t2prime: r > 0 ? 1 / r : Infinity, count: spreadOf[i]!.df.length, closedForm: closed[i]! };
   });
   const offsetHz = opt.offsetHz ?? 0;
   if (spreadN === 1) {
-    const short = spreads.filter((s) => Number.isFinite(s.t2prime)).map((s) => s.tissue);
+    const short = spreads.filter((s) => Number.isFinite(s.t2prime) && !s.closedForm).map((s) => s.tissue);
     if (short.length) warnings.push(`T2* below T2 is not modelled (no T2′ spread: --t2prime-isochromats 1) for ${short.join(", ")}; these decay with T2 only`);
   }
   const wWeight = dw / thickness / (d * d);
@@ -547,7 +565,7 @@ export function sampleCells(ph: Phantom, geo: IsoGeometry, fieldT: number, opt: 
   const e2 = [axes.phase[0] * dv, axes.phase[1] * dv, axes.phase[2] * dv];
   const e3 = [axes.slice[0] * dw, axes.slice[1] * dw, axes.slice[2] * dw];
   const inv = (t: number) => (Number.isFinite(t) && t > 0 ? 1 / t : 0);
-  const r1Of = ph.tissues.map((t) => inv(t.t1)), r2Of = ph.tissues.map((t) => inv(t.t2));
+  const r1Of = ph.tissues.map((t) => inv(t.t1)), r2Of = ph.tissues.map((t, i) => inv(t.t2) + (closed[i] ? r2prime(t.t2, t.t2star) : 0));
 
   // One pass over the grid: per column its cells' contents; the isochromat
   // count per column follows from them (one per peak of m0 ≠ 0 and T2′ bin).
@@ -708,6 +726,6 @@ export function probeColumn(
     count: n, uGrid: new Float64Array([0]), vGrid: new Float64Array([0]), wGrid, ...A,
     colStart: Int32Array.from([0, n]), columns: 1, warnings: [], notes: [],
     extent: { read: [0, 0], phase: [0, 0], slice: [wGrid[0]! - dw / 2, wGrid[nw - 1]! + dw / 2] },
-    spreads: tissues.map((_, i) => ({ tissue: String(i), t2prime: Infinity, count: 1 })),
+    spreads: tissues.map((_, i) => ({ tissue: String(i), t2prime: Infinity, count: 1, closedForm: false })),
   };
 }

@@ -125,45 +125,87 @@ export function spreadSizeFor(r2p: number, times: readonly number[], tol: number
   return null;
 }
 
-/** Relative error of the T2′ factor above which {@link spreadWarnings} warns. */
+/** Relative error of the T2′ factor above which {@link spreadWarnings} warns (and the "auto" T2′ model takes the closed form). */
 export const SPREAD_WARN_TOLERANCE = 0.05;
 
 /**
- * Warnings for tissues whose T2′ factor at the echo time `te` (s; the dephasing time at the k-space centre
- * of a gradient echo) is off by more than SPREAD_WARN_TOLERANCE with `n` spread isochromats per voxel, each
- * naming a spread size that brings it within (checked at te and te ± half the readout `halfRead`, s).
- * Tissues whose factor exp(−te/T2′) is below 1 % (no signal left to weigh) are not reported.
+ * The largest relative error of the n-point spread's T2′ factor over `times` (s), with its sign and time; times where
+ * exp(−t/T2′) is below 1 % (no signal left to weigh) are left out (err 0 when none is left).
  */
-export function spreadWarnings(tissues: readonly { name: string; t2: number; t2star: number }[], n: number, d2: number, te: number, halfRead: number): string[] {
-  const out: string[] = [];
-  if (n <= 1 || !(te > 0)) return out;
-  const step = 2 * d2;
-  const from = Math.max(step, Math.ceil((2 * n) / step) * step);
-  // tissues of one T2′ share a warning
-  const groups = new Map<string, { r2p: number; names: string[] }>();
-  for (const t of tissues) {
+export function spreadWorstError(r2p: number, n: number, times: readonly number[]): { err: number; t: number } {
+  const s = lorentzianSpread(r2p, n);
+  let worst = { err: 0, t: times[0] ?? 0 };
+  for (const t of times) {
+    if (!(t >= 0) || Math.exp(-t * r2p) < 0.01) continue;
+    const e = spreadRelativeError(s, r2p, t);
+    if (Math.abs(e) > Math.abs(worst.err)) worst = { err: e, t };
+  }
+  return worst;
+}
+
+/** Tissues grouped by T2′ (to 4 digits), in phantom order: each group's R2′ (1/s), names and tissue indices. */
+export function t2primeGroups(tissues: readonly { name: string; t2: number; t2star: number }[]): { r2p: number; names: string[]; index: number[] }[] {
+  const groups = new Map<string, { r2p: number; names: string[]; index: number[] }>();
+  tissues.forEach((t, i) => {
     const r2p = r2prime(t.t2, t.t2star);
-    if (!(r2p > 0)) continue;
+    if (!(r2p > 0)) return;
     const key = (1e3 / r2p).toPrecision(4);
     const g = groups.get(key);
-    if (g) g.names.push(t.name);
-    else groups.set(key, { r2p, names: [t.name] });
-  }
-  for (const { r2p, names } of groups.values()) {
-    const exact = Math.exp(-te * r2p);
-    if (exact < 0.01) continue;
-    const err = spreadRelativeError(lorentzianSpread(r2p, n), r2p, te);
-    if (Math.abs(err) <= SPREAD_WARN_TOLERANCE) continue;
-    const times = [te, Math.max(0, te - halfRead), te + halfRead];
-    const better = spreadSizeFor(r2p, times, SPREAD_WARN_TOLERANCE, from);
-    const pct = (x: number) => `${x >= 0 ? "+" : "−"}${Math.abs(100 * x).toFixed(0)} %`;
+    if (g) {
+      g.names.push(t.name);
+      g.index.push(i);
+    } else groups.set(key, { r2p, names: [t.name], index: [i] });
+  });
+  return [...groups.values()];
+}
+
+/** "+15 %" / "−39 %". */
+function percent(x: number): string {
+  return `${x >= 0 ? "+" : "−"}${Math.abs(100 * x).toFixed(0)} %`;
+}
+
+/**
+ * Warnings for tissues whose T2′ factor is off by more than SPREAD_WARN_TOLERANCE with `n` spread isochromats
+ * per voxel at the dephasing times `times` (s; times[0] the echo time, the others the readout's ends), each
+ * naming a spread size that brings it within, and the closed form where `closedFormHolds`.
+ */
+export function spreadWarnings(tissues: readonly { name: string; t2: number; t2star: number }[], n: number, d2: number, times: readonly number[], closedFormHolds: boolean): string[] {
+  const out: string[] = [];
+  if (n <= 1 || times.length === 0) return out;
+  const step = 2 * d2;
+  const from = Math.max(step, Math.ceil((2 * n) / step) * step);
+  for (const { r2p, names } of t2primeGroups(tissues)) {
+    const w = spreadWorstError(r2p, n, times);
+    if (Math.abs(w.err) <= SPREAD_WARN_TOLERANCE) continue;
+    const exact = Math.exp(-w.t * r2p);
+    const better = spreadSizeFor(r2p, times.filter((t) => t >= 0 && Math.exp(-t * r2p) >= 0.01), SPREAD_WARN_TOLERANCE, from);
+    const fixes = [
+      ...(closedFormHolds ? ["--t2prime-model closed-form makes it exact here (R2* = R2 + R2′)"] : []),
+      better !== null ? `--t2prime-isochromats ${better} brings it within ${100 * SPREAD_WARN_TOLERANCE} %` : `no spread of up to ${SPREAD_SIZE_LIMIT} isochromats brings it within ${100 * SPREAD_WARN_TOLERANCE} %`,
+    ];
     out.push(
-      `T2′ spread of ${n} isochromats per voxel is coarse at TE ${(te * 1e3).toFixed(2)} ms for ${names.join(", ")} (T2′ ${(1e3 / r2p).toFixed(1)} ms): ` +
-        `its T2′ factor exp(−TE/T2′) = ${exact.toFixed(3)} comes out ${(exact * (1 + err)).toFixed(3)} (${pct(err)}), so the T2* weighting is off; ` +
-        (better !== null
-          ? `--t2prime-isochromats ${better} brings it within ${100 * SPREAD_WARN_TOLERANCE} %`
-          : `no spread of up to ${SPREAD_SIZE_LIMIT} isochromats brings it within ${100 * SPREAD_WARN_TOLERANCE} % (TE is long against T2′)`),
+      `T2′ spread of ${n} isochromats per voxel is coarse ${w.t === times[0] ? "at TE" : "at"} ${(w.t * 1e3).toFixed(2)} ms for ${names.join(", ")} (T2′ ${(1e3 / r2p).toFixed(1)} ms): ` +
+        `its T2′ factor exp(−t/T2′) = ${exact.toFixed(3)} comes out ${(exact * (1 + w.err)).toFixed(3)} (${percent(w.err)}), so the T2* weighting is off; ` + fixes.join("; "),
     );
   }
   return out;
+}
+
+/**
+ * The "auto" T2′ model (IsochromatOptions.t2primeModel): per tissue, true where the n-point spread is off by more
+ * than SPREAD_WARN_TOLERANCE at any of `times` (s); and a note naming those tissues. Only for sequences where
+ * the closed form holds (an ideally spoiled gradient echo).
+ */
+export function autoClosedForm(tissues: readonly { name: string; t2: number; t2star: number }[], n: number, times: readonly number[]): { closed: boolean[]; note: string | null } {
+  const closed = tissues.map(() => false), parts: string[] = [];
+  for (const { r2p, names, index } of t2primeGroups(tissues)) {
+    const w = spreadWorstError(r2p, n, times);
+    if (Math.abs(w.err) <= SPREAD_WARN_TOLERANCE) continue;
+    for (const i of index) closed[i] = true;
+    parts.push(`${names.join(", ")} (T2′ ${(1e3 / r2p).toFixed(1)} ms; ${n === 1 ? "no spread" : `a spread of ${n}`} would be off by ${percent(w.err)} at ${(w.t * 1e3).toFixed(2)} ms)`);
+  }
+  const note = parts.length
+    ? `T2′ in closed form, R2* = R2 + R2′ (the Lorentzian spread's exact average where nothing refocuses it: an ideally spoiled gradient echo), for ${parts.join("; ")}; --t2prime-model spread keeps the spread`
+    : null;
+  return { closed, note };
 }
