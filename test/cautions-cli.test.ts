@@ -77,7 +77,7 @@ describe("warnings reach the console", () => {
     const dir = tempDir();
     const out = join(dir, "run");
     const r = cli(["simulate", "phantoms/two-bottle.json", "-p", "gre-demo-1.5t", "--set", "matrix.read=16", "--set", "matrix.phase=16",
-      "--density", "1", "--slice-isochromats", "4", "--t2prime-isochromats", "1", "--workers", "1", "-q", "-o", out]);
+      "--density", "1", "--slice-isochromats", "4", "--t2prime-isochromats", "1", "--t2prime-model", "spread", "--workers", "1", "-q", "-o", out]);
     expect(r.code).toBe(0);
     const report = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as { warnings: string[] };
     expect(report.warnings.some((w) => /T2\* below T2 is not modelled/.test(w))).toBe(true);

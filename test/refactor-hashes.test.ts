@@ -58,7 +58,24 @@ export const KSPACE_SHA256: Record<string, string> = {
 
 const presets = readdirSync(join(ROOT, "src", "protocol", "presets")).filter((f) => f.endsWith(".json")).map((f) => f.replace(/\.json$/, "")).sort();
 
-const SMALL_ISO = { ...defaultIsochromatOptions(), density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 1 };
+// The T2′ model is pinned to the spread here (with one spread isochromat: no T2′), as it was when these hashes were
+// recorded; since 2026-12-03 the default ("auto") takes the closed form R2* = R2 + R2′ for a gradient echo whose spread
+// would be off by more than 5 % at TE, which one isochromat is for every gradient-echo preset. Those runs are guarded by
+// AUTO_SHA256 below, and checked against exp(−TE/T2′) in effects-t2prime.test.ts.
+const SMALL_ISO = { ...defaultIsochromatOptions(), density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 1, t2primeModel: "spread" as const };
+
+/**
+ * The gradient-echo presets with the default T2′ model ("auto": closed form for every tissue with T2′ here), as
+ * SMALL_ISO otherwise; recorded 2026-12-03 when the closed form came in (each differs from its KSPACE_SHA256 entry
+ * only by the T2′ model: with the spread pinned, every entry above is unchanged).
+ */
+export const AUTO_SHA256: Record<string, string> = {
+  "epi-1.5t": "9e7776acdfe28343f99a5538c0e3ee1b834d5390bead45d990d6c5152fbda5f8",
+  "epi-4shot-3t": "065a5ec8a3a04e77653641a93e91e3adeafe40fb0bf720ccb54e41da9fa77701",
+  "gre-demo-1.5t": "a8ca62b18283243b6f1c85d4f9c9754208297bccfc3c17dff7e96ca446bfe10d",
+  "gre-t1-3t": "b424bcc2cb32743a932e662956c6bfaeba8efc771037d548cc2df628745409b5",
+  "gre3d-t1-1.5t": "45d8ffaa45844fba74b15aae5ce5196e9de463301f40d6cfca19069928aebdfa",
+};
 
 /**
  * The fast readout operator forced (auto picks the direct one at 32×32 above), at 64×64: its kernels and their
@@ -88,6 +105,14 @@ describe("kspace.npy bytes are unchanged by refactoring", () => {
       expect(h).toBe(KSPACE_SHA256[name]);
     });
   }
+  for (const name of Object.keys(AUTO_SHA256)) {
+    it(`${name}, T2′ model auto`, async () => {
+      const h = await kspaceHash(name, ["matrix.read=32", "matrix.phase=32", ...(SMALL[name] ?? [])], { ...SMALL_ISO, t2primeModel: "auto" });
+      if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH auto ${name} ${h}`);
+      expect(h).not.toBe(KSPACE_SHA256[name]); // the closed form did change these runs
+      expect(h).toBe(AUTO_SHA256[name]);
+    });
+  }
   // the demo's own isochromat options (density 2, 12 through the slice, T2′ spread of 16) at 32×32
   it("demo (gre-demo-1.5t on two-bottle, default isochromat options, 32×32)", async () => {
     const h = await kspaceHash("gre-demo-1.5t", ["matrix.read=32", "matrix.phase=32"], defaultIsochromatOptions());
@@ -97,7 +122,7 @@ describe("kspace.npy bytes are unchanged by refactoring", () => {
   // the fast operator on the demo and the torso slice (density 2, 6 through the slice, T2′ spread of 4)
   for (const [label, protocol, phantom] of [["gre-demo-1.5t on two-bottle", "gre-demo-1.5t", PHANTOM], ["gre-t1-3t on torso-slice", "gre-t1-3t", join(ROOT, "phantoms", "torso-slice.json")]] as const) {
     it(`fast readout: ${label}, 64×64`, async () => {
-      const iso = { ...defaultIsochromatOptions(), density: 2, sliceCount: 6, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 4 };
+      const iso = { ...defaultIsochromatOptions(), density: 2, sliceCount: 6, sliceExtent: 3, fatModel: "multi" as const, t2primeIsochromats: 4, t2primeModel: "spread" as const };
       const h = await kspaceHash(protocol, ["matrix.read=64", "matrix.phase=64"], iso, phantom, "fast");
       if (process.env.ISOFOLD_PRINT_HASHES) console.log(`HASH fast ${label} ${h}`);
       expect(h).toBe(FAST_SHA256[label]);

@@ -96,7 +96,7 @@ export interface ReadoutReport {
    * bound on a pair's relative error left out.
    */
   sensitivityTerms?: { pairs: number; meanKept: number; of: number; maxBound: number };
-  /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_MARGIN × the subset's relative L2 error). */
+  /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_SUBSET_MARGIN × the subset's relative L2 error). */
   estimate?: { samples: number; seed: number; relL2: number };
   /**
    * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
@@ -238,8 +238,15 @@ const SWEEP_MIN = 4096;
 export const ESTIMATE_SAMPLES = 16;
 /** Rows the estimate's samples are drawn from (the cost per isochromat is one product per row). */
 export const ESTIMATE_ROWS = 4;
-/** The estimate is this margin times the relative L2 error on the sample subset. */
+/** The estimate is this margin times the relative L2 error on the lines it checks (the fold's whole lines), and the B0 probes' error. */
 export const ESTIMATE_MARGIN = 3;
+/**
+ * The spoiled operator's estimate is this margin times the relative L2 error on its random subset of samples. The
+ * subset's ratio has a sampling spread: over 160 random small phantoms and protocols (disc, T1 200–2000 ms, T2 20–150 ms,
+ * T2* 5–150 ms, fat, B0 gradient, 8–16², flip, TE, density, spread, receiver filter) the true error reached 4.0×
+ * the subset's, so 3 (the margin before) missed 2 of them; 5 covers every one with room.
+ */
+export const ESTIMATE_SUBSET_MARGIN = 5;
 export const ESTIMATE_SEED = 20031;
 
 // ---------------------------------------------------------------------------
@@ -1245,7 +1252,7 @@ export function mulberry32(seed: number): () => number {
  * exact per-class transverse state and exact phase and decay factors (no line
  * factor, no time segmentation, no FFT), on a seeded random subset of samples
  * — ESTIMATE_ROWS rows, ESTIMATE_SAMPLES / ESTIMATE_ROWS samples in each —
- * against the fast result: ESTIMATE_MARGIN × the relative L2 error on the
+ * against the fast result: ESTIMATE_SUBSET_MARGIN × the relative L2 error on the
  * subset, all coils (the margin covers the sampling of the subset).
  */
 function estimate(
@@ -1571,7 +1578,7 @@ export function estimateOver(
       den += dr * dr + di * di;
     }
   }
-  return { samples: S * coils, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 };
+  return { samples: S * coils, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_SUBSET_MARGIN * Math.sqrt(num / den) : 0 };
   };
 }
 

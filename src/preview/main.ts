@@ -434,7 +434,7 @@ function showRest(o: RunOutput, g: number, executor: string): void {
     w.append(li);
   }
   syncControls();
-  $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread)" : "default quality";
+  $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread: T2′ in closed form at a gradient echo where it matters, else left out)" : "default quality";
   $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, chunks on ${o.ranOn || "no engine run"}, kernels ${o.kernels}${o.reused.length ? `; kept from an earlier edit: ${o.reused.join(", ")}` : ""}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   if (o.quality === "full") {
     $("progress-wrap").hidden = true;
