@@ -180,6 +180,19 @@ export function isoGeometry(protocol: Protocol, position: number): IsoGeometry {
   };
 }
 
+/**
+ * Per tissue of the phantom, whether a simulation of `input` takes T2′ in closed form (IsochromatOptions.t2primeModel),
+ * found from the protocol, its sequence and the tissues alone (no sampling). A sweep asks it for every point, to keep
+ * one T2′ model across them.
+ */
+export function t2primeClosedTissues(input: SimulateInput): boolean[] {
+  const protocolName = input.protocolName ?? "protocol";
+  const protocol = input.parsedProtocol ?? parseProtocol(input.protocol, { source: protocolName, sets: input.sets, resolve: input.resolveExtend, presets: input.presets });
+  const loaded = input.parsedPhantom ?? parsePhantom(input.phantom, input.phantomName ?? "phantom", protocol.field, { readArray: input.readArray });
+  const phantom = input.phantomTransform ? input.phantomTransform(loaded) : loaded;
+  return t2primeModelFor(protocol, buildSequenceOf(protocol, protocolName), phantom, { ...defaultIsochromatOptions(), ...input.iso }).closed;
+}
+
 /** Parses and checks every input, builds each slice's sequence and samples its isochromats; throws UserError before any engine work. */
 export function prepareSimulation(input: SimulateInput): Prepared {
   const protocolName = input.protocolName ?? "protocol";

@@ -93,3 +93,44 @@ describe("isofold sweep", () => {
     expect(png.includes(Buffer.from("tEXtDescription\0Simulated image"))).toBe(true);
   });
 });
+
+describe("a TE sweep keeps one T2′ model", () => {
+  it("auto takes the closed form at every point once any point needs it: ROI means follow exp(−ΔTE/T2*) without a step", async () => {
+    // a uniform square, T2 100 ms, T2* 50 ms (T2′ 100 ms); ideally spoiled GRE, TE 8…24 ms. At 8 ms a spread of 16 is
+    // within 5 % (auto alone would keep it), at 24 ms it is not. In closed form the centre signal is
+    // S(TE) ∝ exp(−TE/T2*) (spoiled gradient echo; common practice), so successive ROI means fall by exp(−ΔTE/T2*).
+    const { runSweep, parseVary } = await import("../src/cli/sweep.js");
+    const { isoOptions } = await import("../src/cli/options.js");
+    const { writeJson } = await import("./helpers.js");
+    const dir = tempDir();
+    const t2star = 1 / (1 / 0.1 + 1 / 0.1);
+    const ph = writeJson(dir, "square.json", {
+      name: "square", tissues: { t: { pd: 1, t1: "1000 ms", t2: "100 ms", t2star: `${t2star * 1e3} ms`, species: "water" } },
+      shapes: [{ shape: "rectangle", center: ["0 cm", "0 cm"], size: ["20 cm", "20 cm"], tissue: "t" }],
+    });
+    // the premise: alone, auto keeps the spread at the first point and takes the closed form at the last
+    const { t2primeClosedTissues } = await import("../src/api.js");
+    const { libraryInput } = await import("../src/cli/pipeline.js");
+    const sets = ["matrix.read=16", "matrix.phase=16", "tr=60 ms", "spoiling=ideal"];
+    const iso = { ...isoOptions({ density: 1, sliceIsochromats: 3, sliceExtent: 3, fatModel: "multi" }), t2primeModel: "auto" as const };
+    const alone = (te: string) => t2primeClosedTissues(libraryInput({ phantom: ph, protocol: "gre-demo-1.5t", sets: [...sets, `te=${te}`], out: dir, seed: 1, iso }))[0];
+    expect(alone("8 ms")).toBe(false);
+    expect(alone("24 ms")).toBe(true);
+    const logs: string[] = [];
+    const out = join(dir, "sweep");
+    await runSweep({
+      phantom: ph, protocol: "gre-demo-1.5t", sets, varies: [parseVary("te=8ms..24ms:3")], out,
+      base: { seed: 1, iso, workers: 1 }, log: (l) => logs.push(l),
+    });
+    expect(logs.some((l) => l.includes("T2′ in closed form"))).toBe(true);
+    const rows = readFileSync(join(out, "sweep.csv"), "utf8").trim().split("\n");
+    const head = rows[0]!.split(","), col = head.findIndex((h) => h.startsWith("roiMean"));
+    const roi = rows.slice(1).map((r) => Number(r.split(",")[col]));
+    expect(roi).toHaveLength(3);
+    for (let i = 1; i < 3; i++) expect(roi[i]! / roi[i - 1]!).toBeCloseTo(Math.exp(-0.008 / t2star), 2);
+    for (const p of ["point-1", "point-2", "point-3"]) {
+      const rep = JSON.parse(readFileSync(join(out, p, "report.json"), "utf8")) as { isochromats: { t2primeSpread: { model: string }[] } };
+      expect(rep.isochromats.t2primeSpread[0]!.model).toBe("closed form");
+    }
+  }, 60_000);
+});

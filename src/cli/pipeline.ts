@@ -113,7 +113,7 @@ export interface RunContext {
 }
 
 /** The library input of a command-line run: files read here, everything else passed through. */
-function libraryInput(o: RunOptions): SimulateInput {
+export function libraryInput(o: RunOptions): SimulateInput {
   const protocol = loadProtocol(o.protocol, o.sets);
   const phantom = loadPhantom(o.phantom, protocol.field, { readArray: readRealNpy });
   const workers = o.workers ?? defaultWorkers();

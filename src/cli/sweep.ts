@@ -17,7 +17,8 @@ import { encodeGrayPng } from "../io/png.js";
 import { OutputStage } from "../io/atomic.js";
 import { withOutputDir } from "../io/outpath.js";
 import { lineSpec, montage, renderSweepHtml, vegaLiteSvg, type SweepColumn, type SweepRow, type Tile } from "../report/index.js";
-import { printWarnings, readRealNpy, run, SAFETY_NOTE, version, type RunOptions } from "./pipeline.js";
+import { libraryInput, printWarnings, readRealNpy, run, SAFETY_NOTE, version, type RunOptions } from "./pipeline.js";
+import { t2primeClosedTissues } from "../api.js";
 import { addSimulationOptions, collect, engineOptions, isoOptions } from "./options.js";
 
 /** One --vary: the key, the unit the ends were written in, and the values of the grid along it. */
@@ -157,14 +158,31 @@ export async function runSweep(o: SweepOptions): Promise<{ files: string[]; done
   const tiles: Tile[] = [];
   const warnings = new Set<string>();
   const width = String(pts.length).length;
+  const setsOf = (p: number[]) => [...o.sets, ...o.varies.map((v, k) => setText(v, p[k]!))];
+  // one T2′ model for the whole sweep: where "auto" takes the closed form at some point (a gradient echo whose spread
+  // would be off by more than 5 % there), every point takes it, so the metrics do not step where auto would switch
+  let base = o.base;
+  if ((base.iso?.t2primeModel ?? "auto") === "auto") {
+    const closedSomewhere = pts.some((p) => {
+      try {
+        return t2primeClosedTissues(libraryInput({ ...base, phantom: o.phantom, protocol: o.protocol, sets: setsOf(p), out: o.out })).some(Boolean);
+      } catch {
+        return false; // an impossible point says why when it runs
+      }
+    });
+    if (closedSomewhere) {
+      base = { ...base, iso: { ...base.iso!, t2primeModel: "closed-form" } };
+      o.log?.("T2′ in closed form (R2* = R2 + R2′) at every point: the auto model takes it at some of them, and one model keeps the sweep free of steps");
+    }
+  }
   for (let i = 0; i < pts.length; i++) {
     const p = pts[i]!;
     const name = `point-${String(i + 1).padStart(width, "0")}`;
-    const sets = [...o.sets, ...o.varies.map((v, k) => setText(v, p[k]!))];
+    const sets = setsOf(p);
     const params = Object.fromEntries(o.varies.map((v, k) => [v.key, p[k]!]));
     const labels = o.varies.map((v, k) => `${v.key}=${p[k]}${v.unit ? ` ${v.unit}` : ""}`);
     try {
-      const r = await run({ ...o.base, phantom: o.phantom, protocol: o.protocol, sets, out: join(o.out, name), quiet: true, keepWarnings: true });
+      const r = await run({ ...base, phantom: o.phantom, protocol: o.protocol, sets, out: join(o.out, name), quiet: true, keepWarnings: true });
       const rm = roiMean(join(r.dir, "image.npy"));
       rows.push({ point: i + 1, status: "done", params, metrics: Object.fromEntries(METRICS.map((m) => [m.key, m.get(r.report, rm)])), link: `${name}/report.html` });
       for (const w of (r.report.warnings as string[]) ?? []) warnings.add(w);
