@@ -164,6 +164,7 @@ export async function runReportPage(r: RunReportInput): Promise<ReportPage> {
     { label: "protocol", value: String(obj(rep.inputs).protocol ?? "") },
     { label: "seed", value: String(rep.seed ?? "") },
     { label: "isochromats", value: fmt(num(iso.count)), unit: "" },
+    { label: "T2′ (T2* below T2)", value: t2primeText(iso.t2primeSpread) },
     { label: "simulation time", value: fmt(num(rep.timingSeconds)), unit: "s" },
     { label: "display convention", value: String(display.convention ?? "") },
     { label: "display rows (top → bottom)", value: String(display.rows ?? ""), key: "display.rows" },
@@ -247,4 +248,20 @@ export async function profilePlots(
 /** report.html of one run, as bytes. */
 export async function runReportHtml(r: RunReportInput): Promise<Uint8Array> {
   return new TextEncoder().encode(renderReportHtml(await runReportPage(r)));
+}
+
+/** How T2′ was modelled, per tissue, in words: "closed form R2* = R2 + R2′: a, b; spread of 16 isochromats: c" ("none" without T2′). */
+function t2primeText(spreads: unknown): string {
+  if (!Array.isArray(spreads)) return "";
+  const closed: string[] = [], spread = new Map<number, string[]>();
+  for (const x of spreads as { tissue?: unknown; t2prime?: unknown; isochromats?: unknown; model?: unknown }[]) {
+    if (typeof x.t2prime !== "number") continue;
+    if (x.model === "closed form") closed.push(String(x.tissue));
+    else spread.set(Number(x.isochromats), [...(spread.get(Number(x.isochromats)) ?? []), String(x.tissue)]);
+  }
+  const parts = [
+    ...(closed.length ? [`closed form R2* = R2 + R2′: ${closed.join(", ")}`] : []),
+    ...[...spread].map(([n, t]) => (n > 1 ? `spread of ${n} isochromats per voxel: ${t.join(", ")}` : `not modelled (no spread): ${t.join(", ")}`)),
+  ];
+  return parts.length ? parts.join("; ") : "none (T2* = T2 in every tissue)";
 }
