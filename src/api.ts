@@ -11,7 +11,7 @@ import { UserError } from "./errors.js";
 import { parseProtocol, logicalAxes, slicePositions, type Protocol, type ProtocolResolver } from "./protocol/index.js";
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, sliceStepCentre, type Sequence } from "./sequence/index.js";
-import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, autoClosedForm, r2prime, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
+import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, autoClosedForm, r2prime, T2PRIME_MODELS, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
 import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
@@ -288,6 +288,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
  */
 function t2primeModelFor(protocol: Protocol, seq: Sequence, phantom: Phantom, iso: IsochromatOptions): { closed: boolean[]; warnings: string[]; notes: string[] } {
   const model = iso.t2primeModel ?? "auto";
+  if (!T2PRIME_MODELS.includes(model)) throw new UserError(`iso.t2primeModel ${JSON.stringify(model)} is not a T2′ model; use one of ${T2PRIME_MODELS.join(", ")}`);
   const def = sequenceDefinition(protocol.sequence);
   const holds = protocol.spoiling === "ideal" && def.spoils && !def.refocuses(protocol);
   const none = { closed: phantom.tissues.map(() => false), warnings: [] as string[], notes: [] as string[] };

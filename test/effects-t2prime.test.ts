@@ -241,6 +241,10 @@ describe("T2′ model at a gradient echo's TE: closed form, spread and the warni
     expect(rf.spread.model).toBe("spread");
   });
 
+  test("an unknown T2′ model is refused with the ones that work", async () => {
+    await expect(centre(t2star, 16, "exact" as T2primeModel)).rejects.toThrow(/not a T2′ model; use one of auto, spread, closed-form/);
+  });
+
   test("spreadSizeFor returns a size that meets the tolerance at every time asked; autoClosedForm groups tissues by T2′", () => {
     const r2p = 1 / 0.03, times = [0.02, 0.025, 0.03];
     const n = spreadSizeFor(r2p, times, 0.05, 32)!;
