@@ -290,16 +290,16 @@ function t2primeModelFor(protocol: Protocol, seq: Sequence, phantom: Phantom, is
   const model = iso.t2primeModel ?? "auto";
   if (!T2PRIME_MODELS.includes(model)) throw new UserError(`iso.t2primeModel ${JSON.stringify(model)} is not a T2′ model; use one of ${T2PRIME_MODELS.join(", ")}`);
   const def = sequenceDefinition(protocol.sequence);
-  const holds = protocol.spoiling === "ideal" && def.spoils && !def.refocuses(protocol);
+  // a gradient echo (spoiled between TRs, nothing refocused): the spread's dephasing time at the k-space centre is TE
+  const gradientEcho = def.spoils && !def.refocuses(protocol);
+  const holds = gradientEcho && protocol.spoiling === "ideal";
   const none = { closed: phantom.tissues.map(() => false), warnings: [] as string[], notes: [] as string[] };
   const n = Math.max(1, Math.round(iso.t2primeIsochromats));
-  if (!holds) {
-    if (model === "closed-form" && phantom.tissues.some((t) => r2prime(t.t2, t.t2star) > 0)) {
-      const why = def.refocuses(protocol) ? "it refocuses the spread (spin echo)" : !def.spoils ? "it is balanced (no spoiling)" : `its spoiling is "${protocol.spoiling}", not ideal`;
-      none.warnings.push(`--t2prime-model closed-form holds for an ideally spoiled gradient echo only and ${why}; this run models T2′ by the spread of ${n} isochromats per voxel`);
-    }
-    return none;
+  if (!holds && model === "closed-form" && phantom.tissues.some((t) => r2prime(t.t2, t.t2star) > 0)) {
+    const why = def.refocuses(protocol) ? "it refocuses the spread (spin echo)" : !def.spoils ? "it is balanced (no spoiling)" : `its spoiling is "${protocol.spoiling}", not ideal`;
+    none.warnings.push(`--t2prime-model closed-form holds for an ideally spoiled gradient echo only and ${why}; this run models T2′ by the spread of ${n} isochromats per voxel`);
   }
+  if (!gradientEcho) return none;
   const ro = seq.derived["readoutDuration"]?.value;
   const half = typeof ro === "number" ? ro / 2 : 0;
   const te = seq.timing.te;
@@ -310,6 +310,8 @@ function t2primeModelFor(protocol: Protocol, seq: Sequence, phantom: Phantom, is
     if (hi >= lo) times.push(lo - half, hi + half);
   }
   const ts = times.filter((t) => t >= 0);
+  // RF spoiling or none keeps older pathways: the spread stays, and says where it is coarse at TE
+  if (!holds) return { ...none, warnings: [...none.warnings, ...spreadWarnings(phantom.tissues, n, iso.density * iso.density, ts, false)] };
   if (model === "spread") return { ...none, warnings: spreadWarnings(phantom.tissues, n, iso.density * iso.density, ts, true) };
   if (model === "closed-form") return { ...none, closed: phantom.tissues.map((t) => r2prime(t.t2, t.t2star) > 0) };
   const a = autoClosedForm(phantom.tissues, n, ts);

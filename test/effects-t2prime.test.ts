@@ -236,9 +236,13 @@ describe("T2′ model at a gradient echo's TE: closed form, spread and the warni
     const asked = await centre(t2star, 16, "closed-form", se);
     expect(asked.spread.model).toBe("spread");
     expect(asked.warnings.some((x) => x.includes("closed-form holds for an ideally spoiled gradient echo only") && x.includes("spin echo"))).toBe(true);
-    // an RF-spoiled gradient echo keeps older pathways: no closed form either
+    // an RF-spoiled gradient echo keeps older pathways: no closed form either, and the coarse spread is warned of
     const rf = await centre(t2star, 16, "auto", { spoiling: "rf" });
     expect(rf.spread.model).toBe("spread");
+    const w = rf.warnings.find((x) => x.includes("T2′ spread of 16"));
+    expect(w).toBeDefined();
+    expect(w).not.toContain("closed-form");
+    expect(auto.warnings.some((x) => x.includes("T2′ spread of"))).toBe(false); // the spin echo's centre is refocused
   });
 
   test("an unknown T2′ model is refused with the ones that work", async () => {
