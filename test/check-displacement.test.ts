@@ -118,4 +118,10 @@ describe("check --verify: mean displacement along read on the torso (water again
     const m = await measure("-200 + 1500 * y");
     expect(Math.abs(m.measured! - -200 / BW)).toBeLessThan(0.1);
   });
+
+  it("−200 Hz plus a gradient along read (1000 Hz/m): the line stretches by 1000·3.75 mm/250 = 1.5 % about its shift; the mean, −0.8 px, within 0.1 px", async () => {
+    // the body outline is symmetric about the isocentre along read (the FOV crops it evenly)
+    const m = await measure("-200 + 1000 * x");
+    expect(Math.abs(m.measured! - -200 / BW)).toBeLessThan(0.1);
+  });
 });

@@ -258,11 +258,11 @@ export interface ReadDisplacementFit {
  * Fat is the isochromats' spectrum (six peaks, Hamilton et al. 2011, or the single −3.4 ppm line: the
  * tissue's or `fatModel`): each peak moved by its chemical shift, Δf/BW per pixel (the closed form of the
  * fat-shift check), with the phase −2π·Δf·TE it has gathered at the echo (none where a refocusing pulse
- * brings it back at the echo).
+ * brings it back at the echo). Also the stretch that goes with a phase ramp (see fitReadDisplacement).
  */
 export function displacedParts(
   ph: Phantom, p: Protocol, seq: Sequence, grid: Omit<TruthGrid, "nRead" | "offsetHz">, fatModel: FatModel,
-): { parts: DisplacedPart[]; nW: number } {
+): { parts: DisplacedPart[]; nW: number; stretchPerRamp?: number } {
   const nW = Math.max(seq.image.read, seq.grid.read);
   const g: TruthGrid = { ...grid, nRead: nW, offsetHz: 0 };
   const fatIn = fatShiftInput(p, seq);
@@ -288,7 +288,8 @@ export function displacedParts(
       });
     }
   });
-  return { parts, nW };
+  // a gradient along read moves and phases together (ReadDisplacementOptions.stretchPerRamp); after a refocusing pulse no ramp tells it
+  return { parts, nW, ...(tau > 0 ? { stretchPerRamp: -(fatIn.readSign ?? 1) / (2 * Math.PI * tau * p.pixelBandwidth) } : {}) };
 }
 
 /**
@@ -359,6 +360,14 @@ export interface ReadDisplacementOptions {
   nW?: number;
   /** Largest phase ramp along read (rad per pixel) the image may carry beside the parts' own phases. */
   maxRamp?: number;
+  /**
+   * Stretch along read (px of displacement per px) that goes with a phase ramp of 1 rad/px, where both come
+   * from one off-resonance gradient along read: a gradient g (Hz/px) gathers the ramp −2π·g·τ by the echo
+   * (τ the dephasing time, TE without a refocusing pulse) and moves the line's points by g/BW per px more
+   * at each px (times the readout's sign), so the stretch is −sign/(2π·τ·BW). Given, each line's shift is
+   * taken at the centroid of its pixels with signal rather than where its edges lie.
+   */
+  stretchPerRamp?: number;
   /** Sees each line's shift (px), ramp (rad/px) and relative residual. */
   perLine?: (row: number, px: number, ramp: number, residual: number) => void;
 }
@@ -373,9 +382,10 @@ export interface ReadDisplacementOptions {
  * zero-padded Fourier transform within ±maxRamp, then golden-section search). A part's template is moved
  * in k-space (Fourier shift theorem: f(x − s) ↔ F(k)·e^{−i2πks}), so moving it by a fraction of a pixel
  * does not blur it. Water and fat touching each other, and their cancellation where they share a pixel
- * out of phase, are modelled rather than taken as displacement. The result is the mean of the lines'
- * shifts weighted by the pixels with signal in each line (the same weighting as a mean of Δf over the
- * phantom's points). `re`, `im`: the image [phase][read], nR × nP; `signal`: the truth's proton density
+ * out of phase, are modelled rather than taken as displacement. With `stretchPerRamp` a line's shift is
+ * moved from where its edges lie to the centroid of its pixels with signal (a gradient along read
+ * stretches the line). The result is the mean of the lines' shifts weighted by the pixels with signal in
+ * each line (the same weighting as a mean of Δf over the phantom's points). `re`, `im`: the image [phase][read], nR × nP; `signal`: the truth's proton density
  * map on it; the parts' maps are `nW` ≥ nR wide (signal beyond the displayed FOV moves into it).
  */
 export function fitReadDisplacement(
@@ -456,6 +466,15 @@ export function fitReadDisplacement(
       }
       return -explained();
     };
+    // the best amplitudes G⁻¹·h at the last shift and ramp evaluated
+    const ampsAt = (): [Float64Array, Float64Array] => {
+      const xr = new Float64Array(m), xi = new Float64Array(m);
+      for (let a = 0; a < m; a++) for (let b = 0; b < m; b++) {
+        const vr = ir[a * m + b]!, vi = ii[a * m + b]!;
+        xr[a] = xr[a]! + vr * hr[b]! - vi * hi[b]!; xi[a] = xi[a]! + vr * hi[b]! + vi * hr[b]!;
+      }
+      return [xr, xi];
+    };
     let lastRamp = 0;
     const cost = (s: number, refine = true): number => {
       for (let k = 0; k < nW; k++) { const th = (-2 * Math.PI * (k - c) * s) / nW; pc[k] = Math.cos(th); ps[k] = Math.sin(th); }
@@ -500,8 +519,32 @@ export function fitReadDisplacement(
     // the grid with the ramps of the padded transform alone, then refined
     let sBest = range[0], cBest = Infinity;
     for (let s = range[0]; s <= range[1] + 1e-9; s += STEP) { const v = cost(s, false); if (v < cBest) { cBest = v; sBest = s; } }
-    const s = golden(sBest - STEP, sBest + STEP, 1e-3, cost);
+    let s = golden(sBest - STEP, sBest + STEP, 1e-3, cost);
     const res = Math.max(0, cost(s));
+    if (opts.stretchPerRamp !== undefined && lastRamp !== 0) {
+      // a stretched line: the fit's shift is its displacement where the model's slope lies, weighted by
+      // |Σ_j a_j·P_j′|² (to first order); moved to the centroid of the line's pixels with signal
+      const [ar, ai] = ampsAt();
+      const dr = new Float64Array(nW), di = new Float64Array(nW);
+      for (let a = 0; a < m; a++) {
+        const { sr, si } = S[a]!, tr = new Float64Array(nW), ti = new Float64Array(nW);
+        for (let k = 0; k < nW; k++) {
+          // F(k)·e^{−i2πks}·i2πk: the template's derivative along read
+          const th = (-2 * Math.PI * (k - c) * s) / nW, cs = Math.cos(th), sn = Math.sin(th), f = (2 * Math.PI * (k - c)) / nW;
+          const ur = sr[k]! * cs - si[k]! * sn, ui = sr[k]! * sn + si[k]! * cs;
+          tr[k] = -f * ui; ti[k] = f * ur;
+        }
+        ifftc1(tr, ti, nW);
+        for (let x = 0; x < nW; x++) { dr[x] = dr[x]! + ar[a]! * tr[x]! - ai[a]! * ti[x]!; di[x] = di[x]! + ar[a]! * ti[x]! + ai[a]! * tr[x]!; }
+      }
+      let sw = 0, swx = 0, n = 0, nx = 0;
+      for (let x = 0; x < nR; x++) {
+        const q = dr[x + o]! * dr[x + o]! + di[x + o]! * di[x + o]!;
+        sw += q; swx += q * x;
+        if (signal[r * nR + x]! > 0) { n++; nx += x; }
+      }
+      if (sw > 0 && n > 0) s -= opts.stretchPerRamp * lastRamp * (swx / sw - nx / n);
+    }
     opts.perLine?.(r, s, lastRamp, res / energy);
     sumW += w; sumWS += w * s; resAll += res; energyAll += energy; fitted++;
   }

@@ -146,15 +146,15 @@ export async function verifyCheck(
   const reachPx = Math.max(...[dRead.dfMinHz, dRead.dfMaxHz].map((hz) => Math.abs(predictOffResonanceShift(fatIn, hz).readout.px)));
   const span = Math.min(Math.max(3, Math.ceil(reachPx) + 2), Math.floor(nR / 4));
   const fatModel = { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }.fatModel;
-  const { parts, nW } = displacedParts(phantom, p, seq, { axes, nPhase: nP, dx, dy, thickness: p.slice.thickness, position }, fatModel);
-  const fit = fitReadDisplacement(plane.re, plane.im, truth.pd, nR, nP, parts, { range: [-span, span], nW, maxRamp: Math.PI / 4 });
+  const { parts, nW, stretchPerRamp } = displacedParts(phantom, p, seq, { axes, nPhase: nP, dx, dy, thickness: p.slice.thickness, position }, fatModel);
+  const fit = fitReadDisplacement(plane.re, plane.im, truth.pd, nR, nP, parts, { range: [-span, span], nW, maxRamp: Math.PI / 4, stretchPerRamp });
   // predicted: Δf/BW per pixel at the mean Δf over the phantom's pixels in the plane simulated (the fit's weighting)
   let dfSum = 0, nSig = 0;
   for (let i = 0; i < nR * nP; i++) if (truth.pd[i]! > 0) { dfSum += truth.df[i]!; nSig++; }
   const predMean = predictOffResonanceShift(fatIn, nSig ? dfSum / nSig : 0).readout.px;
   rows.push(row("mean displacement along read (B0)", predMean, fit.px,
     `least-squares fit of each read line of the complex image as every tissue's water and fat (its peaks at their chemical shifts) from the truth, all moved by one shift; ` +
-      `mean over ${fit.lines} lines weighted by their phantom pixels, ${(fit.residual * 100).toFixed(1)} % of the image energy unexplained (a B0 gradient along read stretches a line: its edges' mean shift is taken); ` +
+      `mean over ${fit.lines} lines weighted by their phantom pixels, ${(fit.residual * 100).toFixed(1)} % of the image energy unexplained (a B0 gradient along read stretches a line: taken from its phase ramp, to first order, where it has one); ` +
       `predicted at the mean Δf over the phantom's pixels in the simulated plane`));
 
   return { seconds: (Date.now() - t0) / 1000, rows, slice: `${(position * 1e3).toFixed(1)} mm`, warnings: fx.warnings.map((w) => `--verify: ${w}`) };
