@@ -257,8 +257,9 @@ export interface ReadDisplacementFit {
  * density) on a grid as wide as the read FOV acquired (`nW` = the sequence's read samples, same pixel size).
  * Fat is the isochromats' spectrum (six peaks, Hamilton et al. 2011, or the single −3.4 ppm line: the
  * tissue's or `fatModel`): each peak moved by its chemical shift, Δf/BW per pixel (the closed form of the
- * fat-shift check), with the phase −2π·Δf·TE it has gathered at the echo (none where a refocusing pulse
- * brings it back at the echo). Also the stretch that goes with a phase ramp (see fitReadDisplacement).
+ * fat-shift check), with the phase −2π·Δf·TE it has gathered at the echo (free precession multiplies Mxy
+ * by e^{−i2πΔf·t}: DEVELOPERS.md, Physics conventions; none where a refocusing pulse brings it back at the
+ * echo). Also the stretch that goes with a phase ramp (see fitReadDisplacement).
  */
 export function displacedParts(
   ph: Phantom, p: Protocol, seq: Sequence, grid: Omit<TruthGrid, "nRead" | "offsetHz">, fatModel: FatModel,

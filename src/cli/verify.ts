@@ -38,7 +38,8 @@ export interface VerifyResult {
   warnings: string[];
 }
 
-const n2 = (v: number | null | undefined, unit = "px") => (v === null || v === undefined || !Number.isFinite(v) ? "—" : `${v.toFixed(2)} ${unit}`);
+// a value that rounds to zero is printed 0.00, not −0.00
+const n2 = (v: number | null | undefined, unit = "px") => (v === null || v === undefined || !Number.isFinite(v) ? "—" : `${(Math.abs(v) < 0.005 ? 0 : v).toFixed(2)} ${unit}`);
 
 function row(quantity: string, p: number | null, m: number | null, note: string, unit = "px"): VerifyRow {
   return {
