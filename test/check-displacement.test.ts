@@ -96,14 +96,15 @@ describe("check --verify: mean displacement along read on the torso (water again
   // 64 × 64 over 24 × 26 cm (no fold along phase, so no fold-free reference scan), 250 Hz/px at 3 T
   const BW = 250;
   const torso = JSON.parse(readFileSync(resolve(__dirname, "../phantoms/torso-slice.json"), "utf8")) as Record<string, unknown>;
-  const measure = async (b0: string | null) => {
+  const verifyRow = async (b0: string | null, protocol = "gre-t1-3t") => {
     const dir = tempDir();
     const ph = writeJson(dir, "torso.json", b0 === null ? torso : { ...torso, b0: { expression: b0 } });
-    const o = { protocol: "gre-t1-3t", set: ["matrix.read=64", "matrix.phase=64", "fov.phase=26 cm"], threshold: [] };
+    const o = { protocol, set: ["matrix.read=64", "matrix.phase=64", "fov.phase=26 cm"], threshold: [] };
     const { result } = runCheck(ph, o);
     const v = await verifyCheck(join(ph), o, result, { workers: 1, iso: { t2primeIsochromats: 1 } });
-    return v.rows.find((r) => r.quantity === "mean displacement along read (B0)")!.values!;
+    return v.rows.find((r) => r.quantity === "mean displacement along read (B0)")!;
   };
+  const measure = async (b0: string | null) => (await verifyRow(b0)).values!;
 
   it("no B0: 0 px within 0.1 px (the fat beside the water is not taken for a displacement)", async () => {
     const m = await measure(null);
@@ -151,5 +152,12 @@ describe("check --verify: mean displacement along read on the torso (water again
     // the body outline is symmetric about the isocentre along read (the FOV crops it evenly)
     const m = await measure("-200 + 1000 * x");
     expect(Math.abs(m.measured! - -200 / BW)).toBeLessThan(0.1);
+  });
+
+  it("EPI: not measured (B0 and fat move the image along phase too), and the row says so", async () => {
+    const r = await verifyRow("100", "epi-1.5t");
+    expect(r.values!.measured).toBeNull();
+    expect(r.measured).toBe("—");
+    expect(r.note).toMatch(/^not measured in EPI/);
   });
 });

@@ -142,21 +142,27 @@ export async function verifyCheck(
   }
 
   // mean displacement along read from B0: a least-squares fit of the image as the tissues' truth maps moved by one shift per read line
-  const dRead = result.items.find((i) => i.key === "distortionRead")!.detail as { dfMinHz: number; dfMaxHz: number };
   const fatIn = fatShiftInput(p, seq);
-  const reachPx = Math.max(...[dRead.dfMinHz, dRead.dfMaxHz].map((hz) => Math.abs(predictOffResonanceShift(fatIn, hz).readout.px)));
-  const span = Math.min(Math.max(3, Math.ceil(reachPx) + 2), Math.floor(nR / 4));
-  const fatModel = { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }.fatModel;
-  const { parts, nW, stretchPerRamp } = displacedParts(phantom, p, seq, { axes, nPhase: nP, dx, dy, thickness: p.slice.thickness, position }, fatModel);
-  const fit = fitReadDisplacement(plane.re, plane.im, truth.pd, nR, nP, parts, { range: [-span, span], nW, maxRamp: Math.PI / 4, stretchPerRamp });
   // predicted: Δf/BW per pixel at the mean Δf over the phantom's pixels in the plane simulated (the fit's weighting)
   let dfSum = 0, nSig = 0;
   for (let i = 0; i < nR * nP; i++) if (truth.pd[i]! > 0) { dfSum += truth.df[i]!; nSig++; }
   const predMean = predictOffResonanceShift(fatIn, nSig ? dfSum / nSig : 0).readout.px;
-  rows.push(row("mean displacement along read (B0)", predMean, fit.px,
-    `least-squares fit of each read line of the complex image as every tissue's water and fat (its peaks at their chemical shifts) from the truth, all moved by one shift; ` +
-      `mean over ${fit.lines} lines weighted by their phantom pixels, ${(fit.residual * 100).toFixed(1)} % of the image energy unexplained (a B0 gradient along read stretches a line: taken from its phase ramp, to first order, where it has one); ` +
-      `predicted at the mean Δf over the phantom's pixels in the simulated plane`));
+  if (p.sequence === "epi") {
+    // B0 and the fat shift move an EPI image along phase by many pixels (Δf·N·ESP): read lines no longer hold what the truth's rows hold
+    rows.push(row("mean displacement along read (B0)", predMean, null,
+      "not measured in EPI: B0 and the fat shift also move the image along phase (see distortion along phase), which a fit along read lines cannot follow; predicted at the mean Δf over the phantom's pixels in the simulated plane"));
+  } else {
+    const dRead = result.items.find((i) => i.key === "distortionRead")!.detail as { dfMinHz: number; dfMaxHz: number };
+    const reachPx = Math.max(...[dRead.dfMinHz, dRead.dfMaxHz].map((hz) => Math.abs(predictOffResonanceShift(fatIn, hz).readout.px)));
+    const span = Math.min(Math.max(3, Math.ceil(reachPx) + 2), Math.floor(nR / 4));
+    const fatModel = { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }.fatModel;
+    const { parts, nW, stretchPerRamp } = displacedParts(phantom, p, seq, { axes, nPhase: nP, dx, dy, thickness: p.slice.thickness, position }, fatModel);
+    const fit = fitReadDisplacement(plane.re, plane.im, truth.pd, nR, nP, parts, { range: [-span, span], nW, maxRamp: Math.PI / 4, stretchPerRamp });
+    rows.push(row("mean displacement along read (B0)", predMean, fit.px,
+      `least-squares fit of each read line of the complex image as every tissue's water and fat (its peaks at their chemical shifts) from the truth, all moved by one shift; ` +
+        `mean over ${fit.lines} lines weighted by their phantom pixels, ${(fit.residual * 100).toFixed(1)} % of the image energy unexplained (a B0 gradient along read stretches a line: taken from its phase ramp, to first order, where it has one); ` +
+        `predicted at the mean Δf over the phantom's pixels in the simulated plane`));
+  }
 
   return { seconds: (Date.now() - t0) / 1000, rows, slice: `${(position * 1e3).toFixed(1)} mm`, warnings: fx.warnings.map((w) => `--verify: ${w}`) };
 }
