@@ -86,6 +86,9 @@ export interface CheckResult {
   roi: string;
   items: CheckItem[];
   wrap: { phase: AxisWrap; read: AxisWrap; slice: AxisWrap | null };
+  /** What may make the answers (or a simulation of them) wrong: the protocol's and the phantom's warnings, as `simulate` prints them. */
+  warnings: string[];
+  /** What helps to read them. */
   notes: string[];
   safety: string;
 }
@@ -677,6 +680,7 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     roi: roiText,
     items,
     wrap: { phase: phaseWrap, read: readWrap, slice: sliceWrap },
+    warnings: [...new Set([...p.warnings, ...ph.warnings])],
     notes,
     safety: CHECK_SAFETY_NOTE,
   };

@@ -50,7 +50,7 @@ export function checkPage(result: CheckResult, phantomFile: string, verify: Veri
     subtitle: `Closed-form answers, no simulation${verify ? " (with --verify: a simulation measured the same quantities)" : ""}. Read ${result.axes.read}, phase ${result.axes.phase}, slice ${result.axes.slice}; ROI: ${result.roi}.`,
     safety: result.safety,
     checks: result.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason })),
-    comparisons: [], tables, images: [], plots: [], warnings: [], displayNote: "",
+    comparisons: [], tables, images: [], plots: [], warnings: [...new Set([...result.warnings, ...(verify?.warnings ?? [])])], displayNote: "",
     footer: "Made by isofold check. Self-contained page: nothing is fetched.",
   };
 }
@@ -74,7 +74,6 @@ export function runCheck(phantomFile: string, o: CheckCliOptions): { result: Che
   const reference = o.reference && refProtocol ? { name: o.reference, seq: sequenceOf(refProtocol, o.reference), field: refProtocol.field } : null;
   const phantom = loadPhantom(phantomFile, protocol.field, { readArray: readRealNpy });
   const result = checkProtocol(phantom, protocol, seq, { roi, roiText: o.roi, thresholds, reference });
-  result.notes.push(...protocol.warnings.map((w) => `protocol: ${w}`), ...phantom.warnings.map((w) => `phantom: ${w}`));
   return { result, protocol, seq };
 }
 
@@ -122,21 +121,25 @@ export function registerCheck(program: Command): void {
     .option("--html <file>", "also write the answers as one self-contained page (works offline), e.g. --html out/check.html")
     .action(async (phantomFile: string, o: CheckCliOptions) => {
       const htmlFile = o.html !== undefined ? checkHtmlTarget(o.html) : null;
-      const { result, protocol } = runCheck(phantomFile, o);
-      printWarnings(protocol.warnings);
+      const { result } = runCheck(phantomFile, o);
       const verify = o.verify ? await verifyCheck(phantomFile, o, result) : null;
+      const warnings = [...new Set([...result.warnings, ...(verify?.warnings ?? [])])];
       if (htmlFile) {
         const tmp = `${htmlFile}.${process.pid}.tmp`;
         writeFileSync(tmp, renderReportHtml(checkPage(result, phantomFile, verify)));
         renameSync(tmp, htmlFile);
       }
       if (o.json) {
-        process.stdout.write(JSON.stringify({ ...result, ...(verify ? { verify } : {}) }, null, 2) + "\n");
+        // JSON on stdout stays JSON: the warnings are in it and, as simulate prints them, on stderr
+        printWarnings(warnings);
+        process.stdout.write(JSON.stringify({ ...result, warnings, ...(verify ? { verify } : {}) }, null, 2) + "\n");
         return;
       }
       console.log(`${result.sequence}; read ${result.axes.read}, phase ${result.axes.phase}, slice ${result.axes.slice}; ROI: ${result.roi}`);
       console.log("");
       console.log(checkTable(result.items));
+      // warnings on stdout with the answers they concern (on stderr too they would show twice)
+      for (const w of warnings) console.log(`warning: ${w}`);
       for (const n of result.notes) console.log(`note: ${n}`);
       if (verify) {
         console.log("");

@@ -143,10 +143,13 @@ export function registerProtocol(program: Command): void {
         return;
       }
       const rows: string[][] = [["protocol", "value", ""]];
-      for (const [k, v] of flatten(p as unknown as Record<string, unknown>)) {
+      // warnings are not a protocol value: none, no row; otherwise one row each (also on stderr, as every command prints them)
+      const { warnings, ...values } = p;
+      for (const [k, v] of flatten(values as unknown as Record<string, unknown>)) {
         const unit = PROTOCOL_UNITS[k];
         rows.push([k, typeof v === "number" && unit ? show(v, unit) : String(v), ""]);
       }
+      for (const w of new Set(warnings)) rows.push(["warning", w, ""]);
       const drows: string[][] = [["derived", "value", "note"]];
       for (const [k, d] of Object.entries(derived)) drows.push([k, show(d.value, d.unit), d.note ?? ""]);
       console.log(`${seq.name} (${SEQUENCES[p.sequence]})`);

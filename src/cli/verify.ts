@@ -2,14 +2,14 @@
  * `isofold check --verify`: simulates the protocol in-process (prepare and
  * the engine, as `simulate` does, one slice) and measures on the image what
  * the check predicted: fat shift (template fit), folded signal in the ROI
- * and where it lands, edge-spread width, mean displacement. Wiring only; the
+ * and where it lands, edge-spread width, mean displacement along read. Wiring only; the
  * measurements live in src/check/measure.ts.
  */
 import { join } from "node:path";
 import { tmpdir } from "node:os";
 import { fatShiftInput, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { parseRoi, type CheckResult } from "../check/index.js";
-import { edgeWidthImage, edgeWidthPredicted, foldedByDifference, foldedSignal, meanReadShift } from "../check/measure.js";
+import { displacedParts, edgeWidthImage, edgeWidthPredicted, fitReadDisplacement, foldedByDifference, foldedSignal } from "../check/measure.js";
 import { simulateParallel, simulateSerial } from "../engine/node.js";
 import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 import { logicalAxes, toPhysical } from "../protocol/index.js";
@@ -34,9 +34,12 @@ export interface VerifyResult {
   seconds: number;
   rows: VerifyRow[];
   slice: string;
+  /** What may make a measured value wrong (e.g. the fat-shift fit's water and fat objects too close). */
+  warnings: string[];
 }
 
-const n2 = (v: number | null | undefined, unit = "px") => (v === null || v === undefined || !Number.isFinite(v) ? "—" : `${v.toFixed(2)} ${unit}`);
+// a value that rounds to zero is printed 0.00, not −0.00
+const n2 = (v: number | null | undefined, unit = "px") => (v === null || v === undefined || !Number.isFinite(v) ? "—" : `${(Math.abs(v) < 0.005 ? 0 : v).toFixed(2)} ${unit}`);
 
 function row(quantity: string, p: number | null, m: number | null, note: string, unit = "px"): VerifyRow {
   return {
@@ -76,7 +79,7 @@ export async function verifyCheck(
   const axes = logicalAxes(p);
   const dx = p.fov.read / p.matrix.read, dy = p.fov.phase / p.matrix.phase;
   const position = seq.grid.threeD ? p.slice.position + (mid - Math.floor(seq.image.slice / 2)) * p.slice.thickness : sl.position;
-  const truth = truthMaps(phantom, { axes, nRead: nR, nPhase: nP, dx, dy, thickness: p.slice.thickness, position, offsetHz: 0 });
+  const truth = truthMaps(phantom, { axes, nRead: nR, nPhase: nP, dx, dy, thickness: p.slice.thickness, position, offsetHz: p.shim });
   const rows: VerifyRow[] = [];
 
   // fat shift: the report's template fit
@@ -138,12 +141,28 @@ export async function verifyCheck(
     rows.push(row("edge spread 10–90 % along read", predicted, edge.width, `row ${edge.row}, column ${edge.col}${tissue ? `, ${tissue.name}` : ""}; predicted from the same exponentially weighted window`));
   }
 
-  // mean displacement along read from B0 (centroid against the truth, weighted per tissue)
-  const dRead = result.items.find((i) => i.key === "distortionRead")!;
-  const dfMean = (dRead.detail as { dfMeanHz: number }).dfMeanHz;
-  const predMean = predictOffResonanceShift(fatShiftInput(p, seq), dfMean).readout.px;
-  const measMean = meanReadShift(mag, truth.pd, truth.label, truth.fatFraction, nR, nP);
-  rows.push(row("mean displacement along read (B0)", predMean, measMean, "water pixels: image centroid minus truth centroid (truth weighted by each tissue's mean image value); predicted at the mean Δf"));
+  // mean displacement along read from B0: a least-squares fit of the image as the tissues' truth maps moved by one shift per read line
+  const fatIn = fatShiftInput(p, seq);
+  // predicted: Δf/BW per pixel at the mean Δf over the phantom's pixels in the plane simulated (the fit's weighting)
+  let dfSum = 0, nSig = 0;
+  for (let i = 0; i < nR * nP; i++) if (truth.pd[i]! > 0) { dfSum += truth.df[i]!; nSig++; }
+  const predMean = predictOffResonanceShift(fatIn, nSig ? dfSum / nSig : 0).readout.px;
+  if (p.sequence === "epi") {
+    // B0 and the fat shift move an EPI image along phase by many pixels (Δf·N·ESP): read lines no longer hold what the truth's rows hold
+    rows.push(row("mean displacement along read (B0)", predMean, null,
+      "not measured in EPI: B0 and the fat shift also move the image along phase (see distortion along phase), which a fit along read lines cannot follow; predicted at the mean Δf over the phantom's pixels in the simulated plane"));
+  } else {
+    const dRead = result.items.find((i) => i.key === "distortionRead")!.detail as { dfMinHz: number; dfMaxHz: number };
+    const reachPx = Math.max(...[dRead.dfMinHz, dRead.dfMaxHz].map((hz) => Math.abs(predictOffResonanceShift(fatIn, hz).readout.px)));
+    const span = Math.min(Math.max(3, Math.ceil(reachPx) + 2), Math.floor(nR / 4));
+    const fatModel = { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }.fatModel;
+    const { parts, nW, stretchPerRamp } = displacedParts(phantom, p, seq, { axes, nPhase: nP, dx, dy, thickness: p.slice.thickness, position }, fatModel);
+    const fit = fitReadDisplacement(plane.re, plane.im, truth.pd, nR, nP, parts, { range: [-span, span], nW, maxRamp: Math.PI / 4, stretchPerRamp });
+    rows.push(row("mean displacement along read (B0)", predMean, fit.px,
+      `least-squares fit of each read line of the complex image as every tissue's water and fat (its peaks at their chemical shifts) from the truth, all moved by one shift; ` +
+        `mean over ${fit.lines} lines weighted by their phantom pixels, ${(fit.residual * 100).toFixed(1)} % of the image energy unexplained (a B0 gradient along read stretches a line: taken from its phase ramp, to first order, where it has one); ` +
+        `predicted at the mean Δf over the phantom's pixels in the simulated plane`));
+  }
 
-  return { seconds: (Date.now() - t0) / 1000, rows, slice: `${(position * 1e3).toFixed(1)} mm` };
+  return { seconds: (Date.now() - t0) / 1000, rows, slice: `${(position * 1e3).toFixed(1)} mm`, warnings: fx.warnings.map((w) => `--verify: ${w}`) };
 }
