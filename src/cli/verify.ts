@@ -10,7 +10,7 @@ import { tmpdir } from "node:os";
 import { fatShiftInput, predictOffResonanceShift, truthMaps } from "../analysis/index.js";
 import { parseRoi, type CheckResult } from "../check/index.js";
 import { displacedParts, edgeWidthImage, edgeWidthPredicted, fitReadDisplacement, foldedByDifference, foldedSignal } from "../check/measure.js";
-import { simulateParallel, simulateSerial } from "../engine/node.js";
+import { nodeExecutor, serialExecutor, simulateCells } from "../engine/node.js";
 import { defaultIsochromatOptions, type IsochromatOptions } from "../isochromats/index.js";
 import { logicalAxes, toPhysical } from "../protocol/index.js";
 import { magnitude, reconstructGrid, toGrid } from "../recon/reconstruct.js";
@@ -60,11 +60,13 @@ export async function verifyCheck(
       iso: { ...defaultIsochromatOptions(), ...(extra.iso ?? {}) }, quiet: true,
     });
     const mid = prep.slices[Math.floor(prep.slices.length / 2)]!;
-    const sl = mid.iso.count > 0 ? mid : prep.slices.find((s) => s.iso.count > 0)!;
+    const sl = mid.cells.count > 0 ? mid : prep.slices.find((s) => s.cells.count > 0)!;
     const workers = extra.workers ?? defaultWorkers();
-    const { kspace } = workers <= 1
-      ? simulateSerial(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() })
-      : await simulateParallel(sl.seq, sl.iso, { receiverFilter: prep.protocol.receiverFilter, workers, chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv() });
+    // the engine as `simulate` runs it: the readout operator chosen by cost, the fast one streamed from the cells
+    // (a B0 varying in every cell interpolated in Δf), the isochromats made one by one only where the direct one runs
+    const { kspace } = await simulateCells(workers <= 1 ? serialExecutor() : nodeExecutor(workers), sl.seq, sl.cells, () => sl.iso, {
+      receiverFilter: prep.protocol.receiverFilter, chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
+    });
     return { prep, sl, kspace };
   };
   const { prep, sl, kspace } = await once(o.set ?? []);
