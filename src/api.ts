@@ -193,6 +193,15 @@ export function t2primeClosedTissues(input: SimulateInput): boolean[] {
   return t2primeModelFor(protocol, buildSequenceOf(protocol, protocolName), phantom, { ...defaultIsochromatOptions(), ...input.iso }).closed;
 }
 
+/**
+ * Whether "auto" takes T2′ in closed form for some tissue of any of `phantoms` under `protocol` (a dataset's cases
+ * differ only in their phantoms): a batch then runs every case in closed form, so that its cases share one T2′ model.
+ */
+export function t2primeClosedAnywhere(protocol: Protocol, phantoms: readonly Phantom[], iso: Partial<IsochromatOptions>): boolean {
+  const seq = buildSequenceOf(protocol, "protocol"), asked = { ...defaultIsochromatOptions(), ...iso, t2primeModel: "auto" as const };
+  return phantoms.some((ph) => t2primeModelFor(protocol, seq, ph, asked).closed.some(Boolean));
+}
+
 /** Parses and checks every input, builds each slice's sequence and samples its isochromats; throws UserError before any engine work. */
 export function prepareSimulation(input: SimulateInput): Prepared {
   const protocolName = input.protocolName ?? "protocol";

@@ -245,6 +245,18 @@ describe("T2′ model at a gradient echo's TE: closed form, spread and the warni
     expect(auto.warnings.some((x) => x.includes("T2′ spread of"))).toBe(false); // the spin echo's centre is refocused
   });
 
+  test("a batch of phantoms (a dataset's cases) shares one model: closed form where auto takes it for any of them", async () => {
+    const { t2primeClosedAnywhere } = await import("../src/api.js");
+    const { parseProtocolObject } = await import("../src/protocol/index.js");
+    const p = parseProtocolObject(protocolObject(over) as never, "p.json");
+    const ph = (star: number) => parsePhantom(phantomWith(star), "ph.json", 3);
+    const iso = { density: 2, sliceCount: 1, sliceExtent: 1, t2primeIsochromats: 16 };
+    expect(t2primeClosedAnywhere(p, [ph(t2), ph(t2star)], iso)).toBe(true); // the second needs it at TE 25 ms
+    expect(t2primeClosedAnywhere(p, [ph(t2), ph(t2)], iso)).toBe(false); // no T2′ at all
+    const shortTe = parseProtocolObject(protocolObject({ ...over, te: "3 ms" }) as never, "p.json");
+    expect(t2primeClosedAnywhere(shortTe, [ph(t2star)], iso)).toBe(false); // the spread is within 5 % there
+  });
+
   test("an unknown T2′ model is refused with the ones that work", async () => {
     await expect(centre(t2star, 16, "exact" as T2primeModel)).rejects.toThrow(/not a T2′ model; use one of auto, spread, closed-form/);
   });

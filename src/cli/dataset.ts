@@ -30,6 +30,7 @@ import { mergeDatasetParts, runBatch, sha256 } from "../io/dataset-folder.js";
 import { defaultWorkers } from "./memory.js";
 import { nodeExecutor } from "../engine/pool.js";
 import { nodePhaseHelper } from "../engine/fast-node.js";
+import { spreadSummary, t2primeClosedAnywhere } from "../api.js";
 
 export interface DatasetCliOptions {
   /** Engine worker threads (from the shared simulation options). */
@@ -376,7 +377,10 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   // the fast readout operator's helper thread (engine/fast-node.ts) starts now, as in simulate (pipeline.ts),
   // so that it is up when the first case's engine gets there
   if (o.readout !== "direct" && (o.workers ?? defaultWorkers()) >= 2 && protocol.matrix.read * protocol.matrix.phase >= 128 * 128) nodePhaseHelper();
-  const iso = isoOptions(o);
+  let iso = isoOptions(o);
+  // one T2′ model for the whole batch (every part of it decides alike: plan.phantoms holds every case): where "auto"
+  // takes the closed form for some case, every case takes it
+  if ((iso.t2primeModel ?? "auto") === "auto" && t2primeClosedAnywhere(protocol, plan.phantoms, iso)) iso = { ...iso, t2primeModel: "closed-form" };
   const axes = logicalAxes(protocol);
   const C = coilCount(array);
   const batchKey = sha256(JSON.stringify({
@@ -508,7 +512,11 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
       phantom: { name: plan.phantoms[i]!.name, perturbation: params.perturbation, vary: plan.vary, b0: plan.phantoms[i]!.b0Description },
       protocol: { ...protocol, units: "SI: s, m, T, T/m, T/m/s, Hz, rad" },
       sequence: { name: seq.name, timing: seq.timing },
-      isochromats: { count: set.count, density: iso.density, sliceCount: iso.sliceCount, sliceExtent: iso.sliceExtent, fatModel: iso.fatModel },
+      isochromats: {
+        count: set.count, density: iso.density, sliceCount: iso.sliceCount, sliceExtent: iso.sliceExtent, fatModel: iso.fatModel,
+        t2primeIsochromats: iso.t2primeIsochromats, t2primeModel: iso.t2primeModel ?? "auto", t2primeSpread: spreadSummary(set),
+        t2primeNote: "the batch's T2′ model: where auto would take the closed form R2* = R2 + R2′ for some case, every case takes it (one model for the batch)",
+      },
       tissues: {
         units: "pd relative to pure water; t1, t2, t2star in s (after this case's perturbation); fatFraction 0..1",
         note: "`source` says, for each library value, whether it was checked against the published source, recalled from memory, estimated by a rule or is a design value of our own",
