@@ -377,10 +377,10 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
   // the fast readout operator's helper thread (engine/fast-node.ts) starts now, as in simulate (pipeline.ts),
   // so that it is up when the first case's engine gets there
   if (o.readout !== "direct" && (o.workers ?? defaultWorkers()) >= 2 && protocol.matrix.read * protocol.matrix.phase >= 128 * 128) nodePhaseHelper();
-  let iso = isoOptions(o);
+  const asked = isoOptions(o);
   // one T2′ model for the whole batch (every part of it decides alike: plan.phantoms holds every case): where "auto"
   // takes the closed form for some case, every case takes it
-  if ((iso.t2primeModel ?? "auto") === "auto" && t2primeClosedAnywhere(protocol, plan.phantoms, iso)) iso = { ...iso, t2primeModel: "closed-form" };
+  const iso = (asked.t2primeModel ?? "auto") === "auto" && t2primeClosedAnywhere(protocol, plan.phantoms, asked) ? { ...asked, t2primeModel: "closed-form" as const } : asked;
   const axes = logicalAxes(protocol);
   const C = coilCount(array);
   const batchKey = sha256(JSON.stringify({
@@ -389,7 +389,8 @@ export async function runDataset(phantomFile: string, o: DatasetCliOptions): Pro
     readout: o.readout ?? "auto", tolerance: o.tolerance ?? null,
     ...(plan.reference ? { reference: plan.reference } : {}),
   }));
-  const physical = plan.reference ? await physicalNoise(phantomFile, plan.reference, o.snrReference!, plan.snr!, protocol, iso, o) : null;
+  // the reference scan is simulated as a run of its own would be (its own T2′ model), whatever this batch's protocol decides
+  const physical = plan.reference ? await physicalNoise(phantomFile, plan.reference, o.snrReference!, plan.snr!, protocol, asked, o) : null;
   const files: Record<string, string> = {
     "kspace.npy": "complex64 [coil, slice, phase, read]: k-space on the image grid (read oversampling removed), noise added, zero where mask.npy is 0",
     "mask.npy": "uint8 [slice, phase]: 1 where the whole readout line was sampled",
