@@ -6,7 +6,7 @@
  * the check's sampling-window model predicts; and, for `isofold validate` and
  * the tests alike, Bessel J1 and the phase-correlation shift along phase.
  */
-import { fatShiftInput, predictOffResonanceShift, truthMaps, type TruthGrid } from "../analysis/index.js";
+import { brentMinimum, fatShiftInput, predictOffResonanceShift, truthMaps, type TruthGrid } from "../analysis/index.js";
 import { FAT_PEAKS_AMPLITUDE, FAT_PEAKS_PPM, FAT_SINGLE_PPM, GAMMA_BAR } from "../constants.js";
 import type { FatModel, Phantom, Tissue } from "../phantom/index.js";
 import type { Protocol } from "../protocol/index.js";
@@ -341,7 +341,7 @@ function solveComplex(gr: Float64Array, gi: Float64Array, hr: Float64Array, hi: 
   return [xr, xi];
 }
 
-/** Inverse of the Hermitian m × m matrix (gr, gi) by Gauss–Jordan elimination, a small ridge added to the diagonal. */
+/** Inverse of the Hermitian m × m matrix (gr, gi): one solveComplex per column of the identity (each with its small ridge). */
 function invertComplex(gr: Float64Array, gi: Float64Array, m: number): [Float64Array, Float64Array] {
   const ir = new Float64Array(m * m), ii = new Float64Array(m * m);
   for (let col = 0; col < m; col++) {
@@ -378,9 +378,9 @@ export interface ReadDisplacementOptions {
  * squares: each read line of the complex image is fitted as e^{iβ(x − c)}·Σ_j a_j·P_j(x − s), P_j a part's
  * truth map with its spectral lines (water: one line at 0; fat: its peaks at their chemical shifts,
  * amplitudes and phases), each part with its own complex amplitude a_j (linear, solved for every s and β),
- * all with one shift s (a grid of 0.25 px over `range`, then golden-section search to 0.001 px) and one
+ * all with one shift s (a grid of 0.25 px over `range`, then Brent's minimization (brentMinimum) to 0.001 px) and one
  * phase ramp β (the phase an off-resonance gradient along read gathers by the echo: every ramp of the
- * zero-padded Fourier transform within ±maxRamp, then golden-section search). A part's template is moved
+ * zero-padded Fourier transform within ±maxRamp, then Brent's minimization). A part's template is moved
  * in k-space (Fourier shift theorem: f(x − s) ↔ F(k)·e^{−i2πks}), so moving it by a fraction of a pixel
  * does not blur it. Water and fat touching each other, and their cancellation where they share a pixel
  * out of phase, are modelled rather than taken as displacement. With `stretchPerRamp` a line's shift is
@@ -413,14 +413,6 @@ export function fitReadDisplacement(
   let sumW = 0, sumWS = 0, resAll = 0, energyAll = 0, fitted = 0;
   const yr = new Float64Array(nR), yi = new Float64Array(nR), pc = new Float64Array(nW), ps = new Float64Array(nW);
   const rc = new Float64Array(nR), rs = new Float64Array(nR);
-  const g = (Math.sqrt(5) - 1) / 2;
-  const golden = (lo: number, hi: number, tol: number, f: (x: number) => number): number => {
-    let a = lo, b = hi, x1 = b - g * (b - a), x2 = a + g * (b - a), f1 = f(x1), f2 = f(x2);
-    while (b - a > tol) {
-      if (f1 < f2) { b = x2; x2 = x1; f2 = f1; x1 = b - g * (b - a); f1 = f(x1); } else { a = x1; x1 = x2; f1 = f2; x2 = a + g * (b - a); f2 = f(x2); }
-    }
-    return (a + b) / 2;
-  };
   for (let r = 0; r < nP; r++) {
     let w = 0;
     for (let x = 0; x < nR; x++) if (signal[r * nR + x]! > 0) w++;
@@ -514,13 +506,13 @@ export function fitReadDisplacement(
       }
       const step = (2 * Math.PI) / L;
       if (!refine) { lastRamp = qBest * step; return energy - fBest; }
-      lastRamp = golden((qBest - 1) * step, (qBest + 1) * step, step / 64, atRamp);
+      lastRamp = brentMinimum(atRamp, (qBest - 1) * step, (qBest + 1) * step, step / 64);
       return energy + atRamp(lastRamp);
     };
     // the grid with the ramps of the padded transform alone, then refined
     let sBest = range[0], cBest = Infinity;
     for (let s = range[0]; s <= range[1] + 1e-9; s += STEP) { const v = cost(s, false); if (v < cBest) { cBest = v; sBest = s; } }
-    let s = golden(sBest - STEP, sBest + STEP, 1e-3, cost);
+    let s = brentMinimum((v) => cost(v), sBest - STEP, sBest + STEP, 1e-3);
     const res = Math.max(0, cost(s));
     if (opts.stretchPerRamp !== undefined && lastRamp !== 0) {
       // a stretched line: the fit's shift is its displacement where the model's slope lies, weighted by

@@ -35,6 +35,11 @@ function checkHtmlTarget(file: string): string {
   return abs;
 }
 
+/** The check's warnings and --verify's, each once. */
+function checkWarnings(result: CheckResult, verify: VerifyResult | null): string[] {
+  return [...new Set([...result.warnings, ...(verify?.warnings ?? [])])];
+}
+
 /** The check as one self-contained page (same renderer as a run's report.html), written atomically. */
 export function checkPage(result: CheckResult, phantomFile: string, verify: VerifyResult | null): ReportPage {
   const tables: ReportPage["tables"] = [];
@@ -50,7 +55,7 @@ export function checkPage(result: CheckResult, phantomFile: string, verify: Veri
     subtitle: `Closed-form answers, no simulation${verify ? " (with --verify: a simulation measured the same quantities)" : ""}. Read ${result.axes.read}, phase ${result.axes.phase}, slice ${result.axes.slice}; ROI: ${result.roi}.`,
     safety: result.safety,
     checks: result.items.map((it) => ({ key: it.key, label: it.label, value: it.value, unit: it.unit, verdict: it.verdict, threshold: it.threshold.text, reason: it.reason })),
-    comparisons: [], tables, images: [], plots: [], warnings: [...new Set([...result.warnings, ...(verify?.warnings ?? [])])], displayNote: "",
+    comparisons: [], tables, images: [], plots: [], warnings: checkWarnings(result, verify), displayNote: "",
     footer: "Made by isofold check. Self-contained page: nothing is fetched.",
   };
 }
@@ -123,7 +128,7 @@ export function registerCheck(program: Command): void {
       const htmlFile = o.html !== undefined ? checkHtmlTarget(o.html) : null;
       const { result } = runCheck(phantomFile, o);
       const verify = o.verify ? await verifyCheck(phantomFile, o, result) : null;
-      const warnings = [...new Set([...result.warnings, ...(verify?.warnings ?? [])])];
+      const warnings = checkWarnings(result, verify);
       if (htmlFile) {
         const tmp = `${htmlFile}.${process.pid}.tmp`;
         writeFileSync(tmp, renderReportHtml(checkPage(result, phantomFile, verify)));

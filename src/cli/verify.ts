@@ -149,7 +149,7 @@ export async function verifyCheck(
   let dfSum = 0, nSig = 0;
   for (let i = 0; i < nR * nP; i++) if (truth.pd[i]! > 0) { dfSum += truth.df[i]!; nSig++; }
   const predMean = predictOffResonanceShift(fatIn, nSig ? dfSum / nSig : 0).readout.px;
-  if (p.sequence === "epi") {
+  if (seq.quantities.effectiveEchoSpacing !== undefined) {
     // B0 and the fat shift move an EPI image along phase by many pixels (Δf·N·ESP): read lines no longer hold what the truth's rows hold
     rows.push(row("mean displacement along read (B0)", predMean, null,
       "not measured in EPI: B0 and the fat shift also move the image along phase (see distortion along phase), which a fit along read lines cannot follow; predicted at the mean Δf over the phantom's pixels in the simulated plane"));
