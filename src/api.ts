@@ -12,12 +12,13 @@ import { parseProtocol, logicalAxes, slicePositions, type Protocol, type Protoco
 import { parsePhantom, type Phantom, type RealArray } from "./phantom/index.js";
 import { buildSequence, sequenceDefinition, sliceStepCentre, type Sequence } from "./sequence/index.js";
 import { expandCells, sampleCells, defaultIsochromatOptions, spreadWarnings, autoClosedForm, r2prime, T2PRIME_MODELS, type IsochromatCells, type IsoGeometry, type IsochromatOptions, type IsochromatSet, type SampledExtent } from "./isochromats/index.js";
-import { BLOCK_CHUNKS, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
+import { BLOCK_CHUNKS, MAX_CLASS_LINES, serialExecutor, simulateCells, simulateWith, type EnginePlan, type Executor, type KSpace, type ReadoutChoice, type ReadoutReport } from "./engine/index.js";
 import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/reconstruct.js";
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
 import { isoOptionsFor, nonSelectiveRemark, sampledLimits, slabCoverage, type IsoSampling } from "./sampling.js";
 import { checkSliceConvergence } from "./engine/index.js";
+import { FAT_PEAKS_PPM } from "./constants.js";
 import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
 import type { Volume } from "./io/run-folder.js";
@@ -324,7 +325,38 @@ function t2primeModelFor(protocol: Protocol, seq: Sequence, phantom: Phantom, is
   if (model === "spread") return { ...none, warnings: spreadWarnings(phantom.tissues, n, iso.density * iso.density, ts, true) };
   if (model === "closed-form") return { ...none, closed: phantom.tissues.map((t) => r2prime(t.t2, t.t2star) > 0) };
   const a = autoClosedForm(phantom.tissues, n, ts);
+  const lines = spreadLineFactor(protocol, seq, phantom, iso, n, a.closed);
+  if (lines !== null) {
+    // the spread would keep the fast operator from running (3D: through-slab positions × the spread); the closed form is exact here
+    return {
+      ...none, closed: phantom.tissues.map((t) => r2prime(t.t2, t.t2star) > 0),
+      notes: [
+        `T2′ in closed form for every tissue, R2* = R2 + R2′ (the Lorentzian spread's exact average in an ideally spoiled gradient echo): ` +
+          `the spread of ${n} would make up to ${lines.toLocaleString("en")} RF classes × readouts, beyond the fast operator's ${MAX_CLASS_LINES.toLocaleString("en")}; --t2prime-model spread keeps the spread`,
+      ],
+    };
+  }
   return { ...none, closed: a.closed, notes: a.note ? [a.note] : [] };
+}
+
+/**
+ * An upper bound on the RF classes × readouts of the fast operator's line factor with the T2′ spread of `n` on the
+ * tissues not in `closed` (through-slice or through-slab positions × each tissue's spectral components (water, fat
+ * peaks) × its spread), where it exceeds MAX_CLASS_LINES; else null.
+ */
+function spreadLineFactor(protocol: Protocol, seq: Sequence, phantom: Phantom, iso: IsochromatOptions, n: number, closed: readonly boolean[]): number | null {
+  if (n <= 1) return null;
+  const slab = sequenceDefinition(protocol.sequence).threeD ? slabCoverage(protocol, seq, phantom) : null;
+  const through = isoOptionsFor(protocol, iso, seq, slab?.steps).sliceCount;
+  let components = 0;
+  phantom.tissues.forEach((t, i) => {
+    const peaks = (t.fatFraction < 1 ? 1 : 0) + (t.fatFraction > 0 ? ((t.fatModel ?? iso.fatModel) === "single" ? 1 : FAT_PEAKS_PPM.length) : 0);
+    components += peaks * (closed[i] || !(r2prime(t.t2, t.t2star) > 0) ? 1 : n);
+  });
+  let readouts = 0;
+  for (const b of seq.blocks) if (b.kind === "adc") readouts++;
+  const lines = through * components * readouts;
+  return lines > MAX_CLASS_LINES ? lines : null;
 }
 
 /** Isochromat summary for the report. */

@@ -79,8 +79,10 @@ export interface ReadoutReport {
   split?: number;
   /** Time segments L. */
   segments?: number;
-  /** Rank of the line factor R. */
+  /** Rank of the line factor R (the largest of the groups' with lineGroups). */
   lineRank?: number;
+  /** 3D: the operator ran once per slice-encoding step, on that step's lines (the line factor is of low rank within one). */
+  lineGroups?: number;
   /** (rank, segment, coil) grids transformed and skipped as below the tolerance (with the sum of the skipped ones' bounds). */
   pairs?: { transformed: number; skipped: number; skippedBound: number };
   /** DFT lengths of the folded grid [phase, read]. */
@@ -407,7 +409,7 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
   }
   const nAdc = plan.ops.filter((o) => o.kind === "adc").length;
   if (nAdc !== adcBlocks.length) return "internal: readouts of the plan and the sequence differ";
-  if (C * nAdc > MAX_CLASS_LINES) return `${C.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
+  if (C * nAdc > MAX_CLASS_LINES) return `${C.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (many RF classes: through-slice or through-slab positions × spectral components × the T2′ spread, or a B0 model)`;
   const { classIw, mass } = info;
   const { classDf, classR1, classR2 } = plan.rf;
   const D: Float64Array[] = [], E1: Float64Array[] = [];
@@ -585,7 +587,7 @@ export function fastPrecheck(plan: EnginePlan): string | null {
   if (!plan.spoiledFast) return "not an ideally spoiled sequence (two or more pulses between ideal spoils): the fast operator covers ideally spoiled Cartesian readouts so far";
   let nAdc = 0;
   for (const o of plan.ops) if (o.kind === "adc") nAdc++;
-  if (plan.classes * nAdc > MAX_CLASS_LINES) return `${plan.classes.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (B0 varying per isochromat)`;
+  if (plan.classes * nAdc > MAX_CLASS_LINES) return `${plan.classes.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (many RF classes: through-slice or through-slab positions × spectral components × the T2′ spread, or a B0 model)`;
   return null;
 }
 
@@ -620,11 +622,110 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   if (pre) return pre;
   const h = classHistory(seq, plan, src.kind === "iso" ? isoClassInfo(plan, src.iso) : src.stream.classInfo());
   if (typeof h === "string") return h;
+  const whole = fastLines(seq, plan, src, h, null, tolerance, split, allowHelper);
+  if (whole !== LINE_RANK_FAILED) return whole;
+  // 3D: each slab position's excitation state carries its slice-encoding phase exp(−i2π kz·z), so the line
+  // factor's rank across the lines is about the number of slice-encoding steps. Within one step it is the
+  // low rank of the transient alone: the operator runs per step (each on that step's lines, rows disjoint).
+  const groups = sliceEncodingGroups(h);
+  if (groups === null) return whole;
+  return fastPerGroup(groups, split, tolerance, (keep, s) => fastLines(seq, plan, src, h, keep, tolerance, s, allowHelper));
+}
+
+/** fastLines' answer where the line factor's rank exceeds MAX_RANK. */
+const LINE_RANK_FAILED = `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
+
+/**
+ * The active readouts grouped by their slice-encoding moment kz = γ̄·∫G_slice (one group per slice-encoding
+ * step, as a 0/1 mask over the readouts), or null where all share one kz.
+ */
+function sliceEncodingGroups(h: { adcs: History["adcs"] }): Uint8Array[] | null {
+  const byKz = new Map<number, Uint8Array>();
+  h.adcs.forEach((a, n) => {
+    if (!a.active) return;
+    // kz in cycles/m rounded to 1e-6 (a slab's step is of order 10 cycles/m)
+    const key = Math.round(GAMMA_BAR * a.area[2] * 1e6);
+    let m = byKz.get(key);
+    if (!m) byKz.set(key, (m = new Uint8Array(h.adcs.length)));
+    m[n] = 1;
+  });
+  if (byKz.size < 2) return null;
+  return [...byKz.keys()].sort((a, b) => a - b).map((k) => byKz.get(k)!);
+}
+
+/**
+ * The fast operator run once per group of readouts (`run(mask, split)`), the results added (each group fills rows
+ * of its own) and reported together: the largest rank, segment count and split, the pairs summed, and the estimate
+ * as the groups' errors added in quadrature relative to the whole k-space (each group's relative estimate × its
+ * k-space's norm). While that is over the tolerance, the group of the largest error is run again with its factors
+ * truncated 10 times tighter (up to 100 times): a group of little signal (an outer slice-encoding step) may keep a
+ * larger relative error, as its share of the whole is small.
+ */
+function fastPerGroup(groups: Uint8Array[], split: number, tolerance: number, run: (keep: Uint8Array, split: number) => FastResult | string): FastResult | string {
+  const res: FastResult[] = [], n2: number[] = [], at: number[] = [];
+  const err2 = (g: number) => (res[g]!.report.estimate?.relL2 ?? 0) ** 2 * n2[g]!;
+  const once = (g: number, s: number): string | null => {
+    const r = run(groups[g]!, s);
+    if (typeof r === "string") return `per slice-encoding step: ${r}`;
+    let m = 0;
+    for (let k = 0; k < r.re.length; k++) m += r.re[k]! * r.re[k]! + r.im[k]! * r.im[k]!;
+    res[g] = r;
+    n2[g] = m;
+    at[g] = s;
+    return null;
+  };
+  for (let g = 0; g < groups.length; g++) {
+    const e = once(g, split);
+    if (e) return e;
+  }
+  const norm2 = n2.reduce((a, b) => a + b, 0);
+  for (;;) {
+    let worst = -1, e2 = 0;
+    for (let g = 0; g < groups.length; g++) {
+      e2 += err2(g);
+      if (at[g]! < 100 * split && (worst < 0 || err2(g) > err2(worst))) worst = g;
+    }
+    if (e2 <= tolerance * tolerance * norm2 || worst < 0) break;
+    const e = once(worst, 10 * at[worst]!);
+    if (e) return e;
+  }
+  // the groups' k-spaces added in group order (rows disjoint: every sum is one group's value + zeros)
+  const re = new Float64Array(res[0]!.re.length), im = new Float64Array(re.length);
+  let samples = 0, segments = 0, rank = 0, splitMax = 0, transformed = 0, skipped = 0, skippedBound = 0, e2 = 0;
+  res.forEach((r, g) => {
+    for (let k = 0; k < re.length; k++) {
+      re[k] = re[k]! + r.re[k]!;
+      im[k] = im[k]! + r.im[k]!;
+    }
+    e2 += err2(g);
+    samples += r.report.estimate?.samples ?? 0;
+    segments = Math.max(segments, r.report.segments ?? 0);
+    rank = Math.max(rank, r.report.lineRank ?? 0);
+    splitMax = Math.max(splitMax, r.report.split ?? 0);
+    transformed += r.report.pairs?.transformed ?? 0;
+    skipped += r.report.pairs?.skipped ?? 0;
+    skippedBound += r.report.pairs?.skippedBound ?? 0;
+  });
+  const first = res[0]!.report;
+  const report: ReadoutReport = {
+    ...first,
+    method: `${first.method}, per slice-encoding step (${groups.length} steps: the line factor is of low rank within a step)`,
+    segments, lineRank: rank, lineGroups: groups.length, split: splitMax,
+    ...(first.pairs ? { pairs: { transformed, skipped, skippedBound } } : {}),
+    estimate: { samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(e2 / norm2) : 0 },
+  };
+  return { re, im, report };
+}
+
+/** The fast operator on the readouts of `keep` (all active ones for null), given the classes' history. */
+function fastLines(
+  seq: Sequence, plan: EnginePlan, src: FastSource, h: History, keep: Uint8Array | null, tolerance: number, split: number, allowHelper: boolean,
+): FastResult | string {
   const { adcs, P, classIw, mass } = h;
   const C = plan.classes, coils = plan.coils, sens = plan.sens;
   // written out, not spread: a spread's copy takes its shape from the source objects, and a shape that
   // changes between runs throws away this function's compiled code (a second or more of compiling for V8)
-  const act = adcs.map((a, n) => ({ op: a.op, area: a.area, step: a.step, dwell: a.dwell, active: a.active, n })).filter((a) => a.active);
+  const act = adcs.map((a, n) => ({ op: a.op, area: a.area, step: a.step, dwell: a.dwell, active: a.active, n })).filter((a) => a.active && (keep === null || keep[a.n] === 1));
   const re = new Float64Array(coils * plan.rows * plan.read), im = new Float64Array(re.length);
   const base: ReadoutReport = { operator: "fast", requested: "fast", tolerance, method: "", kernelWidth: null };
   if (act.length === 0) return { re, im, report: { ...base, method: "no readout sees transverse magnetization", segments: 0, lineRank: 0, estimate: { samples: 0, seed: ESTIMATE_SEED, relL2: 0 } } };
@@ -685,7 +786,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   const y = scratchF64("y", 2 * NA * C);
   lineValues(P, act.map((a) => a.n), C, mass, y);
   const A = pivotedBasis(y, NA, C, tolLine, MAX_RANK, plan.wasm);
-  if (!A) return `the magnetization differs too much between lines (line rank above ${MAX_RANK}, e.g. 3D encoding in the excitation): not covered by the fast operator yet`;
+  if (!A) return LINE_RANK_FAILED;
   const G = projectLines(A, P, act.map((a) => a.n), C, plan.wasm); // G[c·R + r]
   const R = A.length;
   // --- time factor over distinct (R2, Δf)

@@ -24,7 +24,7 @@ export { runChunk, runChunkGeneral, runChunkSpoiled, ChunkScratch, GeneralScratc
 export * from "./kernels.js";
 export { CellStream } from "./fast-stream.js";
 export { chooseFold, fitShape, foldFinish, partialLength, FOLD_MAX_SEGMENTS, FOLD_SPLIT, FOLD_ESTIMATE_LINES, FOLD_MAX_PARTIAL_BYTES, type FoldSpec, type FoldShape } from "./fold.js";
-export { fastReadout, fastReadoutFrom, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
+export { fastReadout, fastReadoutFrom, pivotedBasis, predictReadoutCosts, resolveReadout, DEFAULT_TOLERANCE, MAX_CLASS_LINES, ESTIMATE_SAMPLES, ESTIMATE_SEED, type ReadoutChoice, type ReadoutOperator, type ReadoutCosts, type ReadoutReport, type FastResult } from "./fast.js";
 
 export interface SimulateOptions {
   receiverFilter: boolean;
