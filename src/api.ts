@@ -115,7 +115,13 @@ export interface SimulateInput {
    * isochromat stored); and again with `stored` true before the isochromats are
    * made one by one, where they are (the direct operator, a B0 model with more RF classes than the fast operator holds, coils).
    */
-  beforeIsochromats?: (e: { phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence; stored: boolean }) => void;
+  beforeIsochromats?: (e: {
+    phantom: Phantom; geo: IsoGeometry; fieldT: number; iso: IsochromatOptions; seq: Sequence; stored: boolean;
+    /** The options asked for (before the through-slice count is raised and T2′ decided). */
+    asked: IsochromatOptions;
+    /** The options this run would sample with had `change` been asked for (raised and decided as here): for a check's suggestions. */
+    isoFor: (change: Partial<IsochromatOptions>) => IsochromatOptions;
+  }) => void;
   /** Use iso.sliceCount as given, without raising it for the coherence pathways (studies of a coarse grid; default false). */
   exactSliceCount?: boolean;
   /** Run the a-posteriori through-slice convergence check on one probe column (default true). */
@@ -218,6 +224,10 @@ export function prepareSimulation(input: SimulateInput): Prepared {
   const chosen = isoOptionsFor(protocol, asked, seq0, slab?.steps);
   const t2prime = t2primeModelFor(protocol, seq0, phantom, asked);
   const isoOpts = { ...(input.exactSliceCount ? { ...chosen, sliceCount: asked.sliceCount, sliceExtent: asked.sliceExtent } : chosen), offsetHz: protocol.shim, t2primeClosed: t2prime.closed };
+  const isoFor = (change: Partial<IsochromatOptions>): IsochromatOptions => {
+    const a = { ...asked, ...change }, c = isoOptionsFor(protocol, a, seq0, slab?.steps);
+    return { ...(input.exactSliceCount ? { ...c, sliceCount: a.sliceCount, sliceExtent: a.sliceExtent } : c), offsetHz: protocol.shim, t2primeClosed: t2primeModelFor(protocol, seq0, phantom, a).closed };
+  };
   const sampling: IsoSampling = {
     sliceCount: isoOpts.sliceCount, sliceExtent: isoOpts.sliceExtent, pathwayMoment: isoOpts.pathwayMoment, pathwayOrder: isoOpts.pathwayOrder,
     notes: [], convergence: null,
@@ -251,7 +261,7 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     // the cells alone (streamed fast operator) where no per-isochromat coil run asks for stored isochromats
     // (a B0 model streams too: its classes are hashed from the cells, engine/fast-stream.ts)
     const mayStream = input.readout !== "direct" && !input.runEngine;
-    const check = (stored: boolean) => input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq, stored });
+    const check = (stored: boolean) => input.beforeIsochromats?.({ phantom, geo, fieldT: protocol.field, iso: isoOpts, seq, stored, asked, isoFor });
     if (slices.length === 0) check(!mayStream);
     const iso = (input.sampleCells ?? sampleCells)(phantom, geo, protocol.field, isoOpts);
     if (iso.count === 0 && ms.positions.length === 1) {

@@ -86,6 +86,30 @@ describe("memory estimate of the streamed fast operator", () => {
     expect(() => prepare({ ...base, readout: "direct", maxMemory: limit })).toThrow(/--max-memory: .*isochromats × 160 B/);
   }, 60_000);
 
+  test("a refusal suggests only options that fit: each suggestion, run with the same limit, passes the check (a spin echo, whose through-slice count is raised for its crushers)", () => {
+    const o = { ...base, protocol: "se-t2-1.5t", sets: ["matrix.read=64", "matrix.phase=64"], iso: { ...base.iso, density: 2 }, readout: "direct" as const };
+    const probe = prepare({ ...o, maxMemory: 2 ** 50 });
+    // the run raised the through-slice count above the 12 asked (its coherence pathways): fewer asked are raised again
+    expect(probe.cells.wGrid.length).toBeGreaterThan(12);
+    const geo = isoGeometry(probe.protocol, probe.slices[0]!.position);
+    const full = estimateMemory(probe.phantom, geo, probe.protocol.field, { ...o.iso, sliceCount: probe.cells.wGrid.length }, probe.seq, 1, 1, false).bytes;
+    const maxMemory = 0.45 * full;
+    let message = "";
+    try {
+      prepare({ ...o, maxMemory });
+    } catch (e) {
+      message = (e as Error).message;
+    }
+    expect(message).toMatch(/--max-memory: .* try /);
+    const flags = { "--density": "density", "--t2prime-isochromats": "t2primeIsochromats", "--slice-isochromats": "sliceCount" } as const;
+    const suggested = [...message.matchAll(/(--[a-z0-9-]+) (\d+)/g)].filter((m) => m[1]! in flags);
+    expect(suggested.length).toBeGreaterThan(0);
+    for (const m of suggested) {
+      const key = flags[m[1] as keyof typeof flags];
+      expect(() => prepare({ ...o, iso: { ...o.iso, [key]: Number(m[2]) }, maxMemory }), `${m[1]} ${m[2]}`).not.toThrow();
+    }
+  }, 60_000);
+
   test("a B0 model streams: the estimate covers the class ids and classes the stream made, fewer bytes than the stored path's arrays, and the run streams within its estimate", async () => {
     const dir = mkdtempSync(join(tmp, "b0-"));
     const j = JSON.parse(readFileSync("phantoms/two-bottle.json", "utf8")) as Record<string, unknown>;

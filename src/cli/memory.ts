@@ -7,7 +7,7 @@ import { MAX_CLASS_LINES } from "../engine/fast.js";
 import { MAX_STREAM_CLASSES } from "../engine/fast-stream.js";
 import { availableParallelism, totalmem } from "node:os";
 import { UserError } from "../errors.js";
-import { sampleCells, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
+import { r2prime, sampleCells, type IsoGeometry, type IsochromatOptions } from "../isochromats/index.js";
 import type { Phantom } from "../phantom/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { chunkIsochromatsFromEnv } from "./options.js";
@@ -74,7 +74,9 @@ function estimateSampling(ph: Phantom, geo: IsoGeometry, fieldT: number, iso: Is
   const coarse = sampleCells(ph, { ...geo, dx: geo.dx * f, dy: geo.dy * f }, fieldT, { ...iso, density: 1, sliceCount: sc, t2primeIsochromats: 1 });
   // a voxel's T2′ spread of n values is shared among its density² columns in pairs where
   // n/2 is a whole multiple of density² (isochromats/spread.ts spreadAssignment); else every column carries all n
-  const n = iso.t2primeIsochromats ?? 1, d2 = iso.density * iso.density, pairs = n >> 1;
+  // tissues with T2′ in closed form (or none) carry no spread
+  const spreading = ph.tissues.some((t, i) => iso.t2primeClosed?.[i] !== true && r2prime(t.t2, t.t2star) > 0);
+  const n = spreading ? iso.t2primeIsochromats ?? 1 : 1, d2 = iso.density * iso.density, pairs = n >> 1;
   const spread = n % 2 === 0 && d2 > 1 && pairs >= d2 && pairs % d2 === 0 ? n / d2 : n;
   const inPlane = (f * iso.density) ** 2;
   const columns = Math.ceil(coarse.columns * inPlane);
@@ -118,24 +120,52 @@ function gib(b: number): string {
   return b < 0.1 * 2 ** 30 ? `${(b / 2 ** 20).toFixed(1)} MiB` : `${(b / 2 ** 30).toFixed(1)} GiB`;
 }
 
-/** Throws a UserError with the estimate and what would fit when the estimate exceeds `limit` bytes. */
-export function checkMemory(e: MemoryEstimate, limit: number, iso: IsochromatOptions): void {
+/**
+ * Throws a UserError with the estimate and what would fit when the estimate exceeds `limit` bytes. `asked`: the
+ * isochromat options as asked for; `at(change)`: the estimate had `change` been asked for (the through-slice count
+ * raised and T2′ decided as for this run), so that every option suggested is one that fits.
+ */
+export function checkMemory(e: MemoryEstimate, limit: number, asked: IsochromatOptions, at?: (change: Partial<IsochromatOptions>) => MemoryEstimate): void {
   if (e.bytes <= limit) return;
   const room = limit - e.kspaceBytes - e.workerBytes;
   const fit = Math.max(0, Math.floor(room / (e.isochromatBytes / Math.max(1, e.isochromats))));
-  const r = fit / Math.max(1, e.isochromats);
   const ways: string[] = [];
-  const d = Math.floor(iso.density * Math.sqrt(r));
-  if (d >= 1 && d < iso.density) ways.push(`--density ${d}`);
-  const s = Math.floor(iso.sliceCount * r);
-  if (s >= 1 && s < iso.sliceCount) ways.push(`--slice-isochromats ${s}`);
+  if (at) {
+    // the first value of each option, from the least change down, whose own estimate fits
+    const first = (flag: string, key: "density" | "sliceCount" | "t2primeIsochromats", values: number[]) => {
+      for (const v of values) {
+        if (at({ [key]: v }).bytes <= limit) {
+          ways.push(`${flag} ${v}`);
+          return;
+        }
+      }
+    };
+    first("--density", "density", Array.from({ length: asked.density - 1 }, (_, k) => asked.density - 1 - k));
+    const n = asked.t2primeIsochromats ?? 1;
+    const halves: number[] = [];
+    for (let v = Math.floor(n / 2); v >= 1; v = Math.floor(v / 2)) halves.push(v);
+    first("--t2prime-isochromats", "t2primeIsochromats", halves);
+    const s = asked.sliceCount, fewer: number[] = [];
+    for (let v = Math.floor((s * 3) / 4); v >= 1 && fewer.length < 8; v = Math.floor((v * 3) / 4)) fewer.push(v);
+    first("--slice-isochromats", "sliceCount", fewer);
+  } else {
+    const r = fit / Math.max(1, e.isochromats);
+    const d = Math.floor(asked.density * Math.sqrt(r));
+    if (d >= 1 && d < asked.density) ways.push(`--density ${d}`);
+    const s = Math.floor(asked.sliceCount * r);
+    if (s >= 1 && s < asked.sliceCount) ways.push(`--slice-isochromats ${s}`);
+  }
   const cm = (r: [number, number]) => `${(r[0] * 100).toFixed(1)} … ${(r[1] * 100).toFixed(1)} cm`;
   const span = e.extent ? ` over read ${cm(e.extent.read)} and phase ${cm(e.extent.phase)} (every shape's whole extent, so tissue outside the FOV wraps)` : "";
-  const how = ways.length > 0 ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}` : "; lower --density, --slice-isochromats or the matrix";
+  const how = ways.length > 0
+    ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}`
+    : at
+      ? `; about ${fit.toLocaleString("en")} would fit, and no lower --density, --t2prime-isochromats or --slice-isochromats alone gets there: lower the matrix, or run with a larger --max-memory on a machine with more memory`
+      : "; lower --density, --slice-isochromats or the matrix";
   if (e.streamed) {
     throw new UserError(
       `--max-memory: the run needs an estimated ${gib(e.bytes)} (fast operator streamed from the sampled cells, none of the ${e.isochromats.toLocaleString("en")} isochromats stored: cells and grids ${gib(e.isochromatBytes)}${span}, ` +
-        `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}; lower the matrix or --density`,
+        `k-space ${gib(e.kspaceBytes)}, workers ${gib(e.workerBytes)}), over the limit of ${gib(limit)}${ways.length > 0 ? `; try ${ways.join(" or ")}` : "; lower the matrix or --density"}`,
     );
   }
   throw new UserError(

@@ -123,7 +123,10 @@ export function libraryInput(o: RunOptions): SimulateInput {
     readout: o.readout, tolerance: o.tolerance,
     ...(o.coilRun ? { runEngine: o.coilRun } : {}),
     chunkIsochromats: chunkIsochromatsFromEnv(), wasm: wasmFromEnv(),
-    beforeIsochromats: (e) => checkMemory(estimateMemory(e.phantom, e.geo, e.fieldT, e.iso, e.seq, workers, o.memoryCoils ?? 1, !e.stored), o.maxMemory ?? defaultMemoryLimit(), e.iso),
+    beforeIsochromats: (e) => {
+      const at = (iso: IsochromatOptions) => estimateMemory(e.phantom, e.geo, e.fieldT, iso, e.seq, workers, o.memoryCoils ?? 1, !e.stored);
+      checkMemory(at(e.iso), o.maxMemory ?? defaultMemoryLimit(), e.asked, (change) => at(e.isoFor(change)));
+    },
     inputs: { phantom: resolve(o.phantom), protocol: o.protocol, set: o.sets },
     version: version(),
   };
