@@ -75,11 +75,17 @@ function check(name: string, p: P, extra: Partial<SimulateOptions> = {}) {
   const est = r.fast.readout.estimate?.relL2 ?? NaN;
   if (process.env.ISOFOLD_PRINT_FOLD) console.log(`FOLD ${name}: L=${r.fast.readout.segments} true=${r.err.toExponential(2)} estimate=${est.toExponential(2)}`);
   expect(r.fast.readout.operator).toBe("fast");
-  expect(r.fast.readout.method).toMatch(/time-segmented fold/);
+  // sequences whose state at every pulse is per RF class (spin echoes with no in-plane moment at the refocusing
+  // pulse, balanced ones: plan.classState) take the class operator (low-rank line factor); the others the fold
+  expect(r.fast.readout.method).toMatch(r.fast.plan.classState ? /time-segmented fold|low-rank line factor/ : /time-segmented fold/);
   expect(r.fast.readout.segments).toBeGreaterThanOrEqual(1);
   expect(r.direct.readout.operator).toBe("direct");
   expect(r.direct.kspace.re.some((x) => x !== 0)).toBe(true);
   expect(r.err).toBeLessThanOrEqual(TOL);
+  // the oracle that shares nothing with the class playback: every op on every isochromat (general: true)
+  const general = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, ...extra, general: true });
+  expect(relL2(r.fast.kspace, general.kspace)).toBeLessThanOrEqual(TOL);
+  expect(relL2(r.direct.kspace, general.kspace)).toBeLessThanOrEqual(1e-10);
   // the a-posteriori estimate (direct lines inside the run) is not far below the true error
   expect(est * ESTIMATE_FACTOR).toBeGreaterThanOrEqual(r.err);
   return r;
@@ -184,7 +190,7 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
   });
 
   test("bits: serial, 1 and 2 worker threads give the same fold k-space", async () => {
-    const p = prep("se-t2-1.5t", ["matrix.read=16", "matrix.phase=16"], { t2primeIsochromats: 4 }, phantomWithB0(10));
+    const p = prep("rare-t2-1.5t", ["matrix.read=16", "matrix.phase=16", "echoTrainLength=4", "te=40 ms"], { t2primeIsochromats: 4 }, phantomWithB0(10));
     const o = { receiverFilter: p.protocol.receiverFilter, readout: "fast" as const, chunkIsochromats: 512 };
     const serial = simulateSerial(p.seq, p.iso, o);
     expect(serial.readout.method).toMatch(/time-segmented fold/);
@@ -198,7 +204,7 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
   }, 60_000);
 
   test("sharded runs (blocks) keep the direct operator and say why", () => {
-    const p = prep("se-t2-1.5t", ["matrix.read=16", "matrix.phase=16"], {}, phantomWithB0(10));
+    const p = prep("rare-t2-1.5t", ["matrix.read=16", "matrix.phase=16", "echoTrainLength=4", "te=40 ms"], {}, phantomWithB0(10));
     const r = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast", blocks: [0, 1] });
     expect(r.readout.operator).toBe("direct");
     expect(r.readout.fallback).toMatch(/sharded/);
@@ -206,8 +212,8 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
 
   test("bits: the Web Worker executor (in-process stand-ins, 1 and 2 workers) gives the serial fold k-space; the report says fast, the method, L and the estimate", async () => {
     const protocol = {
-      sequence: "se", field: "1.5 T", fov: { read: "12 cm", phase: "12 cm" }, matrix: { read: 16, phase: 16 },
-      slice: { thickness: "5 mm", position: "0 mm", orientation: "axial" }, bandwidth: "250 Hz/px", te: "20 ms", tr: "300 ms",
+      sequence: "rare", field: "1.5 T", fov: { read: "12 cm", phase: "12 cm" }, matrix: { read: 16, phase: 16 },
+      slice: { thickness: "5 mm", position: "0 mm", orientation: "axial" }, bandwidth: "250 Hz/px", te: "40 ms", tr: "300 ms", echoTrainLength: 4,
     };
     const phantom = {
       name: "fold-disc", tissues: { gel: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "40 ms", species: "water" } },

@@ -84,17 +84,40 @@ describe("ideally spoiled shortcut", () => {
     }
   }, 60_000);
 
-  test.each([
-    ["spin echo (two pulses per TR)", [] as string[], "se-t2-1.5t"],
-    ["RF-spoiled GRE (no ideal spoil)", ["spoiling=rf"], "gre-demo-1.5t"],
-    ["bSSFP", [], "bssfp-1.5t"],
-  ])("%s does not take the shortcut and gives the general path's bits", (_name, sets, protocol) => {
-    const p = prep(sets, { protocol });
+  test("RF-spoiled GRE (no ideal spoil, a spoiler moment left at every pulse) does not take the shortcut and gives the general path's bits", () => {
+    const p = prep(["spoiling=rf"], { protocol: "gre-demo-1.5t" });
     const a = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter });
     const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, general: true });
     expect(a.plan.spoiledFast).toBe(false);
+    expect(a.plan.classState).toBe(false);
     expect(a.kspace.re.some((x) => x !== 0)).toBe(true);
     expect(Buffer.from(a.kspace.re.buffer).equals(Buffer.from(b.kspace.re.buffer))).toBe(true);
     expect(Buffer.from(a.kspace.im.buffer).equals(Buffer.from(b.kspace.im.buffer))).toBe(true);
+  }, 60_000);
+
+  test.each([
+    ["spin echo (two pulses per TR, no in-plane moment at the refocusing pulse)", [] as string[], "se-t2-1.5t", undefined],
+    ["spin echo with B0 and a T2′ spread (refocused)", [] as string[], "se-t2-1.5t", "40 * x / 0.05 - 15 * y / 0.05"],
+    ["bSSFP (every gradient balanced within the TR)", [], "bssfp-1.5t", undefined],
+    ["bSSFP with B0 (off-resonant classes: the banding's Δf dependence)", [], "bssfp-1.5t", "60 * x / 0.05"],
+  ])("%s: the state at every pulse is per RF class (the shortcut, the pulse on the whole state), equal to the general path within 1e-10", (_name, sets, protocol, b0) => {
+    const p = prep(sets, { protocol, b0, iso: { t2primeIsochromats: b0 ? 3 : 1 } });
+    const { fast, gen, err } = fastVsGeneral(p);
+    expect(fast.plan.spoiledFast).toBe(false);
+    expect(fast.plan.classState).toBe(true);
+    expect(gen.plan.classState).toBe(false);
+    expect(gen.kspace.re.some((x) => x !== 0)).toBe(true);
+    expect(err).toBeLessThan(1e-10);
+    // and the fast operator from the same class playback, against the general path (an oracle that shares nothing with it)
+    const f = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast" });
+    expect(f.readout.operator).toBe("fast");
+    expect(relL2(f.kspace.re, f.kspace.im, gen.kspace.re, gen.kspace.im)).toBeLessThanOrEqual(1e-6);
+  }, 60_000);
+
+  test("RARE (read prephaser before the first refocusing pulse: an in-plane moment there) keeps the general path", () => {
+    const p = prep(["echoTrainLength=4", "te=40 ms"], { protocol: "rare-t2-1.5t" });
+    const { fast, err } = fastVsGeneral(p);
+    expect(fast.plan.classState).toBe(false);
+    expect(err).toBe(0);
   }, 60_000);
 });

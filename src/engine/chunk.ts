@@ -35,6 +35,6 @@ export class ChunkScratch {
  */
 export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe: Float64Array, outIm: Float64Array, s: ChunkScratch): void {
   // the readout fold (fold.ts) is played by the general path
-  if (plan.spoiledFast && !plan.fold) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
+  if (plan.classState && !plan.fold) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
   else runChunkGeneral(plan, iso, c, outRe, outIm, (s.general ??= new GeneralScratch(plan)), s.readout);
 }

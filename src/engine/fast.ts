@@ -448,7 +448,8 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
   for (let i = 0; i < ops.length; i++) {
     const op = ops[i]!;
     // a TR's usual ops in one pass over the classes (each class gets the same operations in the same order)
-    if (op.kind === "rf" && fusedHistory.on()) {
+    // (the fused passes take the pulse on Mz alone: no transverse part before it)
+    if (op.kind === "rf" && !active && fusedHistory.on()) {
       const a = ops[i + 1], b = ops[i + 2], c = ops[i + 3], d = ops[i + 4];
       if (a?.kind === "spoil" && b?.kind === "relax") {
         // a TR without a readout (a dummy scan): the pulse's Mz, then its relaxation
@@ -469,7 +470,9 @@ function classHistory(seq: Sequence, plan: EnginePlan, info: { classIw: Int32Arr
     }
     switch (op.kind) {
       case "rf":
-        rfClasses(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase);
+        // a transverse part before the pulse (a balanced sequence: plan.classState) goes through the whole map
+        if (active) rfClassesFull(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase);
+        else rfClasses(maps, op.mapOffset, C, mz, pr, pi, op.cosPhase, op.sinPhase);
         active = true;
         break;
       case "free": {
@@ -548,6 +551,19 @@ function rfClasses(maps: Float64Array, mapOffset: number, C: number, mz: Float64
   }
 }
 
+/** The pulse's affine map on every class's whole state (m0 = 1), in the pulse's frame: as applyRf (kernels.ts). */
+function rfClassesFull(maps: Float64Array, mapOffset: number, C: number, mz: Float64Array, pr: Float64Array, pi: Float64Array, cp: number, sp: number): void {
+  for (let c = 0; c < C; c++) {
+    const b = mapOffset + c * 12, x0 = pr[c]!, y0 = pi[c]!, z = mz[c]!;
+    const x = x0 * cp + y0 * sp, y = -x0 * sp + y0 * cp;
+    const nx = maps[b]! * x + maps[b + 1]! * y + maps[b + 2]! * z + maps[b + 9]!;
+    const ny = maps[b + 3]! * x + maps[b + 4]! * y + maps[b + 5]! * z + maps[b + 10]!;
+    mz[c] = maps[b + 6]! * x + maps[b + 7]! * y + maps[b + 8]! * z + maps[b + 11]!;
+    pr[c] = nx * cp - ny * sp;
+    pi[c] = nx * sp + ny * cp;
+  }
+}
+
 /** Mz ← Mz·E1 + (1 − E1) for every class. */
 function relaxClasses(mz: Float64Array, e1: Float64Array, C: number): void {
   for (let c = 0; c < C; c++) mz[c] = mz[c]! * e1[c]! + (1 - e1[c]!);
@@ -584,7 +600,7 @@ function storeClasses(P: Float64Array, o: number, pr: Float64Array, pi: Float64A
 
 /** A reason the fast operator cannot apply, found from the plan alone (before the RF maps are filled), or null. */
 export function fastPrecheck(plan: EnginePlan): string | null {
-  if (!plan.spoiledFast) return "not an ideally spoiled sequence (two or more pulses between ideal spoils): the fast operator covers ideally spoiled Cartesian readouts so far";
+  if (!plan.classState) return "the magnetization before a pulse depends on the in-plane position (two or more pulses between ideal spoils, with in-plane gradient moments left between them): the fast operator covers ideally spoiled and balanced Cartesian readouts so far";
   let nAdc = 0;
   for (const o of plan.ops) if (o.kind === "adc") nAdc++;
   if (plan.classes * nAdc > MAX_CLASS_LINES) return `${plan.classes.toLocaleString("en")} RF classes × ${nAdc} readouts is beyond the line factor's size (many RF classes: through-slice or through-slab positions × spectral components × the T2′ spread, or a B0 model)`;

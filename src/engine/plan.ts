@@ -101,6 +101,12 @@ export interface EnginePlan {
    * before every pulse and Mz there is m0 times a function of the RF class.
    */
   spoiledFast: boolean;
+  /**
+   * The magnetization before every RF pulse is a function of the RF class alone (times m0): spoiledFast, or
+   * a balanced sequence, where no in-plane gradient moment is left since the pulse before (balancedInPlane). The
+   * fast operator's class playback (fast.ts classHistory) then holds every isochromat's state at the pulses.
+   */
+  classState: boolean;
   /** Use the WebAssembly SIMD kernels where available (see PlanOptions.wasm). */
   wasm: boolean;
   /**
@@ -319,9 +325,38 @@ export function planFromClasses(
     rows: seq.kspace.slice * seq.kspace.phase, read: seq.kspace.read,
     receiverFilter: opts.receiverFilter, maxChunk, coils, sens: sens ? shareF64(sens) : null, rf,
     spoiledFast: !(opts.general ?? false) && spoiledUnits(ops),
+    classState: !(opts.general ?? false) && (spoiledUnits(ops) || balancedInPlane(seq)),
     wasm: opts.wasm ?? true,
     fold: null,
   };
+}
+
+/**
+ * Whether every RF pulse meets a transverse magnetization free of in-plane gradient phase: zero (before the
+ * first pulse, or after an ideal spoil), or with the read and phase gradient moments since the pulse before summing
+ * to zero (a balanced sequence, e.g. bSSFP). Then, the pulses and the through-slice gradients acting per RF class,
+ * every isochromat's state at a pulse is m0 times a function of its class; the in-plane phase of a readout is that
+ * of the moment since its last pulse. Moments below 1e-9 cycles/m count as zero (rounding of the areas' sum).
+ */
+export function balancedInPlane(seq: Sequence): boolean {
+  let a0 = 0, a1 = 0, transverse = false;
+  for (const b of seq.blocks) {
+    if (b.kind === "rf") {
+      if (transverse && (Math.abs(GAMMA_BAR * a0) > 1e-9 || Math.abs(GAMMA_BAR * a1) > 1e-9)) return false;
+      a0 = a1 = 0;
+      transverse = true;
+    } else if (b.kind === "spoil") {
+      a0 = a1 = 0;
+      transverse = false;
+    } else if (b.kind === "free") {
+      a0 += b.area[0];
+      a1 += b.area[1];
+    } else if (b.kind === "adc") {
+      a0 += b.grad[0] * b.samples * b.dwell;
+      a1 += b.grad[1] * b.samples * b.dwell;
+    }
+  }
+  return true;
 }
 
 /**

@@ -56,7 +56,9 @@ export class SpoiledScratch {
  * the chunk, so any number of workers or shards gives the same bits).
  *
  * Valid when every run of ops between ideal spoils holds at most one pulse
- * (plan.spoiledFast). Mxy is then zero before each pulse, and every op acts on
+ * (plan.spoiledFast), and for balanced sequences (plan.classState: no in-plane
+ * moment left at a pulse, so the state there is m0 times a function of the
+ * class, the pulse then acting on the class's whole state; below, spoiled). Mxy is then zero before each pulse, and every op acts on
  * Mz as Mz ← Mz·E1 + m0·(1 − E1) or Mz ← a22·Mz + b2·m0 with factors of the
  * RF class c alone (Δf, T1, T2, slice position), so Mz = m0·mz_c: one number
  * per class instead of one per isochromat. After the pulse the transverse
@@ -122,14 +124,28 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
     switch (op.kind) {
       case "rf": {
         const cs = op.cosPhase, sn = op.sinPhase;
-        for (let l = 0; l < nc; l++) {
-          const b = op.mapOffset + rfClass[firstOf[l]!]! * 12;
-          const z = mz[l]!;
-          const x = maps[b + 2]! * z + maps[b + 9]!;
-          const y = maps[b + 5]! * z + maps[b + 10]!;
-          mz[l] = maps[b + 8]! * z + maps[b + 11]!;
-          pr[l] = x * cs - y * sn;
-          pi[l] = x * sn + y * cs;
+        if (active) {
+          // a transverse part before the pulse (a balanced sequence, plan.classState): the whole map, as applyRf
+          for (let l = 0; l < nc; l++) {
+            const b = op.mapOffset + rfClass[firstOf[l]!]! * 12;
+            const x0 = pr[l]!, y0 = pi[l]!, z = mz[l]!;
+            const x = x0 * cs + y0 * sn, y = -x0 * sn + y0 * cs;
+            const nx = maps[b]! * x + maps[b + 1]! * y + maps[b + 2]! * z + maps[b + 9]!;
+            const ny = maps[b + 3]! * x + maps[b + 4]! * y + maps[b + 5]! * z + maps[b + 10]!;
+            mz[l] = maps[b + 6]! * x + maps[b + 7]! * y + maps[b + 8]! * z + maps[b + 11]!;
+            pr[l] = nx * cs - ny * sn;
+            pi[l] = nx * sn + ny * cs;
+          }
+        } else {
+          for (let l = 0; l < nc; l++) {
+            const b = op.mapOffset + rfClass[firstOf[l]!]! * 12;
+            const z = mz[l]!;
+            const x = maps[b + 2]! * z + maps[b + 9]!;
+            const y = maps[b + 5]! * z + maps[b + 10]!;
+            mz[l] = maps[b + 8]! * z + maps[b + 11]!;
+            pr[l] = x * cs - y * sn;
+            pi[l] = x * sn + y * cs;
+          }
         }
         for (let j = u0; j < u1; j++) {
           ua[2 * j] = 1;
