@@ -118,8 +118,8 @@ describe("streamed fast operator against the direct operator", () => {
     expect(new CellStream(p.cells).tooMany).toBeNull();
   });
 
-  test("spin echo: not covered by the streamed operator; the stored isochromats go to the time-segmented fold (engine/fold.ts), within the tolerance of direct", async () => {
-    const p = prep([], { protocol: "se-t2-1.5t" });
+  test("RARE: not covered by the streamed operator; the stored isochromats go to the time-segmented fold (engine/fold.ts), within the tolerance of direct", async () => {
+    const p = prep(["echoTrainLength=4", "te=40 ms"], { protocol: "rare-t2-1.5t" });
     const a = await streamed(p);
     const b = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "direct" });
     expect(a.stored).toBe(1);

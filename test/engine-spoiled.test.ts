@@ -13,6 +13,7 @@ import { describe, expect, test } from "vitest";
 import { prepare } from "../src/cli/pipeline.js";
 import { simulateParallel, simulateSerial } from "../src/engine/node.js";
 import type { IsochromatOptions } from "../src/isochromats/index.js";
+import fc from "fast-check";
 import { relL2, tempDir, writeJson } from "./helpers.js";
 
 /** The two-bottle phantom (water gel and oil: several fat peaks), optionally with a B0 expression (Hz, x in m). */
@@ -119,5 +120,44 @@ describe("ideally spoiled shortcut", () => {
     const { fast, err } = fastVsGeneral(p);
     expect(fast.plan.classState).toBe(false);
     expect(err).toBe(0);
+  }, 60_000);
+});
+
+describe("property: the class state at every pulse, on random small spin echoes and bSSFP", () => {
+  test("the shortcut within 1e-10 and the fast operator within 1e-6 of the general path (every op on every isochromat), the estimate covering the fast error (seeded)", () => {
+    fc.assert(
+      fc.property(
+        fc.record({
+          kind: fc.constantFrom("se", "bssfp"),
+          b0: fc.integer({ min: -80, max: 80 }),
+          spread: fc.constantFrom(1, 3),
+          field: fc.constantFrom("1.5 T", "3 T"),
+          flip: fc.integer({ min: 20, max: 80 }),
+          te: fc.constantFrom(15, 25, 40),
+          tr: fc.constantFrom(4, 6),
+          matrix: fc.constantFrom(8, 12),
+        }),
+        (c) => {
+          const sets = [`matrix.read=${c.matrix}`, `matrix.phase=${c.matrix}`, `field=${c.field}`];
+          if (c.kind === "se") sets.push(`te=${c.te} ms`, "tr=300 ms");
+          else sets.push(`tr=${c.tr} ms`, `te=${c.tr / 2} ms`, `flip=${c.flip} deg`);
+          const p = prepare({
+            phantom: phantomFile(`${c.b0} * x / 0.05 + ${c.b0 / 3} * y / 0.05`), protocol: c.kind === "se" ? "se-t2-1.5t" : "bssfp-1.5t",
+            sets: [...sets, "dummyScans=3"], out: join(tempDir(), "out"), seed: 1,
+            iso: { density: 1, sliceCount: 4, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: c.spread, offsetHz: 0 }, workers: 1,
+          });
+          const o = { receiverFilter: p.protocol.receiverFilter, chunkIsochromats: 256 };
+          const gen = simulateSerial(p.seq, p.iso, { ...o, general: true });
+          const d = simulateSerial(p.seq, p.iso, { ...o, readout: "direct" });
+          const f = simulateSerial(p.seq, p.iso, { ...o, readout: "fast" });
+          const eD = relL2(d.kspace.re, d.kspace.im, gen.kspace.re, gen.kspace.im);
+          const eF = relL2(f.kspace.re, f.kspace.im, gen.kspace.re, gen.kspace.im);
+          if (!d.plan.classState || !gen.kspace.re.some((x) => x !== 0)) return false;
+          if (f.readout.operator !== "fast") return eD < 1e-10 && eF < 1e-10;
+          return eD < 1e-10 && eF <= 1e-6 && f.readout.estimate!.relL2 >= eF;
+        },
+      ),
+      { numRuns: 8, seed: 5 },
+    );
   }, 60_000);
 });

@@ -231,9 +231,15 @@ describe("chunk runner", () => {
     const p = smallCase(["excitation.steps=32", "refocusing.steps=32"], "se-t2-1.5t");
     expect(p.seq.pulses.length).toBe(2);
     expect(p.seq.pulses.map((q) => q.b1re.length)).toEqual([32, 32]);
-    const { kspace } = simulateSerial(p.seq, p.iso, { receiverFilter: true });
+    const { kspace, plan } = simulateSerial(p.seq, p.iso, { receiverFilter: true, readout: "direct" });
     const d = directBloch(p.seq, p.iso, true, 1, null);
     expect(relL2(kspace.re, kspace.im, d.re, d.im)).toBeLessThan(1e-9);
+    // no in-plane moment at the refocusing pulse: the state at every pulse per RF class (engine/plan.ts balancedInPlane),
+    // and the fast operator from it (auto's choice here) within its tolerance of the same oracle
+    expect(plan.classState).toBe(true);
+    const f = simulateSerial(p.seq, p.iso, { receiverFilter: true, readout: "fast" });
+    expect(f.readout.operator).toBe("fast");
+    expect(relL2(f.kspace.re, f.kspace.im, d.re, d.im)).toBeLessThan(1e-6);
   }, 60_000);
 
   test("with two coils and random sensitivities, each coil equals the direct simulation within 1e-9 relative", () => {
