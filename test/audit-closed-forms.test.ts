@@ -72,3 +72,19 @@ describe("EPI with phase oversampling: the shift along phase counts the acquired
     expect(item.value).toBeCloseTo(Math.abs(closed), 3);
   });
 });
+
+describe("isofold check --help states the default thresholds", () => {
+  it("every key of the README's check table is listed with its watch and problem levels and unit", async () => {
+    const { spawnSync } = await import("node:child_process");
+    const { readFileSync } = await import("node:fs");
+    const { join, resolve } = await import("node:path");
+    const root = resolve(__dirname, "..");
+    const help = spawnSync(process.execPath, [join(root, "dist/src/cli/index.js"), "check", "--help"], { cwd: root, encoding: "utf8" }).stdout;
+    const readme = readFileSync(join(root, "README.md"), "utf8");
+    const table = readme.slice(readme.indexOf("| key | what it says |"), readme.indexOf("The default ROI is"));
+    // the keys are the table's first column, e.g. | `fatShiftRead`, `fatShiftSlice`, `fatShiftPhase` |
+    const keys = [...table.matchAll(/^\| ([^|]+)\|/gm)].flatMap((m) => [...m[1]!.matchAll(/`(\w+)`/g)].map((k) => k[1]!));
+    expect(keys.length).toBeGreaterThan(10);
+    for (const k of keys) expect(help, k).toMatch(new RegExp(`^ +${k} +watch [<>] [\\d.]+(?: [a-z%]+)?, problem [<>] [\\d.]+`, "m"));
+  });
+});

@@ -60,7 +60,7 @@ addSimulationOptions(
 addSimulationOptions(
   program
     .command("demo")
-    .description("run a bundled protocol on the bundled two-bottle phantom and say where the files are")
+    .description("run the bundled protocol gre-demo-1.5t (a 2D spoiled gradient echo at 1.5 T; `isofold protocol gre-demo-1.5t` prints it) on the bundled two-bottle phantom and say where the files are")
     .option("-o, --out <dir>", "output folder", "out/demo"),
 ).action(async (o) => {
   const root = repoRoot();
