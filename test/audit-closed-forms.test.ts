@@ -152,3 +152,22 @@ describe("2D spoiled gradient echo: the Ernst equation averaged over the slice p
     expect(profileAveraged(90) / ernst(90)).toBeGreaterThan(3);
   });
 });
+
+describe("isofold protocol: Δk along phase with phase oversampling", () => {
+  it("is 1/FOV_acq, the spacing of the phase-encode table's lines (not 1/FOV)", () => {
+    // Nyquist (common practice): L = M·(1 + os) lines over FOV_acq = FOV·L/M, Δk_y = 1/FOV_acq = M/(FOV·L);
+    // 32 lines, 50 % oversampling, 16 cm: 48 lines, FOV_acq 24 cm, Δk_y = 4.1667 1/m; k_max = 1/(2Δy) = 100 1/m
+    const p = parseProtocolObject({
+      sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 32, phase: 32 },
+      slice: { thickness: "5 mm" }, bandwidth: "250 Hz/px", te: "8 ms", tr: "100 ms", flip: "30 deg",
+      oversampling: { read: 2, phase: 0.5 },
+    } as never, "p.json");
+    const seq = buildSequence(p);
+    const dk = seq.derived["deltaKPhase"]!.value as number;
+    expect(dk).toBeCloseTo(1 / 0.24, 6);
+    expect(seq.derived["kMaxPhase"]!.value as number).toBeCloseTo(100, 6);
+    // the table's area step ΔA gives Δk = γ̄·ΔA (γ̄ = 42.577478 MHz/T, CODATA 2018)
+    const t = seq.phaseTable.slice().sort((a, b) => a.line - b.line);
+    expect(42.577478e6 * (t[1]!.area - t[0]!.area)).toBeCloseTo(dk, 3);
+  });
+});
