@@ -171,3 +171,47 @@ describe("isofold protocol: Δk along phase with phase oversampling", () => {
     expect(42.577478e6 * (t[1]!.area - t[0]!.area)).toBeCloseTo(dk, 3);
   });
 });
+
+describe("report.json fat shift and the truth maps of a stack: the middle slice, for both", () => {
+  const tissues = {
+    w: { pd: 1, t1: "500 ms", t2: "80 ms", t2star: "80 ms", species: "water" },
+    f: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "60 ms", species: "fat" },
+  };
+  const base = {
+    sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 32, phase: 32 },
+    slice: { thickness: "5 mm", position: "0 mm", orientation: "axial" }, phaseDirection: "y", bandwidth: "80 Hz/px",
+    te: "10 ms", tr: "60 ms", flip: "30 deg",
+  };
+
+  it("multi-slice: the shift measured on the middle slice is Δf/BW_px (it was fitted on the first slice against the middle one's truth)", async () => {
+    const { simulate: simulateApi } = await import("../src/api.js");
+    // water and fat boxes only in the middle of three slices (z −6, 0, +6 mm); a water box only in the first
+    const phantom = {
+      name: "stack", tissues,
+      shapes: [
+        { shape: "box", center: ["-4 cm", "0 cm", "0 cm"], size: ["3 cm", "3 cm", "4 mm"], tissue: "w" },
+        { shape: "box", center: ["4 cm", "0 cm", "0 cm"], size: ["3 cm", "3 cm", "4 mm"], tissue: "f" },
+        { shape: "box", center: ["0 cm", "5 cm", "-6 mm"], size: ["3 cm", "2 cm", "4 mm"], tissue: "w" },
+      ],
+    };
+    const r = await simulateApi({ protocol: { ...base, slices: { count: 3, gap: "1 mm" } }, phantom, iso: { fatModel: "single", t2primeIsochromats: 1, density: 1 } });
+    const fat = (r.report as { fatShift: { measured: { readout: { px: number } } } }).fatShift.measured;
+    // fat −3.4 ppm (Hamilton et al. 2011) at γ̄ = 42.577478 MHz/T: Δx = Δf/BW_px (Bernstein, King & Zhou 2004, ch. 11)
+    const closed = (-3.4e-6 * 42.577478e6 * 1.5) / 80;
+    expect(Math.abs(fat.readout.px - closed)).toBeLessThan(0.1);
+  });
+
+  it("3D, an even number of steps: the truth maps are the middle step's (a box filling 4 of its 5 mm: PD 0.8)", async () => {
+    const { simulate: simulateApi } = await import("../src/api.js");
+    // 4 steps of 5 mm centred on 0: step 2 (the middle, ⌊4/2⌋) spans 0 … 5 mm (README, Conventions); the box spans
+    // z 0.5 … 4.5 mm, so its voxels hold 4/5 of tissue there (2/5 in the plane −2.5 … 2.5 mm through the slab centre)
+    const phantom = { name: "slab", tissues, shapes: [{ shape: "box", center: ["0 cm", "0 cm", "2.5 mm"], size: ["6 cm", "6 cm", "4 mm"], tissue: "w" }] };
+    const r = await simulateApi({
+      protocol: { ...base, sequence: "gre3d", matrix: { read: 16, phase: 16, slice: 4 }, bandwidth: "250 Hz/px", te: "5 ms", tr: "15 ms" },
+      phantom, iso: { t2primeIsochromats: 1, density: 1 },
+    });
+    const t = r.truth;
+    // (the maps sample a voxel's partial volume on a sub-grid: within 0.05 of the overlap)
+    expect(Math.abs(t.pd[8 * t.nRead + 8]! - 0.8)).toBeLessThan(0.05);
+  });
+});
