@@ -215,3 +215,35 @@ describe("report.json fat shift and the truth maps of a stack: the middle slice,
     expect(Math.abs(t.pd[8 * t.nRead + 8]! - 0.8)).toBeLessThan(0.05);
   });
 });
+
+describe("check --verify on a 2D stack: the fat shift is measured on the slice it simulated", () => {
+  it("a middle slice without fat gives no measured shift (it fitted the stack centre's truth to that slice: −15.9 px)", async () => {
+    const { spawnSync } = await import("node:child_process");
+    const { join, resolve } = await import("node:path");
+    const { tempDir, writeJson } = await import("./helpers.js");
+    const dir = tempDir("isofold-audit-verify-");
+    // two 5 mm slices 1 mm apart centred on z = 3 mm lie at z = 0 and 6 mm (README: slices centred on slice.position);
+    // --verify simulates the middle one (index ⌊2/2⌋ = 1, z = 6 mm, covering 3.5 … 8.5 mm): the water box reaches
+    // it, the fat box (z −2 … 2 mm) does not, so no fat–water shift can be measured there
+    const phantom = writeJson(dir, "ph.json", {
+      name: "stack", tissues: {
+        w: { pd: 1, t1: "500 ms", t2: "80 ms", t2star: "80 ms", species: "water" },
+        f: { pd: 1, t1: "300 ms", t2: "60 ms", t2star: "60 ms", species: "fat" },
+      },
+      shapes: [
+        { shape: "box", center: ["-4 cm", "0 cm", "0 cm"], size: ["3 cm", "3 cm", "20 mm"], tissue: "w" },
+        { shape: "box", center: ["4 cm", "0 cm", "0 cm"], size: ["3 cm", "3 cm", "4 mm"], tissue: "f" },
+      ],
+    });
+    const protocol = writeJson(dir, "p.json", {
+      sequence: "gre", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 32, phase: 32 },
+      slice: { thickness: "5 mm", position: "3 mm", orientation: "axial" }, slices: { count: 2, gap: "1 mm" },
+      phaseDirection: "y", bandwidth: "80 Hz/px", te: "10 ms", tr: "60 ms", flip: "30 deg",
+    });
+    const root = resolve(__dirname, "..");
+    const r = spawnSync(process.execPath, [join(root, "dist/src/cli/index.js"), "check", phantom, "-p", protocol, "--verify", "--json"], { cwd: root, encoding: "utf8" });
+    expect(r.status).toBe(0);
+    const rows = (JSON.parse(r.stdout) as { verify: { rows: { quantity: string; values?: { measured: number | null } }[] } }).verify.rows;
+    expect(rows.find((x) => x.quantity === "fat shift along read")!.values!.measured).toBeNull();
+  }, 30_000);
+});
