@@ -247,3 +247,32 @@ describe("check --verify on a 2D stack: the fat shift is measured on the slice i
     expect(rows.find((x) => x.quantity === "fat shift along read")!.values!.measured).toBeNull();
   }, 30_000);
 });
+
+describe("isofold check, 3D: where signal beyond the slab folds along slice encoding", () => {
+  it("lands on the steps the image shows (step p centred at (p − (P − 1)/2)·thickness; even P)", () => {
+    // Nyquist folding along slice encoding (Δk = 1/slab; common practice): 8 steps of 4 mm tile −16 … 16 mm; a box at
+    // z 20 … 30 mm, excited by a hard pulse, folds by 32 mm to −12 … −2 mm: steps 1 (−12 … −8), 2 and half of 3
+    const protocol: Obj = {
+      sequence: "gre3d", field: "1.5 T", fov: { read: "16 cm", phase: "16 cm" }, matrix: { read: 16, phase: 16, slice: 8 },
+      slice: { thickness: "4 mm", position: "0 mm", orientation: "axial" }, phaseDirection: "y", bandwidth: "300 Hz/px",
+      te: "5 ms", tr: "15 ms", flip: "15 deg", excitation: { shape: "hard", duration: "0.1 ms", steps: 10 },
+    };
+    const phantom: Obj = {
+      name: "z", tissues: { w: { pd: 1, t1: "500 ms", t2: "80 ms", t2star: "80 ms", species: "water" } },
+      shapes: [
+        { shape: "box", center: ["0 cm", "0 cm", "0 cm"], size: ["4 cm", "4 cm", "8 mm"], tissue: "w" },
+        { shape: "box", center: ["4 cm", "4 cm", "25 mm"], size: ["3 cm", "3 cm", "10 mm"], tissue: "w" },
+      ],
+    };
+    const p = parseProtocolObject(protocol as never, "p.json");
+    const r = checkProtocol(parsePhantom(phantom, "ph.json", p.field), p, buildSequence(p), {});
+    const f = r.wrap.slice!.folded.find((x) => x.from === "+z")!;
+    expect(f.landsPx).toEqual([1, 3]);
+    expect(f.landsM![0]).toBeCloseTo(-0.01, 6); // step 1's centre
+    // the image: the folded box (x, y = 4 cm: pixel 16/2 + 4) is bright in steps 1–3 only
+    const img = simulate(protocol, phantom, { density: 1, sliceCount: 1, t2primeIsochromats: 1 });
+    const at = (step: number) => img.mag[step * 256 + 12 * 16 + 12]!;
+    const peak = Math.max(...[0, 1, 2, 3, 4, 5, 6, 7].map(at));
+    expect([0, 1, 2, 3, 4, 5, 6, 7].filter((k) => at(k) > 0.3 * peak)).toEqual([1, 2, 3]);
+  });
+});
