@@ -494,7 +494,7 @@ export interface SimulateResult {
   /** 3×4 voxel index → RAS+ (mm) affine and voxel size (mm), for NIfTI. */
   affine: number[][];
   voxelMm: [number, number, number];
-  /** Ground-truth maps on the image grid (central slice). */
+  /** Ground-truth maps on the image grid of the middle slice (index ⌊S/2⌋ of the slice axis, the one the fat shift is measured on). */
   truth: TruthMaps;
   protocol: Protocol;
   phantom: Phantom;

@@ -16,7 +16,11 @@
  *   - phase, EPI only: line n is acquired at TE + (n − c)·τ with
  *     k_n = (n − c)·Δk_y·s (s = ±1, the blip direction), so the phase
  *     −2π(k_n·v + Δf·(n − c)·τ) places the spin at v + s·Δf·τ/Δk_y:
- *     Δv = s·Δf·N_phase·τ pixels (N_phase lines of Δk_y = 1/FOV), where τ is
+ *     Δv = s·Δf·τ/Δk_y = s·Δf·N_phase·τ pixels, where N_phase is the number of
+ *     lines of the acquired grid (matrix × (1 + phase oversampling), lines a
+ *     partial Fourier scan leaves out counted: Δk_y = 1/FOV_acq, so τ/Δk_y is
+ *     τ·N_phase pixels of FOV/matrix; with phase oversampling this is more than
+ *     the matrix), where τ is
  *     the time per phase-encoding step, the effective echo spacing ESP/shots
  *     of an interleaved (echo-time shifted) EPI (Jezzard & Balaban 1995;
  *     Feinberg & Oshio 1994). With spin-warp (one line per excitation) there
@@ -53,7 +57,7 @@ export interface FatShiftInput {
   sliceGradient: number;
   /** Phase pixel size (m). */
   dyPhase: number;
-  /** EPI only: time per phase-encoding step (s) = echo spacing / shots (see effectiveEchoSpacing), phase lines of one image, blip direction ±1. */
+  /** EPI only: time per phase-encoding step (s) = echo spacing / shots (see effectiveEchoSpacing), phase lines of the acquired grid (with phase oversampling), blip direction ±1. */
   effectiveEchoSpacing?: number;
   phaseLines?: number;
   blipSign?: number;
@@ -73,7 +77,7 @@ export interface FatShiftPrediction {
 /** The three closed forms, written once (report.json, the protocol table and checks all quote these). */
 export const READ_SHIFT_FORMULA = "Δx = sign(G_read)·Δf/BW_px pixels";
 export const SLICE_SHIFT_FORMULA = "Δz = −Δf/(γ̄·G_slice)";
-export const PHASE_SHIFT_FORMULA = "EPI: Δy = s_blip·Δf·N_phase·ESP/shots pixels (ESP/shots = effective echo spacing)";
+export const PHASE_SHIFT_FORMULA = "EPI: Δy = s_blip·Δf·N_phase·ESP/shots pixels (N_phase = phase lines of the acquired grid, phase oversampling included; ESP/shots = effective echo spacing)";
 
 function dir(value: number, axis: string): string {
   if (value === 0 || !Number.isFinite(value)) return "none";
@@ -131,7 +135,8 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
  * The prediction inputs of a protocol and its built sequence: readout
  * polarity, slice-select gradient of the excitation and, for EPI, the
  * sequence's `effectiveEchoSpacing` (ESP/shots, the one source of that
- * quantity), `phaseLinesEffective` (default matrix.phase) and `phaseBlipSign`
+ * quantity), `phaseLinesEffective` (default the acquired grid's phase lines,
+ * matrix × (1 + phase oversampling): Δk_y = 1/FOV_acq) and `phaseBlipSign`
  * (default +1). Shared by report.json, the `protocol` table and checks.
  */
 export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = FAT_SINGLE_PPM): FatShiftInput {
@@ -142,7 +147,7 @@ export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = F
     dxRead: protocol.fov.read / protocol.matrix.read, dyPhase: protocol.fov.phase / protocol.matrix.phase,
     sliceGradient: q.sliceGradient,
     ...(tau !== undefined
-      ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.image.phase, blipSign: q.phaseBlipSign ?? 1 }
+      ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.kspace.phase, blipSign: q.phaseBlipSign ?? 1 }
       : {}),
     axisNames: logicalAxes(protocol).names,
   };

@@ -7,7 +7,7 @@ import { predictProtocolFatShift, measureFatShift, multiPeakMeanPpm, hasWaterAnd
 import { truthMaps, type TruthMaps } from "./truth.js";
 import { FAT_SINGLE_PPM } from "../constants.js";
 import type { Phantom } from "../phantom/index.js";
-import { logicalAxes, type Protocol } from "../protocol/index.js";
+import { logicalAxes, slicePositions, type Protocol } from "../protocol/index.js";
 import type { Sequence } from "../sequence/index.js";
 
 /**
@@ -21,8 +21,17 @@ export function fatShiftReport(
   const axes = logicalAxes(protocol);
   const nRead = seq.image.read, nPhase = seq.image.phase;
   const dx = protocol.fov.read / protocol.matrix.read, dy = protocol.fov.phase / protocol.matrix.phase;
+  // the plane measured below is the middle one of the image's slice axis (index ⌊S/2⌋): the slices of a
+  // multi-slice protocol in spatial order, or a 3D slab's slice-encoding steps, centred on slice.position
+  // (step p at position + (p − (S − 1)/2)·spacing); the truth maps are of that plane, so that they and the
+  // measured plane agree where they differ from slice.position (an even count)
+  // (`seq` is the first slice's sequence: a 2D one holds one slice, so the count comes from `mag`)
+  const nSlice = Math.round(mag.length / (nRead * nPhase)), mid = Math.floor(nSlice / 2);
+  const position = seq.grid.threeD
+    ? protocol.slice.position + (mid - (nSlice - 1) / 2) * protocol.slice.thickness
+    : nSlice > 1 ? slicePositions(protocol).positions[mid]! : protocol.slice.position;
   const truth = truthMaps(phantom, {
-    axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: protocol.shim,
+    axes, nRead, nPhase, dx, dy, thickness: protocol.slice.thickness, position, offsetHz: protocol.shim,
   });
   const main = predictProtocolFatShift(protocol, seq, FAT_SINGLE_PPM);
   const mean = predictProtocolFatShift(protocol, seq, multiPeakMeanPpm());
@@ -36,13 +45,13 @@ export function fatShiftReport(
   const waterMargin = 3;
   // a shift beyond a quarter of the matrix lets the fat image wrap or land on other objects: not measured
   const tooFar = Math.abs(main.readout.px) > nRead / 4 || Math.abs(main.phase.px) > nPhase / 4;
-  const plane = mag.subarray(Math.floor(seq.image.slice / 2) * nRead * nPhase, (Math.floor(seq.image.slice / 2) + 1) * nRead * nPhase);
+  const plane = mag.subarray(mid * nRead * nPhase, (mid + 1) * nRead * nPhase);
   // a finer truth grid gives the measurement a band-limited template (see measureFatShift); it is
   // sampled only where there is something to measure (with no water or no fat object the measurement is null)
   const factor = Math.max(1, Math.min(4, Math.floor(1024 / Math.max(nRead, nPhase))));
   const measurable = !tooFar && hasWaterAndFat(truth.pd, truth.fatFraction);
   const fine = measurable && factor > 1
-    ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position: protocol.slice.position, offsetHz: 0 }, "pd-fat")
+    ? truthMaps(phantom, { axes, nRead: factor * nRead, nPhase: factor * nPhase, dx: dx / factor, dy: dy / factor, thickness: protocol.slice.thickness, position, offsetHz: 0 }, "pd-fat")
     : truth;
   const measured = !measurable
     ? null

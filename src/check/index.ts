@@ -387,7 +387,8 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     const n = Math.min(Ms, 3);
     for (let k = 0; k < n; k++) {
       const step = n === 1 ? Math.floor(Ms / 2) : Math.round((k * (Ms - 1)) / (n - 1));
-      planes.push({ w: p.slice.position + (step - Math.floor(Ms / 2)) * p.slice.thickness });
+      // step p sits at position + (p − (P − 1)/2)·thickness (README, Conventions; the image's and image.nii's centres)
+      planes.push({ w: p.slice.position + (step - (Ms - 1) / 2) * p.slice.thickness });
     }
   } else {
     const pos = slicePositions(p).positions;
@@ -717,8 +718,12 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
   let wMin = Infinity, wMax = -Infinity;
   const edgeHi = Ls - Math.floor(Ls / 2) - 0.5, edgeLo = -Math.floor(Ls / 2) - 0.5;
   const perSide = new Map<string, { beyond: number; lo: number; hi: number; exc: number; shape: string; tissue: string }>();
+  // step a sits at dw = (a − (Ls − 1)/2)·t from the slab centre (README, Conventions), index a − ⌊Ls/2⌋ in the
+  // convention of ./wrap.ts: pw = dw/t + (Ls − 1)/2 − ⌊Ls/2⌋ (half a step apart for an even count). The planes lie a
+  // quarter step off the step centres and boundaries, so none falls on a boundary.
+  const off = (Ls - 1) / 2 - Math.floor(Ls / 2);
   for (let k = -2 * Ms; k <= 2 * Ms; k++) {
-    const dw = (k * t) / 2;
+    const dw = ((k + 0.5) * t) / 2;
     const w = p.slice.position + dw;
     const e = pulse.gradient !== 0 ? profile(dw) : 1;
     for (let a = 0; a <= nu; a++) for (let b = 0; b <= nv; b++) {
@@ -727,7 +732,7 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
       const o = ownerAt(ph, xyz[0]!, xyz[1]!, xyz[2]!);
       if (o < 0) continue;
       if (e > 0.01) { wMin = Math.min(wMin, dw); wMax = Math.max(wMax, dw); }
-      const pw = dw / t;
+      const pw = dw / t + off;
       if (insideAcquired(pw, Ls) || e <= 0.01) continue;
       worst = Math.max(worst, e);
       const sh = ph.shapes[o]!;
@@ -743,7 +748,7 @@ function sliceEncodingWrap(ph: Phantom, p: Protocol, seq: Sequence, axes: Axes, 
     }
   }
   for (const [key, c] of perSide) {
-    folded.push({ shape: c.shape, tissue: c.tissue, from: key.split("\u0000")[1]!, beyondEdge: c.beyond, landsPx: [c.lo, c.hi], landsM: [(c.lo - Math.floor(Ms / 2)) * t, (c.hi - Math.floor(Ms / 2)) * t], landsRows: c.hi - c.lo + 1, roiPixels: 0 });
+    folded.push({ shape: c.shape, tissue: c.tissue, from: key.split("\u0000")[1]!, beyondEdge: c.beyond, landsPx: [c.lo, c.hi], landsM: [(c.lo - (Ms - 1) / 2) * t, (c.hi - (Ms - 1) / 2) * t], landsRows: c.hi - c.lo + 1, roiPixels: 0 });
   }
   const sides = [...new Set(folded.map((f) => f.from))];
   const text = folded.length > 0

@@ -4,7 +4,7 @@
  * (src/cli/verify.ts). No physics here.
  */
 import type { Command } from "commander";
-import { checkProtocol, parseRoi, parseThresholds, type CheckItem, type CheckResult } from "../check/index.js";
+import { checkProtocol, DEFAULT_THRESHOLDS, parseRoi, parseThresholds, thresholdText, type CheckItem, type CheckResult } from "../check/index.js";
 import { UserError } from "../errors.js";
 import type { Protocol } from "../protocol/index.js";
 import { loadPhantom, loadProtocol } from "./inputs.js";
@@ -108,6 +108,14 @@ function verifyTable(rows: VerifyRow[]): string {
   return table(out);
 }
 
+/** The default thresholds, one line per key with its unit, for `check --help`. */
+function thresholdHelp(): string {
+  const keys = Object.keys(DEFAULT_THRESHOLDS);
+  const w = Math.max(...keys.map((k) => k.length));
+  const lines = Object.entries(DEFAULT_THRESHOLDS).map(([k, t]) => `  ${k.padEnd(w)}  ${thresholdText(t)}${t.unit ? "" : " (no unit)"}: ${t.meaning}`);
+  return `\nDefault thresholds (key: verdict levels in the key's unit; --threshold key=watch,problem changes them):\n${lines.join("\n")}`;
+}
+
 export function registerCheck(program: Command): void {
   program
     .command("check")
@@ -124,6 +132,7 @@ export function registerCheck(program: Command): void {
     .option("--json", "print JSON instead of the table (item values in their unit; detail fields name theirs: px, mm, Hz; wrap positions and FOVs in m)")
     .option("--verify", "also simulate the protocol (in-process, small) and print predicted and measured values side by side")
     .option("--html <file>", "also write the answers as one self-contained page (works offline), e.g. --html out/check.html")
+    .addHelpText("after", thresholdHelp())
     .action(async (phantomFile: string, o: CheckCliOptions) => {
       const htmlFile = o.html !== undefined ? checkHtmlTarget(o.html) : null;
       const { result } = runCheck(phantomFile, o);

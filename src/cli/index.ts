@@ -41,7 +41,7 @@ addSimulationOptions(
     .requiredOption("-p, --protocol <file>", "protocol file (JSON) or bundled preset name")
     .option("-s, --set <key=value>", 'override a protocol value, repeatable, e.g. --set fov.phase="16 cm" --set te="8 ms"', collect, [])
     .option("-o, --out <dir>", "output folder for the run", "out/run")
-    .option("--truth", "also write the ground-truth maps on the image grid: pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy"),
+    .option("--truth", "also write the ground-truth maps on the image grid of the middle slice (index ⌊S/2⌋ of the slice axis: the middle slice of a stack, the middle slice-encoding step of a 3D slab; the slice report.json measures the fat shift on): pd, t1 (s), t2 (s), t2star (s), df (Hz), fat fraction and tissue labels, as truth-*.png and truth-*.npy [phase, read]"),
   "; the run folder then also holds each coil's image (coil-images.npy, coils.png), the sensitivities and their root-sum-of-squares (coil-rss.png)"),
 ).action(async (phantom: string, o) => {
   const r = await withOutputDir(o.out, () => run({
@@ -60,7 +60,7 @@ addSimulationOptions(
 addSimulationOptions(
   program
     .command("demo")
-    .description("run a bundled protocol on the bundled two-bottle phantom and say where the files are")
+    .description("run the bundled protocol gre-demo-1.5t (a 2D spoiled gradient echo at 1.5 T; `isofold protocol gre-demo-1.5t` prints it) on the bundled two-bottle phantom and say where the files are")
     .option("-o, --out <dir>", "output folder", "out/demo"),
 ).action(async (o) => {
   const root = repoRoot();

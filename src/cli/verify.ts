@@ -80,12 +80,15 @@ export async function verifyCheck(
   const mag = magAll.subarray(mid * nR * nP, (mid + 1) * nR * nP);
   const axes = logicalAxes(p);
   const dx = p.fov.read / p.matrix.read, dy = p.fov.phase / p.matrix.phase;
-  const position = seq.grid.threeD ? p.slice.position + (mid - Math.floor(seq.image.slice / 2)) * p.slice.thickness : sl.position;
+  // 3D: step p at position + (p − (S − 1)/2)·thickness (README, Conventions); 2D: the simulated slice of the stack
+  const position = seq.grid.threeD ? p.slice.position + (mid - (seq.image.slice - 1) / 2) * p.slice.thickness : sl.position;
   const truth = truthMaps(phantom, { axes, nRead: nR, nPhase: nP, dx, dy, thickness: p.slice.thickness, position, offsetHz: p.shim });
   const rows: VerifyRow[] = [];
 
   // fat shift: the report's template fit
-  const fx = fatShiftReport(p, seq, phantom, magAll, "multi"); // it measures the middle plane itself
+  // it measures the middle plane itself; a 2D stack's middle slice was simulated alone, so it is told where that slice is
+  const fxProtocol = seq.grid.threeD ? p : { ...p, slice: { ...p.slice, position: sl.position }, slices: { ...p.slices, count: 1 } };
+  const fx = fatShiftReport(fxProtocol, seq, phantom, magAll, "multi");
   const pred = (fx.report.predicted as { readout: { px: number }; phase: { px: number } });
   const meas = fx.report.measured as { readout: { px: number } | null; phase: { px: number } | null; reason?: string };
   rows.push(row("fat shift along read", pred.readout.px, meas.readout?.px ?? null, meas.readout ? "template fit of the fat object against the water object (six-peak fat: lies near the −3.4 ppm value)" : meas.reason ?? "not measured"));

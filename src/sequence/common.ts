@@ -265,7 +265,8 @@ export function commonDerived(
   p: Protocol, ro: ReadoutPlan, pe: PhasePlan, exc: SliceSelect, demand: Demand, sliceSteps = 1,
 ): Record<string, Derived> {
   const dkRead = 1 / p.fov.read;
-  const dkPhase = 1 / p.fov.phase;
+  // the phase lines are 1/FOV_acq apart (phase oversampling widens the acquired FOV: pe.lines lines over it)
+  const dkPhase = p.matrix.phase / (p.fov.phase * pe.lines);
   const bwTotal = p.pixelBandwidth * p.matrix.read;
   const voxel = (p.fov.read / p.matrix.read) * (p.fov.phase / p.matrix.phase) * p.slice.thickness;
   const d: Record<string, Derived> = {
@@ -281,8 +282,8 @@ export function commonDerived(
     readPrephaserArea: { value: ro.prephaser, unit: "T·s/m" },
     deltaKRead: { value: dkRead, unit: "1/m", note: "Δk = 1/FOV" },
     kMaxRead: { value: (p.matrix.read * dkRead) / 2, unit: "1/m", note: "k_max = N·Δk/2 = 1/(2Δx)" },
-    deltaKPhase: { value: dkPhase, unit: "1/m" },
-    kMaxPhase: { value: (p.matrix.phase * dkPhase) / 2, unit: "1/m" },
+    deltaKPhase: { value: dkPhase, unit: "1/m", note: "Δk = 1/FOV_phase,acquired (the phase-encode step; phase oversampling included)" },
+    kMaxPhase: { value: (pe.lines * dkPhase) / 2, unit: "1/m", note: "k_max = N_lines·Δk/2 = 1/(2Δy)" },
     readSamples: { value: ro.samples, unit: "samples", note: `acquired (of ${ro.full} with read oversampling ×${p.oversampling.read})` },
     echoSample: { value: ro.echoSample, unit: "sample", note: "time index of k = 0 in the ADC window" },
     phaseLines: { value: pe.acquired, unit: "lines", note: `acquired (of ${pe.lines} with phase oversampling ${p.oversampling.phase})` },
