@@ -42,6 +42,7 @@ import type { Sequence } from "../sequence/types.js";
 import { fillRfMaps, HAS_SHARED_MEMORY, isShared, type EnginePlan, type Op } from "./plan.js";
 import type { RfJob } from "./rf-job.js";
 import { receiverFilter } from "./chunk.js";
+import { rfOnState } from "./kernels.js";
 import { BasisSweep, projectOnKernel } from "./basis-wasm.js";
 import { kernelSwitch } from "./wasm-asm.js";
 import type { CellStream } from "./fast-stream.js";
@@ -553,14 +554,12 @@ function rfClasses(maps: Float64Array, mapOffset: number, C: number, mz: Float64
 
 /** The pulse's affine map on every class's whole state (m0 = 1), in the pulse's frame: as applyRf (kernels.ts). */
 function rfClassesFull(maps: Float64Array, mapOffset: number, C: number, mz: Float64Array, pr: Float64Array, pi: Float64Array, cp: number, sp: number): void {
+  const out = new Float64Array(3);
   for (let c = 0; c < C; c++) {
-    const b = mapOffset + c * 12, x0 = pr[c]!, y0 = pi[c]!, z = mz[c]!;
-    const x = x0 * cp + y0 * sp, y = -x0 * sp + y0 * cp;
-    const nx = maps[b]! * x + maps[b + 1]! * y + maps[b + 2]! * z + maps[b + 9]!;
-    const ny = maps[b + 3]! * x + maps[b + 4]! * y + maps[b + 5]! * z + maps[b + 10]!;
-    mz[c] = maps[b + 6]! * x + maps[b + 7]! * y + maps[b + 8]! * z + maps[b + 11]!;
-    pr[c] = nx * cp - ny * sp;
-    pi[c] = nx * sp + ny * cp;
+    rfOnState(maps, mapOffset + c * 12, pr[c]!, pi[c]!, mz[c]!, cp, sp, out);
+    pr[c] = out[0]!;
+    pi[c] = out[1]!;
+    mz[c] = out[2]!;
   }
 }
 

@@ -49,6 +49,19 @@ export function applyRf(
 }
 
 /**
+ * One RF class's pulse on its whole state with m0 = 1 (the class playback of the fast operator and the
+ * chunk shortcut): M ← Rz(φ)·(A·Rz(−φ)·M + b), as applyRf, with the map at maps[b …]; out = [x, y, z].
+ */
+export function rfOnState(maps: Float64Array, b: number, x0: number, y0: number, z: number, cp: number, sp: number, out: Float64Array): void {
+  const x = x0 * cp + y0 * sp, y = -x0 * sp + y0 * cp;
+  const nx = maps[b]! * x + maps[b + 1]! * y + maps[b + 2]! * z + maps[b + 9]!;
+  const ny = maps[b + 3]! * x + maps[b + 4]! * y + maps[b + 5]! * z + maps[b + 10]!;
+  out[2] = maps[b + 6]! * x + maps[b + 7]! * y + maps[b + 8]! * z + maps[b + 11]!;
+  out[0] = nx * cp - ny * sp;
+  out[1] = nx * sp + ny * cp;
+}
+
+/**
  * Gradient-only interval, exact in one step:
  * Mxy ← Mxy · U[iu]·V[iv]·W[iw] · D[i], Mz ← Mz·E1[i] + m0·(1 − E1[i]).
  * U, V, W are interleaved (cos, sin) tables of exp(−i2πγ̄·A·coordinate) per

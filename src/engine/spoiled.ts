@@ -7,6 +7,7 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { EnginePlan } from "./plan.js";
 import { adcGroups, adcOutput, readoutGroups, type ReadoutScratch } from "./readout.js";
+import { rfOnState } from "./kernels.js";
 
 /** Scratch of the spoiled shortcut, sized for the plan's largest chunk; reused across chunks. */
 export class SpoiledScratch {
@@ -16,6 +17,8 @@ export class SpoiledScratch {
   lc: Int32Array; firstOf: Int32Array;
   /** Per local class: Mz per unit m0, and the transverse state per unit m0 without the in-plane factors. */
   mz: Float64Array; pr: Float64Array; pi: Float64Array;
+  /** A pulse's result on one class's whole state (x, y, z): kernels.ts rfOnState. */
+  rfOut = new Float64Array(3);
   /** Per duration and local class: D = exp(−t·r2)·exp(−i2πΔf·t) (interleaved) and E1 = exp(−t·r1). */
   d: Float64Array[]; e1: Float64Array[];
   /** Per chunk isochromat (filled at each readout group's first): D over one dwell, interleaved. */
@@ -126,15 +129,12 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
         const cs = op.cosPhase, sn = op.sinPhase;
         if (active) {
           // a transverse part before the pulse (a balanced sequence, plan.classState): the whole map, as applyRf
+          const out = f.rfOut;
           for (let l = 0; l < nc; l++) {
-            const b = op.mapOffset + rfClass[firstOf[l]!]! * 12;
-            const x0 = pr[l]!, y0 = pi[l]!, z = mz[l]!;
-            const x = x0 * cs + y0 * sn, y = -x0 * sn + y0 * cs;
-            const nx = maps[b]! * x + maps[b + 1]! * y + maps[b + 2]! * z + maps[b + 9]!;
-            const ny = maps[b + 3]! * x + maps[b + 4]! * y + maps[b + 5]! * z + maps[b + 10]!;
-            mz[l] = maps[b + 6]! * x + maps[b + 7]! * y + maps[b + 8]! * z + maps[b + 11]!;
-            pr[l] = nx * cs - ny * sn;
-            pi[l] = nx * sn + ny * cs;
+            rfOnState(maps, op.mapOffset + rfClass[firstOf[l]!]! * 12, pr[l]!, pi[l]!, mz[l]!, cs, sn, out);
+            pr[l] = out[0]!;
+            pi[l] = out[1]!;
+            mz[l] = out[2]!;
           }
         } else {
           for (let l = 0; l < nc; l++) {
