@@ -644,7 +644,7 @@ export function fastReadoutFrom(seq: Sequence, plan: EnginePlan, src: FastSource
   // low rank of the transient alone: the operator runs per step (each on that step's lines, rows disjoint).
   const groups = sliceEncodingGroups(h);
   if (groups === null) return whole;
-  return fastPerGroup(groups, split, tolerance, (keep, s) => fastLines(seq, plan, src, h, keep, tolerance, s, allowHelper));
+  return fastPerGroup(groups, plan.rows * plan.read, plan.read, split, tolerance, (keep, s) => fastLines(seq, plan, src, h, keep, tolerance, s, allowHelper));
 }
 
 /** fastLines' answer where the line factor's rank exceeds MAX_RANK. */
@@ -654,49 +654,76 @@ const LINE_RANK_FAILED = `the magnetization differs too much between lines (line
  * The active readouts grouped by their slice-encoding moment kz = γ̄·∫G_slice (one group per slice-encoding
  * step, as a 0/1 mask over the readouts), or null where all share one kz.
  */
-function sliceEncodingGroups(h: { adcs: History["adcs"] }): Uint8Array[] | null {
-  const byKz = new Map<number, Uint8Array>();
+function sliceEncodingGroups(h: { adcs: History["adcs"] }): { mask: Uint8Array; rows: number[] }[] | null {
+  const byKz = new Map<number, { mask: Uint8Array; rows: number[] }>();
   h.adcs.forEach((a, n) => {
     if (!a.active) return;
     // kz in cycles/m rounded to 1e-6 (a slab's step is of order 10 cycles/m)
     const key = Math.round(GAMMA_BAR * a.area[2] * 1e6);
-    let m = byKz.get(key);
-    if (!m) byKz.set(key, (m = new Uint8Array(h.adcs.length)));
-    m[n] = 1;
+    let g = byKz.get(key);
+    if (!g) byKz.set(key, (g = { mask: new Uint8Array(h.adcs.length), rows: [] }));
+    g.mask[n] = 1;
+    if (!g.rows.includes(a.op.row)) g.rows.push(a.op.row);
   });
   if (byKz.size < 2) return null;
+  // the groups' rows must be disjoint (each row's k-space comes from one group)
+  const seen = new Set<number>();
+  for (const g of byKz.values()) for (const r of g.rows) {
+    if (seen.has(r)) return null;
+    seen.add(r);
+  }
   return [...byKz.keys()].sort((a, b) => a - b).map((k) => byKz.get(k)!);
 }
 
 /**
- * The fast operator run once per group of readouts (`run(mask, split)`), the results added (each group fills rows
- * of its own) and reported together: the largest rank, segment count and split, the pairs summed, and the estimate
- * as the groups' errors added in quadrature relative to the whole k-space (each group's relative estimate × its
- * k-space's norm). While that is over the tolerance, the group of the largest error is run again with its factors
- * truncated 10 times tighter (up to 100 times): a group of little signal (an outer slice-encoding step) may keep a
- * larger relative error, as its share of the whole is small.
+ * The fast operator run once per group of readouts (`run(mask, split)`), each group's rows (`rows`, disjoint)
+ * copied into one k-space, and reported together: the largest rank, segment count and split, the pairs summed,
+ * and the estimate as the groups' errors added in quadrature relative to the whole k-space (each group's relative
+ * estimate × its k-space's norm). While that is over the tolerance, the group of the largest error is run again
+ * with its factors truncated 10 times tighter (up to 100 times) and its rows replaced: a group of little signal
+ * (an outer slice-encoding step) may keep a larger relative error, as its share of the whole is small. Only the
+ * whole k-space and one group's result are held at a time.
  */
-function fastPerGroup(groups: Uint8Array[], split: number, tolerance: number, run: (keep: Uint8Array, split: number) => FastResult | string): FastResult | string {
-  const res: FastResult[] = [], n2: number[] = [], at: number[] = [];
-  const err2 = (g: number) => (res[g]!.report.estimate?.relL2 ?? 0) ** 2 * n2[g]!;
+function fastPerGroup(
+  groups: { mask: Uint8Array; rows: number[] }[], coilLength: number, rowLength: number, split: number, tolerance: number,
+  run: (keep: Uint8Array, split: number) => FastResult | string,
+): FastResult | string {
+  const G = groups.length, rel = new Float64Array(G), n2 = new Float64Array(G), at = new Float64Array(G);
+  const reports: ReadoutReport[] = [];
+  let re: Float64Array | null = null, im: Float64Array | null = null;
+  const err2 = (g: number) => rel[g]! * rel[g]! * n2[g]!;
   const once = (g: number, s: number): string | null => {
-    const r = run(groups[g]!, s);
+    const r = run(groups[g]!.mask, s);
     if (typeof r === "string") return `per slice-encoding step: ${r}`;
+    re ??= new Float64Array(r.re.length);
+    im ??= new Float64Array(r.im.length);
+    // the group's rows of every coil (coilLength values per coil, rowLength per row)
     let m = 0;
-    for (let k = 0; k < r.re.length; k++) m += r.re[k]! * r.re[k]! + r.im[k]! * r.im[k]!;
-    res[g] = r;
+    for (let q = 0; q * coilLength < r.re.length; q++) {
+      for (const row of groups[g]!.rows) {
+        const o = q * coilLength + row * rowLength;
+        for (let k = o; k < o + rowLength; k++) {
+          re[k] = r.re[k]!;
+          im[k] = r.im[k]!;
+          m += r.re[k]! * r.re[k]! + r.im[k]! * r.im[k]!;
+        }
+      }
+    }
+    rel[g] = r.report.estimate?.relL2 ?? 0;
     n2[g] = m;
     at[g] = s;
+    reports[g] = r.report;
     return null;
   };
-  for (let g = 0; g < groups.length; g++) {
+  for (let g = 0; g < G; g++) {
     const e = once(g, split);
     if (e) return e;
   }
-  const norm2 = n2.reduce((a, b) => a + b, 0);
+  let norm2 = 0;
+  for (let g = 0; g < G; g++) norm2 += n2[g]!;
   for (;;) {
     let worst = -1, e2 = 0;
-    for (let g = 0; g < groups.length; g++) {
+    for (let g = 0; g < G; g++) {
       e2 += err2(g);
       if (at[g]! < 100 * split && (worst < 0 || err2(g) > err2(worst))) worst = g;
     }
@@ -704,32 +731,26 @@ function fastPerGroup(groups: Uint8Array[], split: number, tolerance: number, ru
     const e = once(worst, 10 * at[worst]!);
     if (e) return e;
   }
-  // the groups' k-spaces added in group order (rows disjoint: every sum is one group's value + zeros)
-  const re = new Float64Array(res[0]!.re.length), im = new Float64Array(re.length);
   let samples = 0, segments = 0, rank = 0, splitMax = 0, transformed = 0, skipped = 0, skippedBound = 0, e2 = 0;
-  res.forEach((r, g) => {
-    for (let k = 0; k < re.length; k++) {
-      re[k] = re[k]! + r.re[k]!;
-      im[k] = im[k]! + r.im[k]!;
-    }
+  reports.forEach((r, g) => {
     e2 += err2(g);
-    samples += r.report.estimate?.samples ?? 0;
-    segments = Math.max(segments, r.report.segments ?? 0);
-    rank = Math.max(rank, r.report.lineRank ?? 0);
-    splitMax = Math.max(splitMax, r.report.split ?? 0);
-    transformed += r.report.pairs?.transformed ?? 0;
-    skipped += r.report.pairs?.skipped ?? 0;
-    skippedBound += r.report.pairs?.skippedBound ?? 0;
+    samples += r.estimate?.samples ?? 0;
+    segments = Math.max(segments, r.segments ?? 0);
+    rank = Math.max(rank, r.lineRank ?? 0);
+    splitMax = Math.max(splitMax, r.split ?? 0);
+    transformed += r.pairs?.transformed ?? 0;
+    skipped += r.pairs?.skipped ?? 0;
+    skippedBound += r.pairs?.skippedBound ?? 0;
   });
-  const first = res[0]!.report;
+  const first = reports[0]!;
   const report: ReadoutReport = {
     ...first,
-    method: `${first.method}, per slice-encoding step (${groups.length} steps: the line factor is of low rank within a step)`,
-    segments, lineRank: rank, lineGroups: groups.length, split: splitMax,
+    method: `${first.method}, per slice-encoding step (${G} steps: the line factor is of low rank within a step)`,
+    segments, lineRank: rank, lineGroups: G, split: splitMax,
     ...(first.pairs ? { pairs: { transformed, skipped, skippedBound } } : {}),
     estimate: { samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(e2 / norm2) : 0 },
   };
-  return { re, im, report };
+  return { re: re!, im: im!, report };
 }
 
 /** The fast operator on the readouts of `keep` (all active ones for null), given the classes' history. */
