@@ -34,7 +34,7 @@ export class ChunkScratch {
  * plan allows it, else plays every op per isochromat (runChunkGeneral).
  */
 export function runChunk(plan: EnginePlan, iso: IsochromatSet, c: number, outRe: Float64Array, outIm: Float64Array, s: ChunkScratch): void {
-  // the readout fold (fold.ts) is played by the general path
-  if (plan.classState && !plan.fold) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
+  // (with the readout fold, fold.ts, the shortcut hands its group sums to foldOutput)
+  if (plan.classState) runChunkSpoiled(plan, iso, c, outRe, outIm, (s.spoiled ??= new SpoiledScratch(plan, iso)), s.readout);
   else runChunkGeneral(plan, iso, c, outRe, outIm, (s.general ??= new GeneralScratch(plan)), s.readout);
 }

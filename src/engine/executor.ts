@@ -260,8 +260,14 @@ export async function simulateCells(
   }
   await new Promise((res) => setTimeout(res, 0));
   if (opts.signal?.aborted) throw new AbortedError();
-  if (typeof r === "string" || !(est <= tolerance)) {
-    const fallback = typeof r === "string" ? r : `the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`;
+  if (typeof r === "string") {
+    // the spoiled operator does not apply (e.g. EPI's alternating readouts): the stored isochromats go where
+    // simulateWith sends them — the time-segmented fold where it is asked for or predicted cheaper, else direct
+    const res = await storedWith(opts);
+    return { ...res, readout: res.readout.operator === "direct" ? { ...res.readout, requested, fallback: res.readout.fallback ?? r, ...auto } : res.readout };
+  }
+  if (!(est <= tolerance)) {
+    const fallback = `the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`;
     const res = await storedWith({ ...opts, readout: "direct" });
     return { ...res, readout: { ...res.readout, requested, fallback, ...auto } };
   }

@@ -617,8 +617,8 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   const base = predictReadoutCosts(seq, plan, iso, tolerance);
   const groups = base.groups, coils = plan.coils;
   const directUnits = groups * nsSum * coils;
-  // an ideally spoiled plan gives up the spoiled shortcut for the general path (every op on every isochromat)
-  const generalUnits = plan.classState ? W_FOLD.generalOp * iso.count * plan.ops.length : 0;
+  // (the fold keeps the class-state shortcut where the plan has it: runChunkSpoiled hands its group sums to foldOutput)
+  const generalUnits = 0;
   const foldUnits = NA * groups * (W_FOLD.group + W_FOLD.segment * L * coils) + (E / NA) * groups * nsSum * coils
     + transformUnits(kernelWidth) + W_FOLD.partial * plan.chunks * length + generalUnits;
   const predicted: ReadoutCosts = {

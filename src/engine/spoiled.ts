@@ -8,6 +8,7 @@ import type { IsochromatSet } from "../isochromats/index.js";
 import type { EnginePlan } from "./plan.js";
 import { adcGroups, adcOutput, readoutGroups, type ReadoutScratch } from "./readout.js";
 import { rfOnState } from "./kernels.js";
+import { FoldScratch, foldOutput } from "./fold.js";
 
 /** Scratch of the spoiled shortcut, sized for the plan's largest chunk; reused across chunks. */
 export class SpoiledScratch {
@@ -19,6 +20,8 @@ export class SpoiledScratch {
   mz: Float64Array; pr: Float64Array; pi: Float64Array;
   /** A pulse's result on one class's whole state (x, y, z): kernels.ts rfOnState. */
   rfOut = new Float64Array(3);
+  /** The readout fold's scratch (plan.fold set: the group sums go to foldOutput instead of adcOutput). */
+  fold: FoldScratch | null = null;
   /** Per duration and local class: D = exp(−t·r2)·exp(−i2πΔf·t) (interleaved) and E1 = exp(−t·r1). */
   d: Float64Array[]; e1: Float64Array[];
   /** Per chunk isochromat (filled at each readout group's first): D over one dwell, interleaved. */
@@ -119,7 +122,7 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
   }
   mz.fill(1, 0, nc);
   let active = false;
-  let groups = 0, groupedByPhaseAndSlice = -1, slots = 0, pats = 0;
+  let groups = 0, groupedByPhaseAndSlice = -1, slots = 0, pats = 0, adcIndex = 0;
   const groupOf = s.groupOf, liveOf = s.liveOf, zr = s.zr, zi = s.zi;
   const { slotStart, slotGroup, slotPat, patFirst, patLen, sumR, sumI, mem } = f;
   for (let o = 0; o < ops.length; o++) {
@@ -197,6 +200,7 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
         active = false;
         break;
       case "adc": {
+        const a = adcIndex++;
         // no transverse magnetization before the first pulse of a run: the readout adds nothing
         if (!active) break;
         if (groupedByPhaseAndSlice !== (op.groupByPhaseAndSlice ? 1 : 0)) {
@@ -244,7 +248,8 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
             zr[g] = zr[g]! + (xr * cr - xi * ci);
             zi[g] = zi[g]! + (xr * ci + xi * cr);
           }
-          adcOutput(plan, op, live, outRe, outIm, s);
+          if (plan.fold) foldOutput(plan, iso, i0, op, a, groups, live, outRe, outIm, s, (f.fold ??= new FoldScratch()));
+          else adcOutput(plan, op, live, outRe, outIm, s);
           break;
         }
         // z_g = Σ_{i∈g} m0_i·P_c·Ua[iu]·Va[iv] (·S_q(r_i)), in isochromat order; [coil][live group]
@@ -275,7 +280,8 @@ export function runChunkSpoiled(plan: EnginePlan, iso: IsochromatSet, c: number,
             }
           }
         }
-        adcOutput(plan, op, live, outRe, outIm, s);
+        if (plan.fold) foldOutput(plan, iso, i0, op, a, groups, live, outRe, outIm, s, (f.fold ??= new FoldScratch()));
+        else adcOutput(plan, op, live, outRe, outIm, s);
         break;
       }
     }
