@@ -32,9 +32,12 @@
  * EPI of the two-bottle phantom with a B0 expression (varying through the
  * slice too, so readout groups = isochromats) and the T2′ spread;
  * BENCH_FOLD_ROW=<text> keeps the rows whose label contains it.
+ * Preset rows (BENCH_ONLY=presets, BENCH_PRESETS=0 to skip): every bundled
+ * preset on the torso through the command line with its own defaults, as a
+ * new user runs it (whole process, peak RSS, readout operator or refusal).
  */
 import { spawnSync } from "node:child_process";
-import { mkdtempSync, rmSync } from "node:fs";
+import { mkdtempSync, readdirSync, rmSync } from "node:fs";
 import { tmpdir, availableParallelism, cpus } from "node:os";
 import { dirname, join } from "node:path";
 import { readFileSync } from "node:fs";
@@ -185,7 +188,9 @@ function readoutNote(r: unknown): string {
   if (o.operator !== "fast") return `${auto}${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
   const ip = (o as { b0Interpolation?: { nodes: number; stepHz: number; maxRelError: number } }).b0Interpolation;
   const interp = ip ? `, Δf interpolated (${ip.nodes.toLocaleString("en")} nodes ${ip.stepHz.toFixed(1)} Hz apart, probes ${ip.maxRelError.toExponential(1)})` : "";
-  return `${auto}fast, L ${o.segments}, rank ${o.lineRank}, estimate ${o.estimate?.relL2.toExponential(1)}${interp}`;
+  const method = (o as { method?: string }).method ?? "";
+  const how = /fold/.test(method) ? "fold" : `rank ${o.lineRank}`;
+  return `${auto}fast, L ${o.segments}, ${how}, estimate ${o.estimate?.relL2.toExponential(1)}${interp}`;
 }
 
 /**
@@ -458,8 +463,45 @@ function g(x: number): string {
   return `${(x / 1e3).toFixed(1)} k`;
 }
 
+/**
+ * Every bundled preset on the torso phantom with the command line's own defaults, as a new user runs it
+ * (`isofold simulate phantoms/torso-slice.json -p <preset>`): wall time of the whole process (module loading
+ * included), peak RSS, isochromats and the readout operator; a refusal (exit 2) is shown with its reason.
+ */
+function presetRows(): void {
+  const presets = readdirSync(join("src", "protocol", "presets")).filter((f) => f.endsWith(".json")).map((f) => f.replace(/\.json$/, "")).sort();
+  console.log("");
+  console.log("| every preset on the torso, command-line defaults (fresh process, module loading included) | isochromats | wall time, peak RSS | readout |");
+  console.log("| --- | --- | --- | --- |");
+  for (const preset of presets) {
+    const out = mkdtempSync(join(tmpdir(), "isofold-bench-preset-"));
+    try {
+      const t = performance.now();
+      const r = spawnSync(process.execPath, [SELF, "--cli", JSON.stringify(["simulate", "phantoms/torso-slice.json", "-p", preset, "-o", join(out, "run"), "-q"])], { encoding: "utf8", maxBuffer: 1 << 24 });
+      const seconds = (performance.now() - t) / 1000;
+      const rss = Number(/BENCH_RSS_KIB (\d+)/.exec(r.stderr)?.[1] ?? NaN) / 1024;
+      if (r.status !== 0) {
+        const why = r.stderr.split("\n").find((l) => l.startsWith("isofold: error:")) ?? `exit ${r.status}`;
+        // the estimate and what the refusal suggests (the line's head and tail)
+        const short = why.length > 260 ? `${why.slice(0, 110)} … ${why.slice(-140)}` : why;
+        console.log(`| ${preset} | — | refused after ${seconds.toFixed(1)} s | ${short.replace(/\|/g, "/")} |`);
+        continue;
+      }
+      const rep = JSON.parse(readFileSync(join(out, "run", "report.json"), "utf8")) as { isochromats: { count: number }; engine: { readout: unknown } };
+      const ro = Array.isArray(rep.engine.readout) ? rep.engine.readout[0] : rep.engine.readout;
+      console.log(`| ${preset} | ${rep.isochromats.count.toLocaleString("en")} | ${seconds.toFixed(1)} s, ${rss.toFixed(0)} MiB | ${readoutNote(ro).replace(/\|/g, "/")} |`);
+    } finally {
+      rmSync(out, { recursive: true, force: true });
+    }
+  }
+}
+
 async function main(): Promise<void> {
   const runs = Number(process.env["BENCH_RUNS"] ?? 3);
+  if (process.env["BENCH_ONLY"] === "presets") {
+    presetRows();
+    return;
+  }
   if (process.env["BENCH_ONLY"] === "fast") {
     await fastRows(runs);
     return;
@@ -518,6 +560,7 @@ async function main(): Promise<void> {
   }
   await fastRows(runs);
   await foldRows();
+  if (process.env["BENCH_PRESETS"] !== "0") presetRows();
   if (process.env["BENCH_DATASET"] !== "0") datasetRows();
 }
 
@@ -528,6 +571,13 @@ if (!isMainThread) {
   parentPort!.once("message", () => parentPort!.postMessage(runJob(j)));
 } else if (process.argv[2] === "--e2e") {
   await e2eChild(JSON.parse(process.argv[3]!) as E2E);
+} else if (process.argv[2] === "--cli") {
+  // the command line itself in this process (its own defaults), and this process's peak RSS on stderr at exit
+  const args = JSON.parse(process.argv[3]!) as string[];
+  const cli = join(dirname(SELF), "..", "src", "cli", "index.js");
+  process.argv = [process.argv[0]!, cli, ...args];
+  process.on("exit", () => process.stderr.write(`\nBENCH_RSS_KIB ${process.resourceUsage().maxRSS}\n`));
+  await import(cli);
 } else {
   await main();
 }
