@@ -148,6 +148,18 @@ export function checkMemory(e: MemoryEstimate, limit: number, asked: IsochromatO
     const s = asked.sliceCount, fewer: number[] = [];
     for (let v = Math.floor((s * 3) / 4); v >= 1 && fewer.length < 8; v = Math.floor((v * 3) / 4)) fewer.push(v);
     first("--slice-isochromats", "sliceCount", fewer);
+    if (ways.length === 0) {
+      // no one option alone: the first pair of a lower density and a smaller T2′ spread that fits (a voxel's spread is
+      // shared among its density² columns, so the two together cut what neither cuts alone)
+      pairs: for (let d = asked.density - 1; d >= 1; d--) {
+        for (const v of halves) {
+          if (at({ density: d, t2primeIsochromats: v }).bytes <= limit) {
+            ways.push(`--density ${d} --t2prime-isochromats ${v} (together)`);
+            break pairs;
+          }
+        }
+      }
+    }
   } else {
     const r = fit / Math.max(1, e.isochromats);
     const d = Math.floor(asked.density * Math.sqrt(r));
@@ -160,7 +172,7 @@ export function checkMemory(e: MemoryEstimate, limit: number, asked: IsochromatO
   const how = ways.length > 0
     ? `; about ${fit.toLocaleString("en")} would fit: try ${ways.join(" or ")}`
     : at
-      ? `; about ${fit.toLocaleString("en")} would fit, and no lower --density, --t2prime-isochromats or --slice-isochromats alone gets there: lower the matrix, or run with a larger --max-memory on a machine with more memory`
+      ? `; about ${fit.toLocaleString("en")} would fit, and no lower --density, --t2prime-isochromats or --slice-isochromats (alone, or density and spread together) gets there: lower the matrix, or run with a larger --max-memory on a machine with more memory`
       : "; lower --density, --slice-isochromats or the matrix";
   if (e.streamed) {
     throw new UserError(
