@@ -500,7 +500,7 @@ function addSegment(sr: Float64Array, si: Float64Array, xr: Float64Array, xi: Fl
  * B0 varying through the slice (groups = isochromats): direct 9.7 s, fold
  * 7.3–9.0 s at 10–21 segments, as these weights predict within the noise.
  */
-const W_FOLD = { group: 5, segment: 4, partial: 3, generalOp: 5 };
+const W_FOLD = { group: 5, segment: 4, partial: 3 };
 /**
  * Cost weights of the non-uniform FFT over positions (same unit): per point
  * and readout (its phase, kernel values: one exp per grid point), per point,
@@ -617,10 +617,10 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   const base = predictReadoutCosts(seq, plan, iso, tolerance);
   const groups = base.groups, coils = plan.coils;
   const directUnits = groups * nsSum * coils;
-  // (the fold keeps the class-state shortcut where the plan has it: runChunkSpoiled hands its group sums to foldOutput)
-  const generalUnits = 0;
+  // (Bloch propagation is the chunk runner's either way: the fold keeps the class-state shortcut where the plan
+  // has it, runChunkSpoiled handing its group sums to foldOutput)
   const foldUnits = NA * groups * (W_FOLD.group + W_FOLD.segment * L * coils) + (E / NA) * groups * nsSum * coils
-    + transformUnits(kernelWidth) + W_FOLD.partial * plan.chunks * length + generalUnits;
+    + transformUnits(kernelWidth) + W_FOLD.partial * plan.chunks * length;
   const predicted: ReadoutCosts = {
     directMs: (directUnits * DIRECT_NS_PER_UNIT) / 1e6, fastMs: (foldUnits * DIRECT_NS_PER_UNIT) / 1e6, directUnits, fastUnits: foldUnits,
     segmentsBound: L, groups, slots: base.slots,
