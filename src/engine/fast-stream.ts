@@ -811,15 +811,32 @@ export class CellStream {
         classIw.fill(Math.floor(g / T), ip.gBase[g]!, ip.gBase[g]! + ip.gM[g]! + ip.p);
       }
       for (const pr of this.probes) classIw[pr.cls] = Math.floor(pr.g / T);
-      const wt = new Float64Array(ip.p), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
+      const nodes = this.maxGroupNodes(), wt = new Float64Array(ip.p), wc = new Float64Array(nodes), range = new Int32Array(2);
+      // An entry's node weights depend on its tissue and sub-position (its terms), its B0 and its group's lattice (lowest
+      // node and node count), not on its w: the entries of one column through the slice (one B0, groups spanning the
+      // same B0) share them. The last weights of each tissue are kept and reused where all of these match (the same
+      // numbers as made anew; each node belongs to one w, so its sum runs in the same order).
+      const keepWc = new Float64Array(T * nodes), keepLo = new Int32Array(T), keepHi = new Int32Array(T);
+      const keyB0 = new Float64Array(T).fill(NaN), keyLo = new Float64Array(T), keyM = new Int32Array(T), keySub = new Int32Array(T).fill(-1);
       for (let col = 0; col < cells.columns; col++) {
         const sub = cells.colSub[col]!;
         for (let e = cells.entStart[col]!; e < cells.entStart[col + 1]!; e++) {
           const ti = cells.entTissue[e]!, c = cells.entW[e]!, z = (c * T + ti) * D2 + sub, a = Math.abs(pd[ti]! * cells.entFrac[e]!), g = c * T + ti;
+          const base = ip.gBase[g]!, o = ti * nodes;
+          if (keySub[ti] === sub && keyB0[ti] === ip.eB0[e] && keyLo[ti] === ip.gLo[g] && keyM[ti] === ip.gM[g]) {
+            for (let j = keepLo[ti]!; j < keepHi[ti]!; j++) mass[base + j] = mass[base + j]! + a * Math.abs(keepWc[o + j]!);
+            continue;
+          }
           this.entryNodes(e, z, g, wc, wt, range);
+          keySub[ti] = sub;
+          keyB0[ti] = ip.eB0[e]!;
+          keyLo[ti] = ip.gLo[g]!;
+          keyM[ti] = ip.gM[g]!;
+          keepLo[ti] = range[0]!;
+          keepHi[ti] = range[1]!;
           for (let j = range[0]!; j < range[1]!; j++) {
-            const k = ip.gBase[g]! + j;
-            mass[k] = mass[k]! + a * Math.abs(wc[j]!);
+            mass[base + j] = mass[base + j]! + a * Math.abs(wc[j]!);
+            keepWc[o + j] = wc[j]!;
             wc[j] = 0;
           }
         }
