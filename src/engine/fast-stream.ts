@@ -534,7 +534,7 @@ export class CellStream {
    * where the receiver filter is flat over all its entries (else false: the
    * per-node fold runs). Null where the tables would not fit TABLE_DOUBLES.
    */
-  private shiftTables(ip: DfNodes, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, Ck: Float64Array, L: number) {
+  private shiftTables(ip: DfNodes, G: Float64Array, R: number, r0: number, r1: number, keyOf: Int32Array, Ck: Float64Array, L: number, tol: number) {
     const { cells, T, D2, zStart } = this, nw = cells.wGrid.length, NG = nw * T, p = ip.p, step = ip.step;
     const W = r1 - r0, WL = W * L, eB0 = ip.eB0, pd = cells.ctx.pd;
     const lat = this.shiftLattice(ip, 2 * WL);
@@ -583,6 +583,91 @@ export class CellStream {
       wtabs[key] = out;
       return out;
     };
+    // With sensitivities: a column of one tissue at one fraction through every w, at one B0 through the slice, where the
+    // tissue's groups share one node lattice (sameLattice), reads moment tables M_p(J) = Σ_c ψ_p(c)·table(c, J) on the
+    // fold's through-slice basis ψ (complete: table(c, J) = Σ_p ψ_p(c)·M_p(J)), made on first use per (tissue, place,
+    // shift J) with their norms; then coil q adds Σ_p s_qp·fp·Σ_x ℓ_x·M_p(J0 + x) (s_qp its sensitivity's moments) over
+    // the terms keepTerms keeps within tol, as the fold does without B0: a few moments instead of every w, per coil.
+    const { NY } = lat, sameLattice = new Uint8Array(T);
+    for (let ti = 0; ti < T; ti++) {
+      let ok = nw > 0 ? 1 : 0;
+      for (let c = 1; c < nw && ok; c++) {
+        const g = c * T + ti;
+        if (lo[g] !== lo[ti] || sM[g] !== sM[ti]) ok = 0;
+      }
+      if (!(hi[ti]! >= lo[ti]!)) ok = 0;
+      sameLattice[ti] = ok;
+    }
+    let psi: Float64Array | null = null;
+    const momTabs = new Map<number, { mom: Float64Array; norm: Float64Array } | null>(), stack = new Float64Array(2 * WL * nw);
+    const momTable = (ti: number, sub: number, j: number): { mom: Float64Array; norm: Float64Array } | null => {
+      const key = (ti * D2 + sub) * NY + j;
+      let m = momTabs.get(key);
+      if (m !== undefined) return m;
+      m = { mom: new Float64Array(2 * WL * nw), norm: new Float64Array(nw) };
+      for (let c = 0; c < nw && m; c++) {
+        const g = c * T + ti, z = g * D2 + sub;
+        if (zStart[z + 1]! === zStart[z]! || j < 0 || j >= sM[g]! + p) m = null;
+        else stack.set(table(z, g, j), 2 * WL * c);
+      }
+      if (m) sliceMoments(psi!, nw, stack, 2 * WL, m.mom, m.norm);
+      momTabs.set(key, m);
+      return m;
+    };
+    const sm = new Float64Array(0), mts: ({ mom: Float64Array; norm: Float64Array } | null)[] = new Array(p).fill(null);
+    let smom = sm, bound = new Float64Array(0), eTerm = new Float64Array(0), drop = new Float64Array(1), need = new Uint8Array(0), colM = new Float64Array(0);
+    let gams: Float64Array[] = [], orders: Int32Array[] = [], nks = new Int32Array(0);
+    const momentColumn = (col: number, sub: number, e0: number, S: Float64Array, coils: number, pr0: number, pi0: number, XB: Float64Array, ob: number): boolean => {
+      const ti = colTi[col]!;
+      for (let e = e0 + 1; e < e0 + nw; e++) if (eB0[e] !== eB0[e0]) return false;
+      psi ??= throughSliceBasis(cells.wGrid);
+      if (smom.length !== 2 * coils * nw) {
+        smom = new Float64Array(2 * coils * nw);
+        bound = new Float64Array(nw);
+        eTerm = new Float64Array(nw);
+        need = new Uint8Array(nw);
+        colM = new Float64Array(2 * WL * nw);
+        gams = Array.from({ length: coils }, () => new Float64Array(2 * nw));
+        orders = Array.from({ length: coils }, () => new Int32Array(nw));
+        nks = new Int32Array(coils);
+      }
+      const j0 = shift.expand(eB0[e0]!, ti, swt) - sBase[ti]!;
+      for (let x = 0; x < p; x++) {
+        mts[x] = momTable(ti, sub, j0 + x);
+        if (!mts[x]) return false;
+      }
+      const fp = colFp[col]!;
+      // ‖fp·Σ_x ℓ_x·M_p(J0 + x)‖ ≤ |fp|·Σ_x |ℓ_x|·‖M_p(J0 + x)‖: each term's bound for keepTerms
+      for (let q = 0; q < nw; q++) {
+        let b = 0;
+        for (let x = 0; x < p; x++) b += Math.abs(swt[x]!) * mts[x]!.norm[q]!;
+        bound[q] = Math.abs(fp) * b;
+      }
+      projectThroughSlice(psi, S, coils, nw, smom);
+      need.fill(0);
+      const st = this.sensStats;
+      for (let q = 0; q < coils; q++) {
+        const e2 = coilTerms(smom, q, nw, pr0, pi0, bound, gams[q]!, eTerm);
+        const nk = keepTerms(eTerm, nw, tol * Math.sqrt(e2), orders[q]!, drop);
+        nks[q] = nk;
+        for (let i = 0; i < nk; i++) need[orders[q]![i]!] = 1;
+        st.columns++;
+        st.terms += nk;
+        if (e2 > 0) st.maxRel = Math.max(st.maxRel, drop[0]! / Math.sqrt(e2));
+      }
+      // the interpolated moments the coils keep
+      for (let q = 0; q < nw; q++) {
+        if (need[q] === 0) continue;
+        const o = 2 * WL * q;
+        colM.fill(0, o, o + 2 * WL);
+        for (let x = 0; x < p; x++) {
+          const f = fp * swt[x]!, m = mts[x]!.mom;
+          for (let i = 0; i < 2 * WL; i++) colM[o + i] = colM[o + i]! + f * m[o + i]!;
+        }
+      }
+      for (let q = 0; q < coils; q++) if (nks[q]! > 0) addMoments(XB, ob + 2 * q * L, 2 * coils * L, W, L, colM, gams[q]!, orders[q]!, nks[q]!, 2 * WL);
+      return true;
+    };
     return {
       column: (col: number, sub: number, u: number, filt: boolean, fRead: number, bw: number, S: Float64Array, hasSens: boolean, coils: number,
         pr0: number, pi0: number, XB: Float64Array, ob: number): boolean => {
@@ -593,6 +678,7 @@ export class CellStream {
             if (zStart[z + 1]! > zStart[z]! && !flatFor(fRead * u, eB0[e]! + zLo[z]! - margin, eB0[e]! + zHi[z]! + margin, bw)) return false;
           }
         }
+        if (hasSens && e1 - e0 === nw && oneTissue[col] === 1 && sameLattice[colTi[col]!] === 1 && momentColumn(col, sub, e0, S, coils, pr0, pi0, XB, ob)) return true;
         let summed = false;
         if (!hasSens && useW && oneTissue[col] === 1 && e1 - e0 === nw) {
           let same = true;
@@ -890,7 +976,7 @@ export class CellStream {
     const nw = cells.wGrid.length, hasSens = this.sens !== null;
     // per term: its key and f·G_r(class) for the ranks of this pass
     const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
-    const lat = ip ? this.shiftTables(ip, G, R, r0, r1, keyOf, Ck, L) : null;
+    const lat = ip ? this.shiftTables(ip, G, R, r0, r1, keyOf, Ck, L, tol) : null;
     const counted = ip ? new Uint8Array(cells.columns) : null;
     this.interpStats = { tableColumns: 0, nodeColumns: 0 };
     const b0 = this.eClass !== null || ip !== null, nt0 = b0 ? 0 : zClass.length, tKey = new Int32Array(nt0), tVal = new Float64Array(2 * W * nt0);
