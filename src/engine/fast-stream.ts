@@ -478,7 +478,7 @@ export class CellStream {
    * Null where nz·NY tables of `per` numbers would pass TABLE_DOUBLES.
    */
   private shiftLattice(ip: DfNodes, per: number) {
-    const { cells, T, D2, zStart, zDf } = this, NG = cells.wGrid.length * T, nz = NG * D2, p = ip.p, step = ip.step, eB0 = ip.eB0;
+    const { cells, T, D2, zStart, zDf } = this, nw = cells.wGrid.length, NG = nw * T, nz = NG * D2, p = ip.p, step = ip.step, eB0 = ip.eB0;
     const lo = new Float64Array(NG).fill(Infinity), hi = new Float64Array(NG).fill(-Infinity);
     for (let e = 0; e < cells.entW.length; e++) {
       const g = cells.entW[e]! * T + cells.entTissue[e]!;
@@ -520,7 +520,15 @@ export class CellStream {
         return tab;
       };
     };
-    return { lo, hi, sBase, sM, NY, shift: new DfNodes(step, lo, sBase, sM, eB0), zLo, zHi, lazy };
+    // per tissue: whether its groups of every w share one node lattice (the same lowest node and node count), so that
+    // shift j means the same B0 for all of them (tables of a column through the slice can then be combined per j)
+    const sameLattice = new Uint8Array(T);
+    for (let ti = 0; ti < T; ti++) {
+      let ok = nw > 0 && hi[ti]! >= lo[ti]! ? 1 : 0;
+      for (let c = 1; c < nw && ok; c++) if (lo[c * T + ti] !== lo[ti] || sM[c * T + ti] !== sM[ti]) ok = 0;
+      sameLattice[ti] = ok;
+    }
+    return { lo, hi, sBase, sM, NY, shift: new DfNodes(step, lo, sBase, sM, eB0), zLo, zHi, lazy, sameLattice };
   }
 
   /**
@@ -588,16 +596,7 @@ export class CellStream {
     // fold's through-slice basis ψ (complete: table(c, J) = Σ_p ψ_p(c)·M_p(J)), made on first use per (tissue, place,
     // shift J) with their norms; then coil q adds Σ_p s_qp·fp·Σ_x ℓ_x·M_p(J0 + x) (s_qp its sensitivity's moments) over
     // the terms keepTerms keeps within tol, as the fold does without B0: a few moments instead of every w, per coil.
-    const { NY } = lat, sameLattice = new Uint8Array(T);
-    for (let ti = 0; ti < T; ti++) {
-      let ok = nw > 0 ? 1 : 0;
-      for (let c = 1; c < nw && ok; c++) {
-        const g = c * T + ti;
-        if (lo[g] !== lo[ti] || sM[g] !== sM[ti]) ok = 0;
-      }
-      if (!(hi[ti]! >= lo[ti]!)) ok = 0;
-      sameLattice[ti] = ok;
-    }
+    const { NY, sameLattice } = lat;
     let psi: Float64Array | null = null;
     const momTabs = new Map<number, { mom: Float64Array; norm: Float64Array } | null>(), stack = new Float64Array(2 * WL * nw);
     const momTable = (ti: number, sub: number, j: number): { mom: Float64Array; norm: Float64Array } | null => {
@@ -757,6 +756,41 @@ export class CellStream {
       }
     });
     const colY = new Float64Array(2 * NS * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
+    // One uniform coil: a column of one tissue at one fraction through every w, at one B0 through the slice, where the
+    // tissue's groups share one node lattice, reads the tables summed over w per (tissue, place, shift), made on first use
+    const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this, { NY, sameLattice, sM } = lat;
+    const sums = new Map<number, Float64Array | null>(), tabs: (Float64Array | null)[] = new Array(p).fill(null);
+    const wsum = (ti: number, sub: number, j: number): Float64Array | null => {
+      const key = (ti * D2 + sub) * NY + j;
+      let out = sums.get(key);
+      if (out !== undefined) return out;
+      out = new Float64Array(2 * NS);
+      for (let c = 0; c < nw && out; c++) {
+        const g = c * T + ti, z = g * D2 + sub;
+        if (zStart[z + 1]! === zStart[z]! || j < 0 || j >= sM[g]! + p) out = null;
+        else {
+          const tab = table(z, g, j);
+          for (let i = 0; i < 2 * NS; i++) out[i] = out[i]! + tab[i]!;
+        }
+      }
+      sums.set(key, out);
+      return out;
+    };
+    const summedColumn = (col: number, sub: number, e0: number, colv: Float64Array): boolean => {
+      for (let e = e0 + 1; e < e0 + nw; e++) if (eB0[e] !== eB0[e0]) return false;
+      const ti = colTi[col]!, j0 = shift.expand(eB0[e0]!, ti, swt) - sBase[ti]!;
+      for (let x = 0; x < p; x++) {
+        tabs[x] = wsum(ti, sub, j0 + x);
+        if (!tabs[x]) return false;
+      }
+      colv.fill(0);
+      const fp = colFp[col]!;
+      for (let x = 0; x < p; x++) {
+        const tab = tabs[x]!, f = fp * swt[x]!;
+        for (let i = 0; i < 2 * NS; i++) colv[i] = colv[i]! + f * tab[i]!;
+      }
+      return true;
+    };
     return {
       column: (col: number, sub: number, u: number, S: Float64Array | null, coils: number, colv: Float64Array): boolean => {
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
@@ -766,6 +800,7 @@ export class CellStream {
             if (zStart[z + 1]! > zStart[z]! && !flatFor(filter.fRead * u, eB0[e]! + zLo[z]! - margin, eB0[e]! + zHi[z]! + margin, filter.bw)) return false;
           }
         }
+        if (!S && e1 - e0 === nw && oneTissue[col] === 1 && sameLattice[colTi[col]!] === 1 && summedColumn(col, sub, e0, colv)) return true;
         for (let e = e0; e < e1; e++) {
           const c = cells.entW[e]!, ti = cells.entTissue[e]!, g = c * T + ti, z = g * D2 + sub;
           if (zStart[z + 1]! === zStart[z]!) continue;
