@@ -1835,8 +1835,12 @@ function dftCost(n: number): number {
 
 /** Work units per isochromat of the direct operator's one-off grouping (hashing each isochromat's group and slot pattern once per chunk). */
 const GROUPING_UNITS = 30;
-/** Chunks sampled for the readout-group count (evenly spaced, deterministic). */
-const COST_SAMPLE_CHUNKS = 32;
+/**
+ * Chunks sampled for the readout-group count (evenly spaced, deterministic): at most COST_SAMPLE_CHUNKS, and at most
+ * one in COST_SAMPLE_EVERY (at least COST_SAMPLE_MIN), so that a small run does not spend a third of its
+ * isochromats on its own prediction (the 128² demo: 13 of 104 chunks instead of 32).
+ */
+const COST_SAMPLE_CHUNKS = 32, COST_SAMPLE_EVERY = 8, COST_SAMPLE_MIN = 8;
 
 const costCache = new WeakMap<EnginePlan, { tolerance: number; costs: ReadoutCosts }>();
 
@@ -1961,7 +1965,7 @@ export function predictCosts(
   const K = Math.max(1, keyDf.length);
   // readout groups and slots per chunk, from evenly spaced sample chunks, scaled by isochromats
   const nv = Math.max(1, iso.vGrid.length), nu = Math.max(1, iso.uGrid.length);
-  const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS);
+  const picks = Math.min(plan.chunks, COST_SAMPLE_CHUNKS, Math.max(COST_SAMPLE_MIN, Math.ceil(plan.chunks / COST_SAMPLE_EVERY)));
   let sg = 0, ss = 0, sn = 0, sc = 0;
   // distinct classes, (a, key) groups and (a, b, key) slots of the chunk: stamps (pick p + 1) per class and
   // group where they fit, else counted sets; per column its distinct keys (stamp: the column's number)
