@@ -613,8 +613,9 @@ export class CellStream {
       momTabs.set(key, m);
       return m;
     };
-    const sm = new Float64Array(0), mts: ({ mom: Float64Array; norm: Float64Array } | null)[] = new Array(p).fill(null);
-    let smom = sm, bound = new Float64Array(0), eTerm = new Float64Array(0), drop = new Float64Array(1), need = new Uint8Array(0), colM = new Float64Array(0);
+    const mts: ({ mom: Float64Array; norm: Float64Array } | null)[] = new Array(p).fill(null);
+    // scratch sized for the coil count on first use: the sensitivity's moments, each term's bound, the moments kept
+    let smom = new Float64Array(0), bound = new Float64Array(0), eTerm = new Float64Array(0), drop = new Float64Array(1), need = new Uint8Array(0), colM = new Float64Array(0);
     let gams: Float64Array[] = [], orders: Int32Array[] = [], nks = new Int32Array(0);
     const momentColumn = (col: number, sub: number, e0: number, S: Float64Array, coils: number, pr0: number, pi0: number, XB: Float64Array, ob: number): boolean => {
       const ti = colTi[col]!;
