@@ -435,7 +435,7 @@ function showRest(o: RunOutput, g: number, executor: string): void {
   }
   syncControls();
   $("quality").textContent = o.quality === "preview" ? "preview quality (density 1, 3 through-slice isochromats, no T2′ spread: T2′ in closed form at a gradient echo where it matters, else left out)" : "default quality";
-  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, chunks on ${o.ranOn || "no engine run"}, kernels ${o.kernels}${o.reused.length ? `; kept from an earlier edit: ${o.reused.join(", ")}` : ""}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
+  $("status").textContent = `${o.quality === "preview" ? "preview" : "refined"}: ${o.isochromats} isochromats, ${o.readout} readout operator, ${executor}, ${o.ranOn ? `chunks on ${o.ranOn}` : "no chunk run (the fast operator streamed the cells)"}, kernels ${o.kernels}${o.reused.length ? `; kept from an earlier edit: ${o.reused.join(", ")}` : ""}; in the worker: ${Object.entries(o.timings).map(([k, v]) => `${k} ${v.toFixed(0)} ms`).join(", ")}`;
   if (o.quality === "full") {
     $("progress-wrap").hidden = true;
     (window as any).__preview.refined = g;
