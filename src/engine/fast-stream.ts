@@ -528,7 +528,17 @@ export class CellStream {
       for (let c = 1; c < nw && ok; c++) if (lo[c * T + ti] !== lo[ti] || sM[c * T + ti] !== sM[ti]) ok = 0;
       sameLattice[ti] = ok;
     }
-    return { lo, hi, sBase, sM, NY, shift: new DfNodes(step, lo, sBase, sM, eB0), zLo, zHi, lazy, sameLattice };
+    // the tables (from a lazy getter) of tissue ti at place sub and shift j of every w in order, to visit(c, table);
+    // false where some w has no such table (no terms, or j beyond its group's shifts)
+    const eachW = (table: (z: number, g: number, j: number) => Float64Array, ti: number, sub: number, j: number, visit: (c: number, tab: Float64Array) => void): boolean => {
+      for (let c = 0; c < nw; c++) {
+        const g = c * T + ti, z = g * D2 + sub;
+        if (zStart[z + 1]! === zStart[z]! || j < 0 || j >= sM[g]! + p) return false;
+        visit(c, table(z, g, j));
+      }
+      return true;
+    };
+    return { lo, hi, sBase, sM, NY, shift: new DfNodes(step, lo, sBase, sM, eB0), zLo, zHi, lazy, sameLattice, eachW };
   }
 
   /**
@@ -603,13 +613,11 @@ export class CellStream {
       const key = (ti * D2 + sub) * NY + j;
       let m = momTabs.get(key);
       if (m !== undefined) return m;
-      m = { mom: new Float64Array(2 * WL * nw), norm: new Float64Array(nw) };
-      for (let c = 0; c < nw && m; c++) {
-        const g = c * T + ti, z = g * D2 + sub;
-        if (zStart[z + 1]! === zStart[z]! || j < 0 || j >= sM[g]! + p) m = null;
-        else stack.set(table(z, g, j), 2 * WL * c);
+      m = null;
+      if (lat.eachW(table, ti, sub, j, (c, tab) => stack.set(tab, 2 * WL * c))) {
+        m = { mom: new Float64Array(2 * WL * nw), norm: new Float64Array(nw) };
+        sliceMoments(psi!, nw, stack, 2 * WL, m.mom, m.norm);
       }
-      if (m) sliceMoments(psi!, nw, stack, 2 * WL, m.mom, m.norm);
       momTabs.set(key, m);
       return m;
     };
@@ -759,21 +767,16 @@ export class CellStream {
     const colY = new Float64Array(2 * NS * nw), usedW = new Uint8Array(nw), margin = (p / 2 + 1) * step;
     // One uniform coil: a column of one tissue at one fraction through every w, at one B0 through the slice, where the
     // tissue's groups share one node lattice, reads the tables summed over w per (tissue, place, shift), made on first use
-    const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this, { NY, sameLattice, sM } = lat;
+    const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this, { NY, sameLattice } = lat;
     const sums = new Map<number, Float64Array | null>(), tabs: (Float64Array | null)[] = new Array(p).fill(null);
     const wsum = (ti: number, sub: number, j: number): Float64Array | null => {
       const key = (ti * D2 + sub) * NY + j;
       let out = sums.get(key);
       if (out !== undefined) return out;
-      out = new Float64Array(2 * NS);
-      for (let c = 0; c < nw && out; c++) {
-        const g = c * T + ti, z = g * D2 + sub;
-        if (zStart[z + 1]! === zStart[z]! || j < 0 || j >= sM[g]! + p) out = null;
-        else {
-          const tab = table(z, g, j);
-          for (let i = 0; i < 2 * NS; i++) out[i] = out[i]! + tab[i]!;
-        }
-      }
+      const acc = new Float64Array(2 * NS);
+      out = lat.eachW(table, ti, sub, j, (_c, tab) => {
+        for (let i = 0; i < 2 * NS; i++) acc[i] = acc[i]! + tab[i]!;
+      }) ? acc : null;
       sums.set(key, out);
       return out;
     };
