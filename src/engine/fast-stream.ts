@@ -37,7 +37,7 @@ import { projectThroughSlice, throughSliceBasis } from "./slice-basis.js";
 import { FoldMoments } from "./fold-wasm.js";
 import { kernelSwitch } from "./wasm-asm.js";
 import { openPosition } from "./fast-phase.js";
-import { addSegments, estimateOver, mulberry32, type ColumnVisitor, type EstimateFinish, type History } from "./fast.js";
+import { addSegments, estimateOver, mulberry32, type ColumnVisitor, type EstimateFinish, type History, type OneCoilTables } from "./fast.js";
 import type { EnginePlan, RfClassSpec } from "./plan.js";
 import { decodeClassKeys, sharedF64 } from "./plan.js";
 import { f64Words, TupleIndex } from "./hash.js";
@@ -1289,8 +1289,12 @@ export class CellStream {
   /** Every column's isochromats (class, m0, Δf) made on the fly, none kept. */
   columns(): ColumnVisitor {
     return (visit, addSamples, setup) => {
-      const per = this.columnEstimator(visit, addSamples, setup);
-      for (let col = 0; col < this.cells.columns; col++) per(col, null);
+      const per = this.columnEstimator(visit, addSamples, setup), n = this.cells.columns, run = per.oneCoilRun;
+      for (let col = 0; col < n; col++) {
+        // runs of columns the one-coil table path takes, in one loop; the others one by one
+        if (run) col = run(col, n);
+        if (col < n) per(col, null);
+      }
     };
   }
 
@@ -1312,7 +1316,7 @@ export class CellStream {
   /** The estimate's work for one column (its sensitivities given, or evaluated here). */
   private columnEstimator(
     visit: Parameters<ColumnVisitor>[0], addSamples: Parameters<ColumnVisitor>[1], setup: Parameters<ColumnVisitor>[2],
-  ): (col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void {
+  ): ((col: number, given: Float64Array | null, givenMom?: Float64Array | null) => void) & { oneCoilRun?: (c0: number, c1: number) => number } {
     const { cells, T, D2, zStart, zClass, zF, zDf } = this;
     const ip = this.interp, iwt = new Float64Array(ip ? ip.p : 0), perCell = this.eClass !== null || ip !== null;
     const wc = new Float64Array(this.maxGroupNodes()), range = new Int32Array(2);
@@ -1390,16 +1394,27 @@ export class CellStream {
       const oneTissue = this.oneTissueColumns(), { colTi, colFp } = this;
       // Δf interpolated: the estimate's samples per (w, tissue, place) and lattice shift, as the fold's shift tables
       const est = ip ? this.shiftSamples(ip, setup) : null;
-      return (col, given, givenMom) => {
-        // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
-        const S: Float64Array | null = S0 ? (given ?? S0) : null;
-        let sReady = S0 === null || given !== null;
-        const needS = () => {
-          if (!sReady) {
-            this.sensOf(col, S0!);
-            sReady = true;
+      // one coil, tissue tables (no B0 model): runs of columns of one tissue whose table is whole add fp × its
+      // through-slice sum, as below, in one loop (oneCoilRun)
+      const run: OneCoilRun | null = !S0 && !perCell && setup.oneCoilTables
+        ? {
+            cells, oneTissue: this.oneTissueColumns(), colTi: this.colTi, colFp: this.colFp, D2,
+            whole: Uint8Array.from(Y, (y) => (y === null ? 0 : 1)), flat: new Int8Array(Y.length), flatA: -1, filter,
+            lo: Float64Array.from(dfLoHi, (r) => r[0]), hi: Float64Array.from(dfLoHi, (r) => r[1]), Ysum, tables: setup.oneCoilTables,
           }
-        };
+        : null;
+      // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
+      let S: Float64Array | null = null, sReady = true, sCol = -1;
+      const needS = () => {
+        if (!sReady) {
+          this.sensOf(sCol, S0!);
+          sReady = true;
+        }
+      };
+      const per = (col: number, given: Float64Array | null, givenMom?: Float64Array | null): void => {
+        S = S0 ? (given ?? S0) : null;
+        sReady = S0 === null || given !== null;
+        sCol = col;
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
         let uniform = oneTissue[col] === 1;
@@ -1410,8 +1425,8 @@ export class CellStream {
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             if (!S) {
               // one coil: fp × the tissue's samples summed through the slice (regrouped per read position where the estimate can)
-              if (setup.addTable) {
-                setup.addTable(z, Ysum, fp, u, v);
+              if (setup.oneCoilTables) {
+                setup.oneCoilTables.add(z, Ysum, fp, u, v, cells.colB[col]!);
                 return;
               }
               const ys = Ysum[z]!;
@@ -1550,6 +1565,7 @@ export class CellStream {
         }
         visit(u, v, n, cls, m0, df, -1, sensIso);
       };
+      return run ? Object.assign(per, { oneCoilRun: (c0: number, c1: number) => oneCoilRun(run, c0, c1) }) : per;
     }
   }
 
@@ -1598,6 +1614,46 @@ export class CellStream {
       visit(cells.colA[col]!, cells.colB[col]!, n, cls);
     }
   }
+}
+
+/** The estimate's one-coil column run (oneCoilRun): what it reads, and the receiver filter's flatness per table at the current read position. */
+interface OneCoilRun {
+  cells: IsochromatCells;
+  oneTissue: Uint8Array; colTi: Int32Array; colFp: Float64Array; D2: number;
+  /** Per table: 1 where it is whole (every through-slice cell has terms). */
+  whole: Uint8Array;
+  /** Per table at read index flatA: 0 not yet known, 1 the filter is flat over its keys, −1 not. */
+  flat: Int8Array; flatA: number;
+  filter: { fRead: number; bw: number } | null;
+  /** Per table: the Δf range (Hz) of its keys. */
+  lo: Float64Array; hi: Float64Array;
+  Ysum: readonly Float64Array[];
+  tables: OneCoilTables;
+}
+
+/**
+ * One coil, the estimate's columns c0 … c1−1 while each is one tissue at one fraction through the
+ * slice, its table whole and the receiver filter flat over the table's keys: fp × the table's
+ * through-slice sum (OneCoilTables). Returns the first column that is not (or c1). A module
+ * function rather than a closure per run, so that V8 keeps its optimised code between runs.
+ */
+function oneCoilRun(r: OneCoilRun, c0: number, c1: number): number {
+  const { oneTissue, colTi, colFp, D2, whole, flat, lo, hi, filter, Ysum, tables } = r;
+  const { colA, colB, colSub, uGrid, vGrid } = r.cells;
+  for (let col = c0; col < c1; col++) {
+    if (oneTissue[col] !== 1) return col;
+    const z = colTi[col]! * D2 + colSub[col]!, a = colA[col]!;
+    if (whole[z] !== 1) return col;
+    if (a !== r.flatA) {
+      r.flatA = a;
+      flat.fill(0);
+    }
+    if (flat[z] === 0) flat[z] = !filter || flatFor(filter.fRead * uGrid[a]!, lo[z]!, hi[z]!, filter.bw) ? 1 : -1;
+    if (flat[z] !== 1) return col;
+    const b = colB[col]!;
+    tables.add(z, Ysum, colFp[col]!, uGrid[a]!, vGrid[b]!, b);
+  }
+  return c1;
 }
 
 /**

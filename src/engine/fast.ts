@@ -1429,12 +1429,10 @@ export interface EstimateSetup {
   /** Use the WebAssembly SIMD kernels where available (the engine's `wasm` option). */
   wasm: boolean;
   /**
-   * One coil: adds a column whose sums before the in-plane phase are fp × table (table id `z` of
-   * `tables`, table[2s] per sample): the same direct sum regrouped per read position (Σ over its
-   * columns of fp·exp(−i2π ky·v) per table and row, then × the table and exp(−i2π kx·u)). Columns
-   * must come in read-position order, as the cells give them.
+   * One coil: adds columns whose sums before the in-plane phase are fp × a table (see
+   * {@link OneCoilTables}), regrouped per read position.
    */
-  addTable?: (z: number, tables: readonly Float64Array[], fp: number, u: number, v: number) => void;
+  oneCoilTables?: OneCoilTables;
   /**
    * Any number of coils: for tables of `nw` rows of samples each (row c of table z at
    * tables[z][2·(c·S + s)]), a function that adds a column whose sums before the in-plane phase are,
@@ -1443,6 +1441,103 @@ export interface EstimateSetup {
    * per table, coil, row and estimate row, then × the table row and exp(−i2π kx·u)).
    */
   cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number, idx?: Int32Array, k?: number) => void;
+}
+
+/**
+ * One coil's estimate sums regrouped per read position: a column whose sums before the in-plane
+ * phase are fp × table `z` of `tables` (table[2s] per sample) adds fp·exp(−i2π ky·v) per estimate
+ * row to its table's accumulator; when the read position u changes (columns come in read-position
+ * order, as the cells give them), each touched table is added to the total as table ×
+ * accumulator × exp(−i2π kx·u). The same direct sum in another order. A class rather than a
+ * closure per run: its methods stay one call target across runs, so V8 keeps their optimised code.
+ */
+export class OneCoilTables {
+  private u = NaN;
+  private n = 0;
+  private list: readonly Float64Array[] = [];
+  private acc = new Float64Array(0);
+  private seen = new Uint8Array(0);
+  private touched = new Int32Array(0);
+  /** exp(−i2π ky_w·v) per phase grid index b at ev[2·(b·NR + w)], where made[b] = 1. */
+  private ev = new Float64Array(0);
+  private made = new Uint8Array(0);
+  /** exp(−i2π kx_s·u) at the current read position. */
+  private readonly eu: Float64Array;
+  constructor(
+    private readonly NR: number, private readonly S: number, private readonly PJ: number, private readonly tot: Float64Array,
+    /** kx (1/m) of each estimate sample, and ky (1/m) of each estimate row. */
+    private readonly kx: Float64Array, private readonly kyRow: Float64Array,
+  ) {
+    this.eu = new Float64Array(2 * S);
+  }
+
+  /** Adds fp × table z of `tables` at (u, v); b is v's index on its grid (one v per index). */
+  add(z: number, tables: readonly Float64Array[], fp: number, u: number, v: number, b: number): void {
+    if (u !== this.u) {
+      this.flush();
+      this.u = u;
+    }
+    if (tables !== this.list) {
+      this.flush();
+      this.list = tables;
+      this.acc = new Float64Array(2 * this.NR * tables.length);
+      this.seen = new Uint8Array(tables.length);
+      this.touched = new Int32Array(tables.length);
+    }
+    if (this.seen[z] === 0) {
+      this.seen[z] = 1;
+      this.touched[this.n++] = z;
+    }
+    if (b >= this.made.length || this.made[b] === 0) this.rowPhases(v, b);
+    const NR = this.NR, acc = this.acc, ev = this.ev, a = 2 * NR * z, e = 2 * NR * b;
+    for (let w = 0; w < NR; w++) {
+      acc[a + 2 * w] = acc[a + 2 * w]! + fp * ev[e + 2 * w]!;
+      acc[a + 2 * w + 1] = acc[a + 2 * w + 1]! + fp * ev[e + 2 * w + 1]!;
+    }
+  }
+
+  /** Adds the touched tables of the current read position to the total. */
+  flush(): void {
+    if (this.n === 0) return;
+    const { NR, S, PJ, tot, acc, list, eu, kx } = this;
+    for (let s = 0; s < S; s++) {
+      const th = -TWO_PI * kx[s]! * this.u;
+      eu[2 * s] = Math.cos(th);
+      eu[2 * s + 1] = Math.sin(th);
+    }
+    for (let i = 0; i < this.n; i++) {
+      const z = this.touched[i]!, tab = list[z]!, a = 2 * NR * z;
+      this.seen[z] = 0;
+      for (let s = 0; s < S; s++) {
+        const w = Math.floor(s / PJ);
+        const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = acc[a + 2 * w]!, bi = acc[a + 2 * w + 1]!;
+        const er = ar * br - ai * bi, ei = ar * bi + ai * br, xr = tab[2 * s]!, xi = tab[2 * s + 1]!;
+        tot[2 * s] = tot[2 * s]! + (xr * er - xi * ei);
+        tot[2 * s + 1] = tot[2 * s + 1]! + (xr * ei + xi * er);
+      }
+      acc.fill(0, a, a + 2 * NR);
+    }
+    this.n = 0;
+  }
+
+  /** Makes exp(−i2π ky_w·v) at the estimate's rows for grid index b. */
+  private rowPhases(v: number, b: number): void {
+    const NR = this.NR;
+    if (b >= this.made.length) {
+      const n = Math.max(2 * this.made.length, b + 1, 64), ev = new Float64Array(2 * NR * n), made = new Uint8Array(n);
+      ev.set(this.ev);
+      made.set(this.made);
+      this.ev = ev;
+      this.made = made;
+    }
+    const ev = this.ev, e = 2 * NR * b;
+    for (let w = 0; w < NR; w++) {
+      const th = -TWO_PI * this.kyRow[w]! * v;
+      ev[e + 2 * w] = Math.cos(th);
+      ev[e + 2 * w + 1] = Math.sin(th);
+    }
+    this.made[b] = 1;
+  }
 }
 
 /** acc[a + 2·(i·NR + w)] += g_i·ev_w for the n complex weights g_i (interleaved; zeros skipped) and the NR row phases ev. */
@@ -1556,61 +1651,25 @@ export function estimateOver(
       eu[2 * s + 1] = Math.sin(th);
     }
   };
+  const evMake = (v: number): Float64Array => {
+    const ev = new Float64Array(2 * NR);
+    for (let w = 0; w < NR; w++) {
+      const th = -TWO_PI * kyRow[w]! * v;
+      ev[2 * w] = Math.cos(th);
+      ev[2 * w + 1] = Math.sin(th);
+    }
+    return ev;
+  };
   const evAt = (v: number): Float64Array => {
     let ev = evOf.get(v);
     if (!ev) {
-      ev = new Float64Array(2 * NR);
-      for (let w = 0; w < NR; w++) {
-        const th = -TWO_PI * kyRow[w]! * v;
-        ev[2 * w] = Math.cos(th);
-        ev[2 * w + 1] = Math.sin(th);
-      }
+      ev = evMake(v);
       evOf.set(v, ev);
     }
     return ev;
   };
-  // one coil, columns of a table (setup.addTable): per table and row Σ fp·ev(v) over the columns of one
-  // read position u, added as table × eu(u) when the read position changes (and at the end)
-  let tabU = NaN, tabN = 0, tabList: readonly Float64Array[] = [];
-  let tabAcc = new Float64Array(0), tabSeen = new Uint8Array(0), tabTouched = new Int32Array(0);
-  const flushTables = () => {
-    if (tabN === 0) return;
-    euAt(tabU);
-    for (let i = 0; i < tabN; i++) {
-      const z = tabTouched[i]!, tab = tabList[z]!, a = 2 * NR * z;
-      tabSeen[z] = 0;
-      for (let s = 0; s < S; s++) {
-        const w = Math.floor(s / PJ);
-        const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = tabAcc[a + 2 * w]!, bi = tabAcc[a + 2 * w + 1]!;
-        const er = ar * br - ai * bi, ei = ar * bi + ai * br, xr = tab[2 * s]!, xi = tab[2 * s + 1]!;
-        tot[2 * s] = tot[2 * s]! + (xr * er - xi * ei);
-        tot[2 * s + 1] = tot[2 * s + 1]! + (xr * ei + xi * er);
-      }
-      tabAcc.fill(0, a, a + 2 * NR);
-    }
-    tabN = 0;
-  };
-  const addTable = (z: number, tables: readonly Float64Array[], fp: number, u: number, v: number) => {
-    if (u !== tabU) {
-      flushTables();
-      tabU = u;
-    }
-    if (tables !== tabList) {
-      tabList = tables;
-      tabAcc = new Float64Array(2 * NR * tables.length);
-      tabSeen = new Uint8Array(tables.length);
-      tabTouched = new Int32Array(tables.length);
-    }
-    if (tabSeen[z] === 0) {
-      tabSeen[z] = 1;
-      tabTouched[tabN++] = z;
-    }
-    const ev = evAt(v), a = 2 * NR * z;
-    for (let w = 0; w < NR; w++) {
-      tabAcc[a + 2 * w] = tabAcc[a + 2 * w]! + fp * ev[2 * w]!;
-      tabAcc[a + 2 * w + 1] = tabAcc[a + 2 * w + 1]! + fp * ev[2 * w + 1]!;
-    }
-  };
+  // one coil, columns of a table (setup.oneCoilTables)
+  const oneCoilTables = coils === 1 ? new OneCoilTables(NR, S, PJ, tot, Float64Array.from(js, (j) => kx0 + j * dkx), kyRow) : undefined;
   // columns of whole tables with sensitivities (setup.cellSums): per table, coil, through-slice term and row
   // Σ g·ev(v) over the columns of one read position, added as the term's samples × that × eu(u) when the
   // read position changes (and at the end)
@@ -1657,7 +1716,7 @@ export function estimateOver(
       }
     }
   };
-  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm, cellSums, ...(coils === 1 ? { addTable } : {}) };
+  const setup: EstimateSetup = { S, NR, PJ, Pr, dec, keyOf, keyDf, filter: filt ? { fRead: a0.readHzPerMetre, bw: a0.sampledBandwidth } : null, wasm: plan.wasm, cellSums, ...(oneCoilTables ? { oneCoilTables } : {}) };
   columns((u, v, n, cls, m0, df, i0, sensCol) => {
     let nt = 0;
     for (let il = 0; il < n; il++) {
@@ -1704,7 +1763,7 @@ export function estimateOver(
     addPhased(u, v, col);
   }, addPhased, setup);
   return (re, im) => {
-  flushTables();
+  oneCoilTables?.flush();
   for (const f of cellFlushes) f();
   let num = 0, den = 0;
   for (let q = 0; q < coils; q++) {
