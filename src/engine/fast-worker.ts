@@ -3,15 +3,19 @@
  * run's shared buffers (engine/fast-phase.ts PhaseShared: the thread
  * transforms the blocks the main thread hands over until the run ends, then
  * waits for the next run); a memory reserve to write ahead (touchReserve);
- * part of a run's RF maps to fill (rf-job.ts runRfJob).
+ * part of a run's RF maps to fill (rf-job.ts runRfJob); the through-slice
+ * convergence check of a run (convergence.ts runConvergenceJob).
  * Loaded as compiled JavaScript.
  */
 import { parentPort } from "node:worker_threads";
 import { phaseHelperLoop, touchReserve, type PhaseShared } from "./fast-phase.js";
 import { runRfJob, type RfJob } from "./rf-job.js";
+import type { ConvergenceJob } from "./convergence.js";
 
-parentPort!.on("message", (m: PhaseShared | { touch: SharedArrayBuffer; ctrl: SharedArrayBuffer } | { rf: RfJob }) => {
+parentPort!.on("message", (m: PhaseShared | { touch: SharedArrayBuffer; ctrl: SharedArrayBuffer } | { rf: RfJob } | { convergence: ConvergenceJob }) => {
   if ("touch" in m) touchReserve(m.touch, m.ctrl);
   else if ("rf" in m && "maps" in m.rf) runRfJob(m.rf);
+  // the whole engine is loaded for the first such job only (a job not begun when the poster needs it is taken back)
+  else if ("convergence" in m) void import("./convergence.js").then((c) => c.runConvergenceJob(m.convergence));
   else phaseHelperLoop(m as PhaseShared);
 });
