@@ -15,7 +15,23 @@ import type { ConvergenceJob } from "./convergence.js";
 parentPort!.on("message", (m: PhaseShared | { touch: SharedArrayBuffer; ctrl: SharedArrayBuffer } | { rf: RfJob } | { convergence: ConvergenceJob }) => {
   if ("touch" in m) touchReserve(m.touch, m.ctrl);
   else if ("rf" in m && "maps" in m.rf) runRfJob(m.rf);
-  // the whole engine is loaded for the first such job only (a job not begun when the poster needs it is taken back)
-  else if ("convergence" in m) void import("./convergence.js").then((c) => c.runConvergenceJob(m.convergence));
+  else if ("convergence" in m) convergenceJob(m.convergence);
   else phaseHelperLoop(m as PhaseShared);
 });
+
+let convergence: typeof import("./convergence.js") | null = null;
+
+/**
+ * Runs a convergence job: the whole engine is loaded for the first one only,
+ * later ones run at once (before the run's phase step, posted after them,
+ * blocks this thread). A job not begun when the poster needs it is taken back.
+ */
+function convergenceJob(job: ConvergenceJob): void {
+  if (convergence) convergence.runConvergenceJob(job);
+  else {
+    void import("./convergence.js").then((c) => {
+      convergence = c;
+      c.runConvergenceJob(job);
+    });
+  }
+}
