@@ -12,7 +12,9 @@
  * after warm-up (default and preview quality), the 256² torso gre-t1-3t with
  * default options (time, peak RSS; the direct case once) and the throughput
  * of the 256² disc: the whole run() in a fresh process (module loading
- * excluded) and the same run() in-process after warm-up runs.
+ * excluded) and the same run() in-process after warm-up runs, the same
+ * whole run on the fewest isochromats (what a run costs whatever its
+ * isochromat count), and the engine alone.
  * Dataset rows (issue 13 targets): one 128² torso dataset case (gre-t1-3t,
  * default options, 2 workers) with 1 coil and with 8 coils, each through the
  * CLI in a fresh process, and the cases per hour of a 1000-case 128²
@@ -308,6 +310,14 @@ async function discRows(runs: number, header: boolean): Promise<void> {
   console.log(
     `| 256² disc GRE, the same whole run() in-process, warm (after 3 runs in this process; median of ${DISC_WARM_RUNS}), throughput as above | ${dw.iso.toLocaleString("en")} (${Math.round(dw.iso / 16).toLocaleString("en")} in-plane) | ` +
       `${dw.seconds.toFixed(2)} s: ${g(((dw.iso / 16) * samples) / dw.seconds)} iso-samples/s (all isochromats: ${g((dw.iso * samples) / dw.seconds)}) | — | — | ${readoutNote(dw.readout)} |`,
+  );
+  // the same whole run() on the fewest isochromats (density 1, 2 through-slice): what a run costs whatever its
+  // isochromat count (files, report, page, checks, reconstruction, the operator's grid), fresh and warm
+  const tiny: E2E = { ...disc, density: 1, slice: 2, readout: "fast" };
+  const tf = e2e(tiny, runs), tw = await e2eInProcess(tiny, DISC_WARM_RUNS);
+  console.log(
+    `| 256² disc GRE, the same whole run() on 1×1 in-plane × 2 through-slice isochromats (the part of a run that does not grow with its isochromats), fresh process (median of ${runs}) and warm in-process (median of ${DISC_WARM_RUNS}) | ${tf.iso.toLocaleString("en")} | ` +
+      `fresh ${tf.seconds.toFixed(2)} s (${((100 * tf.seconds) / df.seconds).toFixed(0)} % of the 2×2 × 16 run's), warm ${tw.seconds.toFixed(2)} s (${((100 * tw.seconds) / dw.seconds).toFixed(0)} %) | — | — | ${readoutNote(tw.readout)} |`,
   );
   // the engine alone, as run() calls it (no checks, reconstruction, measurements or files): in-process after warm-up
   const de = await discEngineInProcess(disc, DISC_WARM_RUNS);
