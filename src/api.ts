@@ -17,7 +17,7 @@ import { toGrid, reconstructGrid, magnitude, type ComplexVolume } from "./recon/
 import { FFT_CONVENTION_TEXT } from "./recon/convention.js";
 import { fatShiftReport } from "./analysis/report.js";
 import { isoOptionsFor, nonSelectiveRemark, sampledLimits, slabCoverage, type IsoSampling } from "./sampling.js";
-import { startSliceConvergence } from "./engine/convergence.js";
+import { checkSliceConvergence } from "./engine/index.js";
 import { FAT_PEAKS_PPM } from "./constants.js";
 import { samplingRemarks } from "./analysis/sampling.js";
 import type { TruthMaps } from "./analysis/index.js";
@@ -173,12 +173,6 @@ export interface Prepared {
   phantomName: string;
   /** How the isochromat grid was chosen (report). */
   sampling: IsoSampling;
-  /**
-   * Completes `sampling.convergence` (and its warning on the first slice's cells) from the
-   * through-slice check, which may run on another thread meanwhile: call before reading them.
-   * runSlices calls it once the engine has run; later calls do nothing.
-   */
-  settle: () => void;
 }
 
 /** The sampling geometry of one slice at `position` (m). */
@@ -288,25 +282,19 @@ export function prepareSimulation(input: SimulateInput): Prepared {
     throw new UserError(`no part of the phantom lies in any of the ${slices.length} slices; move slice.position`, protocolName, "slice.position");
   }
   const first = slices.find((sl) => sl.cells.count > 0)!;
-  let settle = () => {};
   if (!threeD && input.convergenceCheck !== false) {
-    // a-posteriori check of the through-slice grid on one probe column (engine/convergence.ts): on the fast
-    // operator's helper thread where one runs, while this thread runs the engine; its result is read by settle()
+    // a-posteriori check of the through-slice grid on one probe column (engine/convergence.ts)
     const axes = logicalAxes(protocol);
-    const pending = startSliceConvergence(first.seq, phantom.tissues, { axes, thickness: protocol.slice.thickness, position: first.position, offsetHz: protocol.shim }, isoOpts.sliceCount, isoOpts.sliceExtent);
-    settle = () => {
-      settle = () => {};
-      const c = pending.result();
-      sampling.convergence = { relativeChange: c.relativeChange, tolerance: c.tolerance, converged: c.converged, method: "probe column (in-plane centre, each tissue) on the through-slice grid and on the grid shifted by half a step; relative L2 change of every ADC sample" };
-      if (!c.converged) {
-        first.cells.warnings.push(
-          `through-slice sampling may not be converged: the signal changes by ${(100 * c.relativeChange).toFixed(2)} % (tolerance ${(100 * c.tolerance).toFixed(1)} %) ` +
-            `when the ${isoOpts.sliceCount} through-slice isochromats are shifted by half a step; raise --slice-isochromats (e.g. to ${2 * isoOpts.sliceCount})`,
-        );
-      }
-    };
+    const c = checkSliceConvergence(first.seq, phantom.tissues, { axes, thickness: protocol.slice.thickness, position: first.position, offsetHz: protocol.shim }, isoOpts.sliceCount, isoOpts.sliceExtent);
+    sampling.convergence = { relativeChange: c.relativeChange, tolerance: c.tolerance, converged: c.converged, method: "probe column (in-plane centre, each tissue) on the through-slice grid and on the grid shifted by half a step; relative L2 change of every ADC sample" };
+    if (!c.converged) {
+      first.cells.warnings.push(
+        `through-slice sampling may not be converged: the signal changes by ${(100 * c.relativeChange).toFixed(2)} % (tolerance ${(100 * c.tolerance).toFixed(1)} %) ` +
+          `when the ${isoOpts.sliceCount} through-slice isochromats are shifted by half a step; raise --slice-isochromats (e.g. to ${2 * isoOpts.sliceCount})`,
+      );
+    }
   }
-  return { protocol, phantom, iso: asked, slices, first, protocolName, phantomName, sampling, settle: () => settle() };
+  return { protocol, phantom, iso: asked, slices, first, protocolName, phantomName, sampling };
 }
 
 /**
@@ -443,7 +431,6 @@ export async function runSlices(prep: Prepared, input: SimulateInput): Promise<{
     count += sl.cells.count;
     kspaces.push(res.kspace);
   }
-  prep.settle();
   return {
     kspaces,
     isoSummary: {

@@ -12,11 +12,10 @@
  * slice profiles' spectra. Tiny grids (a uniform disc on 4×4 / 8×8) so each
  * case runs in well under a second.
  */
-import { afterEach, describe, expect, it } from "vitest";
+import { describe, expect, it } from "vitest";
 import { buildSequence, pathwayMoments } from "../src/sequence/index.js";
 import { logicalAxes } from "../src/protocol/geometry.js";
 import { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE } from "../src/engine/index.js";
-import { runConvergenceJob, setConvergenceOffload, startSliceConvergence, type ConvergenceJob } from "../src/engine/convergence.js";
 import { isoOptionsFor } from "../src/cli/pipeline.js";
 import { defaultIsochromatOptions } from "../src/isochromats/index.js";
 import type { Protocol } from "../src/protocol/index.js";
@@ -102,55 +101,4 @@ describe("automatic through-slice count converges (reference: 1200 through-slice
     expect(c.converged).toBe(false);
     expect(c.relativeChange).toBeGreaterThan(10 * SLICE_CONVERGENCE_TOLERANCE);
   });
-});
-
-describe("the half-step check on the fast operator's helper thread (startSliceConvergence)", () => {
-  const p = se(8, 4), n = EXTENT * 17, seq = buildSequence(p), tissues = [{ pd: 1, t1: 0.8, t2: 0.08 }];
-  const geo = { axes: logicalAxes(p), thickness: p.slice.thickness, position: 0, offsetHz: 0 };
-  afterEach(() => setConvergenceOffload(null));
-
-  it("gives the same result, bit for bit, whether the helper computes it, the poster takes it back, or no helper runs", () => {
-    const here = checkSliceConvergence(seq, tissues, geo, n, EXTENT);
-    expect(here.converged).toBe(false); // a case where the check has something to say
-    // no helper
-    expect(startSliceConvergence(seq, tissues, geo, n, EXTENT).result()).toEqual(here);
-    // a helper that computes the job at once (as the helper thread does, here on this thread)
-    const jobs: ConvergenceJob[] = [];
-    setConvergenceOffload((job) => {
-      jobs.push(job);
-      runConvergenceJob(job);
-      return true;
-    });
-    const helped = startSliceConvergence(seq, tissues, geo, n, EXTENT).result();
-    expect(Atomics.load(jobs[0]!.ctrl, 0)).toBe(2);
-    expect(Object.is(helped.relativeChange, here.relativeChange)).toBe(true);
-    expect(helped).toEqual(here);
-    // a helper that takes the job but has not begun it when the result is asked for: taken back, computed here,
-    // and the helper leaves it alone when it comes to it
-    setConvergenceOffload((job) => (jobs.push(job), true));
-    const taken = startSliceConvergence(seq, tissues, geo, n, EXTENT).result();
-    const late = jobs[1]!;
-    expect(Atomics.load(late.ctrl, 0)).toBe(3);
-    runConvergenceJob(late);
-    expect(late.out[0]).toBe(0);
-    expect(taken).toEqual(here);
-  });
-
-  it("runs on the real helper thread (node:worker_threads) with the same result", async () => {
-    const here = checkSliceConvergence(seq, tissues, geo, n, EXTENT);
-    const { nodePhaseHelper, nodeConvergenceOffload } = await import("../src/engine/fast-node.js");
-    expect(nodePhaseHelper()).not.toBeNull(); // starts the helper thread (kept, unref'd)
-    let posted: ConvergenceJob | null = null;
-    setConvergenceOffload((job) => {
-      posted = job;
-      return nodeConvergenceOffload(job);
-    });
-    const pending = startSliceConvergence(seq, tissues, geo, n, EXTENT);
-    expect(posted).not.toBeNull();
-    // wait (bounded) until the helper has finished, then read: it was computed there
-    const until = Date.now() + 30_000;
-    while (Atomics.load(posted!.ctrl, 0) < 2 && Date.now() < until) await new Promise((r) => setTimeout(r, 20));
-    expect(Atomics.load(posted!.ctrl, 0)).toBe(2);
-    expect(pending.result()).toEqual(here);
-  }, 60_000);
 });

@@ -137,7 +137,6 @@ export function prepare(o: RunOptions): {
   protocol: Protocol; seq: Sequence; readonly iso: IsochromatSet; cells: IsochromatCells; phantomFile: string; slices: SliceRun[]; phantom: Phantom; sampling: IsoSampling;
 } {
   const p = prepareSimulation(libraryInput(o));
-  p.settle();
   const first = p.first;
   // the isochromats are made on first use (SliceRun.iso): the streamed fast operator needs only the cells
   return {

@@ -10,7 +10,6 @@ import { availableParallelism } from "node:os";
 import { Worker } from "node:worker_threads";
 import { setPhaseHelper, type PhaseHelper } from "./fast.js";
 import { engineWorkerScript } from "./worker-script.js";
-import { setConvergenceOffload, type ConvergenceJob } from "./convergence.js";
 
 let worker: Worker | null = null;
 let failed = false;
@@ -41,11 +40,3 @@ export function nodePhaseHelper(): PhaseHelper | null {
 }
 
 setPhaseHelper(nodePhaseHelper);
-/** Posts the through-slice convergence check to the helper where it already runs (a run that starts none does not start one for it); whether it did. */
-export function nodeConvergenceOffload(job: ConvergenceJob): boolean {
-  if (!worker) return false;
-  worker.postMessage({ convergence: job });
-  return true;
-}
-
-setConvergenceOffload(nodeConvergenceOffload);
