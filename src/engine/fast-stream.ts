@@ -1403,18 +1403,16 @@ export class CellStream {
             lo: Float64Array.from(dfLoHi, (r) => r[0]), hi: Float64Array.from(dfLoHi, (r) => r[1]), Ysum, tables: setup.oneCoilTables,
           }
         : null;
-      // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
-      let S: Float64Array | null = null, sReady = true, sCol = -1;
-      const needS = () => {
-        if (!sReady) {
-          this.sensOf(sCol, S0!);
-          sReady = true;
-        }
-      };
       const per = (col: number, given: Float64Array | null, givenMom?: Float64Array | null): void => {
-        S = S0 ? (given ?? S0) : null;
-        sReady = S0 === null || given !== null;
-        sCol = col;
+        // this column's sensitivities: given by the fold, or evaluated where they are read (needS)
+        const S: Float64Array | null = S0 ? (given ?? S0) : null;
+        let sReady = S0 === null || given !== null;
+        const needS = () => {
+          if (!sReady) {
+            this.sensOf(col, S0!);
+            sReady = true;
+          }
+        };
         const sub = cells.colSub[col]!;
         const e0 = cells.entStart[col]!, e1 = cells.entStart[col + 1]!;
         let uniform = oneTissue[col] === 1;
