@@ -1396,11 +1396,12 @@ export class CellStream {
       const est = ip ? this.shiftSamples(ip, setup) : null;
       // one coil, tissue tables (no B0 model): runs of columns of one tissue whose table is whole add fp × its
       // through-slice sum, as below, in one loop (oneCoilRun)
-      const run: OneCoilRun | null = !S0 && !perCell && setup.oneCoilTables
+      const oneCoilTables = estimateRegrouping.on() ? setup.oneCoilTables : undefined;
+      const run: OneCoilRun | null = !S0 && !perCell && oneCoilTables
         ? {
             cells, oneTissue: this.oneTissueColumns(), colTi: this.colTi, colFp: this.colFp, D2,
             whole: Uint8Array.from(Y, (y) => (y === null ? 0 : 1)), flat: new Int8Array(Y.length), flatA: -1, filter,
-            lo: Float64Array.from(dfLoHi, (r) => r[0]), hi: Float64Array.from(dfLoHi, (r) => r[1]), Ysum, tables: setup.oneCoilTables,
+            lo: Float64Array.from(dfLoHi, (r) => r[0]), hi: Float64Array.from(dfLoHi, (r) => r[1]), Ysum, tables: oneCoilTables,
           }
         : null;
       const per = (col: number, given: Float64Array | null, givenMom?: Float64Array | null): void => {
@@ -1423,8 +1424,8 @@ export class CellStream {
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             if (!S) {
               // one coil: fp × the tissue's samples summed through the slice (regrouped per read position where the estimate can)
-              if (setup.oneCoilTables) {
-                setup.oneCoilTables.add(z, Ysum, fp, u, v, cells.colB[col]!);
+              if (oneCoilTables) {
+                oneCoilTables.add(z, Ysum, fp, u, v, cells.colB[col]!);
                 return;
               }
               const ys = Ysum[z]!;
@@ -1721,9 +1722,10 @@ function flatFor(f0: number, lo: number, hi: number, bw: number): boolean {
 }
 
 /**
- * The estimate's column sums with sensitivities regrouped per read position (EstimateSetup.cellSums; a column of
- * one tissue on the through-slice moments): on by default; off, every column's sums are written out and phased
- * (the reference the tests compare with: the same direct sum in another order).
+ * The estimate's column sums regrouped per read position (with sensitivities EstimateSetup.cellSums, a column of
+ * one tissue on the through-slice moments; with one coil EstimateSetup.oneCoilTables): on by default; off, every
+ * column's sums are written out and phased (the reference the tests compare with: the same direct sum in another
+ * order).
  */
 const estimateRegrouping = kernelSwitch();
 /** Switches the estimate's regrouped column sums on or off (for tests); returns the previous setting. */
