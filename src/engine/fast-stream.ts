@@ -1451,7 +1451,7 @@ export class CellStream {
               projectThroughSlice(psi!, S, coils, nw, mom);
             }
             const k = keptMoments(mom, yn2, coils, nw, cut2, fp, gS, kept, m2);
-            addYm!(z, gS, u, v, kept, k);
+            addYm!(z, gS, u, v, cells.colB[col]!, kept, k);
             return;
           }
         } else if (!S && !perCell) {
@@ -1512,7 +1512,7 @@ export class CellStream {
                   gS[2 * (q * nw + c) + 1] = S[2 * (q * nw + c) + 1]! * f;
                 }
               }
-              addY!(gTi[g]! * D2 + sub, gS, u, v);
+              addY!(gTi[g]! * D2 + sub, gS, u, v, cells.colB[col]!);
             }
             return;
           }

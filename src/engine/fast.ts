@@ -1440,7 +1440,7 @@ export interface EstimateSetup {
    * nothing; or, given idx and k, the k weights g[2i] of entries idx[i] = q·nw + c alone): the same direct sum regrouped per read position (Σ over its columns of g·exp(−i2π ky·v)
    * per table, coil, row and estimate row, then × the table row and exp(−i2π kx·u)).
    */
-  cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number, idx?: Int32Array, k?: number) => void;
+  cellSums: (tables: readonly (Float64Array | null)[], nw: number) => (z: number, g: Float64Array, u: number, v: number, b: number, idx?: Int32Array, k?: number) => void;
 }
 
 /**
@@ -1668,6 +1668,9 @@ export function estimateOver(
     }
     return ev;
   };
+  // the same per grid index b of v (one v per index): an array lookup instead of a Map's hash of a double
+  const evByIndex: (Float64Array | undefined)[] = [];
+  const evAtIndex = (v: number, b: number): Float64Array => evByIndex[b] ?? (evByIndex[b] = evMake(v));
   // one coil, columns of a table (setup.oneCoilTables)
   const oneCoilTables = coils === 1 ? new OneCoilTables(NR, S, PJ, tot, Float64Array.from(js, (j) => kx0 + j * dkx), kyRow) : undefined;
   // columns of whole tables with sensitivities (setup.cellSums): per table, coil, through-slice term and row
@@ -1689,7 +1692,7 @@ export function estimateOver(
       n = 0;
     };
     cellFlushes.push(flush);
-    return (z: number, g: Float64Array, u: number, v: number, idx?: Int32Array, k = 0) => {
+    return (z: number, g: Float64Array, u: number, v: number, b: number, idx?: Int32Array, k = 0) => {
       if (u !== at) {
         flush();
         at = u;
@@ -1698,8 +1701,9 @@ export function estimateOver(
         seen[z] = 1;
         touched[n++] = z;
       }
-      if (idx) addCellRowsAt(acc, coils * per * z, g, idx, k, evAt(v), NR);
-      else addCellRows(acc, coils * per * z, g, evAt(v), coils * nw, NR);
+      const ev = evAtIndex(v, b);
+      if (idx) addCellRowsAt(acc, coils * per * z, g, idx, k, ev, NR);
+      else addCellRows(acc, coils * per * z, g, ev, coils * nw, NR);
     };
   };
   const addPhased = (u: number, v: number, colv: Float64Array) => {
