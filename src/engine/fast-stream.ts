@@ -1423,11 +1423,8 @@ export class CellStream {
           const ti = colTi[col]!, z = ti * D2 + sub, fp = colFp[col]!;
           if (!filter || flatFor(filter.fRead * u, dfLoHi[z]![0], dfLoHi[z]![1], filter.bw)) {
             if (!S) {
-              // one coil: fp × the tissue's samples summed through the slice (regrouped per read position where the estimate can)
-              if (oneCoilTables) {
-                oneCoilTables.add(z, Ysum, fp, u, v, cells.colB[col]!);
-                return;
-              }
+              // one coil: fp × the tissue's samples summed through the slice (with the regrouping on, such columns
+              // went to oneCoilRun instead: this is its reference, every column phased on its own)
               const ys = Ysum[z]!;
               for (let x = 0; x < 2 * NS; x++) colv[x] = ys[x]! * fp;
               addSamples(u, v, colv);

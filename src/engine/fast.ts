@@ -1458,18 +1458,7 @@ export class OneCoilTables {
   private acc = new Float64Array(0);
   private seen = new Uint8Array(0);
   private touched = new Int32Array(0);
-  /** exp(−i2π ky_w·v) per phase grid index b at ev[2·(b·NR + w)], where made[b] = 1. */
-  private ev = new Float64Array(0);
-  private made = new Uint8Array(0);
-  /** exp(−i2π kx_s·u) at the current read position. */
-  private readonly eu: Float64Array;
-  constructor(
-    private readonly NR: number, private readonly S: number, private readonly PJ: number, private readonly tot: Float64Array,
-    /** kx (1/m) of each estimate sample, and ky (1/m) of each estimate row. */
-    private readonly kx: Float64Array, private readonly kyRow: Float64Array,
-  ) {
-    this.eu = new Float64Array(2 * S);
-  }
+  constructor(private readonly NR: number, private readonly S: number, private readonly PJ: number, private readonly tot: Float64Array, private readonly phases: EstimatePhases) {}
 
   /** Adds fp × table z of `tables` at (u, v); b is v's index on its grid (one v per index). */
   add(z: number, tables: readonly Float64Array[], fp: number, u: number, v: number, b: number): void {
@@ -1488,23 +1477,17 @@ export class OneCoilTables {
       this.seen[z] = 1;
       this.touched[this.n++] = z;
     }
-    if (b >= this.made.length || this.made[b] === 0) this.rowPhases(v, b);
-    const NR = this.NR, acc = this.acc, ev = this.ev, a = 2 * NR * z, e = 2 * NR * b;
+    const NR = this.NR, acc = this.acc, ev = this.phases.rowAt(v, b), a = 2 * NR * z;
     for (let w = 0; w < NR; w++) {
-      acc[a + 2 * w] = acc[a + 2 * w]! + fp * ev[e + 2 * w]!;
-      acc[a + 2 * w + 1] = acc[a + 2 * w + 1]! + fp * ev[e + 2 * w + 1]!;
+      acc[a + 2 * w] = acc[a + 2 * w]! + fp * ev[2 * w]!;
+      acc[a + 2 * w + 1] = acc[a + 2 * w + 1]! + fp * ev[2 * w + 1]!;
     }
   }
 
   /** Adds the touched tables of the current read position to the total. */
   flush(): void {
     if (this.n === 0) return;
-    const { NR, S, PJ, tot, acc, list, eu, kx } = this;
-    for (let s = 0; s < S; s++) {
-      const th = -TWO_PI * kx[s]! * this.u;
-      eu[2 * s] = Math.cos(th);
-      eu[2 * s + 1] = Math.sin(th);
-    }
+    const { NR, S, PJ, tot, acc, list } = this, eu = this.phases.read(this.u);
     for (let i = 0; i < this.n; i++) {
       const z = this.touched[i]!, tab = list[z]!, a = 2 * NR * z;
       this.seen[z] = 0;
@@ -1519,24 +1502,61 @@ export class OneCoilTables {
     }
     this.n = 0;
   }
+}
 
-  /** Makes exp(−i2π ky_w·v) at the estimate's rows for grid index b. */
-  private rowPhases(v: number, b: number): void {
-    const NR = this.NR;
-    if (b >= this.made.length) {
-      const n = Math.max(2 * this.made.length, b + 1, 64), ev = new Float64Array(2 * NR * n), made = new Uint8Array(n);
-      ev.set(this.ev);
-      made.set(this.made);
-      this.ev = ev;
-      this.made = made;
+/**
+ * The estimate's in-plane phase factors, exp(−i2π(kx·u + ky·v)) = exp(−i2π kx·u)·exp(−i2π ky·v):
+ * along read at its samples for the current read position (the last one kept: columns come in
+ * read order), along phase at its rows per phase position, kept per grid index b of v (one v per
+ * index: an array lookup) or, without an index, per value of v.
+ */
+class EstimatePhases {
+  private lastU = NaN;
+  private readonly eu: Float64Array;
+  private readonly byIndex: (Float64Array | undefined)[] = [];
+  private readonly byValue = new Map<number, Float64Array>();
+  /** kx (1/m) of each estimate sample, ky (1/m) of each estimate row. */
+  constructor(private readonly kx: Float64Array, private readonly kyRow: Float64Array) {
+    this.eu = new Float64Array(2 * kx.length);
+  }
+
+  /** exp(−i2π kx_s·u) at the samples (interleaved; the same array each call). */
+  read(u: number): Float64Array {
+    const eu = this.eu;
+    if (u !== this.lastU) {
+      this.lastU = u;
+      for (let s = 0; s < this.kx.length; s++) {
+        const th = -TWO_PI * this.kx[s]! * u;
+        eu[2 * s] = Math.cos(th);
+        eu[2 * s + 1] = Math.sin(th);
+      }
     }
-    const ev = this.ev, e = 2 * NR * b;
+    return eu;
+  }
+
+  /** exp(−i2π ky_w·v) at the rows, v at grid index b. */
+  rowAt(v: number, b: number): Float64Array {
+    return this.byIndex[b] ?? (this.byIndex[b] = this.make(v));
+  }
+
+  /** exp(−i2π ky_w·v) at the rows. */
+  rowOf(v: number): Float64Array {
+    let ev = this.byValue.get(v);
+    if (!ev) {
+      ev = this.make(v);
+      this.byValue.set(v, ev);
+    }
+    return ev;
+  }
+
+  private make(v: number): Float64Array {
+    const NR = this.kyRow.length, ev = new Float64Array(2 * NR);
     for (let w = 0; w < NR; w++) {
       const th = -TWO_PI * this.kyRow[w]! * v;
-      ev[e + 2 * w] = Math.cos(th);
-      ev[e + 2 * w + 1] = Math.sin(th);
+      ev[2 * w] = Math.cos(th);
+      ev[2 * w + 1] = Math.sin(th);
     }
-    this.made[b] = 1;
+    return ev;
   }
 }
 
@@ -1638,41 +1658,10 @@ export function estimateOver(
   const CN = coils * NR;
   const accR = new Float64Array(K * CN), accI = new Float64Array(K * CN);
   const touched = new Int32Array(K), seen = new Uint8Array(K);
-  // exp(−i2π(kx·u + ky·v)) = exp(−i2π kx·u)·exp(−i2π ky·v): a table per read
-  // position (the last one kept: columns come in read order) and per phase position
-  let lastU = NaN;
-  const eu = new Float64Array(2 * S), evOf = new Map<number, Float64Array>();
-  const euAt = (u: number) => {
-    if (u === lastU) return;
-    lastU = u;
-    for (let s = 0; s < S; s++) {
-      const th = -TWO_PI * (kx0 + js[s]! * dkx) * u;
-      eu[2 * s] = Math.cos(th);
-      eu[2 * s + 1] = Math.sin(th);
-    }
-  };
-  const evMake = (v: number): Float64Array => {
-    const ev = new Float64Array(2 * NR);
-    for (let w = 0; w < NR; w++) {
-      const th = -TWO_PI * kyRow[w]! * v;
-      ev[2 * w] = Math.cos(th);
-      ev[2 * w + 1] = Math.sin(th);
-    }
-    return ev;
-  };
-  const evAt = (v: number): Float64Array => {
-    let ev = evOf.get(v);
-    if (!ev) {
-      ev = evMake(v);
-      evOf.set(v, ev);
-    }
-    return ev;
-  };
-  // the same per grid index b of v (one v per index): an array lookup instead of a Map's hash of a double
-  const evByIndex: (Float64Array | undefined)[] = [];
-  const evAtIndex = (v: number, b: number): Float64Array => evByIndex[b] ?? (evByIndex[b] = evMake(v));
+  // exp(−i2π(kx·u + ky·v)) per read position and per phase position
+  const phases = new EstimatePhases(Float64Array.from(js, (j) => kx0 + j * dkx), kyRow);
   // one coil, columns of a table (setup.oneCoilTables)
-  const oneCoilTables = coils === 1 ? new OneCoilTables(NR, S, PJ, tot, Float64Array.from(js, (j) => kx0 + j * dkx), kyRow) : undefined;
+  const oneCoilTables = coils === 1 ? new OneCoilTables(NR, S, PJ, tot, phases) : undefined;
   // columns of whole tables with sensitivities (setup.cellSums): per table, coil, through-slice term and row
   // Σ g·ev(v) over the columns of one read position, added as the term's samples × that × eu(u) when the
   // read position changes (and at the end)
@@ -1682,7 +1671,7 @@ export function estimateOver(
     let at = NaN, n = 0;
     const flush = () => {
       if (n === 0) return;
-      euAt(at);
+      const eu = phases.read(at);
       for (let i = 0; i < n; i++) {
         const z = touched[i]!, a = coils * per * z;
         seen[z] = 0;
@@ -1701,14 +1690,13 @@ export function estimateOver(
         seen[z] = 1;
         touched[n++] = z;
       }
-      const ev = evAtIndex(v, b);
+      const ev = phases.rowAt(v, b);
       if (idx) addCellRowsAt(acc, coils * per * z, g, idx, k, ev, NR);
       else addCellRows(acc, coils * per * z, g, ev, coils * nw, NR);
     };
   };
   const addPhased = (u: number, v: number, colv: Float64Array) => {
-    euAt(u);
-    const ev = evAt(v);
+    const eu = phases.read(u), ev = phases.rowOf(v);
     for (let s = 0; s < S; s++) {
       const w = Math.floor(s / PJ);
       const ar = eu[2 * s]!, ai = eu[2 * s + 1]!, br = ev[2 * w]!, bi = ev[2 * w + 1]!;
