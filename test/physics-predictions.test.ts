@@ -75,6 +75,37 @@ describe("EPI phase-direction shift uses the effective echo spacing ESP/shots", 
       expect(Math.abs(measured - pred.phase.px), `measured ${measured} px, predicted ${pred.phase.px} px`).toBeLessThan(0.2);
     });
   }
+  it("EPI alternates the read gradient: lines shift by ±Δf/BW_px along read and the image has no net read shift", () => {
+    // Closed form: a line read with +G shows the spin at u + Δf/(γ̄G), one read with −G at u − Δf/(γ̄G); each half of
+    // the lines makes the image moved one way, so the image is the mean of the two copies (no net shift along read)
+    // and their difference is aliased to half the FOV along phase (the N/2 ghost; Bernstein, King & Zhou 2004, ch. 16).
+    // The same shift read with one gradient sign (spin-warp GRE) moves the image by Δf/BW_px: the measurement sees it.
+    const df = 125, bw = 400; // ±0.31 px per line; along phase Δf·N·ESP ≈ 12 px (no wrap of the disc)
+    const readCentroid = (v: ComplexVolume, nPhase: number, nRead: number) => {
+      let s = 0, sx = 0;
+      for (let y = 0; y < nPhase; y++) for (let x = 0; x < nRead; x++) {
+        const i = y * nRead + x, m = Math.hypot(v.re[i]!, v.im[i]!);
+        s += m;
+        sx += m * x;
+      }
+      return sx / s;
+    };
+    // the odd part in Δf, (c(+Δf) − c(−Δf))/2, is the shift: a net read shift flips with Δf; what does not (about
+    // 0.04 px here, from the lines' ghost at half the FOV) is left out
+    const oddShift = (p: ReturnType<typeof proto>) => {
+      const nP = p.matrix.phase, nR = p.matrix.read;
+      return (readCentroid(simulate(p, disc(df)).image, nP, nR) - readCentroid(simulate(p, disc(-df)).image, nP, nR)) / 2;
+    };
+    const epi = proto({ sequence: "epi", tr: "500 ms", te: "60 ms", bandwidth: `${bw} Hz/px` });
+    const pred = predictProtocolFatShift(epi, buildSequence(epi), ppmOf(df, epi.field));
+    expect(pred.readout.px).toBe(0);
+    expect(pred.readout.direction).toBe("none");
+    expect(pred.readout.perLinePx).toBeCloseTo(df / bw, 12);
+    const greShift = oddShift(proto({ tr: "500 ms", te: "10 ms", bandwidth: `${bw} Hz/px` }));
+    expect(Math.abs(greShift - df / bw), `GRE: centroid moved ${greShift} px, Δf/BW = ${df / bw} px`).toBeLessThan(0.05);
+    const epiShift = oddShift(epi);
+    expect(Math.abs(epiShift), `EPI: centroid moved ${epiShift} px (per line ±${df / bw} px)`).toBeLessThan(0.03);
+  });
   it("no phase-direction prediction for spin-warp echo trains (RARE has an echo spacing but one line per echo)", () => {
     // Each RARE echo is refocused: off-resonance phase does not build up along the phase-encoding order
     const p = proto({ sequence: "rare", tr: "2000 ms", te: "40 ms", echoTrainLength: 4, refocusing: { shape: "hard", duration: "0.2 ms", steps: 20 } });

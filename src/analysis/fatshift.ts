@@ -9,7 +9,11 @@
  *     γ̄·G_read·u' = γ̄·G_read·u + Δf, so Δu = Δf/(γ̄·G_read) = s_r·(Δf/BW_px)·Δx
  *     with s_r = sign(G_read) (the protocol's readout polarity): with a
  *     positive read gradient fat (Δf < 0) moves toward negative read
- *     positions, with a negative one toward positive positions;
+ *     positions, with a negative one toward positive positions; EPI
+ *     alternates the read gradient from line to line, so its lines shift by
+ *     ±Δf/BW_px: the image is the mean of the two copies (no net shift) and
+ *     their difference is aliased to half the FOV along phase (the N/2 ghost;
+ *     Bernstein, King & Zhou 2004, ch. 16);
  *   - slice: a pulse of centre frequency γ̄·G_slice·w0 excites spins where
  *     γ̄·G_slice·w + Δf = γ̄·G_slice·w0, so Δw = −Δf/(γ̄·G_slice): fat is
  *     excited toward positive slice positions for G_slice > 0;
@@ -41,6 +45,8 @@ export interface AxisShift {
   m: number;
   /** Physical direction the fat moves in, e.g. "-x", or "none". */
   direction: string;
+  /** EPI, along read: the shift of the lines read with the first line's gradient sign (pixels); the other lines move by minus this (`px` is then 0). */
+  perLinePx?: number;
 }
 
 export interface FatShiftInput {
@@ -50,8 +56,10 @@ export interface FatShiftInput {
   ppm?: number;
   /** Readout bandwidth per pixel (Hz/px) and the pixel size along read (m). */
   pixelBandwidth: number;
-  /** Sign of the read gradient during the echo (the protocol's readout polarity); default +1. */
+  /** Sign of the read gradient during the echo (the protocol's readout polarity; EPI: of the first line); default +1. */
   readSign?: number;
+  /** EPI: the read gradient alternates from line to line, so alternate lines shift in opposite directions along read (no net shift). */
+  alternatingRead?: boolean;
   dxRead: number;
   /** Slice-select gradient (T/m), 0 for a non-selective pulse; slice thickness (m). */
   sliceGradient: number;
@@ -76,6 +84,7 @@ export interface FatShiftPrediction {
 
 /** The three closed forms, written once (report.json, the protocol table and checks all quote these). */
 export const READ_SHIFT_FORMULA = "Δx = sign(G_read)·Δf/BW_px pixels";
+export const READ_SHIFT_ALTERNATING = "EPI: the read gradient alternates, so alternate lines move by ±Δf/BW_px pixels and there is no net shift; the object is imaged as two copies 2·Δf/BW_px apart, and the lines' difference appears as a ghost at half the FOV along phase";
 export const SLICE_SHIFT_FORMULA = "Δz = −Δf/(γ̄·G_slice)";
 export const PHASE_SHIFT_FORMULA = "EPI: Δy = s_blip·Δf·N_phase·ESP/shots pixels (N_phase = phase lines of the acquired grid, phase oversampling included; ESP/shots = effective echo spacing)";
 
@@ -109,14 +118,19 @@ export function predictOffResonanceShift(input: FatShiftInput, hz: number): FatS
 export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
   const ppm = p.ppm ?? FAT_SINGLE_PPM;
   const hz = ppmToHz(ppm, p.fieldT);
-  const readPx = (p.readSign ?? 1) * hz / p.pixelBandwidth;
+  // EPI: lines read with +G and −G shift by ±Δf/BW_px; each half of the lines forms the image moved one way, so the
+  // image is the mean of the two copies (no net shift) plus their difference aliased to half the FOV along phase
+  const perLinePx = (p.readSign ?? 1) * hz / p.pixelBandwidth;
+  const readPx = p.alternatingRead ? 0 : perLinePx;
   const sliceM = p.sliceGradient !== 0 ? -hz / (GAMMA_BAR * p.sliceGradient) : 0;
   const epi = p.effectiveEchoSpacing !== undefined && p.phaseLines !== undefined;
   const phasePx = epi ? (p.blipSign ?? 1) * hz * p.phaseLines! * p.effectiveEchoSpacing! : 0;
   return {
     ppm,
     hz,
-    readout: { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_FORMULA },
+    readout: p.alternatingRead
+      ? { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_ALTERNATING, perLinePx }
+      : { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_FORMULA },
     slice: {
       m: sliceM,
       direction: dir(sliceM, p.axisNames.slice),
@@ -147,7 +161,7 @@ export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = F
     dxRead: protocol.fov.read / protocol.matrix.read, dyPhase: protocol.fov.phase / protocol.matrix.phase,
     sliceGradient: q.sliceGradient,
     ...(tau !== undefined
-      ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.kspace.phase, blipSign: q.phaseBlipSign ?? 1 }
+      ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.kspace.phase, blipSign: q.phaseBlipSign ?? 1, alternatingRead: true }
       : {}),
     axisNames: logicalAxes(protocol).names,
   };

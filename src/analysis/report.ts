@@ -38,7 +38,7 @@ export function fatShiftReport(
   // the search window around each object must reach the shifted fat image
   // (per axis: a window grown along read for an EPI shift along phase would reach objects beside the fat one)
   const margin = {
-    read: 3 + Math.ceil(Math.max(Math.abs(main.readout.px), Math.abs(mean.readout.px))),
+    read: 3 + Math.ceil(Math.max(Math.abs(main.readout.perLinePx ?? main.readout.px), Math.abs(mean.readout.perLinePx ?? mean.readout.px))),
     phase: 3 + Math.ceil(Math.max(Math.abs(main.phase.px), Math.abs(mean.phase.px))),
   };
   // water is not moved by the chemical shift: its window stays near it, clear of the shifted fat image
@@ -65,7 +65,10 @@ export function fatShiftReport(
       "Predicted for the main methylene peak (−3.4 ppm, Hamilton et al. 2011) and for the amplitude-weighted six-peak mean; " +
       "with the multi-peak model each peak makes its own shifted copy, and the copies add with TE-dependent phases, so the measured shift lies near these values but need not equal either; use --fat-model single for a clean comparison. Slice shift is predicted only (a 2D image cannot show it).",
     predicted: {
-      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, note: main.readout.note },
+      readout: {
+        px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, note: main.readout.note,
+        ...(main.readout.perLinePx !== undefined ? { perLinePx: main.readout.perLinePx } : {}),
+      },
       slice: { mm: main.slice.m * 1e3, direction: main.slice.direction, note: main.slice.note },
       phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction, note: main.phase.note },
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px, sliceMm: mean.slice.m * 1e3 },

@@ -10,7 +10,7 @@
  * time), the sequence's per-line echo times; wrap from ./wrap.ts, blur from
  * ./psf.ts.
  */
-import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift } from "../analysis/index.js";
+import { fatShiftInput, multiPeakMeanPpm, predictFatShift, predictOffResonanceShift, type AxisShift } from "../analysis/index.js";
 import { FAT_SINGLE_PPM, GAMMA_BAR, SNR_FIELD_EXPONENT } from "../constants.js";
 import { UserError } from "../errors.js";
 import { parsePhantom, type Phantom, type Shape } from "../phantom/index.js";
@@ -485,9 +485,18 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- fat shift ----
   const fat = predictFatShift({ ...fatIn, ppm: FAT_SINGLE_PPM });
   const fatMean = predictFatShift({ ...fatIn, ppm: multiPeakMeanPpm() });
-  items.push(item("fatShiftRead", "fat shift", "fat shift along read", Math.abs(fat.readout.px), th,
-    `fat (${f1(fat.hz)} Hz at ${p.field} T) moves ${f1(Math.abs(fat.readout.px))} px = ${mm(Math.abs(fat.readout.m))} toward ${fat.readout.direction} at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel)`,
-    { px: fat.readout.px, mm: fat.readout.m * 1e3, direction: fat.readout.direction, multiPeakMeanPx: fatMean.readout.px }));
+  // EPI: alternate lines shift by ±Δf/BW_px (no net shift); the item is the size of that per-line shift
+  const dxRead = p.fov.read / p.matrix.read;
+  const alternating = (x: AxisShift): string =>
+    `the read gradient alternates (EPI), so alternate lines move by ±${f1(Math.abs(x.perLinePx!))} px = ±${mm(Math.abs(x.perLinePx! * dxRead))}: no net shift, two copies ${f1(2 * Math.abs(x.perLinePx!))} px apart, and their difference a ghost at half the FOV along phase`;
+  items.push(item("fatShiftRead", "fat shift", fat.readout.perLinePx !== undefined ? "fat shift along read (per line, EPI)" : "fat shift along read", Math.abs(fat.readout.perLinePx ?? fat.readout.px), th,
+    fat.readout.perLinePx !== undefined
+      ? `fat (${f1(fat.hz)} Hz at ${p.field} T) at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel): ${alternating(fat.readout)}`
+      : `fat (${f1(fat.hz)} Hz at ${p.field} T) moves ${f1(Math.abs(fat.readout.px))} px = ${mm(Math.abs(fat.readout.m))} toward ${fat.readout.direction} at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel)`,
+    {
+      px: fat.readout.px, mm: fat.readout.m * 1e3, direction: fat.readout.direction, multiPeakMeanPx: fatMean.readout.px,
+      ...(fat.readout.perLinePx !== undefined ? { perLinePx: fat.readout.perLinePx } : {}),
+    }));
   // 3D: slice encoding is phase encoding (no chemical shift along it); the slab profile moves, so compare with the slab
   const sliceRef = threeD ? p.slice.thickness * Ms : p.slice.thickness;
   items.push(item("fatShiftSlice", "fat shift", "fat shift along the slice normal", fat.slice.m === 0 ? 0 : (Math.abs(fat.slice.m) / sliceRef) * 100, th,
@@ -634,9 +643,15 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   const dfAbs = Math.abs(dfMax) >= Math.abs(dfMin) ? dfMax : dfMin;
   const dRead = predictOffResonanceShift(fatIn, dfAbs);
   const b0Text = ph.b0Description ?? "no B0 model";
-  items.push(item("distortionRead", "distortion", "distortion along read (B0)", Math.abs(dRead.readout.px), th,
-    `Δf in the ${threeD ? "slab" : "slice"} ${f1(dfMin)} … ${f1(dfMax)} Hz (${b0Text}${p.shim ? `, shim ${f1(p.shim)} Hz` : ""}): largest displacement ${f1(Math.abs(dRead.readout.px))} px = ${mm(Math.abs(dRead.readout.m))} toward ${dRead.readout.direction} (Δf/BW per pixel)`,
-    { dfMinHz: dfMin, dfMaxHz: dfMax, dfMeanHz: dfSum / nSig, px: dRead.readout.px, mm: dRead.readout.m * 1e3, direction: dRead.readout.direction }));
+  const dfText = `Δf in the ${threeD ? "slab" : "slice"} ${f1(dfMin)} … ${f1(dfMax)} Hz (${b0Text}${p.shim ? `, shim ${f1(p.shim)} Hz` : ""})`;
+  items.push(item("distortionRead", "distortion", dRead.readout.perLinePx !== undefined ? "distortion along read (B0, per line, EPI)" : "distortion along read (B0)", Math.abs(dRead.readout.perLinePx ?? dRead.readout.px), th,
+    dRead.readout.perLinePx !== undefined
+      ? `${dfText}: at the largest |Δf| (Δf/BW per pixel) ${alternating(dRead.readout)}`
+      : `${dfText}: largest displacement ${f1(Math.abs(dRead.readout.px))} px = ${mm(Math.abs(dRead.readout.m))} toward ${dRead.readout.direction} (Δf/BW per pixel)`,
+    {
+      dfMinHz: dfMin, dfMaxHz: dfMax, dfMeanHz: dfSum / nSig, px: dRead.readout.px, mm: dRead.readout.m * 1e3, direction: dRead.readout.direction,
+      ...(dRead.readout.perLinePx !== undefined ? { perLinePx: dRead.readout.perLinePx } : {}),
+    }));
   if (p.sequence === "epi") {
     items.push(item("distortionPhase", "distortion", "distortion along phase (B0, EPI)", Math.abs(dRead.phase.px), th,
       `largest displacement ${f1(Math.abs(dRead.phase.px))} px = ${mm(Math.abs(dRead.phase.m))} toward ${dRead.phase.direction} at Δf ${f1(dfAbs)} Hz (${dRead.phase.note})`,

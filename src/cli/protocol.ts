@@ -86,7 +86,9 @@ export function protocolSummary(p: Protocol, seq: Sequence): Record<string, Deri
   // fat–water shifts: the analysis stage's predictions (the same numbers and formulas as report.json)
   const fx = predictProtocolFatShift(p, seq);
   const fat = `fat ${fx.ppm} ppm (Hamilton et al. 2011), Δf = ${fx.hz.toFixed(1)} Hz`;
-  d["fatShiftRead"] = { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; toward ${fx.readout.direction}; ${fat}` };
+  d["fatShiftRead"] = fx.readout.perLinePx !== undefined
+    ? { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; here ±${Math.abs(fx.readout.perLinePx).toFixed(3)} px per line; ${fat}` }
+    : { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; toward ${fx.readout.direction}; ${fat}` };
   d["fatShiftSlice"] = { value: fx.slice.m, unit: "m", note: `${fx.slice.note}; toward ${fx.slice.direction}; ${fat}` };
   if (fx.phase.px !== 0) d["fatShiftPhase"] = { value: fx.phase.px, unit: "px", note: `${fx.phase.note}; toward ${fx.phase.direction}; ${fat}` };
   d["activeTime"] = { value: seq.activeTime, unit: "s", note: "per TR per slice: excitation to the end of the last gradient" };

@@ -366,7 +366,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     fatModel: req.fatModel,
     fatHz: main.hz,
     predicted: {
-      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction },
+      readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, ...(main.readout.perLinePx !== undefined ? { perLinePx: main.readout.perLinePx } : {}) },
       slice: { mm: main.slice.m * 1e3, direction: main.slice.direction },
       phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction },
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px },

@@ -203,7 +203,9 @@ function syncControls(bwOnly = false): void {
     else if (c.kind === "bandwidth") {
       const u = ($("c-bandwidth-unit") as HTMLSelectElement).value;
       const px = p.pixelBandwidth as number, total = px * p.matrix.read;
-      const fat = (last.fatShift as any).predicted.readout.px as number;
+      // EPI: the shift of one line (alternate lines move by ± this; no net shift), as the bandwidth's "px" entry means
+      const rd = (last.fatShift as any).predicted.readout;
+      const fat = (rd.perLinePx ?? rd.px) as number;
       el.value = u === "Hz/px" ? num(px) : u === "kHz" ? num(total / 1e3) : u === "±kHz" ? num(total / 2e3) : num(Math.abs(fat));
     } else el.value = c.from(p);
   }
@@ -301,6 +303,9 @@ function numbersTable(o: RunOutput): void {
     ["half bandwidth (±)", (d.halfBandwidth?.value ?? NaN) / 1e3, "kHz", "sequence.derived.halfBandwidth.value"],
     ["fat–water shift along read", fs.readout.px, "px", "fatShift.predicted.readout.px"],
     ["fat–water shift along read", fs.readout.mm, "mm", "fatShift.predicted.readout.mm"],
+    ...(fs.readout.perLinePx !== undefined
+      ? [["fat–water shift along read of alternate lines (±, EPI: no net shift)", fs.readout.perLinePx, "px", "fatShift.predicted.readout.perLinePx"] as [string, number, string, string]]
+      : []),
     ["fat–water shift along phase", fs.phase.px, "px", "fatShift.predicted.phase.px"],
     ["fat–water shift through the slice", fs.slice.mm, "mm", "fatShift.predicted.slice.mm"],
     ["fat frequency offset", (o.fatShift as any).fatHz, "Hz", "fatShift.fatHz"],
@@ -324,7 +329,9 @@ function numbersTable(o: RunOutput): void {
     ["", num(p.pixelBandwidth), "Hz/px", "", "protocol.pixelBandwidth"],
     ["", num(d.totalBandwidth?.value / 1e3), "kHz", " total", "sequence.derived.totalBandwidth.value"],
     ["±", num(d.halfBandwidth?.value / 1e3), "kHz", " half", "sequence.derived.halfBandwidth.value"],
-    ["", num(fs.readout.px), "px", " fat shift", "fatShift.predicted.readout.px"],
+    fs.readout.perLinePx !== undefined
+      ? ["", num(fs.readout.perLinePx), "px", " fat shift of alternate lines (±, EPI: no net shift)", "fatShift.predicted.readout.perLinePx"]
+      : ["", num(fs.readout.px), "px", " fat shift", "fatShift.predicted.readout.px"],
   ];
   for (const [pre, v, u, what, key] of parts) {
     const s = document.createElement("span");

@@ -108,7 +108,10 @@ function comparisonRows(fat: Obj): ComparisonRow[] {
     const pPx = num(p.px), mPx = num(m.px);
     if (axis === "phase" && !pPx && mPx === null) continue;
     const names: Record<string, string> = { "+x": "the patient's right", "-x": "the patient's left", "+y": "anterior", "-y": "posterior", "+z": "superior", "-z": "inferior" };
-    const dir = typeof p.direction === "string" && names[p.direction] ? `fat moves toward ${p.direction} (${names[p.direction]}); sign along the positive ${axis === "readout" ? "read" : "phase"} axis` : "";
+    const perLine = num(p.perLinePx);
+    const dir = axis === "readout" && perLine !== null
+      ? `EPI: the read gradient alternates, so alternate lines move by ±${fmt(Math.abs(perLine))} px and there is no net shift (their difference is a ghost at half the FOV along phase)`
+      : typeof p.direction === "string" && names[p.direction] ? `fat moves toward ${p.direction} (${names[p.direction]}); sign along the positive ${axis === "readout" ? "read" : "phase"} axis` : "";
     rows.push({ key: `fatShift.${axis}.px`, label: `fat shift along ${axis === "readout" ? "read" : "phase"}`, unit: "px", predicted: pPx, measured: mPx, note: dir });
     rows.push({ key: `fatShift.${axis}.mm`, label: `fat shift along ${axis === "readout" ? "read" : "phase"}`, unit: "mm", predicted: num(p.mm), measured: num(m.mm) });
   }
