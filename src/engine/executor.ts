@@ -18,7 +18,7 @@ import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
 import {
-  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fillRfMapsShared, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
+  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fillRfMapsShared, flooredEstimate, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
 } from "./fast.js";
 
@@ -354,7 +354,7 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
     const y = await runAll();
     const f = foldFinish(plan, y.re, y.im, shared);
     plan.fold = null;
-    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: f.estimate } };
+    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: flooredEstimate(f.estimate, tolerance) } };
     readout = foldRejected(readout, f.estimate.relL2, tolerance);
   }
   const k = await runAll();

@@ -100,7 +100,7 @@ export interface ReadoutReport {
    */
   sensitivityTerms?: { pairs: number; meanKept: number; of: number; maxBound: number };
   /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_SUBSET_MARGIN × the subset's relative L2 error). */
-  estimate?: { samples: number; seed: number; relL2: number };
+  estimate?: { samples: number; seed: number; relL2: number; floor?: number };
   /**
    * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
    * Lagrange interpolation between nodes `stepHz` apart (from the tolerance and the coherence span `span`, s), `nodes`
@@ -251,6 +251,41 @@ export const ESTIMATE_MARGIN = 3;
  */
 export const ESTIMATE_SUBSET_MARGIN = 5;
 export const ESTIMATE_SEED = 20031;
+/**
+ * The smallest estimate reported, as a fraction of the tolerance: the estimate resolves errors down to a tenth of
+ * the tolerance and reports that floor below it. A subset cannot see an error that sits on lines or samples
+ * outside it (e.g. one line of a spin echo whose line factor is truncated more than the others'), and the
+ * estimate's reference (the exact per-class states) and the direct operator's per-isochromat evolution may differ
+ * by amounts far below the tolerance. Over 54 random small cases of every preset and phantom (fast against
+ * direct, 1e-4 and 1e-6; before the floor and the stratified subset) the estimate fell below the true error in 7,
+ * by at most 9×; those errors were at most 5.8 % of the tolerance.
+ */
+export const ESTIMATE_FLOOR = 0.1;
+
+/** An estimate with the floor applied: relL2 at least ESTIMATE_FLOOR × tolerance, the floor stated beside it. */
+export function flooredEstimate<E extends { relL2: number }>(e: E, tolerance: number): E & { floor: number } {
+  const floor = ESTIMATE_FLOOR * tolerance;
+  return { ...e, relL2: Math.max(e.relL2, floor), floor };
+}
+
+/**
+ * `count` distinct picks from `items`, stratified by `key` (e.g. distance from the k-space centre): the first
+ * pick is the item of least key (the centre, which carries most of the signal: an error there weighs most); the
+ * other items, sorted by key, are cut into `count` − 1 strata of (nearly) equal size and one item is drawn from
+ * each by the seeded generator, so a subset always holds the centre, its neighbourhood and items far from it.
+ * Ties in key keep item order.
+ */
+export function stratifiedPicks<T>(items: readonly T[], count: number, key: (t: T) => number, rnd: () => number): T[] {
+  const sorted = items.map((t, i) => ({ t, i, k: key(t) })).sort((a, b) => a.k - b.k || a.i - b.i);
+  const n = Math.min(count, sorted.length);
+  if (n === 0) return [];
+  const out: T[] = [sorted[0]!.t], rest = sorted.length - 1;
+  for (let c = 0; c < n - 1; c++) {
+    const lo = 1 + Math.floor((c * rest) / (n - 1)), hi = 1 + Math.floor(((c + 1) * rest) / (n - 1));
+    out.push(sorted[lo + Math.floor(rnd() * (hi - lo))]!.t);
+  }
+  return out;
+}
 
 // ---------------------------------------------------------------------------
 // Pivoted Gram–Schmidt: an orthonormal basis of weighted complex vectors.
@@ -748,7 +783,7 @@ function fastPerGroup(
     method: `${first.method}, per slice-encoding step (${G} steps: the line factor is of low rank within a step)`,
     segments, lineRank: rank, lineGroups: G, split: splitMax,
     ...(first.pairs ? { pairs: { transformed, skipped, skippedBound } } : {}),
-    estimate: { samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(e2 / norm2) : 0 },
+    estimate: flooredEstimate({ samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(e2 / norm2) : 0 }, tolerance),
   };
   return { re: re!, im: im!, report };
 }
@@ -1136,6 +1171,7 @@ function fastLines(
     const twice = src.stream.interpStats.tableColumns > 0 ? 2 : 1;
     report.estimate.relL2 = Math.hypot(report.estimate.relL2, ESTIMATE_MARGIN * twice * interpErr);
   }
+  report.estimate = flooredEstimate(report.estimate, tolerance);
   return { re, im, report };
   } finally {
     helperBlocks = par ? par.end() : 0;
@@ -1620,15 +1656,16 @@ export function estimateOver(
   const rnd = mulberry32(ESTIMATE_SEED);
   const C = plan.classes, coils = plan.coils, sens = plan.sens, K = keyDf.length;
   // rows (distinct, each with its readouts' ky) and samples j per row
-  const allRows = [...new Set(actN.map((n) => h.adcs[n]!.op.row))];
+  // rows stratified by |ky| and samples by |kx| (one from each stratum): the subset always holds the centre of
+  // k-space, where most of the signal and often most of the error is, and its outer parts
+  const kyOf = new Map<number, number>();
+  actN.forEach((n, k) => kyOf.set(h.adcs[n]!.op.row, ky[k]!));
+  const allRows = [...kyOf.keys()];
   const NR = Math.min(ESTIMATE_ROWS, allRows.length), PJ = Math.min(ESTIMATE_SAMPLES / ESTIMATE_ROWS, ns);
-  const rows: number[] = [];
-  while (rows.length < NR) {
-    const r = allRows[Math.floor(rnd() * allRows.length)]!;
-    if (!rows.includes(r)) rows.push(r);
-  }
+  const rows = stratifiedPicks(allRows, NR, (r) => Math.abs(kyOf.get(r)!), rnd);
   const S = NR * PJ, js: number[] = [], kyRow = new Float64Array(NR);
-  for (let s = 0; s < S; s++) js.push(Math.floor(rnd() * ns));
+  const samplesJ = Array.from({ length: ns }, (_, j) => j);
+  for (let w = 0; w < NR; w++) js.push(...stratifiedPicks(samplesJ, PJ, (j) => Math.abs(kx0 + j * dkx), rnd));
   // Pr[c·NR + w] = Σ_{readouts n of row w} c_n·P_c(n) (all readouts of a row share its ky)
   const Pr = new Float64Array(2 * C * NR);
   for (let w = 0; w < NR; w++) {

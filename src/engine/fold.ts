@@ -35,7 +35,7 @@
  */
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
-import { DIRECT_NS_PER_UNIT, ESTIMATE_MARGIN, ESTIMATE_SEED, mulberry32, predictReadoutCosts, type ReadoutChoice, type ReadoutCosts, type ReadoutReport } from "./fast.js";
+import { DIRECT_NS_PER_UNIT, ESTIMATE_MARGIN, ESTIMATE_SEED, mulberry32, predictReadoutCosts, stratifiedPicks, type ReadoutChoice, type ReadoutCosts, type ReadoutReport } from "./fast.js";
 import type { EnginePlan, Op } from "./plan.js";
 import type { AdcOp, ReadoutScratch } from "./readout.js";
 import { readoutRecurrenceFast } from "./wasm.js";
@@ -585,10 +585,12 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   if (16 * length > FOLD_MAX_PARTIAL_BYTES) {
     return keep(`the fold's partial per chunk (${plan.coils} coils × ${NA} readouts × ${L} segments × ${positions} positions) would take ${(16 * length / 2 ** 20).toFixed(0)} MB, above ${FOLD_MAX_PARTIAL_BYTES / 2 ** 20} MB`);
   }
-  // the estimate's readouts: seeded, distinct
-  const rnd = mulberry32(ESTIMATE_SEED), picked = new Set<number>();
-  while (picked.size < E) picked.add(Math.floor(rnd() * NA));
-  const estAdcs = Int32Array.from([...picked].sort((x, y) => x - y)), estSlot = new Int32Array(NA).fill(-1);
+  // the estimate's readouts: seeded, distinct, stratified by the distance of their k-space row from the middle
+  // row (the centre of k-space in the centred layout), so that lines near the centre, which carry most of the
+  // signal, are among them
+  const rnd = mulberry32(ESTIMATE_SEED), mid = Math.floor(plan.rows / 2);
+  const picked = stratifiedPicks(Array.from({ length: NA }, (_, a) => a), E, (a) => Math.abs(adcs[a]!.row - mid), rnd);
+  const estAdcs = Int32Array.from(picked.sort((x, y) => x - y)), estSlot = new Int32Array(NA).fill(-1);
   estAdcs.forEach((a, k) => (estSlot[a] = k));
   // the transform over positions: the non-uniform FFT (kernel width from this factor's share of the tolerance) where it costs less
   let nsSum = 0;
