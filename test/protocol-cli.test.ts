@@ -23,8 +23,12 @@ describe("isofold protocol", () => {
     }
     expect(await inProcess("rare-t2-1.5t")).toMatch(/effectiveTe\s+96 ms/);
     expect(await inProcess("epi-1.5t")).toMatch(/echoSpacing\s+0\.81188 ms/);
-    // one slice-shift formula, with its sign, shared with report.json (analysis SLICE_SHIFT_FORMULA)
-    expect(await inProcess("se-t2-1.5t")).toMatch(/fatShiftSlice\s+\S+ mm\s+Δz = −Δf\/\(γ̄·G_slice\)/);
+    // one slice-shift formula, with its sign, shared with report.json (analysis SLICE_SHIFT_FORMULA); a spin echo
+    // also states the refocused slab's shift (its own gradient: SLICE_SHIFT_SPIN_ECHO)
+    expect(await inProcess("gre-t1-3t")).toMatch(/fatShiftSlice\s+\S+ mm\s+Δz = −Δf\/\(γ̄·G_slice\)/);
+    const se = await inProcess("se-t2-1.5t");
+    expect(se).toMatch(/fatShiftSlice\s+\S+ mm\s+spin echo: the excited slab moves by Δz = −Δf\/\(γ̄·G_excitation\)/);
+    expect(se).toMatch(/fatShiftSliceRefocused\s+\S+ mm\s+refocused slab: Δz = −Δf\/\(γ̄·G_refocusing\)/);
     // 4-shot EPI: effective echo spacing ESP/4 and the phase shift Δf·N·ESP/shots (Jezzard & Balaban 1995)
     const four = await inProcess("epi-4shot-3t");
     const esp = Number(/\bechoSpacing\s+([\d.]+) ms\s+2·ramp/.exec(four)![1]);

@@ -16,7 +16,9 @@
  *     Bernstein, King & Zhou 2004, ch. 16);
  *   - slice: a pulse of centre frequency γ̄·G_slice·w0 excites spins where
  *     γ̄·G_slice·w + Δf = γ̄·G_slice·w0, so Δw = −Δf/(γ̄·G_slice): fat is
- *     excited toward positive slice positions for G_slice > 0;
+ *     excited toward positive slice positions for G_slice > 0; a spin echo's
+ *     refocusing pulse selects its own slab, moved by −Δf/(γ̄·G_refocusing),
+ *     and the echo comes from where both slabs act (their overlap);
  *   - phase, EPI only: line n is acquired at TE + (n − c)·τ with
  *     k_n = (n − c)·Δk_y·s (s = ±1, the blip direction), so the phase
  *     −2π(k_n·v + Δf·(n − c)·τ) places the spin at v + s·Δf·τ/Δk_y:
@@ -63,6 +65,8 @@ export interface FatShiftInput {
   dxRead: number;
   /** Slice-select gradient (T/m), 0 for a non-selective pulse; slice thickness (m). */
   sliceGradient: number;
+  /** Spin echoes: slice-select gradient of the refocusing pulse (T/m); absent without one. */
+  refocusGradient?: number;
   /** Phase pixel size (m). */
   dyPhase: number;
   /** EPI only: time per phase-encoding step (s) = echo spacing / shots (see effectiveEchoSpacing), phase lines of the acquired grid (with phase oversampling), blip direction ±1. */
@@ -78,7 +82,8 @@ export interface FatShiftPrediction {
   /** Δf of fat relative to water (Hz). */
   hz: number;
   readout: AxisShift;
-  slice: { m: number; direction: string; note: string };
+  /** Slice: the excited slab's shift; spin echoes also the refocused slab's (`refocusedM`, its own gradient). */
+  slice: { m: number; direction: string; note: string; refocusedM?: number; refocusedDirection?: string };
   phase: AxisShift & { note: string };
 }
 
@@ -86,6 +91,7 @@ export interface FatShiftPrediction {
 export const READ_SHIFT_FORMULA = "Δx = sign(G_read)·Δf/BW_px pixels";
 export const READ_SHIFT_ALTERNATING = "EPI: the read gradient alternates, so alternate lines move by ±Δf/BW_px pixels and there is no net shift; the object is imaged as two copies 2·Δf/BW_px apart, and the lines' difference appears as a ghost at half the FOV along phase";
 export const SLICE_SHIFT_FORMULA = "Δz = −Δf/(γ̄·G_slice)";
+export const SLICE_SHIFT_SPIN_ECHO = "spin echo: the excited slab moves by Δz = −Δf/(γ̄·G_excitation) and the refocused one by −Δf/(γ̄·G_refocusing); fat signal comes from where the two overlap, so with different gradients its slice lies between the two shifts and is thinner by their difference";
 export const PHASE_SHIFT_FORMULA = "EPI: Δy = s_blip·Δf·N_phase·ESP/shots pixels (N_phase = phase lines of the acquired grid, phase oversampling included; ESP/shots = effective echo spacing)";
 
 function dir(value: number, axis: string): string {
@@ -123,6 +129,7 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
   const perLinePx = (p.readSign ?? 1) * hz / p.pixelBandwidth;
   const readPx = p.alternatingRead ? 0 : perLinePx;
   const sliceM = p.sliceGradient !== 0 ? -hz / (GAMMA_BAR * p.sliceGradient) : 0;
+  const refocusedM = p.refocusGradient ? -hz / (GAMMA_BAR * p.refocusGradient) : undefined;
   const epi = p.effectiveEchoSpacing !== undefined && p.phaseLines !== undefined;
   const phasePx = epi ? (p.blipSign ?? 1) * hz * p.phaseLines! * p.effectiveEchoSpacing! : 0;
   return {
@@ -134,7 +141,8 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
     slice: {
       m: sliceM,
       direction: dir(sliceM, p.axisNames.slice),
-      note: p.sliceGradient !== 0 ? SLICE_SHIFT_FORMULA : "non-selective excitation: no slice shift",
+      note: p.sliceGradient !== 0 ? (refocusedM !== undefined ? SLICE_SHIFT_SPIN_ECHO : SLICE_SHIFT_FORMULA) : "non-selective excitation: no slice shift",
+      ...(refocusedM !== undefined ? { refocusedM, refocusedDirection: dir(refocusedM, p.axisNames.slice) } : {}),
     },
     phase: {
       px: phasePx,
@@ -160,6 +168,7 @@ export function fatShiftInput(protocol: Protocol, seq: Sequence, ppm: number = F
     fieldT: protocol.field, ppm, pixelBandwidth: protocol.pixelBandwidth, readSign: protocol.readoutPolarity,
     dxRead: protocol.fov.read / protocol.matrix.read, dyPhase: protocol.fov.phase / protocol.matrix.phase,
     sliceGradient: q.sliceGradient,
+    ...(q.refocusGradient ? { refocusGradient: q.refocusGradient } : {}),
     ...(tau !== undefined
       ? { effectiveEchoSpacing: tau, phaseLines: q.phaseLinesEffective ?? seq.kspace.phase, blipSign: q.phaseBlipSign ?? 1, alternatingRead: true }
       : {}),

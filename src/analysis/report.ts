@@ -69,7 +69,10 @@ export function fatShiftReport(
         px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, note: main.readout.note,
         ...(main.readout.perLinePx !== undefined ? { perLinePx: main.readout.perLinePx } : {}),
       },
-      slice: { mm: main.slice.m * 1e3, direction: main.slice.direction, note: main.slice.note },
+      slice: {
+        mm: main.slice.m * 1e3, direction: main.slice.direction, note: main.slice.note,
+        ...(main.slice.refocusedM !== undefined ? { refocusedMm: main.slice.refocusedM * 1e3, refocusedDirection: main.slice.refocusedDirection } : {}),
+      },
       phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction, note: main.phase.note },
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px, sliceMm: mean.slice.m * 1e3 },
     },

@@ -90,6 +90,7 @@ export function protocolSummary(p: Protocol, seq: Sequence): Record<string, Deri
     ? { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; here ±${Math.abs(fx.readout.perLinePx).toFixed(3)} px per line; ${fat}` }
     : { value: fx.readout.px, unit: "px", note: `${fx.readout.note}; toward ${fx.readout.direction}; ${fat}` };
   d["fatShiftSlice"] = { value: fx.slice.m, unit: "m", note: `${fx.slice.note}; toward ${fx.slice.direction}; ${fat}` };
+  if (fx.slice.refocusedM !== undefined) d["fatShiftSliceRefocused"] = { value: fx.slice.refocusedM, unit: "m", note: `refocused slab: Δz = −Δf/(γ̄·G_refocusing); toward ${fx.slice.refocusedDirection}; ${fat}` };
   if (fx.phase.px !== 0) d["fatShiftPhase"] = { value: fx.phase.px, unit: "px", note: `${fx.phase.note}; toward ${fx.phase.direction}; ${fat}` };
   d["activeTime"] = { value: seq.activeTime, unit: "s", note: "per TR per slice: excitation to the end of the last gradient" };
   return d;

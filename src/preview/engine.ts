@@ -367,7 +367,7 @@ export async function runPreview(req: RunRequest, stop: () => boolean, onProgres
     fatHz: main.hz,
     predicted: {
       readout: { px: main.readout.px, mm: main.readout.m * 1e3, direction: main.readout.direction, ...(main.readout.perLinePx !== undefined ? { perLinePx: main.readout.perLinePx } : {}) },
-      slice: { mm: main.slice.m * 1e3, direction: main.slice.direction },
+      slice: { mm: main.slice.m * 1e3, direction: main.slice.direction, ...(main.slice.refocusedM !== undefined ? { refocusedMm: main.slice.refocusedM * 1e3 } : {}) },
       phase: { px: main.phase.px, mm: main.phase.m * 1e3, direction: main.phase.direction },
       multiPeakMean: { ppm: mean.ppm, readoutPx: mean.readout.px, phasePx: mean.phase.px },
     },

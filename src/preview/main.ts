@@ -307,7 +307,10 @@ function numbersTable(o: RunOutput): void {
       ? [["fat–water shift along read of alternate lines (±, EPI: no net shift)", fs.readout.perLinePx, "px", "fatShift.predicted.readout.perLinePx"] as [string, number, string, string]]
       : []),
     ["fat–water shift along phase", fs.phase.px, "px", "fatShift.predicted.phase.px"],
-    ["fat–water shift through the slice", fs.slice.mm, "mm", "fatShift.predicted.slice.mm"],
+    [fs.slice.refocusedMm !== undefined ? "fat–water shift through the slice, excited slab" : "fat–water shift through the slice", fs.slice.mm, "mm", "fatShift.predicted.slice.mm"],
+    ...(fs.slice.refocusedMm !== undefined
+      ? [["fat–water shift through the slice, refocused slab (spin echo)", fs.slice.refocusedMm, "mm", "fatShift.predicted.slice.refocusedMm"] as [string, number, string, string]]
+      : []),
     ["fat frequency offset", (o.fatShift as any).fatHz, "Hz", "fatShift.fatHz"],
     ["FOV along read", p.fov.read * 1e3, "mm", "protocol.fov.read"],
     ["FOV along phase", p.fov.phase * 1e3, "mm", "protocol.fov.phase"],

@@ -116,7 +116,11 @@ function comparisonRows(fat: Obj): ComparisonRow[] {
     rows.push({ key: `fatShift.${axis}.mm`, label: `fat shift along ${axis === "readout" ? "read" : "phase"}`, unit: "mm", predicted: num(p.mm), measured: num(m.mm) });
   }
   const sl = obj(pred.slice);
-  if (num(sl.mm) !== null) rows.push({ key: "fatShift.slice.mm", label: "fat shift along the slice normal", unit: "mm", predicted: num(sl.mm), measured: null, note: "predicted only: a 2D image cannot show it" });
+  if (num(sl.mm) !== null) {
+    const spinEcho = num(sl.refocusedMm) !== null;
+    rows.push({ key: "fatShift.slice.mm", label: spinEcho ? "fat shift along the slice normal, excited slab" : "fat shift along the slice normal", unit: "mm", predicted: num(sl.mm), measured: null, note: "predicted only: a 2D image cannot show it" });
+    if (spinEcho) rows.push({ key: "fatShift.slice.refocusedMm", label: "fat shift along the slice normal, refocused slab", unit: "mm", predicted: num(sl.refocusedMm), measured: null, note: "spin echo: the refocusing pulse's own gradient; fat signal comes from where the two slabs overlap" });
+  }
   return rows;
 }
 

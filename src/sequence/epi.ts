@@ -153,7 +153,7 @@ export function buildEpi(p: Protocol): Sequence {
     centre: { read: pos.echoSample, phase: pe.centre },
     timing: { teMin, trMin: active, te: p.te, tr: p.tr, scanTime },
     derived,
-    quantities: { sliceGradient: exc.pulse.gradient, echoSpacing: esp, effectiveEchoSpacing: tau },
+    quantities: { sliceGradient: exc.pulse.gradient, ...(ref ? { refocusGradient: ref.pulse.gradient } : {}), echoSpacing: esp, effectiveEchoSpacing: tau },
     grid: { read: pos.full, offset: pos.offset, reversed, partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false },
     phaseTable: table,
     activeTime: active,

@@ -146,7 +146,7 @@ export function buildRare(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin: espMin, trMin: active, te: (ec + 1) * esp, tr: p.tr, scanTime },
     derived,
-    quantities: { sliceGradient: exc.pulse.gradient, echoSpacing: esp },
+    quantities: { sliceGradient: exc.pulse.gradient, refocusGradient: ref.pulse.gradient, echoSpacing: esp },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(pe.lines).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false,

@@ -68,7 +68,7 @@ export function buildSe(p: Protocol): Sequence {
     centre: { read: ro.echoSample, phase: pe.centre },
     timing: { teMin, trMin, te: p.te, tr: p.tr, scanTime: total * p.tr },
     derived,
-    quantities: { sliceGradient: exc.pulse.gradient },
+    quantities: { sliceGradient: exc.pulse.gradient, refocusGradient: ref.pulse.gradient },
     grid: {
       read: ro.full, offset: ro.offset, reversed: ro.polarity < 0 ? new Uint8Array(pe.lines).fill(1) : null,
       partialFourier: { ...p.partialFourier }, phaseFirst: pe.first, threeD: false,

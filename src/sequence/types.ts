@@ -51,6 +51,8 @@ export type Block =
 export interface SequenceQuantities {
   /** Slice-select gradient during the excitation (T/m); 0 for a non-selective pulse. */
   sliceGradient: number;
+  /** Spin echoes: slice-select gradient during the refocusing pulse(s) (T/m); absent without one. */
+  refocusGradient?: number;
   /** Time between successive echoes of an echo train (s); absent without a train. */
   echoSpacing?: number;
   /** EPI: time between adjacent phase-encoding lines, echo spacing / shots (s); sets the phase-direction shift. */
