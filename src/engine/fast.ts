@@ -99,7 +99,11 @@ export interface ReadoutReport {
    * bound on a pair's relative error left out.
    */
   sensitivityTerms?: { pairs: number; meanKept: number; of: number; maxBound: number };
-  /** A-posteriori estimate: the direct sum on a seeded random subset of samples against the fast result (ESTIMATE_SUBSET_MARGIN × the subset's relative L2 error). */
+  /**
+   * A-posteriori estimate: the direct sum on a seeded, stratified subset of samples against the fast result
+   * (ESTIMATE_SUBSET_MARGIN × the subset's relative L2 error; the fold: ESTIMATE_MARGIN × its lines'), at least
+   * `floor` = ESTIMATE_FLOOR × tolerance.
+   */
   estimate?: { samples: number; seed: number; relL2: number; floor?: number };
   /**
    * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
@@ -1424,7 +1428,8 @@ export function mulberry32(seed: number): () => number {
  * A-posteriori error estimate: the direct sum over every isochromat, with the
  * exact per-class transverse state and exact phase and decay factors (no line
  * factor, no time segmentation, no FFT), on a seeded random subset of samples
- * — ESTIMATE_ROWS rows, ESTIMATE_SAMPLES / ESTIMATE_ROWS samples in each —
+ * — ESTIMATE_ROWS rows, ESTIMATE_SAMPLES / ESTIMATE_ROWS samples in each, stratified by distance from
+ * the k-space centre (stratifiedPicks: the centre row and the echo sample always) —
  * against the fast result: ESTIMATE_SUBSET_MARGIN × the relative L2 error on the
  * subset, all coils (the margin covers the sampling of the subset).
  */
