@@ -184,15 +184,16 @@ function e2e(c: E2E, runs: number): { seconds: number; iso: number; columns: num
 
 /** One line about a run's readout operator (report.json engine.readout). */
 function readoutNote(r: unknown): string {
-  const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number }; fallback?: string; requested?: string; predicted?: { directMs: number; fastMs: number | null } } | null;
+  const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number; measured?: number }; fallback?: string; requested?: string; predicted?: { directMs: number; fastMs: number | null } } | null;
   if (!o) return "";
   const auto = o.requested === "auto" && o.predicted ? `auto chose ${o.operator} (predicted direct ${o.predicted.directMs.toFixed(0)} ms, fast ${o.predicted.fastMs === null ? "n/a" : `${o.predicted.fastMs.toFixed(0)} ms`}); ` : "";
   if (o.operator !== "fast") return `${auto}${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
   const ip = (o as { b0Interpolation?: { nodes: number; stepHz: number; maxRelError: number } }).b0Interpolation;
   const interp = ip ? `, Δf interpolated (${ip.nodes.toLocaleString("en")} nodes ${ip.stepHz.toFixed(1)} Hz apart, probes ${ip.maxRelError.toExponential(1)})` : "";
   const method = (o as { method?: string }).method ?? "";
-  const how = /fold/.test(method) ? "fold" : `rank ${o.lineRank}`;
-  return `${auto}fast, L ${o.segments}, ${how}, estimate ${o.estimate?.relL2.toExponential(1)}${interp}`;
+  const how = /time-segmented fold/.test(method) ? "fold" : `rank ${o.lineRank}`;
+  const measured = o.estimate?.measured !== undefined && o.estimate.measured !== o.estimate.relL2 ? ` (measured ${o.estimate.measured.toExponential(1)}, below the floor)` : "";
+  return `${auto}fast, L ${o.segments}, ${how}, estimate ${o.estimate?.relL2.toExponential(1)}${measured}${interp}`;
 }
 
 /**

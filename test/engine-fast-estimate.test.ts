@@ -39,7 +39,7 @@ describe("stratifiedPicks", () => {
   });
 
   test("the floor: relL2 at least ESTIMATE_FLOOR × tolerance, the floor stated", () => {
-    expect(flooredEstimate({ samples: 16, seed: 1, relL2: 1e-9 }, 1e-6)).toEqual({ samples: 16, seed: 1, relL2: ESTIMATE_FLOOR * 1e-6, floor: ESTIMATE_FLOOR * 1e-6 });
+    expect(flooredEstimate({ samples: 16, seed: 1, relL2: 1e-9 }, 1e-6)).toEqual({ samples: 16, seed: 1, relL2: ESTIMATE_FLOOR * 1e-6, floor: ESTIMATE_FLOOR * 1e-6, measured: 1e-9 });
     expect(flooredEstimate({ samples: 16, seed: 1, relL2: 3e-7 }, 1e-6).relL2).toBe(3e-7);
     expect(ESTIMATE_FLOOR).toBeLessThan(1);
   });
@@ -93,6 +93,7 @@ describe("property: every protocol and phantom, small random cases", () => {
           expect(est.relL2, `${JSON.stringify(c)}: estimate ${est.relL2} against the true error ${err}`).toBeGreaterThanOrEqual(err);
           expect(est.relL2).toBeLessThanOrEqual(c.tolerance);
           expect(est.floor).toBe(ESTIMATE_FLOOR * c.tolerance);
+          expect(est.relL2).toBe(Math.max(est.measured!, est.floor!));
           return true;
         },
       ),

@@ -102,9 +102,9 @@ export interface ReadoutReport {
   /**
    * A-posteriori estimate: the direct sum on a seeded, stratified subset of samples against the fast result
    * (ESTIMATE_SUBSET_MARGIN × the subset's relative L2 error; the fold: ESTIMATE_MARGIN × its lines'), at least
-   * `floor` = ESTIMATE_FLOOR × tolerance.
+   * `floor` = ESTIMATE_FLOOR × tolerance; `measured` is the value before the floor.
    */
-  estimate?: { samples: number; seed: number; relL2: number; floor?: number };
+  estimate?: { samples: number; seed: number; relL2: number; floor?: number; measured?: number };
   /**
    * A B0 model giving more RF classes than exactClassesOver, interpolated in Δf (fast-stream.ts DfNodes): `order`-point
    * Lagrange interpolation between nodes `stepHz` apart (from the tolerance and the coherence span `span`, s), `nodes`
@@ -266,10 +266,10 @@ export const ESTIMATE_SEED = 20031;
  */
 export const ESTIMATE_FLOOR = 0.1;
 
-/** An estimate with the floor applied: relL2 at least ESTIMATE_FLOOR × tolerance, the floor stated beside it. */
-export function flooredEstimate<E extends { relL2: number }>(e: E, tolerance: number): E & { floor: number } {
+/** An estimate with the floor applied: relL2 at least ESTIMATE_FLOOR × tolerance; the floor and the value measured on the subset (`measured`) stated beside it. */
+export function flooredEstimate<E extends { relL2: number }>(e: E, tolerance: number): E & { floor: number; measured: number } {
   const floor = ESTIMATE_FLOOR * tolerance;
-  return { ...e, relL2: Math.max(e.relL2, floor), floor };
+  return { ...e, relL2: Math.max(e.relL2, floor), floor, measured: e.relL2 };
 }
 
 /**
