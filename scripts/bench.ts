@@ -186,7 +186,10 @@ function e2e(c: E2E, runs: number): { seconds: number; iso: number; columns: num
 function readoutNote(r: unknown): string {
   const o = r as { operator?: string; segments?: number; lineRank?: number; estimate?: { relL2: number; measured?: number }; fallback?: string; requested?: string; predicted?: { directMs: number; fastMs: number | null } } | null;
   if (!o) return "";
-  const auto = o.requested === "auto" && o.predicted ? `auto chose ${o.operator} (predicted direct ${o.predicted.directMs.toFixed(0)} ms, fast ${o.predicted.fastMs === null ? "n/a" : `${o.predicted.fastMs.toFixed(0)} ms`}); ` : "";
+  // where the time-segmented fold's prediction decided (the spoiled operator did not apply), its numbers
+  const fp = (o as { foldPredicted?: { directMs: number; fastMs: number | null } }).foldPredicted;
+  const pr = o.operator === "direct" && fp ? fp : o.predicted;
+  const auto = o.requested === "auto" && pr ? `auto chose ${o.operator} (predicted direct ${pr.directMs.toFixed(0)} ms, ${pr === fp ? "fold" : "fast"} ${pr.fastMs === null ? "n/a" : `${pr.fastMs.toFixed(0)} ms`}); ` : "";
   if (o.operator !== "fast") return `${auto}${o.operator ?? "?"}${o.fallback ? ` (${o.fallback})` : ""}`;
   const ip = (o as { b0Interpolation?: { nodes: number; stepHz: number; maxRelError: number } }).b0Interpolation;
   const interp = ip ? `, Δf interpolated (${ip.nodes.toLocaleString("en")} nodes ${ip.stepHz.toFixed(1)} Hz apart, probes ${ip.maxRelError.toExponential(1)})` : "";

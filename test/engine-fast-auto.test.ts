@@ -105,6 +105,24 @@ describe("readout auto: the cheaper operator by predicted cost", () => {
     expect(loose.fastMs!).toBeLessThan(tight.fastMs!);
     expect(loose.directMs).toBe(tight.directMs);
   });
+
+  test("where the spoiled operator does not apply (segmented EPI), the fold's own prediction decides, and the report says so", async () => {
+    // the run() path (streamed cells, then the stored isochromats for the fold or the direct readout)
+    const { run } = await import("../src/cli/pipeline.js");
+    const r = await run({
+      phantom: "phantoms/torso-slice.json", protocol: "epi-4shot-3t", sets: ["matrix.read=32", "matrix.phase=32"], out: join(tempDir(), "e4"), seed: 1, quiet: true,
+      iso: { density: 1, sliceCount: 3, sliceExtent: 3, fatModel: "multi", t2primeIsochromats: 1, offsetHz: 0 }, workers: 1, keepWarnings: true,
+    });
+    const ro = (r.report["engine"] as { readout: { operator: string; choice: string; fallback?: string; foldPredicted?: { directMs: number; fastMs: number } } }).readout;
+    expect(ro.foldPredicted).toBeDefined();
+    // the choice named is the operator that ran, by the fold's prediction (not the spoiled operator's, which did not apply)
+    const foldCheaper = ro.foldPredicted!.fastMs < ro.foldPredicted!.directMs;
+    expect(ro.choice).toBe(ro.operator);
+    if (ro.operator === "direct") {
+      expect(foldCheaper).toBe(false);
+      expect(ro.fallback).toMatch(/fold was predicted slower than the direct readout/);
+    } else expect(foldCheaper).toBe(true);
+  }, 60_000);
 });
 
 describe("the cost model's bounds on the line rank R and the segments L", () => {

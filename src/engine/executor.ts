@@ -264,7 +264,13 @@ export async function simulateCells(
     // the spoiled operator does not apply (e.g. EPI's alternating readouts): the stored isochromats go where
     // simulateWith sends them — the time-segmented fold where it is asked for or predicted cheaper, else direct
     const res = await storedWith(opts);
-    return { ...res, readout: res.readout.operator === "direct" ? { ...res.readout, requested, fallback: res.readout.fallback ?? r, ...auto } : res.readout };
+    // (where the fold's own prediction chose the direct readout, that choice stands: the spoiled operator's did not apply)
+    return {
+      ...res,
+      readout: res.readout.operator === "direct"
+        ? { ...res.readout, requested, fallback: res.readout.fallback ?? r, ...auto, ...(res.readout.foldPredicted ? { choice: res.readout.choice } : {}) }
+        : res.readout,
+    };
   }
   if (!(est <= tolerance)) {
     const fallback = `the fast operator's a-posteriori error estimate ${est.toExponential(2)} exceeded the tolerance ${tolerance} at the tightest truncation`;

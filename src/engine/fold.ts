@@ -628,7 +628,12 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
     segmentsBound: L, groups, slots: base.slots,
     model: "readout only (Bloch propagation is common to both): direct = readout groups × samples × coils; fold = groups × readouts × (group + segments × coils) + the estimate lines + the transform over positions (segments × coils × (positions × kernel width + FFT) with the non-uniform FFT, else segments × positions × samples × coils) + chunks × partial length (engine/fold.ts)",
   };
-  if (foldUnits >= directUnits) return { spec: null, report: { ...direct, foldPredicted: predicted } };
+  if (foldUnits >= directUnits) {
+    // auto: the direct readout runs because the fold was predicted slower, whatever the spoiled operator's attempt said
+    const why = `the time-segmented fold was predicted slower than the direct readout (readout alone: fold ${predicted.fastMs!.toFixed(0)} ms, direct ${predicted.directMs.toFixed(0)} ms)`;
+    // (a fallback names why a fast operator did not run where one was tried; a plain auto choice has none)
+    return { spec: null, report: { ...direct, choice: "direct", ...(direct.fallback ? { fallback: `${direct.fallback}; ${why}` } : {}), foldPredicted: predicted } };
+  }
   return { spec, report: { ...report, choice: "fast", predicted } };
 }
 
