@@ -499,15 +499,15 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
     }));
   // 3D: slice encoding is phase encoding (no chemical shift along it); the slab profile moves, so compare with the slab
   const sliceRef = threeD ? p.slice.thickness * Ms : p.slice.thickness;
-  // spin echoes: the refocused slab moves too (its own gradient); the item is the larger of the two shifts
+  // spin echoes: the refocused slab moves too (its own gradient), said beside the excited slab's shift (the item's value)
   const refM = fat.slice.refocusedM;
-  const sliceWorst = Math.max(Math.abs(fat.slice.m), Math.abs(refM ?? 0));
-  items.push(item("fatShiftSlice", "fat shift", "fat shift along the slice normal", fat.slice.m === 0 ? 0 : (sliceWorst / sliceRef) * 100, th,
+  const refText = refM !== undefined
+    ? `; the refocusing pulse moves its own slab ${mm(Math.abs(refM))} toward ${fat.slice.refocusedDirection} (${f1((Math.abs(refM) / sliceRef) * 100)} %, −Δf/(γ̄·G_refocusing)), and fat signal comes from where the two slabs overlap`
+    : "";
+  items.push(item("fatShiftSlice", "fat shift", "fat shift along the slice normal", fat.slice.m === 0 ? 0 : (Math.abs(fat.slice.m) / sliceRef) * 100, th,
     fat.slice.m === 0
       ? fat.slice.note
-      : refM !== undefined
-        ? `fat is excited ${mm(Math.abs(fat.slice.m))} toward ${fat.slice.direction} and refocused ${mm(Math.abs(refM))} toward ${fat.slice.refocusedDirection} (up to ${f1((sliceWorst / sliceRef) * 100)} % of the ${mm(sliceRef)} slice; Δz = −Δf/(γ̄·G) with each pulse's gradient): fat signal comes from where the two slabs overlap`
-        : `fat is excited ${mm(Math.abs(fat.slice.m))} toward ${fat.slice.direction}, ${f1((Math.abs(fat.slice.m) / sliceRef) * 100)} % of the ${mm(sliceRef)} ${threeD ? "slab (its profile moves; slice encoding itself has no shift)" : "slice"} (Δz = −Δf/(γ̄·G_slice))`,
+      : `fat is excited ${mm(Math.abs(fat.slice.m))} toward ${fat.slice.direction}, ${f1((Math.abs(fat.slice.m) / sliceRef) * 100)} % of the ${mm(sliceRef)} ${threeD ? "slab (its profile moves; slice encoding itself has no shift)" : "slice"} (Δz = −Δf/(γ̄·G_slice))${refText}`,
     { mm: fat.slice.m * 1e3, direction: fat.slice.direction, ...(refM !== undefined ? { refocusedMm: refM * 1e3, refocusedDirection: fat.slice.refocusedDirection } : {}) }));
   if (p.sequence === "epi") {
     items.push(item("fatShiftPhase", "fat shift", "fat shift along phase (EPI)", Math.abs(fat.phase.px), th,
