@@ -8,18 +8,19 @@
  * fails. A development tool, not a test: the suite's seeded property (test/engine-fast-estimate.test.ts) is its
  * small, fixed version. Each case takes a few seconds on 2 cores.
  */
-import { mkdtempSync, readFileSync, rmSync } from "node:fs";
+import { mkdtempSync, readdirSync, readFileSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
+import { listPresets } from "../src/cli/inputs.js";
 import { run } from "../src/cli/pipeline.js";
 import { decodeNpy } from "../src/io/npy.js";
 import { mulberry32 } from "../src/engine/fast.js";
 import { UserError } from "../src/errors.js";
 
 const ROOT = resolve(fileURLToPath(import.meta.url), "..", "..", "..");
-const PRESETS = ["bssfp-1.5t", "epi-1.5t", "epi-4shot-3t", "epi-se-1.5t", "gre-demo-1.5t", "gre-t1-3t", "gre3d-t1-1.5t", "rare-t2-1.5t", "se-t1-multislice-1.5t", "se-t2-1.5t"];
-const PHANTOMS = ["two-bottle", "torso-slice", "disc-shim-map", "air-sphere", "edge-grid", "disc"];
+const PRESETS = listPresets();
+const PHANTOMS = readdirSync(join(ROOT, "phantoms")).filter((f) => f.endsWith(".json")).map((f) => f.replace(/\.json$/, "")).sort();
 
 function complexKspace(dir: string): { re: Float64Array; im: Float64Array } {
   const a = decodeNpy(readFileSync(join(dir, "kspace.npy")), "kspace.npy");

@@ -9,6 +9,7 @@
 import { describe, expect, test } from "vitest";
 import fc from "fast-check";
 import { join, resolve } from "node:path";
+import { listPresets } from "../src/cli/inputs.js";
 import { prepare } from "../src/cli/pipeline.js";
 import { simulateSerial } from "../src/engine/index.js";
 import { ESTIMATE_FLOOR, flooredEstimate, mulberry32, stratifiedPicks } from "../src/engine/fast.js";
@@ -45,11 +46,13 @@ describe("stratifiedPicks", () => {
   });
 });
 
-const PRESETS = ["bssfp-1.5t", "epi-1.5t", "epi-4shot-3t", "epi-se-1.5t", "gre-demo-1.5t", "gre-t1-3t", "gre3d-t1-1.5t", "rare-t2-1.5t", "se-t1-multislice-1.5t", "se-t2-1.5t"];
+/** Every bundled preset (sorted by name). */
+const PRESETS = listPresets();
 const PHANTOMS = ["two-bottle", "torso-slice", "edge-grid", "disc-shim-map", "air-sphere"];
 
 describe("property: every protocol and phantom, small random cases", () => {
   test("fast within the tolerance of direct; the estimate at or above the true error (seeded)", () => {
+    expect(PRESETS.length).toBeGreaterThanOrEqual(10);
     let ran = 0;
     const operators = new Set<string>();
     fc.assert(

@@ -135,9 +135,10 @@ export function predictFatShift(p: FatShiftInput): FatShiftPrediction {
   return {
     ppm,
     hz,
-    readout: p.alternatingRead
-      ? { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_ALTERNATING, perLinePx }
-      : { px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read), note: READ_SHIFT_FORMULA },
+    readout: {
+      px: readPx, m: readPx * p.dxRead, direction: dir(readPx, p.axisNames.read),
+      ...(p.alternatingRead ? { note: READ_SHIFT_ALTERNATING, perLinePx } : { note: READ_SHIFT_FORMULA }),
+    },
     slice: {
       m: sliceM,
       direction: dir(sliceM, p.axisNames.slice),

@@ -485,18 +485,21 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   // ---- fat shift ----
   const fat = predictFatShift({ ...fatIn, ppm: FAT_SINGLE_PPM });
   const fatMean = predictFatShift({ ...fatIn, ppm: multiPeakMeanPpm() });
-  // EPI: alternate lines shift by ±Δf/BW_px (no net shift); the item is the size of that per-line shift
+  // along read: the shift, or in EPI (the read gradient alternates) the ± shift of alternate lines, which the item judges
   const dxRead = p.fov.read / p.matrix.read;
-  const alternating = (x: AxisShift): string =>
-    `the read gradient alternates (EPI), so alternate lines move by ±${f1(Math.abs(x.perLinePx!))} px = ±${mm(Math.abs(x.perLinePx! * dxRead))}: no net shift, two copies ${f1(2 * Math.abs(x.perLinePx!))} px apart, and their difference a ghost at half the FOV along phase`;
-  items.push(item("fatShiftRead", "fat shift", fat.readout.perLinePx !== undefined ? "fat shift along read (per line, EPI)" : "fat shift along read", Math.abs(fat.readout.perLinePx ?? fat.readout.px), th,
-    fat.readout.perLinePx !== undefined
-      ? `fat (${f1(fat.hz)} Hz at ${p.field} T) at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel): ${alternating(fat.readout)}`
-      : `fat (${f1(fat.hz)} Hz at ${p.field} T) moves ${f1(Math.abs(fat.readout.px))} px = ${mm(Math.abs(fat.readout.m))} toward ${fat.readout.direction} at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel)`,
-    {
-      px: fat.readout.px, mm: fat.readout.m * 1e3, direction: fat.readout.direction, multiPeakMeanPx: fatMean.readout.px,
-      ...(fat.readout.perLinePx !== undefined ? { perLinePx: fat.readout.perLinePx } : {}),
-    }));
+  const readShift = (x: AxisShift) => {
+    const d = { px: x.px, mm: x.m * 1e3, direction: x.direction };
+    if (x.perLinePx === undefined) return { perLine: false, value: Math.abs(x.px), text: `moves ${f1(Math.abs(x.px))} px = ${mm(Math.abs(x.m))} toward ${x.direction}`, detail: d };
+    const a = Math.abs(x.perLinePx);
+    return {
+      perLine: true, value: a, detail: { ...d, perLinePx: x.perLinePx },
+      text: `moves ±${f1(a)} px = ±${mm(a * dxRead)} in alternate lines (the read gradient alternates, EPI): no net shift, two copies ${f1(2 * a)} px apart, and their difference a ghost at half the FOV along phase`,
+    };
+  };
+  const fr = readShift(fat.readout);
+  items.push(item("fatShiftRead", "fat shift", fr.perLine ? "fat shift along read (per line, EPI)" : "fat shift along read", fr.value, th,
+    `fat (${f1(fat.hz)} Hz at ${p.field} T) at ${f1(p.pixelBandwidth)} Hz/px (Δf/BW per pixel) ${fr.text}`,
+    { ...fr.detail, multiPeakMeanPx: fatMean.readout.px }));
   // 3D: slice encoding is phase encoding (no chemical shift along it); the slab profile moves, so compare with the slab
   const sliceRef = threeD ? p.slice.thickness * Ms : p.slice.thickness;
   // spin echoes: the refocused slab moves too (its own gradient), said beside the excited slab's shift (the item's value)
@@ -650,15 +653,10 @@ export function checkProtocol(ph: Phantom, p: Protocol, seq: Sequence, opts: Che
   const dfAbs = Math.abs(dfMax) >= Math.abs(dfMin) ? dfMax : dfMin;
   const dRead = predictOffResonanceShift(fatIn, dfAbs);
   const b0Text = ph.b0Description ?? "no B0 model";
-  const dfText = `Δf in the ${threeD ? "slab" : "slice"} ${f1(dfMin)} … ${f1(dfMax)} Hz (${b0Text}${p.shim ? `, shim ${f1(p.shim)} Hz` : ""})`;
-  items.push(item("distortionRead", "distortion", dRead.readout.perLinePx !== undefined ? "distortion along read (B0, per line, EPI)" : "distortion along read (B0)", Math.abs(dRead.readout.perLinePx ?? dRead.readout.px), th,
-    dRead.readout.perLinePx !== undefined
-      ? `${dfText}: at the largest |Δf| (Δf/BW per pixel) ${alternating(dRead.readout)}`
-      : `${dfText}: largest displacement ${f1(Math.abs(dRead.readout.px))} px = ${mm(Math.abs(dRead.readout.m))} toward ${dRead.readout.direction} (Δf/BW per pixel)`,
-    {
-      dfMinHz: dfMin, dfMaxHz: dfMax, dfMeanHz: dfSum / nSig, px: dRead.readout.px, mm: dRead.readout.m * 1e3, direction: dRead.readout.direction,
-      ...(dRead.readout.perLinePx !== undefined ? { perLinePx: dRead.readout.perLinePx } : {}),
-    }));
+  const dr = readShift(dRead.readout);
+  items.push(item("distortionRead", "distortion", dr.perLine ? "distortion along read (B0, per line, EPI)" : "distortion along read (B0)", dr.value, th,
+    `Δf in the ${threeD ? "slab" : "slice"} ${f1(dfMin)} … ${f1(dfMax)} Hz (${b0Text}${p.shim ? `, shim ${f1(p.shim)} Hz` : ""}): at the largest |Δf| the image ${dr.text} (Δf/BW per pixel)`,
+    { dfMinHz: dfMin, dfMaxHz: dfMax, dfMeanHz: dfSum / nSig, ...dr.detail }));
   if (p.sequence === "epi") {
     items.push(item("distortionPhase", "distortion", "distortion along phase (B0, EPI)", Math.abs(dRead.phase.px), th,
       `largest displacement ${f1(Math.abs(dRead.phase.px))} px = ${mm(Math.abs(dRead.phase.m))} toward ${dRead.phase.direction} at Δf ${f1(dfAbs)} Hz (${dRead.phase.note})`,

@@ -18,7 +18,7 @@ import type { IsochromatCells } from "../isochromats/index.js";
 import { addInto, BlockSummer, blockChunks } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
 import {
-  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fillRfMapsShared, flooredEstimate, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
+  DEFAULT_TOLERANCE, MAX_CLASS_LINES, fastPrecheck, fillRfMapsShared, fastReadout, fastReadoutFrom, predictCosts, prepareHelperMemory, resolveReadout,
   type FastResult, type ReadoutChoice, type ReadoutCosts, type ReadoutOperator, type ReadoutReport,
 } from "./fast.js";
 
@@ -358,9 +358,9 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
   if (fold.spec) {
     plan.fold = fold.spec;
     const y = await runAll();
-    const f = foldFinish(plan, y.re, y.im, shared);
+    const f = foldFinish(plan, y.re, y.im, shared, tolerance);
     plan.fold = null;
-    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: flooredEstimate(f.estimate, tolerance) } };
+    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: f.estimate } };
     readout = foldRejected(readout, f.estimate.relL2, tolerance);
   }
   const k = await runAll();

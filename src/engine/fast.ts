@@ -770,9 +770,10 @@ function fastPerGroup(
     const e = once(worst, 10 * at[worst]!);
     if (e) return e;
   }
-  let samples = 0, segments = 0, rank = 0, splitMax = 0, transformed = 0, skipped = 0, skippedBound = 0, e2 = 0;
+  // the steps' estimates as measured (before their floors), weighted by their k-space energy, then the floor
+  let samples = 0, segments = 0, rank = 0, splitMax = 0, transformed = 0, skipped = 0, skippedBound = 0, m2 = 0;
   reports.forEach((r, g) => {
-    e2 += err2(g);
+    m2 += (r.estimate?.measured ?? 0) ** 2 * n2[g]!;
     samples += r.estimate?.samples ?? 0;
     segments = Math.max(segments, r.segments ?? 0);
     rank = Math.max(rank, r.lineRank ?? 0);
@@ -787,7 +788,7 @@ function fastPerGroup(
     method: `${first.method}, per slice-encoding step (${G} steps: the line factor is of low rank within a step)`,
     segments, lineRank: rank, lineGroups: G, split: splitMax,
     ...(first.pairs ? { pairs: { transformed, skipped, skippedBound } } : {}),
-    estimate: flooredEstimate({ samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(e2 / norm2) : 0 }, tolerance),
+    estimate: flooredEstimate({ samples, seed: ESTIMATE_SEED, relL2: norm2 > 0 ? Math.sqrt(m2 / norm2) : 0 }, tolerance),
   };
   return { re: re!, im: im!, report };
 }

@@ -35,7 +35,7 @@
  */
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
-import { DIRECT_NS_PER_UNIT, ESTIMATE_MARGIN, ESTIMATE_SEED, mulberry32, predictReadoutCosts, stratifiedPicks, type ReadoutChoice, type ReadoutCosts, type ReadoutReport } from "./fast.js";
+import { DIRECT_NS_PER_UNIT, ESTIMATE_MARGIN, ESTIMATE_SEED, flooredEstimate, mulberry32, predictReadoutCosts, stratifiedPicks, type ReadoutChoice, type ReadoutCosts, type ReadoutReport } from "./fast.js";
 import type { EnginePlan, Op } from "./plan.js";
 import type { AdcOp, ReadoutScratch } from "./readout.js";
 import { readoutRecurrenceFast } from "./wasm.js";
@@ -369,9 +369,12 @@ function adcOps(ops: Op[]): AdcOp[] {
 
 /**
  * The transform after all partials are summed: k-space [coil][row][read] from
- * Y, and the a-posteriori estimate against the exact estimate lines.
+ * Y, and the a-posteriori estimate against the exact estimate lines (at
+ * least its floor, a share of `tolerance`: flooredEstimate).
  */
-export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Array, iso: { uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array }): { re: Float64Array; im: Float64Array; estimate: { samples: number; seed: number; relL2: number } } {
+export function foldFinish(
+  plan: EnginePlan, yRe: Float64Array, yIm: Float64Array, iso: { uGrid: Float64Array; vGrid: Float64Array; wGrid: Float64Array }, tolerance: number,
+): { re: Float64Array; im: Float64Array; estimate: { samples: number; seed: number; relL2: number; floor: number; measured: number } } {
   const f = plan.fold!, L = f.L, P = f.positions, NA = f.adcs, coils = plan.coils, E = f.estAdcs.length;
   const re = new Float64Array(coils * plan.rows * plan.read), im = new Float64Array(re.length);
   const adcs = adcOps(plan.ops), tab = plan.tab;
@@ -471,7 +474,7 @@ export function foldFinish(plan: EnginePlan, yRe: Float64Array, yIm: Float64Arra
     re[k] = re[k]! + 0;
     im[k] = im[k]! + 0;
   }
-  return { re, im, estimate: { samples, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 } };
+  return { re, im, estimate: flooredEstimate({ samples, seed: ESTIMATE_SEED, relL2: den > 0 ? ESTIMATE_MARGIN * Math.sqrt(num / den) : 0 }, tolerance) };
 }
 
 /** s[j] += B_l(j)·x[j] for the n samples (one segment's share of a readout). */

@@ -12,7 +12,7 @@ import type { ReadoutChoice, ReadoutReport } from "./fast.js";
 import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BLOCK_CHUNKS, BlockSummer } from "./sum.js";
 import { chooseFold, foldFinish, foldRejected, partialLength } from "./fold.js";
-import { DEFAULT_TOLERANCE, flooredEstimate } from "./fast.js";
+import { DEFAULT_TOLERANCE } from "./fast.js";
 
 export { makePlan, planLayout, spoiledUnits, chunkStarts, countChunks, type PlanOptions, fillRfMaps, rfClasses, shareEngineArrays, CHUNK_ISOCHROMATS, HAS_SHARED_MEMORY, type EnginePlan } from "./plan.js";
 export { webWorkerExecutor, serveEngineWorker, type WebWorkerLike, type WebEngineRequest, type WebEngineReply } from "./web.js";
@@ -109,9 +109,9 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
   if (fold.spec) {
     plan.fold = fold.spec;
     const y = runAll();
-    const r = foldFinish(plan, y.re, y.im, iso);
+    const r = foldFinish(plan, y.re, y.im, iso, tolerance);
     plan.fold = null;
-    if (r.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: r.re, im: r.im }, plan, readout: { ...readout, estimate: flooredEstimate(r.estimate, tolerance) } };
+    if (r.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: r.re, im: r.im }, plan, readout: { ...readout, estimate: r.estimate } };
     readout = foldRejected(readout, r.estimate.relL2, tolerance);
   }
   const k = runAll();
