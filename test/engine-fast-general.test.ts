@@ -11,7 +11,7 @@ import { describe, expect, test } from "vitest";
 import { writeFileSync, readFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { prepare } from "../src/cli/pipeline.js";
-import { fitShape, serialExecutor, simulateSerial, webWorkerExecutor, type SimulateOptions } from "../src/engine/index.js";
+import { addInto, blockCount, fitShape, serialExecutor, shardBlocks, simulateSerial, simulateWith, webWorkerExecutor, type SimulateOptions } from "../src/engine/index.js";
 import { simulate } from "../src/api.js";
 import { simulateParallel } from "../src/engine/node.js";
 import type { IsochromatOptions, IsochromatSet } from "../src/isochromats/index.js";
@@ -204,11 +204,30 @@ describe("the fold's check can fail, and its bits do not depend on the executor"
     }
   }, 60_000);
 
-  test("sharded runs (blocks) keep the direct operator and say why", () => {
+  test("sharded runs fold every chunk and block 0 carries the folded k-space: the shards' block sums, added in block order as isofold merge adds them, give the unsharded bits", async () => {
     const p = prep("rare-t2-1.5t", ["matrix.read=16", "matrix.phase=16", "echoTrainLength=4", "te=40 ms"], {}, phantomWithB0(10));
-    const r = simulateSerial(p.seq, p.iso, { receiverFilter: p.protocol.receiverFilter, readout: "fast", blocks: [0, 1] });
-    expect(r.readout.operator).toBe("direct");
-    expect(r.readout.fallback).toMatch(/sharded/);
+    const o: SimulateOptions = { receiverFilter: p.protocol.receiverFilter, readout: "fast", chunkIsochromats: 64 };
+    const whole = simulateSerial(p.seq, p.iso, o);
+    expect(whole.readout.method).toMatch(/time-segmented fold/);
+    const total = blockCount(whole.plan.chunks);
+    expect(total).toBeGreaterThan(2);
+    const bits = (a: Float64Array) => Buffer.from(a.buffer, a.byteOffset, a.byteLength);
+    for (const n of [2, 3]) {
+      const sums: [Float64Array, Float64Array][] = [];
+      for (let i = 0; i < n; i++) {
+        const blocks = shardBlocks(total, i, n);
+        const keep = { ...o, blocks, onBlock: (b: number, re: Float64Array, im: Float64Array) => void (sums[b] = [re.slice(), im.slice()]) };
+        // both engine paths: the serial reference and an executor's
+        const r = i % 2 === 0 ? simulateSerial(p.seq, p.iso, keep) : await simulateWith(serialExecutor(), p.seq, p.iso, keep);
+        expect(r.readout.method, `shard ${i}/${n}`).toMatch(/time-segmented fold/);
+        expect(r.readout.sharding).toMatch(/block 0/);
+      }
+      expect(sums.length).toBe(total);
+      const re = new Float64Array(whole.kspace.re.length), im = new Float64Array(whole.kspace.im.length);
+      for (let b = 0; b < total; b++) addInto(re, im, sums[b]![0], sums[b]![1]);
+      expect(bits(re).equals(bits(whole.kspace.re)), `${n} shards, re`).toBe(true);
+      expect(bits(im).equals(bits(whole.kspace.im)), `${n} shards, im`).toBe(true);
+    }
   });
 
   test("bits: the Web Worker executor (in-process stand-ins, 1 and 2 workers) gives the serial fold k-space; the report says fast, the method, L and the estimate", async () => {

@@ -168,23 +168,28 @@ export function tryFast(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, opt
 
 /** The fast result as the run's k-space: no −0; with blocks (sharding) block 0 carries all of it. */
 function fastKspace(r: FastResult, plan: EnginePlan, opts: FastOptions): KSpace {
-  // no −0 (so adding the zero block sums of a sharded run keeps the bits)
-  for (let k = 0; k < r.re.length; k++) {
-    r.re[k] = r.re[k]! + 0;
-    r.im[k] = r.im[k]! + 0;
+  return wholeKspace(r.re, r.im, plan, opts, r.report, "fast");
+}
+
+/**
+ * A k-space computed whole (the fast operator's, or the time-segmented fold's) as the run's: −0 made +0
+ * (so adding the zero block sums of a sharded run keeps the bits); with blocks (sharding) every shard has
+ * computed the same k-space and made the same decision, block 0 carries all of it and every other block is
+ * zero, so the merged shards equal the single run bit for bit.
+ */
+export function wholeKspace(re: Float64Array, im: Float64Array, plan: EnginePlan, opts: { blocks?: [number, number]; onBlock?: (b: number, re: Float64Array, im: Float64Array) => void; onProgress?: (done: number, total: number) => void }, report: ReadoutReport, what: string): KSpace {
+  for (let k = 0; k < re.length; k++) {
+    re[k] = re[k]! + 0;
+    im[k] = im[k]! + 0;
   }
-  let re = r.re, im = r.im;
   if (opts.blocks) {
-    // Sharded: every shard computes the same fast k-space (and the same
-    // decision); block 0 carries all of it, every other block is zero, so the
-    // merged shards equal the single run bit for bit.
     const zr = new Float64Array(re.length), zi = new Float64Array(re.length);
     for (let b = opts.blocks[0]; b < opts.blocks[1]; b++) opts.onBlock?.(b, b === 0 ? re : zr, b === 0 ? im : zi);
     if (opts.blocks[0] > 0 || opts.blocks[1] <= 0) {
       re = zr;
       im = zi;
     }
-    r.report.sharding = "the shard holding block 0 carries the whole fast k-space; the other shards' blocks are zero";
+    report.sharding = `the shard holding block 0 carries the whole ${what} k-space; the other shards' blocks are zero`;
   }
   opts.onProgress?.(1, 1);
   return { coils: plan.coils, rows: plan.rows, read: plan.read, re, im };
@@ -330,8 +335,10 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
   const tolerance = opts.tolerance ?? DEFAULT_TOLERANCE;
   const fold = chooseFold(seq, shared, plan, opts, readout, tolerance);
   readout = fold.report;
-  const [c0, c1] = chunkRange(plan, opts.blocks);
-  const runAll = async (): Promise<{ re: Float64Array; im: Float64Array }> => {
+  // the fold runs every chunk, a shard's too (its partials are not k-space block sums: the whole fold is finished and
+  // block 0 carries it, as for the fast operator); the direct readout runs the shard's blocks
+  const runAll = async (whole: boolean): Promise<{ re: Float64Array; im: Float64Array }> => {
+    const [c0, c1] = whole ? [0, plan.chunks] : chunkRange(plan, opts.blocks);
     const session = executor.open(plan, shared, Math.max(1, c1 - c0, plan.classes >= PARALLEL_RF_CLASSES ? Infinity : 1));
     try {
       if (filled) { /* filled for the fast attempt (or the fold's first pass) */ }
@@ -341,7 +348,7 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
       const size = partialLength(plan);
       const re = new Float64Array(size), im = new Float64Array(size);
       const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
-        opts.onBlock?.(b, bre, bim);
+        if (!whole) opts.onBlock?.(b, bre, bim);
         addInto(re, im, bre, bim);
       });
       let done = 0;
@@ -357,12 +364,15 @@ export async function simulateWith(executor: Executor, seq: Sequence, iso: Isoch
   };
   if (fold.spec) {
     plan.fold = fold.spec;
-    const y = await runAll();
+    const y = await runAll(true);
     const f = foldFinish(plan, y.re, y.im, shared, tolerance);
     plan.fold = null;
-    if (f.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: f.re, im: f.im }, plan, readout: { ...readout, estimate: f.estimate } };
+    if (f.estimate.relL2 <= tolerance) {
+      const report = { ...readout, estimate: f.estimate };
+      return { kspace: wholeKspace(f.re, f.im, plan, opts, report, "folded"), plan, readout: report };
+    }
     readout = foldRejected(readout, f.estimate.relL2, tolerance);
   }
-  const k = await runAll();
+  const k = await runAll(false);
   return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: k.re, im: k.im }, plan, readout };
 }

@@ -537,8 +537,8 @@ export function chooseFold(seq: Sequence, iso: IsochromatSet, plan: EnginePlan, 
   const requested = opts.readout ?? "auto";
   const keep = (fallback?: string): FoldChoice => ({ spec: null, report: requested === "fast" && fallback ? { ...direct, fallback } : direct });
   if (requested === "direct" || opts.general) return { spec: null, report: direct };
-  if (opts.blocks) return keep("sharded run (blocks): the time-segmented fold's chunk partials are not k-space block sums, so the direct operator keeps shards mergeable");
-  if (opts.onBlock) return keep("block sums were asked for (onBlock): the time-segmented fold's chunk partials are not k-space");
+  // (a sharded run folds every chunk and block 0 carries the finished k-space: executor.ts wholeKspace)
+  if (opts.onBlock && !opts.blocks) return keep("block sums were asked for (onBlock): the time-segmented fold's chunk partials are not k-space");
   const adcs = adcOps(plan.ops), NA = adcs.length;
   if (NA === 0) return keep("no readout");
   // (Δf, R2) range of the isochromats carrying magnetization

@@ -7,7 +7,7 @@
 import type { IsochromatSet } from "../isochromats/index.js";
 import type { Sequence } from "../sequence/types.js";
 import { ChunkScratch, runChunk } from "./chunk.js";
-import { chunkRange, tryFast, type KSpace } from "./executor.js";
+import { chunkRange, tryFast, wholeKspace, type KSpace } from "./executor.js";
 import type { ReadoutChoice, ReadoutReport } from "./fast.js";
 import { makePlan, type EnginePlan } from "./plan.js";
 import { addInto, BLOCK_CHUNKS, BlockSummer } from "./sum.js";
@@ -70,8 +70,10 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
   const plan = makePlan(seq, iso, { receiverFilter: opts.receiverFilter, coils: opts.coils, sens: opts.sens, chunkIsochromats: opts.chunkIsochromats, general: opts.general, wasm: opts.wasm });
   const f = tryFast(seq, iso, plan, opts);
   if (f.kspace) return { kspace: f.kspace, plan, readout: f.readout };
-  const [c0, c1] = chunkRange(plan, opts.blocks);
-  const runAll = (): { re: Float64Array; im: Float64Array } => {
+  // the fold runs every chunk, a shard's too (its partials are not k-space block sums: the whole fold is finished and
+  // block 0 carries it, as for the fast operator); the direct readout runs the shard's blocks
+  const runAll = (whole: boolean): { re: Float64Array; im: Float64Array } => {
+    const [c0, c1] = whole ? [0, plan.chunks] : chunkRange(plan, opts.blocks);
     const size = partialLength(plan);
     if (c1 - c0 === 1) {
       // one chunk (e.g. the probe column of the through-slice check): the fixed order gives the
@@ -82,7 +84,7 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
         re[j] = 0 + re[j]!;
         im[j] = 0 + im[j]!;
       }
-      opts.onBlock?.(Math.floor(c0 / BLOCK_CHUNKS), re, im);
+      if (!whole) opts.onBlock?.(Math.floor(c0 / BLOCK_CHUNKS), re, im);
       opts.onProgress?.(1, 1);
       return { re, im };
     }
@@ -90,7 +92,7 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
     const pr = new Float64Array(size), pi = new Float64Array(size);
     const scratch = new ChunkScratch(plan);
     const summer = new BlockSummer(size, c0, c1, (b, bre, bim) => {
-      opts.onBlock?.(b, bre, bim);
+      if (!whole) opts.onBlock?.(b, bre, bim);
       addInto(re, im, bre, bim);
     });
     for (let c = c0; c < c1; c++) {
@@ -108,13 +110,16 @@ export function simulateSerial(seq: Sequence, iso: IsochromatSet, opts: Simulate
   let readout = fold.report;
   if (fold.spec) {
     plan.fold = fold.spec;
-    const y = runAll();
+    const y = runAll(true);
     const r = foldFinish(plan, y.re, y.im, iso, tolerance);
     plan.fold = null;
-    if (r.estimate.relL2 <= tolerance) return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: r.re, im: r.im }, plan, readout: { ...readout, estimate: r.estimate } };
+    if (r.estimate.relL2 <= tolerance) {
+      const report = { ...readout, estimate: r.estimate };
+      return { kspace: wholeKspace(r.re, r.im, plan, opts, report, "folded"), plan, readout: report };
+    }
     readout = foldRejected(readout, r.estimate.relL2, tolerance);
   }
-  const k = runAll();
+  const k = runAll(false);
   return { kspace: { coils: plan.coils, rows: plan.rows, read: plan.read, re: k.re, im: k.im }, plan, readout };
 }
 export { checkSliceConvergence, SLICE_CONVERGENCE_TOLERANCE, type SliceConvergence } from "./convergence.js";
