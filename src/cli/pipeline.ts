@@ -324,7 +324,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
     isoSummary: { count: p.cells.count, columns: p.cells.columns, warnings: p.cells.warnings, spreads: spreadSummary(p.cells), sampling: p.sampling, extent: p.cells.extent, notes: p.cells.notes },
     engine: { chunks: plan.chunks, rfClasses: plan.classes, ops: plan.ops.length, workers: o.workers ?? defaultWorkers(), readout },
   });
-  printWarnings([...p.protocol.warnings, ...p.cells.warnings]);
+  if (!o.keepWarnings) printWarnings([...p.protocol.warnings, ...p.cells.warnings]);
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
 }
 
