@@ -121,6 +121,8 @@ describe("isofold simulate / merge", () => {
       ...parts.map((out, i) => [...FAST, "--shard", `${i}/2`, "-o", out]),
     ]);
     for (const r of runs) expect(r.status, r.stderr).toBe(0);
+    // each shard computed the whole fast k-space and says what would split the run (printed under -q too, as warnings are)
+    for (const r of runs.slice(2)) expect(r.stderr).toMatch(/note: this shard computed the whole k-space .*--readout direct/);
     for (const out of outs) {
       const rep = JSON.parse(readFileSync(join(out, "report.json"), "utf8")) as { engine: { readout: { operator: string; estimate: { relL2: number } } } };
       expect(rep.engine.readout.operator).toBe("fast");
