@@ -87,7 +87,7 @@ export function addSimulationOptions(c: Command): Command {
     .addOption(new Option("--readout <operator>", "readout operator: auto (the cheaper of fast and direct by a cost predicted from the plan; report.json gives both predictions), fast (time segmentation, within --tolerance: with an exact FFT of the isochromat grid for ideally spoiled Cartesian gradient echo, and a fold of the readout groups per line for every other sequence; falls back to direct where it does not apply, and report.json says why) or direct (every isochromat at every sample)").choices(["auto", "fast", "direct"]).default("auto"))
     .option("--tolerance <rel>", "relative L2 error of k-space allowed to the fast readout operator (dimensionless); 1e-12–0.1", numArg("--tolerance", 1e-12, 0.1), 1e-6)
     .option("--workers <n>", "engine worker threads; default: the cores available; 1 keeps the whole run on one thread", intArg("--workers", 1, 256))
-    .option("--shard <i/N>", "run only shard i of N (0 ≤ i < N) and write a partial k-space (partial.npy, partial.json) for `isofold merge`", shardArg)
+    .option("--shard <i/N>", "run only shard i of N (0 ≤ i < N) and write a partial k-space (partial.npy, partial.json) for `isofold merge`; shards split the direct readout's work (a fast or folded run computes the whole k-space in every shard: add --readout direct to split it)", shardArg)
     .option("--max-memory <GiB>", "refuse runs whose estimated memory exceeds this many GiB; default 80 % of the machine's memory", numArg("--max-memory", 0.001, 1e6))
     .option("-q, --quiet", "no progress line on stderr");
 }
