@@ -327,7 +327,7 @@ async function runShard(p: ReturnType<typeof prepare>, o: RunOptions, t0: number
   if (!o.keepWarnings) printWarnings([...p.protocol.warnings, ...p.cells.warnings]);
   if (readout.sharding && !o.keepWarnings) {
     // every shard of a fast or folded run computes the whole k-space (same bits as the single run): say what would split it
-    process.stderr.write(`note: this shard computed the whole k-space (${readout.operator === "fast" ? readout.method ?? "fast readout" : readout.operator}); ` +
+    process.stderr.write(`note: this shard computed the whole k-space (${/time-segmented fold/.test(readout.method ?? "") ? "the time-segmented fold" : "the fast readout operator"}); ` +
       `sharding divides only the direct readout's work: --readout direct on every shard splits the run (the merge is then the unsharded direct run's bytes)\n`);
   }
   return { dir: o.out, files, seconds: (Date.now() - t0) / 1000, report: {} };
